@@ -1,0 +1,83 @@
+"""The one place where library errors become HTTP answers.
+
+Every error body has the same shape, ``{"error": {"code", "message", ...}}``,
+whether it comes from our own exceptions, from request validation or from
+an unexpected bug (which answers 500 without leaking a traceback).
+"""
+
+from __future__ import annotations
+
+import logging
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from models.errors import (
+    AuthError,
+    InputError,
+    LimitExceeded,
+    NotFound,
+    NotReady,
+    SoundingError,
+    StoreError,
+)
+
+log = logging.getLogger("sounding.api")
+
+STATUS: list[tuple[type[SoundingError], int]] = [
+    (LimitExceeded, 413),
+    (InputError, 422),
+    (NotFound, 404),
+    (NotReady, 409),
+    (AuthError, 401),
+    (StoreError, 503),
+]
+
+
+def status_for(exc: SoundingError) -> int:
+    for cls, code in STATUS:
+        if isinstance(exc, cls):
+            return code
+    return 400
+
+
+def install(app: FastAPI) -> None:
+    @app.exception_handler(SoundingError)
+    async def _ours(_req: Request, exc: SoundingError) -> JSONResponse:
+        headers = {"WWW-Authenticate": "Bearer"} if isinstance(exc, AuthError) else None
+        return JSONResponse({"error": exc.to_dict()}, status_code=status_for(exc), headers=headers)
+
+    @app.exception_handler(RequestValidationError)
+    async def _validation(_req: Request, exc: RequestValidationError) -> JSONResponse:
+        problems = []
+        for e in exc.errors():
+            loc = ".".join(str(p) for p in e.get("loc", ()) if p != "body")
+            problems.append({"where": loc, "message": e.get("msg", "invalid")})
+        first = problems[0] if problems else {"where": None, "message": "invalid request"}
+        body = {
+            "code": "invalid_request",
+            "message": f"{first['where']}: {first['message']}" if first["where"] else first["message"],
+            "problems": problems,
+        }
+        return JSONResponse({"error": body}, status_code=422)
+
+    @app.exception_handler(StarletteHTTPException)
+    async def _http(_req: Request, exc: StarletteHTTPException) -> JSONResponse:
+        code = {404: "not_found", 405: "method_not_allowed", 401: "unauthorized"}.get(
+            exc.status_code, "http_error"
+        )
+        return JSONResponse(
+            {"error": {"code": code, "message": str(exc.detail)}},
+            status_code=exc.status_code,
+            headers=getattr(exc, "headers", None),
+        )
+
+    @app.exception_handler(Exception)
+    async def _bug(_req: Request, exc: Exception) -> JSONResponse:
+        log.exception("unexpected error")
+        return JSONResponse(
+            {"error": {"code": "internal", "message": "an unexpected error happened; see the server log"}},
+            status_code=500,
+        )

@@ -1,0 +1,84 @@
+"""The Typer app, its error handling and helpers shared by command modules."""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+from pathlib import Path
+from typing import Any
+
+import click
+import typer
+from rich.console import Console
+from typer.core import TyperGroup
+
+from models.embedding import Embedder
+from models.errors import SoundingError
+
+from ..settings import Settings
+from ..workspace import Workspace
+
+out = Console(soft_wrap=True)
+err = Console(stderr=True, soft_wrap=True)
+
+
+class _Group(TyperGroup):
+    """Turns the library's named errors into clean messages."""
+
+    def invoke(self, ctx: click.Context) -> Any:
+        try:
+            return super().invoke(ctx)
+        except SoundingError as exc:
+            raise click.ClickException(str(exc)) from None
+
+
+app = typer.Typer(
+    cls=_Group,
+    name="sounding",
+    help="A sounding board for social-media drafts, from your team's own post history.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_show_locals=False,
+)
+
+
+@app.callback()
+def _root(
+    home: Path | None = typer.Option(
+        None, "--home", help="Data directory (default: $SOUNDING_HOME or ./.sounding)."
+    ),
+) -> None:
+    if home is not None:
+        os.environ["SOUNDING_HOME"] = str(home)
+
+
+_workspace: Workspace | None = None
+_embedder: Embedder | None = None
+
+
+def workspace() -> Workspace:
+    """The workspace of this invocation. The embedder is kept per process,
+    so tests that run many commands load the model once."""
+    global _workspace, _embedder
+    settings = Settings()
+    if _workspace is None or _workspace.settings.resolved_home != settings.resolved_home:
+        if _workspace is not None:
+            _workspace.close()
+        _workspace = Workspace(settings=settings, embedder=_embedder)
+        _embedder = _workspace.embedder
+    return _workspace
+
+
+def use_embedder(embedder: Embedder) -> None:
+    """Share an already loaded embedder (the test suite's one)."""
+    global _embedder, _workspace
+    _embedder, _workspace = embedder, None
+
+
+def print_json(data: Any) -> None:
+    sys.stdout.write(json.dumps(data, indent=2, ensure_ascii=False, default=str) + "\n")
+
+
+def is_terminal() -> bool:
+    return sys.stdout.isatty()

@@ -1,0 +1,83 @@
+"""Settings, read from ``SOUNDING_*`` environment variables.
+
+Everything that a team may want to tune lives here, so the CLI, the API and
+the tests share one source of truth. Paths are resolved against
+``SOUNDING_HOME`` (default ``./.sounding``), the data directory that holds
+the database, the index and trained models; nothing is written into the
+source tree.
+"""
+
+from __future__ import annotations
+
+from functools import cached_property
+from pathlib import Path
+
+from pydantic import Field, SecretStr
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+
+class Settings(BaseSettings):
+    model_config = SettingsConfigDict(env_prefix="SOUNDING_", extra="ignore")
+
+    home: Path = Field(default=Path(".sounding"), description="Data directory.")
+    database_url: str | None = Field(
+        default=None,
+        description="SQLAlchemy URL; default is a SQLite file in the data directory.",
+    )
+    token: SecretStr | None = Field(
+        default=None, description="Bearer token required for changes over HTTP."
+    )
+
+    # Embedding
+    embed_batch_size: int = 64
+    embed_model_path: Path | None = Field(
+        default=None,
+        description="Directory of a sentence-transformers model; default is the bundled one.",
+    )
+
+    # Import
+    import_batch_rows: int = Field(default=500, ge=1)
+
+    # Forecasting
+    maturity_hours: float = Field(default=48.0, ge=0)
+    neighbours: int = Field(default=20, ge=1, le=200)
+    similar_threshold: float = Field(default=0.5, ge=-1, le=1)
+    baseline_posts: int = Field(default=20, ge=1)
+    min_history_posts: int = Field(default=20, ge=1)
+
+    # Near-repeat warnings
+    repeat_similarity: float = Field(default=0.9, ge=-1, le=1)
+    repeat_window_days: float = Field(default=30.0, gt=0)
+    team_repeat_window_days: float = Field(default=7.0, gt=0)
+
+    # Limits
+    max_draft_chars: int = Field(default=5000, ge=1)
+    max_batch: int = Field(default=500, ge=1)
+    max_upload_bytes: int = Field(default=50 * 1024 * 1024, ge=1)
+    max_k: int = Field(default=100, ge=1)
+
+    @cached_property
+    def resolved_home(self) -> Path:
+        return self.home.expanduser().resolve()
+
+    @property
+    def db_url(self) -> str:
+        if self.database_url:
+            return self.database_url
+        return f"sqlite:///{self.resolved_home / 'sounding.db'}"
+
+    @property
+    def index_dir(self) -> Path:
+        return self.resolved_home / "index"
+
+    @property
+    def models_dir(self) -> Path:
+        return self.resolved_home / "forecasters"
+
+    @property
+    def uploads_dir(self) -> Path:
+        return self.resolved_home / "uploads"
+
+
+def get_settings() -> Settings:
+    return Settings()

@@ -1,0 +1,460 @@
+"""The history store: accounts, posts, metric snapshots and vectors.
+
+A library first: the CLI and the API call these methods and nothing below
+them. Every write happens in one transaction, so a failure or a kill never
+leaves half a row; the SQLite file runs in WAL mode so readers (forecasts)
+go on while an import writes.
+"""
+
+from __future__ import annotations
+
+import re
+import sqlite3
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import create_engine, delete, event, func, select
+from sqlalchemy.engine import Engine
+from sqlalchemy.exc import OperationalError, SQLAlchemyError
+from sqlalchemy.orm import Session, sessionmaker
+
+from models.errors import InputError, NotFound, StoreError
+from models.index import fingerprint
+from models.metrics import METRIC_COLUMNS
+
+from .tables import Account, Base, Post, Snapshot, Vector
+from .timeparse import as_utc, now_utc, to_naive_utc, zone
+
+_LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
+
+
+def has_link(text: str) -> bool:
+    """Whether a text carries a link (a URL with a scheme, or www.)."""
+    return bool(_LINK.search(text))
+
+
+@dataclass(frozen=True, slots=True)
+class AccountInfo:
+    handle: str
+    display_name: str | None
+    timezone: str
+    posts: int = 0
+
+
+@dataclass(slots=True)
+class PostRow:
+    """One validated post of an import, ready to be written."""
+
+    account: str
+    post_id: str
+    text: str
+    posted_at: datetime  # aware UTC
+    metrics: dict[str, int | None]
+    has_media: bool | None
+    vector_key: str
+    line: int = 0
+
+
+@dataclass(slots=True)
+class BatchResult:
+    added: int = 0
+    updated: int = 0
+    unchanged: int = 0
+    changed_pks: list[int] = field(default_factory=list)
+
+
+def _sqlite_pragmas(dbapi_conn: Any, _record: Any) -> None:
+    if isinstance(dbapi_conn, sqlite3.Connection):
+        cur = dbapi_conn.cursor()
+        cur.execute("PRAGMA journal_mode=WAL")
+        cur.execute("PRAGMA foreign_keys=ON")
+        cur.execute("PRAGMA synchronous=NORMAL")
+        cur.execute("PRAGMA busy_timeout=30000")
+        cur.close()
+
+
+class Store:
+    """Access to one store, addressed by a SQLAlchemy URL."""
+
+    def __init__(self, *, url: str) -> None:
+        self.url = url
+        if url.startswith("sqlite:///"):
+            Path(url.removeprefix("sqlite:///")).parent.mkdir(parents=True, exist_ok=True)
+        try:
+            self.engine: Engine = create_engine(
+                url,
+                connect_args={"check_same_thread": False, "timeout": 30}
+                if url.startswith("sqlite")
+                else {},
+            )
+            if url.startswith("sqlite"):
+                event.listen(self.engine, "connect", _sqlite_pragmas)
+            Base.metadata.create_all(self.engine)
+        except SQLAlchemyError as exc:
+            raise StoreError(f"cannot open the store at {url}: {exc}") from None
+        self._sessions = sessionmaker(self.engine, expire_on_commit=False)
+
+    @contextmanager
+    def session(self) -> Iterator[Session]:
+        """A transaction: committed on success, rolled back on any error."""
+        s = self._sessions()
+        try:
+            yield s
+            s.commit()
+        except OperationalError as exc:
+            s.rollback()
+            raise StoreError(f"the store is unavailable: {exc.orig}") from None
+        except BaseException:
+            s.rollback()
+            raise
+        finally:
+            s.close()
+
+    def close(self) -> None:
+        self.engine.dispose()
+
+    # Accounts -------------------------------------------------------------
+
+    def set_account(
+        self, handle: str, *, display_name: str | None = None, timezone: str | None = None
+    ) -> AccountInfo:
+        """Create or update an account. A new account starts in UTC."""
+        handle = _check_handle(handle)
+        if timezone is not None:
+            zone(timezone)  # refuse unknown names before touching the store
+        with self.session() as s:
+            acc = s.scalar(select(Account).where(Account.handle == handle))
+            if acc is None:
+                acc = Account(handle=handle, timezone=timezone or "UTC", created_at=_now())
+                s.add(acc)
+            if display_name is not None:
+                acc.display_name = display_name
+            if timezone is not None:
+                acc.timezone = timezone
+            s.flush()
+            n = s.scalar(select(func.count(Post.id)).where(Post.account_id == acc.id)) or 0
+            return AccountInfo(acc.handle, acc.display_name, acc.timezone, int(n))
+
+    def account(self, handle: str) -> AccountInfo:
+        with self.session() as s:
+            acc = s.scalar(select(Account).where(Account.handle == handle))
+            if acc is None:
+                raise NotFound(f"unknown account {handle!r}", field="account", value=handle)
+            n = s.scalar(select(func.count(Post.id)).where(Post.account_id == acc.id)) or 0
+            return AccountInfo(acc.handle, acc.display_name, acc.timezone, int(n))
+
+    def accounts(self) -> list[AccountInfo]:
+        with self.session() as s:
+            rows = s.execute(
+                select(Account, func.count(Post.id))
+                .outerjoin(Post, Post.account_id == Account.id)
+                .group_by(Account.id)
+                .order_by(Account.handle)
+            ).all()
+            return [AccountInfo(a.handle, a.display_name, a.timezone, int(n)) for a, n in rows]
+
+    def counts(self) -> dict[str, int]:
+        with self.session() as s:
+            return {
+                "accounts": s.scalar(select(func.count(Account.id))) or 0,
+                "posts": s.scalar(select(func.count(Post.id))) or 0,
+                "snapshots": s.scalar(select(func.count(Snapshot.id))) or 0,
+                "vectors": s.scalar(select(func.count()).select_from(Vector)) or 0,
+            }
+
+    # Vectors --------------------------------------------------------------
+
+    def missing_vectors(self, keys: Iterable[str]) -> set[str]:
+        wanted = set(keys)
+        found: set[str] = set()
+        with self.session() as s:
+            ks = list(wanted)
+            for i in range(0, len(ks), 900):  # SQLite's variable limit
+                found.update(s.scalars(select(Vector.key).where(Vector.key.in_(ks[i : i + 900]))))
+        return wanted - found
+
+    def vectors(self, keys: Sequence[str]) -> np.ndarray:
+        """Vectors for ``keys`` in the given order."""
+        out: dict[str, np.ndarray] = {}
+        with self.session() as s:
+            uniq = list(dict.fromkeys(keys))
+            for i in range(0, len(uniq), 900):
+                for k, dim, data in s.execute(
+                    select(Vector.key, Vector.dim, Vector.data).where(
+                        Vector.key.in_(uniq[i : i + 900])
+                    )
+                ):
+                    out[k] = np.frombuffer(data, dtype=np.float32, count=dim)
+        missing = [k for k in keys if k not in out]
+        if missing:
+            raise StoreError(f"{len(missing)} vectors are missing from the store")
+        if not keys:
+            return np.zeros((0, 384), dtype=np.float32)
+        return np.vstack([out[k] for k in keys])
+
+    def index_pairs(self) -> list[tuple[int, str]]:
+        """(post row id, vector key) of every post: what the index must hold."""
+        with self.session() as s:
+            return [(int(a), b) for a, b in s.execute(select(Post.id, Post.vector_key))]
+
+    def index_data(self) -> tuple[np.ndarray, np.ndarray, str]:
+        """Post row ids, their vectors and the fingerprint, for a rebuild."""
+        pairs = self.index_pairs()
+        ids = np.array([p for p, _ in pairs], dtype=np.int64)
+        vecs = self.vectors([k for _, k in pairs])
+        return ids, vecs, fingerprint(pairs)
+
+    def fingerprint(self) -> str:
+        return fingerprint(self.index_pairs())
+
+    def stamp(self) -> tuple[int, int, str]:
+        """A cheap token that changes whenever posts are added, changed or
+        deleted, by this process or another one."""
+        with self.session() as s:
+            n, top, last = s.execute(
+                select(func.count(Post.id), func.max(Post.id), func.max(Post.updated_at))
+            ).one()
+        return int(n or 0), int(top or 0), str(last)
+
+    # Import ---------------------------------------------------------------
+
+    def write_batch(
+        self, rows: Sequence[PostRow], vectors: dict[str, np.ndarray], *, model_id: str
+    ) -> BatchResult:
+        """Write one import batch in one transaction.
+
+        A post already stored (same account and post_id) gets a new
+        snapshot only if a metric changed; its text, time and media flag
+        are updated in place. Metrics a row leaves blank carry over from
+        the previous snapshot.
+        """
+        res = BatchResult()
+        now = _now()
+        with self.session() as s:
+            for key, vec in vectors.items():
+                if s.get(Vector, key) is None:
+                    v = np.ascontiguousarray(vec, dtype=np.float32)
+                    s.add(Vector(key=key, model_id=model_id, dim=int(v.shape[0]), data=v.tobytes()))
+            accounts = {a.handle: a for a in s.scalars(select(Account).where(
+                Account.handle.in_({r.account for r in rows})))}
+            for r in rows:
+                acc = accounts.get(r.account)
+                if acc is None:
+                    acc = Account(handle=r.account, timezone="UTC", created_at=now)
+                    s.add(acc)
+                    s.flush()
+                    accounts[r.account] = acc
+                post = s.scalar(
+                    select(Post).where(Post.account_id == acc.id, Post.post_id == r.post_id)
+                )
+                posted = to_naive_utc(r.posted_at)
+                if post is None:
+                    post = Post(
+                        account_id=acc.id, post_id=r.post_id, text=r.text,
+                        vector_key=r.vector_key, posted_at=posted, has_link=has_link(r.text),
+                        has_media=bool(r.has_media), imported_at=now, updated_at=now,
+                    )
+                    s.add(post)
+                    s.flush()
+                    s.add(Snapshot(post_pk=post.id, captured_at=now, **r.metrics))
+                    res.added += 1
+                    res.changed_pks.append(post.id)
+                    continue
+                changed = False
+                if post.text != r.text or post.vector_key != r.vector_key:
+                    post.text, post.vector_key = r.text, r.vector_key
+                    post.has_link = has_link(r.text)
+                    res.changed_pks.append(post.id)
+                    changed = True
+                if post.posted_at != posted:
+                    post.posted_at = posted
+                    changed = True
+                if r.has_media is not None and post.has_media != r.has_media:
+                    post.has_media = r.has_media
+                    changed = True
+                last = s.scalar(
+                    select(Snapshot).where(Snapshot.post_pk == post.id).order_by(Snapshot.id.desc()).limit(1)
+                )
+                merged = {
+                    m: (r.metrics.get(m) if r.metrics.get(m) is not None else getattr(last, m, None))
+                    for m in METRIC_COLUMNS
+                }
+                if last is None or any(getattr(last, m) != merged[m] for m in METRIC_COLUMNS):
+                    s.add(Snapshot(post_pk=post.id, captured_at=now, **merged))
+                    changed = True
+                if changed:
+                    post.updated_at = now
+                    res.updated += 1
+                else:
+                    res.unchanged += 1
+        return res
+
+    # Reading posts ----------------------------------------------------------
+
+    def posts_frame(self, *, account: str | None = None) -> pd.DataFrame:
+        """Every post with its current metrics, one row a post, oldest first.
+
+        Columns: pk, account, timezone, post_id, text, posted_at (aware UTC),
+        has_link, has_media, vector_key and one column per metric.
+        """
+        latest = (
+            select(Snapshot.post_pk, func.max(Snapshot.id).label("sid"))
+            .group_by(Snapshot.post_pk)
+            .subquery()
+        )
+        q = (
+            select(
+                Post.id.label("pk"), Account.handle.label("account"), Account.timezone,
+                Post.post_id, Post.text, Post.posted_at, Post.has_link, Post.has_media,
+                Post.vector_key, *[getattr(Snapshot, m) for m in METRIC_COLUMNS],
+            )
+            .join(Account, Account.id == Post.account_id)
+            .outerjoin(latest, latest.c.post_pk == Post.id)
+            .outerjoin(Snapshot, Snapshot.id == latest.c.sid)
+            .order_by(Post.posted_at, Post.id)
+        )
+        if account is not None:
+            self.account(account)
+            q = q.where(Account.handle == account)
+        with self.session() as s:
+            rows = s.execute(q).all()
+        cols = ["pk", "account", "timezone", "post_id", "text", "posted_at", "has_link",
+                "has_media", "vector_key", *METRIC_COLUMNS]
+        df = pd.DataFrame(rows, columns=cols)
+        df["posted_at"] = pd.to_datetime(df["posted_at"], utc=True)
+        for m in METRIC_COLUMNS:
+            df[m] = pd.to_numeric(df[m], errors="coerce").astype("float64")
+        df["pk"] = df["pk"].astype("int64")
+        df["has_link"] = df["has_link"].astype(bool)
+        df["has_media"] = df["has_media"].astype(bool)
+        return df
+
+    def posts_by_pk(self, pks: Sequence[int]) -> dict[int, dict[str, Any]]:
+        """Posts with current metrics for the given row ids (precedent details)."""
+        if not len(pks):
+            return {}
+        latest = (
+            select(Snapshot.post_pk, func.max(Snapshot.id).label("sid"))
+            .where(Snapshot.post_pk.in_(list(pks)))
+            .group_by(Snapshot.post_pk)
+            .subquery()
+        )
+        q = (
+            select(Post, Account.handle, Snapshot)
+            .join(Account, Account.id == Post.account_id)
+            .outerjoin(latest, latest.c.post_pk == Post.id)
+            .outerjoin(Snapshot, Snapshot.id == latest.c.sid)
+            .where(Post.id.in_(list(pks)))
+        )
+        out: dict[int, dict[str, Any]] = {}
+        with self.session() as s:
+            for post, handle, snap in s.execute(q):
+                out[post.id] = {
+                    "pk": post.id,
+                    "post_id": post.post_id,
+                    "account": handle,
+                    "text": post.text,
+                    "posted_at": as_utc(post.posted_at),
+                    "has_link": post.has_link,
+                    "has_media": post.has_media,
+                    "metrics": {m: getattr(snap, m) if snap else None for m in METRIC_COLUMNS},
+                }
+        return out
+
+    def pks_where(
+        self, *, account: str | None = None, since: datetime | None = None,
+        until: datetime | None = None,
+    ) -> np.ndarray:
+        """Row ids of posts of one account and/or inside a date range."""
+        q = select(Post.id)
+        if account is not None:
+            self.account(account)
+            q = q.join(Account, Account.id == Post.account_id).where(Account.handle == account)
+        if since is not None:
+            q = q.where(Post.posted_at >= to_naive_utc(since))
+        if until is not None:
+            q = q.where(Post.posted_at <= to_naive_utc(until))
+        with self.session() as s:
+            return np.array(list(s.scalars(q)), dtype=np.int64)
+
+    # Forgetting -----------------------------------------------------------
+
+    def forget(self, *, account: str | None = None, post_id: str | None = None) -> list[int]:
+        """Delete a post (``post_id``, with ``account`` when ids repeat across
+        accounts) or a whole account, with snapshots and now-unused vectors.
+        Returns the deleted post row ids, for the index."""
+        if account is None and post_id is None:
+            raise InputError("say which account or post to forget")
+        with self.session() as s:
+            q = select(Post.id, Post.vector_key).join(Account, Account.id == Post.account_id)
+            if account is not None:
+                acc = s.scalar(select(Account).where(Account.handle == account))
+                if acc is None:
+                    raise NotFound(f"unknown account {account!r}", field="account", value=account)
+                q = q.where(Account.id == acc.id)
+            if post_id is not None:
+                q = q.where(Post.post_id == post_id)
+            rows = s.execute(q).all()
+            if post_id is not None:
+                if not rows:
+                    raise NotFound(f"no post {post_id!r}", field="post_id", value=post_id)
+                if len(rows) > 1:
+                    raise InputError(
+                        f"post id {post_id!r} exists in several accounts; say which with --account",
+                        field="account",
+                    )
+            pks = [int(r[0]) for r in rows]
+            keys = {r[1] for r in rows}
+            for i in range(0, len(pks), 900):
+                chunk = pks[i : i + 900]
+                s.execute(delete(Snapshot).where(Snapshot.post_pk.in_(chunk)))
+                s.execute(delete(Post).where(Post.id.in_(chunk)))
+            still_used = set(s.scalars(select(Post.vector_key).where(Post.vector_key.in_(list(keys)))))
+            unused = list(keys - still_used)
+            for i in range(0, len(unused), 900):
+                s.execute(delete(Vector).where(Vector.key.in_(unused[i : i + 900])))
+            if account is not None and post_id is None:
+                s.execute(delete(Account).where(Account.handle == account))
+        return pks
+
+    def backup(self, dest: str | Path) -> Path:
+        """A consistent copy of a SQLite store while others use it
+        (SQLite's online backup API)."""
+        if not self.url.startswith("sqlite:///"):
+            raise StoreError("backup is available for SQLite stores only")
+        dest = Path(dest)
+        if dest.is_dir():
+            dest = dest / "sounding-backup.db"
+        if dest.exists():
+            raise InputError(f"{dest} already exists; choose a new file name", where=str(dest))
+        dest.parent.mkdir(parents=True, exist_ok=True)
+        src = sqlite3.connect(self.url.removeprefix("sqlite:///"))
+        dst = sqlite3.connect(str(dest))
+        try:
+            with dst:
+                src.backup(dst)
+        finally:
+            dst.close()
+            src.close()
+        return dest
+
+
+def _check_handle(handle: str) -> str:
+    h = (handle or "").strip()
+    if not h or len(h) > 200 or any(c.isspace() for c in h):
+        raise InputError(
+            f"account handle {handle!r} must be 1-200 characters without spaces",
+            field="account",
+            value=handle,
+        )
+    return h
+
+
+def _now() -> datetime:
+    return to_naive_utc(now_utc())

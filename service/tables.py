@@ -1,0 +1,107 @@
+"""SQLAlchemy tables of the store.
+
+These are storage rows only; the API's pydantic schemas live apart in
+``service.api.schemas``. Times are stored as naive UTC (SQLite has no time
+zone type); ``service.store`` attaches UTC on the way out.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+
+from sqlalchemy import (
+    Boolean,
+    DateTime,
+    ForeignKey,
+    Index,
+    Integer,
+    LargeBinary,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
+
+
+class Base(DeclarativeBase):
+    pass
+
+
+class Account(Base):
+    __tablename__ = "accounts"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    handle: Mapped[str] = mapped_column(String(200), unique=True, nullable=False)
+    display_name: Mapped[str | None] = mapped_column(String(400))
+    # IANA zone name; the local hour of a post is read in it.
+    timezone: Mapped[str] = mapped_column(String(64), nullable=False, default="UTC")
+    created_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+
+    posts: Mapped[list[Post]] = relationship(
+        back_populates="account", cascade="all, delete-orphan", passive_deletes=True
+    )
+
+
+class Post(Base):
+    __tablename__ = "posts"
+    __table_args__ = (
+        UniqueConstraint("account_id", "post_id", name="uq_post_per_account"),
+        Index("ix_posts_posted_at", "posted_at"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    account_id: Mapped[int] = mapped_column(
+        ForeignKey("accounts.id", ondelete="CASCADE"), nullable=False
+    )
+    post_id: Mapped[str] = mapped_column(String(200), nullable=False)
+    text: Mapped[str] = mapped_column(Text, nullable=False)
+    # Key of the text's vector in `vectors` (hash of model id + normalised text).
+    vector_key: Mapped[str] = mapped_column(String(64), nullable=False, index=True)
+    posted_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+    has_link: Mapped[bool] = mapped_column(Boolean, nullable=False)
+    has_media: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+    imported_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+    # Last change of text, time or metrics; with the row count and max id it
+    # tells another process (the service) that its index may be stale.
+    updated_at: Mapped[datetime] = mapped_column(DateTime, nullable=False, index=True)
+
+    account: Mapped[Account] = relationship(back_populates="posts")
+    snapshots: Mapped[list[Snapshot]] = relationship(
+        back_populates="post",
+        cascade="all, delete-orphan",
+        passive_deletes=True,
+        order_by="Snapshot.id",
+    )
+
+
+class Snapshot(Base):
+    """Metrics of a post as seen at one time; the latest one is current."""
+
+    __tablename__ = "snapshots"
+    __table_args__ = (Index("ix_snapshots_post", "post_pk", "id"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    post_pk: Mapped[int] = mapped_column(
+        ForeignKey("posts.id", ondelete="CASCADE"), nullable=False
+    )
+    captured_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+    impressions: Mapped[int | None] = mapped_column(Integer)
+    engagements: Mapped[int | None] = mapped_column(Integer)
+    likes: Mapped[int | None] = mapped_column(Integer)
+    reposts: Mapped[int | None] = mapped_column(Integer)
+    replies: Mapped[int | None] = mapped_column(Integer)
+    link_clicks: Mapped[int | None] = mapped_column(Integer)
+    profile_clicks: Mapped[int | None] = mapped_column(Integer)
+
+    post: Mapped[Post] = relationship(back_populates="snapshots")
+
+
+class Vector(Base):
+    """An embedding, shared by every post whose normalised text is the same."""
+
+    __tablename__ = "vectors"
+
+    key: Mapped[str] = mapped_column(String(64), primary_key=True)
+    model_id: Mapped[str] = mapped_column(String(200), nullable=False)
+    dim: Mapped[int] = mapped_column(Integer, nullable=False)
+    data: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)

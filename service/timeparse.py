@@ -1,0 +1,85 @@
+"""Reading times and zones.
+
+Times are ISO 8601 / RFC 3339. A time with an offset (``+01:00`` or ``Z``)
+is exact. A naive time is local wall-clock time in a named IANA zone; one
+that does not exist there (skipped by a daylight-saving change) is refused
+rather than shifted, and one that occurs twice (clocks going back) is read
+as the first occurrence, as ``zoneinfo`` does with ``fold=0``.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from models.errors import InputError, TimeParseError
+
+UTC = timezone.utc
+
+
+def zone(name: str) -> ZoneInfo:
+    """The IANA zone ``name``, or a clear error."""
+    try:
+        if not name or name != name.strip() or name.startswith("/") or ".." in name:
+            raise ValueError
+        return ZoneInfo(name)
+    except (ZoneInfoNotFoundError, ValueError, OSError):
+        raise InputError(
+            f"unknown time zone {name!r}",
+            field="timezone",
+            value=name,
+            hint="use an IANA zone name such as Europe/London or America/New_York",
+        ) from None
+
+
+def parse_time(text: str, *, tz: str = "UTC", where: str | None = None) -> datetime:
+    """Parse an ISO 8601 time; return an aware datetime in UTC."""
+    raw = (text or "").strip()
+    if not raw:
+        raise TimeParseError("empty time", where=where, value=text)
+    try:
+        # fromisoformat reads ISO 8601 with 'Z', offsets, 'T' or a space.
+        dt = datetime.fromisoformat(raw)
+    except ValueError:
+        raise TimeParseError(
+            f"cannot read time {raw!r}",
+            where=where,
+            value=text,
+            hint="use ISO 8601, e.g. 2026-12-02T10:00:00+01:00",
+        ) from None
+    if len(raw) <= 10:
+        raise TimeParseError(
+            f"time {raw!r} has a date but no time of day", where=where, value=text
+        )
+    if dt.tzinfo is not None:
+        return dt.astimezone(UTC)
+    return localize(dt, tz, where=where)
+
+
+def localize(naive: datetime, tz: str, *, where: str | None = None) -> datetime:
+    """Attach zone ``tz`` to a wall-clock time; refuse a time that does not exist."""
+    z = zone(tz)
+    local = naive.replace(tzinfo=z, fold=0)
+    back = local.astimezone(UTC).astimezone(z)
+    if back.replace(tzinfo=None) != naive:
+        raise TimeParseError(
+            f"{naive.isoformat(sep=' ', timespec='minutes')} does not exist in {tz} "
+            "(the clocks skip it at a daylight-saving change)",
+            where=where,
+            value=naive.isoformat(),
+            hint="give the time with its UTC offset",
+        )
+    return local.astimezone(UTC)
+
+
+def as_utc(dt: datetime) -> datetime:
+    """A stored naive-UTC datetime as an aware one."""
+    return dt.replace(tzinfo=UTC) if dt.tzinfo is None else dt.astimezone(UTC)
+
+
+def to_naive_utc(dt: datetime) -> datetime:
+    return as_utc(dt).replace(tzinfo=None)
+
+
+def now_utc() -> datetime:
+    return datetime.now(UTC)

@@ -1,0 +1,253 @@
+"""A workspace: one data directory's store, embedder, index and models.
+
+The CLI and the API both work through a ``Workspace``, so the data path is
+the same everywhere: import -> store -> embed -> index -> features ->
+model -> response. Heavy pieces (the embedding model, the index) load once,
+on first use, and are shared by every request.
+"""
+
+from __future__ import annotations
+
+import threading
+from dataclasses import dataclass
+from datetime import datetime, timedelta
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from models.embedding import Embedder
+from models.errors import InputError, LimitExceeded, StoreError
+from models.index import VectorIndex
+
+from .importer import ImportSummary, ProgressFn, import_csv
+from .settings import Settings
+from .store import Store
+from .timeparse import now_utc
+
+
+@dataclass(frozen=True, slots=True)
+class Precedent:
+    """A past post similar to a draft."""
+
+    pk: int
+    post_id: str
+    account: str
+    posted_at: datetime
+    text: str
+    similarity: float
+    metrics: dict[str, int | None]
+    mature: bool
+    has_link: bool = False
+    has_media: bool = False
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "post_id": self.post_id,
+            "account": self.account,
+            "posted_at": self.posted_at.isoformat(),
+            "text": self.text,
+            "similarity": round(self.similarity, 4),
+            "metrics": self.metrics,
+            "mature": self.mature,
+        }
+
+
+class Workspace:
+    """Everything one data directory holds, loaded once."""
+
+    def __init__(self, *, settings: Settings, embedder: Embedder | None = None) -> None:
+        self.settings = settings
+        settings.resolved_home.mkdir(parents=True, exist_ok=True)
+        self.store = Store(url=settings.db_url)
+        self.embedder = embedder or Embedder(
+            model_path=settings.embed_model_path, batch_size=settings.embed_batch_size
+        )
+        self._index: VectorIndex | None = None
+        self._index_stamp: tuple[int, int, str] | None = None
+        self._lock = threading.RLock()
+
+    def close(self) -> None:
+        self.store.close()
+
+    # Index ------------------------------------------------------------------
+
+    def index(self) -> VectorIndex:
+        """The index, checked against the store and rebuilt when stale.
+
+        The check is a cheap stamp (count, max id, last change) each call;
+        the full fingerprint comparison happens when the stamp moved or the
+        index was just read from disk.
+        """
+        with self._lock:
+            stamp = self.store.stamp()
+            if self._index is not None and stamp == self._index_stamp:
+                return self._index
+            fp = self.store.fingerprint()
+            index = self._index
+            if index is None:
+                try:
+                    index = VectorIndex.load(self.settings.index_dir)
+                except StoreError:
+                    index = None
+            if index is None or index.fingerprint_ != fp:
+                index = self._rebuild()
+            self._index, self._index_stamp = index, stamp
+            return index
+
+    def _rebuild(self) -> VectorIndex:
+        ids, vecs, fp = self.store.index_data()
+        index = VectorIndex(dim=vecs.shape[1] if len(vecs) else 384).fit(ids, vecs, fingerprint=fp)
+        index.save(self.settings.index_dir)
+        return index
+
+    def index_state(self) -> dict[str, Any]:
+        """What the health endpoint reports: on disk, in step with the store?"""
+        fp = self.store.fingerprint()
+        try:
+            on_disk = VectorIndex.load(self.settings.index_dir)
+        except StoreError:
+            return {"state": "missing", "count": 0}
+        state = "ready" if on_disk.fingerprint_ == fp else "stale"
+        return {"state": state, "count": on_disk.ntotal}
+
+    def reindex(self) -> VectorIndex:
+        """Rebuild the index from the vectors in the store."""
+        with self._lock:
+            index = self._rebuild()
+            self._index, self._index_stamp = index, self.store.stamp()
+            return index
+
+    def _sync_index(self, changed_pks: list[int], removed_pks: list[int] = ()) -> None:  # type: ignore[assignment]
+        """Bring the index up to date after this process changed posts."""
+        with self._lock:
+            if self._index is None:
+                self.index()
+                return
+            pairs = dict(self.store.index_pairs())
+            fp = self.store.fingerprint()
+            if removed_pks:
+                self._index.remove(np.array(removed_pks, dtype=np.int64), fingerprint=fp)
+            pks = [p for p in dict.fromkeys(changed_pks) if p in pairs]
+            if pks:
+                vecs = self.store.vectors([pairs[p] for p in pks])
+                self._index.upsert(np.array(pks, dtype=np.int64), vecs, fingerprint=fp)
+            self._index.fingerprint_ = fp
+            self._index.save(self.settings.index_dir)
+            self._index_stamp = self.store.stamp()
+
+    # Import -----------------------------------------------------------------
+
+    def import_csv(
+        self,
+        path: str | Path,
+        *,
+        account: str | None = None,
+        mapping: dict[str, str] | None = None,
+        timezone: str | None = None,
+        progress: ProgressFn | None = None,
+    ) -> ImportSummary:
+        self.index()  # load or rebuild first, so the update below is incremental
+        summary = import_csv(
+            self.store, self.embedder, path, account=account, mapping=mapping,
+            timezone=timezone, batch_rows=self.settings.import_batch_rows, progress=progress,
+        )
+        if summary.changed_pks or summary.updated:
+            self._sync_index(summary.changed_pks)
+        return summary
+
+    def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
+        """Delete posts from the store and the index together."""
+        with self._lock:
+            self.index()
+            pks = self.store.forget(account=account, post_id=post_id)
+            self._sync_index([], pks)
+            return len(pks)
+
+    # Precedents -------------------------------------------------------------
+
+    def check_draft(self, text: str) -> str:
+        if not text or not text.strip():
+            raise InputError("the draft text is empty", field="text")
+        if len(text) > self.settings.max_draft_chars:
+            raise LimitExceeded(
+                f"the draft has {len(text)} characters; the limit is "
+                f"{self.settings.max_draft_chars} (SOUNDING_MAX_DRAFT_CHARS)",
+                limit="max_draft_chars",
+                maximum=self.settings.max_draft_chars,
+                field="text",
+            )
+        return text
+
+    def embed_drafts(self, texts: list[str]) -> np.ndarray:
+        for t in texts:
+            self.check_draft(t)
+        return self.embedder.encode(texts)
+
+    def neighbours(
+        self,
+        vectors: np.ndarray,
+        k: int,
+        *,
+        account: str | None = None,
+        since: datetime | None = None,
+        until: datetime | None = None,
+    ) -> list[list[tuple[int, float]]]:
+        """(post row id, similarity) of the ``k`` nearest posts per vector."""
+        index = self.index()
+        allowed = None
+        if account is not None or since is not None or until is not None:
+            allowed = self.store.pks_where(account=account, since=since, until=until)
+        sims, ids = index.search(vectors, k, allowed_ids=allowed)
+        return [
+            [(int(i), float(s)) for i, s in zip(row_ids, row_sims, strict=True) if i >= 0]
+            for row_ids, row_sims in zip(ids, sims, strict=True)
+        ]
+
+    def precedents(
+        self,
+        text: str,
+        *,
+        k: int = 10,
+        account: str | None = None,
+        since: datetime | None = None,
+        until: datetime | None = None,
+        now: datetime | None = None,
+    ) -> list[Precedent]:
+        """The ``k`` past posts most similar to ``text``, with current metrics."""
+        if not 1 <= k <= self.settings.max_k:
+            raise InputError(f"k must be between 1 and {self.settings.max_k}", field="k", value=k)
+        if since and until and since > until:
+            raise InputError("the date range ends before it starts", field="since")
+        vec = self.embed_drafts([text])
+        hits = self.neighbours(vec, k, account=account, since=since, until=until)[0]
+        return self.precedents_for(hits, now=now)
+
+    def precedents_for(
+        self, hits: list[tuple[int, float]], *, now: datetime | None = None
+    ) -> list[Precedent]:
+        details = self.store.posts_by_pk([p for p, _ in hits])
+        cutoff = (now or now_utc()) - timedelta(hours=self.settings.maturity_hours)
+        out = []
+        for pk, sim in hits:
+            d = details.get(pk)
+            if d is None:  # deleted between search and lookup
+                continue
+            out.append(
+                Precedent(
+                    pk=pk, post_id=d["post_id"], account=d["account"], posted_at=d["posted_at"],
+                    text=d["text"], similarity=sim, metrics=d["metrics"],
+                    mature=d["posted_at"] <= cutoff, has_link=d["has_link"],
+                    has_media=d["has_media"],
+                )
+            )
+        return out
+
+    def health(self) -> dict[str, Any]:
+        counts = self.store.counts()
+        return {
+            "posts": counts["posts"],
+            "accounts": counts["accounts"],
+            "model_id": self.embedder.model_id,
+            "index": self.index_state(),
+        }

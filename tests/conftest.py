@@ -1,0 +1,92 @@
+"""Shared fixtures: the real embedding model, loaded once per session, and
+data directories under tmp_path."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+
+os.environ.setdefault("HF_HUB_OFFLINE", "1")
+
+from models.embedding import Embedder  # noqa: E402
+from service.settings import Settings  # noqa: E402
+from service.workspace import Workspace  # noqa: E402
+
+ROOT = Path(__file__).resolve().parents[1]
+DEMO_CSV = ROOT / "demo_data" / "posts.csv"
+ARTIFACTS = ROOT / "test-artifacts"
+
+
+@pytest.fixture(scope="session")
+def embedder() -> Embedder:
+    """The bundled all-MiniLM-L6-v2, loaded once for the whole run."""
+    e = Embedder()
+    e.encode(["warm up"])
+    return e
+
+
+@pytest.fixture()
+def make_workspace(tmp_path: Path, embedder: Embedder, monkeypatch: pytest.MonkeyPatch):
+    """Factory of empty workspaces in tmp_path; settings as keyword overrides."""
+    made: list[Workspace] = []
+
+    def make(name: str = "home", **overrides: object) -> Workspace:
+        home = tmp_path / name
+        ws = Workspace(settings=Settings(home=home, **overrides), embedder=embedder)
+        made.append(ws)
+        return ws
+
+    yield make
+    for ws in made:
+        ws.close()
+
+
+@pytest.fixture()
+def workspace(make_workspace) -> Workspace:
+    return make_workspace()
+
+
+@pytest.fixture(scope="session")
+def demo_home(tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> Path:
+    """A data directory holding the imported demo history (built once).
+
+    Tests that change data must copy it (``demo_copy``) rather than write here.
+    """
+    from service.cli.history import _demo_accounts
+
+    home = tmp_path_factory.mktemp("demo") / "home"
+    ws = Workspace(settings=Settings(home=home), embedder=embedder)
+    for handle, name, tz in _demo_accounts():
+        ws.store.set_account(handle, display_name=name, timezone=tz)
+    ws.import_csv(DEMO_CSV)
+    ws.close()
+    return home
+
+
+@pytest.fixture(scope="session")
+def demo_workspace(demo_home: Path, embedder: Embedder) -> Iterator[Workspace]:
+    """A read-only workspace over the demo history."""
+    ws = Workspace(settings=Settings(home=demo_home), embedder=embedder)
+    yield ws
+    ws.close()
+
+
+@pytest.fixture()
+def demo_copy(demo_home: Path, tmp_path: Path, embedder: Embedder) -> Iterator[Workspace]:
+    """A private, writable copy of the demo data directory."""
+    import shutil
+
+    home = tmp_path / "demo-copy"
+    shutil.copytree(demo_home, home)
+    ws = Workspace(settings=Settings(home=home), embedder=embedder)
+    yield ws
+    ws.close()
+
+
+@pytest.fixture(scope="session")
+def artifacts() -> Path:
+    ARTIFACTS.mkdir(exist_ok=True)
+    return ARTIFACTS
