@@ -32,14 +32,14 @@ ACCOUNTS = {  # n_posts includes the planted repeats posted by that account
 }
 
 # Topic effects on log(impressions); strongest first. Spread strongest-weakest = 0.80.
-TOPIC_EFFECT = {"blooms": 0.40, "behind_the_scenes": 0.22, "events": 0.06,
-                "plant_science": -0.08, "volunteering": -0.22, "shop_membership": -0.40}
+TOPIC_EFFECT = {"blooms": 0.40, "behind_the_scenes": 0.24, "events": 0.08,
+                "plant_science": -0.08, "volunteering": -0.24, "shop_membership": -0.40}
 TOPICS = list(TOPIC_EFFECT)
 # Account topic mixes are tilted only mildly, so raw per-topic medians keep the true order.
 TOPIC_MIX = {
-    "loomhaven":        [0.24, 0.20, 0.15, 0.12, 0.14, 0.15],
-    "loomhaven_events": [0.17, 0.15, 0.26, 0.11, 0.16, 0.15],
-    "loomhaven_lab":    [0.16, 0.16, 0.13, 0.25, 0.15, 0.15],
+    "loomhaven":        [0.24, 0.20, 0.15, 0.14, 0.13, 0.14],
+    "loomhaven_events": [0.18, 0.16, 0.24, 0.12, 0.15, 0.15],
+    "loomhaven_lab":    [0.17, 0.16, 0.14, 0.20, 0.16, 0.17],
 }
 ENGAGEMENT_RATE = {"blooms": 0.045, "behind_the_scenes": 0.035, "events": 0.025,
                    "plant_science": 0.030, "volunteering": 0.020, "shop_membership": 0.012}
@@ -58,14 +58,14 @@ def _hour_curve():
         d = np.minimum(abs(h - c), 24 - abs(h - c))
         return np.exp(-d ** 2 / (2 * w ** 2))
     curve = 0.70 * bump(12.5, 2.2) + 0.60 * bump(19.0, 1.6)
-    return [round(float(v), 2) for v in curve - curve.max()]
+    return [round(float(v), 2) + 0.0 for v in curve - curve.max()]  # + 0.0: no "-0.0"
 
 
 HOUR_EFFECT = _hour_curve()
 # When the team posts (local hour). Mostly 7-22h, a thin tail at night so the night
 # penalty is still estimable.
-HOUR_WEIGHT = [0.3, 0.2, 0.15, 0.15, 0.15, 0.25, 0.6, 1.5, 2.5, 3, 3, 3,
-               3, 3, 2.5, 2.5, 2.5, 3, 3, 3, 2.5, 2, 1.5, 0.7]
+HOUR_WEIGHT = [0.4, 0.3, 0.25, 0.25, 0.25, 0.35, 0.7, 1.5, 2.5, 3, 3, 3,
+               3, 3, 2.5, 2.5, 2.5, 3, 3, 3, 2.5, 2, 1.5, 0.8]
 WEEKEND_POSTING = 0.6  # fewer posts on Sat/Sun (posting volume, not reach)
 
 ENGAGEMENT_SPLIT = {  # shares of engagements; "other" (saves, expands) is not a column
@@ -76,7 +76,7 @@ REPEATS = {"same_account": {"loomhaven": 20, "loomhaven_events": 12, "loomhaven_
            # (reposter, original account, count): the main account is amplified most
            "teammate": [("loomhaven_events", "loomhaven", 7), ("loomhaven_lab", "loomhaven", 4),
                         ("loomhaven", "loomhaven_events", 2), ("loomhaven", "loomhaven_lab", 2)]}
-SIMILARITY_CAP = 0.70  # ordinary posts of one topic within 30 days must stay below this ratio
+SIMILARITY_CAP = 0.60  # token-level difflib ratio cap between any two ordinary same-topic posts
 
 TOPIC_PHRASES = {
     "blooms": ["flowers in bloom", "what's flowering now", "seasonal blooms", "garden in flower",
@@ -107,11 +107,17 @@ SEASON_PLANTS = {  # plural nouns only, so templates read correctly
 }
 SEASON = {12: "winter", 1: "winter", 2: "winter", 3: "spring", 4: "spring", 5: "spring",
           6: "summer", 7: "summer", 8: "summer", 9: "autumn", 10: "autumn", 11: "autumn"}
-EVENTS = ["the Lantern Trail", "Seed Swap Saturday", "the Twilight Garden Tour",
-          "the Family Bug Hunt", "the Spring Plant Fair", "our Botanical Drawing Class",
-          "the Dawn Chorus Walk", "Orchard Harvest Day", "the Glasshouse Late",
-          "the Pond Dipping Morning", "our Wreath-Making Workshop", "the Summer Music Picnic",
-          "the Fungi Foray", "the Herb Tasting Evening"]
+ALL_YEAR = ("winter", "spring", "summer", "autumn")
+EVENTS = {  # event -> seasons it runs in (by the event's own date), so names fit the calendar
+    "the Lantern Trail": ("autumn", "winter"), "the Seed Swap Morning": ALL_YEAR,
+    "the Twilight Garden Tour": ("spring", "summer", "autumn"), "the Family Bug Hunt": ("spring", "summer"),
+    "the Spring Plant Fair": ("spring",), "our Botanical Drawing Class": ALL_YEAR,
+    "the Dawn Chorus Walk": ("spring", "summer"), "Orchard Harvest Day": ("autumn",),
+    "the Glasshouse Late": ALL_YEAR, "the Pond Dipping Morning": ("spring", "summer"),
+    "our Wreath-Making Workshop": ("winter",), "the Summer Music Picnic": ("summer",),
+    "the Fungi Foray": ("autumn",), "the Herb Tasting Evening": ("spring", "summer", "autumn"),
+    "the Winter Solstice Walk": ("winter",), "the Rose Week Tours": ("summer",),
+}
 
 T = {  # per topic: templates + slot pools. Slots derived from the post date are added in fill().
     "blooms": dict(
@@ -122,7 +128,7 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
             "Flower report {emoji} {plant} {state}, {plant2} not far off. Find them in {place}.",
             "If you only see one thing {when}, make it the {plant} in {place}. {sense}.",
             "Our {plant} have decided it's their moment: {state} across {place}. {visit} {emoji}",
-            "Walked {place} at opening time and the {plant} are {state}. {Plant2} are next.",
+            "Walked through {place} at opening time and the {plant} are {state}. {Plant2} are next.",
             "{Weekday} flower check: {place} has {plant} {state} and {plant2} just starting. {visit}",
         ],
         state=["in full flower", "just opening", "at their peak", "putting on a show",
@@ -143,18 +149,20 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
     "behind_the_scenes": dict(
         templates=[
             "Behind the scenes: {team} spent {time} {task}. {detail}. {emoji}",
-            "{Time}, {team} were {task}. {detail}.",
-            "A peek into {backplace}: {task} {time}. {detail}. {emoji}",
+            "{At}, {team} were {task}. {detail}.",
+            "A peek into {backplace}, where {team} spent {time} {task}. {detail}. {emoji}",
             "Counting up: {n} {things} by {team} this week. {detail}.",
-            "Not all gardening is pretty. {Time} {team} were {task}, and {detail_lc}.",
+            "Not all gardening is pretty. {At}, {team} were {task}, and {detail_lc}.",
             "What visitors don't see: {task}. {Team} do it {freq} so {reason}.",
             "{emoji} Glasshouse diary, {weekday}: {task}, {task2}, and a lot of tea.",
             "Today's job list for {team}: {task}, then {task2}. {detail}.",
         ],
         team=["our glasshouse team", "the nursery crew", "our apprentices", "the arboretum team",
               "the early shift", "the propagation team", "the path crew", "the lake team"],
-        time=["the morning", "the whole week", "before opening", "a very wet afternoon",
-              "most of yesterday", "the first hour of the day"],
+        time=["the morning", "the whole week", "a very wet afternoon", "most of yesterday",
+              "the first hour of the day", "two long mornings"],
+        at=["Before opening", "First thing today", "On a very wet afternoon", "All week",
+            "Yesterday", "At dawn", "Over the weekend"],
         task=["repotting the big palms", "pruning the wisterias", "turning the compost heaps",
               "cleaning the glasshouse panes", "lifting and dividing the asters",
               "mulching the borders", "sowing next year's annuals", "clearing the pond weed",
@@ -195,8 +203,9 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
                 "Pay what you can"],
         audience=["for all ages", "for families", "for adults", "for beginners", "for keen growers",
                   "for curious kids"],
-        pitch=["Bring a friend", "Wrap up warm", "Expect music and hot drinks", "Come hungry",
-               "Bring your own sketchbook", "Little ones welcome", "Wear boots you can get muddy"],
+        pitch=["Bring a friend", "Expect music and hot drinks", "Come hungry",
+               "Bring your own sketchbook", "Little ones welcome", "Wear boots you can get muddy",
+               "Dress for the weather"],
         emoji=["🎟️", "📅", "🎶", "🏮", "✨"],
         closer=["See you there!", "Accessible routes throughout.", "Rain or shine."],
         link_lead=["Tickets:", "Book here:", "Details:"], section="events",
@@ -212,17 +221,31 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
             "Field notes, {month}: {finding}. {method}. {next}.",
             "{emoji} New lab notes on what {study} is telling us. Short version: {finding}.",
         ],
-        study=["our seed bank", "the pollinator survey", "the drought-tolerance trial",
-               "the herbarium scanning project", "our soil microbe study",
-               "the first-flowering records", "the moss misting trial", "the fern spore project",
-               "the leaf-litter count", "the peat-free compost trial"],
-        finding=["germination rates are up on last year", "bees prefer open-faced flowers by a wide margin",
-                 "deep-rooted grasses barely noticed the dry spell",
-                 "hundreds more specimens are now scanned and searchable",
-                 "healthy soil here holds a surprising mix of fungi",
-                 "flowering came days earlier than our long-term average",
-                 "moss grows twice as fast under fine mist", "some spores stay viable for years",
-                 "peat-free seedlings are keeping pace", "hoverflies outnumber bees on the umbellifers"],
+        findings={  # study -> what it found, so each post's result fits its study
+            "our seed bank": ["germination rates are up on last year",
+                              "seeds banked in 1998 still sprout happily",
+                              "the cold room now holds over a hundred new wild collections"],
+            "the pollinator survey": ["bees prefer open-faced flowers by a wide margin",
+                                      "hoverflies outnumber bees on the umbellifers",
+                                      "the meadow edge is busier than the middle"],
+            "the drought-tolerance trial": ["deep-rooted grasses barely noticed the dry spell",
+                                            "gravel-bed plants needed no watering at all",
+                                            "mulched plots lost far less moisture"],
+            "the herbarium scanning project": ["hundreds more specimens are now scanned and searchable",
+                                               "an old label turned out to be a forgotten local record"],
+            "our soil microbe study": ["healthy soil here holds a surprising mix of fungi",
+                                       "no-dig beds have the richest soil life"],
+            "the first-flowering record": ["flowering came days earlier than our long-term average",
+                                            "early bulbs are shifting earlier decade by decade"],
+            "the moss misting trial": ["moss grows twice as fast under fine mist",
+                                       "rainwater beats tap water for every moss we tried"],
+            "the fern spore project": ["some spores stay viable for years",
+                                       "tree-fern spores sprout best in near darkness"],
+            "the leaf-litter count": ["leaf litter hides more beetles than we guessed",
+                                      "oak litter is busier than beech"],
+            "the peat-free compost trial": ["peat-free seedlings are keeping pace",
+                                            "bark-based mixes drain best for cuttings"],
+        },
         method=["Each sample is counted by hand", "We log every result in an open notebook",
                 "Volunteers helped with the counts", "The records go back decades",
                 "Three repeats, same answer", "Methods are in the lab notes"],
@@ -293,10 +316,12 @@ MENTIONS = ["Thanks to @{o} for the photos.", "More from @{o} soon.", "Follow @{
             "With help from @{o}.", "Shout-out to @{o}.", "Cc @{o}."]
 # Minor edits for planted repeats: keep the meaning, change a word or an emoji.
 WORD_SWAPS = [(" this week", " these days"), (" right now", " at the moment"), ("Huge thanks", "Big thanks"),
-              (" lovely ", " gorgeous "), ("!", "!!"), (" now", " today"), (" very ", " really "),
-              ("Join us", "Come join us"), (" soon", " shortly"), (" next", " coming up")]
+              (" lovely ", " gorgeous "), ("!", "!!"), (" very ", " really "), ("Join us", "Come join us"),
+              (" soon.", " shortly."), ("Pop by", "Drop by"), ("Don't miss them", "Do not miss them"),
+              ("Booking is open", "Booking now open"), ("Fancy joining us?", "Fancy joining in?"),
+              ("Watch this space", "Stay tuned"), ("Makes a lovely gift", "Makes a great gift"),
+              ("Come and see them", "Come and have a look")]
 PREFIXES = ["Reminder: ", "In case you missed it: ", "Still true: "]
-ALL_EMOJI = sorted({e for t in T.values() for e in t["emoji"]})
 
 
 def pick(rng, seq):
@@ -317,13 +342,18 @@ def fill(rng, topic, account, local):
     plants = SEASON_PLANTS[SEASON[local.month]]
     p1, p2 = rng.choice(len(plants), 2, replace=False)
     ev_day = local.date() + timedelta(days=int(rng.integers(3, 40)))
-    e1, e2 = rng.choice(len(EVENTS), 2, replace=False)
     slots = {k: pick(rng, v) for k, v in spec.items() if isinstance(v, list) and k != "templates"}
     slots.update(plant=plants[p1], plant2=plants[p2], place=pick(rng, PLACES),
-                 event=EVENTS[e1], event2=EVENTS[e2], days=(ev_day - local.date()).days,
+                 days=(ev_day - local.date()).days,
                  date=f"{ev_day:%a} {ev_day.day} {ev_day:%B}", event_weekday=f"{ev_day:%A}",
                  weekday=f"{local:%A}", month=f"{local:%B}",
                  n=int(rng.integers(12, 480)), m=int(rng.integers(5, 90)))
+    if topic == "plant_science":
+        study = pick(rng, sorted(spec["findings"]))
+        slots.update(study=study, finding=pick(rng, spec["findings"][study]))
+    if topic == "events":  # only events that run in the season of the event date
+        names = [e for e, seasons in EVENTS.items() if SEASON[ev_day.month] in seasons]
+        slots.update(event=pick(rng, names), event2=pick(rng, list(EVENTS)))
     if topic == "behind_the_scenes":  # second task must differ from the first
         slots["task2"] = pick(rng, [t for t in spec["task"] if t != slots["task"]])
     if topic == "shop_membership":
@@ -360,23 +390,36 @@ def compose(rng, topic, account, local, has_link):
     raise RuntimeError("could not compose a text of valid length")
 
 
-def ratio(a, b):
-    sm = difflib.SequenceMatcher(None, a, b)
-    return sm.ratio() if sm.real_quick_ratio() > SIMILARITY_CAP and sm.quick_ratio() > SIMILARITY_CAP else 0.0
+def words(text):
+    """Tokens for the similarity cap: words and single symbols, so URLs count part by part."""
+    return re.findall(r"\w+|[^\w\s]", text.lower())
 
 
-def near_repeat_edit(rng, text, reposter, original_account):
+def too_similar(tokens, others):
+    """Token-level difflib ratio above the cap against any of `others` (tokens, not characters:
+    much faster, and closer to what a reader calls "the same post"). Identical texts count too."""
+    sm = difflib.SequenceMatcher(None, b=tokens)  # b is cached across comparisons
+    for o in others:
+        sm.set_seq1(o)
+        if sm.real_quick_ratio() > SIMILARITY_CAP and sm.quick_ratio() > SIMILARITY_CAP \
+                and sm.ratio() > SIMILARITY_CAP:
+            return True
+    return False
+
+
+def near_repeat_edit(rng, text, topic, reposter, original_account):
     """Almost word-for-word copy: one emoji swap, word swap or short prefix."""
     if reposter != original_account:  # a teammate never mentions itself
         text = text.replace(f"@{reposter}", f"@{original_account}")
     for _ in range(20):
         kind = int(rng.integers(3))
-        emojis = [e for e in ALL_EMOJI if e in text]
+        pool = T[topic]["emoji"]  # swap within the topic's own emoji so the meaning holds
+        emojis = [e for e in pool if e in text]
         if kind == 0 and emojis:
             e = pick(rng, emojis)
-            new = text.replace(e, pick(rng, [x for x in ALL_EMOJI if x != e]), 1)
+            new = text.replace(e, pick(rng, [x for x in pool if x != e]), 1)
         elif kind == 0:
-            new = text + " " + pick(rng, ALL_EMOJI)
+            new = text + " " + pick(rng, pool)
         elif kind == 1:
             swaps = [(a, b) for a, b in WORD_SWAPS if a in text]
             if not swaps:
@@ -425,20 +468,18 @@ def generate():
                               has_link=bool(rng.random() < P_LINK), has_media=bool(rng.random() < P_MEDIA)))
     posts.sort(key=lambda p: (p["local"].astimezone(timezone.utc), p["account"]))
 
-    # 2. Texts in time order; reject near-duplicates of same-topic posts from the last 30 days
-    #    so that only the planted repeats look like repeats.
-    seen = {a: set() for a in ACCOUNTS}
-    for i, p in enumerate(posts):
-        recent = [q["text"] for q in posts[max(0, i - 400):i] if q["topic"] == p["topic"]
-                  and p["local"] - q["local"] < timedelta(days=30)]
-        for _ in range(200):
+    # 2. Texts in time order; reject any text too close to an earlier same-topic post (any
+    #    account, whole history) so that only the planted repeats look like repeats.
+    seen = {t: [] for t in TOPICS}  # token lists of accepted texts, per topic
+    for p in posts:
+        for _ in range(300):
             text = compose(rng, p["topic"], p["account"], p["local"], p["has_link"])
-            if text not in seen[p["account"]] and all(ratio(text, r) <= SIMILARITY_CAP for r in recent):
+            if not too_similar(words(text), seen[p["topic"]]):
                 break
         else:
             raise RuntimeError("template pools too small for the similarity cap")
         p["text"] = text
-        seen[p["account"]].add(text)
+        seen[p["topic"]].append(words(text))
 
     # 3. Planted near-repeats of an earlier ordinary post (same account or a teammate's).
     used, planted = set(), []
@@ -460,7 +501,7 @@ def generate():
             assert lo <= loc - orig["local"] <= hi
             planted.append(dict(account=reposter, topic=orig["topic"], kind=kind, local=loc,
                                 has_link=orig["has_link"], has_media=orig["has_media"], original=orig,
-                                text=near_repeat_edit(rng, orig["text"], reposter, orig_acct)))
+                                text=near_repeat_edit(rng, orig["text"], orig["topic"], reposter, orig_acct)))
     posts += planted
     posts.sort(key=lambda p: (p["local"].astimezone(timezone.utc), p["account"]))
 
@@ -496,7 +537,7 @@ def queue_drafts(posts):
          "Year-end lab note 🔬 the seed bank passed 9,000 accessions this year, and the cold room "
          "finally has a backup chiller. Thanks to @loomhaven_events for the fundraiser."),
         ("q-004", "loomhaven", last["topic"], 9, 13, 0,
-         near_repeat_edit(rng, last["text"], "loomhaven", "loomhaven")),
+         near_repeat_edit(rng, last["text"], "blooms", "loomhaven", "loomhaven")),
         ("q-005", "loomhaven", "shop_membership", 10, 10, 0,
          "Gift memberships are 15% off until Sunday 🎁 Free entry all year for someone you love. "
          "Join: https://loomhaven.example/shop/2026-12-gift-memberships"),
@@ -576,7 +617,8 @@ def main(out):
                             "teammate": sum(c for *_, c in REPEATS["teammate"]),
                             "same_account_days": [1, 20], "teammate_days": [1, 6],
                             "min_difflib_ratio": 0.85},
-        "ordinary_similarity_cap": {"difflib_ratio": SIMILARITY_CAP, "window_days": 30, "scope": "same topic"},
+        "ordinary_similarity_cap": {"difflib_ratio_on_tokens": SIMILARITY_CAP,
+                                    "scope": "same topic, any account, whole history"},
         "topic_phrases": TOPIC_PHRASES,
         "queue": notes,
     }

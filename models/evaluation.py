@@ -17,8 +17,10 @@ from numpy.typing import ArrayLike
 from .errors import InputError
 
 
-def _vectors(**named: ArrayLike) -> list[np.ndarray]:
-    """Non-empty 1-D finite float arrays of one length, or InputError."""
+def _vectors(named: dict[str, ArrayLike], *, infinite_ok: tuple[str, ...] = ()) -> list[np.ndarray]:
+    """Non-empty 1-D float arrays of one length, or InputError. NaN is never
+    accepted; infinity only for the names in ``infinite_ok`` (band bounds:
+    a too-small calibration block gives an honest infinite bound)."""
     out = []
     for name, value in named.items():
         try:
@@ -27,7 +29,7 @@ def _vectors(**named: ArrayLike) -> list[np.ndarray]:
             raise InputError(f"{name} must be numeric: {exc}", field=name) from None
         if arr.ndim != 1:
             raise InputError(f"{name} must be 1-D, got shape {arr.shape}", field=name)
-        if not np.isfinite(arr).all():
+        if np.isnan(arr).any() or (name not in infinite_ok and np.isinf(arr).any()):
             raise InputError(f"{name} contains NaN or infinite values", field=name)
         out.append(arr)
     lengths = {arr.shape[0] for arr in out}
@@ -46,14 +48,14 @@ def pinball_loss(y: ArrayLike, q: ArrayLike, alpha: float) -> float:
     alpha = float(alpha)
     if not 0.0 <= alpha <= 1.0:
         raise InputError(f"alpha must lie in [0, 1], got {alpha}", field="alpha", value=alpha)
-    y_, q_ = _vectors(y=y, q=q)
+    y_, q_ = _vectors({"y": y, "q": q})
     d = y_ - q_
     return float(np.mean(np.where(d >= 0, alpha * d, (alpha - 1.0) * d)))
 
 
 def mae(y: ArrayLike, yhat: ArrayLike) -> float:
     """Mean absolute error."""
-    y_, p_ = _vectors(y=y, yhat=yhat)
+    y_, p_ = _vectors({"y": y, "yhat": yhat})
     return float(np.mean(np.abs(y_ - p_)))
 
 
@@ -73,7 +75,7 @@ def _average_ranks(x: np.ndarray) -> np.ndarray:
 def spearman(y: ArrayLike, yhat: ArrayLike) -> float:
     """Spearman's rank correlation: Pearson correlation of average ranks.
     NaN when either side is constant (no ranking to correlate)."""
-    y_, p_ = _vectors(y=y, yhat=yhat)
+    y_, p_ = _vectors({"y": y, "yhat": yhat})
     ry = _average_ranks(y_) - (y_.size + 1) / 2.0
     rp = _average_ranks(p_) - (p_.size + 1) / 2.0
     denom = math.sqrt(float(ry @ ry) * float(rp @ rp))
@@ -84,13 +86,13 @@ def spearman(y: ArrayLike, yhat: ArrayLike) -> float:
 
 def coverage(y: ArrayLike, lo: ArrayLike, hi: ArrayLike) -> float:
     """Share of rows with ``lo <= y <= hi`` (bounds included)."""
-    y_, lo_, hi_ = _vectors(y=y, lo=lo, hi=hi)
+    y_, lo_, hi_ = _vectors({"y": y, "lo": lo, "hi": hi}, infinite_ok=("lo", "hi"))
     return float(np.mean((lo_ <= y_) & (y_ <= hi_)))
 
 
 def mean_width(lo: ArrayLike, hi: ArrayLike) -> float:
     """Mean band width ``hi - lo``."""
-    lo_, hi_ = _vectors(lo=lo, hi=hi)
+    lo_, hi_ = _vectors({"lo": lo, "hi": hi}, infinite_ok=("lo", "hi"))
     return float(np.mean(hi_ - lo_))
 
 

@@ -40,6 +40,7 @@ PALETTE: tuple[str, ...] = (
 MUTED = "#a9b0b7"  # too-small segments: present but visibly not to be trusted
 INK = "#2b3440"  # text and axes
 GRID = "#e6e9ec"
+_SMALL_DASHES: list[tuple[float, ...]] = [(3, 2), (1, 1.5), (6, 2, 1, 2), (4, 4)]
 
 DPI = 110
 WIDTH_IN = 11.0
@@ -121,14 +122,19 @@ def _ecdf_panel(
 ) -> None:
     # Highest-median segment first in the legend, matching the right panel
     # read top to bottom.
+    dashes = iter(_SMALL_DASHES * (len(order) // len(_SMALL_DASHES) + 1))
     for seg in reversed(order):
         vals = np.sort(np.maximum(groups[seg.name], floor))
-        y = np.arange(1, vals.size + 1) / vals.size
+        # Start from share 0 at the first value, so the first riser is drawn
+        # and a one-post segment still shows up as a vertical line.
+        xs = np.concatenate([vals[:1], vals])
+        ys = np.concatenate([[0.0], np.arange(1, vals.size + 1) / vals.size])
         label = f"{seg.name} (n={seg.n})" + (", too few" if seg.too_small else "")
         ax.step(
-            vals, y, where="post", color=colours[seg.name],
+            xs, ys, where="post", color=colours[seg.name],
             linewidth=1.1 if seg.too_small else 1.8,
-            linestyle=(0, (3, 2)) if seg.too_small else "-",
+            # Too-small segments share one grey; distinct dashes keep them apart.
+            linestyle=(0, next(dashes)) if seg.too_small else "-",
             alpha=0.9, label=label,
         )
     _log_axis(ax)

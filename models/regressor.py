@@ -36,6 +36,7 @@ MAX_COVERAGE = 0.95
 FORMAT_VERSION = 1
 CONFIG_FILE = "config.json"
 
+
 # LightGBM rejects some characters in feature names and rewrites others,
 # so boosters see neutral column names; ours stay exact in config.json.
 def _internal_names(n: int) -> list[str]:
@@ -53,8 +54,10 @@ def _matrix(name: str, X: Any, n_features: int | None = None) -> np.ndarray:
         raise InputError(
             f"{name} has {arr.shape[1]} features, the model expects {n_features}", field=name
         )
-    if not np.isfinite(arr).all():
-        raise InputError(f"{name} contains NaN or infinite values", field=name)
+    # NaN is a missing feature (no baseline yet, no neighbours), which
+    # LightGBM routes natively; infinities are bugs upstream.
+    if np.isinf(arr).any():
+        raise InputError(f"{name} contains infinite values", field=name)
     return arr
 
 
@@ -175,10 +178,13 @@ class QuantileForecaster:
         if Xc.shape[0] < need_cal:
             raise InputError(
                 f"{Xc.shape[0]} calibration rows; need at least {need_cal} "
-                f"for a finite band at coverage {MAX_COVERAGE}",
+                f"for a finite band at coverage {max(MAX_COVERAGE, levels[-1])}",
                 field="X_cal",
             )
-        names = [f"f{i}" for i in range(n_features)] if feature_names is None else [str(n) for n in feature_names]
+        if feature_names is None:
+            names = _internal_names(n_features)
+        else:
+            names = [str(n) for n in feature_names]
         if len(names) != n_features or len(set(names)) != n_features:
             raise InputError(
                 f"feature_names must be {n_features} distinct names, got {len(names)}",
@@ -195,7 +201,9 @@ class QuantileForecaster:
             return lgb.train(self._booster_params(alpha), data, num_boost_round=int(self.n_estimators))
 
         self.median_model_ = train(0.5)
-        lowers, uppers, calibrators = [], [], []
+        lowers: list[lgb.Booster] = []
+        uppers: list[lgb.Booster] = []
+        calibrators: list[CQRCalibrator] = []
         for c in levels:
             lo_model, hi_model = train((1.0 - c) / 2.0), train(1.0 - (1.0 - c) / 2.0)
             cal = CQRCalibrator(alpha=1.0 - c).fit(yc, lo_model.predict(Xc), hi_model.predict(Xc))

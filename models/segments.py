@@ -157,7 +157,7 @@ def assign_nearest_topic(
     if sims.shape[0] == 0:
         return np.empty(0, dtype=np.int64)
     best = np.argmax(sims, axis=1).astype(np.int64)
-    best[sims[np.arange(sims.shape[0]), best] <= threshold - 0.05] = -1
+    best[sims[np.arange(sims.shape[0]), best] < threshold] = -1
     return best
 
 

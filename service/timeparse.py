@@ -38,8 +38,9 @@ def parse_time(text: str, *, tz: str = "UTC", where: str | None = None) -> datet
     if not raw:
         raise TimeParseError("empty time", where=where, value=text)
     try:
-        # fromisoformat reads ISO 8601 with 'Z', offsets, 'T' or a space.
-        dt = datetime.fromisoformat(raw)
+        # fromisoformat reads ISO 8601 with 'Z', offsets, 'T' or a space;
+        # upper() because RFC 3339 (5.6) also allows lower-case 't' and 'z'.
+        dt = datetime.fromisoformat(raw.upper())
     except ValueError:
         raise TimeParseError(
             f"cannot read time {raw!r}",

@@ -66,6 +66,16 @@ class Workspace:
         self._index: VectorIndex | None = None
         self._index_stamp: tuple[int, int, str] | None = None
         self._lock = threading.RLock()
+        self._forecaster: Any = None
+
+    @property
+    def forecaster(self) -> Any:
+        """The forecast service over this workspace (loads models on demand)."""
+        if self._forecaster is None:
+            from .forecasting import Forecaster
+
+            self._forecaster = Forecaster(workspace=self)
+        return self._forecaster
 
     def close(self) -> None:
         self.store.close()
@@ -179,7 +189,20 @@ class Workspace:
             )
         return text
 
+    def check_batch(self, n: int) -> int:
+        """Refuse more drafts in one request than SOUNDING_MAX_BATCH."""
+        if n > self.settings.max_batch:
+            raise LimitExceeded(
+                f"{n} drafts in one request; the limit is {self.settings.max_batch} "
+                "(SOUNDING_MAX_BATCH)",
+                limit="max_batch",
+                maximum=self.settings.max_batch,
+                field="drafts",
+            )
+        return n
+
     def embed_drafts(self, texts: list[str]) -> np.ndarray:
+        self.check_batch(len(texts))
         for t in texts:
             self.check_draft(t)
         return self.embedder.encode(texts)
@@ -192,13 +215,19 @@ class Workspace:
         account: str | None = None,
         since: datetime | None = None,
         until: datetime | None = None,
+        allowed_pks: np.ndarray | None = None,
     ) -> list[list[tuple[int, float]]]:
-        """(post row id, similarity) of the ``k`` nearest posts per vector."""
-        index = self.index()
-        allowed = None
+        """(post row id, similarity) of the ``k`` nearest posts per vector,
+        optionally among ``allowed_pks`` or one account's posts in a date range."""
+        allowed = allowed_pks
         if account is not None or since is not None or until is not None:
             allowed = self.store.pks_where(account=account, since=since, until=until)
-        sims, ids = index.search(vectors, k, allowed_ids=allowed)
+            if allowed_pks is not None:
+                allowed = np.intersect1d(allowed, allowed_pks)
+        # Under the lock: _sync_index changes the FAISS index in place, and
+        # FAISS does not allow a search while ids are removed or added.
+        with self._lock:
+            sims, ids = self.index().search(vectors, k, allowed_ids=allowed)
         return [
             [(int(i), float(s)) for i, s in zip(row_ids, row_sims, strict=True) if i >= 0]
             for row_ids, row_sims in zip(ids, sims, strict=True)

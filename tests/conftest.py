@@ -51,7 +51,8 @@ def workspace(make_workspace) -> Workspace:
 
 @pytest.fixture(scope="session")
 def demo_home(tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> Path:
-    """A data directory holding the imported demo history (built once).
+    """A data directory holding the imported demo history and a trained
+    impressions model (built once per session).
 
     Tests that change data must copy it (``demo_copy``) rather than write here.
     """
@@ -62,6 +63,9 @@ def demo_home(tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> P
     for handle, name, tz in _demo_accounts():
         ws.store.set_account(handle, display_name=name, timezone=tz)
     ws.import_csv(DEMO_CSV)
+    from service.forecasting import train
+
+    train(ws, "impressions")  # one model for every test that forecasts
     ws.close()
     return home
 

@@ -77,6 +77,12 @@ def test_coverage_and_width() -> None:
     assert mean_width(lo, hi) == pytest.approx((1.0 + 0.5 + 1.0 + 2.9) / 4)
 
 
+def test_coverage_accepts_infinite_bounds() -> None:
+    # a calibration block too small for the level gives an infinite bound
+    assert coverage([1.0, 5.0], [-np.inf, 0.0], [np.inf, 2.0]) == pytest.approx(0.5)
+    assert mean_width([0.0], [np.inf]) == np.inf
+
+
 def test_metrics_reject_bad_input() -> None:
     with pytest.raises(InputError):
         mae([1.0, 2.0], [1.0])

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import importlib
+import importlib.util
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from pathlib import Path
@@ -12,10 +14,15 @@ from .. import __version__
 from ..settings import Settings, get_settings
 from ..workspace import Workspace
 from . import errors
-from .routers import health, precedents
 from .schemas import CAUTION
 
 STATIC = Path(__file__).resolve().parent.parent / "static"
+
+# One router module per resource, in the order they appear in /docs.
+ROUTERS = (
+    "health", "precedents", "forecasts", "hours", "variants", "segments",
+    "imports", "training", "forget",
+)
 
 
 def create_app(*, workspace: Workspace | None = None, settings: Settings | None = None) -> FastAPI:
@@ -35,6 +42,11 @@ def create_app(*, workspace: Workspace | None = None, settings: Settings | None 
     )
     app.state.workspace = ws
     errors.install(app)
-    for module in (health, precedents):
-        app.include_router(module.router)
+    for name in ROUTERS:
+        spec = f"{__package__}.routers.{name}"
+        if importlib.util.find_spec(spec) is not None:
+            app.include_router(importlib.import_module(spec).router)
+    page = importlib.util.find_spec(f"{__package__}.page")
+    if page is not None:
+        importlib.import_module(page.name).mount(app)
     return app

@@ -65,6 +65,13 @@ def install(app: FastAPI) -> None:
 
     @app.exception_handler(StarletteHTTPException)
     async def _http(_req: Request, exc: StarletteHTTPException) -> JSONResponse:
+        if exc.status_code == 400:
+            # FastAPI's answer to a body it cannot decode (e.g. bytes that are
+            # not UTF-8): bad input like any other, so 422 as for an InputError.
+            return JSONResponse(
+                {"error": {"code": "invalid_request", "message": f"body: {exc.detail}"}},
+                status_code=422,
+            )
         code = {404: "not_found", 405: "method_not_allowed", 401: "unauthorized"}.get(
             exc.status_code, "http_error"
         )

@@ -206,7 +206,8 @@ def _demo_accounts() -> list[tuple[str, str, str]]:
         data = json.loads(effects.read_text())
         accs = data.get("accounts")
         if isinstance(accs, dict):
-            return [(h, v.get("display_name", h), v.get("timezone", "UTC")) for h, v in accs.items()]
+            return [(h, v.get("display_name", h), v.get("timezone", v.get("zone", "UTC")))
+                    for h, v in accs.items()]
         if isinstance(accs, list):
             return [(a["handle"], a.get("display_name", a["handle"]), a.get("timezone", "UTC"))
                     for a in accs]

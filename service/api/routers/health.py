@@ -3,17 +3,20 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from ..deps import WorkspaceDep
+from ..responses import ERRORS
 from ..schemas import AccountOut, Health
 
 router = APIRouter(prefix="/v1", tags=["health"])
 
 
-@router.get("/health", response_model=Health, summary="Counts, model and index state")
+@router.get("/health", response_model=Health, responses=ERRORS(503),
+            summary="Counts, model and index state")
 def health(ws: WorkspaceDep) -> Health:
     return Health(**ws.health())
 
 
-@router.get("/accounts", response_model=list[AccountOut], summary="Accounts in the store")
+@router.get("/accounts", response_model=list[AccountOut], responses=ERRORS(503),
+            summary="Accounts in the store")
 def accounts(ws: WorkspaceDep) -> list[AccountOut]:
     return [AccountOut(handle=a.handle, display_name=a.display_name, timezone=a.timezone,
                        posts=a.posts) for a in ws.store.accounts()]

@@ -12,7 +12,7 @@ router = APIRouter(prefix="/v1", tags=["precedents"])
 @router.post(
     "/precedents",
     response_model=PrecedentsResponse,
-    responses=ERRORS(404, 413, 422),
+    responses=ERRORS(404, 413, 422, 503),
     summary="The most similar past posts of a draft",
 )
 def precedents(body: PrecedentsRequest, ws: WorkspaceDep) -> PrecedentsResponse:

@@ -1,0 +1,147 @@
+"""Commands for forecasting: train, backtest, check."""
+
+from __future__ import annotations
+
+import json
+from datetime import datetime, time, timedelta
+from pathlib import Path
+from typing import Any
+
+import typer
+from rich.table import Table
+
+from models.errors import InputError
+
+from .. import forecasting
+from ..forecasting import CAUTION, Draft, Forecast
+from ..queue import forecast_queue
+from ..timeparse import localize, parse_time, zone
+from .base import app, out, print_json, workspace
+
+METRIC_HELP = "Metric to forecast: impressions, engagements, likes, link_clicks, engagement_rate, ..."
+
+
+@app.command("train")
+def train_cmd(
+    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
+    skip_backtest: bool = typer.Option(
+        False, "--skip-backtest", help="Train without the backtest (forecasts then state no "
+        "backtested coverage)."),
+) -> None:
+    """Train a new forecast model version from the store."""
+    m = forecasting.train(workspace(), metric, backtest=not skip_backtest)
+    out.print(f"trained {metric} model {m.version} on {m.report['n_train']} posts, "
+              f"calibrated on the next {m.report['n_calibration']}")
+    if "backtest" in m.report:
+        print_backtest(m.report["backtest"], metric)
+
+
+def print_backtest(bt: dict[str, Any], metric: str) -> None:
+    t = Table("forecaster", "MAE (log)", "Spearman", "coverage", "mean width (log)",
+              title=f"backtest of {metric}: {bt['n_folds']} time-ordered folds, {bt['n_test']} "
+              f"test posts, nominal coverage {bt['coverage_nominal']:.0%}")
+
+    def row(name: str, s: dict[str, Any]) -> None:
+        t.add_row(name, f"{s['mae_log']:.3f}", f"{s['spearman']:.3f}",
+                  "-" if s["coverage"] is None else f"{s['coverage']:.1%}",
+                  "-" if s["mean_width_log"] is None else f"{s['mean_width_log']:.2f}")
+
+    row("sounding model", bt["model"])
+    labels = {"account_median": "account trailing median", "precedents_median":
+              "precedents' median", "timing_only": "timing only"}
+    for k, s in bt["baselines"].items():
+        row(labels.get(k, k), s)
+    out.print(t)
+    levels = ", ".join(f"{k}: {v:.1%}" for k, v in bt.get("coverage_by_level", {}).items())
+    out.print(f"backtested coverage by level: {levels}")
+
+
+@app.command("backtest")
+def backtest_cmd(
+    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
+    coverage: float = typer.Option(0.8, "--coverage", help="Nominal interval coverage."),
+    folds: int = typer.Option(4, "--folds", help="Number of rolling-origin folds."),
+    json_file: Path | None = typer.Option(None, "--json", help="Also write the report as JSON."),
+) -> None:
+    """Time-ordered backtest of the forecast against simple baselines."""
+    bt = forecasting.backtest(workspace(), metric, coverage=coverage, n_folds=folds)
+    print_backtest(bt, metric)
+    if json_file:
+        json_file.write_text(json.dumps(bt, indent=2))
+        out.print(f"report written to {json_file}")
+
+
+def print_forecast(f: Forecast) -> None:
+    bt = "not backtested" if f.backtested_coverage is None else \
+        f"{f.backtested_coverage:.0%} in backtests"
+    out.print(f"[bold]{f.metric}[/bold] for {f.account} at {f.local_time}: "
+              f"[bold]{f.low:,.0f} – {f.high:,.0f}[/bold] (middle {f.median:,.0f}); "
+              f"{f.coverage:.0%} interval, held {bt}; model {f.model_version}")
+    for w in f.warnings:
+        out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
+    for g in f.contributions["groups"]:
+        out.print(f"  {g['summary']}", highlight=False)
+    t = Table("sim", "weight", "account", "posted", f.metric, "text", title="precedents")
+    for p in f.precedents[:8]:
+        v = p["metrics"].get(f.metric) if f.metric in p["metrics"] else None
+        t.add_row(f"{p['similarity']:.2f}", f"{p['weight']:.2f}", p["account"],
+                  p["posted_at"][:16].replace("T", " ") + ("" if p["mature"] else " (young)"),
+                  "-" if v is None else f"{v:,}", p["text"][:80])
+    out.print(t)
+    out.print(f"[dim]{CAUTION}[/dim]")
+
+
+def planned(at: str | None, account: str) -> datetime | None:
+    if not at:
+        return None
+    tz = workspace().store.account(account).timezone
+    return parse_time(at, tz=tz, where="--at")
+
+
+@app.command("check")
+def check_cmd(
+    text: str | None = typer.Argument(None, help="The draft (or use --file for a queue)."),
+    account: str | None = typer.Option(None, "--account", help="Account that would post it."),
+    at: str | None = typer.Option(
+        None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."),
+    coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
+    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
+    file: Path | None = typer.Option(None, "--file", help="Queue CSV: draft_id,account,text,planned_at."),
+    dest: Path | None = typer.Option(None, "--out", help="Where to write the queue's forecasts (CSV)."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+) -> None:
+    """Forecast a draft (or a queue file) with its interval, precedents and reasons."""
+    ws = workspace()
+    if file is not None:
+        if dest is None:
+            raise InputError("--file needs --out for the forecasts", field="--out")
+        counts = forecast_queue(ws, file, dest, metric=metric, coverage=coverage)
+        out.print(f"{counts['forecast']} of {counts['rows']} drafts forecast into {dest}"
+                  + (f"; {counts['failed']} with a reason in warnings" if counts["failed"] else ""))
+        return
+    if not text:
+        raise InputError("give the draft text, or --file with a queue", field="text")
+    if not account:
+        raise InputError("say which account would post it with --account", field="--account")
+    f = ws.forecaster.forecast([Draft(text=text, account=account, planned_at=planned(at, account))],
+                               metric=metric, coverage=coverage)[0]
+    if as_json:
+        print_json(f.to_dict())
+    else:
+        print_forecast(f)
+
+
+def demo_forecast(ws: Any, draft: str) -> None:
+    """The forecasting half of `sounding demo`."""
+    out.rule("3. train and backtest a forecast of impressions")
+    m = forecasting.train(ws, "impressions")
+    out.print(f"model {m.version}: {m.report['n_train']} posts to train, "
+              f"{m.report['n_calibration']} to calibrate")
+    print_backtest(m.report["backtest"], "impressions")
+    out.rule("4. forecast the sample draft for tomorrow noon")
+    account = "loomhaven"
+    tz = ws.store.account(account).timezone
+    tomorrow = datetime.now(zone(tz)).date() + timedelta(days=1)
+    when = localize(datetime.combine(tomorrow, time(12, 0)), tz)
+    f = ws.forecaster.forecast([Draft(text=draft, account=account, planned_at=when)])[0]
+    print_forecast(f)
