@@ -76,7 +76,9 @@ REPEATS = {"same_account": {"loomhaven": 20, "loomhaven_events": 12, "loomhaven_
            # (reposter, original account, count): the main account is amplified most
            "teammate": [("loomhaven_events", "loomhaven", 7), ("loomhaven_lab", "loomhaven", 4),
                         ("loomhaven", "loomhaven_events", 2), ("loomhaven", "loomhaven_lab", 2)]}
-SIMILARITY_CAP = 0.60  # token-level difflib ratio cap between any two ordinary same-topic posts
+# Token-level difflib ratio caps between two ordinary same-topic posts (any account).
+# Planted repeats sit above 0.85, so there is a clear gap.
+CAP_30_DAYS, CAP_EVER = 0.60, 0.80
 
 TOPIC_PHRASES = {
     "blooms": ["flowers in bloom", "what's flowering now", "seasonal blooms", "garden in flower",
@@ -94,16 +96,21 @@ TOPIC_PHRASES = {
 PLACES = ["the Long Border", "the Winter Walk", "Glasshouse One", "the Tropical House",
           "the Herb Terrace", "the Pond Walk", "the Old Orchard", "the Meadow", "the Alpine Bed",
           "the Fern Gully", "the Rose Arbour", "the South Lawn", "the Woodland Path",
-          "the Walled Garden", "the Gravel Garden", "the Lower Lake"]
+          "the Walled Garden", "the Gravel Garden", "the Lower Lake", "the Bog Garden",
+          "the Cedar Lawn", "the Kitchen Garden", "the Sunken Garden", "the Birch Grove"]
 SEASON_PLANTS = {  # plural nouns only, so templates read correctly
     "winter": ["snowdrops", "hellebores", "witch hazels", "winter aconites", "camellias",
-               "winter irises", "cyclamen", "daphnes", "orchids", "winter jasmines"],
+               "winter irises", "cyclamen", "daphnes", "orchids", "winter jasmines",
+               "mahonias", "sarcococcas", "early crocuses", "viburnums", "winter honeysuckles"],
     "spring": ["magnolias", "tulips", "bluebells", "daffodils", "cherry blossoms", "fritillaries",
-               "camassias", "rhododendrons", "tree peonies", "alliums", "wisterias"],
+               "camassias", "rhododendrons", "tree peonies", "alliums", "wisterias",
+               "crab apples", "primroses", "pasque flowers", "lilacs", "grape hyacinths"],
     "summer": ["roses", "foxgloves", "peonies", "lavender bushes", "water lilies", "salvias",
-               "hydrangeas", "sunflowers", "agapanthus", "echinaceas", "sweet peas"],
+               "hydrangeas", "sunflowers", "agapanthus", "echinaceas", "sweet peas",
+               "lilies", "delphiniums", "poppies", "cosmos", "verbenas"],
     "autumn": ["dahlias", "asters", "autumn crocuses", "nerines", "salvias", "anemones",
-               "rudbeckias", "autumn cyclamen", "late roses", "gingers", "heleniums"],
+               "rudbeckias", "autumn cyclamen", "late roses", "gingers", "heleniums",
+               "sedums", "chrysanthemums", "gentians", "colchicums", "michaelmas daisies"],
 }
 SEASON = {12: "winter", 1: "winter", 2: "winter", 3: "spring", 4: "spring", 5: "spring",
           6: "summer", 7: "summer", 8: "summer", 9: "autumn", 10: "autumn", 11: "autumn"}
@@ -130,6 +137,10 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
             "Our {plant} have decided it's their moment: {state} across {place}. {visit} {emoji}",
             "Walked through {place} at opening time and the {plant} are {state}. {Plant2} are next.",
             "{Weekday} flower check: {place} has {plant} {state} and {plant2} just starting. {visit}",
+            "It's {plant} time in {place} {emoji} {sense}.",
+            "Spotted on this morning's walk: {plant} {state} by {place}, and the first {plant2} too.",
+            "Colour alert {emoji} {place} is all {plant} {when}, with {plant2} filling the gaps.",
+            "The gardeners' pick {when}: {plant} in {place}. {sense}. {visit}",
         ],
         state=["in full flower", "just opening", "at their peak", "putting on a show",
                "flowering their heads off", "looking their best", "coming into colour"],
@@ -156,6 +167,10 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
             "What visitors don't see: {task}. {Team} do it {freq} so {reason}.",
             "{emoji} Glasshouse diary, {weekday}: {task}, {task2}, and a lot of tea.",
             "Today's job list for {team}: {task}, then {task2}. {detail}.",
+            "Early start {emoji} {team} have been {task} since {clock}. {detail}.",
+            "The unseen work of {month}: {task}, {task2} and plenty more. {Team} make it look easy.",
+            "Meet {team}: this week they're {task}. {detail}.",
+            "Ask a gardener: why are we {task}? So {reason}. {emoji}",
         ],
         team=["our glasshouse team", "the nursery crew", "our apprentices", "the arboretum team",
               "the early shift", "the propagation team", "the path crew", "the lake team"],
@@ -169,7 +184,7 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
               "checking the boiler before the cold snap", "relabelling the fern collection",
               "moving the giant cactus (carefully)", "sharpening every pair of secateurs",
               "raking leaves off the lawns", "staking the tall perennials"],
-        backplace=["the nursery", "the potting shed", "the propagation benches", "the boiler room",
+        backplace=["the mess room", "the compost yard", "the nursery", "the potting shed", "the propagation benches", "the boiler room",
                    "the seed store", "the back of the glasshouse", "the tool store"],
         things=["pots repotted", "cuttings taken", "bulbs planted", "barrows of mulch spread",
                 "labels rewritten", "seed trays sown", "trees staked"],
@@ -179,6 +194,7 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
                 "You'd be amazed how much soil moves in a day",
                 "The robins supervised closely", "Muddy boots, happy gardeners"],
         freq=["every week", "twice a year", "each autumn", "every morning", "every spring"],
+        clock=["7am", "half past six", "first light", "before the gates opened", "dawn"],
         reason=["the paths stay safe", "the plants get a head start", "the glasshouse stays warm",
                 "nothing outgrows its bed", "the collection stays healthy"],
         emoji=["🌱", "🪴", "🧤", "🌿", "🛠️"],
@@ -196,6 +212,10 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
             "{Event} on {date}: {pitch_lc}. {ticket}.",
             "Plans for {event_weekday}? {Event} runs {time}, {audience}. {ticket}.",
             "Thank you to everyone who came to {event2}! Next up is {event} on {date}. {ticket}.",
+            "Tickets for {event} on {date} go fast. {Audience}. {pitch}.",
+            "Calling all garden lovers: {event}, {date}, {time}. {pitch}.",
+            "Coming soon {emoji} {event} ({date}). {ticket}, {audience}.",
+            "Mark your calendar {emoji} {date}, {time}: {event}. {pitch}.",
         ],
         time=["from 10am", "at 6pm", "7-9pm", "all day", "from 2pm", "10am-1pm", "after dark"],
         ticket=["Tickets are on sale now", "Booking is open", "Spaces are limited",
@@ -220,6 +240,10 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
             "Why keep records for decades? Because {study} now shows {finding}.",
             "Field notes, {month}: {finding}. {method}. {next}.",
             "{emoji} New lab notes on what {study} is telling us. Short version: {finding}.",
+            "Data day in the lab {emoji} {Study} update: {finding}.",
+            "We counted, measured and checked again: {finding}. {method}.",
+            "One for the plant nerds: {study} found that {finding}. {next}.",
+            "Halfway through {study} and one thing stands out {emoji} {finding}. {next}.",
         ],
         findings={  # study -> what it found, so each post's result fits its study
             "our seed bank": ["germination rates are up on last year",
@@ -266,6 +290,10 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
             "Give a little time, grow a lot: become one of our {role}. {perk}. {ask}",
             "Could you spare a few hours {when}? {Role} help keep the garden running. {perk}.",
             "Open session for new {role} on {date}. {perk}. {ask}",
+            "{Role} wanted {emoji} Join us {when}. {perk}. You'll get {benefit}.",
+            "Meet the people who keep this place going: our {role}. Want to join them {when}? {perk}.",
+            "Thinking of volunteering in {month}? We have spaces for {role} {when}. {ask}",
+            "A big welcome to our newest {role}! There's room for more {when}. {perk}.",
         ],
         role=["garden volunteers", "weekend guides", "seed-cleaning helpers",
               "citizen-science counters", "event stewards", "nursery helpers",
@@ -294,6 +322,10 @@ T = {  # per topic: templates + slot pools. Slots derived from the post date are
             "New in the shop: {item}. {cta}. {emoji}",
             "Last chance: {offer_lc} {item} ends {weekday}. {cta}.",
             "Every sale of {item} helps fund {cause}. {cta}.",
+            "Members, this one's for you {emoji} {offer} {item} {offer_who}.",
+            "Spotted in the shop this {weekday}: {item}. {cta}.",
+            "Why join? {Perk}, {perk2}, and you support the garden all year. {cta}.",
+            "Gift idea {emoji} {item}, {offer_lc} {offer_who}. {cta}.",
         ],
         item=["seed packets", "gift memberships", "garden tote bags", "wildflower seed mixes",
               "pressed-flower cards", "jars of orchard honey", "pollinator plant bundles",
@@ -361,15 +393,15 @@ def fill(rng, topic, account, local):
     for k in list(slots):  # {Key} = capitalised, {key_lc} = lower-cased first letter
         v = str(slots[k])
         slots[cap(k)], slots[k + "_lc"] = cap(v), v[:1].lower() + v[1:]
-    text = pick(rng, spec["templates"]).format(**slots)
-    return text, slots
+    tid = int(rng.integers(len(spec["templates"])))
+    return spec["templates"][tid].format(**slots), slots, tid
 
 
 def compose(rng, topic, account, local, has_link):
     """Core sentence plus optional closer, @mention, link and hashtags; 40-260 chars."""
     spec = T[topic]
     for _ in range(50):
-        core, slots = fill(rng, topic, account, local)
+        core, slots, tid = fill(rng, topic, account, local)
         parts = [core]
         if rng.random() < 0.25:
             parts.append(pick(rng, spec["closer"]))
@@ -386,7 +418,7 @@ def compose(rng, topic, account, local, has_link):
                                   + (["#Loomhaven"] if rng.random() < 0.3 else [])))
         text = " ".join(parts)
         if 40 <= len(text) <= 260:
-            return text
+            return text, tid
     raise RuntimeError("could not compose a text of valid length")
 
 
@@ -395,14 +427,13 @@ def words(text):
     return re.findall(r"\w+|[^\w\s]", text.lower())
 
 
-def too_similar(tokens, others):
+def too_similar(tokens, others, cap):
     """Token-level difflib ratio above the cap against any of `others` (tokens, not characters:
     much faster, and closer to what a reader calls "the same post"). Identical texts count too."""
     sm = difflib.SequenceMatcher(None, b=tokens)  # b is cached across comparisons
     for o in others:
         sm.set_seq1(o)
-        if sm.real_quick_ratio() > SIMILARITY_CAP and sm.quick_ratio() > SIMILARITY_CAP \
-                and sm.ratio() > SIMILARITY_CAP:
+        if sm.real_quick_ratio() > cap and sm.quick_ratio() > cap and sm.ratio() > cap:
             return True
     return False
 
@@ -468,18 +499,24 @@ def generate():
                               has_link=bool(rng.random() < P_LINK), has_media=bool(rng.random() < P_MEDIA)))
     posts.sort(key=lambda p: (p["local"].astimezone(timezone.utc), p["account"]))
 
-    # 2. Texts in time order; reject any text too close to an earlier same-topic post (any
-    #    account, whole history) so that only the planted repeats look like repeats.
-    seen = {t: [] for t in TOPICS}  # token lists of accepted texts, per topic
+    # 2. Texts in time order. Reject a text too close to an earlier same-topic post of any
+    #    account: a strict cap within 30 days (where repeat warnings matter), a looser one over
+    #    the whole history (checked within the same template, where old look-alikes come from).
+    #    Only the planted repeats should look like repeats.
+    seen = {t: [] for t in TOPICS}  # (time, template id, tokens) of accepted texts, per topic
     for p in posts:
+        hist = seen[p["topic"]]  # a topic has < 60 posts in any 30 days, so the tail suffices
+        recent = [w for t, _, w in hist[-200:] if p["local"] - t < timedelta(days=30)]
         for _ in range(300):
-            text = compose(rng, p["topic"], p["account"], p["local"], p["has_link"])
-            if not too_similar(words(text), seen[p["topic"]]):
+            text, tid = compose(rng, p["topic"], p["account"], p["local"], p["has_link"])
+            tok = words(text)
+            same_template = [w for _, i, w in hist if i == tid]
+            if not too_similar(tok, recent, CAP_30_DAYS) and not too_similar(tok, same_template, CAP_EVER):
                 break
         else:
-            raise RuntimeError("template pools too small for the similarity cap")
+            raise RuntimeError("template pools too small for the similarity caps")
         p["text"] = text
-        seen[p["topic"]].append(words(text))
+        seen[p["topic"]].append((p["local"], tid, tok))
 
     # 3. Planted near-repeats of an earlier ordinary post (same account or a teammate's).
     used, planted = set(), []
@@ -617,8 +654,9 @@ def main(out):
                             "teammate": sum(c for *_, c in REPEATS["teammate"]),
                             "same_account_days": [1, 20], "teammate_days": [1, 6],
                             "min_difflib_ratio": 0.85},
-        "ordinary_similarity_cap": {"difflib_ratio_on_tokens": SIMILARITY_CAP,
-                                    "scope": "same topic, any account, whole history"},
+        "ordinary_similarity_cap": {"measure": "difflib ratio on word/symbol tokens",
+                                    "scope": "same topic, any account",
+                                    "within_30_days": CAP_30_DAYS, "whole_history": CAP_EVER},
         "topic_phrases": TOPIC_PHRASES,
         "queue": notes,
     }

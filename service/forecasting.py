@@ -58,7 +58,7 @@ def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndar
         mask = (zones == tz).to_numpy()
         local = times[mask].dt.tz_convert(str(tz))
         hours[mask] = (local.dt.hour + local.dt.minute / 60.0).to_numpy()
-        days[mask] = local.dt.weekday.to_numpy()
+        days[mask] = local.dt.day_of_week.to_numpy()
     return hours, days
 
 
@@ -128,7 +128,8 @@ def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
         X[:cut], y[:cut], X[cut:], y[cut:], feature_names=F.FEATURE_NAMES)
     report: dict[str, Any] = {
         "metric": metric,
-        "trained_at": now.isoformat(),
+        "trained_at": now_utc().isoformat(),
+        "data_as_of": now.isoformat(),
         "n_posts": int(len(y)),
         "n_train": int(cut),
         "n_calibration": int(len(y) - cut),
@@ -140,7 +141,9 @@ def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
     if backtest:
         report["backtest"] = run_backtest(X, y, times, feature_names=F.FEATURE_NAMES,
                                           params=QUANTILE_PARAMS)
-    version = now.strftime("%Y%m%dT%H%M%S") + f"{now.microsecond // 1000:03d}Z"
+    # Versions sort by the wall clock of training, whatever "now" the data was seen at.
+    stamp = now_utc()
+    version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
     trained = TrainedModel(metric=metric, version=version, features=params,
                            quantiles=model, report=report)
     trained.save(ws.settings.models_dir)
@@ -240,11 +243,17 @@ class Forecaster:
         model = self.model(metric)
         view = self.view(metric)
         now = now or now_utc()
+        least = self.ws.settings.min_history_posts
         for d in drafts:
-            if d.account not in view.account_codes:
+            code = view.account_codes.get(d.account)
+            if code is None:
                 self.ws.store.account(d.account)  # raises NotFound for unknown accounts
-                raise NotReady(f"account {d.account!r} has no posts with {metric} yet",
-                               field="account", value=d.account)
+            n = 0 if code is None else int(np.sum(
+                (view.history.account == code) & ~np.isnan(view.history.log_target)))
+            if n < least:
+                raise NotReady(
+                    f"account {d.account!r} has {n} posts with {metric}; a forecast needs at "
+                    f"least {least} (SOUNDING_MIN_HISTORY_POSTS)", field="account", value=d.account)
         vecs = vectors if vectors is not None else self.ws.embed_drafts([d.text for d in drafts])
         rows, plans = [], []
         for d, vec in zip(drafts, vecs, strict=True):

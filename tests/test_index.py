@@ -6,6 +6,7 @@ The reference throughout is scikit-learn's exact brute-force cosine search,
 
 from __future__ import annotations
 
+import csv
 import json
 import shutil
 from datetime import UTC, datetime
@@ -22,8 +23,16 @@ from models.index import VectorIndex, fingerprint
 from service.settings import Settings
 from service.workspace import Workspace
 
+DEMO_CSV = Path(__file__).resolve().parents[1] / "demo_data" / "posts.csv"  # as in conftest
+
 DIM = 384
 TOL = 1e-5  # float32 inner products of unit vectors agree to about 1e-6
+
+
+def demo_rows() -> int:
+    """Data rows of the demo CSV, counted by Python's csv module (RFC 4180 records)."""
+    with DEMO_CSV.open(encoding="utf-8-sig", newline="") as f:
+        return sum(1 for _ in csv.reader(f)) - 1
 
 
 def unit_gaussian(rng: np.random.Generator, n: int, dim: int = DIM) -> np.ndarray:
@@ -191,20 +200,19 @@ def _check_workspace(ws: Workspace, df: pd.DataFrame, vecs: np.ndarray, mask: np
     hits = ws.neighbours(queries, k, **filters)
     sub_ids = df["pk"].to_numpy()[mask]
     ref_sims, ref_ids = sklearn_topk(vecs[mask], sub_ids, queries, k)
+    sim_of = _sim_of(df, vecs, queries)
     kk = ref_ids.shape[1]
     assert all(len(h) == kk for h in hits)
     got_ids = np.array([[p for p, _ in h] for h in hits])
     got_sims = np.array([[s for _, s in h] for h in hits])
     # Exact cosine similarity of every post to every query, for near-tie checks
     # (the demo has one text posted twice, so exact ties exist).
-    sim_of = dict(zip(df["pk"].tolist(), (vecs.astype(np.float64) @ queries.T.astype(np.float64)),
-                      strict=True))
     assert_same_topk(got_sims, got_ids, ref_sims, ref_ids, sim_of)
 
 
 def test_workspace_search_equals_brute_force(demo_workspace: Workspace, demo_truth) -> None:
     df, vecs = demo_truth
-    assert len(df) == demo_workspace.index().ntotal == 3000
+    assert len(df) == demo_workspace.index().ntotal == demo_rows()
     q = _queries(vecs)
     _check_workspace(demo_workspace, df, vecs, np.ones(len(df), bool), q, 10)
 
@@ -257,33 +265,41 @@ def _search(ws: Workspace, q: np.ndarray) -> list[list[tuple[int, float]]]:
     return ws.neighbours(q, 10)
 
 
-def _same(a, b) -> None:
-    assert [[p for p, _ in r] for r in a] == [[p for p, _ in r] for r in b]
-    np.testing.assert_allclose([[s for _, s in r] for r in a], [[s for _, s in r] for r in b],
-                               atol=TOL)
+def _same(a, b, sim_of) -> None:
+    """Same answers, ties aside (the demo's repeated texts share a vector, so
+    their order among equal similarities may differ after a rebuild)."""
+    ids = [np.array([[p for p, _ in r] for r in x]) for x in (a, b)]
+    sims = [np.array([[s for _, s in r] for r in x]) for x in (a, b)]
+    assert_same_topk(sims[1], ids[1], sims[0], ids[0], sim_of)
+
+
+def _sim_of(df: pd.DataFrame, vecs: np.ndarray, q: np.ndarray) -> dict[int, np.ndarray]:
+    return dict(zip(df["pk"].tolist(), vecs.astype(np.float64) @ q.T.astype(np.float64),
+                    strict=True))
 
 
 def test_deleted_index_is_rebuilt_with_same_results(
     demo_copy: Workspace, demo_truth, embedder: Embedder
 ) -> None:
-    _, vecs = demo_truth
+    df, vecs = demo_truth
     q = _queries(vecs)
+    sim_of = _sim_of(df, vecs, q)
     before = _search(demo_copy, q)
     shutil.rmtree(demo_copy.settings.index_dir)
     assert demo_copy.index_state()["state"] == "missing"
     demo_copy.reindex()
-    _same(before, _search(demo_copy, q))
-    assert demo_copy.index_state() == {"state": "ready", "count": 3000}
+    _same(before, _search(demo_copy, q), sim_of)
+    assert demo_copy.index_state() == {"state": "ready", "count": len(df)}
     # A fresh workspace over a data directory without an index rebuilds it on first use.
     shutil.rmtree(demo_copy.settings.index_dir)
     fresh = Workspace(settings=Settings(home=demo_copy.settings.home), embedder=embedder)
     try:
-        _same(before, _search(fresh, q))
+        _same(before, _search(fresh, q), sim_of)
         assert fresh.health()["index"]["state"] == "ready"
         # A corrupt index file is rebuilt too, not a crash.
         (fresh.settings.index_dir / "index.faiss").write_bytes(b"garbage")
         third = Workspace(settings=Settings(home=demo_copy.settings.home), embedder=embedder)
-        _same(before, _search(third, q))
+        _same(before, _search(third, q), sim_of)
         third.close()
     finally:
         fresh.close()
@@ -306,20 +322,20 @@ def test_stale_index_is_detected_and_rebuilt(
         # ws1's next search notices, rebuilds, and never returns the deleted post.
         hits = ws1.neighbours(vecs[500:501], 3)[0]
         assert int(victim["pk"]) not in [p for p, _ in hits]
-        assert ws1.health()["index"] == {"state": "ready", "count": 2999}
+        assert ws1.health()["index"] == {"state": "ready", "count": len(df) - 1}
 
         # Another workspace imports a new post: ws1's in-memory index picks it up.
-        text = "A brand-new post about the midnight cactus bloom, never seen before."
+        text = "A brand-new post about the midnight cactus bloom that nobody has seen before."
         (tmp_path / "new.csv").write_text(
             "post_id,account,text,posted_at,impressions\n"
             f"new-1,loomhaven,{text},2026-10-30T10:00:00Z,10\n"
         )
-        ws2.import_csv(tmp_path / "new.csv")
+        assert ws2.import_csv(tmp_path / "new.csv").added == 1
         q = embedder.encode([text])
         pk, sim = ws1.neighbours(q, 1)[0][0]
         assert ws1.store.posts_by_pk([pk])[pk]["post_id"] == "new-1"
         assert sim == pytest.approx(1.0, abs=1e-4)
-        assert ws1.health()["index"] == {"state": "ready", "count": 3000}
+        assert ws1.health()["index"] == {"state": "ready", "count": len(df)}
 
         # A changed text (same post id) moves the post in ws1's search too.
         (tmp_path / "edit.csv").write_text(
@@ -327,7 +343,7 @@ def test_stale_index_is_detected_and_rebuilt(
             "new-1,loomhaven,Entirely different words about parking charges.,"
             "2026-10-30T10:00:00Z,10\n"
         )
-        ws2.import_csv(tmp_path / "edit.csv")
+        assert ws2.import_csv(tmp_path / "edit.csv").updated == 1
         pk2, sim2 = ws1.neighbours(q, 1)[0][0]
         assert pk2 != pk or sim2 < 0.9
     finally:
@@ -344,11 +360,11 @@ def test_forget_updates_store_and_index(demo_copy: Workspace, demo_truth) -> Non
     assert after["snapshots"] < before["snapshots"]
     hits = demo_copy.neighbours(vecs[42:43], 5)[0]
     assert int(victim["pk"]) not in [p for p, _ in hits]
-    assert demo_copy.index_state() == {"state": "ready", "count": 2999}
+    assert demo_copy.index_state() == {"state": "ready", "count": len(df) - 1}
     n = demo_copy.forget(account="loomhaven_lab")
     assert n == int((df["account"] == "loomhaven_lab").sum()) - (victim["account"] == "loomhaven_lab")
     assert "loomhaven_lab" not in {a.handle for a in demo_copy.store.accounts()}
-    assert demo_copy.index().ntotal == 2999 - n
+    assert demo_copy.index().ntotal == len(df) - 1 - n
     with pytest.raises(NotFound):
         demo_copy.forget(post_id="no-such-post")
     with pytest.raises(InputError, match="say which"):

@@ -30,7 +30,10 @@ class _Group(TyperGroup):
         try:
             return super().invoke(ctx)
         except SoundingError as exc:
-            raise click.ClickException(str(exc)) from None
+            # Printed here and ended with typer.Exit: typer >= 0.29 runs its own
+            # copy of click, which does not catch click.ClickException.
+            err.print(f"Error: {exc}", markup=False, highlight=False)
+            raise typer.Exit(1) from None
 
 
 app = typer.Typer(
