@@ -368,7 +368,7 @@ def slug(s):
     return re.sub(r"[^a-z0-9]+", "-", s.lower()).strip("-")
 
 
-def fill(rng, topic, account, local):
+def fill(rng, topic, local):
     """One post text for `topic`; slot pools plus date-derived slots (weekday, event dates)."""
     spec = T[topic]
     plants = SEASON_PLANTS[SEASON[local.month]]
@@ -401,7 +401,7 @@ def compose(rng, topic, account, local, has_link):
     """Core sentence plus optional closer, @mention, link and hashtags; 40-260 chars."""
     spec = T[topic]
     for _ in range(50):
-        core, slots, tid = fill(rng, topic, account, local)
+        core, slots, tid = fill(rng, topic, local)
         parts = [core]
         if rng.random() < 0.25:
             parts.append(pick(rng, spec["closer"]))
@@ -460,8 +460,14 @@ def near_repeat_edit(rng, text, topic, reposter, original_account):
         else:
             new = pick(rng, PREFIXES) + text
         if new != text and len(new) <= 260 and difflib.SequenceMatcher(None, text, new).ratio() > 0.85:
+            # 0.85 on characters; ordinary same-account posts stay below ~0.75 within 30 days
             return new
     raise RuntimeError("no valid near-repeat edit")
+
+
+def elapsed(later, earlier):
+    """Real time between two aware datetimes (same-zone subtraction in Python is wall-clock)."""
+    return later.astimezone(timezone.utc) - earlier.astimezone(timezone.utc)
 
 
 def local_dt(wall, zone):
@@ -506,7 +512,7 @@ def generate():
     seen = {t: [] for t in TOPICS}  # (time, template id, tokens) of accepted texts, per topic
     for p in posts:
         hist = seen[p["topic"]]  # a topic has < 60 posts in any 30 days, so the tail suffices
-        recent = [w for t, _, w in hist[-200:] if p["local"] - t < timedelta(days=30)]
+        recent = [w for t, _, w in hist[-200:] if elapsed(p["local"], t) < timedelta(days=30)]
         for _ in range(300):
             text, tid = compose(rng, p["topic"], p["account"], p["local"], p["has_link"])
             tok = words(text)
@@ -533,9 +539,9 @@ def generate():
             wall = orig["local"].replace(tzinfo=None) + timedelta(days=int(rng.integers(1, max_days + 1)),
                                                                   minutes=int(rng.integers(0, 121)))
             loc = local_dt(wall, ACCOUNTS[reposter]["zone"])
-            if loc - orig["local"] < lo:  # cross-zone shift made it under a day
+            if elapsed(loc, orig["local"]) < lo:  # a zone or DST shift made it under a day
                 loc = local_dt(wall + timedelta(days=1), ACCOUNTS[reposter]["zone"])
-            assert lo <= loc - orig["local"] <= hi
+            assert lo <= elapsed(loc, orig["local"]) <= hi
             planted.append(dict(account=reposter, topic=orig["topic"], kind=kind, local=loc,
                                 has_link=orig["has_link"], has_media=orig["has_media"], original=orig,
                                 text=near_repeat_edit(rng, orig["text"], orig["topic"], reposter, orig_acct)))
@@ -573,7 +579,7 @@ def queue_drafts(posts):
         ("q-003", "loomhaven_lab", "plant_science", 7, 12, 15,
          "Year-end lab note 🔬 the seed bank passed 9,000 accessions this year, and the cold room "
          "finally has a backup chiller. Thanks to @loomhaven_events for the fundraiser."),
-        ("q-004", "loomhaven", last["topic"], 9, 13, 0,
+        ("q-004", "loomhaven", "blooms", 9, 13, 0,
          near_repeat_edit(rng, last["text"], "blooms", "loomhaven", "loomhaven")),
         ("q-005", "loomhaven", "shop_membership", 10, 10, 0,
          "Gift memberships are 15% off until Sunday 🎁 Free entry all year for someone you love. "
@@ -626,7 +632,7 @@ def main(out):
               ["account", "post_id", "original_account", "original_post_id", "days_after", "kind"],
               [dict(account=p["account"], post_id=p["post_id"], original_account=p["original"]["account"],
                     original_post_id=p["original"]["post_id"], kind=p["kind"],
-                    days_after=f"{(p['local'] - p['original']['local']).total_seconds() / 86400:.2f}")
+                    days_after=f"{elapsed(p['local'], p['original']['local']).total_seconds() / 86400:.2f}")
                for p in planted])
     rows, notes = queue_drafts(posts)
     write_csv(out / "queue.csv", ["draft_id", "account", "text", "planned_at"], rows)
@@ -653,10 +659,11 @@ def main(out):
         "planted_repeats": {"same_account": sum(REPEATS["same_account"].values()),
                             "teammate": sum(c for *_, c in REPEATS["teammate"]),
                             "same_account_days": [1, 20], "teammate_days": [1, 6],
-                            "min_difflib_ratio": 0.85},
+                            "min_char_difflib_ratio_to_original": 0.85},
         "ordinary_similarity_cap": {"measure": "difflib ratio on word/symbol tokens",
                                     "scope": "same topic, any account",
-                                    "within_30_days": CAP_30_DAYS, "whole_history": CAP_EVER},
+                                    "within_30_days": CAP_30_DAYS,
+                                    "whole_history_same_template": CAP_EVER},
         "topic_phrases": TOPIC_PHRASES,
         "queue": notes,
     }

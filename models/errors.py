@@ -18,6 +18,7 @@ stable, machine-readable name used in API error bodies.
     ├── NotReady               e.g. no model trained yet, too little history (409)
     ├── AuthError              missing or wrong bearer token (401)
     └── StoreError             the store or an artefact on disk is unusable (503)
+        └── ServiceUnavailable the HTTP service cannot be reached (service.client)
 """
 
 from __future__ import annotations
@@ -132,3 +133,10 @@ class StoreError(SoundingError):
     """The store or an artefact on disk cannot be used."""
 
     code = "store_error"
+
+
+class ServiceUnavailable(StoreError):
+    """The sounding service cannot be reached (service.client: refused
+    connection, timeout, an answer that is not the API's)."""
+
+    code = "service_unavailable"

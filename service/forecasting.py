@@ -48,6 +48,7 @@ class HistoryView:
     forms: np.ndarray
     account_codes: dict[str, int]
     row_of_pk: dict[int, int]
+    zones: dict[int, str]  # account code -> IANA zone
 
 
 def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -80,8 +81,9 @@ def build_view(store: Any, metric: str, *, with_vectors: bool) -> HistoryView:
     hours, days = local_clock(frame["posted_at"], frame["timezone"])
     forms = np.array([F.text_form(t, bool(lk), bool(md)) for t, lk, md in zip(
         frame["text"], frame["has_link"], frame["has_media"], strict=True)]).reshape(len(frame), -1)
+    zones = {codes[a]: str(z) for a, z in zip(frame["account"], frame["timezone"], strict=True)}
     return HistoryView(metric, frame, history, hours, days, forms, codes,
-                       {int(p): i for i, p in enumerate(frame["pk"])})
+                       {int(p): i for i, p in enumerate(frame["pk"])}, zones)
 
 
 def feature_params(settings: Any) -> F.FeatureParams:
@@ -105,6 +107,7 @@ def training_set(view: HistoryView, params: F.FeatureParams, now: datetime
 QUANTILE_PARAMS: dict[str, Any] = {"n_estimators": 200, "learning_rate": 0.06, "num_leaves": 15,
                                    "min_child_samples": 20, "num_threads": 1}
 MIN_TRAINING_POSTS = 200
+WIDE = 200  # nearest posts fetched per draft before filtering
 
 
 def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
@@ -187,6 +190,7 @@ class Forecast:
     warnings: list[str] = field(default_factory=list)
     draft_id: str | None = None
     log: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    repeats: list[dict[str, Any]] = field(default_factory=list)  # service.review.Repeat dicts
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -196,6 +200,7 @@ class Forecast:
             "coverage": self.coverage, "backtested_coverage": self.backtested_coverage,
             "model_version": self.model_version, "precedents": self.precedents,
             "contributions": self.contributions, "warnings": self.warnings, "caution": CAUTION,
+            "repeats": self.repeats,
         }
 
 
@@ -262,6 +267,10 @@ class Forecaster:
         X = np.vstack([r[0] for r in rows])
         lo, med, hi = model.quantiles.predict(X, coverage=coverage)
         contribs = model.quantiles.contributions(X)
+        from .review import near_repeats_many  # imported here: service.review imports this module
+
+        repeats = near_repeats_many(self.ws, view, [(d.account, v, p) for d, v, p in zip(
+            drafts, vecs, plans, strict=True)], now=now)
         out = []
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = rows[i]
@@ -286,6 +295,8 @@ class Forecaster:
                     ],
                 },
                 draft_id=d.draft_id, log=(float(lo[i]), float(med[i]), float(hi[i])),
+                # Near-repeats of recent posts (own account and teammates), in every forecast.
+                warnings=[r.message for r in repeats[i]], repeats=[r.to_dict() for r in repeats[i]],
             ))
         return out
 
@@ -297,25 +308,34 @@ class Forecaster:
         t = min(planned, now).timestamp()
         code = view.account_codes[d.account]
         ok = F.eligible(h, t, params)
-        team = self._search(view, vec, h.pk[ok], params.k)
-        own = self._search(view, vec, h.pk[ok & (h.account == code)], params.k)
+        own_ok = ok & (h.account == code)
+        # One wide, unfiltered search serves the team, own-account and young
+        # lists; a filtered search is only needed when the account's posts
+        # are too rare among the nearest to fill its list.
+        rows, sims = self._search(view, vec, None, min(len(h), max(WIDE, 10 * params.k)))
+        team = (rows[ok[rows]], sims[ok[rows]])
+        own = (rows[own_ok[rows]], sims[own_ok[rows]])
+        if len(own[0]) < min(params.k, int(own_ok.sum())):
+            own = self._search(view, vec, h.pk[own_ok], params.k)
+        if len(team[0]) < min(params.k, int(ok.sum())):
+            team = self._search(view, vec, h.pk[ok], params.k)
         hood = F.draft_neighbourhood(h, team, own, t=t, params=params)
-        tz = str(view.frame["timezone"].iloc[int(np.flatnonzero(h.account == code)[-1])])
+        tz = view.zones[code]
         local = planned.astimezone(zone(tz))
         form = F.text_form(d.text, has_link(d.text), False)
         x, weights = F.assemble(h, hood, t=t, account=code,
                                 local_hour=local.hour + local.minute / 60.0,
                                 weekday=local.weekday(), form=form, params=params)
         shown = [(int(r), float(s)) for r, s in zip(hood.team, hood.team_sims, strict=True)]
-        young = self._search(view, vec, h.pk[(h.time > t - params.maturity_s) & (h.time <= t)], 5)
-        shown += [(int(r), float(s)) for r, s in zip(*young, strict=True)
+        young = (h.time[rows] > t - params.maturity_s) & (h.time[rows] <= t)
+        shown += [(int(r), float(s)) for r, s in zip(rows[young][:5], sims[young][:5], strict=True)
                   if s >= params.similar_threshold]
         shown.sort(key=lambda p: -p[1])
         return x.reshape(1, -1), weights, tz, shown
 
-    def _search(self, view: HistoryView, vec: np.ndarray, allowed_pks: np.ndarray, k: int
+    def _search(self, view: HistoryView, vec: np.ndarray, allowed_pks: np.ndarray | None, k: int
                 ) -> tuple[np.ndarray, np.ndarray]:
-        if len(allowed_pks) == 0:
+        if allowed_pks is not None and len(allowed_pks) == 0 or k < 1:
             return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.float32)
         hits = self.ws.neighbours(vec.reshape(1, -1), k, allowed_pks=allowed_pks)[0]
         rows = [(view.row_of_pk[p], s) for p, s in hits if p in view.row_of_pk]

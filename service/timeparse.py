@@ -52,9 +52,14 @@ def parse_time(text: str, *, tz: str = "UTC", where: str | None = None) -> datet
         raise TimeParseError(
             f"time {raw!r} has a date but no time of day", where=where, value=text
         )
-    if dt.tzinfo is not None:
-        return dt.astimezone(UTC)
-    return localize(dt, tz, where=where)
+    try:
+        if dt.tzinfo is not None:
+            return dt.astimezone(UTC)
+        return localize(dt, tz, where=where)
+    except OverflowError:  # e.g. 0001-01-01T00:00+05:00 is before year 1 in UTC
+        raise TimeParseError(
+            f"time {raw!r} is out of range in UTC", where=where, value=text
+        ) from None
 
 
 def localize(naive: datetime, tz: str, *, where: str | None = None) -> datetime:

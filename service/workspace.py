@@ -23,7 +23,7 @@ from models.index import VectorIndex
 from .importer import ImportSummary, ProgressFn, import_csv
 from .settings import Settings
 from .store import Store
-from .timeparse import now_utc
+from .timeparse import as_utc, now_utc
 
 
 @dataclass(frozen=True, slots=True)
@@ -53,12 +53,31 @@ class Precedent:
         }
 
 
+def _utc_bound(dt: datetime | None, name: str) -> datetime | None:
+    """A range bound as aware UTC (naive means UTC), or a clear error: naive
+    and aware bounds cannot be compared, and an offset near year 1 or 9999
+    leaves the calendar."""
+    if dt is None:
+        return None
+    try:
+        return as_utc(dt)
+    except OverflowError:
+        raise InputError(f"{name} {dt.isoformat()} is out of range in UTC", field=name,
+                         value=dt.isoformat()) from None
+
+
 class Workspace:
     """Everything one data directory holds, loaded once."""
 
     def __init__(self, *, settings: Settings, embedder: Embedder | None = None) -> None:
         self.settings = settings
-        settings.resolved_home.mkdir(parents=True, exist_ok=True)
+        try:
+            settings.resolved_home.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:  # a file in the way, no permission: the user's setting
+            raise StoreError(
+                f"cannot use {settings.resolved_home} as the data directory: {exc.strerror}",
+                hint="set SOUNDING_HOME or --home to a directory you can write",
+            ) from None
         self.store = Store(url=settings.db_url)
         self.embedder = embedder or Embedder(
             model_path=settings.embed_model_path, batch_size=settings.embed_batch_size
@@ -246,6 +265,7 @@ class Workspace:
         """The ``k`` past posts most similar to ``text``, with current metrics."""
         if not 1 <= k <= self.settings.max_k:
             raise InputError(f"k must be between 1 and {self.settings.max_k}", field="k", value=k)
+        since, until = _utc_bound(since, "since"), _utc_bound(until, "until")
         if since and until and since > until:
             raise InputError("the date range ends before it starts", field="since")
         vec = self.embed_drafts([text])
@@ -279,4 +299,11 @@ class Workspace:
             "accounts": counts["accounts"],
             "model_id": self.embedder.model_id,
             "index": self.index_state(),
+            "forecaster": self._newest_model(),
         }
+
+    def _newest_model(self) -> str | None:
+        from models.artefact import versions
+
+        found = versions(self.settings.models_dir, "impressions")
+        return found[-1] if found else None

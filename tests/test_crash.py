@@ -12,6 +12,7 @@ either all there (posts, snapshots, vectors) or not at all.
 from __future__ import annotations
 
 import csv
+import json
 import os
 import signal
 import sqlite3
@@ -74,7 +75,7 @@ def one(con: sqlite3.Connection, sql: str) -> int:
 
 
 def test_killed_import_leaves_whole_batches_and_a_rerun_completes_it(
-    tmp_path: Path, embedder
+    tmp_path: Path, embedder, artifacts: Path, capsys
 ) -> None:
     big = tmp_path / "big.csv"
     ids = write_big_csv(big)
@@ -150,5 +151,11 @@ def test_killed_import_leaves_whole_batches_and_a_rerun_completes_it(
         assert ws.index_state() == {"state": "ready", "count": ROWS}
     finally:
         ws.close()
-    print(f"\ncrash: killed after {committed} of {ROWS} rows ({committed // BATCH} whole batches "
-          f"of {BATCH}); re-run added {ROWS - committed}, unchanged {committed}")
+    figures = {"rows": ROWS, "batch_rows": BATCH, "committed_at_kill": committed,
+               "whole_batches": committed // BATCH, "rerun_added": ROWS - committed,
+               "rerun_unchanged": committed}
+    (artifacts / "crash.json").write_text(json.dumps(figures, indent=2))
+    with capsys.disabled():
+        print(f"\ncrash: SIGKILL after {committed} of {ROWS} rows committed "
+              f"({committed // BATCH} whole batches of {BATCH}, no partial batch); index found "
+              f"stale and rebuilt; re-run added {ROWS - committed}, unchanged {committed}")

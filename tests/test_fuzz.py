@@ -12,6 +12,7 @@ the declared schema - for errors the one ErrorBody shape.
 from __future__ import annotations
 
 import csv
+import json
 import tempfile
 from collections import Counter
 from datetime import UTC, datetime, timedelta
@@ -28,6 +29,7 @@ from schemathesis.specs.openapi.checks import (
 )
 
 from service.api.app import create_app
+from service.api.schemas import ErrorBody
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -103,7 +105,7 @@ def test_api_never_fails_on_generated_requests(case, fuzz_app) -> None:
         case.validate_response(response, checks=CHECKS, headers=headers)
 
 
-def test_every_operation_was_fuzzed(capsys: pytest.CaptureFixture[str]) -> None:
+def test_every_operation_was_fuzzed(artifacts: Path, capsys: pytest.CaptureFixture[str]) -> None:
     operations = {op.ok().label for op in schema.get_all_operations()}
     missing = operations - set(CASES)
     assert not missing, f"operations never fuzzed: {sorted(missing)}"
@@ -113,8 +115,53 @@ def test_every_operation_was_fuzzed(capsys: pytest.CaptureFixture[str]) -> None:
     # The write operations were sent both ways: refused without the token,
     # carried out (or refused for their input) with it.
     assert CALLS["without token"] > 0 and CALLS["with token"] > CALLS["without token"]
+    (artifacts / "fuzz.json").write_text(json.dumps(
+        {"cases": sum(CASES.values()), "operations": len(operations), "per_operation": CASES,
+         "by_phase": PHASES, "calls": CALLS, "max_examples": MAX_EXAMPLES}, indent=2))
     with capsys.disabled():
         print(f"\nfuzz: {sum(CASES.values())} generated cases over {len(operations)} operations "
               f"({', '.join(f'{k} {v}' for k, v in sorted(CASES.items()))}); "
               f"by phase/mode: {dict(sorted(PHASES.items()))}; "
               f"calls: {dict(CALLS)}")
+
+
+# Inputs at the edges that generated cases rarely hit. Python's datetime
+# holds years 1-9999 only (datetime.MINYEAR/MAXYEAR, Python docs), so an
+# offset at either end leaves the calendar when turned into UTC; and naive
+# and aware times cannot be compared (Python docs, datetime comparisons).
+EDGE_TIMES = ["0001-01-01T00:00:00+05:00", "9999-12-31T23:59:59-05:00"]
+EDGE_REQUESTS = [
+    ("POST", "/v1/precedents", {"json": {"text": "Magnolias", "since": "2025-01-01T00:00:00",
+                                         "until": "2025-06-01T00:00:00Z"}}),
+    *[("POST", "/v1/precedents", {"json": {"text": "Magnolias", "since": t}}) for t in EDGE_TIMES],
+    *[("POST", "/v1/precedents", {"json": {"text": "Magnolias", "until": t}}) for t in EDGE_TIMES],
+    *[("POST", "/v1/forecasts", {"json": {"text": "Magnolias", "account": "loomhaven",
+                                          "planned_at": t}}) for t in EDGE_TIMES],
+    ("POST", "/v1/precedents", {"content": b'{"text": "\xff\xfe"}',
+                                "headers": {"Content-Type": "application/json"}}),
+    ("POST", "/v1/imports", {"files": {"file": ("edge.csv", (
+        "post_id,account,text,posted_at,impressions\n"
+        f"e1,loomhaven,Early bird,{EDGE_TIMES[0]},5\n"
+        "e2,loomhaven,Night owl,9999-12-31T23:30:00,5\n").encode(), "text/csv")},
+        "data": {"timezone": "America/New_York"}}),
+]
+
+
+@pytest.mark.parametrize(("method", "path", "kw"), EDGE_REQUESTS)
+def test_edge_inputs_are_answered_as_bad_input(fuzz_app, method: str, path: str, kw: dict) -> None:
+    if path not in {r for r in schema.raw_schema["paths"]}:
+        pytest.skip(f"{path} is not served yet")
+    from fastapi.testclient import TestClient
+
+    kw = dict(kw)
+    with TestClient(fuzz_app, raise_server_exceptions=False) as c:
+        r = c.request(method, path, headers={"Authorization": f"Bearer {TOKEN}",
+                                             **kw.pop("headers", {})}, **kw)
+    assert r.status_code < 500, r.text
+    if r.status_code >= 400:
+        assert r.status_code == 422, r.text
+        ErrorBody.model_validate(r.json())
+    elif path == "/v1/imports":
+        # Each out-of-range row is rejected with its line and column; nothing crashes.
+        assert [(p["line"], p["column"]) for p in r.json()["problems"]] == [
+            (2, "posted_at"), (3, "posted_at")]

@@ -272,9 +272,12 @@ def test_missing_file(workspace: Workspace, tmp_path: Path) -> None:
         workspace.import_csv(tmp_path / "nope.csv")
 
 
-def test_bad_byte_past_the_first_chunk(workspace: Workspace, tmp_path: Path) -> None:
+def test_bad_byte_past_the_first_chunk(make_workspace, tmp_path: Path) -> None:
     """A bad byte after the first MiB is still found before any write; a valid
     two-byte character split across the chunk boundary is not a false alarm."""
+    # One row a batch: rows before the bad byte would be written if the file
+    # were not checked as a whole first.
+    workspace = make_workspace("one-row-batches", import_batch_rows=1)
     pad = "x" * ((1 << 20) - 200)
     head = "post_id,account,text,posted_at,impressions,notes\n"
     row1 = f"c1,garden,First,2026-04-01T10:00:00Z,5,{pad}"

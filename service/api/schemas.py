@@ -5,7 +5,8 @@ Kept apart from the SQLAlchemy tables: these are the public contract.
 
 from __future__ import annotations
 
-from datetime import datetime
+from datetime import date, datetime
+from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -158,6 +159,21 @@ class Contributions(BaseModel):
     groups: list[GroupEffectOut]
 
 
+class RepeatOut(BaseModel):
+    """A recent post that the draft nearly repeats (service.review.near_repeats)."""
+
+    scope: str = Field(description="own: the draft's account; team: another account")
+    post_id: str
+    account: str
+    posted_at: datetime
+    days_before: float = Field(description="Days before the planned time")
+    similarity: float
+    metric: str
+    value: float | None = Field(description="The post's metric so far")
+    mature: bool
+    message: str
+
+
 class ForecastOut(BaseModel):
     draft_id: str | None = None
     metric: str
@@ -176,7 +192,242 @@ class ForecastOut(BaseModel):
     contributions: Contributions
     warnings: list[str]
     caution: str
+    repeats: list[RepeatOut] = Field(
+        default_factory=list, description="Near-repeats behind the warnings, most similar first")
 
 
 class ForecastList(BaseModel):
     forecasts: list[ForecastOut]
+
+
+# Draft review: best hours and variants (service.review) ----------------------
+
+
+class HoursRequest(Strict):
+    text: str = Field(min_length=1, description="The draft's text")
+    account: str = Field(min_length=1, description="Handle of the account that would post it")
+    day: date | None = Field(
+        default=None, description="Local calendar day (ISO 8601 date) in the account's zone; "
+        "default: tomorrow there", examples=["2026-12-03"])
+    week: bool = Field(default=False, description="Seven days from `day`, hour by hour")
+    metric: str = METRIC_FIELD
+    coverage: float = Field(default=0.8, ge=0.5, le=0.95)
+    top: int = Field(default=3, ge=1, le=168, description="How many of the best hours to list")
+
+
+class SlotOut(BaseModel):
+    planned_at: datetime = Field(description="The slot's start, UTC")
+    local_time: str = Field(description="The slot's start in the account's zone, with its offset")
+    local_date: date
+    local_hour: str = Field(description="Local wall-clock hour, HH:MM")
+    utc_offset: str = Field(description="UTC offset at that instant, e.g. +01:00")
+    low: float
+    median: float
+    high: float
+    rank: int = Field(description="1 = highest median")
+    like_best: bool = Field(description="Interval about equal to the best slot's (see rule)")
+    warnings: list[str]
+
+
+class HoursOut(BaseModel):
+    account: str
+    timezone: str
+    metric: str
+    coverage: float
+    backtested_coverage: float | None
+    model_version: str
+    mode: str = Field(description="day or week")
+    first_day: date
+    last_day: date
+    n_slots: int
+    told_apart: bool = Field(description="False when most hours cannot be told apart")
+    share_like_best: float = Field(description="Share of the other slots about equal to the best")
+    summary: str
+    rule: str
+    best: list[SlotOut] = Field(description="Slots about equal to the best, highest median first")
+    slots: list[SlotOut] = Field(description="Every slot, in time order")
+    warnings: list[str]
+    caution: str
+
+
+class VariantsRequest(Strict):
+    texts: list[str] = Field(min_length=2, description="Two to ten phrasings of one draft "
+                             "(more answers 413, like the other limits)")
+    account: str = Field(min_length=1)
+    planned_at: str | None = Field(
+        default=None, description="ISO 8601 time; without an offset it is read in the account's "
+        "zone. Default: now.", examples=["2026-12-03T12:30:00"])
+    metric: str = METRIC_FIELD
+    coverage: float = Field(default=0.8, ge=0.5, le=0.95)
+
+
+class VariantOut(BaseModel):
+    index: int = Field(description="Position in the request, from 1")
+    text: str
+    rank: int
+    low: float
+    median: float
+    high: float
+    like_best: bool
+    precedents: list[str] = Field(description="Post ids of its precedents, most similar first")
+    only_here: list[str] = Field(description="Precedent post ids no other variant has")
+    warnings: list[str]
+
+
+class VariantsOut(BaseModel):
+    account: str
+    planned_at: datetime
+    local_time: str
+    metric: str
+    coverage: float
+    backtested_coverage: float | None
+    model_version: str
+    told_apart: bool
+    summary: str
+    rule: str
+    variants: list[VariantOut] = Field(description="Best first")
+    caution: str
+
+
+# Segments -------------------------------------------------------------------
+
+
+class SegmentsRequest(Strict):
+    topics: list[str] = Field(
+        default_factory=list,
+        description="Topic phrases, e.g. 'flowers in bloom'. 'a | b' is one topic with two "
+        "alternative phrases (their vectors are averaged). No labels are needed.",
+        examples=[["flowers in bloom", "shop offers | membership"]],
+    )
+    by: Literal["hour", "weekday", "link", "media", "length", "account"] | None = Field(
+        default=None,
+        description="A one-way split by local hour bucket, local weekday, link in the text, "
+        "media attached, text length band or account. With topics too, the answer adds the "
+        "two-way table topic x by.",
+    )
+    metric: str = METRIC_FIELD
+    mode: Literal["nearest", "top-k"] = Field(
+        default="nearest",
+        description="nearest: each post joins its most similar topic if the cosine similarity "
+        "reaches threshold, else 'other'. top-k: each topic takes its k most similar posts.",
+    )
+    k: int = Field(default=100, ge=1, description="Posts per topic in top-k mode")
+    threshold: float = Field(default=0.3, ge=-1, le=1,
+                             description="Cosine similarity a post needs in nearest mode")
+    hour_edges: list[int] = Field(default=[0, 6, 9, 12, 15, 18, 21, 24],
+                                  description="Local hour bucket edges, from 0 to 24")
+    length_edges: list[int] = Field(default=[0, 80, 160, 240, 10**9],
+                                    description="Text length band edges in characters, from 0")
+    account: str | None = Field(default=None, description="Only this account's posts")
+    min_n: int = Field(default=20, ge=1, description="Segments with fewer posts are flagged")
+    examples: int = Field(default=3, ge=0, le=20,
+                          description="Example posts per topic segment, most similar first")
+    format: Literal["json", "png", "svg"] = Field(
+        default="json", description="json for the statistics, png or svg for the figure")
+    plot: str | None = Field(
+        default=None, description="Which split the figure shows: 'topic' or the value of by "
+        "(default: the first split)")
+
+
+class SegmentExampleOut(BaseModel):
+    post_id: str
+    account: str
+    posted_at: datetime
+    text: str
+    similarity: float = Field(description="Cosine similarity to the topic's phrase(s)")
+    value: float | None = Field(description="The post's value of the metric")
+
+
+class SegmentOut(BaseModel):
+    name: str
+    n: int
+    median: float | None
+    q1: float | None
+    q3: float | None
+    ci_low: float | None = Field(description="Bootstrap confidence interval of the median")
+    ci_high: float | None
+    u_statistic: float | None = Field(description="Mann-Whitney U of the segment vs the rest")
+    p_value: float | None
+    p_holm: float | None = Field(description="Holm-adjusted across the split's segments")
+    rank_biserial: float | None = Field(description="+1: every post beats every other post")
+    too_small: bool
+    note: str
+    rest_median: float | None = Field(description="Median of the posts outside the segment")
+    summary: str
+    examples: list[SegmentExampleOut] | None = Field(
+        default=None, description="Topic splits only: the posts most similar to the phrase; "
+        "for 'other', the posts closest to a topic that still missed")
+
+
+class SegmentTopicOut(BaseModel):
+    name: str
+    phrases: list[str]
+
+
+class SegmentSplitOut(BaseModel):
+    by: str = Field(description="topic, or the by of the request")
+    title: str
+    mode: str | None = None
+    threshold: float | None = None
+    k: int | None = None
+    topics: list[SegmentTopicOut] | None = None
+    kruskal_h: float | None = Field(description="Kruskal-Wallis H across segments (none "
+                                    "when segments overlap)")
+    kruskal_p: float | None
+    overall_median: float | None
+    n_total: int
+    confidence: float
+    min_n: int
+    alpha: float
+    overlapping: bool
+    segments: list[SegmentOut]
+
+
+class TwoWayCellOut(BaseModel):
+    row: str
+    col: str
+    n: int
+    median: float | None
+    too_small: bool
+
+
+class TwoWayOut(BaseModel):
+    row_by: str
+    col_by: str
+    rows: list[str]
+    cols: list[str]
+    min_n: int
+    cells: list[TwoWayCellOut]
+
+
+class SegmentsLeftOut(BaseModel):
+    no_metric: int = Field(description="Posts without the metric")
+    young: int = Field(description="Posts too young for their metric to have settled")
+
+
+class SegmentsResponse(BaseModel):
+    metric: str
+    account: str | None
+    n_posts: int
+    left_out: SegmentsLeftOut
+    splits: list[SegmentSplitOut]
+    two_way: TwoWayOut | None
+    warnings: list[str]
+    note: str
+
+
+# Training -------------------------------------------------------------------
+
+
+class TrainingRequest(Strict):
+    metric: str = METRIC_FIELD
+    backtest: bool = Field(default=True, description="Run the time-ordered backtest too")
+
+
+class TrainingOut(BaseModel):
+    metric: str
+    model_version: str
+    n_train: int
+    n_calibration: int
+    backtested_coverage: dict[str, float]
+    backtest: dict[str, object] | None = None

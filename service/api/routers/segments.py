@@ -1,0 +1,52 @@
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import APIRouter
+from fastapi.responses import Response
+
+from ...segmenting import SegmentRequest, render, segment
+from ..deps import WorkspaceDep
+from ..responses import ERRORS
+from ..schemas import SegmentsRequest, SegmentsResponse
+
+router = APIRouter(prefix="/v1", tags=["segments"])
+
+MEDIA_TYPES = {"png": "image/png", "svg": "image/svg+xml"}
+
+_IMAGE = {"schema": {"type": "string", "format": "binary"}}
+
+RESPONSES: dict[int | str, dict[str, Any]] = {
+    200: {
+        "description": "The statistics as JSON, or with format png or svg the figure of one "
+        "split (per-segment distributions and medians with their intervals)",
+        "content": {MEDIA_TYPES["png"]: _IMAGE, MEDIA_TYPES["svg"]: _IMAGE},
+    },
+    **ERRORS(404, 409, 422, 503),
+}
+
+
+@router.post(
+    "/segments",
+    response_model=SegmentsResponse,
+    responses=RESPONSES,
+    summary="How a metric differs between topics, hours, forms or accounts",
+    description="Topics are short phrases matched to posts by embedding similarity, so no "
+    "labels are needed. Each segment gets its count, median with a bootstrap interval, "
+    "Mann-Whitney test against the other posts (rank-biserial r, Holm-adjusted p) and a "
+    "one-line reading; Kruskal-Wallis tests the split as a whole. Differences are "
+    "associations in this team's history, not causes.",
+)
+def segments(body: SegmentsRequest, ws: WorkspaceDep) -> Any:
+    req = SegmentRequest(
+        topics=body.topics, by=body.by, metric=body.metric, mode=body.mode, k=body.k,
+        threshold=body.threshold, hour_edges=body.hour_edges, length_edges=body.length_edges,
+        account=body.account, min_n=body.min_n, examples=body.examples,
+    )
+    result = segment(ws, req)
+    if body.plot is not None:
+        result.split(body.plot)  # a wrong name is an error in JSON mode too
+    if body.format in MEDIA_TYPES:
+        data = render(result, by=body.plot, fmt=body.format)
+        return Response(content=data, media_type=MEDIA_TYPES[body.format])
+    return SegmentsResponse.model_validate(result.to_dict())

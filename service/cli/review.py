@@ -1,0 +1,106 @@
+"""Commands for reviewing a draft before publishing: hours, compare."""
+
+from __future__ import annotations
+
+import typer
+from rich.table import Table
+
+from models.errors import InputError
+
+from ..forecasting import CAUTION
+from ..review import HoursReport, VariantsReport, best_hours, compare_variants, parse_day
+from .base import app, out, print_json, workspace
+from .forecast import METRIC_HELP, planned
+
+
+def _value(v: float, metric: str) -> str:
+    return f"{v:.2%}" if metric == "engagement_rate" else f"{v:,.0f}"
+
+
+def print_hours(r: HoursReport) -> None:
+    week = r.mode == "week"
+    span = r.first_day.isoformat() + (f" to {r.last_day.isoformat()}" if week else "")
+    bt = ("not backtested" if r.backtested_coverage is None
+          else f"held {r.backtested_coverage:.0%} in backtests")
+    out.print(f"[bold]{r.metric}[/bold] of this draft for {r.account}, hour by hour on {span} "
+              f"({r.timezone}, {len(r.slots)} slots); {r.coverage:.0%} intervals, {bt}")
+    out.print(r.summary, highlight=False)
+    t = Table("rank", "local time", "low", "middle", "high", "about equal to best",
+              title="best hours" if r.told_apart else "highest medians (not told apart)")
+    for s in r.best:
+        t.add_row(str(s.rank), s.label(with_day=week), _value(s.low, r.metric),
+                  _value(s.median, r.metric), _value(s.high, r.metric),
+                  "yes" if s.like_best else "no")
+    out.print(t)
+    if not week:
+        every = Table("local time", "low", "middle", "high", "rank", title="every hour")
+        for s in r.slots:
+            every.add_row(s.label(), _value(s.low, r.metric), _value(s.median, r.metric),
+                          _value(s.high, r.metric), str(s.rank))
+        out.print(every)
+    for w in r.warnings:
+        out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
+    out.print(f"[dim]{CAUTION}[/dim]")
+
+
+@app.command("hours")
+def hours_cmd(
+    text: str = typer.Argument(..., help="The draft."),
+    account: str = typer.Option(..., "--account", help="Account that would post it."),
+    day: str | None = typer.Option(
+        None, "--day", help="Local day in the account's zone, YYYY-MM-DD (default: tomorrow)."),
+    week: bool = typer.Option(False, "--week", help="Seven days from --day, hour by hour."),
+    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
+    coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
+    top: int = typer.Option(3, "--top", help="How many of the best hours to list."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+) -> None:
+    """Forecast a draft at every hour of a day (or a week) in the account's zone."""
+    r = best_hours(workspace(), text, account=account,
+                   day=parse_day(day, where="--day") if day else None, week=week,
+                   metric=metric, coverage=coverage, top=top)
+    if as_json:
+        print_json(r.to_dict())
+    else:
+        print_hours(r)
+
+
+def print_variants(r: VariantsReport) -> None:
+    bt = ("not backtested" if r.backtested_coverage is None
+          else f"held {r.backtested_coverage:.0%} in backtests")
+    out.print(f"[bold]{r.metric}[/bold] of {len(r.variants)} variants for {r.account} at "
+              f"{r.local_time}; {r.coverage:.0%} intervals, {bt}")
+    out.print(r.summary, highlight=False)
+    t = Table("rank", "variant", "low", "middle", "high", "precedents only it has", "text")
+    for v in r.variants:
+        f = v.forecast
+        t.add_row(str(v.rank), f"#{v.index}", _value(f.low, r.metric), _value(f.median, r.metric),
+                  _value(f.high, r.metric), ", ".join(v.only_here[:3])
+                  + (f" (+{len(v.only_here) - 3} more)" if len(v.only_here) > 3 else "") or "-",
+                  v.text[:60])
+    out.print(t)
+    for v in r.variants:
+        for w in v.forecast.warnings:
+            out.print(f"[yellow]warning (#{v.index}):[/yellow] {w}", highlight=False)
+    out.print(f"[dim]{CAUTION}[/dim]")
+
+
+@app.command("compare")
+def compare_cmd(
+    texts: list[str] = typer.Argument(..., help="Two or more phrasings of the draft."),
+    account: str = typer.Option(..., "--account", help="Account that would post them."),
+    at: str | None = typer.Option(
+        None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."),
+    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
+    coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+) -> None:
+    """Forecast several phrasings of one draft side by side."""
+    if len(texts) < 2:
+        raise InputError("give at least two phrasings to compare", field="texts")
+    r = compare_variants(workspace(), texts, account=account, planned_at=planned(at, account),
+                         metric=metric, coverage=coverage)
+    if as_json:
+        print_json(r.to_dict())
+    else:
+        print_variants(r)

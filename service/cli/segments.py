@@ -1,0 +1,170 @@
+"""The segments command: how a metric differs between topics, hours, forms
+and accounts, as a table with one plain reading per segment."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import typer
+from rich import box
+from rich.table import Table
+from rich.text import Text
+
+from models.errors import InputError
+from models.plots import FORMATS
+
+from ..segmenting import (
+    BY_CHOICES,
+    DEFAULT_K,
+    DEFAULT_THRESHOLD,
+    NOTE,
+    TOPIC,
+    SegmentRequest,
+    SegmentResult,
+    Split,
+    fmt_p,
+    fmt_value,
+    parse_edges,
+    render,
+    segment,
+)
+from .base import app, err, out, print_json, workspace
+
+_NAME_WIDTH = 48  # long multi-phrase topic names are cut in the terminal only
+
+
+def _short(text: str, width: int) -> str:
+    return text if len(text) <= width else text[: width - 1] + "…"
+
+
+def print_split(split: Split, metric: str) -> None:
+    rep = split.report
+    pct = f"{100 * rep.confidence:g}%"
+    t = Table(title=f"{metric} by {split.title}", title_justify="left", box=box.SIMPLE_HEAD)
+    width = min(max(len(seg.name) for seg in rep.segments), 24)
+    t.add_column("segment", ratio=1, overflow="fold", min_width=width)
+    for head in ("posts", "median", "middle half", f"{pct} CI", "r", "Holm p"):
+        t.add_column(head, justify="right", no_wrap=True)
+    for seg in rep.segments:
+        style = "dim" if seg.too_small else None
+        t.add_row(
+            Text(_short(seg.name, _NAME_WIDTH)), f"{seg.n:,}", fmt_value(seg.median, metric),
+            f"{fmt_value(seg.q1, metric)}–{fmt_value(seg.q3, metric)}",
+            f"{fmt_value(seg.ci_low, metric)}–{fmt_value(seg.ci_high, metric)}",
+            "-" if seg.rank_biserial != seg.rank_biserial else f"{seg.rank_biserial:+.2f}",
+            fmt_p(seg.p_holm), style=style,
+        )
+    out.print(t)
+    for seg in rep.segments:
+        line = Text(f"  {_short(seg.name, _NAME_WIDTH)}: ", style="bold")
+        line.append(split.summaries[seg.name], style="dim" if seg.too_small else "")
+        out.print(line)
+    if rep.kruskal_p is not None and rep.kruskal_h is not None:
+        out.print(f"  across all segments (Kruskal–Wallis): H = {rep.kruskal_h:,.1f}, "
+                  f"p {'' if fmt_p(rep.kruskal_p).startswith('<') else '= '}"
+                  f"{fmt_p(rep.kruskal_p)}", highlight=False)
+    elif rep.overlapping:
+        out.print("  no test across all segments: in top-k mode they share posts",
+                  highlight=False)
+    if split.by == TOPIC and any(split.examples.values()):
+        out.print(f"\n  what each phrase caught (most similar first; {metric} in brackets):",
+                  highlight=False)
+        for seg in rep.segments:
+            shown = split.examples.get(seg.name, [])
+            if not shown:
+                continue
+            head = "closest posts left out" if seg.name == "other" else _short(seg.name, 60)
+            out.print(Text(f"  {head}", style="bold"))
+            for e in shown:
+                out.print(f"    {e.similarity:.2f}  [{fmt_value(e.value, metric)}]  "
+                          f"{_short(e.text, 90)}", highlight=False, markup=False)
+    out.print()
+
+
+def print_two_way(result: SegmentResult) -> None:
+    tw = result.two_way
+    if tw is None or result.two_way_axes is None:
+        return
+    rows_by, cols_by = result.two_way_axes
+    t = Table(title=f"median {result.metric} (posts) by {rows_by} x {cols_by}; dim cells "
+              f"have fewer than {tw.min_n} posts", title_justify="left", box=box.SIMPLE_HEAD)
+    t.add_column(rows_by, ratio=1, overflow="fold")
+    for col in tw.cols:
+        t.add_column(col, justify="right")
+    for i, row in enumerate(tw.rows):
+        cells = []
+        for j in range(len(tw.cols)):
+            n = int(tw.n[i, j])
+            txt = "-" if n == 0 else f"{fmt_value(float(tw.median[i, j]), result.metric)} ({n:,})"
+            cells.append(Text(txt, style="dim" if tw.too_small[i, j] else ""))
+        t.add_row(Text(_short(row, 32)), *cells)
+    out.print(t)
+    out.print()
+
+
+def _plot_paths(plot: Path, result: SegmentResult) -> list[tuple[Path, str]]:
+    """The first split goes to ``plot``; a second one to ``<stem>-<by><suffix>``."""
+    first, *rest = result.splits
+    paths = [(plot, first.by)]
+    paths += [(plot.with_name(f"{plot.stem}-{s.by}{plot.suffix}"), s.by) for s in rest]
+    return paths
+
+
+@app.command("segments")
+def segments_cmd(
+    topic: list[str] | None = typer.Option(
+        None, "--topic", help="A topic phrase such as 'flowers in bloom' (repeat for more). "
+        "'a | b' is one topic with two phrases."),
+    by: str | None = typer.Option(None, "--by", help=f"Split by {', '.join(BY_CHOICES)}."),
+    metric: str = typer.Option("impressions", "--metric",
+                               help="impressions, engagements, likes, link_clicks, "
+                               "engagement_rate, ..."),
+    mode: str = typer.Option("nearest", "--mode",
+                             help="nearest: each post joins its closest topic (else other); "
+                             "top-k: each topic takes its k closest posts."),
+    k: int = typer.Option(DEFAULT_K, "--k", help="Posts per topic in top-k mode."),
+    threshold: float = typer.Option(DEFAULT_THRESHOLD, "--threshold",
+                                    help="Cosine similarity a post needs to join a topic."),
+    hour_edges: str | None = typer.Option(
+        None, "--hour-edges", help="Local hour bucket edges, e.g. 0,6,9,12,15,18,21,24."),
+    length_edges: str | None = typer.Option(
+        None, "--length-edges", help="Text length band edges, e.g. 0,80,160,240,1000000000."),
+    account: str | None = typer.Option(None, "--account", help="Only this account's posts."),
+    min_n: int = typer.Option(20, "--min-n", help="Flag segments with fewer posts."),
+    examples: int = typer.Option(3, "--examples", help="Example posts per topic."),
+    plot: Path | None = typer.Option(None, "--plot", help="Write the figure (.png or .svg)."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+) -> None:
+    """How a metric differs between topics (named by phrases), hours, forms or accounts."""
+    fmt = None
+    if plot is not None:
+        fmt = plot.suffix.lower().lstrip(".")
+        if fmt not in FORMATS:
+            raise InputError(f"--plot must end in .png or .svg, not {plot.name!r}",
+                             field="--plot")
+    kwargs = {}
+    if hour_edges is not None:
+        kwargs["hour_edges"] = parse_edges(hour_edges, "--hour-edges")
+    if length_edges is not None:
+        kwargs["length_edges"] = parse_edges(length_edges, "--length-edges")
+    req = SegmentRequest(topics=list(topic or []), by=by, metric=metric, mode=mode, k=k,
+                         threshold=threshold, account=account, min_n=min_n,
+                         examples=examples, **kwargs)
+    result = segment(workspace(), req)
+    if as_json:
+        print_json(result.to_dict())
+    else:
+        out.print(f"{result.n_posts:,} posts with {metric}"
+                  + (f" from {account}" if account else "") + "\n", highlight=False)
+        for split in result.splits:
+            print_split(split, metric)
+        print_two_way(result)
+        for w in result.warnings:
+            # Text, not markup: topic names are the user's and may hold brackets.
+            out.print(Text("warning: ", style="yellow") + Text(w))
+        out.print(Text(NOTE, style="dim"))
+    if plot is not None and fmt is not None:
+        say = err if as_json else out  # keep stdout pure JSON
+        for path, split_by in _plot_paths(plot, result):
+            path.write_bytes(render(result, by=split_by, fmt=fmt))
+            say.print(f"figure of the {split_by} split written to {path}", highlight=False)

@@ -1,0 +1,196 @@
+"""A small typed client of the sounding HTTP API, for scheduling scripts.
+
+    from service.client import SoundingClient
+
+    with SoundingClient(base_url="http://127.0.0.1:8000") as client:
+        f = client.forecast("Our magnolias are out", account="loomhaven",
+                            planned_at="2026-12-03T12:30:00")
+        if f.repeats or f.median < 1000:
+            ...  # hold it back
+
+Answers are the API's own pydantic schemas (``service.api.schemas``), so a
+script gets attributes and types rather than loose dictionaries. Errors
+come back as the library's exceptions (``models.errors``) carrying the
+API's message: 422 -> InputError, 413 -> LimitExceeded, 404 -> NotFound,
+409 -> NotReady, 401 -> AuthError, 503 -> StoreError; a service that
+cannot be reached -> ServiceUnavailable (a StoreError).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from datetime import date, datetime
+from types import TracebackType
+from typing import Any, TypeVar
+
+import httpx
+from pydantic import BaseModel, ValidationError
+
+from models.errors import (
+    AuthError,
+    InputError,
+    LimitExceeded,
+    NotFound,
+    NotReady,
+    ServiceUnavailable,
+    SoundingError,
+    StoreError,
+    TimeParseError,
+)
+
+from .api.schemas import (
+    DraftIn,
+    ForecastList,
+    ForecastOut,
+    Health,
+    HoursOut,
+    VariantsOut,
+)
+
+M = TypeVar("M", bound=BaseModel)
+DraftLike = Mapping[str, Any] | DraftIn
+
+_BY_STATUS: dict[int, type[SoundingError]] = {
+    422: InputError, 404: NotFound, 409: NotReady, 401: AuthError, 503: StoreError,
+}
+
+
+def error_from(status: int, body: Any) -> SoundingError:
+    """The library exception for an API error answer ``{"error": {...}}``."""
+    err = body.get("error") if isinstance(body, dict) else None
+    if not isinstance(err, dict):
+        err = {}
+    message = str(err.get("message") or f"the service answered HTTP {status}")
+    context = {k: err.get(k) for k in ("where", "field", "hint")}
+    if status == 413 or err.get("code") == "limit_exceeded":
+        maximum = err.get("maximum")
+        return LimitExceeded(message, limit=str(err.get("limit") or ""),
+                             maximum=int(maximum) if isinstance(maximum, int) else 0, **context)
+    if status == 422 and err.get("code") == "invalid_time":
+        return TimeParseError(message, **context)
+    cls = _BY_STATUS.get(status, SoundingError)
+    exc = cls(message, **context)
+    if cls is SoundingError:
+        exc.code = str(err.get("code") or "error")
+    return exc
+
+
+def _when(value: datetime | str | None) -> str | None:
+    """A planned time as the API reads it: ISO 8601 (no offset = the account's zone)."""
+    if value is None or isinstance(value, str):
+        return value
+    return value.isoformat()
+
+
+class SoundingClient:
+    """Client of one sounding service.
+
+    Parameters
+    ----------
+    base_url:
+        Where the service listens (``sounding serve``).
+    token:
+        ``SOUNDING_TOKEN`` of the server; only needed for endpoints that
+        change data. Sent as ``Authorization: Bearer <token>``.
+    timeout:
+        Seconds to wait for an answer.
+    transport:
+        An ``httpx`` transport, e.g. to talk to an app in the same process.
+    """
+
+    def __init__(self, *, base_url: str = "http://127.0.0.1:8000", token: str | None = None,
+                 timeout: float = 30.0, transport: httpx.BaseTransport | None = None) -> None:
+        self.base_url = base_url.rstrip("/")
+        headers = {"Accept": "application/json", "User-Agent": "sounding-client"}
+        if token:
+            headers["Authorization"] = f"Bearer {token}"
+        self._http = httpx.Client(base_url=self.base_url, headers=headers, timeout=timeout,
+                                  transport=transport)
+
+    # Life cycle -------------------------------------------------------------
+
+    def close(self) -> None:
+        self._http.close()
+
+    def __enter__(self) -> SoundingClient:
+        return self
+
+    def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
+                 tb: TracebackType | None) -> None:
+        self.close()
+
+    # Endpoints --------------------------------------------------------------
+
+    def health(self) -> Health:
+        """Counts, embedding model and index state of the service."""
+        return self._call("GET", "/v1/health", None, Health)
+
+    def forecast(self, text: str, *, account: str, planned_at: datetime | str | None = None,
+                 metric: str = "impressions", coverage: float = 0.8,
+                 draft_id: str | None = None) -> ForecastOut:
+        """Forecast one draft: interval, precedents, contributions and
+        warnings (near-repeats are in ``warnings`` and ``repeats``)."""
+        body = {"text": text, "account": account, "planned_at": _when(planned_at),
+                "metric": metric, "coverage": coverage, "draft_id": draft_id}
+        return self._call("POST", "/v1/forecasts", _drop_none(body), ForecastOut)
+
+    def forecast_queue(self, drafts: Sequence[DraftLike], *, metric: str = "impressions",
+                       coverage: float = 0.8) -> list[ForecastOut]:
+        """Forecast several drafts in one request, in their order. Each draft
+        is a ``DraftIn`` or a mapping with its fields (text, account,
+        planned_at, draft_id); a planned_at may be a datetime."""
+        items = []
+        for d in drafts:
+            raw = d.model_dump() if isinstance(d, DraftIn) else dict(d)
+            raw["planned_at"] = _when(raw.get("planned_at"))
+            items.append(_drop_none(raw))
+        body = {"drafts": items, "metric": metric, "coverage": coverage}
+        return self._call("POST", "/v1/forecasts", body, ForecastList).forecasts
+
+    def best_hours(self, text: str, *, account: str, day: date | str | None = None,
+                   week: bool = False, metric: str = "impressions", coverage: float = 0.8,
+                   top: int = 3) -> HoursOut:
+        """Forecast ``text`` at every hour of a local day (default tomorrow)
+        or of seven days; says when the hours cannot be told apart."""
+        body = {"text": text, "account": account,
+                "day": day.isoformat() if isinstance(day, date) else day,
+                "week": week, "metric": metric, "coverage": coverage, "top": top}
+        return self._call("POST", "/v1/hours", _drop_none(body), HoursOut)
+
+    def compare(self, texts: Sequence[str], *, account: str,
+                planned_at: datetime | str | None = None, metric: str = "impressions",
+                coverage: float = 0.8) -> VariantsOut:
+        """Forecast several phrasings of one draft side by side, best first."""
+        body = {"texts": list(texts), "account": account, "planned_at": _when(planned_at),
+                "metric": metric, "coverage": coverage}
+        return self._call("POST", "/v1/variants", _drop_none(body), VariantsOut)
+
+    # Plumbing ---------------------------------------------------------------
+
+    def _call(self, method: str, path: str, body: dict[str, Any] | None, model: type[M]) -> M:
+        try:
+            resp = self._http.request(method, path, json=body)
+        except httpx.TimeoutException as exc:
+            raise ServiceUnavailable(f"no answer from {self.base_url} in time ({exc})",
+                                     hint="is the service busy? raise the client's timeout") from None
+        except httpx.HTTPError as exc:
+            raise ServiceUnavailable(f"cannot reach the sounding service at {self.base_url}: {exc}",
+                                     hint="start it with `sounding serve`") from None
+        try:
+            data = resp.json()
+        except ValueError:
+            data = None
+        if resp.status_code >= 400:
+            raise error_from(resp.status_code, data)
+        if data is None:
+            raise ServiceUnavailable(f"{self.base_url}{path} did not answer with JSON "
+                                     f"(HTTP {resp.status_code}); is it a sounding service?")
+        try:
+            return model.model_validate(data)
+        except ValidationError as exc:
+            raise ServiceUnavailable(f"{self.base_url}{path} answered in an unexpected shape: "
+                                     f"{exc.errors()[0].get('msg')}") from None
+
+
+def _drop_none(d: dict[str, Any]) -> dict[str, Any]:
+    return {k: v for k, v in d.items() if v is not None}

@@ -1,0 +1,620 @@
+"""Segments of the post history: how a metric differs between topics, local
+hours, weekdays, forms (link, media, length) and accounts.
+
+A library first: the CLI (``sounding segments``) and the API
+(``POST /v1/segments``) both call :func:`segment` and render what it returns.
+The statistics live in :mod:`models.segments`, the figure in
+:mod:`models.plots`; this module gathers the posts, labels them and writes
+the plain-language lines people read.
+
+Topics need no labels: the user names each topic with a short phrase, the
+phrase is embedded with the workspace's embedder (the same model and the
+same normalisation as the stored post vectors), and posts are matched by
+cosine similarity. A topic may list alternative phrases separated by ``|``
+("events | tickets | what's on"); its vector is then the renormalised mean
+of the phrases' vectors, which catches a theme better than any one short
+phrase does.
+
+Differences between segments are associations in this team's own history,
+not causes: a topic posted mostly at good hours looks better partly because
+of the hours.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from datetime import datetime, timedelta
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from models.embedding import normalise_text
+from models.errors import InputError, NotReady
+from models.metrics import METRIC_COLUMNS, check_target, target_value
+from models.plots import FORMATS, plot_segments
+from models.segments import (
+    DEFAULT_HOUR_EDGES,
+    DEFAULT_LENGTH_EDGES,
+    OTHER,
+    SegmentReport,
+    SegmentStats,
+    TwoWayTable,
+    assign_nearest_topic,
+    assign_top_k,
+    bucket_hours,
+    compare_groups,
+    compare_segments,
+    hour_labels,
+    length_band,
+    length_labels,
+    two_way,
+)
+
+from .forecasting import local_clock
+from .timeparse import now_utc
+
+#: What a one-way split can be made by, besides topics.
+BY_CHOICES: tuple[str, ...] = ("hour", "weekday", "link", "media", "length", "account")
+MODES: tuple[str, ...] = ("nearest", "top-k")
+TOPIC = "topic"
+
+#: Cosine similarity a post needs with its nearest phrase to join that topic.
+#: all-MiniLM-L6-v2 gives a short phrase and a matching post about 0.3-0.6;
+#: unrelated pairs sit mostly below 0.25 (measured on the demo history, where
+#: the median best similarity of a post to six one-phrase topics is 0.35).
+DEFAULT_THRESHOLD = 0.3
+DEFAULT_K = 100
+#: Fewer posts with the metric than this, and no split is worth reading.
+MIN_POSTS = 20
+MAX_TOPICS = 20
+MAX_PHRASE_CHARS = 200
+PHRASE_SEPARATOR = "|"
+PLOT_NAME_CHARS = 30  # longer segment names crowd the figure's axis labels
+WEEKDAYS: tuple[str, ...] = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
+
+NOTE = (
+    "Segments describe this team's own history: a difference between segments is an "
+    "association, not a cause (topics, hours and forms are mixed in the posts)."
+)
+
+_LINK_NAMES = ("no link", "with link")
+_MEDIA_NAMES = ("no media", "with media")
+
+
+# --------------------------------------------------------------------------
+# The request
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SegmentRequest:
+    """What to split, by what, and how. Checked by :func:`segment`."""
+
+    topics: Sequence[str] = ()
+    by: str | None = None
+    metric: str = "impressions"
+    mode: str = "nearest"
+    k: int = DEFAULT_K
+    threshold: float = DEFAULT_THRESHOLD
+    hour_edges: Sequence[int] = DEFAULT_HOUR_EDGES
+    length_edges: Sequence[int] = DEFAULT_LENGTH_EDGES
+    account: str | None = None
+    min_n: int = 20
+    confidence: float = 0.95
+    n_resamples: int = 2000
+    alpha: float = 0.05
+    examples: int = 3
+    seed: int = 0
+
+
+@dataclass(frozen=True, slots=True)
+class Topic:
+    name: str  # the segment's name: the phrases as given, tidied
+    phrases: tuple[str, ...]
+
+
+def parse_topics(raw: Sequence[str]) -> list[Topic]:
+    """Topics from the user's phrases; "a | b" is one topic with two phrases."""
+    if isinstance(raw, str):
+        raw = [raw]
+    if len(raw) > MAX_TOPICS:
+        raise InputError(f"{len(raw)} topics; at most {MAX_TOPICS} at a time", field="topics")
+    topics: list[Topic] = []
+    seen: dict[str, int] = {}
+    for i, text in enumerate(raw):
+        if not isinstance(text, str):
+            raise InputError(f"topic {i + 1} is not text", field=f"topics.{i}")
+        parts = [normalise_text(p) for p in text.split(PHRASE_SEPARATOR)]
+        if not any(parts):
+            raise InputError(f"topic {i + 1} is an empty phrase", field=f"topics.{i}",
+                             hint="give a few words such as 'flowers in bloom'")
+        if not all(parts):
+            raise InputError(
+                f"topic {i + 1} ({text.strip()!r}) has an empty alternative around "
+                f"'{PHRASE_SEPARATOR}'", field=f"topics.{i}")
+        for p in parts:
+            if len(p) > MAX_PHRASE_CHARS:
+                raise InputError(
+                    f"topic {i + 1} has a phrase of {len(p)} characters; a topic phrase is "
+                    f"short (at most {MAX_PHRASE_CHARS})", field=f"topics.{i}")
+        name = f" {PHRASE_SEPARATOR} ".join(parts)
+        key = name.casefold()
+        if key == OTHER:
+            raise InputError(f"{OTHER!r} is the name of the posts no topic catches; "
+                             "choose another phrase", field=f"topics.{i}")
+        if key in seen:
+            raise InputError(f"topic {i + 1} ({name!r}) repeats topic {seen[key] + 1}",
+                             field=f"topics.{i}")
+        seen[key] = i
+        topics.append(Topic(name, tuple(parts)))
+    return topics
+
+
+def parse_edges(text: str, what: str = "--hour-edges") -> list[int]:
+    """Comma-separated whole numbers, as typed on the command line."""
+    parts = [p.strip() for p in text.split(",")]
+    try:
+        return [int(p) for p in parts]
+    except ValueError:
+        raise InputError(f"{what} must be whole numbers separated by commas, such as "
+                         f"0,6,9,12,15,18,21,24; got {text!r}", field=what) from None
+
+
+def _check_hour_edges(edges: Sequence[int]) -> tuple[int, ...]:
+    try:
+        hour_labels(edges)
+    except InputError as exc:
+        shown = ",".join(str(e) for e in edges)
+        raise InputError(f"bad hour edges {shown or '(none)'}: {exc.message}",
+                         field="hour_edges",
+                         hint="for example 0,6,9,12,15,18,21,24") from None
+    return tuple(int(e) for e in edges)
+
+
+def _check_length_edges(edges: Sequence[int]) -> tuple[int, ...]:
+    try:
+        length_labels(edges)
+    except InputError as exc:
+        shown = ",".join(str(e) for e in edges)
+        raise InputError(f"bad length edges {shown or '(none)'}: {exc.message}",
+                         field="length_edges") from None
+    return tuple(int(e) for e in edges)
+
+
+def _check(req: SegmentRequest) -> list[Topic]:
+    """Every input check, before the store is read."""
+    topics = parse_topics(req.topics)
+    if req.by is not None and req.by not in BY_CHOICES:
+        raise InputError(f"cannot split by {req.by!r}; choose one of {', '.join(BY_CHOICES)}",
+                         field="by", value=req.by)
+    if not topics and req.by is None:
+        raise InputError("nothing to split: give topic phrases, a split (by), or both",
+                         field="topics",
+                         hint="e.g. --topic 'flowers in bloom' --topic 'shop offers' or --by hour")
+    check_target(req.metric)
+    if req.mode not in MODES:
+        raise InputError(f"unknown mode {req.mode!r}; choose one of {', '.join(MODES)}",
+                         field="mode", value=req.mode)
+    if not (isinstance(req.threshold, (int, float)) and -1.0 <= req.threshold <= 1.0):
+        raise InputError("threshold is a cosine similarity and must lie in -1..1",
+                         field="threshold", value=req.threshold)
+    if isinstance(req.k, bool) or not isinstance(req.k, int) or req.k < 1:
+        raise InputError("k must be a whole number of at least 1", field="k", value=req.k)
+    if isinstance(req.examples, bool) or not isinstance(req.examples, int) \
+            or not 0 <= req.examples <= 20:
+        raise InputError("examples must be a whole number from 0 to 20", field="examples")
+    if req.min_n < 1:
+        raise InputError("min_n must be at least 1", field="min_n", value=req.min_n)
+    _check_hour_edges(req.hour_edges)
+    _check_length_edges(req.length_edges)
+    return topics
+
+
+# --------------------------------------------------------------------------
+# The result
+
+
+@dataclass(slots=True)
+class Example:
+    """A post that a topic phrase caught, to show what the phrase means."""
+
+    post_id: str
+    account: str
+    posted_at: datetime
+    text: str
+    similarity: float
+    value: float
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"post_id": self.post_id, "account": self.account,
+                "posted_at": self.posted_at.isoformat(), "text": self.text,
+                "similarity": round(self.similarity, 4), "value": _json_num(self.value)}
+
+
+@dataclass(slots=True)
+class Split:
+    """One one-way split: the report plus what people read and what the
+    figure needs (values and per-post labels or overlapping groups)."""
+
+    by: str  # "topic" or one of BY_CHOICES
+    title: str
+    report: SegmentReport
+    rest_medians: dict[str, float]
+    summaries: dict[str, str]
+    values: np.ndarray
+    labels: np.ndarray | Mapping[str, np.ndarray]
+    examples: dict[str, list[Example]] = field(default_factory=dict)
+    settings: dict[str, Any] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, Any]:
+        rep = self.report.to_dict()
+        segs = []
+        for seg, d in zip(self.report.segments, rep.pop("segments"), strict=True):
+            d["rest_median"] = _json_num(self.rest_medians[seg.name])
+            d["summary"] = self.summaries[seg.name]
+            if self.by == TOPIC:
+                d["examples"] = [e.to_dict() for e in self.examples.get(seg.name, [])]
+            segs.append(d)
+        return {"by": self.by, "title": self.title, **self.settings, **rep, "segments": segs}
+
+
+@dataclass(slots=True)
+class SegmentResult:
+    metric: str
+    account: str | None
+    n_posts: int
+    left_out: dict[str, int]
+    splits: list[Split]
+    two_way: TwoWayTable | None = None
+    two_way_axes: tuple[str, str] | None = None
+    warnings: list[str] = field(default_factory=list)
+
+    def split(self, by: str) -> Split:
+        for s in self.splits:
+            if s.by == by:
+                return s
+        raise InputError(
+            f"there is no {by!r} split here; this answer has "
+            f"{', '.join(s.by for s in self.splits)}", field="plot", value=by)
+
+    def to_dict(self) -> dict[str, Any]:
+        tw = None
+        if self.two_way is not None and self.two_way_axes is not None:
+            tw = {"row_by": self.two_way_axes[0], "col_by": self.two_way_axes[1],
+                  **self.two_way.to_dict()}
+        return {
+            "metric": self.metric, "account": self.account, "n_posts": self.n_posts,
+            "left_out": dict(self.left_out), "splits": [s.to_dict() for s in self.splits],
+            "two_way": tw, "warnings": list(self.warnings), "note": NOTE,
+        }
+
+
+# --------------------------------------------------------------------------
+# Words and numbers for people
+
+
+def fmt_value(x: float | None, metric: str) -> str:
+    """A metric value as people read it: 2,310 impressions, 3.12% rate."""
+    if x is None or not math.isfinite(x):
+        return "-"
+    if metric == "engagement_rate":
+        return f"{100 * x:.2f}%"
+    return f"{x:,.0f}" if abs(x) >= 100 else f"{x:.3g}"
+
+
+def fmt_p(p: float | None) -> str:
+    if p is None or not math.isfinite(p):
+        return "-"
+    return "< 0.001" if p < 0.001 else f"{p:.2g}"
+
+
+def summary_line(seg: SegmentStats, rest_median: float, *, metric: str, min_n: int,
+                 alpha: float) -> str:
+    """One short line per segment: which way, by how much, how sure."""
+    if seg.too_small:
+        posts = "post" if seg.n == 1 else "posts"
+        return f"too few posts to judge: only {seg.n} {posts} (fewer than {min_n})"
+    numbers = f"median {fmt_value(seg.median, metric)} vs {fmt_value(rest_median, metric)}"
+    if not math.isfinite(seg.p_holm):
+        return f"no test possible ({numbers}): the other posts are missing or all equal"
+    p = fmt_p(seg.p_holm)
+    stats_part = f"r = {seg.rank_biserial:+.2f}, Holm p {'' if p.startswith('<') else '= '}{p}"
+    if seg.p_holm < alpha:
+        way = "higher" if seg.rank_biserial > 0 else "lower"
+        return f"{way} than the rest: {numbers}; {stats_part}"
+    return f"no clear difference from the rest: {numbers}; {stats_part}"
+
+
+def _json_num(x: float) -> float | None:
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+# --------------------------------------------------------------------------
+# Gathering the posts
+
+
+@dataclass(slots=True)
+class _Posts:
+    frame: pd.DataFrame
+    values: np.ndarray
+
+
+def _posts(ws: Any, req: SegmentRequest, now: datetime) -> tuple[_Posts, dict[str, int]]:
+    frame = ws.store.posts_frame(account=req.account)
+    records = frame[list(METRIC_COLUMNS)].to_dict("records")
+    raw = [target_value(r, req.metric) for r in records]
+    values = np.array([np.nan if v is None else v for v in raw], dtype=np.float64)
+    has_metric = np.isfinite(values)
+    # Young posts are still gathering their metric; counting them would pull
+    # every segment they sit in down.
+    cutoff = pd.Timestamp(now - timedelta(hours=float(ws.settings.maturity_hours)))
+    mature = (frame["posted_at"] <= cutoff).to_numpy()
+    keep = has_metric & mature
+    left_out = {"no_metric": int((~has_metric).sum()), "young": int((has_metric & ~mature).sum())}
+    n = int(keep.sum())
+    if n < MIN_POSTS:
+        where = f" of account {req.account}" if req.account else ""
+        young = (f" ({left_out['young']} more are younger than "
+                 f"{ws.settings.maturity_hours:g} h and left out)" if left_out["young"] else "")
+        raise NotReady(
+            f"only {n} posts{where} have {req.metric}{young}; segments need at least "
+            f"{MIN_POSTS}", field="metric", hint="import more history")
+    kept = frame.loc[keep].reset_index(drop=True)
+    return _Posts(kept, values[keep]), left_out
+
+
+def _by_labels(posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray, list[str], str]:
+    """Per-post labels, their display order and a title for ``by``."""
+    f = posts.frame
+    if by in ("hour", "weekday"):
+        hours, days = local_clock(f["posted_at"], f["timezone"])
+        if by == "hour":
+            edges = _check_hour_edges(req.hour_edges)
+            return (bucket_hours(hours, edges), hour_labels(edges),
+                    "local hour of posting (each account's own time zone)")
+        return (np.asarray([WEEKDAYS[d] for d in days], dtype=object), list(WEEKDAYS),
+                "local weekday of posting")
+    if by == "link":
+        lab = np.where(f["has_link"].to_numpy(bool), _LINK_NAMES[1], _LINK_NAMES[0])
+        return lab.astype(object), list(_LINK_NAMES), "link in the text"
+    if by == "media":
+        lab = np.where(f["has_media"].to_numpy(bool), _MEDIA_NAMES[1], _MEDIA_NAMES[0])
+        return lab.astype(object), list(_MEDIA_NAMES), "media attached"
+    if by == "length":
+        edges = _check_length_edges(req.length_edges)
+        lengths = np.array([len(t) for t in f["text"]], dtype=np.int64)
+        # Keep texts past the last edge in the last band rather than failing.
+        lengths = np.minimum(lengths, edges[-1] - 1)
+        return length_band(lengths, edges), length_labels(edges), "text length (characters)"
+    accounts = f["account"].astype(str).to_numpy(object)
+    return accounts, sorted(set(accounts)), "account"
+
+
+# --------------------------------------------------------------------------
+# Building the splits
+
+
+def _finish(by: str, title: str, report: SegmentReport, values: np.ndarray,
+            members: dict[str, np.ndarray], labels: np.ndarray | Mapping[str, np.ndarray],
+            req: SegmentRequest) -> Split:
+    rest_medians: dict[str, float] = {}
+    summaries: dict[str, str] = {}
+    for seg in report.segments:
+        mask = np.ones(values.size, dtype=bool)
+        mask[members[seg.name]] = False
+        rest = float(np.median(values[mask])) if mask.any() else math.nan
+        rest_medians[seg.name] = rest
+        summaries[seg.name] = summary_line(seg, rest, metric=req.metric, min_n=req.min_n,
+                                           alpha=req.alpha)
+    return Split(by=by, title=title, report=report, rest_medians=rest_medians,
+                 summaries=summaries, values=values, labels=labels)
+
+
+def _stats_kwargs(req: SegmentRequest) -> dict[str, Any]:
+    return {"min_n": req.min_n, "confidence": req.confidence, "n_resamples": req.n_resamples,
+            "seed": req.seed, "alpha": req.alpha}
+
+
+def _by_split(posts: _Posts, by: str, req: SegmentRequest) -> tuple[Split, np.ndarray, list[str]]:
+    labels, order, title = _by_labels(posts, by, req)
+    present = [name for name in order if np.any(labels == name)]
+    if len(present) < 2:
+        only = present[0] if present else "none"
+        raise InputError(
+            f"every post falls in one {by} segment ({only!r}), so there is nothing to compare",
+            field="by", value=by,
+            hint="drop --account for a split by account" if by == "account" else None)
+    report = compare_segments(posts.values, labels, order=order, **_stats_kwargs(req))
+    members = {name: np.flatnonzero(labels == name) for name in present}
+    split = _finish(by, title, report, posts.values, members, labels, req)
+    return split, labels, present
+
+
+def _topic_vectors(ws: Any, topics: list[Topic]) -> np.ndarray:
+    phrases = [p for t in topics for p in t.phrases]
+    vecs = ws.embedder.encode(phrases)  # one call: every phrase embedded once
+    out, i = [], 0
+    for t in topics:
+        block = vecs[i: i + len(t.phrases)]
+        i += len(t.phrases)
+        # The mean of unit vectors is shorter than 1; renormalise so dot
+        # products stay cosines, as the post vectors' are.
+        c = block.mean(axis=0)
+        out.append(c / np.linalg.norm(c))
+    return np.asarray(out, dtype=np.float32)
+
+
+def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[Example]:
+    if n == 0 or idx.size == 0:
+        return []
+    top = idx[np.argsort(-sims[idx], kind="stable")[:n]]
+    f = posts.frame
+    return [Example(post_id=str(f["post_id"].iat[i]), account=str(f["account"].iat[i]),
+                    posted_at=f["posted_at"].iat[i].to_pydatetime(), text=str(f["text"].iat[i]),
+                    similarity=float(sims[i]), value=float(posts.values[i])) for i in top]
+
+
+def _topic_split(ws: Any, posts: _Posts, topics: list[Topic], req: SegmentRequest,
+                 warnings: list[str]) -> tuple[Split, dict[str, np.ndarray]]:
+    """The topic split and its members (name -> post rows), which may
+    overlap in top-k mode."""
+    post_vecs = ws.store.vectors(list(posts.frame["vector_key"]))
+    topic_vecs = _topic_vectors(ws, topics)
+    sims = post_vecs @ topic_vecs.T
+    n = posts.values.size
+    names = [t.name for t in topics]
+    members: dict[str, np.ndarray] = {}
+    if req.mode == "nearest":
+        best = assign_nearest_topic(post_vecs, topic_vecs, threshold=req.threshold)
+        for j, name in enumerate(names):
+            idx = np.flatnonzero(best == j)
+            if idx.size:
+                members[name] = idx
+            else:
+                warnings.append(
+                    f"topic {name!r} caught no posts at threshold {req.threshold:g}: no post is "
+                    "closer to it than to another topic and above the threshold; try another "
+                    "phrase or a lower threshold")
+        if (best < 0).any():
+            members[OTHER] = np.flatnonzero(best < 0)
+        if len(members) < 2:
+            only = next(iter(members), OTHER)
+            raise InputError(
+                f"every post fell in one topic segment ({only!r}), so there is nothing to "
+                f"compare", field="topics",
+                hint="add a topic, or raise the threshold" if only != OTHER
+                else "lower the threshold or try other phrases")
+        labels = np.asarray([names[b] if b >= 0 else OTHER for b in best], dtype=object)
+        report = compare_segments(posts.values, labels, order=[*names, OTHER],
+                                  **_stats_kwargs(req))
+        title = f"topic (nearest phrase, similarity at least {req.threshold:g}; else {OTHER})"
+        settings: dict[str, Any] = {"mode": "nearest", "threshold": req.threshold}
+        plot_labels: np.ndarray | Mapping[str, np.ndarray] = labels
+    else:
+        if req.k >= n:
+            warnings.append(f"k = {req.k} is not below the {n} posts: every topic takes every "
+                            "post, so the topics cannot differ; use a smaller k")
+        groups = assign_top_k(post_vecs, topic_vecs, k=req.k)
+        members = {name: np.sort(g) for name, g in zip(names, groups, strict=True)}
+        caught = np.zeros(n, dtype=bool)
+        for g in groups:
+            caught[g] = True
+        if (~caught).any():
+            members[OTHER] = np.flatnonzero(~caught)
+        if len(members) < 2:
+            raise InputError("one topic whose k nearest posts are every post leaves nothing "
+                             "to compare", field="k", hint="use a smaller k")
+        report = compare_groups(posts.values, members, **_stats_kwargs(req))
+        title = f"topic (the {req.k} posts nearest each phrase; {OTHER}: posts in none)"
+        settings = {"mode": "top-k", "k": req.k}
+        plot_labels = members
+        if len(topics) > 1:
+            warnings.append("in top-k mode a post may sit in several topics, so segments "
+                            "overlap and there is no Kruskal–Wallis test across them")
+    split = _finish(TOPIC, title, report, posts.values, members, plot_labels, req)
+    split.settings = {**settings, "topics": [{"name": t.name, "phrases": list(t.phrases)}
+                                             for t in topics]}
+    for j, name in enumerate(names):
+        if name in members:
+            split.examples[name] = _examples(posts, members[name], sims[:, j], req.examples)
+    if OTHER in members:
+        # The "other" posts closest to any topic: what the threshold just missed.
+        split.examples[OTHER] = _examples(posts, members[OTHER], sims.max(axis=1), req.examples)
+    return split, members
+
+
+def _small_warnings(split: Split, min_n: int) -> list[str]:
+    what = "topic" if split.by == TOPIC else f"{split.by} segment"
+    return [
+        f"{what} {seg.name!r} has only {seg.n} post{'s' if seg.n != 1 else ''} (fewer than "
+        f"{min_n}): too few to trust its median or its test"
+        for seg in split.report.segments if seg.too_small
+    ]
+
+
+def segment(ws: Any, req: SegmentRequest, *, now: datetime | None = None) -> SegmentResult:
+    """Split the store's mature posts by topic, by ``req.by``, or both (then
+    also the two-way table topic x by)."""
+    topics = _check(req)
+    posts, left_out = _posts(ws, req, now or now_utc())
+    warnings: list[str] = []
+    splits: list[Split] = []
+    members: dict[str, np.ndarray] | None = None
+    if topics:
+        topic_split, members = _topic_split(ws, posts, topics, req, warnings)
+        splits.append(topic_split)
+    by_labels: np.ndarray | None = None
+    by_order: list[str] = []
+    if req.by is not None:
+        by_split, by_labels, by_order = _by_split(posts, req.by, req)
+        splits.append(by_split)
+    for s in splits:
+        warnings.extend(_small_warnings(s, req.min_n))
+
+    table = None
+    if members is not None and by_labels is not None:
+        # One row per (topic, post) pair, so top-k topics that share posts
+        # each count them; in nearest mode this is one row per post.
+        rows = np.concatenate([np.full(idx.size, name, dtype=object)
+                               for name, idx in members.items()])
+        picks = np.concatenate(list(members.values()))
+        table = two_way(posts.values[picks], rows, by_labels[picks], min_n=req.min_n,
+                        row_order=list(members), col_order=by_order)
+        small = int(table.too_small.sum())
+        if small:
+            warnings.append(
+                f"{small} of {table.n.size} cells of the topic x {req.by} table have fewer "
+                f"than {req.min_n} posts: read their medians as rough")
+    if left_out["young"]:
+        warnings.append(f"{left_out['young']} posts younger than "
+                        f"{ws.settings.maturity_hours:g} h are left out: their {req.metric} "
+                        "is still growing")
+    return SegmentResult(
+        metric=req.metric, account=req.account, n_posts=int(posts.values.size),
+        left_out=left_out, splits=splits, two_way=table,
+        two_way_axes=(TOPIC, req.by) if table is not None and req.by else None,
+        warnings=warnings)
+
+
+def render(result: SegmentResult, *, by: str | None = None, fmt: str = "png") -> bytes:
+    """The figure of one split (the first one unless ``by`` names another)."""
+    fmt = fmt.lower()
+    if fmt not in FORMATS:
+        raise InputError(f"figure format must be one of {', '.join(FORMATS)}", field="format",
+                         value=fmt)
+    split = result.split(by) if by else result.splits[0]
+    names = plot_names([seg.name for seg in split.report.segments])
+    report = replace(split.report, segments=[replace(seg, name=names[seg.name])
+                                             for seg in split.report.segments])
+    labels: np.ndarray | dict[str, np.ndarray]
+    if isinstance(split.labels, Mapping):
+        labels = {names[k]: v for k, v in split.labels.items()}
+    else:
+        labels = np.asarray([names[x] for x in split.labels], dtype=object)
+    return plot_segments(report, split.values, labels, metric=result.metric, fmt=fmt)
+
+
+def plot_names(names: Sequence[str], width: int = PLOT_NAME_CHARS) -> dict[str, str]:
+    """Short, unique figure labels: a topic of several phrases shows its
+    first phrase and how many more ("flowers in bloom (+5)"); the full
+    names stay in the JSON and the table."""
+    out: dict[str, str] = {}
+    for name in names:
+        parts = name.split(f" {PHRASE_SEPARATOR} ")
+        short = name if len(parts) == 1 else f"{parts[0]} (+{len(parts) - 1})"
+        if len(short) > width:
+            short = short[: width - 1].rstrip() + "…"
+        base, i = short, 2
+        while short in out.values():
+            short, i = f"{base} #{i}", i + 1
+        out[name] = short
+    return out
+
+
+__all__ = ["BY_CHOICES", "DEFAULT_K", "DEFAULT_THRESHOLD", "MIN_POSTS", "MODES", "NOTE",
+           "SegmentRequest", "SegmentResult", "Split", "Example", "Topic", "TOPIC",
+           "fmt_p", "fmt_value", "parse_edges", "parse_topics", "plot_names", "render", "segment",
+           "summary_line"]

@@ -1,0 +1,162 @@
+"""The review page in headless Chromium: typed with the keyboard, checked
+against the API's own answer for the same draft and time."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+import socket
+import threading
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
+import httpx
+import pytest
+import uvicorn
+from fastapi import FastAPI
+
+from service.api.app import create_app
+
+ROOT = Path(__file__).resolve().parents[1]
+EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
+CHROMIUM = Path("/usr/bin/chromium")
+ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
+        "--disable-component-update", "--disable-sync", "--no-first-run"]
+DRAFT = ("The dahlias in the Walled Garden are at their peak this week 🌸 The colour glows in "
+         "low sun. #WhatsFlowering")
+PLANNED = "2026-12-03T12:30"
+
+pytestmark = [
+    pytest.mark.browser,
+    pytest.mark.skipif(not CHROMIUM.exists(),
+                       reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"),
+]
+
+
+@contextmanager
+def serve(app: FastAPI) -> Iterator[str]:
+    """The real app on a free port of 127.0.0.1, in a background thread."""
+    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+    sock.bind(("127.0.0.1", 0))
+    port = sock.getsockname()[1]
+    server = uvicorn.Server(uvicorn.Config(app, log_level="warning", lifespan="on"))
+    thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
+    thread.start()
+    deadline = time.monotonic() + 60
+    while not server.started:
+        if not thread.is_alive() or time.monotonic() > deadline:
+            raise RuntimeError("uvicorn did not start")
+        time.sleep(0.05)
+    try:
+        yield f"http://127.0.0.1:{port}"
+    finally:
+        server.should_exit = True
+        thread.join(timeout=15)
+        sock.close()
+
+
+def _shown(v: float) -> str:
+    """How the page writes a count: rounded half up, with thousands separators."""
+    return f"{math.floor(v + 0.5):,}"
+
+
+def test_review_page(demo_workspace, artifacts: Path) -> None:
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        # The API's own answer for the same draft and time (no offset: the account's zone).
+        api = httpx.post(f"{base}/v1/forecasts", timeout=60, json={
+            "text": DRAFT, "account": "loomhaven", "planned_at": PLANNED + ":00"})
+        assert api.status_code == 200, api.text
+        want = api.json()
+
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 900})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            outside: list[str] = []
+            page.on("request", lambda r: None if r.url.startswith(base) or r.url.startswith("data:")
+                    else outside.append(r.url))
+            page.goto(base + "/")
+            expect(page).to_have_title("sounding — check a draft")
+            expect(page.locator("#output")).to_be_hidden()
+            expect(page.locator("#account option")).to_have_count(
+                len(httpx.get(f"{base}/v1/accounts").json()))
+
+            # Keyboard only: Tab from the skip link into the draft, type, Tab on.
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.className") == "skip"
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.id") == "text"
+            page.keyboard.type(DRAFT)
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.id") == "account"
+            page.select_option("#account", "loomhaven")
+            page.locator("#planned").fill(PLANNED)
+            # (a datetime-local field has one Tab stop per part, so skip to the next field)
+            page.locator("#metric").focus()
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.id") == "submit"
+            page.keyboard.press("Enter")  # submits the form
+
+            expect(page.locator("#output")).to_be_visible(timeout=60_000)
+            expect(page.locator("#fc-low")).to_have_text(_shown(want["low"]))
+            expect(page.locator("#fc-median")).to_have_text(_shown(want["median"]))
+            expect(page.locator("#fc-high")).to_have_text(_shown(want["high"]))
+            expect(page.locator("#fc-caution")).to_have_text(want["caution"])
+            pct = round(want["backtested_coverage"] * 100)
+            expect(page.locator("#fc-coverage")).to_contain_text(f"held {pct}%")
+            first = page.locator("#prec-list li .prec-text").first
+            expect(first).to_have_text(want["precedents"][0]["text"])
+            expect(page.locator("#contrib-body tr")).to_have_count(
+                len(want["contributions"]["groups"]))
+            # The charts: one point per precedent with the metric, one band over the day.
+            expect(page.locator("#scatter-chart circle")).to_have_count(
+                sum(p["metrics"]["impressions"] is not None for p in want["precedents"]))
+            expect(page.locator("#hours-chart polygon.band")).to_have_count(1, timeout=60_000)
+            expect(page.locator("#hours-summary")).not_to_be_empty()
+            assert page.locator("#results").get_attribute("aria-live") == "polite"
+            assert page.locator("#error").is_hidden()
+            page.screenshot(path=str(artifacts / "review-page.png"), full_page=True)
+
+            # An error: the draft emptied, submitted with Ctrl+Enter -> the API's message.
+            page.locator("#text").fill("")
+            page.locator("#text").focus()
+            page.keyboard.press("Control+Enter")
+            box = page.locator("#error[role=alert]")
+            expect(box).to_be_visible()
+            empty = httpx.post(f"{base}/v1/forecasts", json={"text": "", "account": "loomhaven"})
+            assert empty.status_code == 422
+            expect(page.locator("#error-message")).to_contain_text(empty.json()["error"]["message"])
+            expect(page.locator("#output")).to_be_hidden()  # no stale forecast beside an error
+
+            # Too long: the limit's own message (413).
+            limit = demo_workspace.settings.max_draft_chars
+            page.locator("#text").fill("x" * (limit + 1))
+            page.locator("#submit").focus()
+            page.keyboard.press("Enter")
+            big = httpx.post(f"{base}/v1/forecasts",
+                             json={"text": "x" * (limit + 1), "account": "loomhaven"})
+            assert big.status_code == 413
+            expect(page.locator("#error-message")).to_contain_text(big.json()["error"]["message"])
+            page.screenshot(path=str(artifacts / "review-page-error.png"))
+
+            # The queue's planted near-repeat: the warning shows above the charts.
+            queue = {r["draft_id"]: r for r in csv.DictReader(
+                (ROOT / "demo_data" / "queue.csv").open(encoding="utf-8", newline=""))}
+            q = queue[EFFECTS["queue"]["near_repeat"]["draft_id"]]  # Source: effects.json
+            page.locator("#text").fill(q["text"])
+            page.locator("#planned").fill(q["planned_at"][:16])  # local wall-clock time (+00:00)
+            page.locator("#submit").focus()
+            page.keyboard.press("Enter")
+            expect(page.locator("#warn-card")).to_be_visible(timeout=60_000)
+            expect(page.locator("#warn-list li").first).to_contain_text(
+                EFFECTS["queue"]["near_repeat"]["post_id"])
+            assert page.locator("#error").is_hidden()
+            assert errors == [] and outside == []
+        finally:
+            browser.close()
