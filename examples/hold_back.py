@@ -9,7 +9,7 @@ draft through a running sounding service and prints one decision a line:
 
 Usage:
     sounding serve &                       # the service, over your history
-    python examples/hold_back.py [demo_data/queue.csv] --threshold 1000
+    python examples/hold_back.py [demo_data/queue.csv] --threshold 800
         [--metric impressions] [--base-url http://127.0.0.1:8000]
 
 Forecasts are estimates from the team's own history (intervals with a
@@ -68,8 +68,8 @@ def decide(client: SoundingClient, drafts: list[dict[str, str]], *, threshold: f
 def main(argv: Sequence[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("queue", nargs="?", type=Path, default=QUEUE, help="queue CSV file")
-    ap.add_argument("--threshold", type=float, default=1000.0,
-                    help="hold drafts whose forecast median is below this (default 1000)")
+    ap.add_argument("--threshold", type=float, default=800.0,
+                    help="hold drafts whose forecast median is below this (default 800)")
     ap.add_argument("--metric", default="impressions", help="metric to forecast")
     ap.add_argument("--base-url", default="http://127.0.0.1:8000", help="the sounding service")
     args = ap.parse_args(argv)

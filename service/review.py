@@ -279,7 +279,10 @@ class Slot:
 
     @property
     def offset(self) -> str:
-        return self.local.isoformat(timespec="minutes")[-6:]
+        """UTC offset as ISO 8601 ±HH:MM (seconds of old local mean times dropped)."""
+        minutes = int((self.local.utcoffset() or timedelta(0)).total_seconds() // 60)
+        sign = "-" if minutes < 0 else "+"
+        return f"{sign}{abs(minutes) // 60:02d}:{abs(minutes) % 60:02d}"
 
     def label(self, *, with_day: bool = False) -> str:
         day = f"{self.local:%a %d %b} " if with_day else ""

@@ -154,7 +154,8 @@ def test_every_changing_route_is_behind_the_token(client: TestClient, ws) -> Non
     # Declared is not enough: each one really refuses a request without it.
     before = ws.store.counts()
     for method, path in sorted(guarded):
-        r = client.request(method, path.replace("{handle}", "loomhaven").replace("{post_id}", "ac-0"))
+        url = path.replace("{handle}", "loomhaven").replace("{post_id}", "ac-0")
+        r = client.request(method, url)
         assert r.status_code == 401, (method, path, r.text)
     assert ws.store.counts() == before
 

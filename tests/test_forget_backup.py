@@ -225,13 +225,16 @@ def check_complete(db: Path) -> tuple[int, list[str]]:
     the post count and the post ids in row order."""
     con = sqlite3.connect(f"file:{db}?mode=ro", uri=True)
     try:
-        assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
-        assert con.execute("SELECT COUNT(*) FROM posts p WHERE NOT EXISTS "
-                           "(SELECT 1 FROM snapshots s WHERE s.post_pk = p.id)").fetchone()[0] == 0
-        assert con.execute("SELECT COUNT(*) FROM posts p WHERE NOT EXISTS "
-                           "(SELECT 1 FROM vectors v WHERE v.key = p.vector_key)").fetchone()[0] == 0
-        assert con.execute("SELECT COUNT(*) FROM vectors WHERE key NOT IN "
-                           "(SELECT vector_key FROM posts)").fetchone()[0] == 0
+        def count(sql: str) -> object:
+            return con.execute(sql).fetchone()[0]
+
+        assert count("PRAGMA integrity_check") == "ok"
+        assert count("SELECT COUNT(*) FROM posts p WHERE NOT EXISTS "
+                     "(SELECT 1 FROM snapshots s WHERE s.post_pk = p.id)") == 0
+        assert count("SELECT COUNT(*) FROM posts p WHERE NOT EXISTS "
+                     "(SELECT 1 FROM vectors v WHERE v.key = p.vector_key)") == 0
+        assert count("SELECT COUNT(*) FROM vectors WHERE key NOT IN "
+                     "(SELECT vector_key FROM posts)") == 0
         ids = [r[0] for r in con.execute("SELECT post_id FROM posts ORDER BY id")]
     finally:
         con.close()
@@ -290,7 +293,8 @@ def test_backup_while_importing_is_consistent_and_restores(
         assert rws.index_state()["state"] == "missing"
         text = post_row(rws, "loomhaven_lab", "fb-2")[2]
         top = rws.precedents(text, k=1)[0]
-        assert (top.account, top.post_id, round(top.similarity, 3)) == ("loomhaven_lab", "fb-2", 1.0)
+        assert (top.account, top.post_id) == ("loomhaven_lab", "fb-2")
+        assert top.similarity > 0.999  # the same text: cosine 1 up to float32 rounding
         assert rws.index_state() == {"state": "ready", "count": n}
     finally:
         rws.close()

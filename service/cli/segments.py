@@ -25,12 +25,16 @@ from ..segmenting import (
     fmt_p,
     fmt_value,
     parse_edges,
+    plot_names,
     render,
     segment,
 )
 from .base import app, err, out, print_json, workspace
 
-_NAME_WIDTH = 48  # long multi-phrase topic names are cut in the terminal only
+# Long (multi-phrase) topic names are shortened in tables only; the reading
+# lines and the JSON keep them whole.
+_NAME_WIDTH = 30
+_ROW_WIDTH = 22
 
 
 def _short(text: str, width: int) -> str:
@@ -41,14 +45,15 @@ def print_split(split: Split, metric: str) -> None:
     rep = split.report
     pct = f"{100 * rep.confidence:g}%"
     t = Table(title=f"{metric} by {split.title}", title_justify="left", box=box.SIMPLE_HEAD)
-    width = min(max(len(seg.name) for seg in rep.segments), 24)
+    short = plot_names([seg.name for seg in rep.segments], width=_NAME_WIDTH)
+    width = min(max(len(n) for n in short.values()), 24)
     t.add_column("segment", ratio=1, overflow="fold", min_width=width)
     for head in ("posts", "median", "middle half", f"{pct} CI", "r", "Holm p"):
         t.add_column(head, justify="right", no_wrap=True)
     for seg in rep.segments:
         style = "dim" if seg.too_small else None
         t.add_row(
-            Text(_short(seg.name, _NAME_WIDTH)), f"{seg.n:,}", fmt_value(seg.median, metric),
+            Text(short[seg.name]), f"{seg.n:,}", fmt_value(seg.median, metric),
             f"{fmt_value(seg.q1, metric)}–{fmt_value(seg.q3, metric)}",
             f"{fmt_value(seg.ci_low, metric)}–{fmt_value(seg.ci_high, metric)}",
             "-" if seg.rank_biserial != seg.rank_biserial else f"{seg.rank_biserial:+.2f}",
@@ -56,7 +61,7 @@ def print_split(split: Split, metric: str) -> None:
         )
     out.print(t)
     for seg in rep.segments:
-        line = Text(f"  {_short(seg.name, _NAME_WIDTH)}: ", style="bold")
+        line = Text(f"  {seg.name}: ", style="bold")
         line.append(split.summaries[seg.name], style="dim" if seg.too_small else "")
         out.print(line)
     if rep.kruskal_p is not None and rep.kruskal_h is not None:
@@ -91,13 +96,15 @@ def print_two_way(result: SegmentResult) -> None:
     t.add_column(rows_by, ratio=1, overflow="fold")
     for col in tw.cols:
         t.add_column(col, justify="right")
+    short = plot_names(tw.rows, width=_ROW_WIDTH)
     for i, row in enumerate(tw.rows):
         cells = []
         for j in range(len(tw.cols)):
             n = int(tw.n[i, j])
-            txt = "-" if n == 0 else f"{fmt_value(float(tw.median[i, j]), result.metric)} ({n:,})"
+            # Median over its post count, so seven hour buckets fit 80 columns.
+            txt = "-" if n == 0 else f"{fmt_value(float(tw.median[i, j]), result.metric)}\n({n:,})"
             cells.append(Text(txt, style="dim" if tw.too_small[i, j] else ""))
-        t.add_row(Text(_short(row, 32)), *cells)
+        t.add_row(Text(short[row]), *cells)
     out.print(t)
     out.print()
 
