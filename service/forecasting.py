@@ -261,9 +261,12 @@ class Forecaster:
                     f"least {least} (SOUNDING_MIN_HISTORY_POSTS)", field="account", value=d.account)
         vecs = vectors if vectors is not None else self.ws.embed_drafts([d.text for d in drafts])
         rows, plans = [], []
+        wide: dict[bytes, tuple[np.ndarray, np.ndarray]] = {}  # one search per distinct text
         for d, vec in zip(drafts, vecs, strict=True):
-            rows.append(self._features(view, model.features, d, vec, now))
+            rows.append(self._features(view, model.features, d, vec, now, wide))
             plans.append(d.planned_at or now)
+        details = self.ws.store.posts_by_pk(sorted({int(view.history.pk[r]) for row in rows
+                                                    for r, _ in row[3]}))
         X = np.vstack([r[0] for r in rows])
         lo, med, hi = model.quantiles.predict(X, coverage=coverage)
         contribs = model.quantiles.contributions(X)
@@ -283,7 +286,7 @@ class Forecaster:
                 low=_back(lo[i], metric), median=_back(med[i], metric), high=_back(hi[i], metric),
                 coverage=coverage, backtested_coverage=model.backtested_at(coverage),
                 model_version=model.version,
-                precedents=self._precedents(view, hood_rows, weights, now),
+                precedents=self._precedents(view, hood_rows, weights, now, details),
                 contributions={
                     "scale": "log1p; factors multiply (1 + metric)",
                     "expected_log": expected,
@@ -301,7 +304,8 @@ class Forecaster:
         return out
 
     def _features(self, view: HistoryView, params: F.FeatureParams, d: Draft, vec: np.ndarray,
-                  now: datetime) -> tuple[np.ndarray, dict[int, float], str, list[tuple[int, float]]]:
+                  now: datetime, wide: dict[bytes, tuple[np.ndarray, np.ndarray]] | None = None,
+                  ) -> tuple[np.ndarray, dict[int, float], str, list[tuple[int, float]]]:
         h = view.history
         planned = d.planned_at or now
         # Only what is settled now is known, even for a post planned later.
@@ -312,7 +316,13 @@ class Forecaster:
         # One wide, unfiltered search serves the team, own-account and young
         # lists; a filtered search is only needed when the account's posts
         # are too rare among the nearest to fill its list.
-        rows, sims = self._search(view, vec, None, min(len(h), max(WIDE, 10 * params.k)))
+        key = np.asarray(vec, dtype=np.float32).tobytes()
+        if wide is None or key not in wide:
+            found = self._search(view, vec, None, min(len(h), max(WIDE, 10 * params.k)))
+            if wide is None:
+                wide = {}
+            wide[key] = found
+        rows, sims = wide[key]
         team = (rows[ok[rows]], sims[ok[rows]])
         own = (rows[own_ok[rows]], sims[own_ok[rows]])
         if len(own[0]) < min(params.k, int(own_ok.sum())):
@@ -343,10 +353,11 @@ class Forecaster:
                 np.array([s for _, s in rows], dtype=np.float32))
 
     def _precedents(self, view: HistoryView, shown: list[tuple[int, float]],
-                    weights: dict[int, float], now: datetime) -> list[dict[str, Any]]:
+                    weights: dict[int, float], now: datetime,
+                    details: dict[int, dict[str, Any]]) -> list[dict[str, Any]]:
         pks = [int(view.history.pk[r]) for r, _ in shown]
         found = {p.pk: p for p in self.ws.precedents_for(
-            [(pk, s) for pk, (_, s) in zip(pks, shown, strict=True)], now=now)}
+            [(pk, s) for pk, (_, s) in zip(pks, shown, strict=True)], now=now, details=details)}
         out = []
         for (row, _), pk in zip(shown, pks, strict=True):
             p = found.get(pk)

@@ -142,27 +142,6 @@ def near_repeats_many(ws: Workspace, view: HistoryView,
     return out
 
 
-# Up to this many posts, near-repeats are scored against the store's vectors held in
-# memory (1.5 KB a post: 300 MB at the cap), exactly what the FAISS inner-product index
-# would answer but without one search per draft; larger stores search the index.
-MATRIX_MAX_POSTS = 200_000
-_matrices: dict[int, tuple[Any, np.ndarray]] = {}
-
-
-def _matrix(ws: Workspace, view: HistoryView) -> np.ndarray | None:
-    """The vectors of ``view``'s posts, row-aligned, loaded once per view."""
-    if len(view.history) > MATRIX_MAX_POSTS:
-        return None
-    hit = _matrices.get(id(view))
-    if hit is not None and hit[0] is view:
-        return hit[1]
-    vecs = ws.store.vectors(list(view.frame["vector_key"]))
-    while len(_matrices) >= 4:  # a few metrics' views at most; old ones go
-        _matrices.pop(next(iter(_matrices)))
-    _matrices[id(view)] = (view, vecs)
-    return vecs
-
-
 def _above(ws: Workspace, view: HistoryView, vec: np.ndarray, mask: np.ndarray,
            threshold: float) -> list[tuple[int, float]]:
     """(History row, similarity) of every post in ``mask`` at or above
@@ -170,13 +149,6 @@ def _above(ws: Workspace, view: HistoryView, vec: np.ndarray, mask: np.ndarray,
     rows = np.flatnonzero(mask)
     if len(rows) == 0:
         return []
-    vecs = _matrix(ws, view)
-    if vecs is not None:
-        sims = vecs[rows] @ vec.reshape(-1)
-        keep = sims >= threshold
-        order = np.argsort(-sims[keep], kind="stable")
-        return [(int(r), float(x)) for r, x in zip(rows[keep][order], sims[keep][order],
-                                                   strict=True)]
     pks = view.history.pk[rows]
     k = min(len(pks), 16)
     hits: list[tuple[int, float]] = []

@@ -273,9 +273,13 @@ class Workspace:
         return self.precedents_for(hits, now=now)
 
     def precedents_for(
-        self, hits: list[tuple[int, float]], *, now: datetime | None = None
+        self, hits: list[tuple[int, float]], *, now: datetime | None = None,
+        details: dict[int, dict[str, Any]] | None = None,
     ) -> list[Precedent]:
-        details = self.store.posts_by_pk([p for p, _ in hits])
+        """Precedents for (post row id, similarity) hits; ``details`` may pass
+        rows already read from the store."""
+        if details is None:
+            details = self.store.posts_by_pk([p for p, _ in hits])
         cutoff = (now or now_utc()) - timedelta(hours=self.settings.maturity_hours)
         out = []
         for pk, sim in hits:
