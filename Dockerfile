@@ -13,7 +13,8 @@ ENV PYTHONDONTWRITEBYTECODE=1 \
     PIP_DISABLE_PIP_VERSION_CHECK=1 \
     HF_HUB_OFFLINE=1 \
     TRANSFORMERS_OFFLINE=1 \
-    SOUNDING_HOME=/data
+    SOUNDING_HOME=/data \
+    SOUNDING_DEMO_DIR=/app/demo_data
 
 # libgomp1: the OpenMP runtime LightGBM's wheel loads; the slim image lacks it.
 RUN apt-get update \
@@ -24,6 +25,8 @@ WORKDIR /app
 COPY pyproject.toml README.md ./
 COPY models ./models
 COPY service ./service
+# The invented demo history, so `sounding demo` works in the image too.
+COPY demo_data ./demo_data
 
 # A plain `pip install .`: torch is pinned in pyproject.toml (torch==2.13.0) so
 # pip takes the CPU build; no package index or other host is named here, pip

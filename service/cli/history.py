@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import ipaddress
+import os
 from dataclasses import asdict
 from datetime import datetime
 from pathlib import Path
@@ -18,7 +19,9 @@ from ..settings import Settings
 from ..timeparse import parse_time
 from .base import app, err, is_terminal, out, print_json, workspace
 
-DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
+# The demo history sits beside the source tree; an installed copy (the
+# container image) points at it with SOUNDING_DEMO_DIR.
+DEMO_DIR = Path(os.environ.get("SOUNDING_DEMO_DIR") or Path(__file__).resolve().parents[2] / "demo_data")
 
 
 @app.command("account")
