@@ -77,7 +77,10 @@ def _raw(booster: lgb.Booster, X: np.ndarray, *, contrib: bool = False) -> np.nd
     # LightGBM divides by the row count, so an empty batch is answered here.
     if X.shape[0] == 0:
         return np.empty((0, X.shape[1] + 1) if contrib else 0)
-    return np.asarray(booster.predict(X, pred_contrib=contrib), dtype=float)
+    # A forecast predicts a few rows: OpenMP threads cost more than they save
+    # there, and fight the service's other work for the cores.
+    threads = 1 if X.shape[0] < 1000 else 0
+    return np.asarray(booster.predict(X, pred_contrib=contrib, num_threads=threads), dtype=float)
 
 
 class QuantileForecaster:

@@ -7,15 +7,12 @@ import csv
 import importlib.util
 import json
 import socket
-import threading
 import time
 from collections.abc import Iterator
-from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
 import uvicorn
-from fastapi import FastAPI
 from fastapi.testclient import TestClient
 
 from models.errors import (
@@ -28,6 +25,7 @@ from models.errors import (
     StoreError,
 )
 from service.api.app import create_app
+from serving import serve
 from service.api.schemas import DraftIn
 from service.client import SoundingClient, error_from
 
@@ -36,28 +34,6 @@ EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="u
 AT = "2026-10-14T12:30:00"
 DRAFT = ("The dahlias in the Walled Garden are at their peak this week 🌸 The colour glows in "
          "low sun. #WhatsFlowering")
-
-
-@contextmanager
-def serve(app: FastAPI) -> Iterator[str]:
-    """The app on a free port of 127.0.0.1, in a background thread."""
-    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
-    sock.bind(("127.0.0.1", 0))
-    port = sock.getsockname()[1]
-    server = uvicorn.Server(uvicorn.Config(app, log_level="warning", lifespan="on"))
-    thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 60
-    while not server.started:
-        if not thread.is_alive() or time.monotonic() > deadline:
-            raise RuntimeError("uvicorn did not start")
-        time.sleep(0.05)
-    try:
-        yield f"http://127.0.0.1:{port}"
-    finally:
-        server.should_exit = True
-        thread.join(timeout=15)
-        sock.close()
 
 
 @pytest.fixture(scope="module")

@@ -8,13 +8,12 @@ Bounded: a fixed number of requests from a few client threads, sent only to
 from __future__ import annotations
 
 import shutil
-import socket
 import threading
-import time
 from pathlib import Path
 
 import httpx
-import uvicorn
+
+from serving import serve
 
 from service.api.app import create_app
 from service.settings import Settings
@@ -35,17 +34,8 @@ def test_forecasts_during_import_and_training(demo_home, embedder, tmp_path: Pat
         f"c-{i},loomhaven,Late tulips along the lake path (note {i}),2026-10-{1 + i % 28:02d}T11:00Z,"
         f"{900 + i}\n" for i in range(60))
 
-    sock = socket.socket()
-    sock.bind(("127.0.0.1", 0))
-    port = sock.getsockname()[1]
-    server = uvicorn.Server(uvicorn.Config(create_app(workspace=ws), log_level="warning"))
-    thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 60
-    while not server.started and time.monotonic() < deadline:
-        time.sleep(0.05)
-    assert server.started
-    base = f"http://127.0.0.1:{port}"
+    served = serve(create_app(workspace=ws))
+    base = served.__enter__()
     answers: list[dict] = []
     errors: list[str] = []
     lock = threading.Lock()
@@ -81,11 +71,8 @@ def test_forecasts_during_import_and_training(demo_home, embedder, tmp_path: Pat
         w.start()
     for w in workers:
         w.join(timeout=900)
-    server.should_exit = True
-    thread.join(timeout=30)
-    sock.close()
+    served.__exit__(None, None, None)
     ws.close()
-    assert not thread.is_alive(), "the service did not stop"
 
     assert results.get("import") == 200 and results.get("training") == 200, results
     assert errors == [], errors[:3]

@@ -6,19 +6,14 @@ from __future__ import annotations
 import csv
 import json
 import math
-import socket
-import threading
 import time
-from collections.abc import Iterator
-from contextlib import contextmanager
 from pathlib import Path
 
 import httpx
 import pytest
-import uvicorn
-from fastapi import FastAPI
 
 from service.api.app import create_app
+from serving import serve
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
@@ -34,28 +29,6 @@ pytestmark = [
     pytest.mark.skipif(not CHROMIUM.exists(),
                        reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"),
 ]
-
-
-@contextmanager
-def serve(app: FastAPI) -> Iterator[str]:
-    """The real app on a free port of 127.0.0.1, in a background thread."""
-    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
-    sock.bind(("127.0.0.1", 0))
-    port = sock.getsockname()[1]
-    server = uvicorn.Server(uvicorn.Config(app, log_level="warning", lifespan="on"))
-    thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 60
-    while not server.started:
-        if not thread.is_alive() or time.monotonic() > deadline:
-            raise RuntimeError("uvicorn did not start")
-        time.sleep(0.05)
-    try:
-        yield f"http://127.0.0.1:{port}"
-    finally:
-        server.should_exit = True
-        thread.join(timeout=15)
-        sock.close()
 
 
 def _shown(v: float) -> str:

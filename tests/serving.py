@@ -1,0 +1,36 @@
+"""The real app served by uvicorn on loopback, for tests that need HTTP."""
+
+from __future__ import annotations
+
+import socket
+import threading
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+
+import uvicorn
+from fastapi import FastAPI
+
+
+@contextmanager
+def serve(app: FastAPI) -> Iterator[str]:
+    """The app on a free port of 127.0.0.1, in a background thread; stops on exit."""
+    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+    sock.bind(("127.0.0.1", 0))
+    port = sock.getsockname()[1]
+    server = uvicorn.Server(uvicorn.Config(app, log_level="warning", lifespan="on"))
+    thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
+    thread.start()
+    deadline = time.monotonic() + 60
+    while not server.started:
+        if not thread.is_alive() or time.monotonic() > deadline:
+            raise RuntimeError("uvicorn did not start")
+        time.sleep(0.05)
+    try:
+        yield f"http://127.0.0.1:{port}"
+    finally:
+        server.should_exit = True
+        thread.join(timeout=30)
+        sock.close()
+        if thread.is_alive():
+            raise RuntimeError("uvicorn did not stop")
