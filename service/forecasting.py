@@ -273,7 +273,7 @@ class Forecaster:
         from .review import near_repeats_many  # imported here: service.review imports this module
 
         repeats = near_repeats_many(self.ws, view, [(d.account, v, p) for d, v, p in zip(
-            drafts, vecs, plans, strict=True)], now=now)
+            drafts, vecs, plans, strict=True)], now=now, wide=wide)
         out = []
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = rows[i]

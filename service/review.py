@@ -111,7 +111,9 @@ def near_repeats(ws: Workspace, view: HistoryView, *, account: str, vector: np.n
 
 def near_repeats_many(ws: Workspace, view: HistoryView,
                       items: Sequence[tuple[str, np.ndarray, datetime]], *, now: datetime,
-                      k: int = 3) -> list[list[Repeat]]:
+                      k: int = 3,
+                      wide: dict[bytes, tuple[np.ndarray, np.ndarray]] | None = None,
+                      ) -> list[list[Repeat]]:
     """``near_repeats`` of each (account, vector, planned time), own account's
     repeats first, at most ``k`` of each scope, most similar first.
 
@@ -134,7 +136,8 @@ def near_repeats_many(ws: Workspace, view: HistoryView,
         for scope, span in spans:
             who = (h.account == code) if scope == "own" else (h.account != code)
             union = who & (h.time < times.max()) & (h.time >= times.min() - span)
-            hits = _above(ws, view, vec, union, s.repeat_similarity)
+            hits = _above(ws, view, vec, union, s.repeat_similarity,
+                          (wide or {}).get(vec.tobytes()))
             for i, t in zip(idx, times, strict=True):
                 mine = [(r, sim) for r, sim in hits if t - span <= h.time[r] < t][:k]
                 out[i].extend(_repeat(view, scope, r, sim, t=t, now=now,
@@ -143,12 +146,24 @@ def near_repeats_many(ws: Workspace, view: HistoryView,
 
 
 def _above(ws: Workspace, view: HistoryView, vec: np.ndarray, mask: np.ndarray,
-           threshold: float) -> list[tuple[int, float]]:
+           threshold: float, nearest: tuple[np.ndarray, np.ndarray] | None = None,
+           ) -> list[tuple[int, float]]:
     """(History row, similarity) of every post in ``mask`` at or above
-    ``threshold``, best first."""
+    ``threshold``, best first.
+
+    ``nearest`` is the draft's unfiltered nearest list (History rows and
+    similarities, best first) when the forecast already searched: if it
+    reaches below the threshold it holds every post above it, and no second
+    pass over the index is needed.
+    """
     rows = np.flatnonzero(mask)
     if len(rows) == 0:
         return []
+    if nearest is not None and len(nearest[1]) and (
+            nearest[1][-1] < threshold or len(nearest[1]) >= len(view.history)):
+        near_rows, near_sims = nearest
+        keep = mask[near_rows] & (near_sims >= threshold)
+        return [(int(r), float(x)) for r, x in zip(near_rows[keep], near_sims[keep], strict=True)]
     pks = view.history.pk[rows]
     k = min(len(pks), 16)
     hits: list[tuple[int, float]] = []

@@ -216,10 +216,12 @@ class Store:
     def stamp(self) -> tuple[int, int, str]:
         """A cheap token that changes whenever posts are added, changed or
         deleted, by this process or another one."""
+        # Three queries, so SQLite answers each from an index (a combined
+        # one scans every row, text and all: 30 ms at 100,000 posts).
         with self.session() as s:
-            n, top, last = s.execute(
-                select(func.count(Post.id), func.max(Post.id), func.max(Post.updated_at))
-            ).one()
+            n = s.scalar(select(func.count()).select_from(Post))
+            top = s.scalar(select(func.max(Post.id)))
+            last = s.scalar(select(func.max(Post.updated_at)))
         return int(n or 0), int(top or 0), str(last)
 
     # Import ---------------------------------------------------------------
