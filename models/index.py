@@ -130,6 +130,15 @@ class VectorIndex:
         tmpc.write_text(json.dumps(cfg, indent=2))
         os.replace(tmpc, d / CONFIG_FILE)
 
+    @staticmethod
+    def saved_config(directory: str | Path) -> dict | None:
+        """The config of the index saved in ``directory`` (count, fingerprint),
+        read without loading the index itself; None when there is none."""
+        try:
+            return json.loads((Path(directory) / CONFIG_FILE).read_text())
+        except (FileNotFoundError, json.JSONDecodeError):
+            return None
+
     @classmethod
     def load(cls, directory: str | Path) -> VectorIndex:
         d = Path(directory)

@@ -9,6 +9,7 @@ on first use, and are shared by every request.
 from __future__ import annotations
 
 import threading
+from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from pathlib import Path
@@ -132,13 +133,13 @@ class Workspace:
 
     def index_state(self) -> dict[str, Any]:
         """What the health endpoint reports: on disk, in step with the store?"""
-        fp = self.store.fingerprint()
-        try:
-            on_disk = VectorIndex.load(self.settings.index_dir)
-        except StoreError:
+        # Only the saved config is read: loading the index itself on every
+        # health check would read every vector from disk.
+        cfg = VectorIndex.saved_config(self.settings.index_dir)
+        if cfg is None or not (self.settings.index_dir / "index.faiss").is_file():
             return {"state": "missing", "count": 0}
-        state = "ready" if on_disk.fingerprint_ == fp else "stale"
-        return {"state": state, "count": on_disk.ntotal}
+        ready = cfg.get("fingerprint") == self.store.fingerprint()
+        return {"state": "ready" if ready else "stale", "count": int(cfg.get("count", 0))}
 
     def reindex(self) -> VectorIndex:
         """Rebuild the index from the vectors in the store."""
@@ -147,7 +148,7 @@ class Workspace:
             self._index, self._index_stamp = index, self.store.stamp()
             return index
 
-    def _sync_index(self, changed_pks: list[int], removed_pks: list[int] = ()) -> None:  # type: ignore[assignment]
+    def _sync_index(self, changed_pks: Sequence[int], removed_pks: Sequence[int] = ()) -> None:
         """Bring the index up to date after this process changed posts."""
         with self._lock:
             if self._index is None:

@@ -12,9 +12,9 @@ from fastapi import FastAPI
 
 from .. import __version__
 from ..settings import Settings, get_settings
+from ..forecasting import CAUTION
 from ..workspace import Workspace
 from . import errors
-from .schemas import CAUTION
 
 STATIC = Path(__file__).resolve().parent.parent / "static"
 

@@ -10,11 +10,6 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-CAUTION = (
-    "Forecasts are estimates from this team's own history, given as intervals "
-    "with their backtested coverage; they are not certainties."
-)
-
 
 class Strict(BaseModel):
     model_config = ConfigDict(extra="forbid")
