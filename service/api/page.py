@@ -15,7 +15,7 @@ from fastapi.staticfiles import StaticFiles
 STATIC = Path(__file__).resolve().parent.parent / "static"
 
 # Only this origin: no CDN, no fonts or scripts from the internet, no inline code.
-CSP = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data:; "
+CSP = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data: blob:; "
        "connect-src 'self'; base-uri 'none'; form-action 'self'; frame-ancestors 'none'")
 
 

@@ -2,22 +2,10 @@
 "use strict";
 
 (() => {
-  const $ = (id) => document.getElementById(id);
-  const SVG = "http://www.w3.org/2000/svg";
+  const S = window.Sounding;
+  const { $, fmt, metricLabel, node, svg, api, ApiError, niceTicks } = S;
   const zones = {};
   let busy = false;
-
-  // ---------------------------------------------------------------- helpers
-
-  function fmt(v, metric) {
-    if (v === null || v === undefined) return "–";
-    if (metric === "engagement_rate") return (v * 100).toFixed(2) + "%";
-    return Math.round(v).toLocaleString("en-GB");
-  }
-
-  function metricLabel(metric) {
-    return metric.replace(/_/g, " ");
-  }
 
   function valueOf(metrics, metric) {
     if (metric === "engagement_rate") {
@@ -28,62 +16,11 @@
     return v === undefined ? null : v;
   }
 
-  function node(tag, attrs, text) {
-    const e = document.createElement(tag);
-    for (const [k, v] of Object.entries(attrs || {})) e.setAttribute(k, v);
-    if (text !== undefined) e.textContent = text;
-    return e;
-  }
-
-  function svg(tag, attrs, text) {
-    const e = document.createElementNS(SVG, tag);
-    for (const [k, v] of Object.entries(attrs || {})) e.setAttribute(k, String(v));
-    if (text !== undefined) e.textContent = text;
-    return e;
-  }
-
-  class ApiError extends Error {}
-
-  async function api(path, body) {
-    let resp;
-    try {
-      resp = await fetch(path, body === undefined ? {} : {
-        method: "POST",
-        headers: { "Content-Type": "application/json", "Accept": "application/json" },
-        body: JSON.stringify(body),
-      });
-    } catch (e) {
-      throw new ApiError("The sounding service cannot be reached. Is it still running?");
-    }
-    let data = null;
-    try { data = await resp.json(); } catch (e) { data = null; }
-    if (!resp.ok) {
-      const err = data && data.error;
-      const msg = err && err.message ? err.message : `The service answered ${resp.status}.`;
-      const where = err && err.where ? ` (${err.where})` : "";
-      throw new ApiError(msg + where);
-    }
-    return data;
-  }
-
-  function showError(message) {
-    $("error-message").textContent = message;
-    $("error").hidden = false;
-  }
-
-  function clearError() {
-    $("error").hidden = true;
-    $("error-message").textContent = "";
-  }
+  const errorBox = () => $("error");
+  const showError = (message) => S.showError(errorBox(), message);
+  const clearError = () => S.clearError(errorBox());
 
   // ---------------------------------------------------------------- setup
-
-  function tomorrowNoon() {
-    const d = new Date();
-    d.setDate(d.getDate() + 1);
-    const p = (n) => String(n).padStart(2, "0");
-    return `${d.getFullYear()}-${p(d.getMonth() + 1)}-${p(d.getDate())}T12:00`;
-  }
 
   function showZone() {
     const tz = zones[$("account").value];
@@ -95,13 +32,8 @@
   async function loadAccounts() {
     const sel = $("account");
     try {
-      const accounts = await api("/v1/accounts");
-      sel.replaceChildren();
-      for (const a of accounts) {
-        zones[a.handle] = a.timezone;
-        const label = a.display_name ? `${a.handle} · ${a.display_name}` : a.handle;
-        sel.append(node("option", { value: a.handle }, label));
-      }
+      const accounts = await S.fillAccounts(sel);
+      for (const a of accounts) zones[a.handle] = a.timezone;
       $("account-help").textContent = accounts.length
         ? `${accounts.length} accounts in this store.`
         : "No accounts yet: import some history first.";
@@ -168,16 +100,6 @@
     if (text.startsWith(g.group + ": ")) text = text.slice(g.group.length + 2);
     const m = text.match(/^x\d+\.\d+ \([^)]*\), (.+)$/);
     return m ? m[1] : text;
-  }
-
-  function niceTicks(lo, hi, count) {
-    const span = hi - lo || Math.abs(hi) || 1;
-    const raw = span / count;
-    const mag = Math.pow(10, Math.floor(Math.log10(raw)));
-    const step = [1, 2, 5, 10].map((m) => m * mag).find((s) => span / s <= count) || 10 * mag;
-    const out = [];
-    for (let t = Math.ceil(lo / step) * step; t <= hi + 1e-9; t += step) out.push(t);
-    return out;
   }
 
   function drawScatter(f) {
@@ -311,7 +233,7 @@
       account: $("account").value,
       metric: $("metric").value,
     };
-    if (planned) body.planned_at = planned.length === 16 ? planned + ":00" : planned;
+    if (planned) body.planned_at = S.plannedValue(planned);
     try {
       const f = await api("/v1/forecasts", body);
       renderForecast(f);
@@ -340,7 +262,7 @@
   }
 
   document.addEventListener("DOMContentLoaded", () => {
-    $("planned").value = tomorrowNoon();
+    $("planned").value = S.tomorrowNoon();
     $("account").addEventListener("change", showZone);
     $("draft-form").addEventListener("submit", check);
     $("text").addEventListener("keydown", (e) => {

@@ -1,0 +1,97 @@
+// sounding page, "Segments" panel: a metric split by topics named in plain words, or by timing
+// and form, with the statistics and the figure the API gives.
+"use strict";
+
+(() => {
+  const S = window.Sounding;
+  const $ = S.$;
+  let busy = false;
+  let plotUrl = null;
+
+  function pText(p) {
+    if (p === null || p === undefined) return "–";
+    return p < 0.001 ? "< 0.001" : p.toFixed(3);
+  }
+
+  function renderSplit(split, metric) {
+    const box = S.node("section", { class: "card seg-split" });
+    box.append(S.node("h3", {}, split.title));
+    const table = S.node("table", { class: "contrib seg-table" });
+    const head = S.node("tr");
+    for (const h of ["Segment", "Posts", "Median", "95% interval of the median", "Effect r", "Holm p", "Reading"]) {
+      head.append(S.node("th", { scope: "col" }, h));
+    }
+    table.append(S.node("thead")).append(head);
+    const body = table.appendChild(S.node("tbody"));
+    for (const s of split.segments) {
+      const tr = S.node("tr", s.too_small ? { class: "seg-small" } : {});
+      tr.append(S.node("th", { scope: "row" }, s.name));
+      tr.append(S.node("td", { class: "num" }, String(s.n)));
+      tr.append(S.node("td", { class: "num" }, S.fmt(s.median, metric)));
+      tr.append(S.node("td", { class: "num" }, s.ci_low === null ? "–"
+        : `${S.fmt(s.ci_low, metric)} – ${S.fmt(s.ci_high, metric)}`));
+      tr.append(S.node("td", { class: "num" }, s.rank_biserial === null ? "–"
+        : (s.rank_biserial > 0 ? "+" : "") + s.rank_biserial.toFixed(2)));
+      tr.append(S.node("td", { class: "num" }, pText(s.p_holm)));
+      tr.append(S.node("td", {}, s.summary));
+      body.append(tr);
+    }
+    box.append(table);
+    if (split.kruskal_h !== null) {
+      box.append(S.node("p", { class: "summary" },
+        `Across all segments (Kruskal–Wallis): H = ${split.kruskal_h.toFixed(1)}, p ${pText(split.kruskal_p)}.`));
+    }
+    return box;
+  }
+
+  async function drawPlot(body, splitName) {
+    const blob = await S.apiBlob("/v1/segments", { ...body, format: "svg", plot: splitName });
+    if (plotUrl) URL.revokeObjectURL(plotUrl);
+    plotUrl = URL.createObjectURL(blob);
+    const img = $("s-plot");
+    img.src = plotUrl;
+    img.alt = `Distribution of ${S.metricLabel(body.metric)} in each segment, with medians and their intervals`;
+    img.hidden = false;
+  }
+
+  async function run(ev) {
+    ev.preventDefault();
+    if (busy) return;
+    const err = $("s-error");
+    S.clearError(err);
+    const topics = $("s-topics").value.split("\n").map((t) => t.trim()).filter(Boolean);
+    const by = $("s-by").value || null;
+    if (!topics.length && !by) {
+      S.showError(err, "Name at least one topic, or choose a split.");
+      return;
+    }
+    const body = { topics, by, metric: $("s-metric").value };
+    if ($("s-account").value) body.account = $("s-account").value;
+    busy = true;
+    $("s-submit").textContent = "Working…";
+    $("segments-panel").setAttribute("aria-busy", "true");
+    try {
+      const r = await S.api("/v1/segments", body);
+      const out = $("s-splits");
+      out.replaceChildren(...r.splits.map((sp) => renderSplit(sp, r.metric)));
+      const notes = r.warnings.concat([r.note]).filter(Boolean);
+      $("s-notes").replaceChildren(...notes.map((n) => S.node("li", {}, n)));
+      $("s-output").hidden = false;
+      $("s-plot").hidden = true;
+      if (r.splits.length) await drawPlot(body, r.splits[0].by === "topic" ? "topic" : r.splits[0].by);
+    } catch (e) {
+      $("s-output").hidden = true;
+      S.showError(err, e.message);
+    } finally {
+      busy = false;
+      $("s-submit").textContent = "Split the metric";
+      $("segments-panel").setAttribute("aria-busy", "false");
+    }
+  }
+
+  document.addEventListener("DOMContentLoaded", () => {
+    $("s-form").addEventListener("submit", run);
+    S.fillAccounts($("s-account"), { anyLabel: "every account" })
+      .catch((e) => S.showError($("s-error"), e.message));
+  });
+})();
