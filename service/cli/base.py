@@ -40,20 +40,60 @@ app = typer.Typer(
     cls=_Group,
     name="sounding",
     help="A sounding board for social-media drafts, from your team's own post history.",
-    no_args_is_help=True,
+    invoke_without_command=True,
     add_completion=False,
     pretty_exceptions_show_locals=False,
+    # Plain help: the rich renderer shows every flag as taking a value ("--json <bool>").
+    rich_markup_mode=None,
 )
+
+# What `sounding` alone prints: the way in, then the commands grouped by purpose.
+# tests/test_cli.py checks that every registered command appears here exactly once.
+GETTING_STARTED = """\
+sounding: a sounding board for social-media drafts, from your team's own post history.
+
+Getting started (the data directory is --home, $SOUNDING_HOME or ./.sounding):
+  1. sounding import posts.csv        your history (see the README for the CSV columns)
+  2. sounding train                   a forecast model and its backtest
+  3. sounding check "a draft" --account HANDLE
+  Or try it all on invented data first: sounding demo
+
+Commands by purpose:
+{groups}
+Every command has --help."""
+
+PURPOSES: dict[str, list[str]] = {
+    "Your history": ["account", "accounts", "import", "mapping", "reindex"],
+    "Before you publish": ["precedents", "check", "hours", "compare"],
+    "What worked, and how good the forecasts are": ["segments", "train", "backtest",
+                                                     "track-record"],
+    "Keeping things": ["forget", "backup", "serve", "demo", "model"],
+}
+
+
+def getting_started(registered: list[str]) -> str:
+    """The getting-started text, listing only commands that exist."""
+    lines = []
+    for purpose, names in PURPOSES.items():
+        present = [n for n in names if n in registered]
+        if present:
+            lines.append(f"  {purpose + ':':<46} {', '.join(present)}")
+    return GETTING_STARTED.format(groups="\n".join(lines) + "\n")
 
 
 @app.callback()
 def _root(
+    ctx: typer.Context,
     home: Path | None = typer.Option(
         None, "--home", help="Data directory (default: $SOUNDING_HOME or ./.sounding)."
     ),
 ) -> None:
     if home is not None:
         os.environ["SOUNDING_HOME"] = str(home)
+    if ctx.invoked_subcommand is None:
+        # typer runs its own copy of click, so the group is not a click.Group.
+        names = sorted(ctx.command.list_commands(ctx))  # type: ignore[attr-defined]
+        out.print(getting_started(names), markup=False, highlight=False)
 
 
 _workspace: Workspace | None = None
