@@ -140,7 +140,7 @@ def _ecdf_panel(
         )
     _log_axis(ax)
     ax.set_ylim(0, 1.02)
-    ax.set_ylabel("share of posts at or below")
+    ax.set_ylabel("fraction of posts at or below")
     ax.set_xlabel(f"{metric} (log scale; values below {_plain_number(floor)} drawn at "
                   f"{_plain_number(floor)})")
     ax.set_title("How each segment is spread", loc="left")

@@ -191,7 +191,7 @@
     s.forEach((d, i) => {
       if (best.has(d.planned_at)) {
         const c = svg("circle", { cx: sx(i), cy: sy(d.median), r: 4, class: "best" });
-        c.append(svg("title", {}, `${d.local_hour} (UTC${d.utc_offset}): middle ${fmt(d.median, h.metric)}`));
+        c.append(svg("title", {}, `${d.local_hour} (UTC${d.utc_offset}): median ${fmt(d.median, h.metric)}`));
         chart.append(c);
       }
       const last = i === s.length - 1 && i % 3 === 2;

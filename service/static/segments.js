@@ -21,8 +21,10 @@
     for (const h of ["Segment", "Posts", "Median", "95% interval of the median", "Effect r", "Holm p", "Reading"]) {
       head.append(S.node("th", { scope: "col" }, h));
     }
-    table.append(S.node("thead")).append(head);
-    const body = table.appendChild(S.node("tbody"));
+    const thead = S.node("thead");
+    thead.append(head);
+    const body = S.node("tbody");
+    table.append(thead, body);
     for (const s of split.segments) {
       const tr = S.node("tr", s.too_small ? { class: "seg-small" } : {});
       tr.append(S.node("th", { scope: "row" }, s.name));

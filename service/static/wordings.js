@@ -46,7 +46,9 @@
       tr.append(range);
       tr.append(S.node("td", { class: "num" }, S.fmt(v.median, r.metric)));
       tr.append(S.node("td", {}, v.tied_with_best ? "yes" : "no"));
-      tr.append(S.node("td", {}, v.only_here.length ? v.only_here.join(", ") : "none"));
+      const only = v.only_here.length;
+      tr.append(S.node("td", { class: "num", title: v.only_here.join(", ") },
+        only ? `${only} of its ${v.precedents.length}` : "none"));
       body.append(tr);
     }
     $("w-output").hidden = false;
