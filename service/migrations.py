@@ -19,10 +19,9 @@ SQLAlchemy operations so it runs on SQLite and PostgreSQL alike.
 from __future__ import annotations
 
 from collections.abc import Callable
-
 from typing import Any
 
-from sqlalchemy import Connection, Engine, Table, inspect, insert, select, update
+from sqlalchemy import Connection, Engine, Table, insert, inspect, select, update
 from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.exc import IntegrityError, OperationalError, ProgrammingError
 
@@ -123,5 +122,5 @@ def insert_missing(conn: Connection, table: Table, values: dict[str, Any]) -> No
     elif name == "sqlite":
         conn.execute(sqlite.insert(table).values(**values).on_conflict_do_nothing())
     elif conn.execute(select(table).filter_by(**{k: values[k] for k in
-                                                 table.primary_key.columns.keys()})).first() is None:
+                                                 table.primary_key.columns})).first() is None:
         conn.execute(insert(table).values(**values))

@@ -12,9 +12,15 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from pgsupport import (
+    HOMES,
+    copy_home_to_postgres,
+    every_home_on_postgres,
+    needs_postgres,
+    release,
+)
 
 from models.embedding import Embedder
-from pgsupport import HOMES, copy_home_to_postgres, every_home_on_postgres, needs_postgres, release
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -29,7 +35,7 @@ def on_postgres() -> Iterator[None]:
 
 
 @pytest.fixture(scope="module")
-def demo_home(demo_home: Path,  # noqa: F811 - conftest's SQLite demo, copied
+def demo_home(demo_home: Path,
               tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
     home = tmp_path_factory.mktemp("pgdemo") / "home"
     copy_home_to_postgres(demo_home, home)

@@ -14,11 +14,17 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
+from pgsupport import (
+    copy_home_to_postgres,
+    create_database,
+    drop_database,
+    needs_postgres,
+    release,
+)
 from sqlalchemy import create_engine, text
 from typer.testing import CliRunner
 
 from models.embedding import Embedder
-from pgsupport import copy_home_to_postgres, create_database, drop_database, needs_postgres, release
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.forecasting import Draft
@@ -67,8 +73,8 @@ def write_csv(path: Path, n: int, *, prefix: str = "pg") -> Path:
         w.writerow(["post_id", "account", "text", "posted_at", "impressions"])
         for i in range(n):
             w.writerow([f"{prefix}-{i}", ("loomhaven", "loomhaven_lab")[i % 2],
-                        f"Glasshouse note {i}: the {('orchids', 'ferns', 'cacti')[i % 3]} "
-                        f"are {('flowering', 'repotted', 'watered')[i % 3]} ({prefix}).",
+                        (f"Glasshouse note {i}: the {('orchids', 'ferns', 'cacti')[i % 3]} "
+                        f"are {('flowering', 'repotted', 'watered')[i % 3]} ({prefix})."),
                         (t0 + timedelta(hours=7 * i)).isoformat(), 300 + 11 * i])
     return path
 

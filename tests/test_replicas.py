@@ -21,7 +21,6 @@ from pathlib import Path
 
 import httpx
 import pytest
-
 from pgsupport import HOMES, copy_home_to_postgres, needs_postgres, release
 
 pytestmark = [needs_postgres, pytest.mark.slow]
