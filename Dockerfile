@@ -31,11 +31,12 @@ COPY demo_data ./demo_data
 # A plain `pip install .`: torch is pinned in pyproject.toml (torch==2.13.0) so
 # pip takes the CPU build; no package index or other host is named here, pip
 # uses whatever index the build environment is configured with.
-RUN pip install .
+# [postgres]: the driver for a shared PostgreSQL store (docker-compose.yml's shared profile).
+RUN pip install '.[postgres]'
 
 # Run as an unprivileged user that owns the data volume.
 RUN useradd --system --uid 10001 --home-dir /data --shell /usr/sbin/nologin sounding \
-    && mkdir -p /data && chown sounding /data
+    && mkdir -p /data /forecasters && chown sounding /data /forecasters
 USER sounding
 VOLUME ["/data"]
 EXPOSE 8000

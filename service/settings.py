@@ -24,6 +24,18 @@ class Settings(BaseSettings):
         default=None,
         description="SQLAlchemy URL; default is a SQLite file in the data directory.",
     )
+    # Shared store: service replicas on one PostgreSQL database each keep
+    # their own data directory (index, uploads) and share trained models.
+    forecasters_dir: Path | None = Field(
+        default=None,
+        description="Directory of trained forecast models; default is forecasters/ in the "
+        "data directory. Point every replica of a shared store at one directory.",
+    )
+    refresh_seconds: float = Field(
+        default=5.0, ge=0,
+        description="How often the service checks the store's change stamp and refreshes "
+        "its index in the background (0: only when a request comes).",
+    )
     token: SecretStr | None = Field(
         default=None, description="Bearer token required for changes over HTTP."
     )
@@ -79,6 +91,8 @@ class Settings(BaseSettings):
 
     @property
     def models_dir(self) -> Path:
+        if self.forecasters_dir is not None:
+            return self.forecasters_dir.expanduser().resolve()
         return self.resolved_home / "forecasters"
 
     @property

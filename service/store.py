@@ -19,16 +19,17 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-from sqlalchemy import create_engine, delete, event, func, select
-from sqlalchemy.engine import Engine
+from sqlalchemy import create_engine, delete, event, func, select, update
+from sqlalchemy.engine import Engine, make_url
 from sqlalchemy.exc import OperationalError, SQLAlchemyError
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm import ORMExecuteState, Session, sessionmaker
 
 from models.errors import InputError, NotFound, StoreError
 from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
 
-from .tables import Account, Base, Post, Snapshot, Vector
+from .migrations import upgrade
+from .tables import Account, ChangeStamp, Post, Snapshot, Vector
 from .timeparse import as_utc, now_utc, to_naive_utc, zone
 
 _LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
@@ -79,11 +80,33 @@ def _sqlite_pragmas(dbapi_conn: Any, _record: Any) -> None:
         cur.close()
 
 
+def _note_write(state: ORMExecuteState) -> None:
+    # INSERT/UPDATE/DELETE statements run through a session (Core or ORM).
+    if state.is_insert or state.is_update or state.is_delete:
+        state.session.info["wrote"] = True
+
+
+def _note_flush(session: Session, _ctx: Any, _instances: Any) -> None:
+    # Objects added, changed or deleted through the ORM.
+    if session.new or session.dirty or session.deleted:
+        session.info["wrote"] = True
+
+
 class Store:
-    """Access to one store, addressed by a SQLAlchemy URL."""
+    """Access to one store, addressed by a SQLAlchemy URL (SQLite or
+    PostgreSQL).
+
+    Every write goes through ``session()``: a transaction that wrote
+    anything also bumps the store's change stamp before it commits, so
+    other processes sharing the store (service replicas, the CLI) see one
+    cheap number move (``stamp()``).
+    """
 
     def __init__(self, *, url: str) -> None:
         self.url = url
+        # Write transactions this object committed: with stamp(), it tells
+        # a process whether changes came only from itself.
+        self.own_writes = 0
         if url.startswith("sqlite:///"):
             Path(url.removeprefix("sqlite:///")).parent.mkdir(parents=True, exist_ok=True)
         try:
@@ -92,13 +115,30 @@ class Store:
                 connect_args={"check_same_thread": False, "timeout": 30}
                 if url.startswith("sqlite")
                 else {},
+                # A shared server may restart or drop idle connections.
+                pool_pre_ping=not url.startswith("sqlite"),
             )
             if url.startswith("sqlite"):
                 event.listen(self.engine, "connect", _sqlite_pragmas)
-            Base.metadata.create_all(self.engine)
+            upgrade(self.engine, url=self.safe_url)
         except SQLAlchemyError as exc:
-            raise StoreError(f"cannot open the store at {url}: {exc}") from None
+            raise StoreError(f"cannot open the store at {self.safe_url}: {exc}") from None
         self._sessions = sessionmaker(self.engine, expire_on_commit=False)
+        event.listen(self._sessions, "do_orm_execute", _note_write)
+        event.listen(self._sessions, "before_flush", _note_flush)
+
+    @property
+    def safe_url(self) -> str:
+        """The URL with any password hidden, for messages."""
+        try:
+            return make_url(self.url).render_as_string(hide_password=True)
+        except SQLAlchemyError:
+            return "the configured database"
+
+    @property
+    def backend(self) -> str:
+        """'sqlite' or 'postgresql'."""
+        return self.engine.dialect.name
 
     @contextmanager
     def session(self) -> Iterator[Session]:
@@ -106,7 +146,14 @@ class Store:
         s = self._sessions()
         try:
             yield s
+            s.flush()
+            wrote = bool(s.info.get("wrote"))
+            if wrote:
+                s.execute(update(ChangeStamp).where(ChangeStamp.id == 1)
+                          .values(counter=ChangeStamp.counter + 1))
             s.commit()
+            if wrote:
+                self.own_writes += 1
         except OperationalError as exc:
             s.rollback()
             raise StoreError(f"the store is unavailable: {exc.orig}") from None
@@ -213,16 +260,13 @@ class Store:
     def fingerprint(self) -> str:
         return fingerprint(self.index_pairs())
 
-    def stamp(self) -> tuple[int, int, str]:
-        """A cheap token that changes whenever posts are added, changed or
-        deleted, by this process or another one."""
-        # Three queries, so SQLite answers each from an index (a combined
-        # one scans every row, text and all: 30 ms at 100,000 posts).
-        with self.session() as s:
-            n = s.scalar(select(func.count()).select_from(Post))
-            top = s.scalar(select(func.max(Post.id)))
-            last = s.scalar(select(func.max(Post.updated_at)))
-        return int(n or 0), int(top or 0), str(last)
+    def stamp(self) -> int:
+        """The store's change counter: it moves with every committed write
+        (import batches, snapshots, forget, account changes), by this
+        process or another one. One one-row read."""
+        with self.engine.connect() as conn:
+            n = conn.scalar(select(ChangeStamp.counter).where(ChangeStamp.id == 1))
+        return int(n or 0)
 
     # Import ---------------------------------------------------------------
 
@@ -451,7 +495,16 @@ class Store:
 
     def backup(self, dest: str | Path) -> Path:
         """A consistent copy of a SQLite store while others use it
-        (SQLite's online backup API)."""
+        (SQLite's online backup API). A PostgreSQL store is backed up with
+        PostgreSQL's own tools; the error says how."""
+        if self.backend == "postgresql":
+            u = make_url(self.url)
+            raise StoreError(
+                f"this store is the PostgreSQL database {u.database!r} on {u.host or 'localhost'}; "
+                "`sounding backup` copies SQLite files only",
+                hint=f"back it up with pg_dump -Fc -f sounding.dump {pg_dump_target(self.url)} "
+                "(restore into an empty database with pg_restore -d URL sounding.dump)",
+            )
         if not self.url.startswith("sqlite:///"):
             raise StoreError("backup is available for SQLite stores only")
         dest = Path(dest)
@@ -469,6 +522,13 @@ class Store:
             dst.close()
             src.close()
         return dest
+
+
+def pg_dump_target(url: str) -> str:
+    """A libpq connection URL for pg_dump from a SQLAlchemy one (driver
+    name dropped, password hidden)."""
+    u = make_url(url).set(drivername="postgresql")
+    return u.render_as_string(hide_password=True)
 
 
 def _check_handle(handle: str) -> str:

@@ -10,6 +10,7 @@ from __future__ import annotations
 from datetime import datetime
 
 from sqlalchemy import (
+    BigInteger,
     Boolean,
     DateTime,
     ForeignKey,
@@ -105,3 +106,23 @@ class Vector(Base):
     model_id: Mapped[str] = mapped_column(String(200), nullable=False)
     dim: Mapped[int] = mapped_column(Integer, nullable=False)
     data: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)
+
+
+class SchemaVersion(Base):
+    """The store's schema version (one row); see ``service.migrations``."""
+
+    __tablename__ = "schema_version"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=False)
+    version: Mapped[int] = mapped_column(Integer, nullable=False)
+    migrated_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+
+
+class ChangeStamp(Base):
+    """A counter bumped by every write transaction (one row): the cheap way
+    for any process sharing the store to tell that something changed."""
+
+    __tablename__ = "store_stamp"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=False)
+    counter: Mapped[int] = mapped_column(BigInteger, nullable=False, default=0)

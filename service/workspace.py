@@ -84,7 +84,8 @@ class Workspace:
             model_path=settings.embed_model_path, batch_size=settings.embed_batch_size
         )
         self._index: VectorIndex | None = None
-        self._index_stamp: tuple[int, int, str] | None = None
+        self._index_stamp: int | None = None
+        self._index_own = 0  # store.own_writes when the index was last in step
         self._lock = threading.RLock()
         self._forecaster: Any = None
 
@@ -123,6 +124,7 @@ class Workspace:
             if index is None or index.fingerprint_ != fp:
                 index = self._rebuild()
             self._index, self._index_stamp = index, stamp
+            self._index_own = self.store.own_writes
             return index
 
     def _rebuild(self) -> VectorIndex:
@@ -146,6 +148,7 @@ class Workspace:
         with self._lock:
             index = self._rebuild()
             self._index, self._index_stamp = index, self.store.stamp()
+            self._index_own = self.store.own_writes
             return index
 
     def _sync_index(self, changed_pks: Sequence[int], removed_pks: Sequence[int] = ()) -> None:
@@ -156,6 +159,14 @@ class Workspace:
                 return
             pairs = dict(self.store.index_pairs())
             fp = self.store.fingerprint()
+            # Read after the pairs: if another process (a replica, the CLI)
+            # wrote since the index was in step, its changes are in the pairs
+            # but not in changed_pks, so rebuild instead.
+            stamp = self.store.stamp()
+            own = self.store.own_writes
+            if self._index_stamp is None or stamp - self._index_stamp != own - self._index_own:
+                self._index, self._index_stamp, self._index_own = self._rebuild(), stamp, own
+                return
             if removed_pks:
                 self._index.remove(np.array(removed_pks, dtype=np.int64), fingerprint=fp)
             pks = [p for p in dict.fromkeys(changed_pks) if p in pairs]
@@ -164,7 +175,7 @@ class Workspace:
                 self._index.upsert(np.array(pks, dtype=np.int64), vecs, fingerprint=fp)
             self._index.fingerprint_ = fp
             self._index.save(self.settings.index_dir)
-            self._index_stamp = self.store.stamp()
+            self._index_stamp, self._index_own = stamp, own
 
     # Import -----------------------------------------------------------------
 

@@ -12,6 +12,7 @@ import pytest
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
 
 from models.embedding import Embedder  # noqa: E402
+from pgsupport import SERVER, create_database, drop_database  # noqa: E402
 from service.settings import Settings  # noqa: E402
 from service.workspace import Workspace  # noqa: E402
 
@@ -94,3 +95,18 @@ def demo_copy(demo_home: Path, tmp_path: Path, embedder: Embedder) -> Iterator[W
 def artifacts() -> Path:
     ARTIFACTS.mkdir(exist_ok=True)
     return ARTIFACTS
+
+
+@pytest.fixture(params=["sqlite", pytest.param("postgresql", marks=pytest.mark.postgres)])
+def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[str]:
+    """An empty store's URL on each backend: a SQLite file, and a new
+    PostgreSQL database when SOUNDING_TEST_POSTGRES_URL names a server
+    (skipped otherwise)."""
+    if request.param == "sqlite":
+        yield f"sqlite:///{tmp_path / 'store.db'}"
+        return
+    if not SERVER:
+        pytest.skip("SOUNDING_TEST_POSTGRES_URL is not set (start a server with .ci/start-postgres)")
+    url = create_database()
+    yield url
+    drop_database(url)

@@ -213,9 +213,17 @@ def test_stamp_moves_with_every_change(workspace: Workspace, tmp_path: Path) -> 
     s2 = workspace.store.stamp()
     workspace.forget(post_id="p1")
     s3 = workspace.store.stamp()
-    # Each change moves the stamp (an emptied store may come back to the empty stamp).
-    assert s0 != s1 != s2 != s3
-    assert s3 == (0, 0, "None")
+    # The stamp is a counter of write transactions: it only grows, even when
+    # a forget empties the store again.
+    assert s0 < s1 < s2 < s3
+    workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,One,2026-01-01T10:00Z,2,1,\n"))
+    s4 = workspace.store.stamp()
+    # Re-importing the same file writes nothing, so the stamp stays; reads never move it.
+    workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,One,2026-01-01T10:00Z,2,1,\n"))
+    workspace.store.posts_frame()
+    assert workspace.store.stamp() == s4 > s3
+    workspace.store.set_account("g", timezone="Europe/Paris")
+    assert workspace.store.stamp() > s4
 
 
 # Accounts ---------------------------------------------------------------------------

@@ -13,6 +13,7 @@ from fastapi import FastAPI
 from .. import __version__
 from ..settings import Settings, get_settings
 from ..forecasting import CAUTION
+from ..refresher import refreshing
 from ..workspace import Workspace
 from . import errors
 
@@ -32,7 +33,9 @@ def create_app(*, workspace: Workspace | None = None, settings: Settings | None 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:
         ws.index()  # check the index against the store once, at start
-        yield
+        # Other processes (replicas, the CLI) may write to the same store.
+        with refreshing(ws, every=ws.settings.refresh_seconds):
+            yield
 
     app = FastAPI(
         title="sounding",

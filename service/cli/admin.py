@@ -1,4 +1,4 @@
-"""Commands that look after the store itself: forget and backup."""
+"""Commands that look after the store itself: forget, backup and copy-to."""
 
 from __future__ import annotations
 
@@ -9,6 +9,8 @@ import typer
 
 from models.errors import InputError, StoreError
 
+from ..store import Store
+from ..storecopy import copy_store
 from .base import app, out, workspace
 
 
@@ -39,7 +41,10 @@ def forget_cmd(
 def backup_cmd(
     dest: Path = typer.Argument(..., help="New file for the copy (or an existing directory)."),
 ) -> None:
-    """Copy the store to DEST while the service may keep running (SQLite online backup)."""
+    """Copy the store to DEST while the service may keep running (SQLite online backup).
+
+    A PostgreSQL store is backed up with pg_dump; the command says how.
+    """
     path = workspace().store.backup(dest)
     con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
     try:
@@ -51,3 +56,23 @@ def backup_cmd(
         raise StoreError(f"the copy at {path} failed its integrity check: {check}")
     out.print(f"backed up {posts} posts to {path} (integrity check ok)")
     out.print("to restore: stop the service, copy the file to sounding.db in a data directory")
+
+
+@app.command("copy-to")
+def copy_to_cmd(
+    url: str = typer.Argument(..., help="SQLAlchemy URL of an empty store, e.g. "
+                              "postgresql+psycopg://USER@HOST/DB."),
+) -> None:
+    """Copy every account, post, metric and vector into another, empty store.
+
+    How a team moves the history kept in a SQLite file onto a shared
+    PostgreSQL server; trained models are files: copy the forecasters directory too.
+    """
+    src = workspace().store
+    dest = Store(url=url)
+    try:
+        copied = copy_store(src, dest)
+    finally:
+        dest.close()
+    out.print(f"copied {copied['posts']} posts, {copied['snapshots']} metric snapshots and "
+              f"{copied['vectors']} vectors to {dest.safe_url}")

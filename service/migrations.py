@@ -1,0 +1,126 @@
+"""Schema versions of the store, and the steps between them.
+
+The store records its version in the one-row ``schema_version`` table; a
+store made before versions existed (accounts, posts, snapshots and vectors
+only) counts as version 0. Opening a store brings it to ``SCHEMA_VERSION``
+in one transaction:
+
+- an empty database gets every table and the current version;
+- an older store runs each step from its version up, in order;
+- a newer store (made by a later sounding) or a database holding only some
+  of sounding's tables is refused with a message saying what to do.
+
+Adding a table needs no step (``create_all`` adds missing tables on every
+open). Adding a column, an index or changing data does: bump
+``SCHEMA_VERSION`` and add the step to ``STEPS``, written with portable
+SQLAlchemy operations so it runs on SQLite and PostgreSQL alike.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+from sqlalchemy import Connection, Engine, Table, insert, inspect, select, update
+from sqlalchemy.dialects import postgresql, sqlite
+from sqlalchemy.exc import IntegrityError, OperationalError, ProgrammingError
+
+from models.errors import StoreError
+
+from .tables import Base, ChangeStamp, SchemaVersion
+from .timeparse import now_utc, to_naive_utc
+
+SCHEMA_VERSION = 1
+
+# The tables of version 0, the layout before versions: a database holding
+# all of them and no schema_version table is such a store.
+V0_TABLES = frozenset({"accounts", "posts", "snapshots", "vectors"})
+
+# Any key for PostgreSQL's advisory lock: two processes opening one new
+# database at once (replicas starting together) migrate it one at a time.
+_PG_LOCK_KEY = 0x50_756E_6469  # arbitrary, fixed
+
+
+def _v0_to_v1(conn: Connection) -> None:
+    """Version 1 adds schema_version and the change stamp (store_stamp)."""
+    Base.metadata.create_all(conn, tables=[SchemaVersion.__table__, ChangeStamp.__table__])
+
+
+# STEPS[v] takes a store from version v - 1 to version v.
+STEPS: dict[int, Callable[[Connection], None]] = {1: _v0_to_v1}
+
+
+def stored_version(conn: Connection) -> int | None:
+    """The store's schema version: None for an empty database, 0 for a
+    store from before versions."""
+    names = set(inspect(conn).get_table_names())
+    if SchemaVersion.__tablename__ in names:
+        v = conn.scalar(select(SchemaVersion.version).where(SchemaVersion.id == 1))
+        if v is not None:
+            return int(v)
+    ours = names & V0_TABLES
+    if not ours:
+        return None
+    if ours != V0_TABLES:
+        raise StoreError(
+            "the database holds some of sounding's tables but not all "
+            f"(found {', '.join(sorted(ours))}; missing {', '.join(sorted(V0_TABLES - ours))})",
+            hint="point SOUNDING_DATABASE_URL (or SOUNDING_HOME) at an empty database or at "
+            "a sounding store, or restore the store from a backup",
+        )
+    return 0
+
+
+def upgrade(engine: Engine, *, url: str = "") -> int:
+    """Bring the store to SCHEMA_VERSION; returns the version it had (None
+    counts as SCHEMA_VERSION: a new store)."""
+    where = url or str(engine.url)
+    for attempt in range(3):
+        try:
+            return _upgrade_once(engine)
+        except (IntegrityError, OperationalError, ProgrammingError) as exc:
+            # Another process created the tables between our look and our
+            # create (SQLite has no advisory lock): look again.
+            if attempt == 2:
+                raise StoreError(f"cannot prepare the store at {where}: {exc.orig}") from None
+    raise AssertionError("unreachable")
+
+
+def _upgrade_once(engine: Engine) -> int:
+    with engine.begin() as conn:
+        if conn.dialect.name == "postgresql":
+            conn.exec_driver_sql(f"SELECT pg_advisory_xact_lock({_PG_LOCK_KEY})")
+        found = stored_version(conn)
+        if found is not None and found > SCHEMA_VERSION:
+            raise StoreError(
+                f"this store has schema version {found}, newer than this sounding knows "
+                f"(up to {SCHEMA_VERSION})",
+                hint="upgrade sounding (pip install -U sounding) on every machine that uses "
+                "this store; an older sounding never writes to a newer store",
+            )
+        for v in range((found if found is not None else SCHEMA_VERSION) + 1, SCHEMA_VERSION + 1):
+            STEPS[v](conn)
+        # Tables added since (a new table needs no step) and, for a new
+        # database, every table.
+        Base.metadata.create_all(conn)
+        if found is None or found < SCHEMA_VERSION:
+            now = to_naive_utc(now_utc())
+            insert_missing(conn, SchemaVersion.__table__,
+                           {"id": 1, "version": SCHEMA_VERSION, "migrated_at": now})
+            conn.execute(update(SchemaVersion).where(SchemaVersion.id == 1)
+                         .values(version=SCHEMA_VERSION, migrated_at=now))
+        insert_missing(conn, ChangeStamp.__table__, {"id": 1, "counter": 0})
+        return SCHEMA_VERSION if found is None else found
+
+
+def insert_missing(conn: Connection, table: Table, values: dict[str, Any]) -> None:
+    """Insert a row unless one with the same key exists, on either backend
+    (each dialect's ON CONFLICT DO NOTHING; plain INSERT elsewhere)."""
+    name = conn.dialect.name
+    if name == "postgresql":
+        conn.execute(postgresql.insert(table).values(**values).on_conflict_do_nothing())
+    elif name == "sqlite":
+        conn.execute(sqlite.insert(table).values(**values).on_conflict_do_nothing())
+    elif conn.execute(select(table).filter_by(**{k: values[k] for k in
+                                                 table.primary_key.columns})).first() is None:
+        conn.execute(insert(table).values(**values))
