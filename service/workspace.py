@@ -81,7 +81,9 @@ class Workspace:
             ) from None
         self.store = Store(url=settings.db_url)
         self.embedder = embedder or Embedder(
-            model_path=settings.embed_model_path, batch_size=settings.embed_batch_size
+            model_path=settings.embed_model_path, batch_size=settings.embed_batch_size,
+            backend=settings.embed_backend, quantize=settings.embed_quantize,
+            export_dir=settings.embedding_dir, threads=settings.embed_threads,
         )
         self._index: VectorIndex | None = None
         self._index_stamp: tuple[int, int, str] | None = None
@@ -303,6 +305,7 @@ class Workspace:
             "posts": counts["posts"],
             "accounts": counts["accounts"],
             "model_id": self.embedder.model_id,
+            "embedding": self.embedder.info(),
             "index": self.index_state(),
             "forecaster": self._newest_model(),
         }
