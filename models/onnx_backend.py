@@ -16,7 +16,8 @@ never reuses an old graph. Nothing is fetched: the weights come from the
 model directory on disk.
 
 torch and sentence-transformers are imported only by :func:`export`; running
-an export needs only onnxruntime, tokenizers and numpy.
+an export needs only onnxruntime, tokenizers and numpy. Importing this module
+fails when onnxruntime is missing, before any export is attempted.
 """
 
 from __future__ import annotations
@@ -30,6 +31,8 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import onnxruntime as ort  # an ImportError here makes the embedder fall back to torch
+from tokenizers import Tokenizer
 
 from .errors import InputError, StoreError
 
@@ -212,9 +215,6 @@ class OnnxEncoder:
 
     def __init__(self, *, directory: Path, threads: int = 0,
                  config: dict[str, Any] | None = None) -> None:
-        import onnxruntime as ort
-        from tokenizers import Tokenizer
-
         self.directory = directory
         self.config = config or json.loads((directory / CONFIG_NAME).read_text())
         opts = ort.SessionOptions()
