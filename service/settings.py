@@ -51,6 +51,10 @@ class Settings(BaseSettings):
 
     # Import
     import_batch_rows: int = Field(default=500, ge=1)
+    cluster_batch_rows: int = Field(
+        default=20_000, ge=1,
+        description="Rows per batch when embedding on a Ray cluster (one Ray Data job each).",
+    )
 
     # Forecasting
     maturity_hours: float = Field(default=48.0, ge=0)

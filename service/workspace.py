@@ -21,7 +21,7 @@ from models.embedding import Embedder
 from models.errors import InputError, LimitExceeded, StoreError
 from models.index import VectorIndex
 
-from .importer import ImportSummary, ProgressFn, import_csv
+from .importer import EmbedFn, ImportSummary, ProgressFn, import_csv
 from .settings import Settings
 from .store import Store
 from .timeparse import as_utc, now_utc
@@ -178,11 +178,14 @@ class Workspace:
         mapping: dict[str, str] | None = None,
         timezone: str | None = None,
         progress: ProgressFn | None = None,
+        embed: EmbedFn | None = None,
+        batch_rows: int | None = None,
     ) -> ImportSummary:
         self.index()  # load or rebuild first, so the update below is incremental
         summary = import_csv(
             self.store, self.embedder, path, account=account, mapping=mapping,
-            timezone=timezone, batch_rows=self.settings.import_batch_rows, progress=progress,
+            timezone=timezone, batch_rows=batch_rows or self.settings.import_batch_rows,
+            progress=progress, embed=embed,
         )
         if summary.changed_pks or summary.updated:
             self._sync_index(summary.changed_pks)
