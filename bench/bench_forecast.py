@@ -8,6 +8,9 @@ repeated with a numbered variant of its text and a vector near its own
 100,000 texts first. Timings:
 
 - bare embedding: ``Embedder.encode([draft])``, the floor of any forecast;
+- reference encode: a plain ``SentenceTransformer.encode([draft])`` (torch),
+  reported as ``ratio_p50_reference`` = forecast p50 / reference p50 (aim:
+  <= 1.0 at 100,000 posts with the ONNX backend, issue 16);
 - forecast: ``POST /v1/forecasts`` for one draft to a uvicorn server on
   127.0.0.1, end to end (HTTP, embedding, search, features, model);
 - training: ``forecasting.train`` with its backtest, at 100,000 posts
@@ -38,7 +41,7 @@ import uvicorn
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from models.embedding import Embedder  # noqa: E402
+from models.embedding import Embedder, bundled_model_path  # noqa: E402
 from service import forecasting  # noqa: E402
 from service.api.app import create_app  # noqa: E402
 from service.cli.history import _demo_accounts  # noqa: E402
@@ -47,6 +50,41 @@ from service.store import PostRow  # noqa: E402
 from service.workspace import Workspace  # noqa: E402
 
 DRAFT = (ROOT / "demo_data" / "sample_draft.txt").read_text().strip()
+
+
+# Embedding (issue 16): the service's configured backend, and the reference.
+def bench_embedder() -> Embedder:
+    """The embedder a workspace gets from the settings (ONNX by default), with
+    its export kept under bench/results/ between runs."""
+    s = Settings()
+    return Embedder(batch_size=s.embed_batch_size, backend=s.embed_backend,
+                    quantize=s.embed_quantize, export_dir=ROOT / "bench" / "results" / "embedding",
+                    threads=s.embed_threads)
+
+
+class ReferenceEncode:
+    """Plain ``SentenceTransformer.encode`` of the draft (torch): the reference
+    a forecast's p50 is compared with (aim: forecast p50 <= 1.0x this)."""
+
+    def __init__(self) -> None:
+        from sentence_transformers import SentenceTransformer
+
+        self.model = SentenceTransformer(str(bundled_model_path()), device="cpu",
+                                         local_files_only=True)
+        self.model.encode([DRAFT])
+        self.times: list[float] = []
+
+    def time_once(self) -> None:
+        t0 = time.perf_counter()
+        self.model.encode([DRAFT], normalize_embeddings=True, convert_to_numpy=True)
+        self.times.append(time.perf_counter() - t0)
+
+    def row(self, forecast_times: list[float]) -> dict[str, object]:
+        ref = statistics.median(self.times)
+        out = {"reference_encode_p50_ms": round(1000 * ref, 2),
+               "ratio_p50_reference": round(statistics.median(forecast_times) / ref, 2)}
+        self.times = []
+        return out
 
 
 def grow(ws: Workspace, demo: Workspace, size: int, rng: np.random.Generator) -> None:
@@ -105,8 +143,9 @@ def main() -> None:
     ap.add_argument("--no-train", action="store_true")
     args = ap.parse_args()
     rng = np.random.default_rng(0)
-    embedder = Embedder()
+    embedder = bench_embedder()
     embedder.encode(["warm up"])
+    reference = ReferenceEncode()
     results: dict[str, object] = {"draft": DRAFT, "sizes": {}}
     with tempfile.TemporaryDirectory() as tmp:
         demo = Workspace(settings=Settings(home=Path(tmp) / "demo"), embedder=embedder)
@@ -133,6 +172,7 @@ def main() -> None:
                     t0 = time.perf_counter()
                     client.post("/v1/forecasts", json=body).raise_for_status()
                     fc.append(time.perf_counter() - t0)
+                    reference.time_once()
             server.should_exit = True
             thread.join(timeout=10)
             row = {
@@ -142,6 +182,8 @@ def main() -> None:
                 "forecast_p50_ms": round(1000 * statistics.median(fc), 2),
                 "forecast_p95_ms": round(1000 * pct(fc, 95), 2),
                 "ratio_p50": round(statistics.median(fc) / statistics.median(emb), 2),
+                "embedding": embedder.info()["backend"],
+                **reference.row(fc),
             }
             results["sizes"][str(size)] = row  # type: ignore[index]
             print(json.dumps(row))

@@ -10,10 +10,24 @@ before any clock starts:
       (validation, embedding, writes, index update);
   (c) a re-import of the unchanged file into the same directory.
 
+Against the reference, measured in the same run on the same texts and batches:
+
+  (r) a plain ``SentenceTransformer.encode`` (torch), alternated batch by batch
+      with (a) so that both see the same load;
+  (t) the same full import with the torch backend (the import before the ONNX
+      backend), into another empty data directory (``--no-torch-import`` skips it).
+
 Printed and saved (bench/results/, gitignored) as ratios from this one run:
 
   embedding_time / import_time     aim >= 0.8: the import adds little to embedding
   first_import_time / reimport     aim >= 20:  a re-import embeds nothing
+  reference_encode / embedding     how much faster the backend embeds than plain encode
+  torch_import / import            aim >= 1.5 (issue 16): the backend's gain on a whole import
+  reference_encode / import        the whole import against plain encode of its texts
+
+It also checks the backend's vectors against the reference's on every text:
+the lowest cosine, and whether each text's top-10 neighbours by scikit-learn's
+exact NearestNeighbors are the same (issue 16: cosine >= 0.99999, identical).
 
 The import is also broken down by stage (time inside Embedder.encode,
 Store.write_batch, the vector-cache lookup and the index update) so that a
@@ -21,6 +35,7 @@ low ratio says where the time goes. No assertions: timings depend on the
 machine and on what else runs on it (the load average is recorded).
 
 Usage:  /path/to/venv/bin/python bench/bench_import.py [--csv FILE] [--limit N] [--profile]
+            [--backend auto|onnx|torch] [--quantize none|int8] [--no-torch-import]
 """
 
 from __future__ import annotations
@@ -46,7 +61,9 @@ from typing import Any
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from models.embedding import Embedder  # noqa: E402
+import numpy as np  # noqa: E402
+
+from models.embedding import Embedder, bundled_model_path, normalise_text  # noqa: E402
 from service.cli.history import _demo_accounts  # noqa: E402
 from service.settings import Settings  # noqa: E402
 from service.workspace import Workspace  # noqa: E402
@@ -114,14 +131,26 @@ def main() -> int:
     ap.add_argument("--csv", type=Path, default=DEMO_CSV, help="CSV to import (default: the demo)")
     ap.add_argument("--limit", type=int, default=None, help="Only the first N rows (quick runs)")
     ap.add_argument("--profile", action="store_true", help="cProfile the first import too")
+    ap.add_argument("--backend", choices=["auto", "onnx", "torch"], default=None,
+                    help="Embedding backend (default: SOUNDING_EMBED_BACKEND, auto)")
+    ap.add_argument("--quantize", choices=["none", "int8"], default=None,
+                    help="Quantisation (default: SOUNDING_EMBED_QUANTIZE, none)")
+    ap.add_argument("--export-dir", type=Path, default=RESULTS / "embedding",
+                    help="Where the ONNX export is kept between runs")
+    ap.add_argument("--no-torch-import", action="store_true",
+                    help="Skip (t), the import with the torch backend")
     args = ap.parse_args()
 
     settings = Settings()
     batch_rows = settings.import_batch_rows
-    embedder = Embedder(batch_size=settings.embed_batch_size)
+    embedder = Embedder(batch_size=settings.embed_batch_size,
+                        backend=args.backend or settings.embed_backend,
+                        quantize=args.quantize or settings.embed_quantize,
+                        export_dir=args.export_dir, threads=settings.embed_threads)
     t = time.perf_counter()
     embedder.encode(["warm up the model before any clock starts"])
     load_s = time.perf_counter() - t
+    reference = reference_model()
 
     header, rows = read_rows(args.csv, args.limit)
     tmp = Path(tempfile.mkdtemp(prefix="sounding-bench-"))
@@ -135,12 +164,37 @@ def main() -> int:
     n_texts = sum(len(b) for b in batches)
     load_before = os.getloadavg()
 
-    # (a) bare embedding, same batches and batch size as the importer.
-    t = time.perf_counter()
+    # (a) bare embedding, same batches and batch size as the importer, alternated
+    # batch by batch with (r), plain SentenceTransformer.encode of the same texts.
+    embed_s = ref_s = 0.0
+    ours, ref = [], []
     for b in batches:
-        if b:
-            embedder.encode(b)
-    embed_s = time.perf_counter() - t
+        if not b:
+            continue
+        clean = [normalise_text(x) for x in b]
+        t = time.perf_counter()
+        ref.append(reference.encode(clean, batch_size=embedder.batch_size,
+                                    normalize_embeddings=True, convert_to_numpy=True,
+                                    show_progress_bar=False))
+        ref_s += time.perf_counter() - t
+        t = time.perf_counter()
+        ours.append(embedder.encode(b))
+        embed_s += time.perf_counter() - t
+    agreement = compare_vectors(np.concatenate(ours), np.concatenate(ref))
+
+    # (t) the same import with the torch backend, for the before/after ratio.
+    torch_import_s = None
+    if not args.no_torch_import:
+        torch_embedder = Embedder(batch_size=settings.embed_batch_size, backend="torch")
+        torch_embedder._model = reference  # the same loaded model, already warm
+        torch_embedder.backend_ = "torch"
+        tws = Workspace(settings=Settings(home=tmp / "home-torch"), embedder=torch_embedder)
+        for handle, name, tz in _demo_accounts():
+            tws.store.set_account(handle, display_name=name, timezone=tz)
+        t = time.perf_counter()
+        tws.import_csv(csv_path)
+        torch_import_s = time.perf_counter() - t
+        tws.close()
 
     # (b) full import into an empty data directory.
     ws = Workspace(settings=Settings(home=tmp / "home"), embedder=embedder)
@@ -193,6 +247,14 @@ def main() -> int:
         "reimport_s": round(reimport_s, 3),
         "ratio_embedding_over_import": round(embed_s / import_s, 3),
         "ratio_import_over_reimport": round(import_s / reimport_s, 1),
+        "embedding": embedder.info(),
+        "reference_encode_s": round(ref_s, 3),
+        "ratio_reference_encode_over_embedding": round(ref_s / embed_s, 3),
+        "ratio_reference_encode_over_import": round(ref_s / import_s, 3),
+        "torch_import_s": None if torch_import_s is None else round(torch_import_s, 3),
+        "ratio_torch_import_over_import": (None if torch_import_s is None
+                                           else round(torch_import_s / import_s, 3)),
+        "agreement_with_reference": agreement,
         "import_breakdown_s": breakdown(import_s, first_stages),
         "reimport_breakdown_s": breakdown(reimport_s, re_stages),
         "import_summary": {k: v for k, v in first.to_dict().items() if k != "problems"},
@@ -217,7 +279,19 @@ def main() -> int:
     print(f"(c) re-import unchanged {reimport_s:8.2f} s   embedded {embedded_again} texts")
     for k, v in result["reimport_breakdown_s"].items():
         print(f"      {k:<38} {v:8.2f} s  {100 * v / reimport_s:5.1f} %")
+    print(f"(r) reference encode    {ref_s:8.2f} s   plain SentenceTransformer.encode, same texts")
+    if torch_import_s is not None:
+        print(f"(t) import with torch   {torch_import_s:8.2f} s")
+    print(f"backend: {embedder.info()['backend']} ({embedder.quantize})")
     print(f"embedding / import      {result['ratio_embedding_over_import']:8.3f}   (aim >= 0.8)")
+    print(f"reference / embedding   {result['ratio_reference_encode_over_embedding']:8.3f}   "
+          "(> 1: the backend embeds faster than plain encode)")
+    print(f"reference / import      {result['ratio_reference_encode_over_import']:8.3f}")
+    if torch_import_s is not None:
+        print(f"torch import / import   {result['ratio_torch_import_over_import']:8.3f}   "
+              "(aim >= 1.5)")
+    print(f"agreement with reference: lowest cosine {agreement['min_cosine']:.7f} (aim >= 0.99999), "
+          f"texts with identical top-10 neighbours {agreement['same_top10_share']:.4f} (aim 1)")
     print(f"import / re-import      {result['ratio_import_over_reimport']:8.1f}   (aim >= 20)")
     print(f"load average before/after: {load_before[0]:.2f} / {load_after[0]:.2f} "
           f"on {os.cpu_count()} CPUs (ratios from one run; other work on the machine skews them)")
@@ -233,6 +307,31 @@ def main() -> int:
     out.write_text(json.dumps(result, indent=2))
     print(f"results written to {out}")
     return 0
+
+
+def reference_model() -> Any:
+    """The reference: the bundled model as plain sentence-transformers (torch)."""
+    from sentence_transformers import SentenceTransformer
+
+    model = SentenceTransformer(str(bundled_model_path()), device="cpu", local_files_only=True)
+    model.encode(["warm up the model before any clock starts"])
+    return model
+
+
+def compare_vectors(ours: np.ndarray, ref: np.ndarray) -> dict[str, float]:
+    """Cosine per text, and top-10 neighbours by scikit-learn's exact search."""
+    from sklearn.neighbors import NearestNeighbors
+
+    cos = np.sum(ours * ref, axis=1) / (np.linalg.norm(ours, axis=1) * np.linalg.norm(ref, axis=1))
+    k = min(11, len(ours))
+    nn = {"n_neighbors": k, "metric": "cosine", "algorithm": "brute"}
+    a = NearestNeighbors(**nn).fit(ours).kneighbors(ours, return_distance=False)[:, 1:]
+    b = NearestNeighbors(**nn).fit(ref).kneighbors(ref, return_distance=False)[:, 1:]
+    same = [set(x) == set(y) for x, y in zip(a, b, strict=True)]
+    overlap = [len(set(x) & set(y)) / max(1, len(x)) for x, y in zip(a, b, strict=True)]
+    return {"texts": int(len(ours)), "min_cosine": float(cos.min()),
+            "mean_cosine": float(cos.mean()), "same_top10_share": float(np.mean(same)),
+            "mean_top10_overlap": float(np.mean(overlap))}
 
 
 def _torch_threads() -> int | None:

@@ -140,6 +140,8 @@ def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
         "features": {"k": params.k, "maturity_hours": params.maturity_s / 3600,
                      "similar_threshold": params.similar_threshold,
                      "baseline_posts": params.baseline_n},
+        # Which vectors the features came from (int8 ONNX vectors differ from fp32 ones).
+        "embedding": {k: v for k, v in ws.embedder.info().items() if k != "loaded"},
     }
     if backtest:
         report["backtest"] = run_backtest(X, y, times, feature_names=F.FEATURE_NAMES,

@@ -30,6 +30,8 @@ from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
+
 from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
 from models.metrics import METRIC_COLUMNS
@@ -298,6 +300,9 @@ def _count(raw: str | None, column: str) -> int | None:
 
 
 ProgressFn = Callable[[int, int], None]
+#: Embeds a batch of new texts into unit float32 rows (default: ``embedder.encode``);
+#: service.cluster passes one that embeds on a Ray cluster.
+EmbedFn = Callable[[list[str]], np.ndarray]
 
 
 def import_csv(
@@ -310,6 +315,7 @@ def import_csv(
     timezone: str | None = None,
     batch_rows: int = 500,
     progress: ProgressFn | None = None,
+    embed: EmbedFn | None = None,
 ) -> ImportSummary:
     """Import one CSV file; see the module docstring for the rules."""
     path = Path(path)
@@ -330,7 +336,7 @@ def import_csv(
                 keys.setdefault(r.vector_key, r.text)
         vectors = {}
         if keys:
-            vecs = embedder.encode(list(keys.values()))
+            vecs = (embed or embedder.encode)(list(keys.values()))
             vectors = dict(zip(keys.keys(), vecs, strict=True))
             summary.embedded += len(keys)
         res = store.write_batch(batch, vectors, model_id=embedder.model_id)

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from functools import cached_property
 from pathlib import Path
+from typing import Literal
 
 from pydantic import Field, SecretStr
 from pydantic_settings import BaseSettings, SettingsConfigDict
@@ -46,9 +47,26 @@ class Settings(BaseSettings):
         default=None,
         description="Directory of a sentence-transformers model; default is the bundled one.",
     )
+    embed_backend: Literal["auto", "onnx", "torch"] = Field(
+        default="auto",
+        description="auto: ONNX Runtime when it works (same vectors, faster), else torch with a "
+        "warning; onnx: ONNX Runtime or an error; torch: sentence-transformers.",
+    )
+    embed_quantize: Literal["none", "int8"] = Field(
+        default="none",
+        description="int8: a dynamically quantised ONNX graph; faster, but its vectors and "
+        "neighbours differ (top-10 overlap ~0.90), so only on request.",
+    )
+    embed_threads: int = Field(
+        default=0, ge=0, description="ONNX Runtime intra-op threads (0: one per core)."
+    )
 
     # Import
     import_batch_rows: int = Field(default=500, ge=1)
+    cluster_batch_rows: int = Field(
+        default=20_000, ge=1,
+        description="Rows per batch when embedding on a Ray cluster (one Ray Data job each).",
+    )
 
     # Forecasting
     maturity_hours: float = Field(default=48.0, ge=0)
@@ -94,6 +112,11 @@ class Settings(BaseSettings):
         if self.forecasters_dir is not None:
             return self.forecasters_dir.expanduser().resolve()
         return self.resolved_home / "forecasters"
+
+    @property
+    def embedding_dir(self) -> Path:
+        """Exports of the embedding model (ONNX graphs), one directory each."""
+        return self.resolved_home / "embedding"
 
     @property
     def uploads_dir(self) -> Path:

@@ -21,7 +21,7 @@ from models.embedding import Embedder
 from models.errors import InputError, LimitExceeded, StoreError
 from models.index import VectorIndex
 
-from .importer import ImportSummary, ProgressFn, import_csv
+from .importer import EmbedFn, ImportSummary, ProgressFn, import_csv
 from .settings import Settings
 from .store import Store
 from .timeparse import as_utc, now_utc
@@ -81,7 +81,9 @@ class Workspace:
             ) from None
         self.store = Store(url=settings.db_url)
         self.embedder = embedder or Embedder(
-            model_path=settings.embed_model_path, batch_size=settings.embed_batch_size
+            model_path=settings.embed_model_path, batch_size=settings.embed_batch_size,
+            backend=settings.embed_backend, quantize=settings.embed_quantize,
+            export_dir=settings.embedding_dir, threads=settings.embed_threads,
         )
         self._index: VectorIndex | None = None
         self._index_stamp: int | None = None
@@ -187,11 +189,14 @@ class Workspace:
         mapping: dict[str, str] | None = None,
         timezone: str | None = None,
         progress: ProgressFn | None = None,
+        embed: EmbedFn | None = None,
+        batch_rows: int | None = None,
     ) -> ImportSummary:
         self.index()  # load or rebuild first, so the update below is incremental
         summary = import_csv(
             self.store, self.embedder, path, account=account, mapping=mapping,
-            timezone=timezone, batch_rows=self.settings.import_batch_rows, progress=progress,
+            timezone=timezone, batch_rows=batch_rows or self.settings.import_batch_rows,
+            progress=progress, embed=embed,
         )
         if summary.changed_pks or summary.updated:
             self._sync_index(summary.changed_pks)
@@ -314,6 +319,7 @@ class Workspace:
             "posts": counts["posts"],
             "accounts": counts["accounts"],
             "model_id": self.embedder.model_id,
+            "embedding": self.embedder.info(),
             "index": self.index_state(),
             "forecaster": self._newest_model(),
         }

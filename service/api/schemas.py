@@ -47,10 +47,21 @@ class IndexState(BaseModel):
     count: int
 
 
+class EmbeddingState(BaseModel):
+    backend: str = Field(description="onnx or torch once loaded; the setting (auto, onnx, "
+                         "torch) before the model is first used")
+    loaded: bool
+    quantize: str = Field(description="none, or int8: approximate vectors, kept apart")
+    vector_space: str = Field(description="What the stored vectors are vectors of")
+    export: str | None = Field(default=None, description="The ONNX export in use")
+    fallback: str | None = Field(default=None, description="Why ONNX is not in use")
+
+
 class Health(BaseModel):
     posts: int
     accounts: int
     model_id: str
+    embedding: EmbeddingState | None = None
     index: IndexState
     forecaster: str | None = Field(default=None, description="Version of the model in use")
 

@@ -32,6 +32,9 @@ def train_cmd(
     m = forecasting.train(workspace(), metric, backtest=not skip_backtest)
     out.print(f"trained {metric} model {m.version} on {m.report['n_train']} posts, "
               f"calibrated on the next {m.report['n_calibration']}")
+    if m.report.get("embedding", {}).get("quantize", "none") != "none":
+        out.print(f"embedding vectors: ONNX {m.report['embedding']['quantize']} "
+                  "(approximate; neighbours differ from the fp32 model's)")
     if "backtest" in m.report:
         print_backtest(m.report["backtest"], metric)
 

@@ -14,6 +14,7 @@ from rich.table import Table
 
 from models.errors import InputError
 
+from ..cluster import cluster_import_options
 from ..importer import ImportSummary, parse_mapping
 from ..settings import Settings
 from ..timeparse import parse_time
@@ -74,10 +75,16 @@ def import_cmd(
         None, "--timezone", help="IANA zone of times without an offset (default: the account's)."
     ),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
+    cluster: str | None = typer.Option(
+        None, "--cluster", help="Embed new texts on a Ray cluster at ray://HOST:PORT "
+        "(needs sounding[cluster] here and sounding on the cluster's nodes)."),
+    cluster_workers: int = typer.Option(
+        2, "--cluster-workers", min=1, help="Model-holding Ray workers, one CPU each."),
 ) -> None:
     """Import past posts and their metrics from a CSV file."""
     ws = workspace()
     maps = parse_mapping(mapping)
+    on_cluster = cluster_import_options(ws, cluster, workers=cluster_workers)
     if is_terminal() and not as_json:
         cols = (TextColumn("importing"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn())
         with Progress(*cols, console=out, transient=True) as bar:
@@ -87,9 +94,10 @@ def import_cmd(
                 bar.update(task, completed=done, total=total)
 
             summary = ws.import_csv(file, account=account, mapping=maps, timezone=timezone,
-                                    progress=progress)
+                                    progress=progress, **on_cluster)
     else:
-        summary = ws.import_csv(file, account=account, mapping=maps, timezone=timezone)
+        summary = ws.import_csv(file, account=account, mapping=maps, timezone=timezone,
+                                **on_cluster)
     if as_json:
         print_json(summary.to_dict())
     else:
