@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 from sqlalchemy import create_engine, delete, event, func, select
 from sqlalchemy.engine import Engine
-from sqlalchemy.exc import OperationalError, SQLAlchemyError
+from sqlalchemy.exc import IntegrityError, OperationalError, SQLAlchemyError
 from sqlalchemy.orm import Session, sessionmaker
 
 from models.errors import InputError, NotFound, StoreError
@@ -82,9 +82,14 @@ def _sqlite_pragmas(dbapi_conn: Any, _record: Any) -> None:
 class Store:
     """Access to one store, addressed by a SQLAlchemy URL."""
 
-    def __init__(self, *, url: str) -> None:
+    def __init__(self, *, url: str, read_only: bool = False) -> None:
         self.url = url
-        if url.startswith("sqlite:///"):
+        self.read_only = read_only
+        if read_only and url.startswith("sqlite:///"):
+            # A WAL database on a read-only file system cannot make its
+            # shared-memory file; "immutable" lets SQLite read it without one.
+            url = f"sqlite:///file:{url.removeprefix('sqlite:///')}?mode=ro&immutable=1&uri=true"
+        elif url.startswith("sqlite:///"):
             Path(url.removeprefix("sqlite:///")).parent.mkdir(parents=True, exist_ok=True)
         try:
             self.engine: Engine = create_engine(
@@ -110,6 +115,13 @@ class Store:
         except OperationalError as exc:
             s.rollback()
             raise StoreError(f"the store is unavailable: {exc.orig}") from None
+        except IntegrityError as exc:
+            # Only a writer outside the write lock (service.locking) gets here.
+            s.rollback()
+            raise StoreError(
+                f"another writer changed the same rows at the same time ({exc.orig})",
+                hint="run it again: rows already stored are not added twice",
+            ) from None
         except BaseException:
             s.rollback()
             raise
