@@ -20,8 +20,8 @@ from typing import Any
 
 import numpy as np
 
-from models.embedding import Embedder
 from models.artefact import clean_leftovers, intact
+from models.embedding import Embedder
 from models.errors import InputError, LimitExceeded, ReadOnly, StoreError
 from models.index import VectorIndex
 
@@ -121,13 +121,17 @@ class Workspace:
     def writing(self, what: str) -> Iterator[None]:
         """Hold this data directory's write lock for ``what`` (service.locking):
         imports, forgets, reindexing and training run one at a time."""
+        self.check_writable(what)
+        with self._writer.hold(what):
+            yield
+
+    def check_writable(self, what: str) -> None:
+        """Refuse ``what`` with one clear message when the directory is read-only."""
         if self.read_only:
             raise ReadOnly(
                 f"cannot run {what}: the data directory is read-only; reads still work",
                 hint="give the service a writable SOUNDING_HOME to make changes",
             )
-        with self._writer.hold(what):
-            yield
 
     # Index ------------------------------------------------------------------
 
