@@ -224,7 +224,7 @@ def newest(root: Path, metric: str) -> str:
     for version, why in damaged:
         if version not in _warned:  # once per process, not once per forecast
             _warned.add(version)
-            log.warning("skipping %s; serving the newest intact version %s", why, found)
+            log.warning("%s; it is skipped, and version %s is served instead", why, found)
     if found is None:
         if damaged:
             raise NotReady(

@@ -8,6 +8,7 @@ go on while an import writes.
 
 from __future__ import annotations
 
+import os
 import re
 import sqlite3
 from collections.abc import Iterable, Iterator, Sequence
@@ -463,23 +464,50 @@ class Store:
 
     def backup(self, dest: str | Path) -> Path:
         """A consistent copy of a SQLite store while others use it
-        (SQLite's online backup API)."""
+        (SQLite's online backup API), checked before it gets its name.
+
+        ``dest`` is a new file, or a directory (one that exists, or any path
+        ending in "/", created if missing) that receives
+        ``sounding-backup-<UTC time>.db``. The copy is written under a
+        temporary name beside it and renamed only once it is complete and
+        passes SQLite's integrity check, so a killed backup never leaves a
+        plausible-looking file.
+        """
         if not self.url.startswith("sqlite:///"):
             raise StoreError("backup is available for SQLite stores only")
+        text = str(dest)
         dest = Path(dest)
-        if dest.is_dir():
-            dest = dest / "sounding-backup.db"
+        if text.endswith(("/", os.sep)) or dest.is_dir():
+            dest = dest / f"sounding-backup-{now_utc():%Y%m%dT%H%M%SZ}.db"
         if dest.exists():
             raise InputError(f"{dest} already exists; choose a new file name", where=str(dest))
-        dest.parent.mkdir(parents=True, exist_ok=True)
-        src = sqlite3.connect(self.url.removeprefix("sqlite:///"))
-        dst = sqlite3.connect(str(dest))
         try:
-            with dst:
-                src.backup(dst)
+            dest.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise StoreError(f"cannot create {dest.parent}: {exc.strerror}") from None
+        tmp = dest.with_name(f".tmp-{dest.name}-{os.getpid()}")
+        try:
+            src = sqlite3.connect(self.url.removeprefix("sqlite:///"))
+            dst = sqlite3.connect(str(tmp))
+            try:
+                with dst:
+                    src.backup(dst)
+                # One self-contained file: no -wal/-shm companions beside the copy.
+                dst.execute("PRAGMA journal_mode=DELETE")
+                check = dst.execute("PRAGMA integrity_check").fetchone()[0]
+            finally:
+                dst.close()
+                src.close()
+            if check != "ok":
+                raise StoreError(f"the copy failed its integrity check: {check}")
+            os.replace(tmp, dest)
+        except (OSError, sqlite3.Error) as exc:
+            raise StoreError(
+                f"the backup to {dest} failed ({getattr(exc, 'strerror', None) or exc}); "
+                "nothing was written", hint="check the free space and permissions there",
+            ) from None
         finally:
-            dst.close()
-            src.close()
+            tmp.unlink(missing_ok=True)
         return dest
 
 
