@@ -38,6 +38,7 @@ from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.cli.history import check_bind
 from service.forecasting import Draft
+from service.importer import import_csv
 from service.locking import LOCK_FILE
 from service.settings import Settings
 from service.workspace import Workspace
@@ -312,18 +313,25 @@ def test_a_second_writer_gets_busy_not_a_traceback(workspace: Workspace, tmp_pat
     ws.close()
 
 
-def test_the_index_is_rebuilt_when_it_misses_posts(workspace: Workspace, tmp_path: Path) -> None:
-    """A writer that bypasses the lock (an older version, a script): the index
-    may not claim the store's fingerprint while it holds other posts."""
-    workspace.import_csv(write_csv(tmp_path / "a.csv", rows(20, prefix="fp")))
-    other = Workspace(settings=workspace.settings, embedder=workspace.embedder)
-    other.import_csv(write_csv(tmp_path / "b.csv", rows(10, prefix="fp", start=20)))
-    # This workspace's in-memory index predates the other import; adding its
-    # own posts must not leave the other's ten out.
-    workspace.import_csv(write_csv(tmp_path / "c.csv", rows(10, prefix="fp", start=30)))
-    assert index_matches_store(workspace)
-    assert workspace.index().ntotal == 40
-    other.close()
+def test_the_index_is_rebuilt_when_it_misses_posts(make_workspace, tmp_path: Path) -> None:
+    """A writer that bypasses the lock (an older version, a script) adds posts
+    in the middle of an import: the import's index may then not claim the
+    store's fingerprint. Before the fix it did, while missing those posts."""
+    ws = make_workspace("home", import_batch_rows=10)
+    ws.import_csv(write_csv(tmp_path / "a.csv", rows(20, prefix="fp")))
+    outside = write_csv(tmp_path / "b.csv", rows(10, prefix="fp", start=20))
+    done: list[int] = []
+
+    def progress(n: int, _total: int) -> None:
+        if not done:  # once, between two batches of the import below
+            done.append(import_csv(ws.store, ws.embedder, outside).added)
+
+    ws.import_csv(write_csv(tmp_path / "c.csv", rows(30, prefix="fp", start=30)),
+                  progress=progress)
+    assert done == [10]
+    assert ws.store.counts()["posts"] == 60
+    assert ws.index().ntotal == 60 and index_matches_store(ws)
+    assert ws.index_state()["state"] == "ready"
 
 
 # 15.5/15.7 A full disk ---------------------------------------------------------
