@@ -383,6 +383,7 @@ def test_a_full_disk_is_an_ordinary_error(small_disk: Path, trained_home: Path,
         assert "Traceback" not in msg
         added = int(msg.split(" new posts were stored")[0].rsplit(" ", 1)[-1])
         assert ws.store.counts()["posts"] == before + added < before + 2000
+        print(f"full disk: {added} of 2000 new posts stored before the disk filled")
         # Reads go on from the index in memory, although it cannot be saved.
         fresh = Workspace(settings=Settings(home=home), embedder=embedder)
         shutil.rmtree(home / "index", ignore_errors=True)  # forces a rebuild it cannot save
