@@ -8,13 +8,22 @@
 A version is written into a hidden temporary directory and renamed into
 place in one step, so a reader either sees a whole model or none: the
 service never serves a half-written one.
+
+The config records the size and SHA-256 of every other file of the version,
+and a version is checked against them in Python before any native library
+reads a byte: LightGBM aborts the whole process (exit 134) on a truncated
+booster file, so a damaged file must never reach it. A damaged version is
+skipped with a warning and the newest intact one is served instead.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
+import logging
 import os
 import shutil
+import threading
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
@@ -25,7 +34,16 @@ from .regressor import QuantileForecaster
 
 CONFIG = "config.json"
 REPORT = "report.json"
-FORMAT = 1
+FORMAT = 2  # 2: the config lists every file's size and SHA-256
+TMP_PREFIX = ".tmp-"
+
+log = logging.getLogger("sounding.models")
+
+
+class DamagedModel(StoreError):
+    """A model version whose files do not match its config."""
+
+    code = "damaged_model"
 
 
 @dataclass(slots=True)
@@ -52,34 +70,126 @@ class TrainedModel:
         final = base / self.version
         if final.exists():
             raise StoreError(f"model version {self.version} already exists", where=str(final))
-        tmp = base / f".tmp-{self.version}-{os.getpid()}"
-        if tmp.exists():
-            shutil.rmtree(tmp)
-        self.quantiles.save(tmp / "quantiles")
-        (tmp / REPORT).write_text(json.dumps(self.report, indent=2, default=str))
-        cfg = {"format": FORMAT, "metric": self.metric, "version": self.version,
-               "features": asdict(self.features)}
-        (tmp / CONFIG).write_text(json.dumps(cfg, indent=2))
-        os.replace(tmp, final)
+        tmp = base / f"{TMP_PREFIX}{self.version}-{os.getpid()}"
+        try:
+            if tmp.exists():
+                shutil.rmtree(tmp)
+            self.quantiles.save(tmp / "quantiles")
+            (tmp / REPORT).write_text(json.dumps(self.report, indent=2, default=str))
+            cfg = {"format": FORMAT, "metric": self.metric, "version": self.version,
+                   "features": asdict(self.features), "files": _checksums(tmp)}
+            (tmp / CONFIG).write_text(json.dumps(cfg, indent=2))
+            os.replace(tmp, final)
+        except Exception as exc:  # noqa: BLE001 - LightGBM's own error type included
+            # A full disk, a read-only directory, LightGBM failing to write:
+            # leave nothing behind, and say so in plain words.
+            shutil.rmtree(tmp, ignore_errors=True)
+            why = getattr(exc, "strerror", None) or (str(exc).splitlines() or [type(exc).__name__])[0]
+            raise StoreError(
+                f"the new {self.metric} model could not be saved ({why}); nothing was "
+                "saved and the previous model, if any, is still served",
+                hint="free some disk space and train again",
+            ) from None
         return final
 
     @classmethod
     def load(cls, directory: Path) -> TrainedModel:
+        """Load a version after checking every file against its config."""
         d = Path(directory)
+        if not (d / CONFIG).is_file():
+            raise NotFound(f"no trained model in version {d.name}")
+        cfg = verify(d)
         try:
-            cfg = json.loads((d / CONFIG).read_text())
             report = json.loads((d / REPORT).read_text())
-        except FileNotFoundError:
-            raise NotFound(f"no trained model in {d}") from None
-        except json.JSONDecodeError as exc:
-            raise StoreError(f"the model in {d} is unreadable: {exc}") from None
-        if cfg.get("format") != FORMAT:
-            raise StoreError(f"unsupported model format in {d}")
+            features = FeatureParams(**cfg["features"])
+        except (OSError, ValueError, TypeError, KeyError) as exc:
+            raise DamagedModel(f"model version {d.name} is unreadable: {exc}") from None
         return cls(
-            metric=cfg["metric"], version=cfg["version"],
-            features=FeatureParams(**cfg["features"]),
+            metric=cfg["metric"], version=cfg["version"], features=features,
             quantiles=QuantileForecaster.load(d / "quantiles"), report=report,
         )
+
+
+def _checksums(directory: Path) -> dict[str, dict[str, Any]]:
+    """Size and SHA-256 of every file under ``directory`` except the config."""
+    out: dict[str, dict[str, Any]] = {}
+    for p in sorted(directory.rglob("*")):
+        if p.is_file() and p.relative_to(directory).as_posix() != CONFIG:
+            out[p.relative_to(directory).as_posix()] = {
+                "bytes": p.stat().st_size, "sha256": _sha256(p)}
+    return out
+
+
+def _sha256(path: Path) -> str:
+    h = hashlib.sha256()
+    with path.open("rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+# Verified versions, keyed by their files' (name, size, mtime): a version is
+# read and hashed once, then only stat'ed, however often it is asked for.
+_verified: dict[Path, tuple[tuple[Any, ...], dict[str, Any] | str]] = {}
+_verified_lock = threading.Lock()
+
+
+def _signature(d: Path) -> tuple[Any, ...]:
+    sig = []
+    for p in sorted(d.rglob("*")):
+        if p.is_file():
+            st = p.stat()
+            sig.append((p.relative_to(d).as_posix(), st.st_size, st.st_mtime_ns))
+    return tuple(sig)
+
+
+def verify(directory: Path) -> dict[str, Any]:
+    """The config of an intact version; ``DamagedModel`` naming the fault otherwise."""
+    d = Path(directory)
+    try:
+        sig = _signature(d)
+    except OSError as exc:
+        raise DamagedModel(f"model version {d.name} cannot be read: {exc.strerror}") from None
+    with _verified_lock:
+        hit = _verified.get(d)
+    if hit is None or hit[0] != sig:
+        result = _check(d)
+        with _verified_lock:
+            _verified[d] = (sig, result)
+    else:
+        result = hit[1]
+    if isinstance(result, str):
+        raise DamagedModel(f"model version {d.name} is damaged: {result}",
+                           hint="it is skipped; delete its directory or train again")
+    return result
+
+
+def _check(d: Path) -> dict[str, Any] | str:
+    """The config, or what is wrong with the version."""
+    try:
+        cfg = json.loads((d / CONFIG).read_text())
+    except (OSError, ValueError) as exc:
+        return f"its {CONFIG} is unreadable ({exc})"
+    if not isinstance(cfg, dict) or cfg.get("format") != FORMAT:
+        fmt = cfg.get("format") if isinstance(cfg, dict) else None
+        return f"unsupported model format {fmt!r} in its {CONFIG}"
+    files = cfg.get("files")
+    if not isinstance(files, dict) or not files:
+        return f"its {CONFIG} lists no file checksums"
+    for name, want in sorted(files.items()):
+        p = d / name
+        try:
+            size = p.stat().st_size
+            if not isinstance(want, dict) or size != want.get("bytes"):
+                return f"{name} has {size} bytes, the config says {want.get('bytes') if isinstance(want, dict) else '?'}"
+            if _sha256(p) != want.get("sha256"):
+                return f"{name} does not match its checksum"
+        except OSError:
+            return f"{name} is missing"
+    for key in ("metric", "version", "features"):
+        if key not in cfg:
+            return f"its {CONFIG} has no {key!r}"
+    return cfg
 
 
 def versions(root: Path, metric: str) -> list[str]:
@@ -91,11 +201,70 @@ def versions(root: Path, metric: str) -> list[str]:
                   if not p.name.startswith(".") and (p / CONFIG).is_file())
 
 
+def intact(root: Path, metric: str) -> tuple[str | None, list[tuple[str, str]]]:
+    """The newest intact version of a metric (None if there is none) and the
+    damaged versions newer than it, each with what is wrong with it."""
+    damaged: list[tuple[str, str]] = []
+    for version in reversed(versions(root, metric)):
+        try:
+            verify(Path(root) / metric / version)
+        except DamagedModel as exc:
+            damaged.append((version, exc.message))
+            continue
+        return version, damaged
+    return None, damaged
+
+
+_warned: set[str] = set()
+
+
 def newest(root: Path, metric: str) -> str:
-    found = versions(root, metric)
-    if not found:
+    """The newest intact version; damaged newer ones are skipped with a warning."""
+    found, damaged = intact(root, metric)
+    for version, why in damaged:
+        if version not in _warned:  # once per process, not once per forecast
+            _warned.add(version)
+            log.warning("%s; it is skipped, and version %s is served instead", why, found)
+    if found is None:
+        if damaged:
+            raise NotReady(
+                f"every trained {metric} model is damaged ({damaged[0][1]})",
+                hint=f"run `sounding train --metric {metric}`",
+            )
         raise NotReady(
             f"no model trained for {metric} yet",
             hint=f"run `sounding train --metric {metric}`",
         )
-    return found[-1]
+    return found
+
+
+def clean_leftovers(root: Path) -> list[Path]:
+    """Remove the temporary directories of trainings that died (their
+    process is gone): a kill or a full disk in the middle of a save."""
+    removed: list[Path] = []
+    root = Path(root)
+    if not root.is_dir():
+        return removed
+    for base in root.iterdir():
+        if not base.is_dir() or base.name.startswith("."):
+            continue
+        for p in base.iterdir():
+            if p.name.startswith(TMP_PREFIX) and not _alive(p.name.rsplit("-", 1)[-1]):
+                shutil.rmtree(p, ignore_errors=True)
+                removed.append(p)
+    return removed
+
+
+def _alive(pid: str) -> bool:
+    """Whether the process that named a temporary directory still runs."""
+    if not pid.isdigit():
+        return False
+    if int(pid) == os.getpid():
+        return True
+    try:
+        os.kill(int(pid), 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True

@@ -140,3 +140,16 @@ class ServiceUnavailable(StoreError):
     connection, timeout, an answer that is not the API's)."""
 
     code = "service_unavailable"
+
+
+class Busy(NotReady):
+    """Another import, forget or training run is changing the same data
+    directory, and it did not finish within the wait (409)."""
+
+    code = "busy"
+
+
+class ReadOnly(StoreError):
+    """The data directory cannot be written: reads work, changes are refused (503)."""
+
+    code = "read_only"

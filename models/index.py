@@ -68,6 +68,10 @@ class VectorIndex:
     def ntotal(self) -> int:
         return int(self._fitted().ntotal)
 
+    def ids(self) -> np.ndarray:
+        """The ids the index holds (to check them against the store's)."""
+        return faiss.vector_to_array(self._fitted().id_map).astype(np.int64)
+
     def upsert(self, ids: np.ndarray, vectors: np.ndarray, *, fingerprint: str) -> None:
         """Replace or add the given ids (an import's new and changed posts)."""
         ids, vectors = self._check(ids, vectors)

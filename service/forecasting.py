@@ -112,8 +112,15 @@ WIDE = 200  # nearest posts fetched per draft before filtering
 
 def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
           backtest: bool = True, cal_fraction: float = 0.2) -> TrainedModel:
-    """Train, backtest and save a new model version for ``metric``."""
+    """Train, backtest and save a new model version for ``metric``, as the
+    data directory's one writer (service.locking)."""
     check_target(metric)
+    with ws.writing("a training run"):
+        return _train(ws, metric, now=now, backtest=backtest, cal_fraction=cal_fraction)
+
+
+def _train(ws: Any, metric: str, *, now: datetime | None, backtest: bool,
+           cal_fraction: float) -> TrainedModel:
     now = now or now_utc()
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)

@@ -92,6 +92,26 @@ class Settings(BaseSettings):
     max_batch: int = Field(default=500, ge=1)
     max_upload_bytes: int = Field(default=50 * 1024 * 1024, ge=1)
     max_k: int = Field(default=100, ge=1)
+    max_json_bytes: int = Field(
+        default=16 * 1024 * 1024, ge=1,
+        description="Largest JSON request body; refused (413) before it is parsed.",
+    )
+
+    # Writers and the HTTP service's defences (service.locking, service.api.guard)
+    write_wait_seconds: float = Field(
+        default=300.0, ge=0,
+        description="How long an import, forget or training waits for another one to finish.",
+    )
+    allowed_hosts: list[str] = Field(
+        default_factory=list,
+        description="Host names the service answers besides loopback and its bound address "
+        "(a JSON list); any other Host header is refused, against DNS rebinding.",
+    )
+    keep_alive_seconds: int = Field(default=5, ge=1, description="Idle keep-alive timeout.")
+    header_timeout_seconds: float = Field(
+        default=10.0, gt=0, description="Time a client has to send a request's headers.")
+    body_timeout_seconds: float = Field(
+        default=120.0, gt=0, description="Time a client has to send a request's body.")
 
     @cached_property
     def resolved_home(self) -> Path:

@@ -8,6 +8,7 @@ go on while an import writes.
 
 from __future__ import annotations
 
+import os
 import re
 import sqlite3
 from collections.abc import Iterable, Iterator, Sequence
@@ -21,7 +22,7 @@ import numpy as np
 import pandas as pd
 from sqlalchemy import create_engine, delete, event, func, select, update
 from sqlalchemy.engine import Engine, make_url
-from sqlalchemy.exc import OperationalError, SQLAlchemyError
+from sqlalchemy.exc import IntegrityError, OperationalError, SQLAlchemyError
 from sqlalchemy.orm import ORMExecuteState, Session, sessionmaker
 
 from models.errors import InputError, NotFound, StoreError
@@ -102,12 +103,17 @@ class Store:
     cheap number move (``stamp()``).
     """
 
-    def __init__(self, *, url: str) -> None:
+    def __init__(self, *, url: str, read_only: bool = False) -> None:
         self.url = url
         # Write transactions this object committed: with stamp(), it tells
         # a process whether changes came only from itself.
         self.own_writes = 0
-        if url.startswith("sqlite:///"):
+        self.read_only = read_only
+        if read_only and url.startswith("sqlite:///"):
+            # A WAL database on a read-only file system cannot make its
+            # shared-memory file; "immutable" lets SQLite read it without one.
+            url = f"sqlite:///file:{url.removeprefix('sqlite:///')}?mode=ro&immutable=1&uri=true"
+        elif url.startswith("sqlite:///"):
             Path(url.removeprefix("sqlite:///")).parent.mkdir(parents=True, exist_ok=True)
         try:
             self.engine: Engine = create_engine(
@@ -157,6 +163,13 @@ class Store:
         except OperationalError as exc:
             s.rollback()
             raise StoreError(f"the store is unavailable: {exc.orig}") from None
+        except IntegrityError as exc:
+            # Only a writer outside the write lock (service.locking) gets here.
+            s.rollback()
+            raise StoreError(
+                f"another writer changed the same rows at the same time ({exc.orig})",
+                hint="run it again: rows already stored are not added twice",
+            ) from None
         except BaseException:
             s.rollback()
             raise
@@ -495,8 +508,15 @@ class Store:
 
     def backup(self, dest: str | Path) -> Path:
         """A consistent copy of a SQLite store while others use it
-        (SQLite's online backup API). A PostgreSQL store is backed up with
-        PostgreSQL's own tools; the error says how."""
+        (SQLite's online backup API), checked before it gets its name.
+
+        ``dest`` is a new file, or a directory (one that exists, or any path
+        ending in "/", created if missing) that receives
+        ``sounding-backup-<UTC time>.db``. The copy is written under a
+        temporary name beside it and renamed only once it is complete and
+        passes SQLite's integrity check, so a killed backup never leaves a
+        plausible-looking file.
+        """
         if self.backend == "postgresql":
             u = make_url(self.url)
             raise StoreError(
@@ -507,20 +527,39 @@ class Store:
             )
         if not self.url.startswith("sqlite:///"):
             raise StoreError("backup is available for SQLite stores only")
+        text = str(dest)
         dest = Path(dest)
-        if dest.is_dir():
-            dest = dest / "sounding-backup.db"
+        if text.endswith(("/", os.sep)) or dest.is_dir():
+            dest = dest / f"sounding-backup-{now_utc():%Y%m%dT%H%M%SZ}.db"
         if dest.exists():
             raise InputError(f"{dest} already exists; choose a new file name", where=str(dest))
-        dest.parent.mkdir(parents=True, exist_ok=True)
-        src = sqlite3.connect(self.url.removeprefix("sqlite:///"))
-        dst = sqlite3.connect(str(dest))
         try:
-            with dst:
-                src.backup(dst)
+            dest.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise StoreError(f"cannot create {dest.parent}: {exc.strerror}") from None
+        tmp = dest.with_name(f".tmp-{dest.name}-{os.getpid()}")
+        try:
+            src = sqlite3.connect(self.url.removeprefix("sqlite:///"))
+            dst = sqlite3.connect(str(tmp))
+            try:
+                with dst:
+                    src.backup(dst)
+                # One self-contained file: no -wal/-shm companions beside the copy.
+                dst.execute("PRAGMA journal_mode=DELETE")
+                check = dst.execute("PRAGMA integrity_check").fetchone()[0]
+            finally:
+                dst.close()
+                src.close()
+            if check != "ok":
+                raise StoreError(f"the copy failed its integrity check: {check}")
+            os.replace(tmp, dest)
+        except (OSError, sqlite3.Error) as exc:
+            raise StoreError(
+                f"the backup to {dest} failed ({getattr(exc, 'strerror', None) or exc}); "
+                "nothing was written", hint="check the free space and permissions there",
+            ) from None
         finally:
-            dst.close()
-            src.close()
+            tmp.unlink(missing_ok=True)
         return dest
 
 

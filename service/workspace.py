@@ -8,8 +8,11 @@ on first use, and are shared by every request.
 
 from __future__ import annotations
 
+import logging
+import os
 import threading
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from pathlib import Path
@@ -17,11 +20,13 @@ from typing import Any
 
 import numpy as np
 
+from models.artefact import clean_leftovers, intact
 from models.embedding import Embedder
-from models.errors import InputError, LimitExceeded, StoreError
+from models.errors import InputError, LimitExceeded, ReadOnly, StoreError
 from models.index import VectorIndex
 
 from .importer import EmbedFn, ImportSummary, ProgressFn, import_csv
+from .locking import LOCK_FILE, WriteLock
 from .settings import Settings
 from .store import Store
 from .timeparse import as_utc, now_utc
@@ -67,6 +72,9 @@ def _utc_bound(dt: datetime | None, name: str) -> datetime | None:
                          value=dt.isoformat()) from None
 
 
+log = logging.getLogger("sounding.workspace")
+
+
 class Workspace:
     """Everything one data directory holds, loaded once."""
 
@@ -79,7 +87,16 @@ class Workspace:
                 f"cannot use {settings.resolved_home} as the data directory: {exc.strerror}",
                 hint="set SOUNDING_HOME or --home to a directory you can write",
             ) from None
-        self.store = Store(url=settings.db_url)
+        # A read-only directory (a read-only mount, a restored snapshot) still
+        # serves reads; every change is refused with one message (writing()).
+        self.read_only = not os.access(settings.resolved_home, os.W_OK)
+        self.store = Store(url=settings.db_url,
+                           read_only=self.read_only and settings.database_url is None)
+        self._writer = WriteLock(path=settings.resolved_home / LOCK_FILE,
+                                 wait_seconds=settings.write_wait_seconds)
+        if not self.read_only:
+            for p in clean_leftovers(settings.models_dir):
+                log.warning("removed %s, left by a training that did not finish", p.name)
         self.embedder = embedder or Embedder(
             model_path=settings.embed_model_path, batch_size=settings.embed_batch_size,
             backend=settings.embed_backend, quantize=settings.embed_quantize,
@@ -102,6 +119,22 @@ class Workspace:
 
     def close(self) -> None:
         self.store.close()
+
+    @contextmanager
+    def writing(self, what: str) -> Iterator[None]:
+        """Hold this data directory's write lock for ``what`` (service.locking):
+        imports, forgets, reindexing and training run one at a time."""
+        self.check_writable(what)
+        with self._writer.hold(what):
+            yield
+
+    def check_writable(self, what: str) -> None:
+        """Refuse ``what`` with one clear message when the directory is read-only."""
+        if self.read_only:
+            raise ReadOnly(
+                f"cannot run {what}: the data directory is read-only; reads still work",
+                hint="give the service a writable SOUNDING_HOME to make changes",
+            )
 
     # Index ------------------------------------------------------------------
 
@@ -132,8 +165,21 @@ class Workspace:
     def _rebuild(self) -> VectorIndex:
         ids, vecs, fp = self.store.index_data()
         index = VectorIndex(dim=vecs.shape[1] if len(vecs) else 384).fit(ids, vecs, fingerprint=fp)
-        index.save(self.settings.index_dir)
+        self._save_index(index)
         return index
+
+    def _save_index(self, index: VectorIndex) -> None:
+        """Save the index, or keep it in memory only: a full disk or a
+        read-only directory must not stop reads (it is rebuilt next start)."""
+        try:
+            index.save(self.settings.index_dir)
+        except (OSError, RuntimeError) as exc:  # FAISS reports write errors as RuntimeError
+            try:
+                (self.settings.index_dir / "index.faiss.tmp").unlink(missing_ok=True)
+            except OSError:
+                pass
+            log.warning("the index is kept in memory only; saving it failed: %s",
+                        getattr(exc, "strerror", None) or str(exc).splitlines()[0])
 
     def index_state(self) -> dict[str, Any]:
         """What the health endpoint reports: on disk, in step with the store?"""
@@ -147,7 +193,7 @@ class Workspace:
 
     def reindex(self) -> VectorIndex:
         """Rebuild the index from the vectors in the store."""
-        with self._lock:
+        with self.writing("a reindex"), self._lock:
             index = self._rebuild()
             self._index, self._index_stamp = index, self.store.stamp()
             self._index_own = self.store.own_writes
@@ -175,8 +221,16 @@ class Workspace:
             if pks:
                 vecs = self.store.vectors([pairs[p] for p in pks])
                 self._index.upsert(np.array(pks, dtype=np.int64), vecs, fingerprint=fp)
-            self._index.fingerprint_ = fp
-            self._index.save(self.settings.index_dir)
+            # The store's fingerprint may be claimed only if the index holds
+            # exactly the store's posts: a writer that bypassed the lock would
+            # otherwise leave an index that is short of posts yet "current".
+            if not np.array_equal(np.sort(self._index.ids()), np.sort(np.fromiter(
+                    pairs, dtype=np.int64, count=len(pairs)))):
+                log.warning("the index did not match the store after a change; rebuilt")
+                self._index = self._rebuild()
+            else:
+                self._index.fingerprint_ = fp
+                self._save_index(self._index)
             self._index_stamp, self._index_own = stamp, own
 
     # Import -----------------------------------------------------------------
@@ -192,19 +246,35 @@ class Workspace:
         embed: EmbedFn | None = None,
         batch_rows: int | None = None,
     ) -> ImportSummary:
-        self.index()  # load or rebuild first, so the update below is incremental
-        summary = import_csv(
-            self.store, self.embedder, path, account=account, mapping=mapping,
-            timezone=timezone, batch_rows=batch_rows or self.settings.import_batch_rows,
-            progress=progress, embed=embed,
-        )
-        if summary.changed_pks or summary.updated:
-            self._sync_index(summary.changed_pks)
-        return summary
+        with self.writing("an import"):
+            self.index()  # load or rebuild first, so the update below is incremental
+            before = self.store.counts()["posts"]
+            try:
+                summary = import_csv(
+                    self.store, self.embedder, path, account=account, mapping=mapping,
+                    timezone=timezone, batch_rows=batch_rows or self.settings.import_batch_rows,
+                    progress=progress, embed=embed,
+                )
+            except StoreError as exc:
+                # A full disk or a lost store mid-import: whole batches before
+                # it are stored, so say how far it got; the index follows them.
+                self._index_stamp = None
+                self.index()
+                added = self.store.counts()["posts"] - before
+                raise StoreError(
+                    f"the import stopped: {exc.message}. {added} new posts were stored "
+                    "before it stopped (whole batches only); the rest of the file was not",
+                    where=exc.where,
+                    hint="fix the cause (free disk space) and import the file again: "
+                    "stored rows are not added twice",
+                ) from None
+            if summary.changed_pks or summary.updated:
+                self._sync_index(summary.changed_pks)
+            return summary
 
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
         """Delete posts from the store and the index together."""
-        with self._lock:
+        with self.writing("a forget"), self._lock:
             self.index()
             pks = self.store.forget(account=account, post_id=post_id)
             self._sync_index([], pks)
@@ -315,17 +385,14 @@ class Workspace:
 
     def health(self) -> dict[str, Any]:
         counts = self.store.counts()
+        served, damaged = intact(self.settings.models_dir, "impressions")
         return {
             "posts": counts["posts"],
             "accounts": counts["accounts"],
             "model_id": self.embedder.model_id,
             "embedding": self.embedder.info(),
             "index": self.index_state(),
-            "forecaster": self._newest_model(),
+            "forecaster": served,
+            "damaged_models": [f"impressions/{v}: {why}" for v, why in damaged],
+            "read_only": self.read_only,
         }
-
-    def _newest_model(self) -> str | None:
-        from models.artefact import versions
-
-        found = versions(self.settings.models_dir, "impressions")
-        return found[-1] if found else None

@@ -10,6 +10,9 @@ from pathlib import Path
 import pytest
 
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
+# Starlette's TestClient sends "Host: testserver"; the service answers only
+# host names it knows (service.api.guard), so the tests name that one.
+os.environ.setdefault("SOUNDING_ALLOWED_HOSTS", '["testserver"]')
 
 from models.embedding import Embedder  # noqa: E402
 from pgsupport import SERVER, create_database, drop_database  # noqa: E402

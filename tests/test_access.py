@@ -24,7 +24,7 @@ from service.cli.history import check_bind
 from service.settings import Settings
 from service.workspace import Workspace
 
-TOKEN = "team-token-7f3a9c"
+TOKEN = "team-token-7f3a9c-5d1e8b2a4c6f0e9d"  # 32+ characters: needed off loopback
 
 
 def write_history(path: Path, n: int, *, prefix: str = "ac") -> Path:
@@ -222,4 +222,6 @@ def test_serve_command_refuses_public_address_without_token(
     r = runner.invoke(cli_app, ["serve", "--host", "0.0.0.0", "--port", "8765"],
                       env={**env, "SOUNDING_TOKEN": TOKEN})
     assert r.exit_code == 0, r.output
-    assert started == [{"host": "0.0.0.0", "port": 8765, "log_level": "info"}]
+    assert len(started) == 1
+    assert {k: started[0][k] for k in ("host", "port", "log_level")} == {
+        "host": "0.0.0.0", "port": 8765, "log_level": "info"}

@@ -8,14 +8,18 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from pathlib import Path
 
+import swagger_ui_bundle
 from fastapi import FastAPI
+from fastapi.openapi.docs import get_swagger_ui_html
+from fastapi.responses import HTMLResponse, JSONResponse
+from fastapi.staticfiles import StaticFiles
 
 from .. import __version__
 from ..settings import Settings, get_settings
 from ..forecasting import CAUTION
 from ..refresher import refreshing
 from ..workspace import Workspace
-from . import errors
+from . import errors, guard
 
 STATIC = Path(__file__).resolve().parent.parent / "static"
 
@@ -26,8 +30,10 @@ ROUTERS = (
 )
 
 
-def create_app(*, workspace: Workspace | None = None, settings: Settings | None = None) -> FastAPI:
-    """Build the app around one workspace (created from settings if not given)."""
+def create_app(*, workspace: Workspace | None = None, settings: Settings | None = None,
+               bound_host: str | None = None) -> FastAPI:
+    """Build the app around one workspace (created from settings if not given).
+    ``bound_host`` is the address it listens on, one of the Host names it answers."""
     ws = workspace or Workspace(settings=settings or get_settings())
 
     @asynccontextmanager
@@ -42,9 +48,13 @@ def create_app(*, workspace: Workspace | None = None, settings: Settings | None 
         version=__version__,
         description="A sounding board for social-media drafts. " + CAUTION,
         lifespan=lifespan,
+        docs_url=None,  # our /docs below serves its files itself, never from a CDN
+        redoc_url=None,
     )
     app.state.workspace = ws
     errors.install(app)
+    guard.install(app, ws.settings, bound=bound_host)
+    _docs(app)
     for name in ROUTERS:
         spec = f"{__package__}.routers.{name}"
         if importlib.util.find_spec(spec) is not None:
@@ -53,3 +63,25 @@ def create_app(*, workspace: Workspace | None = None, settings: Settings | None 
     if page is not None:
         importlib.import_module(page.name).mount(app)
     return app
+
+
+def _docs(app: FastAPI) -> None:
+    """/docs: Swagger UI from the swagger-ui-bundle package, so it works offline."""
+    app.mount("/docs-assets", StaticFiles(directory=str(swagger_ui_bundle.swagger_ui_path)),
+              name="docs-assets")
+
+    @app.get("/docs", include_in_schema=False)
+    def docs() -> HTMLResponse:
+        return get_swagger_ui_html(
+            openapi_url="/docs/openapi.json", title="sounding API",
+            swagger_js_url="/docs-assets/swagger-ui-bundle.js",
+            swagger_css_url="/docs-assets/swagger-ui.css",
+            swagger_favicon_url="/docs-assets/favicon-32x32.png",
+        )
+
+    @app.get("/docs/openapi.json", include_in_schema=False)
+    def docs_schema() -> JSONResponse:
+        # The bundled Swagger UI (4.15) renders OpenAPI 3.0 only and refuses a
+        # document that says 3.1; this copy for the page says 3.0.3. The real
+        # schema stays at /openapi.json.
+        return JSONResponse({**app.openapi(), "openapi": "3.0.3"})

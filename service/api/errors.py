@@ -8,6 +8,8 @@ an unexpected bug (which answers 500 without leaking a traceback).
 from __future__ import annotations
 
 import logging
+import re
+from typing import Any
 
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
@@ -43,11 +45,29 @@ def status_for(exc: SoundingError) -> int:
     return 400
 
 
+# An absolute path of two or more parts (not a URL, not a date like 2026/01/02).
+_PATH = re.compile(r"(?<![\w.:/~-])(?:/[\w.@%+~-]+){2,}/?")
+
+
+_SQLITE = re.compile(r"(sqlite[+\w]*:///)/?[^\s'\"?]*/")
+
+
+def scrub(body: dict[str, Any]) -> dict[str, Any]:
+    """The error body without server paths: each becomes its last part, so a
+    message still names the file without telling a client the layout."""
+    def clean(v: str) -> str:
+        v = _SQLITE.sub(r"\1", v)
+        return _PATH.sub(lambda m: m.group(0).rstrip("/").rsplit("/", 1)[-1], v)
+
+    return {k: clean(v) if isinstance(v, str) else v for k, v in body.items()}
+
+
 def install(app: FastAPI) -> None:
     @app.exception_handler(SoundingError)
     async def _ours(_req: Request, exc: SoundingError) -> JSONResponse:
         headers = {"WWW-Authenticate": "Bearer"} if isinstance(exc, AuthError) else None
-        return JSONResponse({"error": exc.to_dict()}, status_code=status_for(exc), headers=headers)
+        return JSONResponse({"error": scrub(exc.to_dict())}, status_code=status_for(exc),
+                            headers=headers)
 
     @app.exception_handler(RequestValidationError)
     async def _validation(_req: Request, exc: RequestValidationError) -> JSONResponse:

@@ -9,7 +9,7 @@ from .schemas import ErrorBody
 _TEXT = {
     401: "Missing or wrong bearer token",
     404: "Unknown account, post or resource",
-    409: "Not ready: no model trained yet, or too little history",
+    409: "Not ready: no model trained yet, or too little history; or busy: another change is running",
     413: "Past a configured limit",
     422: "Invalid input",
     503: "The store is unavailable",

@@ -64,6 +64,11 @@ class Health(BaseModel):
     embedding: EmbeddingState | None = None
     index: IndexState
     forecaster: str | None = Field(default=None, description="Version of the model in use")
+    damaged_models: list[str] = Field(
+        default_factory=list,
+        description="Model versions skipped because their files do not match their checksums",
+    )
+    read_only: bool = Field(default=False, description="The data directory refuses changes")
 
 
 class PrecedentsRequest(Strict):

@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import sqlite3
-from pathlib import Path
-
 import typer
 
 from models.errors import InputError, StoreError
@@ -39,7 +37,9 @@ def forget_cmd(
 
 @app.command("backup")
 def backup_cmd(
-    dest: Path = typer.Argument(..., help="New file for the copy (or an existing directory)."),
+    # A string, not a Path: a trailing "/" says DEST is a directory to create.
+    dest: str = typer.Argument(..., help="New file for the copy, or a directory (an existing "
+                               "one, or DIR/ to create it) that receives a dated copy."),
 ) -> None:
     """Copy the store to DEST while the service may keep running (SQLite online backup).
 

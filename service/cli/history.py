@@ -151,6 +151,9 @@ def precedents_cmd(
         print_precedents(found)
 
 
+MIN_TOKEN_CHARS = 32
+
+
 def check_bind(host: str, settings: Settings) -> None:
     """Refuse a non-loopback address without a token: the store is the team's."""
     try:
@@ -162,6 +165,14 @@ def check_bind(host: str, settings: Settings) -> None:
             f"refusing to listen on {host} without SOUNDING_TOKEN",
             hint="set SOUNDING_TOKEN, or use --host 127.0.0.1",
         )
+    # Anyone on the network may try tokens: a short one can be guessed.
+    if not loopback and len(settings.token.get_secret_value()) < MIN_TOKEN_CHARS:
+        raise InputError(
+            f"refusing to listen on {host}: SOUNDING_TOKEN has fewer than {MIN_TOKEN_CHARS} "
+            "characters",
+            hint="use a long random token, e.g. `python -c 'import secrets; "
+            "print(secrets.token_urlsafe(32))'`",
+        )
 
 
 @app.command("serve")
@@ -172,12 +183,15 @@ def serve_cmd(
     """Run the HTTP service (review page at /, API docs at /docs)."""
     import uvicorn
 
+    from ..api import guard
     from ..api.app import create_app
 
     ws = workspace()
     check_bind(host, ws.settings)
     out.print(f"serving {ws.settings.resolved_home} on http://{host}:{port}/  (API docs: /docs)")
-    uvicorn.run(create_app(workspace=ws), host=host, port=port, log_level="info")
+    uvicorn.run(create_app(workspace=ws, bound_host=host), host=host, port=port,
+                log_level="info", http=guard.protocol(ws.settings),
+                timeout_keep_alive=ws.settings.keep_alive_seconds)
 
 
 @app.command("demo")

@@ -14,9 +14,9 @@ router = APIRouter(prefix="/v1", tags=["forget"])
 
 
 @router.delete(
-    "/accounts/{handle}",
+    "/accounts/{handle:path}",  # a handle may hold "/"
     response_model=ForgetOut,
-    responses=ERRORS(401, 404, 422, 503),
+    responses=ERRORS(401, 404, 409, 422, 503),
     summary="Forget an account: its posts, metric snapshots and vectors",
 )
 def forget_account(handle: str, ws: WorkspaceDep, _auth: WriteAccess) -> ForgetOut:
@@ -25,9 +25,9 @@ def forget_account(handle: str, ws: WorkspaceDep, _auth: WriteAccess) -> ForgetO
 
 
 @router.delete(
-    "/posts/{post_id}",
+    "/posts/{post_id:path}",  # a post id may hold "/"
     response_model=ForgetOut,
-    responses=ERRORS(401, 404, 422, 503),
+    responses=ERRORS(401, 404, 409, 422, 503),
     summary="Forget one post: its metric snapshots and, when unused, its vector",
 )
 def forget_post(

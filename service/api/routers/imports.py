@@ -24,7 +24,7 @@ from python_multipart.multipart import MultipartParser, parse_options_header
 from starlette.concurrency import run_in_threadpool
 from starlette.requests import ClientDisconnect
 
-from models.errors import InputError, LimitExceeded
+from models.errors import InputError, LimitExceeded, StoreError
 
 from ...importer import parse_mapping
 from ..deps import WorkspaceDep, WriteAccess
@@ -248,16 +248,21 @@ def _remove(path: Path | None) -> None:
 @router.post(
     "/imports",
     response_model=ImportSummaryOut,
-    responses=ERRORS(401, 413, 422, 503),
+    responses=ERRORS(401, 409, 413, 422, 503),
     openapi_extra={"requestBody": UPLOAD_BODY},
     summary="Import past posts and their metrics from an uploaded CSV file",
 )
 async def create_import(request: Request, ws: WorkspaceDep, _auth: WriteAccess) -> ImportSummaryOut:
     """Rows with problems are reported with line, column and reason; every
     valid row is stored, in batches that are each one transaction."""
-    upload = await receive_upload(
-        request, directory=ws.settings.uploads_dir, max_bytes=ws.settings.max_upload_bytes
-    )
+    ws.check_writable("an import")  # before the upload is written into the data directory
+    try:
+        upload = await receive_upload(
+            request, directory=ws.settings.uploads_dir, max_bytes=ws.settings.max_upload_bytes
+        )
+    except OSError as exc:  # a full disk while the upload is written
+        raise StoreError(f"the upload could not be saved ({exc.strerror}); nothing was "
+                         "imported", hint="free some disk space and send it again") from None
     try:
         mapping = parse_mapping(upload.fields.get("map", []))
         account, timezone = upload.one("account"), upload.one("timezone")

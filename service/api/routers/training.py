@@ -13,7 +13,7 @@ router = APIRouter(prefix="/v1", tags=["training"])
 @router.post(
     "/training",
     response_model=TrainingOut,
-    responses=ERRORS(401, 409, 422),
+    responses=ERRORS(401, 409, 422, 503),
     summary="Train (and backtest) a new model version from the store",
     description="Needs the bearer token. The service switches to the new version when it "
     "is complete; forecasts in flight finish on the old one.",
