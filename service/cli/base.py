@@ -67,7 +67,7 @@ PURPOSES: dict[str, list[str]] = {
     "Before you publish": ["precedents", "check", "hours", "compare"],
     "What worked, and how good the forecasts are": ["segments", "train", "backtest",
                                                      "track-record"],
-    "Keeping things": ["forget", "backup", "serve", "demo", "model"],
+    "Keeping things": ["forget", "backup", "copy-to", "serve", "demo", "model"],
 }
 
 
