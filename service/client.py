@@ -127,18 +127,19 @@ class SoundingClient:
 
     def forecast(self, text: str, *, account: str, planned_at: datetime | str | None = None,
                  metric: str = "impressions", coverage: float = 0.8,
-                 draft_id: str | None = None) -> ForecastOut:
+                 draft_id: str | None = None, has_media: bool = False) -> ForecastOut:
         """Forecast one draft: interval, precedents, contributions and
         warnings (near-repeats are in ``warnings`` and ``repeats``)."""
         body = {"text": text, "account": account, "planned_at": _when(planned_at),
-                "metric": metric, "coverage": coverage, "draft_id": draft_id}
+                "metric": metric, "coverage": coverage, "draft_id": draft_id,
+                "has_media": has_media}
         return self._call("POST", "/v1/forecasts", _drop_none(body), ForecastOut)
 
-    def forecast_queue(self, drafts: Sequence[DraftLike], *, metric: str = "impressions",
+    def forecast_plan(self, drafts: Sequence[DraftLike], *, metric: str = "impressions",
                        coverage: float = 0.8) -> list[ForecastOut]:
         """Forecast several drafts in one request, in their order. Each draft
         is a ``DraftIn`` or a mapping with its fields (text, account,
-        planned_at, draft_id); a planned_at may be a datetime."""
+        planned_at, draft_id, has_media); a planned_at may be a datetime."""
         items = []
         for d in drafts:
             raw = d.model_dump() if isinstance(d, DraftIn) else dict(d)

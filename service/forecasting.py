@@ -171,6 +171,7 @@ class Draft:
     account: str
     planned_at: datetime | None = None  # aware; None means now
     draft_id: str | None = None
+    has_media: bool = False  # an image or video attached, as the has_media column of posts
 
 
 @dataclass(slots=True)
@@ -332,7 +333,7 @@ class Forecaster:
         hood = F.draft_neighbourhood(h, team, own, t=t, params=params)
         tz = view.zones[code]
         local = planned.astimezone(zone(tz))
-        form = F.text_form(d.text, has_link(d.text), False)
+        form = F.text_form(d.text, has_link(d.text), d.has_media)
         x, weights = F.assemble(h, hood, t=t, account=code,
                                 local_hour=local.hour + local.minute / 60.0,
                                 weekday=local.weekday(), form=form, params=params)

@@ -329,7 +329,7 @@ class HoursReport:
 
 def best_hours(ws: Workspace, text: str, *, account: str, day: date | None = None,
                week: bool = False, metric: str = "impressions", coverage: float = 0.8,
-               top: int = 3, now: datetime | None = None) -> HoursReport:
+               top: int = 3, now: datetime | None = None, has_media: bool = False) -> HoursReport:
     """Forecast ``text`` at every hour of ``day`` (default: tomorrow in the
     account's zone), or of the seven days from ``day`` with ``week``.
 
@@ -350,7 +350,8 @@ def best_hours(ws: Workspace, text: str, *, account: str, day: date | None = Non
     days = [first + timedelta(days=i) for i in range(WEEK_DAYS if week else 1)]
     instants = [t for d in days for t in day_slots(d, tz)]
     vec = ws.embed_drafts([text])
-    drafts = [Draft(text=text, account=account, planned_at=t) for t in instants]
+    drafts = [Draft(text=text, account=account, planned_at=t, has_media=has_media)
+              for t in instants]
     found = ws.forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now,
                                    vectors=np.repeat(vec, len(drafts), axis=0))
     z = zone(tz)
@@ -465,7 +466,8 @@ class VariantsReport:
 
 def compare_variants(ws: Workspace, texts: Sequence[str], *, account: str,
                      planned_at: datetime | None = None, metric: str = "impressions",
-                     coverage: float = 0.8, now: datetime | None = None) -> VariantsReport:
+                     coverage: float = 0.8, now: datetime | None = None,
+                     has_media: bool = False) -> VariantsReport:
     """Forecast each phrasing at the same time, rank by median, and list the
     precedents each has that none of the others has."""
     from .forecasting import Draft
@@ -484,8 +486,8 @@ def compare_variants(ws: Workspace, texts: Sequence[str], *, account: str,
             raise
     now = now or now_utc()
     planned = planned_at or now
-    drafts = [Draft(text=t, account=account, planned_at=planned, draft_id=str(i))
-              for i, t in enumerate(texts, start=1)]
+    drafts = [Draft(text=t, account=account, planned_at=planned, draft_id=str(i),
+                    has_media=has_media) for i, t in enumerate(texts, start=1)]
     found = ws.forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now)
     variants = [Variant(index=i, text=t, forecast=f)
                 for i, (t, f) in enumerate(zip(texts, found, strict=True), start=1)]

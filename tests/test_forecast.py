@@ -295,31 +295,6 @@ def test_api_forecasts_single_and_batch(demo_workspace):
     assert r.status_code == 409 and r.json()["error"]["code"] == "not_ready"
 
 
-def test_queue_file_bad_row_gets_a_reason(demo_workspace, tmp_path):
-    from service.queue import OUT_COLUMNS, forecast_queue
-
-    src = tmp_path / "queue.csv"
-    src.write_text(
-        "draft_id,account,text,planned_at\n"
-        'd1,loomhaven,"Magnolias, at last",2026-12-02T12:00\n'
-        "d2,ghost,Hello,2026-12-02T12:00\n"
-        "d3,loomhaven,Bad time,2026-13-40T99:00\n"
-        "d4,loomhaven_lab,Seed bank news,\n"
-    )
-    dest = tmp_path / "out.csv"
-    counts = forecast_queue(demo_workspace, src, dest)
-    assert counts == {"rows": 4, "forecast": 2, "failed": 2}
-    with dest.open(newline="") as f:
-        rows = list(csv.DictReader(f))
-    assert tuple(rows[0]) == OUT_COLUMNS
-    by_id = {r["draft_id"]: r for r in rows}
-    assert float(by_id["d1"]["low"]) <= float(by_id["d1"]["median"]) <= float(by_id["d1"]["high"])
-    assert by_id["d1"]["top_precedent_id"]
-    assert "unknown account" in by_id["d2"]["warnings"] and by_id["d2"]["median"] == ""
-    assert "cannot read time" in by_id["d3"]["warnings"]
-    assert by_id["d4"]["model_version"]
-
-
 def test_cli_check_json(demo_home, embedder, monkeypatch):
     from typer.testing import CliRunner
 

@@ -17,7 +17,7 @@ from typer.testing import CliRunner
 
 from service.api.app import create_app
 from service.forecasting import Draft
-from service.queue import forecast_queue
+from service.plan import forecast_plan
 from service.review import near_repeats_many
 from service.settings import Settings
 from service.workspace import Workspace
@@ -154,7 +154,7 @@ def test_team_message_and_settings_windows(demo, demo_workspace, demo_home, embe
         strict.close()
 
 
-def test_warnings_reach_api_cli_and_queue_file(demo, demo_workspace, demo_home, embedder,
+def test_warnings_reach_api_cli_and_plan_file(demo, demo_workspace, demo_home, embedder,
                                                monkeypatch, tmp_path: Path) -> None:
     frame, _, planted, row = demo
     p = planted[planted["kind"] == "same_account"].iloc[0]
@@ -178,11 +178,11 @@ def test_warnings_reach_api_cli_and_queue_file(demo, demo_workspace, demo_home, 
     assert "near-repeat" in res.output and p["original_post_id"] in res.output
 
     dest = tmp_path / "forecasts.csv"
-    forecast_queue(demo_workspace, DEMO / "queue.csv", dest)
+    forecast_plan(demo_workspace, DEMO / "plan.csv", dest)
     with dest.open(encoding="utf-8", newline="") as f:
         rows = {r["draft_id"]: r for r in csv.DictReader(f)}  # RFC 4180 reader
-    # Source: demo_data/effects.json queue.near_repeat (the queue's planted repeat).
-    planted_q = EFFECTS["queue"]["near_repeat"]
+    # Source: demo_data/effects.json plan.near_repeat (the plan's planted repeat).
+    planted_q = EFFECTS["plan"]["near_repeat"]
     assert "near-repeat" in rows[planted_q["draft_id"]]["warnings"]
     assert planted_q["post_id"] in rows[planted_q["draft_id"]]["warnings"]
     others = [d for d, r in rows.items() if d != planted_q["draft_id"] and "near-repeat" in r["warnings"]]

@@ -123,6 +123,7 @@ class DraftIn(Strict):
         examples=["2026-12-02T10:00:00+01:00"],
     )
     draft_id: str | None = None
+    has_media: bool = Field(default=False, description="An image or video goes with the text")
 
 
 class ForecastRequest(DraftIn):
@@ -208,6 +209,7 @@ class HoursRequest(Strict):
     metric: str = METRIC_FIELD
     coverage: float = Field(default=0.8, ge=0.5, le=0.95)
     top: int = Field(default=3, ge=1, le=168, description="How many of the best hours to list")
+    has_media: bool = Field(default=False, description="An image or video goes with the text")
 
 
 class SlotOut(BaseModel):
@@ -254,6 +256,8 @@ class VariantsRequest(Strict):
         "zone. Default: now.", examples=["2026-12-03T12:30:00"])
     metric: str = METRIC_FIELD
     coverage: float = Field(default=0.8, ge=0.5, le=0.95)
+    has_media: bool = Field(default=False, description="An image or video goes with every "
+                            "variant")
 
 
 class VariantOut(BaseModel):

@@ -53,12 +53,13 @@ def hours_cmd(
     metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
     coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
     top: int = typer.Option(3, "--top", help="How many of the best hours to list."),
+    media: bool = typer.Option(False, "--media", help="An image or video goes with the text."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
     """Forecast a draft at every hour of a day (or a week) in the account's zone."""
     r = best_hours(workspace(), text, account=account,
                    day=parse_day(day, where="--day") if day else None, week=week,
-                   metric=metric, coverage=coverage, top=top)
+                   metric=metric, coverage=coverage, top=top, has_media=media)
     if as_json:
         print_json(r.to_dict())
     else:
@@ -93,13 +94,14 @@ def compare_cmd(
         None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."),
     metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
     coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
+    media: bool = typer.Option(False, "--media", help="An image or video goes with each phrasing."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
     """Forecast several phrasings of one draft side by side."""
     if len(texts) < 2:
         raise InputError("give at least two phrasings to compare", field="texts")
     r = compare_variants(workspace(), texts, account=account, planned_at=planned(at, account),
-                         metric=metric, coverage=coverage)
+                         metric=metric, coverage=coverage, has_media=media)
     if as_json:
         print_json(r.to_dict())
     else:

@@ -14,7 +14,8 @@ router = APIRouter(prefix="/v1", tags=["forecasts"])
 def to_draft(ws, d: DraftIn, where: str) -> Draft:  # noqa: ANN001 - workspace
     tz = ws.store.account(d.account).timezone
     planned = parse_time(d.planned_at, tz=tz, where=where) if d.planned_at else None
-    return Draft(text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id)
+    return Draft(text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id,
+                 has_media=d.has_media)
 
 
 @router.post(

@@ -22,5 +22,6 @@ router = APIRouter(prefix="/v1", tags=["hours"])
 )
 def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursOut:
     report = best_hours(ws, body.text, account=body.account, day=body.day, week=body.week,
-                        metric=body.metric, coverage=body.coverage, top=body.top)
+                        metric=body.metric, coverage=body.coverage, top=body.top,
+                        has_media=body.has_media)
     return HoursOut(**report.to_dict())

@@ -24,5 +24,6 @@ def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsOut:
     tz = ws.store.account(body.account).timezone
     planned = parse_time(body.planned_at, tz=tz, where="planned_at") if body.planned_at else None
     report = compare_variants(ws, body.texts, account=body.account, planned_at=planned,
-                              metric=body.metric, coverage=body.coverage)
+                              metric=body.metric, coverage=body.coverage,
+                              has_media=body.has_media)
     return VariantsOut(**report.to_dict())
