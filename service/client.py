@@ -10,9 +10,8 @@
 
 Answers are the API's own pydantic schemas (``service.api.schemas``), so a
 script gets attributes and types rather than loose dictionaries. Errors
-come back as the library's exceptions (``models.errors``) carrying the
-API's message: 422 -> InputError, 413 -> LimitExceeded, 404 -> NotFound,
-409 -> NotReady, 401 -> AuthError, 503 -> StoreError; a service that
+come back as the very class the service raised (``models.errors``, looked
+up by the body's ``code``), carrying the API's message; a service that
 cannot be reached -> ServiceUnavailable (a StoreError).
 """
 
@@ -26,17 +25,7 @@ from typing import Any, TypeVar
 import httpx
 from pydantic import BaseModel, ValidationError
 
-from models.errors import (
-    AuthError,
-    InputError,
-    LimitExceeded,
-    NotFound,
-    NotReady,
-    ServiceUnavailable,
-    SoundingError,
-    StoreError,
-    TimeParseError,
-)
+from models.errors import ServiceUnavailable, SoundingError, error_class
 
 from .api.schemas import (
     DraftIn,
@@ -50,29 +39,15 @@ from .api.schemas import (
 M = TypeVar("M", bound=BaseModel)
 DraftLike = Mapping[str, Any] | DraftIn
 
-_BY_STATUS: dict[int, type[SoundingError]] = {
-    422: InputError, 404: NotFound, 409: NotReady, 401: AuthError, 503: StoreError,
-}
-
-
 def error_from(status: int, body: Any) -> SoundingError:
-    """The library exception for an API error answer ``{"error": {...}}``."""
+    """The library exception for an API error answer ``{"error": {...}}``:
+    the class named by its code, or by its status when the code is not ours."""
     err = body.get("error") if isinstance(body, dict) else None
     if not isinstance(err, dict):
         err = {}
-    message = str(err.get("message") or f"the service answered HTTP {status}")
-    context = {k: err.get(k) for k in ("where", "field", "hint")}
-    if status == 413 or err.get("code") == "limit_exceeded":
-        maximum = err.get("maximum")
-        return LimitExceeded(message, limit=str(err.get("limit") or ""),
-                             maximum=int(maximum) if isinstance(maximum, int) else 0, **context)
-    if status == 422 and err.get("code") == "invalid_time":
-        return TimeParseError(message, **context)
-    cls = _BY_STATUS.get(status, SoundingError)
-    exc = cls(message, **context)
-    if cls is SoundingError:
-        exc.code = str(err.get("code") or "error")
-    return exc
+    if not err.get("message"):
+        err = {**err, "message": f"the service answered HTTP {status}"}
+    return error_class(str(err.get("code") or ""), status).from_dict(err)
 
 
 def _when(value: datetime | str | None) -> str | None:

@@ -149,8 +149,7 @@ EDGE_REQUESTS = [
 
 @pytest.mark.parametrize(("method", "path", "kw"), EDGE_REQUESTS)
 def test_edge_inputs_are_answered_as_bad_input(fuzz_app, method: str, path: str, kw: dict) -> None:
-    if path not in {r for r in schema.raw_schema["paths"]}:
-        pytest.skip(f"{path} is not served yet")
+    assert path in schema.raw_schema["paths"], f"{path} is not served"
     from fastapi.testclient import TestClient
 
     kw = dict(kw)

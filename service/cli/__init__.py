@@ -7,15 +7,13 @@ only a bug shows a traceback.
 
 from __future__ import annotations
 
-import importlib
-import importlib.util
-
+# Command modules register their commands on ``app`` when imported, in the
+# order their commands appear in --help. Imported by name: a missing module
+# fails here rather than silently dropping its commands.
+from . import history, forecast, review, segments, admin  # noqa: F401, I001
 from .base import app
 
-# Command modules, in the order their commands appear in --help.
-for _name in ("history", "forecast", "review", "segments", "admin"):
-    if importlib.util.find_spec(f"{__name__}.{_name}") is not None:
-        importlib.import_module(f"{__name__}.{_name}")
+COMMAND_MODULES = (history, forecast, review, segments, admin)
 
 
 def main() -> None:

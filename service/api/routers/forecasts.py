@@ -2,6 +2,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
+from models.errors import InputError, LimitExceeded, NotFound, NotReady
+
 from ...forecasting import Draft
 from ...timeparse import parse_time
 from ..deps import WorkspaceDep
@@ -21,7 +23,7 @@ def to_draft(ws, d: DraftIn, where: str) -> Draft:  # noqa: ANN001 - workspace
 @router.post(
     "/forecasts",
     response_model=ForecastOut | ForecastList,
-    responses=ERRORS(404, 409, 413, 422),
+    responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast one draft, or a list of drafts",
     description="Send one draft's fields, or {'drafts': [...]} for several. The answer is an "
     "interval with its stated and backtested coverage: an estimate from this team's history, "

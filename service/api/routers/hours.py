@@ -2,6 +2,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
+from models.errors import InputError, LimitExceeded, NotFound, NotReady
+
 from ...review import best_hours
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
@@ -13,7 +15,7 @@ router = APIRouter(prefix="/v1", tags=["hours"])
 @router.post(
     "/hours",
     response_model=HoursOut,
-    responses=ERRORS(404, 409, 413, 422),
+    responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast one draft at every hour of a local day, or of seven days",
     description="Slots step hour by hour in UTC from local midnight to the next local midnight "
     "in the account's IANA zone (23 or 25 slots on daylight-saving days). The answer ranks the "

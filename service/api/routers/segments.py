@@ -5,6 +5,8 @@ from typing import Any
 from fastapi import APIRouter
 from fastapi.responses import Response
 
+from models.errors import InputError, NotFound, NotReady, StoreError
+
 from ...segmenting import SegmentRequest, render, segment
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
@@ -22,7 +24,7 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
         "split (per-segment distributions and medians with their intervals)",
         "content": {MEDIA_TYPES["png"]: _IMAGE, MEDIA_TYPES["svg"]: _IMAGE},
     },
-    **ERRORS(404, 409, 422, 503),
+    **ERRORS(NotFound, NotReady, InputError, StoreError),
 }
 
 

@@ -2,6 +2,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
+from models.errors import InputError, LimitExceeded, NotFound, NotReady
+
 from ...review import compare_variants
 from ...timeparse import parse_time
 from ..deps import WorkspaceDep
@@ -14,7 +16,7 @@ router = APIRouter(prefix="/v1", tags=["variants"])
 @router.post(
     "/variants",
     response_model=VariantsOut,
-    responses=ERRORS(404, 409, 413, 422),
+    responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast several phrasings of one draft side by side",
     description="Each variant is forecast for the same account and time, ranked by median, with "
     "the precedents it has that the others do not. Variants whose intervals overlap heavily are "
