@@ -69,7 +69,7 @@ def read_plan(ws: Workspace, path: Path) -> list[PlanRow]:
             try:
                 account = (rec.get("account") or "").strip()
                 tz = ws.store.account(account).timezone
-                text = ws.check_draft(rec.get("text") or "")
+                text = ws.forecaster.limits.check_draft(rec.get("text") or "")
                 planned = (parse_time(rec["planned_at"], tz=tz, where=where)
                            if (rec.get("planned_at") or "").strip() else None)
                 media = _flag(rec.get("has_media"), column="has_media", where=where)

@@ -53,7 +53,7 @@ from models.segments import (
     two_way,
 )
 
-from .forecasting import local_clock
+from .history import local_clock
 from .timeparse import now_utc
 
 #: What a one-way split can be made by, besides topics.

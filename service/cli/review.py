@@ -8,7 +8,8 @@ from rich.table import Table
 from models.errors import InputError
 
 from ..forecasting import CAUTION
-from ..review import HoursReport, VariantsReport, best_hours, compare_variants, parse_day
+from ..hours import HoursReport, best_hours, parse_day
+from ..wordings import VariantsReport, compare_variants
 from .base import app, out, print_json, workspace
 from .forecast import METRIC_HELP, planned
 
@@ -57,7 +58,7 @@ def hours_cmd(
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
     """Forecast a draft at every hour of a day (or a week) in the account's zone."""
-    r = best_hours(workspace(), text, account=account,
+    r = best_hours(workspace().forecaster, text, account=account,
                    day=parse_day(day, where="--day") if day else None, week=week,
                    metric=metric, coverage=coverage, top=top, has_media=media)
     if as_json:
@@ -100,7 +101,7 @@ def compare_cmd(
     """Forecast several phrasings of one draft side by side."""
     if len(texts) < 2:
         raise InputError("give at least two phrasings to compare", field="texts")
-    r = compare_variants(workspace(), texts, account=account, planned_at=planned(at, account),
+    r = compare_variants(workspace().forecaster, texts, account=account, planned_at=planned(at, account),
                          metric=metric, coverage=coverage, has_media=media)
     if as_json:
         print_json(r.to_dict())

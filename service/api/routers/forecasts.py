@@ -33,7 +33,7 @@ def forecasts(
     body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep
 ) -> ForecastOut | ForecastList:
     if isinstance(body, ForecastBatchRequest):
-        ws.check_batch(len(body.drafts))
+        ws.forecaster.limits.check_batch(len(body.drafts))
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
         found = ws.forecaster.forecast(drafts, metric=body.metric, coverage=body.coverage)
         return ForecastList(forecasts=[ForecastOut(**f.to_dict()) for f in found])

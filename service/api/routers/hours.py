@@ -4,7 +4,7 @@ from fastapi import APIRouter
 
 from models.errors import InputError, LimitExceeded, NotFound, NotReady
 
-from ...review import best_hours
+from ...hours import best_hours
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import HoursOut, HoursRequest
@@ -23,7 +23,7 @@ router = APIRouter(prefix="/v1", tags=["hours"])
     "team's history, not certainties.",
 )
 def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursOut:
-    report = best_hours(ws, body.text, account=body.account, day=body.day, week=body.week,
+    report = best_hours(ws.forecaster, body.text, account=body.account, day=body.day, week=body.week,
                         metric=body.metric, coverage=body.coverage, top=body.top,
                         has_media=body.has_media)
     return HoursOut(**report.to_dict())

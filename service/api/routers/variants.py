@@ -4,7 +4,7 @@ from fastapi import APIRouter
 
 from models.errors import InputError, LimitExceeded, NotFound, NotReady
 
-from ...review import compare_variants
+from ...wordings import compare_variants
 from ...timeparse import parse_time
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
@@ -25,7 +25,7 @@ router = APIRouter(prefix="/v1", tags=["variants"])
 def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsOut:
     tz = ws.store.account(body.account).timezone
     planned = parse_time(body.planned_at, tz=tz, where="planned_at") if body.planned_at else None
-    report = compare_variants(ws, body.texts, account=body.account, planned_at=planned,
+    report = compare_variants(ws.forecaster, body.texts, account=body.account, planned_at=planned,
                               metric=body.metric, coverage=body.coverage,
                               has_media=body.has_media)
     return VariantsOut(**report.to_dict())
