@@ -16,7 +16,7 @@ import threading
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
-from typing import Any, Protocol
+from typing import Any
 
 import numpy as np
 
@@ -28,6 +28,7 @@ from models.explain import describe, group_contributions
 from models.metrics import check_target, from_log
 from models.regressor import QuantileForecaster
 
+from .datadir import DataDir
 from .history import HistoryView, build_view, feature_params, local_clock
 from .limits import Limits
 from .precedents import precedents_for
@@ -45,16 +46,6 @@ CAUTION = (
     "is calibrated to the stated coverage, and backtested_coverage says how "
     "often such intervals held on past posts."
 )
-
-
-class DataDir(Protocol):
-    """What training reads: a data directory's store and settings (a Workspace)."""
-
-    @property
-    def store(self) -> Store: ...
-
-    @property
-    def settings(self) -> Settings: ...
 
 
 def training_set(view: HistoryView, params: F.FeatureParams, now: datetime

@@ -16,6 +16,7 @@ from .. import forecasting
 from ..forecasting import CAUTION, Draft, Forecast
 from ..plan import forecast_plan
 from ..timeparse import localize, parse_time, zone
+from ..workspace import Workspace
 from .base import app, out, print_json, workspace
 
 METRIC_HELP = "Metric to forecast: impressions, engagements, likes, link_clicks, engagement_rate, ..."
@@ -134,7 +135,7 @@ def check_cmd(
         print_forecast(f)
 
 
-def demo_forecast(ws: Any, draft: str) -> None:
+def demo_forecast(ws: Workspace, draft: str) -> None:
     """The forecasting half of `sounding demo`."""
     out.rule("3. train and backtest a forecast of impressions")
     m = forecasting.train(ws, "impressions")

@@ -1,7 +1,5 @@
 from __future__ import annotations
 
-from typing import Any
-
 from fastapi import APIRouter
 from fastapi.responses import Response
 
@@ -39,7 +37,7 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
     "one-line reading; Kruskal-Wallis tests the split as a whole. Differences are "
     "associations in this team's history, not causes.",
 )
-def segments(body: SegmentsRequest, ws: WorkspaceDep) -> Any:
+def segments(body: SegmentsRequest, ws: WorkspaceDep) -> SegmentsResponse | Response:
     req = SegmentRequest(
         topics=body.topics, by=body.by, metric=body.metric, mode=body.mode, k=body.k,
         threshold=body.threshold, hour_edges=body.hour_edges, length_edges=body.length_edges,
