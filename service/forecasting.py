@@ -90,6 +90,7 @@ def train(ws: DataDir, metric: str = "impressions", *, now: datetime | None = No
         "n_train": int(cut),
         "n_calibration": int(len(y) - cut),
         "train_until": datetime.fromtimestamp(times[cut - 1], tz=now.tzinfo).isoformat(),
+        "calibration_from": datetime.fromtimestamp(times[cut], tz=now.tzinfo).isoformat(),
         "features": {"k": params.k, "maturity_hours": params.maturity_s / 3600,
                      "similar_threshold": params.similar_threshold,
                      "baseline_posts": params.baseline_n},

@@ -104,8 +104,19 @@ def test_trained_model_is_a_versioned_artefact_with_report(demo_workspace):
     assert m.metric == "impressions"
     assert set(m.report["backtest"]["coverage_by_level"]) == {"0.5", "0.7", "0.8", "0.9", "0.95"}
     assert m.report["n_train"] + m.report["n_calibration"] == m.report["n_posts"]
-    # The calibration block comes later in time than the training block.
-    assert m.report["train_until"] < m.report["trained_at"]
+    # The calibration block comes later in time than the training block: the
+    # report's block bounds, checked against the posts' own times in the store.
+    until = datetime.fromisoformat(m.report["train_until"])
+    start = datetime.fromisoformat(m.report["calibration_from"])
+    assert until <= start
+    frame = demo_workspace.store.posts_frame()
+    as_of = datetime.fromisoformat(m.report["data_as_of"])
+    mature = frame[(frame["posted_at"] <= as_of - timedelta(
+        hours=demo_workspace.settings.maturity_hours)) & frame["impressions"].notna()]
+    assert len(mature) == m.report["n_posts"]
+    assert (mature["posted_at"] <= until).sum() >= m.report["n_train"]
+    assert (mature["posted_at"] < start).sum() <= m.report["n_train"]
+    assert (mature["posted_at"] >= start).sum() >= m.report["n_calibration"]
 
 
 def test_service_swaps_to_a_newer_model_whole(demo_copy):
