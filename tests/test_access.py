@@ -23,8 +23,8 @@ from service.cli.base import use_embedder
 from service.cli.history import check_bind
 from service.settings import Settings
 from service.workspace import Workspace
+from conftest import TOKEN
 
-TOKEN = "team-token-7f3a9c"
 
 
 def write_history(path: Path, n: int, *, prefix: str = "ac") -> Path:

@@ -32,8 +32,8 @@ from service.api.app import create_app
 from service.api.schemas import ErrorBody
 from service.settings import Settings
 from service.workspace import Workspace
+from conftest import TOKEN
 
-TOKEN = "fuzz-token-0123456789"
 CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
           response_schema_conformance]
 MAX_EXAMPLES = 30

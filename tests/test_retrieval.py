@@ -4,7 +4,7 @@ come back as precedents or near-repeats."""
 
 from __future__ import annotations
 
-from datetime import datetime, timedelta, timezone
+from datetime import timedelta
 
 import numpy as np
 
@@ -13,8 +13,9 @@ from models.features import FEATURE_NAMES
 from service.forecasting import Draft
 from service.history import build_view, feature_params
 from service.retrieval import Retriever
+from conftest import NOW
 
-NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
+
 
 
 def test_a_stored_post_as_a_draft_gets_its_training_row(demo_workspace) -> None:
