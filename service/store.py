@@ -13,7 +13,7 @@ import sqlite3
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
-from datetime import datetime
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -456,7 +456,9 @@ class Store:
             raise StoreError("backup is available for SQLite stores only")
         dest = Path(dest)
         if dest.is_dir():
-            dest = dest / "sounding-backup.db"
+            # Into a directory: a new file each time, named by the UTC time of the copy.
+            stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%S%fZ")
+            dest = dest / f"sounding-backup-{stamp}.db"
         if dest.exists():
             raise InputError(f"{dest} already exists; choose a new file name", where=str(dest))
         dest.parent.mkdir(parents=True, exist_ok=True)
@@ -465,6 +467,9 @@ class Store:
         try:
             with dst:
                 src.backup(dst)
+            # One self-contained file: the copy inherits WAL mode, which would leave
+            # -wal and -shm files beside it whenever it is opened read-only.
+            dst.execute("PRAGMA journal_mode=DELETE")
         finally:
             dst.close()
             src.close()
