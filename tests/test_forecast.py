@@ -198,7 +198,7 @@ def test_contributions_add_up_to_the_prediction(demo_workspace):
     view = fc.view("impressions")
     for d, f in zip(drafts, out, strict=True):
         vec = demo_workspace.embedder.encode([d.text])[0]
-        x = fc._features(view, model.features, d, vec, NOW)[0]
+        x = fc.features(view, model.features, d, vec, NOW)[0]
         raw = model.quantiles.median_model_.predict(x)[0]
         total = f.contributions["expected_log"] + sum(
             g["log_contribution"] for g in f.contributions["groups"])
