@@ -34,8 +34,7 @@ class HistoryView:
 
     def rows_of(self, pks: np.ndarray | list[int]) -> np.ndarray:
         """History rows of store row ids (ids not in the view are dropped)."""
-        return np.array([self.row_of_pk[int(p)] for p in pks if int(p) in self.row_of_pk],
-                        dtype=np.int64)
+        return np.array([self.row_of_pk[int(p)] for p in pks if int(p) in self.row_of_pk], dtype=np.int64)
 
 
 def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -55,8 +54,11 @@ def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
     values = [target_value(r, metric) for r in frame[list(METRIC_COLUMNS)].to_dict("records")]
     logs = np.log1p(np.array([np.nan if v is None else v for v in values], dtype=np.float64))
     codes = {h: i for i, h in enumerate(sorted(frame["account"].unique()))}
-    vecs = (store.vectors(list(frame["vector_key"])) if with_vectors and len(frame)
-            else np.zeros((len(frame), 0), dtype=np.float32))
+    vecs = (
+        store.vectors(list(frame["vector_key"]))
+        if with_vectors and len(frame)
+        else np.zeros((len(frame), 0), dtype=np.float32)
+    )
     history = F.History(
         pk=frame["pk"].to_numpy(np.int64),
         # Seconds since the epoch, whatever resolution pandas chose for datetimes.
@@ -66,15 +68,30 @@ def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
         vectors=vecs,
     )
     hours, days = local_clock(frame["posted_at"], frame["timezone"])
-    forms = np.array([F.text_form(t, bool(lk), bool(md)) for t, lk, md in zip(
-        frame["text"], frame["has_link"], frame["has_media"], strict=True)]).reshape(len(frame), -1)
+    forms = np.array(
+        [
+            F.text_form(t, bool(lk), bool(md))
+            for t, lk, md in zip(frame["text"], frame["has_link"], frame["has_media"], strict=True)
+        ]
+    ).reshape(len(frame), -1)
     zones = {codes[a]: str(z) for a, z in zip(frame["account"], frame["timezone"], strict=True)}
-    return HistoryView(metric, frame, history, hours, days, forms, codes,
-                       {int(p): i for i, p in enumerate(frame["pk"])}, zones)
+    return HistoryView(
+        metric,
+        frame,
+        history,
+        hours,
+        days,
+        forms,
+        codes,
+        {int(p): i for i, p in enumerate(frame["pk"])},
+        zones,
+    )
 
 
 def feature_params(settings: Settings) -> F.FeatureParams:
     return F.FeatureParams(
-        k=settings.neighbours, maturity_s=settings.maturity_hours * 3600.0,
-        similar_threshold=settings.similar_threshold, baseline_n=settings.baseline_posts,
+        k=settings.neighbours,
+        maturity_s=settings.maturity_hours * 3600.0,
+        similar_threshold=settings.similar_threshold,
+        baseline_n=settings.baseline_posts,
     )

@@ -45,8 +45,13 @@ def parse_day(text: str, *, where: str = "day") -> date:
             raise ValueError
         return date.fromisoformat(text.strip())
     except ValueError:
-        raise InputError(f"cannot read day {text!r}", where=where, field=where, value=text,
-                         hint="use an ISO 8601 date such as 2026-12-03") from None
+        raise InputError(
+            f"cannot read day {text!r}",
+            where=where,
+            field=where,
+            value=text,
+            hint="use an ISO 8601 date such as 2026-12-03",
+        ) from None
 
 
 @dataclass(slots=True)
@@ -77,9 +82,14 @@ class Slot:
             "planned_at": self.planned_at.isoformat(),
             "local_time": self.local.isoformat(timespec="minutes"),
             "local_date": self.local.date().isoformat(),
-            "local_hour": f"{self.local:%H:%M}", "utc_offset": self.offset,
-            "low": self.low, "median": self.median, "high": self.high,
-            "rank": self.rank, "like_best": self.like_best, "warnings": self.warnings,
+            "local_hour": f"{self.local:%H:%M}",
+            "utc_offset": self.offset,
+            "low": self.low,
+            "median": self.median,
+            "high": self.high,
+            "rank": self.rank,
+            "like_best": self.like_best,
+            "warnings": self.warnings,
         }
 
 
@@ -110,21 +120,40 @@ class HoursReport:
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "account": self.account, "timezone": self.timezone, "metric": self.metric,
-            "coverage": self.coverage, "backtested_coverage": self.backtested_coverage,
-            "model_version": self.model_version, "mode": self.mode,
-            "first_day": self.first_day.isoformat(), "last_day": self.last_day.isoformat(),
-            "n_slots": len(self.slots), "told_apart": self.told_apart,
-            "share_like_best": round(self.share_like_best, 3), "summary": self.summary,
-            "rule": RULE, "best": [s.to_dict() for s in self.best],
-            "slots": [s.to_dict() for s in self.slots], "warnings": self.warnings,
+            "account": self.account,
+            "timezone": self.timezone,
+            "metric": self.metric,
+            "coverage": self.coverage,
+            "backtested_coverage": self.backtested_coverage,
+            "model_version": self.model_version,
+            "mode": self.mode,
+            "first_day": self.first_day.isoformat(),
+            "last_day": self.last_day.isoformat(),
+            "n_slots": len(self.slots),
+            "told_apart": self.told_apart,
+            "share_like_best": round(self.share_like_best, 3),
+            "summary": self.summary,
+            "rule": RULE,
+            "best": [s.to_dict() for s in self.best],
+            "slots": [s.to_dict() for s in self.slots],
+            "warnings": self.warnings,
             "caution": CAUTION,
         }
 
 
-def best_hours(forecaster: Forecaster, text: str, *, account: str, day: date | None = None,
-               week: bool = False, metric: str = "impressions", coverage: float = 0.8,
-               top: int = 3, now: datetime | None = None, has_media: bool = False) -> HoursReport:
+def best_hours(
+    forecaster: Forecaster,
+    text: str,
+    *,
+    account: str,
+    day: date | None = None,
+    week: bool = False,
+    metric: str = "impressions",
+    coverage: float = 0.8,
+    top: int = 3,
+    now: datetime | None = None,
+    has_media: bool = False,
+) -> HoursReport:
     """Forecast ``text`` at every hour of ``day`` (default: tomorrow in the
     account's zone), or of the seven days from ``day`` with ``week``.
 
@@ -138,28 +167,52 @@ def best_hours(forecaster: Forecaster, text: str, *, account: str, day: date | N
     first = day or (now.astimezone(zone(tz)).date() + timedelta(days=1))
     # datetime holds years 1-9999 (Python docs); keep a week and any UTC offset inside it.
     if not FIRST_DAY <= first <= LAST_DAY:
-        raise InputError(f"day {first.isoformat()} is outside {FIRST_DAY} to {LAST_DAY}",
-                         field="day", value=first.isoformat())
+        raise InputError(
+            f"day {first.isoformat()} is outside {FIRST_DAY} to {LAST_DAY}",
+            field="day",
+            value=first.isoformat(),
+        )
     days = [first + timedelta(days=i) for i in range(WEEK_DAYS if week else 1)]
     instants = [t for d in days for t in day_slots(d, tz)]
     vec = forecaster.embed([text])
-    drafts = [Draft(text=text, account=account, planned_at=t, has_media=has_media)
-              for t in instants]
-    found = forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now,
-                                   vectors=np.repeat(vec, len(drafts), axis=0))
+    drafts = [Draft(text=text, account=account, planned_at=t, has_media=has_media) for t in instants]
+    found = forecaster.forecast(
+        drafts, metric=metric, coverage=coverage, now=now, vectors=np.repeat(vec, len(drafts), axis=0)
+    )
     z = zone(tz)
-    slots = [Slot(planned_at=t, local=t.astimezone(z), low=f.low, median=f.median, high=f.high,
-                  log=f.log, warnings=f.warnings) for t, f in zip(instants, found, strict=True)]
+    slots = [
+        Slot(
+            planned_at=t,
+            local=t.astimezone(z),
+            low=f.low,
+            median=f.median,
+            high=f.high,
+            log=f.log,
+            warnings=f.warnings,
+        )
+        for t, f in zip(instants, found, strict=True)
+    ]
     best, flags = like_best([s.log for s in slots])
     for s, r, flag in zip(slots, ranks([s.log[1] for s in slots]), flags, strict=True):
         s.rank, s.like_best = r, flag
     others = len(slots) - 1
     share = (sum(flags) - 1) / others if others else 1.0
     report = HoursReport(
-        account=account, timezone=tz, metric=metric, coverage=coverage,
-        backtested_coverage=found[0].backtested_coverage, model_version=found[0].model_version,
-        mode="week" if week else "day", first_day=days[0], last_day=days[-1], slots=slots,
-        best_index=best, share_like_best=share, told_apart=share <= 0.5, summary="", top=top,
+        account=account,
+        timezone=tz,
+        metric=metric,
+        coverage=coverage,
+        backtested_coverage=found[0].backtested_coverage,
+        model_version=found[0].model_version,
+        mode="week" if week else "day",
+        first_day=days[0],
+        last_day=days[-1],
+        slots=slots,
+        best_index=best,
+        share_like_best=share,
+        told_apart=share <= 0.5,
+        summary="",
+        top=top,
         warnings=list(slots[best].warnings),
     )
     report.summary = _hours_summary(report)
@@ -172,19 +225,25 @@ def _hours_summary(r: HoursReport) -> str:
     lower = [s for s in r.slots if not s.like_best]
     n = len(r.slots)
     if not lower:
-        return (f"These hours cannot be told apart with this history: every hour's "
-                f"{r.coverage:.0%} interval overlaps the best hour's by at least half its width.")
+        return (
+            f"These hours cannot be told apart with this history: every hour's "
+            f"{r.coverage:.0%} interval overlaps the best hour's by at least half its width."
+        )
     weaker = _spans(lower, week)
     if not r.told_apart:
-        return (f"These hours cannot be told apart with this history: {len(group) - 1} of the "
-                f"other {n - 1} hours have intervals overlapping the best hour's by at least half. "
-                f"Only {weaker} look clearly weaker.")
+        return (
+            f"These hours cannot be told apart with this history: {len(group) - 1} of the "
+            f"other {n - 1} hours have intervals overlapping the best hour's by at least half. "
+            f"Only {weaker} look clearly weaker."
+        )
     if len(group) == 1:
         return f"Best hour: {group[0].label(with_day=week)}; every other hour looks clearly weaker."
     shown = ", ".join(s.label(with_day=week) for s in group[: r.top])
     more = f" and {len(group) - r.top} more" if len(group) > r.top else ""
-    return (f"Best hours: {shown}{more}, about equal to each other (not ranked among "
-            f"themselves); the other {len(lower)} hours look clearly weaker.")
+    return (
+        f"Best hours: {shown}{more}, about equal to each other (not ranked among "
+        f"themselves); the other {len(lower)} hours look clearly weaker."
+    )
 
 
 def _spans(slots: list[Slot], week: bool) -> str:
@@ -197,8 +256,9 @@ def _spans(slots: list[Slot], week: bool) -> str:
             runs[-1].append(s)
         else:
             runs.append([s])
-    parts = [f"{r[0].local:%H:%M}" if len(r) == 1 else f"{r[0].local:%H:%M}\u2013{r[-1].local:%H:%M}"
-             for r in runs]
+    parts = [
+        f"{r[0].local:%H:%M}" if len(r) == 1 else f"{r[0].local:%H:%M}\u2013{r[-1].local:%H:%M}" for r in runs
+    ]
     return ", ".join(parts)
 
 

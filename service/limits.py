@@ -31,7 +31,9 @@ class Limits:
             raise LimitExceeded(
                 f"the draft has {len(text)} characters; the limit is "
                 f"{self.max_draft_chars} (SOUNDING_MAX_DRAFT_CHARS)",
-                limit="max_draft_chars", maximum=self.max_draft_chars, field="text",
+                limit="max_draft_chars",
+                maximum=self.max_draft_chars,
+                field="text",
             )
         return text
 
@@ -40,7 +42,9 @@ class Limits:
         if n > self.max_batch:
             raise LimitExceeded(
                 f"{n} drafts in one request; the limit is {self.max_batch} (SOUNDING_MAX_BATCH)",
-                limit="max_batch", maximum=self.max_batch, field="drafts",
+                limit="max_batch",
+                maximum=self.max_batch,
+                field="drafts",
             )
         return n
 

@@ -12,8 +12,10 @@ from collections.abc import Sequence
 
 import numpy as np
 
-RULE = ("two options are about equal when their intervals (log1p scale) overlap by at least "
-        "half of the narrower interval's width")
+RULE = (
+    "two options are about equal when their intervals (log1p scale) overlap by at least "
+    "half of the narrower interval's width"
+)
 
 
 def heavy_overlap(a: tuple[float, float], b: tuple[float, float]) -> bool:

@@ -27,8 +27,17 @@ from .workspace import Workspace
 
 PLAN_COLUMNS = ("draft_id", "account", "text", "planned_at")
 OPTIONAL_COLUMNS = ("has_media",)
-OUT_COLUMNS = ("draft_id", "metric", "low", "median", "high", "coverage", "model_version",
-               "top_precedent_id", "warnings")
+OUT_COLUMNS = (
+    "draft_id",
+    "metric",
+    "low",
+    "median",
+    "high",
+    "coverage",
+    "model_version",
+    "top_precedent_id",
+    "warnings",
+)
 
 
 @dataclass(frozen=True, slots=True)
@@ -70,12 +79,25 @@ def read_plan(ws: Workspace, path: Path) -> list[PlanRow]:
                 account = (rec.get("account") or "").strip()
                 tz = ws.store.account(account).timezone
                 text = ws.forecaster.limits.check_draft(rec.get("text") or "")
-                planned = (parse_time(rec["planned_at"], tz=tz, where=where)
-                           if (rec.get("planned_at") or "").strip() else None)
+                planned = (
+                    parse_time(rec["planned_at"], tz=tz, where=where)
+                    if (rec.get("planned_at") or "").strip()
+                    else None
+                )
                 media = _flag(rec.get("has_media"), column="has_media", where=where)
-                rows.append(PlanRow(line, draft_id, Draft(
-                    text=text, account=account, planned_at=planned, draft_id=draft_id,
-                    has_media=bool(media))))
+                rows.append(
+                    PlanRow(
+                        line,
+                        draft_id,
+                        Draft(
+                            text=text,
+                            account=account,
+                            planned_at=planned,
+                            draft_id=draft_id,
+                            has_media=bool(media),
+                        ),
+                    )
+                )
             except SoundingError as exc:
                 rows.append(PlanRow(line, draft_id, None, exc.message))
     _refuse_duplicates(rows, path)
@@ -90,13 +112,17 @@ def _refuse_duplicates(rows: list[PlanRow], path: Path) -> None:
     if repeated:
         said = "; ".join(f"{d!r} on lines {', '.join(map(str, ls))}" for d, ls in repeated.items())
         raise CSVFormatError(
-            f"draft_id must be unique in a plan file: {said}", where=str(path), field="draft_id",
-            value=next(iter(repeated)), hint="give each row its own draft_id",
+            f"draft_id must be unique in a plan file: {said}",
+            where=str(path),
+            field="draft_id",
+            value=next(iter(repeated)),
+            hint="give each row its own draft_id",
         )
 
 
-def forecast_plan(ws: Workspace, src: Path, dest: Path, *, metric: str = "impressions",
-                  coverage: float = 0.8) -> PlanCounts:
+def forecast_plan(
+    ws: Workspace, src: Path, dest: Path, *, metric: str = "impressions", coverage: float = 0.8
+) -> PlanCounts:
     """Forecast every row of ``src`` into ``dest``."""
     ws.forecaster.model(metric)  # no model, or an unknown metric, fails the whole file
     rows = read_plan(ws, Path(src))
@@ -121,12 +147,24 @@ def forecast_plan(ws: Workspace, src: Path, dest: Path, *, metric: str = "impres
         for i, row in enumerate(rows):
             fc = results.get(i)
             if fc is None:
-                w.writerow([row.draft_id, metric, "", "", "", coverage, "", "",
-                            problems.get(i) or "not forecast"])
+                w.writerow(
+                    [row.draft_id, metric, "", "", "", coverage, "", "", problems.get(i) or "not forecast"]
+                )
                 continue
             top = fc.precedents[0]["post_id"] if fc.precedents else ""
-            w.writerow([row.draft_id, metric, fc.low, fc.median, fc.high, fc.coverage,
-                        fc.model_version, top, "; ".join(fc.warnings)])
+            w.writerow(
+                [
+                    row.draft_id,
+                    metric,
+                    fc.low,
+                    fc.median,
+                    fc.high,
+                    fc.coverage,
+                    fc.model_version,
+                    top,
+                    "; ".join(fc.warnings),
+                ]
+            )
     return PlanCounts(rows=len(rows), forecast=len(results), failed=len(rows) - len(results))
 
 

@@ -37,9 +37,14 @@ class Precedent:
         }
 
 
-def precedents_for(store: Store, hits: list[tuple[int, float]], *, maturity_hours: float,
-                   now: datetime | None = None,
-                   details: dict[int, dict[str, Any]] | None = None) -> list[Precedent]:
+def precedents_for(
+    store: Store,
+    hits: list[tuple[int, float]],
+    *,
+    maturity_hours: float,
+    now: datetime | None = None,
+    details: dict[int, dict[str, Any]] | None = None,
+) -> list[Precedent]:
     """Precedents for (post row id, similarity) hits; ``details`` may pass
     rows already read from the store."""
     if details is None:
@@ -50,9 +55,18 @@ def precedents_for(store: Store, hits: list[tuple[int, float]], *, maturity_hour
         d = details.get(pk)
         if d is None:  # deleted between search and lookup
             continue
-        out.append(Precedent(
-            pk=pk, post_id=d["post_id"], account=d["account"], posted_at=d["posted_at"],
-            text=d["text"], similarity=sim, metrics=d["metrics"],
-            mature=d["posted_at"] <= cutoff, has_link=d["has_link"], has_media=d["has_media"],
-        ))
+        out.append(
+            Precedent(
+                pk=pk,
+                post_id=d["post_id"],
+                account=d["account"],
+                posted_at=d["posted_at"],
+                text=d["text"],
+                similarity=sim,
+                metrics=d["metrics"],
+                mature=d["posted_at"] <= cutoff,
+                has_link=d["has_link"],
+                has_media=d["has_media"],
+            )
+        )
     return out

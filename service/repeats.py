@@ -43,27 +43,37 @@ class Repeat:
         ago = _ago(self.days_before) + (" ago" if self.planned_is_now else " before the planned time")
         how = _how_it_did(self.metric, self.value, self.mature)
         snippet = self.text if len(self.text) <= 90 else self.text[:87].rstrip() + "..."
-        what = (f"{self.post_id} on {self.posted_at:%Y-%m-%d}, {how}, similarity "
-                f"{self.similarity:.2f}: \u201c{snippet}\u201d")
+        what = (
+            f"{self.post_id} on {self.posted_at:%Y-%m-%d}, {how}, similarity "
+            f"{self.similarity:.2f}: \u201c{snippet}\u201d"
+        )
         if self.scope == "own":
             return f"near-repeat: {self.account} posted something very similar {ago}: {what}"
-        return (f"near-repeat on the team: someone on the team ({self.account}) posted something "
-                f"very similar {ago}: {what}")
+        return (
+            f"near-repeat on the team: someone on the team ({self.account}) posted something "
+            f"very similar {ago}: {what}"
+        )
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "scope": self.scope, "post_id": self.post_id, "account": self.account,
-            "posted_at": self.posted_at.isoformat(), "days_before": round(self.days_before, 2),
-            "similarity": round(self.similarity, 4), "metric": self.metric, "value": self.value,
-            "mature": self.mature, "message": self.message,
+            "scope": self.scope,
+            "post_id": self.post_id,
+            "account": self.account,
+            "posted_at": self.posted_at.isoformat(),
+            "days_before": round(self.days_before, 2),
+            "similarity": round(self.similarity, 4),
+            "metric": self.metric,
+            "value": self.value,
+            "mature": self.mature,
+            "message": self.message,
         }
 
 
 def _ago(days: float) -> str:
     if days < 1:
-        hours = max(1, int(round(days * 24)))
+        hours = max(1, round(days * 24))
         return f"{hours} hour{'s' if hours != 1 else ''}"
-    n = int(round(days))
+    n = round(days)
     return f"{n} day{'s' if n != 1 else ''}"
 
 
@@ -74,9 +84,17 @@ def _how_it_did(metric: str, value: float | None, mature: bool) -> str:
     return shown if mature else f"{shown} so far (still gathering)"
 
 
-def near_repeats(retrieval: Retriever, settings: Settings, view: HistoryView, *, account: str,
-                 vector: np.ndarray, planned: datetime, now: datetime, k: int = 3
-                 ) -> list[Repeat]:
+def near_repeats(
+    retrieval: Retriever,
+    settings: Settings,
+    view: HistoryView,
+    *,
+    account: str,
+    vector: np.ndarray,
+    planned: datetime,
+    now: datetime,
+    k: int = 3,
+) -> list[Repeat]:
     """Posts above ``settings.repeat_similarity`` shortly before ``planned``.
 
     Same account: within ``repeat_window_days``; other accounts (teammates):
@@ -84,13 +102,19 @@ def near_repeats(retrieval: Retriever, settings: Settings, view: HistoryView, *,
     likeliest repeats. Only posts strictly before the planned time are
     searched, so re-checking a published post never finds itself.
     """
-    return near_repeats_many(retrieval, settings, view, [(account, vector, planned)], now=now,
-                             k=k)[0]
+    return near_repeats_many(retrieval, settings, view, [(account, vector, planned)], now=now, k=k)[0]
 
 
-def near_repeats_many(retrieval: Retriever, settings: Settings, view: HistoryView,
-                      items: Sequence[tuple[str, np.ndarray, datetime]], *, now: datetime,
-                      k: int = 3, wide: WideCache | None = None) -> list[list[Repeat]]:
+def near_repeats_many(
+    retrieval: Retriever,
+    settings: Settings,
+    view: HistoryView,
+    items: Sequence[tuple[str, np.ndarray, datetime]],
+    *,
+    now: datetime,
+    k: int = 3,
+    wide: WideCache | None = None,
+) -> list[list[Repeat]]:
     """``near_repeats`` of each (account, vector, planned time), own account's
     repeats first, at most ``k`` of each scope, most similar first.
 
@@ -113,25 +137,32 @@ def near_repeats_many(retrieval: Retriever, settings: Settings, view: HistoryVie
         for scope, span in spans:
             who = (h.account == code) if scope == "own" else (h.account != code)
             union = who & (h.time < times.max()) & (h.time >= times.min() - span)
-            hits = retrieval.above(view, vec, union, s.repeat_similarity,
-                                   (wide or {}).get(vec.tobytes()))
+            hits = retrieval.above(view, vec, union, s.repeat_similarity, (wide or {}).get(vec.tobytes()))
             for i, t in zip(idx, times, strict=True):
                 mine = [(r, sim) for r, sim in hits if t - span <= h.time[r] < t][:k]
-                out[i].extend(_repeat(view, scope, r, sim, t=t, now=now,
-                                      maturity=s.maturity_hours * 3600.0) for r, sim in mine)
+                out[i].extend(
+                    _repeat(view, scope, r, sim, t=t, now=now, maturity=s.maturity_hours * 3600.0)
+                    for r, sim in mine
+                )
     return out
 
 
-def _repeat(view: HistoryView, scope: str, row: int, sim: float, *, t: float, now: datetime,
-            maturity: float) -> Repeat:
+def _repeat(
+    view: HistoryView, scope: str, row: int, sim: float, *, t: float, now: datetime, maturity: float
+) -> Repeat:
     rec = view.frame.iloc[row]
     posted = view.history.time[row]
     return Repeat(
-        scope=scope, post_id=str(rec["post_id"]), account=str(rec["account"]),
-        posted_at=rec["posted_at"].to_pydatetime(), days_before=(t - posted) / DAY,
-        similarity=float(sim), metric=view.metric,
+        scope=scope,
+        post_id=str(rec["post_id"]),
+        account=str(rec["account"]),
+        posted_at=rec["posted_at"].to_pydatetime(),
+        days_before=(t - posted) / DAY,
+        similarity=float(sim),
+        metric=view.metric,
         value=target_value(_metrics(rec), view.metric),
-        mature=bool(posted <= now.timestamp() - maturity), text=str(rec["text"]),
+        mature=bool(posted <= now.timestamp() - maturity),
+        text=str(rec["text"]),
         planned_is_now=abs(t - now.timestamp()) < DAY,
     )
 

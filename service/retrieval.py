@@ -39,17 +39,23 @@ class Retriever:
     forgets, and FAISS allows no search while ids are removed or added.
     """
 
-    def __init__(self, *, store: Store, index: Callable[[], VectorIndex],
-                 lock: threading.RLock) -> None:
+    def __init__(self, *, store: Store, index: Callable[[], VectorIndex], lock: threading.RLock) -> None:
         self.store = store
         self._index = index
         self._lock = lock
 
     # Store row ids ----------------------------------------------------------
 
-    def nearest(self, vectors: np.ndarray, k: int, *, account: str | None = None,
-                since: datetime | None = None, until: datetime | None = None,
-                allowed_pks: np.ndarray | None = None) -> list[Hits]:
+    def nearest(
+        self,
+        vectors: np.ndarray,
+        k: int,
+        *,
+        account: str | None = None,
+        since: datetime | None = None,
+        until: datetime | None = None,
+        allowed_pks: np.ndarray | None = None,
+    ) -> list[Hits]:
         """(post row id, similarity) of the ``k`` nearest posts per vector,
         optionally among ``allowed_pks`` or one account's posts in a date range."""
         allowed = allowed_pks
@@ -66,20 +72,21 @@ class Retriever:
 
     # History rows -----------------------------------------------------------
 
-    def rows(self, view: HistoryView, vec: np.ndarray, k: int,
-             allowed: np.ndarray | None = None) -> Found:
+    def rows(self, view: HistoryView, vec: np.ndarray, k: int, allowed: np.ndarray | None = None) -> Found:
         """The ``k`` nearest posts of the view, among History rows ``allowed``."""
-        if allowed is not None and len(allowed) == 0 or k < 1:
+        if (allowed is not None and len(allowed) == 0) or k < 1:
             return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.float32)
         pks = None if allowed is None else view.history.pk[allowed]
-        hits = self.nearest(np.asarray(vec, dtype=np.float32).reshape(1, -1), k,
-                            allowed_pks=pks)[0]
+        hits = self.nearest(np.asarray(vec, dtype=np.float32).reshape(1, -1), k, allowed_pks=pks)[0]
         found = [(view.row_of_pk[p], s) for p, s in hits if p in view.row_of_pk]
-        return (np.array([r for r, _ in found], dtype=np.int64),
-                np.array([s for _, s in found], dtype=np.float32))
+        return (
+            np.array([r for r, _ in found], dtype=np.int64),
+            np.array([s for _, s in found], dtype=np.float32),
+        )
 
-    def wide(self, view: HistoryView, vec: np.ndarray, params: F.FeatureParams,
-             cache: WideCache | None = None) -> Found:
+    def wide(
+        self, view: HistoryView, vec: np.ndarray, params: F.FeatureParams, cache: WideCache | None = None
+    ) -> Found:
         """One wide, unfiltered search of the view (cached per vector)."""
         key = np.asarray(vec, dtype=np.float32).tobytes()
         if cache is not None and key in cache:
@@ -89,9 +96,16 @@ class Retriever:
             cache[key] = found
         return found
 
-    def neighbourhood(self, view: HistoryView, vec: np.ndarray, *, t: float, account: int,
-                      params: F.FeatureParams, cache: WideCache | None = None,
-                      ) -> F.Neighbourhood:
+    def neighbourhood(
+        self,
+        view: HistoryView,
+        vec: np.ndarray,
+        *,
+        t: float,
+        account: int,
+        params: F.FeatureParams,
+        cache: WideCache | None = None,
+    ) -> F.Neighbourhood:
         """A draft's neighbours at time ``t``: the ``k`` most similar posts
         settled by then across the team and within account code ``account``,
         by the rule the training rows use (``features.eligible``).
@@ -111,8 +125,14 @@ class Retriever:
             team = self.rows(view, vec, params.k, np.flatnonzero(ok))
         return F.draft_neighbourhood(h, team, own, t=t, params=params)
 
-    def above(self, view: HistoryView, vec: np.ndarray, mask: np.ndarray, threshold: float,
-              nearest: Found | None = None) -> list[tuple[int, float]]:
+    def above(
+        self,
+        view: HistoryView,
+        vec: np.ndarray,
+        mask: np.ndarray,
+        threshold: float,
+        nearest: Found | None = None,
+    ) -> list[tuple[int, float]]:
         """(History row, similarity) of every post in ``mask`` at or above
         ``threshold``, best first.
 
@@ -123,12 +143,14 @@ class Retriever:
         rows = np.flatnonzero(mask)
         if len(rows) == 0:
             return []
-        if nearest is not None and len(nearest[1]) and (
-                nearest[1][-1] < threshold or len(nearest[1]) >= len(view.history)):
+        if (
+            nearest is not None
+            and len(nearest[1])
+            and (nearest[1][-1] < threshold or len(nearest[1]) >= len(view.history))
+        ):
             near_rows, near_sims = nearest
             keep = mask[near_rows] & (near_sims >= threshold)
-            return [(int(r), float(x)) for r, x in zip(near_rows[keep], near_sims[keep],
-                                                         strict=True)]
+            return [(int(r), float(x)) for r, x in zip(near_rows[keep], near_sims[keep], strict=True)]
         k = min(len(rows), 16)
         while True:  # widen the search until it passes below the threshold
             found_rows, found_sims = self.rows(view, vec, k, rows)
@@ -136,8 +158,7 @@ class Retriever:
                 break
             k = min(len(rows), k * 4)
         keep = found_sims >= threshold
-        return [(int(r), float(s)) for r, s in zip(found_rows[keep], found_sims[keep],
-                                                     strict=True)]
+        return [(int(r), float(s)) for r, s in zip(found_rows[keep], found_sims[keep], strict=True)]
 
     # Training rows ----------------------------------------------------------
 
@@ -145,5 +166,10 @@ class Retriever:
     def training_matrix(view: HistoryView, params: F.FeatureParams) -> np.ndarray:
         """Leak-free feature rows of every post of the view (needs its vectors):
         each post's neighbours by the same eligibility rule as a draft's."""
-        return F.training_matrix(view.history, local_hours=view.local_hours,
-                                 weekdays=view.weekdays, forms=view.forms, params=params)
+        return F.training_matrix(
+            view.history,
+            local_hours=view.local_hours,
+            weekdays=view.weekdays,
+            forms=view.forms,
+            params=params,
+        )

@@ -16,6 +16,20 @@ from .overlap import RULE, heavy_overlap, like_best
 from .repeats import Repeat, near_repeats, near_repeats_many
 from .wordings import MAX_VARIANTS, Variant, VariantsReport, compare_variants
 
-__all__ = ["MAX_VARIANTS", "RULE", "HoursReport", "Repeat", "Slot", "Variant", "VariantsReport",
-           "best_hours", "compare_variants", "day_slots", "heavy_overlap", "like_best",
-           "near_repeats", "near_repeats_many", "parse_day"]
+__all__ = [
+    "MAX_VARIANTS",
+    "RULE",
+    "HoursReport",
+    "Repeat",
+    "Slot",
+    "Variant",
+    "VariantsReport",
+    "best_hours",
+    "compare_variants",
+    "day_slots",
+    "heavy_overlap",
+    "like_best",
+    "near_repeats",
+    "near_repeats_many",
+    "parse_day",
+]

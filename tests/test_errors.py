@@ -29,9 +29,18 @@ from service.client import error_from
 # RFC 9110 (HTTP semantics) and RFC 4918 section 11.2 (422), written out here:
 # 401 Unauthorized, 404 Not Found, 409 Conflict (state not ready), 413 Content Too
 # Large, 422 Unprocessable Content, 503 Service Unavailable.
-RFC_STATUS = {AuthError: 401, NotFound: 404, NotReady: 409, NotFittedError: 409,
-              LimitExceeded: 413, InputError: 422, CSVFormatError: 422, TimeParseError: 422,
-              StoreError: 503, ServiceUnavailable: 503}
+RFC_STATUS = {
+    AuthError: 401,
+    NotFound: 404,
+    NotReady: 409,
+    NotFittedError: 409,
+    LimitExceeded: 413,
+    InputError: 422,
+    CSVFormatError: 422,
+    TimeParseError: 422,
+    StoreError: 503,
+    ServiceUnavailable: 503,
+}
 
 
 def _instance(cls: type[SoundingError]) -> SoundingError:

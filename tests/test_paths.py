@@ -13,10 +13,10 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from conftest import AUTH, NOW, TOKEN, history_csv
 from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
-from conftest import AUTH, NOW, TOKEN, history_csv
 from models.artefact import CONFIG, TrainedModel, versions
 from models.errors import StoreError
 from service.api.app import create_app
@@ -35,8 +35,7 @@ def small_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     """300 invented posts of 2025 over two accounts, with engagements."""
     home = tmp_path_factory.mktemp("paths") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
-    (home.parent / "h.csv").write_bytes(history_csv(N, prefix="p", accounts=ACCOUNTS,
-                                                    engagements=True))
+    (home.parent / "h.csv").write_bytes(history_csv(N, prefix="p", accounts=ACCOUNTS, engagements=True))
     ws.import_csv(home.parent / "h.csv")
     ws.close()
     return home
@@ -69,8 +68,9 @@ def test_train_and_backtest_commands(ws: Workspace, tmp_path: Path, embedder) ->
     assert m.report["n_train"] + m.report["n_calibration"] == N
     assert "backtest" not in m.report
     out = tmp_path / "bt.json"
-    res = runner.invoke(cli_app, ["backtest", "--folds", "2", "--coverage", "0.7",
-                                  "--json", str(out)], env=env)
+    res = runner.invoke(
+        cli_app, ["backtest", "--folds", "2", "--coverage", "0.7", "--json", str(out)], env=env
+    )
     assert res.exit_code == 0, res.output
     report = json.loads(out.read_text())
     assert report["n_folds"] == 2 and report["coverage_nominal"] == 0.7
@@ -81,23 +81,27 @@ def test_training_engagement_rate(ws: Workspace) -> None:
     m = train(ws, "engagement_rate", now=NOW, backtest=False)
     # Engagement rate = engagements / impressions (common practice, no source);
     # it does not exist where impressions are 0, as on every 10th row of the file.
-    rates = [int(r["engagements"]) / int(r["impressions"]) for r in _rows()
-             if int(r["impressions"]) > 0]
+    rates = [int(r["engagements"]) / int(r["impressions"]) for r in _rows() if int(r["impressions"]) > 0]
     assert m.report["n_posts"] == len(rates) == N - N // 10
-    f = ws.forecaster.forecast([Draft(text="Snowdrops open early", account="loomhaven",
-                                      planned_at=NOW)], metric="engagement_rate", now=NOW)[0]
+    f = ws.forecaster.forecast(
+        [Draft(text="Snowdrops open early", account="loomhaven", planned_at=NOW)],
+        metric="engagement_rate",
+        now=NOW,
+    )[0]
     assert f.metric == "engagement_rate" and f.model_version == m.version
     assert 0 <= f.low <= f.median <= f.high
     # The middle estimate of a quantile model stays among the rates it learnt from.
     assert min(rates) <= f.median <= max(rates)
 
 
-@pytest.mark.parametrize(("config", "says"), [
-    ("{not json", "unreadable"),
-    (json.dumps({"format": 999, "metric": "impressions", "version": "v"}), "unsupported"),
-])
-def test_corrupt_or_unsupported_model_directory(ws: Workspace, embedder, config: str,
-                                                says: str) -> None:
+@pytest.mark.parametrize(
+    ("config", "says"),
+    [
+        ("{not json", "unreadable"),
+        (json.dumps({"format": 999, "metric": "impressions", "version": "v"}), "unsupported"),
+    ],
+)
+def test_corrupt_or_unsupported_model_directory(ws: Workspace, embedder, config: str, says: str) -> None:
     d = ws.settings.models_dir / "impressions" / "20990101T000000000Z"
     d.mkdir(parents=True)
     (d / CONFIG).write_text(config)
@@ -106,9 +110,11 @@ def test_corrupt_or_unsupported_model_directory(ws: Workspace, embedder, config:
         ws.forecaster.model("impressions")
     assert str(d) in err.value.message
     use_embedder(embedder)
-    res = CliRunner().invoke(cli_app, ["check", "Snowdrops open early", "--account",
-                                       "loomhaven"],
-                             env={"SOUNDING_HOME": str(ws.settings.resolved_home)})
+    res = CliRunner().invoke(
+        cli_app,
+        ["check", "Snowdrops open early", "--account", "loomhaven"],
+        env={"SOUNDING_HOME": str(ws.settings.resolved_home)},
+    )
     assert res.exit_code == 1 and says in res.output and "Traceback" not in res.output
 
 

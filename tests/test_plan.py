@@ -31,8 +31,7 @@ def _rows(dest: Path) -> list[dict[str, str]]:
 def test_bad_rows_get_a_reason_and_counts_add_up(demo_workspace, tmp_path):
     src = tmp_path / "plan.csv"
     src.write_text(
-        HEADER
-        + 'd1,loomhaven,"Magnolias, at last",2026-12-02T12:00\n'
+        HEADER + 'd1,loomhaven,"Magnolias, at last",2026-12-02T12:00\n'
         "d2,ghost,Hello,2026-12-02T12:00\n"
         "d3,loomhaven,Bad time,2026-13-40T99:00\n"
         "d4,loomhaven_lab,Seed bank news,\n"
@@ -53,8 +52,7 @@ def test_bad_rows_get_a_reason_and_counts_add_up(demo_workspace, tmp_path):
 def test_duplicate_draft_ids_are_refused_naming_the_lines(demo_workspace, tmp_path):
     src = tmp_path / "plan.csv"
     src.write_text(
-        HEADER
-        + "same,loomhaven,Magnolias are out,2026-12-02T12:00\n"
+        HEADER + "same,loomhaven,Magnolias are out,2026-12-02T12:00\n"
         "other,loomhaven,Volunteers wanted,2026-12-02T12:00\n"
         '"same",loomhaven_lab,"Seed bank\nnews",2026-12-03T12:00\n'
     )
@@ -70,7 +68,7 @@ def test_duplicate_draft_ids_are_refused_naming_the_lines(demo_workspace, tmp_pa
 def test_missing_column_and_bad_encoding_store_nothing(demo_workspace, tmp_path):
     src = tmp_path / "plan.csv"
     src.write_text("draft_id,account,text\nd1,loomhaven,Hello\n")
-    with pytest.raises(CSVFormatError, match="lacks column.*planned_at"):
+    with pytest.raises(CSVFormatError, match=r"lacks column.*planned_at"):
         forecast_plan(demo_workspace, src, tmp_path / "out.csv")
     src.write_bytes(HEADER.encode() + b"d1,loomhaven,Caf\xe9 opens,2026-12-02T12:00\n")
     with pytest.raises(CSVFormatError, match="UTF-8"):
@@ -78,12 +76,14 @@ def test_missing_column_and_bad_encoding_store_nothing(demo_workspace, tmp_path)
     assert not (tmp_path / "out.csv").exists()
 
 
-def test_media_reaches_the_forecast_from_every_door(demo_workspace, demo_home, embedder,
-                                                    monkeypatch, tmp_path):
+def test_media_reaches_the_forecast_from_every_door(
+    demo_workspace, demo_home, embedder, monkeypatch, tmp_path
+):
     text, at = "Frost on the Winter Walk and the witch hazels glowing", "2026-12-02T12:00"
     fc = demo_workspace.forecaster
-    base, media = fc.forecast([Draft(text=text, account="loomhaven"),
-                               Draft(text=text, account="loomhaven", has_media=True)])
+    base, media = fc.forecast(
+        [Draft(text=text, account="loomhaven"), Draft(text=text, account="loomhaven", has_media=True)]
+    )
     # Source: demo_data/effects.json "media": +0.2 on log impressions when media is attached.
     assert EFFECTS["media"] > 0
     assert media.median > base.median
@@ -95,9 +95,11 @@ def test_media_reaches_the_forecast_from_every_door(demo_workspace, demo_home, e
     assert with_media["median"] > plain["median"]
 
     src = tmp_path / "plan.csv"
-    src.write_text("draft_id,account,text,planned_at,has_media\n"
-                   f"a,loomhaven,{text},{at},false\nb,loomhaven,{text},{at},true\n"
-                   f"c,loomhaven,{text},{at},perhaps\n")
+    src.write_text(
+        "draft_id,account,text,planned_at,has_media\n"
+        f"a,loomhaven,{text},{at},false\nb,loomhaven,{text},{at},true\n"
+        f"c,loomhaven,{text},{at},perhaps\n"
+    )
     dest = tmp_path / "out.csv"
     counts = forecast_plan(demo_workspace, src, dest)
     rows = {r["draft_id"]: r for r in _rows(dest)}
@@ -108,8 +110,7 @@ def test_media_reaches_the_forecast_from_every_door(demo_workspace, demo_home, e
 
     use_embedder(embedder)
     monkeypatch.setenv("SOUNDING_HOME", str(demo_home))
-    res = CliRunner().invoke(app, ["check", text, "--account", "loomhaven", "--at", at,
-                                   "--media", "--json"])
+    res = CliRunner().invoke(app, ["check", text, "--account", "loomhaven", "--at", at, "--media", "--json"])
     assert res.exit_code == 0, res.output
     assert json.loads(res.stdout)["median"] == with_media["median"]
     res = CliRunner().invoke(app, ["check", "--plan", str(src), "--out", str(dest)])

@@ -7,15 +7,12 @@ from __future__ import annotations
 from datetime import timedelta
 
 import numpy as np
+from conftest import NOW
 
 from models.features import FEATURE_NAMES
-
 from service.forecasting import Draft
 from service.history import build_view, feature_params
 from service.retrieval import Retriever
-from conftest import NOW
-
-
 
 
 def test_a_stored_post_as_a_draft_gets_its_training_row(demo_workspace) -> None:
@@ -29,8 +26,12 @@ def test_a_stored_post_as_a_draft_gets_its_training_row(demo_workspace) -> None:
     picks = rng.choice(np.arange(len(view.history) // 2, len(view.history)), 12, replace=False)
     for i in picks:
         rec = view.frame.iloc[i]
-        draft = Draft(text=str(rec["text"]), account=str(rec["account"]),
-                      planned_at=rec["posted_at"].to_pydatetime(), has_media=bool(rec["has_media"]))
+        draft = Draft(
+            text=str(rec["text"]),
+            account=str(rec["account"]),
+            planned_at=rec["posted_at"].to_pydatetime(),
+            has_media=bool(rec["has_media"]),
+        )
         x, *_ = ws.forecaster.features(served, params, draft, view.history.vectors[i], now=NOW)
         # The same neighbours by the same rule: equal up to float32 summation order
         # (FAISS and numpy add the 384 products in different orders).

@@ -12,19 +12,41 @@ from service.cli import app as cli_app
 
 # Source: README.md, "HTTP API" table and "Everyday use" commands (our own docs).
 ENDPOINTS = {
-    ("GET", "/v1/health"), ("GET", "/v1/accounts"), ("POST", "/v1/precedents"),
-    ("POST", "/v1/forecasts"), ("POST", "/v1/hours"), ("POST", "/v1/variants"),
-    ("POST", "/v1/segments"), ("POST", "/v1/imports"), ("POST", "/v1/training"),
-    ("DELETE", "/v1/accounts/{handle}"), ("DELETE", "/v1/posts/{post_id}"),
+    ("GET", "/v1/health"),
+    ("GET", "/v1/accounts"),
+    ("POST", "/v1/precedents"),
+    ("POST", "/v1/forecasts"),
+    ("POST", "/v1/hours"),
+    ("POST", "/v1/variants"),
+    ("POST", "/v1/segments"),
+    ("POST", "/v1/imports"),
+    ("POST", "/v1/training"),
+    ("DELETE", "/v1/accounts/{handle}"),
+    ("DELETE", "/v1/posts/{post_id}"),
 }
-COMMANDS = {"account", "accounts", "import", "reindex", "precedents", "train", "backtest",
-            "check", "hours", "compare", "segments", "forget", "backup", "serve", "demo"}
+COMMANDS = {
+    "account",
+    "accounts",
+    "import",
+    "reindex",
+    "precedents",
+    "train",
+    "backtest",
+    "check",
+    "hours",
+    "compare",
+    "segments",
+    "forget",
+    "backup",
+    "serve",
+    "demo",
+}
 
 
 def test_every_documented_endpoint_is_in_the_schema(workspace) -> None:
     doc = create_app(workspace=workspace).openapi()
     served = {(m.upper(), p) for p, item in doc["paths"].items() for m in item}
-    assert ENDPOINTS <= served, ENDPOINTS - served
+    assert served >= ENDPOINTS, ENDPOINTS - served
 
 
 def test_the_page_and_its_files_are_served(workspace) -> None:
@@ -42,4 +64,4 @@ def test_the_page_and_its_files_are_served(workspace) -> None:
 
 def test_every_documented_command_is_registered() -> None:
     names = set(get_command(cli_app).commands)  # type: ignore[attr-defined]
-    assert COMMANDS <= names, COMMANDS - names
+    assert names >= COMMANDS, COMMANDS - names
