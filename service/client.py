@@ -26,6 +26,7 @@ import httpx
 from pydantic import BaseModel, ValidationError
 
 from models.errors import ServiceUnavailable, SoundingError, error_class
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from .api.schemas import (
     DraftIn,
@@ -101,7 +102,7 @@ class SoundingClient:
         return self._call("GET", "/v1/health", None, Health)
 
     def forecast(self, text: str, *, account: str, planned_at: datetime | str | None = None,
-                 metric: str = "impressions", coverage: float = 0.8,
+                 metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE,
                  draft_id: str | None = None, has_media: bool = False) -> ForecastOut:
         """Forecast one draft: interval, precedents, contributions and
         warnings (near-repeats are in ``warnings`` and ``repeats``)."""
@@ -110,8 +111,8 @@ class SoundingClient:
                 "has_media": has_media}
         return self._call("POST", "/v1/forecasts", _drop_none(body), ForecastOut)
 
-    def forecast_plan(self, drafts: Sequence[DraftLike], *, metric: str = "impressions",
-                       coverage: float = 0.8) -> list[ForecastOut]:
+    def forecast_plan(self, drafts: Sequence[DraftLike], *, metric: str = DEFAULT_METRIC,
+                       coverage: float = DEFAULT_COVERAGE) -> list[ForecastOut]:
         """Forecast several drafts in one request, in their order. Each draft
         is a ``DraftIn`` or a mapping with its fields (text, account,
         planned_at, draft_id, has_media); a planned_at may be a datetime."""
@@ -124,7 +125,7 @@ class SoundingClient:
         return self._call("POST", "/v1/forecasts", body, ForecastList).forecasts
 
     def best_hours(self, text: str, *, account: str, day: date | str | None = None,
-                   week: bool = False, metric: str = "impressions", coverage: float = 0.8,
+                   week: bool = False, metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE,
                    top: int = 3) -> HoursOut:
         """Forecast ``text`` at every hour of a local day (default tomorrow)
         or of seven days; says when the hours cannot be told apart."""
@@ -134,8 +135,8 @@ class SoundingClient:
         return self._call("POST", "/v1/hours", _drop_none(body), HoursOut)
 
     def compare(self, texts: Sequence[str], *, account: str,
-                planned_at: datetime | str | None = None, metric: str = "impressions",
-                coverage: float = 0.8) -> VariantsOut:
+                planned_at: datetime | str | None = None, metric: str = DEFAULT_METRIC,
+                coverage: float = DEFAULT_COVERAGE) -> VariantsOut:
         """Forecast several phrasings of one draft side by side, best first."""
         body = {"texts": list(texts), "account": account, "planned_at": _when(planned_at),
                 "metric": metric, "coverage": coverage}

@@ -25,7 +25,13 @@ from models.artefact import TrainedModel, newest
 from models.backtest import run_backtest
 from models.errors import InputError, NotReady
 from models.explain import describe, group_contributions
-from models.metrics import check_target, from_log
+from models.metrics import (
+    DEFAULT_COVERAGE,
+    DEFAULT_METRIC,
+    check_coverage,
+    check_target,
+    from_log,
+)
 from models.regressor import QuantileForecaster
 
 from .datadir import DataDir
@@ -63,7 +69,7 @@ QUANTILE_PARAMS: dict[str, Any] = {"n_estimators": 200, "learning_rate": 0.06, "
 MIN_TRAINING_POSTS = 200
 
 
-def train(ws: DataDir, metric: str = "impressions", *, now: datetime | None = None,
+def train(ws: DataDir, metric: str = DEFAULT_METRIC, *, now: datetime | None = None,
           backtest: bool = True, cal_fraction: float = 0.2) -> TrainedModel:
     """Train, backtest and save a new model version for ``metric``."""
     check_target(metric)
@@ -107,7 +113,7 @@ def train(ws: DataDir, metric: str = "impressions", *, now: datetime | None = No
     return trained
 
 
-def backtest(ws: DataDir, metric: str = "impressions", *, coverage: float = 0.8,
+def backtest(ws: DataDir, metric: str = DEFAULT_METRIC, *, coverage: float = DEFAULT_COVERAGE,
              n_folds: int = 4, now: datetime | None = None) -> dict[str, Any]:
     check_target(metric)
     params = feature_params(ws.settings)
@@ -203,13 +209,11 @@ class Forecaster:
             self._views[metric] = (stamp, v)
         return v
 
-    def forecast(self, drafts: list[Draft], *, metric: str = "impressions",
-                 coverage: float = 0.8, now: datetime | None = None,
+    def forecast(self, drafts: list[Draft], *, metric: str = DEFAULT_METRIC,
+                 coverage: float = DEFAULT_COVERAGE, now: datetime | None = None,
                  vectors: np.ndarray | None = None) -> list[Forecast]:
         """Forecast each draft; ``vectors`` may pass embeddings already made."""
-        if not 0.5 <= coverage <= 0.95:
-            raise InputError(f"coverage must be between 0.5 and 0.95, got {coverage}",
-                             field="coverage", value=coverage)
+        check_coverage(coverage)
         model = self.model(metric)
         view = self.view(metric)
         now = now or now_utc()

@@ -7,6 +7,7 @@ this one view, so a post is described the same way everywhere.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 import pandas as pd
@@ -51,7 +52,8 @@ def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndar
 
 def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
     frame = store.posts_frame()
-    values = [target_value(r, metric) for r in frame[list(METRIC_COLUMNS)].to_dict("records")]
+    records = cast(list[dict[str, float | None]], frame[list(METRIC_COLUMNS)].to_dict("records"))
+    values = [target_value(r, metric) for r in records]
     logs = np.log1p(np.array([np.nan if v is None else v for v in values], dtype=np.float64))
     codes = {h: i for i, h in enumerate(sorted(frame["account"].unique()))}
     vecs = (

@@ -12,6 +12,7 @@ from typing import Any
 import numpy as np
 
 from models.errors import InputError
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from .forecasting import CAUTION, Draft, Forecaster
 from .overlap import RULE, like_best, ranks
@@ -148,8 +149,8 @@ def best_hours(
     account: str,
     day: date | None = None,
     week: bool = False,
-    metric: str = "impressions",
-    coverage: float = 0.8,
+    metric: str = DEFAULT_METRIC,
+    coverage: float = DEFAULT_COVERAGE,
     top: int = 3,
     now: datetime | None = None,
     has_media: bool = False,

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from models.errors import CSVFormatError, InputError, SoundingError
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from .forecasting import Draft, Forecast
 from .importer import _FALSE, _TRUE, check_encoding
@@ -121,7 +122,7 @@ def _refuse_duplicates(rows: list[PlanRow], path: Path) -> None:
 
 
 def forecast_plan(
-    ws: Workspace, src: Path, dest: Path, *, metric: str = "impressions", coverage: float = 0.8
+    ws: Workspace, src: Path, dest: Path, *, metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE
 ) -> PlanCounts:
     """Forecast every row of ``src`` into ``dest``."""
     ws.forecaster.model(metric)  # no model, or an unknown metric, fails the whole file

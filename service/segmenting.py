@@ -33,7 +33,7 @@ import pandas as pd
 
 from models.embedding import normalise_text
 from models.errors import InputError, NotReady
-from models.metrics import METRIC_COLUMNS, check_target, target_value
+from models.metrics import DEFAULT_METRIC, METRIC_COLUMNS, check_target, target_value
 from models.plots import FORMATS, plot_segments
 from models.segments import (
     DEFAULT_HOUR_EDGES,
@@ -95,7 +95,7 @@ class SegmentRequest:
 
     topics: Sequence[str] = ()
     by: str | None = None
-    metric: str = "impressions"
+    metric: str = DEFAULT_METRIC
     mode: str = "nearest"
     k: int = DEFAULT_K
     threshold: float = DEFAULT_THRESHOLD

@@ -11,6 +11,7 @@ from datetime import datetime
 from typing import Any
 
 from models.errors import InputError, LimitExceeded, SoundingError
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from .forecasting import CAUTION, Draft, Forecast, Forecaster
 from .overlap import RULE, like_best, ranks
@@ -80,8 +81,8 @@ def compare_variants(
     *,
     account: str,
     planned_at: datetime | None = None,
-    metric: str = "impressions",
-    coverage: float = 0.8,
+    metric: str = DEFAULT_METRIC,
+    coverage: float = DEFAULT_COVERAGE,
     now: datetime | None = None,
     has_media: bool = False,
 ) -> VariantsReport:
@@ -124,7 +125,6 @@ def compare_variants(
     told_apart = sum(flags) == 1
     equal = [v for v in variants if v.like_best]
     lower = [v for v in variants if not v.like_best]
-    names = lambda vs: ", ".join(f"#{v.index}" for v in vs)  # noqa: E731
     if not lower:
         summary = (
             "These variants cannot be told apart with this history: their intervals "
@@ -150,3 +150,8 @@ def compare_variants(
         told_apart=told_apart,
         summary=summary,
     )
+
+
+def names(variants: Sequence[Variant]) -> str:
+    """Variants by number, e.g. '#1, #3'."""
+    return ", ".join(f"#{v.index}" for v in variants)

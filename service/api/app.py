@@ -9,8 +9,8 @@ from pathlib import Path
 from fastapi import FastAPI
 
 from .. import __version__
-from ..settings import Settings, get_settings
 from ..forecasting import CAUTION
+from ..settings import Settings, get_settings
 from ..workspace import Workspace
 from . import errors, page
 from .routers import (

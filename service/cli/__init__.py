@@ -7,13 +7,16 @@ only a bug shows a traceback.
 
 from __future__ import annotations
 
-# Command modules register their commands on ``app`` when imported, in the
-# order their commands appear in --help. Imported by name: a missing module
-# fails here rather than silently dropping its commands.
-from . import history, forecast, review, segments, admin  # noqa: F401, I001
+# Command modules register their commands on ``app`` when imported. Imported
+# by name: a missing module fails here rather than silently dropping its commands.
+from . import admin, forecast, history, review, segments
 from .base import app
 
+#: The order their commands appear in --help.
 COMMAND_MODULES = (history, forecast, review, segments, admin)
+_ORDER = {m.__name__: i for i, m in enumerate(COMMAND_MODULES)}
+app.registered_commands.sort(
+    key=lambda c: _ORDER.get(getattr(c.callback, "__module__", ""), len(_ORDER)))
 
 
 def main() -> None:

@@ -11,6 +11,7 @@ import typer
 from rich.table import Table
 
 from models.errors import InputError
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
 
 from .. import forecasting
 from ..forecasting import CAUTION, Draft, Forecast
@@ -19,12 +20,13 @@ from ..timeparse import localize, parse_time, zone
 from ..workspace import Workspace
 from .base import app, out, print_json, workspace
 
-METRIC_HELP = "Metric to forecast: impressions, engagements, likes, link_clicks, engagement_rate, ..."
+METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
+COVERAGE_HELP = f"Interval coverage, {MIN_COVERAGE} to {MAX_COVERAGE}."
 
 
 @app.command("train")
 def train_cmd(
-    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     skip_backtest: bool = typer.Option(
         False, "--skip-backtest", help="Train without the backtest (forecasts then state no "
         "backtested coverage)."),
@@ -59,8 +61,8 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
 
 @app.command("backtest")
 def backtest_cmd(
-    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
-    coverage: float = typer.Option(0.8, "--coverage", help="Nominal interval coverage."),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
+    coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help="Nominal interval coverage."),
     folds: int = typer.Option(4, "--folds", help="Number of rolling-origin folds."),
     json_file: Path | None = typer.Option(None, "--json", help="Also write the report as JSON."),
 ) -> None:
@@ -105,8 +107,8 @@ def check_cmd(
     account: str | None = typer.Option(None, "--account", help="Account that would post it."),
     at: str | None = typer.Option(
         None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."),
-    coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
-    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
+    coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     plan: Path | None = typer.Option(
         None, "--plan", help="Plan CSV: draft_id,account,text,planned_at[,has_media]."),
     dest: Path | None = typer.Option(None, "--out", help="Where to write the plan's forecasts (CSV)."),
