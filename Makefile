@@ -8,7 +8,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 DEMO_HOME ?= .sounding-demo
 
-.PHONY: demo test serve bench system-deps clean
+.PHONY: demo test lint serve bench system-deps clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -27,6 +27,10 @@ demo: $(STAMP)
 ## test: install, then run the whole test suite (browser test included)
 test: $(STAMP) system-deps
 	$(BIN)/python -m pytest -q
+
+## lint: the import layers (import-linter contracts in pyproject.toml)
+lint: $(STAMP)
+	$(BIN)/lint-imports
 
 ## system-deps: Debian's chromium for the browser test, when missing
 system-deps:

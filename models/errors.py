@@ -6,8 +6,11 @@ HTTP API maps them to status codes in a single handler
 (``service.api.errors``); anything else is a bug.
 
 Each error carries context as attributes (``where``, ``field``, ``value``)
-so callers can act on it without parsing the message, and ``code`` is a
-stable, machine-readable name used in API error bodies.
+so callers can act on it without parsing the message. Each class states
+its stable, machine-readable ``code`` (used in API error bodies) and the
+HTTP ``status`` it answers with; ``ERROR_CLASSES`` is the one registry of
+them, read by the API's error handler, its OpenAPI declarations and the
+client (which raises the same class back from the code).
 
     SoundingError
     ├── InputError             bad input from the user (422)
@@ -23,13 +26,27 @@ stable, machine-readable name used in API error bodies.
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, ClassVar
+
+#: code -> class of every SoundingError, filled as the classes are defined.
+ERROR_CLASSES: dict[str, type[SoundingError]] = {}
 
 
 class SoundingError(Exception):
     """Base class of every expected error in sounding."""
 
-    code: str = "error"
+    code: ClassVar[str] = "error"
+    status: ClassVar[int] = 400
+    #: What the HTTP status means for this family, as the OpenAPI schema says it.
+    description: ClassVar[str] = "Refused"
+
+    def __init_subclass__(cls, **kw: Any) -> None:
+        super().__init_subclass__(**kw)
+        if "code" not in cls.__dict__:  # shares its parent's code (and class on the wire)
+            return
+        if cls.code in ERROR_CLASSES:
+            raise TypeError(f"error code {cls.code!r} is used twice")
+        ERROR_CLASSES[cls.code] = cls
 
     def __init__(
         self,
@@ -67,11 +84,33 @@ class SoundingError(Exception):
             out["hint"] = self.hint
         return out
 
+    @classmethod
+    def from_dict(cls, body: dict[str, Any]) -> SoundingError:
+        """The error again from its ``to_dict`` body (the client's side)."""
+        return cls(str(body.get("message") or cls.description), where=body.get("where"),
+                   field=body.get("field"), hint=body.get("hint"))
+
+
+ERROR_CLASSES[SoundingError.code] = SoundingError
+
+
+def error_class(code: str | None, status: int | None = None) -> type[SoundingError]:
+    """The class of an error code; for a code we do not know (e.g. a request
+    the web framework refused), the broadest class answering ``status``."""
+    if code in ERROR_CLASSES:
+        return ERROR_CLASSES[code]
+    for cls in ERROR_CLASSES.values():  # in definition order: parents first
+        if cls is not SoundingError and cls.status == status:
+            return cls
+    return SoundingError
+
 
 class InputError(SoundingError):
     """Bad input: a value, a row, a request field."""
 
     code = "invalid_input"
+    status = 422
+    description = "Invalid input"
 
 
 class CSVFormatError(InputError):
@@ -90,6 +129,8 @@ class LimitExceeded(InputError):
     """Past a configured limit (draft length, batch size, upload size)."""
 
     code = "limit_exceeded"
+    status = 413
+    description = "Past a configured limit"
 
     def __init__(self, message: str, *, limit: str, maximum: int, **kw: Any) -> None:
         super().__init__(message, **kw)
@@ -102,11 +143,20 @@ class LimitExceeded(InputError):
         out["maximum"] = self.maximum
         return out
 
+    @classmethod
+    def from_dict(cls, body: dict[str, Any]) -> SoundingError:
+        maximum = body.get("maximum")
+        return cls(str(body.get("message") or cls.description), limit=str(body.get("limit") or ""),
+                   maximum=maximum if isinstance(maximum, int) else 0, where=body.get("where"),
+                   field=body.get("field"), hint=body.get("hint"))
+
 
 class NotFound(SoundingError):
     """An account, post, model or other named thing does not exist."""
 
     code = "not_found"
+    status = 404
+    description = "Unknown account, post or resource"
 
 
 class NotReady(SoundingError):
@@ -114,6 +164,8 @@ class NotReady(SoundingError):
     enough history, a fitted estimator)."""
 
     code = "not_ready"
+    status = 409
+    description = "Not ready: no model trained yet, or too little history"
 
 
 class NotFittedError(NotReady, ValueError):
@@ -127,12 +179,16 @@ class AuthError(SoundingError):
     """Missing or wrong bearer token."""
 
     code = "unauthorized"
+    status = 401
+    description = "Missing or wrong bearer token"
 
 
 class StoreError(SoundingError):
     """The store or an artefact on disk cannot be used."""
 
     code = "store_error"
+    status = 503
+    description = "The store is unavailable"
 
 
 class ServiceUnavailable(StoreError):

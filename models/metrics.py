@@ -7,33 +7,46 @@ Counts in social media are heavy-tailed, so every target is modelled on a
 from __future__ import annotations
 
 from collections.abc import Mapping
+from enum import StrEnum
 
 import numpy as np
 
 from .errors import InputError
 
-#: Columns of a metric snapshot, in the order of the canonical CSV.
-METRIC_COLUMNS: tuple[str, ...] = (
-    "impressions",
-    "engagements",
-    "likes",
-    "reposts",
-    "replies",
-    "link_clicks",
-    "profile_clicks",
-)
+class Metric(StrEnum):
+    """Metrics a forecast or a segment split may be asked for: the snapshot
+    columns and the engagement rate (engagements / impressions)."""
 
-#: Metrics a forecast or a segment split may be asked for.
-TARGETS: tuple[str, ...] = (
-    "impressions",
-    "engagements",
-    "likes",
-    "reposts",
-    "replies",
-    "link_clicks",
-    "profile_clicks",
-    "engagement_rate",
-)
+    IMPRESSIONS = "impressions"
+    ENGAGEMENTS = "engagements"
+    LIKES = "likes"
+    REPOSTS = "reposts"
+    REPLIES = "replies"
+    LINK_CLICKS = "link_clicks"
+    PROFILE_CLICKS = "profile_clicks"
+    ENGAGEMENT_RATE = "engagement_rate"
+
+
+#: Metrics a forecast or a segment split may be asked for, as plain names.
+TARGETS: tuple[str, ...] = tuple(m.value for m in Metric)
+#: Columns of a metric snapshot, in the order of the canonical CSV.
+METRIC_COLUMNS: tuple[str, ...] = tuple(m.value for m in Metric if m is not Metric.ENGAGEMENT_RATE)
+#: What is forecast when no metric is named.
+DEFAULT_METRIC = Metric.IMPRESSIONS
+#: Nominal coverage of an interval when none is asked for, and the range that
+#: can be asked for (the trained quantile levels span it).
+DEFAULT_COVERAGE = 0.8
+MIN_COVERAGE, MAX_COVERAGE = 0.5, 0.95
+
+
+def check_coverage(coverage: float) -> float:
+    """Return ``coverage`` if it can be asked for, else raise a clear error."""
+    if not MIN_COVERAGE <= coverage <= MAX_COVERAGE:
+        raise InputError(
+            f"coverage must be between {MIN_COVERAGE} and {MAX_COVERAGE}, got {coverage}",
+            field="coverage", value=coverage,
+        )
+    return coverage
 
 
 def check_target(name: str) -> str:

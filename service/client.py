@@ -10,9 +10,8 @@
 
 Answers are the API's own pydantic schemas (``service.api.schemas``), so a
 script gets attributes and types rather than loose dictionaries. Errors
-come back as the library's exceptions (``models.errors``) carrying the
-API's message: 422 -> InputError, 413 -> LimitExceeded, 404 -> NotFound,
-409 -> NotReady, 401 -> AuthError, 503 -> StoreError; a service that
+come back as the very class the service raised (``models.errors``, looked
+up by the body's ``code``), carrying the API's message; a service that
 cannot be reached -> ServiceUnavailable (a StoreError).
 """
 
@@ -26,17 +25,8 @@ from typing import Any, TypeVar
 import httpx
 from pydantic import BaseModel, ValidationError
 
-from models.errors import (
-    AuthError,
-    InputError,
-    LimitExceeded,
-    NotFound,
-    NotReady,
-    ServiceUnavailable,
-    SoundingError,
-    StoreError,
-    TimeParseError,
-)
+from models.errors import ServiceUnavailable, SoundingError, error_class
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from .api.schemas import (
     DraftIn,
@@ -50,29 +40,15 @@ from .api.schemas import (
 M = TypeVar("M", bound=BaseModel)
 DraftLike = Mapping[str, Any] | DraftIn
 
-_BY_STATUS: dict[int, type[SoundingError]] = {
-    422: InputError, 404: NotFound, 409: NotReady, 401: AuthError, 503: StoreError,
-}
-
-
 def error_from(status: int, body: Any) -> SoundingError:
-    """The library exception for an API error answer ``{"error": {...}}``."""
+    """The library exception for an API error answer ``{"error": {...}}``:
+    the class named by its code, or by its status when the code is not ours."""
     err = body.get("error") if isinstance(body, dict) else None
     if not isinstance(err, dict):
         err = {}
-    message = str(err.get("message") or f"the service answered HTTP {status}")
-    context = {k: err.get(k) for k in ("where", "field", "hint")}
-    if status == 413 or err.get("code") == "limit_exceeded":
-        maximum = err.get("maximum")
-        return LimitExceeded(message, limit=str(err.get("limit") or ""),
-                             maximum=int(maximum) if isinstance(maximum, int) else 0, **context)
-    if status == 422 and err.get("code") == "invalid_time":
-        return TimeParseError(message, **context)
-    cls = _BY_STATUS.get(status, SoundingError)
-    exc = cls(message, **context)
-    if cls is SoundingError:
-        exc.code = str(err.get("code") or "error")
-    return exc
+    if not err.get("message"):
+        err = {**err, "message": f"the service answered HTTP {status}"}
+    return error_class(str(err.get("code") or ""), status).from_dict(err)
 
 
 def _when(value: datetime | str | None) -> str | None:
@@ -126,19 +102,20 @@ class SoundingClient:
         return self._call("GET", "/v1/health", None, Health)
 
     def forecast(self, text: str, *, account: str, planned_at: datetime | str | None = None,
-                 metric: str = "impressions", coverage: float = 0.8,
-                 draft_id: str | None = None) -> ForecastOut:
+                 metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE,
+                 draft_id: str | None = None, has_media: bool = False) -> ForecastOut:
         """Forecast one draft: interval, precedents, contributions and
         warnings (near-repeats are in ``warnings`` and ``repeats``)."""
         body = {"text": text, "account": account, "planned_at": _when(planned_at),
-                "metric": metric, "coverage": coverage, "draft_id": draft_id}
+                "metric": metric, "coverage": coverage, "draft_id": draft_id,
+                "has_media": has_media}
         return self._call("POST", "/v1/forecasts", _drop_none(body), ForecastOut)
 
-    def forecast_queue(self, drafts: Sequence[DraftLike], *, metric: str = "impressions",
-                       coverage: float = 0.8) -> list[ForecastOut]:
+    def forecast_plan(self, drafts: Sequence[DraftLike], *, metric: str = DEFAULT_METRIC,
+                       coverage: float = DEFAULT_COVERAGE) -> list[ForecastOut]:
         """Forecast several drafts in one request, in their order. Each draft
         is a ``DraftIn`` or a mapping with its fields (text, account,
-        planned_at, draft_id); a planned_at may be a datetime."""
+        planned_at, draft_id, has_media); a planned_at may be a datetime."""
         items = []
         for d in drafts:
             raw = d.model_dump() if isinstance(d, DraftIn) else dict(d)
@@ -148,7 +125,7 @@ class SoundingClient:
         return self._call("POST", "/v1/forecasts", body, ForecastList).forecasts
 
     def best_hours(self, text: str, *, account: str, day: date | str | None = None,
-                   week: bool = False, metric: str = "impressions", coverage: float = 0.8,
+                   week: bool = False, metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE,
                    top: int = 3) -> HoursOut:
         """Forecast ``text`` at every hour of a local day (default tomorrow)
         or of seven days; says when the hours cannot be told apart."""
@@ -158,8 +135,8 @@ class SoundingClient:
         return self._call("POST", "/v1/hours", _drop_none(body), HoursOut)
 
     def compare(self, texts: Sequence[str], *, account: str,
-                planned_at: datetime | str | None = None, metric: str = "impressions",
-                coverage: float = 0.8) -> VariantsOut:
+                planned_at: datetime | str | None = None, metric: str = DEFAULT_METRIC,
+                coverage: float = DEFAULT_COVERAGE) -> VariantsOut:
         """Forecast several phrasings of one draft side by side, best first."""
         body = {"texts": list(texts), "account": account, "planned_at": _when(planned_at),
                 "metric": metric, "coverage": coverage}

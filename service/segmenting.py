@@ -33,7 +33,7 @@ import pandas as pd
 
 from models.embedding import normalise_text
 from models.errors import InputError, NotReady
-from models.metrics import METRIC_COLUMNS, check_target, target_value
+from models.metrics import DEFAULT_METRIC, METRIC_COLUMNS, check_target, target_value
 from models.plots import FORMATS, plot_segments
 from models.segments import (
     DEFAULT_HOUR_EDGES,
@@ -53,7 +53,8 @@ from models.segments import (
     two_way,
 )
 
-from .forecasting import local_clock
+from .datadir import DataDir
+from .history import local_clock
 from .timeparse import now_utc
 
 #: What a one-way split can be made by, besides topics.
@@ -94,7 +95,7 @@ class SegmentRequest:
 
     topics: Sequence[str] = ()
     by: str | None = None
-    metric: str = "impressions"
+    metric: str = DEFAULT_METRIC
     mode: str = "nearest"
     k: int = DEFAULT_K
     threshold: float = DEFAULT_THRESHOLD
@@ -342,7 +343,7 @@ class _Posts:
     values: np.ndarray
 
 
-def _posts(ws: Any, req: SegmentRequest, now: datetime) -> tuple[_Posts, dict[str, int]]:
+def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dict[str, int]]:
     frame = ws.store.posts_frame(account=req.account)
     records = frame[list(METRIC_COLUMNS)].to_dict("records")
     raw = [target_value(r, req.metric) for r in records]
@@ -433,7 +434,7 @@ def _by_split(posts: _Posts, by: str, req: SegmentRequest) -> tuple[Split, np.nd
     return split, labels, present
 
 
-def _topic_vectors(ws: Any, topics: list[Topic]) -> np.ndarray:
+def _topic_vectors(ws: DataDir, topics: list[Topic]) -> np.ndarray:
     phrases = [p for t in topics for p in t.phrases]
     vecs = ws.embedder.encode(phrases)  # one call: every phrase embedded once
     out, i = [], 0
@@ -457,7 +458,7 @@ def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[
                     similarity=float(sims[i]), value=float(posts.values[i])) for i in top]
 
 
-def _topic_split(ws: Any, posts: _Posts, topics: list[Topic], req: SegmentRequest,
+def _topic_split(ws: DataDir, posts: _Posts, topics: list[Topic], req: SegmentRequest,
                  warnings: list[str]) -> tuple[Split, dict[str, np.ndarray]]:
     """The topic split and its members (name -> post rows), which may
     overlap in top-k mode."""
@@ -535,7 +536,7 @@ def _small_warnings(split: Split, min_n: int) -> list[str]:
     ]
 
 
-def segment(ws: Any, req: SegmentRequest, *, now: datetime | None = None) -> SegmentResult:
+def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) -> SegmentResult:
     """Split the store's mature posts by topic, by ``req.by``, or both (then
     also the two-way table topic x by)."""
     topics = _check(req)

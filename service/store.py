@@ -530,7 +530,7 @@ class Store:
         text = str(dest)
         dest = Path(dest)
         if text.endswith(("/", os.sep)) or dest.is_dir():
-            dest = dest / f"sounding-backup-{now_utc():%Y%m%dT%H%M%SZ}.db"
+            dest = dest / f"sounding-backup-{now_utc():%Y%m%dT%H%M%S%fZ}.db"
         if dest.exists():
             raise InputError(f"{dest} already exists; choose a new file name", where=str(dest))
         try:

@@ -13,8 +13,7 @@ import os
 import threading
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass
-from datetime import datetime, timedelta
+from datetime import datetime
 from pathlib import Path
 from typing import Any
 
@@ -22,41 +21,19 @@ import numpy as np
 
 from models.artefact import clean_leftovers, intact
 from models.embedding import Embedder
-from models.errors import InputError, LimitExceeded, ReadOnly, StoreError
+from models.errors import InputError, ReadOnly, StoreError
 from models.index import VectorIndex
 
+from .forecasting import Forecaster
 from .importer import EmbedFn, ImportSummary, ProgressFn, import_csv
 from .locking import LOCK_FILE, WriteLock
+from .precedents import Precedent, precedents_for
+from .retrieval import Hits, Retriever
 from .settings import Settings
 from .store import Store
-from .timeparse import as_utc, now_utc
+from .timeparse import as_utc
 
-
-@dataclass(frozen=True, slots=True)
-class Precedent:
-    """A past post similar to a draft."""
-
-    pk: int
-    post_id: str
-    account: str
-    posted_at: datetime
-    text: str
-    similarity: float
-    metrics: dict[str, int | None]
-    mature: bool
-    has_link: bool = False
-    has_media: bool = False
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "post_id": self.post_id,
-            "account": self.account,
-            "posted_at": self.posted_at.isoformat(),
-            "text": self.text,
-            "similarity": round(self.similarity, 4),
-            "metrics": self.metrics,
-            "mature": self.mature,
-        }
+__all__ = ["Precedent", "Workspace"]
 
 
 def _utc_bound(dt: datetime | None, name: str) -> datetime | None:
@@ -106,16 +83,10 @@ class Workspace:
         self._index_stamp: int | None = None
         self._index_own = 0  # store.own_writes when the index was last in step
         self._lock = threading.RLock()
-        self._forecaster: Any = None
-
-    @property
-    def forecaster(self) -> Any:
-        """The forecast service over this workspace (loads models on demand)."""
-        if self._forecaster is None:
-            from .forecasting import Forecaster
-
-            self._forecaster = Forecaster(workspace=self)
-        return self._forecaster
+        self.retrieval = Retriever(store=self.store, index=self.index, lock=self._lock)
+        #: The forecast service over this data directory (loads models on demand).
+        self.forecaster = Forecaster(store=self.store, settings=settings,
+                                     retrieval=self.retrieval, encode=self.embedder.encode)
 
     def close(self) -> None:
         self.store.close()
@@ -164,7 +135,8 @@ class Workspace:
 
     def _rebuild(self) -> VectorIndex:
         ids, vecs, fp = self.store.index_data()
-        index = VectorIndex(dim=vecs.shape[1] if len(vecs) else 384).fit(ids, vecs, fingerprint=fp)
+        dim = vecs.shape[1] if len(vecs) else self.embedder.dim
+        index = VectorIndex(dim=dim).fit(ids, vecs, fingerprint=fp)
         self._save_index(index)
         return index
 
@@ -283,61 +255,22 @@ class Workspace:
     # Precedents -------------------------------------------------------------
 
     def check_draft(self, text: str) -> str:
-        if not text or not text.strip():
-            raise InputError("the draft text is empty", field="text")
-        if len(text) > self.settings.max_draft_chars:
-            raise LimitExceeded(
-                f"the draft has {len(text)} characters; the limit is "
-                f"{self.settings.max_draft_chars} (SOUNDING_MAX_DRAFT_CHARS)",
-                limit="max_draft_chars",
-                maximum=self.settings.max_draft_chars,
-                field="text",
-            )
-        return text
+        """The draft text, within the request limits (``service.limits``)."""
+        return self.forecaster.limits.check_draft(text)
 
     def check_batch(self, n: int) -> int:
-        """Refuse more drafts in one request than SOUNDING_MAX_BATCH."""
-        if n > self.settings.max_batch:
-            raise LimitExceeded(
-                f"{n} drafts in one request; the limit is {self.settings.max_batch} "
-                "(SOUNDING_MAX_BATCH)",
-                limit="max_batch",
-                maximum=self.settings.max_batch,
-                field="drafts",
-            )
-        return n
+        return self.forecaster.limits.check_batch(n)
 
     def embed_drafts(self, texts: list[str]) -> np.ndarray:
-        self.check_batch(len(texts))
-        for t in texts:
-            self.check_draft(t)
-        return self.embedder.encode(texts)
+        return self.forecaster.embed(texts)
 
-    def neighbours(
-        self,
-        vectors: np.ndarray,
-        k: int,
-        *,
-        account: str | None = None,
-        since: datetime | None = None,
-        until: datetime | None = None,
-        allowed_pks: np.ndarray | None = None,
-    ) -> list[list[tuple[int, float]]]:
-        """(post row id, similarity) of the ``k`` nearest posts per vector,
-        optionally among ``allowed_pks`` or one account's posts in a date range."""
-        allowed = allowed_pks
-        if account is not None or since is not None or until is not None:
-            allowed = self.store.pks_where(account=account, since=since, until=until)
-            if allowed_pks is not None:
-                allowed = np.intersect1d(allowed, allowed_pks)
-        # Under the lock: _sync_index changes the FAISS index in place, and
-        # FAISS does not allow a search while ids are removed or added.
-        with self._lock:
-            sims, ids = self.index().search(vectors, k, allowed_ids=allowed)
-        return [
-            [(int(i), float(s)) for i, s in zip(row_ids, row_sims, strict=True) if i >= 0]
-            for row_ids, row_sims in zip(ids, sims, strict=True)
-        ]
+    def neighbours(self, vectors: np.ndarray, k: int, *, account: str | None = None,
+                   since: datetime | None = None, until: datetime | None = None,
+                   allowed_pks: np.ndarray | None = None) -> list[Hits]:
+        """(post row id, similarity) of the ``k`` nearest posts per vector
+        (``service.retrieval.Retriever.nearest``)."""
+        return self.retrieval.nearest(vectors, k, account=account, since=since, until=until,
+                                      allowed_pks=allowed_pks)
 
     def precedents(
         self,
@@ -360,28 +293,12 @@ class Workspace:
         return self.precedents_for(hits, now=now)
 
     def precedents_for(
-        self, hits: list[tuple[int, float]], *, now: datetime | None = None,
+        self, hits: Hits, *, now: datetime | None = None,
         details: dict[int, dict[str, Any]] | None = None,
     ) -> list[Precedent]:
-        """Precedents for (post row id, similarity) hits; ``details`` may pass
-        rows already read from the store."""
-        if details is None:
-            details = self.store.posts_by_pk([p for p, _ in hits])
-        cutoff = (now or now_utc()) - timedelta(hours=self.settings.maturity_hours)
-        out = []
-        for pk, sim in hits:
-            d = details.get(pk)
-            if d is None:  # deleted between search and lookup
-                continue
-            out.append(
-                Precedent(
-                    pk=pk, post_id=d["post_id"], account=d["account"], posted_at=d["posted_at"],
-                    text=d["text"], similarity=sim, metrics=d["metrics"],
-                    mature=d["posted_at"] <= cutoff, has_link=d["has_link"],
-                    has_media=d["has_media"],
-                )
-            )
-        return out
+        """Precedents for (post row id, similarity) hits (``service.precedents``)."""
+        return precedents_for(self.store, hits, maturity_hours=self.settings.maturity_hours,
+                              now=now, details=details)
 
     def health(self) -> dict[str, Any]:
         counts = self.store.counts()

@@ -23,8 +23,8 @@ from service.cli.base import use_embedder
 from service.cli.history import check_bind
 from service.settings import Settings
 from service.workspace import Workspace
+from conftest import TOKEN
 
-TOKEN = "team-token-7f3a9c-5d1e8b2a4c6f0e9d"  # 32+ characters: needed off loopback
 
 
 def write_history(path: Path, n: int, *, prefix: str = "ac") -> Path:

@@ -7,12 +7,10 @@ import csv
 import importlib.util
 import json
 import socket
-import time
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-import uvicorn
 from fastapi.testclient import TestClient
 
 from models.errors import (
@@ -64,10 +62,10 @@ def test_forecast_equals_the_api_answer(client: SoundingClient, demo_workspace) 
     assert f.low <= f.median <= f.high and f.caution
 
 
-def test_queue_hours_and_compare(client: SoundingClient) -> None:
+def test_plan_hours_and_compare(client: SoundingClient) -> None:
     drafts = [DraftIn(text=DRAFT, account="loomhaven", planned_at=AT, draft_id="a"),
               {"text": DRAFT, "account": "loomhaven_events", "planned_at": AT, "draft_id": "b"}]
-    got = client.forecast_queue(drafts)
+    got = client.forecast_plan(drafts)
     assert [f.draft_id for f in got] == ["a", "b"]
     assert [f.account for f in got] == ["loomhaven", "loomhaven_events"]
     # Source: demo_data/effects.json account_base: loomhaven 7.6 > loomhaven_events 7.05.
@@ -126,22 +124,22 @@ def _load_example():
 
 def test_hold_back_example_holds_the_planted_repeat(base_url: str, capsys) -> None:
     hold_back = _load_example()
-    queue = ROOT / "demo_data" / "queue.csv"
-    code = hold_back.main([str(queue), "--base-url", base_url, "--threshold", "0"])
+    plan = ROOT / "demo_data" / "plan.csv"
+    code = hold_back.main([str(plan), "--base-url", base_url, "--threshold", "0"])
     out = capsys.readouterr().out
     assert code == 0, out
     lines = {ln.split()[1]: ln for ln in out.splitlines() if ln.startswith(("post ", "hold "))}
-    with queue.open(encoding="utf-8", newline="") as f:
+    with plan.open(encoding="utf-8", newline="") as f:
         ids = [r["draft_id"] for r in csv.DictReader(f)]
     assert sorted(lines) == sorted(ids)
-    # Source: demo_data/effects.json queue.near_repeat names the generator's planted repeat.
-    planted = EFFECTS["queue"]["near_repeat"]
+    # Source: demo_data/effects.json plan.near_repeat names the generator's planted repeat.
+    planted = EFFECTS["plan"]["near_repeat"]
     assert lines[planted["draft_id"]].startswith("hold")
     assert "near-repeat" in lines[planted["draft_id"]] and planted["post_id"] in lines[planted["draft_id"]]
     # With a threshold of 0 only near-repeats are held.
     held = [d for d, ln in lines.items() if ln.startswith("hold")]
     assert all("near-repeat" in lines[d] for d in held)
     # A threshold above every median holds everything back.
-    code = hold_back.main([str(queue), "--base-url", base_url, "--threshold", "1e12"])
+    code = hold_back.main([str(plan), "--base-url", base_url, "--threshold", "1e12"])
     out = capsys.readouterr().out
     assert f"0 to post, {len(ids)} held back" in out

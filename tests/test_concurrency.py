@@ -18,8 +18,8 @@ from serving import serve
 from service.api.app import create_app
 from service.settings import Settings
 from service.workspace import Workspace
+from conftest import TOKEN
 
-TOKEN = "concurrency-token"
 THREADS, PER_THREAD = 3, 12
 
 

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 DEMO = Path(__file__).resolve().parent.parent / "demo_data"
-OUTPUTS = ["posts.csv", "truth.csv", "planted_repeats.csv", "queue.csv", "effects.json",
+OUTPUTS = ["posts.csv", "truth.csv", "planted_repeats.csv", "plan.csv", "effects.json",
            "sample_draft.txt"]
 HEADER = ["post_id", "account", "text", "posted_at", "impressions", "engagements", "likes",
           "reposts", "replies", "link_clicks", "profile_clicks", "has_media"]
@@ -276,9 +276,9 @@ def test_ordinary_posts_are_not_near_repeats(posts, truth, planted):
                     assert sm.ratio() <= cap, (" ".join(tok0), " ".join(tok))
 
 
-# ------------------------------------------------------------------ queue and sample draft
-def test_queue_drafts(posts, effects):
-    header, *body = read_csv("queue.csv")
+# ------------------------------------------------------------------ plan and sample draft
+def test_plan_drafts(posts, effects):
+    header, *body = read_csv("plan.csv")
     assert header == ["draft_id", "account", "text", "planned_at"]
     drafts = [dict(zip(header, r)) for r in body]
     assert len(drafts) == 8 and len({d["draft_id"] for d in drafts}) == 8
@@ -287,7 +287,7 @@ def test_queue_drafts(posts, effects):
         assert (dt.year, dt.month) == (2026, 12)
         assert dt.astimezone(ZoneInfo(ZONES[d["account"]])).utcoffset() == dt.utcoffset()
         assert 40 <= len(d["text"]) <= 260
-    notes = effects["queue"]
+    notes = effects["plan"]
     near = notes["near_repeat"]
     original = next(p for p in posts if (p["account"], p["post_id"]) == (near["account"], near["post_id"]))
     draft = next(d for d in drafts if d["draft_id"] == near["draft_id"])

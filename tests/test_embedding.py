@@ -78,3 +78,23 @@ def test_config_round_trip(tmp_path: Path) -> None:
     back = Embedder.load(tmp_path / "emb")
     assert (back.batch_size, back.model_id, back.model_path, back.device) == (16, "m/x", None, "cpu")
     assert back._model is None  # loading the config does not load weights
+
+
+def test_key_comes_from_the_model_directory(tmp_path: Path) -> None:
+    # Two directories that claim the same model id but hold different models
+    # (here: a changed config) never share a vector cache key.
+    for name, width in (("a", 384), ("b", 768)):
+        d = tmp_path / name
+        d.mkdir()
+        (d / "config.json").write_text(f'{{"hidden_size": {width}}}')
+        (d / "model.safetensors").write_bytes(b"\0" * width)
+    a, b = (Embedder(model_path=tmp_path / n) for n in ("a", "b"))
+    assert a.model_id == b.model_id
+    assert a.key("Snowdrops are out") != b.key("Snowdrops are out")
+    assert Embedder(model_path=tmp_path / "a").key("x") == a.key("x")  # stable
+
+
+def test_dimension_is_read_from_the_model(embedder: Embedder) -> None:
+    # all-MiniLM-L6-v2 has 384-dimensional sentence vectors (its model card, from memory).
+    assert embedder.dim == 384 == embedder.encode(["one"]).shape[1]
+    assert embedder.encode([]).shape == (0, embedder.dim)

@@ -104,8 +104,19 @@ def test_trained_model_is_a_versioned_artefact_with_report(demo_workspace):
     assert m.metric == "impressions"
     assert set(m.report["backtest"]["coverage_by_level"]) == {"0.5", "0.7", "0.8", "0.9", "0.95"}
     assert m.report["n_train"] + m.report["n_calibration"] == m.report["n_posts"]
-    # The calibration block comes later in time than the training block.
-    assert m.report["train_until"] < m.report["trained_at"]
+    # The calibration block comes later in time than the training block: the
+    # report's block bounds, checked against the posts' own times in the store.
+    until = datetime.fromisoformat(m.report["train_until"])
+    start = datetime.fromisoformat(m.report["calibration_from"])
+    assert until <= start
+    frame = demo_workspace.store.posts_frame()
+    as_of = datetime.fromisoformat(m.report["data_as_of"])
+    mature = frame[(frame["posted_at"] <= as_of - timedelta(
+        hours=demo_workspace.settings.maturity_hours)) & frame["impressions"].notna()]
+    assert len(mature) == m.report["n_posts"]
+    assert (mature["posted_at"] <= until).sum() >= m.report["n_train"]
+    assert (mature["posted_at"] < start).sum() <= m.report["n_train"]
+    assert (mature["posted_at"] >= start).sum() >= m.report["n_calibration"]
 
 
 def test_service_swaps_to_a_newer_model_whole(demo_copy):
@@ -187,7 +198,7 @@ def test_contributions_add_up_to_the_prediction(demo_workspace):
     view = fc.view("impressions")
     for d, f in zip(drafts, out, strict=True):
         vec = demo_workspace.embedder.encode([d.text])[0]
-        x = fc._features(view, model.features, d, vec, NOW)[0]
+        x = fc.features(view, model.features, d, vec, NOW)[0]
         raw = model.quantiles.median_model_.predict(x)[0]
         total = f.contributions["expected_log"] + sum(
             g["log_contribution"] for g in f.contributions["groups"])
@@ -293,31 +304,6 @@ def test_api_forecasts_single_and_batch(demo_workspace):
     assert client.post("/v1/forecasts", json={"text": "x", "account": "ghost"}).status_code == 404
     r = client.post("/v1/forecasts", json={"text": "x", "account": "loomhaven", "metric": "likes"})
     assert r.status_code == 409 and r.json()["error"]["code"] == "not_ready"
-
-
-def test_queue_file_bad_row_gets_a_reason(demo_workspace, tmp_path):
-    from service.queue import OUT_COLUMNS, forecast_queue
-
-    src = tmp_path / "queue.csv"
-    src.write_text(
-        "draft_id,account,text,planned_at\n"
-        'd1,loomhaven,"Magnolias, at last",2026-12-02T12:00\n'
-        "d2,ghost,Hello,2026-12-02T12:00\n"
-        "d3,loomhaven,Bad time,2026-13-40T99:00\n"
-        "d4,loomhaven_lab,Seed bank news,\n"
-    )
-    dest = tmp_path / "out.csv"
-    counts = forecast_queue(demo_workspace, src, dest)
-    assert counts == {"rows": 4, "forecast": 2, "failed": 2}
-    with dest.open(newline="") as f:
-        rows = list(csv.DictReader(f))
-    assert tuple(rows[0]) == OUT_COLUMNS
-    by_id = {r["draft_id"]: r for r in rows}
-    assert float(by_id["d1"]["low"]) <= float(by_id["d1"]["median"]) <= float(by_id["d1"]["high"])
-    assert by_id["d1"]["top_precedent_id"]
-    assert "unknown account" in by_id["d2"]["warnings"] and by_id["d2"]["median"] == ""
-    assert "cannot read time" in by_id["d3"]["warnings"]
-    assert by_id["d4"]["model_version"]
 
 
 def test_cli_check_json(demo_home, embedder, monkeypatch):

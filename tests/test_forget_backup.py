@@ -22,8 +22,8 @@ from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.settings import Settings
 from service.workspace import Workspace
+from conftest import TOKEN
 
-TOKEN = "forget-token-77"
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 ACCOUNTS = ("loomhaven", "loomhaven_events", "loomhaven_lab")
 SHARED = "Free entry for members all weekend, bring a friend."

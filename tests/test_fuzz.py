@@ -32,8 +32,8 @@ from service.api.app import create_app
 from service.api.schemas import ErrorBody
 from service.settings import Settings
 from service.workspace import Workspace
+from conftest import TOKEN
 
-TOKEN = "fuzz-token-0123456789"
 CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
           response_schema_conformance]
 MAX_EXAMPLES = 30
@@ -149,8 +149,7 @@ EDGE_REQUESTS = [
 
 @pytest.mark.parametrize(("method", "path", "kw"), EDGE_REQUESTS)
 def test_edge_inputs_are_answered_as_bad_input(fuzz_app, method: str, path: str, kw: dict) -> None:
-    if path not in {r for r in schema.raw_schema["paths"]}:
-        pytest.skip(f"{path} is not served yet")
+    assert path in schema.raw_schema["paths"], f"{path} is not served"
     from fastapi.testclient import TestClient
 
     kw = dict(kw)

@@ -16,7 +16,8 @@ from typer.testing import CliRunner
 
 from service.api.app import create_app
 from service.forecasting import CAUTION
-from service.review import Slot, _hours_summary, best_hours, day_slots, heavy_overlap, like_best
+from service.hours import Slot, _hours_summary, best_hours, day_slots
+from service.overlap import heavy_overlap, like_best
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
@@ -100,7 +101,7 @@ def test_api_labels_dst_day(demo_workspace) -> None:
 
 
 def test_week_across_the_change_has_169_slots(demo_workspace) -> None:
-    r = best_hours(demo_workspace, DRAFTS[1], account="loomhaven", day=date(2026, 10, 22),
+    r = best_hours(demo_workspace.forecaster, DRAFTS[1], account="loomhaven", day=date(2026, 10, 22),
                    week=True, top=5)
     # 7 days x 24 hours + the repeated hour of 2026-10-25 (EU rule, as above).
     assert len(r.slots) == 7 * 24 + 1
@@ -133,7 +134,7 @@ def rhythm(demo_workspace) -> list[list[float]]:
     """Median log forecasts of each rhythm draft at each hour of Thu 3 Dec 2026, loomhaven."""
     out = []
     for text in RHYTHM_DRAFTS:
-        r = best_hours(demo_workspace, text, account="loomhaven", day=date(2026, 12, 3))
+        r = best_hours(demo_workspace.forecaster, text, account="loomhaven", day=date(2026, 12, 3))
         assert len(r.slots) == 24  # no DST change in December (EU rule, as above)
         assert [s.local.hour for s in r.slots] == list(range(24))
         assert r.summary and r.warnings == r.slots[r.best_index].warnings
@@ -197,7 +198,7 @@ def _slots(logs: list[tuple[float, float, float]]) -> list[Slot]:
     ([(1.0, 2.0, 3.0)] * 20 + [(6.0, 7.0, 8.0)] * 4, "Best hours: 20:00"),
 ])
 def test_summary_says_when_hours_cannot_be_told_apart(logs, expect: str) -> None:
-    from service.review import HoursReport
+    from service.hours import HoursReport
 
     slots = _slots(logs)
     best, flags = like_best([s.log for s in slots])

@@ -6,11 +6,8 @@ passed."""
 from __future__ import annotations
 
 import asyncio
-import csv
-import io
 import shutil
 from collections.abc import Iterator
-from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
@@ -21,33 +18,18 @@ from service.api.app import create_app
 from service.api.schemas import ErrorBody
 from service.settings import Settings
 from service.workspace import Workspace
+from conftest import TOKEN, history_csv
 
-TOKEN = "limits-token-42"
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 MAX_DRAFT, MAX_BATCH, MAX_UPLOAD = 300, 3, 4096
 LIMITS = {"max_draft_chars": MAX_DRAFT, "max_batch": MAX_BATCH, "max_upload_bytes": MAX_UPLOAD}
-
-
-def history_csv(n: int, *, prefix: str = "lm", bad_line: int | None = None) -> bytes:
-    """A small history in our canonical columns; ``bad_line`` gets a negative count."""
-    places = ["glasshouse", "rose arbour", "herb garden", "lake path", "orchard"]
-    start = datetime(2025, 6, 2, 9, tzinfo=UTC)
-    buf = io.StringIO()
-    w = csv.writer(buf)
-    w.writerow(["post_id", "account", "text", "posted_at", "impressions"])
-    for i in range(n):
-        line = i + 2  # the header is line 1
-        w.writerow([f"{prefix}-{i}", "loomhaven", f"Morning in the {places[i % 5]} ({prefix} {i})",
-                    (start + timedelta(hours=3 * i)).isoformat(),
-                    -5 if line == bad_line else 200 + i])
-    return buf.getvalue().encode()
 
 
 @pytest.fixture(scope="module")
 def base_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     home = tmp_path_factory.mktemp("limits") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
-    (home.parent / "h.csv").write_bytes(history_csv(10))
+    (home.parent / "h.csv").write_bytes(history_csv(10, prefix="lm", step_hours=3))
     ws.import_csv(home.parent / "h.csv")
     ws.close()
     return home
@@ -121,8 +103,7 @@ def test_batch_limit_over_http(client: TestClient, ws: Workspace) -> None:
         if takes_drafts(op.get("requestBody", {}).get("content", {})
                         .get("application/json", {}).get("schema"))
     ]
-    if not batch_ops:
-        pytest.skip("no endpoint takes a list of drafts yet")
+    assert batch_ops, "no endpoint takes a list of drafts"
     drafts = [{"text": f"Draft {i} about the orchard", "account": "loomhaven"}
               for i in range(MAX_BATCH + 1)]
     for method, path in batch_ops:

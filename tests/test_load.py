@@ -11,8 +11,6 @@ To load another endpoint, add one ``Kind`` to ``KINDS``.
 
 from __future__ import annotations
 
-import csv
-import io
 import json
 import shutil
 import socket
@@ -20,7 +18,6 @@ import threading
 import time
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
-from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -32,28 +29,13 @@ from service.api.app import create_app
 from service.api.schemas import ImportSummaryOut, PrecedentsResponse
 from service.settings import Settings
 from service.workspace import Workspace
+from conftest import NEWS, SUBJECTS, TOKEN, history_csv
 
-TOKEN = "load-token-5150"
 THREADS, PER_THREAD = 4, 50
 BASE_ROWS, IMPORT_ROWS = 40, 240
 K = 5
 
-SUBJECTS = ["Magnolias", "Snowdrops", "The bee hotel", "The seed library", "The fern house",
-            "The rose arbour", "The herb garden", "The lake path"]
-NEWS = ["open early", "need volunteers", "are in full colour", "get a new bench",
-        "host a sketching morning", "close for repairs"]
-
-
-def history_csv(n: int, prefix: str) -> bytes:
-    start = datetime(2025, 2, 1, 9, tzinfo=UTC)
-    buf = io.StringIO()
-    w = csv.writer(buf)
-    w.writerow(["post_id", "account", "text", "posted_at", "impressions"])
-    for i in range(n):
-        w.writerow([f"{prefix}-{i}", ("loomhaven", "loomhaven_lab")[i % 2],
-                    f"{SUBJECTS[i % 8]} {NEWS[i % 6]} ({prefix} note {i})",
-                    (start + timedelta(hours=4 * i)).isoformat(), 100 + 7 * i])
-    return buf.getvalue().encode()
+ACCOUNTS = ("loomhaven", "loomhaven_lab")
 
 
 KNOWN_IDS = {f"base-{i}" for i in range(BASE_ROWS)} | {f"new-{i}" for i in range(IMPORT_ROWS)}
@@ -104,7 +86,7 @@ def served(tmp_path: Path, embedder) -> Iterator[tuple[str, Workspace]]:
     home = tmp_path / "home"
     ws = Workspace(settings=Settings(home=home, token=TOKEN, import_batch_rows=40),
                    embedder=embedder)
-    (tmp_path / "base.csv").write_bytes(history_csv(BASE_ROWS, "base"))
+    (tmp_path / "base.csv").write_bytes(history_csv(BASE_ROWS, prefix="base", accounts=ACCOUNTS))
     ws.import_csv(tmp_path / "base.csv")
     sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
     sock.bind(("127.0.0.1", 0))  # a free port on loopback only
@@ -156,7 +138,7 @@ def test_concurrent_reads_during_an_import(served, artifacts: Path, capsys) -> N
             importing.set()
             try:
                 r = c.post("/v1/imports", headers={"Authorization": f"Bearer {TOKEN}"},
-                           files={"file": ("new.csv", history_csv(IMPORT_ROWS, "new"), "text/csv")})
+                           files={"file": ("new.csv", history_csv(IMPORT_ROWS, prefix="new", accounts=ACCOUNTS), "text/csv")})
                 import_result["status"] = r.status_code
                 import_result["body"] = r.json()
             finally:

@@ -6,7 +6,6 @@ from __future__ import annotations
 import csv
 import json
 import math
-import time
 from pathlib import Path
 
 import httpx
@@ -118,17 +117,17 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             expect(page.locator("#error-message")).to_contain_text(big.json()["error"]["message"])
             page.screenshot(path=str(artifacts / "review-page-error.png"))
 
-            # The queue's planted near-repeat: the warning shows above the charts.
-            queue = {r["draft_id"]: r for r in csv.DictReader(
-                (ROOT / "demo_data" / "queue.csv").open(encoding="utf-8", newline=""))}
-            q = queue[EFFECTS["queue"]["near_repeat"]["draft_id"]]  # Source: effects.json
+            # The plan's planted near-repeat: the warning shows above the charts.
+            plan = {r["draft_id"]: r for r in csv.DictReader(
+                (ROOT / "demo_data" / "plan.csv").open(encoding="utf-8", newline=""))}
+            q = plan[EFFECTS["plan"]["near_repeat"]["draft_id"]]  # Source: effects.json
             page.locator("#text").fill(q["text"])
             page.locator("#planned").fill(q["planned_at"][:16])  # local wall-clock time (+00:00)
             page.locator("#submit").focus()
             page.keyboard.press("Enter")
             expect(page.locator("#warn-card")).to_be_visible(timeout=60_000)
             expect(page.locator("#warn-list li").first).to_contain_text(
-                EFFECTS["queue"]["near_repeat"]["post_id"])
+                EFFECTS["plan"]["near_repeat"]["post_id"])
             assert page.locator("#error").is_hidden()
             assert errors == [] and outside == []
         finally:

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import math
+from fractions import Fraction
 from pathlib import Path
 
 import lightgbm as lgb
@@ -221,12 +222,18 @@ def test_matches_mapie_cqr(model: QuantileForecaster, blocks: dict[str, np.ndarr
     ref = np.sort(np.stack([bands[:, 0, 0], point, bands[:, 1, 0]], axis=1), axis=1)
     ours = np.stack(model.predict(X, coverage=cov), axis=1)
 
-    # MAPIE's quantile rule (numpy "lower" at ceil((n+1)(1-a))/n) may land
-    # one order statistic away from ours: allow the adjacent score gap.
-    s = model.calibrators_[i].scores_
-    k = math.ceil((s.size + 1) * cov - 1e-9)  # 1-based rank of our quantile
-    gap = max(s[min(k, s.size - 1)] - s[k - 1], s[k - 1] - s[max(k - 2, 0)])
-    assert np.max(np.abs(ours - ref)) <= gap + 1e-12
+    # MAPIE's rule (mapie/utils.py, _compute_regression_quantile): numpy
+    # quantile, method "lower", at ceil((n + 1)(1 - alpha)) / n, i.e. the k-th
+    # smallest score with k = ceil((n + 1) * coverage). Here (n + 1) * coverage
+    # is never a whole number (n = 250), so float rounding cannot move k, and
+    # the exact rank from rational arithmetic is the one both must use.
+    scores = np.sort(mapie.conformity_scores[2])
+    k = math.ceil(Fraction(scores.size + 1) * Fraction(str(cov)))
+    assert (scores.size + 1) * Fraction(str(cov)) != k  # no whole-number edge case
+    q_mapie = np.quantile(scores, math.ceil((scores.size + 1) * cov) / scores.size, method="lower")
+    assert q_mapie == scores[k - 1]
+    assert model.calibrators_[i].correction(1 - cov) == scores[k - 1]
+    np.testing.assert_allclose(ours, ref, rtol=0, atol=1e-12)
 
 
 @pytest.mark.parametrize("cov", [0.72, 0.86])

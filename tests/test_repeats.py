@@ -17,8 +17,8 @@ from typer.testing import CliRunner
 
 from service.api.app import create_app
 from service.forecasting import Draft
-from service.queue import forecast_queue
-from service.review import near_repeats_many
+from service.plan import forecast_plan
+from service.repeats import near_repeats_many
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -114,7 +114,7 @@ def test_false_alarms_over_300_ordinary_posts(demo, demo_workspace) -> None:
     items = [(frame["account"].iloc[i], vecs[i], frame["posted_at"].iloc[i].to_pydatetime())
              for i in sample]
     # The function Forecaster.forecast calls for every draft's warnings.
-    got = near_repeats_many(demo_workspace, view, items, now=items[-1][2] + timedelta(days=60))
+    got = near_repeats_many(demo_workspace.retrieval, demo_workspace.settings, view, items, now=items[-1][2] + timedelta(days=60))
     alarms = sum(bool(r) for r in got)
     # Measured on the demo data: 0 of 300 (0.48% of all ordinary posts have a neighbour at or
     # above the threshold, so ~1.5 are expected here); a bound of 2% leaves room for noise.
@@ -138,7 +138,7 @@ def test_team_message_and_settings_windows(demo, demo_workspace, demo_home, embe
     old = planted[(planted["kind"] == "same_account") & (planted["days_after"] > 3)].iloc[0]
     j = row[(old["account"], old["post_id"])]
     item = (old["account"], vecs[j], frame["posted_at"].iloc[j].to_pydatetime())
-    found = near_repeats_many(demo_workspace, demo_workspace.forecaster.view("impressions"),
+    found = near_repeats_many(demo_workspace.retrieval, demo_workspace.settings, demo_workspace.forecaster.view("impressions"),
                               [item], now=item[2])[0]
     assert old["original_post_id"] in [r.post_id for r in found]
     narrow = Workspace(settings=Settings(home=demo_home, repeat_window_days=2.0), embedder=embedder)
@@ -147,14 +147,14 @@ def test_team_message_and_settings_windows(demo, demo_workspace, demo_home, embe
     try:
         for ws in (narrow, strict):
             view = ws.forecaster.view("impressions")
-            got = near_repeats_many(ws, view, [item], now=item[2])[0]
+            got = near_repeats_many(ws.retrieval, ws.settings, view, [item], now=item[2])[0]
             assert old["original_post_id"] not in [r.post_id for r in got]
     finally:
         narrow.close()
         strict.close()
 
 
-def test_warnings_reach_api_cli_and_queue_file(demo, demo_workspace, demo_home, embedder,
+def test_warnings_reach_api_cli_and_plan_file(demo, demo_workspace, demo_home, embedder,
                                                monkeypatch, tmp_path: Path) -> None:
     frame, _, planted, row = demo
     p = planted[planted["kind"] == "same_account"].iloc[0]
@@ -178,11 +178,11 @@ def test_warnings_reach_api_cli_and_queue_file(demo, demo_workspace, demo_home, 
     assert "near-repeat" in res.output and p["original_post_id"] in res.output
 
     dest = tmp_path / "forecasts.csv"
-    forecast_queue(demo_workspace, DEMO / "queue.csv", dest)
+    forecast_plan(demo_workspace, DEMO / "plan.csv", dest)
     with dest.open(encoding="utf-8", newline="") as f:
         rows = {r["draft_id"]: r for r in csv.DictReader(f)}  # RFC 4180 reader
-    # Source: demo_data/effects.json queue.near_repeat (the queue's planted repeat).
-    planted_q = EFFECTS["queue"]["near_repeat"]
+    # Source: demo_data/effects.json plan.near_repeat (the plan's planted repeat).
+    planted_q = EFFECTS["plan"]["near_repeat"]
     assert "near-repeat" in rows[planted_q["draft_id"]]["warnings"]
     assert planted_q["post_id"] in rows[planted_q["draft_id"]]["warnings"]
     others = [d for d, r in rows.items() if d != planted_q["draft_id"] and "near-repeat" in r["warnings"]]

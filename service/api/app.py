@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import importlib
-import importlib.util
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 from pathlib import Path
@@ -15,19 +13,28 @@ from fastapi.responses import HTMLResponse, JSONResponse
 from fastapi.staticfiles import StaticFiles
 
 from .. import __version__
-from ..settings import Settings, get_settings
 from ..forecasting import CAUTION
 from ..refresher import refreshing
+from ..settings import Settings, get_settings
 from ..workspace import Workspace
-from . import errors, guard
+from . import errors, guard, page
+from .routers import (
+    forecasts,
+    forget,
+    health,
+    hours,
+    imports,
+    precedents,
+    segments,
+    training,
+    variants,
+)
 
 STATIC = Path(__file__).resolve().parent.parent / "static"
 
-# One router module per resource, in the order they appear in /docs.
-ROUTERS = (
-    "health", "precedents", "forecasts", "hours", "variants", "segments",
-    "imports", "training", "forget",
-)
+# One router module per resource, in the order they appear in /docs. Imported
+# by name, so a missing module fails at import rather than dropping an endpoint.
+ROUTERS = (health, precedents, forecasts, hours, variants, segments, imports, training, forget)
 
 
 def create_app(*, workspace: Workspace | None = None, settings: Settings | None = None,
@@ -55,13 +62,9 @@ def create_app(*, workspace: Workspace | None = None, settings: Settings | None 
     errors.install(app)
     guard.install(app, ws.settings, bound=bound_host)
     _docs(app)
-    for name in ROUTERS:
-        spec = f"{__package__}.routers.{name}"
-        if importlib.util.find_spec(spec) is not None:
-            app.include_router(importlib.import_module(spec).router)
-    page = importlib.util.find_spec(f"{__package__}.page")
-    if page is not None:
-        importlib.import_module(page.name).mount(app)
+    for module in ROUTERS:
+        app.include_router(module.router)
+    page.mount(app)
     return app
 
 

@@ -16,33 +16,14 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from models.errors import (
-    AuthError,
-    InputError,
-    LimitExceeded,
-    NotFound,
-    NotReady,
-    SoundingError,
-    StoreError,
-)
+from models.errors import AuthError, SoundingError
 
 log = logging.getLogger("sounding.api")
 
-STATUS: list[tuple[type[SoundingError], int]] = [
-    (LimitExceeded, 413),
-    (InputError, 422),
-    (NotFound, 404),
-    (NotReady, 409),
-    (AuthError, 401),
-    (StoreError, 503),
-]
-
 
 def status_for(exc: SoundingError) -> int:
-    for cls, code in STATUS:
-        if isinstance(exc, cls):
-            return code
-    return 400
+    """The HTTP status of an error: its class states it (models.errors)."""
+    return exc.status
 
 
 # An absolute path of two or more parts (not a URL, not a date like 2026/01/02).

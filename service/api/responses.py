@@ -1,20 +1,22 @@
-"""Declared error answers, so the OpenAPI schema says what each endpoint returns."""
+"""Declared error answers, so the OpenAPI schema says what each endpoint returns.
+
+The statuses and their descriptions come from the error classes themselves
+(``models.errors``), the same registry the error handler and the client use.
+"""
 
 from __future__ import annotations
 
 from typing import Any
 
+from models.errors import SoundingError, error_class
+
 from .schemas import ErrorBody
 
-_TEXT = {
-    401: "Missing or wrong bearer token",
-    404: "Unknown account, post or resource",
-    409: "Not ready: no model trained yet, or too little history; or busy: another change is running",
-    413: "Past a configured limit",
-    422: "Invalid input",
-    503: "The store is unavailable",
-}
 
-
-def ERRORS(*codes: int) -> dict[int | str, dict[str, Any]]:  # noqa: N802 - reads as a constant
-    return {c: {"model": ErrorBody, "description": _TEXT[c]} for c in codes}
+def ERRORS(*errors: type[SoundingError] | int) -> dict[int | str, dict[str, Any]]:  # noqa: N802 - reads as a constant
+    """OpenAPI ``responses`` for the error classes (or bare statuses) an endpoint can raise."""
+    out: dict[int | str, dict[str, Any]] = {}
+    for e in errors:
+        cls = e if isinstance(e, type) else error_class(None, e)
+        out[cls.status] = {"model": ErrorBody, "description": cls.description}
+    return out

@@ -10,6 +10,8 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
+
 
 class Strict(BaseModel):
     model_config = ConfigDict(extra="forbid")
@@ -123,10 +125,13 @@ class ForgetOut(BaseModel):
 # Forecasts ------------------------------------------------------------------
 
 METRIC_FIELD = Field(
-    default="impressions",
-    description="impressions, engagements, likes, reposts, replies, link_clicks, "
-    "profile_clicks or engagement_rate",
+    default=DEFAULT_METRIC.value,
+    description="One of: " + ", ".join(TARGETS),
+    json_schema_extra={"enum": list(TARGETS)},
 )
+#: The coverage a request may ask for (one definition for every endpoint).
+COVERAGE_FIELD = Field(default=DEFAULT_COVERAGE, ge=MIN_COVERAGE, le=MAX_COVERAGE,
+                       description="Nominal coverage of the interval")
 
 
 class DraftIn(Strict):
@@ -139,17 +144,18 @@ class DraftIn(Strict):
         examples=["2026-12-02T10:00:00+01:00"],
     )
     draft_id: str | None = None
+    has_media: bool = Field(default=False, description="An image or video goes with the text")
 
 
 class ForecastRequest(DraftIn):
     metric: str = METRIC_FIELD
-    coverage: float = Field(default=0.8, ge=0.5, le=0.95)
+    coverage: float = COVERAGE_FIELD
 
 
 class ForecastBatchRequest(Strict):
     drafts: list[DraftIn] = Field(min_length=1)
     metric: str = METRIC_FIELD
-    coverage: float = Field(default=0.8, ge=0.5, le=0.95)
+    coverage: float = COVERAGE_FIELD
 
 
 class PrecedentWeighted(PrecedentOut):
@@ -222,8 +228,9 @@ class HoursRequest(Strict):
         "default: tomorrow there", examples=["2026-12-03"])
     week: bool = Field(default=False, description="Seven days from `day`, hour by hour")
     metric: str = METRIC_FIELD
-    coverage: float = Field(default=0.8, ge=0.5, le=0.95)
+    coverage: float = COVERAGE_FIELD
     top: int = Field(default=3, ge=1, le=168, description="How many of the best hours to list")
+    has_media: bool = Field(default=False, description="An image or video goes with the text")
 
 
 class SlotOut(BaseModel):
@@ -269,7 +276,9 @@ class VariantsRequest(Strict):
         default=None, description="ISO 8601 time; without an offset it is read in the account's "
         "zone. Default: now.", examples=["2026-12-03T12:30:00"])
     metric: str = METRIC_FIELD
-    coverage: float = Field(default=0.8, ge=0.5, le=0.95)
+    coverage: float = COVERAGE_FIELD
+    has_media: bool = Field(default=False, description="An image or video goes with every "
+                            "variant")
 
 
 class VariantOut(BaseModel):

@@ -7,15 +7,16 @@ only a bug shows a traceback.
 
 from __future__ import annotations
 
-import importlib
-import importlib.util
-
+# Command modules register their commands on ``app`` when imported. Imported
+# by name: a missing module fails here rather than silently dropping its commands.
+from . import admin, forecast, history, model_export, review, segments
 from .base import app
 
-# Command modules, in the order their commands appear in --help.
-for _name in ("history", "forecast", "review", "segments", "admin", "model_export"):
-    if importlib.util.find_spec(f"{__name__}.{_name}") is not None:
-        importlib.import_module(f"{__name__}.{_name}")
+#: The order their commands appear in --help.
+COMMAND_MODULES = (history, forecast, review, segments, admin, model_export)
+_ORDER = {m.__name__: i for i, m in enumerate(COMMAND_MODULES)}
+app.registered_commands.sort(
+    key=lambda c: _ORDER.get(getattr(c.callback, "__module__", ""), len(_ORDER)))
 
 
 def main() -> None:

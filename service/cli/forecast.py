@@ -11,19 +11,22 @@ import typer
 from rich.table import Table
 
 from models.errors import InputError
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
 
 from .. import forecasting
 from ..forecasting import CAUTION, Draft, Forecast
-from ..queue import forecast_queue
+from ..plan import forecast_plan
 from ..timeparse import localize, parse_time, zone
+from ..workspace import Workspace
 from .base import app, out, print_json, workspace
 
-METRIC_HELP = "Metric to forecast: impressions, engagements, likes, link_clicks, engagement_rate, ..."
+METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
+COVERAGE_HELP = f"Interval coverage, {MIN_COVERAGE} to {MAX_COVERAGE}."
 
 
 @app.command("train")
 def train_cmd(
-    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     skip_backtest: bool = typer.Option(
         False, "--skip-backtest", help="Train without the backtest (forecasts then state no "
         "backtested coverage)."),
@@ -61,8 +64,8 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
 
 @app.command("backtest")
 def backtest_cmd(
-    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
-    coverage: float = typer.Option(0.8, "--coverage", help="Nominal interval coverage."),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
+    coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help="Nominal interval coverage."),
     folds: int = typer.Option(4, "--folds", help="Number of rolling-origin folds."),
     json_file: Path | None = typer.Option(None, "--json", help="Also write the report as JSON."),
 ) -> None:
@@ -103,30 +106,33 @@ def planned(at: str | None, account: str) -> datetime | None:
 
 @app.command("check")
 def check_cmd(
-    text: str | None = typer.Argument(None, help="The draft (or use --file for a queue)."),
+    text: str | None = typer.Argument(None, help="The draft (or use --plan for a plan file)."),
     account: str | None = typer.Option(None, "--account", help="Account that would post it."),
     at: str | None = typer.Option(
         None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."),
-    coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
-    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
-    file: Path | None = typer.Option(None, "--file", help="Queue CSV: draft_id,account,text,planned_at."),
-    dest: Path | None = typer.Option(None, "--out", help="Where to write the queue's forecasts (CSV)."),
+    coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
+    plan: Path | None = typer.Option(
+        None, "--plan", help="Plan CSV: draft_id,account,text,planned_at[,has_media]."),
+    dest: Path | None = typer.Option(None, "--out", help="Where to write the plan's forecasts (CSV)."),
+    media: bool = typer.Option(False, "--media", help="An image or video goes with the text."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
-    """Forecast a draft (or a queue file) with its interval, precedents and reasons."""
+    """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
-    if file is not None:
+    if plan is not None:
         if dest is None:
-            raise InputError("--file needs --out for the forecasts", field="--out")
-        counts = forecast_queue(ws, file, dest, metric=metric, coverage=coverage)
-        out.print(f"{counts['forecast']} of {counts['rows']} drafts forecast into {dest}"
-                  + (f"; {counts['failed']} with a reason in warnings" if counts["failed"] else ""))
+            raise InputError("--plan needs --out for the forecasts", field="--out")
+        counts = forecast_plan(ws, plan, dest, metric=metric, coverage=coverage)
+        out.print(f"{counts.forecast} of {counts.rows} drafts forecast into {dest}"
+                  + (f"; {counts.failed} with a reason in warnings" if counts.failed else ""))
         return
     if not text:
-        raise InputError("give the draft text, or --file with a queue", field="text")
+        raise InputError("give the draft text, or --plan with a plan file", field="text")
     if not account:
         raise InputError("say which account would post it with --account", field="--account")
-    f = ws.forecaster.forecast([Draft(text=text, account=account, planned_at=planned(at, account))],
+    f = ws.forecaster.forecast([Draft(text=text, account=account, planned_at=planned(at, account),
+                                      has_media=media)],
                                metric=metric, coverage=coverage)[0]
     if as_json:
         print_json(f.to_dict())
@@ -134,7 +140,7 @@ def check_cmd(
         print_forecast(f)
 
 
-def demo_forecast(ws: Any, draft: str) -> None:
+def demo_forecast(ws: Workspace, draft: str) -> None:
     """The forecasting half of `sounding demo`."""
     out.rule("3. train and backtest a forecast of impressions")
     m = forecasting.train(ws, "impressions")

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import ipaddress
+import json
 import os
 from dataclasses import asdict
 from datetime import datetime
@@ -14,11 +15,14 @@ from rich.table import Table
 
 from models.errors import InputError
 
+from ..api import guard
+from ..api.app import create_app
 from ..cluster import cluster_import_options
 from ..importer import ImportSummary, parse_mapping
 from ..settings import Settings
 from ..timeparse import parse_time
 from .base import app, err, is_terminal, out, print_json, workspace
+from .forecast import demo_forecast
 
 # The demo history sits beside the source tree; an installed copy (the
 # container image) points at it with SOUNDING_DEMO_DIR.
@@ -181,10 +185,7 @@ def serve_cmd(
     port: int = typer.Option(8000, "--port", help="Port to listen on."),
 ) -> None:
     """Run the HTTP service (review page at /, API docs at /docs)."""
-    import uvicorn
-
-    from ..api import guard
-    from ..api.app import create_app
+    import uvicorn  # the server, only when serving
 
     ws = workspace()
     check_bind(host, ws.settings)
@@ -218,14 +219,10 @@ def demo_cmd(
     out.print(f"draft: {draft}")
     print_precedents(ws.precedents(draft, k=5))
     if train:
-        from .forecast import demo_forecast  # the forecasting part of the demo
-
-        demo_forecast(ws, draft)
+        demo_forecast(ws, draft)  # the forecasting part of the demo
 
 
 def _demo_accounts() -> list[tuple[str, str, str]]:
-    import json
-
     effects = DEMO_DIR / "effects.json"
     if effects.exists():
         data = json.loads(effects.read_text())

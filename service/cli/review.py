@@ -6,11 +6,13 @@ import typer
 from rich.table import Table
 
 from models.errors import InputError
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from ..forecasting import CAUTION
-from ..review import HoursReport, VariantsReport, best_hours, compare_variants, parse_day
+from ..hours import HoursReport, best_hours, parse_day
+from ..wordings import VariantsReport, compare_variants
 from .base import app, out, print_json, workspace
-from .forecast import METRIC_HELP, planned
+from .forecast import COVERAGE_HELP, METRIC_HELP, planned
 
 
 def _value(v: float, metric: str) -> str:
@@ -50,15 +52,16 @@ def hours_cmd(
     day: str | None = typer.Option(
         None, "--day", help="Local day in the account's zone, YYYY-MM-DD (default: tomorrow)."),
     week: bool = typer.Option(False, "--week", help="Seven days from --day, hour by hour."),
-    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
-    coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
+    coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
     top: int = typer.Option(3, "--top", help="How many of the best hours to list."),
+    media: bool = typer.Option(False, "--media", help="An image or video goes with the text."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
     """Forecast a draft at every hour of a day (or a week) in the account's zone."""
-    r = best_hours(workspace(), text, account=account,
+    r = best_hours(workspace().forecaster, text, account=account,
                    day=parse_day(day, where="--day") if day else None, week=week,
-                   metric=metric, coverage=coverage, top=top)
+                   metric=metric, coverage=coverage, top=top, has_media=media)
     if as_json:
         print_json(r.to_dict())
     else:
@@ -91,15 +94,16 @@ def compare_cmd(
     account: str = typer.Option(..., "--account", help="Account that would post them."),
     at: str | None = typer.Option(
         None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."),
-    metric: str = typer.Option("impressions", "--metric", help=METRIC_HELP),
-    coverage: float = typer.Option(0.8, "--coverage", help="Interval coverage, 0.5 to 0.95."),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
+    coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
+    media: bool = typer.Option(False, "--media", help="An image or video goes with each phrasing."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
     """Forecast several phrasings of one draft side by side."""
     if len(texts) < 2:
         raise InputError("give at least two phrasings to compare", field="texts")
-    r = compare_variants(workspace(), texts, account=account, planned_at=planned(at, account),
-                         metric=metric, coverage=coverage)
+    r = compare_variants(workspace().forecaster, texts, account=account, planned_at=planned(at, account),
+                         metric=metric, coverage=coverage, has_media=media)
     if as_json:
         print_json(r.to_dict())
     else:

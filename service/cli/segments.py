@@ -11,6 +11,7 @@ from rich.table import Table
 from rich.text import Text
 
 from models.errors import InputError
+from models.metrics import DEFAULT_METRIC
 from models.plots import FORMATS
 
 from ..segmenting import (
@@ -123,7 +124,7 @@ def segments_cmd(
         None, "--topic", help="A topic phrase such as 'flowers in bloom' (repeat for more). "
         "'a | b' is one topic with two phrases."),
     by: str | None = typer.Option(None, "--by", help=f"Split by {', '.join(BY_CHOICES)}."),
-    metric: str = typer.Option("impressions", "--metric",
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric",
                                help="impressions, engagements, likes, link_clicks, "
                                "engagement_rate, ..."),
     mode: str = typer.Option("nearest", "--mode",

@@ -232,6 +232,7 @@
       text: $("text").value,
       account: $("account").value,
       metric: $("metric").value,
+      has_media: $("media").checked,
     };
     if (planned) body.planned_at = S.plannedValue(planned);
     try {
@@ -242,7 +243,7 @@
       try {
         const h = await api("/v1/hours", {
           text: body.text, account: body.account, metric: body.metric,
-          day: f.local_time.slice(0, 10),
+          has_media: body.has_media, day: f.local_time.slice(0, 10),
         });
         drawHours(h, f.planned_at);
       } catch (e) {

@@ -2,6 +2,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
+from models.errors import InputError, LimitExceeded, NotFound, NotReady
+
 from ...forecasting import Draft
 from ...timeparse import parse_time
 from ..deps import WorkspaceDep
@@ -14,13 +16,14 @@ router = APIRouter(prefix="/v1", tags=["forecasts"])
 def to_draft(ws, d: DraftIn, where: str) -> Draft:  # noqa: ANN001 - workspace
     tz = ws.store.account(d.account).timezone
     planned = parse_time(d.planned_at, tz=tz, where=where) if d.planned_at else None
-    return Draft(text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id)
+    return Draft(text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id,
+                 has_media=d.has_media)
 
 
 @router.post(
     "/forecasts",
     response_model=ForecastOut | ForecastList,
-    responses=ERRORS(404, 409, 413, 422),
+    responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast one draft, or a list of drafts",
     description="Send one draft's fields, or {'drafts': [...]} for several. The answer is an "
     "interval with its stated and backtested coverage: an estimate from this team's history, "
@@ -30,7 +33,7 @@ def forecasts(
     body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep
 ) -> ForecastOut | ForecastList:
     if isinstance(body, ForecastBatchRequest):
-        ws.check_batch(len(body.drafts))
+        ws.forecaster.limits.check_batch(len(body.drafts))
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
         found = ws.forecaster.forecast(drafts, metric=body.metric, coverage=body.coverage)
         return ForecastList(forecasts=[ForecastOut(**f.to_dict()) for f in found])

@@ -6,6 +6,8 @@ from typing import Annotated
 
 from fastapi import APIRouter, Query
 
+from models.errors import AuthError, InputError, NotFound, NotReady, StoreError
+
 from ..deps import WorkspaceDep, WriteAccess
 from ..responses import ERRORS
 from ..schemas import ForgetOut
@@ -16,7 +18,7 @@ router = APIRouter(prefix="/v1", tags=["forget"])
 @router.delete(
     "/accounts/{handle:path}",  # a handle may hold "/"
     response_model=ForgetOut,
-    responses=ERRORS(401, 404, 409, 422, 503),
+    responses=ERRORS(AuthError, NotFound, NotReady, InputError, StoreError),
     summary="Forget an account: its posts, metric snapshots and vectors",
 )
 def forget_account(handle: str, ws: WorkspaceDep, _auth: WriteAccess) -> ForgetOut:
@@ -27,7 +29,7 @@ def forget_account(handle: str, ws: WorkspaceDep, _auth: WriteAccess) -> ForgetO
 @router.delete(
     "/posts/{post_id:path}",  # a post id may hold "/"
     response_model=ForgetOut,
-    responses=ERRORS(401, 404, 409, 422, 503),
+    responses=ERRORS(AuthError, NotFound, NotReady, InputError, StoreError),
     summary="Forget one post: its metric snapshots and, when unused, its vector",
 )
 def forget_post(

@@ -2,7 +2,9 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
-from ...review import best_hours
+from models.errors import InputError, LimitExceeded, NotFound, NotReady
+
+from ...hours import best_hours
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import HoursOut, HoursRequest
@@ -13,7 +15,7 @@ router = APIRouter(prefix="/v1", tags=["hours"])
 @router.post(
     "/hours",
     response_model=HoursOut,
-    responses=ERRORS(404, 409, 413, 422),
+    responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast one draft at every hour of a local day, or of seven days",
     description="Slots step hour by hour in UTC from local midnight to the next local midnight "
     "in the account's IANA zone (23 or 25 slots on daylight-saving days). The answer ranks the "
@@ -21,6 +23,7 @@ router = APIRouter(prefix="/v1", tags=["hours"])
     "team's history, not certainties.",
 )
 def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursOut:
-    report = best_hours(ws, body.text, account=body.account, day=body.day, week=body.week,
-                        metric=body.metric, coverage=body.coverage, top=body.top)
+    report = best_hours(ws.forecaster, body.text, account=body.account, day=body.day, week=body.week,
+                        metric=body.metric, coverage=body.coverage, top=body.top,
+                        has_media=body.has_media)
     return HoursOut(**report.to_dict())

@@ -24,7 +24,7 @@ from python_multipart.multipart import MultipartParser, parse_options_header
 from starlette.concurrency import run_in_threadpool
 from starlette.requests import ClientDisconnect
 
-from models.errors import InputError, LimitExceeded, StoreError
+from models.errors import AuthError, InputError, LimitExceeded, NotReady, StoreError
 
 from ...importer import parse_mapping
 from ..deps import WorkspaceDep, WriteAccess
@@ -248,7 +248,7 @@ def _remove(path: Path | None) -> None:
 @router.post(
     "/imports",
     response_model=ImportSummaryOut,
-    responses=ERRORS(401, 409, 413, 422, 503),
+    responses=ERRORS(AuthError, NotReady, LimitExceeded, InputError, StoreError),
     openapi_extra={"requestBody": UPLOAD_BODY},
     summary="Import past posts and their metrics from an uploaded CSV file",
 )

@@ -2,6 +2,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
+from models.errors import InputError, LimitExceeded, NotFound, StoreError
+
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import PrecedentOut, PrecedentsRequest, PrecedentsResponse
@@ -12,7 +14,7 @@ router = APIRouter(prefix="/v1", tags=["precedents"])
 @router.post(
     "/precedents",
     response_model=PrecedentsResponse,
-    responses=ERRORS(404, 413, 422, 503),
+    responses=ERRORS(NotFound, LimitExceeded, InputError, StoreError),
     summary="The most similar past posts of a draft",
 )
 def precedents(body: PrecedentsRequest, ws: WorkspaceDep) -> PrecedentsResponse:

@@ -5,6 +5,8 @@ from typing import Any
 from fastapi import APIRouter
 from fastapi.responses import Response
 
+from models.errors import InputError, NotFound, NotReady, StoreError
+
 from ...segmenting import SegmentRequest, render, segment
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
@@ -22,7 +24,7 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
         "split (per-segment distributions and medians with their intervals)",
         "content": {MEDIA_TYPES["png"]: _IMAGE, MEDIA_TYPES["svg"]: _IMAGE},
     },
-    **ERRORS(404, 409, 422, 503),
+    **ERRORS(NotFound, NotReady, InputError, StoreError),
 }
 
 
@@ -37,7 +39,7 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
     "one-line reading; Kruskal-Wallis tests the split as a whole. Differences are "
     "associations in this team's history, not causes.",
 )
-def segments(body: SegmentsRequest, ws: WorkspaceDep) -> Any:
+def segments(body: SegmentsRequest, ws: WorkspaceDep) -> SegmentsResponse | Response:
     req = SegmentRequest(
         topics=body.topics, by=body.by, metric=body.metric, mode=body.mode, k=body.k,
         threshold=body.threshold, hour_edges=body.hour_edges, length_edges=body.length_edges,

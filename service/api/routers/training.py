@@ -2,6 +2,8 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
+from models.errors import AuthError, InputError, NotReady, StoreError
+
 from ... import forecasting
 from ..deps import WorkspaceDep, WriteAccess
 from ..responses import ERRORS
@@ -13,7 +15,7 @@ router = APIRouter(prefix="/v1", tags=["training"])
 @router.post(
     "/training",
     response_model=TrainingOut,
-    responses=ERRORS(401, 409, 422, 503),
+    responses=ERRORS(AuthError, NotReady, InputError, StoreError),
     summary="Train (and backtest) a new model version from the store",
     description="Needs the bearer token. The service switches to the new version when it "
     "is complete; forecasts in flight finish on the old one.",

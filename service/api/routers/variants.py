@@ -2,7 +2,9 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
-from ...review import compare_variants
+from models.errors import InputError, LimitExceeded, NotFound, NotReady
+
+from ...wordings import compare_variants
 from ...timeparse import parse_time
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
@@ -14,7 +16,7 @@ router = APIRouter(prefix="/v1", tags=["variants"])
 @router.post(
     "/variants",
     response_model=VariantsOut,
-    responses=ERRORS(404, 409, 413, 422),
+    responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast several phrasings of one draft side by side",
     description="Each variant is forecast for the same account and time, ranked by median, with "
     "the precedents it has that the others do not. Variants whose intervals overlap heavily are "
@@ -23,6 +25,7 @@ router = APIRouter(prefix="/v1", tags=["variants"])
 def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsOut:
     tz = ws.store.account(body.account).timezone
     planned = parse_time(body.planned_at, tz=tz, where="planned_at") if body.planned_at else None
-    report = compare_variants(ws, body.texts, account=body.account, planned_at=planned,
-                              metric=body.metric, coverage=body.coverage)
+    report = compare_variants(ws.forecaster, body.texts, account=body.account, planned_at=planned,
+                              metric=body.metric, coverage=body.coverage,
+                              has_media=body.has_media)
     return VariantsOut(**report.to_dict())

@@ -1,0 +1,99 @@
+"""The history view: the store's posts as arrays for one metric, oldest first.
+
+Training, drafts, near-repeats and segments all read the history through
+this one view, so a post is described the same way everywhere.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import cast
+
+import numpy as np
+import pandas as pd
+
+from models import features as F
+from models.metrics import METRIC_COLUMNS, target_value
+
+from .settings import Settings
+from .store import Store
+
+
+@dataclass(slots=True)
+class HistoryView:
+    """The store's posts as arrays for one metric, oldest first."""
+
+    metric: str
+    frame: pd.DataFrame
+    history: F.History
+    local_hours: np.ndarray
+    weekdays: np.ndarray
+    forms: np.ndarray
+    account_codes: dict[str, int]
+    row_of_pk: dict[int, int]
+    zones: dict[int, str]  # account code -> IANA zone
+
+    def rows_of(self, pks: np.ndarray | list[int]) -> np.ndarray:
+        """History rows of store row ids (ids not in the view are dropped)."""
+        return np.array([self.row_of_pk[int(p)] for p in pks if int(p) in self.row_of_pk], dtype=np.int64)
+
+
+def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Local hour (with minutes as a fraction) and weekday in each post's zone."""
+    hours = np.zeros(len(times))
+    days = np.zeros(len(times), dtype=np.int64)
+    for tz in zones.unique():
+        mask = (zones == tz).to_numpy()
+        local = times[mask].dt.tz_convert(str(tz))
+        hours[mask] = (local.dt.hour + local.dt.minute / 60.0).to_numpy()
+        days[mask] = local.dt.day_of_week.to_numpy()
+    return hours, days
+
+
+def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
+    frame = store.posts_frame()
+    records = cast(list[dict[str, float | None]], frame[list(METRIC_COLUMNS)].to_dict("records"))
+    values = [target_value(r, metric) for r in records]
+    logs = np.log1p(np.array([np.nan if v is None else v for v in values], dtype=np.float64))
+    codes = {h: i for i, h in enumerate(sorted(frame["account"].unique()))}
+    vecs = (
+        store.vectors(list(frame["vector_key"]))
+        if with_vectors and len(frame)
+        else np.zeros((len(frame), 0), dtype=np.float32)
+    )
+    history = F.History(
+        pk=frame["pk"].to_numpy(np.int64),
+        # Seconds since the epoch, whatever resolution pandas chose for datetimes.
+        time=(frame["posted_at"] - pd.Timestamp(0, tz="UTC")).dt.total_seconds().to_numpy(np.float64),
+        account=frame["account"].map(codes).to_numpy(np.int64),
+        log_target=logs,
+        vectors=vecs,
+    )
+    hours, days = local_clock(frame["posted_at"], frame["timezone"])
+    forms = np.array(
+        [
+            F.text_form(t, bool(lk), bool(md))
+            for t, lk, md in zip(frame["text"], frame["has_link"], frame["has_media"], strict=True)
+        ]
+    ).reshape(len(frame), -1)
+    zones = {codes[a]: str(z) for a, z in zip(frame["account"], frame["timezone"], strict=True)}
+    return HistoryView(
+        metric,
+        frame,
+        history,
+        hours,
+        days,
+        forms,
+        codes,
+        {int(p): i for i, p in enumerate(frame["pk"])},
+        zones,
+    )
+
+
+def feature_params(settings: Settings) -> F.FeatureParams:
+    return F.FeatureParams(
+        k=settings.neighbours,
+        maturity_s=settings.maturity_hours * 3600.0,
+        similar_threshold=settings.similar_threshold,
+        baseline_n=settings.baseline_posts,
+    )

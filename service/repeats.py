@@ -1,0 +1,171 @@
+"""Near-repeats: recent posts of the same account (or of a teammate) that say
+nearly the same thing shortly before a draft's planned time. Every forecast
+carries them as warnings.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from models.metrics import METRIC_COLUMNS, target_value
+
+from .history import HistoryView
+from .retrieval import Retriever, WideCache
+from .settings import Settings
+
+DAY = 86400.0
+
+
+@dataclass(frozen=True, slots=True)
+class Repeat:
+    """A recent post very similar to a draft."""
+
+    scope: str  # "own": the draft's account; "team": another account of the store
+    post_id: str
+    account: str
+    posted_at: datetime
+    days_before: float  # before the planned time
+    similarity: float
+    metric: str
+    value: float | None  # the post's metric so far
+    mature: bool
+    text: str
+    planned_is_now: bool = True
+
+    @property
+    def message(self) -> str:
+        ago = _ago(self.days_before) + (" ago" if self.planned_is_now else " before the planned time")
+        how = _how_it_did(self.metric, self.value, self.mature)
+        snippet = self.text if len(self.text) <= 90 else self.text[:87].rstrip() + "..."
+        what = (
+            f"{self.post_id} on {self.posted_at:%Y-%m-%d}, {how}, similarity "
+            f"{self.similarity:.2f}: \u201c{snippet}\u201d"
+        )
+        if self.scope == "own":
+            return f"near-repeat: {self.account} posted something very similar {ago}: {what}"
+        return (
+            f"near-repeat on the team: someone on the team ({self.account}) posted something "
+            f"very similar {ago}: {what}"
+        )
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "scope": self.scope,
+            "post_id": self.post_id,
+            "account": self.account,
+            "posted_at": self.posted_at.isoformat(),
+            "days_before": round(self.days_before, 2),
+            "similarity": round(self.similarity, 4),
+            "metric": self.metric,
+            "value": self.value,
+            "mature": self.mature,
+            "message": self.message,
+        }
+
+
+def _ago(days: float) -> str:
+    if days < 1:
+        hours = max(1, round(days * 24))
+        return f"{hours} hour{'s' if hours != 1 else ''}"
+    n = round(days)
+    return f"{n} day{'s' if n != 1 else ''}"
+
+
+def _how_it_did(metric: str, value: float | None, mature: bool) -> str:
+    if value is None:
+        return f"no {metric} recorded yet"
+    shown = f"{value:.1%} {metric}" if metric == "engagement_rate" else f"{value:,.0f} {metric}"
+    return shown if mature else f"{shown} so far (still gathering)"
+
+
+def near_repeats(
+    retrieval: Retriever,
+    settings: Settings,
+    view: HistoryView,
+    *,
+    account: str,
+    vector: np.ndarray,
+    planned: datetime,
+    now: datetime,
+    k: int = 3,
+) -> list[Repeat]:
+    """Posts above ``settings.repeat_similarity`` shortly before ``planned``.
+
+    Same account: within ``repeat_window_days``; other accounts (teammates):
+    within ``team_repeat_window_days``. Young posts count too: they are the
+    likeliest repeats. Only posts strictly before the planned time are
+    searched, so re-checking a published post never finds itself.
+    """
+    return near_repeats_many(retrieval, settings, view, [(account, vector, planned)], now=now, k=k)[0]
+
+
+def near_repeats_many(
+    retrieval: Retriever,
+    settings: Settings,
+    view: HistoryView,
+    items: Sequence[tuple[str, np.ndarray, datetime]],
+    *,
+    now: datetime,
+    k: int = 3,
+    wide: WideCache | None = None,
+) -> list[list[Repeat]]:
+    """``near_repeats`` of each (account, vector, planned time), own account's
+    repeats first, at most ``k`` of each scope, most similar first.
+
+    Items that share account and text (best hours: one draft at many times)
+    share one search per scope over the union of their windows.
+    """
+    s = settings
+    h = view.history
+    out: list[list[Repeat]] = [[] for _ in items]
+    groups: dict[tuple[str, bytes], list[int]] = {}
+    for i, (account, vec, _) in enumerate(items):
+        groups.setdefault((account, np.asarray(vec, dtype=np.float32).tobytes()), []).append(i)
+    spans = (("own", s.repeat_window_days * DAY), ("team", s.team_repeat_window_days * DAY))
+    for (account, _), idx in groups.items():
+        code = view.account_codes.get(account)
+        if code is None or len(h) == 0:
+            continue
+        vec = np.asarray(items[idx[0]][1], dtype=np.float32).reshape(1, -1)
+        times = np.array([items[i][2].timestamp() for i in idx])
+        for scope, span in spans:
+            who = (h.account == code) if scope == "own" else (h.account != code)
+            union = who & (h.time < times.max()) & (h.time >= times.min() - span)
+            hits = retrieval.above(view, vec, union, s.repeat_similarity, (wide or {}).get(vec.tobytes()))
+            for i, t in zip(idx, times, strict=True):
+                mine = [(r, sim) for r, sim in hits if t - span <= h.time[r] < t][:k]
+                out[i].extend(
+                    _repeat(view, scope, r, sim, t=t, now=now, maturity=s.maturity_hours * 3600.0)
+                    for r, sim in mine
+                )
+    return out
+
+
+def _repeat(
+    view: HistoryView, scope: str, row: int, sim: float, *, t: float, now: datetime, maturity: float
+) -> Repeat:
+    rec = view.frame.iloc[row]
+    posted = view.history.time[row]
+    return Repeat(
+        scope=scope,
+        post_id=str(rec["post_id"]),
+        account=str(rec["account"]),
+        posted_at=rec["posted_at"].to_pydatetime(),
+        days_before=(t - posted) / DAY,
+        similarity=float(sim),
+        metric=view.metric,
+        value=target_value(_metrics(rec), view.metric),
+        mature=bool(posted <= now.timestamp() - maturity),
+        text=str(rec["text"]),
+        planned_is_now=abs(t - now.timestamp()) < DAY,
+    )
+
+
+def _metrics(rec: pd.Series) -> dict[str, float | None]:
+    return {m: (None if rec[m] != rec[m] else float(rec[m])) for m in METRIC_COLUMNS}

@@ -1,0 +1,175 @@
+"""Retrieval: the one place that answers "the nearest earlier posts of this
+vector, under these filters" (account, time range, settled by a time).
+
+A thin layer over ``models.index.VectorIndex.search`` (drafts, near-repeats,
+precedents) and ``models.features`` (training rows and the leak-free
+eligibility rule), so the index and the feature internals can change under it.
+Training rows and drafts take their neighbours by the same rule: posts
+published and settled (``features.eligible``) before the post's time, the
+``k`` most similar across the team and within the account.
+"""
+
+from __future__ import annotations
+
+import threading
+from collections.abc import Callable
+from datetime import datetime
+
+import numpy as np
+
+from models import features as F
+from models.index import VectorIndex
+
+from .history import HistoryView
+from .store import Store
+
+#: Nearest posts fetched per draft in one unfiltered pass before filtering.
+WIDE = 200
+
+Hits = list[tuple[int, float]]  # (store row id, similarity), best first
+Found = tuple[np.ndarray, np.ndarray]  # (History rows, similarities), best first
+WideCache = dict[bytes, Found]  # one unfiltered search per distinct vector
+
+
+class Retriever:
+    """Nearest posts of a vector under filters, over one data directory's index.
+
+    ``index`` returns the current index (checked against the store); searches
+    run under ``lock``, because the index is changed in place by imports and
+    forgets, and FAISS allows no search while ids are removed or added.
+    """
+
+    def __init__(self, *, store: Store, index: Callable[[], VectorIndex], lock: threading.RLock) -> None:
+        self.store = store
+        self._index = index
+        self._lock = lock
+
+    # Store row ids ----------------------------------------------------------
+
+    def nearest(
+        self,
+        vectors: np.ndarray,
+        k: int,
+        *,
+        account: str | None = None,
+        since: datetime | None = None,
+        until: datetime | None = None,
+        allowed_pks: np.ndarray | None = None,
+    ) -> list[Hits]:
+        """(post row id, similarity) of the ``k`` nearest posts per vector,
+        optionally among ``allowed_pks`` or one account's posts in a date range."""
+        allowed = allowed_pks
+        if account is not None or since is not None or until is not None:
+            allowed = self.store.pks_where(account=account, since=since, until=until)
+            if allowed_pks is not None:
+                allowed = np.intersect1d(allowed, allowed_pks)
+        with self._lock:
+            sims, ids = self._index().search(vectors, k, allowed_ids=allowed)
+        return [
+            [(int(i), float(s)) for i, s in zip(row_ids, row_sims, strict=True) if i >= 0]
+            for row_ids, row_sims in zip(ids, sims, strict=True)
+        ]
+
+    # History rows -----------------------------------------------------------
+
+    def rows(self, view: HistoryView, vec: np.ndarray, k: int, allowed: np.ndarray | None = None) -> Found:
+        """The ``k`` nearest posts of the view, among History rows ``allowed``."""
+        if (allowed is not None and len(allowed) == 0) or k < 1:
+            return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.float32)
+        pks = None if allowed is None else view.history.pk[allowed]
+        hits = self.nearest(np.asarray(vec, dtype=np.float32).reshape(1, -1), k, allowed_pks=pks)[0]
+        found = [(view.row_of_pk[p], s) for p, s in hits if p in view.row_of_pk]
+        return (
+            np.array([r for r, _ in found], dtype=np.int64),
+            np.array([s for _, s in found], dtype=np.float32),
+        )
+
+    def wide(
+        self, view: HistoryView, vec: np.ndarray, params: F.FeatureParams, cache: WideCache | None = None
+    ) -> Found:
+        """One wide, unfiltered search of the view (cached per vector)."""
+        key = np.asarray(vec, dtype=np.float32).tobytes()
+        if cache is not None and key in cache:
+            return cache[key]
+        found = self.rows(view, vec, min(len(view.history), max(WIDE, 10 * params.k)))
+        if cache is not None:
+            cache[key] = found
+        return found
+
+    def neighbourhood(
+        self,
+        view: HistoryView,
+        vec: np.ndarray,
+        *,
+        t: float,
+        account: int,
+        params: F.FeatureParams,
+        cache: WideCache | None = None,
+    ) -> F.Neighbourhood:
+        """A draft's neighbours at time ``t``: the ``k`` most similar posts
+        settled by then across the team and within account code ``account``,
+        by the rule the training rows use (``features.eligible``).
+
+        One wide search serves both lists; a filtered search is only needed
+        when the eligible posts are too rare among the nearest to fill a list.
+        """
+        h = view.history
+        ok = F.eligible(h, t, params)
+        own_ok = ok & (h.account == account)
+        rows, sims = self.wide(view, vec, params, cache)
+        team: Found = (rows[ok[rows]], sims[ok[rows]])
+        own: Found = (rows[own_ok[rows]], sims[own_ok[rows]])
+        if len(own[0]) < min(params.k, int(own_ok.sum())):
+            own = self.rows(view, vec, params.k, np.flatnonzero(own_ok))
+        if len(team[0]) < min(params.k, int(ok.sum())):
+            team = self.rows(view, vec, params.k, np.flatnonzero(ok))
+        return F.draft_neighbourhood(h, team, own, t=t, params=params)
+
+    def above(
+        self,
+        view: HistoryView,
+        vec: np.ndarray,
+        mask: np.ndarray,
+        threshold: float,
+        nearest: Found | None = None,
+    ) -> list[tuple[int, float]]:
+        """(History row, similarity) of every post in ``mask`` at or above
+        ``threshold``, best first.
+
+        ``nearest`` is the vector's unfiltered nearest list when a forecast
+        already searched: if it reaches below the threshold it holds every
+        post above it, and no second pass over the index is needed.
+        """
+        rows = np.flatnonzero(mask)
+        if len(rows) == 0:
+            return []
+        if (
+            nearest is not None
+            and len(nearest[1])
+            and (nearest[1][-1] < threshold or len(nearest[1]) >= len(view.history))
+        ):
+            near_rows, near_sims = nearest
+            keep = mask[near_rows] & (near_sims >= threshold)
+            return [(int(r), float(x)) for r, x in zip(near_rows[keep], near_sims[keep], strict=True)]
+        k = min(len(rows), 16)
+        while True:  # widen the search until it passes below the threshold
+            found_rows, found_sims = self.rows(view, vec, k, rows)
+            if len(found_rows) < k or found_sims[-1] < threshold or k >= len(rows):
+                break
+            k = min(len(rows), k * 4)
+        keep = found_sims >= threshold
+        return [(int(r), float(s)) for r, s in zip(found_rows[keep], found_sims[keep], strict=True)]
+
+    # Training rows ----------------------------------------------------------
+
+    @staticmethod
+    def training_matrix(view: HistoryView, params: F.FeatureParams) -> np.ndarray:
+        """Leak-free feature rows of every post of the view (needs its vectors):
+        each post's neighbours by the same eligibility rule as a draft's."""
+        return F.training_matrix(
+            view.history,
+            local_hours=view.local_hours,
+            weekdays=view.weekdays,
+            forms=view.forms,
+            params=params,
+        )
