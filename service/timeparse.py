@@ -54,7 +54,6 @@ def check_range(dt: datetime, *, where: str | None = None, value: str | None = N
         raise TimeParseError(
             f"time {dt.isoformat()} is outside the accepted range, {range_text()}",
             where=where, value=value or dt.isoformat(),
-            hint="check that this column holds the post's time",
         )
     return dt
 

@@ -21,7 +21,7 @@ from models.embedding import Embedder
 from models.errors import InputError, LimitExceeded, StoreError
 from models.index import VectorIndex
 
-from .importer import ImportSummary, ProgressFn, import_csv
+from .importer import ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
 from .settings import Settings
 from .store import Store
 from .timeparse import as_utc, now_utc
@@ -176,15 +176,22 @@ class Workspace:
         mapping: dict[str, str] | None = None,
         timezone: str | None = None,
         progress: ProgressFn | None = None,
+        **layout: Any,
     ) -> ImportSummary:
+        """``layout``: time_format, date_order, decimal_comma (service.importer)."""
         self.index()  # load or rebuild first, so the update below is incremental
         summary = import_csv(
             self.store, self.embedder, path, account=account, mapping=mapping,
             timezone=timezone, batch_rows=self.settings.import_batch_rows, progress=progress,
+            **layout,
         )
         if summary.changed_pks or summary.updated:
             self._sync_index(summary.changed_pks)
         return summary
+
+    def preview_import(self, path: str | Path, **options: Any) -> ImportPreview:
+        """A dry run of :meth:`import_csv`: the same checks, nothing written."""
+        return preview_csv(self.store, self.embedder, path, **options)
 
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
         """Delete posts from the store and the index together."""
