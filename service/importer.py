@@ -76,6 +76,12 @@ class ImportOptions:
     date_order: DateOrder | None = None
     decimal_comma: bool = False
 
+    def kwargs(self) -> dict[str, Any]:
+        """As keyword arguments of :func:`import_csv` and :func:`preview_csv`."""
+        return {"account": self.account, "mapping": self.mapping, "timezone": self.timezone,
+                "time_format": self.time_format, "date_order": self.date_order,
+                "decimal_comma": self.decimal_comma}
+
     def layout(self) -> TimeLayout:
         return TimeLayout(pattern=self.time_format, date_order=self.date_order)
 

@@ -407,7 +407,7 @@ def check_date_order(
                 f"the dates in column {column} can be read day-first or month-first: the "
                 f"first that reads both ways is {raw!r} on line {line}",
                 where=where, field=column, value=raw,
-                hint="give --day-first or --month-first (sounding never guesses)",
+                hint="give --day-first or --month-first; sounding never guesses",
             )
         for order in reading.orders:
             seen.setdefault(order, (line, raw))
