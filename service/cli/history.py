@@ -92,14 +92,14 @@ def print_preview(p: ImportPreview, *, limit: int = 10) -> None:
         shown = ", ".join(p.unused[:20]) + (f" and {len(p.unused) - 20} more" if len(p.unused) > 20 else "")
         out.print(f"not read: {shown}", highlight=False, markup=False)
     metrics = [c.ours for c in p.columns if c.ours in METRIC_COLUMNS and c.theirs]
-    t = Table("line", "account", "post_id", "posted (UTC)", "local time", *metrics, "text",
-              title=f"first {len(p.rows)} rows as read (~ marks an approximate count)")
+    out.print(f"first {len(p.rows)} rows as read (~ marks an approximate count):", highlight=False)
     for r in p.rows:
-        t.add_row(str(r.line), r.account, r.post_id, r.posted_at[:16].replace("T", " "),
-                  f"{r.local_time[:16].replace('T', ' ')} {r.local_time[19:]} {r.zone}",
-                  *[("~" if m in r.approximate else "") + _n(r.metrics.get(m)) for m in metrics],
-                  r.text if len(r.text) <= 40 else r.text[:37] + "...")
-    out.print(t)
+        local = f"{r.local_time[:16].replace('T', ' ')}{r.local_time[19:]} {r.zone}"
+        counts = ", ".join(f"{m} {'~' if m in r.approximate else ''}{_n(r.metrics.get(m))}"
+                           for m in metrics)
+        text = r.text if len(r.text) <= 40 else r.text[:37] + "..."
+        out.print(f"  line {r.line}: {r.account} {r.post_id}, {r.posted_at[:16].replace('T', ' ')}"
+                  f" UTC = {local}; {counts}; {text!r}", highlight=False, markup=False)
     s = p.summary
     rough = f" ({p.approximate} with approximate counts)" if p.approximate else ""
     out.print(f"would import {p.would_import} rows{rough}; {s.rejected} would be rejected",
