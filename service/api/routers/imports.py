@@ -16,7 +16,7 @@ import os
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, BinaryIO
+from typing import Annotated, Any, BinaryIO
 
 from fastapi import APIRouter, Query, Request
 from python_multipart.exceptions import FormParserError
@@ -292,8 +292,8 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
 )
 async def create_import(
     request: Request, ws: WorkspaceDep, _auth: WriteAccess,
-    dry_run: bool = Query(False, description="Store nothing: answer how the columns map, the "
-                          "first rows as read and what would be rejected"),
+    dry_run: Annotated[bool, Query(description="Store nothing: answer how the columns map, the "
+                                   "first rows as read and what would be rejected")] = False,
 ) -> ImportSummaryOut | ImportPreviewOut:
     """Rows with problems are reported with line, column, reason and a fix
     to try; every valid row is stored, in batches that are each one
