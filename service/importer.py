@@ -239,6 +239,8 @@ class _Rows:
             raise CSVFormatError(f"the header is not readable as CSV: {reason}", where=where)
         self.header = [h.strip() for h in first.fields]
         self.positions = self._resolve(self.header, options.mapping)
+        self.metric_positions = [(m, self.positions[m]) for m in METRIC_COLUMNS
+                                 if m in self.positions]
 
     def _resolve(self, header: list[str], mapping: dict[str, str]) -> dict[str, int]:
         # One pass with a Counter and a dict: a list.count per column made
@@ -343,11 +345,10 @@ class _Rows:
             hint = exc.hint or ("check that this column holds the post's time"
                                 if "accepted range" in exc.message else None)
             raise _Reject("posted_at", exc.message, hint) from None
-        readings: dict[str, Reading | None] = {}
-        for m in METRIC_COLUMNS:
-            raw = self._get(fields, m)
-            if raw is None or not raw.strip():
-                readings[m] = None
+        readings: dict[str, Reading | None] = dict.fromkeys(METRIC_COLUMNS)
+        for m, i in self.metric_positions:
+            raw = fields[i]
+            if not raw or raw.isspace():
                 continue
             try:
                 readings[m] = read_count(raw, decimal_comma=self.options.decimal_comma)

@@ -21,6 +21,7 @@ from decimal import Decimal, InvalidOperation
 #: float64 (IEEE 754 has a 53-bit significand), which the models use.
 MAX_COUNT = 2**53
 
+_ZERO = Decimal(0)
 _SCALE = {"": 1, "K": 10**3, "M": 10**6, "B": 10**9}
 # Separators a person may group thousands with: comma, full stop, space,
 # no-break space, narrow no-break space, thin space, apostrophe, underscore.
@@ -101,7 +102,13 @@ def read_number(raw: str, *, decimal_comma: bool = False, allow_suffix: bool = T
 
 def read_count(raw: str, *, decimal_comma: bool = False) -> Reading:
     """A non-negative whole count up to MAX_COUNT; abbreviations are approximate."""
-    if raw.strip().endswith("%"):
+    plain = raw.strip()
+    if plain.isascii() and plain.isdigit():  # the common case, without the grammar
+        if len(plain) > 15 and int(plain) > MAX_COUNT:
+            raise NumberError(
+                f"{raw!r} is above {MAX_COUNT:,} (2^53), the largest count stored exactly")
+        return Reading(value=Decimal(int(plain)), half_width=_ZERO, approximate=False)
+    if plain.endswith("%"):
         raise NumberError(f"{raw!r} is a percentage, not a count",
                           hint="map the rate to engagement_rate, counts to count columns")
     r = read_number(raw, decimal_comma=decimal_comma)
