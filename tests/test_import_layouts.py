@@ -476,3 +476,14 @@ def test_api_dry_run_stores_nothing(make_workspace) -> None:
     assert body["dry_run"] is True and body["would_import"] == 13 and body["approximate"] == 11
     assert "Campaign" in body["unused_columns"]
     assert workspace.store.counts() == before
+
+
+def test_an_unreadable_rest_exits_3_even_with_allow_rejects(cli_home: Path, tmp_path: Path) -> None:
+    from service.csvread import MAX_BAD_IN_A_ROW
+
+    f = tmp_path / "junk.csv"
+    f.write_text("\n".join(["post_id,account,text,posted_at,impressions", GOOD_ROWS[0],
+                            *['x,"a"b'] * (MAX_BAD_IN_A_ROW + 5)]) + "\n")
+    r = run("import", str(f), "--allow-rejects")
+    assert r.exit_code == 3
+    assert "added 1" in r.stdout and "6 lines were not read" in r.stderr
