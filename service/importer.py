@@ -1,34 +1,44 @@
-"""Import of our canonical CSV into the store.
+"""Import of a history CSV into the store.
 
 The canonical columns are::
 
     post_id, account, text, posted_at, impressions, engagements, likes,
-    reposts, replies, link_clicks, profile_clicks, has_media
+    reposts, replies, link_clicks, profile_clicks, has_media, engagement_rate
 
 ``post_id``, ``text``, ``posted_at`` and at least one metric column are
 required; ``account`` may come from ``account=`` instead. A column mapping
-(``ours=theirs``) reads any export whose columns are named differently.
+(``ours=theirs``) reads any export whose columns are named differently, and
+:class:`ImportOptions` say how its times and numbers are written: a strptime
+pattern or Unix times, the order of numeric dates, a decimal comma. Counts
+may carry thousands separators and abbreviations (``1.2K``, marked
+approximate); an ``engagement_rate`` column is checked against engagements
+/ impressions, or fills in the one of them a row leaves out.
 
-Parsing follows RFC 4180 (Python's csv module: quoted commas, doubled
+Parsing follows RFC 4180 (``service.csvread``: quoted commas, doubled
 quotes, line breaks inside quotes); the file is UTF-8 with or without a
-byte-order mark. Problems with the file as a whole stop the import before
-anything is written. Problems with a row are reported with the row's line
-number, column and reason, and every valid row is still stored, in batches
-that are each one transaction: an interruption loses at most the batch in
-flight, never half a row.
+byte-order mark. Problems with the file as a whole (encoding, header,
+dates that read two ways) stop the import before anything is written.
+Problems with a row, including a record the CSV reader cannot read, are
+reported with the row's line number, column, reason and a fix to try, and
+every valid row is still stored, in batches that are each one transaction:
+an interruption loses at most the batch in flight, never half a row.
 
 The path is: read and validate -> embed the texts not embedded before ->
 write the batch. The index is updated by the caller (``Workspace``).
+:func:`preview_csv` runs the same reading and validation and writes nothing.
 """
 
 from __future__ import annotations
 
 import codecs
 import csv
-import io
+from collections import Counter
 from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
+from decimal import ROUND_HALF_EVEN, Decimal
 from pathlib import Path
+from typing import Any, TextIO
 
 import numpy as np
 
@@ -36,19 +46,57 @@ from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
 from models.metrics import METRIC_COLUMNS
 
+from .csvread import Abandoned, BadRecord, Record, RecordReader
+from .numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from .store import PostRow, Store
-from .timeparse import parse_time, zone
+from .timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order, zone
 
+RATE_COLUMN = "engagement_rate"
 CANONICAL_COLUMNS: tuple[str, ...] = (
-    "post_id", "account", "text", "posted_at", *METRIC_COLUMNS, "has_media",
+    "post_id", "account", "text", "posted_at", *METRIC_COLUMNS, "has_media", RATE_COLUMN,
 )
 REQUIRED_COLUMNS: tuple[str, ...] = ("post_id", "text", "posted_at")
 _TRUE = {"true", "1", "yes", "y", "t"}
 _FALSE = {"false", "0", "no", "n", "f", ""}
 _CHUNK = 1 << 20
+PREVIEW_ROWS = 5
 
 # Our own fields can be long, but a single field past this is not a post.
 csv.field_size_limit(1 << 24)
+
+
+@dataclass(frozen=True, slots=True)
+class ImportOptions:
+    """How to read one export: column mapping, account, and how its times
+    and numbers are written. A saved mapping (``service.mappings``) holds
+    exactly these."""
+
+    mapping: dict[str, str] = field(default_factory=dict)
+    account: str | None = None
+    timezone: str | None = None
+    time_format: str | None = None
+    date_order: DateOrder | None = None
+    decimal_comma: bool = False
+
+    def kwargs(self) -> dict[str, Any]:
+        """As keyword arguments of :func:`import_csv` and :func:`preview_csv`."""
+        return {"account": self.account, "mapping": self.mapping, "timezone": self.timezone,
+                "time_format": self.time_format, "date_order": self.date_order,
+                "decimal_comma": self.decimal_comma}
+
+    def layout(self) -> TimeLayout:
+        return TimeLayout(pattern=self.time_format, date_order=self.date_order)
+
+    def check(self) -> ImportOptions:
+        """Validate every option before a file is opened."""
+        if self.timezone is not None:
+            zone(self.timezone)
+        self.layout()
+        bad = [k for k in self.mapping if k not in CANONICAL_COLUMNS]
+        if bad:
+            raise InputError(f"{bad[0]!r} is not one of our columns ({', '.join(CANONICAL_COLUMNS)})",
+                             field="map", value=bad[0])
+        return self
 
 
 @dataclass(frozen=True, slots=True)
@@ -56,10 +104,17 @@ class RowProblem:
     line: int
     column: str | None
     reason: str
+    hint: str | None = None
+    post_id: str | None = None
 
     def __str__(self) -> str:
         col = f", column {self.column}" if self.column else ""
-        return f"line {self.line}{col}: {self.reason}"
+        fix = f" ({self.hint})" if self.hint else ""
+        return f"line {self.line}{col}: {self.reason}{fix}"
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"line": self.line, "column": self.column, "reason": self.reason,
+                "hint": self.hint, "post_id": self.post_id}
 
 
 @dataclass(slots=True)
@@ -69,8 +124,16 @@ class ImportSummary:
     unchanged: int = 0
     rejected: int = 0
     embedded: int = 0
+    approximate: int = 0  # rows stored with an abbreviated or derived count
+    skipped_lines: int = 0  # lines never read: the rest of the file was not CSV
+    stopped: str | None = None
     problems: list[RowProblem] = field(default_factory=list)
     changed_pks: list[int] = field(default_factory=list)
+
+    @property
+    def complete(self) -> bool:
+        """Every row was stored (none rejected, none left unread)."""
+        return not self.rejected and not self.skipped_lines
 
     def to_dict(self) -> dict[str, object]:
         return {
@@ -79,9 +142,10 @@ class ImportSummary:
             "unchanged": self.unchanged,
             "rejected": self.rejected,
             "embedded": self.embedded,
-            "problems": [
-                {"line": p.line, "column": p.column, "reason": p.reason} for p in self.problems
-            ],
+            "approximate": self.approximate,
+            "skipped_lines": self.skipped_lines,
+            "stopped": self.stopped,
+            "problems": [p.to_dict() for p in self.problems],
         }
 
 
@@ -141,61 +205,75 @@ def check_encoding(path: Path) -> int:
     return max(lines, line_start)
 
 
+class _Reject(Exception):
+    def __init__(self, column: str | None, reason: str, hint: str | None = None) -> None:
+        self.column, self.reason, self.hint = column, reason, hint
+
+
 class _Rows:
     """Validates the rows of an open CSV one at a time."""
 
     def __init__(
         self,
-        handle: io.TextIOBase,
+        handle: TextIO,
         *,
         where: str,
-        mapping: dict[str, str],
-        account: str | None,
-        timezone: str | None,
+        options: ImportOptions,
         account_zones: dict[str, str],
         embedder: Embedder,
     ) -> None:
-        self.reader = csv.reader(handle, strict=True)
+        self.records = RecordReader(handle)
+        self._items = iter(self.records)
         self.where = where
-        self.account = account
-        self.timezone = timezone
+        self.options = options
+        self.account = options.account
+        self.timezone = options.timezone
         self.account_zones = account_zones
         self.embedder = embedder
+        self.times = TimeReader(layout=options.layout())
         self.seen: dict[tuple[str, str], int] = {}
-        try:
-            header = next(self.reader)
-        except StopIteration:
-            raise CSVFormatError("the file is empty", where=where) from None
-        except csv.Error as exc:
-            raise CSVFormatError(f"not a readable CSV: {exc}", where=where) from None
-        header = [h.strip() for h in header]
-        self.positions = self._resolve(header, mapping)
+        self.abandoned: Abandoned | None = None
+        first = next(self._items, None)
+        if first is None:
+            raise CSVFormatError("the file is empty", where=where)
+        if not isinstance(first, Record):
+            reason = first.reason if isinstance(first, BadRecord | Abandoned) else "unreadable"
+            raise CSVFormatError(f"the header is not readable as CSV: {reason}", where=where)
+        self.header = [h.strip() for h in first.fields]
+        self.positions = self._resolve(self.header, options.mapping)
+        self.metric_positions = [(m, self.positions[m]) for m in METRIC_COLUMNS
+                                 if m in self.positions]
 
     def _resolve(self, header: list[str], mapping: dict[str, str]) -> dict[str, int]:
-        dupes = {h for h in header if h and header.count(h) > 1}
+        # One pass with a Counter and a dict: a list.count per column made
+        # this quadratic (100,000 columns took minutes).
+        counts = Counter(h for h in header if h)
+        dupes = sorted(h for h, n in counts.items() if n > 1)
         if dupes:
-            raise CSVFormatError(
-                f"the header names {', '.join(sorted(dupes))} more than once", where=self.where
-            )
+            shown = ", ".join(dupes[:10]) + (f" and {len(dupes) - 10} more" if len(dupes) > 10 else "")
+            raise CSVFormatError(f"the header names {shown} more than once", where=self.where)
+        where_is = {h: i for i, h in enumerate(header)}
         pos: dict[str, int] = {}
         for ours, theirs in mapping.items():
-            if theirs not in header:
+            if theirs not in where_is:
+                listed = ", ".join(header[:50]) + (" ..." if len(header) > 50 else "")
                 raise CSVFormatError(
                     f"the mapping {ours}={theirs} names column {theirs!r}, which is not in "
-                    f"the file (its columns: {', '.join(header) or 'none'})",
+                    f"the file (its columns: {listed or 'none'})",
                     where=self.where,
                     field="map",
                 )
-            pos[ours] = header.index(theirs)
+            pos[ours] = where_is[theirs]
         for col in CANONICAL_COLUMNS:
-            if col not in pos and col in header:
-                pos[col] = header.index(col)
+            if col not in pos and col in where_is:
+                pos[col] = where_is[col]
         needed = list(REQUIRED_COLUMNS) + ([] if self.account else ["account"])
         missing = [c for c in needed if c not in pos]
         if missing:
+            listed = ", ".join(header[:50]) + (" ..." if len(header) > 50 else "")
             raise CSVFormatError(
                 f"missing required column{'s' if len(missing) > 1 else ''} "
-                f"{', '.join(missing)} (found: {', '.join(header) or 'none'})",
+                f"{', '.join(missing)} (found: {listed or 'none'})",
                 where=self.where,
                 hint="rename with --map ours=theirs"
                 + (", or give --account" if "account" in missing else ""),
@@ -209,28 +287,42 @@ class _Rows:
 
     @property
     def line_num(self) -> int:
-        return self.reader.line_num
+        return self.records.line_num
+
+    def time_values(self) -> Iterator[tuple[int, str]]:
+        """(line, text) of every readable row's time, for the date-order check."""
+        i = self.positions["posted_at"]
+        for item in self._items:
+            if isinstance(item, Record) and len(item.fields) > i:
+                yield item.line, item.fields[i]
+
+    def zone_of(self, account: str) -> str:
+        return self.timezone or self.account_zones.get(account, "UTC")
 
     def __iter__(self) -> Iterator[PostRow | RowProblem]:
         width = len(self.positions) and max(self.positions.values()) + 1
-        while True:
-            start = self.reader.line_num + 1
-            try:
-                fields = next(self.reader)
-            except StopIteration:
+        id_at = self.positions["post_id"]
+        for item in self._items:
+            if isinstance(item, Abandoned):
+                self.abandoned = item
                 return
-            except csv.Error as exc:
-                yield RowProblem(start, None, f"not readable as CSV: {exc}")
-                return
+            if isinstance(item, BadRecord):
+                yield RowProblem(item.line, None, item.reason,
+                                 "check the quotes of this row: a quote inside a quoted field "
+                                 "is written twice (RFC 4180)" if "quote" in item.reason else None)
+                continue
+            fields, start = item.fields, item.line
             if not fields or all(not f.strip() for f in fields):
                 continue  # blank line
+            post_id = fields[id_at].strip() or None if len(fields) > id_at else None
             if len(fields) < width:
-                yield RowProblem(start, None, f"has {len(fields)} fields, expected at least {width}")
+                yield RowProblem(start, None, f"has {len(fields)} fields, expected at least {width}",
+                                 None, post_id)
                 continue
             try:
                 yield self._row(fields, start)
             except _Reject as r:
-                yield RowProblem(start, r.column, r.reason)
+                yield RowProblem(start, r.column, r.reason, r.hint, post_id)
 
     def _get(self, fields: list[str], col: str) -> str | None:
         i = self.positions.get(col)
@@ -248,15 +340,24 @@ class _Rows:
         text = self._get(fields, "text") or ""
         if not normalise_text(text):
             raise _Reject("text", "is empty")
-        tz = self.timezone or self.account_zones.get(account, "UTC")
         try:
-            posted_at = parse_time(self._get(fields, "posted_at") or "", tz=tz)
+            posted_at = self.times.read(self._get(fields, "posted_at") or "",
+                                        tz=self.zone_of(account))
         except TimeParseError as exc:
-            raise _Reject("posted_at", exc.message) from None
-        metrics: dict[str, int | None] = {}
-        for m in METRIC_COLUMNS:
-            metrics[m] = _count(self._get(fields, m), m)
-        if all(v is None for v in metrics.values()):
+            hint = exc.hint or ("check that this column holds the post's time"
+                                if "accepted range" in exc.message else None)
+            raise _Reject("posted_at", exc.message, hint) from None
+        readings: dict[str, Reading | None] = dict.fromkeys(METRIC_COLUMNS)
+        for m, i in self.metric_positions:
+            raw = fields[i]
+            if not raw or raw.isspace():
+                continue
+            try:
+                readings[m] = read_count(raw, decimal_comma=self.options.decimal_comma)
+            except NumberError as exc:
+                raise _Reject(m, exc.reason, exc.hint) from None
+        self._rate(fields, readings)
+        if all(v is None for v in readings.values()):
             raise _Reject(None, "has no metric value")
         media_raw = self._get(fields, "has_media")
         has_media: bool | None = None
@@ -273,36 +374,103 @@ class _Rows:
             raise _Reject("post_id", f"{post_id!r} of {account} already appears on line {first}")
         return PostRow(
             account=account, post_id=post_id, text=text, posted_at=posted_at,
-            metrics=metrics, has_media=has_media, vector_key=self.embedder.key(text), line=line,
+            metrics={m: None if r is None else int(r.value) for m, r in readings.items()},
+            has_media=has_media, vector_key=self.embedder.key(text), line=line,
+            approximate=frozenset(m for m, r in readings.items() if r is not None and r.approximate),
         )
 
-
-class _Reject(Exception):
-    def __init__(self, column: str | None, reason: str) -> None:
-        self.column, self.reason = column, reason
-
-
-def _count(raw: str | None, column: str) -> int | None:
-    if raw is None or not raw.strip():
-        return None
-    s = raw.strip().replace("_", "")
-    try:
-        value = float(s)
-    except ValueError:
-        raise _Reject(column, f"{raw!r} is not a number") from None
-    if value != value or value in (float("inf"), float("-inf")):
-        raise _Reject(column, f"{raw!r} is not a number")
-    if value < 0:
-        raise _Reject(column, f"{raw!r} is negative")
-    if value != int(value):
-        raise _Reject(column, f"{raw!r} is not a whole number")
-    return int(value)
+    def _rate(self, fields: list[str], readings: dict[str, Reading | None]) -> None:
+        """Check an engagement rate against engagements / impressions, or
+        fill in the one of the two a row leaves out (marked approximate)."""
+        raw = self._get(fields, RATE_COLUMN)
+        if raw is None or not raw.strip():
+            return
+        try:
+            rate = read_rate(raw, decimal_comma=self.options.decimal_comma)
+        except NumberError as exc:
+            raise _Reject(RATE_COLUMN, exc.reason, exc.hint) from None
+        eng, imp = readings.get("engagements"), readings.get("impressions")
+        if eng is not None and imp is not None:
+            if imp.high <= 0:
+                if rate.value == 0 and eng.value == 0:
+                    return
+                raise _Reject(RATE_COLUMN, f"{raw.strip()!r} is given for a post with 0 impressions")
+            # Every pair of counts the written digits allow, against every
+            # rate the written digits allow: they must overlap.
+            lowest = eng.low / imp.high
+            highest = eng.high / imp.low if imp.low > 0 else Decimal("Infinity")
+            if rate.high < lowest or rate.low > highest:
+                ratio = eng.value / imp.value if imp.value else Decimal(0)
+                raise _Reject(
+                    RATE_COLUMN,
+                    f"{raw.strip()!r} does not match engagements / impressions = "
+                    f"{int(eng.value):,} / {int(imp.value):,} = {float(ratio):.3%}",
+                    "check that the column is engagement rate (engagements / impressions); "
+                    "a rate without a % sign is read as a fraction",
+                )
+            return
+        if imp is not None:
+            name, value = "engagements", rate.value * imp.value
+        elif eng is not None and rate.value > 0:
+            name, value = "impressions", eng.value / rate.value
+        else:
+            raise _Reject(
+                RATE_COLUMN,
+                "a rate needs impressions or engagements beside it to be stored",
+                "map impressions or engagements too, or leave engagement_rate unmapped",
+            )
+        value = value.quantize(Decimal(1), ROUND_HALF_EVEN)
+        if value > MAX_COUNT:
+            raise _Reject(RATE_COLUMN, f"{name} from this rate would be {value:,}, above 2^53")
+        readings[name] = Reading(value=value, half_width=Decimal(0), approximate=True)
 
 
 ProgressFn = Callable[[int, int], None]
 #: Embeds a batch of new texts into unit float32 rows (default: ``embedder.encode``);
 #: service.cluster passes one that embeds on a Ray cluster.
 EmbedFn = Callable[[list[str]], np.ndarray]
+
+
+def _options(
+    account: str | None, mapping: dict[str, str] | None, timezone: str | None,
+    time_format: str | None, date_order: DateOrder | None, decimal_comma: bool,
+) -> ImportOptions:
+    return ImportOptions(mapping=dict(mapping or {}), account=account, timezone=timezone,
+                         time_format=time_format, date_order=date_order,
+                         decimal_comma=decimal_comma).check()
+
+
+@contextmanager
+def _open_rows(
+    path: Path, options: ImportOptions, store: Store, embedder: Embedder
+) -> Iterator[tuple[_Rows, int]]:
+    """The file's rows, after every whole-file check (encoding, header, date
+    order); nothing is written before this yields. Also the file's line count."""
+    if not path.is_file():
+        raise InputError(f"no such file: {path}", where=str(path))
+    total_lines = check_encoding(path)
+    zones = {a.handle: a.timezone for a in store.accounts()}
+
+    def rows(handle: TextIO) -> _Rows:
+        return _Rows(handle, where=str(path), options=options, account_zones=zones,
+                     embedder=embedder)
+
+    # utf-8-sig drops a byte-order mark; newline="" lets csv see quoted line breaks.
+    if options.time_format is None and options.date_order is None:
+        with path.open("r", encoding="utf-8-sig", newline="") as handle:
+            r = rows(handle)
+            check_date_order(r.times, r.time_values(), where=str(path),
+                             column=options.mapping.get("posted_at", "posted_at"))
+    with path.open("r", encoding="utf-8-sig", newline="") as handle:
+        yield rows(handle), total_lines
+
+
+def _finish(summary: ImportSummary, rows: _Rows) -> None:
+    if rows.abandoned is not None:
+        a = rows.abandoned
+        summary.skipped_lines = a.lines_left
+        summary.stopped = (f"stopped reading at line {a.line}: {a.reason}; "
+                           f"{a.lines_left} lines were not read")
 
 
 def import_csv(
@@ -313,18 +481,15 @@ def import_csv(
     account: str | None = None,
     mapping: dict[str, str] | None = None,
     timezone: str | None = None,
+    time_format: str | None = None,
+    date_order: DateOrder | None = None,
+    decimal_comma: bool = False,
     batch_rows: int = 500,
     progress: ProgressFn | None = None,
     embed: EmbedFn | None = None,
 ) -> ImportSummary:
     """Import one CSV file; see the module docstring for the rules."""
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(f"no such file: {path}", where=str(path))
-    if timezone is not None:
-        zone(timezone)
-    total_lines = check_encoding(path)
-    zones = {a.handle: a.timezone for a in store.accounts()}
+    options = _options(account, mapping, timezone, time_format, date_order, decimal_comma)
     summary = ImportSummary()
     batch: list[PostRow] = []
 
@@ -346,17 +511,13 @@ def import_csv(
         summary.changed_pks.extend(res.changed_pks)
         batch.clear()
 
-    # utf-8-sig drops a byte-order mark; newline="" lets csv see quoted line breaks.
-    with path.open("r", encoding="utf-8-sig", newline="") as handle:
-        rows = _Rows(
-            handle, where=str(path), mapping=mapping or {}, account=account,
-            timezone=timezone, account_zones=zones, embedder=embedder,
-        )
+    with _open_rows(Path(path), options, store, embedder) as (rows, total_lines):
         for item in rows:
             if isinstance(item, RowProblem):
                 summary.rejected += 1
                 summary.problems.append(item)
             else:
+                summary.approximate += bool(item.approximate)
                 batch.append(item)
                 if len(batch) >= batch_rows:
                     flush()
@@ -364,6 +525,146 @@ def import_csv(
                         progress(rows.line_num, total_lines)
         if batch:
             flush()
+        _finish(summary, rows)
         if progress:
             progress(total_lines, total_lines)
     return summary
+
+
+# Dry run --------------------------------------------------------------------
+
+
+@dataclass(frozen=True, slots=True)
+class ColumnUse:
+    """How one of our columns is read: from which of the file's columns, and as what."""
+
+    ours: str
+    theirs: str | None
+    reads: str
+
+
+@dataclass(frozen=True, slots=True)
+class PreviewRow:
+    line: int
+    account: str
+    post_id: str
+    text: str
+    posted_at: str   # UTC, ISO 8601
+    local_time: str  # in the zone the time was read in, ISO 8601 with its offset
+    zone: str
+    metrics: dict[str, int | None]
+    approximate: list[str]
+    has_media: bool | None
+
+
+@dataclass(slots=True)
+class ImportPreview:
+    """What an import would do, with nothing written."""
+
+    columns: list[ColumnUse]
+    unused: list[str]
+    time_layout: str
+    rows: list[PreviewRow] = field(default_factory=list)
+    would_import: int = 0
+    approximate: int = 0
+    summary: ImportSummary = field(default_factory=ImportSummary)
+
+    def fixes(self) -> list[dict[str, Any]]:
+        """Each distinct fix to try, with how many rejected rows it concerns
+        and the first of them."""
+        seen: dict[tuple[str | None, str], dict[str, Any]] = {}
+        for p in self.summary.problems:
+            if p.hint:
+                entry = seen.setdefault((p.column, p.hint), {
+                    "column": p.column, "hint": p.hint, "rows": 0, "first_line": p.line})
+                entry["rows"] += 1
+        return list(seen.values())
+
+    def to_dict(self) -> dict[str, Any]:
+        s = self.summary
+        return {
+            "dry_run": True,
+            "columns": [vars_of(c) for c in self.columns],
+            "unused_columns": self.unused,
+            "time_layout": self.time_layout,
+            "rows": [vars_of(r) for r in self.rows],
+            "would_import": self.would_import,
+            "approximate": self.approximate,
+            "rejected": s.rejected,
+            "skipped_lines": s.skipped_lines,
+            "stopped": s.stopped,
+            "problems": [p.to_dict() for p in s.problems],
+            "fixes": self.fixes(),
+        }
+
+
+def vars_of(obj: Any) -> dict[str, Any]:
+    return {k: getattr(obj, k) for k in obj.__slots__}
+
+
+def preview_csv(
+    store: Store,
+    embedder: Embedder,
+    path: str | Path,
+    *,
+    account: str | None = None,
+    mapping: dict[str, str] | None = None,
+    timezone: str | None = None,
+    time_format: str | None = None,
+    date_order: DateOrder | None = None,
+    decimal_comma: bool = False,
+    rows: int = PREVIEW_ROWS,
+) -> ImportPreview:
+    """Read and check a file as :func:`import_csv` would; write nothing.
+
+    Reads the store only for the accounts' zones; the embedder only hashes
+    texts (no model is loaded).
+    """
+    options = _options(account, mapping, timezone, time_format, date_order, decimal_comma)
+    with _open_rows(Path(path), options, store, embedder) as (reader, _):
+        preview = ImportPreview(columns=_column_uses(reader), unused=[
+            h for i, h in enumerate(reader.header) if i not in set(reader.positions.values())],
+            time_layout=options.layout().describe())
+        s = preview.summary
+        for item in reader:
+            if isinstance(item, RowProblem):
+                s.rejected += 1
+                s.problems.append(item)
+                continue
+            preview.would_import += 1
+            preview.approximate += bool(item.approximate)
+            if len(preview.rows) < rows:
+                tz = reader.zone_of(item.account)
+                preview.rows.append(PreviewRow(
+                    line=item.line, account=item.account, post_id=item.post_id,
+                    text=item.text, posted_at=item.posted_at.astimezone(UTC).isoformat(),
+                    local_time=item.posted_at.astimezone(zone(tz)).isoformat(), zone=tz,
+                    metrics=item.metrics, approximate=sorted(item.approximate),
+                    has_media=item.has_media))
+        _finish(s, reader)
+    return preview
+
+
+def _column_uses(rows: _Rows) -> list[ColumnUse]:
+    o = rows.options
+    zone_text = f"naive times in {o.timezone}" if o.timezone else "naive times in the account's zone"
+    number = "count, decimal comma" if o.decimal_comma else "count"
+    reads = {
+        "post_id": "identifier, unique within an account",
+        "account": "account handle",
+        "text": "post text",
+        "posted_at": f"time: {o.layout().describe()}; {zone_text}",
+        "has_media": "true or false",
+        RATE_COLUMN: "rate (4.5% or 0.045), checked against engagements / impressions",
+        **{m: number + " (1,234, 1.2K marked approximate)" for m in METRIC_COLUMNS},
+    }
+    out = []
+    for col in CANONICAL_COLUMNS:
+        i = rows.positions.get(col)
+        if i is not None:
+            out.append(ColumnUse(col, rows.header[i], reads[col]))
+        elif col == "account" and o.account:
+            out.append(ColumnUse(col, None, f"every row: {o.account} (--account)"))
+        else:
+            out.append(ColumnUse(col, None, "not in the file"))
+    return out

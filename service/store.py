@@ -30,7 +30,7 @@ from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
 
 from .migrations import upgrade
-from .tables import Account, ChangeStamp, Post, Snapshot, Vector
+from .tables import Account, ApproximateValue, ChangeStamp, Post, Snapshot, Vector
 from .timeparse import as_utc, now_utc, to_naive_utc, zone
 
 _LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
@@ -61,6 +61,7 @@ class PostRow:
     has_media: bool | None
     vector_key: str
     line: int = 0
+    approximate: frozenset[str] = frozenset()  # metrics known only roughly (1.2K)
 
 
 @dataclass(slots=True)
@@ -331,6 +332,13 @@ class Store:
                 for snap in s.scalars(select(Snapshot).where(Snapshot.id.in_(newest))):
                     latest[by_pk[snap.post_pk]] = snap
             new_posts: list[Post] = []
+            flags_of = self._rough_lookup(s, latest.values())
+            rough: dict[int, tuple[Snapshot, frozenset[str]]] = {}
+
+            def rough_of(snap: Snapshot | None) -> frozenset[str]:
+                return flags_of.get(snap.id, frozenset()) if snap is not None and snap.id else (
+                    rough[id(snap)][1] if snap is not None and id(snap) in rough else frozenset())
+
             for r in rows:
                 key = (accounts[r.account].id, r.post_id)
                 post = stored.get(key)
@@ -343,6 +351,7 @@ class Store:
                     )
                     snap = Snapshot(post=post, captured_at=now, **r.metrics)
                     s.add_all([post, snap])
+                    rough[id(snap)] = (snap, r.approximate)
                     stored[key], latest[key] = post, snap
                     new_posts.append(post)
                     res.added += 1
@@ -365,9 +374,14 @@ class Store:
                     m: (r.metrics.get(m) if r.metrics.get(m) is not None else getattr(last, m, None))
                     for m in METRIC_COLUMNS
                 }
-                if last is None or any(getattr(last, m) != merged[m] for m in METRIC_COLUMNS):
+                # Values carried over keep their flag; values given now bring theirs.
+                was = rough_of(last)
+                flags = frozenset(m for m in was if r.metrics.get(m) is None) | r.approximate
+                if (last is None or any(getattr(last, m) != merged[m] for m in METRIC_COLUMNS)
+                        or flags != was):
                     latest[key] = Snapshot(post=post, captured_at=now, **merged)
                     s.add(latest[key])
+                    rough[id(latest[key])] = (latest[key], flags)
                     changed = True
                 if changed:
                     post.updated_at = now
@@ -375,8 +389,34 @@ class Store:
                 else:
                     res.unchanged += 1
             s.flush()
+            s.add_all(ApproximateValue(snapshot_id=snap.id, metric=m)
+                      for snap, flags in rough.values() for m in sorted(flags))
             res.changed_pks.extend(post.id for post in new_posts)
         return res
+
+    @staticmethod
+    def _rough_lookup(s: Session, snapshots: Iterable[Snapshot]) -> dict[int, frozenset[str]]:
+        """Approximate metrics of the given snapshots, by snapshot id."""
+        ids = [snap.id for snap in snapshots]
+        found: dict[int, set[str]] = {}
+        for i in range(0, len(ids), 900):
+            for sid, metric in s.execute(select(ApproximateValue.snapshot_id, ApproximateValue.metric)
+                                         .where(ApproximateValue.snapshot_id.in_(ids[i : i + 900]))):
+                found.setdefault(sid, set()).add(metric)
+        return {k: frozenset(v) for k, v in found.items()}
+
+    def approximate_metrics(self, pks: Sequence[int]) -> dict[int, frozenset[str]]:
+        """Metrics known only roughly in each post's current snapshot, by post row id
+        (posts with none are left out)."""
+        out: dict[int, frozenset[str]] = {}
+        with self.session() as s:
+            for i in range(0, len(pks), 900):
+                newest = (select(func.max(Snapshot.id)).where(Snapshot.post_pk.in_(pks[i : i + 900]))
+                          .group_by(Snapshot.post_pk))
+                snaps = list(s.scalars(select(Snapshot).where(Snapshot.id.in_(newest))))
+                flags = self._rough_lookup(s, snaps)
+                out.update({snap.post_pk: flags[snap.id] for snap in snaps if snap.id in flags})
+        return out
 
     # Reading posts ----------------------------------------------------------
 

@@ -97,6 +97,19 @@ class Snapshot(Base):
     post: Mapped[Post] = relationship(back_populates="snapshots")
 
 
+class ApproximateValue(Base):
+    """A metric of a snapshot that is known only roughly: written abbreviated
+    in the export (1.2K) or derived from a rate. A table of its own, so
+    stores made before it gain it without touching existing rows."""
+
+    __tablename__ = "approximate_values"
+
+    snapshot_id: Mapped[int] = mapped_column(
+        ForeignKey("snapshots.id", ondelete="CASCADE"), primary_key=True
+    )
+    metric: Mapped[str] = mapped_column(String(32), primary_key=True)
+
+
 class Vector(Base):
     """An embedding, shared by every post whose normalised text is the same."""
 

@@ -25,7 +25,7 @@ from models.errors import InputError, ReadOnly, StoreError
 from models.index import VectorIndex
 
 from .forecasting import Forecaster
-from .importer import EmbedFn, ImportSummary, ProgressFn, import_csv
+from .importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
 from .locking import LOCK_FILE, WriteLock
 from .precedents import Precedent, precedents_for
 from .retrieval import Hits, Retriever
@@ -217,7 +217,9 @@ class Workspace:
         progress: ProgressFn | None = None,
         embed: EmbedFn | None = None,
         batch_rows: int | None = None,
+        **layout: Any,
     ) -> ImportSummary:
+        """``layout``: time_format, date_order, decimal_comma (service.importer)."""
         with self.writing("an import"):
             self.index()  # load or rebuild first, so the update below is incremental
             before = self.store.counts()["posts"]
@@ -225,7 +227,7 @@ class Workspace:
                 summary = import_csv(
                     self.store, self.embedder, path, account=account, mapping=mapping,
                     timezone=timezone, batch_rows=batch_rows or self.settings.import_batch_rows,
-                    progress=progress, embed=embed,
+                    progress=progress, embed=embed, **layout,
                 )
             except StoreError as exc:
                 # A full disk or a lost store mid-import: whole batches before
@@ -243,6 +245,10 @@ class Workspace:
             if summary.changed_pks or summary.updated:
                 self._sync_index(summary.changed_pks)
             return summary
+
+    def preview_import(self, path: str | Path, **options: Any) -> ImportPreview:
+        """A dry run of :meth:`import_csv`: the same checks, nothing written."""
+        return preview_csv(self.store, self.embedder, path, **options)
 
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
         """Delete posts from the store and the index together."""

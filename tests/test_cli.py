@@ -140,14 +140,16 @@ def test_import_with_mapping_and_account(tmp_path: Path) -> None:
     (tmp_path / "a.csv").write_text(CSV)
     assert run("account", "garden", "--name", "The Garden", "--timezone", "Europe/London").exit_code == 0
     r = run("import", str(tmp_path / "a.csv"), *MAP, "--account", "garden")
-    assert r.exit_code == 0, r.output
+    assert r.exit_code == 3, r.output  # a row was rejected: a scheduled script must notice
     assert "added 2, updated 0, unchanged 0, rejected 1" in r.stdout
     assert "rejected line 4, column text: is empty" in r.stderr
-    r = run("import", str(tmp_path / "a.csv"), *MAP, "--account", "garden", "--json")
+    r = run("import", str(tmp_path / "a.csv"), *MAP, "--account", "garden", "--json",
+            "--allow-rejects")
     assert r.exit_code == 0
     summary = json.loads(r.stdout)
     assert (summary["added"], summary["unchanged"], summary["rejected"], summary["embedded"]) == (0, 2, 1, 0)
-    assert summary["problems"] == [{"line": 4, "column": "text", "reason": "is empty"}]
+    assert summary["problems"] == [{"line": 4, "column": "text", "reason": "is empty",
+                                    "hint": None, "post_id": "c3"}]
     accounts = json.loads(run("accounts", "--json").stdout)
     assert accounts == [{"handle": "garden", "display_name": "The Garden",
                          "timezone": "Europe/London", "posts": 2}]

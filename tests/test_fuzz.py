@@ -164,3 +164,101 @@ def test_edge_inputs_are_answered_as_bad_input(fuzz_app, method: str, path: str,
         # Each out-of-range row is rejected with its line and column; nothing crashes.
         assert [(p["line"], p["column"]) for p in r.json()["problems"]] == [
             (2, "posted_at"), (3, "posted_at")]
+
+
+# Bad dates and huge numbers (hypothesis) -------------------------------------------------
+#
+# Times anywhere in Python's calendar (years 1-9999, any offset up to a day) and counts
+# from negative to far past 2**64, written as people write them. Whether a row must be
+# accepted is decided here from the generated parts with plain datetime and int
+# arithmetic, not by sounding's parser: a time from 1990-01-01T00:00Z to 100 years
+# (36,525 days) from now, and a whole count from 0 to 2**53 (the last integer a float64
+# holds exactly, IEEE 754).
+
+from hypothesis import assume, given  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+VALUE_TOKEN = "value-fuzz-token-0123456789abcdef"
+LOW, AHEAD = datetime(1990, 1, 1, tzinfo=UTC), timedelta(days=36525)
+
+
+@st.composite
+def instants(draw) -> tuple[str, datetime | None]:
+    """An ISO 8601 time with an offset, and its instant (None when it leaves the calendar)."""
+    local = draw(st.datetimes(min_value=datetime(1, 1, 2), max_value=datetime(9999, 12, 30)))
+    minutes = draw(st.integers(-23 * 60 - 59, 23 * 60 + 59))
+    sign, m = ("+" if minutes >= 0 else "-"), abs(minutes)
+    text = f"{local.year:04d}-{local:%m-%dT%H:%M:%S}{sign}{m // 60:02d}:{m % 60:02d}"
+    try:
+        instant = local.replace(tzinfo=UTC) - timedelta(minutes=minutes)
+    except OverflowError:
+        instant = None
+    return text, instant
+
+
+def in_range(instant: datetime | None) -> bool:
+    if instant is None:
+        return False
+    high = datetime.now(UTC) + AHEAD
+    assume(abs(instant - high) > timedelta(days=2))  # the upper edge moves with the clock
+    return LOW <= instant <= high
+
+
+COUNTS = st.one_of(
+    st.integers(-(2**70), 2**70).map(lambda n: (str(n), 0 <= n <= 2**53)),
+    st.sampled_from([2**53 - 1, 2**53, 2**53 + 1, 2**63 - 1, 2**63, 2**64]).map(
+        lambda n: (str(n), n <= 2**53)),
+    st.floats(allow_nan=True, allow_infinity=True).map(
+        lambda x: (repr(x), x == x and abs(x) != float("inf") and x >= 0 and x == int(x)
+                   and x <= 2**53)),
+)
+
+
+@pytest.fixture(scope="module")
+def value_app(tmp_path_factory: pytest.TempPathFactory, embedder):
+    home = tmp_path_factory.mktemp("values") / "home"
+    ws = Workspace(settings=Settings(home=home, token=VALUE_TOKEN), embedder=embedder)
+    ws.import_csv(write_history(home.parent / "history.csv", 6))
+    yield create_app(workspace=ws)
+    ws.close()
+
+
+@given(rows=st.lists(st.tuples(instants(), COUNTS), min_size=1, max_size=6))
+@settings(max_examples=40, deadline=None, derandomize=True, database=None,
+          suppress_health_check=list(HealthCheck))
+def test_import_refuses_exactly_the_bad_dates_and_huge_numbers(value_app, rows) -> None:
+    from fastapi.testclient import TestClient
+
+    lines = ["post_id,account,text,posted_at,impressions"]
+    want_rejected = []
+    for i, ((when, instant), (count, count_ok)) in enumerate(rows):
+        lines.append(f"v{i},loomhaven,Fuzz row {i},{when},{count}")
+        if not (in_range(instant) and count_ok):
+            want_rejected.append(i + 2)
+    with TestClient(value_app, raise_server_exceptions=False) as c:
+        r = c.post("/v1/imports", headers={"Authorization": f"Bearer {VALUE_TOKEN}"},
+                   files={"file": ("v.csv", ("\n".join(lines) + "\n").encode(), "text/csv")})
+    assert r.status_code == 200, r.text
+    body = r.json()
+    assert [p["line"] for p in body["problems"]] == want_rejected, (rows, body["problems"])
+    assert body["added"] + body["updated"] + body["unchanged"] == len(rows) - len(want_rejected)
+
+
+@given(when=instants())
+@settings(max_examples=40, deadline=None, derandomize=True, database=None,
+          suppress_health_check=list(HealthCheck))
+def test_forecast_refuses_planned_times_outside_the_range(value_app, when) -> None:
+    from fastapi.testclient import TestClient
+
+    text, instant = when
+    ok = in_range(instant)
+    with TestClient(value_app, raise_server_exceptions=False) as c:
+        r = c.post("/v1/forecasts", json={"text": "Magnolias", "account": "loomhaven",
+                                          "planned_at": text})
+    assert r.status_code < 500, r.text
+    if r.status_code >= 400:
+        ErrorBody.model_validate(r.json())
+    if not ok:
+        assert r.status_code == 422 and "accepted range" in r.json()["error"]["message"], r.text
+    else:
+        assert "accepted range" not in r.text

@@ -80,8 +80,8 @@ def test_rfc4180_quoting_is_read_exactly(workspace: Workspace, tmp_path: Path) -
     assert s.added == 3
     # Line numbers are physical lines: q3 spans lines 4-5, so q4 is on 6 and q5 on 7.
     assert s.problems == [
-        RowProblem(6, "text", "is empty"),
-        RowProblem(7, "posted_at", s.problems[1].reason),
+        RowProblem(6, "text", "is empty", post_id="q4"),
+        RowProblem(7, "posted_at", s.problems[1].reason, s.problems[1].hint, post_id="q5"),
     ]
     assert "cannot read time 'not-a-time'" in s.problems[1].reason
 
@@ -362,5 +362,7 @@ def test_summary_json_shape(workspace: Workspace, tmp_path: Path) -> None:
     s = workspace.import_csv(write(tmp_path / "s.csv", body))
     assert s.to_dict() == {
         "added": 0, "updated": 0, "unchanged": 0, "rejected": 1, "embedded": 0,
-        "problems": [{"line": 2, "column": "text", "reason": "is empty"}],
+        "approximate": 0, "skipped_lines": 0, "stopped": None,
+        "problems": [{"line": 2, "column": "text", "reason": "is empty", "hint": None,
+                      "post_id": "x1"}],
     }

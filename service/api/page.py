@@ -27,3 +27,9 @@ def mount(app: FastAPI) -> None:
     def index() -> FileResponse:
         return FileResponse(STATIC / "index.html", media_type="text/html",
                             headers={"Content-Security-Policy": CSP, "Cache-Control": "no-cache"})
+
+    @app.get("/import", include_in_schema=False)
+    def import_page() -> FileResponse:
+        """Preview an export (a dry run), then import it; both need the token."""
+        return FileResponse(STATIC / "import.html", media_type="text/html",
+                            headers={"Content-Security-Policy": CSP, "Cache-Control": "no-cache"})

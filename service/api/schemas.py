@@ -6,9 +6,32 @@ Kept apart from the SQLAlchemy tables: these are the public contract.
 from __future__ import annotations
 
 from datetime import date, datetime
-from typing import Literal
+from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field
+
+from ..timeparse import EARLIEST, as_utc, latest_time, range_text
+
+
+def _time_in_range(dt: datetime) -> datetime:
+    """A time field inside the accepted range (service.timeparse), naive read as UTC."""
+    try:
+        ok = EARLIEST <= as_utc(dt) <= latest_time()
+    except OverflowError:
+        ok = False
+    if not ok:
+        raise ValueError(f"{dt.isoformat()} is outside the accepted range, {range_text()}")
+    return dt
+
+
+def _day_in_range(day: date) -> date:
+    if not EARLIEST.date() <= day <= latest_time().date():
+        raise ValueError(f"{day.isoformat()} is outside the accepted range, {range_text()}")
+    return day
+
+
+InRangeTime = Annotated[datetime, AfterValidator(_time_in_range)]
+InRangeDay = Annotated[date, AfterValidator(_day_in_range)]
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
 
@@ -77,8 +100,8 @@ class PrecedentsRequest(Strict):
     text: str = Field(min_length=1, description="The draft")
     account: str | None = Field(default=None, description="Only this account's posts")
     k: int = Field(default=10, ge=1, le=100)
-    since: datetime | None = None
-    until: datetime | None = None
+    since: InRangeTime | None = None
+    until: InRangeTime | None = None
 
 
 class PrecedentOut(BaseModel):
@@ -106,6 +129,8 @@ class ImportProblem(BaseModel):
     line: int = Field(description="Line of the file where the rejected row starts")
     column: str | None = Field(description="Our column name, when one field is at fault")
     reason: str
+    hint: str | None = Field(default=None, description="A fix to try")
+    post_id: str | None = Field(default=None, description="The row's post_id, when readable")
 
 
 class ImportSummaryOut(BaseModel):
@@ -114,7 +139,55 @@ class ImportSummaryOut(BaseModel):
     unchanged: int
     rejected: int
     embedded: int = Field(description="Texts embedded for the first time")
+    approximate: int = Field(default=0, description="Rows stored with an abbreviated (1.2K) "
+                             "or derived count, marked approximate")
+    skipped_lines: int = Field(default=0, description="Lines never read because the rest of "
+                               "the file was not CSV")
+    stopped: str | None = Field(default=None, description="Why reading stopped early, if it did")
     problems: list[ImportProblem]
+
+
+class ImportColumnOut(BaseModel):
+    ours: str
+    theirs: str | None = Field(description="The file's column, or null when not read")
+    reads: str = Field(description="How its values are read")
+
+
+class ImportPreviewRowOut(BaseModel):
+    line: int
+    account: str
+    post_id: str
+    text: str
+    posted_at: datetime = Field(description="UTC")
+    local_time: str = Field(description="In the zone the time was read in, with its offset")
+    zone: str
+    metrics: dict[str, int | None]
+    approximate: list[str] = Field(description="Metrics known only roughly")
+    has_media: bool | None
+
+
+class ImportFixOut(BaseModel):
+    column: str | None
+    hint: str
+    rows: int = Field(description="Rejected rows this fix concerns")
+    first_line: int
+
+
+class ImportPreviewOut(BaseModel):
+    """A dry run: what the import would do; nothing was stored."""
+
+    dry_run: Literal[True]
+    columns: list[ImportColumnOut]
+    unused_columns: list[str]
+    time_layout: str
+    rows: list[ImportPreviewRowOut] = Field(description="The first rows as read")
+    would_import: int
+    approximate: int
+    rejected: int
+    skipped_lines: int
+    stopped: str | None
+    problems: list[ImportProblem]
+    fixes: list[ImportFixOut]
 
 
 class ForgetOut(BaseModel):
@@ -223,7 +296,7 @@ class ForecastList(BaseModel):
 class HoursRequest(Strict):
     text: str = Field(min_length=1, description="The draft's text")
     account: str = Field(min_length=1, description="Handle of the account that would post it")
-    day: date | None = Field(
+    day: InRangeDay | None = Field(
         default=None, description="Local calendar day (ISO 8601 date) in the account's zone; "
         "default: tomorrow there", examples=["2026-12-03"])
     week: bool = Field(default=False, description="Seven days from `day`, hour by hour")

@@ -10,19 +10,37 @@ from datetime import datetime
 from pathlib import Path
 
 import typer
-from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+from rich.progress import (
+    BarColumn,
+    MofNCompleteColumn,
+    Progress,
+    TextColumn,
+    TimeRemainingColumn,
+)
 from rich.table import Table
 
 from models.errors import InputError
+from models.metrics import METRIC_COLUMNS
 
 from ..api import guard
 from ..api.app import create_app
 from ..cluster import cluster_import_options
-from ..importer import ImportSummary, parse_mapping
+from ..importer import ImportPreview, ImportSummary
+from ..mappings import combine, load_mapping
 from ..settings import Settings
 from ..timeparse import parse_time
 from .base import app, err, is_terminal, out, print_json, workspace
 from .forecast import demo_forecast
+from .mappings import (
+    ACCOUNT,
+    DAY_FIRST,
+    DECIMAL_COMMA,
+    MAP,
+    MONTH_FIRST,
+    TIME_FORMAT,
+    TIMEZONE,
+    given_options,
+)
 
 # The demo history sits beside the source tree; an installed copy (the
 # container image) points at it with SOUNDING_DEMO_DIR.
@@ -60,24 +78,71 @@ def print_summary(s: ImportSummary, *, limit: int = 20) -> None:
         err.print(f"rejected {p}", highlight=False, markup=False)
     if len(s.problems) > limit:
         err.print(f"... and {len(s.problems) - limit} more rejected rows")
+    if s.stopped:
+        err.print(s.stopped, highlight=False, markup=False)
+    rough = f", {s.approximate} with approximate counts" if s.approximate else ""
     out.print(
         f"added {s.added}, updated {s.updated}, unchanged {s.unchanged}, rejected {s.rejected}"
-        f" (embedded {s.embedded} new texts)"
+        f" (embedded {s.embedded} new texts{rough})"
     )
+
+
+def print_preview(p: ImportPreview, *, limit: int = 10) -> None:
+    out.print("dry run: nothing is stored", highlight=False)
+    t = Table("our column", "their column", "read as", title="columns")
+    for c in p.columns:
+        t.add_row(c.ours, c.theirs or "-", c.reads)
+    out.print(t)
+    if p.unused:
+        shown = ", ".join(p.unused[:20]) + (f" and {len(p.unused) - 20} more" if len(p.unused) > 20 else "")
+        out.print(f"not read: {shown}", highlight=False, markup=False)
+    metrics = [c.ours for c in p.columns if c.ours in METRIC_COLUMNS and c.theirs]
+    out.print(f"first {len(p.rows)} rows as read (~ marks an approximate count):", highlight=False)
+    for r in p.rows:
+        local = f"{r.local_time[:16].replace('T', ' ')}{r.local_time[19:]} {r.zone}"
+        counts = ", ".join(f"{m} {'~' if m in r.approximate else ''}{_n(r.metrics.get(m))}"
+                           for m in metrics)
+        text = r.text if len(r.text) <= 40 else r.text[:37] + "..."
+        out.print(f"  line {r.line}: {r.account} {r.post_id}, {r.posted_at[:16].replace('T', ' ')}"
+                  f" UTC = {local}; {counts}; {text!r}", highlight=False, markup=False)
+    s = p.summary
+    rough = f" ({p.approximate} with approximate counts)" if p.approximate else ""
+    out.print(f"would import {p.would_import} rows{rough}; {s.rejected} would be rejected",
+              highlight=False)
+    for prob in s.problems[:limit]:
+        err.print(f"rejected {prob}", highlight=False, markup=False)
+    if len(s.problems) > limit:
+        err.print(f"... and {len(s.problems) - limit} more rejected rows")
+    if s.stopped:
+        err.print(s.stopped, highlight=False, markup=False)
+    for fix in p.fixes():
+        col = f"column {fix['column']}, " if fix["column"] else ""
+        err.print(f"to try: {fix['hint']} ({col}{fix['rows']} rows, first on line "
+                  f"{fix['first_line']})", highlight=False, markup=False)
+
+
+# Exit status of an import that did not store every row: a scheduled script notices.
+EXIT_REJECTS = 3
 
 
 @app.command("import")
 def import_cmd(
     file: Path = typer.Argument(..., help="CSV file in our canonical columns (or mapped)."),
-    account: str | None = typer.Option(
-        None, "--account", help="Account for rows without an account column."
-    ),
-    mapping: list[str] = typer.Option(
-        [], "--map", help="Read our column from theirs: ours=theirs (repeatable)."
-    ),
-    timezone: str | None = typer.Option(
-        None, "--timezone", help="IANA zone of times without an offset (default: the account's)."
-    ),
+    account: str | None = ACCOUNT,
+    mapping: list[str] = MAP,
+    timezone: str | None = TIMEZONE,
+    time_format: str | None = TIME_FORMAT,
+    day_first: bool = DAY_FIRST,
+    month_first: bool = MONTH_FIRST,
+    decimal_comma: bool = DECIMAL_COMMA,
+    saved: str | None = typer.Option(
+        None, "--mapping", help="Read the file with a saved mapping (sounding mapping save); "
+        "options given here override it."),
+    dry_run: bool = typer.Option(
+        False, "--dry-run", help="Store nothing: show how columns map, the first rows as read "
+        "and what would be rejected."),
+    allow_rejects: bool = typer.Option(
+        False, "--allow-rejects", help=f"Exit 0 even if rows were rejected (else {EXIT_REJECTS})."),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
     cluster: str | None = typer.Option(
         None, "--cluster", help="Embed new texts on a Ray cluster at ray://HOST:PORT "
@@ -85,11 +150,25 @@ def import_cmd(
     cluster_workers: int = typer.Option(
         2, "--cluster-workers", min=1, help="Model-holding Ray workers, one CPU each."),
 ) -> None:
-    """Import past posts and their metrics from a CSV file."""
+    """Import past posts and their metrics from a CSV file.
+
+    Exits 3 when rows were rejected (unless --allow-rejects) or part of the file
+    could not be read; a dry run exits the same way for what it would do."""
     ws = workspace()
-    maps = parse_mapping(mapping)
+    given = given_options(mapping=mapping, account=account, timezone=timezone,
+                          time_format=time_format, day_first=day_first,
+                          month_first=month_first, decimal_comma=decimal_comma)
+    options = combine(load_mapping(ws.settings.resolved_home, saved) if saved else None, given)
+    kw = options.kwargs()
     on_cluster = cluster_import_options(ws, cluster, workers=cluster_workers)
-    if is_terminal() and not as_json:
+    if dry_run:
+        preview = ws.preview_import(file, **kw)
+        if as_json:
+            print_json(preview.to_dict())
+        else:
+            print_preview(preview)
+        summary = preview.summary
+    elif is_terminal() and not as_json:
         cols = (TextColumn("importing"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn())
         with Progress(*cols, console=out, transient=True) as bar:
             task = bar.add_task("import", total=None)
@@ -97,15 +176,16 @@ def import_cmd(
             def progress(done: int, total: int) -> None:
                 bar.update(task, completed=done, total=total)
 
-            summary = ws.import_csv(file, account=account, mapping=maps, timezone=timezone,
-                                    progress=progress, **on_cluster)
+            summary = ws.import_csv(file, progress=progress, **kw, **on_cluster)
     else:
-        summary = ws.import_csv(file, account=account, mapping=maps, timezone=timezone,
-                                **on_cluster)
-    if as_json:
-        print_json(summary.to_dict())
-    else:
-        print_summary(summary)
+        summary = ws.import_csv(file, **kw, **on_cluster)
+    if not dry_run:
+        if as_json:
+            print_json(summary.to_dict())
+        else:
+            print_summary(summary)
+    if summary.skipped_lines or (summary.rejected and not allow_rejects):
+        raise typer.Exit(EXIT_REJECTS)
 
 
 @app.command("reindex")

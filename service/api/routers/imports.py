@@ -16,25 +16,27 @@ import os
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, BinaryIO
+from typing import Annotated, Any, BinaryIO
 
-from fastapi import APIRouter, Request
+from fastapi import APIRouter, Query, Request
 from python_multipart.exceptions import FormParserError
 from python_multipart.multipart import MultipartParser, parse_options_header
 from starlette.concurrency import run_in_threadpool
 from starlette.requests import ClientDisconnect
 
-from models.errors import AuthError, InputError, LimitExceeded, NotReady, StoreError
+from models.errors import AuthError, InputError, LimitExceeded, NotFound, NotReady, StoreError
 
-from ...importer import parse_mapping
+from ...importer import ImportOptions, parse_mapping
+from ...mappings import combine, load_mapping
 from ..deps import WorkspaceDep, WriteAccess
 from ..responses import ERRORS
-from ..schemas import ImportSummaryOut
+from ..schemas import ImportPreviewOut, ImportSummaryOut
 
 router = APIRouter(prefix="/v1", tags=["imports"])
 
 FILE_FIELD = "file"
-TEXT_FIELDS = ("account", "timezone", "map")
+TEXT_FIELDS = ("account", "timezone", "map", "time_format", "date_order", "decimal_comma",
+               "mapping")
 # A form field is a handle, a zone name or one mapping: never long.
 MAX_FIELD_BYTES = 64 * 1024
 
@@ -67,6 +69,25 @@ UPLOAD_BODY: dict[str, Any] = {
                         "type": "array",
                         "items": {"type": "string"},
                         "description": "Read our column from theirs: `ours=theirs`, repeatable",
+                    },
+                    "time_format": {
+                        "type": "string",
+                        "description": "How times are written: a strptime pattern, `epoch` or "
+                        "`epoch_ms` (default: ISO 8601 and common layouts)",
+                    },
+                    "date_order": {
+                        "type": "string",
+                        "enum": ["day-first", "month-first"],
+                        "description": "Order of numeric dates that read two ways (never guessed)",
+                    },
+                    "decimal_comma": {
+                        "type": "string",
+                        "enum": ["true", "false"],
+                        "description": "Numbers use a decimal comma (1.234 is a thousand and more)",
+                    },
+                    "mapping": {
+                        "type": "string",
+                        "description": "A saved mapping's name; the other fields override it",
                     },
                 },
             }
@@ -245,17 +266,40 @@ def _remove(path: Path | None) -> None:
         path.unlink(missing_ok=True)
 
 
+def upload_options(upload: Upload, home: Path) -> ImportOptions:
+    """The form's import options over a saved mapping, checked."""
+    comma = upload.one("decimal_comma")
+    if comma not in (None, "true", "false"):
+        raise InputError("decimal_comma must be true or false", field="decimal_comma")
+    order = upload.one("date_order")
+    if order not in (None, "day-first", "month-first"):
+        raise InputError("date_order must be day-first or month-first", field="date_order")
+    given = ImportOptions(
+        mapping=parse_mapping(upload.fields.get("map", [])), account=upload.one("account"),
+        timezone=upload.one("timezone"), time_format=upload.one("time_format"),
+        date_order=order, decimal_comma=comma == "true",  # type: ignore[arg-type]
+    )
+    name = upload.one("mapping")
+    return combine(load_mapping(home, name) if name else None, given)
+
+
 @router.post(
     "/imports",
-    response_model=ImportSummaryOut,
-    responses=ERRORS(AuthError, NotReady, LimitExceeded, InputError, StoreError),
+    response_model=ImportSummaryOut | ImportPreviewOut,
+    responses=ERRORS(AuthError, NotFound, NotReady, LimitExceeded, InputError, StoreError),
     openapi_extra={"requestBody": UPLOAD_BODY},
     summary="Import past posts and their metrics from an uploaded CSV file",
 )
-async def create_import(request: Request, ws: WorkspaceDep, _auth: WriteAccess) -> ImportSummaryOut:
-    """Rows with problems are reported with line, column and reason; every
-    valid row is stored, in batches that are each one transaction."""
-    ws.check_writable("an import")  # before the upload is written into the data directory
+async def create_import(
+    request: Request, ws: WorkspaceDep, _auth: WriteAccess,
+    dry_run: Annotated[bool, Query(description="Store nothing: answer how the columns map, the "
+                                   "first rows as read and what would be rejected")] = False,
+) -> ImportSummaryOut | ImportPreviewOut:
+    """Rows with problems are reported with line, column, reason and a fix
+    to try; every valid row is stored, in batches that are each one
+    transaction. With dry_run=true nothing is stored."""
+    if not dry_run:
+        ws.check_writable("an import")  # before the upload is written into the data directory
     try:
         upload = await receive_upload(
             request, directory=ws.settings.uploads_dir, max_bytes=ws.settings.max_upload_bytes
@@ -264,12 +308,13 @@ async def create_import(request: Request, ws: WorkspaceDep, _auth: WriteAccess) 
         raise StoreError(f"the upload could not be saved ({exc.strerror}); nothing was "
                          "imported", hint="free some disk space and send it again") from None
     try:
-        mapping = parse_mapping(upload.fields.get("map", []))
-        account, timezone = upload.one("account"), upload.one("timezone")
-        # Embedding and writing are slow and blocking: off the event loop.
-        summary = await run_in_threadpool(
-            ws.import_csv, upload.path, account=account, mapping=mapping, timezone=timezone
-        )
+        o = upload_options(upload, ws.settings.resolved_home)
+        kw = o.kwargs()
+        # Reading, embedding and writing are slow and blocking: off the event loop.
+        if dry_run:
+            preview = await run_in_threadpool(ws.preview_import, upload.path, **kw)
+            return ImportPreviewOut(**preview.to_dict())
+        summary = await run_in_threadpool(ws.import_csv, upload.path, **kw)
     finally:
         _remove(upload.path)
     return ImportSummaryOut(**summary.to_dict())
