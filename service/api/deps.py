@@ -17,11 +17,12 @@ _bearer = HTTPBearer(auto_error=False, description="SOUNDING_TOKEN of the server
 
 
 def get_workspace(request: Request) -> Workspace:
-    return request.app.state.workspace
+    ws: Workspace = request.app.state.workspace  # set by create_app
+    return ws
 
 
 def get_settings(request: Request) -> Settings:
-    return request.app.state.workspace.settings
+    return get_workspace(request).settings
 
 
 def require_token(

@@ -6,6 +6,7 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 
 from ...forecasting import Draft
 from ...timeparse import parse_time
+from ...workspace import Workspace
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import DraftIn, ForecastBatchRequest, ForecastList, ForecastOut, ForecastRequest
@@ -13,7 +14,7 @@ from ..schemas import DraftIn, ForecastBatchRequest, ForecastList, ForecastOut, 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
 
 
-def to_draft(ws, d: DraftIn, where: str) -> Draft:  # noqa: ANN001 - workspace
+def to_draft(ws: Workspace, d: DraftIn, where: str) -> Draft:
     tz = ws.store.account(d.account).timezone
     planned = parse_time(d.planned_at, tz=tz, where=where) if d.planned_at else None
     return Draft(text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id,
