@@ -170,6 +170,8 @@ def _check(d: Path) -> dict[str, Any] | str:
         cfg = json.loads((d / CONFIG).read_text())
     except (OSError, ValueError) as exc:
         return f"its {CONFIG} is unreadable ({exc})"
+    if isinstance(cfg, dict) and cfg.get("format") == 1:
+        return _check_legacy(d, cfg)
     if not isinstance(cfg, dict) or cfg.get("format") != FORMAT:
         fmt = cfg.get("format") if isinstance(cfg, dict) else None
         return f"unsupported model format {fmt!r} in its {CONFIG}"
@@ -215,6 +217,35 @@ def intact(root: Path, metric: str) -> tuple[str | None, list[tuple[str, str]]]:
     return None, damaged
 
 
+# LightGBM ends every text model file with these lines (its save_model
+# output, read from the files it writes); a cut file lacks them.
+_BOOSTER_END = b"end of parameters"
+_BOOSTER_LAST = b"pandas_categorical:"
+
+
+def _check_legacy(d: Path, cfg: dict[str, Any]) -> dict[str, Any] | str:
+    """A version saved before checksums (format 1): every booster file must
+    at least end the way LightGBM ends one, so a truncated file is caught."""
+    try:
+        json.loads((d / "quantiles" / CONFIG).read_text())
+        boosters = sorted((d / "quantiles").glob("*.txt"))
+        if not boosters:
+            return "it has no booster files"
+        for p in boosters:
+            with p.open("rb") as f:
+                f.seek(max(p.stat().st_size - 4096, 0))
+                tail = f.read()
+            last = tail.rstrip(b"\n").rsplit(b"\n", 1)[-1]
+            if _BOOSTER_END not in tail or not last.startswith(_BOOSTER_LAST):
+                return f"quantiles/{p.name} is cut short"
+    except (OSError, ValueError) as exc:
+        return f"its files are unreadable ({exc})"
+    for key in ("metric", "version", "features"):
+        if key not in cfg:
+            return f"its {CONFIG} has no {key!r}"
+    return cfg
+
+
 _warned: set[str] = set()
 
 
@@ -224,7 +255,8 @@ def newest(root: Path, metric: str) -> str:
     for version, why in damaged:
         if version not in _warned:  # once per process, not once per forecast
             _warned.add(version)
-            log.warning("%s; it is skipped, and version %s is served instead", why, found)
+            log.warning("%s; it is skipped (%s)", why,
+                        f"version {found} is served instead" if found else "no intact version")
     if found is None:
         if damaged:
             raise NotReady(

@@ -54,7 +54,7 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             page.on("request", lambda r: None if r.url.startswith(base) or r.url.startswith("data:")
                     else outside.append(r.url))
             page.goto(base + "/")
-            expect(page).to_have_title("sounding — check a draft")
+            expect(page).to_have_title("sounding — a sounding board for drafts")
             expect(page.locator("#output")).to_be_hidden()
             expect(page.locator("#account option")).to_have_count(
                 len(httpx.get(f"{base}/v1/accounts").json()))

@@ -30,7 +30,7 @@ from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
 from models.artefact import versions
-from models.errors import Busy, InputError, ReadOnly, StoreError
+from models.errors import Busy, InputError, NotReady, ReadOnly, StoreError
 from service import forecasting
 from service.api import guard
 from service.api.app import create_app
@@ -152,6 +152,27 @@ def test_truncated_booster_does_not_kill_the_cli(copy_home: Path) -> None:
                        env=env, capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, (r.returncode, r.stderr[-2000:])
     assert f"model version {new} is damaged" in r.stderr
+
+
+def test_models_saved_before_checksums_still_load_unless_cut(copy_home: Path, embedder) -> None:
+    """A version of format 1 (no checksums, saved by earlier releases) is
+    still served; a cut booster in it is caught without LightGBM."""
+    version = versions(copy_home / "forecasters", "impressions")[-1]
+    d = copy_home / "forecasters" / "impressions" / version
+    cfg = json.loads((d / "config.json").read_text())
+    cfg["format"] = 1
+    del cfg["files"]
+    (d / "config.json").write_text(json.dumps(cfg))
+    ws = open_ws(copy_home, embedder)
+    try:
+        draft = [Draft(text="Lilies in the glasshouse", account="garden")]
+        assert ws.forecaster.forecast(draft)[0].model_version == version
+        booster = d / "quantiles" / "lower_2.txt"
+        booster.write_bytes(booster.read_bytes()[:-200])  # only the end missing
+        with pytest.raises(NotReady, match="lower_2.txt is cut short"):
+            ws.forecaster.forecast(draft, metric="impressions")
+    finally:
+        ws.close()
 
 
 def test_garbage_config_is_skipped_and_all_damaged_is_a_clean_409(copy_home: Path,
