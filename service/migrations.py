@@ -86,6 +86,20 @@ def upgrade(engine: Engine, *, url: str = "") -> int:
     raise AssertionError("unreachable")
 
 
+def check_current(engine: Engine, *, url: str = "") -> None:
+    """For a store that may only be read: refuse it unless it is already at
+    SCHEMA_VERSION with every table, since it cannot be brought there."""
+    with engine.connect() as conn:
+        found = stored_version(conn)
+        missing = set(Base.metadata.tables) - set(inspect(conn).get_table_names())
+    if found != SCHEMA_VERSION or missing:
+        raise StoreError(
+            f"the read-only store at {url or engine.url} needs an upgrade this sounding cannot "
+            f"write (schema version {found}, this sounding uses {SCHEMA_VERSION})",
+            hint="open it once from a writable data directory (any command) to upgrade it",
+        )
+
+
 def _upgrade_once(engine: Engine) -> int:
     with engine.begin() as conn:
         if conn.dialect.name == "postgresql":

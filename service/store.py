@@ -29,7 +29,7 @@ from models.errors import InputError, NotFound, StoreError
 from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
 
-from .migrations import upgrade
+from .migrations import check_current, upgrade
 from .tables import Account, ApproximateValue, ChangeStamp, Post, Snapshot, Vector
 from .timeparse import as_utc, now_utc, to_naive_utc, zone
 
@@ -127,7 +127,10 @@ class Store:
             )
             if url.startswith("sqlite"):
                 event.listen(self.engine, "connect", _sqlite_pragmas)
-            upgrade(self.engine, url=self.safe_url)
+            if read_only:
+                check_current(self.engine, url=self.safe_url)
+            else:
+                upgrade(self.engine, url=self.safe_url)
         except SQLAlchemyError as exc:
             raise StoreError(f"cannot open the store at {self.safe_url}: {exc}") from None
         self._sessions = sessionmaker(self.engine, expire_on_commit=False)
