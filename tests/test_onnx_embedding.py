@@ -59,7 +59,7 @@ def test_onnx_vectors_match_sentence_transformers(onnx_embedder: Embedder,
     cos = np.sum(got * want, axis=1) / (np.linalg.norm(got, axis=1) * np.linalg.norm(want, axis=1))
     assert cos.min() >= 0.99999, f"lowest cosine {cos.min():.7f}"
     # Same top-10 neighbours by scikit-learn's exact (brute-force) cosine search.
-    nn = dict(n_neighbors=11, metric="cosine", algorithm="brute")
+    nn = {"n_neighbors": 11, "metric": "cosine", "algorithm": "brute"}
     a = NearestNeighbors(**nn).fit(got).kneighbors(got, return_distance=False)[:, 1:]
     b = NearestNeighbors(**nn).fit(want).kneighbors(want, return_distance=False)[:, 1:]
     same = [set(x) == set(y) for x, y in zip(a, b, strict=True)]
