@@ -320,18 +320,25 @@ def reference_model() -> Any:
 
 def compare_vectors(ours: np.ndarray, ref: np.ndarray) -> dict[str, float]:
     """Cosine per text, and top-10 neighbours by scikit-learn's exact search."""
-    from sklearn.neighbors import NearestNeighbors
-
     cos = np.sum(ours * ref, axis=1) / (np.linalg.norm(ours, axis=1) * np.linalg.norm(ref, axis=1))
-    k = min(11, len(ours))
-    nn = {"n_neighbors": k, "metric": "cosine", "algorithm": "brute"}
-    a = NearestNeighbors(**nn).fit(ours).kneighbors(ours, return_distance=False)[:, 1:]
-    b = NearestNeighbors(**nn).fit(ref).kneighbors(ref, return_distance=False)[:, 1:]
+    a, b = top_neighbours(ours, 10), top_neighbours(ref, 10)
     same = [set(x) == set(y) for x, y in zip(a, b, strict=True)]
     overlap = [len(set(x) & set(y)) / max(1, len(x)) for x, y in zip(a, b, strict=True)]
     return {"texts": int(len(ours)), "min_cosine": float(cos.min()),
             "mean_cosine": float(cos.mean()), "same_top10_share": float(np.mean(same)),
             "mean_top10_overlap": float(np.mean(overlap))}
+
+
+def top_neighbours(vectors: np.ndarray, k: int) -> list[list[int]]:
+    """Each row's k nearest other rows (scikit-learn, exact cosine). The row itself
+    is dropped by index, not by position: texts that differ only in characters the
+    tokenizer maps to [UNK] (emoji) have identical vectors and tie with it."""
+    from sklearn.neighbors import NearestNeighbors
+
+    n = min(k + 1, len(vectors))
+    idx = NearestNeighbors(n_neighbors=n, metric="cosine", algorithm="brute").fit(
+        vectors).kneighbors(vectors, return_distance=False)
+    return [[int(j) for j in row if j != i][:k] for i, row in enumerate(idx)]
 
 
 def _torch_threads() -> int | None:

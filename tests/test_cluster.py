@@ -48,9 +48,9 @@ def ray_head() -> Iterator[str]:
     if not RAY.is_file():
         pytest.skip("the ray command is not installed (pip install 'sounding[cluster]')")
     try:
-        import ray  # noqa: F401
-        import ray.util.client  # noqa: F401
         import grpc  # noqa: F401  (the Ray Client needs it)
+        import ray
+        import ray.util.client  # noqa: F401
     except ImportError as exc:
         pytest.skip(f"Ray with the client is not installed ({exc.name})")
     gcs, client, node, obj, agent, agent_grpc, metrics, env_agent = free_ports(8)
