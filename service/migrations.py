@@ -13,7 +13,10 @@ in one transaction:
 Adding a table needs no step (``create_all`` adds missing tables on every
 open). Adding a column, an index or changing data does: bump
 ``SCHEMA_VERSION`` and add the step to ``STEPS``, written with portable
-SQLAlchemy operations so it runs on SQLite and PostgreSQL alike.
+SQLAlchemy operations so it runs on SQLite and PostgreSQL alike, e.g.
+
+    def _v1_to_v2(conn):
+        add_column(conn, "snapshots", Snapshot.__table__.c.approximate)
 """
 
 from __future__ import annotations
@@ -21,9 +24,20 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Any
 
-from sqlalchemy import Connection, Engine, Table, insert, inspect, select, update
+from sqlalchemy import (
+    Column,
+    Connection,
+    Engine,
+    Table,
+    insert,
+    inspect,
+    select,
+    text,
+    update,
+)
 from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.exc import IntegrityError, OperationalError, ProgrammingError
+from sqlalchemy.schema import CreateColumn
 
 from models.errors import StoreError
 
@@ -44,6 +58,16 @@ _PG_LOCK_KEY = 0x50_756E_6469  # arbitrary, fixed
 def _v0_to_v1(conn: Connection) -> None:
     """Version 1 adds schema_version and the change stamp (store_stamp)."""
     Base.metadata.create_all(conn, tables=[SchemaVersion.__table__, ChangeStamp.__table__])
+
+
+def add_column(conn: Connection, table: str, column: Column[Any]) -> None:
+    """Add ``column`` (as declared in tables.py) to an existing table, unless
+    it is there already: the usual body of a step. A NOT NULL column needs a
+    server_default so existing rows get a value."""
+    if column.name in {c["name"] for c in inspect(conn).get_columns(table)}:
+        return
+    ddl = CreateColumn(column).compile(dialect=conn.dialect)
+    conn.execute(text(f"ALTER TABLE {conn.dialect.identifier_preparer.quote(table)} ADD COLUMN {ddl}"))
 
 
 # STEPS[v] takes a store from version v - 1 to version v.
