@@ -55,9 +55,13 @@ V0_TABLES = frozenset({"accounts", "posts", "snapshots", "vectors"})
 _PG_LOCK_KEY = 0x50_756E_6469  # arbitrary, fixed
 
 
+_VERSION_T: Table = Base.metadata.tables[SchemaVersion.__tablename__]
+_STAMP_T: Table = Base.metadata.tables[ChangeStamp.__tablename__]
+
+
 def _v0_to_v1(conn: Connection) -> None:
     """Version 1 adds schema_version and the change stamp (store_stamp)."""
-    Base.metadata.create_all(conn, tables=[SchemaVersion.__table__, ChangeStamp.__table__])
+    Base.metadata.create_all(conn, tables=[_VERSION_T, _STAMP_T])
 
 
 def add_column(conn: Connection, table: str, column: Column[Any]) -> None:
@@ -129,11 +133,11 @@ def _upgrade_once(engine: Engine) -> int:
         Base.metadata.create_all(conn)
         if found is None or found < SCHEMA_VERSION:
             now = to_naive_utc(now_utc())
-            insert_missing(conn, SchemaVersion.__table__,
+            insert_missing(conn, _VERSION_T,
                            {"id": 1, "version": SCHEMA_VERSION, "migrated_at": now})
             conn.execute(update(SchemaVersion).where(SchemaVersion.id == 1)
                          .values(version=SCHEMA_VERSION, migrated_at=now))
-        insert_missing(conn, ChangeStamp.__table__, {"id": 1, "counter": 0})
+        insert_missing(conn, _STAMP_T, {"id": 1, "counter": 0})
         return SCHEMA_VERSION if found is None else found
 
 
@@ -145,6 +149,6 @@ def insert_missing(conn: Connection, table: Table, values: dict[str, Any]) -> No
         conn.execute(postgresql.insert(table).values(**values).on_conflict_do_nothing())
     elif name == "sqlite":
         conn.execute(sqlite.insert(table).values(**values).on_conflict_do_nothing())
-    elif conn.execute(select(table).filter_by(**{k: values[k] for k in
+    elif conn.execute(select(table).filter_by(**{c.key: values[c.key] for c in
                                                  table.primary_key.columns})).first() is None:
         conn.execute(insert(table).values(**values))
