@@ -13,7 +13,10 @@ in one transaction:
 Adding a table needs no step (``create_all`` adds missing tables on every
 open). Adding a column, an index or changing data does: bump
 ``SCHEMA_VERSION`` and add the step to ``STEPS``, written with portable
-SQLAlchemy operations so it runs on SQLite and PostgreSQL alike.
+SQLAlchemy operations so it runs on SQLite and PostgreSQL alike, e.g.
+
+    def _v1_to_v2(conn):
+        add_column(conn, "snapshots", Snapshot.__table__.c.approximate)
 """
 
 from __future__ import annotations
@@ -21,9 +24,20 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Any
 
-from sqlalchemy import Connection, Engine, Table, insert, inspect, select, update
+from sqlalchemy import (
+    Column,
+    Connection,
+    Engine,
+    Table,
+    insert,
+    inspect,
+    select,
+    text,
+    update,
+)
 from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.exc import IntegrityError, OperationalError, ProgrammingError
+from sqlalchemy.schema import CreateColumn
 
 from models.errors import StoreError
 
@@ -41,9 +55,23 @@ V0_TABLES = frozenset({"accounts", "posts", "snapshots", "vectors"})
 _PG_LOCK_KEY = 0x50_756E_6469  # arbitrary, fixed
 
 
+_VERSION_T: Table = Base.metadata.tables[SchemaVersion.__tablename__]
+_STAMP_T: Table = Base.metadata.tables[ChangeStamp.__tablename__]
+
+
 def _v0_to_v1(conn: Connection) -> None:
     """Version 1 adds schema_version and the change stamp (store_stamp)."""
-    Base.metadata.create_all(conn, tables=[SchemaVersion.__table__, ChangeStamp.__table__])
+    Base.metadata.create_all(conn, tables=[_VERSION_T, _STAMP_T])
+
+
+def add_column(conn: Connection, table: str, column: Column[Any]) -> None:
+    """Add ``column`` (as declared in tables.py) to an existing table, unless
+    it is there already: the usual body of a step. A NOT NULL column needs a
+    server_default so existing rows get a value."""
+    if column.name in {c["name"] for c in inspect(conn).get_columns(table)}:
+        return
+    ddl = CreateColumn(column).compile(dialect=conn.dialect)
+    conn.execute(text(f"ALTER TABLE {conn.dialect.identifier_preparer.quote(table)} ADD COLUMN {ddl}"))
 
 
 # STEPS[v] takes a store from version v - 1 to version v.
@@ -119,11 +147,11 @@ def _upgrade_once(engine: Engine) -> int:
         Base.metadata.create_all(conn)
         if found is None or found < SCHEMA_VERSION:
             now = to_naive_utc(now_utc())
-            insert_missing(conn, SchemaVersion.__table__,
+            insert_missing(conn, _VERSION_T,
                            {"id": 1, "version": SCHEMA_VERSION, "migrated_at": now})
             conn.execute(update(SchemaVersion).where(SchemaVersion.id == 1)
                          .values(version=SCHEMA_VERSION, migrated_at=now))
-        insert_missing(conn, ChangeStamp.__table__, {"id": 1, "counter": 0})
+        insert_missing(conn, _STAMP_T, {"id": 1, "counter": 0})
         return SCHEMA_VERSION if found is None else found
 
 
@@ -135,6 +163,6 @@ def insert_missing(conn: Connection, table: Table, values: dict[str, Any]) -> No
         conn.execute(postgresql.insert(table).values(**values).on_conflict_do_nothing())
     elif name == "sqlite":
         conn.execute(sqlite.insert(table).values(**values).on_conflict_do_nothing())
-    elif conn.execute(select(table).filter_by(**{k: values[k] for k in
+    elif conn.execute(select(table).filter_by(**{c.key: values[c.key] for c in
                                                  table.primary_key.columns})).first() is None:
         conn.execute(insert(table).values(**values))

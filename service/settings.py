@@ -33,9 +33,10 @@ class Settings(BaseSettings):
         "data directory. Point every replica of a shared store at one directory.",
     )
     refresh_seconds: float = Field(
-        default=5.0, ge=0,
+        default=0.0, ge=0,
         description="How often the service checks the store's change stamp and refreshes "
-        "its index in the background (0: only when a request comes).",
+        "its index in the background; 0 (the default): only when a request comes. "
+        "Replicas of a shared store set a few seconds.",
     )
     token: SecretStr | None = Field(
         default=None, description="Bearer token required for changes over HTTP."

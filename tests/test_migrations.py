@@ -13,10 +13,10 @@ from datetime import datetime
 
 import numpy as np
 import pytest
-from sqlalchemy import create_engine, text
+from sqlalchemy import Boolean, Column, String, create_engine, false, text
 
 from models.errors import StoreError
-from service.migrations import SCHEMA_VERSION
+from service.migrations import SCHEMA_VERSION, add_column
 from service.store import Store
 
 V0_SQLITE = [
@@ -193,3 +193,19 @@ def test_backup_on_postgres_says_to_use_pg_dump(database_url: str, tmp_path) -> 
         assert not (tmp_path / "copy.db").exists()
     finally:
         store.close()
+
+
+def test_add_column_step_helper(database_url: str) -> None:
+    """The helper a future step uses: adds a column to stored rows, once."""
+    make_v0_store(database_url)
+    eng = create_engine(database_url)
+    try:
+        with eng.begin() as c:
+            add_column(c, "snapshots", Column("approximate", Boolean, nullable=False,
+                                              server_default=false()))
+            add_column(c, "snapshots", Column("note", String(40)))
+            add_column(c, "snapshots", Column("note", String(40)))  # already there: nothing
+    finally:
+        eng.dispose()
+    assert raw(database_url, "SELECT impressions, approximate, note FROM snapshots") == \
+        [(1234, False, None)]

@@ -111,13 +111,14 @@ def test_forget_on_postgres(make_workspace, pg_url: str, tmp_path: Path) -> None
     assert raw(pg_url, "SELECT COUNT(*) FROM vectors WHERE key = :k", k=key) == [(0,)]
     found = {p.post_id for p in ws.precedents("Glasshouse note 3: the orchids", k=11)}
     assert found == {f"pg-{i}" for i in range(12)} - {"pg-3"}
-    assert ws.forget(account="loomhaven_lab") == 6
+    # loomhaven_lab has the odd-numbered posts, pg-3 already gone.
+    assert ws.forget(account="loomhaven_lab") == 5
     assert raw(pg_url, "SELECT handle FROM accounts") == [("loomhaven",)]
-    assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(5,)]
+    assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(6,)]
     # New rows after a forget get fresh ids (the sequence is PostgreSQL's own).
     s = ws.import_csv(write_csv(tmp_path / "b.csv", 4, prefix="more"))
     assert s.added == 4
-    assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(9,)]
+    assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(10,)]
 
 
 def test_copy_to_then_use_on_postgres(workspace: Workspace, embedder: Embedder, pg_url: str,
@@ -133,9 +134,13 @@ def test_copy_to_then_use_on_postgres(workspace: Workspace, embedder: Embedder, 
     q = ("SELECT a.handle, p.post_id, p.text, p.posted_at, s.impressions, v.data FROM posts p "
          "JOIN accounts a ON a.id = p.account_id JOIN snapshots s ON s.post_pk = p.id "
          "JOIN vectors v ON v.key = p.vector_key ORDER BY p.post_id")
-    # Each backend read through its own driver (sqlite3, psycopg): the same rows.
-    assert [r[:5] + (bytes(r[5]),) for r in raw(pg_url, q)] == \
-        [r[:5] + (bytes(r[5]),) for r in raw(sqlite_url, q)]
+    # Each backend read through its own driver (sqlite3, psycopg): the same rows
+    # (sqlite3 gives the time as ISO 8601 text, psycopg as a datetime).
+    def norm(r: tuple) -> tuple:
+        t = r[3] if isinstance(r[3], datetime) else datetime.fromisoformat(r[3])
+        return (*r[:3], t, r[4], bytes(r[5]))
+
+    assert [norm(r) for r in raw(pg_url, q)] == [norm(r) for r in raw(sqlite_url, q)]
     # Copying again into the now filled store is refused and changes nothing.
     r = runner.invoke(cli_app, ["copy-to", pg_url], env=env)
     assert r.exit_code == 1 and "is not empty" in r.output
