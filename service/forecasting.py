@@ -27,7 +27,7 @@ from models.metrics import METRIC_COLUMNS, check_target, from_log, target_value
 from models.regressor import QuantileForecaster
 
 from .store import has_link
-from .timeparse import now_utc, zone
+from .timeparse import now_utc, wall_clock, zone
 
 CAUTION = (
     "An estimate from this team's own history, not a certainty: the interval "
@@ -145,7 +145,7 @@ def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
         report["backtest"] = run_backtest(X, y, times, feature_names=F.FEATURE_NAMES,
                                           params=QUANTILE_PARAMS)
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
-    stamp = now_utc()
+    stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique (issue 11)
     version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
     trained = TrainedModel(metric=metric, version=version, features=params,
                            quantiles=model, report=report)
@@ -191,6 +191,9 @@ class Forecast:
     draft_id: str | None = None
     log: tuple[float, float, float] = (0.0, 0.0, 0.0)
     repeats: list[dict[str, Any]] = field(default_factory=list)  # service.review.Repeat dicts
+    # Track record (issue 11): set by service.track_record.give.
+    calibration: dict[str, Any] = field(default_factory=dict)
+    live_coverage: dict[str, Any] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -201,6 +204,7 @@ class Forecast:
             "model_version": self.model_version, "precedents": self.precedents,
             "contributions": self.contributions, "warnings": self.warnings, "caution": CAUTION,
             "repeats": self.repeats,
+            "calibration": self.calibration or None, "live_coverage": self.live_coverage,
         }
 
 

@@ -39,6 +39,7 @@ from .timeparse import parse_time, zone
 
 CANONICAL_COLUMNS: tuple[str, ...] = (
     "post_id", "account", "text", "posted_at", *METRIC_COLUMNS, "has_media",
+    "draft_id",  # optional: the draft a post fulfils (service.track_record, issue 11)
 )
 REQUIRED_COLUMNS: tuple[str, ...] = ("post_id", "text", "posted_at")
 _TRUE = {"true", "1", "yes", "y", "t"}

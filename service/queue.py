@@ -18,6 +18,7 @@ from models.errors import CSVFormatError, SoundingError
 from .forecasting import Draft, Forecast
 from .importer import check_encoding
 from .timeparse import parse_time
+from .track_record import give
 
 QUEUE_COLUMNS = ("draft_id", "account", "text", "planned_at")
 OUT_COLUMNS = ("draft_id", "metric", "low", "median", "high", "coverage", "model_version",
@@ -54,7 +55,7 @@ def read_queue(ws: Any, path: Path) -> list[tuple[str, Draft | None, str]]:
 
 
 def forecast_queue(ws: Any, src: Path, dest: Path, *, metric: str = "impressions",
-                   coverage: float = 0.8) -> dict[str, int]:
+                   coverage: float = 0.8, record: bool = True) -> dict[str, int]:
     """Forecast every row of ``src`` into ``dest``; returns counts."""
     ws.forecaster.model(metric)  # no model, or an unknown metric, fails the whole file
     rows = read_queue(ws, Path(src))
@@ -62,14 +63,15 @@ def forecast_queue(ws: Any, src: Path, dest: Path, *, metric: str = "impressions
     problems: dict[str, str] = {}
     drafts = [d for _, d, _ in rows if d is not None]
     try:
-        for f in ws.forecaster.forecast(drafts, metric=metric, coverage=coverage):
+        # Track record hook (issue 11): adapted, staleness-checked and recorded.
+        for f in give(ws, drafts, metric=metric, coverage=coverage, record=record, source="plan"):
             results[f.draft_id or ""] = f
     except SoundingError:
         # One draft spoiled the batch: forecast them one by one to isolate it.
         for d in drafts:
             try:
-                results[d.draft_id or ""] = ws.forecaster.forecast([d], metric=metric,
-                                                                   coverage=coverage)[0]
+                results[d.draft_id or ""] = give(ws, [d], metric=metric, coverage=coverage,
+                                                 record=record, source="plan")[0]
             except SoundingError as one:
                 problems[d.draft_id or ""] = one.message
     Path(dest).parent.mkdir(parents=True, exist_ok=True)

@@ -9,7 +9,10 @@ as the first occurrence, as ``zoneinfo`` does with ``fold=0``.
 
 from __future__ import annotations
 
+import os
+import re
 from datetime import datetime, timezone
+from functools import lru_cache
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from models.errors import InputError, TimeParseError
@@ -88,4 +91,26 @@ def to_naive_utc(dt: datetime) -> datetime:
 
 
 def now_utc() -> datetime:
+    """The one clock: SOUNDING_NOW (RFC 3339) when set, else the system clock.
+
+    Every command and the service read "now" here, so a fixed SOUNDING_NOW
+    makes runs reproducible and lets past forecasts be backfilled (issue 11).
+    """
+    fixed = os.environ.get("SOUNDING_NOW", "").strip()
+    return _fixed_now(fixed) if fixed else datetime.now(UTC)
+
+
+def wall_clock() -> datetime:
+    """The system clock, whatever SOUNDING_NOW says: for names of artefacts
+    (model versions) that must stay unique across runs at a fixed "now"."""
     return datetime.now(UTC)
+
+
+@lru_cache(maxsize=8)
+def _fixed_now(raw: str) -> datetime:
+    # RFC 3339 (5.6) requires the offset; a time without one is refused here.
+    dt = parse_time(raw, where="SOUNDING_NOW")
+    if not (raw.upper().endswith("Z") or re.search(r"[+-]\d\d:\d\d$", raw)):
+        raise TimeParseError(f"SOUNDING_NOW {raw!r} needs a UTC offset (RFC 3339)",
+                             where="SOUNDING_NOW", value=raw)
+    return dt

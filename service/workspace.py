@@ -184,6 +184,11 @@ class Workspace:
         )
         if summary.changed_pks or summary.updated:
             self._sync_index(summary.changed_pks)
+        # Track record hook (issue 11): draft ids, matching, scoring, adaptation.
+        # Imported here: it loads the forecasting stack (LightGBM), as `forecaster` does.
+        from .track_record import after_import
+
+        after_import(self, path, mapping=mapping, account=account)
         return summary
 
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:

@@ -21,7 +21,7 @@ STATIC = Path(__file__).resolve().parent.parent / "static"
 # One router module per resource, in the order they appear in /docs.
 ROUTERS = (
     "health", "precedents", "forecasts", "hours", "variants", "segments",
-    "imports", "training", "forget",
+    "imports", "training", "forget", "track_record",
 )
 
 

@@ -13,7 +13,7 @@ import importlib.util
 from .base import app
 
 # Command modules, in the order their commands appear in --help.
-for _name in ("history", "forecast", "review", "segments", "admin"):
+for _name in ("history", "forecast", "review", "segments", "admin", "track"):
     if importlib.util.find_spec(f"{__name__}.{_name}") is not None:
         importlib.import_module(f"{__name__}.{_name}")
 
