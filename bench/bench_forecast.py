@@ -47,6 +47,8 @@ from service.api.app import create_app  # noqa: E402
 from service.cli.history import _demo_accounts  # noqa: E402
 from service.settings import Settings  # noqa: E402
 from service.store import PostRow  # noqa: E402
+from service.timeparse import parse_time  # noqa: E402
+from service.track_record import give  # noqa: E402
 from service.workspace import Workspace  # noqa: E402
 
 DRAFT = (ROOT / "demo_data" / "sample_draft.txt").read_text().strip()
@@ -162,7 +164,10 @@ def main() -> None:
             train_s = time.perf_counter() - t0
             server, thread, url = serve(ws)
             body = {"text": DRAFT, "account": "loomhaven", "planned_at": "2026-12-02T12:00"}
-            emb, fc = [], []
+            emb, fc, bare = [], [], []
+            # Track record (issue 11): the same forecast with "record": false, interleaved,
+            # so the cost of recording it is a ratio within this run.
+            unrecorded = {**body, "record": False}
             with httpx.Client(base_url=url, timeout=60) as client:
                 client.post("/v1/forecasts", json=body).raise_for_status()  # warm caches
                 for _ in range(args.requests):
@@ -173,8 +178,23 @@ def main() -> None:
                     client.post("/v1/forecasts", json=body).raise_for_status()
                     fc.append(time.perf_counter() - t0)
                     reference.time_once()
+                    t0 = time.perf_counter()
+                    client.post("/v1/forecasts", json=unrecorded).raise_for_status()
+                    bare.append(time.perf_counter() - t0)
             server.should_exit = True
             thread.join(timeout=10)
+            # In process: everything the track record adds to a forecast (adaptation, live
+            # coverage, staleness checks and the insert) against the bare forecaster.
+            drafts = [forecasting.Draft(text=DRAFT, account="loomhaven",
+                                        planned_at=parse_time("2026-12-02T12:00Z"))]
+            plain, given = [], []
+            for _ in range(args.requests):
+                t0 = time.perf_counter()
+                ws.forecaster.forecast(drafts)
+                plain.append(time.perf_counter() - t0)
+                t0 = time.perf_counter()
+                give(ws, drafts, source="bench")
+                given.append(time.perf_counter() - t0)
             row = {
                 "posts": size, "fill_s": round(fill, 1), "train_s": round(train_s, 1),
                 "train_with_backtest": not args.no_train and size == max(args.sizes),
@@ -184,6 +204,11 @@ def main() -> None:
                 "ratio_p50": round(statistics.median(fc) / statistics.median(emb), 2),
                 "embedding": embedder.info()["backend"],
                 **reference.row(fc),
+                "forecast_unrecorded_p50_ms": round(1000 * statistics.median(bare), 2),
+                "record_ratio_p50": round(statistics.median(fc) / statistics.median(bare), 3),
+                "in_process_forecast_p50_ms": round(1000 * statistics.median(plain), 2),
+                "in_process_track_record_p50_ms": round(1000 * statistics.median(given), 2),
+                "track_record_ratio_p50": round(statistics.median(given) / statistics.median(plain), 3),
             }
             results["sizes"][str(size)] = row  # type: ignore[index]
             print(json.dumps(row))

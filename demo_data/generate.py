@@ -604,6 +604,31 @@ def plan_drafts(posts):
     return rows, notes
 
 
+def plan_published(rows, notes):
+    """The plan's drafts as they went out, with outcomes from the history's own model.
+
+    For the track-record demo and test: each draft goes out 0-40 minutes after its planned
+    time. q-001 to q-004 carry their draft_id (an explicit link); q-005 to q-007 carry none
+    and are matched by text and time (q-006 with a light edit: a closing phrase added);
+    q-008 is never published. Same impression model and noise as the history.
+    """
+    rng = np.random.default_rng(SEED + 2)
+    out = []
+    for i, r in enumerate(rows[:7]):
+        planned = datetime.fromisoformat(r["planned_at"])
+        local = planned.astimezone(ZoneInfo(ACCOUNTS[r["account"]]["zone"]))
+        local += timedelta(minutes=int(rng.integers(0, 41)))
+        text = r["text"] + (" Sign up at the visitor desk." if r["draft_id"] == "q-006" else "")
+        p = dict(account=r["account"], topic=notes["topics"][r["draft_id"]], local=local,
+                 has_link="https://" in text, has_media=False)
+        impressions = int(round(float(np.exp(log_mean(p) + rng.normal(0, NOISE_SD)))))
+        out.append(dict(post_id=f"{ACCOUNTS[r['account']]['prefix']}-dec-{i + 1:03d}",
+                        account=r["account"], text=text, posted_at=local.isoformat(),
+                        impressions=impressions, has_media="false",
+                        draft_id=r["draft_id"] if i < 4 else ""))
+    return out
+
+
 SAMPLE_DRAFT = ("The magnolias along the Long Border are opening this week 🌸 Come for a slow walk "
                 "before the petals drop. #WhatsFlowering\n")
 
@@ -636,6 +661,8 @@ def main(out):
                for p in planted])
     rows, notes = plan_drafts(posts)
     write_csv(out / "plan.csv", ["draft_id", "account", "text", "planned_at"], rows)
+    write_csv(out / "plan_published.csv", ["post_id", "account", "text", "posted_at", "impressions",
+                                           "has_media", "draft_id"], plan_published(rows, notes))
     (out / "sample_draft.txt").write_text(SAMPLE_DRAFT, encoding="utf-8")
     effects = {
         "seed": SEED, "numpy_version_used": np.__version__,

@@ -42,7 +42,7 @@ from .repeats import near_repeats_many
 from .retrieval import Retriever, WideCache
 from .settings import Settings
 from .store import Store, has_link
-from .timeparse import now_utc, zone
+from .timeparse import now_utc, wall_clock, zone
 
 __all__ = ["CAUTION", "Draft", "Forecast", "Forecaster", "HistoryView", "backtest", "build_view",
            "feature_params", "local_clock", "train", "training_set"]
@@ -114,7 +114,7 @@ def _train(ws: Any, metric: str, *, now: datetime | None, backtest: bool,
         report["backtest"] = run_backtest(X, y, times, feature_names=F.FEATURE_NAMES,
                                           params=QUANTILE_PARAMS)
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
-    stamp = now_utc()
+    stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique (issue 11)
     version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
     trained = TrainedModel(metric=metric, version=version, features=params,
                            quantiles=model, report=report)
@@ -161,6 +161,9 @@ class Forecast:
     draft_id: str | None = None
     log: tuple[float, float, float] = (0.0, 0.0, 0.0)
     repeats: list[dict[str, Any]] = field(default_factory=list)  # service.review.Repeat dicts
+    # Track record (issue 11): set by service.track_record.give.
+    calibration: dict[str, Any] = field(default_factory=dict)
+    live_coverage: dict[str, Any] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -171,6 +174,7 @@ class Forecast:
             "model_version": self.model_version, "precedents": self.precedents,
             "contributions": self.contributions, "warnings": self.warnings, "caution": CAUTION,
             "repeats": self.repeats,
+            "calibration": self.calibration or None, "live_coverage": self.live_coverage,
         }
 
 

@@ -54,6 +54,7 @@ from .timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order,
 RATE_COLUMN = "engagement_rate"
 CANONICAL_COLUMNS: tuple[str, ...] = (
     "post_id", "account", "text", "posted_at", *METRIC_COLUMNS, "has_media", RATE_COLUMN,
+    "draft_id",  # optional: the draft a post fulfils (service.track_record, issue 11)
 )
 REQUIRED_COLUMNS: tuple[str, ...] = ("post_id", "text", "posted_at")
 _TRUE = {"true", "1", "yes", "y", "t"}

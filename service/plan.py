@@ -24,6 +24,7 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 from .forecasting import Draft, Forecast
 from .importer import _FALSE, _TRUE, check_encoding
 from .timeparse import parse_time
+from .track_record import give
 from .workspace import Workspace
 
 PLAN_COLUMNS = ("draft_id", "account", "text", "planned_at")
@@ -122,7 +123,8 @@ def _refuse_duplicates(rows: list[PlanRow], path: Path) -> None:
 
 
 def forecast_plan(
-    ws: Workspace, src: Path, dest: Path, *, metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE
+    ws: Workspace, src: Path, dest: Path, *, metric: str = DEFAULT_METRIC,
+    coverage: float = DEFAULT_COVERAGE, record: bool = True,
 ) -> PlanCounts:
     """Forecast every row of ``src`` into ``dest``."""
     ws.forecaster.model(metric)  # no model, or an unknown metric, fails the whole file
@@ -132,13 +134,15 @@ def forecast_plan(
     problems: dict[int, str] = {i: r.problem for i, r in enumerate(rows) if r.draft is None}
     drafts = [d for d in (rows[i].draft for i in todo) if d is not None]
     try:
-        found = ws.forecaster.forecast(drafts, metric=metric, coverage=coverage)
+        # Adapted, staleness-checked and recorded in the track record (issue 11).
+        found = give(ws, drafts, metric=metric, coverage=coverage, record=record, source="plan")
         results.update(zip(todo, found, strict=True))
     except SoundingError:
         # One draft spoiled the batch: forecast them one by one to isolate it.
         for i, d in zip(todo, drafts, strict=True):
             try:
-                results[i] = ws.forecaster.forecast([d], metric=metric, coverage=coverage)[0]
+                results[i] = give(ws, [d], metric=metric, coverage=coverage, record=record,
+                                  source="plan")[0]
             except SoundingError as one:
                 problems[i] = one.message
     Path(dest).parent.mkdir(parents=True, exist_ok=True)

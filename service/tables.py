@@ -13,6 +13,7 @@ from sqlalchemy import (
     BigInteger,
     Boolean,
     DateTime,
+    Float,
     ForeignKey,
     Index,
     Integer,
@@ -139,3 +140,106 @@ class ChangeStamp(Base):
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=False)
     counter: Mapped[int] = mapped_column(BigInteger, nullable=False, default=0)
+
+
+# Track record (issue 11; service.track_record) --------------------------------
+# Forecasts given, what they were matched to and how they scored, and the state
+# of the adaptive calibration. Portable types only (SQLite and PostgreSQL).
+# Deleting a post or an account cascades to its matches and forecasts.
+
+
+class ForecastGiven(Base):
+    """One forecast as it was given (check, a plan file, the API or the page)."""
+
+    __tablename__ = "forecasts_given"
+    __table_args__ = (
+        Index("ix_forecasts_given_account_planned", "account_id", "planned_at"),
+        Index("ix_forecasts_given_draft", "draft_id"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    given_at: Mapped[datetime] = mapped_column(DateTime, nullable=False, index=True)
+    source: Mapped[str] = mapped_column(String(16), nullable=False)  # check, plan, api
+    draft_id: Mapped[str | None] = mapped_column(String(200))
+    account_id: Mapped[int] = mapped_column(
+        ForeignKey("accounts.id", ondelete="CASCADE"), nullable=False
+    )
+    text: Mapped[str] = mapped_column(Text, nullable=False)
+    text_hash: Mapped[str] = mapped_column(String(64), nullable=False)
+    planned_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+    metric: Mapped[str] = mapped_column(String(32), nullable=False)
+    coverage: Mapped[float] = mapped_column(Float, nullable=False)
+    low: Mapped[float] = mapped_column(Float, nullable=False)
+    median: Mapped[float] = mapped_column(Float, nullable=False)
+    high: Mapped[float] = mapped_column(Float, nullable=False)
+    # The band on the model's log1p scale, as given (scoring compares on it).
+    low_log: Mapped[float] = mapped_column(Float, nullable=False)
+    median_log: Mapped[float] = mapped_column(Float, nullable=False)
+    high_log: Mapped[float] = mapped_column(Float, nullable=False)
+    model_version: Mapped[str] = mapped_column(String(64), nullable=False)
+    calibration: Mapped[str] = mapped_column(String(32), nullable=False)  # cqr or cqr+aci
+    alpha_t: Mapped[float] = mapped_column(Float, nullable=False)
+    # The simple forecasters as they stood when the forecast was given (log1p scale).
+    account_median_log: Mapped[float | None] = mapped_column(Float)
+    precedents_median_log: Mapped[float | None] = mapped_column(Float)
+    # JSON list of the top precedents: post_id, account, similarity, value.
+    precedents: Mapped[str] = mapped_column(Text, nullable=False, default="[]")
+
+
+class PostDraftLink(Base):
+    """An explicit draft id that an import gave a post (its ``draft_id`` column)."""
+
+    __tablename__ = "post_draft_links"
+
+    post_pk: Mapped[int] = mapped_column(
+        ForeignKey("posts.id", ondelete="CASCADE"), primary_key=True
+    )
+    draft_id: Mapped[str] = mapped_column(String(200), nullable=False, index=True)
+
+
+class ForecastMatch(Base):
+    """A forecast fulfilled by a published post, and its score once settled.
+
+    One post fulfils at most one forecast of a metric, one forecast at most one post.
+    """
+
+    __tablename__ = "forecast_matches"
+    __table_args__ = (UniqueConstraint("post_pk", "metric", name="uq_match_post_metric"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    forecast_id: Mapped[int] = mapped_column(
+        ForeignKey("forecasts_given.id", ondelete="CASCADE"), nullable=False, unique=True
+    )
+    post_pk: Mapped[int] = mapped_column(
+        ForeignKey("posts.id", ondelete="CASCADE"), nullable=False, index=True
+    )
+    metric: Mapped[str] = mapped_column(String(32), nullable=False)
+    how: Mapped[str] = mapped_column(String(16), nullable=False)  # draft_id or text_time
+    similarity: Mapped[float | None] = mapped_column(Float)
+    matched_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+    # Filled once the post is settled (maturity window), refreshed on later imports.
+    outcome: Mapped[float | None] = mapped_column(Float)
+    outcome_log: Mapped[float | None] = mapped_column(Float)
+    inside: Mapped[bool | None] = mapped_column(Boolean)
+    scored_at: Mapped[datetime | None] = mapped_column(DateTime)
+    # Whether this outcome has been fed to the adaptive calibration (once only).
+    adapted: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False)
+
+
+class CalibrationState(Base):
+    """Adaptive conformal state (alpha_t) of one metric and coverage level.
+
+    Not tied to a model version: retraining keeps what the adaptation learnt.
+    """
+
+    __tablename__ = "calibration_states"
+
+    metric: Mapped[str] = mapped_column(String(32), primary_key=True)
+    level: Mapped[str] = mapped_column(String(8), primary_key=True)  # "0.8"
+    alpha_t: Mapped[float] = mapped_column(Float, nullable=False)
+    gamma: Mapped[float] = mapped_column(Float, nullable=False)
+    real_updates: Mapped[int] = mapped_column(Integer, nullable=False, default=0)
+    pseudo_updates: Mapped[int] = mapped_column(Integer, nullable=False, default=0)
+    # Posting time of the last settled post fed as a pseudo-outcome.
+    pseudo_until: Mapped[datetime | None] = mapped_column(DateTime)
+    updated_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)

@@ -19,11 +19,13 @@ Whether ``03/11/2026`` is 3 November or 11 March is never guessed.
 
 from __future__ import annotations
 
+import os
 import re
 from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime, time, timedelta, timezone
 from decimal import Decimal, InvalidOperation
+from functools import lru_cache
 from typing import Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
@@ -137,6 +139,18 @@ def to_naive_utc(dt: datetime) -> datetime:
 
 
 def now_utc() -> datetime:
+    """The one clock: SOUNDING_NOW (RFC 3339) when set, else the system clock.
+
+    Every command and the service read "now" here, so a fixed SOUNDING_NOW
+    makes runs reproducible and lets past forecasts be backfilled (issue 11).
+    """
+    fixed = os.environ.get("SOUNDING_NOW", "").strip()
+    return _fixed_now(fixed) if fixed else datetime.now(UTC)
+
+
+def wall_clock() -> datetime:
+    """The system clock, whatever SOUNDING_NOW says: for names of artefacts
+    (model versions) that must stay unique across runs at a fixed "now"."""
     return datetime.now(UTC)
 
 
@@ -418,3 +432,13 @@ def check_date_order(
             f"dates ({v2!r}, line {l2})", where=where, field=column,
             hint="give --day-first or --month-first; rows in the other order are then rejected",
         )
+
+
+@lru_cache(maxsize=8)
+def _fixed_now(raw: str) -> datetime:
+    # RFC 3339 (5.6) requires the offset; a time without one is refused here.
+    dt = parse_time(raw, where="SOUNDING_NOW")
+    if not (raw.upper().endswith("Z") or re.search(r"[+-]\d\d:\d\d$", raw)):
+        raise TimeParseError(f"SOUNDING_NOW {raw!r} needs a UTC offset (RFC 3339)",
+                             where="SOUNDING_NOW", value=raw)
+    return dt

@@ -32,6 +32,7 @@ from .retrieval import Hits, Retriever
 from .settings import Settings
 from .store import Store
 from .timeparse import as_utc
+from .track_record import after_import
 
 __all__ = ["Precedent", "Workspace"]
 
@@ -244,6 +245,8 @@ class Workspace:
                 ) from None
             if summary.changed_pks or summary.updated:
                 self._sync_index(summary.changed_pks)
+            # The track record: draft ids, matching, scoring, adaptation (issue 11).
+            after_import(self, path, mapping=mapping, account=account)
             return summary
 
     def preview_import(self, path: str | Path, **options: Any) -> ImportPreview:

@@ -26,6 +26,7 @@ from .routers import (
     imports,
     precedents,
     segments,
+    track_record,
     training,
     variants,
 )
@@ -34,7 +35,8 @@ STATIC = Path(__file__).resolve().parent.parent / "static"
 
 # One router module per resource, in the order they appear in /docs. Imported
 # by name, so a missing module fails at import rather than dropping an endpoint.
-ROUTERS = (health, precedents, forecasts, hours, variants, segments, imports, training, forget)
+ROUTERS = (health, precedents, forecasts, hours, variants, segments, imports, training, forget,
+           track_record)
 
 
 def create_app(*, workspace: Workspace | None = None, settings: Settings | None = None,

@@ -223,12 +223,14 @@ class DraftIn(Strict):
 class ForecastRequest(DraftIn):
     metric: str = METRIC_FIELD
     coverage: float = COVERAGE_FIELD
+    record: bool = Field(default=True, description="Keep the forecast in the track record")
 
 
 class ForecastBatchRequest(Strict):
     drafts: list[DraftIn] = Field(min_length=1)
     metric: str = METRIC_FIELD
     coverage: float = COVERAGE_FIELD
+    record: bool = Field(default=True, description="Keep the forecasts in the track record")
 
 
 class PrecedentWeighted(PrecedentOut):
@@ -264,6 +266,28 @@ class RepeatOut(BaseModel):
     message: str
 
 
+class CalibrationOut(BaseModel):
+    """Which calibration shaped the interval (service.track_record, issue 11)."""
+
+    method: str = Field(description="cqr: as trained; cqr+aci: adapted to scored outcomes "
+                        "(adaptive conformal inference, Gibbs & Candes 2021)")
+    level: str
+    alpha: float
+    alpha_t: float = Field(description="Working miscoverage level after adaptation")
+    outcomes: int = Field(description="Scored forecasts the adaptation has seen")
+    pseudo_outcomes: int = Field(description="Settled posts forecast as they would have been")
+    capped: bool
+    gamma: float | None = None
+
+
+class LiveCoverageOut(BaseModel):
+    scored: int = Field(description="Forecasts of this metric and level scored so far")
+    held: int
+    coverage: float | None = Field(description="Share of scored forecasts whose outcome fell "
+                                   "inside the interval")
+    ci: list[float] | None = Field(description="Wilson 95% interval of that share")
+
+
 class ForecastOut(BaseModel):
     draft_id: str | None = None
     metric: str
@@ -284,6 +308,8 @@ class ForecastOut(BaseModel):
     caution: str
     repeats: list[RepeatOut] = Field(
         default_factory=list, description="Near-repeats behind the warnings, most similar first")
+    calibration: CalibrationOut | None = None
+    live_coverage: LiveCoverageOut | None = None
 
 
 class ForecastList(BaseModel):

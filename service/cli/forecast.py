@@ -16,7 +16,8 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_C
 from .. import forecasting
 from ..forecasting import CAUTION, Draft, Forecast
 from ..plan import forecast_plan
-from ..timeparse import localize, parse_time, zone
+from ..timeparse import localize, now_utc, parse_time, zone
+from ..track_record import give, staleness
 from ..workspace import Workspace
 from .base import app, out, print_json, workspace
 
@@ -30,8 +31,18 @@ def train_cmd(
     skip_backtest: bool = typer.Option(
         False, "--skip-backtest", help="Train without the backtest (forecasts then state no "
         "backtested coverage)."),
+    if_stale: bool = typer.Option(
+        False, "--if-stale", help="Train only when the model is stale (old, or its live "
+        "coverage is off), for a scheduled job."),
 ) -> None:
     """Train a new forecast model version from the store."""
+    if if_stale:  # track record hook (issue 11)
+        why = staleness(workspace(), metric)
+        if not why["stale"]:
+            out.print(f"the {metric} model is not stale; nothing to do")
+            return
+        for w in why["warnings"]:
+            out.print(f"stale: {w}", highlight=False)
     m = forecasting.train(workspace(), metric, backtest=not skip_backtest)
     out.print(f"trained {metric} model {m.version} on {m.report['n_train']} posts, "
               f"calibrated on the next {m.report['n_calibration']}")
@@ -94,6 +105,11 @@ def print_forecast(f: Forecast) -> None:
                   p["posted_at"][:16].replace("T", " ") + ("" if p["mature"] else " (young)"),
                   "-" if v is None else f"{v:,}", p["text"][:80])
     out.print(t)
+    if f.calibration:  # track record (issue 11): calibration used, live coverage so far
+        live = f.live_coverage or {}
+        held = ("no forecast scored yet" if not live.get("scored") else
+                f"held {live['coverage']:.0%} of {live['scored']} scored forecasts")
+        out.print(f"calibration: {f.calibration['method']}; live coverage: {held}")
     out.print(f"[dim]{CAUTION}[/dim]")
 
 
@@ -117,13 +133,16 @@ def check_cmd(
     dest: Path | None = typer.Option(None, "--out", help="Where to write the plan's forecasts (CSV)."),
     media: bool = typer.Option(False, "--media", help="An image or video goes with the text."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+    no_record: bool = typer.Option(False, "--no-record", help="Keep this forecast out of the "
+                                   "track record."),
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
     if plan is not None:
         if dest is None:
             raise InputError("--plan needs --out for the forecasts", field="--out")
-        counts = forecast_plan(ws, plan, dest, metric=metric, coverage=coverage)
+        counts = forecast_plan(ws, plan, dest, metric=metric, coverage=coverage,
+                               record=not no_record)
         out.print(f"{counts.forecast} of {counts.rows} drafts forecast into {dest}"
                   + (f"; {counts.failed} with a reason in warnings" if counts.failed else ""))
         return
@@ -131,9 +150,10 @@ def check_cmd(
         raise InputError("give the draft text, or --plan with a plan file", field="text")
     if not account:
         raise InputError("say which account would post it with --account", field="--account")
-    f = ws.forecaster.forecast([Draft(text=text, account=account, planned_at=planned(at, account),
-                                      has_media=media)],
-                               metric=metric, coverage=coverage)[0]
+    # Adapted, staleness-checked and recorded in the track record (issue 11).
+    f = give(ws, [Draft(text=text, account=account, planned_at=planned(at, account),
+                        has_media=media)],
+             metric=metric, coverage=coverage, record=not no_record, source="check")[0]
     if as_json:
         print_json(f.to_dict())
     else:
@@ -150,7 +170,7 @@ def demo_forecast(ws: Workspace, draft: str) -> None:
     out.rule("4. forecast the sample draft for tomorrow noon")
     account = "loomhaven"
     tz = ws.store.account(account).timezone
-    tomorrow = datetime.now(zone(tz)).date() + timedelta(days=1)
+    tomorrow = now_utc().astimezone(zone(tz)).date() + timedelta(days=1)
     when = localize(datetime.combine(tomorrow, time(12, 0)), tz)
     f = ws.forecaster.forecast([Draft(text=draft, account=account, planned_at=when)])[0]
     print_forecast(f)

@@ -7,6 +7,7 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 from ...forecasting import Draft
 from ...timeparse import parse_time
 from ...workspace import Workspace
+from ...track_record import give
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import DraftIn, ForecastBatchRequest, ForecastList, ForecastOut, ForecastRequest
@@ -36,8 +37,11 @@ def forecasts(
     if isinstance(body, ForecastBatchRequest):
         ws.forecaster.limits.check_batch(len(body.drafts))
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
-        found = ws.forecaster.forecast(drafts, metric=body.metric, coverage=body.coverage)
+        # Track record hook (issue 11): adapted, staleness-checked and recorded.
+        found = give(ws, drafts, metric=body.metric, coverage=body.coverage, record=body.record,
+                     source="api")
         return ForecastList(forecasts=[ForecastOut(**f.to_dict()) for f in found])
-    found = ws.forecaster.forecast([to_draft(ws, body, "planned_at")], metric=body.metric,
-                                   coverage=body.coverage)
+    # Track record hook (issue 11).
+    found = give(ws, [to_draft(ws, body, "planned_at")], metric=body.metric,
+                 coverage=body.coverage, record=body.record, source="api")
     return ForecastOut(**found[0].to_dict())
