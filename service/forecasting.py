@@ -24,7 +24,7 @@ from models.backtest import run_backtest
 from models.errors import InputError, NotReady
 from models.explain import describe, group_contributions
 from models.metrics import METRIC_COLUMNS, check_target, from_log, target_value
-from models.regressor import QuantileForecaster
+from models.stacking import ALL_FEATURES, ALL_GROUPS, STACK_PARAMS, StackedForecaster, extra_columns
 
 from .store import has_link
 from .timeparse import now_utc, zone
@@ -123,12 +123,14 @@ def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
             f"{len(y)} mature posts with {metric}; training needs at least {MIN_TRAINING_POSTS}",
             hint="import more history",
         )
+    # issue 10: the text model's time-ordered column and the account code.
+    X, text = _with_extra(view, params, now, X)
     order = np.argsort(times, kind="stable")
     X, y, times = X[order], y[order], times[order]
     # The calibration block comes after the training block in time.
     cut = int(round(len(y) * (1 - cal_fraction)))
-    model = QuantileForecaster(**QUANTILE_PARAMS).fit(
-        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=F.FEATURE_NAMES)
+    model = StackedForecaster(**STACK_PARAMS).fit(
+        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES)
     report: dict[str, Any] = {
         "metric": metric,
         "trained_at": now_utc().isoformat(),
@@ -140,15 +142,18 @@ def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
         "features": {"k": params.k, "maturity_hours": params.maturity_s / 3600,
                      "similar_threshold": params.similar_threshold,
                      "baseline_posts": params.baseline_n},
+        "combination": model.summary(),
+        "text_model": None if text is None else {"penalty": text.alpha_},
     }
     if backtest:
-        report["backtest"] = run_backtest(X, y, times, feature_names=F.FEATURE_NAMES,
-                                          params=QUANTILE_PARAMS)
+        report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES,
+                                          params=STACK_PARAMS)
+        report["note"] = report["backtest"]["note"]
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
     stamp = now_utc()
     version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
     trained = TrainedModel(metric=metric, version=version, features=params,
-                           quantiles=model, report=report)
+                           quantiles=model, report=report, text=text)
     trained.save(ws.settings.models_dir)
     return trained
 
@@ -158,11 +163,21 @@ def backtest(ws: Any, metric: str = "impressions", *, coverage: float = 0.8,
     check_target(metric)
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)
-    X, y, times = training_set(view, params, now or now_utc())
+    now = now or now_utc()
+    X, y, times = training_set(view, params, now)
     if len(y) < MIN_TRAINING_POSTS:
         raise NotReady(f"{len(y)} mature posts with {metric}; a backtest needs {MIN_TRAINING_POSTS}")
-    return run_backtest(X, y, times, feature_names=F.FEATURE_NAMES, coverage_level=coverage,
-                        n_folds=n_folds, params=QUANTILE_PARAMS)
+    X, _ = _with_extra(view, params, now, X)
+    return run_backtest(X, y, times, feature_names=ALL_FEATURES, coverage_level=coverage,
+                        n_folds=n_folds, params=STACK_PARAMS)
+
+
+def _with_extra(view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray
+                ) -> tuple[np.ndarray, Any]:
+    """issue 10: ``X`` (rows of ``training_set``) with models.stacking's extra columns."""
+    extra, text = extra_columns(view.history, maturity_s=params.maturity_s, now=now.timestamp())
+    keep = F.eligible(view.history, now.timestamp(), params)
+    return np.hstack([X, extra[keep]]), text
 
 
 @dataclass(slots=True)
@@ -267,7 +282,8 @@ class Forecaster:
             plans.append(d.planned_at or now)
         details = self.ws.store.posts_by_pk(sorted({int(view.history.pk[r]) for row in rows
                                                     for r, _ in row[3]}))
-        X = np.vstack([r[0] for r in rows])
+        X = model.rows(np.vstack([r[0] for r in rows]), vecs,
+                       [view.account_codes[d.account] for d in drafts])  # issue 10: extra columns
         lo, med, hi = model.quantiles.predict(X, coverage=coverage)
         contribs = model.quantiles.contributions(X)
         from .review import near_repeats_many  # imported here: service.review imports this module
@@ -278,7 +294,7 @@ class Forecaster:
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = rows[i]
             expected, groups = group_contributions(contribs[i], model.quantiles.feature_names_,
-                                                   F.FEATURE_GROUPS)
+                                                   ALL_GROUPS)
             local = plans[i].astimezone(zone(tz))
             out.append(Forecast(
                 metric=metric, account=d.account, planned_at=plans[i],
