@@ -125,15 +125,17 @@ def run_backtest(
         "coverage_by_level": {
             f"{lvl:g}": float(np.concatenate(h).mean()) for lvl, h in sorted(level_hits.items())
         },
+        "text_signal": text_signal(p["y"], p["account_median"],
+                                   {c: p[c] for c in ("text_ridge", "precedents_median")}),
         "folds": folds,
     }
     report["note"] = signal_note(report)
     return report
 
 
-#: Below this share of the account median's squared-error-free gain, the
-#: text is said to explain little (a plain reading, no source: our choice).
-TEXT_GAIN_MIN = 0.05
+#: Below this share of the variance left by the account median, the text is
+#: said to explain little (a plain reading; our choice, no source).
+TEXT_SHARE_MIN = 0.05
 _LEANS = {"boosted": "the boosted model of every feature",
           "text_ridge": "the text model",
           "account_median": "your account's recent median",
@@ -141,20 +143,32 @@ _LEANS = {"boosted": "the boosted model of every feature",
           "history_median": "the history-wide median"}
 
 
+def text_signal(y: np.ndarray, account: np.ndarray, text: dict[str, np.ndarray]
+                ) -> dict[str, float]:
+    """How much of the difference from the account's recent median each
+    text-based forecaster explains: the squared correlation of
+    ``forecast - account median`` with ``y - account median`` (test posts)."""
+    r = y - account
+    out = {}
+    for name, f in text.items():
+        d = f - account
+        ok = np.isfinite(d) & np.isfinite(r)
+        share = 0.0
+        if ok.sum() > 2 and np.std(d[ok]) > 0 and np.std(r[ok]) > 0:
+            share = float(np.corrcoef(d[ok], r[ok])[0, 1] ** 2)
+        out[name] = round(share, 4)
+    return out
+
+
 def signal_note(report: dict[str, Any]) -> str | None:
     """One plain line when the text carries little signal, else None.
 
-    The text "explains little" when neither text-based forecaster (the
-    ridge text model, the precedents' median) cuts the account median's
-    MAE(log) by at least ``TEXT_GAIN_MIN`` (5%) in the backtest.
+    The text "explains little" when no text-based forecaster (the ridge
+    text model, the precedents' median) explains ``TEXT_SHARE_MIN`` (5%) of
+    the test posts' differences from their account's recent median.
     """
-    cands = report.get("candidates") or {}
-    base = cands.get("account_median", {}).get("mae_log")
-    text = [cands[c]["mae_log"] for c in ("text_ridge", "precedents_median") if c in cands]
-    if base is None or not text or base <= 0:
-        return None
-    gain = 1.0 - min(text) / base
-    if gain >= TEXT_GAIN_MIN:
+    shares = report.get("text_signal") or {}
+    if not shares or max(shares.values()) >= TEXT_SHARE_MIN:
         return None
     w = report.get("weights") or {}
     lean = max((c for c in CANDIDATES if c in w), key=lambda c: w[c], default="account_median")

@@ -18,10 +18,12 @@ Rows arrive sorted by time and are cut into three blocks:
   CQR (Romano et al. 2019) on the calibration block, which nothing above
   has seen, so the stated coverage holds for the blend.
 
-The boosted model leaves out columns identical to an earlier column on the
-training rows (one account: own-account neighbours repeat the team's) and,
-by default, the timing columns, which the timing component carries at full
-size (its penalty and blend weight go to zero when time carries nothing).
+The timing component is fitted first and the boosted model learns the
+rest (it corrects the smooth curve rather than shrinking it); the
+``boosted`` candidate is their sum. The component's penalty is chosen in
+time order, so where time carries nothing it goes to about zero. The
+boosted model leaves out columns identical to an earlier column on the
+training rows (one account: own-account neighbours repeat the team's).
 """
 
 from __future__ import annotations
@@ -36,6 +38,7 @@ from typing import Any, Self
 import lightgbm as lgb
 import numpy as np
 from numpy.typing import ArrayLike
+from threadpoolctl import threadpool_limits
 
 from . import features as F
 from .blend import simplex_weights
@@ -43,7 +46,7 @@ from .calibration import CQRCalibrator
 from .errors import InputError, NotFittedError, NotFound, StoreError
 from .regressor import MAX_COVERAGE, MIN_COVERAGE, QuantileForecaster, _matrix, _target
 from .textmodel import RidgeText
-from .timing import TimingEffect, hour_from_cyclic
+from .timing import TimingEffect, best_hour_share, hour_from_cyclic
 
 #: Columns added after ``models.features.FEATURE_NAMES`` (see ``extra_columns``).
 EXTRA_FEATURES: tuple[str, ...] = ("text_ridge", "account_code")
@@ -119,7 +122,8 @@ class StackedForecaster:
         num_leaves: int = 15,
         min_child_samples: int = 20,
         stack_fraction: float = 0.25,
-        boosted_timing: bool = False,
+        boosted_timing: bool = True,
+        blend_timing: bool = True,
         random_state: int = 0,
         num_threads: int = 1,
     ) -> None:
@@ -131,6 +135,7 @@ class StackedForecaster:
         self.min_child_samples = min_child_samples
         self.stack_fraction = stack_fraction
         self.boosted_timing = boosted_timing
+        self.blend_timing = blend_timing
         self.random_state = random_state
         self.num_threads = num_threads
 
@@ -142,6 +147,7 @@ class StackedForecaster:
                 "min_child_samples": int(self.min_child_samples),
                 "stack_fraction": float(self.stack_fraction),
                 "boosted_timing": bool(self.boosted_timing),
+                "blend_timing": bool(self.blend_timing),
                 "random_state": int(self.random_state), "num_threads": int(self.num_threads)}
 
     def _quantile_params(self, n_estimators: int) -> dict[str, Any]:
@@ -175,6 +181,12 @@ class StackedForecaster:
 
     def fit(self, X_train: ArrayLike, y_train: ArrayLike, X_cal: ArrayLike, y_cal: ArrayLike,
             *, feature_names: Sequence[str]) -> Self:
+        # Small linear algebra only: one BLAS thread (shared cores; see textmodel).
+        with threadpool_limits(limits=1):
+            return self._fit(X_train, y_train, X_cal, y_cal, feature_names=feature_names)
+
+    def _fit(self, X_train: ArrayLike, y_train: ArrayLike, X_cal: ArrayLike, y_cal: ArrayLike,
+             *, feature_names: Sequence[str]) -> Self:
         names = [str(n) for n in feature_names]
         Xt = _matrix("X_train", X_train, len(names))
         yt = _target("y_train", y_train, Xt.shape[0])
@@ -204,39 +216,47 @@ class StackedForecaster:
         self._cols = cols
 
         fit_idx, stack_idx = np.arange(cut), np.arange(cut, n)
-        # 1. Rounds by early stopping on the stack block (time-ordered validation).
-        base = QuantileForecaster(**self._quantile_params(1))._booster_params(0.5)
-        d_fit = lgb.Dataset(Xt[fit_idx][:, cols], yt[fit_idx], params=base, free_raw_data=False)
-        d_val = lgb.Dataset(Xt[stack_idx][:, cols], yt[stack_idx], reference=d_fit)
-        early = lgb.train(base, d_fit, num_boost_round=int(self.max_estimators), valid_sets=[d_val],
-                          callbacks=[lgb.early_stopping(int(self.early_stopping_rounds),
-                                                        verbose=False)])
-        self.n_estimators_ = max(10, int(early.best_iteration or self.max_estimators))
-        boosted_stack = early.predict(Xt[stack_idx][:, cols], num_iteration=self.n_estimators_)
-
-        # 2. Candidates and timing on the stack block, from the fit block only.
+        # 1. The timing component on the fit block; the boosted model learns
+        #    what it leaves (it corrects the smooth effect, not shrinks it).
         hours, wd, acc = self._clock(Xt)
         fill_fit = float(np.median(yt[fit_idx]))
         lin_all = self._linear(Xt, fill_fit)
         timing_fit = TimingEffect(random_state=int(self.random_state), n_bootstrap=0).fit(
             hours[fit_idx], wd[fit_idx], acc[fit_idx],
             yt[fit_idx] - lin_all["account_median"][fit_idx])
-        tau_stack = timing_fit.predict(hours[stack_idx], wd[stack_idx], acc[stack_idx])
+        tau = timing_fit.predict(hours, wd, acc)
+        tau_stack = tau[stack_idx]
+        # 2. Rounds by early stopping on the stack block (time-ordered validation).
+        base = QuantileForecaster(**self._quantile_params(1))._booster_params(0.5)
+        d_fit = lgb.Dataset(Xt[fit_idx][:, cols], yt[fit_idx] - tau[fit_idx], params=base,
+                            free_raw_data=False)
+        d_val = lgb.Dataset(Xt[stack_idx][:, cols], yt[stack_idx] - tau_stack, reference=d_fit)
+        early = lgb.train(base, d_fit, num_boost_round=int(self.max_estimators), valid_sets=[d_val],
+                          callbacks=[lgb.early_stopping(int(self.early_stopping_rounds),
+                                                        verbose=False)])
+        self.n_estimators_ = max(10, int(early.best_iteration or self.max_estimators))
+        boosted_stack = early.predict(Xt[stack_idx][:, cols],
+                                      num_iteration=self.n_estimators_) + tau_stack
+
+        # 3. Blend weights on the stack block, from the fit block only.
         cands = {"boosted": boosted_stack, **{k: v[stack_idx] for k, v in lin_all.items()}}
         Fm = np.column_stack([cands[c] for c in CANDIDATES])
-        w, g = simplex_weights(Fm, yt[stack_idx], tau_stack[:, None])
+        w, g = simplex_weights(Fm, yt[stack_idx], tau_stack[:, None] if self.blend_timing else None)
+        g = g if self.blend_timing else np.zeros(1)
         self.weights_ = {c: float(x) for c, x in zip(CANDIDATES, w, strict=True)}
         self.timing_weight_ = float(g[0])
         self.stack_scores_ = {c: float(np.mean(np.abs(yt[stack_idx] - cands[c])))
                               for c in CANDIDATES}
 
-        # 3. Refit on fit + stack for serving: boosted quantiles, timing.
-        self.boosted_ = QuantileForecaster(**self._quantile_params(self.n_estimators_)).fit(
-            Xt[:, cols], yt, Xc[:, cols], yc, feature_names=self.boosted_columns_)
+        # 4. Refit on fit + stack for serving: timing, then boosted quantiles.
         self.history_median_ = float(np.median(yt))
         lin_train = self._linear(Xt, self.history_median_)
         self.timing_ = TimingEffect(random_state=int(self.random_state)).fit(
             hours, wd, acc, yt - lin_train["account_median"])
+        tau_t = self.timing_.predict(hours, wd, acc)
+        tau_c = self.timing_.predict(*self._clock(Xc))
+        self.boosted_ = QuantileForecaster(**self._quantile_params(self.n_estimators_)).fit(
+            Xt[:, cols], yt - tau_t, Xc[:, cols], yc - tau_c, feature_names=self.boosted_columns_)
         self.feature_names_ = tuple(names)
         self.n_features_in_ = len(names)
         self.levels_ = self.boosted_.levels_
@@ -244,7 +264,7 @@ class StackedForecaster:
         # the explanation.
         self.means_ = {c: float(np.mean(v)) for c, v in lin_train.items()}
 
-        # 4. CQR on the calibration block, around the blend.
+        # 5. CQR on the calibration block, around the blend.
         med_c, lows, highs = self._raw(Xc)
         self.calibrators_ = tuple(
             CQRCalibrator(alpha=1.0 - c).fit(yc, lo, hi)
@@ -263,9 +283,10 @@ class StackedForecaster:
         """Each candidate's point forecast, and ``timing``, the timing effect."""
         self._check_fitted()
         Xp = _matrix("X", X, self.n_features_in_)
-        out = {"boosted": _booster_median(self.boosted_, Xp[:, self._cols]),
+        tau = self.timing_.predict(*self._clock(Xp))
+        out = {"boosted": _booster_median(self.boosted_, Xp[:, self._cols]) + tau,
                **self._linear(Xp, self.history_median_)}
-        out["timing"] = self.timing_.predict(*self._clock(Xp))
+        out["timing"] = tau
         return out
 
     def _blend(self, cands: dict[str, np.ndarray]) -> np.ndarray:
@@ -279,8 +300,10 @@ class StackedForecaster:
         lows, highs = [], []
         for lo_m, hi_m in zip(self.boosted_.lower_models_, self.boosted_.upper_models_,
                               strict=True):
-            lows.append(med + _predict(lo_m, Xb) - cands["boosted"])
-            highs.append(med + _predict(hi_m, Xb) - cands["boosted"])
+            # The boosted quantiles' offsets from their own median, around the blend.
+            raw_med = cands["boosted"] - cands["timing"]
+            lows.append(med + _predict(lo_m, Xb) - raw_med)
+            highs.append(med + _predict(hi_m, Xb) - raw_med)
         return med, lows, highs
 
     def level_for(self, coverage: float) -> int:
@@ -323,17 +346,18 @@ class StackedForecaster:
             expected = expected + wc * self.means_[cand]
         expected = expected + self.weights_["history_median"] * self.history_median_
         tau = self.timing_.predict(*self._clock(Xp))
-        out[:, self._index["hour_sin"]] += self.timing_weight_ * tau
+        out[:, self._index["hour_sin"]] += (self.timing_weight_ + wb) * tau
         out[:, -1] = expected
         return out
 
     def timing_part(self, X: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
-        """The timing component's part of the median, and its bootstrap
-        refits' effects (n_bootstrap, rows), before the blend weight."""
+        """The timing component's part of the median, and the same part from
+        each bootstrap refit (n_bootstrap, rows)."""
         self._check_fitted()
         Xp = _matrix("X", X, self.n_features_in_)
         clock = self._clock(Xp)
-        return self.timing_weight_ * self.timing_.predict(*clock), self.timing_.draws(*clock)
+        scale = self.timing_weight_ + self.weights_["boosted"]
+        return scale * self.timing_.predict(*clock), scale * self.timing_.draws(*clock)
 
     def summary(self) -> dict[str, Any]:
         """What was learnt, for the training report."""
@@ -427,3 +451,22 @@ def load_forecaster(directory: str | os.PathLike[str]) -> QuantileForecaster | S
     if kind == "StackedForecaster":
         return StackedForecaster.load(directory)
     return QuantileForecaster.load(directory)
+
+
+def best_hour_confidence(model: QuantileForecaster | StackedForecaster, *,
+                         local_hours: Sequence[float], weekdays: Sequence[int], account: int,
+                         medians: Sequence[float]) -> float | None:
+    """Share of the timing component's bootstrap refits in which the slot
+    with the highest served median (log) stays highest; None for a model
+    without a timing component (older versions)."""
+    if not isinstance(model, StackedForecaster) or len(medians) == 0:
+        return None
+    n = len(medians)
+    clock = (np.asarray(local_hours, dtype=float), np.asarray(weekdays, dtype=float),
+             np.full(n, float(account)))
+    scale = model.timing_weight_ + model.weights_["boosted"]
+    effect = scale * model.timing_.predict(*clock)
+    draws = model.timing_.draws(*clock)
+    if draws.shape[0] == 0:
+        return None
+    return round(best_hour_share(np.asarray(medians, dtype=float), effect, draws, scale=scale), 3)

@@ -27,6 +27,7 @@ import numpy as np
 
 from models.errors import InputError, LimitExceeded, SoundingError
 from models.metrics import METRIC_COLUMNS, target_value
+from models.stacking import best_hour_confidence
 
 from .timeparse import UTC, now_utc, zone
 
@@ -304,6 +305,9 @@ class HoursReport:
     summary: str
     top: int = 3
     warnings: list[str] = field(default_factory=list)
+    # issue 10: share of the timing component's bootstrap refits in which
+    # the best slot stays best (None: the model has no timing component).
+    best_stays_best: float | None = None
 
     @property
     def best(self) -> list[Slot]:
@@ -321,6 +325,7 @@ class HoursReport:
             "first_day": self.first_day.isoformat(), "last_day": self.last_day.isoformat(),
             "n_slots": len(self.slots), "told_apart": self.told_apart,
             "share_like_best": round(self.share_like_best, 3), "summary": self.summary,
+            "best_stays_best": self.best_stays_best,
             "rule": RULE, "best": [s.to_dict() for s in self.best],
             "slots": [s.to_dict() for s in self.slots], "warnings": self.warnings,
             "caution": CAUTION,
@@ -368,6 +373,11 @@ def best_hours(ws: Workspace, text: str, *, account: str, day: date | None = Non
         best_index=best, share_like_best=share, told_apart=share <= 0.5, summary="", top=top,
         warnings=list(slots[best].warnings),
     )
+    report.best_stays_best = best_hour_confidence(  # issue 10
+        ws.forecaster.model(metric).quantiles, local_hours=[s.local.hour + s.local.minute / 60
+                                                            for s in slots],
+        weekdays=[s.local.weekday() for s in slots],
+        account=ws.forecaster.view(metric).account_codes[account], medians=[s.log[1] for s in slots])
     report.summary = _hours_summary(report)
     return report
 

@@ -14,7 +14,7 @@ from scipy.optimize import nnls
 from sklearn.linear_model import Ridge
 
 from models import features as F
-from models.backtest import signal_note
+from models.backtest import signal_note, text_signal
 from models.blend import simplex_weights
 from models.errors import NotFittedError
 from models.stacking import ALL_FEATURES, StackedForecaster, extra_columns
@@ -239,11 +239,15 @@ def test_extra_columns_use_only_settled_posts() -> None:
 
 
 def test_signal_note_says_when_text_explains_little() -> None:
-    def rep(text_mae: float) -> dict:
-        return {"candidates": {"account_median": {"mae_log": 1.0},
-                               "text_ridge": {"mae_log": text_mae},
-                               "precedents_median": {"mae_log": 1.1}},
-                "weights": {"account_median": 0.7, "text_ridge": 0.3}}
-    note = signal_note(rep(0.99))
+    rng = np.random.default_rng(9)
+    acct = rng.normal(size=2000)
+    topic = rng.normal(size=2000)
+    y = acct + topic + rng.normal(size=2000)
+    weights = {"account_median": 0.7, "text_ridge": 0.3}
+    strong = text_signal(y, acct, {"text_ridge": acct + topic})
+    # Pearson's r of topic with topic + noise is 1/sqrt(2): r^2 = 0.5 (arithmetic).
+    assert strong["text_ridge"] == pytest.approx(0.5, abs=0.05)
+    assert signal_note({"text_signal": strong, "weights": weights}) is None
+    weak = text_signal(y, acct, {"text_ridge": acct + rng.normal(size=2000)})
+    note = signal_note({"text_signal": weak, "weights": weights})
     assert note is not None and "explains little" in note and "recent median" in note
-    assert signal_note(rep(0.8)) is None

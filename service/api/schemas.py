@@ -237,6 +237,9 @@ class HoursOut(BaseModel):
     n_slots: int
     told_apart: bool = Field(description="False when most hours cannot be told apart")
     share_like_best: float = Field(description="Share of the other slots about equal to the best")
+    best_stays_best: float | None = Field(
+        default=None, description="Share of bootstrap refits of the timing effect in which the "
+        "best slot stays best (null for models without a timing component)")
     summary: str
     rule: str
     best: list[SlotOut] = Field(description="Slots about equal to the best, highest median first")
