@@ -74,7 +74,8 @@ def run_backtest(
     level_hits: dict[float, list[np.ndarray]] = {}
     folds, weights = [], []
     for i, (tr, ca, te) in enumerate(rolling_origin_splits(times, n_folds=n_folds)):
-        model = StackedForecaster(**params).fit(X[tr], y[tr], X[ca], y[ca], feature_names=names)
+        model = StackedForecaster(**params).fit(X[tr], y[tr], X[ca], y[ca], feature_names=names,
+                                                cal_times=times[ca])
         lo, med, hi = model.predict(X[te], coverage=coverage_level)
         for level in model.levels_:
             l_lo, _, l_hi = model.predict(X[te], coverage=level)

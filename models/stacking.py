@@ -11,12 +11,19 @@ Rows arrive sorted by time and are cut into three blocks:
   embedding vectors, predicted out of sample in time order), and the simple
   forecasters: ``account_median`` (trailing median), ``precedents_median``
   (median of the 20 nearest earlier posts), ``history_median``.
-- A timing effect (``models.timing``), added with a non-negative weight.
+- A timing effect (``models.timing``): fitted first, inside ``boosted``
+  (the trees learn what it leaves). With ``blend_timing`` it is also offered
+  to the blend as an additive column with a non-negative weight (off by
+  default: on the demo it only added noise to the weights).
 - Blend weights: non-negative, summing to one, least squares on the stack
   block from models fitted on the fit block only (``models.blend``).
 - Bands: the boosted lower/upper quantiles re-centred on the blend, then
   CQR (Romano et al. 2019) on the calibration block, which nothing above
-  has seen, so the stated coverage holds for the blend.
+  has seen, so the stated coverage holds for the blend. The conformal
+  quantile weights the calibration scores by recency, with weights fixed in
+  advance (non-exchangeable conformal prediction, Barber, Candès, Ramdas &
+  Tibshirani 2023): with exchangeable rows the guarantee is unchanged, and
+  when reach drifts over time the latest scores count most.
 
 The timing component is fitted first and the boosted model learns the
 rest (it corrects the smooth curve rather than shrinking it); the
@@ -42,7 +49,7 @@ from threadpoolctl import threadpool_limits
 
 from . import features as F
 from .blend import simplex_weights
-from .calibration import CQRCalibrator
+from .calibration import cqr_scores
 from .errors import InputError, NotFittedError, NotFound, StoreError
 from .regressor import MAX_COVERAGE, MIN_COVERAGE, QuantileForecaster, _matrix, _target
 from .textmodel import RidgeText
@@ -123,7 +130,8 @@ class StackedForecaster:
         min_child_samples: int = 20,
         stack_fraction: float = 0.25,
         boosted_timing: bool = True,
-        blend_timing: bool = True,
+        blend_timing: bool = False,
+        recency_half_life: float | None = 0.2,
         random_state: int = 0,
         num_threads: int = 1,
     ) -> None:
@@ -136,6 +144,7 @@ class StackedForecaster:
         self.stack_fraction = stack_fraction
         self.boosted_timing = boosted_timing
         self.blend_timing = blend_timing
+        self.recency_half_life = recency_half_life
         self.random_state = random_state
         self.num_threads = num_threads
 
@@ -148,6 +157,8 @@ class StackedForecaster:
                 "stack_fraction": float(self.stack_fraction),
                 "boosted_timing": bool(self.boosted_timing),
                 "blend_timing": bool(self.blend_timing),
+                "recency_half_life": (None if self.recency_half_life is None
+                                      else float(self.recency_half_life)),
                 "random_state": int(self.random_state), "num_threads": int(self.num_threads)}
 
     def _quantile_params(self, n_estimators: int) -> dict[str, Any]:
@@ -180,13 +191,17 @@ class StackedForecaster:
     # -- fitting ---------------------------------------------------------
 
     def fit(self, X_train: ArrayLike, y_train: ArrayLike, X_cal: ArrayLike, y_cal: ArrayLike,
-            *, feature_names: Sequence[str]) -> Self:
+            *, feature_names: Sequence[str], cal_times: ArrayLike | None = None) -> Self:
+        """Rows of each block in time order; ``cal_times`` (the calibration
+        rows' times) lets rows posted together share one score weight."""
         # Small linear algebra only: one BLAS thread (shared cores; see textmodel).
         with threadpool_limits(limits=1):
-            return self._fit(X_train, y_train, X_cal, y_cal, feature_names=feature_names)
+            return self._fit(X_train, y_train, X_cal, y_cal, feature_names=feature_names,
+                             cal_times=None if cal_times is None
+                             else np.asarray(cal_times, dtype=float))
 
     def _fit(self, X_train: ArrayLike, y_train: ArrayLike, X_cal: ArrayLike, y_cal: ArrayLike,
-             *, feature_names: Sequence[str]) -> Self:
+             *, feature_names: Sequence[str], cal_times: np.ndarray | None) -> Self:
         names = [str(n) for n in feature_names]
         Xt = _matrix("X_train", X_train, len(names))
         yt = _target("y_train", y_train, Xt.shape[0])
@@ -266,16 +281,18 @@ class StackedForecaster:
 
         # 5. CQR on the calibration block, around the blend.
         med_c, lows, highs = self._raw(Xc)
-        self.calibrators_ = tuple(
-            CQRCalibrator(alpha=1.0 - c).fit(yc, lo, hi)
-            for c, lo, hi in zip(self.levels_, lows, highs, strict=True))
+        #    Scores stay in time order; their weights favour the latest rows.
+        self.cal_scores_ = tuple(cqr_scores(yc, lo, hi) for lo, hi in zip(lows, highs, strict=True))
+        self.cal_weights_ = recency_weights(cal_times if cal_times is not None
+                                            else np.arange(len(yc), dtype=float),
+                                            half_life=self.recency_half_life)
         self.n_train_, self.n_cal_ = int(n), int(Xc.shape[0])
         return self
 
     # -- prediction --------------------------------------------------------
 
     def _check_fitted(self) -> None:
-        if not hasattr(self, "calibrators_") and not hasattr(self, "weights_"):
+        if not hasattr(self, "boosted_"):
             raise NotFittedError("StackedForecaster is not fitted yet; call fit(...) or load(...)",
                                  where="StackedForecaster")
 
@@ -321,7 +338,9 @@ class StackedForecaster:
         i = self.level_for(coverage)
         Xp = _matrix("X", X, self.n_features_in_)
         med, lows, highs = self._raw(Xp)
-        lo, hi = self.calibrators_[i].transform(lows[i], highs[i], alpha=1.0 - float(coverage))
+        q = weighted_conformal_quantile(self.cal_scores_[i], self.cal_weights_,
+                                        alpha=1.0 - float(coverage))
+        lo, hi = lows[i] - q, highs[i] + q
         # Sorting only widens [lo, hi] to include the median (guarantee kept).
         ordered = np.sort(np.stack([lo, med, hi], axis=1), axis=1)
         return ordered[:, 0].copy(), ordered[:, 1].copy(), ordered[:, 2].copy()
@@ -385,7 +404,8 @@ class StackedForecaster:
             "timing_weight": self.timing_weight_, "stack_scores": self.stack_scores_,
             "history_median": self.history_median_, "means": self.means_,
             "timing": self.timing_.to_config(),
-            "scores": [[float(s) for s in c.scores_] for c in self.calibrators_],
+            "scores": [[float(x) for x in sc] for sc in self.cal_scores_],
+            "score_weights": [float(x) for x in self.cal_weights_],
             "n_train": self.n_train_, "n_cal": self.n_cal_,
         }
         tmp = root / (CONFIG_FILE + ".tmp")
@@ -421,8 +441,8 @@ class StackedForecaster:
             m.means_ = {k: float(v) for k, v in cfg["means"].items()}
             m.timing_ = TimingEffect.from_config(cfg["timing"])
             m.levels_ = m.boosted_.levels_
-            m.calibrators_ = tuple(CQRCalibrator.from_scores(s, alpha=1.0 - lv)
-                                   for s, lv in zip(cfg["scores"], m.levels_, strict=True))
+            m.cal_scores_ = tuple(np.asarray(sc, dtype=float) for sc in cfg["scores"])
+            m.cal_weights_ = np.asarray(cfg["score_weights"], dtype=float)
             m.n_train_, m.n_cal_ = int(cfg["n_train"]), int(cfg["n_cal"])
         except StoreError:
             raise
@@ -470,3 +490,36 @@ def best_hour_confidence(model: QuantileForecaster | StackedForecaster, *,
     if draws.shape[0] == 0:
         return None
     return round(best_hour_share(np.asarray(medians, dtype=float), effect, draws, scale=scale), 3)
+
+
+def recency_weights(times: ArrayLike, *, half_life: float | None) -> np.ndarray:
+    """Weights of calibration rows (oldest first): halving every
+    ``half_life`` of the block's rows back from the newest, by position;
+    rows posted at the same time share their mean position. All ones when
+    ``half_life`` is None (plain split conformal)."""
+    t = np.asarray(times, dtype=float)
+    n = len(t)
+    if half_life is None or n == 0:
+        return np.ones(n)
+    # Average position of each distinct time (ties share it).
+    _, inverse, counts = np.unique(t, return_inverse=True, return_counts=True)
+    starts = np.r_[0, np.cumsum(counts)[:-1]]
+    pos = (starts + (counts - 1) / 2.0)[inverse]
+    return np.asarray(0.5 ** ((n - 1 - pos) / (float(half_life) * n)), dtype=float)
+
+
+def weighted_conformal_quantile(scores: ArrayLike, weights: ArrayLike, *, alpha: float) -> float:
+    """The smallest score ``q`` with ``sum(w_i [s_i <= q]) / (sum(w) + w_test)
+    >= 1 - alpha``, the test point weighing as much as the newest row
+    (``max(w)``); infinite when no score reaches it. With equal weights this
+    is the ``ceil((n + 1)(1 - alpha))``-th smallest score of split conformal."""
+    s = np.asarray(scores, dtype=float)
+    w = np.asarray(weights, dtype=float)
+    if s.shape != w.shape or s.ndim != 1 or s.size == 0:
+        raise InputError("scores and weights must be 1-D of one non-zero length", field="scores")
+    if not 0.0 < float(alpha) < 1.0:
+        raise InputError(f"alpha must lie in (0, 1), got {alpha}", field="alpha")
+    order = np.argsort(s, kind="stable")
+    cum = np.cumsum(w[order]) / (w.sum() + w.max())
+    k = int(np.searchsorted(cum, 1.0 - float(alpha) - 1e-12, side="left"))
+    return float(s[order][k]) if k < s.size else math.inf

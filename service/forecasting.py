@@ -130,7 +130,7 @@ def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
     # The calibration block comes after the training block in time.
     cut = int(round(len(y) * (1 - cal_fraction)))
     model = StackedForecaster(**STACK_PARAMS).fit(
-        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES)
+        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:])
     report: dict[str, Any] = {
         "metric": metric,
         "trained_at": now_utc().isoformat(),
@@ -206,6 +206,7 @@ class Forecast:
     draft_id: str | None = None
     log: tuple[float, float, float] = (0.0, 0.0, 0.0)
     repeats: list[dict[str, Any]] = field(default_factory=list)  # service.review.Repeat dicts
+    note: str | None = None  # issue 10: the backtest's one-line reading of a weak text signal
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -215,7 +216,7 @@ class Forecast:
             "coverage": self.coverage, "backtested_coverage": self.backtested_coverage,
             "model_version": self.model_version, "precedents": self.precedents,
             "contributions": self.contributions, "warnings": self.warnings, "caution": CAUTION,
-            "repeats": self.repeats,
+            "repeats": self.repeats, "note": self.note,
         }
 
 
@@ -316,6 +317,7 @@ class Forecaster:
                 draft_id=d.draft_id, log=(float(lo[i]), float(med[i]), float(hi[i])),
                 # Near-repeats of recent posts (own account and teammates), in every forecast.
                 warnings=[r.message for r in repeats[i]], repeats=[r.to_dict() for r in repeats[i]],
+                note=model.report.get("note"),
             ))
         return out
 

@@ -17,7 +17,13 @@ from models import features as F
 from models.backtest import signal_note, text_signal
 from models.blend import simplex_weights
 from models.errors import NotFittedError
-from models.stacking import ALL_FEATURES, StackedForecaster, extra_columns
+from models.stacking import (
+    ALL_FEATURES,
+    StackedForecaster,
+    extra_columns,
+    recency_weights,
+    weighted_conformal_quantile,
+)
 from models.textmodel import RidgeText, chunk_starts, ridge_fit, time_ordered_predictions
 from models.timing import TimingEffect, best_hour_share, hour_from_cyclic
 
@@ -251,3 +257,22 @@ def test_signal_note_says_when_text_explains_little() -> None:
     weak = text_signal(y, acct, {"text_ridge": acct + rng.normal(size=2000)})
     note = signal_note({"text_signal": weak, "weights": weights})
     assert note is not None and "explains little" in note and "recent median" in note
+
+
+def test_weighted_conformal_quantile_with_equal_weights_is_split_conformal() -> None:
+    # Split conformal (Lei et al. 2018): the ceil((n + 1)(1 - alpha))-th
+    # smallest score, infinite when that rank exceeds n.
+    rng = np.random.default_rng(10)
+    for n, alpha in ((50, 0.2), (99, 0.1), (7, 0.05), (200, 0.5)):
+        s = rng.exponential(size=n)
+        k = int(np.ceil((n + 1) * (1 - alpha)))
+        want = np.sort(s)[k - 1] if k <= n else np.inf
+        assert weighted_conformal_quantile(s, np.ones(n), alpha=alpha) == want
+
+
+def test_recency_weights_halve_and_ties_share() -> None:
+    w = recency_weights(np.arange(10.0), half_life=0.5)  # halves every 5 rows
+    assert w[-1] == 1.0 and w[4] == pytest.approx(0.5) and np.all(np.diff(w) > 0)
+    tied = recency_weights(np.array([1.0, 1.0, 2.0, 3.0, 3.0, 3.0]), half_life=0.3)
+    assert tied[0] == tied[1] and tied[3] == tied[4] == tied[5]
+    np.testing.assert_array_equal(recency_weights(np.arange(5.0), half_life=None), np.ones(5))

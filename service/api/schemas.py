@@ -189,6 +189,9 @@ class ForecastOut(BaseModel):
     caution: str
     repeats: list[RepeatOut] = Field(
         default_factory=list, description="Near-repeats behind the warnings, most similar first")
+    note: str | None = Field(
+        default=None, description="One plain line from the backtest when the history's text "
+        "carries little signal (what the forecast leans on instead)")
 
 
 class ForecastList(BaseModel):
