@@ -38,12 +38,12 @@ import numpy as np
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from models.embedding import Embedder  # noqa: E402
-from models.evaluation import coverage, mae, spearman  # noqa: E402
-from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster  # noqa: E402
-from service import forecasting as FC  # noqa: E402
-from service.settings import Settings  # noqa: E402
-from service.workspace import Workspace  # noqa: E402
+from models.embedding import Embedder
+from models.evaluation import coverage, mae, spearman
+from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
+from service import forecasting as FC
+from service.settings import Settings
+from service.workspace import Workspace
 
 SOURCE = Path("/work/.library/env/packages/pypi.tsv")
 ACCOUNT = "packages"
@@ -115,7 +115,7 @@ def main() -> None:
     }
     cands = model.candidates(Xte)
     result = {
-        "rows": int(len(y)), "train": int(cut), "held_out": int(len(yte)),
+        "rows": len(y), "train": int(cut), "held_out": len(yte),
         "held_out_share": round(len(yte) / len(y), 3),
         "seconds_features_and_training": round(time.perf_counter() - t1, 1),
         "sounding": {"mae_log": mae(yte, med), "spearman": spearman(yte, med),

@@ -45,7 +45,7 @@ from typing import Any, Self
 import lightgbm as lgb
 import numpy as np
 from numpy.typing import ArrayLike
-from threadpoolctl import threadpool_limits
+from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
 
 from . import features as F
 from .blend import simplex_weights
@@ -280,7 +280,7 @@ class StackedForecaster:
         self.means_ = {c: float(np.mean(v)) for c, v in lin_train.items()}
 
         # 5. CQR on the calibration block, around the blend.
-        med_c, lows, highs = self._raw(Xc)
+        _, lows, highs = self._raw(Xc)
         #    Scores stay in time order; their weights favour the latest rows.
         self.cal_scores_ = tuple(cqr_scores(yc, lo, hi) for lo, hi in zip(lows, highs, strict=True))
         self.cal_weights_ = recency_weights(cal_times if cal_times is not None

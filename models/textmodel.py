@@ -34,7 +34,7 @@ from typing import Any, Self
 
 import numpy as np
 from numpy.typing import ArrayLike
-from threadpoolctl import threadpool_limits
+from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
 
 from .errors import InputError, NotFittedError, NotFound, StoreError
 
@@ -69,7 +69,8 @@ class _Stats:
         self.ysum += float(y.sum())
         self.n += len(y)
 
-    def solve(self, alphas: Sequence[float]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def solve(self, alphas: Sequence[float] | np.ndarray
+              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(mean_x, mean_y, coefs)`` with ``coefs`` of shape (d, len(alphas))."""
         mx = self.xsum / self.n
         my = self.ysum / self.n
@@ -121,7 +122,7 @@ def time_ordered_predictions(
     times: ArrayLike,
     *,
     maturity_s: float,
-    alphas: Sequence[float] = ALPHAS,
+    alphas: Sequence[float] | np.ndarray = ALPHAS,
     n_chunks: int = 40,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Out-of-sample ridge predictions for every row, in time order.
@@ -144,7 +145,7 @@ def time_ordered_predictions(
 
 
 def _time_ordered(vectors: ArrayLike, y: ArrayLike, times: ArrayLike, *, maturity_s: float,
-                  alphas: Sequence[float], n_chunks: int
+                  alphas: Sequence[float] | np.ndarray, n_chunks: int
                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     V, t = _check(vectors, y)
     assert t is not None

@@ -24,7 +24,12 @@ from models.stacking import (
     recency_weights,
     weighted_conformal_quantile,
 )
-from models.textmodel import RidgeText, chunk_starts, ridge_fit, time_ordered_predictions
+from models.textmodel import (
+    RidgeText,
+    chunk_starts,
+    ridge_fit,
+    time_ordered_predictions,
+)
 from models.timing import TimingEffect, best_hour_share, hour_from_cyclic
 
 DAY = 86400.0

@@ -5,7 +5,7 @@ curve at its full size (demo_data/effects.json, the generator's truth)."""
 from __future__ import annotations
 
 import json
-from datetime import date, datetime, timezone
+from datetime import UTC, date, datetime
 from pathlib import Path
 
 import numpy as np
@@ -17,7 +17,7 @@ from service.review import best_hours, day_slots
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
-NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
+NOW = datetime(2026, 12, 1, 12, 0, tzinfo=UTC)
 DRAFT = "Volunteers are planting bulbs along the Long Border this week. Come and say hello."
 # A day without a daylight-saving change in either zone: 24 whole hours.
 DAY = date(2026, 12, 3)
