@@ -219,17 +219,6 @@ class StackedForecaster:
             raise InputError(f"{n} training rows are too few to fit and stack (need about "
                              f"{math.ceil(max(need / (1 - self.stack_fraction), 20 / self.stack_fraction))})",
                              field="X_train")
-        # Boosted model's columns: no account code, no exact duplicates, and
-        # the timing columns only when asked (the timing component has them).
-        skip = {"account_code"} | (set() if self.boosted_timing else set(F.TIMING_FEATURES))
-        cols = [i for i, nm in enumerate(names) if nm not in skip]
-        dup = _duplicates(Xt[:, cols])
-        self.dropped_ = tuple(names[cols[j]] for j in sorted(dup)) + tuple(
-            nm for nm in names if nm in skip)
-        cols = [c for j, c in enumerate(cols) if j not in dup]
-        self.boosted_columns_ = tuple(names[c] for c in cols)
-        self._cols = cols
-
         fit_idx, stack_idx = np.arange(cut), np.arange(cut, n)
         # 1. The timing component on the fit block; the boosted model learns
         #    what it leaves (it corrects the smooth effect, not shrinks it).
@@ -241,6 +230,23 @@ class StackedForecaster:
             yt[fit_idx] - lin_all["account_median"][fit_idx])
         tau = timing_fit.predict(hours, wd, acc)
         tau_stack = tau[stack_idx]
+        # When the time-ordered choice of penalty says time carries nothing
+        # (the largest penalty wins), the trees do not get the timing columns
+        # either: they would only fit noise there.
+        self.time_carries_nothing_ = bool(timing_fit.alpha_ >= max(timing_fit.alphas))
+
+        # Boosted model's columns: no account code, no exact duplicates, and
+        # the timing columns unless switched off or found empty above.
+        skip = {"account_code"}
+        if not self.boosted_timing or self.time_carries_nothing_:
+            skip |= set(F.TIMING_FEATURES)
+        cols = [i for i, nm in enumerate(names) if nm not in skip]
+        dup = _duplicates(Xt[:, cols])
+        self.dropped_ = tuple(names[cols[j]] for j in sorted(dup)) + tuple(
+            nm for nm in names if nm in skip)
+        cols = [c for j, c in enumerate(cols) if j not in dup]
+        self.boosted_columns_ = tuple(names[c] for c in cols)
+        self._cols = cols
         # 2. Rounds by early stopping on the stack block (time-ordered validation).
         base = QuantileForecaster(**self._quantile_params(1))._booster_params(0.5)
         d_fit = lgb.Dataset(Xt[fit_idx][:, cols], yt[fit_idx] - tau[fit_idx], params=base,
@@ -387,6 +393,7 @@ class StackedForecaster:
                 "boosted_rounds": self.n_estimators_,
                 "boosted_columns": list(self.boosted_columns_),
                 "left_out_of_boosted": list(self.dropped_),
+                "time_carries_nothing": getattr(self, "time_carries_nothing_", None),
                 "stack_block_mae_log": {c: round(v, 4) for c, v in self.stack_scores_.items()}}
 
     # -- persistence -------------------------------------------------------

@@ -35,9 +35,20 @@ def hour_from_cyclic(sin: ArrayLike, cos: ArrayLike) -> np.ndarray:
     return np.mod(angle * 24.0 / (2 * np.pi), 24.0)
 
 
+#: Per-account deviations from the shared curve are scaled down, so the
+#: ridge penalises them 1 / ACCOUNT_SCALE**2 (4x) as hard: accounts share one
+#: curve unless their own posts say otherwise.
+ACCOUNT_SCALE = 0.5
+
+
 def _harmonics(hours: np.ndarray) -> np.ndarray:
+    # Harmonic k is scaled by 1/k, so the ridge penalty on its coefficient
+    # grows as k^2: a smoothness prior. Without it the penalty chosen in time
+    # order flattened the demo's curve (Spearman 0.86-0.90 against the truth,
+    # 0.95-0.98 with it; our measurement on the demo, no source).
     a = 2 * np.pi * hours / 24.0
-    return np.column_stack([f(k * a) for k in range(1, HARMONICS + 1) for f in (np.sin, np.cos)])
+    return np.column_stack([f(k * a) / k for k in range(1, HARMONICS + 1)
+                            for f in (np.sin, np.cos)])
 
 
 class TimingEffect:
@@ -63,7 +74,7 @@ class TimingEffect:
         parts = [H, (wd[:, None] == np.arange(7)[None, :]).astype(float)]
         if len(accs) > 1:
             for a in accs:
-                parts.append(H * (ac == a)[:, None])
+                parts.append(ACCOUNT_SCALE * H * (ac == a)[:, None])
         return np.hstack(parts)
 
     def fit(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike,
