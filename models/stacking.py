@@ -131,7 +131,7 @@ class StackedForecaster:
         stack_fraction: float = 0.25,
         boosted_timing: bool = True,
         blend_timing: bool = False,
-        recency_half_life: float | None = 0.2,
+        recency_half_life: float | None = 0.25,
         random_state: int = 0,
         num_threads: int = 1,
     ) -> None:
