@@ -1,8 +1,9 @@
 """Forecasts of a draft's metric: the path from store to response.
 
     store -> History (arrays) -> features (models.features) ->
-    QuantileForecaster + CQR (models.regressor) -> interval, precedents and
-    grouped TreeSHAP contributions (models.explain)
+    StackedForecaster: candidates blended in time order + CQR on the blend
+    (models.stacking) -> interval, precedents and grouped contributions
+    (models.explain)
 
 Training and forecasting call the same ``models.features.assemble``, so a
 draft is described exactly as the training posts were.
