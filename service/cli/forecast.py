@@ -61,9 +61,10 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
     if weights:  # issue 10: the combination and its weights
         parts = ", ".join(f"{labels.get(k, k)} {v:.2f}" for k, v in weights.items()
                           if k != "timing")
-        out.print(f"combination (mean weights over folds, non-negative, summing to 1): {parts}; "
-                  f"timing effect added with weight {weights.get('timing', 0.0):.2f}",
-                  highlight=False)
+        extra = (f"; timing effect added with weight {weights['timing']:.2f}"
+                 if weights.get("timing") else "; the timing effect is inside the boosted part")
+        out.print(f"combination (mean weights over folds, non-negative, summing to 1): "
+                  f"{parts}{extra}", highlight=False)
     levels = ", ".join(f"{k}: {v:.1%}" for k, v in bt.get("coverage_by_level", {}).items())
     out.print(f"backtested coverage by level: {levels}")
     if bt.get("note"):
