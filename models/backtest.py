@@ -50,6 +50,21 @@ def _scores(y: np.ndarray, med: np.ndarray, lo: np.ndarray | None = None,
     return out
 
 
+def _splits(times: np.ndarray, n_folds: int
+            ) -> tuple[list[tuple[np.ndarray, np.ndarray, np.ndarray]], int]:
+    """Rolling-origin splits with as many of the asked folds as the history
+    allows: posts sharing one time (a month's worth of posts dated to the
+    month, say) cannot be cut apart, and may leave a later fold empty."""
+    error: InputError | None = None
+    for k in range(int(n_folds), 0, -1):
+        try:
+            return list(rolling_origin_splits(times, n_folds=k)), k
+        except InputError as exc:
+            error = error or exc
+    assert error is not None
+    raise error
+
+
 def run_backtest(
     X: np.ndarray,
     y: np.ndarray,
@@ -63,6 +78,7 @@ def run_backtest(
 ) -> dict[str, Any]:
     """Evaluate the served forecaster, its candidates and the simple
     forecasters fold by fold on the same test blocks; pooled scores too."""
+    asked = int(n_folds)
     names = list(feature_names)
     if X.shape[1] != len(names):
         raise InputError("feature_names do not match X")
@@ -73,7 +89,8 @@ def run_backtest(
     pooled: dict[str, list[np.ndarray]] = {k: [] for k in keys}
     level_hits: dict[float, list[np.ndarray]] = {}
     folds, weights = [], []
-    for i, (tr, ca, te) in enumerate(rolling_origin_splits(times, n_folds=n_folds)):
+    splits, n_folds = _splits(times, n_folds)
+    for i, (tr, ca, te) in enumerate(splits):
         model = StackedForecaster(**params).fit(X[tr], y[tr], X[ca], y[ca], feature_names=names,
                                                 cal_times=times[ca])
         lo, med, hi = model.predict(X[te], coverage=coverage_level)
@@ -118,6 +135,7 @@ def run_backtest(
     report = {
         "coverage_nominal": coverage_level,
         "n_folds": n_folds,
+        "n_folds_asked": asked,
         "n_test": int(len(p["y"])),
         "model": _scores(p["y"], p["med"], p["lo"], p["hi"]),
         "baselines": baselines,

@@ -14,9 +14,10 @@ from scipy.optimize import nnls
 from sklearn.linear_model import Ridge
 
 from models import features as F
-from models.backtest import signal_note, text_signal
+from models.backtest import _splits, signal_note, text_signal
 from models.blend import simplex_weights
-from models.errors import NotFittedError
+from models.errors import InputError, NotFittedError
+from models.evaluation import rolling_origin_splits
 from models.stacking import (
     ALL_FEATURES,
     StackedForecaster,
@@ -281,3 +282,15 @@ def test_recency_weights_halve_and_ties_share() -> None:
     tied = recency_weights(np.array([1.0, 1.0, 2.0, 3.0, 3.0, 3.0]), half_life=0.3)
     assert tied[0] == tied[1] and tied[3] == tied[4] == tied[5]
     np.testing.assert_array_equal(recency_weights(np.arange(5.0), half_life=None), np.ones(5))
+
+
+def test_backtest_uses_fewer_folds_when_tied_times_forbid_more() -> None:
+    # A quarter of the posts share the last time (a month's posts dated to
+    # the month): four folds cannot be cut, fewer can.
+    times = np.r_[np.arange(300.0), np.full(100, 300.0)]
+    with pytest.raises(InputError):
+        list(rolling_origin_splits(times, n_folds=4))
+    splits, k = _splits(times, 4)
+    assert 1 <= k < 4 and len(splits) == k
+    for tr, ca, te in splits:
+        assert times[tr].max() < times[ca].min() and times[ca].max() < times[te].min()
