@@ -91,8 +91,9 @@ def run_backtest(
     folds, weights = [], []
     splits, n_folds = _splits(times, n_folds)
     for i, (tr, ca, te) in enumerate(splits):
-        model = StackedForecaster(**params).fit(X[tr], y[tr], X[ca], y[ca], feature_names=names,
-                                                cal_times=times[ca])
+        # Bootstrap refits of the timing effect only serve the hours answer.
+        model = StackedForecaster(**{**params, "timing_bootstrap": 0}).fit(
+            X[tr], y[tr], X[ca], y[ca], feature_names=names, cal_times=times[ca])
         lo, med, hi = model.predict(X[te], coverage=coverage_level)
         for level in model.levels_:
             l_lo, _, l_hi = model.predict(X[te], coverage=level)

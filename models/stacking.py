@@ -132,6 +132,7 @@ class StackedForecaster:
         boosted_timing: bool = True,
         blend_timing: bool = False,
         recency_half_life: float | None = 0.25,
+        timing_bootstrap: int = 100,
         random_state: int = 0,
         num_threads: int = 1,
     ) -> None:
@@ -145,6 +146,7 @@ class StackedForecaster:
         self.boosted_timing = boosted_timing
         self.blend_timing = blend_timing
         self.recency_half_life = recency_half_life
+        self.timing_bootstrap = timing_bootstrap
         self.random_state = random_state
         self.num_threads = num_threads
 
@@ -159,6 +161,7 @@ class StackedForecaster:
                 "blend_timing": bool(self.blend_timing),
                 "recency_half_life": (None if self.recency_half_life is None
                                       else float(self.recency_half_life)),
+                "timing_bootstrap": int(self.timing_bootstrap),
                 "random_state": int(self.random_state), "num_threads": int(self.num_threads)}
 
     def _quantile_params(self, n_estimators: int) -> dict[str, Any]:
@@ -272,7 +275,8 @@ class StackedForecaster:
         # 4. Refit on fit + stack for serving: timing, then boosted quantiles.
         self.history_median_ = float(np.median(yt))
         lin_train = self._linear(Xt, self.history_median_)
-        self.timing_ = TimingEffect(random_state=int(self.random_state)).fit(
+        self.timing_ = TimingEffect(random_state=int(self.random_state),
+                                    n_bootstrap=int(self.timing_bootstrap)).fit(
             hours, wd, acc, yt - lin_train["account_median"])
         tau_t = self.timing_.predict(hours, wd, acc)
         tau_c = self.timing_.predict(*self._clock(Xc))
