@@ -3,7 +3,9 @@
     <models_dir>/<metric>/<version>/
         config.json      metric, feature settings, training facts (written last)
         report.json      the training report with its backtest
-        quantiles/       the QuantileForecaster (its own config.json + boosters)
+        quantiles/       the forecaster: a StackedForecaster (older versions: a
+                         QuantileForecaster), its own config.json + boosters
+        text/            the ridge text model on embedding vectors (if any)
 
 A version is written into a hidden temporary directory and renamed into
 place in one step, so a reader either sees a whole model or none: the
@@ -28,9 +30,13 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from .errors import NotFound, NotReady, StoreError
 from .features import FeatureParams
 from .regressor import QuantileForecaster
+from .stacking import StackedForecaster, draft_columns, load_forecaster
+from .textmodel import RidgeText
 
 CONFIG = "config.json"
 REPORT = "report.json"
@@ -51,8 +57,17 @@ class TrainedModel:
     metric: str
     version: str
     features: FeatureParams
-    quantiles: QuantileForecaster
+    quantiles: QuantileForecaster | StackedForecaster
     report: dict[str, Any] = field(default_factory=dict)
+    text: RidgeText | None = None
+
+    def rows(self, X: np.ndarray, vectors: np.ndarray, accounts: list[int]) -> np.ndarray:
+        """Draft rows as the forecaster reads them: the features of
+        ``models.features.assemble`` plus, for a stacked forecaster, the text
+        model's prediction and the account code (``stacking.draft_columns``)."""
+        if X.shape[1] >= self.quantiles.n_features_in_:
+            return X
+        return np.hstack([X, draft_columns(self.text, vectors, accounts)])
 
     @property
     def backtested_coverage(self) -> dict[str, float]:
@@ -75,6 +90,8 @@ class TrainedModel:
             if tmp.exists():
                 shutil.rmtree(tmp)
             self.quantiles.save(tmp / "quantiles")
+            if self.text is not None:
+                self.text.save(tmp / "text")
             (tmp / REPORT).write_text(json.dumps(self.report, indent=2, default=str))
             cfg = {"format": FORMAT, "metric": self.metric, "version": self.version,
                    "features": asdict(self.features), "files": _checksums(tmp)}
@@ -106,7 +123,8 @@ class TrainedModel:
             raise DamagedModel(f"model version {d.name} is unreadable: {exc}") from None
         return cls(
             metric=cfg["metric"], version=cfg["version"], features=features,
-            quantiles=QuantileForecaster.load(d / "quantiles"), report=report,
+            quantiles=load_forecaster(d / "quantiles"), report=report,
+            text=RidgeText.load(d / "text") if (d / "text").is_dir() else None,
         )
 
 

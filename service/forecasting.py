@@ -1,9 +1,9 @@
 """Forecasts of a draft's metric: the path from store to response.
 
     store -> history view (service.history) -> neighbours (service.retrieval)
-    -> features (models.features) -> QuantileForecaster + CQR
-    (models.regressor) -> interval, precedents, near-repeats
-    (service.repeats) and grouped TreeSHAP contributions (models.explain)
+    -> features (models.features) -> StackedForecaster: candidates blended in
+    time order + CQR on the blend (models.stacking) -> interval, precedents,
+    near-repeats (service.repeats) and grouped contributions (models.explain)
 
 Training and forecasting take neighbours by the same rule and call the same
 ``models.features.assemble``, so a draft is described exactly as the
@@ -32,7 +32,7 @@ from models.metrics import (
     check_target,
     from_log,
 )
-from models.regressor import QuantileForecaster
+from models.stacking import ALL_FEATURES, ALL_GROUPS, STACK_PARAMS, StackedForecaster, extra_columns
 
 from .datadir import DataDir
 from .history import HistoryView, build_view, feature_params, local_clock
@@ -62,10 +62,6 @@ def training_set(view: HistoryView, params: F.FeatureParams, now: datetime
     return X[keep], view.history.log_target[keep], view.history.time[keep]
 
 
-# One thread: LightGBM's OpenMP threads slow down badly when other work
-# shares the cores (a service answering requests), and the trees are the same.
-QUANTILE_PARAMS: dict[str, Any] = {"n_estimators": 200, "learning_rate": 0.06, "num_leaves": 15,
-                                   "min_child_samples": 20, "num_threads": 1}
 MIN_TRAINING_POSTS = 200
 
 
@@ -89,12 +85,14 @@ def _train(ws: Any, metric: str, *, now: datetime | None, backtest: bool,
             f"{len(y)} mature posts with {metric}; training needs at least {MIN_TRAINING_POSTS}",
             hint="import more history",
         )
+    # issue 10: the text model's time-ordered column and the account code.
+    X, text = _with_extra(view, params, now, X)
     order = np.argsort(times, kind="stable")
     X, y, times = X[order], y[order], times[order]
     # The calibration block comes after the training block in time.
     cut = int(round(len(y) * (1 - cal_fraction)))
-    model = QuantileForecaster(**QUANTILE_PARAMS).fit(
-        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=F.FEATURE_NAMES)
+    model = StackedForecaster(**STACK_PARAMS).fit(
+        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:])
     report: dict[str, Any] = {
         "metric": metric,
         "trained_at": now_utc().isoformat(),
@@ -109,15 +107,18 @@ def _train(ws: Any, metric: str, *, now: datetime | None, backtest: bool,
                      "baseline_posts": params.baseline_n},
         # Which vectors the features came from (int8 ONNX vectors differ from fp32 ones).
         "embedding": {k: v for k, v in ws.embedder.info().items() if k != "loaded"},
+        "combination": model.summary(),
+        "text_model": None if text is None else {"penalty": text.alpha_},
     }
     if backtest:
-        report["backtest"] = run_backtest(X, y, times, feature_names=F.FEATURE_NAMES,
-                                          params=QUANTILE_PARAMS)
+        report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES,
+                                          params=STACK_PARAMS)
+        report["note"] = report["backtest"]["note"]
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
     stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique (issue 11)
     version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
     trained = TrainedModel(metric=metric, version=version, features=params,
-                           quantiles=model, report=report)
+                           quantiles=model, report=report, text=text)
     trained.save(ws.settings.models_dir)
     return trained
 
@@ -127,11 +128,21 @@ def backtest(ws: DataDir, metric: str = DEFAULT_METRIC, *, coverage: float = DEF
     check_target(metric)
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)
-    X, y, times = training_set(view, params, now or now_utc())
+    now = now or now_utc()
+    X, y, times = training_set(view, params, now)
     if len(y) < MIN_TRAINING_POSTS:
         raise NotReady(f"{len(y)} mature posts with {metric}; a backtest needs {MIN_TRAINING_POSTS}")
-    return run_backtest(X, y, times, feature_names=F.FEATURE_NAMES, coverage_level=coverage,
-                        n_folds=n_folds, params=QUANTILE_PARAMS)
+    X, _ = _with_extra(view, params, now, X)
+    return run_backtest(X, y, times, feature_names=ALL_FEATURES, coverage_level=coverage,
+                        n_folds=n_folds, params=STACK_PARAMS)
+
+
+def _with_extra(view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray
+                ) -> tuple[np.ndarray, Any]:
+    """issue 10: ``X`` (rows of ``training_set``) with models.stacking's extra columns."""
+    extra, text = extra_columns(view.history, maturity_s=params.maturity_s, now=now.timestamp())
+    keep = F.eligible(view.history, now.timestamp(), params)
+    return np.hstack([X, extra[keep]]), text
 
 
 @dataclass(slots=True)
@@ -164,6 +175,7 @@ class Forecast:
     # Track record (issue 11): set by service.track_record.give.
     calibration: dict[str, Any] = field(default_factory=dict)
     live_coverage: dict[str, Any] | None = None
+    note: str | None = None  # issue 10: the backtest's one-line reading of a weak text signal
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -173,7 +185,7 @@ class Forecast:
             "coverage": self.coverage, "backtested_coverage": self.backtested_coverage,
             "model_version": self.model_version, "precedents": self.precedents,
             "contributions": self.contributions, "warnings": self.warnings, "caution": CAUTION,
-            "repeats": self.repeats,
+            "repeats": self.repeats, "note": self.note,
             "calibration": self.calibration or None, "live_coverage": self.live_coverage,
         }
 
@@ -248,8 +260,9 @@ class Forecaster:
             rows.append(self.features(view, model.features, d, vec, now, wide))
             plans.append(d.planned_at or now)
         details = self.store.posts_by_pk(sorted({int(view.history.pk[r]) for row in rows
-                                                for r, _ in row[3]}))
-        X = np.vstack([r[0] for r in rows])
+                                                    for r, _ in row[3]}))
+        X = model.rows(np.vstack([r[0] for r in rows]), vecs,
+                       [view.account_codes[d.account] for d in drafts])  # issue 10: extra columns
         lo, med, hi = model.quantiles.predict(X, coverage=coverage)
         contribs = model.quantiles.contributions(X)
         repeats = near_repeats_many(self.retrieval, self.settings, view, [
@@ -259,7 +272,7 @@ class Forecaster:
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = rows[i]
             expected, groups = group_contributions(contribs[i], model.quantiles.feature_names_,
-                                                   F.FEATURE_GROUPS)
+                                                   ALL_GROUPS)
             local = plans[i].astimezone(zone(tz))
             out.append(Forecast(
                 metric=metric, account=d.account, planned_at=plans[i],
@@ -281,6 +294,7 @@ class Forecaster:
                 draft_id=d.draft_id, log=(float(lo[i]), float(med[i]), float(hi[i])),
                 # Near-repeats of recent posts (own account and teammates), in every forecast.
                 warnings=[r.message for r in repeats[i]], repeats=[r.to_dict() for r in repeats[i]],
+                note=model.report.get("note"),
             ))
         return out
 

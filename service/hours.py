@@ -13,6 +13,7 @@ import numpy as np
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
+from models.stacking import best_hour_confidence
 
 from .forecasting import CAUTION, Draft, Forecaster
 from .overlap import RULE, like_best, ranks
@@ -112,6 +113,9 @@ class HoursReport:
     summary: str
     top: int = 3
     warnings: list[str] = field(default_factory=list)
+    # Share of the timing component's bootstrap refits in which the best slot
+    # stays best (None: the model has no timing component).
+    best_stays_best: float | None = None
 
     @property
     def best(self) -> list[Slot]:
@@ -134,6 +138,7 @@ class HoursReport:
             "told_apart": self.told_apart,
             "share_like_best": round(self.share_like_best, 3),
             "summary": self.summary,
+            "best_stays_best": self.best_stays_best,
             "rule": RULE,
             "best": [s.to_dict() for s in self.best],
             "slots": [s.to_dict() for s in self.slots],
@@ -215,6 +220,13 @@ def best_hours(
         summary="",
         top=top,
         warnings=list(slots[best].warnings),
+    )
+    report.best_stays_best = best_hour_confidence(
+        forecaster.model(metric).quantiles,
+        local_hours=[s.local.hour + s.local.minute / 60 for s in slots],
+        weekdays=[s.local.weekday() for s in slots],
+        account=forecaster.view(metric).account_codes[account],
+        medians=[s.log[1] for s in slots],
     )
     report.summary = _hours_summary(report)
     return report

@@ -310,6 +310,9 @@ class ForecastOut(BaseModel):
         default_factory=list, description="Near-repeats behind the warnings, most similar first")
     calibration: CalibrationOut | None = None
     live_coverage: LiveCoverageOut | None = None
+    note: str | None = Field(
+        default=None, description="One plain line from the backtest when the history's text "
+        "carries little signal (what the forecast leans on instead)")
 
 
 class ForecastList(BaseModel):
@@ -359,6 +362,9 @@ class HoursOut(BaseModel):
     n_slots: int
     told_apart: bool = Field(description="False when most hours cannot be told apart")
     share_like_best: float = Field(description="Share of the other slots about equal to the best")
+    best_stays_best: float | None = Field(
+        default=None, description="Share of bootstrap refits of the timing effect in which the "
+        "best slot stays best (null for models without a timing component)")
     summary: str
     rule: str
     best: list[SlotOut] = Field(description="Slots about equal to the best, highest median first")

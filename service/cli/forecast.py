@@ -63,14 +63,29 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
                   "-" if s["coverage"] is None else f"{s['coverage']:.1%}",
                   "-" if s["mean_width_log"] is None else f"{s['mean_width_log']:.2f}")
 
-    row("sounding model", bt["model"])
+    row("sounding (the combination)", bt["model"])
     labels = {"account_median": "account trailing median", "precedents_median":
-              "precedents' median", "timing_only": "timing only"}
+              "precedents' median", "history_median": "history-wide median",
+              "timing_only": "timing only", "boosted": "boosted trees + timing",
+              "text_ridge": "text model (ridge)"}
+    weights = bt.get("weights") or {}
     for k, s in bt["baselines"].items():
-        row(labels.get(k, k), s)
+        row(labels.get(k, k) + (f" (weight {weights[k]:.2f})" if k in weights else ""), s)
+    for k, s in (bt.get("candidates") or {}).items():
+        if k not in bt["baselines"]:
+            row(labels.get(k, k) + (f" (weight {weights[k]:.2f})" if k in weights else ""), s)
     out.print(t)
+    if weights:  # issue 10: the combination and its weights
+        parts = ", ".join(f"{labels.get(k, k)} {v:.2f}" for k, v in weights.items()
+                          if k != "timing")
+        extra = (f"; timing effect added with weight {weights['timing']:.2f}"
+                 if weights.get("timing") else "; the timing effect is inside the boosted part")
+        out.print(f"combination (mean weights over folds, non-negative, summing to 1): "
+                  f"{parts}{extra}", highlight=False)
     levels = ", ".join(f"{k}: {v:.1%}" for k, v in bt.get("coverage_by_level", {}).items())
     out.print(f"backtested coverage by level: {levels}")
+    if bt.get("note"):
+        out.print(f"note: {bt['note']}", highlight=False)
 
 
 @app.command("backtest")
@@ -96,6 +111,8 @@ def print_forecast(f: Forecast) -> None:
               f"{f.coverage:.0%} interval, held {bt}; model {f.model_version}")
     for w in f.warnings:
         out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
+    if f.note:  # issue 10
+        out.print(f"note: {f.note}", highlight=False)
     for g in f.contributions["groups"]:
         out.print(f"  {g['summary']}", highlight=False)
     t = Table("sim", "weight", "account", "posted", f.metric, "text", title="precedents")

@@ -27,6 +27,9 @@ def print_hours(r: HoursReport) -> None:
     out.print(f"[bold]{r.metric}[/bold] of this draft for {r.account}, hour by hour on {span} "
               f"({r.timezone}, {len(r.slots)} slots); {r.coverage:.0%} intervals, {bt}")
     out.print(r.summary, highlight=False)
+    if r.best_stays_best is not None:  # issue 10
+        out.print(f"The best hour stays best in {r.best_stays_best:.0%} of refits of the timing "
+                  "effect on resampled history.", highlight=False)
     t = Table("rank", "local time", "low", "middle", "high", "about equal to best",
               title="best hours" if r.told_apart else "highest medians (not told apart)")
     for s in r.best:

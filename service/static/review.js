@@ -56,6 +56,8 @@
       : `such intervals held ${Math.round(f.backtested_coverage * 100)}% of the time in backtests`;
     $("fc-coverage").textContent = `${Math.round(f.coverage * 100)}% interval; ${bt}`;
     $("fc-caution").textContent = f.caution;
+    $("fc-note").textContent = f.note || "";
+    $("fc-note").hidden = !f.note;
     $("fc-when").textContent = `${f.account} at ${f.local_time.replace("T", " ")} · model ${f.model_version}`;
 
     const list = $("warn-list");
