@@ -119,7 +119,8 @@ def test_upload_within_the_limit_is_imported_and_removed(client: TestClient, ws:
     assert r.status_code == 200, r.text
     out = r.json()
     assert (out["added"], out["rejected"], out["updated"], out["unchanged"]) == (5, 1, 0, 0)
-    assert out["problems"] == [{"line": 4, "column": "impressions", "reason": "'-5' is negative"}]
+    assert [{k: p[k] for k in ("line", "column", "reason", "post_id")} for p in out["problems"]] == [
+        {"line": 4, "column": "impressions", "reason": "'-5' is negative", "post_id": "up-2"}]
     assert ws.store.counts()["posts"] == before + 5
     assert not list(ws.settings.uploads_dir.iterdir())  # the temporary file is gone
 
