@@ -246,7 +246,7 @@ def _check_legacy(d: Path, cfg: dict[str, Any]) -> dict[str, Any] | str:
     at least end the way LightGBM ends one, so a truncated file is caught."""
     try:
         json.loads((d / "quantiles" / CONFIG).read_text())
-        boosters = sorted((d / "quantiles").glob("*.txt"))
+        boosters = sorted((d / "quantiles").rglob("*.txt"))
         if not boosters:
             return "it has no booster files"
         for p in boosters:

@@ -123,7 +123,7 @@ def second_version(home: Path) -> tuple[str, str]:
 
 def test_truncated_booster_is_skipped_and_named_by_health(copy_home: Path, embedder) -> None:
     old, new = second_version(copy_home)
-    booster = copy_home / "forecasters" / "impressions" / new / "quantiles" / "median.txt"
+    booster = copy_home / "forecasters" / "impressions" / new / "quantiles" / "boosted" / "median.txt"
     data = booster.read_bytes()
     booster.write_bytes(data[: len(data) // 2])  # the issue's repro: cut to half its size
     ws = open_ws(copy_home, embedder)
@@ -144,7 +144,7 @@ def test_truncated_booster_is_skipped_and_named_by_health(copy_home: Path, embed
 def test_truncated_booster_does_not_kill_the_cli(copy_home: Path) -> None:
     """A real process, since an abort cannot be caught in-process."""
     _, new = second_version(copy_home)
-    booster = copy_home / "forecasters" / "impressions" / new / "quantiles" / "upper_0.txt"
+    booster = copy_home / "forecasters" / "impressions" / new / "quantiles" / "boosted" / "upper_0.txt"
     booster.write_bytes(booster.read_bytes()[:1000])
     env = {**os.environ, "SOUNDING_HOME": str(copy_home), "PYTHONPATH": str(ROOT)}
     r = subprocess.run([sys.executable, "-c", "from service.cli import main; main()", "check",
@@ -167,7 +167,7 @@ def test_models_saved_before_checksums_still_load_unless_cut(copy_home: Path, em
     try:
         draft = [Draft(text="Lilies in the glasshouse", account="garden")]
         assert ws.forecaster.forecast(draft)[0].model_version == version
-        booster = d / "quantiles" / "lower_2.txt"
+        booster = d / "quantiles" / "boosted" / "lower_2.txt"
         booster.write_bytes(booster.read_bytes()[:-200])  # only the end missing
         with pytest.raises(NotReady, match="lower_2.txt is cut short"):
             ws.forecaster.forecast(draft, metric="impressions")

@@ -41,7 +41,7 @@ def test_hour_curve_matches_the_documented_one(demo_workspace, account: str) -> 
 
 
 def test_hours_answer_says_how_sure_it_is_of_the_best_hour(demo_workspace) -> None:
-    r = best_hours(demo_workspace, DRAFT, account="loomhaven", day=DAY, now=NOW)
+    r = best_hours(demo_workspace.forecaster, DRAFT, account="loomhaven", day=DAY, now=NOW)
     share = r.to_dict()["best_stays_best"]
     assert share is not None and 0.0 <= share <= 1.0
     # The documented peak (12-13 local) beats the night by 0.68 log units, far
