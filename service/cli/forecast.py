@@ -122,14 +122,14 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
     for p in f.precedents[:8]:
         v = p["metrics"].get(f.metric) if f.metric in p["metrics"] else None
         rows.append([f"{p['similarity']:.2f}", f"{p['weight']:.2f}", p["account"],
-                     p["posted_at"][:10] + ("" if p["mature"] else " *"),
+                     p["posted_at"][:10] + (" *" if p["still_gathering"] else ""),
                      "-" if v is None else f"{v:,}", p["text"]])
     print_table(out, [Column(header="similarity", right=True),
                       Column(header="weight", right=True, optional=True),
                       Column(header="account"), Column(header="posted"),
                       Column(header=f.metric.replace("_", " "), right=True),
                       Column(header="text", free=True)], rows, title="precedents", wide=wide)
-    if any(not p["mature"] for p in f.precedents[:8]):
+    if any(p["still_gathering"] for p in f.precedents[:8]):
         out.print("* still gathering: its metrics are not final yet, so it is shown but not used",
                   highlight=False)
     if f.calibration:  # track record (issue 11): calibration used, live coverage so far

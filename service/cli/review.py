@@ -37,14 +37,14 @@ def print_hours(r: HoursReport) -> None:
             Column(header="high", right=True), Column(header="tied with the best")]
     print_table(out, cols, [[str(s.rank), s.label(with_day=week), _value(s.low, r.metric),
                              _value(s.median, r.metric), _value(s.high, r.metric),
-                             "yes" if s.like_best else "no"] for s in r.best],
+                             "yes" if s.tied_with_best else "no"] for s in r.best],
                 title="best hours" if r.told_apart else "highest medians (not told apart)")
     if not week:
         # One line per hour: the interval as a bar, the median as a dot (log scale).
         out.print(f"every hour ({_value(lo, r.metric)} to {_value(hi, r.metric)}, log scale; "
                   "● median, ├─┤ interval):")
         for s in r.slots:
-            mark = "=" if s.like_best else " "
+            mark = "=" if s.tied_with_best else " "
             out.print(f"  {s.label():<20} {interval_bar(s.low, s.median, s.high, lo=lo, hi=hi)}"
                       f" {_value(s.median, r.metric):>8} {mark}", highlight=False)
         out.print("  = tied with the best", highlight=False)
@@ -87,7 +87,7 @@ def print_variants(r: VariantsReport, *, wide: bool = False) -> None:
         f = v.forecast
         rows.append([str(v.rank), f"#{v.index}", _value(f.low, r.metric),
                      _value(f.median, r.metric), _value(f.high, r.metric),
-                     "yes" if v.like_best else "no", str(len(v.only_here)), v.text])
+                     "yes" if v.tied_with_best else "no", str(len(v.only_here)), v.text])
     print_table(out, [Column(header="rank", right=True), Column(header="wording"),
                       Column(header="low", right=True), Column(header="median", right=True),
                       Column(header="high", right=True), Column(header="tied with the best"),
