@@ -30,7 +30,7 @@ from ..mappings import combine, load_mapping
 from ..precedents import Precedent
 from ..settings import Settings
 from ..timeparse import parse_time
-from .base import app, err, is_terminal, out, print_json, workspace
+from .base import app, err, is_terminal, next_step, out, print_json, workspace
 from .render import Column, print_table
 from .forecast import demo_forecast
 from .mappings import (
@@ -69,10 +69,12 @@ def accounts_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.
     if as_json:
         print_json([asdict(a) for a in rows])
         return
-    t = Table("handle", "name", "time zone", "posts")
-    for a in rows:
-        t.add_row(a.handle, a.display_name or "", a.timezone, str(a.posts))
-    out.print(t)
+    if not rows:
+        out.print(next_step() or "No accounts yet: import some history first.", highlight=False)
+        return
+    print_table(out, [Column(header="handle"), Column(header="name", free=True),
+                      Column(header="time zone"), Column(header="posts", right=True)],
+                [[a.handle, a.display_name or "", a.timezone, f"{a.posts:,}"] for a in rows])
 
 
 def print_summary(s: ImportSummary, *, limit: int = 20) -> None:
