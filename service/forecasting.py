@@ -49,8 +49,8 @@ __all__ = ["CAUTION", "Draft", "Forecast", "Forecaster", "HistoryView", "backtes
 
 CAUTION = (
     "An estimate from this team's own history, not a certainty: the interval "
-    "is calibrated to the stated coverage, and backtested_coverage says how "
-    "often such intervals held on past posts."
+    "is calibrated to the stated coverage, and the backtest says how often "
+    "such intervals held on past posts."
 )
 
 

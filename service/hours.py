@@ -16,7 +16,7 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 from models.stacking import best_hour_confidence
 
 from .forecasting import CAUTION, Draft, Forecaster
-from .overlap import RULE, like_best, ranks
+from .overlap import RULE, tied_with_best, ranks
 from .timeparse import UTC, now_utc, zone
 
 WEEK_DAYS = 7
@@ -66,7 +66,7 @@ class Slot:
     log: tuple[float, float, float]
     warnings: list[str]
     rank: int = 0
-    like_best: bool = False
+    tied_with_best: bool = False
 
     @property
     def offset(self) -> str:
@@ -90,7 +90,7 @@ class Slot:
             "median": self.median,
             "high": self.high,
             "rank": self.rank,
-            "like_best": self.like_best,
+            "tied_with_best": self.tied_with_best,
             "warnings": self.warnings,
         }
 
@@ -108,7 +108,7 @@ class HoursReport:
     last_day: date
     slots: list[Slot]  # chronological
     best_index: int
-    share_like_best: float  # of the other slots, the share about equal to the best
+    fraction_tied_with_best: float  # of the other slots, the share about equal to the best
     told_apart: bool
     summary: str
     top: int = 3
@@ -120,7 +120,7 @@ class HoursReport:
     @property
     def best(self) -> list[Slot]:
         """The slots about equal to the best, highest median first, at most ``top``."""
-        group = [s for s in self.slots if s.like_best]
+        group = [s for s in self.slots if s.tied_with_best]
         return sorted(group, key=lambda s: s.rank)[: self.top]
 
     def to_dict(self) -> dict[str, Any]:
@@ -136,7 +136,7 @@ class HoursReport:
             "last_day": self.last_day.isoformat(),
             "n_slots": len(self.slots),
             "told_apart": self.told_apart,
-            "share_like_best": round(self.share_like_best, 3),
+            "fraction_tied_with_best": round(self.fraction_tied_with_best, 3),
             "summary": self.summary,
             "best_stays_best": self.best_stays_best,
             "rule": RULE,
@@ -198,9 +198,9 @@ def best_hours(
         )
         for t, f in zip(instants, found, strict=True)
     ]
-    best, flags = like_best([s.log for s in slots])
+    best, flags = tied_with_best([s.log for s in slots])
     for s, r, flag in zip(slots, ranks([s.log[1] for s in slots]), flags, strict=True):
-        s.rank, s.like_best = r, flag
+        s.rank, s.tied_with_best = r, flag
     others = len(slots) - 1
     share = (sum(flags) - 1) / others if others else 1.0
     report = HoursReport(
@@ -215,7 +215,7 @@ def best_hours(
         last_day=days[-1],
         slots=slots,
         best_index=best,
-        share_like_best=share,
+        fraction_tied_with_best=share,
         told_apart=share <= 0.5,
         summary="",
         top=top,
@@ -234,8 +234,8 @@ def best_hours(
 
 def _hours_summary(r: HoursReport) -> str:
     week = r.mode == "week"
-    group = sorted((s for s in r.slots if s.like_best), key=lambda s: s.rank)
-    lower = [s for s in r.slots if not s.like_best]
+    group = sorted((s for s in r.slots if s.tied_with_best), key=lambda s: s.rank)
+    lower = [s for s in r.slots if not s.tied_with_best]
     n = len(r.slots)
     if not lower:
         return (

@@ -26,7 +26,7 @@ def heavy_overlap(a: tuple[float, float], b: tuple[float, float]) -> bool:
     return overlap >= 0.5 * narrower
 
 
-def like_best(logs: Sequence[tuple[float, float, float]]) -> tuple[int, list[bool]]:
+def tied_with_best(logs: Sequence[tuple[float, float, float]]) -> tuple[int, list[bool]]:
     """Index of the highest median (first on ties) and, per option, whether
     its interval overlaps the best one's heavily (the best itself: True)."""
     best = int(np.argmax([m for _, m, _ in logs]))

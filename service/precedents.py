@@ -33,7 +33,7 @@ class Precedent:
             "text": self.text,
             "similarity": round(self.similarity, 4),
             "metrics": self.metrics,
-            "mature": self.mature,
+            "still_gathering": not self.mature,
         }
 
 

@@ -64,7 +64,7 @@ class Repeat:
             "similarity": round(self.similarity, 4),
             "metric": self.metric,
             "value": self.value,
-            "mature": self.mature,
+            "still_gathering": not self.mature,
             "message": self.message,
         }
 

@@ -12,7 +12,7 @@ imports from the modules above.
 from __future__ import annotations
 
 from .hours import HoursReport, Slot, best_hours, day_slots, parse_day
-from .overlap import RULE, heavy_overlap, like_best
+from .overlap import RULE, heavy_overlap, tied_with_best
 from .repeats import Repeat, near_repeats, near_repeats_many
 from .wordings import MAX_VARIANTS, Variant, VariantsReport, compare_variants
 
@@ -28,7 +28,7 @@ __all__ = [
     "compare_variants",
     "day_slots",
     "heavy_overlap",
-    "like_best",
+    "tied_with_best",
     "near_repeats",
     "near_repeats_many",
     "parse_day",

@@ -354,12 +354,12 @@ def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dic
     cutoff = pd.Timestamp(now - timedelta(hours=float(ws.settings.maturity_hours)))
     mature = (frame["posted_at"] <= cutoff).to_numpy()
     keep = has_metric & mature
-    left_out = {"no_metric": int((~has_metric).sum()), "young": int((has_metric & ~mature).sum())}
+    left_out = {"no_metric": int((~has_metric).sum()), "still_gathering": int((has_metric & ~mature).sum())}
     n = int(keep.sum())
     if n < MIN_POSTS:
         where = f" of account {req.account}" if req.account else ""
-        young = (f" ({left_out['young']} more are younger than "
-                 f"{ws.settings.maturity_hours:g} h and left out)" if left_out["young"] else "")
+        young = (f" ({left_out['still_gathering']} more are younger than "
+                 f"{ws.settings.maturity_hours:g} h and left out)" if left_out["still_gathering"] else "")
         raise NotReady(
             f"only {n} posts{where} have {req.metric}{young}; segments need at least "
             f"{MIN_POSTS}", field="metric", hint="import more history")
@@ -569,8 +569,8 @@ def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) ->
             warnings.append(
                 f"{small} of {table.n.size} cells of the topic x {req.by} table have fewer "
                 f"than {req.min_n} posts: read their medians as rough")
-    if left_out["young"]:
-        warnings.append(f"{left_out['young']} posts younger than "
+    if left_out["still_gathering"]:
+        warnings.append(f"{left_out['still_gathering']} posts younger than "
                         f"{ws.settings.maturity_hours:g} h are left out: their {req.metric} "
                         "is still growing")
     return SegmentResult(

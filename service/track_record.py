@@ -154,7 +154,7 @@ def _record(ws: Any, drafts: list[Draft], found: list[Forecast], *, model: Train
             acct = (F.baseline(view.history, code, t, model.features)[0]
                     if code is not None else math.nan)
             prec = [math.log1p(v) for p in f.precedents
-                    if p.get("weight", 0) > 0 and p.get("mature")
+                    if p.get("weight", 0) > 0 and not p.get("still_gathering", True)
                     and (v := target_value(p["metrics"], f.metric)) is not None]
             lo, med, hi = f.log
             s.add(ForecastGiven(

@@ -14,7 +14,7 @@ from models.errors import InputError, LimitExceeded, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from .forecasting import CAUTION, Draft, Forecast, Forecaster
-from .overlap import RULE, like_best, ranks
+from .overlap import RULE, tied_with_best, ranks
 from .timeparse import now_utc
 
 MAX_VARIANTS = 10
@@ -26,7 +26,7 @@ class Variant:
     text: str
     forecast: Forecast
     rank: int = 0
-    like_best: bool = False
+    tied_with_best: bool = False
     only_here: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
@@ -38,7 +38,7 @@ class Variant:
             "low": f.low,
             "median": f.median,
             "high": f.high,
-            "like_best": self.like_best,
+            "tied_with_best": self.tied_with_best,
             "precedents": [p["post_id"] for p in f.precedents],
             "only_here": self.only_here,
             "warnings": f.warnings,
@@ -118,13 +118,13 @@ def compare_variants(
     for i, v in enumerate(variants):
         elsewhere = set().union(*(set(x) for j, x in enumerate(ids) if j != i))
         v.only_here = [p for p in ids[i] if p not in elsewhere]
-    _, flags = like_best([v.forecast.log for v in variants])
+    _, flags = tied_with_best([v.forecast.log for v in variants])
     for v, r, flag in zip(variants, ranks([v.forecast.log[1] for v in variants]), flags, strict=True):
-        v.rank, v.like_best = r, flag
+        v.rank, v.tied_with_best = r, flag
     variants.sort(key=lambda v: v.rank)
     told_apart = sum(flags) == 1
-    equal = [v for v in variants if v.like_best]
-    lower = [v for v in variants if not v.like_best]
+    equal = [v for v in variants if v.tied_with_best]
+    lower = [v for v in variants if not v.tied_with_best]
     if not lower:
         summary = (
             "These variants cannot be told apart with this history: their intervals "

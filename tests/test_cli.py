@@ -170,7 +170,7 @@ def test_precedents_json(demo_env: Path) -> None:
     found = json.loads(r.stdout)["precedents"]
     assert len(found) == 4
     for p in found:
-        assert {"post_id", "account", "posted_at", "text", "similarity", "metrics", "mature"} <= set(p)
+        assert {"post_id", "account", "posted_at", "text", "similarity", "metrics", "still_gathering"} <= set(p)
         assert set(p["metrics"]) == set(METRIC_COLUMNS)
     sims = [p["similarity"] for p in found]
     assert sims == sorted(sims, reverse=True)

@@ -42,3 +42,16 @@ def test_flags_show_as_flags_in_help() -> None:
     assert result.exit_code == 0
     json_line = next(line for line in result.output.splitlines() if "--json" in line)
     assert "<bool>" not in json_line and "BOOLEAN" not in json_line
+
+
+def test_an_empty_data_directory_says_what_to_do_next(tmp_path, embedder) -> None:
+    from service.cli.base import use_embedder
+
+    use_embedder(embedder)
+    env = {"SOUNDING_HOME": str(tmp_path / "empty")}
+    listed = runner.invoke(app, ["accounts"], env=env)
+    assert listed.exit_code == 0
+    assert "sounding import" in listed.output and "sounding train" in listed.output
+    checked = runner.invoke(app, ["check", "Snowdrops are out", "--account", "nobody"], env=env)
+    assert checked.exit_code == 1 and "Traceback" not in checked.output
+    assert "holds no posts yet" in checked.output and "sounding import" in checked.output

@@ -169,7 +169,7 @@ def test_forecast_fields_and_interval(demo_workspace):
     assert len(f.precedents) >= 10
     sims = [p["similarity"] for p in f.precedents]
     assert sims == sorted(sims, reverse=True)
-    weights = [p["weight"] for p in f.precedents if p["mature"]]
+    weights = [p["weight"] for p in f.precedents if not p["still_gathering"]]
     assert sum(weights) == pytest.approx(1.0, abs=1e-3)
     d = f.to_dict()
     assert "not a certainty" in d["caution"]

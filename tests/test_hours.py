@@ -17,7 +17,7 @@ from typer.testing import CliRunner
 from service.api.app import create_app
 from service.forecasting import CAUTION
 from service.hours import Slot, _hours_summary, best_hours, day_slots
-from service.overlap import heavy_overlap, like_best
+from service.overlap import heavy_overlap, tied_with_best
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
@@ -106,7 +106,7 @@ def test_week_across_the_change_has_169_slots(demo_workspace) -> None:
     # 7 days x 24 hours + the repeated hour of 2026-10-25 (EU rule, as above).
     assert len(r.slots) == 7 * 24 + 1
     assert r.first_day == date(2026, 10, 22) and r.last_day == date(2026, 10, 28)
-    assert len(r.best) <= 5 and all(s.like_best for s in r.best)
+    assert len(r.best) <= 5 and all(s.tied_with_best for s in r.best)
 
 
 # The generator's daily rhythm ---------------------------------------------------
@@ -175,19 +175,19 @@ def test_overlap_rule() -> None:
     assert heavy_overlap((0.0, 10.0), (4.0, 5.0))  # the narrower one lies inside
     assert not heavy_overlap((0.0, 1.0), (2.0, 3.0))
     assert heavy_overlap((1.0, 1.0), (1.0, 1.0))
-    best, flags = like_best([(0.0, 1.0, 2.0), (0.5, 1.6, 2.5), (3.0, 3.5, 4.0)])
+    best, flags = tied_with_best([(0.0, 1.0, 2.0), (0.5, 1.6, 2.5), (3.0, 3.5, 4.0)])
     assert best == 2 and flags == [False, False, True]
 
 
 def _slots(logs: list[tuple[float, float, float]]) -> list[Slot]:
     t0 = datetime(2026, 12, 3, 0, 0, tzinfo=UTC)
     out = []
-    best, flags = like_best(logs)
+    best, flags = tied_with_best(logs)
     order = sorted(range(len(logs)), key=lambda i: -logs[i][1])
     for i, lg in enumerate(logs):
         t = t0 + timedelta(hours=i)
         out.append(Slot(planned_at=t, local=t, low=lg[0], median=lg[1], high=lg[2], log=lg,
-                        warnings=[], rank=order.index(i) + 1, like_best=flags[i]))
+                        warnings=[], rank=order.index(i) + 1, tied_with_best=flags[i]))
     return out
 
 
@@ -201,12 +201,12 @@ def test_summary_says_when_hours_cannot_be_told_apart(logs, expect: str) -> None
     from service.hours import HoursReport
 
     slots = _slots(logs)
-    best, flags = like_best([s.log for s in slots])
+    best, flags = tied_with_best([s.log for s in slots])
     share = (sum(flags) - 1) / (len(slots) - 1)
     r = HoursReport(account="a", timezone="UTC", metric="impressions", coverage=0.8,
                     backtested_coverage=None, model_version="v", mode="day",
                     first_day=date(2026, 12, 3), last_day=date(2026, 12, 3), slots=slots,
-                    best_index=best, share_like_best=share, told_apart=share <= 0.5, summary="")
+                    best_index=best, fraction_tied_with_best=share, told_apart=share <= 0.5, summary="")
     text = _hours_summary(r)
     assert expect in text
     assert ("cannot be told apart" in text) == (not r.told_apart)

@@ -269,7 +269,7 @@ def test_young_posts_are_left_out(demo_workspace) -> None:
     young = sum(t > now - timedelta(hours=hours) for t in times)
     assert young > 0
     result = segment(demo_workspace, SegmentRequest(by="media", n_resamples=200), now=now)
-    assert result.left_out["young"] == young
+    assert result.left_out["still_gathering"] == young
     assert result.n_posts == len(times) - young
     assert any("younger than" in w for w in result.warnings)
 

@@ -66,7 +66,7 @@ def test_near_identical_variants_cannot_be_told_apart(client: TestClient) -> Non
     assert r.status_code == 200, r.text
     body = r.json()
     assert body["told_apart"] is False
-    assert all(v["like_best"] for v in body["variants"])
+    assert all(v["tied_with_best"] for v in body["variants"])
     assert "cannot be told apart" in body["summary"]
 
 

@@ -111,7 +111,8 @@ class PrecedentOut(BaseModel):
     text: str
     similarity: float
     metrics: Metrics
-    mature: bool = Field(description="False while the post may still be gathering impressions")
+    still_gathering: bool = Field(description="True while the post's metrics are not final yet "
+                                  "(younger than the maturity window)")
 
 
 class PrecedentsResponse(BaseModel):
@@ -262,7 +263,7 @@ class RepeatOut(BaseModel):
     similarity: float
     metric: str
     value: float | None = Field(description="The post's metric so far")
-    mature: bool
+    still_gathering: bool
     message: str
 
 
@@ -345,7 +346,7 @@ class SlotOut(BaseModel):
     median: float
     high: float
     rank: int = Field(description="1 = highest median")
-    like_best: bool = Field(description="Interval about equal to the best slot's (see rule)")
+    tied_with_best: bool = Field(description="Interval about equal to the best slot's (see rule)")
     warnings: list[str]
 
 
@@ -361,7 +362,7 @@ class HoursOut(BaseModel):
     last_day: date
     n_slots: int
     told_apart: bool = Field(description="False when most hours cannot be told apart")
-    share_like_best: float = Field(description="Share of the other slots about equal to the best")
+    fraction_tied_with_best: float = Field(description="Share of the other slots about equal to the best")
     best_stays_best: float | None = Field(
         default=None, description="Share of bootstrap refits of the timing effect in which the "
         "best slot stays best (null for models without a timing component)")
@@ -393,7 +394,7 @@ class VariantOut(BaseModel):
     low: float
     median: float
     high: float
-    like_best: bool
+    tied_with_best: bool
     precedents: list[str] = Field(description="Post ids of its precedents, most similar first")
     only_here: list[str] = Field(description="Precedent post ids no other variant has")
     warnings: list[str]
@@ -527,7 +528,8 @@ class TwoWayOut(BaseModel):
 
 class SegmentsLeftOut(BaseModel):
     no_metric: int = Field(description="Posts without the metric")
-    young: int = Field(description="Posts too young for their metric to have settled")
+    still_gathering: int = Field(description="Posts whose metrics are not final yet (younger "
+                                 "than the maturity window)")
 
 
 class SegmentsResponse(BaseModel):

@@ -33,7 +33,26 @@ class _Group(TyperGroup):
             # Printed here and ended with typer.Exit: typer >= 0.29 runs its own
             # copy of click, which does not catch click.ClickException.
             err.print(f"Error: {exc}", markup=False, highlight=False)
+            step = next_step()
+            if step:
+                err.print(step, markup=False, highlight=False)
             raise typer.Exit(1) from None
+
+
+def next_step() -> str | None:
+    """On a data directory with no posts yet, what to do first. Only an
+    already open workspace is asked: a failing command never creates one."""
+    if _workspace is None:
+        return None
+    try:
+        empty = _workspace.store.counts()["posts"] == 0
+    except SoundingError:
+        return None
+    if not empty:
+        return None
+    return (f"This data directory ({_workspace.settings.resolved_home}) holds no posts yet. "
+            "Start with `sounding import posts.csv` (your history), then `sounding train`; "
+            "or try `sounding demo` on invented data.")
 
 
 app = typer.Typer(

@@ -8,7 +8,6 @@ from pathlib import Path
 from typing import Any
 
 import typer
-from rich.table import Table
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
@@ -19,6 +18,7 @@ from ..plan import forecast_plan
 from ..timeparse import localize, now_utc, parse_time, zone
 from ..track_record import give, staleness
 from ..workspace import Workspace
+from .render import Column, level_bar, print_table, typical_miss
 from .base import app, out, print_json, workspace
 
 METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
@@ -54,36 +54,39 @@ def train_cmd(
 
 
 def print_backtest(bt: dict[str, Any], metric: str) -> None:
-    t = Table("forecaster", "MAE (log)", "Spearman", "coverage", "mean width (log)",
-              title=f"backtest of {metric}: {bt['n_folds']} time-ordered folds, {bt['n_test']} "
-              f"test posts, nominal coverage {bt['coverage_nominal']:.0%}")
-
-    def row(name: str, s: dict[str, Any]) -> None:
-        t.add_row(name, f"{s['mae_log']:.3f}", f"{s['spearman']:.3f}",
-                  "-" if s["coverage"] is None else f"{s['coverage']:.1%}",
-                  "-" if s["mean_width_log"] is None else f"{s['mean_width_log']:.2f}")
-
-    row("sounding (the combination)", bt["model"])
+    cols = [Column(header="forecaster", free=True), Column(header="typical miss", right=True),
+            Column(header="MAE (log)", right=True), Column(header="Spearman", right=True),
+            Column(header="coverage", right=True), Column(header="weight", right=True)]
     labels = {"account_median": "account trailing median", "precedents_median":
               "precedents' median", "history_median": "history-wide median",
               "timing_only": "timing only", "boosted": "boosted trees + timing",
               "text_ridge": "text model (ridge)"}
     weights = bt.get("weights") or {}
+    rows: list[list[str]] = []
+
+    def row(key: str, name: str, s: dict[str, Any]) -> None:
+        rows.append([name, typical_miss(s["mae_log"]), f"{s['mae_log']:.3f}", f"{s['spearman']:.3f}",
+                     "-" if s["coverage"] is None else f"{s['coverage']:.1%}",
+                     f"{weights[key]:.2f}" if key in weights else "-"])
+
+    row("model", "sounding (the combination)", bt["model"])
     for k, s in bt["baselines"].items():
-        row(labels.get(k, k) + (f" (weight {weights[k]:.2f})" if k in weights else ""), s)
+        row(k, labels.get(k, k), s)
     for k, s in (bt.get("candidates") or {}).items():
         if k not in bt["baselines"]:
-            row(labels.get(k, k) + (f" (weight {weights[k]:.2f})" if k in weights else ""), s)
-    out.print(t)
-    if weights:  # issue 10: the combination and its weights
-        parts = ", ".join(f"{labels.get(k, k)} {v:.2f}" for k, v in weights.items()
-                          if k != "timing")
-        extra = (f"; timing effect added with weight {weights['timing']:.2f}"
-                 if weights.get("timing") else "; the timing effect is inside the boosted part")
-        out.print(f"combination (mean weights over folds, non-negative, summing to 1): "
-                  f"{parts}{extra}", highlight=False)
-    levels = ", ".join(f"{k}: {v:.1%}" for k, v in bt.get("coverage_by_level", {}).items())
-    out.print(f"backtested coverage by level: {levels}")
+            row(k, labels.get(k, k), s)
+    print_table(out, cols, rows, title=f"backtest of {metric}: {bt['n_folds']} time-ordered "
+                f"folds, {bt['n_test']} test posts, nominal coverage {bt['coverage_nominal']:.0%}")
+    out.print("typical miss: a typical forecast is off by this factor either way "
+              "(exp of the mean absolute error of log1p values, MAE (log)).", highlight=False)
+    if weights.get("timing"):
+        out.print(f"the timing effect is added with weight {weights['timing']:.2f}",
+                  highlight=False)
+    levels = bt.get("coverage_by_level", {})
+    if levels:
+        out.print("how often intervals held in the backtest, by stated coverage:")
+        for k, v in levels.items():
+            out.print(f"  {float(k):>4.0%} stated  {level_bar(v)} {v:6.1%}", highlight=False)
     if bt.get("note"):
         out.print(f"note: {bt['note']}", highlight=False)
 
@@ -103,11 +106,11 @@ def backtest_cmd(
         out.print(f"report written to {json_file}")
 
 
-def print_forecast(f: Forecast) -> None:
+def print_forecast(f: Forecast, *, wide: bool = False) -> None:
     bt = "not backtested" if f.backtested_coverage is None else \
         f"{f.backtested_coverage:.0%} in backtests"
     out.print(f"[bold]{f.metric}[/bold] for {f.account} at {f.local_time}: "
-              f"[bold]{f.low:,.0f} – {f.high:,.0f}[/bold] (middle {f.median:,.0f}); "
+              f"[bold]{f.low:,.0f} – {f.high:,.0f}[/bold] (median {f.median:,.0f}); "
               f"{f.coverage:.0%} interval, held {bt}; model {f.model_version}")
     for w in f.warnings:
         out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
@@ -115,13 +118,20 @@ def print_forecast(f: Forecast) -> None:
         out.print(f"note: {f.note}", highlight=False)
     for g in f.contributions["groups"]:
         out.print(f"  {g['summary']}", highlight=False)
-    t = Table("sim", "weight", "account", "posted", f.metric, "text", title="precedents")
+    rows = []
     for p in f.precedents[:8]:
         v = p["metrics"].get(f.metric) if f.metric in p["metrics"] else None
-        t.add_row(f"{p['similarity']:.2f}", f"{p['weight']:.2f}", p["account"],
-                  p["posted_at"][:16].replace("T", " ") + ("" if p["mature"] else " (young)"),
-                  "-" if v is None else f"{v:,}", p["text"][:80])
-    out.print(t)
+        rows.append([f"{p['similarity']:.2f}", f"{p['weight']:.2f}", p["account"],
+                     p["posted_at"][:10] + (" *" if p["still_gathering"] else ""),
+                     "-" if v is None else f"{v:,}", p["text"]])
+    print_table(out, [Column(header="similarity", right=True),
+                      Column(header="weight", right=True, optional=True),
+                      Column(header="account"), Column(header="posted"),
+                      Column(header=f.metric.replace("_", " "), right=True),
+                      Column(header="text", free=True)], rows, title="precedents", wide=wide)
+    if any(p["still_gathering"] for p in f.precedents[:8]):
+        out.print("* still gathering: its metrics are not final yet, so it is shown but not used",
+                  highlight=False)
     if f.calibration:  # track record (issue 11): calibration used, live coverage so far
         live = f.live_coverage or {}
         held = ("no forecast scored yet" if not live.get("scored") else
@@ -152,6 +162,8 @@ def check_cmd(
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     no_record: bool = typer.Option(False, "--no-record", help="Keep this forecast out of the "
                                    "track record."),
+    wide: bool = typer.Option(False, "--wide", help="Wrap post texts in full instead of cutting "
+                              "them to the terminal's width."),
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
@@ -174,7 +186,7 @@ def check_cmd(
     if as_json:
         print_json(f.to_dict())
     else:
-        print_forecast(f)
+        print_forecast(f, wide=wide)
 
 
 def demo_forecast(ws: Workspace, draft: str) -> None:

@@ -27,9 +27,11 @@ from ..api.app import create_app
 from ..cluster import cluster_import_options
 from ..importer import ImportPreview, ImportSummary
 from ..mappings import combine, load_mapping
+from ..precedents import Precedent
 from ..settings import Settings
 from ..timeparse import parse_time
-from .base import app, err, is_terminal, out, print_json, workspace
+from .base import app, err, is_terminal, next_step, out, print_json, workspace
+from .render import Column, print_table
 from .forecast import demo_forecast
 from .mappings import (
     ACCOUNT,
@@ -67,10 +69,12 @@ def accounts_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.
     if as_json:
         print_json([asdict(a) for a in rows])
         return
-    t = Table("handle", "name", "time zone", "posts")
-    for a in rows:
-        t.add_row(a.handle, a.display_name or "", a.timezone, str(a.posts))
-    out.print(t)
+    if not rows:
+        out.print(next_step() or "No accounts yet: import some history first.", highlight=False)
+        return
+    print_table(out, [Column(header="handle"), Column(header="name", free=True),
+                      Column(header="time zone"), Column(header="posts", right=True)],
+                [[a.handle, a.display_name or "", a.timezone, f"{a.posts:,}"] for a in rows])
 
 
 def print_summary(s: ImportSummary, *, limit: int = 20) -> None:
@@ -199,16 +203,19 @@ def _time_opt(value: str | None, name: str) -> datetime | None:
     return parse_time(value, tz="UTC", where=name) if value else None
 
 
-def print_precedents(found: list, *, title: str = "precedents") -> None:
-    t = Table("sim", "account", "posted", "impressions", "engagements", "text", title=title)
-    for p in found:
-        flag = "" if p.mature else " (young)"
-        t.add_row(
-            f"{p.similarity:.2f}", p.account, p.posted_at.strftime("%Y-%m-%d %H:%M") + flag,
-            _n(p.metrics.get("impressions")), _n(p.metrics.get("engagements")),
-            p.text if len(p.text) <= 90 else p.text[:87] + "...",
-        )
-    out.print(t)
+def print_precedents(found: list[Precedent], *, title: str = "precedents",
+                     wide: bool = False) -> None:
+    rows = [[f"{p.similarity:.2f}", p.account,
+             p.posted_at.strftime("%Y-%m-%d") + ("" if p.mature else " *"),
+             _n(p.metrics.get("impressions")), _n(p.metrics.get("engagements")), p.text]
+            for p in found]
+    print_table(out, [Column(header="similarity", right=True), Column(header="account"),
+                      Column(header="posted"), Column(header="impressions", right=True),
+                      Column(header="engagements", right=True, optional=True),
+                      Column(header="text", free=True)],
+                rows, title=title, wide=wide)
+    if any(not p.mature for p in found):
+        out.print("* still gathering: its metrics are not final yet", highlight=False)
 
 
 def _n(v: int | None) -> str:
@@ -223,6 +230,8 @@ def precedents_cmd(
     since: str | None = typer.Option(None, "--since", help="Only posts from this time (ISO 8601)."),
     until: str | None = typer.Option(None, "--until", help="Only posts up to this time."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+    wide: bool = typer.Option(False, "--wide", help="Wrap post texts in full instead of cutting "
+                              "them to the terminal's width."),
 ) -> None:
     """The past posts most similar to a draft, with their metrics."""
     found = workspace().precedents(
@@ -232,7 +241,7 @@ def precedents_cmd(
     if as_json:
         print_json({"precedents": [p.to_dict() for p in found]})
     else:
-        print_precedents(found)
+        print_precedents(found, wide=wide)
 
 
 MIN_TOKEN_CHARS = 32

@@ -36,6 +36,12 @@ class Column:
     header: str
     free: bool = False
     right: bool = False
+    #: Left out, last first, when the free text would otherwise get too little room.
+    optional: bool = False
+
+
+#: Below this many cells for the free text, optional columns are left out.
+MIN_FREE = 24
 
 
 def cut(text: str, width: int) -> str:
@@ -59,6 +65,7 @@ def fit_table(
 ) -> Table:
     """A rich table whose every row is one line at ``width`` cells (unless
     ``wide``, where free text wraps)."""
+    columns, rows = _drop_optional(list(columns), [list(r) for r in rows], width)
     natural = [
         max([cell_len(c.header), *(cell_len(str(r[i])) for r in rows)])
         for i, c in enumerate(columns)
@@ -84,6 +91,24 @@ def fit_table(
             cells.append(Text(value if wide or not c.free else cut(value, share)))
         table.add_row(*cells)
     return table
+
+
+def _room(columns: Sequence[Column], rows: Sequence[Sequence[str]], width: int) -> int:
+    fixed = sum(max([cell_len(c.header), *(cell_len(str(r[i])) for r in rows)]) + _PAD
+                for i, c in enumerate(columns) if not c.free)
+    return width - fixed - _PAD * sum(c.free for c in columns) - 1
+
+
+def _drop_optional(columns: list[Column], rows: list[list[str]], width: int
+                   ) -> tuple[list[Column], list[list[str]]]:
+    while any(c.free for c in columns) and _room(columns, rows, width) < MIN_FREE:
+        optional = [i for i, c in enumerate(columns) if c.optional]
+        if not optional:
+            break
+        i = optional[-1]
+        columns = columns[:i] + columns[i + 1:]
+        rows = [r[:i] + r[i + 1:] for r in rows]
+    return columns, rows
 
 
 def print_table(

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import typer
-from rich.table import Table
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
@@ -12,6 +11,7 @@ from ..forecasting import CAUTION
 from ..hours import HoursReport, best_hours, parse_day
 from ..wordings import VariantsReport, compare_variants
 from .base import app, out, print_json, workspace
+from .render import Column, interval_bar, print_table
 from .forecast import COVERAGE_HELP, METRIC_HELP, planned
 
 
@@ -30,19 +30,24 @@ def print_hours(r: HoursReport) -> None:
     if r.best_stays_best is not None:  # issue 10
         out.print(f"The best hour stays best in {r.best_stays_best:.0%} of refits of the timing "
                   "effect on resampled history.", highlight=False)
-    t = Table("rank", "local time", "low", "middle", "high", "about equal to best",
-              title="best hours" if r.told_apart else "highest medians (not told apart)")
-    for s in r.best:
-        t.add_row(str(s.rank), s.label(with_day=week), _value(s.low, r.metric),
-                  _value(s.median, r.metric), _value(s.high, r.metric),
-                  "yes" if s.like_best else "no")
-    out.print(t)
+    lo = min(s.low for s in r.slots)
+    hi = max(s.high for s in r.slots)
+    cols = [Column(header="rank", right=True), Column(header="local time"),
+            Column(header="low", right=True), Column(header="median", right=True),
+            Column(header="high", right=True), Column(header="tied with the best")]
+    print_table(out, cols, [[str(s.rank), s.label(with_day=week), _value(s.low, r.metric),
+                             _value(s.median, r.metric), _value(s.high, r.metric),
+                             "yes" if s.tied_with_best else "no"] for s in r.best],
+                title="best hours" if r.told_apart else "highest medians (not told apart)")
     if not week:
-        every = Table("local time", "low", "middle", "high", "rank", title="every hour")
+        # One line per hour: the interval as a bar, the median as a dot (log scale).
+        out.print(f"every hour ({_value(lo, r.metric)} to {_value(hi, r.metric)}, log scale; "
+                  "● median, ├─┤ interval):")
         for s in r.slots:
-            every.add_row(s.label(), _value(s.low, r.metric), _value(s.median, r.metric),
-                          _value(s.high, r.metric), str(s.rank))
-        out.print(every)
+            mark = "=" if s.tied_with_best else " "
+            out.print(f"  {s.label():<20} {interval_bar(s.low, s.median, s.high, lo=lo, hi=hi)}"
+                      f" {_value(s.median, r.metric):>8} {mark}", highlight=False)
+        out.print("  = tied with the best", highlight=False)
     for w in r.warnings:
         out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
     out.print(f"[dim]{CAUTION}[/dim]")
@@ -71,20 +76,24 @@ def hours_cmd(
         print_hours(r)
 
 
-def print_variants(r: VariantsReport) -> None:
+def print_variants(r: VariantsReport, *, wide: bool = False) -> None:
     bt = ("not backtested" if r.backtested_coverage is None
           else f"held {r.backtested_coverage:.0%} in backtests")
     out.print(f"[bold]{r.metric}[/bold] of {len(r.variants)} variants for {r.account} at "
               f"{r.local_time}; {r.coverage:.0%} intervals, {bt}")
     out.print(r.summary, highlight=False)
-    t = Table("rank", "variant", "low", "middle", "high", "precedents only it has", "text")
+    rows = []
     for v in r.variants:
         f = v.forecast
-        t.add_row(str(v.rank), f"#{v.index}", _value(f.low, r.metric), _value(f.median, r.metric),
-                  _value(f.high, r.metric), ", ".join(v.only_here[:3])
-                  + (f" (+{len(v.only_here) - 3} more)" if len(v.only_here) > 3 else "") or "-",
-                  v.text[:60])
-    out.print(t)
+        rows.append([str(v.rank), f"#{v.index}", _value(f.low, r.metric),
+                     _value(f.median, r.metric), _value(f.high, r.metric),
+                     "yes" if v.tied_with_best else "no", str(len(v.only_here)), v.text])
+    print_table(out, [Column(header="rank", right=True), Column(header="wording"),
+                      Column(header="low", right=True), Column(header="median", right=True),
+                      Column(header="high", right=True), Column(header="tied with the best"),
+                      Column(header="own precedents", right=True),
+                      Column(header="text", free=True)], rows, wide=wide)
+    out.print("own precedents: similar past posts that only this wording has", highlight=False)
     for v in r.variants:
         for w in v.forecast.warnings:
             out.print(f"[yellow]warning (#{v.index}):[/yellow] {w}", highlight=False)
@@ -101,6 +110,8 @@ def compare_cmd(
     coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
     media: bool = typer.Option(False, "--media", help="An image or video goes with each phrasing."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+    wide: bool = typer.Option(False, "--wide", help="Wrap the wordings in full instead of "
+                              "cutting them to the terminal's width."),
 ) -> None:
     """Forecast several phrasings of one draft side by side."""
     if len(texts) < 2:
@@ -110,4 +121,4 @@ def compare_cmd(
     if as_json:
         print_json(r.to_dict())
     else:
-        print_variants(r)
+        print_variants(r, wide=wide)

@@ -30,6 +30,7 @@ from ..segmenting import (
     render,
     segment,
 )
+from .render import Column, cut, interval_bar, print_table
 from .base import app, err, out, print_json, workspace
 
 # Long (multi-phrase) topic names are shortened in tables only; the reading
@@ -42,25 +43,32 @@ def _short(text: str, width: int) -> str:
     return text if len(text) <= width else text[: width - 1] + "…"
 
 
-def print_split(split: Split, metric: str) -> None:
+def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
     rep = split.report
     pct = f"{100 * rep.confidence:g}%"
-    t = Table(title=f"{metric} by {split.title}", title_justify="left", box=box.SIMPLE_HEAD)
-    short = plot_names([seg.name for seg in rep.segments], width=_NAME_WIDTH)
-    width = min(max(len(n) for n in short.values()), 24)
-    t.add_column("segment", ratio=1, overflow="fold", min_width=width)
-    for head in ("posts", "median", "middle half", f"{pct} CI", "r", "Holm p"):
-        t.add_column(head, justify="right", no_wrap=True)
-    for seg in rep.segments:
-        style = "dim" if seg.too_small else None
-        t.add_row(
-            Text(short[seg.name]), f"{seg.n:,}", fmt_value(seg.median, metric),
-            f"{fmt_value(seg.q1, metric)}–{fmt_value(seg.q3, metric)}",
-            f"{fmt_value(seg.ci_low, metric)}–{fmt_value(seg.ci_high, metric)}",
-            "-" if seg.rank_biserial != seg.rank_biserial else f"{seg.rank_biserial:+.2f}",
-            fmt_p(seg.p_holm), style=style,
-        )
-    out.print(t)
+    cols = [Column(header="segment", free=True), Column(header="posts", right=True),
+            Column(header="median", right=True), Column(header="central half", right=True),
+            Column(header=f"{pct} CI", right=True), Column(header="r", right=True),
+            Column(header="Holm p", right=True)]
+    rows = [[seg.name + (" (few posts)" if seg.too_small else ""), f"{seg.n:,}",
+             fmt_value(seg.median, metric),
+             f"{fmt_value(seg.q1, metric)}–{fmt_value(seg.q3, metric)}",
+             f"{fmt_value(seg.ci_low, metric)}–{fmt_value(seg.ci_high, metric)}",
+             "-" if seg.rank_biserial != seg.rank_biserial else f"{seg.rank_biserial:+.2f}",
+             fmt_p(seg.p_holm)] for seg in rep.segments]
+    print_table(out, cols, rows, title=f"{metric} by {split.title}", wide=wide)
+    # Each segment's median (●) and its confidence interval (├─┤) on one log axis.
+    shown = [seg for seg in rep.segments if seg.median is not None and seg.ci_low is not None
+             and seg.ci_high is not None]
+    if shown:
+        lo = min(float(seg.ci_low) for seg in shown)  # type: ignore[arg-type]
+        hi = max(float(seg.ci_high) for seg in shown)  # type: ignore[arg-type]
+        room = max(out.width - 34, 10)
+        for seg in shown:
+            bar = interval_bar(float(seg.ci_low), float(seg.median),  # type: ignore[arg-type]
+                               float(seg.ci_high), lo=lo, hi=hi, cells=min(room, 40))
+            out.print(f"  {cut(seg.name, 20):<20} {bar} {fmt_value(seg.median, metric):>8}",
+                      highlight=False, markup=False)
     for seg in rep.segments:
         line = Text(f"  {seg.name}: ", style="bold")
         line.append(split.summaries[seg.name], style="dim" if seg.too_small else "")
@@ -130,7 +138,7 @@ def segments_cmd(
     mode: str = typer.Option("nearest", "--mode",
                              help="nearest: each post joins its closest topic (else other); "
                              "top-k: each topic takes its k closest posts."),
-    k: int = typer.Option(DEFAULT_K, "--k", help="Posts per topic in top-k mode."),
+    k: int = typer.Option(DEFAULT_K, "-k", "--count", help="Posts per topic in top-k mode."),
     threshold: float = typer.Option(DEFAULT_THRESHOLD, "--threshold",
                                     help="Cosine similarity a post needs to join a topic."),
     hour_edges: str | None = typer.Option(
@@ -138,10 +146,12 @@ def segments_cmd(
     length_edges: str | None = typer.Option(
         None, "--length-edges", help="Text length band edges, e.g. 0,80,160,240,1000000000."),
     account: str | None = typer.Option(None, "--account", help="Only this account's posts."),
-    min_n: int = typer.Option(20, "--min-n", help="Flag segments with fewer posts."),
+    min_n: int = typer.Option(20, "--min-posts", help="Flag segments with fewer posts."),
     examples: int = typer.Option(3, "--examples", help="Example posts per topic."),
     plot: Path | None = typer.Option(None, "--plot", help="Write the figure (.png or .svg)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+    wide: bool = typer.Option(False, "--wide", help="Wrap segment names in full instead of "
+                              "cutting them to the terminal's width."),
 ) -> None:
     """How a metric differs between topics (named by phrases), hours, forms or accounts."""
     fmt = None
@@ -165,7 +175,7 @@ def segments_cmd(
         out.print(f"{result.n_posts:,} posts with {metric}"
                   + (f" from {account}" if account else "") + "\n", highlight=False)
         for split in result.splits:
-            print_split(split, metric)
+            print_split(split, metric, wide=wide)
         print_two_way(result)
         for w in result.warnings:
             # Text, not markup: topic names are the user's and may hold brackets.

@@ -88,7 +88,7 @@
         `similarity ${p.similarity.toFixed(2)}`, p.account, p.posted_at.slice(0, 10),
         `${fmt(v, f.metric)} ${metricLabel(f.metric)}`, `weight ${p.weight.toFixed(2)}`,
       ].join(" · ");
-      if (!p.mature) meta.append(" · ", node("span", { class: "young-tag" }, "still gathering"));
+      if (p.still_gathering) meta.append(" · ", node("span", { class: "gathering-tag" }, "still gathering"));
       li.append(meta);
       ol.append(li);
     }
@@ -109,7 +109,7 @@
     box.replaceChildren();
     const W = 640, H = 260, L = 62, R = 16, T = 14, B = 40;
     const pts = f.precedents
-      .map((p) => ({ x: p.similarity, y: valueOf(p.metrics, f.metric), young: !p.mature, p }))
+      .map((p) => ({ x: p.similarity, y: valueOf(p.metrics, f.metric), gathering: p.still_gathering, p }))
       .filter((d) => d.y !== null);
     const chart = svg("svg", {
       viewBox: `0 0 ${W} ${H}`, role: "img",
@@ -155,7 +155,7 @@
     }, metricLabel(f.metric)));
     for (const d of pts) {
       const c = svg("circle", {
-        cx: sx(d.x), cy: sy(d.y), r: 5, class: d.young ? "pt-young" : "pt-mature",
+        cx: sx(d.x), cy: sy(d.y), r: 5, class: d.gathering ? "pt-gathering" : "pt-settled",
       });
       c.append(svg("title", {}, `${d.p.post_id}: ${fmt(d.y, f.metric)}, similarity ${d.x.toFixed(2)}`));
       chart.append(c);
