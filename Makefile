@@ -36,7 +36,7 @@ lint: $(STAMP)
 system-deps:
 	@command -v chromium >/dev/null 2>&1 || { \
 	  if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then \
-	    apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends chromium; \
+	    apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends chromium fonts-noto-color-emoji; \
 	  else echo "chromium is missing: install Debian's chromium package for the browser test"; fi; }
 
 serve: $(STAMP)

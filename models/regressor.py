@@ -232,6 +232,10 @@ class QuantileForecaster:
                 where="QuantileForecaster",
             )
 
+    def calibration_scores(self, coverage: float) -> np.ndarray:
+        """The sorted CQR scores at the level nearest ``coverage``."""
+        return np.asarray(self.calibrators_[self.level_for(coverage)].scores_, dtype=float)
+
     def level_for(self, coverage: float) -> int:
         """Index of the grid level nearest ``coverage`` (ties: the wider)."""
         self._check_fitted()

@@ -342,6 +342,11 @@ class StackedForecaster:
         gaps = [(abs(c - coverage), -c) for c in self.levels_]
         return min(range(len(gaps)), key=gaps.__getitem__)
 
+    def calibration_scores(self, coverage: float) -> np.ndarray:
+        """The CQR scores of the calibration block at the level nearest
+        ``coverage``, sorted (what adaptive conformal inference moves along)."""
+        return np.sort(np.asarray(self.cal_scores_[self.level_for(coverage)], dtype=float))
+
     def predict(self, X: ArrayLike, *, coverage: float = 0.8
                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(lo, median, hi)``: the blend and its CQR band at ``coverage``."""

@@ -97,9 +97,9 @@ def give(ws: Any, drafts: list[Draft], *, metric: str = "impressions", coverage:
     return found
 
 
-def _calibrator(model: TrainedModel, coverage: float) -> Any:
-    q = model.quantiles
-    return q.calibrators_[q.level_for(coverage)]
+def _scores(model: TrainedModel, coverage: float) -> np.ndarray:
+    """The model's sorted calibration scores at ``coverage`` (either forecaster)."""
+    return model.quantiles.calibration_scores(coverage)
 
 
 def _adapt_band(f: Forecast, model: TrainedModel, coverage: float,
@@ -113,8 +113,7 @@ def _adapt_band(f: Forecast, model: TrainedModel, coverage: float,
     if state is not None and (state.real_updates or state.pseudo_updates):
         info.update(method="cqr+aci", outcomes=state.real_updates,
                     pseudo_outcomes=state.pseudo_updates, gamma=state.gamma)
-        cal = _calibrator(model, coverage)
-        shift, capped = _shift(cal.scores_, alpha, alpha_t)
+        shift, capped = _shift(_scores(model, coverage), alpha, alpha_t)
         info["capped"] = capped
         lo, med, hi = f.log
         lo, hi = min(lo - shift, med), max(hi + shift, med)
@@ -453,7 +452,7 @@ def _adapt_level(ws: Any, model: TrainedModel, metric: str, coverage: float, *, 
     if pseudo is None:
         return fed
     times, ys, bands = pseudo
-    sorted_scores = _calibrator(model, coverage).scores_
+    sorted_scores = _scores(model, coverage)
     updates = 0
     for y, (lo, hi) in zip(ys, bands, strict=True):
         shift, _ = _shift(sorted_scores, alpha, alpha_t)

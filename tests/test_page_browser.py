@@ -59,9 +59,12 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             expect(page.locator("#account option")).to_have_count(
                 len(httpx.get(f"{base}/v1/accounts").json()))
 
-            # Keyboard only: Tab from the skip link into the draft, type, Tab on.
+            # Keyboard only: Tab from the skip link to the tabs (one stop, the WAI-ARIA
+            # tabs pattern), into the draft, type, Tab on.
             page.keyboard.press("Tab")
             assert page.evaluate("document.activeElement.className") == "skip"
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.id") == "tab-check"
             page.keyboard.press("Tab")
             assert page.evaluate("document.activeElement.id") == "text"
             page.keyboard.type(DRAFT)
@@ -130,5 +133,69 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
                 EFFECTS["plan"]["near_repeat"]["post_id"])
             assert page.locator("#error").is_hidden()
             assert errors == [] and outside == []
+        finally:
+            browser.close()
+
+
+WORDINGS = [DRAFT, "Dahlia peak week in the Walled Garden: the colours glow in the low sun"]
+
+
+def test_wordings_and_segments_panels(demo_workspace, artifacts: Path) -> None:
+    """The compare-wordings and segments panels, driven with the keyboard and
+    checked against the API's own answers to the same requests."""
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        variants = httpx.post(f"{base}/v1/variants", timeout=60, json={
+            "texts": WORDINGS, "account": "loomhaven", "planned_at": PLANNED + ":00"})
+        assert variants.status_code == 200, variants.text
+        segs = httpx.post(f"{base}/v1/segments", timeout=60, json={
+            "topics": ["flowers in bloom", "volunteering"], "by": None})
+        assert segs.status_code == 200, segs.text
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 1000})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(base + "/")
+            # Arrow keys move between the tabs.
+            page.locator("#tab-check").focus()
+            page.keyboard.press("ArrowRight")
+            assert page.evaluate("document.activeElement.id") == "tab-wordings"
+            expect(page.locator("#wordings-panel")).to_be_visible()
+            expect(page.locator("#check-panel")).to_be_hidden()
+            page.locator("#w-text-1").fill(WORDINGS[0])
+            page.locator("#w-text-2").fill(WORDINGS[1])
+            expect(page.locator("#w-account option")).to_have_count(
+                len(httpx.get(f"{base}/v1/accounts").json()))
+            page.select_option("#w-account", "loomhaven")
+            page.locator("#w-planned").fill(PLANNED)
+            page.locator("#w-submit").focus()
+            page.keyboard.press("Enter")
+            rows = page.locator("#w-body tr")
+            expect(rows).to_have_count(2, timeout=60_000)
+            for i, v in enumerate(variants.json()["variants"]):
+                cells = rows.nth(i).locator("td")
+                expect(cells.nth(0)).to_have_text(str(v["rank"]))
+                expect(cells.nth(3)).to_have_text(_shown(v["median"]))
+                expect(cells.nth(4)).to_have_text("yes" if v["tied_with_best"] else "no")
+            expect(page.locator("#w-caution")).to_have_text(variants.json()["caution"])
+            page.screenshot(path=str(artifacts / "page-wordings.png"), full_page=True)
+
+            page.locator("#tab-wordings").focus()
+            page.keyboard.press("ArrowRight")
+            assert page.evaluate("document.activeElement.id") == "tab-segments"
+            page.locator("#s-topics").fill("flowers in bloom\nvolunteering")
+            page.locator("#s-submit").focus()
+            page.keyboard.press("Enter")
+            want = segs.json()["splits"][0]["segments"]
+            seg_rows = page.locator(".seg-table tbody tr")
+            expect(seg_rows).to_have_count(len(want), timeout=60_000)
+            for i, s in enumerate(want):
+                expect(seg_rows.nth(i).locator("th")).to_have_text(s["name"])
+                expect(seg_rows.nth(i).locator("td").nth(0)).to_have_text(str(s["n"]))
+            expect(page.locator("#s-plot")).to_be_visible(timeout=60_000)
+            page.screenshot(path=str(artifacts / "page-segments.png"), full_page=True)
+            assert errors == []
         finally:
             browser.close()

@@ -19,6 +19,7 @@ import pandas as pd
 import pytest
 from fastapi.testclient import TestClient
 from scipy.stats import binomtest
+from sqlalchemy import delete
 from typer.testing import CliRunner
 
 from models.embedding import Embedder
@@ -26,6 +27,7 @@ from service.api.app import create_app
 from service.cli import app
 from service.cli.base import use_embedder
 from service.settings import Settings
+from service.tables import ForecastGiven
 from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -46,6 +48,10 @@ def run(*args: str):
 @pytest.fixture()
 def home(demo_copy: Workspace, embedder: Embedder, monkeypatch: pytest.MonkeyPatch) -> Path:
     use_embedder(embedder)
+    # Other tests forecast through the shared demo directory (and so record there);
+    # this copy starts with an empty track record, so every count below is its own.
+    with demo_copy.store.session() as s:
+        s.execute(delete(ForecastGiven))
     path = demo_copy.settings.resolved_home
     monkeypatch.setenv("SOUNDING_HOME", str(path))
     return path

@@ -14,7 +14,7 @@ from rich.console import Console
 from typer.core import TyperGroup
 
 from models.embedding import Embedder
-from models.errors import SoundingError
+from models.errors import NotFound, NotReady, SoundingError
 
 from ..settings import Settings
 from ..workspace import Workspace
@@ -33,7 +33,8 @@ class _Group(TyperGroup):
             # Printed here and ended with typer.Exit: typer >= 0.29 runs its own
             # copy of click, which does not catch click.ClickException.
             err.print(f"Error: {exc}", markup=False, highlight=False)
-            step = next_step()
+            # Missing data on an empty directory: say where to start.
+            step = next_step() if isinstance(exc, (NotFound, NotReady)) else None
             if step:
                 err.print(step, markup=False, highlight=False)
             raise typer.Exit(1) from None
