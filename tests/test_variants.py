@@ -4,7 +4,6 @@ with the precedents each has that the others do not."""
 from __future__ import annotations
 
 import json
-import math
 from pathlib import Path
 
 import pytest
@@ -109,6 +108,6 @@ def test_cli_compare(demo_home, embedder, monkeypatch) -> None:
     assert res.exit_code == 0, res.output
     # The table shows each variant's median and how many precedents only it has.
     for v in body["variants"]:
-        assert f"{math.floor(v['median'] + 0.5):,}" in res.output
+        assert f"{v['median']:,.0f}" in res.output
     assert "own precedents" in res.output
     assert "not a certainty" in res.output
