@@ -8,6 +8,7 @@ on first use, and are shared by every request.
 
 from __future__ import annotations
 
+import hashlib
 import threading
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -19,7 +20,7 @@ import numpy as np
 
 from models.embedding import Embedder
 from models.errors import InputError, LimitExceeded, StoreError
-from models.index import VectorIndex
+from models.index import VectorIndex, fingerprint
 
 from .importer import ImportSummary, ProgressFn, import_csv
 from .settings import Settings
@@ -67,6 +68,16 @@ def _utc_bound(dt: datetime | None, name: str) -> datetime | None:
                          value=dt.isoformat()) from None
 
 
+def _held_pairs(pairs: Sequence[tuple[int, str]]) -> tuple[np.ndarray, np.ndarray]:
+    """(post row ids sorted, a 64-bit digest of each one's vector key): what an
+    index holds, compact enough to keep for a million posts."""
+    pks = np.array([p for p, _ in pairs], dtype=np.int64)
+    keys = np.array([int.from_bytes(hashlib.blake2b(k.encode(), digest_size=8).digest(), "little",
+                                    signed=True) for _, k in pairs], dtype=np.int64)
+    order = np.argsort(pks, kind="stable")
+    return pks[order], keys[order]
+
+
 class Workspace:
     """Everything one data directory holds, loaded once."""
 
@@ -86,6 +97,8 @@ class Workspace:
         self._index: VectorIndex | None = None
         self._index_stamp: tuple[int, int, str] | None = None
         self._lock = threading.RLock()
+        self._building = threading.Lock()  # one index build at a time
+        self._held: tuple[np.ndarray, np.ndarray] | None = None  # what the index holds
         self._forecaster: Any = None
 
     @property
@@ -103,33 +116,72 @@ class Workspace:
     # Index ------------------------------------------------------------------
 
     def index(self) -> VectorIndex:
-        """The index, checked against the store and rebuilt when stale.
+        """The index, checked against the store and brought up to date when stale.
 
-        The check is a cheap stamp (count, max id, last change) each call;
-        the full fingerprint comparison happens when the stamp moved or the
-        index was just read from disk.
+        The check is a cheap stamp each call; the full fingerprint comparison
+        happens when the stamp moved or the index was just read from disk.
+        An index this process built or updated is caught up in place (only
+        the posts that changed); one read from disk that does not match is
+        rebuilt.
         """
         with self._lock:
             stamp = self.store.stamp()
             if self._index is not None and stamp == self._index_stamp:
                 return self._index
-            fp = self.store.fingerprint()
+            pairs = self.store.index_pairs()
+            fp = fingerprint(pairs)
             index = self._index
+            if index is not None and index.fingerprint_ != fp and self._held is not None:
+                self._catch_up(index, pairs, fp)
             if index is None:
                 try:
                     index = VectorIndex.load(self.settings.index_dir)
                 except StoreError:
                     index = None
             if index is None or index.fingerprint_ != fp:
-                index = self._rebuild()
+                index = self._build(pairs, fp)
+                index.save(self.settings.index_dir)
+                self._held = _held_pairs(pairs)
             self._index, self._index_stamp = index, stamp
             return index
 
-    def _rebuild(self) -> VectorIndex:
-        ids, vecs, fp = self.store.index_data()
-        index = VectorIndex(dim=vecs.shape[1] if len(vecs) else 384).fit(ids, vecs, fingerprint=fp)
+    def _build(self, pairs: list[tuple[int, str]], fp: str) -> VectorIndex:
+        ids = np.array([p for p, _ in pairs], dtype=np.int64)
+        vecs = self.store.vectors([k for _, k in pairs])
+        return VectorIndex(
+            dim=vecs.shape[1] if len(vecs) else 384,
+            approximate_above=self.settings.index_approximate_above,
+        ).fit(ids, vecs, fingerprint=fp)
+
+    def _catch_up(self, index: VectorIndex, pairs: list[tuple[int, str]], fp: str) -> None:
+        """Apply to ``index`` the difference between the (post, vector key)
+        pairs it holds and ``pairs`` (under the lock)."""
+        held = self._held
+        now = _held_pairs(pairs)
+        assert held is not None
+        gone = np.setdiff1d(held[0], now[0])
+        if len(held[0]):
+            at = np.minimum(np.searchsorted(held[0], now[0]), len(held[0]) - 1)
+            changed = now[0][(held[0][at] != now[0]) | (held[1][at] != now[1])]
+        else:
+            changed = now[0]
+        if len(gone):
+            index.remove(gone, fingerprint=fp)
+        if len(changed):
+            key_of = dict(pairs)
+            vecs = self.store.vectors([key_of[int(p)] for p in changed])
+            index.upsert(changed, vecs, fingerprint=fp)
+        index.fingerprint_ = fp
+        self._held = now
         index.save(self.settings.index_dir)
-        return index
+        self._maybe_compact(index)
+
+    def _maybe_compact(self, index: VectorIndex) -> None:
+        """Rebuild beside the live index once removed posts make up a fifth of
+        the HNSW graph (they cost search time, never correctness)."""
+        positions = index.ntotal + index.tombstones
+        if index.tombstones and index.tombstones * 5 >= positions and not self._building.locked():
+            threading.Thread(target=self.reindex, daemon=True, name="sounding-reindex").start()
 
     def index_state(self) -> dict[str, Any]:
         """What the health endpoint reports: on disk, in step with the store?"""
@@ -141,11 +193,35 @@ class Workspace:
         ready = cfg.get("fingerprint") == self.store.fingerprint()
         return {"state": "ready" if ready else "stale", "count": int(cfg.get("count", 0))}
 
+    def search_state(self) -> dict[str, Any] | None:
+        """How the saved index searches: approximate or exact, and the recall@10
+        it measured at build (from its saved config)."""
+        cfg = VectorIndex.saved_config(self.settings.index_dir)
+        if cfg is None:
+            return None
+        return {"approximate": bool(cfg.get("approximate", False)),
+                "recall_at_10": float(cfg.get("recall_at_10", 1.0)),
+                "ef_search": cfg.get("ef_search")}
+
     def reindex(self) -> VectorIndex:
-        """Rebuild the index from the vectors in the store."""
-        with self._lock:
-            index = self._rebuild()
-            self._index, self._index_stamp = index, self.store.stamp()
+        """Rebuild the index from the vectors in the store.
+
+        The new index is built beside the live one, without the lock, so
+        searches go on meanwhile; posts that changed during the build are
+        applied to it before it is swapped in."""
+        with self._building:
+            pairs = self.store.index_pairs()
+            fp = fingerprint(pairs)
+            index = self._build(pairs, fp)
+            with self._lock:
+                self._held = _held_pairs(pairs)
+                now = self.store.index_pairs()
+                now_fp = fingerprint(now)
+                if now_fp != fp:
+                    self._catch_up(index, now, now_fp)
+                else:
+                    index.save(self.settings.index_dir)
+                self._index, self._index_stamp = index, self.store.stamp()
             return index
 
     def _sync_index(self, changed_pks: Sequence[int], removed_pks: Sequence[int] = ()) -> None:
@@ -154,16 +230,22 @@ class Workspace:
             if self._index is None:
                 self.index()
                 return
-            pairs = dict(self.store.index_pairs())
-            fp = self.store.fingerprint()
-            if removed_pks:
-                self._index.remove(np.array(removed_pks, dtype=np.int64), fingerprint=fp)
-            pks = [p for p in dict.fromkeys(changed_pks) if p in pairs]
-            if pks:
-                vecs = self.store.vectors([pairs[p] for p in pks])
-                self._index.upsert(np.array(pks, dtype=np.int64), vecs, fingerprint=fp)
-            self._index.fingerprint_ = fp
-            self._index.save(self.settings.index_dir)
+            pairs = self.store.index_pairs()
+            fp = fingerprint(pairs)
+            if self._held is not None:
+                self._catch_up(self._index, pairs, fp)
+            else:
+                key_of = dict(pairs)
+                if removed_pks:
+                    self._index.remove(np.array(removed_pks, dtype=np.int64), fingerprint=fp)
+                pks = [p for p in dict.fromkeys(changed_pks) if p in key_of]
+                if pks:
+                    vecs = self.store.vectors([key_of[p] for p in pks])
+                    self._index.upsert(np.array(pks, dtype=np.int64), vecs, fingerprint=fp)
+                self._index.fingerprint_ = fp
+                self._index.save(self.settings.index_dir)
+                self._held = _held_pairs(pairs)
+                self._maybe_compact(self._index)
             self._index_stamp = self.store.stamp()
 
     # Import -----------------------------------------------------------------
@@ -304,6 +386,7 @@ class Workspace:
             "accounts": counts["accounts"],
             "model_id": self.embedder.model_id,
             "index": self.index_state(),
+            "search": self.search_state(),
             "forecaster": self._newest_model(),
         }
 
