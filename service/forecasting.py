@@ -93,13 +93,25 @@ def feature_params(settings: Any) -> F.FeatureParams:
     )
 
 
-def training_set(view: HistoryView, params: F.FeatureParams, now: datetime
+def training_set(view: HistoryView, params: F.FeatureParams, now: datetime, *,
+                 max_posts: int | None = None, approximate_above: int | None = None,
                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Leak-free features, targets and times of every post mature by ``now``."""
+    """Leak-free features, targets and times of every post mature by ``now``
+    (only the ``max_posts`` most recent of them when set; their neighbours
+    still come from the whole history)."""
+    keep = np.flatnonzero(F.eligible(view.history, now.timestamp(), params))
+    if max_posts is not None:
+        keep = keep[-max_posts:]  # History is sorted by time
     X = F.training_matrix(view.history, local_hours=view.local_hours, weekdays=view.weekdays,
-                          forms=view.forms, params=params)
-    keep = F.eligible(view.history, now.timestamp(), params)
-    return X[keep], view.history.log_target[keep], view.history.time[keep]
+                          forms=view.forms, params=params, rows=keep,
+                          approximate_above=approximate_above)
+    return X, view.history.log_target[keep], view.history.time[keep]
+
+
+def scale_options(settings: Any) -> dict[str, Any]:
+    """The training-set options of issue 12's scale settings."""
+    return {"max_posts": getattr(settings, "train_max_posts", None),
+            "approximate_above": getattr(settings, "train_approximate_above", None)}
 
 
 # One thread: LightGBM's OpenMP threads slow down badly when other work
@@ -117,7 +129,7 @@ def train(ws: Any, metric: str = "impressions", *, now: datetime | None = None,
     now = now or now_utc()
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)
-    X, y, times = training_set(view, params, now)
+    X, y, times = training_set(view, params, now, **scale_options(ws.settings))
     if len(y) < MIN_TRAINING_POSTS:
         raise NotReady(
             f"{len(y)} mature posts with {metric}; training needs at least {MIN_TRAINING_POSTS}",
@@ -158,7 +170,7 @@ def backtest(ws: Any, metric: str = "impressions", *, coverage: float = 0.8,
     check_target(metric)
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)
-    X, y, times = training_set(view, params, now or now_utc())
+    X, y, times = training_set(view, params, now or now_utc(), **scale_options(ws.settings))
     if len(y) < MIN_TRAINING_POSTS:
         raise NotReady(f"{len(y)} mature posts with {metric}; a backtest needs {MIN_TRAINING_POSTS}")
     return run_backtest(X, y, times, feature_names=F.FEATURE_NAMES, coverage_level=coverage,
