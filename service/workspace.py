@@ -24,7 +24,7 @@ from models.index import VectorIndex, fingerprint
 
 from .importer import ImportSummary, ProgressFn, import_csv
 from .settings import Settings
-from .store import Store
+from .store import AccountInfo, Store
 from .timeparse import as_utc, now_utc
 
 
@@ -99,6 +99,8 @@ class Workspace:
         self._lock = threading.RLock()
         self._building = threading.Lock()  # one index build at a time
         self._held: tuple[np.ndarray, np.ndarray] | None = None  # what the index holds
+        self._accounts: dict[str, AccountInfo] = {}
+        self._accounts_stamp: Any = None
         self._forecaster: Any = None
 
     @property
@@ -275,6 +277,21 @@ class Workspace:
             pks = self.store.forget(account=account, post_id=post_id)
             self._sync_index([], pks)
             return len(pks)
+
+    def account(self, handle: str) -> AccountInfo:
+        """An account's facts (zone, name), cached until the store's change
+        stamp moves: a forecast needs its zone, and it rarely changes."""
+        stamp = self.store.stamp()
+        with self._lock:
+            if self._accounts_stamp != stamp:
+                self._accounts, self._accounts_stamp = {}, stamp
+            hit = self._accounts.get(handle)
+        if hit is None:
+            hit = self.store.account(handle)  # raises NotFound for an unknown handle
+            with self._lock:
+                if self._accounts_stamp == stamp:
+                    self._accounts[handle] = hit
+        return hit
 
     # Precedents -------------------------------------------------------------
 
