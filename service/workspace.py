@@ -144,6 +144,8 @@ class Workspace:
                 index = self._build(pairs, fp)
                 index.save(self.settings.index_dir)
                 self._held = _held_pairs(pairs)
+            elif self._held is None:
+                self._held = _held_pairs(pairs)  # so later changes are caught up in place
             self._index, self._index_stamp = index, stamp
             return index
 
