@@ -41,7 +41,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 from models.embedding import Embedder  # noqa: E402
-from models.index import recall_at  # noqa: E402
+from models.index import VectorIndex, recall_at  # noqa: E402
 from service import forecasting  # noqa: E402
 from service.cli.history import _demo_accounts  # noqa: E402
 from service.settings import Settings  # noqa: E402
@@ -131,12 +131,12 @@ def embed_rate(embedder: Embedder, texts: list[str], batch: int) -> float:
     return (time.perf_counter() - t0) / len(texts)
 
 
-def search_figures(ws: Workspace, rng: np.random.Generator, n_queries: int = 200
+def search_figures(ws: Workspace | VectorIndex, rng: np.random.Generator, n_queries: int = 200
                    ) -> tuple[float, float]:
     """recall@10 of the workspace's index against an exact scan, and the p50
     of one single-query search, for stored vectors moved by a little noise
     (drafts close to past posts)."""
-    index = ws.index()
+    index = ws if isinstance(ws, VectorIndex) else ws.index()
     xb = index.stored_vectors()
     ids = index.ids_ if index.approximate else faiss.vector_to_array(index.index_.id_map)
     live = np.flatnonzero(ids >= 0)
@@ -155,6 +155,50 @@ def search_figures(ws: Workspace, rng: np.random.Generator, n_queries: int = 200
     return recall, 1000 * statistics.median(times)
 
 
+def index_only(sizes: list[int], rng: np.random.Generator, as_json: bool, keep: Path | None) -> None:
+    """The index alone at each size, on demo vectors moved by N(0, 0.02) noise
+    (the vectors grow() gives a store), built as the service builds it."""
+    with tempfile.TemporaryDirectory() as tmp:
+        demo = Workspace(settings=Settings(home=(keep or Path(tmp)) / "demo"))
+        if not demo.store.counts()["posts"]:
+            for handle, name, tz in _demo_accounts():
+                demo.store.set_account(handle, display_name=name, timezone=tz)
+            demo.import_csv(ROOT / "demo_data" / "posts.csv")
+        _, base, _ = demo.store.index_data()
+        settings = demo.settings
+        demo.close()
+    results = []
+    out = ROOT / "bench" / "results"
+    out.mkdir(exist_ok=True)
+    stamp = time.strftime("%Y%m%dT%H%M%SZ", time.gmtime())
+    for size in sizes:
+        vecs = np.empty((size, base.shape[1]), dtype=np.float32)
+        for i in range(0, size, 100_000):
+            j = min(size, i + 100_000)
+            v = base[np.arange(i, j) % len(base)] + rng.normal(0, 0.02, (j - i, base.shape[1]))
+            vecs[i:j] = v / np.linalg.norm(v, axis=1, keepdims=True)
+        before = rss_mb(os.getpid())[0]
+        t0 = time.perf_counter()
+        index = VectorIndex(approximate_above=settings.index_approximate_above).fit(
+            np.arange(size, dtype=np.int64), vecs)
+        build = time.perf_counter() - t0
+        del vecs
+        gc.collect()
+        recall, p50 = search_figures(index, rng)
+        cfg = index.config()
+        row = {"posts": size, "search_p50_ms": round(p50, 3), "search_recall_at_10": round(recall, 4),
+               "index_build_s": round(build, 1), "index_rss_mb": round(rss_mb(os.getpid())[0] - before, 1),
+               "index": {k: cfg[k] for k in ("kind", "ef_search", "recall_at_10", "count")},
+               "load_average": list(os.getloadavg())}
+        results.append(row)
+        print(json.dumps(row), file=sys.stderr, flush=True)
+        (out / f"index-{stamp}.json").write_text(json.dumps(results, indent=2))
+        del index
+        gc.collect()
+    if as_json:
+        print(json.dumps(results, indent=2))
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000])
@@ -166,8 +210,14 @@ def main() -> None:
     ap.add_argument("--json", action="store_true", help="print the results as JSON")
     ap.add_argument("--keep", type=Path, default=None,
                     help="build the stores in this directory and keep them (default: a temporary one)")
+    ap.add_argument("--index-only", action="store_true",
+                    help="measure only the index (build, recall, search, memory) on perturbed demo "
+                         "vectors, without a store, training or service")
     args = ap.parse_args()
     rng = np.random.default_rng(0)
+    if args.index_only:
+        index_only(args.sizes, rng, args.json, args.keep)
+        return
     embedder = Embedder()
     embedder.encode(["warm up"])
     results: list[dict[str, object]] = []
