@@ -129,6 +129,7 @@ def test_forget_removes_posts_from_the_approximate_index(demo_copy: Workspace, d
     assert index.approximate
     state = demo_copy.search_state()
     assert state is not None and state["approximate"] and state["recall_at_10"] >= 0.98
+    assert demo_copy.health()["search"] == state  # what GET /v1/health reports
     victim = 42
     demo_copy.forget(account=str(accounts[victim]),
                      post_id=str(demo_copy.store.posts_frame().iloc[victim]["post_id"]))
