@@ -54,12 +54,29 @@ CAUTION = (
 )
 
 
-def training_set(view: HistoryView, params: F.FeatureParams, now: datetime
+def training_rows(view: HistoryView, params: F.FeatureParams, now: datetime, *,
+                  max_posts: int | None = None) -> np.ndarray:
+    """Rows of the view that train: every post settled by ``now`` (only the
+    ``max_posts`` most recent of them when set)."""
+    keep = np.flatnonzero(F.eligible(view.history, now.timestamp(), params))
+    return keep if max_posts is None else keep[-max_posts:]  # the view is sorted by time
+
+
+def training_set(view: HistoryView, params: F.FeatureParams, now: datetime, *,
+                 max_posts: int | None = None, approximate_above: int | None = None,
                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Leak-free features, targets and times of every post mature by ``now``."""
-    X = Retriever.training_matrix(view, params)
-    keep = F.eligible(view.history, now.timestamp(), params)
-    return X[keep], view.history.log_target[keep], view.history.time[keep]
+    """Leak-free features, targets and times of every post settled by ``now``
+    (only the ``max_posts`` most recent of them when set; their neighbours
+    still come from the whole history)."""
+    keep = training_rows(view, params, now, max_posts=max_posts)
+    X = Retriever.training_matrix(view, params, rows=keep, approximate_above=approximate_above)
+    return X, view.history.log_target[keep], view.history.time[keep]
+
+
+def scale_options(settings: Settings) -> dict[str, Any]:
+    """The training-set options of the scale settings (SOUNDING_TRAIN_*)."""
+    return {"max_posts": settings.train_max_posts,
+            "approximate_above": settings.train_approximate_above}
 
 
 MIN_TRAINING_POSTS = 200
@@ -79,14 +96,14 @@ def _train(ws: Any, metric: str, *, now: datetime | None, backtest: bool,
     now = now or now_utc()
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)
-    X, y, times = training_set(view, params, now)
+    X, y, times = training_set(view, params, now, **scale_options(ws.settings))
     if len(y) < MIN_TRAINING_POSTS:
         raise NotReady(
             f"{len(y)} mature posts with {metric}; training needs at least {MIN_TRAINING_POSTS}",
             hint="import more history",
         )
-    # issue 10: the text model's time-ordered column and the account code.
-    X, text = _with_extra(view, params, now, X)
+    # The text model's time-ordered column and the account code (models.stacking).
+    X, text = _with_extra(view, params, now, X, ws.settings)
     order = np.argsort(times, kind="stable")
     X, y, times = X[order], y[order], times[order]
     # The calibration block comes after the training block in time.
@@ -129,19 +146,19 @@ def backtest(ws: DataDir, metric: str = DEFAULT_METRIC, *, coverage: float = DEF
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)
     now = now or now_utc()
-    X, y, times = training_set(view, params, now)
+    X, y, times = training_set(view, params, now, **scale_options(ws.settings))
     if len(y) < MIN_TRAINING_POSTS:
         raise NotReady(f"{len(y)} mature posts with {metric}; a backtest needs {MIN_TRAINING_POSTS}")
-    X, _ = _with_extra(view, params, now, X)
+    X, _ = _with_extra(view, params, now, X, ws.settings)
     return run_backtest(X, y, times, feature_names=ALL_FEATURES, coverage_level=coverage,
                         n_folds=n_folds, params=STACK_PARAMS)
 
 
-def _with_extra(view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray
-                ) -> tuple[np.ndarray, Any]:
-    """issue 10: ``X`` (rows of ``training_set``) with models.stacking's extra columns."""
+def _with_extra(view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray,
+                settings: Settings) -> tuple[np.ndarray, Any]:
+    """``X`` (rows of ``training_set``) with models.stacking's extra columns."""
     extra, text = extra_columns(view.history, maturity_s=params.maturity_s, now=now.timestamp())
-    keep = F.eligible(view.history, now.timestamp(), params)
+    keep = training_rows(view, params, now, max_posts=settings.train_max_posts)
     return np.hstack([X, extra[keep]]), text
 
 

@@ -163,13 +163,18 @@ class Retriever:
     # Training rows ----------------------------------------------------------
 
     @staticmethod
-    def training_matrix(view: HistoryView, params: F.FeatureParams) -> np.ndarray:
-        """Leak-free feature rows of every post of the view (needs its vectors):
-        each post's neighbours by the same eligibility rule as a draft's."""
+    def training_matrix(view: HistoryView, params: F.FeatureParams, *,
+                        rows: np.ndarray | None = None,
+                        approximate_above: int | None = None) -> np.ndarray:
+        """Leak-free feature rows of the view's posts (all, or ``rows``; needs its
+        vectors): each post's neighbours by the same eligibility rule as a
+        draft's, from an approximate index past ``approximate_above`` posts."""
         return F.training_matrix(
             view.history,
             local_hours=view.local_hours,
             weekdays=view.weekdays,
             forms=view.forms,
             params=params,
+            rows=rows,
+            approximate_above=approximate_above,
         )

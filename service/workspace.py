@@ -8,6 +8,7 @@ on first use, and are shared by every request.
 
 from __future__ import annotations
 
+import hashlib
 import logging
 import os
 import threading
@@ -22,7 +23,7 @@ import numpy as np
 from models.artefact import clean_leftovers, intact
 from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
-from models.index import VectorIndex
+from models.index import VectorIndex, fingerprint
 
 from .forecasting import Forecaster
 from .importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
@@ -30,7 +31,7 @@ from .locking import LOCK_FILE, WriteLock
 from .precedents import Precedent, precedents_for
 from .retrieval import Hits, Retriever
 from .settings import Settings
-from .store import Store
+from .store import AccountInfo, Store
 from .timeparse import as_utc
 from .track_record import after_import
 
@@ -51,6 +52,16 @@ def _utc_bound(dt: datetime | None, name: str) -> datetime | None:
 
 
 log = logging.getLogger("sounding.workspace")
+
+
+def _held_pairs(pairs: Sequence[tuple[int, str]]) -> tuple[np.ndarray, np.ndarray]:
+    """(post row ids sorted, a 64-bit digest of each one's vector key): what an
+    index holds, compact enough to keep for a million posts."""
+    pks = np.array([p for p, _ in pairs], dtype=np.int64)
+    keys = np.array([int.from_bytes(hashlib.blake2b(k.encode(), digest_size=8).digest(), "little",
+                                    signed=True) for _, k in pairs], dtype=np.int64)
+    order = np.argsort(pks, kind="stable")
+    return pks[order], keys[order]
 
 
 class Workspace:
@@ -88,6 +99,10 @@ class Workspace:
         #: The forecast service over this data directory (loads models on demand).
         self.forecaster = Forecaster(store=self.store, settings=settings,
                                      retrieval=self.retrieval, encode=self.embedder.encode)
+        self._building = threading.Lock()  # one index build at a time
+        self._held: tuple[np.ndarray, np.ndarray] | None = None  # what the index holds
+        self._accounts: dict[str, AccountInfo] = {}
+        self._accounts_stamp: Any = None
 
     def close(self) -> None:
         self.store.close()
@@ -111,35 +126,75 @@ class Workspace:
     # Index ------------------------------------------------------------------
 
     def index(self) -> VectorIndex:
-        """The index, checked against the store and rebuilt when stale.
+        """The index, checked against the store and brought up to date when stale.
 
-        The check is a cheap stamp (count, max id, last change) each call;
-        the full fingerprint comparison happens when the stamp moved or the
-        index was just read from disk.
+        The check is a cheap stamp each call; the full fingerprint comparison
+        happens when the stamp moved or the index was just read from disk.
+        An index this process built or updated is caught up in place (only
+        the posts that changed); one read from disk that does not match is
+        rebuilt.
         """
         with self._lock:
             stamp = self.store.stamp()
             if self._index is not None and stamp == self._index_stamp:
                 return self._index
-            fp = self.store.fingerprint()
+            pairs = self.store.index_pairs()
+            fp = fingerprint(pairs)
             index = self._index
+            if index is not None and index.fingerprint_ != fp and self._held is not None:
+                self._catch_up(index, pairs, fp)
             if index is None:
                 try:
                     index = VectorIndex.load(self.settings.index_dir)
                 except StoreError:
                     index = None
             if index is None or index.fingerprint_ != fp:
-                index = self._rebuild()
+                index = self._build(pairs, fp)
+                self._save_index(index)
+                self._held = _held_pairs(pairs)
+            elif self._held is None:
+                self._held = _held_pairs(pairs)  # so later changes are caught up in place
             self._index, self._index_stamp = index, stamp
             self._index_own = self.store.own_writes
             return index
 
-    def _rebuild(self) -> VectorIndex:
-        ids, vecs, fp = self.store.index_data()
-        dim = vecs.shape[1] if len(vecs) else self.embedder.dim
-        index = VectorIndex(dim=dim).fit(ids, vecs, fingerprint=fp)
+    def _build(self, pairs: list[tuple[int, str]], fp: str) -> VectorIndex:
+        ids = np.array([p for p, _ in pairs], dtype=np.int64)
+        vecs = self.store.vectors([k for _, k in pairs])
+        return VectorIndex(
+            dim=vecs.shape[1] if len(vecs) else self.embedder.dim,
+            approximate_above=self.settings.index_approximate_above,
+        ).fit(ids, vecs, fingerprint=fp)
+
+    def _catch_up(self, index: VectorIndex, pairs: list[tuple[int, str]], fp: str) -> None:
+        """Apply to ``index`` the difference between the (post, vector key)
+        pairs it holds and ``pairs`` (under the lock)."""
+        held = self._held
+        now = _held_pairs(pairs)
+        assert held is not None
+        gone = np.setdiff1d(held[0], now[0])
+        if len(held[0]):
+            at = np.minimum(np.searchsorted(held[0], now[0]), len(held[0]) - 1)
+            changed = now[0][(held[0][at] != now[0]) | (held[1][at] != now[1])]
+        else:
+            changed = now[0]
+        if len(gone):
+            index.remove(gone, fingerprint=fp)
+        if len(changed):
+            key_of = dict(pairs)
+            vecs = self.store.vectors([key_of[int(p)] for p in changed])
+            index.upsert(changed, vecs, fingerprint=fp)
+        index.fingerprint_ = fp
+        self._held = now
         self._save_index(index)
-        return index
+        self._maybe_compact(index)
+
+    def _maybe_compact(self, index: VectorIndex) -> None:
+        """Rebuild beside the live index once removed posts make up a fifth of
+        the HNSW graph (they cost search time, never correctness)."""
+        positions = index.ntotal + index.tombstones
+        if index.tombstones and index.tombstones * 5 >= positions and not self._building.locked():
+            threading.Thread(target=self._reindex, daemon=True, name="sounding-reindex").start()
 
     def _save_index(self, index: VectorIndex) -> None:
         """Save the index, or keep it in memory only: a full disk or a
@@ -164,12 +219,40 @@ class Workspace:
         ready = cfg.get("fingerprint") == self.store.fingerprint()
         return {"state": "ready" if ready else "stale", "count": int(cfg.get("count", 0))}
 
+    def search_state(self) -> dict[str, Any] | None:
+        """How the saved index searches: approximate or exact, and the recall@10
+        it measured at build (from its saved config)."""
+        cfg = VectorIndex.saved_config(self.settings.index_dir)
+        if cfg is None:
+            return None
+        return {"approximate": bool(cfg.get("approximate", False)),
+                "recall_at_10": float(cfg.get("recall_at_10", 1.0)),
+                "ef_search": cfg.get("ef_search")}
+
     def reindex(self) -> VectorIndex:
-        """Rebuild the index from the vectors in the store."""
-        with self.writing("a reindex"), self._lock:
-            index = self._rebuild()
-            self._index, self._index_stamp = index, self.store.stamp()
-            self._index_own = self.store.own_writes
+        """Rebuild the index from the vectors in the store, as the data
+        directory's one writer (service.locking)."""
+        with self.writing("a reindex"):
+            return self._reindex()
+
+    def _reindex(self) -> VectorIndex:
+        """Build a new index beside the live one, without the lock, so searches
+        go on meanwhile; posts that changed during the build are applied to it
+        before it is swapped in."""
+        with self._building:
+            pairs = self.store.index_pairs()
+            fp = fingerprint(pairs)
+            index = self._build(pairs, fp)
+            with self._lock:
+                self._held = _held_pairs(pairs)
+                now = self.store.index_pairs()
+                now_fp = fingerprint(now)
+                if now_fp != fp:
+                    self._catch_up(index, now, now_fp)
+                else:
+                    self._save_index(index)
+                self._index, self._index_stamp = index, self.store.stamp()
+                self._index_own = self.store.own_writes
             return index
 
     def _sync_index(self, changed_pks: Sequence[int], removed_pks: Sequence[int] = ()) -> None:
@@ -178,32 +261,20 @@ class Workspace:
             if self._index is None:
                 self.index()
                 return
-            pairs = dict(self.store.index_pairs())
-            fp = self.store.fingerprint()
-            # Read after the pairs: if another process (a replica, the CLI)
-            # wrote since the index was in step, its changes are in the pairs
-            # but not in changed_pks, so rebuild instead.
+            pairs = self.store.index_pairs()
+            fp = fingerprint(pairs)
             stamp = self.store.stamp()
             own = self.store.own_writes
-            if self._index_stamp is None or stamp - self._index_stamp != own - self._index_own:
-                self._index, self._index_stamp, self._index_own = self._rebuild(), stamp, own
-                return
-            if removed_pks:
-                self._index.remove(np.array(removed_pks, dtype=np.int64), fingerprint=fp)
-            pks = [p for p in dict.fromkeys(changed_pks) if p in pairs]
-            if pks:
-                vecs = self.store.vectors([pairs[p] for p in pks])
-                self._index.upsert(np.array(pks, dtype=np.int64), vecs, fingerprint=fp)
-            # The store's fingerprint may be claimed only if the index holds
-            # exactly the store's posts: a writer that bypassed the lock would
-            # otherwise leave an index that is short of posts yet "current".
-            if not np.array_equal(np.sort(self._index.ids()), np.sort(np.fromiter(
-                    pairs, dtype=np.int64, count=len(pairs)))):
-                log.warning("the index did not match the store after a change; rebuilt")
-                self._index = self._rebuild()
+            if self._held is not None:
+                # Diffs the index against the store's whole (post, vector) set,
+                # so changes by other processes (replicas, the CLI, a writer
+                # that bypassed the lock) are applied too: the index never
+                # claims the store's fingerprint without holding exactly its posts.
+                self._catch_up(self._index, pairs, fp)
             else:
-                self._index.fingerprint_ = fp
+                self._index = self._build(pairs, fp)
                 self._save_index(self._index)
+                self._held = _held_pairs(pairs)
             self._index_stamp, self._index_own = stamp, own
 
     # Import -----------------------------------------------------------------
@@ -260,6 +331,21 @@ class Workspace:
             pks = self.store.forget(account=account, post_id=post_id)
             self._sync_index([], pks)
             return len(pks)
+
+    def account(self, handle: str) -> AccountInfo:
+        """An account's facts (zone, name), cached until the store's change
+        stamp moves: a forecast needs its zone, and it rarely changes."""
+        stamp = self.store.stamp()
+        with self._lock:
+            if self._accounts_stamp != stamp:
+                self._accounts, self._accounts_stamp = {}, stamp
+            hit = self._accounts.get(handle)
+        if hit is None:
+            hit = self.store.account(handle)  # raises NotFound for an unknown handle
+            with self._lock:
+                if self._accounts_stamp == stamp:
+                    self._accounts[handle] = hit
+        return hit
 
     # Precedents -------------------------------------------------------------
 
@@ -318,6 +404,7 @@ class Workspace:
             "model_id": self.embedder.model_id,
             "embedding": self.embedder.info(),
             "index": self.index_state(),
+            "search": self.search_state(),
             "forecaster": served,
             "damaged_models": [f"impressions/{v}: {why}" for v, why in damaged],
             "read_only": self.read_only,

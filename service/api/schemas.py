@@ -82,12 +82,20 @@ class EmbeddingState(BaseModel):
     fallback: str | None = Field(default=None, description="Why ONNX is not in use")
 
 
+class SearchState(BaseModel):
+    approximate: bool = Field(description="true for an HNSW graph, false for an exact scan")
+    recall_at_10: float = Field(description="recall@10 against exact search, measured at build "
+                                "on a sample of the index's own vectors (1.0 when exact)")
+    ef_search: int | None = Field(default=None, description="HNSW efSearch chosen at build")
+
+
 class Health(BaseModel):
     posts: int
     accounts: int
     model_id: str
     embedding: EmbeddingState | None = None
     index: IndexState
+    search: SearchState | None = Field(default=None, description="How the index searches")
     forecaster: str | None = Field(default=None, description="Version of the model in use")
     damaged_models: list[str] = Field(
         default_factory=list,

@@ -16,7 +16,7 @@ router = APIRouter(prefix="/v1", tags=["forecasts"])
 
 
 def to_draft(ws: Workspace, d: DraftIn, where: str) -> Draft:
-    tz = ws.store.account(d.account).timezone
+    tz = ws.account(d.account).timezone  # cached behind the store's stamp
     planned = parse_time(d.planned_at, tz=tz, where=where) if d.planned_at else None
     return Draft(text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id,
                  has_media=d.has_media)
