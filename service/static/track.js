@@ -27,7 +27,8 @@
       `${pct(o.live_coverage)} of ${o.settled} (95% interval ${pct(ci[0])}–${pct(ci[1])}), ` +
       `stated ${pct(o.stated_coverage)}`;
     const b = o.baselines;
-    const f = (v) => (v === null ? "–" : v.toFixed(2));
+    // A typical miss: the forecast is off by this factor either way (exp of MAE on log1p).
+    const f = (v) => (v === null ? "–" : "×" + Math.exp(v).toFixed(2));
     $("track-mae").textContent =
       `sounding ${f(o.mae_log)}; account median ${f(b.account_median.mae_log)}; ` +
       `precedents' median ${f(b.precedents_median.mae_log)}`;
