@@ -41,10 +41,14 @@ def group_contributions(
 _WHY = {
     "precedents": ("similar past posts did better than usual", "similar past posts did worse than usual"),
     "timing": ("the planned hour and day tend to do well", "the planned hour and day tend to do worse"),
-    "account baseline": ("this account's recent posts run above the team's usual",
-                         "this account's recent posts run below the team's usual"),
-    "text form": ("the draft's form (length, link, tags, media) helps",
-                  "the draft's form (length, link, tags, media) holds it back"),
+    "account baseline": (
+        "this account's recent posts run above the team's usual",
+        "this account's recent posts run below the team's usual",
+    ),
+    "text form": (
+        "the draft's form (length, link, tags, media) helps",
+        "the draft's form (length, link, tags, media) holds it back",
+    ),
 }
 
 

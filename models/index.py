@@ -73,8 +73,9 @@ def top_k_exact(queries: np.ndarray, base: np.ndarray, k: int) -> tuple[np.ndarr
     return sims, pos
 
 
-def recall_at(approx: np.ndarray, exact_sims: np.ndarray, approx_sims: np.ndarray,
-              *, tol: float = 1e-6) -> float:
+def recall_at(
+    approx: np.ndarray, exact_sims: np.ndarray, approx_sims: np.ndarray, *, tol: float = 1e-6
+) -> float:
     """Share of the exact top-k that the approximate answer found, counting
     a returned neighbour as found when its similarity reaches the exact k-th
     (so exact ties at the boundary are not held against the index)."""
@@ -83,13 +84,11 @@ def recall_at(approx: np.ndarray, exact_sims: np.ndarray, approx_sims: np.ndarra
     return float(np.minimum(hit.sum(axis=1), exact_sims.shape[1]).sum() / exact_sims.size)
 
 
-def _drop_self(sims: np.ndarray, pos: np.ndarray, own: np.ndarray, k: int
-               ) -> tuple[np.ndarray, np.ndarray]:
+def _drop_self(sims: np.ndarray, pos: np.ndarray, own: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     """The first ``k`` answers per row without the query's own position
     (the last one is cut when it is absent)."""
     order = np.argsort(pos == own[:, None], axis=1, kind="stable")  # self column last
-    return (np.take_along_axis(sims, order, axis=1)[:, :k],
-            np.take_along_axis(pos, order, axis=1)[:, :k])
+    return (np.take_along_axis(sims, order, axis=1)[:, :k], np.take_along_axis(pos, order, axis=1)[:, :k])
 
 
 class VectorIndex:
@@ -298,8 +297,7 @@ class VectorIndex:
         finally:
             faiss.omp_set_num_threads(threads)
 
-    def _search(self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None
-                ) -> tuple[np.ndarray, np.ndarray]:
+    def _search(self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
         index = self._fitted()
         if allowed_ids is not None and len(allowed_ids) == 0:
             return (
@@ -314,8 +312,9 @@ class VectorIndex:
             return index.search(q, k, params=params)
         return self._search_hnsw(q, k, allowed_ids)
 
-    def _search_hnsw(self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None
-                     ) -> tuple[np.ndarray, np.ndarray]:
+    def _search_hnsw(
+        self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None
+    ) -> tuple[np.ndarray, np.ndarray]:
         ef = max(self.ef_search_, k)
         if allowed_ids is None:
             if self._live_bitmap is None:
@@ -323,8 +322,9 @@ class VectorIndex:
             else:
                 live = len(self._ids_sorted)
                 sel = faiss.IDSelectorBitmap(self._live_bitmap)
-                sims, pos = self.index_.search(q, k, params=self._params(
-                    ef * min(8, math.ceil(len(self.ids_) / max(live, 1))), sel))
+                sims, pos = self.index_.search(
+                    q, k, params=self._params(ef * min(8, math.ceil(len(self.ids_) / max(live, 1))), sel)
+                )
             return sims, np.where(pos >= 0, self.ids_[np.maximum(pos, 0)], -1)
         allowed = np.unique(np.ascontiguousarray(allowed_ids, dtype=np.int64))
         pos_ok = self._positions(allowed)
@@ -404,10 +404,14 @@ class VectorIndex:
         except FileNotFoundError:
             raise StoreError(f"no index in {d}", hint="run `sounding reindex`") from None
         except (RuntimeError, ValueError, json.JSONDecodeError) as exc:
-            raise StoreError(f"the index in {d} is unreadable: {exc}", hint="run `sounding reindex`") from None
+            raise StoreError(
+                f"the index in {d} is unreadable: {exc}", hint="run `sounding reindex`"
+            ) from None
         self = cls(
-            dim=int(cfg["dim"]), approximate_above=cfg.get("approximate_above"),
-            hnsw_m=int(cfg.get("hnsw_m") or 32), ef_construction=int(cfg.get("ef_construction") or 40),
+            dim=int(cfg["dim"]),
+            approximate_above=cfg.get("approximate_above"),
+            hnsw_m=int(cfg.get("hnsw_m") or 32),
+            ef_construction=int(cfg.get("ef_construction") or 40),
             target_recall=float(cfg.get("target_recall", 0.98)),
         )
         self.index_ = index

@@ -118,8 +118,12 @@ def _log_axis(ax: Axes) -> None:
 
 
 def _ecdf_panel(
-    ax: Axes, order: list[SegmentStats], groups: dict[str, np.ndarray],
-    floor: float, colours: dict[str, str], metric: str,
+    ax: Axes,
+    order: list[SegmentStats],
+    groups: dict[str, np.ndarray],
+    floor: float,
+    colours: dict[str, str],
+    metric: str,
 ) -> None:
     # Highest-median segment first in the legend, matching the right panel
     # read top to bottom.
@@ -132,50 +136,77 @@ def _ecdf_panel(
         ys = np.concatenate([[0.0], np.arange(1, vals.size + 1) / vals.size])
         label = f"{seg.name} (n={seg.n})" + (", too few" if seg.too_small else "")
         ax.step(
-            xs, ys, where="post", color=colours[seg.name],
+            xs,
+            ys,
+            where="post",
+            color=colours[seg.name],
             linewidth=1.1 if seg.too_small else 1.8,
             # Too-small segments share one grey; distinct dashes keep them apart.
             linestyle=(0, next(dashes)) if seg.too_small else "-",
-            alpha=0.9, label=label,
+            alpha=0.9,
+            label=label,
         )
     _log_axis(ax)
     ax.set_ylim(0, 1.02)
     ax.set_ylabel("fraction of posts at or below")
-    ax.set_xlabel(f"{metric} (log scale; values below {_plain_number(floor)} drawn at "
-                  f"{_plain_number(floor)})")
+    ax.set_xlabel(
+        f"{metric} (log scale; values below {_plain_number(floor)} drawn at {_plain_number(floor)})"
+    )
     ax.set_title("How each segment is spread", loc="left")
     ax.grid(True, axis="y", color=GRID, linewidth=0.8)
     # ECDFs climb from lower left to upper right, so the upper left corner
     # is the emptiest; a light frame keeps the text clear of any line.
-    leg = ax.legend(loc="upper left", frameon=True, handlelength=1.6, borderaxespad=0.3,
-                    ncol=2 if len(order) > 8 else 1)
+    leg = ax.legend(
+        loc="upper left", frameon=True, handlelength=1.6, borderaxespad=0.3, ncol=2 if len(order) > 8 else 1
+    )
     leg.get_frame().set(facecolor="white", edgecolor="none", alpha=0.92)
 
 
 def _interval_panel(
-    ax: Axes, order: list[SegmentStats], report: SegmentReport,
-    floor: float, colours: dict[str, str], metric: str,
+    ax: Axes,
+    order: list[SegmentStats],
+    report: SegmentReport,
+    floor: float,
+    colours: dict[str, str],
+    metric: str,
 ) -> None:
     ys = np.arange(len(order))
     for y, seg in zip(ys, order):
         lo, mid, hi = (max(v, floor) for v in (seg.ci_low, seg.median, seg.ci_high))
         colour = colours[seg.name]
-        ax.plot([lo, hi], [y, y], color=colour, linewidth=2.4 if not seg.too_small else 1.4,
-                solid_capstyle="round", alpha=0.85)
         ax.plot(
-            [mid], [y], marker="o", markersize=8 if not seg.too_small else 7,
+            [lo, hi],
+            [y, y],
+            color=colour,
+            linewidth=2.4 if not seg.too_small else 1.4,
+            solid_capstyle="round",
+            alpha=0.85,
+        )
+        ax.plot(
+            [mid],
+            [y],
+            marker="o",
+            markersize=8 if not seg.too_small else 7,
             markerfacecolor="white" if seg.too_small else colour,
-            markeredgecolor=colour, markeredgewidth=1.6, linestyle="none", zorder=3,
+            markeredgecolor=colour,
+            markeredgewidth=1.6,
+            linestyle="none",
+            zorder=3,
         )
     overall = max(report.overall_median, floor)
     ax.axvline(overall, color=INK, linestyle=(0, (4, 3)), linewidth=1, alpha=0.7, zorder=1)
-    ax.annotate(f"all posts: {_plain_number(overall)}", xy=(overall, 1.0),
-                xycoords=("data", "axes fraction"), xytext=(4, -2),
-                textcoords="offset points", va="top", fontsize=8.5, color=INK)
-    ax.set_yticks(ys)
-    ax.set_yticklabels(
-        [f"{s.name}  n={s.n}" + ("  (too few)" if s.too_small else "") for s in order]
+    ax.annotate(
+        f"all posts: {_plain_number(overall)}",
+        xy=(overall, 1.0),
+        xycoords=("data", "axes fraction"),
+        xytext=(4, -2),
+        textcoords="offset points",
+        va="top",
+        fontsize=8.5,
+        color=INK,
     )
+    ax.set_yticks(ys)
+    ax.set_yticklabels([f"{s.name}  n={s.n}" + ("  (too few)" if s.too_small else "") for s in order])
     for tick, seg in zip(ax.get_yticklabels(), order):
         if seg.too_small:
             tick.set_color(MUTED)
@@ -215,8 +246,7 @@ def plot_segments(
     groups = _groups(arr, labels)
     missing = [s.name for s in report.segments if s.name not in groups]
     if missing:
-        raise InputError(f"labels lack segment(s) {', '.join(missing)} from the report",
-                         field="labels")
+        raise InputError(f"labels lack segment(s) {', '.join(missing)} from the report", field="labels")
 
     # Bottom to top by median, so the highest segment sits at the top.
     order = sorted(report.segments, key=lambda s: (s.median, s.name))
@@ -234,11 +264,15 @@ def plot_segments(
         fig.suptitle(
             f"{metric} by segment: dots are medians, bars are bootstrap {pct} "
             f"confidence intervals of the median",
-            x=0.01, ha="left", fontsize=12.5, fontweight="bold",
+            x=0.01,
+            ha="left",
+            fontsize=12.5,
+            fontweight="bold",
         )
         buf = io.BytesIO()
-        fig.savefig(buf, format=fmt, dpi=DPI, facecolor="white",
-                    metadata={"Date": None} if fmt == "svg" else None)
+        fig.savefig(
+            buf, format=fmt, dpi=DPI, facecolor="white", metadata={"Date": None} if fmt == "svg" else None
+        )
     data = buf.getvalue()
     fig.clear()  # drop artists now rather than waiting for the collector
     if path is not None:

@@ -47,23 +47,33 @@ def _harmonics(hours: np.ndarray) -> np.ndarray:
     # order flattened the demo's curve (Spearman 0.86-0.90 against the truth,
     # 0.95-0.98 with it; our measurement on the demo, no source).
     a = 2 * np.pi * hours / 24.0
-    return np.column_stack([f(k * a) / k for k in range(1, HARMONICS + 1)
-                            for f in (np.sin, np.cos)])
+    return np.column_stack([f(k * a) / k for k in range(1, HARMONICS + 1) for f in (np.sin, np.cos)])
 
 
 class TimingEffect:
     """Additive hour and weekday effect on the log metric (mean zero over
     the fitting rows)."""
 
-    def __init__(self, *, alphas: Sequence[float] = ALPHAS, validation_fraction: float = 0.25,
-                 n_bootstrap: int = 100, random_state: int = 0) -> None:
+    def __init__(
+        self,
+        *,
+        alphas: Sequence[float] = ALPHAS,
+        validation_fraction: float = 0.25,
+        n_bootstrap: int = 100,
+        random_state: int = 0,
+    ) -> None:
         self.alphas = alphas
         self.validation_fraction = validation_fraction
         self.n_bootstrap = n_bootstrap
         self.random_state = random_state
 
-    def design(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike,
-               account_list: Sequence[int] | None = None) -> np.ndarray:
+    def design(
+        self,
+        hours: ArrayLike,
+        weekdays: ArrayLike,
+        accounts: ArrayLike,
+        account_list: Sequence[int] | None = None,
+    ) -> np.ndarray:
         h = np.asarray(hours, dtype=float)
         wd = np.asarray(weekdays, dtype=float).astype(int)
         ac = np.asarray(accounts, dtype=float).astype(int)
@@ -77,8 +87,7 @@ class TimingEffect:
                 parts.append(ACCOUNT_SCALE * H * (ac == a)[:, None])
         return np.hstack(parts)
 
-    def fit(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike,
-            residual: ArrayLike) -> Self:
+    def fit(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike, residual: ArrayLike) -> Self:
         """Rows in time order; ``residual`` is the log metric minus a level
         (the account's trailing median)."""
         r = np.asarray(residual, dtype=float)
@@ -124,29 +133,37 @@ class TimingEffect:
 
     def to_config(self) -> dict[str, Any]:
         self._check_fitted()
-        return {"alphas": [float(a) for a in self.alphas],
-                "validation_fraction": float(self.validation_fraction),
-                "n_bootstrap": int(self.n_bootstrap), "random_state": int(self.random_state),
-                "accounts": list(self.accounts_), "alpha": self.alpha_,
-                "alpha_errors": list(self.alpha_errors_), "coef": self.coef_.tolist(),
-                "offset": self.offset_, "bootstrap_coefs": self.bootstrap_coefs_.tolist()}
+        return {
+            "alphas": [float(a) for a in self.alphas],
+            "validation_fraction": float(self.validation_fraction),
+            "n_bootstrap": int(self.n_bootstrap),
+            "random_state": int(self.random_state),
+            "accounts": list(self.accounts_),
+            "alpha": self.alpha_,
+            "alpha_errors": list(self.alpha_errors_),
+            "coef": self.coef_.tolist(),
+            "offset": self.offset_,
+            "bootstrap_coefs": self.bootstrap_coefs_.tolist(),
+        }
 
     @classmethod
     def from_config(cls, cfg: dict[str, Any]) -> Self:
-        m = cls(alphas=tuple(cfg["alphas"]), validation_fraction=cfg["validation_fraction"],
-                n_bootstrap=cfg["n_bootstrap"], random_state=cfg["random_state"])
+        m = cls(
+            alphas=tuple(cfg["alphas"]),
+            validation_fraction=cfg["validation_fraction"],
+            n_bootstrap=cfg["n_bootstrap"],
+            random_state=cfg["random_state"],
+        )
         m.accounts_ = tuple(int(a) for a in cfg["accounts"])
         m.alpha_ = float(cfg["alpha"])
         m.alpha_errors_ = list(cfg["alpha_errors"])
         m.coef_ = np.asarray(cfg["coef"], dtype=float)
         m.offset_ = float(cfg["offset"])
-        m.bootstrap_coefs_ = np.asarray(cfg["bootstrap_coefs"], dtype=float).reshape(
-            -1, len(m.coef_))
+        m.bootstrap_coefs_ = np.asarray(cfg["bootstrap_coefs"], dtype=float).reshape(-1, len(m.coef_))
         return m
 
 
-def best_hour_share(medians: ArrayLike, effect: ArrayLike, draws: ArrayLike, *,
-                    scale: float) -> float:
+def best_hour_share(medians: ArrayLike, effect: ArrayLike, draws: ArrayLike, *, scale: float) -> float:
     """Share of bootstrap refits in which the best slot stays best.
 
     ``medians`` are the served forecasts (log) of one draft at each slot,

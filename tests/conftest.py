@@ -34,16 +34,36 @@ AUTH = {"Authorization": f"Bearer {TOKEN}"}
 #: the system date: a day after the demo history's last month.
 NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
 
-SUBJECTS = ("Magnolias", "Snowdrops", "The bee hotel", "The seed library", "The fern house",
-             "The rose arbour", "The herb garden", "The lake path")
-NEWS = ("open early", "need volunteers", "are in full colour", "get a new bench",
-         "host a sketching morning", "close for repairs")
+SUBJECTS = (
+    "Magnolias",
+    "Snowdrops",
+    "The bee hotel",
+    "The seed library",
+    "The fern house",
+    "The rose arbour",
+    "The herb garden",
+    "The lake path",
+)
+NEWS = (
+    "open early",
+    "need volunteers",
+    "are in full colour",
+    "get a new bench",
+    "host a sketching morning",
+    "close for repairs",
+)
 
 
-def history_csv(n: int, *, prefix: str = "h", accounts: Sequence[str] = ("loomhaven",),
-                start: datetime = datetime(2025, 2, 1, 9, tzinfo=timezone.utc),
-                step_hours: float = 4.0, bad_line: int | None = None,
-                engagements: bool = False) -> bytes:
+def history_csv(
+    n: int,
+    *,
+    prefix: str = "h",
+    accounts: Sequence[str] = ("loomhaven",),
+    start: datetime = datetime(2025, 2, 1, 9, tzinfo=timezone.utc),
+    step_hours: float = 4.0,
+    bad_line: int | None = None,
+    engagements: bool = False,
+) -> bytes:
     """A small invented history in our canonical columns (post_id, account,
     text, posted_at, impressions), one post every ``step_hours``, accounts in
     turn; the row on ``bad_line`` (the header is line 1) gets a negative count.
@@ -51,13 +71,18 @@ def history_csv(n: int, *, prefix: str = "h", accounts: Sequence[str] = ("loomha
     impressions, so no engagement rate)."""
     buf = io.StringIO()
     w = csv.writer(buf)
-    w.writerow(["post_id", "account", "text", "posted_at", "impressions"]
-               + (["engagements"] if engagements else []))
+    w.writerow(
+        ["post_id", "account", "text", "posted_at", "impressions"] + (["engagements"] if engagements else [])
+    )
     for i in range(n):
         impressions = -5 if i + 2 == bad_line else 100 + 7 * i
-        row: list[object] = [f"{prefix}-{i}", accounts[i % len(accounts)],
-                             f"{SUBJECTS[i % 8]} {NEWS[i % 6]} ({prefix} note {i})",
-                             (start + timedelta(hours=step_hours * i)).isoformat(), impressions]
+        row: list[object] = [
+            f"{prefix}-{i}",
+            accounts[i % len(accounts)],
+            f"{SUBJECTS[i % 8]} {NEWS[i % 6]} ({prefix} note {i})",
+            (start + timedelta(hours=step_hours * i)).isoformat(),
+            impressions,
+        ]
         if engagements:
             row[-1] = 0 if i % 10 == 9 else impressions
             row.append(3 + (i * 37) % 11 + (5 if i % 8 < 2 else 0))

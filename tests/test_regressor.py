@@ -41,7 +41,10 @@ def blocks() -> dict[str, np.ndarray]:
 @pytest.fixture(scope="module")
 def model(blocks: dict[str, np.ndarray]) -> QuantileForecaster:
     return QuantileForecaster(**SMALL).fit(
-        blocks["X_train"], blocks["y_train"], blocks["X_cal"], blocks["y_cal"],
+        blocks["X_train"],
+        blocks["y_train"],
+        blocks["X_cal"],
+        blocks["y_cal"],
         feature_names=["followers", "hour", "length", "has link"],
     )
 
@@ -101,13 +104,13 @@ def test_fit_and_predict_validate_input(blocks: dict[str, np.ndarray]) -> None:
     inf_X = Xt.copy()
     inf_X[5, 1] = np.inf
     cases = [
-        (Xt, yt[:-1], Xc, yc),          # length mismatch
-        (Xt, bad_y, Xc, yc),            # NaN target
-        (inf_X, yt, Xc, yc),            # infinite feature
-        (Xt, yt, Xc[:, :3], yc),        # calibration width differs
-        (Xt[:30], yt[:30], Xc, yc),     # fewer than 2 x min_child_samples
-        (Xt, yt, Xc[:18], yc[:18]),     # no finite band at 0.95 with n < 19
-        (Xt[:, 0], yt, Xc, yc),         # 1-D features
+        (Xt, yt[:-1], Xc, yc),  # length mismatch
+        (Xt, bad_y, Xc, yc),  # NaN target
+        (inf_X, yt, Xc, yc),  # infinite feature
+        (Xt, yt, Xc[:, :3], yc),  # calibration width differs
+        (Xt[:30], yt[:30], Xc, yc),  # fewer than 2 x min_child_samples
+        (Xt, yt, Xc[:18], yc[:18]),  # no finite band at 0.95 with n < 19
+        (Xt[:, 0], yt, Xc, yc),  # 1-D features
     ]
     for args in cases:
         with pytest.raises(InputError):
@@ -137,12 +140,25 @@ def test_predict_validates_width(model: QuantileForecaster) -> None:
     assert lo.shape == med.shape == hi.shape == (0,)
 
 
-def test_save_load_round_trip(model: QuantileForecaster, blocks: dict[str, np.ndarray], tmp_path: Path) -> None:
+def test_save_load_round_trip(
+    model: QuantileForecaster, blocks: dict[str, np.ndarray], tmp_path: Path
+) -> None:
     model.save(tmp_path / "m")
     files = sorted(p.name for p in (tmp_path / "m").iterdir())
-    assert files == ["config.json", "lower_0.txt", "lower_1.txt", "lower_2.txt", "lower_3.txt",
-                     "lower_4.txt", "median.txt", "upper_0.txt", "upper_1.txt", "upper_2.txt",
-                     "upper_3.txt", "upper_4.txt"]
+    assert files == [
+        "config.json",
+        "lower_0.txt",
+        "lower_1.txt",
+        "lower_2.txt",
+        "lower_3.txt",
+        "lower_4.txt",
+        "median.txt",
+        "upper_0.txt",
+        "upper_1.txt",
+        "upper_2.txt",
+        "upper_3.txt",
+        "upper_4.txt",
+    ]
     config = json.loads((tmp_path / "m" / "config.json").read_text())
     assert config["versions"]["lightgbm"] == lgb.__version__
     assert config["params"]["n_estimators"] == 40

@@ -38,8 +38,11 @@ def forget_cmd(
 @app.command("backup")
 def backup_cmd(
     # A string, not a Path: a trailing "/" says DEST is a directory to create.
-    dest: str = typer.Argument(..., help="New file for the copy, or a directory (an existing "
-                               "one, or DIR/ to create it) that receives a dated copy."),
+    dest: str = typer.Argument(
+        ...,
+        help="New file for the copy, or a directory (an existing "
+        "one, or DIR/ to create it) that receives a dated copy.",
+    ),
 ) -> None:
     """Copy the store to DEST while the service may keep running (SQLite online backup).
 
@@ -60,8 +63,9 @@ def backup_cmd(
 
 @app.command("copy-to")
 def copy_to_cmd(
-    url: str = typer.Argument(..., help="SQLAlchemy URL of an empty store, e.g. "
-                              "postgresql+psycopg://USER@HOST/DB."),
+    url: str = typer.Argument(
+        ..., help="SQLAlchemy URL of an empty store, e.g. postgresql+psycopg://USER@HOST/DB."
+    ),
 ) -> None:
     """Copy every account, post, metric and vector into another, empty store.
 
@@ -74,5 +78,7 @@ def copy_to_cmd(
         copied = copy_store(src, dest)
     finally:
         dest.close()
-    out.print(f"copied {copied['posts']} posts, {copied['snapshots']} metric snapshots and "
-              f"{copied['vectors']} vectors to {dest.safe_url}")
+    out.print(
+        f"copied {copied['posts']} posts, {copied['snapshots']} metric snapshots and "
+        f"{copied['vectors']} vectors to {dest.safe_url}"
+    )

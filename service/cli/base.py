@@ -51,9 +51,11 @@ def next_step() -> str | None:
         return None
     if not empty:
         return None
-    return (f"This data directory ({_workspace.settings.resolved_home}) holds no posts yet. "
-            "Start with `sounding import posts.csv` (your history), then `sounding train`; "
-            "or try `sounding demo` on invented data.")
+    return (
+        f"This data directory ({_workspace.settings.resolved_home}) holds no posts yet. "
+        "Start with `sounding import posts.csv` (your history), then `sounding train`; "
+        "or try `sounding demo` on invented data."
+    )
 
 
 app = typer.Typer(
@@ -85,8 +87,7 @@ Every command has --help."""
 PURPOSES: dict[str, list[str]] = {
     "Your history": ["account", "accounts", "import", "mapping", "reindex"],
     "Before you publish": ["precedents", "check", "hours", "compare"],
-    "What worked, and how good the forecasts are": ["segments", "train", "backtest",
-                                                     "track-record"],
+    "What worked, and how good the forecasts are": ["segments", "train", "backtest", "track-record"],
     "Keeping things": ["forget", "backup", "copy-to", "serve", "demo", "model"],
 }
 
