@@ -61,16 +61,13 @@ def grow(ws: Workspace, demo: Workspace, size: int, rng: np.random.Generator) ->
     batch: list[PostRow] = []
     vectors: dict[str, np.ndarray] = {}
     metrics = [
-        m
-        for m in (
-            "impressions",
-            "engagements",
-            "likes",
-            "reposts",
-            "replies",
-            "link_clicks",
-            "profile_clicks",
-        )
+        "impressions",
+        "engagements",
+        "likes",
+        "reposts",
+        "replies",
+        "link_clicks",
+        "profile_clicks",
     ]
     for n in range(size):
         i = n % len(frame)

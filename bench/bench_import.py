@@ -54,7 +54,7 @@ import tempfile
 import time
 from collections import defaultdict
 from collections.abc import Callable
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -257,7 +257,7 @@ def main() -> int:
         return out
 
     result = {
-        "when": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "when": datetime.now(UTC).isoformat(timespec="seconds"),
         "csv": str(args.csv),
         "rows": len(rows),
         "texts_embedded": n_texts,
@@ -355,7 +355,7 @@ def compare_vectors(ours: np.ndarray, ref: np.ndarray) -> dict[str, float]:
     same = [set(x) == set(y) for x, y in zip(a, b, strict=True)]
     overlap = [len(set(x) & set(y)) / max(1, len(x)) for x, y in zip(a, b, strict=True)]
     return {
-        "texts": int(len(ours)),
+        "texts": len(ours),
         "min_cosine": float(cos.min()),
         "mean_cosine": float(cos.mean()),
         "same_top10_share": float(np.mean(same)),

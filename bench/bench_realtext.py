@@ -101,7 +101,7 @@ def main() -> None:
     # month that holds the 85% point: at least 15% (the share is reported).
     cut = int(np.searchsorted(times, times[int(len(y) * 0.85)], side="left"))
     Xtr, ytr, Xte, yte = X[:cut], y[:cut], X[cut:], y[cut:]
-    cal = int(round(cut * 0.8))
+    cal = round(cut * 0.8)
     cal = int(np.searchsorted(times, times[cal], side="left"))
     model = StackedForecaster(**STACK_PARAMS).fit(
         Xtr[:cal], ytr[:cal], Xtr[cal:], ytr[cal:], feature_names=ALL_FEATURES, cal_times=times[cal:cut]

@@ -102,7 +102,7 @@ class TrainedModel:
             }
             (tmp / CONFIG).write_text(json.dumps(cfg, indent=2))
             os.replace(tmp, final)
-        except Exception as exc:  # noqa: BLE001 - LightGBM's own error type included
+        except Exception as exc:  # LightGBM's own error type included
             # A full disk, a read-only directory, LightGBM failing to write:
             # leave nothing behind, and say so in plain words.
             shutil.rmtree(tmp, ignore_errors=True)
@@ -210,7 +210,8 @@ def _check(d: Path) -> dict[str, Any] | str:
         try:
             size = p.stat().st_size
             if not isinstance(want, dict) or size != want.get("bytes"):
-                return f"{name} has {size} bytes, the config says {want.get('bytes') if isinstance(want, dict) else '?'}"
+                said = want.get("bytes") if isinstance(want, dict) else "?"
+                return f"{name} has {size} bytes, the config says {said}"
             if _sha256(p) != want.get("sha256"):
                 return f"{name} does not match its checksum"
         except OSError:

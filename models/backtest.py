@@ -157,7 +157,7 @@ def run_backtest(
         "coverage_nominal": coverage_level,
         "n_folds": n_folds,
         "n_folds_asked": asked,
-        "n_test": int(len(p["y"])),
+        "n_test": len(p["y"]),
         "model": _scores(p["y"], p["med"], p["lo"], p["hi"]),
         "baselines": baselines,
         "candidates": candidates,

@@ -32,12 +32,12 @@ def _vectors(**named: ArrayLike) -> list[np.ndarray]:
         out = [np.asarray(v, dtype=float) for v in named.values()]
     except (TypeError, ValueError) as exc:
         raise InputError(f"expected numeric arrays: {exc}") from None
-    for name, arr in zip(named, out):
+    for name, arr in zip(named, out, strict=True):
         if arr.ndim != 1:
             raise InputError(f"{name} must be 1-D, got shape {arr.shape}", field=name)
     lengths = {arr.shape[0] for arr in out}
     if len(lengths) != 1:
-        sizes = ", ".join(f"{n}={a.shape[0]}" for n, a in zip(named, out))
+        sizes = ", ".join(f"{n}={a.shape[0]}" for n, a in zip(named, out, strict=True))
         raise InputError(f"arrays differ in length ({sizes})")
     return out
 

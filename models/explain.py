@@ -31,7 +31,7 @@ def group_contributions(
 ) -> tuple[float, dict[str, float]]:
     """(expected value, {group: summed contribution}) for one row."""
     expected = float(contrib_row[-1])
-    sums = {g: 0.0 for g in GROUPS}
+    sums = dict.fromkeys(GROUPS, 0.0)
     for name, value in zip(feature_names, contrib_row[:-1], strict=True):
         g = groups.get(name, "text form")
         sums[g] = sums.get(g, 0.0) + float(value)

@@ -482,8 +482,8 @@ def _stats_of(
         if c == 0:
             continue
         g = np.flatnonzero(counts == c)
-        I, S = idx[g, :c], sims[g, :c]
-        L = history.log_target[I]
+        Nb, S = idx[g, :c], sims[g, :c]
+        L = history.log_target[Nb]
         W = np.clip(S, 0.0, None)
         wsum = W.sum(axis=1)
         pos = wsum > 0
@@ -500,7 +500,7 @@ def _stats_of(
         out[g, 3] = L.max(axis=1)
         out[g, 4] = S[:, 0]
         out[g, 5] = (S >= params.similar_threshold).sum(axis=1)
-        out[g, 6] = (t[g] - history.time[I[:, 0]]) / DAY
+        out[g, 6] = (t[g] - history.time[Nb[:, 0]]) / DAY
     return out
 
 

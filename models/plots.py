@@ -17,14 +17,14 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import numpy as np  # noqa: E402
-import numpy.typing as npt  # noqa: E402
-from matplotlib.axes import Axes  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
-from matplotlib.ticker import FuncFormatter, LogLocator  # noqa: E402
+import numpy as np
+import numpy.typing as npt
+from matplotlib.axes import Axes
+from matplotlib.figure import Figure
+from matplotlib.ticker import FuncFormatter, LogLocator
 
-from .errors import InputError  # noqa: E402
-from .segments import SegmentReport, SegmentStats  # noqa: E402
+from .errors import InputError
+from .segments import SegmentReport, SegmentStats
 
 #: Our palette: calm, distinguishable, and still readable in greyscale.
 PALETTE: tuple[str, ...] = (
@@ -171,7 +171,7 @@ def _interval_panel(
     metric: str,
 ) -> None:
     ys = np.arange(len(order))
-    for y, seg in zip(ys, order):
+    for y, seg in zip(ys, order, strict=True):
         lo, mid, hi = (max(v, floor) for v in (seg.ci_low, seg.median, seg.ci_high))
         colour = colours[seg.name]
         ax.plot(
@@ -207,7 +207,7 @@ def _interval_panel(
     )
     ax.set_yticks(ys)
     ax.set_yticklabels([f"{s.name}  n={s.n}" + ("  (too few)" if s.too_small else "") for s in order])
-    for tick, seg in zip(ax.get_yticklabels(), order):
+    for tick, seg in zip(ax.get_yticklabels(), order, strict=True):
         if seg.too_small:
             tick.set_color(MUTED)
     ax.set_ylim(-0.7, len(order) - 0.3)
@@ -280,4 +280,4 @@ def plot_segments(
     return data
 
 
-__all__ = ["plot_segments", "figure_size", "PALETTE", "DPI", "FORMATS"]
+__all__ = ["DPI", "FORMATS", "PALETTE", "figure_size", "plot_segments"]

@@ -181,10 +181,7 @@ class QuantileForecaster:
                 f"for a finite band at coverage {max(MAX_COVERAGE, levels[-1])}",
                 field="X_cal",
             )
-        if feature_names is None:
-            names = _internal_names(n_features)
-        else:
-            names = [str(n) for n in feature_names]
+        names = _internal_names(n_features) if feature_names is None else [str(n) for n in feature_names]
         if len(names) != n_features or len(set(names)) != n_features:
             raise InputError(
                 f"feature_names must be {n_features} distinct names, got {len(names)}",

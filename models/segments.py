@@ -20,6 +20,7 @@ when it loses every pair, and 0 when it wins as often as it loses.
 
 from __future__ import annotations
 
+import itertools
 import math
 from collections.abc import Hashable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field
@@ -186,7 +187,7 @@ def hour_labels(edges: Sequence[int] = DEFAULT_HOUR_EDGES) -> list[str]:
     if np.any(arr != np.round(arr)):
         raise InputError("hour edges must be whole hours", field="hour edges")
     ints = arr.astype(int)
-    return [f"{a:02d}–{b:02d}" for a, b in zip(ints[:-1], ints[1:])]
+    return [f"{a:02d}–{b:02d}" for a, b in itertools.pairwise(ints)]
 
 
 def bucket_hours(hours: npt.ArrayLike, edges: Sequence[int] = DEFAULT_HOUR_EDGES) -> np.ndarray:
@@ -210,7 +211,7 @@ def length_labels(edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> list[str]:
         raise InputError("length edges must be whole numbers starting at 0", field="length edges")
     ints = [int(e) for e in arr]
     out = []
-    for i, (a, b) in enumerate(zip(ints[:-1], ints[1:])):
+    for i, (a, b) in enumerate(itertools.pairwise(ints)):
         if i == 0:
             out.append(f"<{b}")
         elif b >= _OPEN_END:
@@ -432,13 +433,10 @@ def _compare(
         rest_medians.append(float(np.median(rest)) if rest.size else math.nan)
 
     pvals = np.array([s.p_value for s in segments])
-    if disjoint and len(segments) == 2:
-        # Two segments that split the posts: "A vs rest" and "B vs rest" are
-        # the same single test, so there is nothing to correct for.
-        adjusted = pvals
-    else:
-        adjusted = holm(pvals)
-    for seg, p_adj, rest_med in zip(segments, adjusted, rest_medians):
+    # Two segments that split the posts: "A vs rest" and "B vs rest" are
+    # the same single test, so there is nothing to correct for.
+    adjusted = pvals if disjoint and len(segments) == 2 else holm(pvals)
+    for seg, p_adj, rest_med in zip(segments, adjusted, rest_medians, strict=True):
         seg.p_holm = float(p_adj)
         seg.note = _note(seg, rest_med, min_n, alpha)
 
@@ -597,7 +595,7 @@ def two_way(
     r_idx = {name: i for i, name in enumerate(row_names)}
     c_idx = {name: j for j, name in enumerate(col_names)}
     cell_vals: dict[tuple[int, int], list[float]] = {}
-    for v, r, c in zip(arr, rows, cols):
+    for v, r, c in zip(arr, rows, cols, strict=True):
         cell_vals.setdefault((r_idx[r], c_idx[c]), []).append(float(v))
     n = np.zeros((len(row_names), len(col_names)), dtype=np.int64)
     med = np.full(n.shape, np.nan)

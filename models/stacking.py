@@ -253,7 +253,7 @@ class StackedForecaster:
             raise InputError("stack_fraction must lie in [0.05, 0.5]", field="stack_fraction")
         self._index = {n: i for i, n in enumerate(names)}
         n = Xt.shape[0]
-        cut = int(round(n * (1 - float(self.stack_fraction))))
+        cut = round(n * (1 - float(self.stack_fraction)))
         need = 2 * int(self.min_child_samples)
         if cut < need or n - cut < 20:
             raise InputError(

@@ -96,7 +96,7 @@ class TimingEffect:
         if r.shape != (D.shape[0],) or not np.isfinite(r).all():
             raise InputError("residual must be finite, one per row", field="residual")
         n = len(r)
-        cut = int(round(n * (1 - float(self.validation_fraction))))
+        cut = round(n * (1 - float(self.validation_fraction)))
         grid = [float(a) for a in self.alphas]
         if cut >= 20 and n - cut >= 20:
             errs = []

@@ -113,7 +113,7 @@ class RayEmbedder:
             ) from None
         try:
             ray.init(self.address, logging_level="WARNING", log_to_driver=False)
-        except Exception as exc:  # noqa: BLE001 - grpc and Ray raise many kinds here
+        except Exception as exc:  # grpc and Ray raise many kinds here
             raise ServiceUnavailable(
                 f"cannot reach the Ray cluster at {self.address}: {type(exc).__name__}: {exc}",
                 hint="check that the head runs `ray start --head` and its client server port",
@@ -126,7 +126,7 @@ class RayEmbedder:
             self._ray.shutdown()
             self._ray = None
 
-    def __enter__(self) -> RayEmbedder:  # noqa: PYI034 - a final class in practice
+    def __enter__(self) -> RayEmbedder:  # a final class in practice
         return self.connect()
 
     def __exit__(

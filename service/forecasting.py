@@ -130,7 +130,7 @@ def _train(
     order = np.argsort(times, kind="stable")
     X, y, times = X[order], y[order], times[order]
     # The calibration block comes after the training block in time.
-    cut = int(round(len(y) * (1 - cal_fraction)))
+    cut = round(len(y) * (1 - cal_fraction))
     model = StackedForecaster(**STACK_PARAMS).fit(
         X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:]
     )
@@ -138,7 +138,7 @@ def _train(
         "metric": metric,
         "trained_at": now_utc().isoformat(),
         "data_as_of": now.isoformat(),
-        "n_posts": int(len(y)),
+        "n_posts": len(y),
         "n_train": int(cut),
         "n_calibration": int(len(y) - cut),
         "train_until": datetime.fromtimestamp(times[cut - 1], tz=now.tzinfo).isoformat(),

@@ -705,7 +705,7 @@ def _column_uses(rows: _Rows) -> list[ColumnUse]:
         "posted_at": f"time: {o.layout().describe()}; {zone_text}",
         "has_media": "true or false",
         RATE_COLUMN: "rate (4.5% or 0.045), checked against engagements / impressions",
-        **{m: number + " (1,234, 1.2K marked approximate)" for m in METRIC_COLUMNS},
+        **dict.fromkeys(METRIC_COLUMNS, number + " (1,234, 1.2K marked approximate)"),
     }
     out = []
     for col in CANONICAL_COLUMNS:

@@ -105,8 +105,9 @@ class Settings(BaseSettings):
     # earlier post is at 0.91 (same account, 45 days) / 0.87 (teammates, 7 days) at the 99th
     # percentile and 0.948 / 0.942 at the 99.9th. 0.93 keeps every planted pair with a
     # margin of 0.017 and flags 14 of 2,945 ordinary posts (0.5%), mostly true look-alikes
-    # (the same event or finding in nearly the same words). 45 days covers the generator's same-account repeats (1-20
-    # days) and the plan's planted repeat (39 days before its planned time).
+    # (the same event or finding in nearly the same words). 45 days covers the generator's
+    # same-account repeats (1-20 days) and the plan's planted repeat (39 days before its
+    # planned time).
     repeat_similarity: float = Field(default=0.93, ge=-1, le=1)
     repeat_window_days: float = Field(default=45.0, gt=0)
     team_repeat_window_days: float = Field(default=7.0, gt=0)

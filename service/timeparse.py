@@ -23,6 +23,7 @@ import os
 import re
 from collections.abc import Iterable
 from dataclasses import dataclass
+from datetime import UTC as UTC  # re-exported: the service modules take UTC from here
 from datetime import datetime, time, timedelta, timezone
 from decimal import Decimal, InvalidOperation
 from functools import lru_cache
@@ -30,8 +31,6 @@ from typing import Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from models.errors import CSVFormatError, InputError, TimeParseError
-
-UTC = timezone.utc
 
 #: The earliest time sounding accepts anywhere (import, requests, options).
 EARLIEST = datetime(1990, 1, 1, tzinfo=UTC)
@@ -305,7 +304,7 @@ class TimeReader:
         return check_range(dt, where=where, value=raw)
 
     def _common(self, raw: str, *, tz: str, where: str | None) -> datetime:
-        if raw[:4].isdigit() and raw[4:5] == "-" or raw[:8].isdigit():
+        if (raw[:4].isdigit() and raw[4:5] == "-") or raw[:8].isdigit():
             try:
                 return _parse_iso(raw, tz=tz, where=where)  # ISO 8601 first: the canonical case
             except TimeParseError as exc:
@@ -446,7 +445,7 @@ def check_date_order(
     seen: dict[str, tuple[int, str]] = {}
     for line, text in values:
         raw = text.strip()
-        if not raw or raw[:4].isdigit() and raw[4:5] == "-":
+        if not raw or (raw[:4].isdigit() and raw[4:5] == "-"):
             continue
         reading = reader.reading(raw)
         if reading is None:

@@ -162,9 +162,7 @@ def _record(
     view = ws.forecaster.view(found[0].metric)
     handles = {d.account for d in drafts}
     with ws.store.session() as s:
-        ids = {
-            h: i for h, i in s.execute(select(Account.handle, Account.id).where(Account.handle.in_(handles)))
-        }
+        ids = dict(s.execute(select(Account.handle, Account.id).where(Account.handle.in_(handles))))
         for d, f in zip(drafts, found, strict=True):
             t = min(f.planned_at, now).timestamp()
             code = view.account_codes.get(d.account)
@@ -509,9 +507,7 @@ def adapt(ws: Any, metric: str, *, now: datetime | None = None) -> dict[str, int
                 select(ForecastGiven.coverage).where(ForecastGiven.metric == metric).distinct()
             )
         }
-        levels |= {
-            c for c in s.scalars(select(CalibrationState.level).where(CalibrationState.metric == metric))
-        }
+        levels |= set(s.scalars(select(CalibrationState.level).where(CalibrationState.metric == metric)))
     levels.add(level_key(DEFAULT_COVERAGE))  # warm up the default level before any forecast
     fed: dict[str, int] = {}
     for level in sorted(levels):

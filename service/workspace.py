@@ -13,7 +13,7 @@ import logging
 import os
 import threading
 from collections.abc import Iterator, Sequence
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from datetime import datetime
 from pathlib import Path
 from typing import Any
@@ -212,10 +212,8 @@ class Workspace:
         try:
             index.save(self.settings.index_dir)
         except (OSError, RuntimeError) as exc:  # FAISS reports write errors as RuntimeError
-            try:
+            with suppress(OSError):
                 (self.settings.index_dir / "index.faiss.tmp").unlink(missing_ok=True)
-            except OSError:
-                pass
             log.warning(
                 "the index is kept in memory only; saving it failed: %s",
                 getattr(exc, "strerror", None) or str(exc).splitlines()[0],

@@ -7,7 +7,7 @@ import csv
 import io
 import os
 from collections.abc import Iterator, Sequence
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
@@ -17,11 +17,12 @@ os.environ.setdefault("HF_HUB_OFFLINE", "1")
 # host names it knows (service.api.guard), so the tests name that one.
 os.environ.setdefault("SOUNDING_ALLOWED_HOSTS", '["testserver"]')
 
-from models.embedding import Embedder  # noqa: E402
-from pgsupport import SERVER, create_database, drop_database  # noqa: E402
-from service.forecasting import train  # noqa: E402
-from service.settings import Settings  # noqa: E402
-from service.workspace import Workspace  # noqa: E402
+from pgsupport import SERVER, create_database, drop_database
+
+from models.embedding import Embedder
+from service.forecasting import train
+from service.settings import Settings
+from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_CSV = ROOT / "demo_data" / "posts.csv"
@@ -32,7 +33,7 @@ TOKEN = "sounding-test-token-7f3a9c-5d1e8b2a4c6f"  # 32+ characters: needed off 
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 #: The "now" every test trains and forecasts at, so results never depend on
 #: the system date: a day after the demo history's last month.
-NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
+NOW = datetime(2026, 12, 1, 12, 0, tzinfo=UTC)
 
 SUBJECTS = (
     "Magnolias",
@@ -59,7 +60,7 @@ def history_csv(
     *,
     prefix: str = "h",
     accounts: Sequence[str] = ("loomhaven",),
-    start: datetime = datetime(2025, 2, 1, 9, tzinfo=timezone.utc),
+    start: datetime = datetime(2025, 2, 1, 9, tzinfo=UTC),
     step_hours: float = 4.0,
     bad_line: int | None = None,
     engagements: bool = False,

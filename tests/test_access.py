@@ -11,6 +11,7 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
+from conftest import TOKEN
 from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
@@ -23,7 +24,6 @@ from service.cli.base import use_embedder
 from service.cli.history import check_bind
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN
 
 
 def write_history(path: Path, n: int, *, prefix: str = "ac") -> Path:
@@ -113,7 +113,7 @@ def test_changes_without_the_right_token_are_refused_and_change_nothing(
 def test_the_right_token_is_accepted(client: TestClient, ws, tmp_path: Path) -> None:
     auth = {"Authorization": f"Bearer {TOKEN}"}
     before = ws.store.counts()["posts"]
-    (imp, url, kw), (_, acc_url, _), (_, post_url, post_kw) = write_requests(tmp_path)
+    (_imp, url, kw), (_, acc_url, _), (_, post_url, post_kw) = write_requests(tmp_path)
     r = client.post(url, headers=auth, **kw)
     assert r.status_code == 200, r.text
     assert r.json()["added"] == 3

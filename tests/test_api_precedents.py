@@ -48,7 +48,7 @@ def test_precedents_are_the_nearest_posts_with_their_metrics(
     found = resp.json()["precedents"]
     assert len(found) == 7
     for p in found:
-        assert FIELDS <= set(p)
+        assert set(p) >= FIELDS
         assert set(p["metrics"]) == set(METRIC_COLUMNS)
     sims = [p["similarity"] for p in found]
     assert sims == sorted(sims, reverse=True)

@@ -12,6 +12,7 @@ from pathlib import Path
 
 import pytest
 from fastapi.testclient import TestClient
+from serving import serve
 
 from models.errors import (
     AuthError,
@@ -23,7 +24,6 @@ from models.errors import (
     StoreError,
 )
 from service.api.app import create_app
-from serving import serve
 from service.api.schemas import DraftIn
 from service.client import SoundingClient, error_from
 
@@ -116,9 +116,11 @@ def test_unreachable_service() -> None:
     with socket.socket() as s:  # a port that was free a moment ago: nothing listens there
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
-    with SoundingClient(base_url=f"http://127.0.0.1:{port}", timeout=5) as c:
-        with pytest.raises(ServiceUnavailable, match="cannot reach"):
-            c.health()
+    with (
+        SoundingClient(base_url=f"http://127.0.0.1:{port}", timeout=5) as c,
+        pytest.raises(ServiceUnavailable, match="cannot reach"),
+    ):
+        c.health()
     assert issubclass(ServiceUnavailable, StoreError)
 
 

@@ -186,7 +186,10 @@ def test_cluster_import_equals_local_import(
     assert float(np.min(np.sum(va * vb, axis=1))) >= 0.99999
     # And the indexes built from them find the same 10 nearest posts (by post id).
     q = embedder.encode(["Bluebells in the woodland walk this week"])
-    ids_by_pk_a, ids_by_pk_b = dict(zip(a["pk"], a["post_id"])), dict(zip(b["pk"], b["post_id"]))
+    ids_by_pk_a, ids_by_pk_b = (
+        dict(zip(a["pk"], a["post_id"], strict=True)),
+        dict(zip(b["pk"], b["post_id"], strict=True)),
+    )
     near_a = [ids_by_pk_a[int(p)] for p in local.index().search(q, 10)[1][0]]
     near_b = [ids_by_pk_b[int(p)] for p in remote.index().search(q, 10)[1][0]]
     assert near_a == near_b

@@ -12,13 +12,12 @@ import threading
 from pathlib import Path
 
 import httpx
-
+from conftest import TOKEN
 from serving import serve
 
 from service.api.app import create_app
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN
 
 THREADS, PER_THREAD = 3, 12
 

@@ -49,7 +49,7 @@ def read_csv(name):
 
 def rows(name):
     header, *body = read_csv(name)
-    return [dict(zip(header, r)) for r in body]
+    return [dict(zip(header, r, strict=True)) for r in body]
 
 
 @pytest.fixture(scope="module")
@@ -161,7 +161,10 @@ def test_only_invented_links_and_own_handles(posts):
             assert url.startswith("https://loomhaven.example/"), url
         for handle in re.findall(r"@(\w+)", p["text"]):
             assert handle in ZONES and handle != p["account"], p["text"]
-    share = lambda ch: sum(ch in p["text"] for p in posts) / len(posts)
+
+    def share(ch):
+        return sum(ch in p["text"] for p in posts) / len(posts)
+
     assert 0.1 < share("#") < 0.9 and 0.05 < share("@") < 0.5 and 0.1 < share("https://") < 0.9
 
 
@@ -227,7 +230,7 @@ def test_regression_recovers_documented_effects(posts, truth, effects):
     assert abs(media - effects["media"]) < 0.08
     assert abs(weekend - effects["weekend"]) < 0.08
     assert abs(trend - effects["trend_per_year"]) < 0.12
-    topic = dict(zip(order, [0.0] + list(b[len(accounts) : len(accounts) + len(order) - 1])))
+    topic = dict(zip(order, [0.0, *b[len(accounts) : len(accounts) + len(order) - 1]], strict=True))
     true = {k: v - effects["topic_effect"][order[0]] for k, v in effects["topic_effect"].items()}
     assert all(abs(topic[k] - true[k]) < 0.15 for k in order)
     assert [topic[k] for k in order] == sorted(topic.values(), reverse=True)
@@ -311,7 +314,7 @@ def test_ordinary_posts_are_not_near_repeats(posts, truth, planted):
 def test_plan_drafts(posts, effects):
     header, *body = read_csv("plan.csv")
     assert header == ["draft_id", "account", "text", "planned_at"]
-    drafts = [dict(zip(header, r)) for r in body]
+    drafts = [dict(zip(header, r, strict=True)) for r in body]
     assert len(drafts) == 8 and len({d["draft_id"] for d in drafts}) == 8
     for d in drafts:
         dt = datetime.fromisoformat(d["planned_at"])

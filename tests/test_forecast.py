@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import csv
 import json
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import numpy as np
@@ -23,7 +23,7 @@ from service.timeparse import localize
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text())
-NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
+NOW = datetime(2026, 12, 1, 12, 0, tzinfo=UTC)
 
 
 def truth() -> list[dict[str, str]]:

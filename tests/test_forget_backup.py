@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+from conftest import TOKEN
 from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
@@ -22,7 +23,6 @@ from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN
 
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 ACCOUNTS = ("loomhaven", "loomhaven_events", "loomhaven_lab")
@@ -297,7 +297,7 @@ def test_backup_while_importing_is_consistent_and_restores(base_home: Path, tmp_
             ws.import_csv(
                 write_csv(tmp_path / "more.csv", rows(200, prefix="more", start=100)), progress=progress
             )
-        except BaseException as exc:  # noqa: BLE001 - reported below
+        except BaseException as exc:  # reported below
             failure.append(exc)
 
     th = threading.Thread(target=writer)

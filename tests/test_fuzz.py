@@ -20,6 +20,7 @@ from pathlib import Path
 
 import pytest
 import schemathesis
+from conftest import TOKEN
 from hypothesis import HealthCheck, settings
 from schemathesis.checks import not_a_server_error
 from schemathesis.specs.openapi.checks import (
@@ -32,7 +33,6 @@ from service.api.app import create_app
 from service.api.schemas import ErrorBody
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN
 
 CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance, response_schema_conformance]
 MAX_EXAMPLES = 30

@@ -4,8 +4,9 @@ generator's documented daily rhythm."""
 
 from __future__ import annotations
 
+import itertools
 import json
-from datetime import date, datetime, timedelta, timezone
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
@@ -21,7 +22,6 @@ from service.overlap import heavy_overlap, tied_with_best
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
-UTC = timezone.utc
 DRAFTS = [
     "The magnolias along the Long Border are opening this week 🌸 Come for a slow walk before "
     "the petals drop. #WhatsFlowering",
@@ -44,11 +44,11 @@ def test_london_spring_forward_has_23_hours() -> None:
     slots = day_slots(date(2026, 3, 29), "Europe/London")
     assert len(slots) == 23
     assert slots[0] == datetime(2026, 3, 29, 0, 0, tzinfo=UTC)  # local midnight is GMT
-    assert all(b - a == timedelta(hours=1) for a, b in zip(slots, slots[1:]))
+    assert all(b - a == timedelta(hours=1) for a, b in itertools.pairwise(slots))
     labels = _hours_and_offsets(slots, "Europe/London")
     assert labels[0] == (0, "+0000")
     assert labels[1] == (2, "+0100")  # 01:00 local does not exist that day
-    assert [h for h, _ in labels] == [0] + list(range(2, 24))
+    assert [h for h, _ in labels] == [0, *range(2, 24)]
     assert all(off == "+0100" for _, off in labels[1:])
 
 
@@ -99,7 +99,7 @@ def test_api_labels_dst_day(demo_workspace) -> None:
     assert sorted(s["rank"] for s in body["slots"]) == list(range(1, 26))
     # Ranks follow the medians (highest first).
     by_rank = sorted(body["slots"], key=lambda s: s["rank"])
-    assert all(a["median"] >= b["median"] for a, b in zip(by_rank, by_rank[1:]))
+    assert all(a["median"] >= b["median"] for a, b in itertools.pairwise(by_rank))
 
 
 def test_week_across_the_change_has_169_slots(demo_workspace) -> None:
@@ -115,7 +115,8 @@ def test_week_across_the_change_has_169_slots(demo_workspace) -> None:
 # The generator's daily rhythm ---------------------------------------------------
 
 HOUR_EFFECT = [EFFECTS["hour_effect"][str(h)] for h in range(24)]
-RHYTHM_DRAFTS = DRAFTS + [
+RHYTHM_DRAFTS = [
+    *DRAFTS,
     "Volunteer call 🙌 Weekend guides needed once a month. It's a lovely way to meet people.",
     "Lab update 🔬 the pollinator survey shows bees prefer open-faced flowers by a wide margin.",
 ]
@@ -184,7 +185,7 @@ def test_overlap_rule() -> None:
 def _slots(logs: list[tuple[float, float, float]]) -> list[Slot]:
     t0 = datetime(2026, 12, 3, 0, 0, tzinfo=UTC)
     out = []
-    best, flags = tied_with_best(logs)
+    _best, flags = tied_with_best(logs)
     order = sorted(range(len(logs)), key=lambda i: -logs[i][1])
     for i, lg in enumerate(logs):
         t = t0 + timedelta(hours=i)

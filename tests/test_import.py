@@ -365,7 +365,11 @@ def test_bad_rows_are_reported_and_good_rows_stored(loaded: Workspace, tmp_path:
 
 
 def test_numbers_with_separators_and_exponents(workspace: Workspace, tmp_path: Path) -> None:
-    body = "post_id,account,text,posted_at,impressions\nn1,garden,Big day,2026-05-01T10:00Z,1_200\nn2,garden,Bigger,2026-05-01T11:00Z,1.2e3\n"
+    body = (
+        "post_id,account,text,posted_at,impressions\n"
+        "n1,garden,Big day,2026-05-01T10:00Z,1_200\n"
+        "n2,garden,Bigger,2026-05-01T11:00Z,1.2e3\n"
+    )
     s = workspace.import_csv(write(tmp_path / "n.csv", body))
     assert s.rejected == 0
     posts = by_id(workspace)

@@ -112,7 +112,9 @@ def test_each_layout_imports_as_the_canonical_file(
     shortened = name in ("abbreviated", "messy")
     for pid, want in canonical.items():
         for f in FIELDS:
-            if shortened and f == "impressions" or name == "abbreviated" and f in ("engagements", "likes"):
+            if (shortened and f == "impressions") or (
+                name == "abbreviated" and f in ("engagements", "likes")
+            ):
                 continue
             assert got[pid][f] == want[f], (pid, f)
         assert want["approximate"] == frozenset()

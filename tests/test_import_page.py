@@ -7,9 +7,9 @@ import hashlib
 from pathlib import Path
 
 import pytest
+from serving import serve
 
 from service.api.app import create_app
-from serving import serve
 
 FIXTURES = Path(__file__).parent / "fixtures" / "exports"
 CHROMIUM = Path("/usr/bin/chromium")

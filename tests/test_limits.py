@@ -11,6 +11,7 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from conftest import TOKEN, history_csv
 from fastapi.testclient import TestClient
 
 from models.errors import LimitExceeded
@@ -18,7 +19,6 @@ from service.api.app import create_app
 from service.api.schemas import ErrorBody
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN, history_csv
 
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 MAX_DRAFT, MAX_BATCH, MAX_UPLOAD = 300, 3, 4096
@@ -283,7 +283,7 @@ def test_declared_length_past_the_limit_is_refused_before_reading(ws: Workspace)
 
 def test_token_is_checked_before_the_body_is_read(ws: Workspace) -> None:
     app = create_app(workspace=ws)
-    status, body, taken = asgi_upload(
+    status, _body, taken = asgi_upload(
         app, endless_form(), {"content-type": "multipart/form-data; boundary=B"}
     )
     assert status == 401

@@ -10,9 +10,9 @@ from pathlib import Path
 
 import httpx
 import pytest
+from serving import serve
 
 from service.api.app import create_app
-from serving import serve
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))

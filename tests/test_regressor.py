@@ -3,6 +3,7 @@ against MAPIE's reference implementation."""
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 from fractions import Fraction
@@ -20,7 +21,7 @@ from models.regressor import QuantileForecaster
 
 # One thread: deterministic trees do not depend on the thread count, and a
 # second OpenMP thread is much slower when other test runs share the cores.
-SMALL = dict(n_estimators=40, num_threads=1)
+SMALL = {"n_estimators": 40, "num_threads": 1}
 
 
 def _data(rng: np.random.Generator, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -35,7 +36,14 @@ def blocks() -> dict[str, np.ndarray]:
     X_train, y_train = _data(rng, 500)
     X_cal, y_cal = _data(rng, 250)
     X_test, y_test = _data(rng, 1000)
-    return dict(X_train=X_train, y_train=y_train, X_cal=X_cal, y_cal=y_cal, X_test=X_test, y_test=y_test)
+    return {
+        "X_train": X_train,
+        "y_train": y_train,
+        "X_cal": X_cal,
+        "y_cal": y_cal,
+        "X_test": X_test,
+        "y_test": y_test,
+    }
 
 
 @pytest.fixture(scope="module")
@@ -87,7 +95,7 @@ def test_wider_coverage_gives_wider_bands(model: QuantileForecaster, blocks: dic
     for c in (0.5, 0.7, 0.8, 0.9, 0.95):
         lo, _, hi = model.predict(blocks["X_test"], coverage=c)
         widths.append(float(np.mean(hi - lo)))
-    assert all(a < b for a, b in zip(widths, widths[1:]))
+    assert all(a < b for a, b in itertools.pairwise(widths))
 
 
 @pytest.mark.parametrize("cov", [0.49, 0.96, 0.99, -1.0, math.nan])
@@ -168,7 +176,7 @@ def test_save_load_round_trip(
     loaded = QuantileForecaster.load(tmp_path / "m")
     X = blocks["X_test"]
     for cov in (0.5, 0.66, 0.8, 0.95):
-        for a, b in zip(model.predict(X, coverage=cov), loaded.predict(X, coverage=cov)):
+        for a, b in zip(model.predict(X, coverage=cov), loaded.predict(X, coverage=cov), strict=True):
             assert np.array_equal(a, b)
     assert np.array_equal(model.contributions(X), loaded.contributions(X))
     assert loaded.feature_names_ == model.feature_names_
@@ -184,7 +192,7 @@ def test_deterministic(blocks: dict[str, np.ndarray]) -> None:
     args = (blocks["X_train"], blocks["y_train"], blocks["X_cal"], blocks["y_cal"])
     a = QuantileForecaster(levels=(0.8,), **SMALL).fit(*args)
     b = QuantileForecaster(levels=(0.8,), **SMALL).fit(*args)
-    for u, v in zip(a.predict(blocks["X_test"]), b.predict(blocks["X_test"])):
+    for u, v in zip(a.predict(blocks["X_test"]), b.predict(blocks["X_test"]), strict=True):
         assert np.array_equal(u, v)
 
 

@@ -27,6 +27,7 @@ import numpy as np
 import pytest
 import uvicorn
 from fastapi.testclient import TestClient
+from serving import serve  # tests/serving.py, the shared loopback server
 from typer.testing import CliRunner
 
 from models.artefact import versions
@@ -42,8 +43,6 @@ from service.importer import import_csv
 from service.locking import LOCK_FILE
 from service.settings import Settings
 from service.workspace import Workspace
-
-from serving import serve  # noqa: I001 - tests/serving.py, the shared loopback server
 
 ROOT = Path(__file__).resolve().parents[1]
 TOKEN = "reliability-token-0123456789abcdef"  # 34 characters
@@ -214,7 +213,7 @@ def test_models_saved_before_checksums_still_load_unless_cut(copy_home: Path, em
         assert ws.forecaster.forecast(draft)[0].model_version == version
         booster = d / "quantiles" / "boosted" / "lower_2.txt"
         booster.write_bytes(booster.read_bytes()[:-200])  # only the end missing
-        with pytest.raises(NotReady, match="lower_2.txt is cut short"):
+        with pytest.raises(NotReady, match=r"lower_2\.txt is cut short"):
             ws.forecaster.forecast(draft, metric="impressions")
     finally:
         ws.close()
@@ -272,7 +271,7 @@ def test_two_processes_importing_overlapping_files(workspace: Workspace, tmp_pat
         for f in (a, b)
     ]
     outs = [p.communicate(timeout=900) for p in procs]
-    for p, (out, err) in zip(procs, outs, strict=True):
+    for p, (_out, err) in zip(procs, outs, strict=True):
         assert p.returncode == 0, err[-2000:]
         assert "Traceback" not in err
     ws = Workspace(settings=Settings(home=home), embedder=workspace.embedder)
@@ -311,13 +310,13 @@ def test_forget_during_an_import_leaves_nothing_searchable(make_workspace, tmp_p
                 write_csv(tmp_path / "new.csv", rows(200, prefix="new", accounts=("gone", "kept"))),
                 progress=progress,
             )
-        except BaseException as exc:  # noqa: BLE001 - reported below
+        except BaseException as exc:  # reported below
             failures.append(exc)
 
     def forgetter() -> None:
         try:
             other.forget(account="gone")
-        except BaseException as exc:  # noqa: BLE001 - reported below
+        except BaseException as exc:  # reported below
             failures.append(exc)
 
     t1 = threading.Thread(target=importer)

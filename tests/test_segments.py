@@ -10,6 +10,7 @@ Each is named beside its check.
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 from datetime import datetime, timedelta
@@ -225,7 +226,7 @@ def test_hour_split_recovers_documented_daily_rhythm(topic_hour: SegmentResult) 
     weight = {int(h): v for h, v in EFFECTS["posting_hour_weight"].items()}
     documented = [
         np.average([curve[h] for h in range(lo, hi)], weights=[weight[h] for h in range(lo, hi)])
-        for lo, hi in zip(edges[:-1], edges[1:], strict=True)
+        for lo, hi in itertools.pairwise(edges)
     ]
     rho = stats.spearmanr([s.median for s in hour.segments], documented).statistic
     assert rho >= 0.9, rho

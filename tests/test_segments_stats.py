@@ -3,6 +3,7 @@ calculations. Each outside source is named beside its check."""
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 
@@ -125,9 +126,9 @@ def test_kruskal_matches_the_formula_and_skips_single_post_segments() -> None:
     n = len(pooled)
     r = _ranks(pooled)
     bounds = np.cumsum([0] + [len(g) for g in groups])
-    h = 12 / (n * (n + 1)) * sum(
-        r[a:b].sum() ** 2 / (b - a) for a, b in zip(bounds[:-1], bounds[1:], strict=True)
-    ) - 3 * (n + 1)
+    h = 12 / (n * (n + 1)) * sum(r[a:b].sum() ** 2 / (b - a) for a, b in itertools.pairwise(bounds)) - 3 * (
+        n + 1
+    )
     h /= 1 - _tie_sum(pooled) / (n**3 - n)
     assert report.kruskal_h == pytest.approx(h, rel=1e-12)
     assert report.kruskal_p == pytest.approx(_chi2_sf_3df(h), rel=1e-9)

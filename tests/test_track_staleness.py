@@ -11,6 +11,7 @@ import json
 import math
 from datetime import datetime, timedelta
 from pathlib import Path
+from typing import ClassVar
 
 import pandas as pd
 import pytest
@@ -100,7 +101,7 @@ def test_old_model_warns_pseudo_outcomes_adapt_and_train_if_stale(
 class _Model:
     """Stands in for a fresh model: only its report's data time is read."""
 
-    report = {"data_as_of": "2026-06-30T00:00:00+00:00"}
+    report: ClassVar[dict[str, str]] = {"data_as_of": "2026-06-30T00:00:00+00:00"}
 
 
 def _band(n: int, p: float) -> tuple[int, int]:

@@ -88,7 +88,7 @@ def test_exact_neighbours_are_sklearns(view, params) -> None:
         ok = np.flatnonzero(F.eligible(h, h.time[i], params))
         # Reference: scikit-learn's exact brute-force cosine search over the eligible posts.
         nn = NearestNeighbors(n_neighbors=params.k, metric="cosine", algorithm="brute")
-        dist, pos = nn.fit(h.vectors[ok]).kneighbors(h.vectors[i : i + 1])
+        dist, _pos = nn.fit(h.vectors[ok]).kneighbors(h.vectors[i : i + 1])
         np.testing.assert_allclose(nb.team_sims[j * 10], 1.0 - dist[0], atol=1e-5)
 
 

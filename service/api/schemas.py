@@ -10,6 +10,8 @@ from typing import Annotated, Literal
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
+
 from ..timeparse import EARLIEST, as_utc, latest_time, range_text
 
 
@@ -32,8 +34,6 @@ def _day_in_range(day: date) -> date:
 
 InRangeTime = Annotated[datetime, AfterValidator(_time_in_range)]
 InRangeDay = Annotated[date, AfterValidator(_day_in_range)]
-
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
 
 
 class Strict(BaseModel):

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sqlite3
+
 import typer
 
 from models.errors import InputError, StoreError

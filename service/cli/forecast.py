@@ -18,8 +18,8 @@ from ..plan import forecast_plan
 from ..timeparse import localize, now_utc, parse_time, zone
 from ..track_record import give, staleness
 from ..workspace import Workspace
-from .render import Column, level_bar, print_table, typical_miss
 from .base import app, out, print_json, workspace
+from .render import Column, level_bar, print_table, typical_miss
 
 METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
 COVERAGE_HELP = f"Interval coverage, {MIN_COVERAGE} to {MAX_COVERAGE}."

@@ -31,7 +31,6 @@ from ..precedents import Precedent
 from ..settings import Settings
 from ..timeparse import parse_time
 from .base import app, err, is_terminal, next_step, out, print_json, workspace
-from .render import Column, print_table
 from .forecast import demo_forecast
 from .mappings import (
     ACCOUNT,
@@ -43,6 +42,7 @@ from .mappings import (
     TIMEZONE,
     given_options,
 )
+from .render import Column, print_table
 
 # The demo history sits beside the source tree; an installed copy (the
 # container image) points at it with SOUNDING_DEMO_DIR.

@@ -11,8 +11,8 @@ from ..forecasting import CAUTION
 from ..hours import HoursReport, best_hours, parse_day
 from ..wordings import VariantsReport, compare_variants
 from .base import app, out, print_json, workspace
-from .render import Column, interval_bar, print_table
 from .forecast import COVERAGE_HELP, METRIC_HELP, planned
+from .render import Column, interval_bar, print_table
 
 
 def _value(v: float, metric: str) -> str:

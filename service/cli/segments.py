@@ -30,8 +30,8 @@ from ..segmenting import (
     render,
     segment,
 )
-from .render import Column, cut, interval_bar, print_table
 from .base import app, err, out, print_json, workspace
+from .render import Column, cut, interval_bar, print_table
 
 # Long (multi-phrase) topic names are shortened in tables only; the reading
 # lines and the JSON keep them whole.

@@ -6,8 +6,8 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 
 from ...forecasting import Draft
 from ...timeparse import parse_time
-from ...workspace import Workspace
 from ...track_record import give
+from ...workspace import Workspace
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import DraftIn, ForecastBatchRequest, ForecastList, ForecastOut, ForecastRequest

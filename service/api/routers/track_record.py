@@ -26,7 +26,7 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
     responses={
         200: {
             "description": "The report as JSON, or with format png or svg its figure",
-            "content": {m: _IMAGE for m in MEDIA_TYPES.values()},
+            "content": dict.fromkeys(MEDIA_TYPES.values(), _IMAGE),
         },
         **ERRORS(404, 422, 503),
     },

@@ -4,8 +4,8 @@ from fastapi import APIRouter
 
 from models.errors import InputError, LimitExceeded, NotFound, NotReady
 
-from ...wordings import compare_variants
 from ...timeparse import parse_time
+from ...wordings import compare_variants
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import VariantsOut, VariantsRequest
