@@ -162,7 +162,7 @@ def _record(
     view = ws.forecaster.view(found[0].metric)
     handles = {d.account for d in drafts}
     with ws.store.session() as s:
-        ids = dict(s.execute(select(Account.handle, Account.id).where(Account.handle.in_(handles))))
+        ids = dict(s.execute(select(Account.handle, Account.id).where(Account.handle.in_(handles))).all())
         for d, f in zip(drafts, found, strict=True):
             t = min(f.planned_at, now).timestamp()
             code = view.account_codes.get(d.account)
