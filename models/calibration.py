@@ -13,7 +13,7 @@ quality of the quantile models (split conformal; Lei et al., JASA 2018).
 from __future__ import annotations
 
 import math
-from typing import Self
+from typing import Self, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -54,7 +54,7 @@ def cqr_scores(y: ArrayLike, lo: ArrayLike, hi: ArrayLike) -> np.ndarray:
     y_, lo_, hi_ = _vectors(y=y, lo=lo, hi=hi)
     if not (np.isfinite(y_).all() and np.isfinite(lo_).all() and np.isfinite(hi_).all()):
         raise InputError("y, lo and hi must be finite")
-    return np.maximum(lo_ - y_, y_ - hi_)
+    return cast(np.ndarray, np.maximum(lo_ - y_, y_ - hi_))
 
 
 def conformal_rank(n: int, alpha: float) -> int:

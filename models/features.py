@@ -16,6 +16,7 @@ from __future__ import annotations
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import cast
 
 import faiss
 import numpy as np
@@ -194,7 +195,7 @@ def _top(sims: np.ndarray, valid: np.ndarray, k: int) -> tuple[np.ndarray, np.nd
 
 def eligible(history: History, t: float, params: FeatureParams) -> np.ndarray:
     """Posts whose settled metric was known at time ``t``."""
-    return (history.time <= t - params.maturity_s) & ~np.isnan(history.log_target)
+    return cast(np.ndarray, (history.time <= t - params.maturity_s) & ~np.isnan(history.log_target))
 
 
 def training_matrix(
@@ -339,7 +340,7 @@ def approximate_neighbours(
     late = np.flatnonzero(~early)
     if not len(late):
         return out
-    graphs = {None: _Growing(history, settled, hnsw_m)}
+    graphs: dict[int | None, _Growing] = {None: _Growing(history, settled, hnsw_m)}
     for a in np.unique(history.account[rows[late]]):
         mine = settled[history.account[settled] == a]
         graphs[int(a)] = _Growing(history, mine, hnsw_m)
@@ -402,11 +403,11 @@ class _Growing:
         found = np.where(fine, self.rows[np.minimum(P, len(self.rows) - 1)], -1)
         idx[:, : found.shape[1]], sims[:, : found.shape[1]] = found, D
         # Rows the over-fetch left short: exact over their eligible prefix.
-        for i in np.flatnonzero(fine.sum(axis=1) < np.minimum(k, n_ok)):
-            s_ = vecs[self.rows[: n_ok[i]]] @ q[i]
+        for row in np.flatnonzero(fine.sum(axis=1) < np.minimum(k, n_ok)):
+            s_ = vecs[self.rows[: n_ok[row]]] @ q[row]
             j, v = _top_rows(s_[None, :], k)
-            idx[i] = np.where(j[0] >= 0, self.rows[np.maximum(j[0], 0)], -1)
-            sims[i] = v[0]
+            idx[row] = np.where(j[0] >= 0, self.rows[np.maximum(j[0], 0)], -1)
+            sims[row] = v[0]
         return idx, sims
 
 

@@ -31,7 +31,7 @@ import math
 import os
 from collections.abc import Iterable
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import faiss
 import numpy as np
@@ -94,6 +94,10 @@ def _drop_self(sims: np.ndarray, pos: np.ndarray, own: np.ndarray, k: int) -> tu
 class VectorIndex:
     """Cosine (inner-product) search over unit vectors keyed by id: exact,
     or an HNSW graph from ``approximate_above`` vectors on (None: always exact)."""
+
+    # Learned state (set by fit/load): the graph's id per position, with -1 for
+    # a removed post; None for the exact index, which keeps ids itself.
+    ids_: np.ndarray | None
 
     def __init__(
         self,
@@ -169,6 +173,7 @@ class VectorIndex:
 
     def _reindexed(self) -> None:
         """Refresh the id -> position lookup and the live-position bitmap."""
+        assert self.ids_ is not None  # only the graph (approximate) index keeps ids_
         live = np.flatnonzero(self.ids_ >= 0)
         order = np.argsort(self.ids_[live], kind="stable")
         self._pos_sorted = live[order]
@@ -183,7 +188,7 @@ class VectorIndex:
         at = np.searchsorted(self._ids_sorted, ids)
         at = np.minimum(at, len(self._ids_sorted) - 1)
         found = self._ids_sorted[at] == ids
-        return self._pos_sorted[at[found]]
+        return cast(np.ndarray, self._pos_sorted[at[found]])
 
     def stored_vectors(self) -> np.ndarray:
         """The stored vectors by position (a view into FAISS's memory, valid
@@ -192,7 +197,8 @@ class VectorIndex:
         if index.ntotal == 0:
             return np.zeros((0, self.dim), dtype=np.float32)
         storage = faiss.downcast_index(index.index if self.ids_ is None else index.storage)
-        return faiss.rev_swig_ptr(storage.get_xb(), int(index.ntotal) * self.dim).reshape(-1, self.dim)
+        xb: np.ndarray = faiss.rev_swig_ptr(storage.get_xb(), int(index.ntotal) * self.dim)
+        return xb.reshape(-1, self.dim)
 
     def _tune(self) -> tuple[int, float]:
         """Smallest efSearch whose recall@10 on a sample of the index's own
@@ -230,7 +236,8 @@ class VectorIndex:
 
     def ids(self) -> np.ndarray:
         """The ids the index holds (to check them against the store's)."""
-        return faiss.vector_to_array(self._fitted().id_map).astype(np.int64)
+        ids: np.ndarray = faiss.vector_to_array(self._fitted().id_map)
+        return ids.astype(np.int64)
 
     def upsert(self, ids: np.ndarray, vectors: np.ndarray, *, fingerprint: str) -> None:
         """Replace or add the given ids (an import's new and changed posts)."""
@@ -254,6 +261,7 @@ class VectorIndex:
         if len(ids) and self.ids_ is None:
             n = int(index.remove_ids(faiss.IDSelectorBatch(ids)))
         elif len(ids):
+            assert self.ids_ is not None  # the branch above took the exact index
             pos = self._positions(ids)
             self.ids_[pos] = -1  # a tombstone: never returned again
             self._reindexed()
@@ -305,16 +313,20 @@ class VectorIndex:
                 np.full((len(q), k), -1, dtype=np.int64),
             )
         if self.ids_ is None:
+            found: tuple[np.ndarray, np.ndarray]
             if allowed_ids is None:
-                return index.search(q, k)
+                found = index.search(q, k)
+                return found
             allowed = np.ascontiguousarray(allowed_ids, dtype=np.int64)
             params = faiss.SearchParameters(sel=faiss.IDSelectorBatch(allowed))
-            return index.search(q, k, params=params)
+            found = index.search(q, k, params=params)
+            return found
         return self._search_hnsw(q, k, allowed_ids)
 
     def _search_hnsw(
         self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None
     ) -> tuple[np.ndarray, np.ndarray]:
+        assert self.ids_ is not None  # _search sends only the graph index here
         ef = max(self.ef_search_, k)
         if allowed_ids is None:
             if self._live_bitmap is None:
@@ -335,7 +347,7 @@ class VectorIndex:
             sims, at = top_k_exact(q, xb[pos_ok], k)
             pos = np.where(at >= 0, pos_ok[np.maximum(at, 0)], -1)
         else:
-            bits = np.zeros(len(self.ids_), dtype=bool)
+            bits = np.zeros(len(self.ids_), dtype=np.bool_)
             bits[pos_ok] = True
             bitmap = np.packbits(bits, bitorder="little")
             sel = faiss.IDSelectorBitmap(bitmap)
@@ -386,11 +398,12 @@ class VectorIndex:
         os.replace(tmpc, d / CONFIG_FILE)
 
     @staticmethod
-    def saved_config(directory: str | Path) -> dict | None:
+    def saved_config(directory: str | Path) -> dict[str, Any] | None:
         """The config of the index saved in ``directory`` (count, fingerprint),
         read without loading the index itself; None when there is none."""
         try:
-            return json.loads((Path(directory) / CONFIG_FILE).read_text())
+            cfg: dict[str, Any] = json.loads((Path(directory) / CONFIG_FILE).read_text())
+            return cfg
         except (FileNotFoundError, json.JSONDecodeError):
             return None
 

@@ -169,7 +169,8 @@ def _export_into(tmp: Path, *, model_path: Path, model_id: str, quantize: str) -
             v = (h * m).sum(1) / m.sum(1).clamp(min=1e-9)
             return torch.nn.functional.normalize(v, p=2.0, dim=1)
 
-    graph = _Graph(st[0].auto_model).eval()
+    # torch types Module.__getattr__ as Tensor | Module; auto_model is the transformer Module.
+    graph = _Graph(st[0].auto_model).eval()  # type: ignore[arg-type]
     dummy = torch.ones((2, 8), dtype=torch.long)
     fp32 = tmp / ("model-fp32.onnx" if quantize != "none" else MODEL_NAME)
     axes = {n: {0: "batch", 1: "tokens"} for n in INPUTS}
@@ -200,8 +201,9 @@ def _export_into(tmp: Path, *, model_path: Path, model_id: str, quantize: str) -
         "model_path": str(model_path),
         "quantize": quantize,
         "opset": OPSET,
-        "max_seq_length": int(st.max_seq_length),
-        "dim": int(st.get_embedding_dimension()),
+        # sentence-transformers types both as optional; the layout checked above sets both.
+        "max_seq_length": int(st.max_seq_length),  # type: ignore[arg-type]
+        "dim": int(st.get_embedding_dimension()),  # type: ignore[arg-type]
         "torch": torch.__version__,
     }
     # Check the graph against the model it came from before keeping it.

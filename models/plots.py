@@ -73,7 +73,7 @@ def figure_size(n_segments: int) -> tuple[float, float]:
 
 
 def _groups(
-    values: np.ndarray, labels: Sequence[Hashable] | np.ndarray | Mapping[str, Sequence[int]]
+    values: np.ndarray, labels: Sequence[Hashable] | np.ndarray | Mapping[str, Sequence[int] | np.ndarray]
 ) -> dict[str, np.ndarray]:
     """Per-segment values, from one label per post or a name -> indices map
     (the overlapping groups of ``compare_groups``)."""
@@ -221,7 +221,7 @@ def _interval_panel(
 def plot_segments(
     report: SegmentReport,
     values: npt.ArrayLike,
-    labels: Sequence[Hashable] | np.ndarray | Mapping[str, Sequence[int]],
+    labels: Sequence[Hashable] | np.ndarray | Mapping[str, Sequence[int] | np.ndarray],
     *,
     metric: str,
     path: Path | str | None = None,
@@ -255,7 +255,8 @@ def plot_segments(
     colours.update({s.name: MUTED for s in order if s.too_small})
     floor = _floor(arr)
 
-    with matplotlib.rc_context(_STYLE):
+    # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
+    with matplotlib.rc_context(_STYLE):  # type: ignore[arg-type]
         fig = Figure(figsize=figure_size(len(order)), dpi=DPI, layout="constrained")
         left, right = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.05, 1.0]})
         _ecdf_panel(left, order, groups, floor, colours, metric)

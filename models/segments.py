@@ -24,7 +24,7 @@ import itertools
 import math
 from collections.abc import Hashable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 import numpy.typing as npt
@@ -134,7 +134,7 @@ def _similarities(post_vecs: np.ndarray, topic_vecs: np.ndarray) -> np.ndarray:
             f"post vectors have {posts.shape[1]} dimensions but topic vectors have {topics.shape[1]}",
             field="topic_vecs",
         )
-    return posts @ topics.T  # cosine similarity, as rows are unit length
+    return cast(np.ndarray, posts @ topics.T)  # cosine similarity, as rows are unit length
 
 
 # --------------------------------------------------------------------------
@@ -154,7 +154,7 @@ def assign_nearest_topic(post_vecs: np.ndarray, topic_vecs: np.ndarray, *, thres
         return np.empty(0, dtype=np.int64)
     best = np.argmax(sims, axis=1).astype(np.int64)
     best[sims[np.arange(sims.shape[0]), best] < threshold] = -1
-    return best
+    return cast(np.ndarray, best)
 
 
 def assign_top_k(post_vecs: np.ndarray, topic_vecs: np.ndarray, *, k: int) -> list[np.ndarray]:

@@ -30,7 +30,7 @@ import os
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Self
+from typing import Any, Self, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -240,7 +240,7 @@ class RidgeText:
             raise InputError(
                 f"vectors have {V.shape[1]} values, the model expects {self.n_features_in_}", field="vectors"
             )
-        return V @ self.coef_ + self.intercept_
+        return cast(np.ndarray, V @ self.coef_ + self.intercept_)
 
     def save(self, directory: str | os.PathLike[str]) -> Path:
         self._check_fitted()

@@ -17,7 +17,7 @@ how sure the component is of the best hour (``best_hour_share``).
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import Any, Self
+from typing import Any, Self, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -32,7 +32,7 @@ ALPHAS: tuple[float, ...] = tuple(float(a) for a in np.logspace(-1, 4, 11))
 def hour_from_cyclic(sin: ArrayLike, cos: ArrayLike) -> np.ndarray:
     """Local hour in [0, 24) back from the (sin, cos) hour features."""
     angle = np.arctan2(np.asarray(sin, dtype=float), np.asarray(cos, dtype=float))
-    return np.mod(angle * 24.0 / (2 * np.pi), 24.0)
+    return cast(np.ndarray, np.mod(angle * 24.0 / (2 * np.pi), 24.0))
 
 
 #: Per-account deviations from the shared curve are scaled down, so the
@@ -124,12 +124,12 @@ class TimingEffect:
 
     def predict(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike) -> np.ndarray:
         self._check_fitted()
-        return self.design(hours, weekdays, accounts) @ self.coef_ - self.offset_
+        return cast(np.ndarray, self.design(hours, weekdays, accounts) @ self.coef_ - self.offset_)
 
     def draws(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike) -> np.ndarray:
         """Bootstrap refits' effects, shape (n_bootstrap, rows)."""
         self._check_fitted()
-        return self.bootstrap_coefs_ @ self.design(hours, weekdays, accounts).T
+        return cast(np.ndarray, self.bootstrap_coefs_ @ self.design(hours, weekdays, accounts).T)
 
     def to_config(self) -> dict[str, Any]:
         self._check_fitted()

@@ -114,7 +114,8 @@ def track_record_figure(report: Mapping[str, Any], *, fmt: str = "png") -> bytes
     fmt = fmt.lower()
     if fmt not in FORMATS:
         raise InputError(f"format must be one of {', '.join(FORMATS)}", field="fmt", value=fmt)
-    with matplotlib.rc_context(_STYLE):
+    # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
+    with matplotlib.rc_context(_STYLE):  # type: ignore[arg-type]
         fig = Figure(figsize=(WIDTH_IN, 4.6), dpi=DPI, layout="constrained")
         left, right = fig.subplots(1, 2)
         _coverage_panel(left, list(report.get("months", [])))

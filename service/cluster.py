@@ -112,7 +112,8 @@ class RayEmbedder:
                 hint="pip install 'sounding[cluster]'",
             ) from None
         try:
-            ray.init(self.address, logging_level="WARNING", log_to_driver=False)
+            # Ray types logging_level as int, but passes it to logging, which takes level names too.
+            ray.init(self.address, logging_level="WARNING", log_to_driver=False)  # type: ignore[arg-type]
         except Exception as exc:  # grpc and Ray raise many kinds here
             raise ServiceUnavailable(
                 f"cannot reach the Ray cluster at {self.address}: {type(exc).__name__}: {exc}",

@@ -274,7 +274,7 @@ class Forecaster:
         self.limits = Limits.from_settings(settings)
         self._encode = encode
         self._models: dict[str, TrainedModel] = {}
-        self._views: dict[str, tuple[tuple[int, int, str], HistoryView]] = {}
+        self._views: dict[str, tuple[int, HistoryView]] = {}
         self._lock = threading.Lock()
 
     def embed(self, texts: Sequence[str]) -> np.ndarray:

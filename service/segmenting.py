@@ -23,6 +23,7 @@ of the hours.
 from __future__ import annotations
 
 import math
+import typing
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timedelta
@@ -372,7 +373,7 @@ class _Posts:
 def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dict[str, int]]:
     frame = ws.store.posts_frame(account=req.account)
     records = frame[list(METRIC_COLUMNS)].to_dict("records")
-    raw = [target_value(r, req.metric) for r in records]
+    raw = [target_value(typing.cast(dict[str, Any], r), req.metric) for r in records]
     values = np.array([np.nan if v is None else v for v in raw], dtype=np.float64)
     has_metric = np.isfinite(values)
     # Young posts are still gathering their metric; counting them would pull
@@ -514,7 +515,7 @@ def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[
         Example(
             post_id=str(f["post_id"].iat[i]),
             account=str(f["account"].iat[i]),
-            posted_at=f["posted_at"].iat[i].to_pydatetime(),
+            posted_at=typing.cast(pd.Timestamp, f["posted_at"].iat[i]).to_pydatetime(),
             text=str(f["text"].iat[i]),
             similarity=float(sims[i]),
             value=float(posts.values[i]),

@@ -304,11 +304,11 @@ class Store:
             have: set[str] = set()
             for i in range(0, len(keys), 900):  # SQLite's variable limit
                 have.update(s.scalars(select(Vector.key).where(Vector.key.in_(keys[i : i + 900]))))
-            for key, vec in vectors.items():
-                if key not in have:
+            for vkey, vec in vectors.items():
+                if vkey not in have:
                     v = np.ascontiguousarray(vec, dtype=np.float32)
-                    s.add(Vector(key=key, model_id=model_id, dim=int(v.shape[0]), data=v.tobytes()))
-                    have.add(key)
+                    s.add(Vector(key=vkey, model_id=model_id, dim=int(v.shape[0]), data=v.tobytes()))
+                    have.add(vkey)
             accounts = {
                 a.handle: a
                 for a in s.scalars(select(Account).where(Account.handle.in_({r.account for r in rows})))
@@ -323,10 +323,10 @@ class Store:
             acc_ids = [a.id for a in accounts.values()]
             pids = list(dict.fromkeys(r.post_id for r in rows))
             for i in range(0, len(pids), 900):
-                for post in s.scalars(
+                for got in s.scalars(
                     select(Post).where(Post.account_id.in_(acc_ids), Post.post_id.in_(pids[i : i + 900]))
                 ):
-                    stored[(post.account_id, post.post_id)] = post
+                    stored[(got.account_id, got.post_id)] = got
             by_pk = {post.id: k for k, post in stored.items()}
             pks = list(by_pk)
             for i in range(0, len(pks), 900):

@@ -26,6 +26,7 @@ from __future__ import annotations
 import csv
 import json
 import math
+import typing
 from collections.abc import Sequence
 from datetime import datetime, timedelta
 from pathlib import Path
@@ -90,7 +91,9 @@ def give(
     """Forecasts as sounding gives them: adapted, with live coverage and
     staleness warnings, and recorded unless ``record`` is False."""
     now = now or now_utc()
-    found = ws.forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now, vectors=vectors)
+    found: list[Forecast] = ws.forecaster.forecast(
+        drafts, metric=metric, coverage=coverage, now=now, vectors=vectors
+    )
     model = ws.forecaster.model(metric)
     state = _state(ws.store, metric, coverage)
     live = live_coverage(ws.store, metric, coverage)
@@ -219,7 +222,8 @@ def _record(
 
 def _state(store: Any, metric: str, coverage: float) -> CalibrationState | None:
     with store.session() as s:
-        return s.get(CalibrationState, (metric, level_key(coverage)))
+        state: CalibrationState | None = s.get(CalibrationState, (metric, level_key(coverage)))
+        return state
 
 
 def reset_adaptation(ws: Any, metric: str | None = None) -> int:
@@ -627,7 +631,7 @@ def _pseudo_outcomes(
     except SoundingError:
         return None
     ys = [math.log1p(v) for v in values if v is not None]
-    return ([d.planned_at for d in drafts], ys, [(f.log[0], f.log[2]) for f in found])
+    return ([typing.cast(datetime, d.planned_at) for d in drafts], ys, [(f.log[0], f.log[2]) for f in found])
 
 
 def after_import(
@@ -745,14 +749,16 @@ def _row(
         "match": None if m is None else m.how,
         "post_id": pid,
         "posted_at": as_utc(posted).isoformat() if posted else None,
-        "outcome": m.outcome if scored else None,
-        "inside": bool(m.inside) if scored else None,
-        "error_log": abs(f.median_log - m.outcome_log) if scored else None,
+        "outcome": m.outcome if m is not None and scored else None,
+        "inside": bool(m.inside) if m is not None and scored else None,
+        "error_log": abs(f.median_log - typing.cast(float, m.outcome_log))
+        if m is not None and scored
+        else None,
         "baseline_logs": {
             "account_median": f.account_median_log,
             "precedents_median": f.precedents_median_log,
         },
-        "outcome_log": m.outcome_log if scored else None,
+        "outcome_log": m.outcome_log if m is not None and scored else None,
         "precedents": json.loads(f.precedents or "[]"),
     }
 

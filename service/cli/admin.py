@@ -26,6 +26,7 @@ def forget_cmd(
         raise InputError("say what to forget: --account HANDLE, or --post ID [--account HANDLE]")
     ws = workspace()
     if post is None:
+        assert account is not None  # checked above: one of the two is given
         info = ws.store.account(account)  # an unknown account fails here, before asking
         what = f"account {info.handle} and its {info.posts} posts"
     else:

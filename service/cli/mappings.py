@@ -22,6 +22,7 @@ from ..mappings import (
     save_mapping,
 )
 from ..settings import Settings
+from ..timeparse import DateOrder
 from .base import app, out, print_json
 
 ACCOUNT = typer.Option(None, "--account", help="Account for rows without an account column.")
@@ -62,7 +63,7 @@ def given_options(
     """The options given on the command line, checked."""
     if day_first and month_first:
         raise InputError("give --day-first or --month-first, not both")
-    order = "day-first" if day_first else "month-first" if month_first else None
+    order: DateOrder | None = "day-first" if day_first else "month-first" if month_first else None
     return ImportOptions(
         mapping=parse_mapping(mapping),
         account=account,

@@ -4,6 +4,7 @@ and accounts, as a table with one plain reading per segment."""
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import typer
 from rich import box
@@ -75,13 +76,13 @@ def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
         if seg.median is not None and seg.ci_low is not None and seg.ci_high is not None
     ]
     if shown:
-        lo = min(float(seg.ci_low) for seg in shown)  # type: ignore[arg-type]
-        hi = max(float(seg.ci_high) for seg in shown)  # type: ignore[arg-type]
+        lo = min(float(seg.ci_low) for seg in shown)
+        hi = max(float(seg.ci_high) for seg in shown)
         room = max(out.width - 34, 10)
         for seg in shown:
             bar = interval_bar(
                 float(seg.ci_low),
-                float(seg.median),  # type: ignore[arg-type]
+                float(seg.median),
                 float(seg.ci_high),
                 lo=lo,
                 hi=hi,
@@ -108,12 +109,12 @@ def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
     if split.by == TOPIC and any(split.examples.values()):
         out.print(f"\n  what each phrase caught (most similar first; {metric} in brackets):", highlight=False)
         for seg in rep.segments:
-            shown = split.examples.get(seg.name, [])
-            if not shown:
+            caught = split.examples.get(seg.name, [])
+            if not caught:
                 continue
             head = "closest posts left out" if seg.name == "other" else _short(seg.name, 60)
             out.print(Text(f"  {head}", style="bold"))
-            for e in shown:
+            for e in caught:
                 out.print(
                     f"    {e.similarity:.2f}  [{fmt_value(e.value, metric)}]  {_short(e.text, 90)}",
                     highlight=False,
@@ -202,7 +203,7 @@ def segments_cmd(
         fmt = plot.suffix.lower().lstrip(".")
         if fmt not in FORMATS:
             raise InputError(f"--plot must end in .png or .svg, not {plot.name!r}", field="--plot")
-    kwargs = {}
+    kwargs: dict[str, Any] = {}
     if hour_edges is not None:
         kwargs["hour_edges"] = parse_edges(hour_edges, "--hour-edges")
     if length_edges is not None:

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import os
 import tempfile
+import typing
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Annotated, Any, BinaryIO
@@ -28,9 +29,13 @@ from models.errors import AuthError, InputError, LimitExceeded, NotFound, NotRea
 
 from ...importer import ImportOptions, parse_mapping
 from ...mappings import combine, load_mapping
+from ...timeparse import DateOrder
 from ..deps import WorkspaceDep, WriteAccess
 from ..responses import ERRORS
 from ..schemas import ImportPreviewOut, ImportSummaryOut
+
+if typing.TYPE_CHECKING:
+    from python_multipart.multipart import MultipartCallbacks
 
 router = APIRouter(prefix="/v1", tags=["imports"])
 
@@ -134,7 +139,7 @@ class _FormReader:
         self.disposition = b""
         self.ended = False
 
-    def callbacks(self) -> dict[str, Any]:
+    def callbacks(self) -> MultipartCallbacks:
         return {
             "on_part_begin": self.on_part_begin,
             "on_part_data": self.on_part_data,
@@ -276,8 +281,8 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
         account=upload.one("account"),
         timezone=upload.one("timezone"),
         time_format=upload.one("time_format"),
-        date_order=order,
-        decimal_comma=comma == "true",  # type: ignore[arg-type]
+        date_order=typing.cast(DateOrder | None, order),  # checked just above
+        decimal_comma=comma == "true",
     )
     name = upload.one("mapping")
     return combine(load_mapping(home, name) if name else None, given)
@@ -316,6 +321,7 @@ async def create_import(
             f"the upload could not be saved ({exc.strerror}); nothing was imported",
             hint="free some disk space and send it again",
         ) from None
+    assert upload.path is not None  # receive_upload raises when the form has no file
     try:
         o = upload_options(upload, ws.settings.resolved_home)
         kw = o.kwargs()
