@@ -28,9 +28,13 @@ demo: $(STAMP)
 test: $(STAMP) system-deps
 	$(BIN)/python -m pytest -q
 
-## lint: the import layers (import-linter contracts in pyproject.toml)
+## lint: the import layers (import-linter contracts in pyproject.toml), ruff
+## lint and format check, and mypy --strict on service/ and models/
 lint: $(STAMP)
 	$(BIN)/lint-imports
+	$(BIN)/ruff check .
+	$(BIN)/ruff format --check .
+	$(BIN)/mypy
 
 ## system-deps: Debian's chromium for the browser test, when missing
 system-deps:

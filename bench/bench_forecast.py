@@ -60,8 +60,15 @@ def grow(ws: Workspace, demo: Workspace, size: int, rng: np.random.Generator) ->
     span = frame["posted_at"].max() - frame["posted_at"].min()
     batch: list[PostRow] = []
     vectors: dict[str, np.ndarray] = {}
-    metrics = [m for m in ("impressions", "engagements", "likes", "reposts", "replies",
-                           "link_clicks", "profile_clicks")]
+    metrics = [
+        "impressions",
+        "engagements",
+        "likes",
+        "reposts",
+        "replies",
+        "link_clicks",
+        "profile_clicks",
+    ]
     for n in range(size):
         i = n % len(frame)
         rep = n // len(frame)
@@ -73,10 +80,17 @@ def grow(ws: Workspace, demo: Workspace, size: int, rng: np.random.Generator) ->
         shift = timedelta(seconds=float(rng.uniform(-1, 1) * 3 * 86400)) if rep else timedelta(0)
         posted = min(r["posted_at"] + shift, frame["posted_at"].min() + span).to_pydatetime()
         noise = float(np.exp(rng.normal(0, 0.2))) if rep else 1.0
-        batch.append(PostRow(
-            account=r["account"], post_id=f"{r['post_id']}-{rep}", text=text, posted_at=posted,
-            metrics={m: None if np.isnan(r[m]) else int(r[m] * noise) for m in metrics},
-            has_media=bool(r["has_media"]), vector_key=key))
+        batch.append(
+            PostRow(
+                account=r["account"],
+                post_id=f"{r['post_id']}-{rep}",
+                text=text,
+                posted_at=posted,
+                metrics={m: None if np.isnan(r[m]) else int(r[m] * noise) for m in metrics},
+                has_media=bool(r["has_media"]),
+                vector_key=key,
+            )
+        )
         if len(batch) == 2000:
             ws.store.write_batch(batch, vectors, model_id=ws.embedder.model_id)
             batch, vectors = [], {}
@@ -106,16 +120,18 @@ thread.join()
 
 def serve(home: Path) -> tuple[subprocess.Popen, str]:
     """The service in its own process (so its resident memory is its own)."""
-    proc = subprocess.Popen([sys.executable, "-c", SERVER, str(home), str(ROOT)],
-                            stdout=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        [sys.executable, "-c", SERVER, str(home), str(ROOT)], stdout=subprocess.PIPE, text=True
+    )
     port = int(proc.stdout.readline())  # type: ignore[union-attr]
     return proc, f"http://127.0.0.1:{port}"
 
 
 def rss_mb(pid: int) -> tuple[float, float]:
     """Resident and peak resident memory of a process, in MiB (Linux /proc)."""
-    fields = dict(line.split(":", 1) for line in Path(f"/proc/{pid}/status").read_text().splitlines()
-                  if ":" in line)
+    fields = dict(
+        line.split(":", 1) for line in Path(f"/proc/{pid}/status").read_text().splitlines() if ":" in line
+    )
     return (int(fields["VmRSS"].split()[0]) / 1024, int(fields["VmHWM"].split()[0]) / 1024)
 
 
@@ -127,12 +143,13 @@ def embed_rate(embedder: Embedder, texts: list[str], batch: int) -> float:
     """Seconds per text when embedding ``texts`` in batches as an import does."""
     t0 = time.perf_counter()
     for i in range(0, len(texts), batch):
-        embedder.encode(texts[i:i + batch])
+        embedder.encode(texts[i : i + batch])
     return (time.perf_counter() - t0) / len(texts)
 
 
-def search_figures(ws: Workspace | VectorIndex, rng: np.random.Generator, n_queries: int = 200
-                   ) -> tuple[float, float]:
+def search_figures(
+    ws: Workspace | VectorIndex, rng: np.random.Generator, n_queries: int = 200
+) -> tuple[float, float]:
     """recall@10 of the workspace's index against an exact scan, and the p50
     of one single-query search, for stored vectors moved by a little noise
     (drafts close to past posts)."""
@@ -180,16 +197,22 @@ def index_only(sizes: list[int], rng: np.random.Generator, as_json: bool, keep: 
         before = rss_mb(os.getpid())[0]
         t0 = time.perf_counter()
         index = VectorIndex(approximate_above=settings.index_approximate_above).fit(
-            np.arange(size, dtype=np.int64), vecs)
+            np.arange(size, dtype=np.int64), vecs
+        )
         build = time.perf_counter() - t0
         del vecs
         gc.collect()
         recall, p50 = search_figures(index, rng)
         cfg = index.config()
-        row = {"posts": size, "search_p50_ms": round(p50, 3), "search_recall_at_10": round(recall, 4),
-               "index_build_s": round(build, 1), "index_rss_mb": round(rss_mb(os.getpid())[0] - before, 1),
-               "index": {k: cfg[k] for k in ("kind", "ef_search", "recall_at_10", "count")},
-               "load_average": list(os.getloadavg())}
+        row = {
+            "posts": size,
+            "search_p50_ms": round(p50, 3),
+            "search_recall_at_10": round(recall, 4),
+            "index_build_s": round(build, 1),
+            "index_rss_mb": round(rss_mb(os.getpid())[0] - before, 1),
+            "index": {k: cfg[k] for k in ("kind", "ef_search", "recall_at_10", "count")},
+            "load_average": list(os.getloadavg()),
+        }
         results.append(row)
         print(json.dumps(row), file=sys.stderr, flush=True)
         (out / f"index-{stamp}.json").write_text(json.dumps(results, indent=2))
@@ -203,16 +226,27 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--sizes", type=int, nargs="+", default=[10_000, 100_000])
     ap.add_argument("--requests", type=int, default=60)
-    ap.add_argument("--embed-sample", type=int, default=512,
-                    help="texts embedded to extrapolate the time to embed a store's texts")
+    ap.add_argument(
+        "--embed-sample",
+        type=int,
+        default=512,
+        help="texts embedded to extrapolate the time to embed a store's texts",
+    )
     ap.add_argument("--no-train", action="store_true")
     ap.add_argument("--no-backtest", action="store_true", help="skip the training run with backtest")
     ap.add_argument("--json", action="store_true", help="print the results as JSON")
-    ap.add_argument("--keep", type=Path, default=None,
-                    help="build the stores in this directory and keep them (default: a temporary one)")
-    ap.add_argument("--index-only", action="store_true",
-                    help="measure only the index (build, recall, search, memory) on perturbed demo "
-                         "vectors, without a store, training or service")
+    ap.add_argument(
+        "--keep",
+        type=Path,
+        default=None,
+        help="build the stores in this directory and keep them (default: a temporary one)",
+    )
+    ap.add_argument(
+        "--index-only",
+        action="store_true",
+        help="measure only the index (build, recall, search, memory) on perturbed demo "
+        "vectors, without a store, training or service",
+    )
     args = ap.parse_args()
     rng = np.random.default_rng(0)
     if args.index_only:
@@ -232,8 +266,9 @@ def main() -> None:
                 demo.store.set_account(handle, display_name=name, timezone=tz)
             demo.import_csv(ROOT / "demo_data" / "posts.csv")
         texts = list(demo.store.posts_frame()["text"])
-        sample = [texts[i] for i in rng.choice(len(texts), size=min(args.embed_sample, len(texts)),
-                                                replace=False)]
+        sample = [
+            texts[i] for i in rng.choice(len(texts), size=min(args.embed_sample, len(texts)), replace=False)
+        ]
         per_text = embed_rate(embedder, sample, demo.settings.embed_batch_size)
         for size in args.sizes:
             home = tmp / f"s{size}"

@@ -54,7 +54,7 @@ import tempfile
 import time
 from collections import defaultdict
 from collections.abc import Callable
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -131,22 +131,38 @@ def main() -> int:
     ap.add_argument("--csv", type=Path, default=DEMO_CSV, help="CSV to import (default: the demo)")
     ap.add_argument("--limit", type=int, default=None, help="Only the first N rows (quick runs)")
     ap.add_argument("--profile", action="store_true", help="cProfile the first import too")
-    ap.add_argument("--backend", choices=["auto", "onnx", "torch"], default=None,
-                    help="Embedding backend (default: SOUNDING_EMBED_BACKEND, auto)")
-    ap.add_argument("--quantize", choices=["none", "int8"], default=None,
-                    help="Quantisation (default: SOUNDING_EMBED_QUANTIZE, none)")
-    ap.add_argument("--export-dir", type=Path, default=RESULTS / "embedding",
-                    help="Where the ONNX export is kept between runs")
-    ap.add_argument("--no-torch-import", action="store_true",
-                    help="Skip (t), the import with the torch backend")
+    ap.add_argument(
+        "--backend",
+        choices=["auto", "onnx", "torch"],
+        default=None,
+        help="Embedding backend (default: SOUNDING_EMBED_BACKEND, auto)",
+    )
+    ap.add_argument(
+        "--quantize",
+        choices=["none", "int8"],
+        default=None,
+        help="Quantisation (default: SOUNDING_EMBED_QUANTIZE, none)",
+    )
+    ap.add_argument(
+        "--export-dir",
+        type=Path,
+        default=RESULTS / "embedding",
+        help="Where the ONNX export is kept between runs",
+    )
+    ap.add_argument(
+        "--no-torch-import", action="store_true", help="Skip (t), the import with the torch backend"
+    )
     args = ap.parse_args()
 
     settings = Settings()
     batch_rows = settings.import_batch_rows
-    embedder = Embedder(batch_size=settings.embed_batch_size,
-                        backend=args.backend or settings.embed_backend,
-                        quantize=args.quantize or settings.embed_quantize,
-                        export_dir=args.export_dir, threads=settings.embed_threads)
+    embedder = Embedder(
+        batch_size=settings.embed_batch_size,
+        backend=args.backend or settings.embed_backend,
+        quantize=args.quantize or settings.embed_quantize,
+        export_dir=args.export_dir,
+        threads=settings.embed_threads,
+    )
     t = time.perf_counter()
     embedder.encode(["warm up the model before any clock starts"])
     load_s = time.perf_counter() - t
@@ -173,9 +189,15 @@ def main() -> int:
             continue
         clean = [normalise_text(x) for x in b]
         t = time.perf_counter()
-        ref.append(reference.encode(clean, batch_size=embedder.batch_size,
-                                    normalize_embeddings=True, convert_to_numpy=True,
-                                    show_progress_bar=False))
+        ref.append(
+            reference.encode(
+                clean,
+                batch_size=embedder.batch_size,
+                normalize_embeddings=True,
+                convert_to_numpy=True,
+                show_progress_bar=False,
+            )
+        )
         ref_s += time.perf_counter() - t
         t = time.perf_counter()
         ours.append(embedder.encode(b))
@@ -235,7 +257,7 @@ def main() -> int:
         return out
 
     result = {
-        "when": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+        "when": datetime.now(UTC).isoformat(timespec="seconds"),
         "csv": str(args.csv),
         "rows": len(rows),
         "texts_embedded": n_texts,
@@ -252,8 +274,9 @@ def main() -> int:
         "ratio_reference_encode_over_embedding": round(ref_s / embed_s, 3),
         "ratio_reference_encode_over_import": round(ref_s / import_s, 3),
         "torch_import_s": None if torch_import_s is None else round(torch_import_s, 3),
-        "ratio_torch_import_over_import": (None if torch_import_s is None
-                                           else round(torch_import_s / import_s, 3)),
+        "ratio_torch_import_over_import": (
+            None if torch_import_s is None else round(torch_import_s / import_s, 3)
+        ),
         "agreement_with_reference": agreement,
         "import_breakdown_s": breakdown(import_s, first_stages),
         "reimport_breakdown_s": breakdown(reimport_s, re_stages),
@@ -270,8 +293,10 @@ def main() -> int:
         },
     }
 
-    print(f"rows {len(rows)}, texts embedded {n_texts} (batches of {batch_rows} rows, "
-          f"embedder batch size {embedder.batch_size})")
+    print(
+        f"rows {len(rows)}, texts embedded {n_texts} (batches of {batch_rows} rows, "
+        f"embedder batch size {embedder.batch_size})"
+    )
     print(f"(a) bare embedding      {embed_s:8.2f} s")
     print(f"(b) first import        {import_s:8.2f} s   embedded {embedded_first} texts")
     for k, v in result["import_breakdown_s"].items():
@@ -284,17 +309,22 @@ def main() -> int:
         print(f"(t) import with torch   {torch_import_s:8.2f} s")
     print(f"backend: {embedder.info()['backend']} ({embedder.quantize})")
     print(f"embedding / import      {result['ratio_embedding_over_import']:8.3f}   (aim >= 0.8)")
-    print(f"reference / embedding   {result['ratio_reference_encode_over_embedding']:8.3f}   "
-          "(> 1: the backend embeds faster than plain encode)")
+    print(
+        f"reference / embedding   {result['ratio_reference_encode_over_embedding']:8.3f}   "
+        "(> 1: the backend embeds faster than plain encode)"
+    )
     print(f"reference / import      {result['ratio_reference_encode_over_import']:8.3f}")
     if torch_import_s is not None:
-        print(f"torch import / import   {result['ratio_torch_import_over_import']:8.3f}   "
-              "(aim >= 1.5)")
-    print(f"agreement with reference: lowest cosine {agreement['min_cosine']:.7f} (aim >= 0.99999), "
-          f"texts with identical top-10 neighbours {agreement['same_top10_share']:.4f} (aim 1)")
+        print(f"torch import / import   {result['ratio_torch_import_over_import']:8.3f}   (aim >= 1.5)")
+    print(
+        f"agreement with reference: lowest cosine {agreement['min_cosine']:.7f} (aim >= 0.99999), "
+        f"texts with identical top-10 neighbours {agreement['same_top10_share']:.4f} (aim 1)"
+    )
     print(f"import / re-import      {result['ratio_import_over_reimport']:8.1f}   (aim >= 20)")
-    print(f"load average before/after: {load_before[0]:.2f} / {load_after[0]:.2f} "
-          f"on {os.cpu_count()} CPUs (ratios from one run; other work on the machine skews them)")
+    print(
+        f"load average before/after: {load_before[0]:.2f} / {load_after[0]:.2f} "
+        f"on {os.cpu_count()} CPUs (ratios from one run; other work on the machine skews them)"
+    )
 
     if profiler:
         buf = io.StringIO()
@@ -324,9 +354,13 @@ def compare_vectors(ours: np.ndarray, ref: np.ndarray) -> dict[str, float]:
     a, b = top_neighbours(ours, 10), top_neighbours(ref, 10)
     same = [set(x) == set(y) for x, y in zip(a, b, strict=True)]
     overlap = [len(set(x) & set(y)) / max(1, len(x)) for x, y in zip(a, b, strict=True)]
-    return {"texts": int(len(ours)), "min_cosine": float(cos.min()),
-            "mean_cosine": float(cos.mean()), "same_top10_share": float(np.mean(same)),
-            "mean_top10_overlap": float(np.mean(overlap))}
+    return {
+        "texts": len(ours),
+        "min_cosine": float(cos.min()),
+        "mean_cosine": float(cos.mean()),
+        "same_top10_share": float(np.mean(same)),
+        "mean_top10_overlap": float(np.mean(overlap)),
+    }
 
 
 def top_neighbours(vectors: np.ndarray, k: int) -> list[list[int]]:
@@ -336,8 +370,11 @@ def top_neighbours(vectors: np.ndarray, k: int) -> list[list[int]]:
     from sklearn.neighbors import NearestNeighbors
 
     n = min(k + 1, len(vectors))
-    idx = NearestNeighbors(n_neighbors=n, metric="cosine", algorithm="brute").fit(
-        vectors).kneighbors(vectors, return_distance=False)
+    idx = (
+        NearestNeighbors(n_neighbors=n, metric="cosine", algorithm="brute")
+        .fit(vectors)
+        .kneighbors(vectors, return_distance=False)
+    )
     return [[int(j) for j in row if j != i][:k] for i, row in enumerate(idx)]
 
 

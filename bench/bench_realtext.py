@@ -54,8 +54,11 @@ def canonical_csv(out: Path, *, rows: int, seed: int) -> int:
     kept = []
     with SOURCE.open(encoding="utf-8", newline="") as f:
         for r in csv.DictReader(f, delimiter="\t", quoting=csv.QUOTE_NONE):
-            rank, summary, month = (r.get("rank_among_15000_most_downloaded") or "").strip(), \
-                (r.get("summary") or "").strip(), (r.get("month") or "").strip()
+            rank, summary, month = (
+                (r.get("rank_among_15000_most_downloaded") or "").strip(),
+                (r.get("summary") or "").strip(),
+                (r.get("month") or "").strip(),
+            )
             if rank and summary and len(month) == 7:
                 kept.append((r["name"], summary, month, int(float(rank))))
     rng = np.random.default_rng(seed)
@@ -98,32 +101,39 @@ def main() -> None:
     # month that holds the 85% point: at least 15% (the share is reported).
     cut = int(np.searchsorted(times, times[int(len(y) * 0.85)], side="left"))
     Xtr, ytr, Xte, yte = X[:cut], y[:cut], X[cut:], y[cut:]
-    cal = int(round(cut * 0.8))
+    cal = round(cut * 0.8)
     cal = int(np.searchsorted(times, times[cal], side="left"))
-    model = StackedForecaster(**STACK_PARAMS).fit(Xtr[:cal], ytr[:cal], Xtr[cal:], ytr[cal:],
-                                                  feature_names=ALL_FEATURES,
-                                                  cal_times=times[cal:cut])
+    model = StackedForecaster(**STACK_PARAMS).fit(
+        Xtr[:cal], ytr[:cal], Xtr[cal:], ytr[cal:], feature_names=ALL_FEATURES, cal_times=times[cal:cut]
+    )
     lo, med, hi = model.predict(Xte, coverage=0.8)
     col = {nm: i for i, nm in enumerate(ALL_FEATURES)}
     fill = float(np.median(ytr))
     simple = {
-        "account trailing median": np.where(np.isnan(Xte[:, col["baseline"]]), fill,
-                                            Xte[:, col["baseline"]]),
-        "precedents' median": np.where(np.isnan(Xte[:, col["team_median"]]), fill,
-                                       Xte[:, col["team_median"]]),
+        "account trailing median": np.where(np.isnan(Xte[:, col["baseline"]]), fill, Xte[:, col["baseline"]]),
+        "precedents' median": np.where(
+            np.isnan(Xte[:, col["team_median"]]), fill, Xte[:, col["team_median"]]
+        ),
         "history-wide median": np.full(len(yte), fill),
     }
     cands = model.candidates(Xte)
     result = {
-        "rows": len(y), "train": int(cut), "held_out": len(yte),
+        "rows": len(y),
+        "train": int(cut),
+        "held_out": len(yte),
         "held_out_share": round(len(yte) / len(y), 3),
         "seconds_features_and_training": round(time.perf_counter() - t1, 1),
-        "sounding": {"mae_log": mae(yte, med), "spearman": spearman(yte, med),
-                     "coverage_80": coverage(yte, lo, hi)},
-        "simple": {k: {"mae_log": mae(yte, v), "spearman": spearman(yte, v)}
-                   for k, v in simple.items()},
-        "candidates": {k: {"mae_log": mae(yte, v), "spearman": spearman(yte, v)}
-                       for k, v in cands.items() if k != "timing"},
+        "sounding": {
+            "mae_log": mae(yte, med),
+            "spearman": spearman(yte, med),
+            "coverage_80": coverage(yte, lo, hi),
+        },
+        "simple": {k: {"mae_log": mae(yte, v), "spearman": spearman(yte, v)} for k, v in simple.items()},
+        "candidates": {
+            k: {"mae_log": mae(yte, v), "spearman": spearman(yte, v)}
+            for k, v in cands.items()
+            if k != "timing"
+        },
         "combination": model.summary(),
     }
     print(f"{'forecaster':28s} {'MAE(log)':>9s} {'Spearman':>9s} {'cov80':>7s}")
@@ -131,8 +141,7 @@ def main() -> None:
     print(f"{'sounding':28s} {s['mae_log']:9.3f} {s['spearman']:9.3f} {s['coverage_80']:7.1%}")
     for k, v in result["simple"].items():
         print(f"{k:28s} {v['mae_log']:9.3f} {v['spearman']:9.3f} {'-':>7s}")
-    print("weights:", result["combination"]["weights"], "timing:",
-          result["combination"]["timing_weight"])
+    print("weights:", result["combination"]["weights"], "timing:", result["combination"]["timing_weight"])
     if args.json:
         args.json.write_text(json.dumps(result, indent=2, default=float))
     ws.close()

@@ -19,11 +19,11 @@ from service.workspace import Workspace
 
 
 def wide_file(path: Path, width: int) -> Path:
-    head = ["post_id", "account", "text", "posted_at", "impressions",
-            *[f"c{i}" for i in range(width)]]
+    head = ["post_id", "account", "text", "posted_at", "impressions", *[f"c{i}" for i in range(width)]]
     row = ["w1", "garden", "Wide", "2026-05-01T10:00:00Z", "5", *["0"] * width]
-    path.write_text(",".join(head) + "\n" + ",".join(row) + "\n" + ",".join(row).replace(
-        "w1", "w2", 1) + "\n")
+    path.write_text(
+        ",".join(head) + "\n" + ",".join(row) + "\n" + ",".join(row).replace("w1", "w2", 1) + "\n"
+    )
     return path
 
 
@@ -44,8 +44,10 @@ def main() -> None:
             large = timed(ws, wide_file(Path(tmp) / "w100k.csv", 100_000))
         finally:
             ws.close()
-    print(f"10,000 columns: {small:.3f} s; 100,000 columns: {large:.3f} s; "
-          f"ratio {large / small:.1f} (linear ~10, quadratic ~100)")
+    print(
+        f"10,000 columns: {small:.3f} s; 100,000 columns: {large:.3f} s; "
+        f"ratio {large / small:.1f} (linear ~10, quadratic ~100)"
+    )
 
 
 if __name__ == "__main__":

@@ -34,13 +34,18 @@ TRUE = {"true", "1", "yes", "y", "t"}  # as the import format reads has_media
 def read_plan(path: Path) -> list[dict[str, str | bool | None]]:
     with path.open(encoding="utf-8-sig", newline="") as f:  # RFC 4180, as the service writes
         rows = list(csv.DictReader(f))
-    return [{**{k: (row.get(k) or "").strip() or None for k in
-                ("draft_id", "account", "text", "planned_at")},
-             "has_media": (row.get("has_media") or "").strip().lower() in TRUE} for row in rows]
+    return [
+        {
+            **{k: (row.get(k) or "").strip() or None for k in ("draft_id", "account", "text", "planned_at")},
+            "has_media": (row.get("has_media") or "").strip().lower() in TRUE,
+        }
+        for row in rows
+    ]
 
 
-def decide(client: SoundingClient, drafts: list[dict[str, str | bool | None]], *, threshold: float,
-           metric: str) -> list[tuple[str, str, str]]:
+def decide(
+    client: SoundingClient, drafts: list[dict[str, str | bool | None]], *, threshold: float, metric: str
+) -> list[tuple[str, str, str]]:
     """(decision, draft_id, reason) per draft: hold on a near-repeat or a
     median below ``threshold``, otherwise post."""
     try:
@@ -51,10 +56,17 @@ def decide(client: SoundingClient, drafts: list[dict[str, str | bool | None]], *
     for i, d in enumerate(drafts):
         did = str(d.get("draft_id") or f"row-{i + 1}")
         try:
-            f = forecasts[i] if forecasts else client.forecast(
-                str(d.get("text") or ""), account=str(d.get("account") or ""),
-                planned_at=str(d["planned_at"]) if d.get("planned_at") else None, metric=metric,
-                has_media=bool(d.get("has_media")))
+            f = (
+                forecasts[i]
+                if forecasts
+                else client.forecast(
+                    str(d.get("text") or ""),
+                    account=str(d.get("account") or ""),
+                    planned_at=str(d["planned_at"]) if d.get("planned_at") else None,
+                    metric=metric,
+                    has_media=bool(d.get("has_media")),
+                )
+            )
         except SoundingError as exc:
             out.append(("hold", did, f"cannot forecast: {exc}"))
             continue
@@ -62,8 +74,7 @@ def decide(client: SoundingClient, drafts: list[dict[str, str | bool | None]], *
         if f.repeats:
             out.append(("hold", did, f.repeats[0].message))
         elif f.median < threshold:
-            out.append(("hold", did, f"median {f.median:,.0f} {metric} is below {threshold:,.0f} "
-                                     f"({rng})"))
+            out.append(("hold", did, f"median {f.median:,.0f} {metric} is below {threshold:,.0f} ({rng})"))
         else:
             out.append(("post", did, f"median {f.median:,.0f} {metric} ({rng})"))
     return out
@@ -72,8 +83,12 @@ def decide(client: SoundingClient, drafts: list[dict[str, str | bool | None]], *
 def main(argv: Sequence[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("plan", nargs="?", type=Path, default=PLAN, help="plan CSV file")
-    ap.add_argument("--threshold", type=float, default=800.0,
-                    help="hold drafts whose forecast median is below this (default 800)")
+    ap.add_argument(
+        "--threshold",
+        type=float,
+        default=800.0,
+        help="hold drafts whose forecast median is below this (default 800)",
+    )
     ap.add_argument("--metric", default="impressions", help="metric to forecast")
     ap.add_argument("--base-url", default="http://127.0.0.1:8000", help="the sounding service")
     args = ap.parse_args(argv)

@@ -65,8 +65,14 @@ class AdaptiveConformal:
     outcome against the band that was given and moves ``alpha_t_``.
     """
 
-    def __init__(self, *, alpha: float = 0.2, gamma: float = 0.005,
-                 alpha_start: float | None = None, window: int | None = None) -> None:
+    def __init__(
+        self,
+        *,
+        alpha: float = 0.2,
+        gamma: float = 0.005,
+        alpha_start: float | None = None,
+        window: int | None = None,
+    ) -> None:
         self.alpha = alpha
         self.gamma = gamma
         self.alpha_start = alpha_start
@@ -80,7 +86,7 @@ class AdaptiveConformal:
         s = np.asarray(scores, dtype=float).ravel()
         if s.size == 0 or not np.isfinite(s).all():
             raise InputError("calibration scores must be finite and non-empty", field="scores")
-        keep = s[-self.window:] if self.window else s
+        keep = s[-self.window :] if self.window else s
         self.recent_: deque[float] = deque(keep.tolist(), maxlen=self.window or None)
         self.sorted_ = np.sort(keep)
         self.alpha_t_ = float(self.alpha if self.alpha_start is None else self.alpha_start)
@@ -89,8 +95,9 @@ class AdaptiveConformal:
 
     def _check_fitted(self) -> None:
         if not hasattr(self, "alpha_t_"):
-            raise NotFittedError("AdaptiveConformal is not fitted yet; call fit(scores) first",
-                                 where="AdaptiveConformal")
+            raise NotFittedError(
+                "AdaptiveConformal is not fitted yet; call fit(scores) first", where="AdaptiveConformal"
+            )
 
     def quantile(self) -> float:
         self._check_fitted()
@@ -106,8 +113,7 @@ class AdaptiveConformal:
         q = self.quantile()
         miss = not (lo - q <= y <= hi + q)
         self.misses_.append(miss)
-        self.alpha_t_ = aci_step(self.alpha_t_, alpha=float(self.alpha), gamma=float(self.gamma),
-                                 miss=miss)
+        self.alpha_t_ = aci_step(self.alpha_t_, alpha=float(self.alpha), gamma=float(self.gamma), miss=miss)
         if self.window:
             self.recent_.append(float(max(lo - y, y - hi)))
             self.sorted_ = np.sort(np.fromiter(self.recent_, dtype=float))

@@ -93,11 +93,16 @@ class TrainedModel:
             if self.text is not None:
                 self.text.save(tmp / "text")
             (tmp / REPORT).write_text(json.dumps(self.report, indent=2, default=str))
-            cfg = {"format": FORMAT, "metric": self.metric, "version": self.version,
-                   "features": asdict(self.features), "files": _checksums(tmp)}
+            cfg = {
+                "format": FORMAT,
+                "metric": self.metric,
+                "version": self.version,
+                "features": asdict(self.features),
+                "files": _checksums(tmp),
+            }
             (tmp / CONFIG).write_text(json.dumps(cfg, indent=2))
             os.replace(tmp, final)
-        except Exception as exc:  # noqa: BLE001 - LightGBM's own error type included
+        except Exception as exc:  # LightGBM's own error type included
             # A full disk, a read-only directory, LightGBM failing to write:
             # leave nothing behind, and say so in plain words.
             shutil.rmtree(tmp, ignore_errors=True)
@@ -122,8 +127,11 @@ class TrainedModel:
         except (OSError, ValueError, TypeError, KeyError) as exc:
             raise DamagedModel(f"model version {d.name} is unreadable: {exc}") from None
         return cls(
-            metric=cfg["metric"], version=cfg["version"], features=features,
-            quantiles=load_forecaster(d / "quantiles"), report=report,
+            metric=cfg["metric"],
+            version=cfg["version"],
+            features=features,
+            quantiles=load_forecaster(d / "quantiles"),
+            report=report,
             text=RidgeText.load(d / "text") if (d / "text").is_dir() else None,
         )
 
@@ -133,8 +141,7 @@ def _checksums(directory: Path) -> dict[str, dict[str, Any]]:
     out: dict[str, dict[str, Any]] = {}
     for p in sorted(directory.rglob("*")):
         if p.is_file() and p.relative_to(directory).as_posix() != CONFIG:
-            out[p.relative_to(directory).as_posix()] = {
-                "bytes": p.stat().st_size, "sha256": _sha256(p)}
+            out[p.relative_to(directory).as_posix()] = {"bytes": p.stat().st_size, "sha256": _sha256(p)}
     return out
 
 
@@ -177,8 +184,10 @@ def verify(directory: Path) -> dict[str, Any]:
     else:
         result = hit[1]
     if isinstance(result, str):
-        raise DamagedModel(f"model version {d.name} is damaged: {result}",
-                           hint="it is skipped; delete its directory or train again")
+        raise DamagedModel(
+            f"model version {d.name} is damaged: {result}",
+            hint="it is skipped; delete its directory or train again",
+        )
     return result
 
 
@@ -201,7 +210,8 @@ def _check(d: Path) -> dict[str, Any] | str:
         try:
             size = p.stat().st_size
             if not isinstance(want, dict) or size != want.get("bytes"):
-                return f"{name} has {size} bytes, the config says {want.get('bytes') if isinstance(want, dict) else '?'}"
+                said = want.get("bytes") if isinstance(want, dict) else "?"
+                return f"{name} has {size} bytes, the config says {said}"
             if _sha256(p) != want.get("sha256"):
                 return f"{name} does not match its checksum"
         except OSError:
@@ -217,8 +227,7 @@ def versions(root: Path, metric: str) -> list[str]:
     base = Path(root) / metric
     if not base.is_dir():
         return []
-    return sorted(p.name for p in base.iterdir()
-                  if not p.name.startswith(".") and (p / CONFIG).is_file())
+    return sorted(p.name for p in base.iterdir() if not p.name.startswith(".") and (p / CONFIG).is_file())
 
 
 def intact(root: Path, metric: str) -> tuple[str | None, list[tuple[str, str]]]:
@@ -273,8 +282,11 @@ def newest(root: Path, metric: str) -> str:
     for version, why in damaged:
         if version not in _warned:  # once per process, not once per forecast
             _warned.add(version)
-            log.warning("%s; it is skipped (%s)", why,
-                        f"version {found} is served instead" if found else "no intact version")
+            log.warning(
+                "%s; it is skipped (%s)",
+                why,
+                f"version {found} is served instead" if found else "no intact version",
+            )
     if found is None:
         if damaged:
             raise NotReady(

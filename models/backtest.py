@@ -31,13 +31,18 @@ from .regressor import QuantileForecaster
 from .stacking import CANDIDATES, SIMPLE, StackedForecaster
 
 #: The timing-only comparison model (one thread: the cores are shared).
-TIMING_ONLY_PARAMS: dict[str, Any] = {"n_estimators": 200, "learning_rate": 0.06,
-                                      "num_leaves": 15, "min_child_samples": 20,
-                                      "num_threads": 1}
+TIMING_ONLY_PARAMS: dict[str, Any] = {
+    "n_estimators": 200,
+    "learning_rate": 0.06,
+    "num_leaves": 15,
+    "min_child_samples": 20,
+    "num_threads": 1,
+}
 
 
-def _scores(y: np.ndarray, med: np.ndarray, lo: np.ndarray | None = None,
-            hi: np.ndarray | None = None) -> dict[str, float | None]:
+def _scores(
+    y: np.ndarray, med: np.ndarray, lo: np.ndarray | None = None, hi: np.ndarray | None = None
+) -> dict[str, float | None]:
     out: dict[str, float | None] = {
         "mae_log": mae(y, med),
         "spearman": spearman(y, med),
@@ -50,8 +55,7 @@ def _scores(y: np.ndarray, med: np.ndarray, lo: np.ndarray | None = None,
     return out
 
 
-def _splits(times: np.ndarray, n_folds: int
-            ) -> tuple[list[tuple[np.ndarray, np.ndarray, np.ndarray]], int]:
+def _splits(times: np.ndarray, n_folds: int) -> tuple[list[tuple[np.ndarray, np.ndarray, np.ndarray]], int]:
     """Rolling-origin splits with as many of the asked folds as the history
     allows: posts sharing one time (a month's worth of posts dated to the
     month, say) cannot be cut apart, and may leave a later fold empty."""
@@ -93,7 +97,8 @@ def run_backtest(
     for i, (tr, ca, te) in enumerate(splits):
         # Bootstrap refits of the timing effect only serve the hours answer.
         model = StackedForecaster(**{**params, "timing_bootstrap": 0}).fit(
-            X[tr], y[tr], X[ca], y[ca], feature_names=names, cal_times=times[ca])
+            X[tr], y[tr], X[ca], y[ca], feature_names=names, cal_times=times[ca]
+        )
         lo, med, hi = model.predict(X[te], coverage=coverage_level)
         for level in model.levels_:
             l_lo, _, l_hi = model.predict(X[te], coverage=level)
@@ -101,22 +106,37 @@ def run_backtest(
         cands = model.candidates(X[te])
         if timing_only:
             tmodel = QuantileForecaster(**{**TIMING_ONLY_PARAMS, "levels": (coverage_level,)}).fit(
-                X[tr][:, timing_cols], y[tr], X[ca][:, timing_cols], y[ca],
-                feature_names=list(TIMING_FEATURES))
+                X[tr][:, timing_cols],
+                y[tr],
+                X[ca][:, timing_cols],
+                y[ca],
+                feature_names=list(TIMING_FEATURES),
+            )
             t_lo, t_med, t_hi = tmodel.predict(X[te][:, timing_cols], coverage=coverage_level)
         else:
             t_lo = t_med = t_hi = np.full(len(te), np.nan)
         # The fold's simple forecasters read the fold's own training block.
         cands["history_median"] = np.full(len(te), float(np.median(y[tr])))
-        for k, v in (("y", y[te]), ("med", med), ("lo", lo), ("hi", hi), ("t_med", t_med),
-                     ("t_lo", t_lo), ("t_hi", t_hi), *((c, cands[c]) for c in CANDIDATES)):
+        for k, v in (
+            ("y", y[te]),
+            ("med", med),
+            ("lo", lo),
+            ("hi", hi),
+            ("t_med", t_med),
+            ("t_lo", t_lo),
+            ("t_hi", t_hi),
+            *((c, cands[c]) for c in CANDIDATES),
+        ):
             pooled[k].append(v)
         summary = model.summary()
         weights.append({**summary["weights"], "timing": summary["timing_weight"]})
         fold: dict[str, Any] = {
             "fold": i + 1,
-            "train": len(tr), "calibration": len(ca), "test": len(te),
-            "test_from": float(np.min(times[te])), "test_to": float(np.max(times[te])),
+            "train": len(tr),
+            "calibration": len(ca),
+            "test": len(te),
+            "test_from": float(np.min(times[te])),
+            "test_to": float(np.max(times[te])),
             "model": _scores(y[te], med, lo, hi),
             "candidates": {c: _scores(y[te], cands[c]) for c in CANDIDATES},
             "weights": weights[-1],
@@ -137,7 +157,7 @@ def run_backtest(
         "coverage_nominal": coverage_level,
         "n_folds": n_folds,
         "n_folds_asked": asked,
-        "n_test": int(len(p["y"])),
+        "n_test": len(p["y"]),
         "model": _scores(p["y"], p["med"], p["lo"], p["hi"]),
         "baselines": baselines,
         "candidates": candidates,
@@ -145,8 +165,9 @@ def run_backtest(
         "coverage_by_level": {
             f"{lvl:g}": float(np.concatenate(h).mean()) for lvl, h in sorted(level_hits.items())
         },
-        "text_signal": text_signal(p["y"], p["account_median"],
-                                   {c: p[c] for c in ("text_ridge", "precedents_median")}),
+        "text_signal": text_signal(
+            p["y"], p["account_median"], {c: p[c] for c in ("text_ridge", "precedents_median")}
+        ),
         "folds": folds,
     }
     report["note"] = signal_note(report)
@@ -156,15 +177,16 @@ def run_backtest(
 #: Below this share of the variance left by the account median, the text is
 #: said to explain little (a plain reading; our choice, no source).
 TEXT_SHARE_MIN = 0.05
-_LEANS = {"boosted": "the boosted model of every feature",
-          "text_ridge": "the text model",
-          "account_median": "your account's recent median",
-          "precedents_median": "the median of similar past posts",
-          "history_median": "the history-wide median"}
+_LEANS = {
+    "boosted": "the boosted model of every feature",
+    "text_ridge": "the text model",
+    "account_median": "your account's recent median",
+    "precedents_median": "the median of similar past posts",
+    "history_median": "the history-wide median",
+}
 
 
-def text_signal(y: np.ndarray, account: np.ndarray, text: dict[str, np.ndarray]
-                ) -> dict[str, float]:
+def text_signal(y: np.ndarray, account: np.ndarray, text: dict[str, np.ndarray]) -> dict[str, float]:
     """How much of the difference from the account's recent median each
     text-based forecaster explains: the squared correlation of
     ``forecast - account median`` with ``y - account median`` (test posts)."""
@@ -192,5 +214,7 @@ def signal_note(report: dict[str, Any]) -> str | None:
         return None
     w = report.get("weights") or {}
     lean = max((c for c in CANDIDATES if c in w), key=lambda c: w[c], default="account_median")
-    return ("the text of your drafts explains little of the difference in reach in this "
-            f"history; the forecast leans on {_LEANS.get(lean, lean)}")
+    return (
+        "the text of your drafts explains little of the difference in reach in this "
+        f"history; the forecast leans on {_LEANS.get(lean, lean)}"
+    )

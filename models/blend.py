@@ -22,17 +22,20 @@ from .errors import InputError
 MAX_COLUMNS = 12
 
 
-def simplex_weights(forecasts: ArrayLike, y: ArrayLike, effects: ArrayLike | None = None
-                    ) -> tuple[np.ndarray, np.ndarray]:
+def simplex_weights(
+    forecasts: ArrayLike, y: ArrayLike, effects: ArrayLike | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """``(w, g)``: weights of the candidate forecasts (>= 0, summing to 1)
     and of the effect columns (>= 0)."""
     F = np.asarray(forecasts, dtype=np.float64)
     t = np.asarray(y, dtype=np.float64)
-    E = (np.zeros((F.shape[0], 0)) if effects is None
-         else np.asarray(effects, dtype=np.float64).reshape(F.shape[0], -1))
+    E = (
+        np.zeros((F.shape[0], 0))
+        if effects is None
+        else np.asarray(effects, dtype=np.float64).reshape(F.shape[0], -1)
+    )
     if F.ndim != 2 or F.shape[1] == 0 or t.shape != (F.shape[0],):
-        raise InputError("forecasts must be (rows x candidates) with one target per row",
-                         field="forecasts")
+        raise InputError("forecasts must be (rows x candidates) with one target per row", field="forecasts")
     if not (np.isfinite(F).all() and np.isfinite(t).all() and np.isfinite(E).all()):
         raise InputError("forecasts, effects and y must be finite", field="forecasts")
     k, m = F.shape[1], E.shape[1]

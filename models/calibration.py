@@ -13,7 +13,7 @@ quality of the quantile models (split conformal; Lei et al., JASA 2018).
 from __future__ import annotations
 
 import math
-from typing import Self
+from typing import Self, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -32,12 +32,12 @@ def _vectors(**named: ArrayLike) -> list[np.ndarray]:
         out = [np.asarray(v, dtype=float) for v in named.values()]
     except (TypeError, ValueError) as exc:
         raise InputError(f"expected numeric arrays: {exc}") from None
-    for name, arr in zip(named, out):
+    for name, arr in zip(named, out, strict=True):
         if arr.ndim != 1:
             raise InputError(f"{name} must be 1-D, got shape {arr.shape}", field=name)
     lengths = {arr.shape[0] for arr in out}
     if len(lengths) != 1:
-        sizes = ", ".join(f"{n}={a.shape[0]}" for n, a in zip(named, out))
+        sizes = ", ".join(f"{n}={a.shape[0]}" for n, a in zip(named, out, strict=True))
         raise InputError(f"arrays differ in length ({sizes})")
     return out
 
@@ -54,7 +54,7 @@ def cqr_scores(y: ArrayLike, lo: ArrayLike, hi: ArrayLike) -> np.ndarray:
     y_, lo_, hi_ = _vectors(y=y, lo=lo, hi=hi)
     if not (np.isfinite(y_).all() and np.isfinite(lo_).all() and np.isfinite(hi_).all()):
         raise InputError("y, lo and hi must be finite")
-    return np.maximum(lo_ - y_, y_ - hi_)
+    return cast(np.ndarray, np.maximum(lo_ - y_, y_ - hi_))
 
 
 def conformal_rank(n: int, alpha: float) -> int:

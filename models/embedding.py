@@ -107,15 +107,22 @@ class Embedder:
         self.export_dir = export_dir
         self.threads = threads
         if backend not in BACKENDS:
-            raise InputError(f"unknown embedding backend {backend!r}; choose one of "
-                             f"{', '.join(BACKENDS)}", field="embed_backend", value=backend)
+            raise InputError(
+                f"unknown embedding backend {backend!r}; choose one of {', '.join(BACKENDS)}",
+                field="embed_backend",
+                value=backend,
+            )
         if quantize not in ("none", "int8"):
-            raise InputError(f"unknown quantisation {quantize!r}; choose none or int8",
-                             field="embed_quantize", value=quantize)
+            raise InputError(
+                f"unknown quantisation {quantize!r}; choose none or int8",
+                field="embed_quantize",
+                value=quantize,
+            )
         if quantize == "int8" and (backend == "torch" or export_dir is None):
             raise InputError(
                 "int8 quantisation needs the onnx backend and a data directory for its export",
-                field="embed_quantize", value=quantize,
+                field="embed_quantize",
+                value=quantize,
                 hint="set SOUNDING_EMBED_BACKEND=onnx (or auto), or SOUNDING_EMBED_QUANTIZE=none",
             )
         self._model: Any = None
@@ -166,8 +173,7 @@ class Embedder:
     def _load(self) -> Any:
         with self._lock:
             if self.backend_ is None:
-                want_onnx = self.backend == "onnx" or (
-                    self.backend == "auto" and self.export_dir is not None)
+                want_onnx = self.backend == "onnx" or (self.backend == "auto" and self.export_dir is not None)
                 if want_onnx:
                     try:
                         self._onnx = self._load_onnx()
@@ -177,8 +183,7 @@ class Embedder:
                             raise StoreError(
                                 f"the ONNX embedding backend is unavailable: {_reason(exc)}",
                                 hint="set SOUNDING_EMBED_BACKEND=torch"
-                                + (" and SOUNDING_EMBED_QUANTIZE=none"
-                                   if self.quantize != "none" else ""),
+                                + (" and SOUNDING_EMBED_QUANTIZE=none" if self.quantize != "none" else ""),
                             ) from exc
                         self.fallback_reason_ = _reason(exc)
                         log.warning(
@@ -196,7 +201,9 @@ class Embedder:
 
         assert self.export_dir is not None
         directory = onnx_backend.find_or_export(
-            root=Path(self.export_dir), model_id=self.model_id, model_path=self._path(),
+            root=Path(self.export_dir),
+            model_id=self.model_id,
+            model_path=self._path(),
             quantize=self.quantize,
         )
         self.export_path_ = directory

@@ -87,8 +87,12 @@ class SoundingError(Exception):
     @classmethod
     def from_dict(cls, body: dict[str, Any]) -> SoundingError:
         """The error again from its ``to_dict`` body (the client's side)."""
-        return cls(str(body.get("message") or cls.description), where=body.get("where"),
-                   field=body.get("field"), hint=body.get("hint"))
+        return cls(
+            str(body.get("message") or cls.description),
+            where=body.get("where"),
+            field=body.get("field"),
+            hint=body.get("hint"),
+        )
 
 
 ERROR_CLASSES[SoundingError.code] = SoundingError
@@ -146,9 +150,14 @@ class LimitExceeded(InputError):
     @classmethod
     def from_dict(cls, body: dict[str, Any]) -> SoundingError:
         maximum = body.get("maximum")
-        return cls(str(body.get("message") or cls.description), limit=str(body.get("limit") or ""),
-                   maximum=maximum if isinstance(maximum, int) else 0, where=body.get("where"),
-                   field=body.get("field"), hint=body.get("hint"))
+        return cls(
+            str(body.get("message") or cls.description),
+            limit=str(body.get("limit") or ""),
+            maximum=maximum if isinstance(maximum, int) else 0,
+            where=body.get("where"),
+            field=body.get("field"),
+            hint=body.get("hint"),
+        )
 
 
 class NotFound(SoundingError):

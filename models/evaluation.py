@@ -34,7 +34,7 @@ def _vectors(named: dict[str, ArrayLike], *, infinite_ok: tuple[str, ...] = ()) 
         out.append(arr)
     lengths = {arr.shape[0] for arr in out}
     if len(lengths) != 1:
-        sizes = ", ".join(f"{n}={a.shape[0]}" for n, a in zip(named, out))
+        sizes = ", ".join(f"{n}={a.shape[0]}" for n, a in zip(named, out, strict=True))
         raise InputError(f"arrays differ in length ({sizes})")
     if 0 in lengths:
         raise InputError("no rows to evaluate")

@@ -31,7 +31,7 @@ def group_contributions(
 ) -> tuple[float, dict[str, float]]:
     """(expected value, {group: summed contribution}) for one row."""
     expected = float(contrib_row[-1])
-    sums = {g: 0.0 for g in GROUPS}
+    sums = dict.fromkeys(GROUPS, 0.0)
     for name, value in zip(feature_names, contrib_row[:-1], strict=True):
         g = groups.get(name, "text form")
         sums[g] = sums.get(g, 0.0) + float(value)
@@ -41,10 +41,14 @@ def group_contributions(
 _WHY = {
     "precedents": ("similar past posts did better than usual", "similar past posts did worse than usual"),
     "timing": ("the planned hour and day tend to do well", "the planned hour and day tend to do worse"),
-    "account baseline": ("this account's recent posts run above the team's usual",
-                         "this account's recent posts run below the team's usual"),
-    "text form": ("the draft's form (length, link, tags, media) helps",
-                  "the draft's form (length, link, tags, media) holds it back"),
+    "account baseline": (
+        "this account's recent posts run above the team's usual",
+        "this account's recent posts run below the team's usual",
+    ),
+    "text form": (
+        "the draft's form (length, link, tags, media) helps",
+        "the draft's form (length, link, tags, media) holds it back",
+    ),
 }
 
 

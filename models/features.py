@@ -16,6 +16,7 @@ from __future__ import annotations
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import cast
 
 import faiss
 import numpy as np
@@ -194,7 +195,7 @@ def _top(sims: np.ndarray, valid: np.ndarray, k: int) -> tuple[np.ndarray, np.nd
 
 def eligible(history: History, t: float, params: FeatureParams) -> np.ndarray:
     """Posts whose settled metric was known at time ``t``."""
-    return (history.time <= t - params.maturity_s) & ~np.isnan(history.log_target)
+    return cast(np.ndarray, (history.time <= t - params.maturity_s) & ~np.isnan(history.log_target))
 
 
 def training_matrix(
@@ -231,13 +232,13 @@ def training_matrix(
     t = history.time[rows]
     ns = len(NEIGHBOUR_STATS)
     X[:, :ns] = _stats_of(history, neighbours.team, neighbours.team_sims, t, params)
-    X[:, ns:2 * ns] = _stats_of(history, neighbours.own, neighbours.own_sims, t, params)
-    X[:, 2 * ns:2 * ns + 2] = _baselines(history, rows, params)
+    X[:, ns : 2 * ns] = _stats_of(history, neighbours.own, neighbours.own_sims, t, params)
+    X[:, 2 * ns : 2 * ns + 2] = _baselines(history, rows, params)
     angle = 2 * np.pi * (np.asarray(local_hours, dtype=np.float64)[rows] / 24.0)
     X[:, 2 * ns + 2] = np.sin(angle)
     X[:, 2 * ns + 3] = np.cos(angle)
     X[:, 2 * ns + 4] = np.asarray(weekdays, dtype=np.float64)[rows]
-    X[:, 2 * ns + 5:] = np.asarray(forms, dtype=np.float64).reshape(n, -1)[rows]
+    X[:, 2 * ns + 5 :] = np.asarray(forms, dtype=np.float64).reshape(n, -1)[rows]
     return X
 
 
@@ -253,8 +254,9 @@ class Neighbours:
     own_sims: np.ndarray
 
 
-def exact_neighbours(history: History, *, rows: np.ndarray, params: FeatureParams,
-                     block: int = 256) -> Neighbours:
+def exact_neighbours(
+    history: History, *, rows: np.ndarray, params: FeatureParams, block: int = 256
+) -> Neighbours:
     """Leak-free top-k neighbours of ``rows`` by exact inner products, block
     by block; each block only looks at the posts that came before its last
     post. Order: similarity descending, then earlier row first."""
@@ -269,13 +271,13 @@ def exact_neighbours(history: History, *, rows: np.ndarray, params: FeatureParam
     by_account = {int(a): np.flatnonzero(history.account == a) for a in np.unique(history.account)}
     order = np.argsort(rows, kind="stable")  # blocks of consecutive rows share a horizon
     for b0 in range(0, len(rows), block):
-        at = order[b0:b0 + block]
+        at = order[b0 : b0 + block]
         r = rows[at]
         horizon = int(np.searchsorted(history.time, history.time[r.max()], side="right"))
         # A run of rows is sliced, not gathered: BLAS may round a copied
         # operand differently, and the products must equal the reference's.
         run = r[-1] - r[0] + 1 == len(r) and bool(np.all(np.diff(r) == 1))
-        Q = history.vectors[r[0]:r[-1] + 1] if run else history.vectors[r]
+        Q = history.vectors[r[0] : r[-1] + 1] if run else history.vectors[r]
         S = Q @ history.vectors[:horizon].T
         # Eligible: published and settled by the row's time less maturity, with
         # a metric. Eligibility is a prefix of the columns per row, so only the
@@ -298,9 +300,17 @@ def exact_neighbours(history: History, *, rows: np.ndarray, params: FeatureParam
     return Neighbours(team, team_s, own, own_s)
 
 
-def approximate_neighbours(history: History, *, rows: np.ndarray, params: FeatureParams,
-                           exact_below: int = 20_000, chunk: int = 256, overfetch: int = 4,
-                           hnsw_m: int = 32, ef_search: int = 128) -> Neighbours:
+def approximate_neighbours(
+    history: History,
+    *,
+    rows: np.ndarray,
+    params: FeatureParams,
+    exact_below: int = 20_000,
+    chunk: int = 256,
+    overfetch: int = 4,
+    hnsw_m: int = 32,
+    ef_search: int = 128,
+) -> Neighbours:
     """Leak-free neighbours of ``rows`` from HNSW graphs grown in time order
     (one over the team, one per large account), for histories too large for
     exact products.
@@ -313,10 +323,12 @@ def approximate_neighbours(history: History, *, rows: np.ndarray, params: Featur
     """
     k = params.k
     rows = np.sort(np.asarray(rows, dtype=np.int64))
-    out = Neighbours(np.full((len(rows), k), -1, dtype=np.int64),
-                     np.full((len(rows), k), -np.inf, dtype=np.float32),
-                     np.full((len(rows), k), -1, dtype=np.int64),
-                     np.full((len(rows), k), -np.inf, dtype=np.float32))
+    out = Neighbours(
+        np.full((len(rows), k), -1, dtype=np.int64),
+        np.full((len(rows), k), -np.inf, dtype=np.float32),
+        np.full((len(rows), k), -1, dtype=np.int64),
+        np.full((len(rows), k), -np.inf, dtype=np.float32),
+    )
     settled = np.flatnonzero(~np.isnan(history.log_target))
     limit = np.searchsorted(history.time, history.time - params.maturity_s, side="right")
     seen = np.searchsorted(settled, limit[rows])  # settled posts each row may see
@@ -328,12 +340,12 @@ def approximate_neighbours(history: History, *, rows: np.ndarray, params: Featur
     late = np.flatnonzero(~early)
     if not len(late):
         return out
-    graphs = {None: _Growing(history, settled, hnsw_m)}
+    graphs: dict[int | None, _Growing] = {None: _Growing(history, settled, hnsw_m)}
     for a in np.unique(history.account[rows[late]]):
         mine = settled[history.account[settled] == a]
         graphs[int(a)] = _Growing(history, mine, hnsw_m)
     for c0 in range(0, len(late), chunk):
-        at = late[c0:c0 + chunk]
+        at = late[c0 : c0 + chunk]
         r = rows[at]
         q = history.vectors[r]
         for key, graph in graphs.items():
@@ -341,8 +353,9 @@ def approximate_neighbours(history: History, *, rows: np.ndarray, params: Featur
             if not len(pick):
                 continue
             n_ok = np.searchsorted(graph.rows, limit[r[pick]])  # the graph's eligible prefix
-            idx, sims = graph.top(q[pick], n_ok, k, exact_below=exact_below,
-                                  overfetch=overfetch, ef=ef_search)
+            idx, sims = graph.top(
+                q[pick], n_ok, k, exact_below=exact_below, overfetch=overfetch, ef=ef_search
+            )
             if key is None:
                 out.team[at[pick]], out.team_sims[at[pick]] = idx, sims
             else:
@@ -360,8 +373,9 @@ class _Growing:
         self.graph.hnsw.efConstruction = 40
         self.added = 0
 
-    def top(self, q: np.ndarray, n_ok: np.ndarray, k: int, *, exact_below: int, overfetch: int,
-            ef: int) -> tuple[np.ndarray, np.ndarray]:
+    def top(
+        self, q: np.ndarray, n_ok: np.ndarray, k: int, *, exact_below: int, overfetch: int, ef: int
+    ) -> tuple[np.ndarray, np.ndarray]:
         """Top-``k`` History rows among the first ``n_ok[i]`` of this graph's
         rows for each query ``q[i]``; best first, earlier row first on ties."""
         idx = np.full((len(q), k), -1, dtype=np.int64)
@@ -374,7 +388,7 @@ class _Growing:
             i, s_ = _top_rows(S, k)
             return np.where(i >= 0, self.rows[np.maximum(i, 0)], -1), s_
         if top > self.added:
-            self.graph.add(np.ascontiguousarray(vecs[self.rows[self.added:top]]))
+            self.graph.add(np.ascontiguousarray(vecs[self.rows[self.added : top]]))
             self.added = top
         K = min(overfetch * k, self.added)
         params = faiss.SearchParametersHNSW()
@@ -387,13 +401,13 @@ class _Growing:
         D, P = np.take_along_axis(D, o, axis=1), np.take_along_axis(P, o, axis=1)
         fine = np.isfinite(D)
         found = np.where(fine, self.rows[np.minimum(P, len(self.rows) - 1)], -1)
-        idx[:, :found.shape[1]], sims[:, :found.shape[1]] = found, D
+        idx[:, : found.shape[1]], sims[:, : found.shape[1]] = found, D
         # Rows the over-fetch left short: exact over their eligible prefix.
-        for i in np.flatnonzero(fine.sum(axis=1) < np.minimum(k, n_ok)):
-            s_ = vecs[self.rows[:n_ok[i]]] @ q[i]
+        for row in np.flatnonzero(fine.sum(axis=1) < np.minimum(k, n_ok)):
+            s_ = vecs[self.rows[: n_ok[row]]] @ q[row]
             j, v = _top_rows(s_[None, :], k)
-            idx[i] = np.where(j[0] >= 0, self.rows[np.maximum(j[0], 0)], -1)
-            sims[i] = v[0]
+            idx[row] = np.where(j[0] >= 0, self.rows[np.maximum(j[0], 0)], -1)
+            sims[row] = v[0]
         return idx, sims
 
 
@@ -458,8 +472,9 @@ def _top_rows_partition(M: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     return idx, sims
 
 
-def _stats_of(history: History, idx: np.ndarray, sims: np.ndarray, t: np.ndarray,
-              params: FeatureParams) -> np.ndarray:
+def _stats_of(
+    history: History, idx: np.ndarray, sims: np.ndarray, t: np.ndarray, params: FeatureParams
+) -> np.ndarray:
     """``neighbour_stats`` for many rows at once (rows grouped by how many
     neighbours they have, so each group is a plain matrix)."""
     out = np.full((len(idx), len(NEIGHBOUR_STATS)), np.nan, dtype=np.float64)
@@ -468,8 +483,8 @@ def _stats_of(history: History, idx: np.ndarray, sims: np.ndarray, t: np.ndarray
         if c == 0:
             continue
         g = np.flatnonzero(counts == c)
-        I, S = idx[g, :c], sims[g, :c]
-        L = history.log_target[I]
+        Nb, S = idx[g, :c], sims[g, :c]
+        L = history.log_target[Nb]
         W = np.clip(S, 0.0, None)
         wsum = W.sum(axis=1)
         pos = wsum > 0
@@ -486,7 +501,7 @@ def _stats_of(history: History, idx: np.ndarray, sims: np.ndarray, t: np.ndarray
         out[g, 3] = L.max(axis=1)
         out[g, 4] = S[:, 0]
         out[g, 5] = (S >= params.similar_threshold).sum(axis=1)
-        out[g, 6] = (t[g] - history.time[I[:, 0]]) / DAY
+        out[g, 6] = (t[g] - history.time[Nb[:, 0]]) / DAY
     return out
 
 
@@ -536,9 +551,14 @@ def _training_matrix_loop(
             team, team_s = _top(S[r], ok, params.k)
             own, own_s = _top(S[r], ok & (history.account[:horizon] == history.account[i]), params.k)
             X[i], _ = assemble(
-                history, Neighbourhood(team, team_s, own, own_s), t=t,
-                account=int(history.account[i]), local_hour=float(local_hours[i]),
-                weekday=int(weekdays[i]), form=forms[i], params=params,
+                history,
+                Neighbourhood(team, team_s, own, own_s),
+                t=t,
+                account=int(history.account[i]),
+                local_hour=float(local_hours[i]),
+                weekday=int(weekdays[i]),
+                form=forms[i],
+                params=params,
             )
     return X
 

@@ -31,7 +31,7 @@ import math
 import os
 from collections.abc import Iterable
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import faiss
 import numpy as np
@@ -73,8 +73,9 @@ def top_k_exact(queries: np.ndarray, base: np.ndarray, k: int) -> tuple[np.ndarr
     return sims, pos
 
 
-def recall_at(approx: np.ndarray, exact_sims: np.ndarray, approx_sims: np.ndarray,
-              *, tol: float = 1e-6) -> float:
+def recall_at(
+    approx: np.ndarray, exact_sims: np.ndarray, approx_sims: np.ndarray, *, tol: float = 1e-6
+) -> float:
     """Share of the exact top-k that the approximate answer found, counting
     a returned neighbour as found when its similarity reaches the exact k-th
     (so exact ties at the boundary are not held against the index)."""
@@ -83,18 +84,20 @@ def recall_at(approx: np.ndarray, exact_sims: np.ndarray, approx_sims: np.ndarra
     return float(np.minimum(hit.sum(axis=1), exact_sims.shape[1]).sum() / exact_sims.size)
 
 
-def _drop_self(sims: np.ndarray, pos: np.ndarray, own: np.ndarray, k: int
-               ) -> tuple[np.ndarray, np.ndarray]:
+def _drop_self(sims: np.ndarray, pos: np.ndarray, own: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
     """The first ``k`` answers per row without the query's own position
     (the last one is cut when it is absent)."""
     order = np.argsort(pos == own[:, None], axis=1, kind="stable")  # self column last
-    return (np.take_along_axis(sims, order, axis=1)[:, :k],
-            np.take_along_axis(pos, order, axis=1)[:, :k])
+    return (np.take_along_axis(sims, order, axis=1)[:, :k], np.take_along_axis(pos, order, axis=1)[:, :k])
 
 
 class VectorIndex:
     """Cosine (inner-product) search over unit vectors keyed by id: exact,
     or an HNSW graph from ``approximate_above`` vectors on (None: always exact)."""
+
+    # Learned state (set by fit/load): the graph's id per position, with -1 for
+    # a removed post; None for the exact index, which keeps ids itself.
+    ids_: np.ndarray | None
 
     def __init__(
         self,
@@ -170,6 +173,7 @@ class VectorIndex:
 
     def _reindexed(self) -> None:
         """Refresh the id -> position lookup and the live-position bitmap."""
+        assert self.ids_ is not None  # only the graph (approximate) index keeps ids_
         live = np.flatnonzero(self.ids_ >= 0)
         order = np.argsort(self.ids_[live], kind="stable")
         self._pos_sorted = live[order]
@@ -184,7 +188,7 @@ class VectorIndex:
         at = np.searchsorted(self._ids_sorted, ids)
         at = np.minimum(at, len(self._ids_sorted) - 1)
         found = self._ids_sorted[at] == ids
-        return self._pos_sorted[at[found]]
+        return cast(np.ndarray, self._pos_sorted[at[found]])
 
     def stored_vectors(self) -> np.ndarray:
         """The stored vectors by position (a view into FAISS's memory, valid
@@ -193,7 +197,8 @@ class VectorIndex:
         if index.ntotal == 0:
             return np.zeros((0, self.dim), dtype=np.float32)
         storage = faiss.downcast_index(index.index if self.ids_ is None else index.storage)
-        return faiss.rev_swig_ptr(storage.get_xb(), int(index.ntotal) * self.dim).reshape(-1, self.dim)
+        xb: np.ndarray = faiss.rev_swig_ptr(storage.get_xb(), int(index.ntotal) * self.dim)
+        return xb.reshape(-1, self.dim)
 
     def _tune(self) -> tuple[int, float]:
         """Smallest efSearch whose recall@10 on a sample of the index's own
@@ -231,7 +236,8 @@ class VectorIndex:
 
     def ids(self) -> np.ndarray:
         """The ids the index holds (to check them against the store's)."""
-        return faiss.vector_to_array(self._fitted().id_map).astype(np.int64)
+        ids: np.ndarray = faiss.vector_to_array(self._fitted().id_map)
+        return ids.astype(np.int64)
 
     def upsert(self, ids: np.ndarray, vectors: np.ndarray, *, fingerprint: str) -> None:
         """Replace or add the given ids (an import's new and changed posts)."""
@@ -255,6 +261,7 @@ class VectorIndex:
         if len(ids) and self.ids_ is None:
             n = int(index.remove_ids(faiss.IDSelectorBatch(ids)))
         elif len(ids):
+            assert self.ids_ is not None  # the branch above took the exact index
             pos = self._positions(ids)
             self.ids_[pos] = -1  # a tombstone: never returned again
             self._reindexed()
@@ -298,8 +305,7 @@ class VectorIndex:
         finally:
             faiss.omp_set_num_threads(threads)
 
-    def _search(self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None
-                ) -> tuple[np.ndarray, np.ndarray]:
+    def _search(self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
         index = self._fitted()
         if allowed_ids is not None and len(allowed_ids) == 0:
             return (
@@ -307,15 +313,20 @@ class VectorIndex:
                 np.full((len(q), k), -1, dtype=np.int64),
             )
         if self.ids_ is None:
+            found: tuple[np.ndarray, np.ndarray]
             if allowed_ids is None:
-                return index.search(q, k)
+                found = index.search(q, k)
+                return found
             allowed = np.ascontiguousarray(allowed_ids, dtype=np.int64)
             params = faiss.SearchParameters(sel=faiss.IDSelectorBatch(allowed))
-            return index.search(q, k, params=params)
+            found = index.search(q, k, params=params)
+            return found
         return self._search_hnsw(q, k, allowed_ids)
 
-    def _search_hnsw(self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None
-                     ) -> tuple[np.ndarray, np.ndarray]:
+    def _search_hnsw(
+        self, q: np.ndarray, k: int, allowed_ids: np.ndarray | None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        assert self.ids_ is not None  # _search sends only the graph index here
         ef = max(self.ef_search_, k)
         if allowed_ids is None:
             if self._live_bitmap is None:
@@ -323,8 +334,9 @@ class VectorIndex:
             else:
                 live = len(self._ids_sorted)
                 sel = faiss.IDSelectorBitmap(self._live_bitmap)
-                sims, pos = self.index_.search(q, k, params=self._params(
-                    ef * min(8, math.ceil(len(self.ids_) / max(live, 1))), sel))
+                sims, pos = self.index_.search(
+                    q, k, params=self._params(ef * min(8, math.ceil(len(self.ids_) / max(live, 1))), sel)
+                )
             return sims, np.where(pos >= 0, self.ids_[np.maximum(pos, 0)], -1)
         allowed = np.unique(np.ascontiguousarray(allowed_ids, dtype=np.int64))
         pos_ok = self._positions(allowed)
@@ -335,7 +347,7 @@ class VectorIndex:
             sims, at = top_k_exact(q, xb[pos_ok], k)
             pos = np.where(at >= 0, pos_ok[np.maximum(at, 0)], -1)
         else:
-            bits = np.zeros(len(self.ids_), dtype=bool)
+            bits = np.zeros(len(self.ids_), dtype=np.bool_)
             bits[pos_ok] = True
             bitmap = np.packbits(bits, bitorder="little")
             sel = faiss.IDSelectorBitmap(bitmap)
@@ -386,11 +398,12 @@ class VectorIndex:
         os.replace(tmpc, d / CONFIG_FILE)
 
     @staticmethod
-    def saved_config(directory: str | Path) -> dict | None:
+    def saved_config(directory: str | Path) -> dict[str, Any] | None:
         """The config of the index saved in ``directory`` (count, fingerprint),
         read without loading the index itself; None when there is none."""
         try:
-            return json.loads((Path(directory) / CONFIG_FILE).read_text())
+            cfg: dict[str, Any] = json.loads((Path(directory) / CONFIG_FILE).read_text())
+            return cfg
         except (FileNotFoundError, json.JSONDecodeError):
             return None
 
@@ -404,10 +417,14 @@ class VectorIndex:
         except FileNotFoundError:
             raise StoreError(f"no index in {d}", hint="run `sounding reindex`") from None
         except (RuntimeError, ValueError, json.JSONDecodeError) as exc:
-            raise StoreError(f"the index in {d} is unreadable: {exc}", hint="run `sounding reindex`") from None
+            raise StoreError(
+                f"the index in {d} is unreadable: {exc}", hint="run `sounding reindex`"
+            ) from None
         self = cls(
-            dim=int(cfg["dim"]), approximate_above=cfg.get("approximate_above"),
-            hnsw_m=int(cfg.get("hnsw_m") or 32), ef_construction=int(cfg.get("ef_construction") or 40),
+            dim=int(cfg["dim"]),
+            approximate_above=cfg.get("approximate_above"),
+            hnsw_m=int(cfg.get("hnsw_m") or 32),
+            ef_construction=int(cfg.get("ef_construction") or 40),
             target_recall=float(cfg.get("target_recall", 0.98)),
         )
         self.index_ = index

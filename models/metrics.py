@@ -13,6 +13,7 @@ import numpy as np
 
 from .errors import InputError
 
+
 class Metric(StrEnum):
     """Metrics a forecast or a segment split may be asked for: the snapshot
     columns and the engagement rate (engagements / impressions)."""
@@ -44,7 +45,8 @@ def check_coverage(coverage: float) -> float:
     if not MIN_COVERAGE <= coverage <= MAX_COVERAGE:
         raise InputError(
             f"coverage must be between {MIN_COVERAGE} and {MAX_COVERAGE}, got {coverage}",
-            field="coverage", value=coverage,
+            field="coverage",
+            value=coverage,
         )
     return coverage
 

@@ -63,7 +63,8 @@ def check_quantize(quantize: str) -> str:
     if quantize not in QUANTIZE_CHOICES:
         raise InputError(
             f"unknown quantisation {quantize!r}; choose one of {', '.join(QUANTIZE_CHOICES)}",
-            field="embed_quantize", value=quantize,
+            field="embed_quantize",
+            value=quantize,
         )
     return quantize
 
@@ -91,9 +92,7 @@ def export_name(*, model_id: str, model_path: Path, quantize: str) -> str:
     return f"onnx-{quantize}-{h.hexdigest()[:16]}"
 
 
-def find_or_export(
-    *, root: Path, model_id: str, model_path: Path, quantize: str
-) -> Path:
+def find_or_export(*, root: Path, model_id: str, model_path: Path, quantize: str) -> Path:
     """The export directory under ``root``, exporting first if there is none."""
     check_quantize(quantize)
     target = root / export_name(model_id=model_id, model_path=model_path, quantize=quantize)
@@ -140,12 +139,17 @@ def _export_into(tmp: Path, *, model_path: Path, model_id: str, quantize: str) -
     st = SentenceTransformer(str(model_path), device="cpu", local_files_only=True)
     modules = [type(m).__name__ for m in st]
     pooling = st[1] if len(st) > 1 else None
-    if (modules[:2] != ["Transformer", "Pooling"] or modules[2:] not in ([], ["Normalize"])
-            or getattr(pooling, "pooling_mode", "mean") not in ("mean", None)
-            or not getattr(pooling, "pooling_mode_mean_tokens", True)):
+    if (
+        modules[:2] != ["Transformer", "Pooling"]
+        or modules[2:] not in ([], ["Normalize"])
+        or getattr(pooling, "pooling_mode", "mean") not in ("mean", None)
+        or not getattr(pooling, "pooling_mode_mean_tokens", True)
+    ):
         raise ExportFailed(
             f"the model's modules {modules} are not transformer + mean pooling "
-            "(+ normalise); only that layout is exported", where=str(model_path))
+            "(+ normalise); only that layout is exported",
+            where=str(model_path),
+        )
     tok_file = model_path / TOKENIZER_NAME
     if not tok_file.is_file():
         raise ExportFailed("the model has no tokenizer.json", where=str(model_path))
@@ -156,15 +160,17 @@ def _export_into(tmp: Path, *, model_path: Path, model_id: str, quantize: str) -
             self.transformer = transformer
 
         def forward(self, input_ids: Any, attention_mask: Any, token_type_ids: Any) -> Any:
-            h = self.transformer(input_ids=input_ids, attention_mask=attention_mask,
-                                 token_type_ids=token_type_ids).last_hidden_state
+            h = self.transformer(
+                input_ids=input_ids, attention_mask=attention_mask, token_type_ids=token_type_ids
+            ).last_hidden_state
             m = attention_mask.unsqueeze(-1).to(h.dtype)
             # The same mean pooling and normalisation as sentence-transformers'
             # Pooling (mean tokens) and Normalize modules.
             v = (h * m).sum(1) / m.sum(1).clamp(min=1e-9)
             return torch.nn.functional.normalize(v, p=2.0, dim=1)
 
-    graph = _Graph(st[0].auto_model).eval()
+    # torch types Module.__getattr__ as Tensor | Module; auto_model is the transformer Module.
+    graph = _Graph(st[0].auto_model).eval()  # type: ignore[arg-type]
     dummy = torch.ones((2, 8), dtype=torch.long)
     fp32 = tmp / ("model-fp32.onnx" if quantize != "none" else MODEL_NAME)
     axes = {n: {0: "batch", 1: "tokens"} for n in INPUTS}
@@ -173,14 +179,20 @@ def _export_into(tmp: Path, *, model_path: Path, model_id: str, quantize: str) -
 
     with torch.no_grad(), warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the tracer's notes on Python control flow
-        torch.onnx.export(graph, (dummy, dummy, torch.zeros_like(dummy)), str(fp32),
-                          input_names=list(INPUTS), output_names=["sentence_embedding"],
-                          dynamic_axes=axes, opset_version=OPSET, dynamo=False)
+        torch.onnx.export(
+            graph,
+            (dummy, dummy, torch.zeros_like(dummy)),
+            str(fp32),
+            input_names=list(INPUTS),
+            output_names=["sentence_embedding"],
+            dynamic_axes=axes,
+            opset_version=OPSET,
+            dynamo=False,
+        )
     if quantize == "int8":
         from onnxruntime.quantization import QuantType, quantize_dynamic
 
-        quantize_dynamic(str(fp32), str(tmp / MODEL_NAME), per_channel=True,
-                         weight_type=QuantType.QInt8)
+        quantize_dynamic(str(fp32), str(tmp / MODEL_NAME), per_channel=True, weight_type=QuantType.QInt8)
         fp32.unlink()
     shutil.copyfile(tok_file, tmp / TOKENIZER_NAME)
     cfg = {
@@ -189,8 +201,9 @@ def _export_into(tmp: Path, *, model_path: Path, model_id: str, quantize: str) -
         "model_path": str(model_path),
         "quantize": quantize,
         "opset": OPSET,
-        "max_seq_length": int(st.max_seq_length),
-        "dim": int(st.get_embedding_dimension()),
+        # sentence-transformers types both as optional; the layout checked above sets both.
+        "max_seq_length": int(st.max_seq_length),  # type: ignore[arg-type]
+        "dim": int(st.get_embedding_dimension()),  # type: ignore[arg-type]
         "torch": torch.__version__,
     }
     # Check the graph against the model it came from before keeping it.
@@ -199,8 +212,9 @@ def _export_into(tmp: Path, *, model_path: Path, model_id: str, quantize: str) -
     cos = float(np.min(np.sum(want * got, axis=1)))
     floor = FP32_MIN_COSINE if quantize == "none" else INT8_MIN_COSINE
     if not cos >= floor:
-        raise ExportFailed(f"the ONNX graph's vectors differ from the model's (cosine {cos:.6f})",
-                           where=str(model_path))
+        raise ExportFailed(
+            f"the ONNX graph's vectors differ from the model's (cosine {cos:.6f})", where=str(model_path)
+        )
     cfg["probe_min_cosine"] = cos
     return cfg
 
@@ -213,8 +227,7 @@ class OnnxEncoder:
     starves a service sharing them with an import.
     """
 
-    def __init__(self, *, directory: Path, threads: int = 0,
-                 config: dict[str, Any] | None = None) -> None:
+    def __init__(self, *, directory: Path, threads: int = 0, config: dict[str, Any] | None = None) -> None:
         self.directory = directory
         self.config = config or json.loads((directory / CONFIG_NAME).read_text())
         opts = ort.SessionOptions()
@@ -224,8 +237,9 @@ class OnnxEncoder:
         opts.add_session_config_entry("session.intra_op.allow_spinning", "0")
         opts.add_session_config_entry("session.inter_op.allow_spinning", "0")
         opts.log_severity_level = 3
-        self.session = ort.InferenceSession(str(directory / MODEL_NAME), opts,
-                                            providers=["CPUExecutionProvider"])
+        self.session = ort.InferenceSession(
+            str(directory / MODEL_NAME), opts, providers=["CPUExecutionProvider"]
+        )
         self.session_options = opts
         tok = Tokenizer.from_file(str(directory / TOKENIZER_NAME))
         # sentence-transformers truncates at the model's max_seq_length and pads
@@ -244,7 +258,7 @@ class OnnxEncoder:
         # lengths carry little padding.
         order = np.argsort([-len(t) for t in texts], kind="stable")
         for start in range(0, len(texts), max(1, batch_size)):
-            idx = order[start:start + batch_size]
+            idx = order[start : start + batch_size]
             enc = self.tokenizer.encode_batch([texts[i] for i in idx])
             feed = {
                 "input_ids": np.array([e.ids for e in enc], dtype=np.int64),

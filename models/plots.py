@@ -17,14 +17,14 @@ import matplotlib
 
 matplotlib.use("Agg")
 
-import numpy as np  # noqa: E402
-import numpy.typing as npt  # noqa: E402
-from matplotlib.axes import Axes  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
-from matplotlib.ticker import FuncFormatter, LogLocator  # noqa: E402
+import numpy as np
+import numpy.typing as npt
+from matplotlib.axes import Axes
+from matplotlib.figure import Figure
+from matplotlib.ticker import FuncFormatter, LogLocator
 
-from .errors import InputError  # noqa: E402
-from .segments import SegmentReport, SegmentStats  # noqa: E402
+from .errors import InputError
+from .segments import SegmentReport, SegmentStats
 
 #: Our palette: calm, distinguishable, and still readable in greyscale.
 PALETTE: tuple[str, ...] = (
@@ -73,7 +73,7 @@ def figure_size(n_segments: int) -> tuple[float, float]:
 
 
 def _groups(
-    values: np.ndarray, labels: Sequence[Hashable] | np.ndarray | Mapping[str, Sequence[int]]
+    values: np.ndarray, labels: Sequence[Hashable] | np.ndarray | Mapping[str, Sequence[int] | np.ndarray]
 ) -> dict[str, np.ndarray]:
     """Per-segment values, from one label per post or a name -> indices map
     (the overlapping groups of ``compare_groups``)."""
@@ -118,8 +118,12 @@ def _log_axis(ax: Axes) -> None:
 
 
 def _ecdf_panel(
-    ax: Axes, order: list[SegmentStats], groups: dict[str, np.ndarray],
-    floor: float, colours: dict[str, str], metric: str,
+    ax: Axes,
+    order: list[SegmentStats],
+    groups: dict[str, np.ndarray],
+    floor: float,
+    colours: dict[str, str],
+    metric: str,
 ) -> None:
     # Highest-median segment first in the legend, matching the right panel
     # read top to bottom.
@@ -132,51 +136,78 @@ def _ecdf_panel(
         ys = np.concatenate([[0.0], np.arange(1, vals.size + 1) / vals.size])
         label = f"{seg.name} (n={seg.n})" + (", too few" if seg.too_small else "")
         ax.step(
-            xs, ys, where="post", color=colours[seg.name],
+            xs,
+            ys,
+            where="post",
+            color=colours[seg.name],
             linewidth=1.1 if seg.too_small else 1.8,
             # Too-small segments share one grey; distinct dashes keep them apart.
             linestyle=(0, next(dashes)) if seg.too_small else "-",
-            alpha=0.9, label=label,
+            alpha=0.9,
+            label=label,
         )
     _log_axis(ax)
     ax.set_ylim(0, 1.02)
     ax.set_ylabel("fraction of posts at or below")
-    ax.set_xlabel(f"{metric} (log scale; values below {_plain_number(floor)} drawn at "
-                  f"{_plain_number(floor)})")
+    ax.set_xlabel(
+        f"{metric} (log scale; values below {_plain_number(floor)} drawn at {_plain_number(floor)})"
+    )
     ax.set_title("How each segment is spread", loc="left")
     ax.grid(True, axis="y", color=GRID, linewidth=0.8)
     # ECDFs climb from lower left to upper right, so the upper left corner
     # is the emptiest; a light frame keeps the text clear of any line.
-    leg = ax.legend(loc="upper left", frameon=True, handlelength=1.6, borderaxespad=0.3,
-                    ncol=2 if len(order) > 8 else 1)
+    leg = ax.legend(
+        loc="upper left", frameon=True, handlelength=1.6, borderaxespad=0.3, ncol=2 if len(order) > 8 else 1
+    )
     leg.get_frame().set(facecolor="white", edgecolor="none", alpha=0.92)
 
 
 def _interval_panel(
-    ax: Axes, order: list[SegmentStats], report: SegmentReport,
-    floor: float, colours: dict[str, str], metric: str,
+    ax: Axes,
+    order: list[SegmentStats],
+    report: SegmentReport,
+    floor: float,
+    colours: dict[str, str],
+    metric: str,
 ) -> None:
     ys = np.arange(len(order))
-    for y, seg in zip(ys, order):
+    for y, seg in zip(ys, order, strict=True):
         lo, mid, hi = (max(v, floor) for v in (seg.ci_low, seg.median, seg.ci_high))
         colour = colours[seg.name]
-        ax.plot([lo, hi], [y, y], color=colour, linewidth=2.4 if not seg.too_small else 1.4,
-                solid_capstyle="round", alpha=0.85)
         ax.plot(
-            [mid], [y], marker="o", markersize=8 if not seg.too_small else 7,
+            [lo, hi],
+            [y, y],
+            color=colour,
+            linewidth=2.4 if not seg.too_small else 1.4,
+            solid_capstyle="round",
+            alpha=0.85,
+        )
+        ax.plot(
+            [mid],
+            [y],
+            marker="o",
+            markersize=8 if not seg.too_small else 7,
             markerfacecolor="white" if seg.too_small else colour,
-            markeredgecolor=colour, markeredgewidth=1.6, linestyle="none", zorder=3,
+            markeredgecolor=colour,
+            markeredgewidth=1.6,
+            linestyle="none",
+            zorder=3,
         )
     overall = max(report.overall_median, floor)
     ax.axvline(overall, color=INK, linestyle=(0, (4, 3)), linewidth=1, alpha=0.7, zorder=1)
-    ax.annotate(f"all posts: {_plain_number(overall)}", xy=(overall, 1.0),
-                xycoords=("data", "axes fraction"), xytext=(4, -2),
-                textcoords="offset points", va="top", fontsize=8.5, color=INK)
-    ax.set_yticks(ys)
-    ax.set_yticklabels(
-        [f"{s.name}  n={s.n}" + ("  (too few)" if s.too_small else "") for s in order]
+    ax.annotate(
+        f"all posts: {_plain_number(overall)}",
+        xy=(overall, 1.0),
+        xycoords=("data", "axes fraction"),
+        xytext=(4, -2),
+        textcoords="offset points",
+        va="top",
+        fontsize=8.5,
+        color=INK,
     )
-    for tick, seg in zip(ax.get_yticklabels(), order):
+    ax.set_yticks(ys)
+    ax.set_yticklabels([f"{s.name}  n={s.n}" + ("  (too few)" if s.too_small else "") for s in order])
+    for tick, seg in zip(ax.get_yticklabels(), order, strict=True):
         if seg.too_small:
             tick.set_color(MUTED)
     ax.set_ylim(-0.7, len(order) - 0.3)
@@ -190,7 +221,7 @@ def _interval_panel(
 def plot_segments(
     report: SegmentReport,
     values: npt.ArrayLike,
-    labels: Sequence[Hashable] | np.ndarray | Mapping[str, Sequence[int]],
+    labels: Sequence[Hashable] | np.ndarray | Mapping[str, Sequence[int] | np.ndarray],
     *,
     metric: str,
     path: Path | str | None = None,
@@ -215,8 +246,7 @@ def plot_segments(
     groups = _groups(arr, labels)
     missing = [s.name for s in report.segments if s.name not in groups]
     if missing:
-        raise InputError(f"labels lack segment(s) {', '.join(missing)} from the report",
-                         field="labels")
+        raise InputError(f"labels lack segment(s) {', '.join(missing)} from the report", field="labels")
 
     # Bottom to top by median, so the highest segment sits at the top.
     order = sorted(report.segments, key=lambda s: (s.median, s.name))
@@ -225,7 +255,8 @@ def plot_segments(
     colours.update({s.name: MUTED for s in order if s.too_small})
     floor = _floor(arr)
 
-    with matplotlib.rc_context(_STYLE):
+    # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
+    with matplotlib.rc_context(_STYLE):  # type: ignore[arg-type]
         fig = Figure(figsize=figure_size(len(order)), dpi=DPI, layout="constrained")
         left, right = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.05, 1.0]})
         _ecdf_panel(left, order, groups, floor, colours, metric)
@@ -234,11 +265,15 @@ def plot_segments(
         fig.suptitle(
             f"{metric} by segment: dots are medians, bars are bootstrap {pct} "
             f"confidence intervals of the median",
-            x=0.01, ha="left", fontsize=12.5, fontweight="bold",
+            x=0.01,
+            ha="left",
+            fontsize=12.5,
+            fontweight="bold",
         )
         buf = io.BytesIO()
-        fig.savefig(buf, format=fmt, dpi=DPI, facecolor="white",
-                    metadata={"Date": None} if fmt == "svg" else None)
+        fig.savefig(
+            buf, format=fmt, dpi=DPI, facecolor="white", metadata={"Date": None} if fmt == "svg" else None
+        )
     data = buf.getvalue()
     fig.clear()  # drop artists now rather than waiting for the collector
     if path is not None:
@@ -246,4 +281,4 @@ def plot_segments(
     return data
 
 
-__all__ = ["plot_segments", "figure_size", "PALETTE", "DPI", "FORMATS"]
+__all__ = ["DPI", "FORMATS", "PALETTE", "figure_size", "plot_segments"]

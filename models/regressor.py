@@ -51,9 +51,7 @@ def _matrix(name: str, X: Any, n_features: int | None = None) -> np.ndarray:
     if arr.ndim != 2:
         raise InputError(f"{name} must be 2-D (rows x features), got shape {arr.shape}", field=name)
     if n_features is not None and arr.shape[1] != n_features:
-        raise InputError(
-            f"{name} has {arr.shape[1]} features, the model expects {n_features}", field=name
-        )
+        raise InputError(f"{name} has {arr.shape[1]} features, the model expects {n_features}", field=name)
     # NaN is a missing feature (no baseline yet, no neighbours), which
     # LightGBM routes natively; infinities are bugs upstream.
     if np.isinf(arr).any():
@@ -173,8 +171,7 @@ class QuantileForecaster:
         need_train = 2 * int(self.min_child_samples)
         if Xt.shape[0] < need_train:
             raise InputError(
-                f"{Xt.shape[0]} training rows; need at least {need_train} "
-                f"(2 x min_child_samples)",
+                f"{Xt.shape[0]} training rows; need at least {need_train} (2 x min_child_samples)",
                 field="X_train",
             )
         need_cal = self.min_calibration_rows()
@@ -184,10 +181,7 @@ class QuantileForecaster:
                 f"for a finite band at coverage {max(MAX_COVERAGE, levels[-1])}",
                 field="X_cal",
             )
-        if feature_names is None:
-            names = _internal_names(n_features)
-        else:
-            names = [str(n) for n in feature_names]
+        names = _internal_names(n_features) if feature_names is None else [str(n) for n in feature_names]
         if len(names) != n_features or len(set(names)) != n_features:
             raise InputError(
                 f"feature_names must be {n_features} distinct names, got {len(names)}",
@@ -196,9 +190,7 @@ class QuantileForecaster:
 
         # One binned Dataset serves every booster: only alpha differs.
         base = self._booster_params(0.5)
-        data = lgb.Dataset(
-            Xt, yt, feature_name=_internal_names(n_features), params=base, free_raw_data=False
-        )
+        data = lgb.Dataset(Xt, yt, feature_name=_internal_names(n_features), params=base, free_raw_data=False)
 
         def train(alpha: float) -> lgb.Booster:
             return lgb.train(self._booster_params(alpha), data, num_boost_round=int(self.n_estimators))
@@ -249,9 +241,7 @@ class QuantileForecaster:
         gaps = [(abs(c - coverage), -c) for c in self.levels_]
         return min(range(len(gaps)), key=gaps.__getitem__)
 
-    def predict(
-        self, X: ArrayLike, *, coverage: float = 0.8
-    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def predict(self, X: ArrayLike, *, coverage: float = 0.8) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(lo, median, hi)`` with ``P(lo <= y <= hi) >= coverage`` for a
         row exchangeable with the calibration block."""
         self._check_fitted()
@@ -324,7 +314,9 @@ class QuantileForecaster:
         root = Path(directory)
         path = root / CONFIG_FILE
         if not path.is_file():
-            raise NotFound(f"no saved model at {root} (missing {CONFIG_FILE})", where="QuantileForecaster.load")
+            raise NotFound(
+                f"no saved model at {root} (missing {CONFIG_FILE})", where="QuantileForecaster.load"
+            )
         try:
             config = json.loads(path.read_text(encoding="utf-8"))
             if config.get("format_version") != FORMAT_VERSION:

@@ -20,10 +20,11 @@ when it loses every pair, and 0 when it wins as often as it loses.
 
 from __future__ import annotations
 
+import itertools
 import math
 from collections.abc import Hashable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 import numpy.typing as npt
@@ -76,8 +77,7 @@ def _as_values(values: npt.ArrayLike, what: str = "values") -> np.ndarray:
     if bad.any():
         first = int(np.flatnonzero(bad)[0])
         raise InputError(
-            f"{what} has {int(bad.sum())} missing or non-finite value(s), first at "
-            f"position {first}",
+            f"{what} has {int(bad.sum())} missing or non-finite value(s), first at position {first}",
             field=what,
             value=first,
         )
@@ -106,9 +106,7 @@ def _ordered_names(names: Sequence[str], order: Sequence[str] | None) -> list[st
         return sorted(present - {OTHER}) + ([OTHER] if OTHER in present else [])
     missing = present - set(order)
     if missing:
-        raise InputError(
-            f"order leaves out segment(s) {', '.join(sorted(missing))}", field="order"
-        )
+        raise InputError(f"order leaves out segment(s) {', '.join(sorted(missing))}", field="order")
     # Names in the order with no posts are skipped: a segment needs data.
     return [name for name in dict.fromkeys(order) if name in present]
 
@@ -133,32 +131,30 @@ def _similarities(post_vecs: np.ndarray, topic_vecs: np.ndarray) -> np.ndarray:
         raise InputError("there are no topics to assign posts to", field="topic_vecs")
     if posts.shape[1] != topics.shape[1]:
         raise InputError(
-            f"post vectors have {posts.shape[1]} dimensions but topic vectors have "
-            f"{topics.shape[1]}",
+            f"post vectors have {posts.shape[1]} dimensions but topic vectors have {topics.shape[1]}",
             field="topic_vecs",
         )
-    return posts @ topics.T  # cosine similarity, as rows are unit length
+    return cast(np.ndarray, posts @ topics.T)  # cosine similarity, as rows are unit length
 
 
 # --------------------------------------------------------------------------
 # Assignment of posts to segments
 
 
-def assign_nearest_topic(
-    post_vecs: np.ndarray, topic_vecs: np.ndarray, *, threshold: float
-) -> np.ndarray:
+def assign_nearest_topic(post_vecs: np.ndarray, topic_vecs: np.ndarray, *, threshold: float) -> np.ndarray:
     """For each post, the index of its most similar topic, or -1 ("other")
     when even the best cosine similarity is below ``threshold``. Ties go to
     the lower topic index."""
     if not -1.0 <= threshold <= 1.0:
-        raise InputError("threshold is a cosine similarity and must lie in -1..1",
-                         field="threshold", value=threshold)
+        raise InputError(
+            "threshold is a cosine similarity and must lie in -1..1", field="threshold", value=threshold
+        )
     sims = _similarities(post_vecs, topic_vecs)
     if sims.shape[0] == 0:
         return np.empty(0, dtype=np.int64)
     best = np.argmax(sims, axis=1).astype(np.int64)
     best[sims[np.arange(sims.shape[0]), best] < threshold] = -1
-    return best
+    return cast(np.ndarray, best)
 
 
 def assign_top_k(post_vecs: np.ndarray, topic_vecs: np.ndarray, *, k: int) -> list[np.ndarray]:
@@ -191,12 +187,10 @@ def hour_labels(edges: Sequence[int] = DEFAULT_HOUR_EDGES) -> list[str]:
     if np.any(arr != np.round(arr)):
         raise InputError("hour edges must be whole hours", field="hour edges")
     ints = arr.astype(int)
-    return [f"{a:02d}–{b:02d}" for a, b in zip(ints[:-1], ints[1:])]
+    return [f"{a:02d}–{b:02d}" for a, b in itertools.pairwise(ints)]
 
 
-def bucket_hours(
-    hours: npt.ArrayLike, edges: Sequence[int] = DEFAULT_HOUR_EDGES
-) -> np.ndarray:
+def bucket_hours(hours: npt.ArrayLike, edges: Sequence[int] = DEFAULT_HOUR_EDGES) -> np.ndarray:
     """The bucket label of each local hour (0 <= hour < 24; fractions such
     as 13.5 are fine). A bucket includes its lower edge, not its upper."""
     names = hour_labels(edges)
@@ -214,11 +208,10 @@ def length_labels(edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> list[str]:
     and "≥240" for a last band whose upper edge is 10**9 or more."""
     arr = _check_edges(edges, "length edges")
     if arr[0] != 0 or np.any(arr != np.round(arr)):
-        raise InputError("length edges must be whole numbers starting at 0",
-                         field="length edges")
+        raise InputError("length edges must be whole numbers starting at 0", field="length edges")
     ints = [int(e) for e in arr]
     out = []
-    for i, (a, b) in enumerate(zip(ints[:-1], ints[1:])):
+    for i, (a, b) in enumerate(itertools.pairwise(ints)):
         if i == 0:
             out.append(f"<{b}")
         elif b >= _OPEN_END:
@@ -228,23 +221,16 @@ def length_labels(edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> list[str]:
     return out
 
 
-def length_band(
-    lengths: npt.ArrayLike, edges: Sequence[int] = DEFAULT_LENGTH_EDGES
-) -> np.ndarray:
+def length_band(lengths: npt.ArrayLike, edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> np.ndarray:
     """The band label of each text length (a whole number of characters)."""
     names = length_labels(edges)
     arr = np.asarray(lengths, dtype=float)
     if arr.ndim != 1:
         raise InputError("lengths must be a flat list", field="lengths")
     if arr.size and (
-        not np.isfinite(arr).all()
-        or np.any(arr != np.round(arr))
-        or arr.min() < 0
-        or arr.max() >= edges[-1]
+        not np.isfinite(arr).all() or np.any(arr != np.round(arr)) or arr.min() < 0 or arr.max() >= edges[-1]
     ):
-        raise InputError(
-            f"lengths must be whole numbers from 0 to below {edges[-1]}", field="lengths"
-        )
+        raise InputError(f"lengths must be whole numbers from 0 to below {edges[-1]}", field="lengths")
     idx = np.searchsorted(np.asarray(edges, dtype=float), arr, side="right") - 1
     return np.asarray(names, dtype=object)[idx]
 
@@ -267,8 +253,7 @@ def bootstrap_median_ci(
     """
     arr = _as_values(values)
     if not 0.0 < confidence < 1.0:
-        raise InputError("confidence must lie strictly between 0 and 1",
-                         field="confidence", value=confidence)
+        raise InputError("confidence must lie strictly between 0 and 1", field="confidence", value=confidence)
     if n_resamples < 1:
         raise InputError("n_resamples must be at least 1", field="n_resamples")
     n = arr.size
@@ -430,8 +415,14 @@ def _compare(
             seg_vals, confidence=confidence, n_resamples=n_resamples, seed=(seed, pos)
         )
         seg = SegmentStats(
-            name=name, n=int(seg_vals.size), median=float(med), q1=float(q1),
-            q3=float(q3), ci_low=lo, ci_high=hi, too_small=bool(seg_vals.size < min_n),
+            name=name,
+            n=int(seg_vals.size),
+            median=float(med),
+            q1=float(q1),
+            q3=float(q3),
+            ci_low=lo,
+            ci_high=hi,
+            too_small=bool(seg_vals.size < min_n),
         )
         if seg_vals.size >= 2 and rest.size >= 1:
             res = stats.mannwhitneyu(seg_vals, rest, alternative="two-sided", method="auto")
@@ -442,13 +433,10 @@ def _compare(
         rest_medians.append(float(np.median(rest)) if rest.size else math.nan)
 
     pvals = np.array([s.p_value for s in segments])
-    if disjoint and len(segments) == 2:
-        # Two segments that split the posts: "A vs rest" and "B vs rest" are
-        # the same single test, so there is nothing to correct for.
-        adjusted = pvals
-    else:
-        adjusted = holm(pvals)
-    for seg, p_adj, rest_med in zip(segments, adjusted, rest_medians):
+    # Two segments that split the posts: "A vs rest" and "B vs rest" are
+    # the same single test, so there is nothing to correct for.
+    adjusted = pvals if disjoint and len(segments) == 2 else holm(pvals)
+    for seg, p_adj, rest_med in zip(segments, adjusted, rest_medians, strict=True):
         seg.p_holm = float(p_adj)
         seg.note = _note(seg, rest_med, min_n, alpha)
 
@@ -462,9 +450,15 @@ def _compare(
         kh, kp = float(res.statistic), float(res.pvalue)
 
     return SegmentReport(
-        segments=segments, kruskal_h=kh, kruskal_p=kp,
-        overall_median=float(np.median(arr)), n_total=int(arr.size),
-        confidence=confidence, min_n=min_n, alpha=alpha, overlapping=not disjoint,
+        segments=segments,
+        kruskal_h=kh,
+        kruskal_p=kp,
+        overall_median=float(np.median(arr)),
+        n_total=int(arr.size),
+        confidence=confidence,
+        min_n=min_n,
+        alpha=alpha,
+        overlapping=not disjoint,
     )
 
 
@@ -496,8 +490,16 @@ def compare_segments(
         )
     lab = np.asarray(names, dtype=object)
     groups = [(name, np.flatnonzero(lab == name)) for name in ordered]
-    return _compare(arr, groups, disjoint=True, min_n=min_n, confidence=confidence,
-                    n_resamples=n_resamples, seed=seed, alpha=alpha)
+    return _compare(
+        arr,
+        groups,
+        disjoint=True,
+        min_n=min_n,
+        confidence=confidence,
+        n_resamples=n_resamples,
+        seed=seed,
+        alpha=alpha,
+    )
 
 
 def compare_groups(
@@ -524,11 +526,18 @@ def compare_groups(
         if idx.size == 0:
             raise InputError(f"group {name!r} has no posts", field="groups")
         if idx[0] < 0 or idx[-1] >= arr.size:
-            raise InputError(f"group {name!r} points past the {arr.size} values",
-                             field="groups")
+            raise InputError(f"group {name!r} points past the {arr.size} values", field="groups")
         pairs.append((str(name), idx))
-    return _compare(arr, pairs, disjoint=False, min_n=min_n, confidence=confidence,
-                    n_resamples=n_resamples, seed=seed, alpha=alpha)
+    return _compare(
+        arr,
+        pairs,
+        disjoint=False,
+        min_n=min_n,
+        confidence=confidence,
+        n_resamples=n_resamples,
+        seed=seed,
+        alpha=alpha,
+    )
 
 
 # --------------------------------------------------------------------------
@@ -553,8 +562,11 @@ class TwoWayTable:
     def to_dict(self) -> dict[str, Any]:
         cells = [
             {
-                "row": r, "col": c, "n": int(self.n[i, j]),
-                "median": _clean(self.median[i, j]), "too_small": bool(self.too_small[i, j]),
+                "row": r,
+                "col": c,
+                "n": int(self.n[i, j]),
+                "median": _clean(self.median[i, j]),
+                "too_small": bool(self.too_small[i, j]),
             }
             for i, r in enumerate(self.rows)
             for j, c in enumerate(self.cols)
@@ -583,7 +595,7 @@ def two_way(
     r_idx = {name: i for i, name in enumerate(row_names)}
     c_idx = {name: j for j, name in enumerate(col_names)}
     cell_vals: dict[tuple[int, int], list[float]] = {}
-    for v, r, c in zip(arr, rows, cols):
+    for v, r, c in zip(arr, rows, cols, strict=True):
         cell_vals.setdefault((r_idx[r], c_idx[c]), []).append(float(v))
     n = np.zeros((len(row_names), len(col_names)), dtype=np.int64)
     med = np.full(n.shape, np.nan)

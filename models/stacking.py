@@ -63,23 +63,33 @@ ALL_FEATURES: tuple[str, ...] = F.FEATURE_NAMES + EXTRA_FEATURES
 EXTRA_GROUPS: dict[str, str] = {"text_ridge": "precedents", "account_code": "account baseline"}
 ALL_GROUPS: dict[str, str] = {**F.FEATURE_GROUPS, **EXTRA_GROUPS}
 
-CANDIDATES: tuple[str, ...] = ("boosted", "text_ridge", "account_median", "precedents_median",
-                               "history_median")
+CANDIDATES: tuple[str, ...] = (
+    "boosted",
+    "text_ridge",
+    "account_median",
+    "precedents_median",
+    "history_median",
+)
 SIMPLE: tuple[str, ...] = ("account_median", "precedents_median", "history_median")
 #: Candidate -> the feature column it reads (linear candidates).
-_SOURCE = {"text_ridge": "text_ridge", "account_median": "baseline",
-           "precedents_median": "team_median"}
+_SOURCE = {"text_ridge": "text_ridge", "account_median": "baseline", "precedents_median": "team_median"}
 CONFIG_FILE = "config.json"
 FORMAT_VERSION = 1
 #: What training uses. One thread: LightGBM's OpenMP threads slow down badly
 #: when other work shares the cores, and the trees are the same.
-STACK_PARAMS: dict[str, Any] = {"max_estimators": 600, "early_stopping_rounds": 40,
-                                "learning_rate": 0.06, "num_leaves": 15,
-                                "min_child_samples": 20, "num_threads": 1}
+STACK_PARAMS: dict[str, Any] = {
+    "max_estimators": 600,
+    "early_stopping_rounds": 40,
+    "learning_rate": 0.06,
+    "num_leaves": 15,
+    "min_child_samples": 20,
+    "num_threads": 1,
+}
 
 
-def extra_columns(history: F.History, *, maturity_s: float, now: float
-                  ) -> tuple[np.ndarray, RidgeText | None]:
+def extra_columns(
+    history: F.History, *, maturity_s: float, now: float
+) -> tuple[np.ndarray, RidgeText | None]:
     """``text_ridge`` and ``account_code`` for every post of ``history``,
     and the text model fitted on every post settled by ``now`` (for drafts).
 
@@ -96,12 +106,10 @@ def extra_columns(history: F.History, *, maturity_s: float, now: float
     return np.column_stack([pred, history.account.astype(np.float64)]), text
 
 
-def draft_columns(text: RidgeText | None, vectors: np.ndarray, accounts: Sequence[int]
-                  ) -> np.ndarray:
+def draft_columns(text: RidgeText | None, vectors: np.ndarray, accounts: Sequence[int]) -> np.ndarray:
     """The same two columns for drafts: the fitted text model's prediction."""
     n = len(accounts)
-    pred = (text.predict(np.asarray(vectors).reshape(n, -1)) if text is not None
-            else np.full(n, np.nan))
+    pred = text.predict(np.asarray(vectors).reshape(n, -1)) if text is not None else np.full(n, np.nan)
     return np.column_stack([pred, np.asarray(accounts, dtype=np.float64)])
 
 
@@ -151,24 +159,32 @@ class StackedForecaster:
         self.num_threads = num_threads
 
     def get_params(self) -> dict[str, Any]:
-        return {"levels": [float(c) for c in self.levels],
-                "max_estimators": int(self.max_estimators),
-                "early_stopping_rounds": int(self.early_stopping_rounds),
-                "learning_rate": float(self.learning_rate), "num_leaves": int(self.num_leaves),
-                "min_child_samples": int(self.min_child_samples),
-                "stack_fraction": float(self.stack_fraction),
-                "boosted_timing": bool(self.boosted_timing),
-                "blend_timing": bool(self.blend_timing),
-                "recency_half_life": (None if self.recency_half_life is None
-                                      else float(self.recency_half_life)),
-                "timing_bootstrap": int(self.timing_bootstrap),
-                "random_state": int(self.random_state), "num_threads": int(self.num_threads)}
+        return {
+            "levels": [float(c) for c in self.levels],
+            "max_estimators": int(self.max_estimators),
+            "early_stopping_rounds": int(self.early_stopping_rounds),
+            "learning_rate": float(self.learning_rate),
+            "num_leaves": int(self.num_leaves),
+            "min_child_samples": int(self.min_child_samples),
+            "stack_fraction": float(self.stack_fraction),
+            "boosted_timing": bool(self.boosted_timing),
+            "blend_timing": bool(self.blend_timing),
+            "recency_half_life": (None if self.recency_half_life is None else float(self.recency_half_life)),
+            "timing_bootstrap": int(self.timing_bootstrap),
+            "random_state": int(self.random_state),
+            "num_threads": int(self.num_threads),
+        }
 
     def _quantile_params(self, n_estimators: int) -> dict[str, Any]:
-        return {"levels": tuple(self.levels), "n_estimators": int(n_estimators),
-                "learning_rate": float(self.learning_rate), "num_leaves": int(self.num_leaves),
-                "min_child_samples": int(self.min_child_samples),
-                "random_state": int(self.random_state), "num_threads": int(self.num_threads)}
+        return {
+            "levels": tuple(self.levels),
+            "n_estimators": int(n_estimators),
+            "learning_rate": float(self.learning_rate),
+            "num_leaves": int(self.num_leaves),
+            "min_child_samples": int(self.min_child_samples),
+            "random_state": int(self.random_state),
+            "num_threads": int(self.num_threads),
+        }
 
     # -- columns ---------------------------------------------------------
 
@@ -193,18 +209,39 @@ class StackedForecaster:
 
     # -- fitting ---------------------------------------------------------
 
-    def fit(self, X_train: ArrayLike, y_train: ArrayLike, X_cal: ArrayLike, y_cal: ArrayLike,
-            *, feature_names: Sequence[str], cal_times: ArrayLike | None = None) -> Self:
+    def fit(
+        self,
+        X_train: ArrayLike,
+        y_train: ArrayLike,
+        X_cal: ArrayLike,
+        y_cal: ArrayLike,
+        *,
+        feature_names: Sequence[str],
+        cal_times: ArrayLike | None = None,
+    ) -> Self:
         """Rows of each block in time order; ``cal_times`` (the calibration
         rows' times) lets rows posted together share one score weight."""
         # Small linear algebra only: one BLAS thread (shared cores; see textmodel).
         with threadpool_limits(limits=1):
-            return self._fit(X_train, y_train, X_cal, y_cal, feature_names=feature_names,
-                             cal_times=None if cal_times is None
-                             else np.asarray(cal_times, dtype=float))
+            return self._fit(
+                X_train,
+                y_train,
+                X_cal,
+                y_cal,
+                feature_names=feature_names,
+                cal_times=None if cal_times is None else np.asarray(cal_times, dtype=float),
+            )
 
-    def _fit(self, X_train: ArrayLike, y_train: ArrayLike, X_cal: ArrayLike, y_cal: ArrayLike,
-             *, feature_names: Sequence[str], cal_times: np.ndarray | None) -> Self:
+    def _fit(
+        self,
+        X_train: ArrayLike,
+        y_train: ArrayLike,
+        X_cal: ArrayLike,
+        y_cal: ArrayLike,
+        *,
+        feature_names: Sequence[str],
+        cal_times: np.ndarray | None,
+    ) -> Self:
         names = [str(n) for n in feature_names]
         Xt = _matrix("X_train", X_train, len(names))
         yt = _target("y_train", y_train, Xt.shape[0])
@@ -216,12 +253,14 @@ class StackedForecaster:
             raise InputError("stack_fraction must lie in [0.05, 0.5]", field="stack_fraction")
         self._index = {n: i for i, n in enumerate(names)}
         n = Xt.shape[0]
-        cut = int(round(n * (1 - float(self.stack_fraction))))
+        cut = round(n * (1 - float(self.stack_fraction)))
         need = 2 * int(self.min_child_samples)
         if cut < need or n - cut < 20:
-            raise InputError(f"{n} training rows are too few to fit and stack (need about "
-                             f"{math.ceil(max(need / (1 - self.stack_fraction), 20 / self.stack_fraction))})",
-                             field="X_train")
+            raise InputError(
+                f"{n} training rows are too few to fit and stack (need about "
+                f"{math.ceil(max(need / (1 - self.stack_fraction), 20 / self.stack_fraction))})",
+                field="X_train",
+            )
         fit_idx, stack_idx = np.arange(cut), np.arange(cut, n)
         # 1. The timing component on the fit block; the boosted model learns
         #    what it leaves (it corrects the smooth effect, not shrinks it).
@@ -229,8 +268,8 @@ class StackedForecaster:
         fill_fit = float(np.median(yt[fit_idx]))
         lin_all = self._linear(Xt, fill_fit)
         timing_fit = TimingEffect(random_state=int(self.random_state), n_bootstrap=0).fit(
-            hours[fit_idx], wd[fit_idx], acc[fit_idx],
-            yt[fit_idx] - lin_all["account_median"][fit_idx])
+            hours[fit_idx], wd[fit_idx], acc[fit_idx], yt[fit_idx] - lin_all["account_median"][fit_idx]
+        )
         tau = timing_fit.predict(hours, wd, acc)
         tau_stack = tau[stack_idx]
         # When the time-ordered choice of penalty says time carries nothing
@@ -245,22 +284,25 @@ class StackedForecaster:
             skip |= set(F.TIMING_FEATURES)
         cols = [i for i, nm in enumerate(names) if nm not in skip]
         dup = _duplicates(Xt[:, cols])
-        self.dropped_ = tuple(names[cols[j]] for j in sorted(dup)) + tuple(
-            nm for nm in names if nm in skip)
+        self.dropped_ = tuple(names[cols[j]] for j in sorted(dup)) + tuple(nm for nm in names if nm in skip)
         cols = [c for j, c in enumerate(cols) if j not in dup]
         self.boosted_columns_ = tuple(names[c] for c in cols)
         self._cols = cols
         # 2. Rounds by early stopping on the stack block (time-ordered validation).
         base = QuantileForecaster(**self._quantile_params(1))._booster_params(0.5)
-        d_fit = lgb.Dataset(Xt[fit_idx][:, cols], yt[fit_idx] - tau[fit_idx], params=base,
-                            free_raw_data=False)
+        d_fit = lgb.Dataset(
+            Xt[fit_idx][:, cols], yt[fit_idx] - tau[fit_idx], params=base, free_raw_data=False
+        )
         d_val = lgb.Dataset(Xt[stack_idx][:, cols], yt[stack_idx] - tau_stack, reference=d_fit)
-        early = lgb.train(base, d_fit, num_boost_round=int(self.max_estimators), valid_sets=[d_val],
-                          callbacks=[lgb.early_stopping(int(self.early_stopping_rounds),
-                                                        verbose=False)])
+        early = lgb.train(
+            base,
+            d_fit,
+            num_boost_round=int(self.max_estimators),
+            valid_sets=[d_val],
+            callbacks=[lgb.early_stopping(int(self.early_stopping_rounds), verbose=False)],
+        )
         self.n_estimators_ = max(10, int(early.best_iteration or self.max_estimators))
-        boosted_stack = early.predict(Xt[stack_idx][:, cols],
-                                      num_iteration=self.n_estimators_) + tau_stack
+        boosted_stack = early.predict(Xt[stack_idx][:, cols], num_iteration=self.n_estimators_) + tau_stack
 
         # 3. Blend weights on the stack block, from the fit block only.
         cands = {"boosted": boosted_stack, **{k: v[stack_idx] for k, v in lin_all.items()}}
@@ -269,19 +311,19 @@ class StackedForecaster:
         g = g if self.blend_timing else np.zeros(1)
         self.weights_ = {c: float(x) for c, x in zip(CANDIDATES, w, strict=True)}
         self.timing_weight_ = float(g[0])
-        self.stack_scores_ = {c: float(np.mean(np.abs(yt[stack_idx] - cands[c])))
-                              for c in CANDIDATES}
+        self.stack_scores_ = {c: float(np.mean(np.abs(yt[stack_idx] - cands[c]))) for c in CANDIDATES}
 
         # 4. Refit on fit + stack for serving: timing, then boosted quantiles.
         self.history_median_ = float(np.median(yt))
         lin_train = self._linear(Xt, self.history_median_)
-        self.timing_ = TimingEffect(random_state=int(self.random_state),
-                                    n_bootstrap=int(self.timing_bootstrap)).fit(
-            hours, wd, acc, yt - lin_train["account_median"])
+        self.timing_ = TimingEffect(
+            random_state=int(self.random_state), n_bootstrap=int(self.timing_bootstrap)
+        ).fit(hours, wd, acc, yt - lin_train["account_median"])
         tau_t = self.timing_.predict(hours, wd, acc)
         tau_c = self.timing_.predict(*self._clock(Xc))
         self.boosted_ = QuantileForecaster(**self._quantile_params(self.n_estimators_)).fit(
-            Xt[:, cols], yt - tau_t, Xc[:, cols], yc - tau_c, feature_names=self.boosted_columns_)
+            Xt[:, cols], yt - tau_t, Xc[:, cols], yc - tau_c, feature_names=self.boosted_columns_
+        )
         self.feature_names_ = tuple(names)
         self.n_features_in_ = len(names)
         self.levels_ = self.boosted_.levels_
@@ -293,9 +335,10 @@ class StackedForecaster:
         _, lows, highs = self._raw(Xc)
         #    Scores stay in time order; their weights favour the latest rows.
         self.cal_scores_ = tuple(cqr_scores(yc, lo, hi) for lo, hi in zip(lows, highs, strict=True))
-        self.cal_weights_ = recency_weights(cal_times if cal_times is not None
-                                            else np.arange(len(yc), dtype=float),
-                                            half_life=self.recency_half_life)
+        self.cal_weights_ = recency_weights(
+            cal_times if cal_times is not None else np.arange(len(yc), dtype=float),
+            half_life=self.recency_half_life,
+        )
         self.n_train_, self.n_cal_ = int(n), int(Xc.shape[0])
         return self
 
@@ -303,16 +346,19 @@ class StackedForecaster:
 
     def _check_fitted(self) -> None:
         if not hasattr(self, "boosted_"):
-            raise NotFittedError("StackedForecaster is not fitted yet; call fit(...) or load(...)",
-                                 where="StackedForecaster")
+            raise NotFittedError(
+                "StackedForecaster is not fitted yet; call fit(...) or load(...)", where="StackedForecaster"
+            )
 
     def candidates(self, X: ArrayLike) -> dict[str, np.ndarray]:
         """Each candidate's point forecast, and ``timing``, the timing effect."""
         self._check_fitted()
         Xp = _matrix("X", X, self.n_features_in_)
         tau = self.timing_.predict(*self._clock(Xp))
-        out = {"boosted": _booster_median(self.boosted_, Xp[:, self._cols]) + tau,
-               **self._linear(Xp, self.history_median_)}
+        out = {
+            "boosted": _booster_median(self.boosted_, Xp[:, self._cols]) + tau,
+            **self._linear(Xp, self.history_median_),
+        }
         out["timing"] = tau
         return out
 
@@ -325,8 +371,7 @@ class StackedForecaster:
         med = self._blend(cands)
         Xb = X[:, self._cols]
         lows, highs = [], []
-        for lo_m, hi_m in zip(self.boosted_.lower_models_, self.boosted_.upper_models_,
-                              strict=True):
+        for lo_m, hi_m in zip(self.boosted_.lower_models_, self.boosted_.upper_models_, strict=True):
             # The boosted quantiles' offsets from their own median, around the blend.
             raw_med = cands["boosted"] - cands["timing"]
             lows.append(med + _predict(lo_m, Xb) - raw_med)
@@ -337,8 +382,11 @@ class StackedForecaster:
         self._check_fitted()
         coverage = float(coverage)
         if not MIN_COVERAGE <= coverage <= MAX_COVERAGE:
-            raise InputError(f"coverage must lie in [{MIN_COVERAGE}, {MAX_COVERAGE}], got "
-                             f"{coverage}", field="coverage", value=coverage)
+            raise InputError(
+                f"coverage must lie in [{MIN_COVERAGE}, {MAX_COVERAGE}], got {coverage}",
+                field="coverage",
+                value=coverage,
+            )
         gaps = [(abs(c - coverage), -c) for c in self.levels_]
         return min(range(len(gaps)), key=gaps.__getitem__)
 
@@ -347,14 +395,12 @@ class StackedForecaster:
         ``coverage``, sorted (what adaptive conformal inference moves along)."""
         return np.sort(np.asarray(self.cal_scores_[self.level_for(coverage)], dtype=float))
 
-    def predict(self, X: ArrayLike, *, coverage: float = 0.8
-                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def predict(self, X: ArrayLike, *, coverage: float = 0.8) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(lo, median, hi)``: the blend and its CQR band at ``coverage``."""
         i = self.level_for(coverage)
         Xp = _matrix("X", X, self.n_features_in_)
         med, lows, highs = self._raw(Xp)
-        q = weighted_conformal_quantile(self.cal_scores_[i], self.cal_weights_,
-                                        alpha=1.0 - float(coverage))
+        q = weighted_conformal_quantile(self.cal_scores_[i], self.cal_weights_, alpha=1.0 - float(coverage))
         lo, hi = lows[i] - q, highs[i] + q
         # Sorting only widens [lo, hi] to include the median (guarantee kept).
         ordered = np.sort(np.stack([lo, med, hi], axis=1), axis=1)
@@ -396,14 +442,16 @@ class StackedForecaster:
     def summary(self) -> dict[str, Any]:
         """What was learnt, for the training report."""
         self._check_fitted()
-        return {"weights": {c: round(w, 4) for c, w in self.weights_.items()},
-                "timing_weight": round(self.timing_weight_, 4),
-                "timing_penalty": self.timing_.alpha_,
-                "boosted_rounds": self.n_estimators_,
-                "boosted_columns": list(self.boosted_columns_),
-                "left_out_of_boosted": list(self.dropped_),
-                "time_carries_nothing": getattr(self, "time_carries_nothing_", None),
-                "stack_block_mae_log": {c: round(v, 4) for c, v in self.stack_scores_.items()}}
+        return {
+            "weights": {c: round(w, 4) for c, w in self.weights_.items()},
+            "timing_weight": round(self.timing_weight_, 4),
+            "timing_penalty": self.timing_.alpha_,
+            "boosted_rounds": self.n_estimators_,
+            "boosted_columns": list(self.boosted_columns_),
+            "left_out_of_boosted": list(self.dropped_),
+            "time_carries_nothing": getattr(self, "time_carries_nothing_", None),
+            "stack_block_mae_log": {c: round(v, 4) for c, v in self.stack_scores_.items()},
+        }
 
     # -- persistence -------------------------------------------------------
 
@@ -413,16 +461,23 @@ class StackedForecaster:
         root.mkdir(parents=True, exist_ok=True)
         self.boosted_.save(root / "boosted")
         config = {
-            "format_version": FORMAT_VERSION, "kind": "StackedForecaster",
-            "params": self.get_params(), "feature_names": list(self.feature_names_),
-            "boosted_columns": list(self.boosted_columns_), "dropped": list(self.dropped_),
-            "n_estimators": self.n_estimators_, "weights": self.weights_,
-            "timing_weight": self.timing_weight_, "stack_scores": self.stack_scores_,
-            "history_median": self.history_median_, "means": self.means_,
+            "format_version": FORMAT_VERSION,
+            "kind": "StackedForecaster",
+            "params": self.get_params(),
+            "feature_names": list(self.feature_names_),
+            "boosted_columns": list(self.boosted_columns_),
+            "dropped": list(self.dropped_),
+            "n_estimators": self.n_estimators_,
+            "weights": self.weights_,
+            "timing_weight": self.timing_weight_,
+            "stack_scores": self.stack_scores_,
+            "history_median": self.history_median_,
+            "means": self.means_,
             "timing": self.timing_.to_config(),
             "scores": [[float(x) for x in sc] for sc in self.cal_scores_],
             "score_weights": [float(x) for x in self.cal_weights_],
-            "n_train": self.n_train_, "n_cal": self.n_cal_,
+            "n_train": self.n_train_,
+            "n_cal": self.n_cal_,
         }
         tmp = root / (CONFIG_FILE + ".tmp")
         tmp.write_text(json.dumps(config))
@@ -489,17 +544,25 @@ def load_forecaster(directory: str | os.PathLike[str]) -> QuantileForecaster | S
     return QuantileForecaster.load(directory)
 
 
-def best_hour_confidence(model: QuantileForecaster | StackedForecaster, *,
-                         local_hours: Sequence[float], weekdays: Sequence[int], account: int,
-                         medians: Sequence[float]) -> float | None:
+def best_hour_confidence(
+    model: QuantileForecaster | StackedForecaster,
+    *,
+    local_hours: Sequence[float],
+    weekdays: Sequence[int],
+    account: int,
+    medians: Sequence[float],
+) -> float | None:
     """Share of the timing component's bootstrap refits in which the slot
     with the highest served median (log) stays highest; None for a model
     without a timing component (older versions)."""
     if not isinstance(model, StackedForecaster) or len(medians) == 0:
         return None
     n = len(medians)
-    clock = (np.asarray(local_hours, dtype=float), np.asarray(weekdays, dtype=float),
-             np.full(n, float(account)))
+    clock = (
+        np.asarray(local_hours, dtype=float),
+        np.asarray(weekdays, dtype=float),
+        np.full(n, float(account)),
+    )
     scale = model.timing_weight_ + model.weights_["boosted"]
     effect = scale * model.timing_.predict(*clock)
     draws = model.timing_.draws(*clock)

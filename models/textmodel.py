@@ -30,7 +30,7 @@ import os
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Self
+from typing import Any, Self, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -69,8 +69,7 @@ class _Stats:
         self.ysum += float(y.sum())
         self.n += len(y)
 
-    def solve(self, alphas: Sequence[float] | np.ndarray
-              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def solve(self, alphas: Sequence[float] | np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(mean_x, mean_y, coefs)`` with ``coefs`` of shape (d, len(alphas))."""
         mx = self.xsum / self.n
         my = self.ysum / self.n
@@ -140,13 +139,18 @@ def time_ordered_predictions(
     # One BLAS thread: these are small matrices, and on shared cores
     # OpenBLAS's spinning threads made this step twenty times slower.
     with threadpool_limits(limits=1):
-        return _time_ordered(vectors, y, times, maturity_s=maturity_s, alphas=alphas,
-                             n_chunks=n_chunks)
+        return _time_ordered(vectors, y, times, maturity_s=maturity_s, alphas=alphas, n_chunks=n_chunks)
 
 
-def _time_ordered(vectors: ArrayLike, y: ArrayLike, times: ArrayLike, *, maturity_s: float,
-                  alphas: Sequence[float] | np.ndarray, n_chunks: int
-                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _time_ordered(
+    vectors: ArrayLike,
+    y: ArrayLike,
+    times: ArrayLike,
+    *,
+    maturity_s: float,
+    alphas: Sequence[float] | np.ndarray,
+    n_chunks: int,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     V, t = _check(vectors, y)
     assert t is not None
     ts = np.asarray(times, dtype=np.float64)
@@ -175,8 +179,11 @@ def _time_ordered(vectors: ArrayLike, y: ArrayLike, times: ArrayLike, *, maturit
         # Penalty: least squared error so far on rows settled by this chunk's start.
         seen = errors[:horizon]
         ok = ~np.isnan(seen[:, 0])
-        alpha_i = (int(np.argmin(seen[ok].mean(axis=0))) if ok.sum() >= MIN_FIT_ROWS
-                   else int(np.argmin(np.abs(grid - DEFAULT_ALPHA))))
+        alpha_i = (
+            int(np.argmin(seen[ok].mean(axis=0)))
+            if ok.sum() >= MIN_FIT_ROWS
+            else int(np.argmin(np.abs(grid - DEFAULT_ALPHA)))
+        )
         mx, my, coefs = st.solve(grid)
         p_all = my + (V[start:stop] - mx) @ coefs  # (rows, alphas)
         pred[start:stop] = p_all[:, alpha_i]
@@ -189,8 +196,9 @@ def _time_ordered(vectors: ArrayLike, y: ArrayLike, times: ArrayLike, *, maturit
 class RidgeText:
     """Ridge on embedding vectors with its penalty chosen in time order."""
 
-    def __init__(self, *, alphas: Sequence[float] = ALPHAS, maturity_s: float = 48 * 3600.0,
-                 n_chunks: int = 40) -> None:
+    def __init__(
+        self, *, alphas: Sequence[float] = ALPHAS, maturity_s: float = 48 * 3600.0, n_chunks: int = 40
+    ) -> None:
         self.alphas = alphas
         self.maturity_s = maturity_s
         self.n_chunks = n_chunks
@@ -202,17 +210,20 @@ class RidgeText:
         assert t is not None
         known = ~np.isnan(t)
         if known.sum() < MIN_FIT_ROWS:
-            raise InputError(f"{int(known.sum())} rows with a target; the text model needs "
-                             f"{MIN_FIT_ROWS}", field="y")
+            raise InputError(
+                f"{int(known.sum())} rows with a target; the text model needs {MIN_FIT_ROWS}", field="y"
+            )
         grid = np.asarray(self.alphas, dtype=np.float64)
         pred, _, errors = time_ordered_predictions(
-            V, t, times, maturity_s=float(self.maturity_s), alphas=grid,
-            n_chunks=int(self.n_chunks))
+            V, t, times, maturity_s=float(self.maturity_s), alphas=grid, n_chunks=int(self.n_chunks)
+        )
         ok = ~np.isnan(errors[:, 0])
-        self.alpha_errors_ = (errors[ok].mean(axis=0) if ok.any()
-                              else np.full(len(grid), np.nan))
-        self.alpha_ = float(grid[int(np.nanargmin(self.alpha_errors_))] if ok.any()
-                            else grid[int(np.argmin(np.abs(grid - DEFAULT_ALPHA)))])
+        self.alpha_errors_ = errors[ok].mean(axis=0) if ok.any() else np.full(len(grid), np.nan)
+        self.alpha_ = float(
+            grid[int(np.nanargmin(self.alpha_errors_))]
+            if ok.any()
+            else grid[int(np.argmin(np.abs(grid - DEFAULT_ALPHA)))]
+        )
         self.coef_, self.intercept_ = ridge_fit(V[known], t[known], self.alpha_)
         self.oof_ = pred
         self.n_features_in_ = V.shape[1]
@@ -226,19 +237,25 @@ class RidgeText:
         self._check_fitted()
         V, _ = _check(vectors)
         if V.shape[1] != self.n_features_in_:
-            raise InputError(f"vectors have {V.shape[1]} values, the model expects "
-                             f"{self.n_features_in_}", field="vectors")
-        return V @ self.coef_ + self.intercept_
+            raise InputError(
+                f"vectors have {V.shape[1]} values, the model expects {self.n_features_in_}", field="vectors"
+            )
+        return cast(np.ndarray, V @ self.coef_ + self.intercept_)
 
     def save(self, directory: str | os.PathLike[str]) -> Path:
         self._check_fitted()
         root = Path(directory)
         root.mkdir(parents=True, exist_ok=True)
         np.save(root / "coef.npy", self.coef_)
-        cfg: dict[str, Any] = {"kind": "RidgeText", "alpha": self.alpha_,
-                               "intercept": self.intercept_, "alphas": list(map(float, self.alphas)),
-                               "alpha_errors": [float(e) for e in self.alpha_errors_],
-                               "maturity_s": float(self.maturity_s), "n_chunks": int(self.n_chunks)}
+        cfg: dict[str, Any] = {
+            "kind": "RidgeText",
+            "alpha": self.alpha_,
+            "intercept": self.intercept_,
+            "alphas": list(map(float, self.alphas)),
+            "alpha_errors": [float(e) for e in self.alpha_errors_],
+            "maturity_s": float(self.maturity_s),
+            "n_chunks": int(self.n_chunks),
+        }
         tmp = root / (CONFIG_FILE + ".tmp")
         tmp.write_text(json.dumps(cfg, indent=2))
         tmp.replace(root / CONFIG_FILE)
@@ -251,8 +268,7 @@ class RidgeText:
             raise NotFound(f"no text model at {root}", where="RidgeText.load")
         try:
             cfg = json.loads((root / CONFIG_FILE).read_text())
-            m = cls(alphas=tuple(cfg["alphas"]), maturity_s=cfg["maturity_s"],
-                    n_chunks=cfg["n_chunks"])
+            m = cls(alphas=tuple(cfg["alphas"]), maturity_s=cfg["maturity_s"], n_chunks=cfg["n_chunks"])
             m.coef_ = np.load(root / "coef.npy")
             m.intercept_ = float(cfg["intercept"])
             m.alpha_ = float(cfg["alpha"])

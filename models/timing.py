@@ -17,7 +17,7 @@ how sure the component is of the best hour (``best_hour_share``).
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import Any, Self
+from typing import Any, Self, cast
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -32,7 +32,7 @@ ALPHAS: tuple[float, ...] = tuple(float(a) for a in np.logspace(-1, 4, 11))
 def hour_from_cyclic(sin: ArrayLike, cos: ArrayLike) -> np.ndarray:
     """Local hour in [0, 24) back from the (sin, cos) hour features."""
     angle = np.arctan2(np.asarray(sin, dtype=float), np.asarray(cos, dtype=float))
-    return np.mod(angle * 24.0 / (2 * np.pi), 24.0)
+    return cast(np.ndarray, np.mod(angle * 24.0 / (2 * np.pi), 24.0))
 
 
 #: Per-account deviations from the shared curve are scaled down, so the
@@ -47,23 +47,33 @@ def _harmonics(hours: np.ndarray) -> np.ndarray:
     # order flattened the demo's curve (Spearman 0.86-0.90 against the truth,
     # 0.95-0.98 with it; our measurement on the demo, no source).
     a = 2 * np.pi * hours / 24.0
-    return np.column_stack([f(k * a) / k for k in range(1, HARMONICS + 1)
-                            for f in (np.sin, np.cos)])
+    return np.column_stack([f(k * a) / k for k in range(1, HARMONICS + 1) for f in (np.sin, np.cos)])
 
 
 class TimingEffect:
     """Additive hour and weekday effect on the log metric (mean zero over
     the fitting rows)."""
 
-    def __init__(self, *, alphas: Sequence[float] = ALPHAS, validation_fraction: float = 0.25,
-                 n_bootstrap: int = 100, random_state: int = 0) -> None:
+    def __init__(
+        self,
+        *,
+        alphas: Sequence[float] = ALPHAS,
+        validation_fraction: float = 0.25,
+        n_bootstrap: int = 100,
+        random_state: int = 0,
+    ) -> None:
         self.alphas = alphas
         self.validation_fraction = validation_fraction
         self.n_bootstrap = n_bootstrap
         self.random_state = random_state
 
-    def design(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike,
-               account_list: Sequence[int] | None = None) -> np.ndarray:
+    def design(
+        self,
+        hours: ArrayLike,
+        weekdays: ArrayLike,
+        accounts: ArrayLike,
+        account_list: Sequence[int] | None = None,
+    ) -> np.ndarray:
         h = np.asarray(hours, dtype=float)
         wd = np.asarray(weekdays, dtype=float).astype(int)
         ac = np.asarray(accounts, dtype=float).astype(int)
@@ -77,8 +87,7 @@ class TimingEffect:
                 parts.append(ACCOUNT_SCALE * H * (ac == a)[:, None])
         return np.hstack(parts)
 
-    def fit(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike,
-            residual: ArrayLike) -> Self:
+    def fit(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike, residual: ArrayLike) -> Self:
         """Rows in time order; ``residual`` is the log metric minus a level
         (the account's trailing median)."""
         r = np.asarray(residual, dtype=float)
@@ -87,7 +96,7 @@ class TimingEffect:
         if r.shape != (D.shape[0],) or not np.isfinite(r).all():
             raise InputError("residual must be finite, one per row", field="residual")
         n = len(r)
-        cut = int(round(n * (1 - float(self.validation_fraction))))
+        cut = round(n * (1 - float(self.validation_fraction)))
         grid = [float(a) for a in self.alphas]
         if cut >= 20 and n - cut >= 20:
             errs = []
@@ -115,38 +124,46 @@ class TimingEffect:
 
     def predict(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike) -> np.ndarray:
         self._check_fitted()
-        return self.design(hours, weekdays, accounts) @ self.coef_ - self.offset_
+        return cast(np.ndarray, self.design(hours, weekdays, accounts) @ self.coef_ - self.offset_)
 
     def draws(self, hours: ArrayLike, weekdays: ArrayLike, accounts: ArrayLike) -> np.ndarray:
         """Bootstrap refits' effects, shape (n_bootstrap, rows)."""
         self._check_fitted()
-        return self.bootstrap_coefs_ @ self.design(hours, weekdays, accounts).T
+        return cast(np.ndarray, self.bootstrap_coefs_ @ self.design(hours, weekdays, accounts).T)
 
     def to_config(self) -> dict[str, Any]:
         self._check_fitted()
-        return {"alphas": [float(a) for a in self.alphas],
-                "validation_fraction": float(self.validation_fraction),
-                "n_bootstrap": int(self.n_bootstrap), "random_state": int(self.random_state),
-                "accounts": list(self.accounts_), "alpha": self.alpha_,
-                "alpha_errors": list(self.alpha_errors_), "coef": self.coef_.tolist(),
-                "offset": self.offset_, "bootstrap_coefs": self.bootstrap_coefs_.tolist()}
+        return {
+            "alphas": [float(a) for a in self.alphas],
+            "validation_fraction": float(self.validation_fraction),
+            "n_bootstrap": int(self.n_bootstrap),
+            "random_state": int(self.random_state),
+            "accounts": list(self.accounts_),
+            "alpha": self.alpha_,
+            "alpha_errors": list(self.alpha_errors_),
+            "coef": self.coef_.tolist(),
+            "offset": self.offset_,
+            "bootstrap_coefs": self.bootstrap_coefs_.tolist(),
+        }
 
     @classmethod
     def from_config(cls, cfg: dict[str, Any]) -> Self:
-        m = cls(alphas=tuple(cfg["alphas"]), validation_fraction=cfg["validation_fraction"],
-                n_bootstrap=cfg["n_bootstrap"], random_state=cfg["random_state"])
+        m = cls(
+            alphas=tuple(cfg["alphas"]),
+            validation_fraction=cfg["validation_fraction"],
+            n_bootstrap=cfg["n_bootstrap"],
+            random_state=cfg["random_state"],
+        )
         m.accounts_ = tuple(int(a) for a in cfg["accounts"])
         m.alpha_ = float(cfg["alpha"])
         m.alpha_errors_ = list(cfg["alpha_errors"])
         m.coef_ = np.asarray(cfg["coef"], dtype=float)
         m.offset_ = float(cfg["offset"])
-        m.bootstrap_coefs_ = np.asarray(cfg["bootstrap_coefs"], dtype=float).reshape(
-            -1, len(m.coef_))
+        m.bootstrap_coefs_ = np.asarray(cfg["bootstrap_coefs"], dtype=float).reshape(-1, len(m.coef_))
         return m
 
 
-def best_hour_share(medians: ArrayLike, effect: ArrayLike, draws: ArrayLike, *,
-                    scale: float) -> float:
+def best_hour_share(medians: ArrayLike, effect: ArrayLike, draws: ArrayLike, *, scale: float) -> float:
     """Share of bootstrap refits in which the best slot stays best.
 
     ``medians`` are the served forecasts (log) of one draft at each slot,

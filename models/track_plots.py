@@ -28,18 +28,34 @@ HELD, MISSED = PALETTE[0], PALETTE[6]
 def _coverage_panel(ax: Axes, months: list[Mapping[str, Any]]) -> None:
     shown = [m for m in months if m.get("settled")]
     if not shown:
-        ax.text(0.5, 0.5, "no forecast settled yet", ha="center", va="center",
-                transform=ax.transAxes, color=INK)
+        ax.text(
+            0.5, 0.5, "no forecast settled yet", ha="center", va="center", transform=ax.transAxes, color=INK
+        )
         ax.set_axis_off()
         return
     x = np.arange(len(shown))
     live = np.array([m["live_coverage"] for m in shown])
     ci = np.array([m["live_coverage_ci"] for m in shown])
     stated = np.array([m["stated_coverage"] for m in shown])
-    ax.errorbar(x, live, yerr=[live - ci[:, 0], ci[:, 1] - live], fmt="o", color=HELD,
-                ecolor=HELD, capsize=3, label="live coverage (Wilson 95% interval)")
-    ax.step(np.r_[x - 0.5, x[-1] + 0.5], np.r_[stated, stated[-1]], where="post",
-            color=INK, linewidth=1.2, linestyle="--", label="stated coverage")
+    ax.errorbar(
+        x,
+        live,
+        yerr=[live - ci[:, 0], ci[:, 1] - live],
+        fmt="o",
+        color=HELD,
+        ecolor=HELD,
+        capsize=3,
+        label="live coverage (Wilson 95% interval)",
+    )
+    ax.step(
+        np.r_[x - 0.5, x[-1] + 0.5],
+        np.r_[stated, stated[-1]],
+        where="post",
+        color=INK,
+        linewidth=1.2,
+        linestyle="--",
+        label="stated coverage",
+    )
     ax.set_xticks(x, [f"{m['month']}\n(n={m['settled']})" for m in shown])
     ax.set_ylim(0, 1.02)
     ax.yaxis.set_major_formatter(PercentFormatter(1.0))
@@ -51,8 +67,9 @@ def _coverage_panel(ax: Axes, months: list[Mapping[str, Any]]) -> None:
 
 def _outcome_panel(ax: Axes, points: list[Mapping[str, Any]], metric: str) -> None:
     if not points:
-        ax.text(0.5, 0.5, "no forecast settled yet", ha="center", va="center",
-                transform=ax.transAxes, color=INK)
+        ax.text(
+            0.5, 0.5, "no forecast settled yet", ha="center", va="center", transform=ax.transAxes, color=INK
+        )
         ax.set_axis_off()
         return
     floor = 1.0 if metric != "engagement_rate" else 1e-4
@@ -63,9 +80,18 @@ def _outcome_panel(ax: Axes, points: list[Mapping[str, Any]], metric: str) -> No
     held = np.array([bool(p["inside"]) for p in points])
     for mask, colour, label in ((held, HELD, "held"), (~held, MISSED, "missed")):
         if mask.any():
-            ax.errorbar(out[mask], med[mask], yerr=[med[mask] - lo[mask], hi[mask] - med[mask]],
-                        fmt="o", color=colour, ecolor=colour, alpha=0.8, capsize=2,
-                        markersize=4, label=f"{label} ({int(mask.sum())})")
+            ax.errorbar(
+                out[mask],
+                med[mask],
+                yerr=[med[mask] - lo[mask], hi[mask] - med[mask]],
+                fmt="o",
+                color=colour,
+                ecolor=colour,
+                alpha=0.8,
+                capsize=2,
+                markersize=4,
+                label=f"{label} ({int(mask.sum())})",
+            )
     span = [min(out.min(), lo.min()) * 0.8, max(out.max(), hi.max()) * 1.25]
     ax.plot(span, span, color=INK, linewidth=0.9, linestyle=":", label="forecast = outcome")
     ax.set_xscale("log")
@@ -88,7 +114,8 @@ def track_record_figure(report: Mapping[str, Any], *, fmt: str = "png") -> bytes
     fmt = fmt.lower()
     if fmt not in FORMATS:
         raise InputError(f"format must be one of {', '.join(FORMATS)}", field="fmt", value=fmt)
-    with matplotlib.rc_context(_STYLE):
+    # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
+    with matplotlib.rc_context(_STYLE):  # type: ignore[arg-type]
         fig = Figure(figsize=(WIDTH_IN, 4.6), dpi=DPI, layout="constrained")
         left, right = fig.subplots(1, 2)
         _coverage_panel(left, list(report.get("months", [])))
@@ -97,13 +124,20 @@ def track_record_figure(report: Mapping[str, Any], *, fmt: str = "png") -> bytes
         live = o.get("live_coverage")
         fig.suptitle(
             f"Track record of {report.get('metric')} forecasts: {o.get('settled', 0)} settled"
-            + ("" if live is None else f", live coverage {live:.0%} against "
-               f"{o.get('stated_coverage', 0):.0%} stated"),
-            x=0.01, ha="left", fontsize=12.5, fontweight="bold",
+            + (
+                ""
+                if live is None
+                else f", live coverage {live:.0%} against {o.get('stated_coverage', 0):.0%} stated"
+            ),
+            x=0.01,
+            ha="left",
+            fontsize=12.5,
+            fontweight="bold",
         )
         buf = io.BytesIO()
-        fig.savefig(buf, format=fmt, dpi=DPI, facecolor="white",
-                    metadata={"Date": None} if fmt == "svg" else None)
+        fig.savefig(
+            buf, format=fmt, dpi=DPI, facecolor="white", metadata={"Date": None} if fmt == "svg" else None
+        )
     data = buf.getvalue()
     fig.clear()
     return data

@@ -40,6 +40,7 @@ from .api.schemas import (
 M = TypeVar("M", bound=BaseModel)
 DraftLike = Mapping[str, Any] | DraftIn
 
+
 def error_from(status: int, body: Any) -> SoundingError:
     """The library exception for an API error answer ``{"error": {...}}``:
     the class named by its code, or by its status when the code is not ours."""
@@ -74,14 +75,21 @@ class SoundingClient:
         An ``httpx`` transport, e.g. to talk to an app in the same process.
     """
 
-    def __init__(self, *, base_url: str = "http://127.0.0.1:8000", token: str | None = None,
-                 timeout: float = 30.0, transport: httpx.BaseTransport | None = None) -> None:
+    def __init__(
+        self,
+        *,
+        base_url: str = "http://127.0.0.1:8000",
+        token: str | None = None,
+        timeout: float = 30.0,
+        transport: httpx.BaseTransport | None = None,
+    ) -> None:
         self.base_url = base_url.rstrip("/")
         headers = {"Accept": "application/json", "User-Agent": "sounding-client"}
         if token:
             headers["Authorization"] = f"Bearer {token}"
-        self._http = httpx.Client(base_url=self.base_url, headers=headers, timeout=timeout,
-                                  transport=transport)
+        self._http = httpx.Client(
+            base_url=self.base_url, headers=headers, timeout=timeout, transport=transport
+        )
 
     # Life cycle -------------------------------------------------------------
 
@@ -91,8 +99,9 @@ class SoundingClient:
     def __enter__(self) -> SoundingClient:
         return self
 
-    def __exit__(self, exc_type: type[BaseException] | None, exc: BaseException | None,
-                 tb: TracebackType | None) -> None:
+    def __exit__(
+        self, exc_type: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None
+    ) -> None:
         self.close()
 
     # Endpoints --------------------------------------------------------------
@@ -101,18 +110,33 @@ class SoundingClient:
         """Counts, embedding model and index state of the service."""
         return self._call("GET", "/v1/health", None, Health)
 
-    def forecast(self, text: str, *, account: str, planned_at: datetime | str | None = None,
-                 metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE,
-                 draft_id: str | None = None, has_media: bool = False) -> ForecastOut:
+    def forecast(
+        self,
+        text: str,
+        *,
+        account: str,
+        planned_at: datetime | str | None = None,
+        metric: str = DEFAULT_METRIC,
+        coverage: float = DEFAULT_COVERAGE,
+        draft_id: str | None = None,
+        has_media: bool = False,
+    ) -> ForecastOut:
         """Forecast one draft: interval, precedents, contributions and
         warnings (near-repeats are in ``warnings`` and ``repeats``)."""
-        body = {"text": text, "account": account, "planned_at": _when(planned_at),
-                "metric": metric, "coverage": coverage, "draft_id": draft_id,
-                "has_media": has_media}
+        body = {
+            "text": text,
+            "account": account,
+            "planned_at": _when(planned_at),
+            "metric": metric,
+            "coverage": coverage,
+            "draft_id": draft_id,
+            "has_media": has_media,
+        }
         return self._call("POST", "/v1/forecasts", _drop_none(body), ForecastOut)
 
-    def forecast_plan(self, drafts: Sequence[DraftLike], *, metric: str = DEFAULT_METRIC,
-                       coverage: float = DEFAULT_COVERAGE) -> list[ForecastOut]:
+    def forecast_plan(
+        self, drafts: Sequence[DraftLike], *, metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE
+    ) -> list[ForecastOut]:
         """Forecast several drafts in one request, in their order. Each draft
         is a ``DraftIn`` or a mapping with its fields (text, account,
         planned_at, draft_id, has_media); a planned_at may be a datetime."""
@@ -124,22 +148,47 @@ class SoundingClient:
         body = {"drafts": items, "metric": metric, "coverage": coverage}
         return self._call("POST", "/v1/forecasts", body, ForecastList).forecasts
 
-    def best_hours(self, text: str, *, account: str, day: date | str | None = None,
-                   week: bool = False, metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE,
-                   top: int = 3) -> HoursOut:
+    def best_hours(
+        self,
+        text: str,
+        *,
+        account: str,
+        day: date | str | None = None,
+        week: bool = False,
+        metric: str = DEFAULT_METRIC,
+        coverage: float = DEFAULT_COVERAGE,
+        top: int = 3,
+    ) -> HoursOut:
         """Forecast ``text`` at every hour of a local day (default tomorrow)
         or of seven days; says when the hours cannot be told apart."""
-        body = {"text": text, "account": account,
-                "day": day.isoformat() if isinstance(day, date) else day,
-                "week": week, "metric": metric, "coverage": coverage, "top": top}
+        body = {
+            "text": text,
+            "account": account,
+            "day": day.isoformat() if isinstance(day, date) else day,
+            "week": week,
+            "metric": metric,
+            "coverage": coverage,
+            "top": top,
+        }
         return self._call("POST", "/v1/hours", _drop_none(body), HoursOut)
 
-    def compare(self, texts: Sequence[str], *, account: str,
-                planned_at: datetime | str | None = None, metric: str = DEFAULT_METRIC,
-                coverage: float = DEFAULT_COVERAGE) -> VariantsOut:
+    def compare(
+        self,
+        texts: Sequence[str],
+        *,
+        account: str,
+        planned_at: datetime | str | None = None,
+        metric: str = DEFAULT_METRIC,
+        coverage: float = DEFAULT_COVERAGE,
+    ) -> VariantsOut:
         """Forecast several phrasings of one draft side by side, best first."""
-        body = {"texts": list(texts), "account": account, "planned_at": _when(planned_at),
-                "metric": metric, "coverage": coverage}
+        body = {
+            "texts": list(texts),
+            "account": account,
+            "planned_at": _when(planned_at),
+            "metric": metric,
+            "coverage": coverage,
+        }
         return self._call("POST", "/v1/variants", _drop_none(body), VariantsOut)
 
     # Plumbing ---------------------------------------------------------------
@@ -148,11 +197,15 @@ class SoundingClient:
         try:
             resp = self._http.request(method, path, json=body)
         except httpx.TimeoutException as exc:
-            raise ServiceUnavailable(f"no answer from {self.base_url} in time ({exc})",
-                                     hint="is the service busy? raise the client's timeout") from None
+            raise ServiceUnavailable(
+                f"no answer from {self.base_url} in time ({exc})",
+                hint="is the service busy? raise the client's timeout",
+            ) from None
         except httpx.HTTPError as exc:
-            raise ServiceUnavailable(f"cannot reach the sounding service at {self.base_url}: {exc}",
-                                     hint="start it with `sounding serve`") from None
+            raise ServiceUnavailable(
+                f"cannot reach the sounding service at {self.base_url}: {exc}",
+                hint="start it with `sounding serve`",
+            ) from None
         try:
             data = resp.json()
         except ValueError:
@@ -160,13 +213,16 @@ class SoundingClient:
         if resp.status_code >= 400:
             raise error_from(resp.status_code, data)
         if data is None:
-            raise ServiceUnavailable(f"{self.base_url}{path} did not answer with JSON "
-                                     f"(HTTP {resp.status_code}); is it a sounding service?")
+            raise ServiceUnavailable(
+                f"{self.base_url}{path} did not answer with JSON "
+                f"(HTTP {resp.status_code}); is it a sounding service?"
+            )
         try:
             return model.model_validate(data)
         except ValidationError as exc:
-            raise ServiceUnavailable(f"{self.base_url}{path} answered in an unexpected shape: "
-                                     f"{exc.errors()[0].get('msg')}") from None
+            raise ServiceUnavailable(
+                f"{self.base_url}{path} answered in an unexpected shape: {exc.errors()[0].get('msg')}"
+            ) from None
 
 
 def _drop_none(d: dict[str, Any]) -> dict[str, Any]:

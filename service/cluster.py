@@ -33,7 +33,9 @@ def check_address(address: str) -> str:
     """A Ray Client address, ``ray://HOST:PORT``, or a clear error."""
     if not _ADDRESS.match(address):
         raise InputError(
-            f"{address!r} is not a Ray Client address", field="cluster", value=address,
+            f"{address!r} is not a Ray Client address",
+            field="cluster",
+            value=address,
             hint="give ray://HOST:PORT, the head node's client server (port 10001 by default)",
         )
     return address
@@ -63,7 +65,8 @@ class EmbedOnWorker:
         model_path = cfg.pop("model_path")
         export_dir = Path(tempfile.gettempdir()) / "sounding-embedding" if onnx else None
         self.embedder = Embedder(
-            **cfg, export_dir=export_dir,
+            **cfg,
+            export_dir=export_dir,
             # A model directory given on the driver may not exist on the node;
             # None is the bundled model of the node's own install.
             model_path=model_path if model_path and Path(model_path).is_dir() else None,
@@ -82,8 +85,7 @@ class RayEmbedder:
     manager: it connects on entry and disconnects on exit.
     """
 
-    def __init__(self, *, address: str, embedder: Embedder, workers: int = 2,
-                 batch_size: int = 256) -> None:
+    def __init__(self, *, address: str, embedder: Embedder, workers: int = 2, batch_size: int = 256) -> None:
         self.address = address
         self.embedder = embedder
         self.workers = workers
@@ -95,19 +97,24 @@ class RayEmbedder:
     def connect(self) -> RayEmbedder:
         check_address(self.address)
         if self.workers < 1 or self.batch_size < 1:
-            raise InputError("cluster workers and batch size must be at least 1",
-                             field="cluster_workers", value=str(self.workers))
+            raise InputError(
+                "cluster workers and batch size must be at least 1",
+                field="cluster_workers",
+                value=str(self.workers),
+            )
         try:
             import ray
             import ray.data
         except ImportError as exc:
             raise InputError(
                 f"embedding on a cluster needs Ray ({exc.name} is not installed)",
-                field="cluster", hint="pip install 'sounding[cluster]'",
+                field="cluster",
+                hint="pip install 'sounding[cluster]'",
             ) from None
         try:
-            ray.init(self.address, logging_level="WARNING", log_to_driver=False)
-        except Exception as exc:  # noqa: BLE001 - grpc and Ray raise many kinds here
+            # Ray types logging_level as int, but passes it to logging, which takes level names too.
+            ray.init(self.address, logging_level="WARNING", log_to_driver=False)  # type: ignore[arg-type]
+        except Exception as exc:  # grpc and Ray raise many kinds here
             raise ServiceUnavailable(
                 f"cannot reach the Ray cluster at {self.address}: {type(exc).__name__}: {exc}",
                 hint="check that the head runs `ray start --head` and its client server port",
@@ -120,11 +127,12 @@ class RayEmbedder:
             self._ray.shutdown()
             self._ray = None
 
-    def __enter__(self) -> RayEmbedder:  # noqa: PYI034 - a final class in practice
+    def __enter__(self) -> RayEmbedder:  # a final class in practice
         return self.connect()
 
-    def __exit__(self, et: type[BaseException] | None, e: BaseException | None,
-                 tb: TracebackType | None) -> None:
+    def __exit__(
+        self, et: type[BaseException] | None, e: BaseException | None, tb: TracebackType | None
+    ) -> None:
         self.close()
 
     def __call__(self, texts: list[str]) -> np.ndarray:
@@ -136,9 +144,14 @@ class RayEmbedder:
         # Ray Data cannot run its executor through the Ray Client (ray-project/ray#48682),
         # so the pipeline runs in a task on the cluster; it takes no CPU of its own.
         task = self._ray.remote(num_cpus=0, max_retries=0)(embed_with_ray_data)
-        result = self._ray.get(task.remote(
-            list(texts), config=worker_config(self.embedder), workers=self.workers,
-            batch_size=self.batch_size))
+        result = self._ray.get(
+            task.remote(
+                list(texts),
+                config=worker_config(self.embedder),
+                workers=self.workers,
+                batch_size=self.batch_size,
+            )
+        )
         if result.shape[0] != len(texts):
             raise ServiceUnavailable(
                 f"the cluster returned {result.shape[0]} vectors for {len(texts)} texts",
@@ -148,8 +161,9 @@ class RayEmbedder:
         return np.ascontiguousarray(result, dtype=np.float32)
 
 
-def embed_with_ray_data(texts: list[str], *, config: dict[str, Any], workers: int,
-                        batch_size: int) -> np.ndarray:
+def embed_with_ray_data(
+    texts: list[str], *, config: dict[str, Any], workers: int, batch_size: int
+) -> np.ndarray:
     """Runs on the cluster: ``map_batches`` over the texts with an actor pool of
     ``workers`` model holders; rows in the order of ``texts``."""
     import ray.data
@@ -160,8 +174,12 @@ def embed_with_ray_data(texts: list[str], *, config: dict[str, Any], workers: in
         override_num_blocks=max(1, min(len(texts) // batch_size, 4 * workers)),
     )
     out = ds.map_batches(
-        EmbedOnWorker, fn_constructor_kwargs={"config": config}, batch_size=batch_size,
-        batch_format="numpy", concurrency=workers, num_cpus=1,
+        EmbedOnWorker,
+        fn_constructor_kwargs={"config": config},
+        batch_size=batch_size,
+        batch_format="numpy",
+        concurrency=workers,
+        num_cpus=1,
     )
     result: np.ndarray | None = None
     filled = np.zeros(len(texts), dtype=bool)
@@ -186,5 +204,4 @@ def cluster_import_options(ws: Any, address: str | None, *, workers: int = 2) ->
     if address is None:
         return {}
     embed = RayEmbedder(address=address, embedder=ws.embedder, workers=workers).connect()
-    return {"embed": embed,
-            "batch_rows": max(ws.settings.import_batch_rows, ws.settings.cluster_batch_rows)}
+    return {"embed": embed, "batch_rows": max(ws.settings.import_batch_rows, ws.settings.cluster_batch_rows)}

@@ -31,7 +31,7 @@ _TOO_LONG = "field larger than field limit"
 
 @dataclass(frozen=True, slots=True)
 class Record:
-    line: int           # the record's first physical line, from 1
+    line: int  # the record's first physical line, from 1
     fields: list[str]
 
 
@@ -57,7 +57,7 @@ class RecordReader:
     def __init__(self, handle: TextIO) -> None:
         self._source = iter(handle)
         self._pending: deque[tuple[int, str]] = deque()  # lines to read again
-        self._taken: list[tuple[int, str]] = []          # lines of the record in flight
+        self._taken: list[tuple[int, str]] = []  # lines of the record in flight
         self._next_line = 1
         self._reader = csv.reader(self._lines(), strict=True)
 

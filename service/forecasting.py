@@ -44,8 +44,19 @@ from .settings import Settings
 from .store import Store, has_link
 from .timeparse import now_utc, wall_clock, zone
 
-__all__ = ["CAUTION", "Draft", "Forecast", "Forecaster", "HistoryView", "backtest", "build_view",
-           "feature_params", "local_clock", "train", "training_set"]
+__all__ = [
+    "CAUTION",
+    "Draft",
+    "Forecast",
+    "Forecaster",
+    "HistoryView",
+    "backtest",
+    "build_view",
+    "feature_params",
+    "local_clock",
+    "train",
+    "training_set",
+]
 
 CAUTION = (
     "An estimate from this team's own history, not a certainty: the interval "
@@ -54,17 +65,23 @@ CAUTION = (
 )
 
 
-def training_rows(view: HistoryView, params: F.FeatureParams, now: datetime, *,
-                  max_posts: int | None = None) -> np.ndarray:
+def training_rows(
+    view: HistoryView, params: F.FeatureParams, now: datetime, *, max_posts: int | None = None
+) -> np.ndarray:
     """Rows of the view that train: every post settled by ``now`` (only the
     ``max_posts`` most recent of them when set)."""
     keep = np.flatnonzero(F.eligible(view.history, now.timestamp(), params))
     return keep if max_posts is None else keep[-max_posts:]  # the view is sorted by time
 
 
-def training_set(view: HistoryView, params: F.FeatureParams, now: datetime, *,
-                 max_posts: int | None = None, approximate_above: int | None = None,
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def training_set(
+    view: HistoryView,
+    params: F.FeatureParams,
+    now: datetime,
+    *,
+    max_posts: int | None = None,
+    approximate_above: int | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Leak-free features, targets and times of every post settled by ``now``
     (only the ``max_posts`` most recent of them when set; their neighbours
     still come from the whole history)."""
@@ -75,15 +92,20 @@ def training_set(view: HistoryView, params: F.FeatureParams, now: datetime, *,
 
 def scale_options(settings: Settings) -> dict[str, Any]:
     """The training-set options of the scale settings (SOUNDING_TRAIN_*)."""
-    return {"max_posts": settings.train_max_posts,
-            "approximate_above": settings.train_approximate_above}
+    return {"max_posts": settings.train_max_posts, "approximate_above": settings.train_approximate_above}
 
 
 MIN_TRAINING_POSTS = 200
 
 
-def train(ws: DataDir, metric: str = DEFAULT_METRIC, *, now: datetime | None = None,
-          backtest: bool = True, cal_fraction: float = 0.2) -> TrainedModel:
+def train(
+    ws: DataDir,
+    metric: str = DEFAULT_METRIC,
+    *,
+    now: datetime | None = None,
+    backtest: bool = True,
+    cal_fraction: float = 0.2,
+) -> TrainedModel:
     """Train, backtest and save a new model version for ``metric``, as the
     data directory's one writer (service.locking)."""
     check_target(metric)
@@ -91,8 +113,9 @@ def train(ws: DataDir, metric: str = DEFAULT_METRIC, *, now: datetime | None = N
         return _train(ws, metric, now=now, backtest=backtest, cal_fraction=cal_fraction)
 
 
-def _train(ws: Any, metric: str, *, now: datetime | None, backtest: bool,
-           cal_fraction: float) -> TrainedModel:
+def _train(
+    ws: Any, metric: str, *, now: datetime | None, backtest: bool, cal_fraction: float
+) -> TrainedModel:
     now = now or now_utc()
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)
@@ -107,41 +130,51 @@ def _train(ws: Any, metric: str, *, now: datetime | None, backtest: bool,
     order = np.argsort(times, kind="stable")
     X, y, times = X[order], y[order], times[order]
     # The calibration block comes after the training block in time.
-    cut = int(round(len(y) * (1 - cal_fraction)))
+    cut = round(len(y) * (1 - cal_fraction))
     model = StackedForecaster(**STACK_PARAMS).fit(
-        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:])
+        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:]
+    )
     report: dict[str, Any] = {
         "metric": metric,
         "trained_at": now_utc().isoformat(),
         "data_as_of": now.isoformat(),
-        "n_posts": int(len(y)),
+        "n_posts": len(y),
         "n_train": int(cut),
         "n_calibration": int(len(y) - cut),
         "train_until": datetime.fromtimestamp(times[cut - 1], tz=now.tzinfo).isoformat(),
         "calibration_from": datetime.fromtimestamp(times[cut], tz=now.tzinfo).isoformat(),
-        "features": {"k": params.k, "maturity_hours": params.maturity_s / 3600,
-                     "similar_threshold": params.similar_threshold,
-                     "baseline_posts": params.baseline_n},
+        "features": {
+            "k": params.k,
+            "maturity_hours": params.maturity_s / 3600,
+            "similar_threshold": params.similar_threshold,
+            "baseline_posts": params.baseline_n,
+        },
         # Which vectors the features came from (int8 ONNX vectors differ from fp32 ones).
         "embedding": {k: v for k, v in ws.embedder.info().items() if k != "loaded"},
         "combination": model.summary(),
         "text_model": None if text is None else {"penalty": text.alpha_},
     }
     if backtest:
-        report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES,
-                                          params=STACK_PARAMS)
+        report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES, params=STACK_PARAMS)
         report["note"] = report["backtest"]["note"]
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
     stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique (issue 11)
     version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
-    trained = TrainedModel(metric=metric, version=version, features=params,
-                           quantiles=model, report=report, text=text)
+    trained = TrainedModel(
+        metric=metric, version=version, features=params, quantiles=model, report=report, text=text
+    )
     trained.save(ws.settings.models_dir)
     return trained
 
 
-def backtest(ws: DataDir, metric: str = DEFAULT_METRIC, *, coverage: float = DEFAULT_COVERAGE,
-             n_folds: int = 4, now: datetime | None = None) -> dict[str, Any]:
+def backtest(
+    ws: DataDir,
+    metric: str = DEFAULT_METRIC,
+    *,
+    coverage: float = DEFAULT_COVERAGE,
+    n_folds: int = 4,
+    now: datetime | None = None,
+) -> dict[str, Any]:
     check_target(metric)
     params = feature_params(ws.settings)
     view = build_view(ws.store, metric, with_vectors=True)
@@ -150,12 +183,14 @@ def backtest(ws: DataDir, metric: str = DEFAULT_METRIC, *, coverage: float = DEF
     if len(y) < MIN_TRAINING_POSTS:
         raise NotReady(f"{len(y)} mature posts with {metric}; a backtest needs {MIN_TRAINING_POSTS}")
     X, _ = _with_extra(view, params, now, X, ws.settings)
-    return run_backtest(X, y, times, feature_names=ALL_FEATURES, coverage_level=coverage,
-                        n_folds=n_folds, params=STACK_PARAMS)
+    return run_backtest(
+        X, y, times, feature_names=ALL_FEATURES, coverage_level=coverage, n_folds=n_folds, params=STACK_PARAMS
+    )
 
 
-def _with_extra(view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray,
-                settings: Settings) -> tuple[np.ndarray, Any]:
+def _with_extra(
+    view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray, settings: Settings
+) -> tuple[np.ndarray, Any]:
     """``X`` (rows of ``training_set``) with models.stacking's extra columns."""
     extra, text = extra_columns(view.history, maturity_s=params.maturity_s, now=now.timestamp())
     keep = training_rows(view, params, now, max_posts=settings.train_max_posts)
@@ -196,14 +231,25 @@ class Forecast:
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "draft_id": self.draft_id, "metric": self.metric, "account": self.account,
-            "planned_at": self.planned_at.isoformat(), "local_time": self.local_time,
-            "low": self.low, "median": self.median, "high": self.high,
-            "coverage": self.coverage, "backtested_coverage": self.backtested_coverage,
-            "model_version": self.model_version, "precedents": self.precedents,
-            "contributions": self.contributions, "warnings": self.warnings, "caution": CAUTION,
-            "repeats": self.repeats, "note": self.note,
-            "calibration": self.calibration or None, "live_coverage": self.live_coverage,
+            "draft_id": self.draft_id,
+            "metric": self.metric,
+            "account": self.account,
+            "planned_at": self.planned_at.isoformat(),
+            "local_time": self.local_time,
+            "low": self.low,
+            "median": self.median,
+            "high": self.high,
+            "coverage": self.coverage,
+            "backtested_coverage": self.backtested_coverage,
+            "model_version": self.model_version,
+            "precedents": self.precedents,
+            "contributions": self.contributions,
+            "warnings": self.warnings,
+            "caution": CAUTION,
+            "repeats": self.repeats,
+            "note": self.note,
+            "calibration": self.calibration or None,
+            "live_coverage": self.live_coverage,
         }
 
 
@@ -214,15 +260,21 @@ class Forecaster:
     swapped in under a lock, so a request uses one whole model throughout.
     """
 
-    def __init__(self, *, store: Store, settings: Settings, retrieval: Retriever,
-                 encode: Callable[[list[str]], np.ndarray]) -> None:
+    def __init__(
+        self,
+        *,
+        store: Store,
+        settings: Settings,
+        retrieval: Retriever,
+        encode: Callable[[list[str]], np.ndarray],
+    ) -> None:
         self.store = store
         self.settings = settings
         self.retrieval = retrieval
         self.limits = Limits.from_settings(settings)
         self._encode = encode
         self._models: dict[str, TrainedModel] = {}
-        self._views: dict[str, tuple[tuple[int, int, str], HistoryView]] = {}
+        self._views: dict[str, tuple[int, HistoryView]] = {}
         self._lock = threading.Lock()
 
     def embed(self, texts: Sequence[str]) -> np.ndarray:
@@ -251,9 +303,15 @@ class Forecaster:
             self._views[metric] = (stamp, v)
         return v
 
-    def forecast(self, drafts: list[Draft], *, metric: str = DEFAULT_METRIC,
-                 coverage: float = DEFAULT_COVERAGE, now: datetime | None = None,
-                 vectors: np.ndarray | None = None) -> list[Forecast]:
+    def forecast(
+        self,
+        drafts: list[Draft],
+        *,
+        metric: str = DEFAULT_METRIC,
+        coverage: float = DEFAULT_COVERAGE,
+        now: datetime | None = None,
+        vectors: np.ndarray | None = None,
+    ) -> list[Forecast]:
         """Forecast each draft; ``vectors`` may pass embeddings already made."""
         check_coverage(coverage)
         model = self.model(metric)
@@ -264,60 +322,89 @@ class Forecaster:
             code = view.account_codes.get(d.account)
             if code is None:
                 self.store.account(d.account)  # raises NotFound for unknown accounts
-            n = 0 if code is None else int(np.sum(
-                (view.history.account == code) & ~np.isnan(view.history.log_target)))
+            n = (
+                0
+                if code is None
+                else int(np.sum((view.history.account == code) & ~np.isnan(view.history.log_target)))
+            )
             if n < least:
                 raise NotReady(
                     f"account {d.account!r} has {n} posts with {metric}; a forecast needs at "
-                    f"least {least} (SOUNDING_MIN_HISTORY_POSTS)", field="account", value=d.account)
+                    f"least {least} (SOUNDING_MIN_HISTORY_POSTS)",
+                    field="account",
+                    value=d.account,
+                )
         vecs = vectors if vectors is not None else self.embed([d.text for d in drafts])
         rows, plans = [], []
         wide: WideCache = {}  # one search per distinct text
         for d, vec in zip(drafts, vecs, strict=True):
             rows.append(self.features(view, model.features, d, vec, now, wide))
             plans.append(d.planned_at or now)
-        details = self.store.posts_by_pk(sorted({int(view.history.pk[r]) for row in rows
-                                                    for r, _ in row[3]}))
-        X = model.rows(np.vstack([r[0] for r in rows]), vecs,
-                       [view.account_codes[d.account] for d in drafts])  # issue 10: extra columns
+        details = self.store.posts_by_pk(sorted({int(view.history.pk[r]) for row in rows for r, _ in row[3]}))
+        X = model.rows(
+            np.vstack([r[0] for r in rows]), vecs, [view.account_codes[d.account] for d in drafts]
+        )  # issue 10: extra columns
         lo, med, hi = model.quantiles.predict(X, coverage=coverage)
         contribs = model.quantiles.contributions(X)
-        repeats = near_repeats_many(self.retrieval, self.settings, view, [
-            (d.account, v, p) for d, v, p in zip(drafts, vecs, plans, strict=True)],
-            now=now, wide=wide)
+        repeats = near_repeats_many(
+            self.retrieval,
+            self.settings,
+            view,
+            [(d.account, v, p) for d, v, p in zip(drafts, vecs, plans, strict=True)],
+            now=now,
+            wide=wide,
+        )
         out = []
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = rows[i]
-            expected, groups = group_contributions(contribs[i], model.quantiles.feature_names_,
-                                                   ALL_GROUPS)
+            expected, groups = group_contributions(contribs[i], model.quantiles.feature_names_, ALL_GROUPS)
             local = plans[i].astimezone(zone(tz))
-            out.append(Forecast(
-                metric=metric, account=d.account, planned_at=plans[i],
-                local_time=local.isoformat(timespec="minutes"),
-                low=_back(lo[i], metric), median=_back(med[i], metric), high=_back(hi[i], metric),
-                coverage=coverage, backtested_coverage=model.backtested_at(coverage),
-                model_version=model.version,
-                precedents=self._precedents(view, hood_rows, weights, now, details),
-                contributions={
-                    "scale": "log1p; factors multiply (1 + metric)",
-                    "expected_log": expected,
-                    "predicted_log": float(expected + sum(groups.values())),
-                    "groups": [
-                        {"group": e.group, "log_contribution": e.log_contribution,
-                         "factor": e.factor, "summary": e.summary}
-                        for e in (describe(g, groups[g]) for g in F.GROUPS)
-                    ],
-                },
-                draft_id=d.draft_id, log=(float(lo[i]), float(med[i]), float(hi[i])),
-                # Near-repeats of recent posts (own account and teammates), in every forecast.
-                warnings=[r.message for r in repeats[i]], repeats=[r.to_dict() for r in repeats[i]],
-                note=model.report.get("note"),
-            ))
+            out.append(
+                Forecast(
+                    metric=metric,
+                    account=d.account,
+                    planned_at=plans[i],
+                    local_time=local.isoformat(timespec="minutes"),
+                    low=_back(lo[i], metric),
+                    median=_back(med[i], metric),
+                    high=_back(hi[i], metric),
+                    coverage=coverage,
+                    backtested_coverage=model.backtested_at(coverage),
+                    model_version=model.version,
+                    precedents=self._precedents(view, hood_rows, weights, now, details),
+                    contributions={
+                        "scale": "log1p; factors multiply (1 + metric)",
+                        "expected_log": expected,
+                        "predicted_log": float(expected + sum(groups.values())),
+                        "groups": [
+                            {
+                                "group": e.group,
+                                "log_contribution": e.log_contribution,
+                                "factor": e.factor,
+                                "summary": e.summary,
+                            }
+                            for e in (describe(g, groups[g]) for g in F.GROUPS)
+                        ],
+                    },
+                    draft_id=d.draft_id,
+                    log=(float(lo[i]), float(med[i]), float(hi[i])),
+                    # Near-repeats of recent posts (own account and teammates), in every forecast.
+                    warnings=[r.message for r in repeats[i]],
+                    repeats=[r.to_dict() for r in repeats[i]],
+                    note=model.report.get("note"),
+                )
+            )
         return out
 
-    def features(self, view: HistoryView, params: F.FeatureParams, d: Draft, vec: np.ndarray,
-                 now: datetime, wide: WideCache | None = None,
-                 ) -> tuple[np.ndarray, dict[int, float], str, list[tuple[int, float]]]:
+    def features(
+        self,
+        view: HistoryView,
+        params: F.FeatureParams,
+        d: Draft,
+        vec: np.ndarray,
+        now: datetime,
+        wide: WideCache | None = None,
+    ) -> tuple[np.ndarray, dict[int, float], str, list[tuple[int, float]]]:
         """A draft's feature row, its precedents' weights, its account's zone
         and the precedents to show (History row, similarity), best first."""
         h = view.history
@@ -326,30 +413,51 @@ class Forecaster:
         t = min(planned, now).timestamp()
         code = view.account_codes[d.account]
         wide = {} if wide is None else wide
-        hood = self.retrieval.neighbourhood(view, vec, t=t, account=code, params=params,
-                                            cache=wide)
+        hood = self.retrieval.neighbourhood(view, vec, t=t, account=code, params=params, cache=wide)
         tz = view.zones[code]
         local = planned.astimezone(zone(tz))
         form = F.text_form(d.text, has_link(d.text), d.has_media)
-        x, weights = F.assemble(h, hood, t=t, account=code,
-                                local_hour=local.hour + local.minute / 60.0,
-                                weekday=local.weekday(), form=form, params=params)
+        x, weights = F.assemble(
+            h,
+            hood,
+            t=t,
+            account=code,
+            local_hour=local.hour + local.minute / 60.0,
+            weekday=local.weekday(),
+            form=form,
+            params=params,
+        )
         shown = [(int(r), float(s)) for r, s in zip(hood.team, hood.team_sims, strict=True)]
         # Young posts are shown (flagged) but never used: their metrics have not settled.
         rows, sims = self.retrieval.wide(view, vec, params, wide)
         young = (h.time[rows] > t - params.maturity_s) & (h.time[rows] <= t)
-        shown += [(int(r), float(s)) for r, s in zip(rows[young][:5], sims[young][:5], strict=True)
-                  if s >= params.similar_threshold]
+        shown += [
+            (int(r), float(s))
+            for r, s in zip(rows[young][:5], sims[young][:5], strict=True)
+            if s >= params.similar_threshold
+        ]
         shown.sort(key=lambda p: -p[1])
         return x.reshape(1, -1), weights, tz, shown
 
-    def _precedents(self, view: HistoryView, shown: list[tuple[int, float]],
-                    weights: dict[int, float], now: datetime,
-                    details: dict[int, dict[str, Any]]) -> list[dict[str, Any]]:
+    def _precedents(
+        self,
+        view: HistoryView,
+        shown: list[tuple[int, float]],
+        weights: dict[int, float],
+        now: datetime,
+        details: dict[int, dict[str, Any]],
+    ) -> list[dict[str, Any]]:
         pks = [int(view.history.pk[r]) for r, _ in shown]
-        found = {p.pk: p for p in precedents_for(
-            self.store, [(pk, s) for pk, (_, s) in zip(pks, shown, strict=True)],
-            maturity_hours=self.settings.maturity_hours, now=now, details=details)}
+        found = {
+            p.pk: p
+            for p in precedents_for(
+                self.store,
+                [(pk, s) for pk, (_, s) in zip(pks, shown, strict=True)],
+                maturity_hours=self.settings.maturity_hours,
+                now=now,
+                details=details,
+            )
+        }
         out = []
         for (row, _), pk in zip(shown, pks, strict=True):
             p = found.get(pk)

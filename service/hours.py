@@ -16,7 +16,7 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 from models.stacking import best_hour_confidence
 
 from .forecasting import CAUTION, Draft, Forecaster
-from .overlap import RULE, tied_with_best, ranks
+from .overlap import RULE, ranks, tied_with_best
 from .timeparse import UTC, now_utc, zone
 
 WEEK_DAYS = 7

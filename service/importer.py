@@ -53,7 +53,13 @@ from .timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order,
 
 RATE_COLUMN = "engagement_rate"
 CANONICAL_COLUMNS: tuple[str, ...] = (
-    "post_id", "account", "text", "posted_at", *METRIC_COLUMNS, "has_media", RATE_COLUMN,
+    "post_id",
+    "account",
+    "text",
+    "posted_at",
+    *METRIC_COLUMNS,
+    "has_media",
+    RATE_COLUMN,
     "draft_id",  # optional: the draft a post fulfils (service.track_record, issue 11)
 )
 REQUIRED_COLUMNS: tuple[str, ...] = ("post_id", "text", "posted_at")
@@ -81,9 +87,14 @@ class ImportOptions:
 
     def kwargs(self) -> dict[str, Any]:
         """As keyword arguments of :func:`import_csv` and :func:`preview_csv`."""
-        return {"account": self.account, "mapping": self.mapping, "timezone": self.timezone,
-                "time_format": self.time_format, "date_order": self.date_order,
-                "decimal_comma": self.decimal_comma}
+        return {
+            "account": self.account,
+            "mapping": self.mapping,
+            "timezone": self.timezone,
+            "time_format": self.time_format,
+            "date_order": self.date_order,
+            "decimal_comma": self.decimal_comma,
+        }
 
     def layout(self) -> TimeLayout:
         return TimeLayout(pattern=self.time_format, date_order=self.date_order)
@@ -95,8 +106,11 @@ class ImportOptions:
         self.layout()
         bad = [k for k in self.mapping if k not in CANONICAL_COLUMNS]
         if bad:
-            raise InputError(f"{bad[0]!r} is not one of our columns ({', '.join(CANONICAL_COLUMNS)})",
-                             field="map", value=bad[0])
+            raise InputError(
+                f"{bad[0]!r} is not one of our columns ({', '.join(CANONICAL_COLUMNS)})",
+                field="map",
+                value=bad[0],
+            )
         return self
 
 
@@ -114,8 +128,13 @@ class RowProblem:
         return f"line {self.line}{col}: {self.reason}{fix}"
 
     def to_dict(self) -> dict[str, Any]:
-        return {"line": self.line, "column": self.column, "reason": self.reason,
-                "hint": self.hint, "post_id": self.post_id}
+        return {
+            "line": self.line,
+            "column": self.column,
+            "reason": self.reason,
+            "hint": self.hint,
+            "post_id": self.post_id,
+        }
 
 
 @dataclass(slots=True)
@@ -164,8 +183,7 @@ def parse_mapping(pairs: Sequence[str] | None) -> dict[str, str]:
             )
         if ours not in CANONICAL_COLUMNS:
             raise InputError(
-                f"mapping {pair!r}: {ours!r} is not one of our columns "
-                f"({', '.join(CANONICAL_COLUMNS)})",
+                f"mapping {pair!r}: {ours!r} is not one of our columns ({', '.join(CANONICAL_COLUMNS)})",
                 field="map",
                 value=pair,
             )
@@ -197,9 +215,7 @@ def check_encoding(path: Path) -> int:
                     hint="save it as UTF-8 CSV",
                 ) from None
             if "\x00" in text:
-                raise CSVFormatError(
-                    "the file contains NUL bytes: it is not a text CSV", where=str(path)
-                )
+                raise CSVFormatError("the file contains NUL bytes: it is not a text CSV", where=str(path))
             lines += text.count("\n")
             offset += len(chunk)
         decoder.decode(b"", final=True)
@@ -242,8 +258,7 @@ class _Rows:
             raise CSVFormatError(f"the header is not readable as CSV: {reason}", where=where)
         self.header = [h.strip() for h in first.fields]
         self.positions = self._resolve(self.header, options.mapping)
-        self.metric_positions = [(m, self.positions[m]) for m in METRIC_COLUMNS
-                                 if m in self.positions]
+        self.metric_positions = [(m, self.positions[m]) for m in METRIC_COLUMNS if m in self.positions]
 
     def _resolve(self, header: list[str], mapping: dict[str, str]) -> dict[str, int]:
         # One pass with a Counter and a dict: a list.count per column made
@@ -308,17 +323,23 @@ class _Rows:
                 self.abandoned = item
                 return
             if isinstance(item, BadRecord):
-                yield RowProblem(item.line, None, item.reason,
-                                 "check the quotes of this row: a quote inside a quoted field "
-                                 "is written twice (RFC 4180)" if "quote" in item.reason else None)
+                yield RowProblem(
+                    item.line,
+                    None,
+                    item.reason,
+                    "check the quotes of this row: a quote inside a quoted field is written twice (RFC 4180)"
+                    if "quote" in item.reason
+                    else None,
+                )
                 continue
             fields, start = item.fields, item.line
             if not fields or all(not f.strip() for f in fields):
                 continue  # blank line
             post_id = fields[id_at].strip() or None if len(fields) > id_at else None
             if len(fields) < width:
-                yield RowProblem(start, None, f"has {len(fields)} fields, expected at least {width}",
-                                 None, post_id)
+                yield RowProblem(
+                    start, None, f"has {len(fields)} fields, expected at least {width}", None, post_id
+                )
                 continue
             try:
                 yield self._row(fields, start)
@@ -342,11 +363,11 @@ class _Rows:
         if not normalise_text(text):
             raise _Reject("text", "is empty")
         try:
-            posted_at = self.times.read(self._get(fields, "posted_at") or "",
-                                        tz=self.zone_of(account))
+            posted_at = self.times.read(self._get(fields, "posted_at") or "", tz=self.zone_of(account))
         except TimeParseError as exc:
-            hint = exc.hint or ("check that this column holds the post's time"
-                                if "accepted range" in exc.message else None)
+            hint = exc.hint or (
+                "check that this column holds the post's time" if "accepted range" in exc.message else None
+            )
             raise _Reject("posted_at", exc.message, hint) from None
         readings: dict[str, Reading | None] = dict.fromkeys(METRIC_COLUMNS)
         for m, i in self.metric_positions:
@@ -374,9 +395,14 @@ class _Rows:
         if first != line:
             raise _Reject("post_id", f"{post_id!r} of {account} already appears on line {first}")
         return PostRow(
-            account=account, post_id=post_id, text=text, posted_at=posted_at,
+            account=account,
+            post_id=post_id,
+            text=text,
+            posted_at=posted_at,
             metrics={m: None if r is None else int(r.value) for m, r in readings.items()},
-            has_media=has_media, vector_key=self.embedder.key(text), line=line,
+            has_media=has_media,
+            vector_key=self.embedder.key(text),
+            line=line,
             approximate=frozenset(m for m, r in readings.items() if r is not None and r.approximate),
         )
 
@@ -433,12 +459,21 @@ EmbedFn = Callable[[list[str]], np.ndarray]
 
 
 def _options(
-    account: str | None, mapping: dict[str, str] | None, timezone: str | None,
-    time_format: str | None, date_order: DateOrder | None, decimal_comma: bool,
+    account: str | None,
+    mapping: dict[str, str] | None,
+    timezone: str | None,
+    time_format: str | None,
+    date_order: DateOrder | None,
+    decimal_comma: bool,
 ) -> ImportOptions:
-    return ImportOptions(mapping=dict(mapping or {}), account=account, timezone=timezone,
-                         time_format=time_format, date_order=date_order,
-                         decimal_comma=decimal_comma).check()
+    return ImportOptions(
+        mapping=dict(mapping or {}),
+        account=account,
+        timezone=timezone,
+        time_format=time_format,
+        date_order=date_order,
+        decimal_comma=decimal_comma,
+    ).check()
 
 
 @contextmanager
@@ -453,15 +488,18 @@ def _open_rows(
     zones = {a.handle: a.timezone for a in store.accounts()}
 
     def rows(handle: TextIO) -> _Rows:
-        return _Rows(handle, where=str(path), options=options, account_zones=zones,
-                     embedder=embedder)
+        return _Rows(handle, where=str(path), options=options, account_zones=zones, embedder=embedder)
 
     # utf-8-sig drops a byte-order mark; newline="" lets csv see quoted line breaks.
     if options.time_format is None and options.date_order is None:
         with path.open("r", encoding="utf-8-sig", newline="") as handle:
             r = rows(handle)
-            check_date_order(r.times, r.time_values(), where=str(path),
-                             column=options.mapping.get("posted_at", "posted_at"))
+            check_date_order(
+                r.times,
+                r.time_values(),
+                where=str(path),
+                column=options.mapping.get("posted_at", "posted_at"),
+            )
     with path.open("r", encoding="utf-8-sig", newline="") as handle:
         yield rows(handle), total_lines
 
@@ -470,8 +508,7 @@ def _finish(summary: ImportSummary, rows: _Rows) -> None:
     if rows.abandoned is not None:
         a = rows.abandoned
         summary.skipped_lines = a.lines_left
-        summary.stopped = (f"stopped reading at line {a.line}: {a.reason}; "
-                           f"{a.lines_left} lines were not read")
+        summary.stopped = f"stopped reading at line {a.line}: {a.reason}; {a.lines_left} lines were not read"
 
 
 def import_csv(
@@ -550,7 +587,7 @@ class PreviewRow:
     account: str
     post_id: str
     text: str
-    posted_at: str   # UTC, ISO 8601
+    posted_at: str  # UTC, ISO 8601
     local_time: str  # in the zone the time was read in, ISO 8601 with its offset
     zone: str
     metrics: dict[str, int | None]
@@ -576,8 +613,9 @@ class ImportPreview:
         seen: dict[tuple[str | None, str], dict[str, Any]] = {}
         for p in self.summary.problems:
             if p.hint:
-                entry = seen.setdefault((p.column, p.hint), {
-                    "column": p.column, "hint": p.hint, "rows": 0, "first_line": p.line})
+                entry = seen.setdefault(
+                    (p.column, p.hint), {"column": p.column, "hint": p.hint, "rows": 0, "first_line": p.line}
+                )
                 entry["rows"] += 1
         return list(seen.values())
 
@@ -623,9 +661,11 @@ def preview_csv(
     """
     options = _options(account, mapping, timezone, time_format, date_order, decimal_comma)
     with _open_rows(Path(path), options, store, embedder) as (reader, _):
-        preview = ImportPreview(columns=_column_uses(reader), unused=[
-            h for i, h in enumerate(reader.header) if i not in set(reader.positions.values())],
-            time_layout=options.layout().describe())
+        preview = ImportPreview(
+            columns=_column_uses(reader),
+            unused=[h for i, h in enumerate(reader.header) if i not in set(reader.positions.values())],
+            time_layout=options.layout().describe(),
+        )
         s = preview.summary
         for item in reader:
             if isinstance(item, RowProblem):
@@ -636,12 +676,20 @@ def preview_csv(
             preview.approximate += bool(item.approximate)
             if len(preview.rows) < rows:
                 tz = reader.zone_of(item.account)
-                preview.rows.append(PreviewRow(
-                    line=item.line, account=item.account, post_id=item.post_id,
-                    text=item.text, posted_at=item.posted_at.astimezone(UTC).isoformat(),
-                    local_time=item.posted_at.astimezone(zone(tz)).isoformat(), zone=tz,
-                    metrics=item.metrics, approximate=sorted(item.approximate),
-                    has_media=item.has_media))
+                preview.rows.append(
+                    PreviewRow(
+                        line=item.line,
+                        account=item.account,
+                        post_id=item.post_id,
+                        text=item.text,
+                        posted_at=item.posted_at.astimezone(UTC).isoformat(),
+                        local_time=item.posted_at.astimezone(zone(tz)).isoformat(),
+                        zone=tz,
+                        metrics=item.metrics,
+                        approximate=sorted(item.approximate),
+                        has_media=item.has_media,
+                    )
+                )
         _finish(s, reader)
     return preview
 
@@ -657,7 +705,7 @@ def _column_uses(rows: _Rows) -> list[ColumnUse]:
         "posted_at": f"time: {o.layout().describe()}; {zone_text}",
         "has_media": "true or false",
         RATE_COLUMN: "rate (4.5% or 0.045), checked against engagements / impressions",
-        **{m: number + " (1,234, 1.2K marked approximate)" for m in METRIC_COLUMNS},
+        **dict.fromkeys(METRIC_COLUMNS, number + " (1,234, 1.2K marked approximate)"),
     }
     out = []
     for col in CANONICAL_COLUMNS:

@@ -45,8 +45,7 @@ class WriteLock:
         self._what = ""
         # thread_local=False: this object is the one holder in this process,
         # handed from thread to thread by the thread lock above.
-        self._file = filelock.FileLock(str(self.path), thread_local=False,
-                                       preserve_lock_file=True)
+        self._file = filelock.FileLock(str(self.path), thread_local=False, preserve_lock_file=True)
 
     @contextmanager
     def hold(self, what: str) -> Iterator[None]:
@@ -66,8 +65,7 @@ class WriteLock:
             try:
                 self._file.acquire(timeout=max(deadline - time.monotonic(), 0))
             except filelock.Timeout:
-                raise self._busy(what, "another sounding process is changing this data "
-                                       "directory") from None
+                raise self._busy(what, "another sounding process is changing this data directory") from None
             self._owner, self._depth, self._what = me, 1, what
             try:
                 yield
@@ -79,7 +77,6 @@ class WriteLock:
 
     def _busy(self, what: str, why: str) -> Busy:
         return Busy(
-            f"cannot start {what}: {why}, and it did not finish within "
-            f"{self.wait_seconds:g} s",
+            f"cannot start {what}: {why}, and it did not finish within {self.wait_seconds:g} s",
             hint="try again when it has finished (SOUNDING_WRITE_WAIT_SECONDS sets the wait)",
         )

@@ -51,7 +51,10 @@ def check_name(name: str) -> str:
     if not _NAME.match(name) or name.endswith(".toml"):
         raise InputError(
             f"mapping name {name!r} must be letters, digits, '.', '_' or '-' (up to 64), "
-            "starting with a letter or digit", field="name", value=name)
+            "starting with a letter or digit",
+            field="name",
+            value=name,
+        )
     return name
 
 
@@ -60,9 +63,15 @@ def to_toml(options: ImportOptions) -> str:
     if options.account:
         data["account"] = options.account
     data["columns"] = dict(options.mapping)
-    times = {k: v for k, v in (("format", options.time_format),
-                               ("date_order", options.date_order),
-                               ("timezone", options.timezone)) if v}
+    times = {
+        k: v
+        for k, v in (
+            ("format", options.time_format),
+            ("date_order", options.date_order),
+            ("timezone", options.timezone),
+        )
+        if v
+    }
     if times:
         data["times"] = times
     data["numbers"] = {"decimal_comma": options.decimal_comma}
@@ -81,17 +90,24 @@ def from_toml(text: str, *, where: str) -> ImportOptions:
     unknown |= {f"times.{k}" for k in set(times) - _TIME_KEYS}
     unknown |= {f"numbers.{k}" for k in set(numbers) - _NUMBER_KEYS}
     if unknown:
-        raise InputError(f"unknown keys in the mapping file: {', '.join(sorted(unknown))}",
-                         where=where)
-    values = [data.get("account"), times.get("format"), times.get("date_order"),
-              times.get("timezone"), *columns.values()]
+        raise InputError(f"unknown keys in the mapping file: {', '.join(sorted(unknown))}", where=where)
+    values = [
+        data.get("account"),
+        times.get("format"),
+        times.get("date_order"),
+        times.get("timezone"),
+        *columns.values(),
+    ]
     if not all(v is None or isinstance(v, str) for v in values) or not isinstance(
-            numbers.get("decimal_comma", False), bool):
-        raise InputError("mapping values must be strings (decimal_comma true or false)",
-                         where=where)
+        numbers.get("decimal_comma", False), bool
+    ):
+        raise InputError("mapping values must be strings (decimal_comma true or false)", where=where)
     return ImportOptions(
-        mapping=dict(columns), account=data.get("account"), timezone=times.get("timezone"),
-        time_format=times.get("format"), date_order=times.get("date_order"),
+        mapping=dict(columns),
+        account=data.get("account"),
+        timezone=times.get("timezone"),
+        time_format=times.get("format"),
+        date_order=times.get("date_order"),
         decimal_comma=numbers.get("decimal_comma", False),
     ).check()
 
@@ -103,8 +119,12 @@ def save_mapping(home: Path, name: str, options: ImportOptions, *, replace: bool
     folder = mappings_dir(home)
     path = folder / f"{name}.toml"
     if path.exists() and not replace:
-        raise InputError(f"a mapping named {name!r} already exists", field="name", value=name,
-                         hint="give --replace to overwrite it")
+        raise InputError(
+            f"a mapping named {name!r} already exists",
+            field="name",
+            value=name,
+            hint="give --replace to overwrite it",
+        )
     folder.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".toml", dir=folder)
     try:
@@ -123,9 +143,14 @@ def load_mapping(home: Path, name: str) -> ImportOptions:
     path = mappings_dir(home) / f"{name}.toml"
     if not path.is_file():
         known = list_mappings(home)
-        raise NotFound(f"no saved mapping {name!r}", field="mapping", value=name,
-                       hint=f"saved: {', '.join(known)}" if known
-                       else "save one with `sounding mapping save NAME --map ...`")
+        raise NotFound(
+            f"no saved mapping {name!r}",
+            field="mapping",
+            value=name,
+            hint=f"saved: {', '.join(known)}"
+            if known
+            else "save one with `sounding mapping save NAME --map ...`",
+        )
     return from_toml(path.read_text(encoding="utf-8"), where=f"mapping {name}")
 
 

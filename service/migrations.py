@@ -147,10 +147,12 @@ def _upgrade_once(engine: Engine) -> int:
         Base.metadata.create_all(conn)
         if found is None or found < SCHEMA_VERSION:
             now = to_naive_utc(now_utc())
-            insert_missing(conn, _VERSION_T,
-                           {"id": 1, "version": SCHEMA_VERSION, "migrated_at": now})
-            conn.execute(update(SchemaVersion).where(SchemaVersion.id == 1)
-                         .values(version=SCHEMA_VERSION, migrated_at=now))
+            insert_missing(conn, _VERSION_T, {"id": 1, "version": SCHEMA_VERSION, "migrated_at": now})
+            conn.execute(
+                update(SchemaVersion)
+                .where(SchemaVersion.id == 1)
+                .values(version=SCHEMA_VERSION, migrated_at=now)
+            )
         insert_missing(conn, _STAMP_T, {"id": 1, "counter": 0})
         return SCHEMA_VERSION if found is None else found
 
@@ -163,6 +165,10 @@ def insert_missing(conn: Connection, table: Table, values: dict[str, Any]) -> No
         conn.execute(postgresql.insert(table).values(**values).on_conflict_do_nothing())
     elif name == "sqlite":
         conn.execute(sqlite.insert(table).values(**values).on_conflict_do_nothing())
-    elif conn.execute(select(table).filter_by(**{c.key: values[c.key] for c in
-                                                 table.primary_key.columns})).first() is None:
+    elif (
+        conn.execute(
+            select(table).filter_by(**{c.key: values[c.key] for c in table.primary_key.columns})
+        ).first()
+        is None
+    ):
         conn.execute(insert(table).values(**values))

@@ -56,8 +56,9 @@ class Reading:
 
 
 def _grammar(*, decimal_comma: bool) -> re.Pattern[str]:
-    point, group = (",", r"[.'_ \u00a0\u202f\u2009]") if decimal_comma else (
-        r"\.", r"[,'_ \u00a0\u202f\u2009]")
+    point, group = (
+        (",", r"[.'_ \u00a0\u202f\u2009]") if decimal_comma else (r"\.", r"[,'_ \u00a0\u202f\u2009]")
+    )
     return re.compile(
         rf"^(?P<sign>[+-]?)(?P<int>\d{{1,3}}(?:(?P<sep>{group})\d{{3}})?(?:(?P=sep)\d{{3}})*|\d+)"
         rf"(?:{point}(?P<frac>\d+))?(?:[eE](?P<exp>[+-]?\d+))?$"
@@ -96,8 +97,12 @@ def read_number(raw: str, *, decimal_comma: bool = False, allow_suffix: bool = T
     # The last written digit's place: 1.2K is known to the hundred.
     place = Decimal(1).scaleb(-len(frac) + int(g["exp"] or 0)) * scale
     approximate = scale > 1 and place > 1
-    return Reading(value=value * scale, half_width=place / 2 if approximate else Decimal(0),
-                   approximate=approximate, place=place / scale)
+    return Reading(
+        value=value * scale,
+        half_width=place / 2 if approximate else Decimal(0),
+        approximate=approximate,
+        place=place / scale,
+    )
 
 
 def read_count(raw: str, *, decimal_comma: bool = False) -> Reading:
@@ -105,12 +110,13 @@ def read_count(raw: str, *, decimal_comma: bool = False) -> Reading:
     plain = raw.strip()
     if plain.isascii() and plain.isdigit():  # the common case, without the grammar
         if len(plain) > 15 and int(plain) > MAX_COUNT:
-            raise NumberError(
-                f"{raw!r} is above {MAX_COUNT:,} (2^53), the largest count stored exactly")
+            raise NumberError(f"{raw!r} is above {MAX_COUNT:,} (2^53), the largest count stored exactly")
         return Reading(value=Decimal(int(plain)), half_width=_ZERO, approximate=False)
     if plain.endswith("%"):
-        raise NumberError(f"{raw!r} is a percentage, not a count",
-                          hint="map the rate to engagement_rate, counts to count columns")
+        raise NumberError(
+            f"{raw!r} is a percentage, not a count",
+            hint="map the rate to engagement_rate, counts to count columns",
+        )
     r = read_number(raw, decimal_comma=decimal_comma)
     if r.value < 0:
         raise NumberError(f"{raw!r} is negative")
@@ -123,10 +129,8 @@ def read_count(raw: str, *, decimal_comma: bool = False) -> Reading:
             raise NumberError(f"{raw!r} is not a whole number", hint=hint)
         r = Reading(value=whole, half_width=r.half_width, approximate=True)
     if r.value > MAX_COUNT:
-        raise NumberError(
-            f"{raw!r} is above {MAX_COUNT:,} (2^53), the largest count stored exactly")
-    return Reading(value=r.value.to_integral_value(), half_width=r.half_width,
-                   approximate=r.approximate)
+        raise NumberError(f"{raw!r} is above {MAX_COUNT:,} (2^53), the largest count stored exactly")
+    return Reading(value=r.value.to_integral_value(), half_width=r.half_width, approximate=r.approximate)
 
 
 def read_rate(raw: str, *, decimal_comma: bool = False) -> Reading:
@@ -143,5 +147,4 @@ def read_rate(raw: str, *, decimal_comma: bool = False) -> Reading:
     if r.value < 0:
         raise NumberError(f"{raw!r} is negative")
     div = Decimal(100) if percent else Decimal(1)
-    return Reading(value=r.value / div, half_width=r.place / 2 / div, approximate=False,
-                   place=r.place / div)
+    return Reading(value=r.value / div, half_width=r.place / 2 / div, approximate=False, place=r.place / div)

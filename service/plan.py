@@ -123,8 +123,13 @@ def _refuse_duplicates(rows: list[PlanRow], path: Path) -> None:
 
 
 def forecast_plan(
-    ws: Workspace, src: Path, dest: Path, *, metric: str = DEFAULT_METRIC,
-    coverage: float = DEFAULT_COVERAGE, record: bool = True,
+    ws: Workspace,
+    src: Path,
+    dest: Path,
+    *,
+    metric: str = DEFAULT_METRIC,
+    coverage: float = DEFAULT_COVERAGE,
+    record: bool = True,
 ) -> PlanCounts:
     """Forecast every row of ``src`` into ``dest``."""
     ws.forecaster.model(metric)  # no model, or an unknown metric, fails the whole file
@@ -141,8 +146,7 @@ def forecast_plan(
         # One draft spoiled the batch: forecast them one by one to isolate it.
         for i, d in zip(todo, drafts, strict=True):
             try:
-                results[i] = give(ws, [d], metric=metric, coverage=coverage, record=record,
-                                  source="plan")[0]
+                results[i] = give(ws, [d], metric=metric, coverage=coverage, record=record, source="plan")[0]
             except SoundingError as one:
                 problems[i] = one.message
     Path(dest).parent.mkdir(parents=True, exist_ok=True)

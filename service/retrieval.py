@@ -163,9 +163,13 @@ class Retriever:
     # Training rows ----------------------------------------------------------
 
     @staticmethod
-    def training_matrix(view: HistoryView, params: F.FeatureParams, *,
-                        rows: np.ndarray | None = None,
-                        approximate_above: int | None = None) -> np.ndarray:
+    def training_matrix(
+        view: HistoryView,
+        params: F.FeatureParams,
+        *,
+        rows: np.ndarray | None = None,
+        approximate_above: int | None = None,
+    ) -> np.ndarray:
         """Leak-free feature rows of the view's posts (all, or ``rows``; needs its
         vectors): each post's neighbours by the same eligibility rule as a
         draft's, from an approximate index past ``approximate_above`` posts."""

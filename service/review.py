@@ -28,8 +28,8 @@ __all__ = [
     "compare_variants",
     "day_slots",
     "heavy_overlap",
-    "tied_with_best",
     "near_repeats",
     "near_repeats_many",
     "parse_day",
+    "tied_with_best",
 ]

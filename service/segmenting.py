@@ -23,6 +23,7 @@ of the hours.
 from __future__ import annotations
 
 import math
+import typing
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from datetime import datetime, timedelta
@@ -129,25 +130,32 @@ def parse_topics(raw: Sequence[str]) -> list[Topic]:
             raise InputError(f"topic {i + 1} is not text", field=f"topics.{i}")
         parts = [normalise_text(p) for p in text.split(PHRASE_SEPARATOR)]
         if not any(parts):
-            raise InputError(f"topic {i + 1} is an empty phrase", field=f"topics.{i}",
-                             hint="give a few words such as 'flowers in bloom'")
+            raise InputError(
+                f"topic {i + 1} is an empty phrase",
+                field=f"topics.{i}",
+                hint="give a few words such as 'flowers in bloom'",
+            )
         if not all(parts):
             raise InputError(
-                f"topic {i + 1} ({text.strip()!r}) has an empty alternative around "
-                f"'{PHRASE_SEPARATOR}'", field=f"topics.{i}")
+                f"topic {i + 1} ({text.strip()!r}) has an empty alternative around '{PHRASE_SEPARATOR}'",
+                field=f"topics.{i}",
+            )
         for p in parts:
             if len(p) > MAX_PHRASE_CHARS:
                 raise InputError(
                     f"topic {i + 1} has a phrase of {len(p)} characters; a topic phrase is "
-                    f"short (at most {MAX_PHRASE_CHARS})", field=f"topics.{i}")
+                    f"short (at most {MAX_PHRASE_CHARS})",
+                    field=f"topics.{i}",
+                )
         name = f" {PHRASE_SEPARATOR} ".join(parts)
         key = name.casefold()
         if key == OTHER:
-            raise InputError(f"{OTHER!r} is the name of the posts no topic catches; "
-                             "choose another phrase", field=f"topics.{i}")
+            raise InputError(
+                f"{OTHER!r} is the name of the posts no topic catches; choose another phrase",
+                field=f"topics.{i}",
+            )
         if key in seen:
-            raise InputError(f"topic {i + 1} ({name!r}) repeats topic {seen[key] + 1}",
-                             field=f"topics.{i}")
+            raise InputError(f"topic {i + 1} ({name!r}) repeats topic {seen[key] + 1}", field=f"topics.{i}")
         seen[key] = i
         topics.append(Topic(name, tuple(parts)))
     return topics
@@ -159,8 +167,10 @@ def parse_edges(text: str, what: str = "--hour-edges") -> list[int]:
     try:
         return [int(p) for p in parts]
     except ValueError:
-        raise InputError(f"{what} must be whole numbers separated by commas, such as "
-                         f"0,6,9,12,15,18,21,24; got {text!r}", field=what) from None
+        raise InputError(
+            f"{what} must be whole numbers separated by commas, such as 0,6,9,12,15,18,21,24; got {text!r}",
+            field=what,
+        ) from None
 
 
 def _check_hour_edges(edges: Sequence[int]) -> tuple[int, ...]:
@@ -168,9 +178,11 @@ def _check_hour_edges(edges: Sequence[int]) -> tuple[int, ...]:
         hour_labels(edges)
     except InputError as exc:
         shown = ",".join(str(e) for e in edges)
-        raise InputError(f"bad hour edges {shown or '(none)'}: {exc.message}",
-                         field="hour_edges",
-                         hint="for example 0,6,9,12,15,18,21,24") from None
+        raise InputError(
+            f"bad hour edges {shown or '(none)'}: {exc.message}",
+            field="hour_edges",
+            hint="for example 0,6,9,12,15,18,21,24",
+        ) from None
     return tuple(int(e) for e in edges)
 
 
@@ -179,8 +191,9 @@ def _check_length_edges(edges: Sequence[int]) -> tuple[int, ...]:
         length_labels(edges)
     except InputError as exc:
         shown = ",".join(str(e) for e in edges)
-        raise InputError(f"bad length edges {shown or '(none)'}: {exc.message}",
-                         field="length_edges") from None
+        raise InputError(
+            f"bad length edges {shown or '(none)'}: {exc.message}", field="length_edges"
+        ) from None
     return tuple(int(e) for e in edges)
 
 
@@ -188,23 +201,27 @@ def _check(req: SegmentRequest) -> list[Topic]:
     """Every input check, before the store is read."""
     topics = parse_topics(req.topics)
     if req.by is not None and req.by not in BY_CHOICES:
-        raise InputError(f"cannot split by {req.by!r}; choose one of {', '.join(BY_CHOICES)}",
-                         field="by", value=req.by)
+        raise InputError(
+            f"cannot split by {req.by!r}; choose one of {', '.join(BY_CHOICES)}", field="by", value=req.by
+        )
     if not topics and req.by is None:
-        raise InputError("nothing to split: give topic phrases, a split (by), or both",
-                         field="topics",
-                         hint="e.g. --topic 'flowers in bloom' --topic 'shop offers' or --by hour")
+        raise InputError(
+            "nothing to split: give topic phrases, a split (by), or both",
+            field="topics",
+            hint="e.g. --topic 'flowers in bloom' --topic 'shop offers' or --by hour",
+        )
     check_target(req.metric)
     if req.mode not in MODES:
-        raise InputError(f"unknown mode {req.mode!r}; choose one of {', '.join(MODES)}",
-                         field="mode", value=req.mode)
+        raise InputError(
+            f"unknown mode {req.mode!r}; choose one of {', '.join(MODES)}", field="mode", value=req.mode
+        )
     if not (isinstance(req.threshold, (int, float)) and -1.0 <= req.threshold <= 1.0):
-        raise InputError("threshold is a cosine similarity and must lie in -1..1",
-                         field="threshold", value=req.threshold)
+        raise InputError(
+            "threshold is a cosine similarity and must lie in -1..1", field="threshold", value=req.threshold
+        )
     if isinstance(req.k, bool) or not isinstance(req.k, int) or req.k < 1:
         raise InputError("k must be a whole number of at least 1", field="k", value=req.k)
-    if isinstance(req.examples, bool) or not isinstance(req.examples, int) \
-            or not 0 <= req.examples <= 20:
+    if isinstance(req.examples, bool) or not isinstance(req.examples, int) or not 0 <= req.examples <= 20:
         raise InputError("examples must be a whole number from 0 to 20", field="examples")
     if req.min_n < 1:
         raise InputError("min_n must be at least 1", field="min_n", value=req.min_n)
@@ -229,9 +246,14 @@ class Example:
     value: float
 
     def to_dict(self) -> dict[str, Any]:
-        return {"post_id": self.post_id, "account": self.account,
-                "posted_at": self.posted_at.isoformat(), "text": self.text,
-                "similarity": round(self.similarity, 4), "value": _json_num(self.value)}
+        return {
+            "post_id": self.post_id,
+            "account": self.account,
+            "posted_at": self.posted_at.isoformat(),
+            "text": self.text,
+            "similarity": round(self.similarity, 4),
+            "value": _json_num(self.value),
+        }
 
 
 @dataclass(slots=True)
@@ -277,18 +299,24 @@ class SegmentResult:
             if s.by == by:
                 return s
         raise InputError(
-            f"there is no {by!r} split here; this answer has "
-            f"{', '.join(s.by for s in self.splits)}", field="plot", value=by)
+            f"there is no {by!r} split here; this answer has {', '.join(s.by for s in self.splits)}",
+            field="plot",
+            value=by,
+        )
 
     def to_dict(self) -> dict[str, Any]:
         tw = None
         if self.two_way is not None and self.two_way_axes is not None:
-            tw = {"row_by": self.two_way_axes[0], "col_by": self.two_way_axes[1],
-                  **self.two_way.to_dict()}
+            tw = {"row_by": self.two_way_axes[0], "col_by": self.two_way_axes[1], **self.two_way.to_dict()}
         return {
-            "metric": self.metric, "account": self.account, "n_posts": self.n_posts,
-            "left_out": dict(self.left_out), "splits": [s.to_dict() for s in self.splits],
-            "two_way": tw, "warnings": list(self.warnings), "note": NOTE,
+            "metric": self.metric,
+            "account": self.account,
+            "n_posts": self.n_posts,
+            "left_out": dict(self.left_out),
+            "splits": [s.to_dict() for s in self.splits],
+            "two_way": tw,
+            "warnings": list(self.warnings),
+            "note": NOTE,
         }
 
 
@@ -311,8 +339,7 @@ def fmt_p(p: float | None) -> str:
     return "< 0.001" if p < 0.001 else f"{p:.2g}"
 
 
-def summary_line(seg: SegmentStats, rest_median: float, *, metric: str, min_n: int,
-                 alpha: float) -> str:
+def summary_line(seg: SegmentStats, rest_median: float, *, metric: str, min_n: int, alpha: float) -> str:
     """One short line per segment: which way, by how much, how sure."""
     if seg.too_small:
         posts = "post" if seg.n == 1 else "posts"
@@ -346,7 +373,7 @@ class _Posts:
 def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dict[str, int]]:
     frame = ws.store.posts_frame(account=req.account)
     records = frame[list(METRIC_COLUMNS)].to_dict("records")
-    raw = [target_value(r, req.metric) for r in records]
+    raw = [target_value(typing.cast(dict[str, Any], r), req.metric) for r in records]
     values = np.array([np.nan if v is None else v for v in raw], dtype=np.float64)
     has_metric = np.isfinite(values)
     # Young posts are still gathering their metric; counting them would pull
@@ -358,11 +385,17 @@ def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dic
     n = int(keep.sum())
     if n < MIN_POSTS:
         where = f" of account {req.account}" if req.account else ""
-        young = (f" ({left_out['still_gathering']} more are younger than "
-                 f"{ws.settings.maturity_hours:g} h and left out)" if left_out["still_gathering"] else "")
+        young = (
+            f" ({left_out['still_gathering']} more are younger than "
+            f"{ws.settings.maturity_hours:g} h and left out)"
+            if left_out["still_gathering"]
+            else ""
+        )
         raise NotReady(
-            f"only {n} posts{where} have {req.metric}{young}; segments need at least "
-            f"{MIN_POSTS}", field="metric", hint="import more history")
+            f"only {n} posts{where} have {req.metric}{young}; segments need at least {MIN_POSTS}",
+            field="metric",
+            hint="import more history",
+        )
     kept = frame.loc[keep].reset_index(drop=True)
     return _Posts(kept, values[keep]), left_out
 
@@ -374,10 +407,16 @@ def _by_labels(posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray,
         hours, days = local_clock(f["posted_at"], f["timezone"])
         if by == "hour":
             edges = _check_hour_edges(req.hour_edges)
-            return (bucket_hours(hours, edges), hour_labels(edges),
-                    "local hour of posting (each account's own time zone)")
-        return (np.asarray([WEEKDAYS[d] for d in days], dtype=object), list(WEEKDAYS),
-                "local weekday of posting")
+            return (
+                bucket_hours(hours, edges),
+                hour_labels(edges),
+                "local hour of posting (each account's own time zone)",
+            )
+        return (
+            np.asarray([WEEKDAYS[d] for d in days], dtype=object),
+            list(WEEKDAYS),
+            "local weekday of posting",
+        )
     if by == "link":
         lab = np.where(f["has_link"].to_numpy(bool), _LINK_NAMES[1], _LINK_NAMES[0])
         return lab.astype(object), list(_LINK_NAMES), "link in the text"
@@ -398,9 +437,15 @@ def _by_labels(posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray,
 # Building the splits
 
 
-def _finish(by: str, title: str, report: SegmentReport, values: np.ndarray,
-            members: dict[str, np.ndarray], labels: np.ndarray | Mapping[str, np.ndarray],
-            req: SegmentRequest) -> Split:
+def _finish(
+    by: str,
+    title: str,
+    report: SegmentReport,
+    values: np.ndarray,
+    members: dict[str, np.ndarray],
+    labels: np.ndarray | Mapping[str, np.ndarray],
+    req: SegmentRequest,
+) -> Split:
     rest_medians: dict[str, float] = {}
     summaries: dict[str, str] = {}
     for seg in report.segments:
@@ -408,15 +453,26 @@ def _finish(by: str, title: str, report: SegmentReport, values: np.ndarray,
         mask[members[seg.name]] = False
         rest = float(np.median(values[mask])) if mask.any() else math.nan
         rest_medians[seg.name] = rest
-        summaries[seg.name] = summary_line(seg, rest, metric=req.metric, min_n=req.min_n,
-                                           alpha=req.alpha)
-    return Split(by=by, title=title, report=report, rest_medians=rest_medians,
-                 summaries=summaries, values=values, labels=labels)
+        summaries[seg.name] = summary_line(seg, rest, metric=req.metric, min_n=req.min_n, alpha=req.alpha)
+    return Split(
+        by=by,
+        title=title,
+        report=report,
+        rest_medians=rest_medians,
+        summaries=summaries,
+        values=values,
+        labels=labels,
+    )
 
 
 def _stats_kwargs(req: SegmentRequest) -> dict[str, Any]:
-    return {"min_n": req.min_n, "confidence": req.confidence, "n_resamples": req.n_resamples,
-            "seed": req.seed, "alpha": req.alpha}
+    return {
+        "min_n": req.min_n,
+        "confidence": req.confidence,
+        "n_resamples": req.n_resamples,
+        "seed": req.seed,
+        "alpha": req.alpha,
+    }
 
 
 def _by_split(posts: _Posts, by: str, req: SegmentRequest) -> tuple[Split, np.ndarray, list[str]]:
@@ -426,8 +482,10 @@ def _by_split(posts: _Posts, by: str, req: SegmentRequest) -> tuple[Split, np.nd
         only = present[0] if present else "none"
         raise InputError(
             f"every post falls in one {by} segment ({only!r}), so there is nothing to compare",
-            field="by", value=by,
-            hint="drop --account for a split by account" if by == "account" else None)
+            field="by",
+            value=by,
+            hint="drop --account for a split by account" if by == "account" else None,
+        )
     report = compare_segments(posts.values, labels, order=order, **_stats_kwargs(req))
     members = {name: np.flatnonzero(labels == name) for name in present}
     split = _finish(by, title, report, posts.values, members, labels, req)
@@ -439,7 +497,7 @@ def _topic_vectors(ws: DataDir, topics: list[Topic]) -> np.ndarray:
     vecs = ws.embedder.encode(phrases)  # one call: every phrase embedded once
     out, i = [], 0
     for t in topics:
-        block = vecs[i: i + len(t.phrases)]
+        block = vecs[i : i + len(t.phrases)]
         i += len(t.phrases)
         # The mean of unit vectors is shorter than 1; renormalise so dot
         # products stay cosines, as the post vectors' are.
@@ -453,13 +511,22 @@ def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[
         return []
     top = idx[np.argsort(-sims[idx], kind="stable")[:n]]
     f = posts.frame
-    return [Example(post_id=str(f["post_id"].iat[i]), account=str(f["account"].iat[i]),
-                    posted_at=f["posted_at"].iat[i].to_pydatetime(), text=str(f["text"].iat[i]),
-                    similarity=float(sims[i]), value=float(posts.values[i])) for i in top]
+    return [
+        Example(
+            post_id=str(f["post_id"].iat[i]),
+            account=str(f["account"].iat[i]),
+            posted_at=typing.cast(pd.Timestamp, f["posted_at"].iat[i]).to_pydatetime(),
+            text=str(f["text"].iat[i]),
+            similarity=float(sims[i]),
+            value=float(posts.values[i]),
+        )
+        for i in top
+    ]
 
 
-def _topic_split(ws: DataDir, posts: _Posts, topics: list[Topic], req: SegmentRequest,
-                 warnings: list[str]) -> tuple[Split, dict[str, np.ndarray]]:
+def _topic_split(
+    ws: DataDir, posts: _Posts, topics: list[Topic], req: SegmentRequest, warnings: list[str]
+) -> tuple[Split, dict[str, np.ndarray]]:
     """The topic split and its members (name -> post rows), which may
     overlap in top-k mode."""
     post_vecs = ws.store.vectors(list(posts.frame["vector_key"]))
@@ -478,26 +545,30 @@ def _topic_split(ws: DataDir, posts: _Posts, topics: list[Topic], req: SegmentRe
                 warnings.append(
                     f"topic {name!r} caught no posts at threshold {req.threshold:g}: no post is "
                     "closer to it than to another topic and above the threshold; try another "
-                    "phrase or a lower threshold")
+                    "phrase or a lower threshold"
+                )
         if (best < 0).any():
             members[OTHER] = np.flatnonzero(best < 0)
         if len(members) < 2:
             only = next(iter(members), OTHER)
             raise InputError(
-                f"every post fell in one topic segment ({only!r}), so there is nothing to "
-                f"compare", field="topics",
-                hint="add a topic, or raise the threshold" if only != OTHER
-                else "lower the threshold or try other phrases")
+                f"every post fell in one topic segment ({only!r}), so there is nothing to compare",
+                field="topics",
+                hint="add a topic, or raise the threshold"
+                if only != OTHER
+                else "lower the threshold or try other phrases",
+            )
         labels = np.asarray([names[b] if b >= 0 else OTHER for b in best], dtype=object)
-        report = compare_segments(posts.values, labels, order=[*names, OTHER],
-                                  **_stats_kwargs(req))
+        report = compare_segments(posts.values, labels, order=[*names, OTHER], **_stats_kwargs(req))
         title = f"topic (nearest phrase, similarity at least {req.threshold:g}; else {OTHER})"
         settings: dict[str, Any] = {"mode": "nearest", "threshold": req.threshold}
         plot_labels: np.ndarray | Mapping[str, np.ndarray] = labels
     else:
         if req.k >= n:
-            warnings.append(f"k = {req.k} is not below the {n} posts: every topic takes every "
-                            "post, so the topics cannot differ; use a smaller k")
+            warnings.append(
+                f"k = {req.k} is not below the {n} posts: every topic takes every "
+                "post, so the topics cannot differ; use a smaller k"
+            )
         groups = assign_top_k(post_vecs, topic_vecs, k=req.k)
         members = {name: np.sort(g) for name, g in zip(names, groups, strict=True)}
         caught = np.zeros(n, dtype=bool)
@@ -506,18 +577,22 @@ def _topic_split(ws: DataDir, posts: _Posts, topics: list[Topic], req: SegmentRe
         if (~caught).any():
             members[OTHER] = np.flatnonzero(~caught)
         if len(members) < 2:
-            raise InputError("one topic whose k nearest posts are every post leaves nothing "
-                             "to compare", field="k", hint="use a smaller k")
+            raise InputError(
+                "one topic whose k nearest posts are every post leaves nothing to compare",
+                field="k",
+                hint="use a smaller k",
+            )
         report = compare_groups(posts.values, members, **_stats_kwargs(req))
         title = f"topic (the {req.k} posts nearest each phrase; {OTHER}: posts in none)"
         settings = {"mode": "top-k", "k": req.k}
         plot_labels = members
         if len(topics) > 1:
-            warnings.append("in top-k mode a post may sit in several topics, so segments "
-                            "overlap and there is no Kruskal–Wallis test across them")
+            warnings.append(
+                "in top-k mode a post may sit in several topics, so segments "
+                "overlap and there is no Kruskal–Wallis test across them"
+            )
     split = _finish(TOPIC, title, report, posts.values, members, plot_labels, req)
-    split.settings = {**settings, "topics": [{"name": t.name, "phrases": list(t.phrases)}
-                                             for t in topics]}
+    split.settings = {**settings, "topics": [{"name": t.name, "phrases": list(t.phrases)} for t in topics]}
     for j, name in enumerate(names):
         if name in members:
             split.examples[name] = _examples(posts, members[name], sims[:, j], req.examples)
@@ -532,7 +607,8 @@ def _small_warnings(split: Split, min_n: int) -> list[str]:
     return [
         f"{what} {seg.name!r} has only {seg.n} post{'s' if seg.n != 1 else ''} (fewer than "
         f"{min_n}): too few to trust its median or its test"
-        for seg in split.report.segments if seg.too_small
+        for seg in split.report.segments
+        if seg.too_small
     ]
 
 
@@ -559,37 +635,50 @@ def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) ->
     if members is not None and by_labels is not None:
         # One row per (topic, post) pair, so top-k topics that share posts
         # each count them; in nearest mode this is one row per post.
-        rows = np.concatenate([np.full(idx.size, name, dtype=object)
-                               for name, idx in members.items()])
+        rows = np.concatenate([np.full(idx.size, name, dtype=object) for name, idx in members.items()])
         picks = np.concatenate(list(members.values()))
-        table = two_way(posts.values[picks], rows, by_labels[picks], min_n=req.min_n,
-                        row_order=list(members), col_order=by_order)
+        table = two_way(
+            posts.values[picks],
+            rows,
+            by_labels[picks],
+            min_n=req.min_n,
+            row_order=list(members),
+            col_order=by_order,
+        )
         small = int(table.too_small.sum())
         if small:
             warnings.append(
                 f"{small} of {table.n.size} cells of the topic x {req.by} table have fewer "
-                f"than {req.min_n} posts: read their medians as rough")
+                f"than {req.min_n} posts: read their medians as rough"
+            )
     if left_out["still_gathering"]:
-        warnings.append(f"{left_out['still_gathering']} posts younger than "
-                        f"{ws.settings.maturity_hours:g} h are left out: their {req.metric} "
-                        "is still growing")
+        warnings.append(
+            f"{left_out['still_gathering']} posts younger than "
+            f"{ws.settings.maturity_hours:g} h are left out: their {req.metric} "
+            "is still growing"
+        )
     return SegmentResult(
-        metric=req.metric, account=req.account, n_posts=int(posts.values.size),
-        left_out=left_out, splits=splits, two_way=table,
+        metric=req.metric,
+        account=req.account,
+        n_posts=int(posts.values.size),
+        left_out=left_out,
+        splits=splits,
+        two_way=table,
         two_way_axes=(TOPIC, req.by) if table is not None and req.by else None,
-        warnings=warnings)
+        warnings=warnings,
+    )
 
 
 def render(result: SegmentResult, *, by: str | None = None, fmt: str = "png") -> bytes:
     """The figure of one split (the first one unless ``by`` names another)."""
     fmt = fmt.lower()
     if fmt not in FORMATS:
-        raise InputError(f"figure format must be one of {', '.join(FORMATS)}", field="format",
-                         value=fmt)
+        raise InputError(f"figure format must be one of {', '.join(FORMATS)}", field="format", value=fmt)
     split = result.split(by) if by else result.splits[0]
     names = plot_names([seg.name for seg in split.report.segments])
-    report = replace(split.report, segments=[replace(seg, name=names[seg.name])
-                                             for seg in split.report.segments])
+    report = replace(
+        split.report, segments=[replace(seg, name=names[seg.name]) for seg in split.report.segments]
+    )
     labels: np.ndarray | dict[str, np.ndarray]
     if isinstance(split.labels, Mapping):
         labels = {names[k]: v for k, v in split.labels.items()}
@@ -615,7 +704,25 @@ def plot_names(names: Sequence[str], width: int = PLOT_NAME_CHARS) -> dict[str, 
     return out
 
 
-__all__ = ["BY_CHOICES", "DEFAULT_K", "DEFAULT_THRESHOLD", "MIN_POSTS", "MODES", "NOTE",
-           "SegmentRequest", "SegmentResult", "Split", "Example", "Topic", "TOPIC",
-           "fmt_p", "fmt_value", "parse_edges", "parse_topics", "plot_names", "render", "segment",
-           "summary_line"]
+__all__ = [
+    "BY_CHOICES",
+    "DEFAULT_K",
+    "DEFAULT_THRESHOLD",
+    "MIN_POSTS",
+    "MODES",
+    "NOTE",
+    "TOPIC",
+    "Example",
+    "SegmentRequest",
+    "SegmentResult",
+    "Split",
+    "Topic",
+    "fmt_p",
+    "fmt_value",
+    "parse_edges",
+    "parse_topics",
+    "plot_names",
+    "render",
+    "segment",
+    "summary_line",
+]

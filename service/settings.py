@@ -33,14 +33,13 @@ class Settings(BaseSettings):
         "data directory. Point every replica of a shared store at one directory.",
     )
     refresh_seconds: float = Field(
-        default=0.0, ge=0,
+        default=0.0,
+        ge=0,
         description="How often the service checks the store's change stamp and refreshes "
         "its index in the background; 0 (the default): only when a request comes. "
         "Replicas of a shared store set a few seconds.",
     )
-    token: SecretStr | None = Field(
-        default=None, description="Bearer token required for changes over HTTP."
-    )
+    token: SecretStr | None = Field(default=None, description="Bearer token required for changes over HTTP.")
 
     # Embedding
     embed_batch_size: int = 64
@@ -65,7 +64,8 @@ class Settings(BaseSettings):
     # Import
     import_batch_rows: int = Field(default=500, ge=1)
     cluster_batch_rows: int = Field(
-        default=20_000, ge=1,
+        default=20_000,
+        ge=1,
         description="Rows per batch when embedding on a Ray cluster (one Ray Data job each).",
     )
 
@@ -81,17 +81,23 @@ class Settings(BaseSettings):
     # millisecond at either size; below 50,000 posts the graph's build time (tens of
     # seconds) buys little, so the index stays exact there.
     index_approximate_above: int = Field(
-        default=50_000, ge=1,
-        description="From this many posts on, the search index is an HNSW graph, else exact.")
+        default=50_000,
+        ge=1,
+        description="From this many posts on, the search index is an HNSW graph, else exact.",
+    )
     # Training features from exact blocked products up to this many posts, from an
     # approximate time-ordered HNSW search past it (the products grow with the square).
     train_approximate_above: int = Field(
-        default=300_000, ge=1,
-        description="From this many posts on, training neighbours come from an HNSW search.")
+        default=300_000,
+        ge=1,
+        description="From this many posts on, training neighbours come from an HNSW search.",
+    )
     train_max_posts: int | None = Field(
-        default=None, ge=1,
+        default=None,
+        ge=1,
         description="Train on at most this many of the most recent settled posts "
-                    "(neighbours still come from the whole history); unset means all.")
+        "(neighbours still come from the whole history); unset means all.",
+    )
 
     # Near-repeat warnings (service.review.near_repeats). Chosen on the demo data
     # (3,000 posts, all-MiniLM-L6-v2 cosine): the 55 planted repeats sit at 0.947-0.996
@@ -99,8 +105,9 @@ class Settings(BaseSettings):
     # earlier post is at 0.91 (same account, 45 days) / 0.87 (teammates, 7 days) at the 99th
     # percentile and 0.948 / 0.942 at the 99.9th. 0.93 keeps every planted pair with a
     # margin of 0.017 and flags 14 of 2,945 ordinary posts (0.5%), mostly true look-alikes
-    # (the same event or finding in nearly the same words). 45 days covers the generator's same-account repeats (1-20
-    # days) and the plan's planted repeat (39 days before its planned time).
+    # (the same event or finding in nearly the same words). 45 days covers the generator's
+    # same-account repeats (1-20 days) and the plan's planted repeat (39 days before its
+    # planned time).
     repeat_similarity: float = Field(default=0.93, ge=-1, le=1)
     repeat_window_days: float = Field(default=45.0, gt=0)
     team_repeat_window_days: float = Field(default=7.0, gt=0)
@@ -111,13 +118,15 @@ class Settings(BaseSettings):
     max_upload_bytes: int = Field(default=50 * 1024 * 1024, ge=1)
     max_k: int = Field(default=100, ge=1)
     max_json_bytes: int = Field(
-        default=16 * 1024 * 1024, ge=1,
+        default=16 * 1024 * 1024,
+        ge=1,
         description="Largest JSON request body; refused (413) before it is parsed.",
     )
 
     # Writers and the HTTP service's defences (service.locking, service.api.guard)
     write_wait_seconds: float = Field(
-        default=300.0, ge=0,
+        default=300.0,
+        ge=0,
         description="How long an import, forget or training waits for another one to finish.",
     )
     allowed_hosts: list[str] = Field(
@@ -127,9 +136,11 @@ class Settings(BaseSettings):
     )
     keep_alive_seconds: int = Field(default=5, ge=1, description="Idle keep-alive timeout.")
     header_timeout_seconds: float = Field(
-        default=10.0, gt=0, description="Time a client has to send a request's headers.")
+        default=10.0, gt=0, description="Time a client has to send a request's headers."
+    )
     body_timeout_seconds: float = Field(
-        default=120.0, gt=0, description="Time a client has to send a request's body.")
+        default=120.0, gt=0, description="Time a client has to send a request's body."
+    )
 
     # Track record (issue 11; service.track_record) ---------------------------
     now: str | None = Field(

@@ -119,9 +119,7 @@ class Store:
         try:
             self.engine: Engine = create_engine(
                 url,
-                connect_args={"check_same_thread": False, "timeout": 30}
-                if url.startswith("sqlite")
-                else {},
+                connect_args={"check_same_thread": False, "timeout": 30} if url.startswith("sqlite") else {},
                 # A shared server may restart or drop idle connections.
                 pool_pre_ping=not url.startswith("sqlite"),
             )
@@ -159,8 +157,9 @@ class Store:
             s.flush()
             wrote = bool(s.info.get("wrote"))
             if wrote:
-                s.execute(update(ChangeStamp).where(ChangeStamp.id == 1)
-                          .values(counter=ChangeStamp.counter + 1))
+                s.execute(
+                    update(ChangeStamp).where(ChangeStamp.id == 1).values(counter=ChangeStamp.counter + 1)
+                )
             s.commit()
             if wrote:
                 self.own_writes += 1
@@ -250,9 +249,7 @@ class Store:
             uniq = list(dict.fromkeys(keys))
             for i in range(0, len(uniq), 900):
                 for k, dim, data in s.execute(
-                    select(Vector.key, Vector.dim, Vector.data).where(
-                        Vector.key.in_(uniq[i : i + 900])
-                    )
+                    select(Vector.key, Vector.dim, Vector.data).where(Vector.key.in_(uniq[i : i + 900]))
                 ):
                     out[k] = np.frombuffer(data, dtype=np.float32, count=dim)
         missing = [k for k in keys if k not in out]
@@ -307,13 +304,15 @@ class Store:
             have: set[str] = set()
             for i in range(0, len(keys), 900):  # SQLite's variable limit
                 have.update(s.scalars(select(Vector.key).where(Vector.key.in_(keys[i : i + 900]))))
-            for key, vec in vectors.items():
-                if key not in have:
+            for vkey, vec in vectors.items():
+                if vkey not in have:
                     v = np.ascontiguousarray(vec, dtype=np.float32)
-                    s.add(Vector(key=key, model_id=model_id, dim=int(v.shape[0]), data=v.tobytes()))
-                    have.add(key)
-            accounts = {a.handle: a for a in s.scalars(select(Account).where(
-                Account.handle.in_({r.account for r in rows})))}
+                    s.add(Vector(key=vkey, model_id=model_id, dim=int(v.shape[0]), data=v.tobytes()))
+                    have.add(vkey)
+            accounts = {
+                a.handle: a
+                for a in s.scalars(select(Account).where(Account.handle.in_({r.account for r in rows})))
+            }
             for handle in dict.fromkeys(r.account for r in rows):
                 if handle not in accounts:
                     accounts[handle] = Account(handle=handle, timezone="UTC", created_at=now)
@@ -324,14 +323,18 @@ class Store:
             acc_ids = [a.id for a in accounts.values()]
             pids = list(dict.fromkeys(r.post_id for r in rows))
             for i in range(0, len(pids), 900):
-                for post in s.scalars(select(Post).where(
-                        Post.account_id.in_(acc_ids), Post.post_id.in_(pids[i : i + 900]))):
-                    stored[(post.account_id, post.post_id)] = post
+                for got in s.scalars(
+                    select(Post).where(Post.account_id.in_(acc_ids), Post.post_id.in_(pids[i : i + 900]))
+                ):
+                    stored[(got.account_id, got.post_id)] = got
             by_pk = {post.id: k for k, post in stored.items()}
             pks = list(by_pk)
             for i in range(0, len(pks), 900):
-                newest = (select(func.max(Snapshot.id))
-                          .where(Snapshot.post_pk.in_(pks[i : i + 900])).group_by(Snapshot.post_pk))
+                newest = (
+                    select(func.max(Snapshot.id))
+                    .where(Snapshot.post_pk.in_(pks[i : i + 900]))
+                    .group_by(Snapshot.post_pk)
+                )
                 for snap in s.scalars(select(Snapshot).where(Snapshot.id.in_(newest))):
                     latest[by_pk[snap.post_pk]] = snap
             new_posts: list[Post] = []
@@ -339,8 +342,11 @@ class Store:
             rough: dict[int, tuple[Snapshot, frozenset[str]]] = {}
 
             def rough_of(snap: Snapshot | None) -> frozenset[str]:
-                return flags_of.get(snap.id, frozenset()) if snap is not None and snap.id else (
-                    rough[id(snap)][1] if snap is not None and id(snap) in rough else frozenset())
+                return (
+                    flags_of.get(snap.id, frozenset())
+                    if snap is not None and snap.id
+                    else (rough[id(snap)][1] if snap is not None and id(snap) in rough else frozenset())
+                )
 
             for r in rows:
                 key = (accounts[r.account].id, r.post_id)
@@ -348,9 +354,15 @@ class Store:
                 posted = to_naive_utc(r.posted_at)
                 if post is None:
                     post = Post(
-                        account_id=key[0], post_id=r.post_id, text=r.text,
-                        vector_key=r.vector_key, posted_at=posted, has_link=has_link(r.text),
-                        has_media=bool(r.has_media), imported_at=now, updated_at=now,
+                        account_id=key[0],
+                        post_id=r.post_id,
+                        text=r.text,
+                        vector_key=r.vector_key,
+                        posted_at=posted,
+                        has_link=has_link(r.text),
+                        has_media=bool(r.has_media),
+                        imported_at=now,
+                        updated_at=now,
                     )
                     snap = Snapshot(post=post, captured_at=now, **r.metrics)
                     s.add_all([post, snap])
@@ -380,8 +392,7 @@ class Store:
                 # Values carried over keep their flag; values given now bring theirs.
                 was = rough_of(last)
                 flags = frozenset(m for m in was if r.metrics.get(m) is None) | r.approximate
-                if (last is None or any(getattr(last, m) != merged[m] for m in METRIC_COLUMNS)
-                        or flags != was):
+                if last is None or any(getattr(last, m) != merged[m] for m in METRIC_COLUMNS) or flags != was:
                     latest[key] = Snapshot(post=post, captured_at=now, **merged)
                     s.add(latest[key])
                     rough[id(latest[key])] = (latest[key], flags)
@@ -392,8 +403,11 @@ class Store:
                 else:
                     res.unchanged += 1
             s.flush()
-            s.add_all(ApproximateValue(snapshot_id=snap.id, metric=m)
-                      for snap, flags in rough.values() for m in sorted(flags))
+            s.add_all(
+                ApproximateValue(snapshot_id=snap.id, metric=m)
+                for snap, flags in rough.values()
+                for m in sorted(flags)
+            )
             res.changed_pks.extend(post.id for post in new_posts)
         return res
 
@@ -403,8 +417,11 @@ class Store:
         ids = [snap.id for snap in snapshots]
         found: dict[int, set[str]] = {}
         for i in range(0, len(ids), 900):
-            for sid, metric in s.execute(select(ApproximateValue.snapshot_id, ApproximateValue.metric)
-                                         .where(ApproximateValue.snapshot_id.in_(ids[i : i + 900]))):
+            for sid, metric in s.execute(
+                select(ApproximateValue.snapshot_id, ApproximateValue.metric).where(
+                    ApproximateValue.snapshot_id.in_(ids[i : i + 900])
+                )
+            ):
                 found.setdefault(sid, set()).add(metric)
         return {k: frozenset(v) for k, v in found.items()}
 
@@ -414,8 +431,11 @@ class Store:
         out: dict[int, frozenset[str]] = {}
         with self.session() as s:
             for i in range(0, len(pks), 900):
-                newest = (select(func.max(Snapshot.id)).where(Snapshot.post_pk.in_(pks[i : i + 900]))
-                          .group_by(Snapshot.post_pk))
+                newest = (
+                    select(func.max(Snapshot.id))
+                    .where(Snapshot.post_pk.in_(pks[i : i + 900]))
+                    .group_by(Snapshot.post_pk)
+                )
                 snaps = list(s.scalars(select(Snapshot).where(Snapshot.id.in_(newest))))
                 flags = self._rough_lookup(s, snaps)
                 out.update({snap.post_pk: flags[snap.id] for snap in snaps if snap.id in flags})
@@ -430,15 +450,20 @@ class Store:
         has_link, has_media, vector_key and one column per metric.
         """
         latest = (
-            select(Snapshot.post_pk, func.max(Snapshot.id).label("sid"))
-            .group_by(Snapshot.post_pk)
-            .subquery()
+            select(Snapshot.post_pk, func.max(Snapshot.id).label("sid")).group_by(Snapshot.post_pk).subquery()
         )
         q = (
             select(
-                Post.id.label("pk"), Account.handle.label("account"), Account.timezone,
-                Post.post_id, Post.text, Post.posted_at, Post.has_link, Post.has_media,
-                Post.vector_key, *[getattr(Snapshot, m) for m in METRIC_COLUMNS],
+                Post.id.label("pk"),
+                Account.handle.label("account"),
+                Account.timezone,
+                Post.post_id,
+                Post.text,
+                Post.posted_at,
+                Post.has_link,
+                Post.has_media,
+                Post.vector_key,
+                *[getattr(Snapshot, m) for m in METRIC_COLUMNS],
             )
             .join(Account, Account.id == Post.account_id)
             .outerjoin(latest, latest.c.post_pk == Post.id)
@@ -450,8 +475,18 @@ class Store:
             q = q.where(Account.handle == account)
         with self.session() as s:
             rows = s.execute(q).all()
-        cols = ["pk", "account", "timezone", "post_id", "text", "posted_at", "has_link",
-                "has_media", "vector_key", *METRIC_COLUMNS]
+        cols = [
+            "pk",
+            "account",
+            "timezone",
+            "post_id",
+            "text",
+            "posted_at",
+            "has_link",
+            "has_media",
+            "vector_key",
+            *METRIC_COLUMNS,
+        ]
         df = pd.DataFrame(rows, columns=cols)
         df["posted_at"] = pd.to_datetime(df["posted_at"], utc=True)
         for m in METRIC_COLUMNS:
@@ -494,7 +529,10 @@ class Store:
         return out
 
     def pks_where(
-        self, *, account: str | None = None, since: datetime | None = None,
+        self,
+        *,
+        account: str | None = None,
+        since: datetime | None = None,
         until: datetime | None = None,
     ) -> np.ndarray:
         """Row ids of posts of one account and/or inside a date range."""
@@ -598,8 +636,8 @@ class Store:
             os.replace(tmp, dest)
         except (OSError, sqlite3.Error) as exc:
             raise StoreError(
-                f"the backup to {dest} failed ({getattr(exc, 'strerror', None) or exc}); "
-                "nothing was written", hint="check the free space and permissions there",
+                f"the backup to {dest} failed ({getattr(exc, 'strerror', None) or exc}); nothing was written",
+                hint="check the free space and permissions there",
             ) from None
         finally:
             tmp.unlink(missing_ok=True)

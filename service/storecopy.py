@@ -41,10 +41,11 @@ def copy_store(source: Store, dest: Store) -> dict[str, int]:
         if dest.backend == "postgresql":
             for table in tables:
                 pk = list(table.primary_key.columns)
-                if len(pk) == 1 and pk[0].autoincrement is not False and \
-                        pk[0].type.python_type is int:
+                if len(pk) == 1 and pk[0].autoincrement is not False and pk[0].type.python_type is int:
                     top = s.scalar(select(func.max(pk[0])))
                     if top is not None:
-                        s.execute(text("SELECT setval(pg_get_serial_sequence(:t, :c), :v)"),
-                                  {"t": table.name, "c": pk[0].name, "v": int(top)})
+                        s.execute(
+                            text("SELECT setval(pg_get_serial_sequence(:t, :c), :v)"),
+                            {"t": table.name, "c": pk[0].name, "v": int(top)},
+                        )
     return copied

@@ -52,9 +52,7 @@ class Post(Base):
     )
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    account_id: Mapped[int] = mapped_column(
-        ForeignKey("accounts.id", ondelete="CASCADE"), nullable=False
-    )
+    account_id: Mapped[int] = mapped_column(ForeignKey("accounts.id", ondelete="CASCADE"), nullable=False)
     post_id: Mapped[str] = mapped_column(String(200), nullable=False)
     text: Mapped[str] = mapped_column(Text, nullable=False)
     # Key of the text's vector in `vectors` (hash of model id + normalised text).
@@ -83,9 +81,7 @@ class Snapshot(Base):
     __table_args__ = (Index("ix_snapshots_post", "post_pk", "id"),)
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    post_pk: Mapped[int] = mapped_column(
-        ForeignKey("posts.id", ondelete="CASCADE"), nullable=False
-    )
+    post_pk: Mapped[int] = mapped_column(ForeignKey("posts.id", ondelete="CASCADE"), nullable=False)
     captured_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
     impressions: Mapped[int | None] = mapped_column(Integer)
     engagements: Mapped[int | None] = mapped_column(Integer)
@@ -105,9 +101,7 @@ class ApproximateValue(Base):
 
     __tablename__ = "approximate_values"
 
-    snapshot_id: Mapped[int] = mapped_column(
-        ForeignKey("snapshots.id", ondelete="CASCADE"), primary_key=True
-    )
+    snapshot_id: Mapped[int] = mapped_column(ForeignKey("snapshots.id", ondelete="CASCADE"), primary_key=True)
     metric: Mapped[str] = mapped_column(String(32), primary_key=True)
 
 
@@ -161,9 +155,7 @@ class ForecastGiven(Base):
     given_at: Mapped[datetime] = mapped_column(DateTime, nullable=False, index=True)
     source: Mapped[str] = mapped_column(String(16), nullable=False)  # check, plan, api
     draft_id: Mapped[str | None] = mapped_column(String(200))
-    account_id: Mapped[int] = mapped_column(
-        ForeignKey("accounts.id", ondelete="CASCADE"), nullable=False
-    )
+    account_id: Mapped[int] = mapped_column(ForeignKey("accounts.id", ondelete="CASCADE"), nullable=False)
     text: Mapped[str] = mapped_column(Text, nullable=False)
     text_hash: Mapped[str] = mapped_column(String(64), nullable=False)
     planned_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
@@ -191,9 +183,7 @@ class PostDraftLink(Base):
 
     __tablename__ = "post_draft_links"
 
-    post_pk: Mapped[int] = mapped_column(
-        ForeignKey("posts.id", ondelete="CASCADE"), primary_key=True
-    )
+    post_pk: Mapped[int] = mapped_column(ForeignKey("posts.id", ondelete="CASCADE"), primary_key=True)
     draft_id: Mapped[str] = mapped_column(String(200), nullable=False, index=True)
 
 

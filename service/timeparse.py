@@ -23,6 +23,7 @@ import os
 import re
 from collections.abc import Iterable
 from dataclasses import dataclass
+from datetime import UTC as UTC  # re-exported: the service modules take UTC from here
 from datetime import datetime, time, timedelta, timezone
 from decimal import Decimal, InvalidOperation
 from functools import lru_cache
@@ -30,8 +31,6 @@ from typing import Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from models.errors import CSVFormatError, InputError, TimeParseError
-
-UTC = timezone.utc
 
 #: The earliest time sounding accepts anywhere (import, requests, options).
 EARLIEST = datetime(1990, 1, 1, tzinfo=UTC)
@@ -46,8 +45,7 @@ def latest_time(now: datetime | None = None) -> datetime:
 
 
 def range_text(now: datetime | None = None) -> str:
-    return (f"{EARLIEST:%Y-%m-%d} to {latest_time(now):%Y-%m-%d} "
-            f"({YEARS_AHEAD} years from now)")
+    return f"{EARLIEST:%Y-%m-%d} to {latest_time(now):%Y-%m-%d} ({YEARS_AHEAD} years from now)"
 
 
 def check_range(dt: datetime, *, where: str | None = None, value: str | None = None) -> datetime:
@@ -55,7 +53,8 @@ def check_range(dt: datetime, *, where: str | None = None, value: str | None = N
     if not EARLIEST <= dt <= latest_time():
         raise TimeParseError(
             f"time {dt.isoformat()} is outside the accepted range, {range_text()}",
-            where=where, value=value or dt.isoformat(),
+            where=where,
+            value=value or dt.isoformat(),
         )
     return dt
 
@@ -75,9 +74,7 @@ def zone(name: str) -> ZoneInfo:
         ) from None
 
 
-def parse_time(
-    text: str, *, tz: str = "UTC", where: str | None = None, check: bool = True
-) -> datetime:
+def parse_time(text: str, *, tz: str = "UTC", where: str | None = None, check: bool = True) -> datetime:
     """Parse an ISO 8601 time; return an aware datetime in UTC, in the
     accepted range unless ``check`` is false."""
     dt = _parse_iso(text, tz=tz, where=where)
@@ -100,17 +97,13 @@ def _parse_iso(text: str, *, tz: str, where: str | None) -> datetime:
             hint="use ISO 8601, e.g. 2026-12-02T10:00:00+01:00",
         ) from None
     if len(raw) <= 10:
-        raise TimeParseError(
-            f"time {raw!r} has a date but no time of day", where=where, value=text
-        )
+        raise TimeParseError(f"time {raw!r} has a date but no time of day", where=where, value=text)
     try:
         if dt.tzinfo is not None:
             return dt.astimezone(UTC)
         return localize(dt, tz, where=where)
     except OverflowError:  # e.g. 0001-01-01T00:00+05:00 is before year 1 in UTC
-        raise TimeParseError(
-            f"time {raw!r} is out of range in UTC", where=where, value=text
-        ) from None
+        raise TimeParseError(f"time {raw!r} is out of range in UTC", where=where, value=text) from None
 
 
 def localize(naive: datetime, tz: str, *, where: str | None = None) -> datetime:
@@ -167,15 +160,35 @@ EPOCH_LAYOUTS: dict[str, int] = {"epoch": 1, "epoch_ms": 1000}
 DATE_LAYOUTS: dict[str | None, tuple[str, ...]] = {
     "day-first": ("%d/%m/%Y", "%d.%m.%Y", "%d-%m-%Y", "%d/%m/%y", "%d.%m.%y"),
     "month-first": ("%m/%d/%Y", "%m-%d-%Y", "%m.%d.%Y", "%m/%d/%y"),
-    None: ("%Y/%m/%d", "%Y.%m.%d", "%Y-%m-%d",
-           "%d %b %Y", "%d %B %Y", "%d-%b-%Y", "%d-%b-%y",
-           "%b %d %Y", "%B %d %Y", "%b %d, %Y", "%B %d, %Y",
-           "%a %d %b %Y", "%a, %d %b %Y", "%A %d %B %Y", "%A, %d %B %Y",
-           "%a %b %d %Y", "%a, %b %d, %Y", "%A, %B %d, %Y"),
+    None: (
+        "%Y/%m/%d",
+        "%Y.%m.%d",
+        "%Y-%m-%d",
+        "%d %b %Y",
+        "%d %B %Y",
+        "%d-%b-%Y",
+        "%d-%b-%y",
+        "%b %d %Y",
+        "%B %d %Y",
+        "%b %d, %Y",
+        "%B %d, %Y",
+        "%a %d %b %Y",
+        "%a, %d %b %Y",
+        "%A %d %B %Y",
+        "%A, %d %B %Y",
+        "%a %b %d %Y",
+        "%a, %b %d, %Y",
+        "%A, %B %d, %Y",
+    ),
 }
 #: Clock layouts (24-hour, or 12-hour with AM/PM).
 CLOCK_LAYOUTS: tuple[str, ...] = (
-    "%H:%M", "%H:%M:%S", "%H:%M:%S.%f", "%I:%M %p", "%I:%M:%S %p", "%I %p",
+    "%H:%M",
+    "%H:%M:%S",
+    "%H:%M:%S.%f",
+    "%I:%M %p",
+    "%I:%M:%S %p",
+    "%I %p",
 )
 
 # Splits "date<sep>clock[zone]" so the date and the clock are each matched
@@ -203,13 +216,18 @@ class TimeLayout:
 
     def __post_init__(self) -> None:
         if self.date_order is not None and self.date_order not in DATE_ORDERS:
-            raise InputError(f"date order {self.date_order!r} is not day-first or month-first",
-                             field="date_order", value=self.date_order)
+            raise InputError(
+                f"date order {self.date_order!r} is not day-first or month-first",
+                field="date_order",
+                value=self.date_order,
+            )
         if self.pattern is not None:
             if self.date_order is not None:
                 raise InputError(
-                    "give either a time format or a date order, not both: the format "
-                    "already fixes the order", field="time_format", value=self.pattern)
+                    "give either a time format or a date order, not both: the format already fixes the order",
+                    field="time_format",
+                    value=self.pattern,
+                )
             if self.pattern not in EPOCH_LAYOUTS:
                 _check_pattern(self.pattern)
 
@@ -229,15 +247,24 @@ def _check_pattern(pattern: str) -> None:
     try:
         back = datetime.strptime(ref.strftime(pattern), pattern)
     except ValueError as exc:
-        raise InputError(f"time format {pattern!r} is not a usable strptime pattern: {exc}",
-                         field="time_format", value=pattern,
-                         hint="e.g. '%d/%m/%Y %H:%M' for 03/11/2026 14:05") from None
+        raise InputError(
+            f"time format {pattern!r} is not a usable strptime pattern: {exc}",
+            field="time_format",
+            value=pattern,
+            hint="e.g. '%d/%m/%Y %H:%M' for 03/11/2026 14:05",
+        ) from None
     if (back.year, back.month, back.day) != (2026, 11, 3):
-        raise InputError(f"time format {pattern!r} does not hold a full date (day, month, year)",
-                         field="time_format", value=pattern)
+        raise InputError(
+            f"time format {pattern!r} does not hold a full date (day, month, year)",
+            field="time_format",
+            value=pattern,
+        )
     if (back.hour, back.minute) != (14, 5):
-        raise InputError(f"time format {pattern!r} has no time of day (hours and minutes)",
-                         field="time_format", value=pattern)
+        raise InputError(
+            f"time format {pattern!r} has no time of day (hours and minutes)",
+            field="time_format",
+            value=pattern,
+        )
 
 
 @dataclass(frozen=True, slots=True)
@@ -247,7 +274,7 @@ class DateReading:
     naive: datetime
     offset: timezone | None
     orders: frozenset[str]  # numeric orders it reads in; empty = not order-dependent
-    ambiguous: bool         # reads as two different dates
+    ambiguous: bool  # reads as two different dates
 
 
 class TimeReader:
@@ -268,15 +295,16 @@ class TimeReader:
             try:
                 parsed = datetime.strptime(raw, pattern)
             except ValueError:
-                raise TimeParseError(f"cannot read time {raw!r} with format {pattern!r}",
-                                     where=where, value=text) from None
+                raise TimeParseError(
+                    f"cannot read time {raw!r} with format {pattern!r}", where=where, value=text
+                ) from None
             dt = _to_utc(parsed, tz, raw=raw, where=where)
         else:
             dt = self._common(raw, tz=tz, where=where)
         return check_range(dt, where=where, value=raw)
 
     def _common(self, raw: str, *, tz: str, where: str | None) -> datetime:
-        if raw[:4].isdigit() and raw[4:5] == "-" or raw[:8].isdigit():
+        if (raw[:4].isdigit() and raw[4:5] == "-") or raw[:8].isdigit():
             try:
                 return _parse_iso(raw, tz=tz, where=where)  # ISO 8601 first: the canonical case
             except TimeParseError as exc:
@@ -285,20 +313,27 @@ class TimeReader:
         reading = self.reading(raw)
         if reading is None:
             raise TimeParseError(
-                f"cannot read time {raw!r}", where=where, value=raw,
+                f"cannot read time {raw!r}",
+                where=where,
+                value=raw,
                 hint="use ISO 8601 (2026-12-02T10:00:00+01:00) or give --time-format with a "
                 "strptime pattern, e.g. '%d/%m/%Y %H:%M'",
             )
         order = self.layout.date_order
         if reading.orders and order is not None and order not in reading.orders:
             raise TimeParseError(
-                f"{raw!r} cannot be read {order}, as asked; it reads only "
-                f"{next(iter(reading.orders))}", where=where, value=raw,
-                hint="check --day-first / --month-first")
+                f"{raw!r} cannot be read {order}, as asked; it reads only {next(iter(reading.orders))}",
+                where=where,
+                value=raw,
+                hint="check --day-first / --month-first",
+            )
         if reading.ambiguous and order is None:
             raise TimeParseError(
-                f"{raw!r} reads both day-first and month-first", where=where, value=raw,
-                hint="give --day-first or --month-first")
+                f"{raw!r} reads both day-first and month-first",
+                where=where,
+                value=raw,
+                hint="give --day-first or --month-first",
+            )
         naive = reading.naive
         if reading.ambiguous and order is not None:
             naive = self._read_in(raw, order)
@@ -333,8 +368,9 @@ class TimeReader:
             day = next(iter(found.values()))
             orders = frozenset(str(o) for o in found)
             ambiguous = len(set(found.values())) > 1
-        return DateReading(naive=datetime.combine(day.date(), clock), offset=offset,
-                           orders=orders, ambiguous=ambiguous)
+        return DateReading(
+            naive=datetime.combine(day.date(), clock), offset=offset, orders=orders, ambiguous=ambiguous
+        )
 
     def _read_in(self, raw: str, order: str) -> datetime:
         m = _SPLIT.match(raw)
@@ -382,8 +418,7 @@ def _epoch(raw: str, per_second: int, *, where: str | None) -> datetime:
         return datetime(1970, 1, 1, tzinfo=UTC) + timedelta(seconds=float(value / per_second))
     except (InvalidOperation, OverflowError, ValueError):
         unit = "seconds" if per_second == 1 else "milliseconds"
-        raise TimeParseError(f"{raw!r} is not a Unix time in {unit}", where=where,
-                             value=raw) from None
+        raise TimeParseError(f"{raw!r} is not a Unix time in {unit}", where=where, value=raw) from None
 
 
 def _to_utc(dt: datetime, tz: str, *, raw: str, where: str | None) -> datetime:
@@ -392,8 +427,7 @@ def _to_utc(dt: datetime, tz: str, *, raw: str, where: str | None) -> datetime:
             return dt.astimezone(UTC)
         return localize(dt, tz, where=where)
     except OverflowError:
-        raise TimeParseError(f"time {raw!r} is out of range in UTC", where=where,
-                             value=raw) from None
+        raise TimeParseError(f"time {raw!r} is out of range in UTC", where=where, value=raw) from None
 
 
 def check_date_order(
@@ -411,7 +445,7 @@ def check_date_order(
     seen: dict[str, tuple[int, str]] = {}
     for line, text in values:
         raw = text.strip()
-        if not raw or raw[:4].isdigit() and raw[4:5] == "-":
+        if not raw or (raw[:4].isdigit() and raw[4:5] == "-"):
             continue
         reading = reader.reading(raw)
         if reading is None:
@@ -420,7 +454,9 @@ def check_date_order(
             raise CSVFormatError(
                 f"the dates in column {column} can be read day-first or month-first: the "
                 f"first that reads both ways is {raw!r} on line {line}",
-                where=where, field=column, value=raw,
+                where=where,
+                field=column,
+                value=raw,
                 hint="give --day-first or --month-first; sounding never guesses",
             )
         for order in reading.orders:
@@ -429,7 +465,9 @@ def check_date_order(
         (l1, v1), (l2, v2) = seen["day-first"], seen["month-first"]
         raise CSVFormatError(
             f"column {column} mixes day-first dates ({v1!r}, line {l1}) and month-first "
-            f"dates ({v2!r}, line {l2})", where=where, field=column,
+            f"dates ({v2!r}, line {l2})",
+            where=where,
+            field=column,
             hint="give --day-first or --month-first; rows in the other order are then rejected",
         )
 
@@ -440,6 +478,7 @@ def _fixed_now(raw: str) -> datetime:
     # Not range-checked: the accepted range is itself measured from "now".
     dt = parse_time(raw, where="SOUNDING_NOW", check=False)
     if not (raw.upper().endswith("Z") or re.search(r"[+-]\d\d:\d\d$", raw)):
-        raise TimeParseError(f"SOUNDING_NOW {raw!r} needs a UTC offset (RFC 3339)",
-                             where="SOUNDING_NOW", value=raw)
+        raise TimeParseError(
+            f"SOUNDING_NOW {raw!r} needs a UTC offset (RFC 3339)", where="SOUNDING_NOW", value=raw
+        )
     return dt

@@ -26,6 +26,7 @@ from __future__ import annotations
 import csv
 import json
 import math
+import typing
 from collections.abc import Sequence
 from datetime import datetime, timedelta
 from pathlib import Path
@@ -76,14 +77,23 @@ def _at_level(coverage: float) -> Any:
 # Giving ----------------------------------------------------------------------
 
 
-def give(ws: Any, drafts: list[Draft], *, metric: str = "impressions", coverage: float = 0.8,
-         record: bool = True, source: str = "check", now: datetime | None = None,
-         vectors: np.ndarray | None = None) -> list[Forecast]:
+def give(
+    ws: Any,
+    drafts: list[Draft],
+    *,
+    metric: str = "impressions",
+    coverage: float = 0.8,
+    record: bool = True,
+    source: str = "check",
+    now: datetime | None = None,
+    vectors: np.ndarray | None = None,
+) -> list[Forecast]:
     """Forecasts as sounding gives them: adapted, with live coverage and
     staleness warnings, and recorded unless ``record`` is False."""
     now = now or now_utc()
-    found = ws.forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now,
-                                   vectors=vectors)
+    found: list[Forecast] = ws.forecaster.forecast(
+        drafts, metric=metric, coverage=coverage, now=now, vectors=vectors
+    )
     model = ws.forecaster.model(metric)
     state = _state(ws.store, metric, coverage)
     live = live_coverage(ws.store, metric, coverage)
@@ -102,17 +112,26 @@ def _scores(model: TrainedModel, coverage: float) -> np.ndarray:
     return model.quantiles.calibration_scores(coverage)
 
 
-def _adapt_band(f: Forecast, model: TrainedModel, coverage: float,
-                state: CalibrationState | None) -> None:
+def _adapt_band(f: Forecast, model: TrainedModel, coverage: float, state: CalibrationState | None) -> None:
     """Widen or narrow the CQR band by the ACI level alpha_t (same median)."""
     alpha = 1.0 - coverage
     alpha_t = alpha if state is None else state.alpha_t
-    info: dict[str, Any] = {"method": "cqr", "level": level_key(coverage), "alpha": alpha,
-                            "alpha_t": alpha_t, "outcomes": 0, "pseudo_outcomes": 0,
-                            "capped": False}
+    info: dict[str, Any] = {
+        "method": "cqr",
+        "level": level_key(coverage),
+        "alpha": alpha,
+        "alpha_t": alpha_t,
+        "outcomes": 0,
+        "pseudo_outcomes": 0,
+        "capped": False,
+    }
     if state is not None and (state.real_updates or state.pseudo_updates):
-        info.update(method="cqr+aci", outcomes=state.real_updates,
-                    pseudo_outcomes=state.pseudo_updates, gamma=state.gamma)
+        info.update(
+            method="cqr+aci",
+            outcomes=state.real_updates,
+            pseudo_outcomes=state.pseudo_updates,
+            gamma=state.gamma,
+        )
         shift, capped = _shift(_scores(model, coverage), alpha, alpha_t)
         info["capped"] = capped
         lo, med, hi = f.log
@@ -140,37 +159,62 @@ def _shift(sorted_scores: np.ndarray, alpha: float, alpha_t: float) -> tuple[flo
     return q - base, capped
 
 
-def _record(ws: Any, drafts: list[Draft], found: list[Forecast], *, model: TrainedModel,
-            source: str, now: datetime) -> None:
+def _record(
+    ws: Any, drafts: list[Draft], found: list[Forecast], *, model: TrainedModel, source: str, now: datetime
+) -> None:
     view = ws.forecaster.view(found[0].metric)
     handles = {d.account for d in drafts}
     with ws.store.session() as s:
-        ids = {h: i for h, i in s.execute(
-            select(Account.handle, Account.id).where(Account.handle.in_(handles)))}
+        ids = dict(s.execute(select(Account.handle, Account.id).where(Account.handle.in_(handles))).all())
         for d, f in zip(drafts, found, strict=True):
             t = min(f.planned_at, now).timestamp()
             code = view.account_codes.get(d.account)
-            acct = (F.baseline(view.history, code, t, model.features)[0]
-                    if code is not None else math.nan)
-            prec = [math.log1p(v) for p in f.precedents
-                    if p.get("weight", 0) > 0 and not p.get("still_gathering", True)
-                    and (v := target_value(p["metrics"], f.metric)) is not None]
+            acct = F.baseline(view.history, code, t, model.features)[0] if code is not None else math.nan
+            prec = [
+                math.log1p(v)
+                for p in f.precedents
+                if p.get("weight", 0) > 0
+                and not p.get("still_gathering", True)
+                and (v := target_value(p["metrics"], f.metric)) is not None
+            ]
             lo, med, hi = f.log
-            s.add(ForecastGiven(
-                given_at=to_naive_utc(now), source=source, draft_id=d.draft_id,
-                account_id=ids[d.account], text=d.text, text_hash=ws.embedder.key(d.text),
-                planned_at=to_naive_utc(f.planned_at), metric=f.metric, coverage=f.coverage,
-                low=f.low, median=f.median, high=f.high, low_log=lo, median_log=med, high_log=hi,
-                model_version=f.model_version, calibration=f.calibration.get("method", "cqr"),
-                alpha_t=f.calibration.get("alpha_t", 1.0 - f.coverage),
-                account_median_log=None if math.isnan(acct) else float(acct),
-                precedents_median_log=float(np.median(prec)) if prec else None,
-                precedents=json.dumps([
-                    {"post_id": p["post_id"], "account": p["account"], "text": p["text"][:280],
-                     "similarity": p["similarity"],
-                     "value": target_value(p["metrics"], f.metric)}
-                    for p in f.precedents[:5]], ensure_ascii=False),
-            ))
+            s.add(
+                ForecastGiven(
+                    given_at=to_naive_utc(now),
+                    source=source,
+                    draft_id=d.draft_id,
+                    account_id=ids[d.account],
+                    text=d.text,
+                    text_hash=ws.embedder.key(d.text),
+                    planned_at=to_naive_utc(f.planned_at),
+                    metric=f.metric,
+                    coverage=f.coverage,
+                    low=f.low,
+                    median=f.median,
+                    high=f.high,
+                    low_log=lo,
+                    median_log=med,
+                    high_log=hi,
+                    model_version=f.model_version,
+                    calibration=f.calibration.get("method", "cqr"),
+                    alpha_t=f.calibration.get("alpha_t", 1.0 - f.coverage),
+                    account_median_log=None if math.isnan(acct) else float(acct),
+                    precedents_median_log=float(np.median(prec)) if prec else None,
+                    precedents=json.dumps(
+                        [
+                            {
+                                "post_id": p["post_id"],
+                                "account": p["account"],
+                                "text": p["text"][:280],
+                                "similarity": p["similarity"],
+                                "value": target_value(p["metrics"], f.metric),
+                            }
+                            for p in f.precedents[:5]
+                        ],
+                        ensure_ascii=False,
+                    ),
+                )
+            )
 
 
 # State -----------------------------------------------------------------------
@@ -178,7 +222,8 @@ def _record(ws: Any, drafts: list[Draft], found: list[Forecast], *, model: Train
 
 def _state(store: Any, metric: str, coverage: float) -> CalibrationState | None:
     with store.session() as s:
-        return s.get(CalibrationState, (metric, level_key(coverage)))
+        state: CalibrationState | None = s.get(CalibrationState, (metric, level_key(coverage)))
+        return state
 
 
 def reset_adaptation(ws: Any, metric: str | None = None) -> int:
@@ -194,15 +239,17 @@ def live_coverage(store: Any, metric: str, coverage: float) -> dict[str, Any]:
     """How often scored forecasts of this metric and level held so far."""
     with store.session() as s:
         n, k = s.execute(
-            select(func.count(ForecastMatch.id),
-                   func.sum(cast(ForecastMatch.inside, Integer)))
+            select(func.count(ForecastMatch.id), func.sum(cast(ForecastMatch.inside, Integer)))
             .join(ForecastGiven, ForecastGiven.id == ForecastMatch.forecast_id)
-            .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None),
-                   _at_level(coverage))
+            .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None), _at_level(coverage))
         ).one()
     n, k = int(n or 0), int(k or 0)
-    return {"scored": n, "held": k, "coverage": k / n if n else None,
-            "ci": list(_wilson(k, n)) if n else None}
+    return {
+        "scored": n,
+        "held": k,
+        "coverage": k / n if n else None,
+        "ci": list(_wilson(k, n)) if n else None,
+    }
 
 
 def _wilson(k: int, n: int) -> tuple[float, float]:
@@ -214,8 +261,14 @@ def _wilson(k: int, n: int) -> tuple[float, float]:
 # Staleness -------------------------------------------------------------------
 
 
-def staleness(ws: Any, metric: str, coverage: float = 0.8, *, model: TrainedModel | None = None,
-              now: datetime | None = None) -> dict[str, Any]:
+def staleness(
+    ws: Any,
+    metric: str,
+    coverage: float = 0.8,
+    *,
+    model: TrainedModel | None = None,
+    now: datetime | None = None,
+) -> dict[str, Any]:
     """Reasons to retrain: the model is old (settled posts or days), or live
     coverage of the last scored forecasts is outside its binomial band."""
     now = now or now_utc()
@@ -226,27 +279,37 @@ def staleness(ws: Any, metric: str, coverage: float = 0.8, *, model: TrainedMode
             model = ws.forecaster.model(metric)
         except NotReady:
             return {"stale": True, "warnings": [f"no model trained for {metric} yet"]}
-    as_of = as_utc(datetime.fromisoformat(model.report.get("data_as_of")
-                                          or model.report["trained_at"]))
+    as_of = as_utc(datetime.fromisoformat(model.report.get("data_as_of") or model.report["trained_at"]))
     days = (now - as_of).total_seconds() / 86400
     if days > st.stale_after_days:
-        reasons.append(f"the {metric} model is {days:.0f} days old (SOUNDING_STALE_AFTER_DAYS "
-                       f"{st.stale_after_days:g}); retrain with `sounding train`")
+        reasons.append(
+            f"the {metric} model is {days:.0f} days old (SOUNDING_STALE_AFTER_DAYS "
+            f"{st.stale_after_days:g}); retrain with `sounding train`"
+        )
     mature = timedelta(hours=st.maturity_hours)
     with ws.store.session() as s:
-        fresh = s.scalar(select(func.count(Post.id)).where(
-            Post.posted_at > to_naive_utc(as_of - mature),
-            Post.posted_at <= to_naive_utc(now - mature))) or 0
+        fresh = (
+            s.scalar(
+                select(func.count(Post.id)).where(
+                    Post.posted_at > to_naive_utc(as_of - mature),
+                    Post.posted_at <= to_naive_utc(now - mature),
+                )
+            )
+            or 0
+        )
         recent = s.execute(
             select(ForecastMatch.inside, ForecastGiven.coverage)
             .join(ForecastGiven, ForecastGiven.id == ForecastMatch.forecast_id)
             .join(Post, Post.id == ForecastMatch.post_pk)
-            .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None),
-                   _at_level(coverage))
-            .order_by(Post.posted_at.desc()).limit(RECENT_SCORED)).all()
+            .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None), _at_level(coverage))
+            .order_by(Post.posted_at.desc())
+            .limit(RECENT_SCORED)
+        ).all()
     if fresh >= st.stale_after_posts:
-        reasons.append(f"{fresh} posts have settled since the {metric} model was trained "
-                       f"(SOUNDING_STALE_AFTER_POSTS {st.stale_after_posts}); retrain")
+        reasons.append(
+            f"{fresh} posts have settled since the {metric} model was trained "
+            f"(SOUNDING_STALE_AFTER_POSTS {st.stale_after_posts}); retrain"
+        )
     if len(recent) >= RECENT_SCORED:
         held = sum(bool(r[0]) for r in recent)
         stated = float(np.mean([r[1] for r in recent]))
@@ -256,16 +319,17 @@ def staleness(ws: Any, metric: str, coverage: float = 0.8, *, model: TrainedMode
             reasons.append(
                 f"{coverage:.0%} intervals held for {held} of the last {len(recent)} scored "
                 f"forecasts, outside the {int(low)}-{int(high)} expected by chance; the "
-                "intervals may no longer fit this audience")
-    return {"stale": bool(reasons), "warnings": reasons, "newly_settled": int(fresh),
-            "model_age_days": days}
+                "intervals may no longer fit this audience"
+            )
+    return {"stale": bool(reasons), "warnings": reasons, "newly_settled": int(fresh), "model_age_days": days}
 
 
 # Matching --------------------------------------------------------------------
 
 
-def link_drafts(ws: Any, path: str | Path, *, mapping: dict[str, str] | None = None,
-                account: str | None = None) -> int:
+def link_drafts(
+    ws: Any, path: str | Path, *, mapping: dict[str, str] | None = None, account: str | None = None
+) -> int:
     """Store the explicit draft ids of an imported file (its ``draft_id``
     column, or the column ``--map draft_id=...`` names)."""
     mapping = mapping or {}
@@ -287,8 +351,11 @@ def link_drafts(ws: Any, path: str | Path, *, mapping: dict[str, str] | None = N
     n = 0
     with ws.store.session() as s:
         for (acc, pid), draft in pairs.items():
-            pk = s.scalar(select(Post.id).join(Account, Account.id == Post.account_id)
-                          .where(Account.handle == acc, Post.post_id == pid))
+            pk = s.scalar(
+                select(Post.id)
+                .join(Account, Account.id == Post.account_id)
+                .where(Account.handle == acc, Post.post_id == pid)
+            )
             if pk is None:  # a rejected row
                 continue
             s.merge(PostDraftLink(post_pk=pk, draft_id=draft))
@@ -302,27 +369,42 @@ def match(ws: Any) -> int:
     window = timedelta(hours=st.match_window_hours)
     with ws.store.session() as s:
         open_fc = s.execute(
-            select(ForecastGiven.id, ForecastGiven.account_id, ForecastGiven.draft_id,
-                   ForecastGiven.given_at, ForecastGiven.planned_at, ForecastGiven.metric,
-                   ForecastGiven.text)
-            .where(ForecastGiven.id.not_in(select(ForecastMatch.forecast_id)))).all()
+            select(
+                ForecastGiven.id,
+                ForecastGiven.account_id,
+                ForecastGiven.draft_id,
+                ForecastGiven.given_at,
+                ForecastGiven.planned_at,
+                ForecastGiven.metric,
+                ForecastGiven.text,
+            ).where(ForecastGiven.id.not_in(select(ForecastMatch.forecast_id)))
+        ).all()
         if not open_fc:
             return 0
         accounts = {r.account_id for r in open_fc}
         earliest = min(r.given_at for r in open_fc)
         posts = s.execute(
-            select(Post.id, Post.account_id, Post.posted_at, Post.vector_key,
-                   PostDraftLink.draft_id)
+            select(Post.id, Post.account_id, Post.posted_at, Post.vector_key, PostDraftLink.draft_id)
             .outerjoin(PostDraftLink, PostDraftLink.post_pk == Post.id)
             .where(Post.account_id.in_(accounts), Post.posted_at > earliest)
-            .order_by(Post.posted_at, Post.id)).all()
-        taken = {(m.post_pk, m.metric) for m in s.execute(
-            select(ForecastMatch.post_pk, ForecastMatch.metric))}
+            .order_by(Post.posted_at, Post.id)
+        ).all()
+        taken = {
+            (m.post_pk, m.metric) for m in s.execute(select(ForecastMatch.post_pk, ForecastMatch.metric))
+        }
     if not posts:
         return 0
     # Which (forecast, post) pairs are near enough in time to need a similarity.
-    near = {f.id: [p for p in posts if p.account_id == f.account_id and p.posted_at > f.given_at
-                   and abs(p.posted_at - f.planned_at) <= window] for f in open_fc}
+    near = {
+        f.id: [
+            p
+            for p in posts
+            if p.account_id == f.account_id
+            and p.posted_at > f.given_at
+            and abs(p.posted_at - f.planned_at) <= window
+        ]
+        for f in open_fc
+    }
     need = [f for f in open_fc if near[f.id]]
     sims: dict[tuple[int, int], float] = {}
     if need:
@@ -341,8 +423,14 @@ def match(ws: Any) -> int:
         for metric in sorted({f.metric for f in open_fc}):
             if (p.id, metric) in taken:
                 continue
-            pool = [f for f in open_fc if f.metric == metric and f.id not in used
-                    and f.account_id == p.account_id and f.given_at < p.posted_at]
+            pool = [
+                f
+                for f in open_fc
+                if f.metric == metric
+                and f.id not in used
+                and f.account_id == p.account_id
+                and f.given_at < p.posted_at
+            ]
             how, best, sim = "", None, None
             if p.draft_id and p.draft_id in named:
                 cands = [f for f in pool if f.draft_id == p.draft_id]
@@ -350,19 +438,32 @@ def match(ws: Any) -> int:
                     best = max(cands, key=lambda f: (f.given_at, f.id))
                     how, sim = "draft_id", sims.get((best.id, p.id))
             else:
-                cands = [(sims[(f.id, p.id)], f) for f in pool if (f.id, p.id) in sims
-                         and sims[(f.id, p.id)] >= st.match_similarity]
+                cands = [
+                    (sims[(f.id, p.id)], f)
+                    for f in pool
+                    if (f.id, p.id) in sims and sims[(f.id, p.id)] >= st.match_similarity
+                ]
                 if cands:
                     top = max(c[0] for c in cands)
-                    best = max((f for sm, f in cands if sm >= top - SIMILARITY_TIE),
-                               key=lambda f: (f.given_at, f.id))
+                    best = max(
+                        (f for sm, f in cands if sm >= top - SIMILARITY_TIE), key=lambda f: (f.given_at, f.id)
+                    )
                     how, sim = "text_time", sims[(best.id, p.id)]
             if best is None:
                 continue
             used.add(best.id)
             taken.add((p.id, metric))
-            new.append(ForecastMatch(forecast_id=best.id, post_pk=p.id, metric=metric, how=how,
-                                     similarity=sim, matched_at=stamp, adapted=False))
+            new.append(
+                ForecastMatch(
+                    forecast_id=best.id,
+                    post_pk=p.id,
+                    metric=metric,
+                    how=how,
+                    similarity=sim,
+                    matched_at=stamp,
+                    adapted=False,
+                )
+            )
     if new:
         with ws.store.session() as s:
             s.add_all(new)
@@ -379,12 +480,12 @@ def score(ws: Any, *, now: datetime | None = None) -> int:
             select(ForecastMatch, ForecastGiven.low_log, ForecastGiven.high_log)
             .join(ForecastGiven, ForecastGiven.id == ForecastMatch.forecast_id)
             .join(Post, Post.id == ForecastMatch.post_pk)
-            .where(Post.posted_at <= cutoff)).all()
+            .where(Post.posted_at <= cutoff)
+        ).all()
         details = ws.store.posts_by_pk([m.post_pk for m, _, _ in rows])
         changed = 0
         for m, lo, hi in rows:
-            value = target_value(details[m.post_pk]["metrics"], m.metric) \
-                if m.post_pk in details else None
+            value = target_value(details[m.post_pk]["metrics"], m.metric) if m.post_pk in details else None
             if value is None or value == m.outcome:
                 continue
             m.outcome, m.outcome_log = value, math.log1p(value)
@@ -404,41 +505,72 @@ def adapt(ws: Any, metric: str, *, now: datetime | None = None) -> dict[str, int
     st = ws.settings
     model = ws.forecaster.model(metric)
     with ws.store.session() as s:
-        levels = {level_key(c) for c in s.scalars(
-            select(ForecastGiven.coverage).where(ForecastGiven.metric == metric).distinct())}
-        levels |= {c for c in s.scalars(select(CalibrationState.level)
-                                        .where(CalibrationState.metric == metric))}
+        levels = {
+            level_key(c)
+            for c in s.scalars(
+                select(ForecastGiven.coverage).where(ForecastGiven.metric == metric).distinct()
+            )
+        }
+        levels |= set(s.scalars(select(CalibrationState.level).where(CalibrationState.metric == metric)))
     levels.add(level_key(DEFAULT_COVERAGE))  # warm up the default level before any forecast
     fed: dict[str, int] = {}
     for level in sorted(levels):
-        fed[level] = _adapt_level(ws, model, metric, float(level), now=now, gamma=st.adaptive_gamma,
-                                  min_scored=st.adaptive_min_scored)
+        fed[level] = _adapt_level(
+            ws,
+            model,
+            metric,
+            float(level),
+            now=now,
+            gamma=st.adaptive_gamma,
+            min_scored=st.adaptive_min_scored,
+        )
     return fed
 
 
-def _adapt_level(ws: Any, model: TrainedModel, metric: str, coverage: float, *, now: datetime,
-                 gamma: float, min_scored: int) -> int:
+def _adapt_level(
+    ws: Any,
+    model: TrainedModel,
+    metric: str,
+    coverage: float,
+    *,
+    now: datetime,
+    gamma: float,
+    min_scored: int,
+) -> int:
     alpha, key = 1.0 - coverage, level_key(coverage)
     fed = 0
     with ws.store.session() as s:
         state = s.get(CalibrationState, (metric, key))
         if state is None:
-            state = CalibrationState(metric=metric, level=key, alpha_t=alpha, gamma=gamma,
-                                     real_updates=0, pseudo_updates=0,
-                                     updated_at=to_naive_utc(now))
+            state = CalibrationState(
+                metric=metric,
+                level=key,
+                alpha_t=alpha,
+                gamma=gamma,
+                real_updates=0,
+                pseudo_updates=0,
+                updated_at=to_naive_utc(now),
+            )
             s.add(state)
         # Real outcomes, in posting order, against the band that was given.
-        real = s.execute(
-            select(ForecastMatch)
-            .join(ForecastGiven, ForecastGiven.id == ForecastMatch.forecast_id)
-            .join(Post, Post.id == ForecastMatch.post_pk)
-            .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None),
-                   ForecastMatch.adapted.is_(False),
-                   _at_level(coverage))
-            .order_by(Post.posted_at, Post.id)).scalars().all()
+        real = (
+            s.execute(
+                select(ForecastMatch)
+                .join(ForecastGiven, ForecastGiven.id == ForecastMatch.forecast_id)
+                .join(Post, Post.id == ForecastMatch.post_pk)
+                .where(
+                    ForecastGiven.metric == metric,
+                    ForecastMatch.inside.is_not(None),
+                    ForecastMatch.adapted.is_(False),
+                    _at_level(coverage),
+                )
+                .order_by(Post.posted_at, Post.id)
+            )
+            .scalars()
+            .all()
+        )
         for m in real:
-            state.alpha_t = aci_step(state.alpha_t, alpha=alpha, gamma=state.gamma,
-                                     miss=not m.inside)
+            state.alpha_t = aci_step(state.alpha_t, alpha=alpha, gamma=state.gamma, miss=not m.inside)
             state.real_updates += 1
             m.adapted = True
             fed += 1
@@ -466,14 +598,15 @@ def _adapt_level(ws: Any, model: TrainedModel, metric: str, coverage: float, *, 
     return fed + updates
 
 
-def _pseudo_outcomes(ws: Any, model: TrainedModel, metric: str, coverage: float, *,
-                     since: datetime | None, now: datetime
-                     ) -> tuple[list[datetime], list[float], list[tuple[float, float]]] | None:
+def _pseudo_outcomes(
+    ws: Any, model: TrainedModel, metric: str, coverage: float, *, since: datetime | None, now: datetime
+) -> tuple[list[datetime], list[float], list[tuple[float, float]]] | None:
     """Newly settled posts with no forecast of their own, each forecast as it
     would have been at its time (only posts settled before then count)."""
     mature = timedelta(hours=ws.settings.maturity_hours)
-    start = as_utc(datetime.fromisoformat(model.report.get("data_as_of")
-                                          or model.report["trained_at"])) - mature
+    start = (
+        as_utc(datetime.fromisoformat(model.report.get("data_as_of") or model.report["trained_at"])) - mature
+    )
     if since is not None:
         start = max(start, as_utc(since))
     frame = ws.store.posts_frame()
@@ -488,20 +621,27 @@ def _pseudo_outcomes(ws: Any, model: TrainedModel, metric: str, coverage: float,
     rows = rows[[v is not None for v in values]]
     if rows.empty:
         return None
-    drafts = [Draft(text=t, account=a, planned_at=p.to_pydatetime())
-              for t, a, p in zip(rows["text"], rows["account"], rows["posted_at"], strict=True)]
+    drafts = [
+        Draft(text=t, account=a, planned_at=p.to_pydatetime())
+        for t, a, p in zip(rows["text"], rows["account"], rows["posted_at"], strict=True)
+    ]
     vecs = ws.store.vectors(list(rows["vector_key"]))
     try:
-        found = ws.forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now,
-                                       vectors=vecs)
+        found = ws.forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now, vectors=vecs)
     except SoundingError:
         return None
     ys = [math.log1p(v) for v in values if v is not None]
-    return ([d.planned_at for d in drafts], ys, [(f.log[0], f.log[2]) for f in found])
+    return ([typing.cast(datetime, d.planned_at) for d in drafts], ys, [(f.log[0], f.log[2]) for f in found])
 
 
-def after_import(ws: Any, path: str | Path, *, mapping: dict[str, str] | None = None,
-                 account: str | None = None, now: datetime | None = None) -> dict[str, Any]:
+def after_import(
+    ws: Any,
+    path: str | Path,
+    *,
+    mapping: dict[str, str] | None = None,
+    account: str | None = None,
+    now: datetime | None = None,
+) -> dict[str, Any]:
     """Everything the track record does after an import: explicit draft ids,
     matching, scoring, and adaptation of every metric with a model."""
     linked = link_drafts(ws, path, mapping=mapping, account=account)
@@ -524,29 +664,46 @@ def after_import(ws: Any, path: str | Path, *, mapping: dict[str, str] | None = 
 # Report ----------------------------------------------------------------------
 
 
-def report(ws: Any, *, since: datetime | None = None, account: str | None = None,
-           metric: str = "impressions", now: datetime | None = None) -> dict[str, Any]:
+def report(
+    ws: Any,
+    *,
+    since: datetime | None = None,
+    account: str | None = None,
+    metric: str = "impressions",
+    now: datetime | None = None,
+) -> dict[str, Any]:
     """The track record of ``metric``: per month (of the forecast) and overall."""
     check_target(metric)
     if account is not None:
         ws.store.account(account)
-    q = (select(ForecastGiven, Account.handle, ForecastMatch, Post.post_id, Post.posted_at)
-         .join(Account, Account.id == ForecastGiven.account_id)
-         .outerjoin(ForecastMatch, ForecastMatch.forecast_id == ForecastGiven.id)
-         .outerjoin(Post, Post.id == ForecastMatch.post_pk)
-         .where(ForecastGiven.metric == metric)
-         .order_by(ForecastGiven.given_at, ForecastGiven.id))
+    q = (
+        select(ForecastGiven, Account.handle, ForecastMatch, Post.post_id, Post.posted_at)
+        .join(Account, Account.id == ForecastGiven.account_id)
+        .outerjoin(ForecastMatch, ForecastMatch.forecast_id == ForecastGiven.id)
+        .outerjoin(Post, Post.id == ForecastMatch.post_pk)
+        .where(ForecastGiven.metric == metric)
+        .order_by(ForecastGiven.given_at, ForecastGiven.id)
+    )
     if since is not None:
         q = q.where(ForecastGiven.given_at >= to_naive_utc(since))
     if account is not None:
         q = q.where(Account.handle == account)
     with ws.store.session() as s:
         rows = [_row(f, handle, m, pid, posted) for f, handle, m, pid, posted in s.execute(q)]
-        states = [{"level": c.level, "alpha_t": c.alpha_t, "gamma": c.gamma,
-                   "outcomes": c.real_updates, "pseudo_outcomes": c.pseudo_updates}
-                  for c in s.scalars(select(CalibrationState)
-                                     .where(CalibrationState.metric == metric)
-                                     .order_by(CalibrationState.level))]
+        states = [
+            {
+                "level": c.level,
+                "alpha_t": c.alpha_t,
+                "gamma": c.gamma,
+                "outcomes": c.real_updates,
+                "pseudo_outcomes": c.pseudo_updates,
+            }
+            for c in s.scalars(
+                select(CalibrationState)
+                .where(CalibrationState.metric == metric)
+                .order_by(CalibrationState.level)
+            )
+        ]
     months: dict[str, list[dict[str, Any]]] = {}
     for r in rows:
         months.setdefault(r["given_at"][:7], []).append(r)
@@ -560,28 +717,48 @@ def report(ws: Any, *, since: datetime | None = None, account: str | None = None
         "months": [{"month": k, **summarise(v)} for k, v in sorted(months.items())],
         "worst": worst,
         "calibration": states,
-        "points": [{k: r[k] for k in ("given_at", "posted_at", "coverage", "low", "median",
-                                      "high", "outcome", "inside")} for r in settled],
+        "points": [
+            {
+                k: r[k]
+                for k in ("given_at", "posted_at", "coverage", "low", "median", "high", "outcome", "inside")
+            }
+            for r in settled
+        ],
     }
 
 
-def _row(f: ForecastGiven, handle: str, m: ForecastMatch | None, pid: str | None,
-         posted: datetime | None) -> dict[str, Any]:
+def _row(
+    f: ForecastGiven, handle: str, m: ForecastMatch | None, pid: str | None, posted: datetime | None
+) -> dict[str, Any]:
     scored = m is not None and m.inside is not None
     return {
-        "forecast_id": f.id, "given_at": as_utc(f.given_at).isoformat(), "source": f.source,
-        "draft_id": f.draft_id, "account": handle, "text": f.text,
-        "planned_at": as_utc(f.planned_at).isoformat(), "coverage": f.coverage,
-        "low": f.low, "median": f.median, "high": f.high, "model_version": f.model_version,
+        "forecast_id": f.id,
+        "given_at": as_utc(f.given_at).isoformat(),
+        "source": f.source,
+        "draft_id": f.draft_id,
+        "account": handle,
+        "text": f.text,
+        "planned_at": as_utc(f.planned_at).isoformat(),
+        "coverage": f.coverage,
+        "low": f.low,
+        "median": f.median,
+        "high": f.high,
+        "model_version": f.model_version,
         "calibration": f.calibration,
-        "matched": m is not None, "match": None if m is None else m.how,
-        "post_id": pid, "posted_at": as_utc(posted).isoformat() if posted else None,
-        "outcome": m.outcome if scored else None,
-        "inside": bool(m.inside) if scored else None,
-        "error_log": abs(f.median_log - m.outcome_log) if scored else None,
-        "baseline_logs": {"account_median": f.account_median_log,
-                          "precedents_median": f.precedents_median_log},
-        "outcome_log": m.outcome_log if scored else None,
+        "matched": m is not None,
+        "match": None if m is None else m.how,
+        "post_id": pid,
+        "posted_at": as_utc(posted).isoformat() if posted else None,
+        "outcome": m.outcome if m is not None and scored else None,
+        "inside": bool(m.inside) if m is not None and scored else None,
+        "error_log": abs(f.median_log - typing.cast(float, m.outcome_log))
+        if m is not None and scored
+        else None,
+        "baseline_logs": {
+            "account_median": f.account_median_log,
+            "precedents_median": f.precedents_median_log,
+        },
+        "outcome_log": m.outcome_log if m is not None and scored else None,
         "precedents": json.loads(f.precedents or "[]"),
     }
 
@@ -592,7 +769,9 @@ def summarise(rows: Sequence[dict[str, Any]]) -> dict[str, Any]:
     settled = [r for r in rows if r["inside"] is not None]
     n, k = len(settled), sum(r["inside"] for r in settled)
     out: dict[str, Any] = {
-        "given": len(rows), "matched": sum(r["matched"] for r in rows), "settled": n,
+        "given": len(rows),
+        "matched": sum(r["matched"] for r in rows),
+        "settled": n,
         "stated_coverage": float(np.mean([r["coverage"] for r in settled])) if n else None,
         "live_coverage": k / n if n else None,
         "live_coverage_ci": list(_wilson(k, n)) if n else None,
@@ -607,8 +786,7 @@ def summarise(rows: Sequence[dict[str, Any]]) -> dict[str, Any]:
                 b = r["baseline_logs"]["account_median"]
             if b is not None:
                 errs.append(abs(b - r["outcome_log"]))
-        out["baselines"][name] = {"mae_log": float(np.mean(errs)) if errs else None,
-                                  "posts": len(errs)}
+        out["baselines"][name] = {"mae_log": float(np.mean(errs)) if errs else None, "posts": len(errs)}
     return out
 
 

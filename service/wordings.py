@@ -14,7 +14,7 @@ from models.errors import InputError, LimitExceeded, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from .forecasting import CAUTION, Draft, Forecast, Forecaster
-from .overlap import RULE, tied_with_best, ranks
+from .overlap import RULE, ranks, tied_with_best
 from .timeparse import now_utc
 
 MAX_VARIANTS = 10

@@ -13,7 +13,7 @@ import logging
 import os
 import threading
 from collections.abc import Iterator, Sequence
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from datetime import datetime
 from pathlib import Path
 from typing import Any
@@ -47,8 +47,9 @@ def _utc_bound(dt: datetime | None, name: str) -> datetime | None:
     try:
         return as_utc(dt)
     except OverflowError:
-        raise InputError(f"{name} {dt.isoformat()} is out of range in UTC", field=name,
-                         value=dt.isoformat()) from None
+        raise InputError(
+            f"{name} {dt.isoformat()} is out of range in UTC", field=name, value=dt.isoformat()
+        ) from None
 
 
 log = logging.getLogger("sounding.workspace")
@@ -58,8 +59,13 @@ def _held_pairs(pairs: Sequence[tuple[int, str]]) -> tuple[np.ndarray, np.ndarra
     """(post row ids sorted, a 64-bit digest of each one's vector key): what an
     index holds, compact enough to keep for a million posts."""
     pks = np.array([p for p, _ in pairs], dtype=np.int64)
-    keys = np.array([int.from_bytes(hashlib.blake2b(k.encode(), digest_size=8).digest(), "little",
-                                    signed=True) for _, k in pairs], dtype=np.int64)
+    keys = np.array(
+        [
+            int.from_bytes(hashlib.blake2b(k.encode(), digest_size=8).digest(), "little", signed=True)
+            for _, k in pairs
+        ],
+        dtype=np.int64,
+    )
     order = np.argsort(pks, kind="stable")
     return pks[order], keys[order]
 
@@ -79,17 +85,20 @@ class Workspace:
         # A read-only directory (a read-only mount, a restored snapshot) still
         # serves reads; every change is refused with one message (writing()).
         self.read_only = not os.access(settings.resolved_home, os.W_OK)
-        self.store = Store(url=settings.db_url,
-                           read_only=self.read_only and settings.database_url is None)
-        self._writer = WriteLock(path=settings.resolved_home / LOCK_FILE,
-                                 wait_seconds=settings.write_wait_seconds)
+        self.store = Store(url=settings.db_url, read_only=self.read_only and settings.database_url is None)
+        self._writer = WriteLock(
+            path=settings.resolved_home / LOCK_FILE, wait_seconds=settings.write_wait_seconds
+        )
         if not self.read_only:
             for p in clean_leftovers(settings.models_dir):
                 log.warning("removed %s, left by a training that did not finish", p.name)
         self.embedder = embedder or Embedder(
-            model_path=settings.embed_model_path, batch_size=settings.embed_batch_size,
-            backend=settings.embed_backend, quantize=settings.embed_quantize,
-            export_dir=settings.embedding_dir, threads=settings.embed_threads,
+            model_path=settings.embed_model_path,
+            batch_size=settings.embed_batch_size,
+            backend=settings.embed_backend,
+            quantize=settings.embed_quantize,
+            export_dir=settings.embedding_dir,
+            threads=settings.embed_threads,
         )
         self._index: VectorIndex | None = None
         self._index_stamp: int | None = None
@@ -97,8 +106,9 @@ class Workspace:
         self._lock = threading.RLock()
         self.retrieval = Retriever(store=self.store, index=self.index, lock=self._lock)
         #: The forecast service over this data directory (loads models on demand).
-        self.forecaster = Forecaster(store=self.store, settings=settings,
-                                     retrieval=self.retrieval, encode=self.embedder.encode)
+        self.forecaster = Forecaster(
+            store=self.store, settings=settings, retrieval=self.retrieval, encode=self.embedder.encode
+        )
         self._building = threading.Lock()  # one index build at a time
         self._held: tuple[np.ndarray, np.ndarray] | None = None  # what the index holds
         self._accounts: dict[str, AccountInfo] = {}
@@ -202,12 +212,12 @@ class Workspace:
         try:
             index.save(self.settings.index_dir)
         except (OSError, RuntimeError) as exc:  # FAISS reports write errors as RuntimeError
-            try:
+            with suppress(OSError):
                 (self.settings.index_dir / "index.faiss.tmp").unlink(missing_ok=True)
-            except OSError:
-                pass
-            log.warning("the index is kept in memory only; saving it failed: %s",
-                        getattr(exc, "strerror", None) or str(exc).splitlines()[0])
+            log.warning(
+                "the index is kept in memory only; saving it failed: %s",
+                getattr(exc, "strerror", None) or str(exc).splitlines()[0],
+            )
 
     def index_state(self) -> dict[str, Any]:
         """What the health endpoint reports: on disk, in step with the store?"""
@@ -225,9 +235,11 @@ class Workspace:
         cfg = VectorIndex.saved_config(self.settings.index_dir)
         if cfg is None:
             return None
-        return {"approximate": bool(cfg.get("approximate", False)),
-                "recall_at_10": float(cfg.get("recall_at_10", 1.0)),
-                "ef_search": cfg.get("ef_search")}
+        return {
+            "approximate": bool(cfg.get("approximate", False)),
+            "recall_at_10": float(cfg.get("recall_at_10", 1.0)),
+            "ef_search": cfg.get("ef_search"),
+        }
 
     def reindex(self) -> VectorIndex:
         """Rebuild the index from the vectors in the store, as the data
@@ -297,9 +309,16 @@ class Workspace:
             before = self.store.counts()["posts"]
             try:
                 summary = import_csv(
-                    self.store, self.embedder, path, account=account, mapping=mapping,
-                    timezone=timezone, batch_rows=batch_rows or self.settings.import_batch_rows,
-                    progress=progress, embed=embed, **layout,
+                    self.store,
+                    self.embedder,
+                    path,
+                    account=account,
+                    mapping=mapping,
+                    timezone=timezone,
+                    batch_rows=batch_rows or self.settings.import_batch_rows,
+                    progress=progress,
+                    embed=embed,
+                    **layout,
                 )
             except StoreError as exc:
                 # A full disk or a lost store mid-import: whole batches before
@@ -359,13 +378,21 @@ class Workspace:
     def embed_drafts(self, texts: list[str]) -> np.ndarray:
         return self.forecaster.embed(texts)
 
-    def neighbours(self, vectors: np.ndarray, k: int, *, account: str | None = None,
-                   since: datetime | None = None, until: datetime | None = None,
-                   allowed_pks: np.ndarray | None = None) -> list[Hits]:
+    def neighbours(
+        self,
+        vectors: np.ndarray,
+        k: int,
+        *,
+        account: str | None = None,
+        since: datetime | None = None,
+        until: datetime | None = None,
+        allowed_pks: np.ndarray | None = None,
+    ) -> list[Hits]:
         """(post row id, similarity) of the ``k`` nearest posts per vector
         (``service.retrieval.Retriever.nearest``)."""
-        return self.retrieval.nearest(vectors, k, account=account, since=since, until=until,
-                                      allowed_pks=allowed_pks)
+        return self.retrieval.nearest(
+            vectors, k, account=account, since=since, until=until, allowed_pks=allowed_pks
+        )
 
     def precedents(
         self,
@@ -388,12 +415,16 @@ class Workspace:
         return self.precedents_for(hits, now=now)
 
     def precedents_for(
-        self, hits: Hits, *, now: datetime | None = None,
+        self,
+        hits: Hits,
+        *,
+        now: datetime | None = None,
         details: dict[int, dict[str, Any]] | None = None,
     ) -> list[Precedent]:
         """Precedents for (post row id, similarity) hits (``service.precedents``)."""
-        return precedents_for(self.store, hits, maturity_hours=self.settings.maturity_hours,
-                              now=now, details=details)
+        return precedents_for(
+            self.store, hits, maturity_hours=self.settings.maturity_hours, now=now, details=details
+        )
 
     def health(self) -> dict[str, Any]:
         counts = self.store.counts()

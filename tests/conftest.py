@@ -7,7 +7,7 @@ import csv
 import io
 import os
 from collections.abc import Iterator, Sequence
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
@@ -17,11 +17,12 @@ os.environ.setdefault("HF_HUB_OFFLINE", "1")
 # host names it knows (service.api.guard), so the tests name that one.
 os.environ.setdefault("SOUNDING_ALLOWED_HOSTS", '["testserver"]')
 
-from models.embedding import Embedder  # noqa: E402
-from pgsupport import SERVER, create_database, drop_database  # noqa: E402
-from service.forecasting import train  # noqa: E402
-from service.settings import Settings  # noqa: E402
-from service.workspace import Workspace  # noqa: E402
+from pgsupport import SERVER, create_database, drop_database
+
+from models.embedding import Embedder
+from service.forecasting import train
+from service.settings import Settings
+from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO_CSV = ROOT / "demo_data" / "posts.csv"
@@ -32,18 +33,38 @@ TOKEN = "sounding-test-token-7f3a9c-5d1e8b2a4c6f"  # 32+ characters: needed off 
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 #: The "now" every test trains and forecasts at, so results never depend on
 #: the system date: a day after the demo history's last month.
-NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
+NOW = datetime(2026, 12, 1, 12, 0, tzinfo=UTC)
 
-SUBJECTS = ("Magnolias", "Snowdrops", "The bee hotel", "The seed library", "The fern house",
-             "The rose arbour", "The herb garden", "The lake path")
-NEWS = ("open early", "need volunteers", "are in full colour", "get a new bench",
-         "host a sketching morning", "close for repairs")
+SUBJECTS = (
+    "Magnolias",
+    "Snowdrops",
+    "The bee hotel",
+    "The seed library",
+    "The fern house",
+    "The rose arbour",
+    "The herb garden",
+    "The lake path",
+)
+NEWS = (
+    "open early",
+    "need volunteers",
+    "are in full colour",
+    "get a new bench",
+    "host a sketching morning",
+    "close for repairs",
+)
 
 
-def history_csv(n: int, *, prefix: str = "h", accounts: Sequence[str] = ("loomhaven",),
-                start: datetime = datetime(2025, 2, 1, 9, tzinfo=timezone.utc),
-                step_hours: float = 4.0, bad_line: int | None = None,
-                engagements: bool = False) -> bytes:
+def history_csv(
+    n: int,
+    *,
+    prefix: str = "h",
+    accounts: Sequence[str] = ("loomhaven",),
+    start: datetime = datetime(2025, 2, 1, 9, tzinfo=UTC),
+    step_hours: float = 4.0,
+    bad_line: int | None = None,
+    engagements: bool = False,
+) -> bytes:
     """A small invented history in our canonical columns (post_id, account,
     text, posted_at, impressions), one post every ``step_hours``, accounts in
     turn; the row on ``bad_line`` (the header is line 1) gets a negative count.
@@ -51,13 +72,18 @@ def history_csv(n: int, *, prefix: str = "h", accounts: Sequence[str] = ("loomha
     impressions, so no engagement rate)."""
     buf = io.StringIO()
     w = csv.writer(buf)
-    w.writerow(["post_id", "account", "text", "posted_at", "impressions"]
-               + (["engagements"] if engagements else []))
+    w.writerow(
+        ["post_id", "account", "text", "posted_at", "impressions"] + (["engagements"] if engagements else [])
+    )
     for i in range(n):
         impressions = -5 if i + 2 == bad_line else 100 + 7 * i
-        row: list[object] = [f"{prefix}-{i}", accounts[i % len(accounts)],
-                             f"{SUBJECTS[i % 8]} {NEWS[i % 6]} ({prefix} note {i})",
-                             (start + timedelta(hours=step_hours * i)).isoformat(), impressions]
+        row: list[object] = [
+            f"{prefix}-{i}",
+            accounts[i % len(accounts)],
+            f"{SUBJECTS[i % 8]} {NEWS[i % 6]} ({prefix} note {i})",
+            (start + timedelta(hours=step_hours * i)).isoformat(),
+            impressions,
+        ]
         if engagements:
             row[-1] = 0 if i % 10 == 9 else impressions
             row.append(3 + (i * 37) % 11 + (5 if i % 8 < 2 else 0))

@@ -35,8 +35,7 @@ def on_postgres() -> Iterator[None]:
 
 
 @pytest.fixture(scope="module")
-def demo_home(demo_home: Path,
-              tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
+def demo_home(demo_home: Path, tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
     home = tmp_path_factory.mktemp("pgdemo") / "home"
     copy_home_to_postgres(demo_home, home)
     yield home
@@ -45,8 +44,9 @@ def demo_home(demo_home: Path,
 
 @pytest.fixture(scope="module")
 def demo_workspace(demo_home: Path, embedder: Embedder) -> Iterator[Workspace]:
-    ws = Workspace(settings=Settings(home=demo_home, database_url=HOMES[demo_home.resolve()]),
-                   embedder=embedder)
+    ws = Workspace(
+        settings=Settings(home=demo_home, database_url=HOMES[demo_home.resolve()]), embedder=embedder
+    )
     assert ws.store.backend == "postgresql"
     yield ws
     ws.close()

@@ -11,6 +11,7 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
+from conftest import TOKEN
 from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
@@ -23,8 +24,6 @@ from service.cli.base import use_embedder
 from service.cli.history import check_bind
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN
-
 
 
 def write_history(path: Path, n: int, *, prefix: str = "ac") -> Path:
@@ -35,9 +34,15 @@ def write_history(path: Path, n: int, *, prefix: str = "ac") -> Path:
         w = csv.writer(f)
         w.writerow(["post_id", "account", "text", "posted_at", "impressions"])
         for i in range(n):
-            w.writerow([f"{prefix}-{i}", ("loomhaven", "loomhaven_events")[i % 2],
-                        f"{things[i % 6]} {moods[i % 4]} today, note {prefix}{i}",
-                        (start + timedelta(hours=5 * i)).isoformat(), 300 + 11 * i])
+            w.writerow(
+                [
+                    f"{prefix}-{i}",
+                    ("loomhaven", "loomhaven_events")[i % 2],
+                    f"{things[i % 6]} {moods[i % 4]} today, note {prefix}{i}",
+                    (start + timedelta(hours=5 * i)).isoformat(),
+                    300 + 11 * i,
+                ]
+            )
     return path
 
 
@@ -108,7 +113,7 @@ def test_changes_without_the_right_token_are_refused_and_change_nothing(
 def test_the_right_token_is_accepted(client: TestClient, ws, tmp_path: Path) -> None:
     auth = {"Authorization": f"Bearer {TOKEN}"}
     before = ws.store.counts()["posts"]
-    (imp, url, kw), (_, acc_url, _), (_, post_url, post_kw) = write_requests(tmp_path)
+    (_imp, url, kw), (_, acc_url, _), (_, post_url, post_kw) = write_requests(tmp_path)
     r = client.post(url, headers=auth, **kw)
     assert r.status_code == 200, r.text
     assert r.json()["added"] == 3
@@ -122,9 +127,7 @@ def test_the_right_token_is_accepted(client: TestClient, ws, tmp_path: Path) -> 
     assert "loomhaven" not in {a.handle for a in ws.store.accounts()}
 
 
-def test_a_server_without_token_refuses_every_change(
-    base_home: Path, tmp_path: Path, embedder
-) -> None:
+def test_a_server_without_token_refuses_every_change(base_home: Path, tmp_path: Path, embedder) -> None:
     shutil.copytree(base_home, tmp_path / "open")
     ws = Workspace(settings=Settings(home=tmp_path / "open", token=None), embedder=embedder)
     before = ws.store.counts()
@@ -140,16 +143,17 @@ def test_a_server_without_token_refuses_every_change(
 def test_every_changing_route_is_behind_the_token(client: TestClient, ws) -> None:
     paths = client.app.openapi()["paths"]
     ops = {(m.upper(), p) for p, item in paths.items() for m in item}
-    guarded = {(m.upper(), p) for p, item in paths.items() for m, op in item.items()
-               if op.get("security")}
+    guarded = {(m.upper(), p) for p, item in paths.items() for m, op in item.items() if op.get("security")}
     # The endpoints that change data: imports, training, deletion, and any
     # route whose method changes a resource by its meaning (RFC 9110
     # section 9.2.1: PUT/PATCH/DELETE are not safe). The other POSTs take a
     # draft in the body and only read.
-    changing = {("POST", "/v1/imports"), ("DELETE", "/v1/accounts/{handle}"),
-                ("DELETE", "/v1/posts/{post_id}")}
-    changing |= {(m, p) for m, p in ops
-                 if m in {"PUT", "PATCH", "DELETE"} or "train" in p or "import" in p}
+    changing = {
+        ("POST", "/v1/imports"),
+        ("DELETE", "/v1/accounts/{handle}"),
+        ("DELETE", "/v1/posts/{post_id}"),
+    }
+    changing |= {(m, p) for m, p in ops if m in {"PUT", "PATCH", "DELETE"} or "train" in p or "import" in p}
     assert changing <= guarded, changing - guarded
     # Declared is not enough: each one really refuses a request without it.
     before = ws.store.counts()
@@ -219,9 +223,13 @@ def test_serve_command_refuses_public_address_without_token(
     assert "Error: refusing to listen on 0.0.0.0 without SOUNDING_TOKEN" in r.output
     assert started == []
     use_embedder(embedder)  # drop the CLI's cached workspace, read the settings anew
-    r = runner.invoke(cli_app, ["serve", "--host", "0.0.0.0", "--port", "8765"],
-                      env={**env, "SOUNDING_TOKEN": TOKEN})
+    r = runner.invoke(
+        cli_app, ["serve", "--host", "0.0.0.0", "--port", "8765"], env={**env, "SOUNDING_TOKEN": TOKEN}
+    )
     assert r.exit_code == 0, r.output
     assert len(started) == 1
     assert {k: started[0][k] for k in ("host", "port", "log_level")} == {
-        "host": "0.0.0.0", "port": 8765, "log_level": "info"}
+        "host": "0.0.0.0",
+        "port": 8765,
+        "log_level": "info",
+    }

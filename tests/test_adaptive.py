@@ -56,10 +56,12 @@ def test_fixed_split_conformal_loses_coverage_after_the_shift_and_aci_keeps_it(s
         assert abs((1 - miss[T // 2 :].mean()) - (1 - ALPHA)) <= 0.03
 
 
-@pytest.mark.parametrize(("alpha_start", "gamma", "steps"), [(0.2, 0.01, 500), (0.1, 0.05, 300),
-                                                            (0.5, 0.005, 2000)])
-def test_long_run_bound_holds_on_an_adversarial_sequence(alpha_start: float, gamma: float,
-                                                         steps: int) -> None:
+@pytest.mark.parametrize(
+    ("alpha_start", "gamma", "steps"), [(0.2, 0.01, 500), (0.1, 0.05, 300), (0.5, 0.005, 2000)]
+)
+def test_long_run_bound_holds_on_an_adversarial_sequence(
+    alpha_start: float, gamma: float, steps: int
+) -> None:
     """An adversary puts every outcome just outside any finite band; only the
     whole-line band (alpha_t <= 0) covers. Proposition 4.1 of Gibbs & Candès 2021:
     |mean(err) - alpha| <= (max(alpha_1, 1 - alpha_1) + gamma) / (gamma T)."""
@@ -103,17 +105,18 @@ def test_agrees_with_mapie_aci_on_the_same_stream() -> None:
     est = DummyRegressor(strategy="constant", constant=0.0).fit(np.zeros((5, 1)), np.zeros(5))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        mapie = TimeSeriesRegressor(estimator=est, method="aci", cv="prefit").fit(
-            np.zeros((300, 1)), cal)
+        mapie = TimeSeriesRegressor(estimator=est, method="aci", cv="prefit").fit(np.zeros((300, 1)), cal)
         theirs = []
         for v in y:
             # Their coverage check, before the update: is v inside their band at alpha_t?
             alpha_t = float(next(iter(getattr(mapie, "current_alpha", {}).values()), ALPHA))
-            _, bounds = mapie.predict(np.zeros((1, 1)), confidence_level=1 - alpha_t
-                                      if 0 < alpha_t < 1 else 0.999, allow_infinite_bounds=True)
+            _, bounds = mapie.predict(
+                np.zeros((1, 1)),
+                confidence_level=1 - alpha_t if 0 < alpha_t < 1 else 0.999,
+                allow_infinite_bounds=True,
+            )
             theirs.append(not (bounds[0, 0, 0] < v < bounds[0, 1, 0]) if alpha_t > 0 else False)
-            mapie.adapt_conformal_inference(np.zeros((1, 1)), np.array([v]), gamma=0.01,
-                                            confidence_level=0.8)
+            mapie.adapt_conformal_inference(np.zeros((1, 1)), np.array([v]), gamma=0.01, confidence_level=0.8)
     ours = AdaptiveConformal(alpha=ALPHA, gamma=0.01).fit(np.abs(cal))  # |y - 0| = CQR score
     mine = [ours.update(float(v), 0.0, 0.0) for v in y]
     ours_alpha = min(max(ours.alpha_t_, 0.0), 1.0)

@@ -48,7 +48,7 @@ def test_precedents_are_the_nearest_posts_with_their_metrics(
     found = resp.json()["precedents"]
     assert len(found) == 7
     for p in found:
-        assert FIELDS <= set(p)
+        assert set(p) >= FIELDS
         assert set(p["metrics"]) == set(METRIC_COLUMNS)
     sims = [p["similarity"] for p in found]
     assert sims == sorted(sims, reverse=True)
@@ -61,9 +61,7 @@ def test_precedents_are_the_nearest_posts_with_their_metrics(
         row = frame.loc[(p["account"], p["post_id"])]
         assert p["text"] == row["text"]
         assert pd.Timestamp(datetime.fromisoformat(p["posted_at"])) == row["posted_at"]
-        assert {m: p["metrics"][m] for m in METRIC_COLUMNS} == {
-            m: int(row[m]) for m in METRIC_COLUMNS
-        }
+        assert {m: p["metrics"][m] for m in METRIC_COLUMNS} == {m: int(row[m]) for m in METRIC_COLUMNS}
         assert p["similarity"] == pytest.approx(
             float(demo_workspace.store.vectors([row["vector_key"]])[0] @ q), abs=1e-4
         )
@@ -96,14 +94,17 @@ def test_unknown_account_is_404(client: TestClient) -> None:
 @pytest.mark.parametrize(
     ("body", "status", "code"),
     [
-        ({"text": ""}, 422, "invalid_request"),       # schema: min_length=1
-        ({"text": "   \n "}, 422, "invalid_input"),   # only whitespace: the library says so
+        ({"text": ""}, 422, "invalid_request"),  # schema: min_length=1
+        ({"text": "   \n "}, 422, "invalid_input"),  # only whitespace: the library says so
         ({}, 422, "invalid_request"),
         ({"text": DRAFT, "k": 0}, 422, "invalid_request"),
         ({"text": DRAFT, "k": 101}, 422, "invalid_request"),
         ({"text": DRAFT, "colour": "red"}, 422, "invalid_request"),  # unknown fields refused
-        ({"text": DRAFT, "since": "2026-02-01T00:00:00Z", "until": "2026-01-01T00:00:00Z"},
-         422, "invalid_input"),
+        (
+            {"text": DRAFT, "since": "2026-02-01T00:00:00Z", "until": "2026-01-01T00:00:00Z"},
+            422,
+            "invalid_input",
+        ),
         ({"text": "x" * 5001}, 413, "limit_exceeded"),
     ],
 )

@@ -25,8 +25,7 @@ CSV = (
     "c2,Volunteer morning in the propagation house,2026-02-02T09:00:00Z,300\n"
     "c3,,2026-02-03T09:00:00Z,300\n"
 )
-MAP = ["--map", "post_id=ID", "--map", "text=Body", "--map", "posted_at=When",
-       "--map", "impressions=Views"]
+MAP = ["--map", "post_id=ID", "--map", "text=Body", "--map", "posted_at=When", "--map", "impressions=Views"]
 
 
 @pytest.fixture(autouse=True)
@@ -45,7 +44,9 @@ def _plain(text: str) -> str:
     return " ".join(re.sub(r"[│╭╮╰╯─]", " ", text).split())
 
 
-def _commands(group: click.Group, prefix: tuple[str, ...] = ()) -> Iterator[tuple[tuple[str, ...], click.Command]]:
+def _commands(
+    group: click.Group, prefix: tuple[str, ...] = ()
+) -> Iterator[tuple[tuple[str, ...], click.Command]]:
     for name, cmd in sorted(group.commands.items()):
         yield (*prefix, name), cmd
         if isinstance(cmd, click.Group):
@@ -97,11 +98,14 @@ def assert_clean_failure(r, *fragments: str) -> str:
 
 
 def test_unknown_timezone_is_refused(tmp_path: Path) -> None:
-    assert_clean_failure(run("account", "garden", "--timezone", "Mars/Olympus"),
-                         "unknown time zone 'Mars/Olympus'")
+    assert_clean_failure(
+        run("account", "garden", "--timezone", "Mars/Olympus"), "unknown time zone 'Mars/Olympus'"
+    )
     (tmp_path / "a.csv").write_text(CSV)
-    assert_clean_failure(run("import", str(tmp_path / "a.csv"), *MAP, "--account", "g",
-                             "--timezone", "Mars/Olympus"), "unknown time zone")
+    assert_clean_failure(
+        run("import", str(tmp_path / "a.csv"), *MAP, "--account", "g", "--timezone", "Mars/Olympus"),
+        "unknown time zone",
+    )
     # Nothing was created by the refusals.
     r = run("accounts", "--json")
     assert r.exit_code == 0 and json.loads(r.stdout) == []
@@ -144,16 +148,17 @@ def test_import_with_mapping_and_account(tmp_path: Path) -> None:
     assert r.exit_code == 3, r.output  # a row was rejected: a scheduled script must notice
     assert "added 2, updated 0, unchanged 0, rejected 1" in r.stdout
     assert "rejected line 4, column text: is empty" in r.stderr
-    r = run("import", str(tmp_path / "a.csv"), *MAP, "--account", "garden", "--json",
-            "--allow-rejects")
+    r = run("import", str(tmp_path / "a.csv"), *MAP, "--account", "garden", "--json", "--allow-rejects")
     assert r.exit_code == 0
     summary = json.loads(r.stdout)
     assert (summary["added"], summary["unchanged"], summary["rejected"], summary["embedded"]) == (0, 2, 1, 0)
-    assert summary["problems"] == [{"line": 4, "column": "text", "reason": "is empty",
-                                    "hint": None, "post_id": "c3"}]
+    assert summary["problems"] == [
+        {"line": 4, "column": "text", "reason": "is empty", "hint": None, "post_id": "c3"}
+    ]
     accounts = json.loads(run("accounts", "--json").stdout)
-    assert accounts == [{"handle": "garden", "display_name": "The Garden",
-                         "timezone": "Europe/London", "posts": 2}]
+    assert accounts == [
+        {"handle": "garden", "display_name": "The Garden", "timezone": "Europe/London", "posts": 2}
+    ]
     r = run("reindex")
     assert r.exit_code == 0 and "index rebuilt: 2 posts" in r.stdout
 
@@ -170,7 +175,9 @@ def test_precedents_json(demo_env: Path) -> None:
     found = json.loads(r.stdout)["precedents"]
     assert len(found) == 4
     for p in found:
-        assert {"post_id", "account", "posted_at", "text", "similarity", "metrics", "still_gathering"} <= set(p)
+        assert {"post_id", "account", "posted_at", "text", "similarity", "metrics", "still_gathering"} <= set(
+            p
+        )
         assert set(p["metrics"]) == set(METRIC_COLUMNS)
     sims = [p["similarity"] for p in found]
     assert sims == sorted(sims, reverse=True)

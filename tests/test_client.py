@@ -12,6 +12,7 @@ from pathlib import Path
 
 import pytest
 from fastapi.testclient import TestClient
+from serving import serve
 
 from models.errors import (
     AuthError,
@@ -23,15 +24,16 @@ from models.errors import (
     StoreError,
 )
 from service.api.app import create_app
-from serving import serve
 from service.api.schemas import DraftIn
 from service.client import SoundingClient, error_from
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
 AT = "2026-10-14T12:30:00"
-DRAFT = ("The dahlias in the Walled Garden are at their peak this week 🌸 The colour glows in "
-         "low sun. #WhatsFlowering")
+DRAFT = (
+    "The dahlias in the Walled Garden are at their peak this week 🌸 The colour glows in "
+    "low sun. #WhatsFlowering"
+)
 
 
 @pytest.fixture(scope="module")
@@ -55,16 +57,21 @@ def test_health_matches_the_store(client: SoundingClient, demo_workspace) -> Non
 
 def test_forecast_equals_the_api_answer(client: SoundingClient, demo_workspace) -> None:
     f = client.forecast(DRAFT, account="loomhaven", planned_at=AT)
-    raw = TestClient(create_app(workspace=demo_workspace)).post(
-        "/v1/forecasts", json={"text": DRAFT, "account": "loomhaven", "planned_at": AT}).json()
+    raw = (
+        TestClient(create_app(workspace=demo_workspace))
+        .post("/v1/forecasts", json={"text": DRAFT, "account": "loomhaven", "planned_at": AT})
+        .json()
+    )
     assert (f.low, f.median, f.high) == (raw["low"], raw["median"], raw["high"])
     assert [p.post_id for p in f.precedents] == [p["post_id"] for p in raw["precedents"]]
     assert f.low <= f.median <= f.high and f.caution
 
 
 def test_plan_hours_and_compare(client: SoundingClient) -> None:
-    drafts = [DraftIn(text=DRAFT, account="loomhaven", planned_at=AT, draft_id="a"),
-              {"text": DRAFT, "account": "loomhaven_events", "planned_at": AT, "draft_id": "b"}]
+    drafts = [
+        DraftIn(text=DRAFT, account="loomhaven", planned_at=AT, draft_id="a"),
+        {"text": DRAFT, "account": "loomhaven_events", "planned_at": AT, "draft_id": "b"},
+    ]
     got = client.forecast_plan(drafts)
     assert [f.draft_id for f in got] == ["a", "b"]
     assert [f.account for f in got] == ["loomhaven", "loomhaven_events"]
@@ -109,9 +116,11 @@ def test_unreachable_service() -> None:
     with socket.socket() as s:  # a port that was free a moment ago: nothing listens there
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
-    with SoundingClient(base_url=f"http://127.0.0.1:{port}", timeout=5) as c:
-        with pytest.raises(ServiceUnavailable, match="cannot reach"):
-            c.health()
+    with (
+        SoundingClient(base_url=f"http://127.0.0.1:{port}", timeout=5) as c,
+        pytest.raises(ServiceUnavailable, match="cannot reach"),
+    ):
+        c.health()
     assert issubclass(ServiceUnavailable, StoreError)
 
 

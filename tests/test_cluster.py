@@ -58,16 +58,44 @@ def ray_head() -> Iterator[str]:
     tmp = Path(tempfile.mkdtemp(prefix="sray"))  # short: Ray's socket paths must stay short
     log = (tmp / "head.log").open("w")
     env = dict(os.environ, PYTHONPATH=str(ROOT), RAY_USAGE_STATS_ENABLED="0")
-    cmd = [str(RAY), "start", "--head", "--block", "--num-cpus", "2", "--port", str(gcs),
-           "--ray-client-server-port", str(client), "--node-manager-port", str(node),
-           "--object-manager-port", str(obj), "--dashboard-agent-listen-port", str(agent),
-           "--dashboard-agent-grpc-port", str(agent_grpc), "--metrics-export-port", str(metrics),
-           "--runtime-env-agent-port", str(env_agent), "--include-dashboard", "false",
-           "--min-worker-port", str(lo), "--max-worker-port", str(lo + 99),
-           "--object-store-memory", str(200_000_000), "--temp-dir", str(tmp),
-           "--disable-usage-stats"]
-    proc = subprocess.Popen(cmd, stdout=log, stderr=subprocess.STDOUT, env=env,
-                            start_new_session=True)  # its own group: stopped by our pid only
+    cmd = [
+        str(RAY),
+        "start",
+        "--head",
+        "--block",
+        "--num-cpus",
+        "2",
+        "--port",
+        str(gcs),
+        "--ray-client-server-port",
+        str(client),
+        "--node-manager-port",
+        str(node),
+        "--object-manager-port",
+        str(obj),
+        "--dashboard-agent-listen-port",
+        str(agent),
+        "--dashboard-agent-grpc-port",
+        str(agent_grpc),
+        "--metrics-export-port",
+        str(metrics),
+        "--runtime-env-agent-port",
+        str(env_agent),
+        "--include-dashboard",
+        "false",
+        "--min-worker-port",
+        str(lo),
+        "--max-worker-port",
+        str(lo + 99),
+        "--object-store-memory",
+        str(200_000_000),
+        "--temp-dir",
+        str(tmp),
+        "--disable-usage-stats",
+    ]
+    proc = subprocess.Popen(
+        cmd, stdout=log, stderr=subprocess.STDOUT, env=env, start_new_session=True
+    )  # its own group: stopped by our pid only
     try:
         deadline, up = time.monotonic() + 120, False
         while not up and proc.poll() is None and time.monotonic() < deadline:
@@ -105,21 +133,25 @@ def test_address_must_be_a_ray_client_address() -> None:
     assert check_address("ray://head.internal:10001") == "ray://head.internal:10001"
 
 
-def test_cli_refuses_a_bad_cluster_address(embedder: Embedder, tmp_path: Path,
-                                           monkeypatch: pytest.MonkeyPatch) -> None:
+def test_cli_refuses_a_bad_cluster_address(
+    embedder: Embedder, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     use_embedder(embedder)
     monkeypatch.setenv("SOUNDING_HOME", str(tmp_path / "home"))
-    res = CliRunner().invoke(app, ["import", str(small_csv(tmp_path / "p.csv", 5)),
-                                   "--cluster", "10.0.0.1:10001"])
+    res = CliRunner().invoke(
+        app, ["import", str(small_csv(tmp_path / "p.csv", 5)), "--cluster", "10.0.0.1:10001"]
+    )
     assert res.exit_code == 1 and "ray://HOST:PORT" in res.output
-    assert Workspace(settings=Settings(home=tmp_path / "home"),
-                     embedder=embedder).store.counts()["posts"] == 0
+    assert (
+        Workspace(settings=Settings(home=tmp_path / "home"), embedder=embedder).store.counts()["posts"] == 0
+    )
 
 
 @pytest.mark.slow
 @pytest.mark.timeout(900)
-def test_cluster_import_equals_local_import(ray_head: str, embedder: Embedder, tmp_path: Path,
-                                            monkeypatch: pytest.MonkeyPatch) -> None:
+def test_cluster_import_equals_local_import(
+    ray_head: str, embedder: Embedder, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
     import ray
 
     src = small_csv(tmp_path / "posts.csv", 60)
@@ -130,8 +162,9 @@ def test_cluster_import_equals_local_import(ray_head: str, embedder: Embedder, t
     monkeypatch.setenv("SOUNDING_HOME", str(tmp_path / "cluster"))
     before = embedder.calls
     try:
-        res = CliRunner().invoke(app, ["import", str(src), "--cluster", ray_head,
-                                       "--cluster-workers", "2", "--json"])
+        res = CliRunner().invoke(
+            app, ["import", str(src), "--cluster", ray_head, "--cluster-workers", "2", "--json"]
+        )
     finally:
         ray.shutdown()
     assert res.exit_code == 0, res.output
@@ -153,7 +186,10 @@ def test_cluster_import_equals_local_import(ray_head: str, embedder: Embedder, t
     assert float(np.min(np.sum(va * vb, axis=1))) >= 0.99999
     # And the indexes built from them find the same 10 nearest posts (by post id).
     q = embedder.encode(["Bluebells in the woodland walk this week"])
-    ids_by_pk_a, ids_by_pk_b = dict(zip(a["pk"], a["post_id"])), dict(zip(b["pk"], b["post_id"]))
+    ids_by_pk_a, ids_by_pk_b = (
+        dict(zip(a["pk"], a["post_id"], strict=True)),
+        dict(zip(b["pk"], b["post_id"], strict=True)),
+    )
     near_a = [ids_by_pk_a[int(p)] for p in local.index().search(q, 10)[1][0]]
     near_b = [ids_by_pk_b[int(p)] for p in remote.index().search(q, 10)[1][0]]
     assert near_a == near_b

@@ -12,19 +12,17 @@ import threading
 from pathlib import Path
 
 import httpx
-
+from conftest import TOKEN
 from serving import serve
 
 from service.api.app import create_app
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN
 
 THREADS, PER_THREAD = 3, 12
 
 
-def test_forecasts_during_import_and_training(demo_home, embedder, tmp_path: Path,
-                                              capsys) -> None:
+def test_forecasts_during_import_and_training(demo_home, embedder, tmp_path: Path, capsys) -> None:
     shutil.copytree(demo_home, tmp_path / "home")
     ws = Workspace(settings=Settings(home=tmp_path / "home", token=TOKEN), embedder=embedder)
     old = ws.forecaster.model("impressions")
@@ -32,7 +30,9 @@ def test_forecasts_during_import_and_training(demo_home, embedder, tmp_path: Pat
     assert old_bt is not None
     csv_text = "post_id,account,text,posted_at,impressions\n" + "".join(
         f"c-{i},loomhaven,Late tulips along the lake path (note {i}),2026-10-{1 + i % 28:02d}T11:00Z,"
-        f"{900 + i}\n" for i in range(60))
+        f"{900 + i}\n"
+        for i in range(60)
+    )
 
     served = serve(create_app(workspace=ws))
     base = served.__enter__()
@@ -45,9 +45,14 @@ def test_forecasts_during_import_and_training(demo_home, embedder, tmp_path: Pat
     def forecasts(t: int) -> None:
         with httpx.Client(base_url=base, timeout=120) as c:
             for i in range(PER_THREAD):
-                r = c.post("/v1/forecasts", json={
-                    "text": f"Magnolias in the Long Border, week {i}", "account": "loomhaven",
-                    "planned_at": "2026-12-03T12:00"})
+                r = c.post(
+                    "/v1/forecasts",
+                    json={
+                        "text": f"Magnolias in the Long Border, week {i}",
+                        "account": "loomhaven",
+                        "planned_at": "2026-12-03T12:00",
+                    },
+                )
                 with lock:
                     if r.status_code == 200:
                         answers.append({**r.json(), "_during": changing.is_set()})
@@ -66,7 +71,8 @@ def test_forecasts_during_import_and_training(demo_home, embedder, tmp_path: Pat
         changing.clear()
 
     workers = [threading.Thread(target=changes)] + [
-        threading.Thread(target=forecasts, args=(t,)) for t in range(THREADS)]
+        threading.Thread(target=forecasts, args=(t,)) for t in range(THREADS)
+    ]
     for w in workers:
         w.start()
     for w in workers:
@@ -89,6 +95,8 @@ def test_forecasts_during_import_and_training(demo_home, embedder, tmp_path: Pat
         assert a["low"] <= a["median"] <= a["high"]
     assert sum(a["_during"] for a in answers) > 0, "no forecast overlapped the changes"
     with capsys.disabled():
-        print(f"\nconcurrency: {len(answers)} forecasts, {len(errors)} errors, "
-              f"{sum(a['_during'] for a in answers)} during import+training, versions seen: "
-              f"{sorted(seen)}")
+        print(
+            f"\nconcurrency: {len(answers)} forecasts, {len(errors)} errors, "
+            f"{sum(a['_during'] for a in answers)} during import+training, versions seen: "
+            f"{sorted(seen)}"
+        )

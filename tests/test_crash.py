@@ -35,10 +35,26 @@ ROOT = Path(__file__).resolve().parents[1]
 # 300 distinct short texts, reused over 6,000 rows: after the first two
 # batches nothing new needs embedding, so a batch is mostly its write
 # transaction and the kill is likely to land inside one.
-SUBJECTS = ["Magnolias", "Snowdrops", "The bee hotel", "Seed library", "Fern house",
-            "Rose arbour", "Herb garden", "Lake path", "Orchard", "Glasshouse"]
-NEWS = ["opens early", "needs volunteers", "is in full colour", "gets a new bench",
-        "hosts a sketching morning", "is closed for repairs"]
+SUBJECTS = [
+    "Magnolias",
+    "Snowdrops",
+    "The bee hotel",
+    "Seed library",
+    "Fern house",
+    "Rose arbour",
+    "Herb garden",
+    "Lake path",
+    "Orchard",
+    "Glasshouse",
+]
+NEWS = [
+    "opens early",
+    "needs volunteers",
+    "is in full colour",
+    "gets a new bench",
+    "hosts a sketching morning",
+    "is closed for repairs",
+]
 WHEN = ["this Saturday", "from Monday", "after the rain", "at dawn", "all week"]
 TEXTS = [f"{s} {n} {w}." for s in SUBJECTS for n in NEWS for w in WHEN]
 
@@ -52,9 +68,16 @@ def write_big_csv(path: Path) -> list[str]:
         for i in range(ROWS):
             pid = f"big-{i:05d}"
             ids.append(pid)
-            w.writerow([pid, ("loomhaven", "loomhaven_events", "loomhaven_lab")[i % 3],
-                        TEXTS[i % len(TEXTS)], (start + timedelta(minutes=97 * i)).isoformat(),
-                        150 + (i * 37) % 2000, (i * 13) % 90])
+            w.writerow(
+                [
+                    pid,
+                    ("loomhaven", "loomhaven_events", "loomhaven_lab")[i % 3],
+                    TEXTS[i % len(TEXTS)],
+                    (start + timedelta(minutes=97 * i)).isoformat(),
+                    150 + (i * 37) % 2000,
+                    (i * 13) % 90,
+                ]
+            )
     return ids
 
 
@@ -82,13 +105,14 @@ def test_killed_import_leaves_whole_batches_and_a_rerun_completes_it(
     home = tmp_path / "home"
     db = home / "sounding.db"
     env = {k: v for k, v in os.environ.items() if not k.startswith("SOUNDING_")}
-    env.update(SOUNDING_HOME=str(home), SOUNDING_IMPORT_BATCH_ROWS=str(BATCH),
-               HF_HUB_OFFLINE="1")
+    env.update(SOUNDING_HOME=str(home), SOUNDING_IMPORT_BATCH_ROWS=str(BATCH), HF_HUB_OFFLINE="1")
     log = (tmp_path / "import.out").open("wb")
     proc = subprocess.Popen(
-        [sys.executable, "-c", "from service.cli import main; main()", "import", str(big),
-         "--json"],
-        cwd=ROOT, env=env, stdout=log, stderr=subprocess.STDOUT,
+        [sys.executable, "-c", "from service.cli import main; main()", "import", str(big), "--json"],
+        cwd=ROOT,
+        env=env,
+        stdout=log,
+        stderr=subprocess.STDOUT,
     )
     try:
         deadline = time.monotonic() + 240  # the subprocess loads the model itself
@@ -118,15 +142,34 @@ def test_killed_import_leaves_whole_batches_and_a_rerun_completes_it(
         stored = [r[0] for r in con.execute("SELECT post_id FROM posts ORDER BY id")]
         assert stored == ids[:committed]
         assert one(con, "SELECT COUNT(*) FROM snapshots") == committed
-        assert one(con, """SELECT COUNT(*) FROM posts p WHERE
-                           (SELECT COUNT(*) FROM snapshots s WHERE s.post_pk = p.id) != 1""") == 0
-        assert one(con, """SELECT COUNT(*) FROM posts p
-                           LEFT JOIN vectors v ON v.key = p.vector_key WHERE v.key IS NULL""") == 0
-        assert one(con, """SELECT COUNT(*) FROM vectors
-                           WHERE key NOT IN (SELECT vector_key FROM posts)""") == 0
+        assert (
+            one(
+                con,
+                """SELECT COUNT(*) FROM posts p WHERE
+                           (SELECT COUNT(*) FROM snapshots s WHERE s.post_pk = p.id) != 1""",
+            )
+            == 0
+        )
+        assert (
+            one(
+                con,
+                """SELECT COUNT(*) FROM posts p
+                           LEFT JOIN vectors v ON v.key = p.vector_key WHERE v.key IS NULL""",
+            )
+            == 0
+        )
+        assert (
+            one(
+                con,
+                """SELECT COUNT(*) FROM vectors
+                           WHERE key NOT IN (SELECT vector_key FROM posts)""",
+            )
+            == 0
+        )
         # The vectors the killed process wrote are the model's vectors of the texts.
-        sample = con.execute("SELECT p.text, v.data FROM posts p JOIN vectors v "
-                             "ON v.key = p.vector_key ORDER BY p.id LIMIT 5").fetchall()
+        sample = con.execute(
+            "SELECT p.text, v.data FROM posts p JOIN vectors v ON v.key = p.vector_key ORDER BY p.id LIMIT 5"
+        ).fetchall()
     finally:
         con.close()
     theirs = np.vstack([np.frombuffer(d, dtype=np.float32) for _, d in sample])
@@ -145,17 +188,27 @@ def test_killed_import_leaves_whole_batches_and_a_rerun_completes_it(
 
         summary = ws.import_csv(big)  # the re-run
         assert (summary.added, summary.unchanged, summary.updated, summary.rejected) == (
-            ROWS - committed, committed, 0, 0)
-        assert ws.store.counts() == {"accounts": 3, "posts": ROWS, "snapshots": ROWS,
-                                     "vectors": len(TEXTS)}
+            ROWS - committed,
+            committed,
+            0,
+            0,
+        )
+        assert ws.store.counts() == {"accounts": 3, "posts": ROWS, "snapshots": ROWS, "vectors": len(TEXTS)}
         assert ws.index_state() == {"state": "ready", "count": ROWS}
     finally:
         ws.close()
-    figures = {"rows": ROWS, "batch_rows": BATCH, "committed_at_kill": committed,
-               "whole_batches": committed // BATCH, "rerun_added": ROWS - committed,
-               "rerun_unchanged": committed}
+    figures = {
+        "rows": ROWS,
+        "batch_rows": BATCH,
+        "committed_at_kill": committed,
+        "whole_batches": committed // BATCH,
+        "rerun_added": ROWS - committed,
+        "rerun_unchanged": committed,
+    }
     (artifacts / "crash.json").write_text(json.dumps(figures, indent=2))
     with capsys.disabled():
-        print(f"\ncrash: SIGKILL after {committed} of {ROWS} rows committed "
-              f"({committed // BATCH} whole batches of {BATCH}, no partial batch); index found "
-              f"stale and rebuilt; re-run added {ROWS - committed}, unchanged {committed}")
+        print(
+            f"\ncrash: SIGKILL after {committed} of {ROWS} rows committed "
+            f"({committed // BATCH} whole batches of {BATCH}, no partial batch); index found "
+            f"stale and rebuilt; re-run added {ROWS - committed}, unchanged {committed}"
+        )

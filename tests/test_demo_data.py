@@ -1,6 +1,7 @@
 """Checks on the committed demo data set (demo_data/): format, time zones, and that the
 documented effects and planted repeats are really in the data. These read the files
 directly and re-derive everything, rather than trusting the generator's own bookkeeping."""
+
 import csv
 import difflib
 import json
@@ -18,13 +19,27 @@ import numpy as np
 import pytest
 
 DEMO = Path(__file__).resolve().parent.parent / "demo_data"
-OUTPUTS = ["posts.csv", "truth.csv", "planted_repeats.csv", "plan.csv", "effects.json",
-           "sample_draft.txt"]
-HEADER = ["post_id", "account", "text", "posted_at", "impressions", "engagements", "likes",
-          "reposts", "replies", "link_clicks", "profile_clicks", "has_media"]
+OUTPUTS = ["posts.csv", "truth.csv", "planted_repeats.csv", "plan.csv", "effects.json", "sample_draft.txt"]
+HEADER = [
+    "post_id",
+    "account",
+    "text",
+    "posted_at",
+    "impressions",
+    "engagements",
+    "likes",
+    "reposts",
+    "replies",
+    "link_clicks",
+    "profile_clicks",
+    "has_media",
+]
 METRICS = HEADER[4:11]
-ZONES = {"loomhaven": "Europe/London", "loomhaven_events": "Europe/London",
-         "loomhaven_lab": "America/New_York"}
+ZONES = {
+    "loomhaven": "Europe/London",
+    "loomhaven_events": "Europe/London",
+    "loomhaven_lab": "America/New_York",
+}
 
 
 def read_csv(name):
@@ -34,7 +49,7 @@ def read_csv(name):
 
 def rows(name):
     header, *body = read_csv(name)
-    return [dict(zip(header, r)) for r in body]
+    return [dict(zip(header, r, strict=True)) for r in body]
 
 
 @pytest.fixture(scope="module")
@@ -82,11 +97,13 @@ def close_to_any(text, others, cap=0.8):
 # ------------------------------------------------------------------ reproducibility
 @pytest.mark.slow
 def test_committed_files_equal_a_fresh_generation(tmp_path):
-    subprocess.run([sys.executable, str(DEMO / "generate.py"), str(tmp_path)], check=True,
-                   capture_output=True)
+    subprocess.run(
+        [sys.executable, str(DEMO / "generate.py"), str(tmp_path)], check=True, capture_output=True
+    )
     for name in OUTPUTS:
         assert (tmp_path / name).read_bytes() == (DEMO / name).read_bytes(), (
-            f"{name} differs from a fresh run; rerun `python demo_data/generate.py`")
+            f"{name} differs from a fresh run; rerun `python demo_data/generate.py`"
+        )
 
 
 # ------------------------------------------------------------------ format
@@ -130,8 +147,12 @@ def test_posted_at_offset_matches_account_zone(posts):
         assert zoned.utcoffset() == dt.utcoffset(), (p["account"], p["posted_at"])
         assert date(2025, 5, 1) <= dt.date() <= date(2026, 10, 31)
     offsets = {(p["account"], p["posted_at"][-6:]) for p in posts}
-    assert {("loomhaven", "+01:00"), ("loomhaven", "+00:00"),
-            ("loomhaven_lab", "-04:00"), ("loomhaven_lab", "-05:00")} <= offsets
+    assert {
+        ("loomhaven", "+01:00"),
+        ("loomhaven", "+00:00"),
+        ("loomhaven_lab", "-04:00"),
+        ("loomhaven_lab", "-05:00"),
+    } <= offsets
 
 
 def test_only_invented_links_and_own_handles(posts):
@@ -140,7 +161,10 @@ def test_only_invented_links_and_own_handles(posts):
             assert url.startswith("https://loomhaven.example/"), url
         for handle in re.findall(r"@(\w+)", p["text"]):
             assert handle in ZONES and handle != p["account"], p["text"]
-    share = lambda ch: sum(ch in p["text"] for p in posts) / len(posts)
+
+    def share(ch):
+        return sum(ch in p["text"] for p in posts) / len(posts)
+
     assert 0.1 < share("#") < 0.9 and 0.05 < share("@") < 0.5 and 0.1 < share("https://") < 0.9
 
 
@@ -187,11 +211,18 @@ def test_regression_recovers_documented_effects(posts, truth, effects):
     for p in posts:
         t = truth[(p["account"], p["post_id"])]
         dt = datetime.fromisoformat(p["posted_at"])
-        X.append([1.0] + [p["account"] == a for a in accounts[1:]]
-                 + [t["topic"] == k for k in order[1:]]
-                 + [dt.hour == h for h in range(24) if h != 12]
-                 + ["https://" in p["text"], p["has_media"] == "true", dt.weekday() >= 5,
-                    (dt.date() - date(2025, 5, 1)).days / 365.25])
+        X.append(
+            [1.0]
+            + [p["account"] == a for a in accounts[1:]]
+            + [t["topic"] == k for k in order[1:]]
+            + [dt.hour == h for h in range(24) if h != 12]
+            + [
+                "https://" in p["text"],
+                p["has_media"] == "true",
+                dt.weekday() >= 5,
+                (dt.date() - date(2025, 5, 1)).days / 365.25,
+            ]
+        )
         y.append(log_imp(p))
     b, *_ = np.linalg.lstsq(np.array(X, dtype=float), np.array(y), rcond=None)
     link, media, weekend, trend = b[-4:]
@@ -199,7 +230,7 @@ def test_regression_recovers_documented_effects(posts, truth, effects):
     assert abs(media - effects["media"]) < 0.08
     assert abs(weekend - effects["weekend"]) < 0.08
     assert abs(trend - effects["trend_per_year"]) < 0.12
-    topic = dict(zip(order, [0.0] + list(b[len(accounts):len(accounts) + len(order) - 1])))
+    topic = dict(zip(order, [0.0, *b[len(accounts) : len(accounts) + len(order) - 1]], strict=True))
     true = {k: v - effects["topic_effect"][order[0]] for k, v in effects["topic_effect"].items()}
     assert all(abs(topic[k] - true[k]) < 0.15 for k in order)
     assert [topic[k] for k in order] == sorted(topic.values(), reverse=True)
@@ -208,8 +239,9 @@ def test_regression_recovers_documented_effects(posts, truth, effects):
 
 
 def test_expected_log_impressions_track_observed(posts, truth, effects):
-    resid = [log_imp(p) - float(truth[(p["account"], p["post_id"])]["expected_log_impressions"])
-             for p in posts]
+    resid = [
+        log_imp(p) - float(truth[(p["account"], p["post_id"])]["expected_log_impressions"]) for p in posts
+    ]
     assert abs(statistics.fmean(resid)) < 0.05
     assert abs(statistics.pstdev(resid) - effects["noise_sd"]) < 0.03
 
@@ -238,8 +270,9 @@ def test_planted_repeats_are_close_copies_at_the_stated_delay(posts, planted):
     assert set(kinds) == {"same_account", "teammate"}
     for r in planted:
         rep, orig = index[(r["account"], r["post_id"])], index[(r["original_account"], r["original_post_id"])]
-        delay = (datetime.fromisoformat(rep["posted_at"])
-                 - datetime.fromisoformat(orig["posted_at"])).total_seconds() / 86400
+        delay = (
+            datetime.fromisoformat(rep["posted_at"]) - datetime.fromisoformat(orig["posted_at"])
+        ).total_seconds() / 86400
         assert abs(delay - float(r["days_after"])) < 0.01
         if r["kind"] == "same_account":
             assert r["account"] == r["original_account"] and 1 <= delay <= 20
@@ -261,7 +294,8 @@ def test_ordinary_posts_are_not_near_repeats(posts, truth, planted):
     groups = defaultdict(list)
     for p in ordinary:
         groups[truth[(p["account"], p["post_id"])]["topic"]].append(
-            (datetime.fromisoformat(p["posted_at"]), p["account"], tokens(p["text"])))
+            (datetime.fromisoformat(p["posted_at"]), p["account"], tokens(p["text"]))
+        )
     for items in groups.values():
         items.sort(key=lambda x: x[0])
         for i, (t, acct, tok) in enumerate(items):
@@ -280,7 +314,7 @@ def test_ordinary_posts_are_not_near_repeats(posts, truth, planted):
 def test_plan_drafts(posts, effects):
     header, *body = read_csv("plan.csv")
     assert header == ["draft_id", "account", "text", "planned_at"]
-    drafts = [dict(zip(header, r)) for r in body]
+    drafts = [dict(zip(header, r, strict=True)) for r in body]
     assert len(drafts) == 8 and len({d["draft_id"] for d in drafts}) == 8
     for d in drafts:
         dt = datetime.fromisoformat(d["planned_at"])

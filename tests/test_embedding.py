@@ -36,12 +36,14 @@ def test_same_text_gives_identical_vectors(embedder: Embedder) -> None:
 
 def test_paraphrase_scores_above_unrelated(embedder: Embedder) -> None:
     # A paraphrase pair is more similar than an unrelated pair: common practice, no source.
-    v = embedder.encode([
-        "The cherry trees in the garden are blossoming now.",
-        "Our cherry blossoms are flowering this week in the garden.",
-        "Membership renewals now have a ten percent discount at the shop.",
-        "Read our lab's new paper on soil fungi and root growth.",
-    ])
+    v = embedder.encode(
+        [
+            "The cherry trees in the garden are blossoming now.",
+            "Our cherry blossoms are flowering this week in the garden.",
+            "Membership renewals now have a ten percent discount at the shop.",
+            "Read our lab's new paper on soil fungi and root growth.",
+        ]
+    )
     para = float(v[0] @ v[1])
     assert para > float(v[0] @ v[2]) + 0.2
     assert para > float(v[0] @ v[3]) + 0.2

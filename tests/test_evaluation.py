@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
+import itertools
 import math
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import numpy as np
 import pytest
@@ -120,7 +121,7 @@ def test_rolling_origin_default_rule() -> None:
     assert [len(f[0]) for f in folds] == [400, 512, 624, 736]
     assert all(len(f[1]) == 150 and len(f[2]) == 112 for f in folds)
     # the origin rolls forward: each train block extends the previous one
-    for (tr_a, _, _), (tr_b, _, _) in zip(folds, folds[1:]):
+    for (tr_a, _, _), (tr_b, _, _) in itertools.pairwise(folds):
         assert set(tr_a) < set(tr_b)
 
 
@@ -133,13 +134,15 @@ def test_rolling_origin_with_ties_stays_strict() -> None:
 
 
 def test_rolling_origin_datetimes() -> None:
-    start = datetime(2024, 1, 1, tzinfo=timezone.utc)
+    start = datetime(2024, 1, 1, tzinfo=UTC)
     stamps = [start + timedelta(hours=h) for h in range(200)][::-1]
     folds = list(rolling_origin_splits(stamps, n_folds=2))
     _check_folds(np.arange(200)[::-1].astype(float), folds)
     as_dt64 = np.array([s.replace(tzinfo=None) for s in stamps], dtype="datetime64[ns]")
     folds64 = list(rolling_origin_splits(as_dt64, n_folds=2))
-    assert all(np.array_equal(a, b) for f, g in zip(folds, folds64) for a, b in zip(f, g))
+    assert all(
+        np.array_equal(a, b) for f, g in zip(folds, folds64, strict=True) for a, b in zip(f, g, strict=True)
+    )
 
 
 def test_rolling_origin_too_little_data() -> None:

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import csv
 import json
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import numpy as np
@@ -23,7 +23,7 @@ from service.timeparse import localize
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text())
-NOW = datetime(2026, 12, 1, 12, 0, tzinfo=timezone.utc)
+NOW = datetime(2026, 12, 1, 12, 0, tzinfo=UTC)
 
 
 def truth() -> list[dict[str, str]]:
@@ -42,11 +42,13 @@ def params(demo_workspace):
 
 
 def _matrix(v, params):
-    return F.training_matrix(v.history, local_hours=v.local_hours, weekdays=v.weekdays,
-                             forms=v.forms, params=params)
+    return F.training_matrix(
+        v.history, local_hours=v.local_hours, weekdays=v.weekdays, forms=v.forms, params=params
+    )
 
 
 # Leakage --------------------------------------------------------------------
+
 
 def test_no_leakage_future_metrics_leave_past_features_unchanged(view, params):
     X = _matrix(view, params)
@@ -54,11 +56,16 @@ def test_no_leakage_future_metrics_leave_past_features_unchanged(view, params):
     T = float(np.quantile(h.time, 0.6))
     rng = np.random.default_rng(0)
     future = h.time >= T
-    changed = F.History(pk=h.pk, time=h.time, account=h.account,
-                        log_target=np.where(future, rng.uniform(0, 15, len(h)), h.log_target),
-                        vectors=h.vectors)
-    X2 = F.training_matrix(changed, local_hours=view.local_hours, weekdays=view.weekdays,
-                           forms=view.forms, params=params)
+    changed = F.History(
+        pk=h.pk,
+        time=h.time,
+        account=h.account,
+        log_target=np.where(future, rng.uniform(0, 15, len(h)), h.log_target),
+        vectors=h.vectors,
+    )
+    X2 = F.training_matrix(
+        changed, local_hours=view.local_hours, weekdays=view.weekdays, forms=view.forms, params=params
+    )
     past = h.time < T
     np.testing.assert_array_equal(X[past], X2[past])
     # ...and the change is visible after T, so the check above is not vacuous.
@@ -71,9 +78,13 @@ def test_a_posts_own_metric_never_enters_its_features(view, params):
     X = _matrix(view, params)
     logs = h.log_target.copy()
     logs[i] += 5.0
-    X2 = F.training_matrix(F.History(h.pk, h.time, h.account, logs, h.vectors),
-                           local_hours=view.local_hours, weekdays=view.weekdays,
-                           forms=view.forms, params=params)
+    X2 = F.training_matrix(
+        F.History(h.pk, h.time, h.account, logs, h.vectors),
+        local_hours=view.local_hours,
+        weekdays=view.weekdays,
+        forms=view.forms,
+        params=params,
+    )
     np.testing.assert_array_equal(X[i], X2[i])
 
 
@@ -97,6 +108,7 @@ def test_neighbour_features_match_exact_search(view, params):
 
 # Training artefacts -----------------------------------------------------------
 
+
 def test_trained_model_is_a_versioned_artefact_with_report(demo_workspace):
     root = demo_workspace.settings.models_dir
     version = newest(root, "impressions")
@@ -111,8 +123,10 @@ def test_trained_model_is_a_versioned_artefact_with_report(demo_workspace):
     assert until <= start
     frame = demo_workspace.store.posts_frame()
     as_of = datetime.fromisoformat(m.report["data_as_of"])
-    mature = frame[(frame["posted_at"] <= as_of - timedelta(
-        hours=demo_workspace.settings.maturity_hours)) & frame["impressions"].notna()]
+    mature = frame[
+        (frame["posted_at"] <= as_of - timedelta(hours=demo_workspace.settings.maturity_hours))
+        & frame["impressions"].notna()
+    ]
     assert len(mature) == m.report["n_posts"]
     assert (mature["posted_at"] <= until).sum() >= m.report["n_train"]
     assert (mature["posted_at"] < start).sum() <= m.report["n_train"]
@@ -124,8 +138,9 @@ def test_service_swaps_to_a_newer_model_whole(demo_copy):
     first = ws.forecaster.model("impressions").version
     m = train(ws, "impressions", backtest=False, now=NOW)
     assert versions(ws.settings.models_dir, "impressions")[-1] == m.version != first
-    f = ws.forecaster.forecast([Draft(text="Magnolias are out in the Long Border",
-                                      account="loomhaven")], now=NOW)[0]
+    f = ws.forecaster.forecast(
+        [Draft(text="Magnolias are out in the Long Border", account="loomhaven")], now=NOW
+    )[0]
     assert f.model_version == m.version
     # No backtest in that version: the forecast says so rather than invent one.
     assert f.backtested_coverage is None
@@ -135,6 +150,7 @@ def test_service_swaps_to_a_newer_model_whole(demo_copy):
 
 
 # Backtest on the demo -------------------------------------------------------
+
 
 def test_backtest_beats_every_baseline_and_holds_coverage(demo_workspace):
     m = demo_workspace.forecaster.model("impressions")
@@ -152,6 +168,7 @@ def test_backtest_beats_every_baseline_and_holds_coverage(demo_workspace):
 
 # Forecasts --------------------------------------------------------------------
 
+
 def _at(account_tz: str, day: str, hour: int) -> datetime:
     return localize(datetime.fromisoformat(f"{day}T{hour:02d}:30"), account_tz)
 
@@ -160,11 +177,14 @@ def test_forecast_fields_and_interval(demo_workspace):
     draft = (ROOT / "demo_data" / "sample_draft.txt").read_text().strip()
     f = demo_workspace.forecaster.forecast(
         [Draft(text=draft, account="loomhaven", planned_at=_at("Europe/London", "2026-12-02", 12))],
-        coverage=0.9, now=NOW)[0]
+        coverage=0.9,
+        now=NOW,
+    )[0]
     assert 0 <= f.low <= f.median <= f.high
     assert f.coverage == 0.9
     assert f.backtested_coverage == pytest.approx(
-        demo_workspace.forecaster.model("impressions").backtested_coverage["0.9"])
+        demo_workspace.forecaster.model("impressions").backtested_coverage["0.9"]
+    )
     assert f.local_time.startswith("2026-12-02T12:30+00:00")
     assert len(f.precedents) >= 10
     sims = [p["similarity"] for p in f.precedents]
@@ -176,8 +196,13 @@ def test_forecast_fields_and_interval(demo_workspace):
 
 
 def test_wider_coverage_gives_wider_interval(demo_workspace):
-    d = [Draft(text="Volunteers wanted for the autumn bulb planting", account="loomhaven",
-               planned_at=_at("Europe/London", "2026-12-02", 12))]
+    d = [
+        Draft(
+            text="Volunteers wanted for the autumn bulb planting",
+            account="loomhaven",
+            planned_at=_at("Europe/London", "2026-12-02", 12),
+        )
+    ]
     narrow = demo_workspace.forecaster.forecast(d, coverage=0.5, now=NOW)[0]
     wide = demo_workspace.forecaster.forecast(d, coverage=0.95, now=NOW)[0]
     assert wide.low <= narrow.low and wide.high >= narrow.high
@@ -188,11 +213,18 @@ def test_contributions_add_up_to_the_prediction(demo_workspace):
     """TreeSHAP local accuracy (Lundberg et al. 2020): groups plus expected
     value equal the median model's raw output on the log scale."""
     fc = demo_workspace.forecaster
-    drafts = [Draft(text=t, account=a, planned_at=_at(z, "2026-12-03", h)) for t, a, z, h in [
-        ("Behind the scenes in the glasshouse this morning", "loomhaven", "Europe/London", 9),
-        ("New seed bank results are in https://loomhaven.example/lab", "loomhaven_lab",
-         "America/New_York", 15),
-    ]]
+    drafts = [
+        Draft(text=t, account=a, planned_at=_at(z, "2026-12-03", h))
+        for t, a, z, h in [
+            ("Behind the scenes in the glasshouse this morning", "loomhaven", "Europe/London", 9),
+            (
+                "New seed bank results are in https://loomhaven.example/lab",
+                "loomhaven_lab",
+                "America/New_York",
+                15,
+            ),
+        ]
+    ]
     out = fc.forecast(drafts, now=NOW)
     model = fc.model("impressions")
     view = fc.view("impressions")
@@ -205,7 +237,8 @@ def test_contributions_add_up_to_the_prediction(demo_workspace):
         x = model.rows(x, vec.reshape(1, -1), [view.account_codes[d.account]])
         raw = model.quantiles.predict(x)[1][0]
         total = f.contributions["expected_log"] + sum(
-            g["log_contribution"] for g in f.contributions["groups"])
+            g["log_contribution"] for g in f.contributions["groups"]
+        )
         assert total == pytest.approx(raw, abs=1e-6)
         assert [g["group"] for g in f.contributions["groups"]] == list(F.GROUPS)
         for g in f.contributions["groups"]:
@@ -213,8 +246,7 @@ def test_contributions_add_up_to_the_prediction(demo_workspace):
 
 
 def _mean_log(ws, texts, account, when):
-    out = ws.forecaster.forecast([Draft(text=t, account=account, planned_at=when) for t in texts],
-                                 now=NOW)
+    out = ws.forecaster.forecast([Draft(text=t, account=account, planned_at=when) for t in texts], now=NOW)
     return float(np.mean([f.log[1] for f in out]))
 
 
@@ -242,8 +274,9 @@ def test_forecasts_recover_the_documented_link_effect(demo_workspace):
     texts = _texts("behind_the_scenes", link=False)
     when = _at("Europe/London", "2026-12-03", 12)
     plain = _mean_log(demo_workspace, texts, "loomhaven", when)
-    linked = _mean_log(demo_workspace, [t + " https://loomhaven.example/more" for t in texts],
-                       "loomhaven", when)
+    linked = _mean_log(
+        demo_workspace, [t + " https://loomhaven.example/more" for t in texts], "loomhaven", when
+    )
     assert linked < plain
 
 
@@ -256,6 +289,7 @@ def test_forecasts_recover_the_stronger_topics(demo_workspace):
 
 
 # Errors -----------------------------------------------------------------------
+
 
 def test_clear_errors(demo_workspace, workspace):
     fc = demo_workspace.forecaster
@@ -273,9 +307,13 @@ def test_clear_errors(demo_workspace, workspace):
 
 def test_too_little_history_to_train(workspace, tmp_path):
     p = tmp_path / "few.csv"
-    p.write_text("post_id,account,text,posted_at,impressions\n" + "".join(
-        f"{i},solo,post number {i} about tulips,2026-01-{1 + i % 28:02d}T10:00:00Z,{100 + i}\n"
-        for i in range(30)))
+    p.write_text(
+        "post_id,account,text,posted_at,impressions\n"
+        + "".join(
+            f"{i},solo,post number {i} about tulips,2026-01-{1 + i % 28:02d}T10:00:00Z,{100 + i}\n"
+            for i in range(30)
+        )
+    )
     workspace.import_csv(p)
     with pytest.raises(NotReady, match="training needs at least"):
         train(workspace, "impressions")
@@ -283,27 +321,58 @@ def test_too_little_history_to_train(workspace, tmp_path):
 
 # Interfaces -------------------------------------------------------------------
 
+
 def test_api_forecasts_single_and_batch(demo_workspace):
     client = TestClient(create_app(workspace=demo_workspace))
-    one = client.post("/v1/forecasts", json={
-        "text": "Tulips opening in the Rose Arbour", "account": "loomhaven",
-        "planned_at": "2026-12-02T10:00", "coverage": 0.8})
+    one = client.post(
+        "/v1/forecasts",
+        json={
+            "text": "Tulips opening in the Rose Arbour",
+            "account": "loomhaven",
+            "planned_at": "2026-12-02T10:00",
+            "coverage": 0.8,
+        },
+    )
     assert one.status_code == 200, one.text
     body = one.json()
-    for key in ("metric", "low", "median", "high", "coverage", "backtested_coverage",
-                "model_version", "precedents", "contributions", "caution"):
+    for key in (
+        "metric",
+        "low",
+        "median",
+        "high",
+        "coverage",
+        "backtested_coverage",
+        "model_version",
+        "precedents",
+        "contributions",
+        "caution",
+    ):
         assert key in body
     # A naive planned time is read in the account's zone (Europe/London, GMT in December).
     assert body["planned_at"].startswith("2026-12-02T10:00:00")
-    assert set(body["precedents"][0]) >= {"post_id", "account", "similarity", "weight",
-                                          "posted_at", "text", "metrics"}
-    many = client.post("/v1/forecasts", json={"drafts": [
-        {"text": "Tulips opening", "account": "loomhaven", "draft_id": "a"},
-        {"text": "Lab open day", "account": "loomhaven_lab", "draft_id": "b"}]})
+    assert set(body["precedents"][0]) >= {
+        "post_id",
+        "account",
+        "similarity",
+        "weight",
+        "posted_at",
+        "text",
+        "metrics",
+    }
+    many = client.post(
+        "/v1/forecasts",
+        json={
+            "drafts": [
+                {"text": "Tulips opening", "account": "loomhaven", "draft_id": "a"},
+                {"text": "Lab open day", "account": "loomhaven_lab", "draft_id": "b"},
+            ]
+        },
+    )
     assert many.status_code == 200, many.text
     assert [f["draft_id"] for f in many.json()["forecasts"]] == ["a", "b"]
-    bad = client.post("/v1/forecasts", json={"text": "x", "account": "loomhaven",
-                                             "planned_at": "next tuesday"})
+    bad = client.post(
+        "/v1/forecasts", json={"text": "x", "account": "loomhaven", "planned_at": "next tuesday"}
+    )
     assert bad.status_code == 422 and "cannot read time" in bad.json()["error"]["message"]
     assert client.post("/v1/forecasts", json={"text": "x", "account": "ghost"}).status_code == 404
     r = client.post("/v1/forecasts", json={"text": "x", "account": "loomhaven", "metric": "likes"})
@@ -318,12 +387,31 @@ def test_cli_check_json(demo_home, embedder, monkeypatch):
 
     use_embedder(embedder)
     monkeypatch.setenv("SOUNDING_HOME", str(demo_home))
-    res = CliRunner().invoke(app, ["check", "Seed bank results", "--account", "loomhaven_lab",
-                                   "--at", "2026-12-02T10:00+01:00", "--json"])
+    res = CliRunner().invoke(
+        app,
+        [
+            "check",
+            "Seed bank results",
+            "--account",
+            "loomhaven_lab",
+            "--at",
+            "2026-12-02T10:00+01:00",
+            "--json",
+        ],
+    )
     assert res.exit_code == 0, res.output
     data = json.loads(res.stdout)
-    assert set(data) >= {"metric", "low", "median", "high", "coverage", "backtested_coverage",
-                         "model_version", "precedents", "contributions"}
+    assert set(data) >= {
+        "metric",
+        "low",
+        "median",
+        "high",
+        "coverage",
+        "backtested_coverage",
+        "model_version",
+        "precedents",
+        "contributions",
+    }
     assert data["planned_at"] == "2026-12-02T09:00:00+00:00"
     res = CliRunner().invoke(app, ["check", "x", "--account", "loomhaven", "--at", "soon"])
     assert res.exit_code == 1 and "cannot read time" in res.output

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+from conftest import TOKEN
 from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
@@ -22,13 +23,22 @@ from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN
 
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 ACCOUNTS = ("loomhaven", "loomhaven_events", "loomhaven_lab")
 SHARED = "Free entry for members all weekend, bring a friend."
-PLANTS = ["Magnolias", "Camellias", "Snowdrops", "Hellebores", "Tulips", "Bluebells", "Peonies",
-          "Foxgloves", "Dahlias", "Asters"]
+PLANTS = [
+    "Magnolias",
+    "Camellias",
+    "Snowdrops",
+    "Hellebores",
+    "Tulips",
+    "Bluebells",
+    "Peonies",
+    "Foxgloves",
+    "Dahlias",
+    "Asters",
+]
 PLACES = ["by the lake", "in the walled garden", "along the rill", "under the cedar"]
 
 
@@ -37,8 +47,15 @@ def rows(n: int, *, prefix: str = "fb", start: int = 0, bump: int = 0) -> list[l
     out: list[list[object]] = []
     for i in range(start, start + n):
         text = f"{PLANTS[i % 10]} {PLACES[i % 4]}, week {i // 10 + 1} ({prefix} {i})."
-        out.append([f"{prefix}-{i}", ACCOUNTS[i % 3], text,
-                    (t0 + timedelta(hours=6 * i)).isoformat(), 500 + 10 * i + bump])
+        out.append(
+            [
+                f"{prefix}-{i}",
+                ACCOUNTS[i % 3],
+                text,
+                (t0 + timedelta(hours=6 * i)).isoformat(),
+                500 + 10 * i + bump,
+            ]
+        )
     return out
 
 
@@ -56,12 +73,12 @@ def base_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     (one shared vector) and one post id used by two accounts."""
     home = tmp_path_factory.mktemp("forget") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
-    extra = [["share-1", "loomhaven", SHARED, "2025-05-01T10:00:00+00:00", 900],
-             ["share-2", "loomhaven_lab", SHARED, "2025-05-02T10:00:00+00:00", 300],
-             ["dup-1", "loomhaven", "Dawn chorus walk, tickets now open.",
-              "2025-05-03T07:00:00+00:00", 410],
-             ["dup-1", "loomhaven_lab", "Soil science open lab on Thursday.",
-              "2025-05-03T08:00:00+00:00", 120]]
+    extra = [
+        ["share-1", "loomhaven", SHARED, "2025-05-01T10:00:00+00:00", 900],
+        ["share-2", "loomhaven_lab", SHARED, "2025-05-02T10:00:00+00:00", 300],
+        ["dup-1", "loomhaven", "Dawn chorus walk, tickets now open.", "2025-05-03T07:00:00+00:00", 410],
+        ["dup-1", "loomhaven_lab", "Soil science open lab on Thursday.", "2025-05-03T08:00:00+00:00", 120],
+    ]
     ws.import_csv(write_csv(home.parent / "base.csv", rows(30) + extra))
     # A second reading of fb-4's metrics: it now has two snapshots.
     ws.import_csv(write_csv(home.parent / "update.csv", [rows(30, bump=50)[4]]))
@@ -93,8 +110,13 @@ def q(ws: Workspace, sql: str, *args: object) -> list[tuple]:
 
 
 def post_row(ws: Workspace, account: str, post_id: str) -> tuple[int, str, str]:
-    (row,) = q(ws, "SELECT p.id, p.vector_key, p.text FROM posts p JOIN accounts a "
-               "ON a.id = p.account_id WHERE a.handle = ? AND p.post_id = ?", account, post_id)
+    (row,) = q(
+        ws,
+        "SELECT p.id, p.vector_key, p.text FROM posts p JOIN accounts a "
+        "ON a.id = p.account_id WHERE a.handle = ? AND p.post_id = ?",
+        account,
+        post_id,
+    )
     return row
 
 
@@ -119,9 +141,12 @@ def test_forget_one_post_over_http(client: TestClient, ws: Workspace) -> None:
     assert q(ws, "SELECT COUNT(*) FROM posts WHERE id = ?", pk) == [(0,)]
     assert q(ws, "SELECT COUNT(*) FROM snapshots WHERE post_pk = ?", pk) == [(0,)]
     assert q(ws, "SELECT COUNT(*) FROM vectors WHERE key = ?", key) == [(0,)]
-    assert ws.store.counts() == {**before, "posts": before["posts"] - 1,
-                                 "snapshots": before["snapshots"] - 1,
-                                 "vectors": before["vectors"] - 1}
+    assert ws.store.counts() == {
+        **before,
+        "posts": before["posts"] - 1,
+        "snapshots": before["snapshots"] - 1,
+        "vectors": before["vectors"] - 1,
+    }
     assert ("loomhaven", "fb-3") not in found_as_precedent(ws, text)
     pd.testing.assert_frame_equal(others(ws, set()), kept)
     assert ws.index_state() == {"state": "ready", "count": before["posts"] - 1}
@@ -143,9 +168,9 @@ def test_a_shared_vector_stays_until_its_last_post_goes(client: TestClient, ws: 
     r = client.delete("/v1/posts/share-1", params={"account": "loomhaven"}, headers=AUTH)
     assert r.status_code == 200
     assert q(ws, "SELECT COUNT(*) FROM vectors WHERE key = ?", key) == [(1,)]
-    assert found_as_precedent(ws, SHARED) & {("loomhaven", "share-1"),
-                                            ("loomhaven_lab", "share-2")} == {
-        ("loomhaven_lab", "share-2")}
+    assert found_as_precedent(ws, SHARED) & {("loomhaven", "share-1"), ("loomhaven_lab", "share-2")} == {
+        ("loomhaven_lab", "share-2")
+    }
     r = client.delete("/v1/posts/share-2", params={"account": "loomhaven_lab"}, headers=AUTH)
     assert r.status_code == 200
     assert q(ws, "SELECT COUNT(*) FROM vectors WHERE key = ?", key) == [(0,)]
@@ -154,8 +179,12 @@ def test_a_shared_vector_stays_until_its_last_post_goes(client: TestClient, ws: 
 
 def test_forget_an_account_over_http(client: TestClient, ws: Workspace) -> None:
     handle = "loomhaven_events"
-    theirs = q(ws, "SELECT p.id, p.post_id, p.text, p.vector_key FROM posts p JOIN accounts a "
-               "ON a.id = p.account_id WHERE a.handle = ?", handle)
+    theirs = q(
+        ws,
+        "SELECT p.id, p.post_id, p.text, p.vector_key FROM posts p JOIN accounts a "
+        "ON a.id = p.account_id WHERE a.handle = ?",
+        handle,
+    )
     assert len(theirs) == 10
     gone = {(handle, pid) for _, pid, _, _ in theirs}
     before, kept = ws.store.counts(), others(ws, gone)
@@ -187,8 +216,9 @@ def test_ambiguous_and_unknown_posts_change_nothing(client: TestClient, ws: Work
     assert ws.store.counts() == before
     r = client.delete("/v1/posts/dup-1", params={"account": "loomhaven_lab"}, headers=AUTH)
     assert r.status_code == 200
-    assert q(ws, "SELECT a.handle FROM posts p JOIN accounts a ON a.id = p.account_id "
-             "WHERE p.post_id = 'dup-1'") == [("loomhaven",)]
+    assert q(
+        ws, "SELECT a.handle FROM posts p JOIN accounts a ON a.id = p.account_id WHERE p.post_id = 'dup-1'"
+    ) == [("loomhaven",)]
 
 
 def test_forget_command_asks_first(ws: Workspace, embedder) -> None:
@@ -196,12 +226,10 @@ def test_forget_command_asks_first(ws: Workspace, embedder) -> None:
     runner = CliRunner()
     env = {"SOUNDING_HOME": str(ws.settings.resolved_home)}
     before = ws.store.counts()["posts"]
-    r = runner.invoke(cli_app, ["forget", "--post", "fb-0", "--account", "loomhaven"],
-                      input="n\n", env=env)
+    r = runner.invoke(cli_app, ["forget", "--post", "fb-0", "--account", "loomhaven"], input="n\n", env=env)
     assert r.exit_code == 1 and "Forget post fb-0 of account loomhaven?" in r.output
     assert ws.store.counts()["posts"] == before
-    r = runner.invoke(cli_app, ["forget", "--post", "fb-0", "--account", "loomhaven"],
-                      input="y\n", env=env)
+    r = runner.invoke(cli_app, ["forget", "--post", "fb-0", "--account", "loomhaven"], input="y\n", env=env)
     assert r.exit_code == 0, r.output
     assert "forgot 1 posts" in r.output
     assert ws.store.counts()["posts"] == before - 1
@@ -225,28 +253,35 @@ def check_complete(db: Path) -> tuple[int, list[str]]:
     the post count and the post ids in row order."""
     con = sqlite3.connect(f"file:{db}?mode=ro", uri=True)
     try:
+
         def count(sql: str) -> object:
             return con.execute(sql).fetchone()[0]
 
         assert count("PRAGMA integrity_check") == "ok"
-        assert count("SELECT COUNT(*) FROM posts p WHERE NOT EXISTS "
-                     "(SELECT 1 FROM snapshots s WHERE s.post_pk = p.id)") == 0
-        assert count("SELECT COUNT(*) FROM posts p WHERE NOT EXISTS "
-                     "(SELECT 1 FROM vectors v WHERE v.key = p.vector_key)") == 0
-        assert count("SELECT COUNT(*) FROM vectors WHERE key NOT IN "
-                     "(SELECT vector_key FROM posts)") == 0
+        assert (
+            count(
+                "SELECT COUNT(*) FROM posts p WHERE NOT EXISTS "
+                "(SELECT 1 FROM snapshots s WHERE s.post_pk = p.id)"
+            )
+            == 0
+        )
+        assert (
+            count(
+                "SELECT COUNT(*) FROM posts p WHERE NOT EXISTS "
+                "(SELECT 1 FROM vectors v WHERE v.key = p.vector_key)"
+            )
+            == 0
+        )
+        assert count("SELECT COUNT(*) FROM vectors WHERE key NOT IN (SELECT vector_key FROM posts)") == 0
         ids = [r[0] for r in con.execute("SELECT post_id FROM posts ORDER BY id")]
     finally:
         con.close()
     return len(ids), ids
 
 
-def test_backup_while_importing_is_consistent_and_restores(
-    base_home: Path, tmp_path: Path, embedder
-) -> None:
+def test_backup_while_importing_is_consistent_and_restores(base_home: Path, tmp_path: Path, embedder) -> None:
     shutil.copytree(base_home, tmp_path / "home")
-    ws = Workspace(settings=Settings(home=tmp_path / "home", import_batch_rows=20),
-                   embedder=embedder)
+    ws = Workspace(settings=Settings(home=tmp_path / "home", import_batch_rows=20), embedder=embedder)
     counts_seen = [ws.store.counts()["posts"]]  # every count the source has had
     paused, resume = threading.Event(), threading.Event()
     failure: list[BaseException] = []
@@ -259,9 +294,10 @@ def test_backup_while_importing_is_consistent_and_restores(
 
     def writer() -> None:
         try:
-            ws.import_csv(write_csv(tmp_path / "more.csv", rows(200, prefix="more", start=100)),
-                          progress=progress)
-        except BaseException as exc:  # noqa: BLE001 - reported below
+            ws.import_csv(
+                write_csv(tmp_path / "more.csv", rows(200, prefix="more", start=100)), progress=progress
+            )
+        except BaseException as exc:  # reported below
             failure.append(exc)
 
     th = threading.Thread(target=writer)
@@ -280,8 +316,9 @@ def test_backup_while_importing_is_consistent_and_restores(
     assert n < final, "the backup was not taken while the import was running"
     assert ids == source_ids[:n]  # the same posts, up to that point
 
-    copy = Workspace(settings=Settings(home=tmp_path / "as-copy", database_url=f"sqlite:///{dest}"),
-                     embedder=embedder)
+    copy = Workspace(
+        settings=Settings(home=tmp_path / "as-copy", database_url=f"sqlite:///{dest}"), embedder=embedder
+    )
     assert copy.store.counts()["posts"] == n
     copy.close()
 

@@ -20,6 +20,7 @@ from pathlib import Path
 
 import pytest
 import schemathesis
+from conftest import TOKEN
 from hypothesis import HealthCheck, settings
 from schemathesis.checks import not_a_server_error
 from schemathesis.specs.openapi.checks import (
@@ -32,19 +33,30 @@ from service.api.app import create_app
 from service.api.schemas import ErrorBody
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN
 
-CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance,
-          response_schema_conformance]
+CHECKS = [not_a_server_error, status_code_conformance, content_type_conformance, response_schema_conformance]
 MAX_EXAMPLES = 30
 CASES: Counter[str] = Counter()
 PHASES: Counter[str] = Counter()
 CALLS: Counter[str] = Counter()
 
-SUBJECTS = ["Magnolias", "The tulip beds", "Our bee hotel", "The fern house", "The rose arbour",
-            "Seed-cleaning volunteers", "The winter garden", "Pond dipping"]
-ENDINGS = ["are at their best this week.", "need a hand on Saturday morning.",
-           "open early for members.", "get a new path this spring.", "are back after the rain."]
+SUBJECTS = [
+    "Magnolias",
+    "The tulip beds",
+    "Our bee hotel",
+    "The fern house",
+    "The rose arbour",
+    "Seed-cleaning volunteers",
+    "The winter garden",
+    "Pond dipping",
+]
+ENDINGS = [
+    "are at their best this week.",
+    "need a hand on Saturday morning.",
+    "open early for members.",
+    "get a new path this spring.",
+    "are back after the rain.",
+]
 
 
 def write_history(path: Path, n: int) -> Path:
@@ -55,8 +67,9 @@ def write_history(path: Path, n: int) -> Path:
         for i in range(n):
             text = f"{SUBJECTS[i % len(SUBJECTS)]} {ENDINGS[i % len(ENDINGS)]} Visit {i}."
             when = (start + timedelta(hours=7 * i)).isoformat()
-            w.writerow([f"fz-{i:03d}", ("loomhaven", "loomhaven_lab")[i % 2], text, when,
-                        400 + 37 * i, 10 + i])
+            w.writerow(
+                [f"fz-{i:03d}", ("loomhaven", "loomhaven_lab")[i % 2], text, when, 400 + 37 * i, 10 + i]
+            )
     return path
 
 
@@ -89,8 +102,13 @@ def fuzz_app(fuzz_workspace: Workspace):
 
 
 @schema.parametrize()
-@settings(max_examples=MAX_EXAMPLES, deadline=None, derandomize=True, database=None,
-          suppress_health_check=list(HealthCheck))
+@settings(
+    max_examples=MAX_EXAMPLES,
+    deadline=None,
+    derandomize=True,
+    database=None,
+    suppress_health_check=list(HealthCheck),
+)
 def test_api_never_fails_on_generated_requests(case, fuzz_app) -> None:
     CASES[case.operation.label] += 1
     if case.meta is not None:
@@ -99,7 +117,7 @@ def test_api_never_fails_on_generated_requests(case, fuzz_app) -> None:
     # A write operation (one that declares the bearer scheme) is sent without
     # and with the token; a read is open, so one call with the token is enough.
     needs_token = bool(case.operation.definition.raw.get("security"))
-    for headers in ((None, auth) if needs_token else (auth,)):
+    for headers in (None, auth) if needs_token else (auth,):
         response = case.call(headers=headers, app=fuzz_app)
         CALLS["with token" if headers else "without token"] += 1
         assert response.status_code < 500, response.text
@@ -116,14 +134,26 @@ def test_every_operation_was_fuzzed(artifacts: Path, capsys: pytest.CaptureFixtu
     # The write operations were sent both ways: refused without the token,
     # carried out (or refused for their input) with it.
     assert CALLS["without token"] > 0 and CALLS["with token"] > CALLS["without token"]
-    (artifacts / "fuzz.json").write_text(json.dumps(
-        {"cases": sum(CASES.values()), "operations": len(operations), "per_operation": CASES,
-         "by_phase": PHASES, "calls": CALLS, "max_examples": MAX_EXAMPLES}, indent=2))
+    (artifacts / "fuzz.json").write_text(
+        json.dumps(
+            {
+                "cases": sum(CASES.values()),
+                "operations": len(operations),
+                "per_operation": CASES,
+                "by_phase": PHASES,
+                "calls": CALLS,
+                "max_examples": MAX_EXAMPLES,
+            },
+            indent=2,
+        )
+    )
     with capsys.disabled():
-        print(f"\nfuzz: {sum(CASES.values())} generated cases over {len(operations)} operations "
-              f"({', '.join(f'{k} {v}' for k, v in sorted(CASES.items()))}); "
-              f"by phase/mode: {dict(sorted(PHASES.items()))}; "
-              f"calls: {dict(CALLS)}")
+        print(
+            f"\nfuzz: {sum(CASES.values())} generated cases over {len(operations)} operations "
+            f"({', '.join(f'{k} {v}' for k, v in sorted(CASES.items()))}); "
+            f"by phase/mode: {dict(sorted(PHASES.items()))}; "
+            f"calls: {dict(CALLS)}"
+        )
 
 
 # Inputs at the edges that generated cases rarely hit. Python's datetime
@@ -132,19 +162,40 @@ def test_every_operation_was_fuzzed(artifacts: Path, capsys: pytest.CaptureFixtu
 # and aware times cannot be compared (Python docs, datetime comparisons).
 EDGE_TIMES = ["0001-01-01T00:00:00+05:00", "9999-12-31T23:59:59-05:00"]
 EDGE_REQUESTS = [
-    ("POST", "/v1/precedents", {"json": {"text": "Magnolias", "since": "2025-01-01T00:00:00",
-                                         "until": "2025-06-01T00:00:00Z"}}),
+    (
+        "POST",
+        "/v1/precedents",
+        {"json": {"text": "Magnolias", "since": "2025-01-01T00:00:00", "until": "2025-06-01T00:00:00Z"}},
+    ),
     *[("POST", "/v1/precedents", {"json": {"text": "Magnolias", "since": t}}) for t in EDGE_TIMES],
     *[("POST", "/v1/precedents", {"json": {"text": "Magnolias", "until": t}}) for t in EDGE_TIMES],
-    *[("POST", "/v1/forecasts", {"json": {"text": "Magnolias", "account": "loomhaven",
-                                          "planned_at": t}}) for t in EDGE_TIMES],
-    ("POST", "/v1/precedents", {"content": b'{"text": "\xff\xfe"}',
-                                "headers": {"Content-Type": "application/json"}}),
-    ("POST", "/v1/imports", {"files": {"file": ("edge.csv", (
-        "post_id,account,text,posted_at,impressions\n"
-        f"e1,loomhaven,Early bird,{EDGE_TIMES[0]},5\n"
-        "e2,loomhaven,Night owl,9999-12-31T23:30:00,5\n").encode(), "text/csv")},
-        "data": {"timezone": "America/New_York"}}),
+    *[
+        ("POST", "/v1/forecasts", {"json": {"text": "Magnolias", "account": "loomhaven", "planned_at": t}})
+        for t in EDGE_TIMES
+    ],
+    (
+        "POST",
+        "/v1/precedents",
+        {"content": b'{"text": "\xff\xfe"}', "headers": {"Content-Type": "application/json"}},
+    ),
+    (
+        "POST",
+        "/v1/imports",
+        {
+            "files": {
+                "file": (
+                    "edge.csv",
+                    (
+                        "post_id,account,text,posted_at,impressions\n"
+                        f"e1,loomhaven,Early bird,{EDGE_TIMES[0]},5\n"
+                        "e2,loomhaven,Night owl,9999-12-31T23:30:00,5\n"
+                    ).encode(),
+                    "text/csv",
+                )
+            },
+            "data": {"timezone": "America/New_York"},
+        },
+    ),
 ]
 
 
@@ -155,8 +206,9 @@ def test_edge_inputs_are_answered_as_bad_input(fuzz_app, method: str, path: str,
 
     kw = dict(kw)
     with TestClient(fuzz_app, raise_server_exceptions=False) as c:
-        r = c.request(method, path, headers={"Authorization": f"Bearer {TOKEN}",
-                                             **kw.pop("headers", {})}, **kw)
+        r = c.request(
+            method, path, headers={"Authorization": f"Bearer {TOKEN}", **kw.pop("headers", {})}, **kw
+        )
     assert r.status_code < 500, r.text
     if r.status_code >= 400:
         assert r.status_code == 422, r.text
@@ -164,7 +216,9 @@ def test_edge_inputs_are_answered_as_bad_input(fuzz_app, method: str, path: str,
     elif path == "/v1/imports":
         # Each out-of-range row is rejected with its line and column; nothing crashes.
         assert [(p["line"], p["column"]) for p in r.json()["problems"]] == [
-            (2, "posted_at"), (3, "posted_at")]
+            (2, "posted_at"),
+            (3, "posted_at"),
+        ]
 
 
 # Bad dates and huge numbers (hypothesis) -------------------------------------------------
@@ -208,10 +262,11 @@ def in_range(instant: datetime | None) -> bool:
 COUNTS = st.one_of(
     st.integers(-(2**70), 2**70).map(lambda n: (str(n), 0 <= n <= 2**53)),
     st.sampled_from([2**53 - 1, 2**53, 2**53 + 1, 2**63 - 1, 2**63, 2**64]).map(
-        lambda n: (str(n), n <= 2**53)),
+        lambda n: (str(n), n <= 2**53)
+    ),
     st.floats(allow_nan=True, allow_infinity=True).map(
-        lambda x: (repr(x), x == x and abs(x) != float("inf") and x >= 0 and x == int(x)
-                   and x <= 2**53)),
+        lambda x: (repr(x), x == x and abs(x) != float("inf") and x >= 0 and x == int(x) and x <= 2**53)
+    ),
 )
 
 
@@ -225,8 +280,9 @@ def value_app(tmp_path_factory: pytest.TempPathFactory, embedder):
 
 
 @given(rows=st.lists(st.tuples(instants(), COUNTS), min_size=1, max_size=6))
-@settings(max_examples=40, deadline=None, derandomize=True, database=None,
-          suppress_health_check=list(HealthCheck))
+@settings(
+    max_examples=40, deadline=None, derandomize=True, database=None, suppress_health_check=list(HealthCheck)
+)
 def test_import_refuses_exactly_the_bad_dates_and_huge_numbers(value_app, rows) -> None:
     from fastapi.testclient import TestClient
 
@@ -237,8 +293,11 @@ def test_import_refuses_exactly_the_bad_dates_and_huge_numbers(value_app, rows) 
         if not (in_range(instant) and count_ok):
             want_rejected.append(i + 2)
     with TestClient(value_app, raise_server_exceptions=False) as c:
-        r = c.post("/v1/imports", headers={"Authorization": f"Bearer {VALUE_TOKEN}"},
-                   files={"file": ("v.csv", ("\n".join(lines) + "\n").encode(), "text/csv")})
+        r = c.post(
+            "/v1/imports",
+            headers={"Authorization": f"Bearer {VALUE_TOKEN}"},
+            files={"file": ("v.csv", ("\n".join(lines) + "\n").encode(), "text/csv")},
+        )
     assert r.status_code == 200, r.text
     body = r.json()
     assert [p["line"] for p in body["problems"]] == want_rejected, (rows, body["problems"])
@@ -246,16 +305,16 @@ def test_import_refuses_exactly_the_bad_dates_and_huge_numbers(value_app, rows) 
 
 
 @given(when=instants())
-@settings(max_examples=40, deadline=None, derandomize=True, database=None,
-          suppress_health_check=list(HealthCheck))
+@settings(
+    max_examples=40, deadline=None, derandomize=True, database=None, suppress_health_check=list(HealthCheck)
+)
 def test_forecast_refuses_planned_times_outside_the_range(value_app, when) -> None:
     from fastapi.testclient import TestClient
 
     text, instant = when
     ok = in_range(instant)
     with TestClient(value_app, raise_server_exceptions=False) as c:
-        r = c.post("/v1/forecasts", json={"text": "Magnolias", "account": "loomhaven",
-                                          "planned_at": text})
+        r = c.post("/v1/forecasts", json={"text": "Magnolias", "account": "loomhaven", "planned_at": text})
     assert r.status_code < 500, r.text
     if r.status_code >= 400:
         ErrorBody.model_validate(r.json())

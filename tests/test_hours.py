@@ -4,8 +4,9 @@ generator's documented daily rhythm."""
 
 from __future__ import annotations
 
+import itertools
 import json
-from datetime import date, datetime, timedelta, timezone
+from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 from zoneinfo import ZoneInfo
 
@@ -21,7 +22,6 @@ from service.overlap import heavy_overlap, tied_with_best
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
-UTC = timezone.utc
 DRAFTS = [
     "The magnolias along the Long Border are opening this week 🌸 Come for a slow walk before "
     "the petals drop. #WhatsFlowering",
@@ -36,6 +36,7 @@ def _hours_and_offsets(slots: list[datetime], tz: str) -> list[tuple[int, str]]:
 
 # Daylight saving --------------------------------------------------------------
 
+
 # Source: the IANA tz database's "EU" rule (Directive 2000/84/EC): clocks change at
 # 01:00 UTC on the last Sunday of March and of October; London is GMT+0 / BST+1.
 # 2026-03-29 and 2026-10-25 are those Sundays.
@@ -43,11 +44,11 @@ def test_london_spring_forward_has_23_hours() -> None:
     slots = day_slots(date(2026, 3, 29), "Europe/London")
     assert len(slots) == 23
     assert slots[0] == datetime(2026, 3, 29, 0, 0, tzinfo=UTC)  # local midnight is GMT
-    assert all(b - a == timedelta(hours=1) for a, b in zip(slots, slots[1:]))
+    assert all(b - a == timedelta(hours=1) for a, b in itertools.pairwise(slots))
     labels = _hours_and_offsets(slots, "Europe/London")
     assert labels[0] == (0, "+0000")
     assert labels[1] == (2, "+0100")  # 01:00 local does not exist that day
-    assert [h for h, _ in labels] == [0] + list(range(2, 24))
+    assert [h for h, _ in labels] == [0, *range(2, 24)]
     assert all(off == "+0100" for _, off in labels[1:])
 
 
@@ -63,11 +64,14 @@ def test_london_fall_back_has_25_hours() -> None:
 
 # Source: US rule in the IANA tz database (Energy Policy Act of 2005): 02:00 local on the
 # second Sunday of March and the first Sunday of November; New York is EST-5 / EDT-4.
-@pytest.mark.parametrize(("day", "n", "first_utc"), [
-    (date(2026, 3, 8), 23, datetime(2026, 3, 8, 5, 0, tzinfo=UTC)),
-    (date(2026, 11, 1), 25, datetime(2026, 11, 1, 4, 0, tzinfo=UTC)),
-    (date(2026, 12, 3), 24, datetime(2026, 12, 3, 5, 0, tzinfo=UTC)),
-])
+@pytest.mark.parametrize(
+    ("day", "n", "first_utc"),
+    [
+        (date(2026, 3, 8), 23, datetime(2026, 3, 8, 5, 0, tzinfo=UTC)),
+        (date(2026, 11, 1), 25, datetime(2026, 11, 1, 4, 0, tzinfo=UTC)),
+        (date(2026, 12, 3), 24, datetime(2026, 12, 3, 5, 0, tzinfo=UTC)),
+    ],
+)
 def test_new_york_days(day: date, n: int, first_utc: datetime) -> None:
     slots = day_slots(day, "America/New_York")
     assert len(slots) == n and slots[0] == first_utc
@@ -84,25 +88,24 @@ def test_half_hour_zone_without_dst() -> None:
 
 def test_api_labels_dst_day(demo_workspace) -> None:
     client = TestClient(create_app(workspace=demo_workspace))
-    r = client.post("/v1/hours", json={"text": DRAFTS[0], "account": "loomhaven",
-                                       "day": "2026-10-25"})
+    r = client.post("/v1/hours", json={"text": DRAFTS[0], "account": "loomhaven", "day": "2026-10-25"})
     assert r.status_code == 200, r.text
     body = r.json()
     assert body["n_slots"] == 25 and len(body["slots"]) == 25
     # Same facts as above (EU rule), now as the API labels them.
     got = [(s["local_hour"], s["utc_offset"]) for s in body["slots"][:4]]
-    assert got == [("00:00", "+01:00"), ("01:00", "+01:00"), ("01:00", "+00:00"),
-                   ("02:00", "+00:00")]
+    assert got == [("00:00", "+01:00"), ("01:00", "+01:00"), ("01:00", "+00:00"), ("02:00", "+00:00")]
     assert body["caution"] == CAUTION
     assert sorted(s["rank"] for s in body["slots"]) == list(range(1, 26))
     # Ranks follow the medians (highest first).
     by_rank = sorted(body["slots"], key=lambda s: s["rank"])
-    assert all(a["median"] >= b["median"] for a, b in zip(by_rank, by_rank[1:]))
+    assert all(a["median"] >= b["median"] for a, b in itertools.pairwise(by_rank))
 
 
 def test_week_across_the_change_has_169_slots(demo_workspace) -> None:
-    r = best_hours(demo_workspace.forecaster, DRAFTS[1], account="loomhaven", day=date(2026, 10, 22),
-                   week=True, top=5)
+    r = best_hours(
+        demo_workspace.forecaster, DRAFTS[1], account="loomhaven", day=date(2026, 10, 22), week=True, top=5
+    )
     # 7 days x 24 hours + the repeated hour of 2026-10-25 (EU rule, as above).
     assert len(r.slots) == 7 * 24 + 1
     assert r.first_day == date(2026, 10, 22) and r.last_day == date(2026, 10, 28)
@@ -112,7 +115,8 @@ def test_week_across_the_change_has_169_slots(demo_workspace) -> None:
 # The generator's daily rhythm ---------------------------------------------------
 
 HOUR_EFFECT = [EFFECTS["hour_effect"][str(h)] for h in range(24)]
-RHYTHM_DRAFTS = DRAFTS + [
+RHYTHM_DRAFTS = [
+    *DRAFTS,
     "Volunteer call 🙌 Weekend guides needed once a month. It's a lovely way to meet people.",
     "Lab update 🔬 the pollinator survey shows bees prefer open-faced flowers by a wide margin.",
 ]
@@ -121,8 +125,7 @@ RHYTHM_DRAFTS = DRAFTS + [
 def _documented_peaks() -> list[int]:
     """Local maxima of the documented hour effect (circular): 12, 13 and 19."""
     e = HOUR_EFFECT
-    return [h for h in range(24) if e[h] >= e[(h - 1) % 24] and e[h] >= e[(h + 1) % 24]
-            and e[h] > min(e)]
+    return [h for h in range(24) if e[h] >= e[(h - 1) % 24] and e[h] >= e[(h + 1) % 24] and e[h] > min(e)]
 
 
 def _near(hour: int, peaks: list[int], within: int) -> bool:
@@ -182,31 +185,57 @@ def test_overlap_rule() -> None:
 def _slots(logs: list[tuple[float, float, float]]) -> list[Slot]:
     t0 = datetime(2026, 12, 3, 0, 0, tzinfo=UTC)
     out = []
-    best, flags = tied_with_best(logs)
+    _best, flags = tied_with_best(logs)
     order = sorted(range(len(logs)), key=lambda i: -logs[i][1])
     for i, lg in enumerate(logs):
         t = t0 + timedelta(hours=i)
-        out.append(Slot(planned_at=t, local=t, low=lg[0], median=lg[1], high=lg[2], log=lg,
-                        warnings=[], rank=order.index(i) + 1, tied_with_best=flags[i]))
+        out.append(
+            Slot(
+                planned_at=t,
+                local=t,
+                low=lg[0],
+                median=lg[1],
+                high=lg[2],
+                log=lg,
+                warnings=[],
+                rank=order.index(i) + 1,
+                tied_with_best=flags[i],
+            )
+        )
     return out
 
 
-@pytest.mark.parametrize(("logs", "expect"), [
-    ([(6.0, 7.0, 8.0)] * 24, "cannot be told apart"),  # identical intervals
-    ([(6.0 + 0.01 * i, 7.0 + 0.01 * i, 8.0 + 0.01 * i) for i in range(24)], "cannot be told apart"),
-    ([(1.0, 2.0, 3.0)] * 23 + [(6.0, 7.0, 8.0)], "Best hour: 23:00"),
-    ([(1.0, 2.0, 3.0)] * 20 + [(6.0, 7.0, 8.0)] * 4, "Best hours: 20:00"),
-])
+@pytest.mark.parametrize(
+    ("logs", "expect"),
+    [
+        ([(6.0, 7.0, 8.0)] * 24, "cannot be told apart"),  # identical intervals
+        ([(6.0 + 0.01 * i, 7.0 + 0.01 * i, 8.0 + 0.01 * i) for i in range(24)], "cannot be told apart"),
+        ([(1.0, 2.0, 3.0)] * 23 + [(6.0, 7.0, 8.0)], "Best hour: 23:00"),
+        ([(1.0, 2.0, 3.0)] * 20 + [(6.0, 7.0, 8.0)] * 4, "Best hours: 20:00"),
+    ],
+)
 def test_summary_says_when_hours_cannot_be_told_apart(logs, expect: str) -> None:
     from service.hours import HoursReport
 
     slots = _slots(logs)
     best, flags = tied_with_best([s.log for s in slots])
     share = (sum(flags) - 1) / (len(slots) - 1)
-    r = HoursReport(account="a", timezone="UTC", metric="impressions", coverage=0.8,
-                    backtested_coverage=None, model_version="v", mode="day",
-                    first_day=date(2026, 12, 3), last_day=date(2026, 12, 3), slots=slots,
-                    best_index=best, fraction_tied_with_best=share, told_apart=share <= 0.5, summary="")
+    r = HoursReport(
+        account="a",
+        timezone="UTC",
+        metric="impressions",
+        coverage=0.8,
+        backtested_coverage=None,
+        model_version="v",
+        mode="day",
+        first_day=date(2026, 12, 3),
+        last_day=date(2026, 12, 3),
+        slots=slots,
+        best_index=best,
+        fraction_tied_with_best=share,
+        told_apart=share <= 0.5,
+        summary="",
+    )
     text = _hours_summary(r)
     assert expect in text
     assert ("cannot be told apart" in text) == (not r.told_apart)
@@ -224,8 +253,7 @@ def test_cli_hours(demo_home, embedder, monkeypatch) -> None:
     runner = CliRunner()
     res = runner.invoke(app, ["hours", DRAFTS[0], "--account", "loomhaven", "--day", "3 Dec"])
     assert res.exit_code == 1 and "cannot read day '3 Dec'" in res.output
-    res = runner.invoke(app, ["hours", DRAFTS[0], "--account", "loomhaven", "--day",
-                              "2026-03-29"])
+    res = runner.invoke(app, ["hours", DRAFTS[0], "--account", "loomhaven", "--day", "2026-03-29"])
     assert res.exit_code == 0, res.output
     # The EU spring-forward day again (IANA tz "EU" rule): 01:00 local is skipped.
     assert "23 slots" in res.output and "every hour" in res.output

@@ -63,7 +63,7 @@ def test_rfc4180_quoting_is_read_exactly(workspace: Workspace, tmp_path: Path) -
     # breaks are enclosed in double quotes; a quote inside is doubled;
     # lines end with CRLF (rule 1).
     body = (
-        'post_id,account,text,posted_at,impressions\n'
+        "post_id,account,text,posted_at,impressions\n"
         '"q1",garden,"Roses, lilies, and ferns",2026-04-01T10:00:00Z,10\n'
         'q2,garden,"She said ""bring a hat"" today",2026-04-01T11:00:00Z,20\n'
         'q3,garden,"first line\nsecond line",2026-04-01T12:00:00Z,30\n'
@@ -108,7 +108,9 @@ def test_stored_values_and_times(loaded: Workspace) -> None:
     assert posts["g3"].posted_at == pd.Timestamp(datetime(2026, 4, 3, 13, 15, tzinfo=UTC))
     assert (posts["g1"].impressions, posts["g1"].engagements) == (1200, 40)
     assert (posts["g1"].has_media, posts["g2"].has_media, posts["g3"].has_media) == (
-        True, False, False,
+        True,
+        False,
+        False,
     )
     assert pd.isna(posts["g1"].likes)  # a metric column absent from the file is unknown
 
@@ -120,9 +122,9 @@ def test_naive_times_use_the_account_zone(workspace: Workspace, tmp_path: Path) 
     workspace.store.set_account("lab", timezone="America/New_York")
     body = (
         "post_id,account,text,posted_at,impressions\n"
-        "t1,lab,Seed bank tour,2026-03-08T02:30:00,10\n"   # skipped by DST: refused
-        "t2,lab,Night walk,2026-11-01T01:30:00,20\n"        # happens twice: first one
-        "t3,lab,Morning dew,2026-01-10T08:00:00,30\n"       # plain EST
+        "t1,lab,Seed bank tour,2026-03-08T02:30:00,10\n"  # skipped by DST: refused
+        "t2,lab,Night walk,2026-11-01T01:30:00,20\n"  # happens twice: first one
+        "t3,lab,Morning dew,2026-01-10T08:00:00,30\n"  # plain EST
     )
     s = workspace.import_csv(write(tmp_path / "tz.csv", body))
     posts = by_id(workspace)
@@ -201,13 +203,20 @@ def test_bad_mapping_is_refused(pairs: list[str], message: str) -> None:
 def _png_bytes() -> bytes:
     # A real 1x1 PNG (PNG spec: signature, IHDR, IDAT, IEND chunks with CRC-32).
     def chunk(kind: bytes, data: bytes) -> bytes:
-        return struct.pack(">I", len(data)) + kind + data + struct.pack(
-            ">I", zlib.crc32(kind + data) & 0xFFFFFFFF
+        return (
+            struct.pack(">I", len(data))
+            + kind
+            + data
+            + struct.pack(">I", zlib.crc32(kind + data) & 0xFFFFFFFF)
         )
 
     ihdr = struct.pack(">IIBBBBB", 1, 1, 8, 0, 0, 0, 0)
-    return (b"\x89PNG\r\n\x1a\n" + chunk(b"IHDR", ihdr)
-            + chunk(b"IDAT", zlib.compress(b"\x00\x00")) + chunk(b"IEND", b""))
+    return (
+        b"\x89PNG\r\n\x1a\n"
+        + chunk(b"IHDR", ihdr)
+        + chunk(b"IDAT", zlib.compress(b"\x00\x00"))
+        + chunk(b"IEND", b"")
+    )
 
 
 BAD_FILES: dict[str, tuple[bytes, str]] = {
@@ -232,17 +241,18 @@ BAD_FILES: dict[str, tuple[bytes, str]] = {
     "nul": (b"post_id,account,text,posted_at,impressions\n\x00\x00\x00\n", "NUL bytes"),
     # Latin-1 'e acute' (0xE9) on line 3: nothing of the file may be stored.
     "latin1_halfway": (
-        GOOD.replace("g1", "n1").replace("g2", "n2").replace("g3", "n3")
-        .replace("Volunteers", "Volunt\u00e9ers").encode("latin-1"),
+        GOOD.replace("g1", "n1")
+        .replace("g2", "n2")
+        .replace("g3", "n3")
+        .replace("Volunteers", "Volunt\u00e9ers")
+        .encode("latin-1"),
         "not UTF-8 text (byte",
     ),
 }
 
 
 @pytest.mark.parametrize("case", sorted(BAD_FILES))
-def test_bad_file_stores_nothing_and_loses_nothing(
-    case: str, loaded: Workspace, tmp_path: Path
-) -> None:
+def test_bad_file_stores_nothing_and_loses_nothing(case: str, loaded: Workspace, tmp_path: Path) -> None:
     content, message = BAD_FILES[case]
     before = state(loaded)
     path = write(tmp_path / f"{case}.csv", content)
@@ -284,13 +294,16 @@ def test_bad_byte_past_the_first_chunk(make_workspace, tmp_path: Path) -> None:
     # Put a two-byte 'é' so that it straddles byte 1 MiB exactly.
     prefix = (head + row1).encode()
     filler = "y" * ((1 << 20) - len(prefix) - 1)
-    good = (head + row1 + filler + "\u00e9" + "\nc2,garden,Second,2026-04-01T11:00:00Z,6,z\n")
+    good = head + row1 + filler + "\u00e9" + "\nc2,garden,Second,2026-04-01T11:00:00Z,6,z\n"
     assert good.encode()[(1 << 20) - 1 : (1 << 20) + 1] == "\u00e9".encode()
     s = workspace.import_csv(write(tmp_path / "big.csv", good))
     assert (s.added, s.rejected) == (2, 0)
 
     before = state(workspace)
-    bad = good.replace("c1", "d1").replace("c2", "d2").encode() + b"d3,garden,Caf\xe9,2026-04-01T12:00:00Z,7,z\n"
+    bad = (
+        good.replace("c1", "d1").replace("c2", "d2").encode()
+        + b"d3,garden,Caf\xe9,2026-04-01T12:00:00Z,7,z\n"
+    )
     with pytest.raises(CSVFormatError, match="on line 4 cannot be read"):
         workspace.import_csv(write(tmp_path / "bigbad.csv", bad))
     assert state(workspace) == before
@@ -304,24 +317,32 @@ def test_bad_rows_are_reported_and_good_rows_stored(loaded: Workspace, tmp_path:
     counts_before = loaded.store.counts()
     body = (
         HEADER + "\n"
-        "r1,garden,A fine new post,2026-05-01T10:00:00Z,100,5,false\n"       # 2: ok
-        "r2,garden,   ,2026-05-01T10:00:00Z,100,5,false\n"                    # 3: empty text
+        "r1,garden,A fine new post,2026-05-01T10:00:00Z,100,5,false\n"  # 2: ok
+        "r2,garden,   ,2026-05-01T10:00:00Z,100,5,false\n"  # 3: empty text
         "g1,garden,Spring tulips are open in the walled garden,2026-04-01T10:00:00Z,-5,40,true\n"  # 4
-        "r4,garden,Another,2026-05-01T10:00:00Z,lots,5,false\n"               # 5: not a number
-        "r5,garden,Yet another,2026-05-01T10:00:00Z,1.5,5,false\n"            # 6: not whole
+        "r4,garden,Another,2026-05-01T10:00:00Z,lots,5,false\n"  # 5: not a number
+        "r5,garden,Yet another,2026-05-01T10:00:00Z,1.5,5,false\n"  # 6: not whole
         "r1,garden,A fine new post again,2026-05-01T10:00:00Z,100,5,false\n"  # 7: repeat id
-        "r7,garden,Media flag,2026-05-01T10:00:00Z,100,5,maybe\n"             # 8: bad bool
-        "r8,,No account,2026-05-01T10:00:00Z,100,5,false\n"                   # 9: no account
-        "r9,garden,No metrics,2026-05-01T10:00:00Z,,,false\n"                 # 10: no metric
-        "r10,garden,Too short\n"                                              # 11: few fields
-        ",garden,No id,2026-05-01T10:00:00Z,1,1,false\n"                       # 12: no id
-        "r12,garden,Last good one,2026-05-02T10:00:00Z,7,1,true\n"            # 13: ok
+        "r7,garden,Media flag,2026-05-01T10:00:00Z,100,5,maybe\n"  # 8: bad bool
+        "r8,,No account,2026-05-01T10:00:00Z,100,5,false\n"  # 9: no account
+        "r9,garden,No metrics,2026-05-01T10:00:00Z,,,false\n"  # 10: no metric
+        "r10,garden,Too short\n"  # 11: few fields
+        ",garden,No id,2026-05-01T10:00:00Z,1,1,false\n"  # 12: no id
+        "r12,garden,Last good one,2026-05-02T10:00:00Z,7,1,true\n"  # 13: ok
     )
     s = loaded.import_csv(write(tmp_path / "rows.csv", body))
     got = [(p.line, p.column) for p in s.problems]
     assert got == [
-        (3, "text"), (4, "impressions"), (5, "impressions"), (6, "impressions"),
-        (7, "post_id"), (8, "has_media"), (9, "account"), (10, None), (11, None), (12, "post_id"),
+        (3, "text"),
+        (4, "impressions"),
+        (5, "impressions"),
+        (6, "impressions"),
+        (7, "post_id"),
+        (8, "has_media"),
+        (9, "account"),
+        (10, None),
+        (11, None),
+        (12, "post_id"),
     ]
     reasons = [p.reason for p in s.problems]
     assert reasons[0] == "is empty"
@@ -344,7 +365,11 @@ def test_bad_rows_are_reported_and_good_rows_stored(loaded: Workspace, tmp_path:
 
 
 def test_numbers_with_separators_and_exponents(workspace: Workspace, tmp_path: Path) -> None:
-    body = "post_id,account,text,posted_at,impressions\nn1,garden,Big day,2026-05-01T10:00Z,1_200\nn2,garden,Bigger,2026-05-01T11:00Z,1.2e3\n"
+    body = (
+        "post_id,account,text,posted_at,impressions\n"
+        "n1,garden,Big day,2026-05-01T10:00Z,1_200\n"
+        "n2,garden,Bigger,2026-05-01T11:00Z,1.2e3\n"
+    )
     s = workspace.import_csv(write(tmp_path / "n.csv", body))
     assert s.rejected == 0
     posts = by_id(workspace)
@@ -361,8 +386,13 @@ def test_summary_json_shape(workspace: Workspace, tmp_path: Path) -> None:
     body = HEADER + "\nx1,garden,,2026-05-01T10:00:00Z,1,1,false\n"
     s = workspace.import_csv(write(tmp_path / "s.csv", body))
     assert s.to_dict() == {
-        "added": 0, "updated": 0, "unchanged": 0, "rejected": 1, "embedded": 0,
-        "approximate": 0, "skipped_lines": 0, "stopped": None,
-        "problems": [{"line": 2, "column": "text", "reason": "is empty", "hint": None,
-                      "post_id": "x1"}],
+        "added": 0,
+        "updated": 0,
+        "unchanged": 0,
+        "rejected": 1,
+        "embedded": 0,
+        "approximate": 0,
+        "skipped_lines": 0,
+        "stopped": None,
+        "problems": [{"line": 2, "column": "text", "reason": "is empty", "hint": None, "post_id": "x1"}],
     }

@@ -28,9 +28,15 @@ from service.workspace import Workspace
 
 FIXTURES = Path(__file__).parent / "fixtures" / "exports"
 LONDON = "Europe/London"
-MAP = {"post_id": "Post ID", "text": "Message", "posted_at": "Published",
-       "impressions": "Views", "engagements": "Interactions", "likes": "Likes",
-       "has_media": "Media"}
+MAP = {
+    "post_id": "Post ID",
+    "text": "Message",
+    "posted_at": "Published",
+    "impressions": "Views",
+    "engagements": "Interactions",
+    "likes": "Likes",
+    "has_media": "Media",
+}
 RATE = {"engagement_rate": "Engagement rate"}
 FIELDS = ("account", "text", "posted_at", "impressions", "engagements", "likes", "has_media")
 
@@ -60,9 +66,14 @@ def stored(ws: Workspace) -> dict[str, dict[str, Any]]:
     rough = ws.store.approximate_metrics(df["pk"].tolist())
     out = {}
     for pk, p in by_pk.items():
-        out[p["post_id"]] = {"account": p["account"], "text": p["text"],
-                             "posted_at": p["posted_at"], **p["metrics"],
-                             "has_media": p["has_media"], "approximate": rough.get(pk, frozenset())}
+        out[p["post_id"]] = {
+            "account": p["account"],
+            "text": p["text"],
+            "posted_at": p["posted_at"],
+            **p["metrics"],
+            "has_media": p["has_media"],
+            "approximate": rough.get(pk, frozenset()),
+        }
     return out
 
 
@@ -101,8 +112,9 @@ def test_each_layout_imports_as_the_canonical_file(
     shortened = name in ("abbreviated", "messy")
     for pid, want in canonical.items():
         for f in FIELDS:
-            if shortened and f == "impressions" or name == "abbreviated" and f in (
-                    "engagements", "likes"):
+            if (shortened and f == "impressions") or (
+                name == "abbreviated" and f in ("engagements", "likes")
+            ):
                 continue
             assert got[pid][f] == want[f], (pid, f)
         assert want["approximate"] == frozenset()
@@ -130,15 +142,15 @@ def test_times_at_the_dst_changes_follow_the_iana_rules(canonical) -> None:
     assert canonical["lh-104"]["posted_at"] == datetime(2026, 3, 29, 2, 30, tzinfo=z).astimezone(UTC)
     assert canonical["lh-104"]["posted_at"] == datetime(2026, 3, 29, 1, 30, tzinfo=UTC)
     first = datetime(2026, 10, 25, 1, 30, fold=0, tzinfo=z)
-    assert canonical["lh-109"]["posted_at"] == first.astimezone(UTC) == datetime(
-        2026, 10, 25, 0, 30, tzinfo=UTC)
+    assert (
+        canonical["lh-109"]["posted_at"] == first.astimezone(UTC) == datetime(2026, 10, 25, 0, 30, tzinfo=UTC)
+    )
 
 
-@pytest.mark.parametrize(("name", "first"), [("day_first", "07/01/2026 18:45"),
-                                              ("month_first_12h", "01/07/2026 06:45 PM")])
-def test_ambiguous_dates_are_refused_without_an_order(
-    make_workspace, name: str, first: str
-) -> None:
+@pytest.mark.parametrize(
+    ("name", "first"), [("day_first", "07/01/2026 18:45"), ("month_first_12h", "01/07/2026 06:45 PM")]
+)
+def test_ambiguous_dates_are_refused_without_an_order(make_workspace, name: str, first: str) -> None:
     ws = london_workspace(make_workspace, name)
     with pytest.raises(CSVFormatError) as e:
         ws.import_csv(FIXTURES / f"{name}.csv", account="loomhaven", mapping=MAP)
@@ -151,22 +163,23 @@ def test_rows_in_the_other_order_are_rejected(make_workspace) -> None:
     # Read month-first, a day-first date with a day above 12 cannot be a date
     # (there is no month 13): those rows, and only those, are rejected.
     ws = london_workspace(make_workspace, "wrong")
-    s = ws.import_csv(FIXTURES / "day_first.csv", account="loomhaven", mapping=MAP,
-                      date_order="month-first")
+    s = ws.import_csv(FIXTURES / "day_first.csv", account="loomhaven", mapping=MAP, date_order="month-first")
     gen = _generator()
-    days = [datetime.fromisoformat(r["posted_at"]).astimezone(
-        ZoneInfo(LONDON)).day for r in gen.canonical()]
+    days = [datetime.fromisoformat(r["posted_at"]).astimezone(ZoneInfo(LONDON)).day for r in gen.canonical()]
     assert [p.line for p in s.problems] == [i + 2 for i, d in enumerate(days) if d > 12]
     assert all(p.column == "posted_at" and "month-first" in p.reason for p in s.problems)
 
 
-@pytest.mark.parametrize(("value", "good", "opts"), [
-    ("2026-03-29 01:30", "2026-03-29 12:00", {}),                   # ISO 8601 without offset
-    ("29/03/2026 01:30", "29/03/2026 12:00", {"date_order": "day-first"}),
-    ("03/29/2026 01:30 AM", "03/29/2026 12:00 PM", {"date_order": "month-first"}),
-    ("29 Mar 2026 01:30", "29 Mar 2026 12:00", {}),
-    ("2026.03.29 1:30", "2026.03.29 12:00", {"time_format": "%Y.%m.%d %H:%M"}),
-])
+@pytest.mark.parametrize(
+    ("value", "good", "opts"),
+    [
+        ("2026-03-29 01:30", "2026-03-29 12:00", {}),  # ISO 8601 without offset
+        ("29/03/2026 01:30", "29/03/2026 12:00", {"date_order": "day-first"}),
+        ("03/29/2026 01:30 AM", "03/29/2026 12:00 PM", {"date_order": "month-first"}),
+        ("29 Mar 2026 01:30", "29 Mar 2026 12:00", {}),
+        ("2026.03.29 1:30", "2026.03.29 12:00", {"time_format": "%Y.%m.%d %H:%M"}),
+    ],
+)
 def test_a_skipped_local_time_is_refused_in_every_layout(
     make_workspace, tmp_path: Path, value: str, good: str, opts: dict[str, Any]
 ) -> None:
@@ -177,8 +190,7 @@ def test_a_skipped_local_time_is_refused_in_every_layout(
     assert wall.replace(tzinfo=z).astimezone(UTC).astimezone(z).replace(tzinfo=None) != wall
     ws = london_workspace(make_workspace, "dst")
     f = tmp_path / "dst.csv"
-    f.write_text(f"post_id,text,posted_at,impressions\nd1,Early start,{value},5\n"
-                 f"d2,Later,{good},6\n")
+    f.write_text(f"post_id,text,posted_at,impressions\nd1,Early start,{value},5\nd2,Later,{good},6\n")
     s = ws.import_csv(f, account="loomhaven", **opts)
     assert s.added == 1 and [(p.line, p.column) for p in s.problems] == [(2, "posted_at")]
     assert "does not exist in Europe/London" in s.problems[0].reason
@@ -190,31 +202,53 @@ def test_a_skipped_local_time_is_refused_in_every_layout(
 def test_counts_above_2_53_are_refused_per_row(workspace: Workspace, tmp_path: Path) -> None:
     # 2**53 is the last integer a float64 holds exactly (IEEE 754, 53-bit significand);
     # 2**63 overflows SQLite's signed 64-bit INTEGER (SQLite docs, datatypes).
-    rows = [("n1", 2**53), ("n2", 2**53 + 1), ("n3", 2**63), ("n4", 2**64 + 7), ("n5", 12),
-            ("n6", 13), ("n7", 14), ("n8", 15), ("n9", 16)]
+    rows = [
+        ("n1", 2**53),
+        ("n2", 2**53 + 1),
+        ("n3", 2**63),
+        ("n4", 2**64 + 7),
+        ("n5", 12),
+        ("n6", 13),
+        ("n7", 14),
+        ("n8", 15),
+        ("n9", 16),
+    ]
     body = "post_id,account,text,posted_at,impressions\n" + "".join(
-        f"{pid},garden,Count {pid},2026-05-01T10:00:00Z,{n}\n" for pid, n in rows)
+        f"{pid},garden,Count {pid},2026-05-01T10:00:00Z,{n}\n" for pid, n in rows
+    )
     f = tmp_path / "big.csv"
     f.write_text(body)
     s = workspace.import_csv(f)
     assert [(p.line, p.column, p.post_id) for p in s.problems] == [
-        (3, "impressions", "n2"), (4, "impressions", "n3"), (5, "impressions", "n4")]
+        (3, "impressions", "n2"),
+        (4, "impressions", "n3"),
+        (5, "impressions", "n4"),
+    ]
     assert all("2^53" in p.reason for p in s.problems)
     got = stored(workspace)
     assert set(got) == {"n1", "n5", "n6", "n7", "n8", "n9"}
     assert got["n1"]["impressions"] == 9_007_199_254_740_992  # exact, not rounded
 
 
-@pytest.mark.parametrize("when", ["9999-12-31T23:59:00Z", "0001-01-01T00:00:00+00:00",
-                                  "1600-01-01T00:00:00Z", "1989-12-31T23:59:59Z",
-                                  "2200-01-01T00:00:00Z"])
+@pytest.mark.parametrize(
+    "when",
+    [
+        "9999-12-31T23:59:00Z",
+        "0001-01-01T00:00:00+00:00",
+        "1600-01-01T00:00:00Z",
+        "1989-12-31T23:59:59Z",
+        "2200-01-01T00:00:00Z",
+    ],
+)
 def test_times_outside_the_range_are_refused_with_row_column_and_range(
     workspace: Workspace, tmp_path: Path, when: str
 ) -> None:
     f = tmp_path / "when.csv"
-    f.write_text("post_id,account,text,posted_at,impressions\n"
-                 "t1,garden,Fine,2026-05-01T10:00:00Z,5\n"
-                 f"t2,garden,Out of range,{when},5\n")
+    f.write_text(
+        "post_id,account,text,posted_at,impressions\n"
+        "t1,garden,Fine,2026-05-01T10:00:00Z,5\n"
+        f"t2,garden,Out of range,{when},5\n"
+    )
     s = workspace.import_csv(f)
     assert s.added == 1 and [(p.line, p.column) for p in s.problems] == [(3, "posted_at")]
     assert "outside the accepted range, 1990-01-01 to" in s.problems[0].reason
@@ -222,9 +256,11 @@ def test_times_outside_the_range_are_refused_with_row_column_and_range(
 
 def test_the_range_edges_are_accepted(workspace: Workspace, tmp_path: Path) -> None:
     f = tmp_path / "edge.csv"
-    f.write_text("post_id,account,text,posted_at,impressions\n"
-                 "e1,garden,First day,1990-01-01T00:00:00Z,5\n"
-                 "e2,garden,Next decade,2099-06-01T00:00:00Z,5\n")
+    f.write_text(
+        "post_id,account,text,posted_at,impressions\n"
+        "e1,garden,First day,1990-01-01T00:00:00Z,5\n"
+        "e2,garden,Next decade,2099-06-01T00:00:00Z,5\n"
+    )
     assert workspace.import_csv(f).added == 2
 
 
@@ -234,11 +270,12 @@ def test_a_rate_that_does_not_match_is_rejected_and_a_missing_count_derived(
     f = tmp_path / "rate.csv"
     f.write_text(
         "post_id,account,text,posted_at,impressions,engagements,engagement_rate\n"
-        "r1,garden,Matches,2026-05-01T10:00:00Z,2000,90,4.5%\n"       # 90/2000 = 4.5%
-        "r2,garden,Does not,2026-05-01T11:00:00Z,2000,90,9%\n"        # 4.5% != 9%
-        "r3,garden,Fraction,2026-05-01T12:00:00Z,2000,90,0.045\n"     # the same as a fraction
-        "r4,garden,Derived,2026-05-01T13:00:00Z,2000,,3.5%\n"         # 3.5% of 2000 = 70
-        "r5,garden,Alone,2026-05-01T14:00:00Z,,,3.5%\n")
+        "r1,garden,Matches,2026-05-01T10:00:00Z,2000,90,4.5%\n"  # 90/2000 = 4.5%
+        "r2,garden,Does not,2026-05-01T11:00:00Z,2000,90,9%\n"  # 4.5% != 9%
+        "r3,garden,Fraction,2026-05-01T12:00:00Z,2000,90,0.045\n"  # the same as a fraction
+        "r4,garden,Derived,2026-05-01T13:00:00Z,2000,,3.5%\n"  # 3.5% of 2000 = 70
+        "r5,garden,Alone,2026-05-01T14:00:00Z,,,3.5%\n"
+    )
     s = workspace.import_csv(f)
     assert [(p.line, p.column) for p in s.problems] == [(3, "engagement_rate"), (6, "engagement_rate")]
     assert "does not match engagements / impressions" in s.problems[0].reason
@@ -249,9 +286,11 @@ def test_a_rate_that_does_not_match_is_rejected_and_a_missing_count_derived(
 
 def test_number_hints_name_the_decimal_comma(workspace: Workspace, tmp_path: Path) -> None:
     f = tmp_path / "dc.csv"
-    f.write_text("post_id,account,text,posted_at,impressions\n"
-                 "d1,garden,Dots,2026-05-01T10:00:00Z,1.234.567\n"
-                 "d2,garden,Percent,2026-05-01T10:00:00Z,45%\n")
+    f.write_text(
+        "post_id,account,text,posted_at,impressions\n"
+        "d1,garden,Dots,2026-05-01T10:00:00Z,1.234.567\n"
+        "d2,garden,Percent,2026-05-01T10:00:00Z,45%\n"
+    )
     s = workspace.import_csv(f)
     assert "--decimal-comma" in (s.problems[0].hint or "")
     assert "percentage" in s.problems[1].reason
@@ -275,42 +314,45 @@ def test_an_exact_count_replacing_an_abbreviated_one_clears_the_flag(
 # A bad record costs only that record (RFC 4180) -----------------------------------------
 
 
-GOOD_ROWS = ["m1,garden,First post,2026-05-01T10:00:00Z,11",
-             "m3,garden,Third post,2026-05-01T12:00:00Z,33",
-             "m4,garden,\"Fourth, with a comma\",2026-05-01T13:00:00Z,44",
-             "m5,garden,Fifth post,2026-05-01T14:00:00Z,55"]
+GOOD_ROWS = [
+    "m1,garden,First post,2026-05-01T10:00:00Z,11",
+    "m3,garden,Third post,2026-05-01T12:00:00Z,33",
+    'm4,garden,"Fourth, with a comma",2026-05-01T13:00:00Z,44',
+    "m5,garden,Fifth post,2026-05-01T14:00:00Z,55",
+]
 
 
-@pytest.mark.parametrize("bad", [
-    'm2,garden,"She said "hello" at the gate",2026-05-01T11:00:00Z,22',  # quote not doubled
-    'm2,garden,"A quote that never closes,2026-05-01T11:00:00Z,22',      # unclosed quote
-    'm2,garden,"Closed" too early,2026-05-01T11:00:00Z,22',              # text after the quote
-])
+@pytest.mark.parametrize(
+    "bad",
+    [
+        'm2,garden,"She said "hello" at the gate",2026-05-01T11:00:00Z,22',  # quote not doubled
+        'm2,garden,"A quote that never closes,2026-05-01T11:00:00Z,22',  # unclosed quote
+        'm2,garden,"Closed" too early,2026-05-01T11:00:00Z,22',  # text after the quote
+    ],
+)
 def test_a_malformed_quote_in_row_2_of_5_costs_only_that_row(
     workspace: Workspace, tmp_path: Path, bad: str
 ) -> None:
     # RFC 4180 section 2, rules 5-7: a field with quotes is enclosed in quotes and its
     # own quotes are doubled; any other quote makes the record unreadable.
     f = tmp_path / "quote.csv"
-    f.write_text("\n".join(["post_id,account,text,posted_at,impressions", GOOD_ROWS[0], bad,
-                            *GOOD_ROWS[1:]]) + "\n")
+    f.write_text(
+        "\n".join(["post_id,account,text,posted_at,impressions", GOOD_ROWS[0], bad, *GOOD_ROWS[1:]]) + "\n"
+    )
     s = workspace.import_csv(f)
     assert [(p.line, p.column) for p in s.problems] == [(3, None)]
     assert s.added == 4 and s.skipped_lines == 0
     assert set(stored(workspace)) == {"m1", "m3", "m4", "m5"}
 
 
-def test_a_field_over_the_csv_size_limit_costs_only_its_row(
-    workspace: Workspace, tmp_path: Path
-) -> None:
+def test_a_field_over_the_csv_size_limit_costs_only_its_row(workspace: Workspace, tmp_path: Path) -> None:
     import csv
 
     limit = csv.field_size_limit()  # the csv module's limit in force (Python docs)
     f = tmp_path / "long.csv"
     with f.open("w", encoding="utf-8") as h:
         h.write("post_id,account,text,posted_at,impressions\n" + GOOD_ROWS[0] + "\n")
-        h.write('m2,garden,"' + "x" * (limit + 10) + '\nstill the same field",'
-                "2026-05-01T11:00:00Z,22\n")
+        h.write('m2,garden,"' + "x" * (limit + 10) + '\nstill the same field",2026-05-01T11:00:00Z,22\n')
         h.write("\n".join(GOOD_ROWS[1:]) + "\n")
     s = workspace.import_csv(f)
     assert [(p.line, p.column) for p in s.problems] == [(3, None)]
@@ -318,15 +360,14 @@ def test_a_field_over_the_csv_size_limit_costs_only_its_row(
     assert set(stored(workspace)) == {"m1", "m3", "m4", "m5"}
 
 
-def test_a_file_whose_rest_is_not_csv_says_how_much_was_skipped(
-    workspace: Workspace, tmp_path: Path
-) -> None:
+def test_a_file_whose_rest_is_not_csv_says_how_much_was_skipped(workspace: Workspace, tmp_path: Path) -> None:
     from service.csvread import MAX_BAD_IN_A_ROW
 
     junk = ['x,"a"b' for _ in range(MAX_BAD_IN_A_ROW + 30)]
     f = tmp_path / "junk.csv"
-    f.write_text("\n".join(["post_id,account,text,posted_at,impressions", GOOD_ROWS[0], *junk,
-                            *GOOD_ROWS[1:]]) + "\n")
+    f.write_text(
+        "\n".join(["post_id,account,text,posted_at,impressions", GOOD_ROWS[0], *junk, *GOOD_ROWS[1:]]) + "\n"
+    )
     s = workspace.import_csv(f)
     assert s.added == 1 and s.rejected == MAX_BAD_IN_A_ROW - 1
     # 49 bad records are reported; reading stops at the 50th, and its line, the junk
@@ -352,12 +393,15 @@ def test_wide_headers_are_checked_for_repeats(workspace: Workspace, tmp_path: Pa
 # Options -------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize(("opts", "fragment"), [
-    ({"time_format": "%d/%m/%Y"}, "no time of day"),
-    ({"time_format": "%Q %H"}, "not a usable strptime pattern"),
-    ({"time_format": "epoch", "date_order": "day-first"}, "not both"),
-    ({"date_order": "sideways"}, "day-first or month-first"),
-])
+@pytest.mark.parametrize(
+    ("opts", "fragment"),
+    [
+        ({"time_format": "%d/%m/%Y"}, "no time of day"),
+        ({"time_format": "%Q %H"}, "not a usable strptime pattern"),
+        ({"time_format": "epoch", "date_order": "day-first"}, "not both"),
+        ({"date_order": "sideways"}, "day-first or month-first"),
+    ],
+)
 def test_bad_layout_options_are_refused(workspace: Workspace, opts: dict, fragment: str) -> None:
     with pytest.raises(InputError, match=fragment):
         workspace.import_csv(FIXTURES / "canonical.csv", **opts)
@@ -387,8 +431,17 @@ MESSY_ARGS = [a for k, v in {**MAP, **RATE}.items() for a in ("--map", f"{k}={v}
 
 def test_saved_mapping_reads_the_messy_export(cli_home: Path) -> None:
     assert run("mapping", "list").stdout.startswith("no saved mappings")  # no built-in presets
-    r = run("mapping", "save", "garden-export", *MESSY_ARGS, "--day-first",
-            "--account", "loomhaven", "--timezone", LONDON)
+    r = run(
+        "mapping",
+        "save",
+        "garden-export",
+        *MESSY_ARGS,
+        "--day-first",
+        "--account",
+        "loomhaven",
+        "--timezone",
+        LONDON,
+    )
     assert r.exit_code == 0, r.output
     saved = tomllib.loads((cli_home / "mappings" / "garden-export.toml").read_text())
     assert saved["columns"] == {**MAP, **RATE} and saved["account"] == "loomhaven"
@@ -420,8 +473,16 @@ def test_dry_run_stores_nothing_and_shows_utc_and_local_times(cli_home: Path) ->
     close_cli_workspace()  # SQLite folds its write-ahead log into the file on close
     db = cli_home / "sounding.db"
     before = _digest(db)
-    r = run("import", str(FIXTURES / "month_first_12h.csv"), *MESSY_ARGS[:14], "--month-first",
-            "--account", "loomhaven", "--dry-run", "--json")
+    r = run(
+        "import",
+        str(FIXTURES / "month_first_12h.csv"),
+        *MESSY_ARGS[:14],
+        "--month-first",
+        "--account",
+        "loomhaven",
+        "--dry-run",
+        "--json",
+    )
     assert r.exit_code == 0, r.output
     close_cli_workspace()
     assert _digest(db) == before  # byte for byte
@@ -435,14 +496,27 @@ def test_dry_run_stores_nothing_and_shows_utc_and_local_times(cli_home: Path) ->
     assert first["local_time"] == "2026-01-07T18:45:00+00:00" and first["zone"] == LONDON
     # lh-103 at 00:30Z on 29 March is 00:30 GMT; lh-104 at 01:30Z is 02:30 BST.
     assert out["rows"][3]["local_time"] == "2026-03-29T02:30:00+01:00"
-    text = run("import", str(FIXTURES / "month_first_12h.csv"), *MESSY_ARGS[:14],
-               "--month-first", "--account", "loomhaven", "--dry-run")
+    text = run(
+        "import",
+        str(FIXTURES / "month_first_12h.csv"),
+        *MESSY_ARGS[:14],
+        "--month-first",
+        "--account",
+        "loomhaven",
+        "--dry-run",
+    )
     assert "dry run: nothing is stored" in text.stdout and "2026-03-29 02:30" in text.stdout
 
 
 def test_rejected_rows_exit_3_unless_allowed_and_are_listed(cli_home: Path) -> None:
-    args = ["import", str(FIXTURES / "day_first.csv"), *MESSY_ARGS[:14], "--month-first",
-            "--account", "loomhaven"]
+    args = [
+        "import",
+        str(FIXTURES / "day_first.csv"),
+        *MESSY_ARGS[:14],
+        "--month-first",
+        "--account",
+        "loomhaven",
+    ]
     r = run(*args, "--json")
     assert r.exit_code == 3
     summary = json.loads(r.stdout)
@@ -465,12 +539,20 @@ def test_api_dry_run_stores_nothing(make_workspace) -> None:
     workspace = make_workspace(token=token)
     workspace.import_csv(FIXTURES / "canonical.csv")
     before = workspace.store.counts()
-    data = {"map": [f"{k}={v}" for k, v in {**MAP, **RATE}.items()], "account": "loomhaven",
-            "date_order": "day-first"}
+    data = {
+        "map": [f"{k}={v}" for k, v in {**MAP, **RATE}.items()],
+        "account": "loomhaven",
+        "date_order": "day-first",
+    }
     files = {"file": ("messy.csv", (FIXTURES / "messy.csv").read_bytes(), "text/csv")}
     with TestClient(create_app(workspace=workspace)) as c:
-        r = c.post("/v1/imports", params={"dry_run": "true"}, data=data, files=files,
-                   headers={"Authorization": f"Bearer {token}"})
+        r = c.post(
+            "/v1/imports",
+            params={"dry_run": "true"},
+            data=data,
+            files=files,
+            headers={"Authorization": f"Bearer {token}"},
+        )
     assert r.status_code == 200, r.text
     body = r.json()
     assert body["dry_run"] is True and body["would_import"] == 13 and body["approximate"] == 11
@@ -482,8 +564,12 @@ def test_an_unreadable_rest_exits_3_even_with_allow_rejects(cli_home: Path, tmp_
     from service.csvread import MAX_BAD_IN_A_ROW
 
     f = tmp_path / "junk.csv"
-    f.write_text("\n".join(["post_id,account,text,posted_at,impressions", GOOD_ROWS[0],
-                            *['x,"a"b'] * (MAX_BAD_IN_A_ROW + 5)]) + "\n")
+    f.write_text(
+        "\n".join(
+            ["post_id,account,text,posted_at,impressions", GOOD_ROWS[0], *['x,"a"b'] * (MAX_BAD_IN_A_ROW + 5)]
+        )
+        + "\n"
+    )
     r = run("import", str(f), "--allow-rejects")
     assert r.exit_code == 3
     assert "added 1" in r.stdout and "6 lines were not read" in r.stderr

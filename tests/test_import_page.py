@@ -7,23 +7,37 @@ import hashlib
 from pathlib import Path
 
 import pytest
+from serving import serve
 
 from service.api.app import create_app
-from serving import serve
 
 FIXTURES = Path(__file__).parent / "fixtures" / "exports"
 CHROMIUM = Path("/usr/bin/chromium")
-ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
-        "--disable-component-update", "--disable-sync", "--no-first-run"]
+ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--no-first-run",
+]
 TOKEN = "page-import-token-0123456789abcdef"
-MAP = ["post_id=Post ID", "text=Message", "posted_at=Published", "impressions=Views",
-       "engagements=Interactions", "likes=Likes", "has_media=Media",
-       "engagement_rate=Engagement rate"]
+MAP = [
+    "post_id=Post ID",
+    "text=Message",
+    "posted_at=Published",
+    "impressions=Views",
+    "engagements=Interactions",
+    "likes=Likes",
+    "has_media=Media",
+    "engagement_rate=Engagement rate",
+]
 
 pytestmark = [
     pytest.mark.browser,
-    pytest.mark.skipif(not CHROMIUM.exists(),
-                       reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"),
+    pytest.mark.skipif(
+        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
+    ),
 ]
 
 

@@ -49,7 +49,10 @@ def sklearn_topk(base: np.ndarray, ids: np.ndarray, queries: np.ndarray, k: int)
 
 
 def assert_same_topk(
-    got_sims: np.ndarray, got_ids: np.ndarray, ref_sims: np.ndarray, ref_ids: np.ndarray,
+    got_sims: np.ndarray,
+    got_ids: np.ndarray,
+    ref_sims: np.ndarray,
+    ref_ids: np.ndarray,
     sim_of: dict[int, np.ndarray] | None = None,
 ) -> int:
     """Same top-k sets per query, ties aside: an id may differ only where its
@@ -195,8 +198,15 @@ def _queries(vecs: np.ndarray, n_random: int = 60) -> np.ndarray:
     return q / np.linalg.norm(q, axis=1, keepdims=True)
 
 
-def _check_workspace(ws: Workspace, df: pd.DataFrame, vecs: np.ndarray, mask: np.ndarray,
-                     queries: np.ndarray, k: int, **filters) -> None:
+def _check_workspace(
+    ws: Workspace,
+    df: pd.DataFrame,
+    vecs: np.ndarray,
+    mask: np.ndarray,
+    queries: np.ndarray,
+    k: int,
+    **filters,
+) -> None:
     hits = ws.neighbours(queries, k, **filters)
     sub_ids = df["pk"].to_numpy()[mask]
     ref_sims, ref_ids = sklearn_topk(vecs[mask], sub_ids, queries, k)
@@ -235,8 +245,7 @@ def test_date_range_filter_equals_brute_force(demo_workspace: Workspace, demo_tr
     q = _queries(vecs)
     _check_workspace(demo_workspace, df, vecs, mask, q, 10, since=since, until=until)
     both = mask & (df["account"] == "loomhaven_lab").to_numpy()
-    _check_workspace(demo_workspace, df, vecs, both, q, 10, since=since, until=until,
-                     account="loomhaven_lab")
+    _check_workspace(demo_workspace, df, vecs, both, q, 10, since=since, until=until, account="loomhaven_lab")
 
 
 def test_precedents_rules(demo_workspace: Workspace, demo_truth) -> None:
@@ -250,8 +259,9 @@ def test_precedents_rules(demo_workspace: Workspace, demo_truth) -> None:
     with pytest.raises(InputError, match="k must be between"):
         demo_workspace.precedents(text, k=0)
     with pytest.raises(InputError, match="ends before it starts"):
-        demo_workspace.precedents(text, since=datetime(2026, 1, 2, tzinfo=UTC),
-                                  until=datetime(2026, 1, 1, tzinfo=UTC))
+        demo_workspace.precedents(
+            text, since=datetime(2026, 1, 2, tzinfo=UTC), until=datetime(2026, 1, 1, tzinfo=UTC)
+        )
     with pytest.raises(NotFound, match="unknown account 'nobody'"):
         demo_workspace.precedents(text, account="nobody")
     with pytest.raises(InputError, match="empty"):
@@ -274,8 +284,7 @@ def _same(a, b, sim_of) -> None:
 
 
 def _sim_of(df: pd.DataFrame, vecs: np.ndarray, q: np.ndarray) -> dict[int, np.ndarray]:
-    return dict(zip(df["pk"].tolist(), vecs.astype(np.float64) @ q.T.astype(np.float64),
-                    strict=True))
+    return dict(zip(df["pk"].tolist(), vecs.astype(np.float64) @ q.T.astype(np.float64), strict=True))
 
 
 def test_deleted_index_is_rebuilt_with_same_results(
@@ -327,8 +336,7 @@ def test_stale_index_is_detected_and_rebuilt(
         # Another workspace imports a new post: ws1's in-memory index picks it up.
         text = "A brand-new post about the midnight cactus bloom that nobody has seen before."
         (tmp_path / "new.csv").write_text(
-            "post_id,account,text,posted_at,impressions\n"
-            f"new-1,loomhaven,{text},2026-10-30T10:00:00Z,10\n"
+            f"post_id,account,text,posted_at,impressions\nnew-1,loomhaven,{text},2026-10-30T10:00:00Z,10\n"
         )
         assert ws2.import_csv(tmp_path / "new.csv").added == 1
         q = embedder.encode([text])

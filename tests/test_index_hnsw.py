@@ -25,8 +25,9 @@ def sklearn_topk(base: np.ndarray, ids: np.ndarray, queries: np.ndarray, k: int)
     return 1.0 - dist, ids[pos]
 
 
-def recall(got_ids: np.ndarray, got_sims: np.ndarray, ref_ids: np.ndarray, ref_sims: np.ndarray,
-           tol: float = 1e-5) -> float:
+def recall(
+    got_ids: np.ndarray, got_sims: np.ndarray, ref_ids: np.ndarray, ref_sims: np.ndarray, tol: float = 1e-5
+) -> float:
     """Share of the reference top-k found; a returned id whose similarity
     reaches the reference k-th (an exact tie: the demo repeats a few texts)
     counts as found. Found ids must be real neighbours: their similarity
@@ -36,8 +37,9 @@ def recall(got_ids: np.ndarray, got_sims: np.ndarray, ref_ids: np.ndarray, ref_s
     for g, gs, r, rs in zip(got_ids[:, :k], got_sims[:, :k], ref_ids, ref_sims, strict=True):
         found = set(g[g >= 0].tolist())
         hits += len(found & set(r.tolist()))
-        hits += sum(1 for i, s in zip(g, gs, strict=True)
-                    if i >= 0 and i not in set(r.tolist()) and s >= rs[-1] - tol)
+        hits += sum(
+            1 for i, s in zip(g, gs, strict=True) if i >= 0 and i not in set(r.tolist()) and s >= rs[-1] - tol
+        )
     return hits / ref_ids.size
 
 
@@ -131,12 +133,13 @@ def test_forget_removes_posts_from_the_approximate_index(demo_copy: Workspace, d
     assert state is not None and state["approximate"] and state["recall_at_10"] >= 0.98
     assert demo_copy.health()["search"] == state  # what GET /v1/health reports
     victim = 42
-    demo_copy.forget(account=str(accounts[victim]),
-                     post_id=str(demo_copy.store.posts_frame().iloc[victim]["post_id"]))
+    demo_copy.forget(
+        account=str(accounts[victim]), post_id=str(demo_copy.store.posts_frame().iloc[victim]["post_id"])
+    )
     n = demo_copy.forget(account="loomhaven_lab")
     assert n > 0
     gone = set(ids[accounts == "loomhaven_lab"].tolist()) | {int(ids[victim])}
-    q = np.vstack([vecs[victim:victim + 1], vecs[accounts == "loomhaven_lab"][:200]])
+    q = np.vstack([vecs[victim : victim + 1], vecs[accounts == "loomhaven_lab"][:200]])
     hits = demo_copy.neighbours(q, 20)
     assert all(p not in gone for h in hits for p, _ in h)
     # Also from the index saved to disk, as a restarted service would load it.

@@ -11,6 +11,7 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
+from conftest import TOKEN, history_csv
 from fastapi.testclient import TestClient
 
 from models.errors import LimitExceeded
@@ -18,7 +19,6 @@ from service.api.app import create_app
 from service.api.schemas import ErrorBody
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import TOKEN, history_csv
 
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
 MAX_DRAFT, MAX_BATCH, MAX_UPLOAD = 300, 3, 4096
@@ -38,8 +38,7 @@ def base_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
 @pytest.fixture()
 def ws(base_home: Path, tmp_path: Path, embedder) -> Iterator[Workspace]:
     shutil.copytree(base_home, tmp_path / "home")
-    ws = Workspace(settings=Settings(home=tmp_path / "home", token=TOKEN, **LIMITS),
-                   embedder=embedder)
+    ws = Workspace(settings=Settings(home=tmp_path / "home", token=TOKEN, **LIMITS), embedder=embedder)
     yield ws
     ws.close()
 
@@ -94,18 +93,18 @@ def test_batch_limit_over_http(client: TestClient, ws: Workspace) -> None:
             return takes_drafts(components.get(schema["$ref"].rsplit("/", 1)[-1]), depth + 1)
         if "drafts" in schema.get("properties", {}):
             return True
-        return any(takes_drafts(s, depth + 1)
-                   for s in schema.get("anyOf", []) + schema.get("oneOf", []))
+        return any(takes_drafts(s, depth + 1) for s in schema.get("anyOf", []) + schema.get("oneOf", []))
 
     batch_ops = [
         (method.upper(), path)
-        for path, item in doc["paths"].items() for method, op in item.items()
-        if takes_drafts(op.get("requestBody", {}).get("content", {})
-                        .get("application/json", {}).get("schema"))
+        for path, item in doc["paths"].items()
+        for method, op in item.items()
+        if takes_drafts(
+            op.get("requestBody", {}).get("content", {}).get("application/json", {}).get("schema")
+        )
     ]
     assert batch_ops, "no endpoint takes a list of drafts"
-    drafts = [{"text": f"Draft {i} about the orchard", "account": "loomhaven"}
-              for i in range(MAX_BATCH + 1)]
+    drafts = [{"text": f"Draft {i} about the orchard", "account": "loomhaven"} for i in range(MAX_BATCH + 1)]
     for method, path in batch_ops:
         r = client.request(method, path, json={"drafts": drafts}, headers=AUTH)
         limit_error(r, "max_batch", MAX_BATCH)
@@ -120,7 +119,8 @@ def test_upload_within_the_limit_is_imported_and_removed(client: TestClient, ws:
     out = r.json()
     assert (out["added"], out["rejected"], out["updated"], out["unchanged"]) == (5, 1, 0, 0)
     assert [{k: p[k] for k in ("line", "column", "reason", "post_id")} for p in out["problems"]] == [
-        {"line": 4, "column": "impressions", "reason": "'-5' is negative", "post_id": "up-2"}]
+        {"line": 4, "column": "impressions", "reason": "'-5' is negative", "post_id": "up-2"}
+    ]
     assert ws.store.counts()["posts"] == before + 5
     assert not list(ws.settings.uploads_dir.iterdir())  # the temporary file is gone
 
@@ -129,10 +129,14 @@ def test_upload_form_fields_account_timezone_and_mapping(client: TestClient, ws:
     # Their export: other column names, no account column, local times.
     data = b"id,body,when,views\nx-1,Bats over the lake at dusk,2025-07-01 21:30,880\n"
     r = client.post(
-        "/v1/imports", headers=AUTH,
+        "/v1/imports",
+        headers=AUTH,
         files={"file": ("theirs.csv", data, "text/csv")},
-        data={"account": "loomhaven_lab", "timezone": "America/New_York",
-              "map": ["post_id=id", "text=body", "posted_at=when", "impressions=views"]},
+        data={
+            "account": "loomhaven_lab",
+            "timezone": "America/New_York",
+            "map": ["post_id=id", "text=body", "posted_at=when", "impressions=views"],
+        },
     )
     assert r.status_code == 200, r.text
     assert r.json()["added"] == 1
@@ -142,9 +146,7 @@ def test_upload_form_fields_account_timezone_and_mapping(client: TestClient, ws:
     assert row["impressions"] == 880
 
 
-def test_upload_past_the_limit_is_refused_and_stores_nothing(
-    client: TestClient, ws: Workspace
-) -> None:
+def test_upload_past_the_limit_is_refused_and_stores_nothing(client: TestClient, ws: Workspace) -> None:
     data = history_csv(200, prefix="big")
     assert len(data) > MAX_UPLOAD
     before = ws.store.counts()
@@ -159,20 +161,24 @@ def test_upload_past_the_limit_is_refused_and_stores_nothing(
     ("body", "reason"),
     [
         (b"not a form at all", "multipart"),
-        (b"--B\r\nContent-Disposition: form-data; name=\"file\"; filename=\"a.csv\"\r\n\r\nx,y\r\n",
-         "closing boundary"),
-        (b"--B\r\nContent-Disposition: form-data; name=\"account\"\r\n\r\nloomhaven\r\n--B--\r\n",
-         "no file"),
-        (b"--B\r\nContent-Disposition: form-data; name=\"colour\"\r\n\r\nred\r\n--B--\r\n",
-         "unknown form field"),
+        (
+            b'--B\r\nContent-Disposition: form-data; name="file"; filename="a.csv"\r\n\r\nx,y\r\n',
+            "closing boundary",
+        ),
+        (b'--B\r\nContent-Disposition: form-data; name="account"\r\n\r\nloomhaven\r\n--B--\r\n', "no file"),
+        (
+            b'--B\r\nContent-Disposition: form-data; name="colour"\r\n\r\nred\r\n--B--\r\n',
+            "unknown form field",
+        ),
     ],
 )
 def test_malformed_uploads_are_422_and_leave_no_file(
     client: TestClient, ws: Workspace, body: bytes, reason: str
 ) -> None:
     before = ws.store.counts()
-    r = client.post("/v1/imports", content=body,
-                    headers={**AUTH, "Content-Type": "multipart/form-data; boundary=B"})
+    r = client.post(
+        "/v1/imports", content=body, headers={**AUTH, "Content-Type": "multipart/form-data; boundary=B"}
+    )
     assert r.status_code == 422, r.text
     assert reason in ErrorBody.model_validate(r.json()).error.message
     assert ws.store.counts() == before
@@ -180,8 +186,7 @@ def test_malformed_uploads_are_422_and_leave_no_file(
 
 
 def test_a_non_form_body_is_422(client: TestClient) -> None:
-    r = client.post("/v1/imports", content=b"post_id,text\n", headers={**AUTH,
-                    "Content-Type": "text/csv"})
+    r = client.post("/v1/imports", content=b"post_id,text\n", headers={**AUTH, "Content-Type": "text/csv"})
     assert r.status_code == 422
     assert "multipart/form-data" in r.json()["error"]["message"]
 
@@ -221,11 +226,18 @@ def asgi_upload(app, chunks: Iterator[bytes], headers: dict[str, str]) -> tuple[
                     done.set()
 
         scope = {
-            "type": "http", "asgi": {"version": "3.0"}, "http_version": "1.1",
-            "method": "POST", "scheme": "http", "path": "/v1/imports",
-            "raw_path": b"/v1/imports", "query_string": b"", "root_path": "",
+            "type": "http",
+            "asgi": {"version": "3.0"},
+            "http_version": "1.1",
+            "method": "POST",
+            "scheme": "http",
+            "path": "/v1/imports",
+            "raw_path": b"/v1/imports",
+            "query_string": b"",
+            "root_path": "",
             "headers": [(k.lower().encode(), v.encode()) for k, v in headers.items()],
-            "client": ("127.0.0.1", 50000), "server": ("127.0.0.1", 8000),
+            "client": ("127.0.0.1", 50000),
+            "server": ("127.0.0.1", 8000),
         }
         await app(scope, receive, send)
 
@@ -235,8 +247,10 @@ def asgi_upload(app, chunks: Iterator[bytes], headers: dict[str, str]) -> tuple[
 
 def endless_form() -> Iterator[bytes]:
     """A well-formed start of a form whose file part never ends."""
-    yield (b"--B\r\nContent-Disposition: form-data; name=\"file\"; filename=\"h.csv\"\r\n"
-           b"Content-Type: text/csv\r\n\r\npost_id,account,text,posted_at,impressions\r\n")
+    yield (
+        b'--B\r\nContent-Disposition: form-data; name="file"; filename="h.csv"\r\n'
+        b"Content-Type: text/csv\r\n\r\npost_id,account,text,posted_at,impressions\r\n"
+    )
     for i in range(10_000):  # 10 MB if anyone read it all
         yield (f"s-{i},loomhaven,Row {i}".ljust(CHUNK - 2, ".") + "\r\n").encode()
 
@@ -258,9 +272,9 @@ def test_streamed_upload_without_length_is_cut_off_at_the_limit(ws: Workspace) -
 def test_declared_length_past_the_limit_is_refused_before_reading(ws: Workspace) -> None:
     app = create_app(workspace=ws)
     status, body, taken = asgi_upload(
-        app, endless_form(),
-        {**AUTH, "content-type": "multipart/form-data; boundary=B",
-         "content-length": str(10 * 1024 * 1024)},
+        app,
+        endless_form(),
+        {**AUTH, "content-type": "multipart/form-data; boundary=B", "content-length": str(10 * 1024 * 1024)},
     )
     assert status == 413
     assert ErrorBody.model_validate_json(body).error.maximum == MAX_UPLOAD
@@ -269,7 +283,7 @@ def test_declared_length_past_the_limit_is_refused_before_reading(ws: Workspace)
 
 def test_token_is_checked_before_the_body_is_read(ws: Workspace) -> None:
     app = create_app(workspace=ws)
-    status, body, taken = asgi_upload(
+    status, _body, taken = asgi_upload(
         app, endless_form(), {"content-type": "multipart/form-data; boundary=B"}
     )
     assert status == 401

@@ -24,12 +24,12 @@ from typing import Any
 import httpx
 import pytest
 import uvicorn
+from conftest import NEWS, SUBJECTS, TOKEN, history_csv
 
 from service.api.app import create_app
 from service.api.schemas import ImportSummaryOut, PrecedentsResponse
 from service.settings import Settings
 from service.workspace import Workspace
-from conftest import NEWS, SUBJECTS, TOKEN, history_csv
 
 THREADS, PER_THREAD = 4, 50
 BASE_ROWS, IMPORT_ROWS = 40, 240
@@ -84,8 +84,7 @@ class Tally:
 @pytest.fixture()
 def served(tmp_path: Path, embedder) -> Iterator[tuple[str, Workspace]]:
     home = tmp_path / "home"
-    ws = Workspace(settings=Settings(home=home, token=TOKEN, import_batch_rows=40),
-                   embedder=embedder)
+    ws = Workspace(settings=Settings(home=home, token=TOKEN, import_batch_rows=40), embedder=embedder)
     (tmp_path / "base.csv").write_bytes(history_csv(BASE_ROWS, prefix="base", accounts=ACCOUNTS))
     ws.import_csv(tmp_path / "base.csv")
     sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
@@ -110,7 +109,7 @@ def served(tmp_path: Path, embedder) -> Iterator[tuple[str, Workspace]]:
 
 
 def test_concurrent_reads_during_an_import(served, artifacts: Path, capsys) -> None:
-    base_url, ws = served
+    base_url, _ws = served
     tally, lock = Tally(), threading.Lock()
     importing = threading.Event()
     import_result: dict[str, Any] = {}
@@ -124,7 +123,7 @@ def test_concurrent_reads_during_an_import(served, artifacts: Path, capsys) -> N
                     if r.status_code != 200:
                         raise AssertionError(f"{r.status_code} {r.text[:200]}")
                     kind.check(r.json())
-                except Exception as exc:  # noqa: BLE001 - every failure is counted
+                except Exception as exc:  # every failure is counted
                     with lock:
                         tally.errors += 1
                         tally.problems.append(f"{kind.name}: {exc!r}"[:300])
@@ -137,8 +136,17 @@ def test_concurrent_reads_during_an_import(served, artifacts: Path, capsys) -> N
         with httpx.Client(base_url=base_url, timeout=300) as c:
             importing.set()
             try:
-                r = c.post("/v1/imports", headers={"Authorization": f"Bearer {TOKEN}"},
-                           files={"file": ("new.csv", history_csv(IMPORT_ROWS, prefix="new", accounts=ACCOUNTS), "text/csv")})
+                r = c.post(
+                    "/v1/imports",
+                    headers={"Authorization": f"Bearer {TOKEN}"},
+                    files={
+                        "file": (
+                            "new.csv",
+                            history_csv(IMPORT_ROWS, prefix="new", accounts=ACCOUNTS),
+                            "text/csv",
+                        )
+                    },
+                )
                 import_result["status"] = r.status_code
                 import_result["body"] = r.json()
             finally:
@@ -166,17 +174,28 @@ def test_concurrent_reads_during_an_import(served, artifacts: Path, capsys) -> N
     health = httpx.get(f"{base_url}/v1/health", timeout=30).json()
     assert health["posts"] == BASE_ROWS + IMPORT_ROWS
     assert health["index"] == {"state": "ready", "count": BASE_ROWS + IMPORT_ROWS}
-    r = httpx.post(f"{base_url}/v1/precedents", timeout=30,
-                   json={"text": f"{SUBJECTS[3]} {NEWS[3]} (new note 3)", "k": 1})
+    r = httpx.post(
+        f"{base_url}/v1/precedents",
+        timeout=30,
+        json={"text": f"{SUBJECTS[3]} {NEWS[3]} (new note 3)", "k": 1},
+    )
     assert r.json()["precedents"][0]["post_id"] == "new-3"
 
-    figures = {"requests": total, "errors": tally.errors, "threads": THREADS,
-               "during_import": tally.during_import, "import_rows": IMPORT_ROWS,
-               "seconds": round(elapsed, 2), "requests_per_s": round(total / elapsed, 1),
-               "kinds": [k.name for k in KINDS]}
+    figures = {
+        "requests": total,
+        "errors": tally.errors,
+        "threads": THREADS,
+        "during_import": tally.during_import,
+        "import_rows": IMPORT_ROWS,
+        "seconds": round(elapsed, 2),
+        "requests_per_s": round(total / elapsed, 1),
+        "kinds": [k.name for k in KINDS],
+    }
     (artifacts / "load.json").write_text(json.dumps(figures, indent=2))
     with capsys.disabled():
-        print(f"\nload: {total} requests from {THREADS} threads ({', '.join(figures['kinds'])}) "
-              f"with a {IMPORT_ROWS}-row upload import alongside, {tally.during_import} answered "
-              f"during the import; {tally.errors} errors; {elapsed:.1f} s, "
-              f"{figures['requests_per_s']} requests/s on this machine")
+        print(
+            f"\nload: {total} requests from {THREADS} threads ({', '.join(figures['kinds'])}) "
+            f"with a {IMPORT_ROWS}-row upload import alongside, {tally.during_import} answered "
+            f"during the import; {tally.errors} errors; {elapsed:.1f} s, "
+            f"{figures['requests_per_s']} requests/s on this machine"
+        )

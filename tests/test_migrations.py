@@ -46,9 +46,12 @@ def v0_ddl(url: str) -> list[str]:
     if url.startswith("sqlite"):
         return V0_SQLITE
     # The same layout in PostgreSQL's words: SERIAL ids, TIMESTAMP, BYTEA.
-    return [s.replace("id INTEGER NOT NULL,", "id SERIAL NOT NULL,", 1)
-             .replace("DATETIME", "TIMESTAMP WITHOUT TIME ZONE").replace("BLOB", "BYTEA")
-            for s in V0_SQLITE]
+    return [
+        s.replace("id INTEGER NOT NULL,", "id SERIAL NOT NULL,", 1)
+        .replace("DATETIME", "TIMESTAMP WITHOUT TIME ZONE")
+        .replace("BLOB", "BYTEA")
+        for s in V0_SQLITE
+    ]
 
 
 VEC = np.full(384, 1 / np.sqrt(384), dtype=np.float32).tobytes()
@@ -62,16 +65,27 @@ def make_v0_store(url: str) -> None:
         for stmt in v0_ddl(url):
             c.execute(text(stmt))
         t = datetime(2026, 3, 1, 9, 30)
-        c.execute(text("INSERT INTO accounts (handle, timezone, created_at) "
-                       "VALUES ('loomhaven', 'Europe/London', :t)"), {"t": t})
-        c.execute(text("INSERT INTO vectors (key, model_id, dim, data) VALUES ('k1', 'm', 384, :d)"),
-                  {"d": VEC})
-        c.execute(text(
-            "INSERT INTO posts (account_id, post_id, text, vector_key, posted_at, has_link, "
-            "has_media, imported_at, updated_at) VALUES (1, 'p1', 'Snowdrops by the lake', "
-            "'k1', :t, false, true, :t, :t)"), {"t": t})
-        c.execute(text("INSERT INTO snapshots (post_pk, captured_at, impressions) "
-                       "VALUES (1, :t, 1234)"), {"t": t})
+        c.execute(
+            text(
+                "INSERT INTO accounts (handle, timezone, created_at) "
+                "VALUES ('loomhaven', 'Europe/London', :t)"
+            ),
+            {"t": t},
+        )
+        c.execute(
+            text("INSERT INTO vectors (key, model_id, dim, data) VALUES ('k1', 'm', 384, :d)"), {"d": VEC}
+        )
+        c.execute(
+            text(
+                "INSERT INTO posts (account_id, post_id, text, vector_key, posted_at, has_link, "
+                "has_media, imported_at, updated_at) VALUES (1, 'p1', 'Snowdrops by the lake', "
+                "'k1', :t, false, true, :t, :t)"
+            ),
+            {"t": t},
+        )
+        c.execute(
+            text("INSERT INTO snapshots (post_pk, captured_at, impressions) VALUES (1, :t, 1234)"), {"t": t}
+        )
     eng.dispose()
 
 
@@ -164,8 +178,7 @@ def test_stamp_counts_every_write_from_every_process(database_url: str) -> None:
             for i in range(n):
                 store.set_account(f"{name}{i}", timezone="UTC")
 
-        threads = [threading.Thread(target=writer, args=(s, w))
-                   for s, w in ((one, "a"), (two, "b"))]
+        threads = [threading.Thread(target=writer, args=(s, w)) for s, w in ((one, "a"), (two, "b"))]
         for t in threads:
             t.start()
         for t in threads:
@@ -201,11 +214,9 @@ def test_add_column_step_helper(database_url: str) -> None:
     eng = create_engine(database_url)
     try:
         with eng.begin() as c:
-            add_column(c, "snapshots", Column("approximate", Boolean, nullable=False,
-                                              server_default=false()))
+            add_column(c, "snapshots", Column("approximate", Boolean, nullable=False, server_default=false()))
             add_column(c, "snapshots", Column("note", String(40)))
             add_column(c, "snapshots", Column("note", String(40)))  # already there: nothing
     finally:
         eng.dispose()
-    assert raw(database_url, "SELECT impressions, approximate, note FROM snapshots") == \
-        [(1234, False, None)]
+    assert raw(database_url, "SELECT impressions, approximate, note FROM snapshots") == [(1234, False, None)]

@@ -34,8 +34,11 @@ def top10(vectors: np.ndarray) -> list[list[int]]:
     """Each row's 10 nearest other rows. The row itself is dropped by index, not
     by position: demo texts that differ only in an emoji (the tokenizer's [UNK])
     have identical vectors and tie with it."""
-    idx = NearestNeighbors(n_neighbors=11, metric="cosine", algorithm="brute").fit(
-        vectors).kneighbors(vectors, return_distance=False)
+    idx = (
+        NearestNeighbors(n_neighbors=11, metric="cosine", algorithm="brute")
+        .fit(vectors)
+        .kneighbors(vectors, return_distance=False)
+    )
     return [[int(j) for j in row if j != i][:10] for i, row in enumerate(idx)]
 
 
@@ -52,8 +55,7 @@ def onnx_embedder(onnx_home: Path) -> Embedder:
     return Embedder(backend="onnx", export_dir=onnx_home / "embedding", threads=2).prepare()
 
 
-def test_onnx_vectors_match_sentence_transformers(onnx_embedder: Embedder,
-                                                  embedder: Embedder) -> None:
+def test_onnx_vectors_match_sentence_transformers(onnx_embedder: Embedder, embedder: Embedder) -> None:
     # 600 of the 3,000 demo texts (every 5th) keep the suite short; bench_import.py
     # compares all of them.
     texts = demo_texts(5)
@@ -63,8 +65,9 @@ def test_onnx_vectors_match_sentence_transformers(onnx_embedder: Embedder,
     # not our export. Issue 16: cosine >= 0.99999 for every text.
     ref_model = embedder._load()
     assert type(ref_model).__name__ == "SentenceTransformer"
-    want = ref_model.encode(texts, batch_size=64, normalize_embeddings=True,
-                            convert_to_numpy=True, show_progress_bar=False)
+    want = ref_model.encode(
+        texts, batch_size=64, normalize_embeddings=True, convert_to_numpy=True, show_progress_bar=False
+    )
     cos = np.sum(got * want, axis=1) / (np.linalg.norm(got, axis=1) * np.linalg.norm(want, axis=1))
     assert cos.min() >= 0.99999, f"lowest cosine {cos.min():.7f}"
     # Same top-10 neighbours by scikit-learn's exact (brute-force) cosine search.
@@ -73,8 +76,9 @@ def test_onnx_vectors_match_sentence_transformers(onnx_embedder: Embedder,
     assert all(same), f"{len(same) - sum(same)} texts have different top-10 neighbours"
 
 
-def test_fp32_onnx_shares_cache_keys_int8_does_not(onnx_embedder: Embedder,
-                                                   embedder: Embedder, tmp_path: Path) -> None:
+def test_fp32_onnx_shares_cache_keys_int8_does_not(
+    onnx_embedder: Embedder, embedder: Embedder, tmp_path: Path
+) -> None:
     # fp32 ONNX vectors equal the torch ones, so the vector cache is shared; int8
     # vectors differ, so they get their own keys (never loaded here: keys need no model).
     assert onnx_embedder.key("Snowdrops by the lake") == embedder.key("Snowdrops by the lake")
@@ -101,10 +105,14 @@ def test_export_is_reused_and_keyed_by_settings(onnx_home: Path) -> None:
     cfg = json.loads((exports[0] / onnx_backend.CONFIG_NAME).read_text())
     assert cfg["quantize"] == "none" and cfg["probe_min_cosine"] >= 0.99999
     model_path = Path(cfg["model_path"])
-    assert onnx_backend.export_name(model_id=cfg["model_id"], model_path=model_path,
-                                    quantize="none") == exports[0].name
-    assert onnx_backend.export_name(model_id=cfg["model_id"], model_path=model_path,
-                                    quantize="int8") != exports[0].name
+    assert (
+        onnx_backend.export_name(model_id=cfg["model_id"], model_path=model_path, quantize="none")
+        == exports[0].name
+    )
+    assert (
+        onnx_backend.export_name(model_id=cfg["model_id"], model_path=model_path, quantize="int8")
+        != exports[0].name
+    )
     # A second embedder finds the export instead of making another.
     e = Embedder(backend="onnx", export_dir=root).prepare()
     assert e.export_path_ == exports[0]
@@ -112,7 +120,9 @@ def test_export_is_reused_and_keyed_by_settings(onnx_home: Path) -> None:
 
 
 def test_missing_onnxruntime_falls_back_to_torch_with_one_warning(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, caplog: pytest.LogCaptureFixture,
+    tmp_path: Path,
+    monkeypatch: pytest.MonkeyPatch,
+    caplog: pytest.LogCaptureFixture,
     embedder: Embedder,
 ) -> None:
     # Simulate an install without onnxruntime: importing it raises ImportError.
@@ -136,8 +146,9 @@ def test_missing_onnxruntime_falls_back_to_torch_with_one_warning(
         Embedder(backend="onnx", export_dir=tmp_path / "embedding").encode(texts)
 
 
-def test_failed_export_falls_back_to_torch(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
-                                           caplog: pytest.LogCaptureFixture) -> None:
+def test_failed_export_falls_back_to_torch(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, caplog: pytest.LogCaptureFixture
+) -> None:
     import torch
 
     def broken(*args: object, **kwargs: object) -> None:
@@ -153,8 +164,9 @@ def test_failed_export_falls_back_to_torch(tmp_path: Path, monkeypatch: pytest.M
     assert list((tmp_path / "embedding").iterdir()) == []
 
 
-def test_int8_is_refused_unless_asked_for(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
-                                          embedder: Embedder) -> None:
+def test_int8_is_refused_unless_asked_for(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, embedder: Embedder
+) -> None:
     with pytest.raises(InputError, match="int8 quantisation needs the onnx backend"):
         Embedder(backend="torch", quantize="int8", export_dir=tmp_path)
     with pytest.raises(InputError, match="unknown quantisation"):
@@ -185,8 +197,7 @@ def test_int8_setting_is_recorded_in_health(tmp_path: Path) -> None:
         ws.close()
 
 
-def test_model_export_command_reports_the_export(onnx_home: Path,
-                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+def test_model_export_command_reports_the_export(onnx_home: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     monkeypatch.setenv("SOUNDING_HOME", str(onnx_home))
     monkeypatch.setattr(cli_base, "_embedder", None)
     monkeypatch.setattr(cli_base, "_workspace", None)

@@ -10,23 +10,32 @@ from pathlib import Path
 
 import httpx
 import pytest
+from serving import serve
 
 from service.api.app import create_app
-from serving import serve
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
 CHROMIUM = Path("/usr/bin/chromium")
-ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
-        "--disable-component-update", "--disable-sync", "--no-first-run"]
-DRAFT = ("The dahlias in the Walled Garden are at their peak this week 🌸 The colour glows in "
-         "low sun. #WhatsFlowering")
+ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--no-first-run",
+]
+DRAFT = (
+    "The dahlias in the Walled Garden are at their peak this week 🌸 The colour glows in "
+    "low sun. #WhatsFlowering"
+)
 PLANNED = "2026-12-03T12:30"
 
 pytestmark = [
     pytest.mark.browser,
-    pytest.mark.skipif(not CHROMIUM.exists(),
-                       reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"),
+    pytest.mark.skipif(
+        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
+    ),
 ]
 
 
@@ -40,8 +49,11 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
 
     with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
         # The API's own answer for the same draft and time (no offset: the account's zone).
-        api = httpx.post(f"{base}/v1/forecasts", timeout=60, json={
-            "text": DRAFT, "account": "loomhaven", "planned_at": PLANNED + ":00"})
+        api = httpx.post(
+            f"{base}/v1/forecasts",
+            timeout=60,
+            json={"text": DRAFT, "account": "loomhaven", "planned_at": PLANNED + ":00"},
+        )
         assert api.status_code == 200, api.text
         want = api.json()
 
@@ -51,13 +63,18 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             errors: list[str] = []
             page.on("pageerror", lambda e: errors.append(str(e)))
             outside: list[str] = []
-            page.on("request", lambda r: None if r.url.startswith(base) or r.url.startswith("data:")
-                    else outside.append(r.url))
+            page.on(
+                "request",
+                lambda r: (
+                    None if r.url.startswith(base) or r.url.startswith("data:") else outside.append(r.url)
+                ),
+            )
             page.goto(base + "/")
             expect(page).to_have_title("sounding — a sounding board for drafts")
             expect(page.locator("#output")).to_be_hidden()
             expect(page.locator("#account option")).to_have_count(
-                len(httpx.get(f"{base}/v1/accounts").json()))
+                len(httpx.get(f"{base}/v1/accounts").json())
+            )
 
             # Keyboard only: Tab from the skip link to the tabs (one stop, the WAI-ARIA
             # tabs pattern), into the draft, type, Tab on.
@@ -87,11 +104,11 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             expect(page.locator("#fc-coverage")).to_contain_text(f"held {pct}%")
             first = page.locator("#prec-list li .prec-text").first
             expect(first).to_have_text(want["precedents"][0]["text"])
-            expect(page.locator("#contrib-body tr")).to_have_count(
-                len(want["contributions"]["groups"]))
+            expect(page.locator("#contrib-body tr")).to_have_count(len(want["contributions"]["groups"]))
             # The charts: one point per precedent with the metric, one band over the day.
             expect(page.locator("#scatter-chart circle")).to_have_count(
-                sum(p["metrics"]["impressions"] is not None for p in want["precedents"]))
+                sum(p["metrics"]["impressions"] is not None for p in want["precedents"])
+            )
             expect(page.locator("#hours-chart polygon.band")).to_have_count(1, timeout=60_000)
             expect(page.locator("#hours-summary")).not_to_be_empty()
             assert page.locator("#results").get_attribute("aria-live") == "polite"
@@ -114,15 +131,16 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             page.locator("#text").fill("x" * (limit + 1))
             page.locator("#submit").focus()
             page.keyboard.press("Enter")
-            big = httpx.post(f"{base}/v1/forecasts",
-                             json={"text": "x" * (limit + 1), "account": "loomhaven"})
+            big = httpx.post(f"{base}/v1/forecasts", json={"text": "x" * (limit + 1), "account": "loomhaven"})
             assert big.status_code == 413
             expect(page.locator("#error-message")).to_contain_text(big.json()["error"]["message"])
             page.screenshot(path=str(artifacts / "review-page-error.png"))
 
             # The plan's planted near-repeat: the warning shows above the charts.
-            plan = {r["draft_id"]: r for r in csv.DictReader(
-                (ROOT / "demo_data" / "plan.csv").open(encoding="utf-8", newline=""))}
+            plan = {
+                r["draft_id"]: r
+                for r in csv.DictReader((ROOT / "demo_data" / "plan.csv").open(encoding="utf-8", newline=""))
+            }
             q = plan[EFFECTS["plan"]["near_repeat"]["draft_id"]]  # Source: effects.json
             page.locator("#text").fill(q["text"])
             page.locator("#planned").fill(q["planned_at"][:16])  # local wall-clock time (+00:00)
@@ -130,7 +148,8 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             page.keyboard.press("Enter")
             expect(page.locator("#warn-card")).to_be_visible(timeout=60_000)
             expect(page.locator("#warn-list li").first).to_contain_text(
-                EFFECTS["plan"]["near_repeat"]["post_id"])
+                EFFECTS["plan"]["near_repeat"]["post_id"]
+            )
             assert page.locator("#error").is_hidden()
             assert errors == [] and outside == []
         finally:
@@ -146,11 +165,17 @@ def test_wordings_and_segments_panels(demo_workspace, artifacts: Path) -> None:
     from playwright.sync_api import expect, sync_playwright
 
     with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
-        variants = httpx.post(f"{base}/v1/variants", timeout=60, json={
-            "texts": WORDINGS, "account": "loomhaven", "planned_at": PLANNED + ":00"})
+        variants = httpx.post(
+            f"{base}/v1/variants",
+            timeout=60,
+            json={"texts": WORDINGS, "account": "loomhaven", "planned_at": PLANNED + ":00"},
+        )
         assert variants.status_code == 200, variants.text
-        segs = httpx.post(f"{base}/v1/segments", timeout=60, json={
-            "topics": ["flowers in bloom", "volunteering"], "by": None})
+        segs = httpx.post(
+            f"{base}/v1/segments",
+            timeout=60,
+            json={"topics": ["flowers in bloom", "volunteering"], "by": None},
+        )
         assert segs.status_code == 200, segs.text
         browser = p.chromium.launch(executable_path=str(CHROMIUM), args=ARGS, headless=True)
         try:
@@ -167,7 +192,8 @@ def test_wordings_and_segments_panels(demo_workspace, artifacts: Path) -> None:
             page.locator("#w-text-1").fill(WORDINGS[0])
             page.locator("#w-text-2").fill(WORDINGS[1])
             expect(page.locator("#w-account option")).to_have_count(
-                len(httpx.get(f"{base}/v1/accounts").json()))
+                len(httpx.get(f"{base}/v1/accounts").json())
+            )
             page.select_option("#w-account", "loomhaven")
             page.locator("#w-planned").fill(PLANNED)
             page.locator("#w-submit").focus()

@@ -48,8 +48,9 @@ def raw(url: str, sql: str, **params: object) -> list[tuple]:
 
 
 @pytest.fixture(scope="module")
-def pg_demo(demo_home: Path, embedder: Embedder,
-            tmp_path_factory: pytest.TempPathFactory) -> Iterator[Workspace]:
+def pg_demo(
+    demo_home: Path, embedder: Embedder, tmp_path_factory: pytest.TempPathFactory
+) -> Iterator[Workspace]:
     """The conftest demo history (SQLite) copied onto a PostgreSQL database."""
     home = tmp_path_factory.mktemp("pgdemo") / "home"
     url = copy_home_to_postgres(demo_home, home)
@@ -72,19 +73,35 @@ def write_csv(path: Path, n: int, *, prefix: str = "pg") -> Path:
         w = csv.writer(f)
         w.writerow(["post_id", "account", "text", "posted_at", "impressions"])
         for i in range(n):
-            w.writerow([f"{prefix}-{i}", ("loomhaven", "loomhaven_lab")[i % 2],
-                        (f"Glasshouse note {i}: the {('orchids', 'ferns', 'cacti')[i % 3]} "
-                        f"are {('flowering', 'repotted', 'watered')[i % 3]} ({prefix})."),
-                        (t0 + timedelta(hours=7 * i)).isoformat(), 300 + 11 * i])
+            w.writerow(
+                [
+                    f"{prefix}-{i}",
+                    ("loomhaven", "loomhaven_lab")[i % 2],
+                    (
+                        f"Glasshouse note {i}: the {('orchids', 'ferns', 'cacti')[i % 3]} "
+                        f"are {('flowering', 'repotted', 'watered')[i % 3]} ({prefix})."
+                    ),
+                    (t0 + timedelta(hours=7 * i)).isoformat(),
+                    300 + 11 * i,
+                ]
+            )
     return path
 
 
 def test_forecasts_match_the_sqlite_store(demo_workspace: Workspace, pg_demo: Workspace) -> None:
     assert (demo_workspace.store.backend, pg_demo.store.backend) == ("sqlite", "postgresql")
-    drafts = [Draft(text="Snowdrops are out along the rill this week", account="loomhaven",
-                    planned_at=NOW + timedelta(days=1)),
-              Draft(text="Soil science open lab: bring a sample", account="loomhaven_lab",
-                    planned_at=NOW + timedelta(days=2, hours=3))]
+    drafts = [
+        Draft(
+            text="Snowdrops are out along the rill this week",
+            account="loomhaven",
+            planned_at=NOW + timedelta(days=1),
+        ),
+        Draft(
+            text="Soil science open lab: bring a sample",
+            account="loomhaven_lab",
+            planned_at=NOW + timedelta(days=2, hours=3),
+        ),
+    ]
     ref = demo_workspace.forecaster.forecast(drafts, now=NOW)
     got = pg_demo.forecaster.forecast(drafts, now=NOW)
     for r, g in zip(ref, got, strict=True):
@@ -105,7 +122,7 @@ def test_segments_match_the_sqlite_store(demo_workspace: Workspace, pg_demo: Wor
 def test_forget_on_postgres(make_workspace, pg_url: str, tmp_path: Path) -> None:
     ws = make_workspace("pg", database_url=pg_url)
     ws.import_csv(write_csv(tmp_path / "a.csv", 12))
-    (pk, key), = raw(pg_url, "SELECT id, vector_key FROM posts WHERE post_id = 'pg-3'")
+    ((pk, key),) = raw(pg_url, "SELECT id, vector_key FROM posts WHERE post_id = 'pg-3'")
     assert ws.forget(post_id="pg-3") == 1
     assert raw(pg_url, "SELECT COUNT(*) FROM snapshots WHERE post_pk = :pk", pk=pk) == [(0,)]
     assert raw(pg_url, "SELECT COUNT(*) FROM vectors WHERE key = :k", k=key) == [(0,)]
@@ -121,8 +138,9 @@ def test_forget_on_postgres(make_workspace, pg_url: str, tmp_path: Path) -> None
     assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(10,)]
 
 
-def test_copy_to_then_use_on_postgres(workspace: Workspace, embedder: Embedder, pg_url: str,
-                                      tmp_path: Path) -> None:
+def test_copy_to_then_use_on_postgres(
+    workspace: Workspace, embedder: Embedder, pg_url: str, tmp_path: Path
+) -> None:
     workspace.import_csv(write_csv(tmp_path / "a.csv", 9))
     sqlite_url = workspace.settings.db_url
     use_embedder(embedder)
@@ -131,9 +149,12 @@ def test_copy_to_then_use_on_postgres(workspace: Workspace, embedder: Embedder, 
     r = runner.invoke(cli_app, ["copy-to", pg_url], env=env)
     assert r.exit_code == 0, r.output
     assert "copied 9 posts" in r.output
-    q = ("SELECT a.handle, p.post_id, p.text, p.posted_at, s.impressions, v.data FROM posts p "
-         "JOIN accounts a ON a.id = p.account_id JOIN snapshots s ON s.post_pk = p.id "
-         "JOIN vectors v ON v.key = p.vector_key ORDER BY p.post_id")
+    q = (
+        "SELECT a.handle, p.post_id, p.text, p.posted_at, s.impressions, v.data FROM posts p "
+        "JOIN accounts a ON a.id = p.account_id JOIN snapshots s ON s.post_pk = p.id "
+        "JOIN vectors v ON v.key = p.vector_key ORDER BY p.post_id"
+    )
+
     # Each backend read through its own driver (sqlite3, psycopg): the same rows
     # (sqlite3 gives the time as ISO 8601 text, psycopg as a datetime).
     def norm(r: tuple) -> tuple:
@@ -146,8 +167,7 @@ def test_copy_to_then_use_on_postgres(workspace: Workspace, embedder: Embedder, 
     assert r.exit_code == 1 and "is not empty" in r.output
     assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(9,)]
     # The copy takes new imports: ids continue past the copied ones.
-    pg = Workspace(settings=Settings(home=tmp_path / "pg-home", database_url=pg_url),
-                   embedder=embedder)
+    pg = Workspace(settings=Settings(home=tmp_path / "pg-home", database_url=pg_url), embedder=embedder)
     try:
         assert pg.import_csv(write_csv(tmp_path / "b.csv", 3, prefix="new")).added == 3
     finally:
@@ -155,8 +175,7 @@ def test_copy_to_then_use_on_postgres(workspace: Workspace, embedder: Embedder, 
     assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(12,)]
 
 
-def test_backup_command_on_postgres_says_what_to_do(pg_url: str, tmp_path: Path,
-                                                    embedder: Embedder) -> None:
+def test_backup_command_on_postgres_says_what_to_do(pg_url: str, tmp_path: Path, embedder: Embedder) -> None:
     use_embedder(embedder)
     env = {"SOUNDING_HOME": str(tmp_path / "home"), "SOUNDING_DATABASE_URL": pg_url}
     r = CliRunner().invoke(cli_app, ["backup", str(tmp_path / "copy.db")], env=env)

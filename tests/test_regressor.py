@@ -3,6 +3,7 @@ against MAPIE's reference implementation."""
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 from fractions import Fraction
@@ -20,7 +21,7 @@ from models.regressor import QuantileForecaster
 
 # One thread: deterministic trees do not depend on the thread count, and a
 # second OpenMP thread is much slower when other test runs share the cores.
-SMALL = dict(n_estimators=40, num_threads=1)
+SMALL = {"n_estimators": 40, "num_threads": 1}
 
 
 def _data(rng: np.random.Generator, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -35,13 +36,23 @@ def blocks() -> dict[str, np.ndarray]:
     X_train, y_train = _data(rng, 500)
     X_cal, y_cal = _data(rng, 250)
     X_test, y_test = _data(rng, 1000)
-    return dict(X_train=X_train, y_train=y_train, X_cal=X_cal, y_cal=y_cal, X_test=X_test, y_test=y_test)
+    return {
+        "X_train": X_train,
+        "y_train": y_train,
+        "X_cal": X_cal,
+        "y_cal": y_cal,
+        "X_test": X_test,
+        "y_test": y_test,
+    }
 
 
 @pytest.fixture(scope="module")
 def model(blocks: dict[str, np.ndarray]) -> QuantileForecaster:
     return QuantileForecaster(**SMALL).fit(
-        blocks["X_train"], blocks["y_train"], blocks["X_cal"], blocks["y_cal"],
+        blocks["X_train"],
+        blocks["y_train"],
+        blocks["X_cal"],
+        blocks["y_cal"],
         feature_names=["followers", "hour", "length", "has link"],
     )
 
@@ -84,7 +95,7 @@ def test_wider_coverage_gives_wider_bands(model: QuantileForecaster, blocks: dic
     for c in (0.5, 0.7, 0.8, 0.9, 0.95):
         lo, _, hi = model.predict(blocks["X_test"], coverage=c)
         widths.append(float(np.mean(hi - lo)))
-    assert all(a < b for a, b in zip(widths, widths[1:]))
+    assert all(a < b for a, b in itertools.pairwise(widths))
 
 
 @pytest.mark.parametrize("cov", [0.49, 0.96, 0.99, -1.0, math.nan])
@@ -101,13 +112,13 @@ def test_fit_and_predict_validate_input(blocks: dict[str, np.ndarray]) -> None:
     inf_X = Xt.copy()
     inf_X[5, 1] = np.inf
     cases = [
-        (Xt, yt[:-1], Xc, yc),          # length mismatch
-        (Xt, bad_y, Xc, yc),            # NaN target
-        (inf_X, yt, Xc, yc),            # infinite feature
-        (Xt, yt, Xc[:, :3], yc),        # calibration width differs
-        (Xt[:30], yt[:30], Xc, yc),     # fewer than 2 x min_child_samples
-        (Xt, yt, Xc[:18], yc[:18]),     # no finite band at 0.95 with n < 19
-        (Xt[:, 0], yt, Xc, yc),         # 1-D features
+        (Xt, yt[:-1], Xc, yc),  # length mismatch
+        (Xt, bad_y, Xc, yc),  # NaN target
+        (inf_X, yt, Xc, yc),  # infinite feature
+        (Xt, yt, Xc[:, :3], yc),  # calibration width differs
+        (Xt[:30], yt[:30], Xc, yc),  # fewer than 2 x min_child_samples
+        (Xt, yt, Xc[:18], yc[:18]),  # no finite band at 0.95 with n < 19
+        (Xt[:, 0], yt, Xc, yc),  # 1-D features
     ]
     for args in cases:
         with pytest.raises(InputError):
@@ -137,12 +148,25 @@ def test_predict_validates_width(model: QuantileForecaster) -> None:
     assert lo.shape == med.shape == hi.shape == (0,)
 
 
-def test_save_load_round_trip(model: QuantileForecaster, blocks: dict[str, np.ndarray], tmp_path: Path) -> None:
+def test_save_load_round_trip(
+    model: QuantileForecaster, blocks: dict[str, np.ndarray], tmp_path: Path
+) -> None:
     model.save(tmp_path / "m")
     files = sorted(p.name for p in (tmp_path / "m").iterdir())
-    assert files == ["config.json", "lower_0.txt", "lower_1.txt", "lower_2.txt", "lower_3.txt",
-                     "lower_4.txt", "median.txt", "upper_0.txt", "upper_1.txt", "upper_2.txt",
-                     "upper_3.txt", "upper_4.txt"]
+    assert files == [
+        "config.json",
+        "lower_0.txt",
+        "lower_1.txt",
+        "lower_2.txt",
+        "lower_3.txt",
+        "lower_4.txt",
+        "median.txt",
+        "upper_0.txt",
+        "upper_1.txt",
+        "upper_2.txt",
+        "upper_3.txt",
+        "upper_4.txt",
+    ]
     config = json.loads((tmp_path / "m" / "config.json").read_text())
     assert config["versions"]["lightgbm"] == lgb.__version__
     assert config["params"]["n_estimators"] == 40
@@ -152,7 +176,7 @@ def test_save_load_round_trip(model: QuantileForecaster, blocks: dict[str, np.nd
     loaded = QuantileForecaster.load(tmp_path / "m")
     X = blocks["X_test"]
     for cov in (0.5, 0.66, 0.8, 0.95):
-        for a, b in zip(model.predict(X, coverage=cov), loaded.predict(X, coverage=cov)):
+        for a, b in zip(model.predict(X, coverage=cov), loaded.predict(X, coverage=cov), strict=True):
             assert np.array_equal(a, b)
     assert np.array_equal(model.contributions(X), loaded.contributions(X))
     assert loaded.feature_names_ == model.feature_names_
@@ -168,7 +192,7 @@ def test_deterministic(blocks: dict[str, np.ndarray]) -> None:
     args = (blocks["X_train"], blocks["y_train"], blocks["X_cal"], blocks["y_cal"])
     a = QuantileForecaster(levels=(0.8,), **SMALL).fit(*args)
     b = QuantileForecaster(levels=(0.8,), **SMALL).fit(*args)
-    for u, v in zip(a.predict(blocks["X_test"]), b.predict(blocks["X_test"])):
+    for u, v in zip(a.predict(blocks["X_test"]), b.predict(blocks["X_test"]), strict=True):
         assert np.array_equal(u, v)
 
 

@@ -40,8 +40,9 @@ def demo(demo_workspace):
 
 def _ordinary_rows(frame: pd.DataFrame, planted: pd.DataFrame) -> list[int]:
     repeats = set(zip(planted["account"], planted["post_id"], strict=True))
-    return [i for i, key in enumerate(zip(frame["account"], frame["post_id"], strict=True))
-            if key not in repeats]
+    return [
+        i for i, key in enumerate(zip(frame["account"], frame["post_id"], strict=True)) if key not in repeats
+    ]
 
 
 def test_planted_table_matches_the_documented_counts(demo) -> None:
@@ -57,9 +58,18 @@ def test_threshold_separates_planted_pairs_from_ordinary_neighbours(demo) -> Non
     """The data behind settings.repeat_similarity (see the comment there)."""
     frame, vecs, planted, row = demo
     s = Settings()
-    pairs = np.array([float(vecs[row[(a, p)]] @ vecs[row[(oa, op)]]) for a, p, oa, op in zip(
-        planted["account"], planted["post_id"], planted["original_account"],
-        planted["original_post_id"], strict=True)])
+    pairs = np.array(
+        [
+            float(vecs[row[(a, p)]] @ vecs[row[(oa, op)]])
+            for a, p, oa, op in zip(
+                planted["account"],
+                planted["post_id"],
+                planted["original_account"],
+                planted["original_post_id"],
+                strict=True,
+            )
+        ]
+    )
     t = (frame["posted_at"] - pd.Timestamp(0, tz="UTC")).dt.total_seconds().to_numpy()
     acc = frame["account"].to_numpy()
     sims = vecs @ vecs.T  # cosine: the vectors are unit length
@@ -83,9 +93,15 @@ def test_planted_repeats_are_flagged_and_ordinary_posts_are_not(demo, demo_works
     rng = np.random.default_rng(20261201)
     ordinary = sorted(rng.choice(_ordinary_rows(frame, planted), 40, replace=False))
     chosen = rows + list(ordinary)
-    drafts = [Draft(text=frame["text"].iloc[i], account=frame["account"].iloc[i],
-                    planned_at=frame["posted_at"].iloc[i].to_pydatetime(), draft_id=str(i))
-              for i in chosen]
+    drafts = [
+        Draft(
+            text=frame["text"].iloc[i],
+            account=frame["account"].iloc[i],
+            planned_at=frame["posted_at"].iloc[i].to_pydatetime(),
+            draft_id=str(i),
+        )
+        for i in chosen
+    ]
     # One forecast call, each draft at its own posted time, embeddings taken from the store.
     found = demo_workspace.forecaster.forecast(drafts, vectors=vecs[chosen])
     for (_, p), f in zip(planted.iterrows(), found[: len(rows)], strict=True):
@@ -101,7 +117,7 @@ def test_planted_repeats_are_flagged_and_ordinary_posts_are_not(demo, demo_works
             assert f"someone on the team ({p['original_account']})" in msg
         value = frame["impressions"].iloc[row[(p["original_account"], p["original_post_id"])]]
         assert f"{value:,.0f} impressions" in msg
-    flagged = [f.draft_id for f in found[len(rows):] if f.warnings]
+    flagged = [f.draft_id for f in found[len(rows) :] if f.warnings]
     # Measured: 0 of these 40 (and 0 of 300 in the larger sample below).
     assert len(flagged) <= 2, flagged
 
@@ -111,10 +127,11 @@ def test_false_alarms_over_300_ordinary_posts(demo, demo_workspace) -> None:
     rng = np.random.default_rng(7)
     sample = sorted(rng.choice(_ordinary_rows(frame, planted), 300, replace=False))
     view = demo_workspace.forecaster.view("impressions")
-    items = [(frame["account"].iloc[i], vecs[i], frame["posted_at"].iloc[i].to_pydatetime())
-             for i in sample]
+    items = [(frame["account"].iloc[i], vecs[i], frame["posted_at"].iloc[i].to_pydatetime()) for i in sample]
     # The function Forecaster.forecast calls for every draft's warnings.
-    got = near_repeats_many(demo_workspace.retrieval, demo_workspace.settings, view, items, now=items[-1][2] + timedelta(days=60))
+    got = near_repeats_many(
+        demo_workspace.retrieval, demo_workspace.settings, view, items, now=items[-1][2] + timedelta(days=60)
+    )
     alarms = sum(bool(r) for r in got)
     # Measured on the demo data: 0 of 300 (0.48% of all ordinary posts have a neighbour at or
     # above the threshold, so ~1.5 are expected here); a bound of 2% leaves room for noise.
@@ -128,22 +145,28 @@ def test_team_message_and_settings_windows(demo, demo_workspace, demo_home, embe
     when = frame["posted_at"].iloc[i].to_pydatetime()
     # Planned "now" (the moment it was posted): the message counts days ago.
     f = demo_workspace.forecaster.forecast(
-        [Draft(text=frame["text"].iloc[i], account=team["account"])], now=when,
-        vectors=vecs[[i]])[0]
+        [Draft(text=frame["text"].iloc[i], account=team["account"])], now=when, vectors=vecs[[i]]
+    )[0]
     n = round(team["days_after"])
-    expect = (f"someone on the team ({team['original_account']}) posted something very "
-              f"similar {n} day{'s' if n != 1 else ''} ago: {team['original_post_id']}")
+    expect = (
+        f"someone on the team ({team['original_account']}) posted something very "
+        f"similar {n} day{'s' if n != 1 else ''} ago: {team['original_post_id']}"
+    )
     assert any(expect in w for w in f.warnings), f.warnings
     # Windows are settings: a repeat older than a narrower window is no longer flagged.
     old = planted[(planted["kind"] == "same_account") & (planted["days_after"] > 3)].iloc[0]
     j = row[(old["account"], old["post_id"])]
     item = (old["account"], vecs[j], frame["posted_at"].iloc[j].to_pydatetime())
-    found = near_repeats_many(demo_workspace.retrieval, demo_workspace.settings, demo_workspace.forecaster.view("impressions"),
-                              [item], now=item[2])[0]
+    found = near_repeats_many(
+        demo_workspace.retrieval,
+        demo_workspace.settings,
+        demo_workspace.forecaster.view("impressions"),
+        [item],
+        now=item[2],
+    )[0]
     assert old["original_post_id"] in [r.post_id for r in found]
     narrow = Workspace(settings=Settings(home=demo_home, repeat_window_days=2.0), embedder=embedder)
-    strict = Workspace(settings=Settings(home=demo_home, repeat_similarity=0.999),
-                       embedder=embedder)
+    strict = Workspace(settings=Settings(home=demo_home, repeat_similarity=0.999), embedder=embedder)
     try:
         for ws in (narrow, strict):
             view = ws.forecaster.view("impressions")
@@ -154,8 +177,9 @@ def test_team_message_and_settings_windows(demo, demo_workspace, demo_home, embe
         strict.close()
 
 
-def test_warnings_reach_api_cli_and_plan_file(demo, demo_workspace, demo_home, embedder,
-                                               monkeypatch, tmp_path: Path) -> None:
+def test_warnings_reach_api_cli_and_plan_file(
+    demo, demo_workspace, demo_home, embedder, monkeypatch, tmp_path: Path
+) -> None:
     frame, _, planted, row = demo
     p = planted[planted["kind"] == "same_account"].iloc[0]
     i = row[(p["account"], p["post_id"])]

@@ -45,9 +45,15 @@ def themed_csv(path: Path) -> Path:
         w = csv.writer(f)
         w.writerow(["post_id", "account", "text", "posted_at", "impressions"])
         for i in range(NEW):
-            w.writerow([f"zeppelin-{i}", "loomhaven",
-                        f"Zeppelin regatta night {i}: airship {i} races over the lily pond.",
-                        (t0 + timedelta(hours=5 * i)).isoformat(), 700 + i])
+            w.writerow(
+                [
+                    f"zeppelin-{i}",
+                    "loomhaven",
+                    f"Zeppelin regatta night {i}: airship {i} races over the lily pond.",
+                    (t0 + timedelta(hours=5 * i)).isoformat(),
+                    700 + i,
+                ]
+            )
     return path
 
 
@@ -55,15 +61,33 @@ class Replica:
     def __init__(self, *, home: Path, url: str, forecasters: Path, log: Path) -> None:
         self.port = free_port()
         self.base = f"http://127.0.0.1:{self.port}"
-        env = {**os.environ, "PYTHONPATH": str(ROOT), "HF_HUB_OFFLINE": "1",
-               "SOUNDING_HOME": str(home), "SOUNDING_DATABASE_URL": url,
-               "SOUNDING_FORECASTERS_DIR": str(forecasters), "SOUNDING_TOKEN": TOKEN,
-               "SOUNDING_REFRESH_SECONDS": "1"}
+        env = {
+            **os.environ,
+            "PYTHONPATH": str(ROOT),
+            "HF_HUB_OFFLINE": "1",
+            "SOUNDING_HOME": str(home),
+            "SOUNDING_DATABASE_URL": url,
+            "SOUNDING_FORECASTERS_DIR": str(forecasters),
+            "SOUNDING_TOKEN": TOKEN,
+            "SOUNDING_REFRESH_SECONDS": "1",
+        }
         self.log = log.open("w")
         self.proc = subprocess.Popen(
-            [sys.executable, "-c", "from service.cli import main; main()", "serve",
-             "--host", "127.0.0.1", "--port", str(self.port)],
-            cwd=ROOT, env=env, stdout=self.log, stderr=subprocess.STDOUT)
+            [
+                sys.executable,
+                "-c",
+                "from service.cli import main; main()",
+                "serve",
+                "--host",
+                "127.0.0.1",
+                "--port",
+                str(self.port),
+            ],
+            cwd=ROOT,
+            env=env,
+            stdout=self.log,
+            stderr=subprocess.STDOUT,
+        )
 
     def wait_ready(self, client: httpx.Client, deadline: float) -> None:
         while time.monotonic() < deadline:
@@ -96,8 +120,9 @@ def replicas(demo_home: Path, tmp_path: Path) -> Iterator[tuple[Replica, Replica
     started: list[Replica] = []
     try:
         for home in (home_a, home_b):
-            started.append(Replica(home=home, url=url, forecasters=forecasters,
-                                   log=tmp_path / f"{home.name}.log"))
+            started.append(
+                Replica(home=home, url=url, forecasters=forecasters, log=tmp_path / f"{home.name}.log")
+            )
         yield started[0], started[1]
     finally:
         for r in started:
@@ -113,8 +138,9 @@ def new_in_precedents(client: httpx.Client, r: Replica) -> int:
 
 
 def forecast_version(client: httpx.Client, r: Replica) -> str:
-    resp = client.post(f"{r.base}/v1/forecasts", json={
-        "text": "Snowdrops along the rill this week", "account": "loomhaven"})
+    resp = client.post(
+        f"{r.base}/v1/forecasts", json={"text": "Snowdrops along the rill this week", "account": "loomhaven"}
+    )
     assert resp.status_code == 200, resp.text
     return str(resp.json()["model_version"])
 
@@ -129,8 +155,9 @@ def test_two_replicas_share_one_store(replicas: tuple[Replica, Replica], tmp_pat
         before = forecast_version(client, b)
 
         with themed_csv(tmp_path / "zeppelins.csv").open("rb") as f:
-            resp = client.post(f"{a.base}/v1/imports", headers=AUTH,
-                               files={"file": ("zeppelins.csv", f, "text/csv")})
+            resp = client.post(
+                f"{a.base}/v1/imports", headers=AUTH, files={"file": ("zeppelins.csv", f, "text/csv")}
+            )
         assert resp.status_code == 200, resp.text
         assert resp.json()["added"] == NEW
         # A serves its own import at once.
@@ -149,8 +176,9 @@ def test_two_replicas_share_one_store(replicas: tuple[Replica, Replica], tmp_pat
         assert set(seen) <= {0, NEW}, seen
 
         # A model trained through A is what B forecasts with.
-        resp = client.post(f"{a.base}/v1/training", headers=AUTH,
-                           json={"metric": "impressions", "backtest": False})
+        resp = client.post(
+            f"{a.base}/v1/training", headers=AUTH, json={"metric": "impressions", "backtest": False}
+        )
         assert resp.status_code == 200, resp.text
         trained = resp.json()["model_version"]
         assert trained != before

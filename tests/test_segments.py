@@ -10,6 +10,7 @@ Each is named beside its check.
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 from datetime import datetime, timedelta
@@ -107,8 +108,9 @@ def test_multi_phrase_topics_recover_the_full_order(demo_workspace) -> None:
     assert split.settings["topics"][0]["phrases"] == EFFECTS["topic_phrases"][ORDER[0]]
 
 
-def test_topic_assignment_matches_cosine_similarity(demo_workspace, embedder,
-                                                    topic_hour: SegmentResult) -> None:
+def test_topic_assignment_matches_cosine_similarity(
+    demo_workspace, embedder, topic_hour: SegmentResult
+) -> None:
     frame = demo_workspace.store.posts_frame()
     posts = demo_workspace.store.vectors(list(frame["vector_key"]))
     phrases = embedder.encode(FIRST_PHRASES)
@@ -127,8 +129,7 @@ def test_topic_assignment_matches_cosine_similarity(demo_workspace, embedder,
         assert [e.similarity for e in shown] == pytest.approx(top, abs=1e-4)
     assert split.report.segment(OTHER).n == int(np.sum(~caught))
     # "other" shows the posts that came closest to a topic and still missed.
-    assert split.examples[OTHER][0].similarity == pytest.approx(
-        sims.max(axis=1)[~caught].max(), abs=1e-4)
+    assert split.examples[OTHER][0].similarity == pytest.approx(sims.max(axis=1)[~caught].max(), abs=1e-4)
     assert split.examples[OTHER][0].similarity < 0.3
 
 
@@ -137,8 +138,9 @@ def test_top_k_mode_gives_each_topic_its_k_nearest(demo_workspace, embedder) -> 
     result = segment(demo_workspace, SegmentRequest(topics=FIRST_PHRASES[:3], mode="top-k", k=k))
     split = result.split("topic")
     frame = demo_workspace.store.posts_frame()
-    sims = cosine_similarity(demo_workspace.store.vectors(list(frame["vector_key"])),
-                             embedder.encode(FIRST_PHRASES[:3]))  # reference: scikit-learn
+    sims = cosine_similarity(
+        demo_workspace.store.vectors(list(frame["vector_key"])), embedder.encode(FIRST_PHRASES[:3])
+    )  # reference: scikit-learn
     assert split.report.overlapping and split.report.kruskal_p is None
     for j, name in enumerate(FIRST_PHRASES[:3]):
         seg = split.report.segment(name)
@@ -152,8 +154,7 @@ def test_top_k_mode_gives_each_topic_its_k_nearest(demo_workspace, embedder) -> 
     assert any("overlap" in w for w in result.warnings)
 
 
-def test_two_way_table_adds_up_to_both_one_way_splits(topic_hour: SegmentResult,
-                                                      demo_workspace) -> None:
+def test_two_way_table_adds_up_to_both_one_way_splits(topic_hour: SegmentResult, demo_workspace) -> None:
     tw = topic_hour.two_way
     assert tw is not None and topic_hour.two_way_axes == ("topic", "hour")
     topic, hour = topic_hour.split("topic").report, topic_hour.split("hour").report
@@ -163,8 +164,11 @@ def test_two_way_table_adds_up_to_both_one_way_splits(topic_hour: SegmentResult,
     assert tw.n.sum(axis=0).tolist() == [s.n for s in hour.segments]
     # One cell against pandas' groupby median (reference: pandas).
     split = topic_hour.split("topic")
-    cells = pd.DataFrame({"t": split.labels, "h": topic_hour.split("hour").labels,
-                          "v": split.values}).groupby(["t", "h"])["v"].median()
+    cells = (
+        pd.DataFrame({"t": split.labels, "h": topic_hour.split("hour").labels, "v": split.values})
+        .groupby(["t", "h"])["v"]
+        .median()
+    )
     i, j = tw.rows.index(FIRST_PHRASES[0]), tw.cols.index("12–15")
     assert tw.median[i, j] == cells[(FIRST_PHRASES[0], "12–15")]
     assert any("cells of the topic x hour table" in w for w in topic_hour.warnings)
@@ -191,8 +195,10 @@ def _local_hours_by_zoneinfo() -> dict[tuple[str, str], int]:
     (IANA tz database) in its account's documented zone."""
     zones = {h: a["zone"] for h, a in EFFECTS["accounts"].items()}
     raw = pd.read_csv(DEMO_CSV, usecols=["post_id", "account", "posted_at"])
-    return {(a, p): datetime.fromisoformat(t).astimezone(ZoneInfo(zones[a])).hour
-            for p, a, t in zip(raw["post_id"], raw["account"], raw["posted_at"], strict=True)}
+    return {
+        (a, p): datetime.fromisoformat(t).astimezone(ZoneInfo(zones[a])).hour
+        for p, a, t in zip(raw["post_id"], raw["account"], raw["posted_at"], strict=True)
+    }
 
 
 def test_hour_split_recovers_documented_daily_rhythm(topic_hour: SegmentResult) -> None:
@@ -218,19 +224,21 @@ def test_hour_split_recovers_documented_daily_rhythm(topic_hour: SegmentResult) 
     # Reference: scipy.stats.spearmanr.
     curve = {int(h): v for h, v in EFFECTS["hour_effect"].items()}
     weight = {int(h): v for h, v in EFFECTS["posting_hour_weight"].items()}
-    documented = [np.average([curve[h] for h in range(lo, hi)],
-                             weights=[weight[h] for h in range(lo, hi)])
-                  for lo, hi in zip(edges[:-1], edges[1:], strict=True)]
+    documented = [
+        np.average([curve[h] for h in range(lo, hi)], weights=[weight[h] for h in range(lo, hi)])
+        for lo, hi in itertools.pairwise(edges)
+    ]
     rho = stats.spearmanr([s.median for s in hour.segments], documented).statistic
     assert rho >= 0.9, rho
 
 
-@pytest.mark.parametrize(("by", "with_name", "without_name", "effect_key"),
-                         [("link", "with link", "no link", "link"),
-                          ("media", "with media", "no media", "media")])
-def test_form_split_recovers_documented_effect(demo_workspace, link_split: SegmentResult,
-                                               by: str, with_name: str, without_name: str,
-                                               effect_key: str) -> None:
+@pytest.mark.parametrize(
+    ("by", "with_name", "without_name", "effect_key"),
+    [("link", "with link", "no link", "link"), ("media", "with media", "no media", "media")],
+)
+def test_form_split_recovers_documented_effect(
+    demo_workspace, link_split: SegmentResult, by: str, with_name: str, without_name: str, effect_key: str
+) -> None:
     result = link_split if by == "link" else segment(demo_workspace, SegmentRequest(by=by))
     rep = result.split(by).report
     yes, no = rep.segment(with_name), rep.segment(without_name)
@@ -253,8 +261,7 @@ def test_form_split_recovers_documented_effect(demo_workspace, link_split: Segme
 
 
 def test_custom_hour_edges(demo_workspace) -> None:
-    result = segment(demo_workspace, SegmentRequest(by="hour", hour_edges=[0, 12, 24],
-                                                    n_resamples=200))
+    result = segment(demo_workspace, SegmentRequest(by="hour", hour_edges=[0, 12, 24], n_resamples=200))
     rep = result.split("hour").report
     local = np.array(list(_local_hours_by_zoneinfo().values()))  # reference: zoneinfo
     assert [s.name for s in rep.segments] == ["00–12", "12–24"]
@@ -277,21 +284,24 @@ def test_young_posts_are_left_out(demo_workspace) -> None:
 # ------------------------------------------------------------------ bad input
 
 
-@pytest.mark.parametrize(("req", "message"), [
-    (SegmentRequest(), "nothing to split"),
-    (SegmentRequest(topics=["flowers", "  "]), "topic 2 is an empty phrase"),
-    (SegmentRequest(topics=["flowers | "]), "empty alternative"),
-    (SegmentRequest(topics=["flowers", "Flowers"]), "repeats topic 1"),
-    (SegmentRequest(topics=["other"]), "name of the posts no topic catches"),
-    (SegmentRequest(by="hour", metric="reach"), "unknown metric 'reach'"),
-    (SegmentRequest(by="colour"), "cannot split by 'colour'"),
-    (SegmentRequest(by="hour", hour_edges=[0, 6, 25]), "must start at 0 and end at 24"),
-    (SegmentRequest(by="hour", hour_edges=[0, 12, 6, 24]), "strictly increasing"),
-    (SegmentRequest(topics=["flowers"], mode="closest"), "unknown mode"),
-    (SegmentRequest(topics=["flowers"], threshold=1.5), "threshold"),
-    (SegmentRequest(topics=["flowers"], mode="top-k", k=0), "k must be"),
-    (SegmentRequest(by="account", account="loomhaven"), "every post falls in one account"),
-])
+@pytest.mark.parametrize(
+    ("req", "message"),
+    [
+        (SegmentRequest(), "nothing to split"),
+        (SegmentRequest(topics=["flowers", "  "]), "topic 2 is an empty phrase"),
+        (SegmentRequest(topics=["flowers | "]), "empty alternative"),
+        (SegmentRequest(topics=["flowers", "Flowers"]), "repeats topic 1"),
+        (SegmentRequest(topics=["other"]), "name of the posts no topic catches"),
+        (SegmentRequest(by="hour", metric="reach"), "unknown metric 'reach'"),
+        (SegmentRequest(by="colour"), "cannot split by 'colour'"),
+        (SegmentRequest(by="hour", hour_edges=[0, 6, 25]), "must start at 0 and end at 24"),
+        (SegmentRequest(by="hour", hour_edges=[0, 12, 6, 24]), "strictly increasing"),
+        (SegmentRequest(topics=["flowers"], mode="closest"), "unknown mode"),
+        (SegmentRequest(topics=["flowers"], threshold=1.5), "threshold"),
+        (SegmentRequest(topics=["flowers"], mode="top-k", k=0), "k must be"),
+        (SegmentRequest(by="account", account="loomhaven"), "every post falls in one account"),
+    ],
+)
 def test_bad_input_is_refused_clearly(demo_workspace, req: SegmentRequest, message: str) -> None:
     with pytest.raises(InputError, match=message):
         segment(demo_workspace, req)
@@ -332,8 +342,22 @@ def client(demo_workspace):
         yield c
 
 
-_STATS = ("name", "n", "median", "q1", "q3", "ci_low", "ci_high", "u_statistic", "p_value",
-          "p_holm", "rank_biserial", "too_small", "rest_median", "summary")
+_STATS = (
+    "name",
+    "n",
+    "median",
+    "q1",
+    "q3",
+    "ci_low",
+    "ci_high",
+    "u_statistic",
+    "p_value",
+    "p_holm",
+    "rank_biserial",
+    "too_small",
+    "rest_median",
+    "summary",
+)
 
 
 def test_http_returns_the_library_statistics(client, demo_workspace) -> None:
@@ -371,16 +395,19 @@ def test_http_answers_png_and_svg(client) -> None:
     assert {"application/json", "image/png", "image/svg+xml"} <= set(content)
 
 
-@pytest.mark.parametrize(("body", "status", "where"), [
-    ({}, 422, "nothing to split"),
-    ({"topics": [""]}, 422, "empty phrase"),
-    ({"by": "hour", "metric": "reach"}, 422, "unknown metric"),
-    ({"by": "colour"}, 422, "by"),
-    ({"by": "hour", "hour_edges": [0, 6, 25]}, 422, "must start at 0 and end at 24"),
-    ({"by": "hour", "format": "gif"}, 422, "format"),
-    ({"by": "hour", "plot": "weekday"}, 422, "no 'weekday' split"),
-    ({"by": "hour", "account": "nobody"}, 404, "unknown account"),
-])
+@pytest.mark.parametrize(
+    ("body", "status", "where"),
+    [
+        ({}, 422, "nothing to split"),
+        ({"topics": [""]}, 422, "empty phrase"),
+        ({"by": "hour", "metric": "reach"}, 422, "unknown metric"),
+        ({"by": "colour"}, 422, "by"),
+        ({"by": "hour", "hour_edges": [0, 6, 25]}, 422, "must start at 0 and end at 24"),
+        ({"by": "hour", "format": "gif"}, 422, "format"),
+        ({"by": "hour", "plot": "weekday"}, 422, "no 'weekday' split"),
+        ({"by": "hour", "account": "nobody"}, 404, "unknown account"),
+    ],
+)
 def test_http_bad_input(client, body: dict, status: int, where: str) -> None:
     r = client.post("/v1/segments", json=body)
     assert r.status_code == status, r.text
@@ -390,8 +417,9 @@ def test_http_bad_input(client, body: dict, status: int, where: str) -> None:
 # ------------------------------------------------------------------ CLI and figure
 
 
-def test_cli_json_table_and_plot(demo_home: Path, embedder, topic_hour: SegmentResult,
-                                 tmp_path: Path) -> None:
+def test_cli_json_table_and_plot(
+    demo_home: Path, embedder, topic_hour: SegmentResult, tmp_path: Path
+) -> None:
     use_embedder(embedder)
     runner = CliRunner()
     env = {"SOUNDING_HOME": str(demo_home)}
@@ -401,13 +429,15 @@ def test_cli_json_table_and_plot(demo_home: Path, embedder, topic_hour: SegmentR
     got = json.loads(r.stdout)  # stdout is JSON only; figure notes go to stderr
     want = topic_hour.to_dict()
     for g, w in zip(got["splits"], want["splits"], strict=True):
-        assert [{k: s[k] for k in _STATS} for s in g["segments"]] == \
-            [{k: s[k] for k in _STATS} for s in w["segments"]]
+        assert [{k: s[k] for k in _STATS} for s in g["segments"]] == [
+            {k: s[k] for k in _STATS} for s in w["segments"]
+        ]
     assert got["two_way"] == want["two_way"]
 
     fig = tmp_path / "seg.png"
-    r = runner.invoke(cli_app, ["segments", "--topic", FIRST_PHRASES[1], "--by", "link",
-                                "--plot", str(fig)], env=env)
+    r = runner.invoke(
+        cli_app, ["segments", "--topic", FIRST_PHRASES[1], "--by", "link", "--plot", str(fig)], env=env
+    )
     assert r.exit_code == 0, r.output
     text = " ".join(r.stdout.split())  # the table may wrap at the runner's width
     assert "with link: lower than the rest: median" in text

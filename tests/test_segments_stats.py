@@ -3,6 +3,7 @@ calculations. Each outside source is named beside its check."""
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 
@@ -59,7 +60,7 @@ def _ranks(x: np.ndarray) -> np.ndarray:
         j = i
         while j + 1 < len(x) and sx[j + 1] == sx[i]:
             j += 1
-        r[order[i:j + 1]] = (i + j) / 2 + 1
+        r[order[i : j + 1]] = (i + j) / 2 + 1
         i = j + 1
     return r
 
@@ -125,8 +126,9 @@ def test_kruskal_matches_the_formula_and_skips_single_post_segments() -> None:
     n = len(pooled)
     r = _ranks(pooled)
     bounds = np.cumsum([0] + [len(g) for g in groups])
-    h = 12 / (n * (n + 1)) * sum(r[a:b].sum() ** 2 / (b - a)
-                                 for a, b in zip(bounds[:-1], bounds[1:], strict=True)) - 3 * (n + 1)
+    h = 12 / (n * (n + 1)) * sum(r[a:b].sum() ** 2 / (b - a) for a, b in itertools.pairwise(bounds)) - 3 * (
+        n + 1
+    )
     h /= 1 - _tie_sum(pooled) / (n**3 - n)
     assert report.kruskal_h == pytest.approx(h, rel=1e-12)
     assert report.kruskal_p == pytest.approx(_chi2_sf_3df(h), rel=1e-9)
@@ -136,8 +138,7 @@ def test_kruskal_matches_the_formula_and_skips_single_post_segments() -> None:
 
 
 def test_kruskal_is_none_with_fewer_than_two_testable_segments() -> None:
-    report = compare_segments([1.0, 2.0, 3.0, 9.0], ["a", "a", "a", "b"], min_n=1,
-                              n_resamples=50)
+    report = compare_segments([1.0, 2.0, 3.0, 9.0], ["a", "a", "a", "b"], min_n=1, n_resamples=50)
     assert report.kruskal_h is None and report.kruskal_p is None
     assert math.isnan(report.segment("b").p_value)
 
@@ -205,8 +206,7 @@ def test_rank_biserial_fully_separated_and_hand_case() -> None:
     assert report.segment("lo").rank_biserial == -1.0
     # With a tie: x = [1, 2, 3] vs y = [2, 4]. Pairs x wins: (3 > 2) = 1,
     # ties: (2, 2) = 0.5, so U1 = 1.5 and r = 2 * 1.5 / 6 - 1 = -0.5.
-    report = compare_segments([1.0, 2.0, 3.0, 2.0, 4.0], ["x", "x", "x", "y", "y"],
-                              min_n=1, n_resamples=50)
+    report = compare_segments([1.0, 2.0, 3.0, 2.0, 4.0], ["x", "x", "x", "y", "y"], min_n=1, n_resamples=50)
     assert report.segment("x").u_statistic == 1.5
     assert report.segment("x").rank_biserial == pytest.approx(-0.5)
     assert report.segment("y").rank_biserial == pytest.approx(0.5)
@@ -301,8 +301,7 @@ def test_hour_buckets() -> None:
 
 @pytest.mark.parametrize(
     "edges",
-    [(0, 9, 6, 24), (0, 6, 6, 24), (1, 12, 24), (0, 12, 23), (0, 12, 25), (-1, 12, 24),
-     (0,), (0, 6.5, 24)],
+    [(0, 9, 6, 24), (0, 6, 6, 24), (1, 12, 24), (0, 12, 23), (0, 12, 25), (-1, 12, 24), (0,), (0, 6.5, 24)],
 )
 def test_hour_edges_validation(edges: tuple[float, ...]) -> None:
     with pytest.raises(InputError):
@@ -332,8 +331,9 @@ def test_length_bands() -> None:
 
 def test_report_notes_order_and_json() -> None:
     rng = np.random.default_rng(21)
-    values = np.concatenate([rng.lognormal(5, 0.5, 60), rng.lognormal(6, 0.5, 60),
-                             rng.lognormal(5.5, 0.5, 7)])
+    values = np.concatenate(
+        [rng.lognormal(5, 0.5, 60), rng.lognormal(6, 0.5, 60), rng.lognormal(5.5, 0.5, 7)]
+    )
     labels = ["other"] * 60 + ["big"] * 60 + ["tiny"] * 7
     report = compare_segments(values, labels, n_resamples=300)
     assert isinstance(report, SegmentReport)
@@ -362,8 +362,7 @@ def test_to_dict_turns_nan_into_none() -> None:
 
 def test_compare_groups_overlapping() -> None:
     values = np.arange(20, dtype=float)
-    report = compare_groups(values, {"top": range(15, 20), "mid": range(8, 18)},
-                            min_n=1, n_resamples=50)
+    report = compare_groups(values, {"top": range(15, 20), "mid": range(8, 18)}, min_n=1, n_resamples=50)
     assert report.kruskal_h is None and report.overlapping
     assert report.segment("top").rank_biserial == 1.0  # 15..19 beat all of 0..14
     with pytest.raises(InputError):

@@ -43,6 +43,7 @@ def _vectors(rng: np.random.Generator, n: int, d: int = 24) -> np.ndarray:
 
 # Ridge text model -------------------------------------------------------------
 
+
 @pytest.mark.parametrize("alpha", [0.1, 3.0, 300.0])
 def test_ridge_matches_sklearn(alpha: float) -> None:
     # Source: scikit-learn's Ridge(fit_intercept=True), a different solver
@@ -103,6 +104,7 @@ def test_ridge_text_before_fit_raises() -> None:
 
 # Blend weights ----------------------------------------------------------------
 
+
 def test_simplex_weights_match_scipy_nnls() -> None:
     # Source: scipy.optimize.nnls (Lawson-Hanson). The sum-to-one constraint
     # is imposed there by one heavily weighted extra row, the textbook
@@ -110,8 +112,10 @@ def test_simplex_weights_match_scipy_nnls() -> None:
     rng = np.random.default_rng(4)
     n = 500
     y = rng.normal(size=n)
-    Fm = np.column_stack([y + rng.normal(scale=s, size=n) for s in (0.6, 1.0, 1.5)]
-                         + [np.full(n, 0.3), -y + rng.normal(size=n)])
+    Fm = np.column_stack(
+        [y + rng.normal(scale=s, size=n) for s in (0.6, 1.0, 1.5)]
+        + [np.full(n, 0.3), -y + rng.normal(size=n)]
+    )
     E = (0.5 * y + rng.normal(size=n))[:, None]
     w, g = simplex_weights(Fm, y, E)
     assert np.all(w >= 0) and w.sum() == pytest.approx(1.0)
@@ -123,6 +127,7 @@ def test_simplex_weights_match_scipy_nnls() -> None:
 
 
 # Timing component ---------------------------------------------------------------
+
 
 def test_hours_come_back_from_the_cyclic_features() -> None:
     hours = np.arange(0, 24, 0.5)
@@ -159,8 +164,10 @@ def test_best_hour_share() -> None:
 
 # The stacked forecaster ---------------------------------------------------------
 
-def _synthetic(rng: np.random.Generator, n: int, *, one_account: bool = False
-               ) -> tuple[np.ndarray, np.ndarray]:
+
+def _synthetic(
+    rng: np.random.Generator, n: int, *, one_account: bool = False
+) -> tuple[np.ndarray, np.ndarray]:
     """Feature rows in ALL_FEATURES order with a known log target."""
     col = {nm: i for i, nm in enumerate(ALL_FEATURES)}
     X = rng.normal(size=(n, len(ALL_FEATURES)))
@@ -180,8 +187,13 @@ def _synthetic(rng: np.random.Generator, n: int, *, one_account: bool = False
     return X, y
 
 
-SMALL = {"max_estimators": 60, "early_stopping_rounds": 10, "num_leaves": 7,
-         "min_child_samples": 10, "num_threads": 1}
+SMALL = {
+    "max_estimators": 60,
+    "early_stopping_rounds": 10,
+    "num_leaves": 7,
+    "min_child_samples": 10,
+    "num_threads": 1,
+}
 
 
 def test_blend_band_keeps_conformal_coverage_over_many_seeds() -> None:
@@ -198,7 +210,8 @@ def test_blend_band_keeps_conformal_coverage_over_many_seeds() -> None:
         tail = 400 + rng.permutation(n_cal + 300)
         cal, test = tail[:n_cal], tail[n_cal:]
         m = StackedForecaster(levels=(c,), random_state=seed, **SMALL).fit(
-            X[:400], y[:400], X[cal], y[cal], feature_names=ALL_FEATURES)
+            X[:400], y[:400], X[cal], y[cal], feature_names=ALL_FEATURES
+        )
         lo, _, hi = m.predict(X[test], coverage=c)
         hits.append(np.mean((y[test] >= lo) & (y[test] <= hi)))
     se = np.sqrt(c * (1 - c) / n_cal) / np.sqrt(seeds)
@@ -208,8 +221,7 @@ def test_blend_band_keeps_conformal_coverage_over_many_seeds() -> None:
 def test_stacked_forecaster_blend_drops_duplicates_and_round_trips(tmp_path: Path) -> None:
     rng = np.random.default_rng(7)
     X, y = _synthetic(rng, 1200, one_account=True)
-    m = StackedForecaster(**SMALL).fit(X[:900], y[:900], X[900:], y[900:],
-                                       feature_names=ALL_FEATURES)
+    m = StackedForecaster(**SMALL).fit(X[:900], y[:900], X[900:], y[900:], feature_names=ALL_FEATURES)
     assert sum(m.weights_.values()) == pytest.approx(1.0)
     assert all(w >= 0 for w in m.weights_.values()) and m.timing_weight_ >= 0
     # One account: the own-account neighbour columns repeat the team's.
@@ -236,14 +248,18 @@ def test_extra_columns_use_only_settled_posts() -> None:
     V = _vectors(rng, n).astype(np.float32)
     times = np.sort(rng.uniform(0, 200 * DAY, n))
     y = V.astype(float) @ rng.normal(size=V.shape[1]) + 6
-    h = F.History(pk=np.arange(n), time=times, account=np.zeros(n, dtype=np.int64),
-                  log_target=y, vectors=V)
+    h = F.History(pk=np.arange(n), time=times, account=np.zeros(n, dtype=np.int64), log_target=y, vectors=V)
     cols, text = extra_columns(h, maturity_s=maturity, now=times[-1] + 10 * DAY)
     assert text is not None
     i = 350
     later = times > times[i] - maturity  # not settled when post i went out (incl. itself)
-    h2 = F.History(pk=h.pk, time=times, account=h.account,
-                   log_target=np.where(later, rng.uniform(0, 15, n), y), vectors=V)
+    h2 = F.History(
+        pk=h.pk,
+        time=times,
+        account=h.account,
+        log_target=np.where(later, rng.uniform(0, 15, n), y),
+        vectors=V,
+    )
     cols2, _ = extra_columns(h2, maturity_s=maturity, now=times[-1] + 10 * DAY)
     assert np.isfinite(cols[i, 0])
     np.testing.assert_allclose(cols2[: i + 1, 0], cols[: i + 1, 0], atol=1e-10)

@@ -32,7 +32,8 @@ def test_hour_curve_matches_the_documented_one(demo_workspace, account: str) -> 
     slots = day_slots(DAY, tz)
     assert len(slots) == 24
     out = demo_workspace.forecaster.forecast(
-        [Draft(text=DRAFT, account=account, planned_at=t) for t in slots], now=NOW)
+        [Draft(text=DRAFT, account=account, planned_at=t) for t in slots], now=NOW
+    )
     got = np.array([f.log[1] for f in out])
     truth = np.array([EFFECTS["hour_effect"][str(h)] for h in range(24)])
     rho = spearmanr(got, truth).statistic
@@ -63,5 +64,10 @@ def test_backtest_holds_up_against_the_simple_forecasters(demo_workspace) -> Non
         assert model["spearman"] >= bt["baselines"][name]["spearman"], name
     w = bt["weights"]
     assert sum(v for k, v in w.items() if k != "timing") == pytest.approx(1.0, abs=1e-3)
-    assert set(bt["candidates"]) >= {"boosted", "text_ridge", "account_median",
-                                     "precedents_median", "history_median"}
+    assert set(bt["candidates"]) >= {
+        "boosted",
+        "text_ridge",
+        "account_median",
+        "precedents_median",
+        "history_median",
+    }

@@ -57,9 +57,7 @@ def test_demo_accounts_have_the_documented_zones(demo_workspace: Workspace) -> N
     # effects.json documents each invented account's IANA zone.
     documented = json.loads(EFFECTS.read_text())["accounts"]
     got = {a.handle: (a.display_name, a.timezone) for a in demo_workspace.store.accounts()}
-    assert got == {
-        h: (v["display_name"], v.get("timezone", v.get("zone"))) for h, v in documented.items()
-    }
+    assert got == {h: (v["display_name"], v.get("timezone", v.get("zone"))) for h, v in documented.items()}
 
 
 def test_demo_store_matches_the_csv(demo_workspace: Workspace) -> None:
@@ -79,8 +77,9 @@ def test_demo_store_matches_the_csv(demo_workspace: Workspace) -> None:
         for m in METRIC_COLUMNS:
             assert got[m] == int(r[m])
         assert bool(got["has_media"]) == (r["has_media"].lower() == "true")
-        assert bool(got["has_link"]) == ("https://" in r["text"] or "http://" in r["text"]
-                                         or "www." in r["text"])
+        assert bool(got["has_link"]) == (
+            "https://" in r["text"] or "http://" in r["text"] or "www." in r["text"]
+        )
     per_account = demo_workspace.store.accounts()
     for a in per_account:
         assert a.posts == sum(r["account"] == a.handle for r in rows)
@@ -132,8 +131,11 @@ def test_one_changed_metric_makes_exactly_one_snapshot(
     # The latest snapshot is the current value; every other post is as it was.
     assert after.loc[changed, "impressions"].item() == old + 17
     pd.testing.assert_frame_equal(after[~changed], before[~changed])
-    pk = int(demo_copy.store.posts_frame(account=target["account"])
-             .set_index("post_id").loc[target["post_id"], "pk"])
+    pk = int(
+        demo_copy.store.posts_frame(account=target["account"])
+        .set_index("post_id")
+        .loc[target["post_id"], "pk"]
+    )
     history = snapshots_of(demo_copy, pk)
     assert [h.impressions for h in history] == [old, old + 17]
     assert history[0].engagements == history[1].engagements == int(target["engagements"])
@@ -180,9 +182,13 @@ def test_changes_without_new_metrics(workspace: Workspace, embedder: Embedder, t
 
 def test_same_text_shares_one_vector(workspace: Workspace, embedder: Embedder, tmp_path: Path) -> None:
     calls = embedder.calls
-    s = workspace.import_csv(_csv(tmp_path / "a.csv",
-                                  "p1,g,Bees  in the lavender,2026-01-01T10:00Z,1,1,\n"
-                                  "p2,h,Bees in the lavender ,2026-01-02T10:00Z,2,1,\n"))
+    s = workspace.import_csv(
+        _csv(
+            tmp_path / "a.csv",
+            "p1,g,Bees  in the lavender,2026-01-01T10:00Z,1,1,\n"
+            "p2,h,Bees in the lavender ,2026-01-02T10:00Z,2,1,\n",
+        )
+    )
     assert (s.added, s.embedded, embedder.calls - calls) == (2, 1, 1)
     assert workspace.store.counts()["vectors"] == 1
     # Forgetting one post keeps the vector the other still uses.
@@ -194,11 +200,24 @@ def test_same_text_shares_one_vector(workspace: Workspace, embedder: Embedder, t
 
 def test_a_batch_is_one_transaction(workspace: Workspace, embedder: Embedder) -> None:
     """If anything fails while writing a batch, none of the batch is stored."""
-    good = PostRow(account="g", post_id="p1", text="ok", posted_at=datetime(2026, 1, 1, tzinfo=UTC),
-                   metrics=dict.fromkeys(METRIC_COLUMNS, 1), has_media=None,
-                   vector_key=embedder.key("ok"))
-    bad = PostRow(account="g", post_id="p2", text="bad", posted_at=datetime(2026, 1, 1, tzinfo=UTC),
-                  metrics={"not_a_metric": 1}, has_media=None, vector_key=embedder.key("bad"))
+    good = PostRow(
+        account="g",
+        post_id="p1",
+        text="ok",
+        posted_at=datetime(2026, 1, 1, tzinfo=UTC),
+        metrics=dict.fromkeys(METRIC_COLUMNS, 1),
+        has_media=None,
+        vector_key=embedder.key("ok"),
+    )
+    bad = PostRow(
+        account="g",
+        post_id="p2",
+        text="bad",
+        posted_at=datetime(2026, 1, 1, tzinfo=UTC),
+        metrics={"not_a_metric": 1},
+        has_media=None,
+        vector_key=embedder.key("bad"),
+    )
     vec = {good.vector_key: np.ones(384, np.float32) / np.sqrt(384)}
     with pytest.raises(TypeError):
         workspace.store.write_batch([good, bad], vec, model_id="m")

@@ -19,11 +19,21 @@ DRAFT = "The magnolias along the Long Border are opening this week. Come for a s
 # command, the table's title (as printed above it), how many rows it must have
 COMMANDS = [
     (["precedents", DRAFT, "-k", "5"], "precedents", 5),
-    (["check", DRAFT, "--account", "loomhaven", "--at", "2026-12-03T12:00", "--no-record"],
-     "precedents", 8),
+    (["check", DRAFT, "--account", "loomhaven", "--at", "2026-12-03T12:00", "--no-record"], "precedents", 8),
     (["hours", DRAFT, "--account", "loomhaven", "--day", "2026-12-03"], None, 3),
-    (["compare", "--account", "loomhaven", "--at", "2026-12-03T12:00", DRAFT,
-      "Magnolia week on the Long Border: come and see them before the petals drop"], None, 2),
+    (
+        [
+            "compare",
+            "--account",
+            "loomhaven",
+            "--at",
+            "2026-12-03T12:00",
+            DRAFT,
+            "Magnolia week on the Long Border: come and see them before the petals drop",
+        ],
+        None,
+        2,
+    ),
     (["segments", "--by", "link"], "impressions by link", 2),
 ]
 
@@ -76,17 +86,26 @@ def test_text_is_cut_with_an_ellipsis_and_numbers_are_whole() -> None:
 
     long = "word " * 60
     buf = StringIO()
-    Console(file=buf, width=80).print(fit_table(
-        [Column(header="impressions", right=True), Column(header="text", free=True)],
-        [["1,234,567", long]], width=80))
+    Console(file=buf, width=80).print(
+        fit_table(
+            [Column(header="impressions", right=True), Column(header="text", free=True)],
+            [["1,234,567", long]],
+            width=80,
+        )
+    )
     body = table_bodies(buf.getvalue())[0]
     assert len(body) == 1
     assert "1,234,567" in body[0] and body[0].rstrip().endswith(ELLIPSIS)
     # --wide: the text wraps in full instead (several lines, nothing cut).
     buf = StringIO()
-    Console(file=buf, width=80).print(fit_table(
-        [Column(header="impressions", right=True), Column(header="text", free=True)],
-        [["1,234,567", long]], width=80, wide=True))
+    Console(file=buf, width=80).print(
+        fit_table(
+            [Column(header="impressions", right=True), Column(header="text", free=True)],
+            [["1,234,567", long]],
+            width=80,
+            wide=True,
+        )
+    )
     body = table_bodies(buf.getvalue())[0]
     assert len(body) > 1 and ELLIPSIS not in "".join(body)
     assert "".join(body).count("word") == 60

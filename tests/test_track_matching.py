@@ -27,13 +27,16 @@ HISTORY = [  # one old post per account, so the accounts exist
     ("h2", "lab", "Our seed bank volunteers met today", T0 - timedelta(days=30)),
 ]
 
-LANTERN_FRI = ("The Lantern Trail opens on Friday evening with music, hot drinks and a lit "
-               "glasshouse. Tickets on our site.")
-LANTERN_SAT = ("The Lantern Trail opens on Saturday evening with music, hot drinks and a lit "
-               "glasshouse. Tickets on our site.")
+LANTERN_FRI = (
+    "The Lantern Trail opens on Friday evening with music, hot drinks and a lit "
+    "glasshouse. Tickets on our site."
+)
+LANTERN_SAT = (
+    "The Lantern Trail opens on Saturday evening with music, hot drinks and a lit "
+    "glasshouse. Tickets on our site."
+)
 ROSES = "The rose garden is at its best this week: come early for the scent and the light."
-ROSES_EDITED = ("The rose garden is at its best this week: come early for the scent and the "
-                "light. #GardenWalk")
+ROSES_EDITED = "The rose garden is at its best this week: come early for the scent and the light. #GardenWalk"
 FERNS = "Behind the scenes: relabelling every fern in the glasshouse collection."
 
 
@@ -50,17 +53,40 @@ def _csv(path: Path, rows: list[tuple], *, draft_col: str | None = None) -> Path
     return path
 
 
-def _given(ws: Workspace, *, text: str, account: str, planned: datetime, given: datetime,
-           draft_id: str | None = None, metric: str = "impressions") -> int:
+def _given(
+    ws: Workspace,
+    *,
+    text: str,
+    account: str,
+    planned: datetime,
+    given: datetime,
+    draft_id: str | None = None,
+    metric: str = "impressions",
+) -> int:
     """A forecast as the track record keeps it (the numbers do not matter here)."""
     with ws.store.session() as s:
         aid = s.scalar(select(Account.id).where(Account.handle == account))
         f = ForecastGiven(
-            given_at=to_naive_utc(given), source="check", draft_id=draft_id, account_id=aid,
-            text=text, text_hash=ws.embedder.key(text), planned_at=to_naive_utc(planned),
-            metric=metric, coverage=0.8, low=50.0, median=100.0, high=200.0, low_log=3.9,
-            median_log=4.6, high_log=5.3, model_version="v", calibration="cqr", alpha_t=0.2,
-            precedents="[]")
+            given_at=to_naive_utc(given),
+            source="check",
+            draft_id=draft_id,
+            account_id=aid,
+            text=text,
+            text_hash=ws.embedder.key(text),
+            planned_at=to_naive_utc(planned),
+            metric=metric,
+            coverage=0.8,
+            low=50.0,
+            median=100.0,
+            high=200.0,
+            low_log=3.9,
+            median_log=4.6,
+            high_log=5.3,
+            model_version="v",
+            calibration="cqr",
+            alpha_t=0.2,
+            precedents="[]",
+        )
         s.add(f)
         s.flush()
         return int(f.id)
@@ -69,8 +95,11 @@ def _given(ws: Workspace, *, text: str, account: str, planned: datetime, given: 
 def _matches(ws: Workspace) -> dict[int, tuple[str, str]]:
     """forecast id -> (post_id, how)."""
     with ws.store.session() as s:
-        rows = s.execute(select(ForecastMatch.forecast_id, Post.post_id, ForecastMatch.how)
-                         .join(Post, Post.id == ForecastMatch.post_pk)).all()
+        rows = s.execute(
+            select(ForecastMatch.forecast_id, Post.post_id, ForecastMatch.how).join(
+                Post, Post.id == ForecastMatch.post_pk
+            )
+        ).all()
     return {int(f): (p, h) for f, p, h in rows}
 
 
@@ -81,12 +110,10 @@ def ws(workspace: Workspace, tmp_path: Path) -> Workspace:
 
 
 def test_explicit_draft_id_wins_over_text_and_time(ws: Workspace, tmp_path: Path) -> None:
-    f = _given(ws, text=ROSES, account="garden", planned=T0, given=T0 - timedelta(days=1),
-               draft_id="plan-7")
+    f = _given(ws, text=ROSES, account="garden", planned=T0, given=T0 - timedelta(days=1), draft_id="plan-7")
     # Different words and five days late: only the explicit id can link them.
     rows = [("p1", "garden", FERNS, T0 + timedelta(days=5), "plan-7")]
-    ws.import_csv(_csv(tmp_path / "pub.csv", rows, draft_col="Draft"),
-                  mapping={"draft_id": "Draft"})
+    ws.import_csv(_csv(tmp_path / "pub.csv", rows, draft_col="Draft"), mapping={"draft_id": "Draft"})
     assert _matches(ws) == {f: ("p1", "draft_id")}
 
 
@@ -107,13 +134,20 @@ def test_text_and_time_match_and_their_limits(ws: Workspace, tmp_path: Path) -> 
 
 def test_near_duplicate_drafts_each_find_their_own_post(ws: Workspace, tmp_path: Path) -> None:
     fri = _given(ws, text=LANTERN_FRI, account="garden", planned=T0, given=T0 - timedelta(days=1))
-    sat = _given(ws, text=LANTERN_SAT, account="garden", planned=T0 + timedelta(hours=2),
-                 given=T0 - timedelta(hours=20))
+    sat = _given(
+        ws,
+        text=LANTERN_SAT,
+        account="garden",
+        planned=T0 + timedelta(hours=2),
+        given=T0 - timedelta(hours=20),
+    )
     # The same draft checked twice: the later check is the one that counts.
-    again_1 = _given(ws, text=ROSES, account="garden", planned=T0 + timedelta(hours=3),
-                     given=T0 - timedelta(hours=10))
-    again_2 = _given(ws, text=ROSES, account="garden", planned=T0 + timedelta(hours=3),
-                     given=T0 - timedelta(hours=2))
+    again_1 = _given(
+        ws, text=ROSES, account="garden", planned=T0 + timedelta(hours=3), given=T0 - timedelta(hours=10)
+    )
+    again_2 = _given(
+        ws, text=ROSES, account="garden", planned=T0 + timedelta(hours=3), given=T0 - timedelta(hours=2)
+    )
     rows = [
         ("p-fri", "garden", LANTERN_FRI, T0 + timedelta(minutes=5)),
         ("p-sat", "garden", LANTERN_SAT, T0 + timedelta(hours=2, minutes=5)),
@@ -126,8 +160,9 @@ def test_near_duplicate_drafts_each_find_their_own_post(ws: Workspace, tmp_path:
 
 
 def test_post_published_before_the_forecast_never_matches(ws: Workspace, tmp_path: Path) -> None:
-    after = _given(ws, text=ROSES, account="garden", planned=T0, given=T0 + timedelta(hours=1),
-                   draft_id="d-1")
+    after = _given(
+        ws, text=ROSES, account="garden", planned=T0, given=T0 + timedelta(hours=1), draft_id="d-1"
+    )
     rows = [("p1", "garden", ROSES, T0, "d-1")]  # out at T0, forecast given an hour later
     ws.import_csv(_csv(tmp_path / "pub.csv", rows, draft_col="draft_id"))
     assert after not in _matches(ws)
@@ -136,8 +171,10 @@ def test_post_published_before_the_forecast_never_matches(ws: Workspace, tmp_pat
 def test_reimport_is_idempotent_and_forget_removes_matches(ws: Workspace, tmp_path: Path) -> None:
     f1 = _given(ws, text=ROSES, account="garden", planned=T0, given=T0 - timedelta(hours=3))
     f2 = _given(ws, text=FERNS, account="lab", planned=T0, given=T0 - timedelta(hours=3))
-    pub = _csv(tmp_path / "pub.csv", [("p1", "garden", ROSES, T0 + timedelta(minutes=3)),
-                                      ("p2", "lab", FERNS, T0 + timedelta(minutes=9))])
+    pub = _csv(
+        tmp_path / "pub.csv",
+        [("p1", "garden", ROSES, T0 + timedelta(minutes=3)), ("p2", "lab", FERNS, T0 + timedelta(minutes=9))],
+    )
     ws.import_csv(pub)
     first = _matches(ws)
     assert set(first) == {f1, f2}

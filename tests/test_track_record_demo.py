@@ -80,8 +80,7 @@ def test_plan_forecast_published_matched_scored_reported(
     forecasts = {r["draft_id"]: r for r in _read(out)}
     plan = _read(PLAN)
     published = _read(PUBLISHED)
-    pairs = [(forecasts[plan[i]["draft_id"]], float(p["impressions"]))
-             for i, p in enumerate(published)]
+    pairs = [(forecasts[plan[i]["draft_id"]], float(p["impressions"])) for i, p in enumerate(published)]
     held = sum(float(f["low"]) <= y <= float(f["high"]) for f, y in pairs)
     mae = sum(abs(math.log1p(float(f["median"])) - math.log1p(y)) for f, y in pairs) / len(pairs)
 
@@ -113,8 +112,9 @@ def test_plan_forecast_published_matched_scored_reported(
     assert {r["draft_id"] for r in worst} <= {r["draft_id"] for r in plan[:7]}
 
     # The next forecast states its calibration and the live coverage so far.
-    ans = json.loads(run("check", plan[7]["text"], "--account", plan[7]["account"],
-                         "--json", "--no-record").output)
+    ans = json.loads(
+        run("check", plan[7]["text"], "--account", plan[7]["account"], "--json", "--no-record").output
+    )
     assert ans["calibration"]["method"] == "cqr+aci"
     assert ans["calibration"]["outcomes"] == 7
     assert ans["live_coverage"]["scored"] == 7 and ans["live_coverage"]["held"] == held
@@ -131,8 +131,9 @@ def test_plan_forecast_published_matched_scored_reported(
             png = client.get("/v1/track-record", params={"format": "png"})
             assert png.headers["content-type"] == "image/png"
             assert png.content[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (RFC 2083)
-            assert client.get("/v1/track-record", params={"since": "2027-01-01"}).json()[
-                "overall"]["given"] == 0
+            assert (
+                client.get("/v1/track-record", params={"since": "2027-01-01"}).json()["overall"]["given"] == 0
+            )
         if CHROMIUM.exists():  # the page's panel, in headless Chromium (CI installs it)
             _page_panel(ws, held)
     finally:
@@ -147,15 +148,15 @@ def _page_panel(ws: Workspace, held: int) -> None:
     from serving import serve
 
     with serve(create_app(workspace=ws)) as base, sync_playwright() as p:
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), headless=True,
-                                    args=["--no-sandbox", "--disable-gpu"])
+        browser = p.chromium.launch(
+            executable_path=str(CHROMIUM), headless=True, args=["--no-sandbox", "--disable-gpu"]
+        )
         try:
             page = browser.new_page()
             page.goto(base + "/")
             expect(page.locator("#track-figures")).to_be_visible(timeout=30_000)
             # The panel rounds the share to whole percent, as the hand count does here.
-            expect(page.locator("#track-live")).to_contain_text(
-                f"{round(100 * held / 7)}% of 7")
+            expect(page.locator("#track-live")).to_contain_text(f"{round(100 * held / 7)}% of 7")
             expect(page.locator("#track-summary")).to_contain_text("7 settled")
         finally:
             browser.close()

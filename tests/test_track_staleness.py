@@ -11,6 +11,7 @@ import json
 import math
 from datetime import datetime, timedelta
 from pathlib import Path
+from typing import ClassVar
 
 import pandas as pd
 import pytest
@@ -61,8 +62,9 @@ def test_old_model_warns_pseudo_outcomes_adapt_and_train_if_stale(
     hist = pd.read_csv(ROOT / "demo_data" / "posts.csv")
     t = pd.to_datetime(hist["posted_at"], utc=True)
     lag = pd.Timedelta(hours=48)
-    fresh = int(((t > pd.Timestamp("2026-09-01T00:00Z") - lag)
-                 & (t <= pd.Timestamp("2026-11-04T00:00Z") - lag)).sum())
+    fresh = int(
+        ((t > pd.Timestamp("2026-09-01T00:00Z") - lag) & (t <= pd.Timestamp("2026-11-04T00:00Z") - lag)).sum()
+    )
     assert fresh >= ws.settings.stale_after_posts  # the demo has enough for the warning
 
     why = track_record.staleness(ws, "impressions")
@@ -80,8 +82,9 @@ def test_old_model_warns_pseudo_outcomes_adapt_and_train_if_stale(
     misses = n * 0.2 - (alpha_t - 0.2) / gamma
     assert misses == pytest.approx(round(misses), abs=1e-6) and 0 <= round(misses) <= n
 
-    ans = json.loads(run("check", "Autumn colour in the arboretum this week", "--account",
-                         "loomhaven", "--json").output)
+    ans = json.loads(
+        run("check", "Autumn colour in the arboretum this week", "--account", "loomhaven", "--json").output
+    )
     assert ans["calibration"]["method"] == "cqr+aci"
     assert ans["calibration"]["pseudo_outcomes"] == fresh
     assert any("posts have settled" in w for w in ans["warnings"])
@@ -98,7 +101,7 @@ def test_old_model_warns_pseudo_outcomes_adapt_and_train_if_stale(
 class _Model:
     """Stands in for a fresh model: only its report's data time is read."""
 
-    report = {"data_as_of": "2026-06-30T00:00:00+00:00"}
+    report: ClassVar[dict[str, str]] = {"data_as_of": "2026-06-30T00:00:00+00:00"}
 
 
 def _band(n: int, p: float) -> tuple[int, int]:
@@ -114,12 +117,15 @@ def _band(n: int, p: float) -> tuple[int, int]:
 
 
 @pytest.mark.parametrize("offset", [-1, 0])
-def test_live_coverage_outside_its_binomial_band_warns(workspace: Workspace, tmp_path: Path,
-                                                       offset: int) -> None:
+def test_live_coverage_outside_its_binomial_band_warns(
+    workspace: Workspace, tmp_path: Path, offset: int
+) -> None:
     base = datetime(2026, 6, 1, 12, tzinfo=UTC)
     lines = ["post_id,account,text,posted_at,impressions"]
-    lines += [f"p{i},garden,Post number {i} about the garden,{(base + timedelta(hours=i)).isoformat()},"
-              f"{100 + i}" for i in range(50)]
+    lines += [
+        f"p{i},garden,Post number {i} about the garden,{(base + timedelta(hours=i)).isoformat()},{100 + i}"
+        for i in range(50)
+    ]
     (tmp_path / "posts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
     workspace.import_csv(tmp_path / "posts.csv")
     low, _ = _band(50, 0.8)
@@ -129,16 +135,46 @@ def test_live_coverage_outside_its_binomial_band_warns(workspace: Workspace, tmp
         pks = list(s.scalars(select(Post.id).order_by(Post.posted_at)))
         for i, pk in enumerate(pks):
             f = ForecastGiven(
-                given_at=to_naive_utc(base - timedelta(days=1)), source="check", account_id=aid,
-                text="t", text_hash="h", planned_at=to_naive_utc(base), metric="impressions",
-                coverage=0.8, low=1, median=2, high=3, low_log=0.1, median_log=0.2, high_log=0.3,
-                model_version="v", calibration="cqr", alpha_t=0.2, precedents="[]")
+                given_at=to_naive_utc(base - timedelta(days=1)),
+                source="check",
+                account_id=aid,
+                text="t",
+                text_hash="h",
+                planned_at=to_naive_utc(base),
+                metric="impressions",
+                coverage=0.8,
+                low=1,
+                median=2,
+                high=3,
+                low_log=0.1,
+                median_log=0.2,
+                high_log=0.3,
+                model_version="v",
+                calibration="cqr",
+                alpha_t=0.2,
+                precedents="[]",
+            )
             s.add(f)
             s.flush()
-            s.add(ForecastMatch(forecast_id=f.id, post_pk=pk, metric="impressions", how="text_time",
-                                matched_at=to_naive_utc(base), outcome=1.0, outcome_log=0.5,
-                                inside=i < held, adapted=True))
-    why = track_record.staleness(workspace, "impressions", 0.8, model=_Model(),  # type: ignore[arg-type]
-                                 now=datetime(2026, 7, 1, tzinfo=UTC))
+            s.add(
+                ForecastMatch(
+                    forecast_id=f.id,
+                    post_pk=pk,
+                    metric="impressions",
+                    how="text_time",
+                    matched_at=to_naive_utc(base),
+                    outcome=1.0,
+                    outcome_log=0.5,
+                    inside=i < held,
+                    adapted=True,
+                )
+            )
+    why = track_record.staleness(
+        workspace,
+        "impressions",
+        0.8,
+        model=_Model(),  # type: ignore[arg-type]
+        now=datetime(2026, 7, 1, tzinfo=UTC),
+    )
     warned = any("of the last 50 scored forecasts" in w for w in why["warnings"])
     assert warned == (offset < 0)

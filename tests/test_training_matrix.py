@@ -53,12 +53,20 @@ def test_array_matrix_equals_the_loop_with_ties_and_missing_metrics(view, params
     account = h.account[pick].copy()
     account[rng.random(n) < 0.02] = 7
     time = np.sort(rng.uniform(h.time.min(), h.time.max(), n))
-    hist = F.History(pk=np.arange(n), time=time, account=account, log_target=logs,
-                     vectors=np.ascontiguousarray(h.vectors[pick]))
-    kw = {"local_hours": view.local_hours[pick], "weekdays": view.weekdays[pick],
-          "forms": view.forms[pick], "params": params}
-    assert np.array_equal(F.training_matrix(hist, **kw), F._training_matrix_loop(hist, **kw),
-                          equal_nan=True)
+    hist = F.History(
+        pk=np.arange(n),
+        time=time,
+        account=account,
+        log_target=logs,
+        vectors=np.ascontiguousarray(h.vectors[pick]),
+    )
+    kw = {
+        "local_hours": view.local_hours[pick],
+        "weekdays": view.weekdays[pick],
+        "forms": view.forms[pick],
+        "params": params,
+    }
+    assert np.array_equal(F.training_matrix(hist, **kw), F._training_matrix_loop(hist, **kw), equal_nan=True)
 
 
 def test_rows_subset_keeps_neighbours_from_the_whole_history(view, params) -> None:
@@ -80,7 +88,7 @@ def test_exact_neighbours_are_sklearns(view, params) -> None:
         ok = np.flatnonzero(F.eligible(h, h.time[i], params))
         # Reference: scikit-learn's exact brute-force cosine search over the eligible posts.
         nn = NearestNeighbors(n_neighbors=params.k, metric="cosine", algorithm="brute")
-        dist, pos = nn.fit(h.vectors[ok]).kneighbors(h.vectors[i:i + 1])
+        dist, _pos = nn.fit(h.vectors[ok]).kneighbors(h.vectors[i : i + 1])
         np.testing.assert_allclose(nb.team_sims[j * 10], 1.0 - dist[0], atol=1e-5)
 
 
@@ -91,8 +99,10 @@ def test_approximate_neighbours_match_exact_ones(view, params) -> None:
     # exact_below=300: nearly every row goes through the time-ordered graphs.
     approx = F.approximate_neighbours(h, rows=rows, params=params, exact_below=300)
     for a, e in ((approx.team, exact.team), (approx.own, exact.own)):
-        found = [len(set(x[x >= 0]) & set(y[y >= 0])) / max(1, int((y >= 0).sum()))
-                 for x, y in zip(a, e, strict=True)]
+        found = [
+            len(set(x[x >= 0]) & set(y[y >= 0])) / max(1, int((y >= 0).sum()))
+            for x, y in zip(a, e, strict=True)
+        ]
         assert np.mean(found) >= 0.97
         # Leak-free as well: every neighbour was settled before its row's post.
         r, c = np.nonzero(a >= 0)

@@ -51,8 +51,9 @@ def cli_help() -> str:
 def page_text() -> str:
     html = "\n".join(p.read_text() for p in STATIC.glob("*.html"))
     shown = re.sub(r"<[^>]+>", " ", html)  # text, not tags and attributes
-    js = "\n".join(line for p in STATIC.glob("*.js") for line in p.read_text().splitlines()
-                   if "text-anchor" not in line)  # an SVG attribute value, not a word shown
+    js = "\n".join(
+        line for p in STATIC.glob("*.js") for line in p.read_text().splitlines() if "text-anchor" not in line
+    )  # an SVG attribute value, not a word shown
     strings = re.findall(r'"([^"\n]*)"|`([^`]*)`', js)
     return shown + "\n" + "\n".join(a or b for a, b in strings)
 
@@ -68,8 +69,12 @@ def api_names(tmp_path: Path, embedder) -> str:
 
 
 def test_no_retired_word_anywhere_people_look(tmp_path: Path, embedder) -> None:
-    places = {"CLI help": cli_help(), "page": page_text(),
-              "API field names": api_names(tmp_path, embedder), "caution": CAUTION}
+    places = {
+        "CLI help": cli_help(),
+        "page": page_text(),
+        "API field names": api_names(tmp_path, embedder),
+        "caution": CAUTION,
+    }
     found = []
     for where, text in places.items():
         for pattern, instead in RETIRED.items():

@@ -20,14 +20,24 @@ from service.timeparse import TimeLayout, TimeReader
 
 # Counts against babel (CLDR number formats): en groups with ',' and a decimal point,
 # de groups with '.' and a decimal comma, fr groups with a narrow no-break space.
-@pytest.mark.parametrize(("text", "locale", "comma"), [
-    ("1,234", "en", False), ("12,345,678", "en", False), ("987", "en", False),
-    ("1,234.0", "en", False), ("1.234", "de", True), ("2.345.678", "de", True),
-    ("1.234,0", "de", True), ("1\u202f234", "fr", False), ("1\u202f234", "fr", True),
-])
+@pytest.mark.parametrize(
+    ("text", "locale", "comma"),
+    [
+        ("1,234", "en", False),
+        ("12,345,678", "en", False),
+        ("987", "en", False),
+        ("1,234.0", "en", False),
+        ("1.234", "de", True),
+        ("2.345.678", "de", True),
+        ("1.234,0", "de", True),
+        ("1\u202f234", "fr", False),
+        ("1\u202f234", "fr", True),
+    ],
+)
 def test_counts_read_as_babel_reads_them(text: str, locale: str, comma: bool) -> None:
     assert Decimal(read_count(text, decimal_comma=comma).value) == parse_decimal(
-        text, locale=locale, strict=True)
+        text, locale=locale, strict=True
+    )
 
 
 @pytest.mark.parametrize(("text", "locale"), [("1,23", "en"), ("1,2345", "en"), ("12,34,567", "en")])
@@ -60,9 +70,17 @@ def test_rates_carry_the_precision_they_are_written_with() -> None:
 
 # Times against dateutil, on values that read only one way ---------------------------------
 
-UNAMBIGUOUS = ["25/11/2026 09:30", "11/25/2026 9:30 PM", "Nov 3, 2026 2:05 PM",
-               "3 November 2026 14:05", "2026/11/25 14:05", "Tue, 03 Nov 2026 14:05:00",
-               "28.03.2026 23:15", "12/31/2026 11:59 PM", "31-Dec-2026 00:01"]
+UNAMBIGUOUS = [
+    "25/11/2026 09:30",
+    "11/25/2026 9:30 PM",
+    "Nov 3, 2026 2:05 PM",
+    "3 November 2026 14:05",
+    "2026/11/25 14:05",
+    "Tue, 03 Nov 2026 14:05:00",
+    "28.03.2026 23:15",
+    "12/31/2026 11:59 PM",
+    "31-Dec-2026 00:01",
+]
 
 
 @pytest.mark.parametrize("text", UNAMBIGUOUS)
@@ -81,19 +99,23 @@ def test_ambiguous_values_need_an_order_and_then_read_as_dateutil_does(text: str
     assert day != month
     with pytest.raises(TimeParseError, match="--day-first or --month-first"):
         TimeReader(layout=TimeLayout()).read(text, tz="UTC")
-    assert TimeReader(layout=TimeLayout(date_order="day-first")).read(text, tz="UTC") == \
-        day.replace(tzinfo=UTC)
-    assert TimeReader(layout=TimeLayout(date_order="month-first")).read(text, tz="UTC") == \
-        month.replace(tzinfo=UTC)
+    assert TimeReader(layout=TimeLayout(date_order="day-first")).read(text, tz="UTC") == day.replace(
+        tzinfo=UTC
+    )
+    assert TimeReader(layout=TimeLayout(date_order="month-first")).read(text, tz="UTC") == month.replace(
+        tzinfo=UTC
+    )
 
 
 def test_unix_times() -> None:
     # 1,800,000,000 s after 1970-01-01T00:00Z (POSIX time) is 2027-01-15T08:00:00Z.
     expected = datetime(1970, 1, 1, tzinfo=UTC).timestamp() + 1_800_000_000
-    assert TimeReader(layout=TimeLayout(pattern="epoch")).read("1800000000", tz="UTC") == \
-        datetime.fromtimestamp(expected, UTC)
-    assert TimeReader(layout=TimeLayout(pattern="epoch_ms")).read("1800000000000", tz="UTC") == \
-        datetime.fromtimestamp(expected, UTC)
+    assert TimeReader(layout=TimeLayout(pattern="epoch")).read(
+        "1800000000", tz="UTC"
+    ) == datetime.fromtimestamp(expected, UTC)
+    assert TimeReader(layout=TimeLayout(pattern="epoch_ms")).read(
+        "1800000000000", tz="UTC"
+    ) == datetime.fromtimestamp(expected, UTC)
     with pytest.raises(TimeParseError, match="outside the accepted range"):
         TimeReader(layout=TimeLayout(pattern="epoch")).read("0", tz="UTC")
 
@@ -102,21 +124,28 @@ def test_unix_times() -> None:
 
 
 def test_a_mapping_round_trips_through_toml_and_options_given_now_win() -> None:
-    saved = ImportOptions(mapping={"text": "Post body", "posted_at": "Date"}, account="loomhaven",
-                          timezone="Europe/London", time_format="%d/%m/%Y %H:%M",
-                          decimal_comma=True)
+    saved = ImportOptions(
+        mapping={"text": "Post body", "posted_at": "Date"},
+        account="loomhaven",
+        timezone="Europe/London",
+        time_format="%d/%m/%Y %H:%M",
+        decimal_comma=True,
+    )
     assert from_toml(to_toml(saved), where="t") == saved
     now = combine(saved, ImportOptions(mapping={"text": "Body"}, date_order="day-first"))
     assert now.mapping == {"text": "Body", "posted_at": "Date"}
     assert (now.time_format, now.date_order, now.account) == (None, "day-first", "loomhaven")
 
 
-@pytest.mark.parametrize(("text", "fragment"), [
-    ("[columns]\nnot_ours = 'X'\n", "not one of our columns"),
-    ("colour = 'green'\n", "unknown keys"),
-    ("[times]\nformat = '%d/%m/%Y'\n", "no time of day"),
-    ("[times\n", "not valid TOML"),
-])
+@pytest.mark.parametrize(
+    ("text", "fragment"),
+    [
+        ("[columns]\nnot_ours = 'X'\n", "not one of our columns"),
+        ("colour = 'green'\n", "unknown keys"),
+        ("[times]\nformat = '%d/%m/%Y'\n", "no time of day"),
+        ("[times\n", "not valid TOML"),
+    ],
+)
 def test_bad_mapping_files_are_refused(text: str, fragment: str) -> None:
     with pytest.raises(InputError, match=fragment):
         from_toml(text, where="mapping x")

@@ -35,12 +35,12 @@ STATIC = Path(__file__).resolve().parent.parent / "static"
 
 # One router module per resource, in the order they appear in /docs. Imported
 # by name, so a missing module fails at import rather than dropping an endpoint.
-ROUTERS = (health, precedents, forecasts, hours, variants, segments, imports, training, forget,
-           track_record)
+ROUTERS = (health, precedents, forecasts, hours, variants, segments, imports, training, forget, track_record)
 
 
-def create_app(*, workspace: Workspace | None = None, settings: Settings | None = None,
-               bound_host: str | None = None) -> FastAPI:
+def create_app(
+    *, workspace: Workspace | None = None, settings: Settings | None = None, bound_host: str | None = None
+) -> FastAPI:
     """Build the app around one workspace (created from settings if not given).
     ``bound_host`` is the address it listens on, one of the Host names it answers."""
     ws = workspace or Workspace(settings=settings or get_settings())
@@ -72,13 +72,15 @@ def create_app(*, workspace: Workspace | None = None, settings: Settings | None 
 
 def _docs(app: FastAPI) -> None:
     """/docs: Swagger UI from the swagger-ui-bundle package, so it works offline."""
-    app.mount("/docs-assets", StaticFiles(directory=str(swagger_ui_bundle.swagger_ui_path)),
-              name="docs-assets")
+    app.mount(
+        "/docs-assets", StaticFiles(directory=str(swagger_ui_bundle.swagger_ui_path)), name="docs-assets"
+    )
 
     @app.get("/docs", include_in_schema=False)
     def docs() -> HTMLResponse:
         return get_swagger_ui_html(
-            openapi_url="/docs/openapi.json", title="sounding API",
+            openapi_url="/docs/openapi.json",
+            title="sounding API",
             swagger_js_url="/docs-assets/swagger-ui-bundle.js",
             swagger_css_url="/docs-assets/swagger-ui.css",
             swagger_favicon_url="/docs-assets/favicon-32x32.png",

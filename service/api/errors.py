@@ -36,6 +36,7 @@ _SQLITE = re.compile(r"(sqlite[+\w]*:///)/?[^\s'\"?]*/")
 def scrub(body: dict[str, Any]) -> dict[str, Any]:
     """The error body without server paths: each becomes its last part, so a
     message still names the file without telling a client the layout."""
+
     def clean(v: str) -> str:
         v = _SQLITE.sub(r"\1", v)
         return _PATH.sub(lambda m: m.group(0).rstrip("/").rsplit("/", 1)[-1], v)
@@ -47,8 +48,7 @@ def install(app: FastAPI) -> None:
     @app.exception_handler(SoundingError)
     async def _ours(_req: Request, exc: SoundingError) -> JSONResponse:
         headers = {"WWW-Authenticate": "Bearer"} if isinstance(exc, AuthError) else None
-        return JSONResponse({"error": scrub(exc.to_dict())}, status_code=status_for(exc),
-                            headers=headers)
+        return JSONResponse({"error": scrub(exc.to_dict())}, status_code=status_for(exc), headers=headers)
 
     @app.exception_handler(RequestValidationError)
     async def _validation(_req: Request, exc: RequestValidationError) -> JSONResponse:

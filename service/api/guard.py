@@ -46,10 +46,17 @@ def host_name(header: str) -> str:
 
 async def _answer(send: Send, status: int, error: dict[str, Any]) -> None:
     body = json.dumps({"error": error}).encode()
-    await send({"type": "http.response.start", "status": status,
-                "headers": [(b"content-type", b"application/json"),
-                            (b"content-length", str(len(body)).encode()),
-                            (b"connection", b"close")]})
+    await send(
+        {
+            "type": "http.response.start",
+            "status": status,
+            "headers": [
+                (b"content-type", b"application/json"),
+                (b"content-length", str(len(body)).encode()),
+                (b"connection", b"close"),
+            ],
+        }
+    )
     await send({"type": "http.response.body", "body": body})
 
 
@@ -67,11 +74,16 @@ class HostCheck:
             # browser, which always names the host it resolved: let it pass.
             if header is not None and host_name(header.decode("latin-1")) not in self.allowed:
                 if scope["type"] == "http":
-                    await _answer(send, 400, {
-                        "code": "unknown_host",
-                        "message": "this service answers only to its own host names "
-                                   "(loopback, the address it listens on, SOUNDING_ALLOWED_HOSTS)",
-                        "field": "Host"})
+                    await _answer(
+                        send,
+                        400,
+                        {
+                            "code": "unknown_host",
+                            "message": "this service answers only to its own host names "
+                            "(loopback, the address it listens on, SOUNDING_ALLOWED_HOSTS)",
+                            "field": "Host",
+                        },
+                    )
                 return
         await self.app(scope, receive, send)
 
@@ -121,11 +133,16 @@ class BodyCap:
         await self.app(scope, replay, send)
 
     async def _too_big(self, send: Send) -> None:
-        await _answer(send, 413, {
-            "code": "limit_exceeded",
-            "message": f"the request body is larger than {self.limit} bytes "
-                       "(SOUNDING_MAX_JSON_BYTES)",
-            "limit": "max_json_bytes", "maximum": self.limit})
+        await _answer(
+            send,
+            413,
+            {
+                "code": "limit_exceeded",
+                "message": f"the request body is larger than {self.limit} bytes (SOUNDING_MAX_JSON_BYTES)",
+                "limit": "max_json_bytes",
+                "maximum": self.limit,
+            },
+        )
 
 
 class GuardedH11Protocol(H11Protocol):
@@ -174,9 +191,11 @@ class GuardedH11Protocol(H11Protocol):
 
 def protocol(settings: Settings) -> type[GuardedH11Protocol]:
     """The guarded protocol with this service's deadlines."""
-    return type("SoundingH11Protocol", (GuardedH11Protocol,), {
-        "header_timeout": settings.header_timeout_seconds,
-        "body_timeout": settings.body_timeout_seconds})
+    return type(
+        "SoundingH11Protocol",
+        (GuardedH11Protocol,),
+        {"header_timeout": settings.header_timeout_seconds, "body_timeout": settings.body_timeout_seconds},
+    )
 
 
 def allowed_hosts(settings: Settings, bound: str | None = None) -> list[str]:

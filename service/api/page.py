@@ -15,8 +15,10 @@ from fastapi.staticfiles import StaticFiles
 STATIC = Path(__file__).resolve().parent.parent / "static"
 
 # Only this origin: no CDN, no fonts or scripts from the internet, no inline code.
-CSP = ("default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data: blob:; "
-       "connect-src 'self'; base-uri 'none'; form-action 'self'; frame-ancestors 'none'")
+CSP = (
+    "default-src 'self'; script-src 'self'; style-src 'self'; img-src 'self' data: blob:; "
+    "connect-src 'self'; base-uri 'none'; form-action 'self'; frame-ancestors 'none'"
+)
 
 
 def mount(app: FastAPI) -> None:
@@ -25,11 +27,17 @@ def mount(app: FastAPI) -> None:
 
     @app.get("/", include_in_schema=False)
     def index() -> FileResponse:
-        return FileResponse(STATIC / "index.html", media_type="text/html",
-                            headers={"Content-Security-Policy": CSP, "Cache-Control": "no-cache"})
+        return FileResponse(
+            STATIC / "index.html",
+            media_type="text/html",
+            headers={"Content-Security-Policy": CSP, "Cache-Control": "no-cache"},
+        )
 
     @app.get("/import", include_in_schema=False)
     def import_page() -> FileResponse:
         """Preview an export (a dry run), then import it; both need the token."""
-        return FileResponse(STATIC / "import.html", media_type="text/html",
-                            headers={"Content-Security-Policy": CSP, "Cache-Control": "no-cache"})
+        return FileResponse(
+            STATIC / "import.html",
+            media_type="text/html",
+            headers={"Content-Security-Policy": CSP, "Cache-Control": "no-cache"},
+        )

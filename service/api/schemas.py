@@ -10,6 +10,8 @@ from typing import Annotated, Literal
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
+
 from ..timeparse import EARLIEST, as_utc, latest_time, range_text
 
 
@@ -32,8 +34,6 @@ def _day_in_range(day: date) -> date:
 
 InRangeTime = Annotated[datetime, AfterValidator(_time_in_range)]
 InRangeDay = Annotated[date, AfterValidator(_day_in_range)]
-
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
 
 
 class Strict(BaseModel):
@@ -73,8 +73,10 @@ class IndexState(BaseModel):
 
 
 class EmbeddingState(BaseModel):
-    backend: str = Field(description="onnx or torch once loaded; the setting (auto, onnx, "
-                         "torch) before the model is first used")
+    backend: str = Field(
+        description="onnx or torch once loaded; the setting (auto, onnx, "
+        "torch) before the model is first used"
+    )
     loaded: bool
     quantize: str = Field(description="none, or int8: approximate vectors, kept apart")
     vector_space: str = Field(description="What the stored vectors are vectors of")
@@ -84,8 +86,10 @@ class EmbeddingState(BaseModel):
 
 class SearchState(BaseModel):
     approximate: bool = Field(description="true for an HNSW graph, false for an exact scan")
-    recall_at_10: float = Field(description="recall@10 against exact search, measured at build "
-                                "on a sample of the index's own vectors (1.0 when exact)")
+    recall_at_10: float = Field(
+        description="recall@10 against exact search, measured at build "
+        "on a sample of the index's own vectors (1.0 when exact)"
+    )
     ef_search: int | None = Field(default=None, description="HNSW efSearch chosen at build")
 
 
@@ -119,8 +123,9 @@ class PrecedentOut(BaseModel):
     text: str
     similarity: float
     metrics: Metrics
-    still_gathering: bool = Field(description="True while the post's metrics are not final yet "
-                                  "(younger than the maturity window)")
+    still_gathering: bool = Field(
+        description="True while the post's metrics are not final yet (younger than the maturity window)"
+    )
 
 
 class PrecedentsResponse(BaseModel):
@@ -148,10 +153,12 @@ class ImportSummaryOut(BaseModel):
     unchanged: int
     rejected: int
     embedded: int = Field(description="Texts embedded for the first time")
-    approximate: int = Field(default=0, description="Rows stored with an abbreviated (1.2K) "
-                             "or derived count, marked approximate")
-    skipped_lines: int = Field(default=0, description="Lines never read because the rest of "
-                               "the file was not CSV")
+    approximate: int = Field(
+        default=0, description="Rows stored with an abbreviated (1.2K) or derived count, marked approximate"
+    )
+    skipped_lines: int = Field(
+        default=0, description="Lines never read because the rest of the file was not CSV"
+    )
     stopped: str | None = Field(default=None, description="Why reading stopped early, if it did")
     problems: list[ImportProblem]
 
@@ -212,8 +219,9 @@ METRIC_FIELD = Field(
     json_schema_extra={"enum": list(TARGETS)},
 )
 #: The coverage a request may ask for (one definition for every endpoint).
-COVERAGE_FIELD = Field(default=DEFAULT_COVERAGE, ge=MIN_COVERAGE, le=MAX_COVERAGE,
-                       description="Nominal coverage of the interval")
+COVERAGE_FIELD = Field(
+    default=DEFAULT_COVERAGE, ge=MIN_COVERAGE, le=MAX_COVERAGE, description="Nominal coverage of the interval"
+)
 
 
 class DraftIn(Strict):
@@ -221,8 +229,7 @@ class DraftIn(Strict):
     account: str = Field(min_length=1, description="Handle of the account that would post it")
     planned_at: str | None = Field(
         default=None,
-        description="ISO 8601 time; without an offset it is read in the account's zone. "
-        "Default: now.",
+        description="ISO 8601 time; without an offset it is read in the account's zone. Default: now.",
         examples=["2026-12-02T10:00:00+01:00"],
     )
     draft_id: str | None = None
@@ -278,8 +285,10 @@ class RepeatOut(BaseModel):
 class CalibrationOut(BaseModel):
     """Which calibration shaped the interval (service.track_record, issue 11)."""
 
-    method: str = Field(description="cqr: as trained; cqr+aci: adapted to scored outcomes "
-                        "(adaptive conformal inference, Gibbs & Candes 2021)")
+    method: str = Field(
+        description="cqr: as trained; cqr+aci: adapted to scored outcomes "
+        "(adaptive conformal inference, Gibbs & Candes 2021)"
+    )
     level: str
     alpha: float
     alpha_t: float = Field(description="Working miscoverage level after adaptation")
@@ -292,8 +301,9 @@ class CalibrationOut(BaseModel):
 class LiveCoverageOut(BaseModel):
     scored: int = Field(description="Forecasts of this metric and level scored so far")
     held: int
-    coverage: float | None = Field(description="Share of scored forecasts whose outcome fell "
-                                   "inside the interval")
+    coverage: float | None = Field(
+        description="Share of scored forecasts whose outcome fell inside the interval"
+    )
     ci: list[float] | None = Field(description="Wilson 95% interval of that share")
 
 
@@ -316,12 +326,15 @@ class ForecastOut(BaseModel):
     warnings: list[str]
     caution: str
     repeats: list[RepeatOut] = Field(
-        default_factory=list, description="Near-repeats behind the warnings, most similar first")
+        default_factory=list, description="Near-repeats behind the warnings, most similar first"
+    )
     calibration: CalibrationOut | None = None
     live_coverage: LiveCoverageOut | None = None
     note: str | None = Field(
-        default=None, description="One plain line from the backtest when the history's text "
-        "carries little signal (what the forecast leans on instead)")
+        default=None,
+        description="One plain line from the backtest when the history's text "
+        "carries little signal (what the forecast leans on instead)",
+    )
 
 
 class ForecastList(BaseModel):
@@ -335,8 +348,10 @@ class HoursRequest(Strict):
     text: str = Field(min_length=1, description="The draft's text")
     account: str = Field(min_length=1, description="Handle of the account that would post it")
     day: InRangeDay | None = Field(
-        default=None, description="Local calendar day (ISO 8601 date) in the account's zone; "
-        "default: tomorrow there", examples=["2026-12-03"])
+        default=None,
+        description="Local calendar day (ISO 8601 date) in the account's zone; default: tomorrow there",
+        examples=["2026-12-03"],
+    )
     week: bool = Field(default=False, description="Seven days from `day`, hour by hour")
     metric: str = METRIC_FIELD
     coverage: float = COVERAGE_FIELD
@@ -372,8 +387,10 @@ class HoursOut(BaseModel):
     told_apart: bool = Field(description="False when most hours cannot be told apart")
     fraction_tied_with_best: float = Field(description="Share of the other slots about equal to the best")
     best_stays_best: float | None = Field(
-        default=None, description="Share of bootstrap refits of the timing effect in which the "
-        "best slot stays best (null for models without a timing component)")
+        default=None,
+        description="Share of bootstrap refits of the timing effect in which the "
+        "best slot stays best (null for models without a timing component)",
+    )
     summary: str
     rule: str
     best: list[SlotOut] = Field(description="Slots about equal to the best, highest median first")
@@ -383,16 +400,19 @@ class HoursOut(BaseModel):
 
 
 class VariantsRequest(Strict):
-    texts: list[str] = Field(min_length=2, description="Two to ten phrasings of one draft "
-                             "(more answers 413, like the other limits)")
+    texts: list[str] = Field(
+        min_length=2,
+        description="Two to ten phrasings of one draft (more answers 413, like the other limits)",
+    )
     account: str = Field(min_length=1)
     planned_at: str | None = Field(
-        default=None, description="ISO 8601 time; without an offset it is read in the account's "
-        "zone. Default: now.", examples=["2026-12-03T12:30:00"])
+        default=None,
+        description="ISO 8601 time; without an offset it is read in the account's zone. Default: now.",
+        examples=["2026-12-03T12:30:00"],
+    )
     metric: str = METRIC_FIELD
     coverage: float = COVERAGE_FIELD
-    has_media: bool = Field(default=False, description="An image or video goes with every "
-                            "variant")
+    has_media: bool = Field(default=False, description="An image or video goes with every variant")
 
 
 class VariantOut(BaseModel):
@@ -446,21 +466,27 @@ class SegmentsRequest(Strict):
         "reaches threshold, else 'other'. top-k: each topic takes its k most similar posts.",
     )
     k: int = Field(default=100, ge=1, description="Posts per topic in top-k mode")
-    threshold: float = Field(default=0.3, ge=-1, le=1,
-                             description="Cosine similarity a post needs in nearest mode")
-    hour_edges: list[int] = Field(default=[0, 6, 9, 12, 15, 18, 21, 24],
-                                  description="Local hour bucket edges, from 0 to 24")
-    length_edges: list[int] = Field(default=[0, 80, 160, 240, 10**9],
-                                    description="Text length band edges in characters, from 0")
+    threshold: float = Field(
+        default=0.3, ge=-1, le=1, description="Cosine similarity a post needs in nearest mode"
+    )
+    hour_edges: list[int] = Field(
+        default=[0, 6, 9, 12, 15, 18, 21, 24], description="Local hour bucket edges, from 0 to 24"
+    )
+    length_edges: list[int] = Field(
+        default=[0, 80, 160, 240, 10**9], description="Text length band edges in characters, from 0"
+    )
     account: str | None = Field(default=None, description="Only this account's posts")
     min_n: int = Field(default=20, ge=1, description="Segments with fewer posts are flagged")
-    examples: int = Field(default=3, ge=0, le=20,
-                          description="Example posts per topic segment, most similar first")
+    examples: int = Field(
+        default=3, ge=0, le=20, description="Example posts per topic segment, most similar first"
+    )
     format: Literal["json", "png", "svg"] = Field(
-        default="json", description="json for the statistics, png or svg for the figure")
+        default="json", description="json for the statistics, png or svg for the figure"
+    )
     plot: str | None = Field(
-        default=None, description="Which split the figure shows: 'topic' or the value of by "
-        "(default: the first split)")
+        default=None,
+        description="Which split the figure shows: 'topic' or the value of by (default: the first split)",
+    )
 
 
 class SegmentExampleOut(BaseModel):
@@ -489,8 +515,10 @@ class SegmentOut(BaseModel):
     rest_median: float | None = Field(description="Median of the posts outside the segment")
     summary: str
     examples: list[SegmentExampleOut] | None = Field(
-        default=None, description="Topic splits only: the posts most similar to the phrase; "
-        "for 'other', the posts closest to a topic that still missed")
+        default=None,
+        description="Topic splits only: the posts most similar to the phrase; "
+        "for 'other', the posts closest to a topic that still missed",
+    )
 
 
 class SegmentTopicOut(BaseModel):
@@ -505,8 +533,9 @@ class SegmentSplitOut(BaseModel):
     threshold: float | None = None
     k: int | None = None
     topics: list[SegmentTopicOut] | None = None
-    kruskal_h: float | None = Field(description="Kruskal-Wallis H across segments (none "
-                                    "when segments overlap)")
+    kruskal_h: float | None = Field(
+        description="Kruskal-Wallis H across segments (none when segments overlap)"
+    )
     kruskal_p: float | None
     overall_median: float | None
     n_total: int
@@ -536,8 +565,9 @@ class TwoWayOut(BaseModel):
 
 class SegmentsLeftOut(BaseModel):
     no_metric: int = Field(description="Posts without the metric")
-    still_gathering: int = Field(description="Posts whose metrics are not final yet (younger "
-                                 "than the maturity window)")
+    still_gathering: int = Field(
+        description="Posts whose metrics are not final yet (younger than the maturity window)"
+    )
 
 
 class SegmentsResponse(BaseModel):

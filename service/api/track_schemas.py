@@ -15,10 +15,12 @@ class BaselineScore(BaseModel):
 
 
 class Baselines(BaseModel):
-    account_median: BaselineScore = Field(description="The account's trailing median, as it "
-                                          "stood when the forecast was given")
-    precedents_median: BaselineScore = Field(description="The median of the settled "
-                                             "precedents shown with the forecast")
+    account_median: BaselineScore = Field(
+        description="The account's trailing median, as it stood when the forecast was given"
+    )
+    precedents_median: BaselineScore = Field(
+        description="The median of the settled precedents shown with the forecast"
+    )
 
 
 class PeriodSummary(BaseModel):
@@ -26,8 +28,9 @@ class PeriodSummary(BaseModel):
     matched: int = Field(description="Forecasts matched to a published post")
     settled: int = Field(description="Matched forecasts whose post is settled, i.e. scored")
     stated_coverage: float | None
-    live_coverage: float | None = Field(description="Share of settled forecasts whose outcome "
-                                        "fell inside the interval")
+    live_coverage: float | None = Field(
+        description="Share of settled forecasts whose outcome fell inside the interval"
+    )
     live_coverage_ci: list[float] | None = Field(description="Wilson 95% interval [low, high]")
     mae_log: float | None
     baselines: Baselines

@@ -15,8 +15,7 @@ from .base import app
 #: The order their commands appear in --help.
 COMMAND_MODULES = (history, mappings, forecast, review, segments, admin, model_export, track)
 _ORDER = {m.__name__: i for i, m in enumerate(COMMAND_MODULES)}
-app.registered_commands.sort(
-    key=lambda c: _ORDER.get(getattr(c.callback, "__module__", ""), len(_ORDER)))
+app.registered_commands.sort(key=lambda c: _ORDER.get(getattr(c.callback, "__module__", ""), len(_ORDER)))
 
 
 def main() -> None:

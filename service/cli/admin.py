@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sqlite3
+
 import typer
 
 from models.errors import InputError, StoreError
@@ -25,6 +26,7 @@ def forget_cmd(
         raise InputError("say what to forget: --account HANDLE, or --post ID [--account HANDLE]")
     ws = workspace()
     if post is None:
+        assert account is not None  # checked above: one of the two is given
         info = ws.store.account(account)  # an unknown account fails here, before asking
         what = f"account {info.handle} and its {info.posts} posts"
     else:
@@ -38,8 +40,11 @@ def forget_cmd(
 @app.command("backup")
 def backup_cmd(
     # A string, not a Path: a trailing "/" says DEST is a directory to create.
-    dest: str = typer.Argument(..., help="New file for the copy, or a directory (an existing "
-                               "one, or DIR/ to create it) that receives a dated copy."),
+    dest: str = typer.Argument(
+        ...,
+        help="New file for the copy, or a directory (an existing "
+        "one, or DIR/ to create it) that receives a dated copy.",
+    ),
 ) -> None:
     """Copy the store to DEST while the service may keep running (SQLite online backup).
 
@@ -60,8 +65,9 @@ def backup_cmd(
 
 @app.command("copy-to")
 def copy_to_cmd(
-    url: str = typer.Argument(..., help="SQLAlchemy URL of an empty store, e.g. "
-                              "postgresql+psycopg://USER@HOST/DB."),
+    url: str = typer.Argument(
+        ..., help="SQLAlchemy URL of an empty store, e.g. postgresql+psycopg://USER@HOST/DB."
+    ),
 ) -> None:
     """Copy every account, post, metric and vector into another, empty store.
 
@@ -74,5 +80,7 @@ def copy_to_cmd(
         copied = copy_store(src, dest)
     finally:
         dest.close()
-    out.print(f"copied {copied['posts']} posts, {copied['snapshots']} metric snapshots and "
-              f"{copied['vectors']} vectors to {dest.safe_url}")
+    out.print(
+        f"copied {copied['posts']} posts, {copied['snapshots']} metric snapshots and "
+        f"{copied['vectors']} vectors to {dest.safe_url}"
+    )

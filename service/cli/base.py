@@ -6,9 +6,8 @@ import json
 import os
 import sys
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import click
 import typer
 from rich.console import Console
 from typer.core import TyperGroup
@@ -19,6 +18,10 @@ from models.errors import NotFound, NotReady, SoundingError
 from ..settings import Settings
 from ..workspace import Workspace
 
+if TYPE_CHECKING:
+    # typer runs its own copy of click; its groups take that copy's Context.
+    from typer._click.core import Context as ClickContext
+
 out = Console(soft_wrap=True)
 err = Console(stderr=True, soft_wrap=True)
 
@@ -26,7 +29,7 @@ err = Console(stderr=True, soft_wrap=True)
 class _Group(TyperGroup):
     """Turns the library's named errors into clean messages."""
 
-    def invoke(self, ctx: click.Context) -> Any:
+    def invoke(self, ctx: ClickContext) -> Any:
         try:
             return super().invoke(ctx)
         except SoundingError as exc:
@@ -51,9 +54,11 @@ def next_step() -> str | None:
         return None
     if not empty:
         return None
-    return (f"This data directory ({_workspace.settings.resolved_home}) holds no posts yet. "
-            "Start with `sounding import posts.csv` (your history), then `sounding train`; "
-            "or try `sounding demo` on invented data.")
+    return (
+        f"This data directory ({_workspace.settings.resolved_home}) holds no posts yet. "
+        "Start with `sounding import posts.csv` (your history), then `sounding train`; "
+        "or try `sounding demo` on invented data."
+    )
 
 
 app = typer.Typer(
@@ -85,8 +90,7 @@ Every command has --help."""
 PURPOSES: dict[str, list[str]] = {
     "Your history": ["account", "accounts", "import", "mapping", "reindex"],
     "Before you publish": ["precedents", "check", "hours", "compare"],
-    "What worked, and how good the forecasts are": ["segments", "train", "backtest",
-                                                     "track-record"],
+    "What worked, and how good the forecasts are": ["segments", "train", "backtest", "track-record"],
     "Keeping things": ["forget", "backup", "copy-to", "serve", "demo", "model"],
 }
 

@@ -18,8 +18,8 @@ from ..plan import forecast_plan
 from ..timeparse import localize, now_utc, parse_time, zone
 from ..track_record import give, staleness
 from ..workspace import Workspace
-from .render import Column, level_bar, print_table, typical_miss
 from .base import app, out, print_json, workspace
+from .render import Column, level_bar, print_table, typical_miss
 
 METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
 COVERAGE_HELP = f"Interval coverage, {MIN_COVERAGE} to {MAX_COVERAGE}."
@@ -29,11 +29,15 @@ COVERAGE_HELP = f"Interval coverage, {MIN_COVERAGE} to {MAX_COVERAGE}."
 def train_cmd(
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     skip_backtest: bool = typer.Option(
-        False, "--skip-backtest", help="Train without the backtest (forecasts then state no "
-        "backtested coverage)."),
+        False,
+        "--skip-backtest",
+        help="Train without the backtest (forecasts then state no backtested coverage).",
+    ),
     if_stale: bool = typer.Option(
-        False, "--if-stale", help="Train only when the model is stale (old, or its live "
-        "coverage is off), for a scheduled job."),
+        False,
+        "--if-stale",
+        help="Train only when the model is stale (old, or its live coverage is off), for a scheduled job.",
+    ),
 ) -> None:
     """Train a new forecast model version from the store."""
     if if_stale:  # track record hook (issue 11)
@@ -44,30 +48,50 @@ def train_cmd(
         for w in why["warnings"]:
             out.print(f"stale: {w}", highlight=False)
     m = forecasting.train(workspace(), metric, backtest=not skip_backtest)
-    out.print(f"trained {metric} model {m.version} on {m.report['n_train']} posts, "
-              f"calibrated on the next {m.report['n_calibration']}")
+    out.print(
+        f"trained {metric} model {m.version} on {m.report['n_train']} posts, "
+        f"calibrated on the next {m.report['n_calibration']}"
+    )
     if m.report.get("embedding", {}).get("quantize", "none") != "none":
-        out.print(f"embedding vectors: ONNX {m.report['embedding']['quantize']} "
-                  "(approximate; neighbours differ from the fp32 model's)")
+        out.print(
+            f"embedding vectors: ONNX {m.report['embedding']['quantize']} "
+            "(approximate; neighbours differ from the fp32 model's)"
+        )
     if "backtest" in m.report:
         print_backtest(m.report["backtest"], metric)
 
 
 def print_backtest(bt: dict[str, Any], metric: str) -> None:
-    cols = [Column(header="forecaster", free=True), Column(header="typical miss", right=True),
-            Column(header="MAE (log)", right=True), Column(header="Spearman", right=True),
-            Column(header="coverage", right=True), Column(header="weight", right=True)]
-    labels = {"account_median": "account trailing median", "precedents_median":
-              "precedents' median", "history_median": "history-wide median",
-              "timing_only": "timing only", "boosted": "boosted trees + timing",
-              "text_ridge": "text model (ridge)"}
+    cols = [
+        Column(header="forecaster", free=True),
+        Column(header="typical miss", right=True),
+        Column(header="MAE (log)", right=True),
+        Column(header="Spearman", right=True),
+        Column(header="coverage", right=True),
+        Column(header="weight", right=True),
+    ]
+    labels = {
+        "account_median": "account trailing median",
+        "precedents_median": "precedents' median",
+        "history_median": "history-wide median",
+        "timing_only": "timing only",
+        "boosted": "boosted trees + timing",
+        "text_ridge": "text model (ridge)",
+    }
     weights = bt.get("weights") or {}
     rows: list[list[str]] = []
 
     def row(key: str, name: str, s: dict[str, Any]) -> None:
-        rows.append([name, typical_miss(s["mae_log"]), f"{s['mae_log']:.3f}", f"{s['spearman']:.3f}",
-                     "-" if s["coverage"] is None else f"{s['coverage']:.1%}",
-                     f"{weights[key]:.2f}" if key in weights else "-"])
+        rows.append(
+            [
+                name,
+                typical_miss(s["mae_log"]),
+                f"{s['mae_log']:.3f}",
+                f"{s['spearman']:.3f}",
+                "-" if s["coverage"] is None else f"{s['coverage']:.1%}",
+                f"{weights[key]:.2f}" if key in weights else "-",
+            ]
+        )
 
     row("model", "sounding (the combination)", bt["model"])
     for k, s in bt["baselines"].items():
@@ -75,13 +99,20 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
     for k, s in (bt.get("candidates") or {}).items():
         if k not in bt["baselines"]:
             row(k, labels.get(k, k), s)
-    print_table(out, cols, rows, title=f"backtest of {metric}: {bt['n_folds']} time-ordered "
-                f"folds, {bt['n_test']} test posts, nominal coverage {bt['coverage_nominal']:.0%}")
-    out.print("typical miss: a typical forecast is off by this factor either way "
-              "(exp of the mean absolute error of log1p values, MAE (log)).", highlight=False)
+    print_table(
+        out,
+        cols,
+        rows,
+        title=f"backtest of {metric}: {bt['n_folds']} time-ordered "
+        f"folds, {bt['n_test']} test posts, nominal coverage {bt['coverage_nominal']:.0%}",
+    )
+    out.print(
+        "typical miss: a typical forecast is off by this factor either way "
+        "(exp of the mean absolute error of log1p values, MAE (log)).",
+        highlight=False,
+    )
     if weights.get("timing"):
-        out.print(f"the timing effect is added with weight {weights['timing']:.2f}",
-                  highlight=False)
+        out.print(f"the timing effect is added with weight {weights['timing']:.2f}", highlight=False)
     levels = bt.get("coverage_by_level", {})
     if levels:
         out.print("how often intervals held in the backtest, by stated coverage:")
@@ -107,11 +138,12 @@ def backtest_cmd(
 
 
 def print_forecast(f: Forecast, *, wide: bool = False) -> None:
-    bt = "not backtested" if f.backtested_coverage is None else \
-        f"{f.backtested_coverage:.0%} in backtests"
-    out.print(f"[bold]{f.metric}[/bold] for {f.account} at {f.local_time}: "
-              f"[bold]{f.low:,.0f} – {f.high:,.0f}[/bold] (median {f.median:,.0f}); "
-              f"{f.coverage:.0%} interval, held {bt}; model {f.model_version}")
+    bt = "not backtested" if f.backtested_coverage is None else f"{f.backtested_coverage:.0%} in backtests"
+    out.print(
+        f"[bold]{f.metric}[/bold] for {f.account} at {f.local_time}: "
+        f"[bold]{f.low:,.0f} – {f.high:,.0f}[/bold] (median {f.median:,.0f}); "
+        f"{f.coverage:.0%} interval, held {bt}; model {f.model_version}"
+    )
     for w in f.warnings:
         out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
     if f.note:  # issue 10
@@ -121,21 +153,41 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
     rows = []
     for p in f.precedents[:8]:
         v = p["metrics"].get(f.metric) if f.metric in p["metrics"] else None
-        rows.append([f"{p['similarity']:.2f}", f"{p['weight']:.2f}", p["account"],
-                     p["posted_at"][:10] + (" *" if p["still_gathering"] else ""),
-                     "-" if v is None else f"{v:,}", p["text"]])
-    print_table(out, [Column(header="similarity", right=True),
-                      Column(header="weight", right=True, optional=True),
-                      Column(header="account"), Column(header="posted"),
-                      Column(header=f.metric.replace("_", " "), right=True),
-                      Column(header="text", free=True)], rows, title="precedents", wide=wide)
+        rows.append(
+            [
+                f"{p['similarity']:.2f}",
+                f"{p['weight']:.2f}",
+                p["account"],
+                p["posted_at"][:10] + (" *" if p["still_gathering"] else ""),
+                "-" if v is None else f"{v:,}",
+                p["text"],
+            ]
+        )
+    print_table(
+        out,
+        [
+            Column(header="similarity", right=True),
+            Column(header="weight", right=True, optional=True),
+            Column(header="account"),
+            Column(header="posted"),
+            Column(header=f.metric.replace("_", " "), right=True),
+            Column(header="text", free=True),
+        ],
+        rows,
+        title="precedents",
+        wide=wide,
+    )
     if any(p["still_gathering"] for p in f.precedents[:8]):
-        out.print("* still gathering: its metrics are not final yet, so it is shown but not used",
-                  highlight=False)
+        out.print(
+            "* still gathering: its metrics are not final yet, so it is shown but not used", highlight=False
+        )
     if f.calibration:  # track record (issue 11): calibration used, live coverage so far
         live = f.live_coverage or {}
-        held = ("no forecast scored yet" if not live.get("scored") else
-                f"held {live['coverage']:.0%} of {live['scored']} scored forecasts")
+        held = (
+            "no forecast scored yet"
+            if not live.get("scored")
+            else f"held {live['coverage']:.0%} of {live['scored']} scored forecasts"
+        )
         out.print(f"calibration: {f.calibration['method']}; live coverage: {held}")
     out.print(f"[dim]{CAUTION}[/dim]")
 
@@ -152,37 +204,45 @@ def check_cmd(
     text: str | None = typer.Argument(None, help="The draft (or use --plan for a plan file)."),
     account: str | None = typer.Option(None, "--account", help="Account that would post it."),
     at: str | None = typer.Option(
-        None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."),
+        None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."
+    ),
     coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     plan: Path | None = typer.Option(
-        None, "--plan", help="Plan CSV: draft_id,account,text,planned_at[,has_media]."),
+        None, "--plan", help="Plan CSV: draft_id,account,text,planned_at[,has_media]."
+    ),
     dest: Path | None = typer.Option(None, "--out", help="Where to write the plan's forecasts (CSV)."),
     media: bool = typer.Option(False, "--media", help="An image or video goes with the text."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
-    no_record: bool = typer.Option(False, "--no-record", help="Keep this forecast out of the "
-                                   "track record."),
-    wide: bool = typer.Option(False, "--wide", help="Wrap post texts in full instead of cutting "
-                              "them to the terminal's width."),
+    no_record: bool = typer.Option(False, "--no-record", help="Keep this forecast out of the track record."),
+    wide: bool = typer.Option(
+        False, "--wide", help="Wrap post texts in full instead of cutting them to the terminal's width."
+    ),
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
     if plan is not None:
         if dest is None:
             raise InputError("--plan needs --out for the forecasts", field="--out")
-        counts = forecast_plan(ws, plan, dest, metric=metric, coverage=coverage,
-                               record=not no_record)
-        out.print(f"{counts.forecast} of {counts.rows} drafts forecast into {dest}"
-                  + (f"; {counts.failed} with a reason in warnings" if counts.failed else ""))
+        counts = forecast_plan(ws, plan, dest, metric=metric, coverage=coverage, record=not no_record)
+        out.print(
+            f"{counts.forecast} of {counts.rows} drafts forecast into {dest}"
+            + (f"; {counts.failed} with a reason in warnings" if counts.failed else "")
+        )
         return
     if not text:
         raise InputError("give the draft text, or --plan with a plan file", field="text")
     if not account:
         raise InputError("say which account would post it with --account", field="--account")
     # Adapted, staleness-checked and recorded in the track record (issue 11).
-    f = give(ws, [Draft(text=text, account=account, planned_at=planned(at, account),
-                        has_media=media)],
-             metric=metric, coverage=coverage, record=not no_record, source="check")[0]
+    f = give(
+        ws,
+        [Draft(text=text, account=account, planned_at=planned(at, account), has_media=media)],
+        metric=metric,
+        coverage=coverage,
+        record=not no_record,
+        source="check",
+    )[0]
     if as_json:
         print_json(f.to_dict())
     else:
@@ -193,8 +253,9 @@ def demo_forecast(ws: Workspace, draft: str) -> None:
     """The forecasting half of `sounding demo`."""
     out.rule("3. train and backtest a forecast of impressions")
     m = forecasting.train(ws, "impressions")
-    out.print(f"model {m.version}: {m.report['n_train']} posts to train, "
-              f"{m.report['n_calibration']} to calibrate")
+    out.print(
+        f"model {m.version}: {m.report['n_train']} posts to train, {m.report['n_calibration']} to calibrate"
+    )
     print_backtest(m.report["backtest"], "impressions")
     out.rule("4. forecast the sample draft for tomorrow noon")
     account = "loomhaven"

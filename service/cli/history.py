@@ -31,7 +31,6 @@ from ..precedents import Precedent
 from ..settings import Settings
 from ..timeparse import parse_time
 from .base import app, err, is_terminal, next_step, out, print_json, workspace
-from .render import Column, print_table
 from .forecast import demo_forecast
 from .mappings import (
     ACCOUNT,
@@ -43,6 +42,7 @@ from .mappings import (
     TIMEZONE,
     given_options,
 )
+from .render import Column, print_table
 
 # The demo history sits beside the source tree; an installed copy (the
 # container image) points at it with SOUNDING_DEMO_DIR.
@@ -72,9 +72,16 @@ def accounts_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.
     if not rows:
         out.print(next_step() or "No accounts yet: import some history first.", highlight=False)
         return
-    print_table(out, [Column(header="handle"), Column(header="name", free=True),
-                      Column(header="time zone"), Column(header="posts", right=True)],
-                [[a.handle, a.display_name or "", a.timezone, f"{a.posts:,}"] for a in rows])
+    print_table(
+        out,
+        [
+            Column(header="handle"),
+            Column(header="name", free=True),
+            Column(header="time zone"),
+            Column(header="posts", right=True),
+        ],
+        [[a.handle, a.display_name or "", a.timezone, f"{a.posts:,}"] for a in rows],
+    )
 
 
 def print_summary(s: ImportSummary, *, limit: int = 20) -> None:
@@ -104,15 +111,17 @@ def print_preview(p: ImportPreview, *, limit: int = 10) -> None:
     out.print(f"first {len(p.rows)} rows as read (~ marks an approximate count):", highlight=False)
     for r in p.rows:
         local = f"{r.local_time[:16].replace('T', ' ')}{r.local_time[19:]} {r.zone}"
-        counts = ", ".join(f"{m} {'~' if m in r.approximate else ''}{_n(r.metrics.get(m))}"
-                           for m in metrics)
+        counts = ", ".join(f"{m} {'~' if m in r.approximate else ''}{_n(r.metrics.get(m))}" for m in metrics)
         text = r.text if len(r.text) <= 40 else r.text[:37] + "..."
-        out.print(f"  line {r.line}: {r.account} {r.post_id}, {r.posted_at[:16].replace('T', ' ')}"
-                  f" UTC = {local}; {counts}; {text!r}", highlight=False, markup=False)
+        out.print(
+            f"  line {r.line}: {r.account} {r.post_id}, {r.posted_at[:16].replace('T', ' ')}"
+            f" UTC = {local}; {counts}; {text!r}",
+            highlight=False,
+            markup=False,
+        )
     s = p.summary
     rough = f" ({p.approximate} with approximate counts)" if p.approximate else ""
-    out.print(f"would import {p.would_import} rows{rough}; {s.rejected} would be rejected",
-              highlight=False)
+    out.print(f"would import {p.would_import} rows{rough}; {s.rejected} would be rejected", highlight=False)
     for prob in s.problems[:limit]:
         err.print(f"rejected {prob}", highlight=False, markup=False)
     if len(s.problems) > limit:
@@ -121,8 +130,11 @@ def print_preview(p: ImportPreview, *, limit: int = 10) -> None:
         err.print(s.stopped, highlight=False, markup=False)
     for fix in p.fixes():
         col = f"column {fix['column']}, " if fix["column"] else ""
-        err.print(f"to try: {fix['hint']} ({col}{fix['rows']} rows, first on line "
-                  f"{fix['first_line']})", highlight=False, markup=False)
+        err.print(
+            f"to try: {fix['hint']} ({col}{fix['rows']} rows, first on line {fix['first_line']})",
+            highlight=False,
+            markup=False,
+        )
 
 
 # Exit status of an import that did not store every row: a scheduled script notices.
@@ -140,28 +152,43 @@ def import_cmd(
     month_first: bool = MONTH_FIRST,
     decimal_comma: bool = DECIMAL_COMMA,
     saved: str | None = typer.Option(
-        None, "--mapping", help="Read the file with a saved mapping (sounding mapping save); "
-        "options given here override it."),
+        None,
+        "--mapping",
+        help="Read the file with a saved mapping (sounding mapping save); options given here override it.",
+    ),
     dry_run: bool = typer.Option(
-        False, "--dry-run", help="Store nothing: show how columns map, the first rows as read "
-        "and what would be rejected."),
+        False,
+        "--dry-run",
+        help="Store nothing: show how columns map, the first rows as read and what would be rejected.",
+    ),
     allow_rejects: bool = typer.Option(
-        False, "--allow-rejects", help=f"Exit 0 even if rows were rejected (else {EXIT_REJECTS})."),
+        False, "--allow-rejects", help=f"Exit 0 even if rows were rejected (else {EXIT_REJECTS})."
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
     cluster: str | None = typer.Option(
-        None, "--cluster", help="Embed new texts on a Ray cluster at ray://HOST:PORT "
-        "(needs sounding[cluster] here and sounding on the cluster's nodes)."),
+        None,
+        "--cluster",
+        help="Embed new texts on a Ray cluster at ray://HOST:PORT "
+        "(needs sounding[cluster] here and sounding on the cluster's nodes).",
+    ),
     cluster_workers: int = typer.Option(
-        2, "--cluster-workers", min=1, help="Model-holding Ray workers, one CPU each."),
+        2, "--cluster-workers", min=1, help="Model-holding Ray workers, one CPU each."
+    ),
 ) -> None:
     """Import past posts and their metrics from a CSV file.
 
     Exits 3 when rows were rejected (unless --allow-rejects) or part of the file
     could not be read; a dry run exits the same way for what it would do."""
     ws = workspace()
-    given = given_options(mapping=mapping, account=account, timezone=timezone,
-                          time_format=time_format, day_first=day_first,
-                          month_first=month_first, decimal_comma=decimal_comma)
+    given = given_options(
+        mapping=mapping,
+        account=account,
+        timezone=timezone,
+        time_format=time_format,
+        day_first=day_first,
+        month_first=month_first,
+        decimal_comma=decimal_comma,
+    )
     options = combine(load_mapping(ws.settings.resolved_home, saved) if saved else None, given)
     kw = options.kwargs()
     on_cluster = cluster_import_options(ws, cluster, workers=cluster_workers)
@@ -197,9 +224,12 @@ def reindex_cmd() -> None:
     """Rebuild the search index from the vectors in the store."""
     index = workspace().reindex()
     cfg = index.config()
-    how = (f"HNSW graph, efSearch {cfg['ef_search']}, recall@10 {cfg['recall_at_10']:.3f} "
-           f"against exact search on {cfg['recall_sample']} of its own vectors"
-           if cfg["approximate"] else "exact search")
+    how = (
+        f"HNSW graph, efSearch {cfg['ef_search']}, recall@10 {cfg['recall_at_10']:.3f} "
+        f"against exact search on {cfg['recall_sample']} of its own vectors"
+        if cfg["approximate"]
+        else "exact search"
+    )
     out.print(f"index rebuilt: {index.ntotal} posts ({how})")
 
 
@@ -207,17 +237,32 @@ def _time_opt(value: str | None, name: str) -> datetime | None:
     return parse_time(value, tz="UTC", where=name) if value else None
 
 
-def print_precedents(found: list[Precedent], *, title: str = "precedents",
-                     wide: bool = False) -> None:
-    rows = [[f"{p.similarity:.2f}", p.account,
-             p.posted_at.strftime("%Y-%m-%d") + ("" if p.mature else " *"),
-             _n(p.metrics.get("impressions")), _n(p.metrics.get("engagements")), p.text]
-            for p in found]
-    print_table(out, [Column(header="similarity", right=True), Column(header="account"),
-                      Column(header="posted"), Column(header="impressions", right=True),
-                      Column(header="engagements", right=True, optional=True),
-                      Column(header="text", free=True)],
-                rows, title=title, wide=wide)
+def print_precedents(found: list[Precedent], *, title: str = "precedents", wide: bool = False) -> None:
+    rows = [
+        [
+            f"{p.similarity:.2f}",
+            p.account,
+            p.posted_at.strftime("%Y-%m-%d") + ("" if p.mature else " *"),
+            _n(p.metrics.get("impressions")),
+            _n(p.metrics.get("engagements")),
+            p.text,
+        ]
+        for p in found
+    ]
+    print_table(
+        out,
+        [
+            Column(header="similarity", right=True),
+            Column(header="account"),
+            Column(header="posted"),
+            Column(header="impressions", right=True),
+            Column(header="engagements", right=True, optional=True),
+            Column(header="text", free=True),
+        ],
+        rows,
+        title=title,
+        wide=wide,
+    )
     if any(not p.mature for p in found):
         out.print("* still gathering: its metrics are not final yet", highlight=False)
 
@@ -234,12 +279,16 @@ def precedents_cmd(
     since: str | None = typer.Option(None, "--since", help="Only posts from this time (ISO 8601)."),
     until: str | None = typer.Option(None, "--until", help="Only posts up to this time."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
-    wide: bool = typer.Option(False, "--wide", help="Wrap post texts in full instead of cutting "
-                              "them to the terminal's width."),
+    wide: bool = typer.Option(
+        False, "--wide", help="Wrap post texts in full instead of cutting them to the terminal's width."
+    ),
 ) -> None:
     """The past posts most similar to a draft, with their metrics."""
     found = workspace().precedents(
-        text, k=k, account=account, since=_time_opt(since, "--since"),
+        text,
+        k=k,
+        account=account,
+        since=_time_opt(since, "--since"),
         until=_time_opt(until, "--until"),
     )
     if as_json:
@@ -263,10 +312,13 @@ def check_bind(host: str, settings: Settings) -> None:
             hint="set SOUNDING_TOKEN, or use --host 127.0.0.1",
         )
     # Anyone on the network may try tokens: a short one can be guessed.
-    if not loopback and len(settings.token.get_secret_value()) < MIN_TOKEN_CHARS:
+    if (
+        not loopback
+        and settings.token is not None
+        and len(settings.token.get_secret_value()) < MIN_TOKEN_CHARS
+    ):
         raise InputError(
-            f"refusing to listen on {host}: SOUNDING_TOKEN has fewer than {MIN_TOKEN_CHARS} "
-            "characters",
+            f"refusing to listen on {host}: SOUNDING_TOKEN has fewer than {MIN_TOKEN_CHARS} characters",
             hint="use a long random token, e.g. `python -c 'import secrets; "
             "print(secrets.token_urlsafe(32))'`",
         )
@@ -283,9 +335,14 @@ def serve_cmd(
     ws = workspace()
     check_bind(host, ws.settings)
     out.print(f"serving {ws.settings.resolved_home} on http://{host}:{port}/  (API docs: /docs)")
-    uvicorn.run(create_app(workspace=ws, bound_host=host), host=host, port=port,
-                log_level="info", http=guard.protocol(ws.settings),
-                timeout_keep_alive=ws.settings.keep_alive_seconds)
+    uvicorn.run(
+        create_app(workspace=ws, bound_host=host),
+        host=host,
+        port=port,
+        log_level="info",
+        http=guard.protocol(ws.settings),
+        timeout_keep_alive=ws.settings.keep_alive_seconds,
+    )
 
 
 @app.command("demo")
@@ -321,9 +378,10 @@ def _demo_accounts() -> list[tuple[str, str, str]]:
         data = json.loads(effects.read_text())
         accs = data.get("accounts")
         if isinstance(accs, dict):
-            return [(h, v.get("display_name", h), v.get("timezone", v.get("zone", "UTC")))
-                    for h, v in accs.items()]
+            return [
+                (h, v.get("display_name", h), v.get("timezone", v.get("zone", "UTC")))
+                for h, v in accs.items()
+            ]
         if isinstance(accs, list):
-            return [(a["handle"], a.get("display_name", a["handle"]), a.get("timezone", "UTC"))
-                    for a in accs]
+            return [(a["handle"], a.get("display_name", a["handle"]), a.get("timezone", "UTC")) for a in accs]
     return []

@@ -22,37 +22,56 @@ from ..mappings import (
     save_mapping,
 )
 from ..settings import Settings
+from ..timeparse import DateOrder
 from .base import app, out, print_json
 
 ACCOUNT = typer.Option(None, "--account", help="Account for rows without an account column.")
 MAP = typer.Option([], "--map", help="Read our column from theirs: ours=theirs (repeatable).")
 TIMEZONE = typer.Option(
-    None, "--timezone", help="IANA zone of times without an offset (default: the account's).")
+    None, "--timezone", help="IANA zone of times without an offset (default: the account's)."
+)
 TIME_FORMAT = typer.Option(
-    None, "--time-format",
+    None,
+    "--time-format",
     help="How times are written: a strptime pattern such as '%d/%m/%Y %H:%M', or epoch / "
-    "epoch_ms for Unix times. Default: ISO 8601 and common layouts.")
+    "epoch_ms for Unix times. Default: ISO 8601 and common layouts.",
+)
 DAY_FIRST = typer.Option(False, "--day-first", help="Numeric dates put the day first (03/11 is 3 November).")
-MONTH_FIRST = typer.Option(False, "--month-first", help="Numeric dates put the month first (03/11 is 11 March).")
+MONTH_FIRST = typer.Option(
+    False, "--month-first", help="Numeric dates put the month first (03/11 is 11 March)."
+)
 DECIMAL_COMMA = typer.Option(
-    False, "--decimal-comma", help="Numbers use a decimal comma (1.234 is a thousand and more).")
+    False, "--decimal-comma", help="Numbers use a decimal comma (1.234 is a thousand and more)."
+)
 
-mapping_app = typer.Typer(help="Saved import mappings: how the team's exports are read.",
-                          no_args_is_help=True)
+mapping_app = typer.Typer(
+    help="Saved import mappings: how the team's exports are read.", no_args_is_help=True
+)
 app.add_typer(mapping_app, name="mapping")
 
 
 def given_options(
-    *, mapping: list[str], account: str | None, timezone: str | None, time_format: str | None,
-    day_first: bool, month_first: bool, decimal_comma: bool,
+    *,
+    mapping: list[str],
+    account: str | None,
+    timezone: str | None,
+    time_format: str | None,
+    day_first: bool,
+    month_first: bool,
+    decimal_comma: bool,
 ) -> ImportOptions:
     """The options given on the command line, checked."""
     if day_first and month_first:
         raise InputError("give --day-first or --month-first, not both")
-    order = "day-first" if day_first else "month-first" if month_first else None
-    return ImportOptions(mapping=parse_mapping(mapping), account=account, timezone=timezone,
-                         time_format=time_format, date_order=order,
-                         decimal_comma=decimal_comma).check()
+    order: DateOrder | None = "day-first" if day_first else "month-first" if month_first else None
+    return ImportOptions(
+        mapping=parse_mapping(mapping),
+        account=account,
+        timezone=timezone,
+        time_format=time_format,
+        date_order=order,
+        decimal_comma=decimal_comma,
+    ).check()
 
 
 @mapping_app.command("save")
@@ -68,9 +87,15 @@ def save_cmd(
     replace: bool = typer.Option(False, "--replace", help="Overwrite a mapping of that name."),
 ) -> None:
     """Save how one kind of export is read, for `sounding import FILE --mapping NAME`."""
-    options = given_options(mapping=mapping, account=account, timezone=timezone,
-                            time_format=time_format, day_first=day_first,
-                            month_first=month_first, decimal_comma=decimal_comma)
+    options = given_options(
+        mapping=mapping,
+        account=account,
+        timezone=timezone,
+        time_format=time_format,
+        day_first=day_first,
+        month_first=month_first,
+        decimal_comma=decimal_comma,
+    )
     path = save_mapping(Settings().resolved_home, name, options, replace=replace)
     out.print(f"saved mapping {name} ({path})", highlight=False)
 
@@ -101,10 +126,21 @@ def show_cmd(
     home = Settings().resolved_home
     options = load_mapping(home, name)
     if as_json:
-        print_json({"name": name, "columns": options.mapping, "account": options.account,
-                    "timezone": options.timezone, "time_format": options.time_format,
-                    "date_order": options.date_order, "decimal_comma": options.decimal_comma})
+        print_json(
+            {
+                "name": name,
+                "columns": options.mapping,
+                "account": options.account,
+                "timezone": options.timezone,
+                "time_format": options.time_format,
+                "date_order": options.date_order,
+                "decimal_comma": options.decimal_comma,
+            }
+        )
         return
     out.print(mapping_text(home, name), end="", highlight=False, markup=False)
-    out.print("\nthe same as: sounding import FILE "
-              + " ".join(shlex.quote(a) for a in command_line(options)), highlight=False, markup=False)
+    out.print(
+        "\nthe same as: sounding import FILE " + " ".join(shlex.quote(a) for a in command_line(options)),
+        highlight=False,
+        markup=False,
+    )

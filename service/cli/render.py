@@ -66,24 +66,22 @@ def fit_table(
     """A rich table whose every row is one line at ``width`` cells (unless
     ``wide``, where free text wraps)."""
     columns, rows = _drop_optional(list(columns), [list(r) for r in rows], width)
-    natural = [
-        max([cell_len(c.header), *(cell_len(str(r[i])) for r in rows)])
-        for i, c in enumerate(columns)
-    ]
+    natural = [max([cell_len(c.header), *(cell_len(str(r[i])) for r in rows)]) for i, c in enumerate(columns)]
     fixed = sum(n + _PAD for n, c in zip(natural, columns, strict=True) if not c.free)
     free_cols = [i for i, c in enumerate(columns) if c.free]
     room = max(width - fixed - _PAD * len(free_cols) - 1, len(free_cols))
     share = room // len(free_cols) if free_cols else 0
-    table = Table(title=title, title_justify="left", box=box.SIMPLE_HEAD, expand=False,
-                  pad_edge=True)
+    table = Table(title=title, title_justify="left", box=box.SIMPLE_HEAD, expand=False, pad_edge=True)
     for i, c in enumerate(columns):
         if c.free:
             w = min(natural[i], share) if not wide else share
-            table.add_column(c.header, width=max(w, 1), no_wrap=not wide,
-                             overflow="fold" if wide else "ellipsis")
+            table.add_column(
+                c.header, width=max(w, 1), no_wrap=not wide, overflow="fold" if wide else "ellipsis"
+            )
         else:
-            table.add_column(c.header, no_wrap=True, min_width=natural[i],
-                             justify="right" if c.right else "left")
+            table.add_column(
+                c.header, no_wrap=True, min_width=natural[i], justify="right" if c.right else "left"
+            )
     for r in rows:
         cells = []
         for i, c in enumerate(columns):
@@ -94,20 +92,24 @@ def fit_table(
 
 
 def _room(columns: Sequence[Column], rows: Sequence[Sequence[str]], width: int) -> int:
-    fixed = sum(max([cell_len(c.header), *(cell_len(str(r[i])) for r in rows)]) + _PAD
-                for i, c in enumerate(columns) if not c.free)
+    fixed = sum(
+        max([cell_len(c.header), *(cell_len(str(r[i])) for r in rows)]) + _PAD
+        for i, c in enumerate(columns)
+        if not c.free
+    )
     return width - fixed - _PAD * sum(c.free for c in columns) - 1
 
 
-def _drop_optional(columns: list[Column], rows: list[list[str]], width: int
-                   ) -> tuple[list[Column], list[list[str]]]:
+def _drop_optional(
+    columns: list[Column], rows: list[list[str]], width: int
+) -> tuple[list[Column], list[list[str]]]:
     while any(c.free for c in columns) and _room(columns, rows, width) < MIN_FREE:
         optional = [i for i, c in enumerate(columns) if c.optional]
         if not optional:
             break
         i = optional[-1]
-        columns = columns[:i] + columns[i + 1:]
-        rows = [r[:i] + r[i + 1:] for r in rows]
+        columns = columns[:i] + columns[i + 1 :]
+        rows = [r[:i] + r[i + 1 :] for r in rows]
     return columns, rows
 
 
@@ -122,8 +124,9 @@ def print_table(
     console.print(fit_table(columns, rows, width=console.width, title=title, wide=wide))
 
 
-def interval_bar(low: float, median: float, high: float, *, lo: float, hi: float,
-                 cells: int = 24, log: bool = True) -> str:
+def interval_bar(
+    low: float, median: float, high: float, *, lo: float, hi: float, cells: int = 24, log: bool = True
+) -> str:
     """The interval low..high drawn as ``─`` with the median as ``●`` on an
     axis from ``lo`` to ``hi`` (log scale by default: reach is multiplicative)."""
 

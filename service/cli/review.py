@@ -11,8 +11,8 @@ from ..forecasting import CAUTION
 from ..hours import HoursReport, best_hours, parse_day
 from ..wordings import VariantsReport, compare_variants
 from .base import app, out, print_json, workspace
-from .render import Column, interval_bar, print_table
 from .forecast import COVERAGE_HELP, METRIC_HELP, planned
+from .render import Column, interval_bar, print_table
 
 
 def _value(v: float, metric: str) -> str:
@@ -22,31 +22,61 @@ def _value(v: float, metric: str) -> str:
 def print_hours(r: HoursReport) -> None:
     week = r.mode == "week"
     span = r.first_day.isoformat() + (f" to {r.last_day.isoformat()}" if week else "")
-    bt = ("not backtested" if r.backtested_coverage is None
-          else f"held {r.backtested_coverage:.0%} in backtests")
-    out.print(f"[bold]{r.metric}[/bold] of this draft for {r.account}, hour by hour on {span} "
-              f"({r.timezone}, {len(r.slots)} slots); {r.coverage:.0%} intervals, {bt}")
+    bt = (
+        "not backtested"
+        if r.backtested_coverage is None
+        else f"held {r.backtested_coverage:.0%} in backtests"
+    )
+    out.print(
+        f"[bold]{r.metric}[/bold] of this draft for {r.account}, hour by hour on {span} "
+        f"({r.timezone}, {len(r.slots)} slots); {r.coverage:.0%} intervals, {bt}"
+    )
     out.print(r.summary, highlight=False)
     if r.best_stays_best is not None:  # issue 10
-        out.print(f"The best hour stays best in {r.best_stays_best:.0%} of refits of the timing "
-                  "effect on resampled history.", highlight=False)
+        out.print(
+            f"The best hour stays best in {r.best_stays_best:.0%} of refits of the timing "
+            "effect on resampled history.",
+            highlight=False,
+        )
     lo = min(s.low for s in r.slots)
     hi = max(s.high for s in r.slots)
-    cols = [Column(header="rank", right=True), Column(header="local time"),
-            Column(header="low", right=True), Column(header="median", right=True),
-            Column(header="high", right=True), Column(header="tied with the best")]
-    print_table(out, cols, [[str(s.rank), s.label(with_day=week), _value(s.low, r.metric),
-                             _value(s.median, r.metric), _value(s.high, r.metric),
-                             "yes" if s.tied_with_best else "no"] for s in r.best],
-                title="best hours" if r.told_apart else "highest medians (not told apart)")
+    cols = [
+        Column(header="rank", right=True),
+        Column(header="local time"),
+        Column(header="low", right=True),
+        Column(header="median", right=True),
+        Column(header="high", right=True),
+        Column(header="tied with the best"),
+    ]
+    print_table(
+        out,
+        cols,
+        [
+            [
+                str(s.rank),
+                s.label(with_day=week),
+                _value(s.low, r.metric),
+                _value(s.median, r.metric),
+                _value(s.high, r.metric),
+                "yes" if s.tied_with_best else "no",
+            ]
+            for s in r.best
+        ],
+        title="best hours" if r.told_apart else "highest medians (not told apart)",
+    )
     if not week:
         # One line per hour: the interval as a bar, the median as a dot (log scale).
-        out.print(f"every hour ({_value(lo, r.metric)} to {_value(hi, r.metric)}, log scale; "
-                  "● median, ├─┤ interval):")
+        out.print(
+            f"every hour ({_value(lo, r.metric)} to {_value(hi, r.metric)}, log scale; "
+            "● median, ├─┤ interval):"
+        )
         for s in r.slots:
             mark = "=" if s.tied_with_best else " "
-            out.print(f"  {s.label():<20} {interval_bar(s.low, s.median, s.high, lo=lo, hi=hi)}"
-                      f" {_value(s.median, r.metric):>8} {mark}", highlight=False)
+            out.print(
+                f"  {s.label():<20} {interval_bar(s.low, s.median, s.high, lo=lo, hi=hi)}"
+                f" {_value(s.median, r.metric):>8} {mark}",
+                highlight=False,
+            )
         out.print("  = tied with the best", highlight=False)
     for w in r.warnings:
         out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
@@ -58,7 +88,8 @@ def hours_cmd(
     text: str = typer.Argument(..., help="The draft."),
     account: str = typer.Option(..., "--account", help="Account that would post it."),
     day: str | None = typer.Option(
-        None, "--day", help="Local day in the account's zone, YYYY-MM-DD (default: tomorrow)."),
+        None, "--day", help="Local day in the account's zone, YYYY-MM-DD (default: tomorrow)."
+    ),
     week: bool = typer.Option(False, "--week", help="Seven days from --day, hour by hour."),
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
@@ -67,9 +98,17 @@ def hours_cmd(
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
     """Forecast a draft at every hour of a day (or a week) in the account's zone."""
-    r = best_hours(workspace().forecaster, text, account=account,
-                   day=parse_day(day, where="--day") if day else None, week=week,
-                   metric=metric, coverage=coverage, top=top, has_media=media)
+    r = best_hours(
+        workspace().forecaster,
+        text,
+        account=account,
+        day=parse_day(day, where="--day") if day else None,
+        week=week,
+        metric=metric,
+        coverage=coverage,
+        top=top,
+        has_media=media,
+    )
     if as_json:
         print_json(r.to_dict())
     else:
@@ -77,22 +116,46 @@ def hours_cmd(
 
 
 def print_variants(r: VariantsReport, *, wide: bool = False) -> None:
-    bt = ("not backtested" if r.backtested_coverage is None
-          else f"held {r.backtested_coverage:.0%} in backtests")
-    out.print(f"[bold]{r.metric}[/bold] of {len(r.variants)} variants for {r.account} at "
-              f"{r.local_time}; {r.coverage:.0%} intervals, {bt}")
+    bt = (
+        "not backtested"
+        if r.backtested_coverage is None
+        else f"held {r.backtested_coverage:.0%} in backtests"
+    )
+    out.print(
+        f"[bold]{r.metric}[/bold] of {len(r.variants)} variants for {r.account} at "
+        f"{r.local_time}; {r.coverage:.0%} intervals, {bt}"
+    )
     out.print(r.summary, highlight=False)
     rows = []
     for v in r.variants:
         f = v.forecast
-        rows.append([str(v.rank), f"#{v.index}", _value(f.low, r.metric),
-                     _value(f.median, r.metric), _value(f.high, r.metric),
-                     "yes" if v.tied_with_best else "no", str(len(v.only_here)), v.text])
-    print_table(out, [Column(header="rank", right=True), Column(header="wording"),
-                      Column(header="low", right=True), Column(header="median", right=True),
-                      Column(header="high", right=True), Column(header="tied with the best"),
-                      Column(header="own precedents", right=True),
-                      Column(header="text", free=True)], rows, wide=wide)
+        rows.append(
+            [
+                str(v.rank),
+                f"#{v.index}",
+                _value(f.low, r.metric),
+                _value(f.median, r.metric),
+                _value(f.high, r.metric),
+                "yes" if v.tied_with_best else "no",
+                str(len(v.only_here)),
+                v.text,
+            ]
+        )
+    print_table(
+        out,
+        [
+            Column(header="rank", right=True),
+            Column(header="wording"),
+            Column(header="low", right=True),
+            Column(header="median", right=True),
+            Column(header="high", right=True),
+            Column(header="tied with the best"),
+            Column(header="own precedents", right=True),
+            Column(header="text", free=True),
+        ],
+        rows,
+        wide=wide,
+    )
     out.print("own precedents: similar past posts that only this wording has", highlight=False)
     for v in r.variants:
         for w in v.forecast.warnings:
@@ -105,19 +168,28 @@ def compare_cmd(
     texts: list[str] = typer.Argument(..., help="Two or more phrasings of the draft."),
     account: str = typer.Option(..., "--account", help="Account that would post them."),
     at: str | None = typer.Option(
-        None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."),
+        None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."
+    ),
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
     media: bool = typer.Option(False, "--media", help="An image or video goes with each phrasing."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
-    wide: bool = typer.Option(False, "--wide", help="Wrap the wordings in full instead of "
-                              "cutting them to the terminal's width."),
+    wide: bool = typer.Option(
+        False, "--wide", help="Wrap the wordings in full instead of cutting them to the terminal's width."
+    ),
 ) -> None:
     """Forecast several phrasings of one draft side by side."""
     if len(texts) < 2:
         raise InputError("give at least two phrasings to compare", field="texts")
-    r = compare_variants(workspace().forecaster, texts, account=account, planned_at=planned(at, account),
-                         metric=metric, coverage=coverage, has_media=media)
+    r = compare_variants(
+        workspace().forecaster,
+        texts,
+        account=account,
+        planned_at=planned(at, account),
+        metric=metric,
+        coverage=coverage,
+        has_media=media,
+    )
     if as_json:
         print_json(r.to_dict())
     else:

@@ -4,6 +4,7 @@ and accounts, as a table with one plain reading per segment."""
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import typer
 from rich import box
@@ -30,8 +31,8 @@ from ..segmenting import (
     render,
     segment,
 )
-from .render import Column, cut, interval_bar, print_table
 from .base import app, err, out, print_json, workspace
+from .render import Column, cut, interval_bar, print_table
 
 # Long (multi-phrase) topic names are shortened in tables only; the reading
 # lines and the JSON keep them whole.
@@ -46,52 +47,79 @@ def _short(text: str, width: int) -> str:
 def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
     rep = split.report
     pct = f"{100 * rep.confidence:g}%"
-    cols = [Column(header="segment", free=True), Column(header="posts", right=True),
-            Column(header="median", right=True), Column(header="central half", right=True),
-            Column(header=f"{pct} CI", right=True), Column(header="r", right=True),
-            Column(header="Holm p", right=True)]
-    rows = [[seg.name + (" (few posts)" if seg.too_small else ""), f"{seg.n:,}",
-             fmt_value(seg.median, metric),
-             f"{fmt_value(seg.q1, metric)}–{fmt_value(seg.q3, metric)}",
-             f"{fmt_value(seg.ci_low, metric)}–{fmt_value(seg.ci_high, metric)}",
-             "-" if seg.rank_biserial != seg.rank_biserial else f"{seg.rank_biserial:+.2f}",
-             fmt_p(seg.p_holm)] for seg in rep.segments]
+    cols = [
+        Column(header="segment", free=True),
+        Column(header="posts", right=True),
+        Column(header="median", right=True),
+        Column(header="central half", right=True),
+        Column(header=f"{pct} CI", right=True),
+        Column(header="r", right=True),
+        Column(header="Holm p", right=True),
+    ]
+    rows = [
+        [
+            seg.name + (" (few posts)" if seg.too_small else ""),
+            f"{seg.n:,}",
+            fmt_value(seg.median, metric),
+            f"{fmt_value(seg.q1, metric)}–{fmt_value(seg.q3, metric)}",
+            f"{fmt_value(seg.ci_low, metric)}–{fmt_value(seg.ci_high, metric)}",
+            "-" if seg.rank_biserial != seg.rank_biserial else f"{seg.rank_biserial:+.2f}",
+            fmt_p(seg.p_holm),
+        ]
+        for seg in rep.segments
+    ]
     print_table(out, cols, rows, title=f"{metric} by {split.title}", wide=wide)
     # Each segment's median (●) and its confidence interval (├─┤) on one log axis.
-    shown = [seg for seg in rep.segments if seg.median is not None and seg.ci_low is not None
-             and seg.ci_high is not None]
+    shown = [
+        seg
+        for seg in rep.segments
+        if seg.median is not None and seg.ci_low is not None and seg.ci_high is not None
+    ]
     if shown:
-        lo = min(float(seg.ci_low) for seg in shown)  # type: ignore[arg-type]
-        hi = max(float(seg.ci_high) for seg in shown)  # type: ignore[arg-type]
+        lo = min(float(seg.ci_low) for seg in shown)
+        hi = max(float(seg.ci_high) for seg in shown)
         room = max(out.width - 34, 10)
         for seg in shown:
-            bar = interval_bar(float(seg.ci_low), float(seg.median),  # type: ignore[arg-type]
-                               float(seg.ci_high), lo=lo, hi=hi, cells=min(room, 40))
-            out.print(f"  {cut(seg.name, 20):<20} {bar} {fmt_value(seg.median, metric):>8}",
-                      highlight=False, markup=False)
+            bar = interval_bar(
+                float(seg.ci_low),
+                float(seg.median),
+                float(seg.ci_high),
+                lo=lo,
+                hi=hi,
+                cells=min(room, 40),
+            )
+            out.print(
+                f"  {cut(seg.name, 20):<20} {bar} {fmt_value(seg.median, metric):>8}",
+                highlight=False,
+                markup=False,
+            )
     for seg in rep.segments:
         line = Text(f"  {seg.name}: ", style="bold")
         line.append(split.summaries[seg.name], style="dim" if seg.too_small else "")
         out.print(line)
     if rep.kruskal_p is not None and rep.kruskal_h is not None:
-        out.print(f"  across all segments (Kruskal–Wallis): H = {rep.kruskal_h:,.1f}, "
-                  f"p {'' if fmt_p(rep.kruskal_p).startswith('<') else '= '}"
-                  f"{fmt_p(rep.kruskal_p)}", highlight=False)
+        out.print(
+            f"  across all segments (Kruskal–Wallis): H = {rep.kruskal_h:,.1f}, "
+            f"p {'' if fmt_p(rep.kruskal_p).startswith('<') else '= '}"
+            f"{fmt_p(rep.kruskal_p)}",
+            highlight=False,
+        )
     elif rep.overlapping:
-        out.print("  no test across all segments: in top-k mode they share posts",
-                  highlight=False)
+        out.print("  no test across all segments: in top-k mode they share posts", highlight=False)
     if split.by == TOPIC and any(split.examples.values()):
-        out.print(f"\n  what each phrase caught (most similar first; {metric} in brackets):",
-                  highlight=False)
+        out.print(f"\n  what each phrase caught (most similar first; {metric} in brackets):", highlight=False)
         for seg in rep.segments:
-            shown = split.examples.get(seg.name, [])
-            if not shown:
+            caught = split.examples.get(seg.name, [])
+            if not caught:
                 continue
             head = "closest posts left out" if seg.name == "other" else _short(seg.name, 60)
             out.print(Text(f"  {head}", style="bold"))
-            for e in shown:
-                out.print(f"    {e.similarity:.2f}  [{fmt_value(e.value, metric)}]  "
-                          f"{_short(e.text, 90)}", highlight=False, markup=False)
+            for e in caught:
+                out.print(
+                    f"    {e.similarity:.2f}  [{fmt_value(e.value, metric)}]  {_short(e.text, 90)}",
+                    highlight=False,
+                    markup=False,
+                )
     out.print()
 
 
@@ -100,8 +128,12 @@ def print_two_way(result: SegmentResult) -> None:
     if tw is None or result.two_way_axes is None:
         return
     rows_by, cols_by = result.two_way_axes
-    t = Table(title=f"median {result.metric} (posts) by {rows_by} x {cols_by}; dim cells "
-              f"have fewer than {tw.min_n} posts", title_justify="left", box=box.SIMPLE_HEAD)
+    t = Table(
+        title=f"median {result.metric} (posts) by {rows_by} x {cols_by}; dim cells "
+        f"have fewer than {tw.min_n} posts",
+        title_justify="left",
+        box=box.SIMPLE_HEAD,
+    )
     t.add_column(rows_by, ratio=1, overflow="fold")
     for col in tw.cols:
         t.add_column(col, justify="right")
@@ -129,51 +161,73 @@ def _plot_paths(plot: Path, result: SegmentResult) -> list[tuple[Path, str]]:
 @app.command("segments")
 def segments_cmd(
     topic: list[str] | None = typer.Option(
-        None, "--topic", help="A topic phrase such as 'flowers in bloom' (repeat for more). "
-        "'a | b' is one topic with two phrases."),
+        None,
+        "--topic",
+        help="A topic phrase such as 'flowers in bloom' (repeat for more). "
+        "'a | b' is one topic with two phrases.",
+    ),
     by: str | None = typer.Option(None, "--by", help=f"Split by {', '.join(BY_CHOICES)}."),
-    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric",
-                               help="impressions, engagements, likes, link_clicks, "
-                               "engagement_rate, ..."),
-    mode: str = typer.Option("nearest", "--mode",
-                             help="nearest: each post joins its closest topic (else other); "
-                             "top-k: each topic takes its k closest posts."),
+    metric: str = typer.Option(
+        DEFAULT_METRIC.value,
+        "--metric",
+        help="impressions, engagements, likes, link_clicks, engagement_rate, ...",
+    ),
+    mode: str = typer.Option(
+        "nearest",
+        "--mode",
+        help="nearest: each post joins its closest topic (else other); "
+        "top-k: each topic takes its k closest posts.",
+    ),
     k: int = typer.Option(DEFAULT_K, "-k", "--count", help="Posts per topic in top-k mode."),
-    threshold: float = typer.Option(DEFAULT_THRESHOLD, "--threshold",
-                                    help="Cosine similarity a post needs to join a topic."),
+    threshold: float = typer.Option(
+        DEFAULT_THRESHOLD, "--threshold", help="Cosine similarity a post needs to join a topic."
+    ),
     hour_edges: str | None = typer.Option(
-        None, "--hour-edges", help="Local hour bucket edges, e.g. 0,6,9,12,15,18,21,24."),
+        None, "--hour-edges", help="Local hour bucket edges, e.g. 0,6,9,12,15,18,21,24."
+    ),
     length_edges: str | None = typer.Option(
-        None, "--length-edges", help="Text length band edges, e.g. 0,80,160,240,1000000000."),
+        None, "--length-edges", help="Text length band edges, e.g. 0,80,160,240,1000000000."
+    ),
     account: str | None = typer.Option(None, "--account", help="Only this account's posts."),
     min_n: int = typer.Option(20, "--min-posts", help="Flag segments with fewer posts."),
     examples: int = typer.Option(3, "--examples", help="Example posts per topic."),
     plot: Path | None = typer.Option(None, "--plot", help="Write the figure (.png or .svg)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
-    wide: bool = typer.Option(False, "--wide", help="Wrap segment names in full instead of "
-                              "cutting them to the terminal's width."),
+    wide: bool = typer.Option(
+        False, "--wide", help="Wrap segment names in full instead of cutting them to the terminal's width."
+    ),
 ) -> None:
     """How a metric differs between topics (named by phrases), hours, forms or accounts."""
     fmt = None
     if plot is not None:
         fmt = plot.suffix.lower().lstrip(".")
         if fmt not in FORMATS:
-            raise InputError(f"--plot must end in .png or .svg, not {plot.name!r}",
-                             field="--plot")
-    kwargs = {}
+            raise InputError(f"--plot must end in .png or .svg, not {plot.name!r}", field="--plot")
+    kwargs: dict[str, Any] = {}
     if hour_edges is not None:
         kwargs["hour_edges"] = parse_edges(hour_edges, "--hour-edges")
     if length_edges is not None:
         kwargs["length_edges"] = parse_edges(length_edges, "--length-edges")
-    req = SegmentRequest(topics=list(topic or []), by=by, metric=metric, mode=mode, k=k,
-                         threshold=threshold, account=account, min_n=min_n,
-                         examples=examples, **kwargs)
+    req = SegmentRequest(
+        topics=list(topic or []),
+        by=by,
+        metric=metric,
+        mode=mode,
+        k=k,
+        threshold=threshold,
+        account=account,
+        min_n=min_n,
+        examples=examples,
+        **kwargs,
+    )
     result = segment(workspace(), req)
     if as_json:
         print_json(result.to_dict())
     else:
-        out.print(f"{result.n_posts:,} posts with {metric}"
-                  + (f" from {account}" if account else "") + "\n", highlight=False)
+        out.print(
+            f"{result.n_posts:,} posts with {metric}" + (f" from {account}" if account else "") + "\n",
+            highlight=False,
+        )
         for split in result.splits:
             print_split(split, metric, wide=wide)
         print_two_way(result)

@@ -24,45 +24,84 @@ def _num(v: float | None, fmt: str = "{:.3f}") -> str:
 
 
 def print_report(rep: dict[str, Any]) -> None:
-    t = Table("period", "given", "matched", "settled", "stated", "live", "95% CI",
-              "MAE log", "acct median", "prec. median",
-              title=f"track record of {rep['metric']} forecasts (95% CI: Wilson; baselines: "
-              "MAE log on the same posts)")
+    t = Table(
+        "period",
+        "given",
+        "matched",
+        "settled",
+        "stated",
+        "live",
+        "95% CI",
+        "MAE log",
+        "acct median",
+        "prec. median",
+        title=f"track record of {rep['metric']} forecasts (95% CI: Wilson; baselines: "
+        "MAE log on the same posts)",
+    )
     for name, s in [(m["month"], m) for m in rep["months"]] + [("overall", rep["overall"])]:
         ci = s["live_coverage_ci"]
         b = s["baselines"]
-        t.add_row(name, str(s["given"]), str(s["matched"]), str(s["settled"]),
-                  _pct(s["stated_coverage"]), _pct(s["live_coverage"]),
-                  "-" if ci is None else f"{ci[0]:.1%}–{ci[1]:.1%}", _num(s["mae_log"]),
-                  _num(b["account_median"]["mae_log"]), _num(b["precedents_median"]["mae_log"]))
+        t.add_row(
+            name,
+            str(s["given"]),
+            str(s["matched"]),
+            str(s["settled"]),
+            _pct(s["stated_coverage"]),
+            _pct(s["live_coverage"]),
+            "-" if ci is None else f"{ci[0]:.1%}–{ci[1]:.1%}",
+            _num(s["mae_log"]),
+            _num(b["account_median"]["mae_log"]),
+            _num(b["precedents_median"]["mae_log"]),
+        )
     out.print(t)
     if rep["worst"]:
-        w = Table("draft", "account", "posted", "interval", "outcome", "error (log)",
-                  "top precedent", title="the forecasts that missed worst")
+        w = Table(
+            "draft",
+            "account",
+            "posted",
+            "interval",
+            "outcome",
+            "error (log)",
+            "top precedent",
+            title="the forecasts that missed worst",
+        )
         for r in rep["worst"]:
             top = r["precedents"][0] if r["precedents"] else None
-            w.add_row(r["draft_id"] or "-", r["account"], (r["posted_at"] or "")[:16],
-                      f"{r['low']:,.0f}–{r['high']:,.0f}", f"{r['outcome']:,.0f}",
-                      f"{r['error_log']:.2f}",
-                      "-" if top is None else f"{top['post_id']}: {top['text'][:40]}")
+            w.add_row(
+                r["draft_id"] or "-",
+                r["account"],
+                (r["posted_at"] or "")[:16],
+                f"{r['low']:,.0f}–{r['high']:,.0f}",
+                f"{r['outcome']:,.0f}",
+                f"{r['error_log']:.2f}",
+                "-" if top is None else f"{top['post_id']}: {top['text'][:40]}",
+            )
         out.print(w)
     for c in rep["calibration"]:
-        out.print(f"adaptive calibration at {float(c['level']):.0%}: alpha_t {c['alpha_t']:.3f} "
-                  f"after {c['outcomes']} outcomes and {c['pseudo_outcomes']} pseudo-outcomes")
-    out.print("[dim]Live coverage is how often the stated intervals held on the posts that "
-              "went out; the interval beside it says how sure that share is.[/dim]")
+        out.print(
+            f"adaptive calibration at {float(c['level']):.0%}: alpha_t {c['alpha_t']:.3f} "
+            f"after {c['outcomes']} outcomes and {c['pseudo_outcomes']} pseudo-outcomes"
+        )
+    out.print(
+        "[dim]Live coverage is how often the stated intervals held on the posts that "
+        "went out; the interval beside it says how sure that share is.[/dim]"
+    )
 
 
 @app.command("track-record")
 def track_record_cmd(
-    since: str | None = typer.Option(None, "--since", help="Only forecasts given from this date "
-                                     "or time (ISO 8601)."),
+    since: str | None = typer.Option(
+        None, "--since", help="Only forecasts given from this date or time (ISO 8601)."
+    ),
     account: str | None = typer.Option(None, "--account", help="Only this account."),
     metric: str = typer.Option("impressions", "--metric", help="The forecast metric."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     plot: Path | None = typer.Option(None, "--plot", help="Also draw the record (.png or .svg)."),
-    reset: bool = typer.Option(False, "--reset-adaptation", help="Forget what the adaptive "
-                               "calibration of this metric has learnt, then report."),
+    reset: bool = typer.Option(
+        False,
+        "--reset-adaptation",
+        help="Forget what the adaptive calibration of this metric has learnt, then report.",
+    ),
 ) -> None:
     """How the forecasts given turned out: live against stated coverage, errors, worst misses."""
     ws = workspace()

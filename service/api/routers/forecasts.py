@@ -6,8 +6,8 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 
 from ...forecasting import Draft
 from ...timeparse import parse_time
-from ...workspace import Workspace
 from ...track_record import give
+from ...workspace import Workspace
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import DraftIn, ForecastBatchRequest, ForecastList, ForecastOut, ForecastRequest
@@ -18,8 +18,9 @@ router = APIRouter(prefix="/v1", tags=["forecasts"])
 def to_draft(ws: Workspace, d: DraftIn, where: str) -> Draft:
     tz = ws.account(d.account).timezone  # cached behind the store's stamp
     planned = parse_time(d.planned_at, tz=tz, where=where) if d.planned_at else None
-    return Draft(text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id,
-                 has_media=d.has_media)
+    return Draft(
+        text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id, has_media=d.has_media
+    )
 
 
 @router.post(
@@ -31,17 +32,20 @@ def to_draft(ws: Workspace, d: DraftIn, where: str) -> Draft:
     "interval with its stated and backtested coverage: an estimate from this team's history, "
     "not a certainty.",
 )
-def forecasts(
-    body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep
-) -> ForecastOut | ForecastList:
+def forecasts(body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep) -> ForecastOut | ForecastList:
     if isinstance(body, ForecastBatchRequest):
         ws.forecaster.limits.check_batch(len(body.drafts))
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
         # Track record hook (issue 11): adapted, staleness-checked and recorded.
-        found = give(ws, drafts, metric=body.metric, coverage=body.coverage, record=body.record,
-                     source="api")
+        found = give(ws, drafts, metric=body.metric, coverage=body.coverage, record=body.record, source="api")
         return ForecastList(forecasts=[ForecastOut(**f.to_dict()) for f in found])
     # Track record hook (issue 11).
-    found = give(ws, [to_draft(ws, body, "planned_at")], metric=body.metric,
-                 coverage=body.coverage, record=body.record, source="api")
+    found = give(
+        ws,
+        [to_draft(ws, body, "planned_at")],
+        metric=body.metric,
+        coverage=body.coverage,
+        record=body.record,
+        source="api",
+    )
     return ForecastOut(**found[0].to_dict())

@@ -11,14 +11,21 @@ from ..schemas import AccountOut, Health
 router = APIRouter(prefix="/v1", tags=["health"])
 
 
-@router.get("/health", response_model=Health, responses=ERRORS(StoreError),
-            summary="Counts, model and index state")
+@router.get(
+    "/health", response_model=Health, responses=ERRORS(StoreError), summary="Counts, model and index state"
+)
 def health(ws: WorkspaceDep) -> Health:
     return Health(**ws.health())
 
 
-@router.get("/accounts", response_model=list[AccountOut], responses=ERRORS(StoreError),
-            summary="Accounts in the store")
+@router.get(
+    "/accounts",
+    response_model=list[AccountOut],
+    responses=ERRORS(StoreError),
+    summary="Accounts in the store",
+)
 def accounts(ws: WorkspaceDep) -> list[AccountOut]:
-    return [AccountOut(handle=a.handle, display_name=a.display_name, timezone=a.timezone,
-                       posts=a.posts) for a in ws.store.accounts()]
+    return [
+        AccountOut(handle=a.handle, display_name=a.display_name, timezone=a.timezone, posts=a.posts)
+        for a in ws.store.accounts()
+    ]

@@ -23,7 +23,15 @@ router = APIRouter(prefix="/v1", tags=["hours"])
     "team's history, not certainties.",
 )
 def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursOut:
-    report = best_hours(ws.forecaster, body.text, account=body.account, day=body.day, week=body.week,
-                        metric=body.metric, coverage=body.coverage, top=body.top,
-                        has_media=body.has_media)
+    report = best_hours(
+        ws.forecaster,
+        body.text,
+        account=body.account,
+        day=body.day,
+        week=body.week,
+        metric=body.metric,
+        coverage=body.coverage,
+        top=body.top,
+        has_media=body.has_media,
+    )
     return HoursOut(**report.to_dict())

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import os
 import tempfile
+import typing
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Annotated, Any, BinaryIO
@@ -28,15 +29,18 @@ from models.errors import AuthError, InputError, LimitExceeded, NotFound, NotRea
 
 from ...importer import ImportOptions, parse_mapping
 from ...mappings import combine, load_mapping
+from ...timeparse import DateOrder
 from ..deps import WorkspaceDep, WriteAccess
 from ..responses import ERRORS
 from ..schemas import ImportPreviewOut, ImportSummaryOut
 
+if typing.TYPE_CHECKING:
+    from python_multipart.multipart import MultipartCallbacks
+
 router = APIRouter(prefix="/v1", tags=["imports"])
 
 FILE_FIELD = "file"
-TEXT_FIELDS = ("account", "timezone", "map", "time_format", "date_order", "decimal_comma",
-               "mapping")
+TEXT_FIELDS = ("account", "timezone", "map", "time_format", "date_order", "decimal_comma", "mapping")
 # A form field is a handle, a zone name or one mapping: never long.
 MAX_FIELD_BYTES = 64 * 1024
 
@@ -62,8 +66,7 @@ UPLOAD_BODY: dict[str, Any] = {
                     },
                     "timezone": {
                         "type": "string",
-                        "description": "IANA zone of times without an offset "
-                        "(default: the account's)",
+                        "description": "IANA zone of times without an offset (default: the account's)",
                     },
                     "map": {
                         "type": "array",
@@ -136,7 +139,7 @@ class _FormReader:
         self.disposition = b""
         self.ended = False
 
-    def callbacks(self) -> dict[str, Any]:
+    def callbacks(self) -> MultipartCallbacks:
         return {
             "on_part_begin": self.on_part_begin,
             "on_part_data": self.on_part_data,
@@ -166,8 +169,7 @@ class _FormReader:
         name = raw.decode("latin-1")
         if name == FILE_FIELD:
             if self.upload.path is not None:
-                raise InputError("the form holds more than one file; send one per import",
-                                 field=FILE_FIELD)
+                raise InputError("the form holds more than one file; send one per import", field=FILE_FIELD)
             fd, tmp = tempfile.mkstemp(prefix="upload-", suffix=".csv", dir=self.directory)
             self.upload.path = Path(tmp)
             self.file = os.fdopen(fd, "wb")
@@ -185,8 +187,9 @@ class _FormReader:
             self.file.write(data[start:end])
             return
         if len(self.data) + (end - start) > MAX_FIELD_BYTES:
-            raise InputError(f"form field {self.name!r} is longer than {MAX_FIELD_BYTES} bytes",
-                             field=self.name)
+            raise InputError(
+                f"form field {self.name!r} is longer than {MAX_FIELD_BYTES} bytes", field=self.name
+            )
         self.data.extend(data[start:end])
 
     def on_part_end(self) -> None:
@@ -198,8 +201,7 @@ class _FormReader:
         try:
             value = bytes(self.data).decode("utf-8")
         except UnicodeDecodeError:
-            raise InputError(f"form field {self.name!r} is not UTF-8 text",
-                             field=self.name) from None
+            raise InputError(f"form field {self.name!r} is not UTF-8 text", field=self.name) from None
         self.upload.fields.setdefault(str(self.name), []).append(value)
 
     def on_end(self) -> None:
@@ -234,8 +236,7 @@ async def receive_upload(request: Request, *, directory: Path, max_bytes: int) -
         try:
             parser = MultipartParser(boundary, reader.callbacks())
         except (FormParserError, ValueError) as exc:
-            raise InputError(f"the multipart boundary is not usable: {exc}",
-                             field="content-type") from None
+            raise InputError(f"the multipart boundary is not usable: {exc}", field="content-type") from None
         async for chunk in request.stream():
             received += len(chunk)
             if received > max_bytes:
@@ -248,8 +249,9 @@ async def receive_upload(request: Request, *, directory: Path, max_bytes: int) -
         if not reader.ended:
             raise InputError("the upload ended before the form's closing boundary")
         if upload.path is None:
-            raise InputError(f"the form has no file; send the CSV in the field {FILE_FIELD!r}",
-                             field=FILE_FIELD)
+            raise InputError(
+                f"the form has no file; send the CSV in the field {FILE_FIELD!r}", field=FILE_FIELD
+            )
     except ClientDisconnect:
         reader.close()
         _remove(upload.path)
@@ -275,9 +277,12 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
     if order not in (None, "day-first", "month-first"):
         raise InputError("date_order must be day-first or month-first", field="date_order")
     given = ImportOptions(
-        mapping=parse_mapping(upload.fields.get("map", [])), account=upload.one("account"),
-        timezone=upload.one("timezone"), time_format=upload.one("time_format"),
-        date_order=order, decimal_comma=comma == "true",  # type: ignore[arg-type]
+        mapping=parse_mapping(upload.fields.get("map", [])),
+        account=upload.one("account"),
+        timezone=upload.one("timezone"),
+        time_format=upload.one("time_format"),
+        date_order=typing.cast(DateOrder | None, order),  # checked just above
+        decimal_comma=comma == "true",
     )
     name = upload.one("mapping")
     return combine(load_mapping(home, name) if name else None, given)
@@ -291,9 +296,16 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
     summary="Import past posts and their metrics from an uploaded CSV file",
 )
 async def create_import(
-    request: Request, ws: WorkspaceDep, _auth: WriteAccess,
-    dry_run: Annotated[bool, Query(description="Store nothing: answer how the columns map, the "
-                                   "first rows as read and what would be rejected")] = False,
+    request: Request,
+    ws: WorkspaceDep,
+    _auth: WriteAccess,
+    dry_run: Annotated[
+        bool,
+        Query(
+            description="Store nothing: answer how the columns map, the "
+            "first rows as read and what would be rejected"
+        ),
+    ] = False,
 ) -> ImportSummaryOut | ImportPreviewOut:
     """Rows with problems are reported with line, column, reason and a fix
     to try; every valid row is stored, in batches that are each one
@@ -305,8 +317,11 @@ async def create_import(
             request, directory=ws.settings.uploads_dir, max_bytes=ws.settings.max_upload_bytes
         )
     except OSError as exc:  # a full disk while the upload is written
-        raise StoreError(f"the upload could not be saved ({exc.strerror}); nothing was "
-                         "imported", hint="free some disk space and send it again") from None
+        raise StoreError(
+            f"the upload could not be saved ({exc.strerror}); nothing was imported",
+            hint="free some disk space and send it again",
+        ) from None
+    assert upload.path is not None  # receive_upload raises when the form has no file
     try:
         o = upload_options(upload, ws.settings.resolved_home)
         kw = o.kwargs()

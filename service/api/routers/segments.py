@@ -41,9 +41,17 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
 )
 def segments(body: SegmentsRequest, ws: WorkspaceDep) -> SegmentsResponse | Response:
     req = SegmentRequest(
-        topics=body.topics, by=body.by, metric=body.metric, mode=body.mode, k=body.k,
-        threshold=body.threshold, hour_edges=body.hour_edges, length_edges=body.length_edges,
-        account=body.account, min_n=body.min_n, examples=body.examples,
+        topics=body.topics,
+        by=body.by,
+        metric=body.metric,
+        mode=body.mode,
+        k=body.k,
+        threshold=body.threshold,
+        hour_edges=body.hour_edges,
+        length_edges=body.length_edges,
+        account=body.account,
+        min_n=body.min_n,
+        examples=body.examples,
     )
     result = segment(ws, req)
     if body.plot is not None:

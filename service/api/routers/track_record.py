@@ -23,9 +23,13 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
 @router.get(
     "/track-record",
     response_model=TrackRecordOut,
-    responses={200: {"description": "The report as JSON, or with format png or svg its figure",
-                     "content": {m: _IMAGE for m in MEDIA_TYPES.values()}},
-               **ERRORS(404, 422, 503)},
+    responses={
+        200: {
+            "description": "The report as JSON, or with format png or svg its figure",
+            "content": dict.fromkeys(MEDIA_TYPES.values(), _IMAGE),
+        },
+        **ERRORS(404, 422, 503),
+    },
     summary="How the forecasts given turned out, per month and overall",
     description="Forecasts given, matched to published posts and settled; live coverage "
     "against the stated coverage with a Wilson 95% interval; MAE(log) of sounding and of the "
@@ -33,15 +37,12 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
 )
 def track_record(
     ws: WorkspaceDep,
-    since: Annotated[str | None, Query(description="Forecasts given from this date or time")]
-    = None,
+    since: Annotated[str | None, Query(description="Forecasts given from this date or time")] = None,
     account: Annotated[str | None, Query(description="Only this account")] = None,
     metric: Annotated[str, Query(description="The forecast metric")] = "impressions",
-    format: Annotated[Literal["json", "png", "svg"], Query(description="json, png or svg")]
-    = "json",
+    format: Annotated[Literal["json", "png", "svg"], Query(description="json, png or svg")] = "json",
 ) -> Any:
     rep = report(ws, since=parse_since(since), account=account, metric=metric)
     if format in MEDIA_TYPES:
-        return Response(content=track_record_figure(rep, fmt=format),
-                        media_type=MEDIA_TYPES[format])
+        return Response(content=track_record_figure(rep, fmt=format), media_type=MEDIA_TYPES[format])
     return TrackRecordOut.model_validate(rep)

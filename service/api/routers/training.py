@@ -24,9 +24,15 @@ def train(body: TrainingRequest, ws: WorkspaceDep, _auth: WriteAccess) -> Traini
     m = forecasting.train(ws, body.metric, backtest=body.backtest)
     bt = m.report.get("backtest")
     return TrainingOut(
-        metric=m.metric, model_version=m.version, n_train=m.report["n_train"],
-        n_calibration=m.report["n_calibration"], backtested_coverage=m.backtested_coverage,
-        backtest=None if bt is None else {k: bt.get(k) for k in (
-            "model", "baselines", "n_test", "coverage_nominal",
-            "candidates", "weights", "note")},  # issue 10: candidates, combination, note
+        metric=m.metric,
+        model_version=m.version,
+        n_train=m.report["n_train"],
+        n_calibration=m.report["n_calibration"],
+        backtested_coverage=m.backtested_coverage,
+        backtest=None
+        if bt is None
+        else {
+            k: bt.get(k)
+            for k in ("model", "baselines", "n_test", "coverage_nominal", "candidates", "weights", "note")
+        },  # issue 10: candidates, combination, note
     )

@@ -4,8 +4,8 @@ from fastapi import APIRouter
 
 from models.errors import InputError, LimitExceeded, NotFound, NotReady
 
-from ...wordings import compare_variants
 from ...timeparse import parse_time
+from ...wordings import compare_variants
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import VariantsOut, VariantsRequest
@@ -25,7 +25,13 @@ router = APIRouter(prefix="/v1", tags=["variants"])
 def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsOut:
     tz = ws.store.account(body.account).timezone
     planned = parse_time(body.planned_at, tz=tz, where="planned_at") if body.planned_at else None
-    report = compare_variants(ws.forecaster, body.texts, account=body.account, planned_at=planned,
-                              metric=body.metric, coverage=body.coverage,
-                              has_media=body.has_media)
+    report = compare_variants(
+        ws.forecaster,
+        body.texts,
+        account=body.account,
+        planned_at=planned,
+        metric=body.metric,
+        coverage=body.coverage,
+        has_media=body.has_media,
+    )
     return VariantsOut(**report.to_dict())
