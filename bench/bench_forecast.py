@@ -40,7 +40,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from models.embedding import Embedder  # noqa: E402
+from models.embedding import Embedder, bundled_model_path  # noqa: E402
 from models.index import VectorIndex, recall_at  # noqa: E402
 from service import forecasting  # noqa: E402
 from service.cli.history import _demo_accounts  # noqa: E402
@@ -49,6 +49,45 @@ from service.store import PostRow  # noqa: E402
 from service.workspace import Workspace  # noqa: E402
 
 DRAFT = (ROOT / "demo_data" / "sample_draft.txt").read_text().strip()
+
+
+def bench_embedder() -> Embedder:
+    """The embedder a workspace gets from the settings (ONNX by default), with
+    its export kept under bench/results/ between runs."""
+    s = Settings()
+    return Embedder(
+        batch_size=s.embed_batch_size,
+        backend=s.embed_backend,
+        quantize=s.embed_quantize,
+        export_dir=ROOT / "bench" / "results" / "embedding",
+        threads=s.embed_threads,
+    )
+
+
+class ReferenceEncode:
+    """Plain ``SentenceTransformer.encode`` of the draft (torch): the reference
+    a forecast's p50 is compared with (issue 16: forecast p50 <= 1.0x this)."""
+
+    def __init__(self) -> None:
+        from sentence_transformers import SentenceTransformer
+
+        self.model = SentenceTransformer(str(bundled_model_path()), device="cpu", local_files_only=True)
+        self.model.encode([DRAFT])
+        self.times: list[float] = []
+
+    def time_once(self) -> None:
+        t0 = time.perf_counter()
+        self.model.encode([DRAFT], normalize_embeddings=True, convert_to_numpy=True)
+        self.times.append(time.perf_counter() - t0)
+
+    def row(self, forecast_times: list[float]) -> dict[str, object]:
+        ref = statistics.median(self.times)
+        out = {
+            "reference_encode_p50_ms": round(1000 * ref, 2),
+            "ratio_p50_reference": round(statistics.median(forecast_times) / ref, 2),
+        }
+        self.times = []
+        return out
 
 
 def grow(ws: Workspace, demo: Workspace, size: int, rng: np.random.Generator) -> None:
@@ -252,8 +291,9 @@ def main() -> None:
     if args.index_only:
         index_only(args.sizes, rng, args.json, args.keep)
         return
-    embedder = Embedder()
+    embedder = bench_embedder()
     embedder.encode(["warm up"])
+    reference = ReferenceEncode()
     results: list[dict[str, object]] = []
     out = ROOT / "bench" / "results"
     out.mkdir(exist_ok=True)
@@ -295,7 +335,10 @@ def main() -> None:
             gc.collect()
             proc, url = serve(home)
             body = {"text": DRAFT, "account": "loomhaven", "planned_at": "2026-12-02T12:00"}
-            emb, fc = [], []
+            emb, fc, bare = [], [], []
+            # The same forecast with "record": false, interleaved, so the cost of keeping
+            # it in the track record is a ratio within this run (issue 11).
+            unrecorded = {**body, "record": False}
             try:
                 with httpx.Client(base_url=url, timeout=600) as client:
                     client.post("/v1/forecasts", json=body).raise_for_status()  # warm caches
@@ -307,6 +350,10 @@ def main() -> None:
                         t0 = time.perf_counter()
                         client.post("/v1/forecasts", json=body).raise_for_status()
                         fc.append(time.perf_counter() - t0)
+                        reference.time_once()
+                        t0 = time.perf_counter()
+                        client.post("/v1/forecasts", json=unrecorded).raise_for_status()
+                        bare.append(time.perf_counter() - t0)
             finally:
                 proc.terminate()
                 proc.wait(timeout=30)
@@ -324,6 +371,12 @@ def main() -> None:
                 "embed_equivalent_s": round(embed_eq, 1),
                 "train_ratio": None if train_s is None else round(train_s / embed_eq, 3),
                 "rss_mb": round(rss, 1),
+                # Issue 16: against a plain SentenceTransformer.encode of the draft (torch).
+                **reference.row(fc),
+                "embedding": embedder.info()["backend"],
+                # Issue 11: recorded / not recorded in the track record.
+                "forecast_unrecorded_p50_ms": round(1000 * statistics.median(bare), 2),
+                "record_ratio_p50": round(statistics.median(fc) / statistics.median(bare), 3),
                 # Context, not asked for by issue 12 but needed to read the figures.
                 "rss_peak_mb": round(peak, 1),
                 "fill_s": round(fill, 1),

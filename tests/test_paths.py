@@ -74,7 +74,7 @@ def test_train_and_backtest_commands(ws: Workspace, tmp_path: Path, embedder) ->
     assert res.exit_code == 0, res.output
     report = json.loads(out.read_text())
     assert report["n_folds"] == 2 and report["coverage_nominal"] == 0.7
-    assert "sounding (the" in res.output and "account trailing" in res.output
+    assert "sounding, combined" in res.output and "account median" in res.output
 
 
 def test_training_engagement_rate(ws: Workspace) -> None:

@@ -70,13 +70,14 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
         Column(header="coverage", right=True),
         Column(header="weight", right=True),
     ]
+    # Short enough to stay whole in an 80-column table.
     labels = {
-        "account_median": "account trailing median",
+        "account_median": "account median",
         "precedents_median": "precedents' median",
-        "history_median": "history-wide median",
+        "history_median": "history median",
         "timing_only": "timing only",
-        "boosted": "boosted trees + timing",
-        "text_ridge": "text model (ridge)",
+        "boosted": "boosted trees",
+        "text_ridge": "text model",
     }
     weights = bt.get("weights") or {}
     rows: list[list[str]] = []
@@ -93,7 +94,7 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
             ]
         )
 
-    row("model", "sounding (the combination)", bt["model"])
+    row("model", "sounding, combined", bt["model"])
     for k, s in bt["baselines"].items():
         row(k, labels.get(k, k), s)
     for k, s in (bt.get("candidates") or {}).items():
@@ -107,7 +108,8 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
         f"folds, {bt['n_test']} test posts, nominal coverage {bt['coverage_nominal']:.0%}",
     )
     out.print(
-        "typical miss: a typical forecast is off by this factor either way "
+        "boosted trees: with the timing effect; typical miss: a typical forecast is off by "
+        "this factor either way "
         "(exp of the mean absolute error of log1p values, MAE (log)).",
         highlight=False,
     )
