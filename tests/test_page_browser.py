@@ -82,6 +82,8 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             assert page.evaluate("document.activeElement.className") == "skip"
             page.keyboard.press("Tab")
             assert page.evaluate("document.activeElement.id") == "tab-check"
+            page.keyboard.press("Tab")  # the link to the import preview
+            assert page.evaluate("document.activeElement.getAttribute('href')") == "/import"
             page.keyboard.press("Tab")
             assert page.evaluate("document.activeElement.id") == "text"
             page.keyboard.type(DRAFT)
