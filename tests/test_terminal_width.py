@@ -35,6 +35,10 @@ COMMANDS = [
         2,
     ),
     (["segments", "--by", "link"], "impressions by link", 2),
+    # Topics crossed with a split: the topic table, then the two-way table of medians.
+    (["segments", "--topic", "flowers in bloom", "--by", "link"], None, 2),
+    (["accounts"], None, 3),
+    (["track-record"], None, 1),  # no forecast given yet: the overall row only
 ]
 
 

@@ -17,7 +17,6 @@ from rich.progress import (
     TextColumn,
     TimeRemainingColumn,
 )
-from rich.table import Table
 
 from models.errors import InputError
 from models.metrics import METRIC_COLUMNS
@@ -100,10 +99,12 @@ def print_summary(s: ImportSummary, *, limit: int = 20) -> None:
 
 def print_preview(p: ImportPreview, *, limit: int = 10) -> None:
     out.print("dry run: nothing is stored", highlight=False)
-    t = Table("our column", "their column", "read as", title="columns")
-    for c in p.columns:
-        t.add_row(c.ours, c.theirs or "-", c.reads)
-    out.print(t)
+    print_table(
+        out,
+        [Column(header="our column"), Column(header="their column"), Column(header="read as", free=True)],
+        [[c.ours, c.theirs or "-", c.reads] for c in p.columns],
+        title="columns",
+    )
     if p.unused:
         shown = ", ".join(p.unused[:20]) + (f" and {len(p.unused) - 20} more" if len(p.unused) > 20 else "")
         out.print(f"not read: {shown}", highlight=False, markup=False)

@@ -9,7 +9,6 @@ from __future__ import annotations
 import shlex
 
 import typer
-from rich.table import Table
 
 from models.errors import InputError
 
@@ -24,6 +23,7 @@ from ..mappings import (
 from ..settings import Settings
 from ..timeparse import DateOrder
 from .base import app, out, print_json
+from .render import Column, print_table
 
 ACCOUNT = typer.Option(None, "--account", help="Account for rows without an account column.")
 MAP = typer.Option([], "--map", help="Read our column from theirs: ours=theirs (repeatable).")
@@ -111,10 +111,12 @@ def list_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.")) 
     if not names:
         out.print("no saved mappings (save one with `sounding mapping save NAME --map ...`)")
         return
-    t = Table("name", "import options")
-    for n in names:
-        t.add_row(n, " ".join(shlex.quote(a) for a in command_line(load_mapping(home, n))))
-    out.print(t)
+    print_table(
+        out,
+        [Column(header="name"), Column(header="import options", free=True)],
+        [[n, " ".join(shlex.quote(a) for a in command_line(load_mapping(home, n)))] for n in names],
+        wide=True,  # the options are read to be copied: never cut them
+    )
 
 
 @mapping_app.command("show")

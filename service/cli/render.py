@@ -103,7 +103,14 @@ def _room(columns: Sequence[Column], rows: Sequence[Sequence[str]], width: int) 
 def _drop_optional(
     columns: list[Column], rows: list[list[str]], width: int
 ) -> tuple[list[Column], list[list[str]]]:
-    while any(c.free for c in columns) and _room(columns, rows, width) < MIN_FREE:
+    """Leave out optional columns, last first, until the free text has room
+    (or, in a table without free text, until the table fits)."""
+
+    def short_of_room() -> bool:
+        room = _room(columns, rows, width)
+        return room < MIN_FREE if any(c.free for c in columns) else room < 0
+
+    while short_of_room():
         optional = [i for i, c in enumerate(columns) if c.optional]
         if not optional:
             break

@@ -7,8 +7,6 @@ from pathlib import Path
 from typing import Any
 
 import typer
-from rich import box
-from rich.table import Table
 from rich.text import Text
 
 from models.errors import InputError
@@ -27,7 +25,6 @@ from ..segmenting import (
     fmt_p,
     fmt_value,
     parse_edges,
-    plot_names,
     render,
     segment,
 )
@@ -128,25 +125,22 @@ def print_two_way(result: SegmentResult) -> None:
     if tw is None or result.two_way_axes is None:
         return
     rows_by, cols_by = result.two_way_axes
-    t = Table(
-        title=f"median {result.metric} (posts) by {rows_by} x {cols_by}; dim cells "
-        f"have fewer than {tw.min_n} posts",
-        title_justify="left",
-        box=box.SIMPLE_HEAD,
-    )
-    t.add_column(rows_by, ratio=1, overflow="fold")
-    for col in tw.cols:
-        t.add_column(col, justify="right")
-    short = plot_names(tw.rows, width=_ROW_WIDTH)
+    # One line per row: each cell is the median, with "*" where it rests on fewer
+    # than min_n posts; the counts are in --json.
+    rows = []
     for i, row in enumerate(tw.rows):
-        cells = []
+        cells = [row]
         for j in range(len(tw.cols)):
             n = int(tw.n[i, j])
-            # Median over its post count, so seven hour buckets fit 80 columns.
-            txt = "-" if n == 0 else f"{fmt_value(float(tw.median[i, j]), result.metric)}\n({n:,})"
-            cells.append(Text(txt, style="dim" if tw.too_small[i, j] else ""))
-        t.add_row(Text(short[row]), *cells)
-    out.print(t)
+            median = fmt_value(float(tw.median[i, j]), result.metric)
+            cells.append("-" if n == 0 else median + ("*" if tw.too_small[i, j] else ""))
+        rows.append(cells)
+    print_table(
+        out,
+        [Column(header=rows_by, free=True), *(Column(header=c, right=True) for c in tw.cols)],
+        rows,
+        title=f"median {result.metric} by {rows_by} x {cols_by}; * fewer than {tw.min_n} posts",
+    )
     out.print()
 
 

@@ -6,77 +6,91 @@ from pathlib import Path
 from typing import Any
 
 import typer
-from rich.table import Table
 
 from models.errors import InputError
 from models.track_plots import FORMATS, track_record_figure
 
 from ..track_record import parse_since, report, reset_adaptation
 from .base import app, out, print_json, workspace
+from .render import Column, print_table, typical_miss
 
 
 def _pct(v: float | None) -> str:
     return "-" if v is None else f"{v:.1%}"
 
 
-def _num(v: float | None, fmt: str = "{:.3f}") -> str:
-    return "-" if v is None else fmt.format(v)
+def _miss(v: float | None) -> str:
+    """A log error read plainly: off by this factor either way."""
+    return "-" if v is None else typical_miss(abs(v))
 
 
 def print_report(rep: dict[str, Any]) -> None:
-    t = Table(
-        "period",
-        "given",
-        "matched",
-        "settled",
-        "stated",
-        "live",
-        "95% CI",
-        "MAE log",
-        "acct median",
-        "prec. median",
-        title=f"track record of {rep['metric']} forecasts (95% CI: Wilson; baselines: "
-        "MAE log on the same posts)",
-    )
+    cols = [
+        Column(header="period"),
+        Column(header="given", right=True),
+        Column(header="settled", right=True),
+        Column(header="stated", right=True),
+        Column(header="live", right=True),
+        Column(header="95% CI", right=True),
+        Column(header="typical miss", right=True),
+        Column(header="account median", right=True, optional=True),
+        Column(header="precedents' median", right=True, optional=True),
+        Column(header="matched", right=True, optional=True),
+    ]
+    rows = []
     for name, s in [(m["month"], m) for m in rep["months"]] + [("overall", rep["overall"])]:
         ci = s["live_coverage_ci"]
         b = s["baselines"]
-        t.add_row(
-            name,
-            str(s["given"]),
-            str(s["matched"]),
-            str(s["settled"]),
-            _pct(s["stated_coverage"]),
-            _pct(s["live_coverage"]),
-            "-" if ci is None else f"{ci[0]:.1%}–{ci[1]:.1%}",
-            _num(s["mae_log"]),
-            _num(b["account_median"]["mae_log"]),
-            _num(b["precedents_median"]["mae_log"]),
+        rows.append(
+            [
+                name,
+                str(s["given"]),
+                str(s["settled"]),
+                _pct(s["stated_coverage"]),
+                _pct(s["live_coverage"]),
+                "-" if ci is None else f"{ci[0]:.1%}–{ci[1]:.1%}",
+                _miss(s["mae_log"]),
+                _miss(b["account_median"]["mae_log"]),
+                _miss(b["precedents_median"]["mae_log"]),
+                str(s["matched"]),
+            ]
         )
-    out.print(t)
+    print_table(
+        out,
+        cols,
+        rows,
+        title=f"track record of {rep['metric']} forecasts (95% CI: Wilson; the simple "
+        "forecasters' typical miss on the same posts)",
+    )
     if rep["worst"]:
-        w = Table(
-            "draft",
-            "account",
-            "posted",
-            "interval",
-            "outcome",
-            "error (log)",
-            "top precedent",
-            title="the forecasts that missed worst",
-        )
+        worst = []
         for r in rep["worst"]:
             top = r["precedents"][0] if r["precedents"] else None
-            w.add_row(
-                r["draft_id"] or "-",
-                r["account"],
-                (r["posted_at"] or "")[:16],
-                f"{r['low']:,.0f}–{r['high']:,.0f}",
-                f"{r['outcome']:,.0f}",
-                f"{r['error_log']:.2f}",
-                "-" if top is None else f"{top['post_id']}: {top['text'][:40]}",
+            worst.append(
+                [
+                    r["draft_id"] or "-",
+                    r["account"],
+                    (r["posted_at"] or "")[:10],
+                    f"{r['low']:,.0f}–{r['high']:,.0f}",
+                    f"{r['outcome']:,.0f}",
+                    _miss(r["error_log"]),
+                    "-" if top is None else f"{top['post_id']}: {top['text']}",
+                ]
             )
-        out.print(w)
+        print_table(
+            out,
+            [
+                Column(header="draft"),
+                Column(header="account", optional=True),
+                Column(header="posted"),
+                Column(header="interval", right=True),
+                Column(header="outcome", right=True),
+                Column(header="off by", right=True),
+                Column(header="top precedent", free=True),
+            ],
+            worst,
+            title="the forecasts that missed worst",
+        )
     for c in rep["calibration"]:
         out.print(
             f"adaptive calibration at {float(c['level']):.0%}: alpha_t {c['alpha_t']:.3f} "
