@@ -7,9 +7,23 @@ import threading
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
+from pathlib import Path
 
 import uvicorn
 from fastapi import FastAPI
+
+# Debian's Chromium, for the browser tests (CI installs it), and the flags it needs on a
+# machine with no network: without the background-networking ones it keeps trying to
+# reach outside hosts.
+CHROMIUM = Path("/usr/bin/chromium")
+CHROMIUM_ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--no-first-run",
+]
 
 
 @contextmanager

@@ -7,20 +7,11 @@ import hashlib
 from pathlib import Path
 
 import pytest
-from serving import serve
+from serving import CHROMIUM, CHROMIUM_ARGS, serve
 
 from service.api.app import create_app
 
 FIXTURES = Path(__file__).parent / "fixtures" / "exports"
-CHROMIUM = Path("/usr/bin/chromium")
-ARGS = [
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-    "--no-first-run",
-]
 TOKEN = "page-import-token-0123456789abcdef"
 MAP = [
     "post_id=Post ID",
@@ -48,7 +39,7 @@ def test_import_page_previews_then_imports(make_workspace, artifacts: Path) -> N
     ws.store.set_account("loomhaven", timezone="Europe/London")
     db = ws.settings.resolved_home / "sounding.db"
     with serve(create_app(workspace=ws)) as base, sync_playwright() as p:
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=ARGS, headless=True)
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
         try:
             page = browser.new_page(viewport={"width": 1280, "height": 1000})
             errors: list[str] = []

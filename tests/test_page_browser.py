@@ -10,21 +10,12 @@ from pathlib import Path
 
 import httpx
 import pytest
-from serving import serve
+from serving import CHROMIUM, CHROMIUM_ARGS, serve
 
 from service.api.app import create_app
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
-CHROMIUM = Path("/usr/bin/chromium")
-ARGS = [
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-background-networking",
-    "--disable-component-update",
-    "--disable-sync",
-    "--no-first-run",
-]
 DRAFT = (
     "The dahlias in the Walled Garden are at their peak this week 🌸 The colour glows in "
     "low sun. #WhatsFlowering"
@@ -57,7 +48,7 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
         assert api.status_code == 200, api.text
         want = api.json()
 
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=ARGS, headless=True)
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
         try:
             page = browser.new_page(viewport={"width": 1280, "height": 900})
             errors: list[str] = []
@@ -179,7 +170,7 @@ def test_wordings_and_segments_panels(demo_workspace, artifacts: Path) -> None:
             json={"topics": ["flowers in bloom", "volunteering"], "by": None},
         )
         assert segs.status_code == 200, segs.text
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=ARGS, headless=True)
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
         try:
             page = browser.new_page(viewport={"width": 1280, "height": 1000})
             errors: list[str] = []

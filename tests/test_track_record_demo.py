@@ -19,6 +19,7 @@ import pandas as pd
 import pytest
 from fastapi.testclient import TestClient
 from scipy.stats import binomtest
+from serving import CHROMIUM, CHROMIUM_ARGS, serve
 from sqlalchemy import delete
 from typer.testing import CliRunner
 
@@ -140,17 +141,11 @@ def test_plan_forecast_published_matched_scored_reported(
         ws.close()
 
 
-CHROMIUM = Path("/usr/bin/chromium")
-
-
 def _page_panel(ws: Workspace, held: int) -> None:
     from playwright.sync_api import expect, sync_playwright
-    from serving import serve
 
     with serve(create_app(workspace=ws)) as base, sync_playwright() as p:
-        browser = p.chromium.launch(
-            executable_path=str(CHROMIUM), headless=True, args=["--no-sandbox", "--disable-gpu"]
-        )
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), headless=True, args=CHROMIUM_ARGS)
         try:
             page = browser.new_page()
             page.goto(base + "/")
