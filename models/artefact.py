@@ -160,12 +160,21 @@ _verified_lock = threading.Lock()
 
 
 def _signature(d: Path) -> tuple[Any, ...]:
+    # os.scandir rather than Path.rglob: this runs on every forecast, and
+    # pathlib's object per entry cost more than the rest of the check.
     sig = []
-    for p in sorted(d.rglob("*")):
-        if p.is_file():
-            st = p.stat()
-            sig.append((p.relative_to(d).as_posix(), st.st_size, st.st_mtime_ns))
-    return tuple(sig)
+    stack = [("", os.fspath(d))]
+    while stack:
+        rel, path = stack.pop()
+        with os.scandir(path) as entries:
+            for e in entries:
+                name = f"{rel}{e.name}"
+                if e.is_dir(follow_symlinks=False):
+                    stack.append((f"{name}/", e.path))
+                elif e.is_file():
+                    st = e.stat()
+                    sig.append((name, st.st_size, st.st_mtime_ns))
+    return tuple(sorted(sig))
 
 
 def verify(directory: Path) -> dict[str, Any]:

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import cast
 
 import faiss
@@ -70,6 +70,9 @@ class History:
     account: np.ndarray  # int64 account codes
     log_target: np.ndarray  # float64
     vectors: np.ndarray  # float32 (n, d), unit rows
+    _settled: dict[int, tuple[np.ndarray, np.ndarray]] = field(
+        default_factory=dict, init=False, repr=False, compare=False
+    )
 
     def __post_init__(self) -> None:
         n = len(self.pk)
@@ -83,6 +86,24 @@ class History:
 
     def __len__(self) -> int:
         return len(self.pk)
+
+    def settled_rows(self, account: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Rows that have the metric (of one account, or all), in time order,
+        and their times: worked out once per History (it is never changed
+        after it is made), so a draft's eligible posts are a binary search
+        rather than a pass over every post."""
+        key = -1 if account is None else account
+        hit = self._settled.get(key)
+        if hit is None:
+            has = ~np.isnan(self.log_target)
+            rows = np.flatnonzero(has if account is None else has & (self.account == account))
+            hit = self._settled[key] = (rows, self.time[rows])
+        return hit
+
+    def eligible_rows(self, t: float, params: FeatureParams, account: int | None = None) -> np.ndarray:
+        """The rows ``eligible`` marks at ``t`` (of one account, or all), in time order."""
+        rows, times = self.settled_rows(account)
+        return rows[: int(np.searchsorted(times, t - params.maturity_s, side="right"))]
 
 
 def text_form(text: str, has_link: bool, has_media: bool) -> list[float]:
@@ -127,9 +148,10 @@ def neighbour_stats(
 
 def baseline(history: History, account: int, t: float, params: FeatureParams) -> tuple[float, float]:
     """Median log target of the account's last N posts mature by ``t``."""
-    mask = (history.account == account) & (history.time <= t - params.maturity_s)
-    mask &= ~np.isnan(history.log_target)
-    logs = history.log_target[mask][-params.baseline_n :]
+    rows, times = history.settled_rows(account)
+    end = int(np.searchsorted(times, t - params.maturity_s, side="right"))
+    start = max(end - params.baseline_n, 0) if params.baseline_n > 0 else 0
+    logs = history.log_target[rows[start:end]]
     if len(logs) == 0:
         return np.nan, 0.0
     return float(np.median(logs)), float(len(logs))

@@ -311,10 +311,12 @@ class Forecaster:
         coverage: float = DEFAULT_COVERAGE,
         now: datetime | None = None,
         vectors: np.ndarray | None = None,
+        model: TrainedModel | None = None,
     ) -> list[Forecast]:
-        """Forecast each draft; ``vectors`` may pass embeddings already made."""
+        """Forecast each draft; ``vectors`` may pass embeddings already made,
+        ``model`` the model already looked up for this answer."""
         check_coverage(coverage)
-        model = self.model(metric)
+        model = model or self.model(metric)
         view = self.view(metric)
         now = now or now_utc()
         least = self.settings.min_history_posts
@@ -322,11 +324,7 @@ class Forecaster:
             code = view.account_codes.get(d.account)
             if code is None:
                 self.store.account(d.account)  # raises NotFound for unknown accounts
-            n = (
-                0
-                if code is None
-                else int(np.sum((view.history.account == code) & ~np.isnan(view.history.log_target)))
-            )
+            n = 0 if code is None else len(view.history.settled_rows(code)[0])
             if n < least:
                 raise NotReady(
                     f"account {d.account!r} has {n} posts with {metric}; a forecast needs at "
@@ -340,7 +338,8 @@ class Forecaster:
         for d, vec in zip(drafts, vecs, strict=True):
             rows.append(self.features(view, model.features, d, vec, now, wide))
             plans.append(d.planned_at or now)
-        details = self.store.posts_by_pk(sorted({int(view.history.pk[r]) for row in rows for r, _ in row[3]}))
+        # Shown precedents' details come from the view, as current as its stamp: no SQL.
+        details = view.details(sorted({r for row in rows for r, _ in row[3]}))
         X = model.rows(
             np.vstack([r[0] for r in rows]), vecs, [view.account_codes[d.account] for d in drafts]
         )  # issue 10: extra columns

@@ -6,8 +6,10 @@ this one view, so a post is described the same way everywhere.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import cast
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any, cast
 
 import numpy as np
 import pandas as pd
@@ -32,6 +34,38 @@ class HistoryView:
     account_codes: dict[str, int]
     row_of_pk: dict[int, int]
     zones: dict[int, str]  # account code -> IANA zone
+    _columns: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
+
+    def details(self, rows: Sequence[int]) -> dict[int, dict[str, Any]]:
+        """Posts' details with current metrics, by store row id, for History
+        rows (the shape ``Store.posts_by_pk`` gives)."""
+        if not self._columns:
+            # Plain arrays, made once per view: a pandas row look-up costs
+            # more than the whole rest of a forecast.
+            f = self.frame
+            self._columns.update(
+                {c: f[c].to_numpy() for c in ("pk", "post_id", "account", "text", "has_link", "has_media")}
+            )
+            self._columns["posted_at"] = f["posted_at"].dt.to_pydatetime()
+            self._columns["metrics"] = f[list(METRIC_COLUMNS)].to_numpy(np.float64)
+        c = self._columns
+        out: dict[int, dict[str, Any]] = {}
+        for r in rows:
+            pk = int(c["pk"][r])
+            out[pk] = {
+                "pk": pk,
+                "post_id": str(c["post_id"][r]),
+                "account": str(c["account"][r]),
+                "text": str(c["text"][r]),
+                "posted_at": c["posted_at"][r],
+                "has_link": bool(c["has_link"][r]),
+                "has_media": bool(c["has_media"][r]),
+                "metrics": {
+                    m: None if math.isnan(v) else int(v)
+                    for m, v in zip(METRIC_COLUMNS, c["metrics"][r].tolist(), strict=True)
+                },
+            }
+        return out
 
     def rows_of(self, pks: np.ndarray | list[int]) -> np.ndarray:
         """History rows of store row ids (ids not in the view are dropped)."""

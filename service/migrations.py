@@ -41,7 +41,7 @@ from sqlalchemy.schema import CreateColumn
 
 from models.errors import StoreError
 
-from .tables import Base, ChangeStamp, SchemaVersion
+from .tables import HISTORY_STAMP, SCORING_STAMP, Base, ChangeStamp, SchemaVersion
 from .timeparse import now_utc, to_naive_utc
 
 SCHEMA_VERSION = 1
@@ -153,7 +153,8 @@ def _upgrade_once(engine: Engine) -> int:
                 .where(SchemaVersion.id == 1)
                 .values(version=SCHEMA_VERSION, migrated_at=now)
             )
-        insert_missing(conn, _STAMP_T, {"id": 1, "counter": 0})
+        for row in (HISTORY_STAMP, SCORING_STAMP):
+            insert_missing(conn, _STAMP_T, {"id": row, "counter": 0})
         return SCHEMA_VERSION if found is None else found
 
 

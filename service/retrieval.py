@@ -114,15 +114,21 @@ class Retriever:
         when the eligible posts are too rare among the nearest to fill a list.
         """
         h = view.history
-        ok = F.eligible(h, t, params)
-        own_ok = ok & (h.account == account)
         rows, sims = self.wide(view, vec, params, cache)
-        team: Found = (rows[ok[rows]], sims[ok[rows]])
-        own: Found = (rows[own_ok[rows]], sims[own_ok[rows]])
-        if len(own[0]) < min(params.k, int(own_ok.sum())):
-            own = self.rows(view, vec, params.k, np.flatnonzero(own_ok))
-        if len(team[0]) < min(params.k, int(ok.sum())):
-            team = self.rows(view, vec, params.k, np.flatnonzero(ok))
+        # Eligibility of the found rows only; the eligible sets themselves are
+        # binary searches (History.eligible_rows), not passes over the history.
+        ok = (h.time[rows] <= t - params.maturity_s) & ~np.isnan(h.log_target[rows])
+        own_ok = ok & (h.account[rows] == account)
+        team: Found = (rows[ok], sims[ok])
+        own: Found = (rows[own_ok], sims[own_ok])
+        if len(own[0]) < params.k:
+            own_rows = h.eligible_rows(t, params, account)
+            if len(own[0]) < min(params.k, len(own_rows)):
+                own = self.rows(view, vec, params.k, own_rows)
+        if len(team[0]) < params.k:
+            team_rows = h.eligible_rows(t, params)
+            if len(team[0]) < min(params.k, len(team_rows)):
+                team = self.rows(view, vec, params.k, team_rows)
         return F.draft_neighbourhood(h, team, own, t=t, params=params)
 
     def above(

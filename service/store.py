@@ -13,6 +13,7 @@ import re
 import sqlite3
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
+from contextvars import ContextVar
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
@@ -30,7 +31,17 @@ from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
 
 from .migrations import check_current, upgrade
-from .tables import Account, ApproximateValue, ChangeStamp, Post, Snapshot, Vector
+from .tables import (
+    HISTORY_STAMP,
+    SCORING_STAMP,
+    STAMP_OF,
+    Account,
+    ApproximateValue,
+    ChangeStamp,
+    Post,
+    Snapshot,
+    Vector,
+)
 from .timeparse import as_utc, now_utc, to_naive_utc, zone
 
 _LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
@@ -82,16 +93,25 @@ def _sqlite_pragmas(dbapi_conn: Any, _record: Any) -> None:
         cur.close()
 
 
+def _mark(session: Session, table: str) -> None:
+    """Note which change counter this transaction must move (tables.STAMP_OF)."""
+    counter = STAMP_OF.get(table, HISTORY_STAMP)
+    session.info.setdefault("wrote", set())
+    if counter is not None:
+        session.info["wrote"].add(counter)
+
+
 def _note_write(state: ORMExecuteState) -> None:
     # INSERT/UPDATE/DELETE statements run through a session (Core or ORM).
     if state.is_insert or state.is_update or state.is_delete:
-        state.session.info["wrote"] = True
+        table = getattr(state.statement, "table", None)
+        _mark(state.session, getattr(table, "name", ""))
 
 
 def _note_flush(session: Session, _ctx: Any, _instances: Any) -> None:
     # Objects added, changed or deleted through the ORM.
-    if session.new or session.dirty or session.deleted:
-        session.info["wrote"] = True
+    for obj in (*session.new, *session.dirty, *session.deleted):
+        _mark(session, getattr(type(obj), "__tablename__", ""))
 
 
 class Store:
@@ -132,6 +152,8 @@ class Store:
         except SQLAlchemyError as exc:
             raise StoreError(f"cannot open the store at {self.safe_url}: {exc}") from None
         self._sessions = sessionmaker(self.engine, expire_on_commit=False)
+        self._stamps_q = select(ChangeStamp.id, ChangeStamp.counter)
+        self._pinned: ContextVar[tuple[int, int] | None] = ContextVar(f"stamps-{id(self)}", default=None)
         event.listen(self._sessions, "do_orm_execute", _note_write)
         event.listen(self._sessions, "before_flush", _note_flush)
 
@@ -155,13 +177,15 @@ class Store:
         try:
             yield s
             s.flush()
-            wrote = bool(s.info.get("wrote"))
-            if wrote:
+            moved = sorted(s.info.get("wrote") or ())
+            if moved:
                 s.execute(
-                    update(ChangeStamp).where(ChangeStamp.id == 1).values(counter=ChangeStamp.counter + 1)
+                    update(ChangeStamp)
+                    .where(ChangeStamp.id.in_(moved))
+                    .values(counter=ChangeStamp.counter + 1)
                 )
             s.commit()
-            if wrote:
+            if HISTORY_STAMP in moved:
                 self.own_writes += 1
         except OperationalError as exc:
             s.rollback()
@@ -275,12 +299,38 @@ class Store:
         return fingerprint(self.index_pairs())
 
     def stamp(self) -> int:
-        """The store's change counter: it moves with every committed write
-        (import batches, snapshots, forget, account changes), by this
-        process or another one. One one-row read."""
+        """The post history's change counter: it moves with every committed
+        write to the history (import batches, snapshots, forget, account
+        changes), by this process or another one. One one-row read."""
+        return self.stamps()[0]
+
+    def stamps(self) -> tuple[int, int]:
+        """(history, scoring) change counters in one read: the scoring one
+        moves when the track record scores forecasts or adapts. Inside
+        :meth:`pinned`, the counters read when it began."""
+        held = self._pinned.get()
+        if held is not None:
+            return held
         with self.engine.connect() as conn:
-            n = conn.scalar(select(ChangeStamp.counter).where(ChangeStamp.id == 1))
-        return int(n or 0)
+            got = dict(conn.execute(self._stamps_q).all())
+        return int(got.get(HISTORY_STAMP) or 0), int(got.get(SCORING_STAMP) or 0)
+
+    @contextmanager
+    def pinned(self) -> Iterator[tuple[int, int]]:
+        """Read the change counters once for a whole read-only request (a
+        forecast checks the index, the history view, the account cache and
+        the track record against them): one query instead of one per cache.
+        Writes inside still move the counters; later reads see them."""
+        held = self._pinned.get()
+        if held is not None:  # already pinned by the caller: one read per request
+            yield held
+            return
+        now = self.stamps()
+        token = self._pinned.set(now)
+        try:
+            yield now
+        finally:
+            self._pinned.reset(token)
 
     # Import ---------------------------------------------------------------
 

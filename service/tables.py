@@ -127,8 +127,11 @@ class SchemaVersion(Base):
 
 
 class ChangeStamp(Base):
-    """A counter bumped by every write transaction (one row): the cheap way
-    for any process sharing the store to tell that something changed."""
+    """Counters bumped by write transactions: the cheap way for any process
+    sharing the store to tell that something changed. Row ``HISTORY_STAMP``
+    moves with the post history (what the index, the history view and the
+    account cache derive from); row ``SCORING_STAMP`` with the track
+    record's scoring (matches, adaptive calibration state)."""
 
     __tablename__ = "store_stamp"
 
@@ -233,3 +236,18 @@ class CalibrationState(Base):
     # Posting time of the last settled post fed as a pseudo-outcome.
     pseudo_until: Mapped[datetime | None] = mapped_column(DateTime)
     updated_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+
+
+HISTORY_STAMP = 1
+SCORING_STAMP = 2
+#: Which counter a write to each table moves. Tables not named move the
+#: history counter (the safe side: caches are rebuilt). ``forecasts_given``
+#: moves none: it is an append-only log of answers, and no cached fact
+#: derives from it, so recording a forecast leaves every cache warm.
+STAMP_OF: dict[str, int | None] = {
+    ForecastGiven.__tablename__: None,
+    PostDraftLink.__tablename__: SCORING_STAMP,
+    ForecastMatch.__tablename__: SCORING_STAMP,
+    CalibrationState.__tablename__: SCORING_STAMP,
+    ChangeStamp.__tablename__: None,
+}

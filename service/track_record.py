@@ -26,8 +26,11 @@ from __future__ import annotations
 import csv
 import json
 import math
+import threading
 import typing
+import weakref
 from collections.abc import Sequence
+from dataclasses import dataclass
 from datetime import datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -41,7 +44,7 @@ from models import features as F
 from models.adaptive import aci_step, adaptive_quantile
 from models.artefact import TrainedModel, versions
 from models.errors import InputError, NotReady, SoundingError
-from models.metrics import TARGETS, check_target, target_value
+from models.metrics import TARGETS, check_coverage, check_target, target_value
 
 from .forecasting import Draft, Forecast, _back
 from .tables import (
@@ -91,19 +94,20 @@ def give(
     """Forecasts as sounding gives them: adapted, with live coverage and
     staleness warnings, and recorded unless ``record`` is False."""
     now = now or now_utc()
-    found: list[Forecast] = ws.forecaster.forecast(
-        drafts, metric=metric, coverage=coverage, now=now, vectors=vectors
-    )
-    model = ws.forecaster.model(metric)
-    state = _state(ws.store, metric, coverage)
-    live = live_coverage(ws.store, metric, coverage)
-    warnings = staleness(ws, metric, coverage, model=model, now=now)["warnings"]
-    for f in found:
-        _adapt_band(f, model, coverage, state)
-        f.live_coverage = live
-        f.warnings.extend(warnings)
-    if record and found:
-        _record(ws, drafts, found, model=model, source=source, now=now)
+    check_coverage(coverage)  # before the model look-up, as forecast() orders its checks
+    with ws.store.pinned():  # one read of the store's counters for the whole answer
+        model = ws.forecaster.model(metric)
+        found: list[Forecast] = ws.forecaster.forecast(
+            drafts, metric=metric, coverage=coverage, now=now, vectors=vectors, model=model
+        )
+        scored = _scored(ws.store, metric, coverage)
+        warnings = staleness(ws, metric, coverage, model=model, now=now)["warnings"]
+        for f in found:
+            _adapt_band(f, model, coverage, scored.state)
+            f.live_coverage = dict(scored.live)
+            f.warnings.extend(warnings)
+        if record and found:
+            _record(ws, drafts, found, model=model, source=source, now=now)
     return found
 
 
@@ -163,9 +167,8 @@ def _record(
     ws: Any, drafts: list[Draft], found: list[Forecast], *, model: TrainedModel, source: str, now: datetime
 ) -> None:
     view = ws.forecaster.view(found[0].metric)
-    handles = {d.account for d in drafts}
+    ids = _account_ids(ws.store, {d.account for d in drafts})
     with ws.store.session() as s:
-        ids = dict(s.execute(select(Account.handle, Account.id).where(Account.handle.in_(handles))).all())
         for d, f in zip(drafts, found, strict=True):
             t = min(f.planned_at, now).timestamp()
             code = view.account_codes.get(d.account)
@@ -218,6 +221,73 @@ def _record(
 
 
 # State -----------------------------------------------------------------------
+
+
+@dataclass(frozen=True, slots=True)
+class _Scored:
+    """What a forecast shows of the track record: the adaptive state, live
+    coverage, and the last scored forecasts (held?, stated coverage)."""
+
+    state: CalibrationState | None
+    live: dict[str, Any]
+    recent: list[tuple[bool, float]]
+
+
+# Per store: (metric, level) -> (the store's counters when read, the facts).
+# They change only when the history or the scoring moves (Store.stamps), so
+# a forecast reads one counter row instead of three queries.
+_SCORED: weakref.WeakKeyDictionary[Any, dict[tuple[str, str], tuple[tuple[int, int], _Scored]]] = (
+    weakref.WeakKeyDictionary()
+)
+_SCORED_LOCK = threading.Lock()
+
+
+def _scored(store: Any, metric: str, coverage: float) -> _Scored:
+    key = (metric, level_key(coverage))
+    stamps = store.stamps()  # before the reads: a write meanwhile shows as a newer stamp
+    with _SCORED_LOCK:
+        hit = _SCORED.setdefault(store, {}).get(key)
+    if hit is not None and hit[0] == stamps:
+        return hit[1]
+    facts = _Scored(
+        state=_state(store, metric, coverage),
+        live=live_coverage(store, metric, coverage),
+        recent=_recent(store, metric, coverage),
+    )
+    with _SCORED_LOCK:
+        _SCORED.setdefault(store, {})[key] = (stamps, facts)
+    return facts
+
+
+_IDS: weakref.WeakKeyDictionary[Any, tuple[int, dict[str, int]]] = weakref.WeakKeyDictionary()
+
+
+def _account_ids(store: Any, handles: set[str]) -> dict[str, int]:
+    """Accounts' row ids, read again only when the history's counter moved."""
+    stamp = store.stamp()
+    with _SCORED_LOCK:
+        hit = _IDS.get(store)
+    if hit is not None and hit[0] == stamp and handles <= hit[1].keys():
+        return hit[1]
+    with store.session() as s:
+        ids = {h: int(i) for h, i in s.execute(select(Account.handle, Account.id))}
+    with _SCORED_LOCK:
+        _IDS[store] = (stamp, ids)
+    return ids
+
+
+def _recent(store: Any, metric: str, coverage: float) -> list[tuple[bool, float]]:
+    """(held?, stated coverage) of the last scored forecasts, newest post first."""
+    with store.session() as s:
+        rows = s.execute(
+            select(ForecastMatch.inside, ForecastGiven.coverage)
+            .join(ForecastGiven, ForecastGiven.id == ForecastMatch.forecast_id)
+            .join(Post, Post.id == ForecastMatch.post_pk)
+            .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None), _at_level(coverage))
+            .order_by(Post.posted_at.desc())
+            .limit(RECENT_SCORED)
+        ).all()
+    return [(bool(r[0]), float(r[1])) for r in rows]
 
 
 def _state(store: Any, metric: str, coverage: float) -> CalibrationState | None:
@@ -286,25 +356,11 @@ def staleness(
             f"the {metric} model is {days:.0f} days old (SOUNDING_STALE_AFTER_DAYS "
             f"{st.stale_after_days:g}); retrain with `sounding train`"
         )
-    mature = timedelta(hours=st.maturity_hours)
-    with ws.store.session() as s:
-        fresh = (
-            s.scalar(
-                select(func.count(Post.id)).where(
-                    Post.posted_at > to_naive_utc(as_of - mature),
-                    Post.posted_at <= to_naive_utc(now - mature),
-                )
-            )
-            or 0
-        )
-        recent = s.execute(
-            select(ForecastMatch.inside, ForecastGiven.coverage)
-            .join(ForecastGiven, ForecastGiven.id == ForecastMatch.forecast_id)
-            .join(Post, Post.id == ForecastMatch.post_pk)
-            .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None), _at_level(coverage))
-            .order_by(Post.posted_at.desc())
-            .limit(RECENT_SCORED)
-        ).all()
+    mature = st.maturity_hours * 3600.0
+    # Posts settled since the model's data: counted on the cached history view.
+    times = ws.forecaster.view(metric).history.time
+    fresh = int(np.count_nonzero((times > as_of.timestamp() - mature) & (times <= now.timestamp() - mature)))
+    recent = _scored(ws.store, metric, coverage).recent
     if fresh >= st.stale_after_posts:
         reasons.append(
             f"{fresh} posts have settled since the {metric} model was trained "

@@ -33,6 +33,11 @@ def to_draft(ws: Workspace, d: DraftIn, where: str) -> Draft:
     "not a certainty.",
 )
 def forecasts(body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep) -> ForecastOut | ForecastList:
+    with ws.store.pinned():  # the store's counters read once for the whole answer
+        return _forecasts(body, ws)
+
+
+def _forecasts(body: ForecastRequest | ForecastBatchRequest, ws: Workspace) -> ForecastOut | ForecastList:
     if isinstance(body, ForecastBatchRequest):
         ws.forecaster.limits.check_batch(len(body.drafts))
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
