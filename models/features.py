@@ -596,9 +596,9 @@ def draft_neighbourhood(
     """A draft's neighbourhood from two nearest-neighbour answers, each
     ``(History rows, similarities)`` best first: across the team and within
     the draft's account. Posts not eligible at ``t`` are dropped."""
-    ok = eligible(history, t, params)
     parts = []
     for rows, sims in (team, own):
-        keep = ok[rows]
+        # ``eligible`` on these rows only: a draft must not pay a pass over the history.
+        keep = (history.time[rows] <= t - params.maturity_s) & ~np.isnan(history.log_target[rows])
         parts.extend([rows[keep][: params.k], sims[keep][: params.k]])
     return Neighbourhood(*parts)

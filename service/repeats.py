@@ -135,9 +135,13 @@ def near_repeats_many(
         vec = np.asarray(items[idx[0]][1], dtype=np.float32).reshape(1, -1)
         times = np.array([items[i][2].timestamp() for i in idx])
         for scope, span in spans:
-            who = (h.account == code) if scope == "own" else (h.account != code)
-            union = who & (h.time < times.max()) & (h.time >= times.min() - span)
-            hits = retrieval.above(view, vec, union, s.repeat_similarity, (wide or {}).get(vec.tobytes()))
+            # The windows' union is one slice of the time-sorted history: only
+            # its rows are looked at, never the whole history.
+            lo = int(np.searchsorted(h.time, times.min() - span, side="left"))
+            hi = int(np.searchsorted(h.time, times.max(), side="left"))
+            acc = h.account[lo:hi]
+            rows = lo + np.flatnonzero((acc == code) if scope == "own" else (acc != code))
+            hits = retrieval.above(view, vec, rows, s.repeat_similarity, (wide or {}).get(vec.tobytes()))
             for i, t in zip(idx, times, strict=True):
                 mine = [(r, sim) for r, sim in hits if t - span <= h.time[r] < t][:k]
                 out[i].extend(

@@ -135,18 +135,17 @@ class Retriever:
         self,
         view: HistoryView,
         vec: np.ndarray,
-        mask: np.ndarray,
+        rows: np.ndarray,
         threshold: float,
         nearest: Found | None = None,
     ) -> list[tuple[int, float]]:
-        """(History row, similarity) of every post in ``mask`` at or above
-        ``threshold``, best first.
+        """(History row, similarity) of every post among History ``rows``
+        (sorted, unique) at or above ``threshold``, best first.
 
         ``nearest`` is the vector's unfiltered nearest list when a forecast
         already searched: if it reaches below the threshold it holds every
         post above it, and no second pass over the index is needed.
         """
-        rows = np.flatnonzero(mask)
         if len(rows) == 0:
             return []
         if (
@@ -155,7 +154,7 @@ class Retriever:
             and (nearest[1][-1] < threshold or len(nearest[1]) >= len(view.history))
         ):
             near_rows, near_sims = nearest
-            keep = mask[near_rows] & (near_sims >= threshold)
+            keep = np.isin(near_rows, rows, assume_unique=True) & (near_sims >= threshold)
             return [(int(r), float(x)) for r, x in zip(near_rows[keep], near_sims[keep], strict=True)]
         k = min(len(rows), 16)
         while True:  # widen the search until it passes below the threshold
