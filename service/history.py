@@ -9,6 +9,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
 from typing import Any, cast
 
 import numpy as np
@@ -19,6 +20,8 @@ from models.metrics import METRIC_COLUMNS, target_value
 
 from .settings import Settings
 from .store import Store
+
+EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
 
 @dataclass(slots=True)
@@ -40,14 +43,15 @@ class HistoryView:
         """Posts' details with current metrics, by store row id, for History
         rows (the shape ``Store.posts_by_pk`` gives)."""
         if not self._columns:
-            # Plain arrays, made once per view: a pandas row look-up costs
-            # more than the whole rest of a forecast.
+            # Arrays made once per view (a pandas row look-up costs more than
+            # the rest of a forecast); strings stay in pandas' own array, read
+            # one element at a time, so a million texts are not copied.
             f = self.frame
-            self._columns.update(
-                {c: f[c].to_numpy() for c in ("pk", "post_id", "account", "text", "has_link", "has_media")}
-            )
-            self._columns["posted_at"] = f["posted_at"].dt.to_pydatetime()
-            self._columns["metrics"] = f[list(METRIC_COLUMNS)].to_numpy(np.float64)
+            made: dict[str, Any] = {c: f[c].array for c in ("post_id", "account", "text")}
+            made.update({c: f[c].to_numpy() for c in ("pk", "has_link", "has_media")})
+            made["posted_at"] = f["posted_at"].dt.tz_convert(UTC).to_numpy("datetime64[us]").astype(np.int64)
+            made["metrics"] = f[list(METRIC_COLUMNS)].to_numpy(np.float64)
+            self._columns.update(made)  # one step: another thread sees all or nothing
         c = self._columns
         out: dict[int, dict[str, Any]] = {}
         for r in rows:
@@ -57,7 +61,7 @@ class HistoryView:
                 "post_id": str(c["post_id"][r]),
                 "account": str(c["account"][r]),
                 "text": str(c["text"][r]),
-                "posted_at": c["posted_at"][r],
+                "posted_at": EPOCH + timedelta(microseconds=int(c["posted_at"][r])),
                 "has_link": bool(c["has_link"][r]),
                 "has_media": bool(c["has_media"][r]),
                 "metrics": {

@@ -125,3 +125,15 @@ def test_eligible_rows_and_baseline_equal_the_whole_history_masks() -> None:
             want = (float(np.median(logs)), float(len(logs))) if len(logs) else (np.nan, 0.0)
             got = F.baseline(h, a, t, params)
             assert got[1] == want[1] and (got[0] == want[0] or (np.isnan(got[0]) and np.isnan(want[0])))
+
+
+def test_precedent_details_from_the_view_equal_the_stores(demo_workspace: Workspace) -> None:
+    # The view's details replace a SQL read on every forecast: they must say
+    # exactly what the store's own query (Store.posts_by_pk) says, post for post.
+    view = demo_workspace.forecaster.view("impressions")
+    got = view.details(range(len(view.history)))
+    want = demo_workspace.store.posts_by_pk(list(got))
+    assert len(got) == len(view.history) == len(want)
+    for pk, d in got.items():
+        assert d == want[pk]
+        assert d["posted_at"].utcoffset() is not None and d["posted_at"] == want[pk]["posted_at"]
