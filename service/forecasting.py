@@ -303,6 +303,15 @@ class Forecaster:
             self._views[metric] = (stamp, v)
         return v
 
+    def warm(self) -> None:
+        """Rebuild, ahead of the next forecast, the history views already in
+        use whose store changed (the service's background refresher calls
+        this): the first forecast after an import then finds its view ready."""
+        with self._lock:
+            metrics = list(self._views)
+        for metric in metrics:
+            self.view(metric)
+
     def forecast(
         self,
         drafts: list[Draft],

@@ -4,7 +4,7 @@ Service replicas share one store: an import through one must reach
 forecasts through the others. Each request already checks the store's
 change stamp (``Workspace.index``); this thread checks it every few
 seconds too, so the rebuild happens in the background and the next request
-finds a fresh index. A rebuilt index replaces the old one whole, under the
+finds a fresh index and fresh history views. A rebuilt index replaces the old one whole, under the
 workspace's lock: no request ever searches a half-built one.
 """
 
@@ -34,6 +34,7 @@ def refreshing(ws: Workspace, *, every: float) -> Iterator[None]:
         while not stop.wait(every):
             try:
                 ws.index()
+                ws.forecaster.warm()  # the history views forecasts use, too
             except SoundingError as exc:  # the store is briefly away: try again next time
                 log.warning("index refresh failed: %s", exc)
 

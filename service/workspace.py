@@ -337,6 +337,7 @@ class Workspace:
                 self._sync_index(summary.changed_pks)
             # The track record: draft ids, matching, scoring, adaptation (issue 11).
             after_import(self, path, mapping=mapping, account=account)
+            self.forecaster.warm()  # the import pays for the views, not the next forecast
             return summary
 
     def preview_import(self, path: str | Path, **options: Any) -> ImportPreview:
@@ -349,6 +350,7 @@ class Workspace:
             self.index()
             pks = self.store.forget(account=account, post_id=post_id)
             self._sync_index([], pks)
+            self.forecaster.warm()
             return len(pks)
 
     def account(self, handle: str) -> AccountInfo:

@@ -137,3 +137,21 @@ def test_precedent_details_from_the_view_equal_the_stores(demo_workspace: Worksp
     for pk, d in got.items():
         assert d == want[pk]
         assert d["posted_at"].utcoffset() is not None and d["posted_at"] == want[pk]["posted_at"]
+
+
+def test_an_import_leaves_the_views_in_use_ready_for_the_next_forecast(
+    demo_copy: Workspace, tmp_path: Path
+) -> None:
+    ws = demo_copy
+    old = ws.forecaster.view("impressions")
+    csv = tmp_path / "one.csv"
+    csv.write_text(
+        "post_id,account,text,posted_at,impressions\n"
+        "new-2,loomhaven,Moss garden reopens,2026-11-29T09:00Z,80\n",
+        encoding="utf-8",
+    )
+    ws.import_csv(csv)
+    with statements(ws.store) as seen:
+        fresh = ws.forecaster.view("impressions")
+    assert fresh is not old and "new-2" in set(fresh.frame["post_id"])
+    assert len(seen) == 1 and "store_stamp" in seen[0]  # built by the import, only checked here
