@@ -305,8 +305,12 @@ class Split(SegmentReport):
         values: np.ndarray,
         labels: np.ndarray | Mapping[str, np.ndarray],
         examples: Mapping[str, list[Example]] | None = None,
-        **settings: Any,
+        mode: str | None = None,
+        threshold: float | None = None,
+        k: int | None = None,
+        topics: list[Topic] | None = None,
     ) -> Split:
+        """The split of ``report``; ``examples`` (by segment name) for topics."""
         segments = [
             SplitSegment(
                 **seg.model_dump(exclude={"note"}),
@@ -315,7 +319,14 @@ class Split(SegmentReport):
             for seg in report.segments
         ]
         split = cls(
-            **report.model_dump(exclude={"segments"}), segments=segments, by=by, title=title, **settings
+            **report.model_dump(exclude={"segments"}),
+            segments=segments,
+            by=by,
+            title=title,
+            mode=mode,
+            threshold=threshold,
+            k=k,
+            topics=topics,
         )
         split._values, split._labels = values, labels
         return split
@@ -587,19 +598,17 @@ def _topic_split(
     # (nearest mode needs all of them; both modes show examples from them).
     sims = ws.retrieval.similarities(topic_vecs, pks)
     names = [t.name for t in topics]
-    settings: dict[str, Any]
     labels: np.ndarray | Mapping[str, np.ndarray]
-    if req.mode == "nearest":
+    nearest = req.mode == "nearest"
+    if nearest:
         members, labels = _nearest_members(sims, names, req, warnings)
         report = compare_segments(posts.values, labels, order=[*names, OTHER], **_stats_kwargs(req))
         title = f"topic (nearest phrase, similarity at least {req.threshold:g}; else {OTHER})"
-        settings = {"mode": "nearest", "threshold": req.threshold}
     else:
         members = _top_k_members(ws, topic_vecs, pks, names, req, warnings)
         labels = members
         report = compare_groups(posts.values, members, **_stats_kwargs(req))
         title = f"topic (the {req.k} posts nearest each phrase; {OTHER}: posts in none)"
-        settings = {"mode": "top-k", "k": req.k}
     examples = {
         name: _examples(posts, members[name], sims[:, j], req.examples)
         for j, name in enumerate(names)
@@ -615,8 +624,10 @@ def _topic_split(
         values=posts.values,
         labels=labels,
         examples=examples,
+        mode=req.mode,
+        threshold=req.threshold if nearest else None,
+        k=None if nearest else req.k,
         topics=topics,
-        **settings,
     )
     return split, members
 

@@ -433,6 +433,7 @@ def test_cli_json_table_and_plot(
             {k: s[k] for k in _STATS} for s in w["segments"]
         ]
     assert got["two_way"] == want["two_way"]
+    assert got == want  # one shape: the CLI prints the answer the API sends
 
     fig = tmp_path / "seg.png"
     r = runner.invoke(
