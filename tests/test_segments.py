@@ -129,7 +129,9 @@ def test_topic_assignment_matches_cosine_similarity(
         assert [e.similarity for e in shown] == pytest.approx(top, abs=1e-4)
     assert split.segment(OTHER).n == int(np.sum(~caught))
     # "other" shows the posts that came closest to a topic and still missed.
-    assert split.segment(OTHER).examples[0].similarity == pytest.approx(sims.max(axis=1)[~caught].max(), abs=1e-4)
+    assert split.segment(OTHER).examples[0].similarity == pytest.approx(
+        sims.max(axis=1)[~caught].max(), abs=1e-4
+    )
     assert split.segment(OTHER).examples[0].similarity < 0.3
 
 
@@ -366,7 +368,9 @@ def test_http_returns_the_library_statistics(client, demo_workspace) -> None:
     assert r.status_code == 200, r.text
     assert r.headers["content-type"].startswith("application/json")
     got = r.json()
-    want = segment(demo_workspace, SegmentRequest(topics=FIRST_PHRASES[:3], by="link")).model_dump(mode="json")
+    want = segment(demo_workspace, SegmentRequest(topics=FIRST_PHRASES[:3], by="link")).model_dump(
+        mode="json"
+    )
     assert [s["by"] for s in got["splits"]] == ["topic", "link"]
     for g, w in zip(got["splits"], want["splits"], strict=True):
         assert g["kruskal_p"] == pytest.approx(w["kruskal_p"])
