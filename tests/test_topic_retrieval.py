@@ -8,6 +8,8 @@ Both index kinds are covered: the exact scan and the HNSW graph."""
 from __future__ import annotations
 
 import json
+import shutil
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -18,6 +20,7 @@ from models.errors import StoreError
 from models.index import VectorIndex
 from models.segments import OTHER
 from service.segmenting import SegmentRequest, segment
+from service.settings import Settings
 from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -31,17 +34,25 @@ def _unit(rng: np.random.Generator, n: int, d: int) -> np.ndarray:
     return v / np.linalg.norm(v, axis=1, keepdims=True)
 
 
-@pytest.fixture(params=["exact", "approximate"])
+@pytest.fixture(scope="module")
+def hnsw_workspace(
+    demo_home: Path, embedder, tmp_path_factory: pytest.TempPathFactory
+) -> Iterator[Workspace]:
+    """A private copy of the demo data directory, its index rebuilt as an HNSW graph."""
+    home = tmp_path_factory.mktemp("hnsw") / "home"
+    shutil.copytree(demo_home, home)
+    ws = Workspace(settings=Settings(home=home, index_approximate_above=1), embedder=embedder)
+    assert ws.reindex().approximate
+    yield ws
+    ws.close()
+
+
+@pytest.fixture(params=["demo_workspace", "hnsw_workspace"])
 def ws(request: pytest.FixtureRequest) -> Workspace:
-    """The demo history behind an exact index, or (a private copy) behind an HNSW graph."""
-    if request.param == "exact":
-        demo: Workspace = request.getfixturevalue("demo_workspace")
-        assert not demo.index().approximate
-        return demo
-    copy: Workspace = request.getfixturevalue("demo_copy")
-    copy.settings.index_approximate_above = 1
-    assert copy.reindex().approximate
-    return copy
+    """The demo history behind an exact index, or behind an HNSW graph."""
+    workspace: Workspace = request.getfixturevalue(request.param)
+    assert workspace.index().approximate == (request.param == "hnsw_workspace")
+    return workspace
 
 
 def _reference(ws: Workspace, embedder, phrases: list[str]) -> tuple[list[str], np.ndarray]:
