@@ -200,6 +200,30 @@ class VectorIndex:
         xb: np.ndarray = faiss.rev_swig_ptr(storage.get_xb(), int(index.ntotal) * self.dim)
         return xb.reshape(-1, self.dim)
 
+    def vectors_of(self, ids: np.ndarray) -> np.ndarray:
+        """The stored vectors of the given ids, in the given order (a copy).
+        Scoring posts against a query through these gives the same numbers a
+        search would, without searching."""
+        index = self._fitted()
+        ids = np.ascontiguousarray(ids, dtype=np.int64).reshape(-1)
+        if len(ids) == 0:
+            return np.zeros((0, self.dim), dtype=np.float32)
+        if self.ids_ is None:
+            try:
+                out: np.ndarray = index.reconstruct_batch(ids)
+            except RuntimeError:  # FAISS refuses an id it does not hold
+                out = np.zeros(0, dtype=np.float32)
+            if out.shape == (len(ids), self.dim):
+                return out
+        elif len(self._ids_sorted):
+            at = np.minimum(np.searchsorted(self._ids_sorted, ids), len(self._ids_sorted) - 1)
+            if np.all(self._ids_sorted[at] == ids):
+                return self.stored_vectors()[self._pos_sorted[at]]  # fancy indexing copies
+        raise StoreError(
+            "the index lacks some of the posts asked for; it is out of step with the store",
+            hint="run `sounding reindex`",
+        )
+
     def _tune(self) -> tuple[int, float]:
         """Smallest efSearch whose recall@10 on a sample of the index's own
         vectors reaches the target, and that recall. Each sampled vector's

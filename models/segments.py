@@ -1,10 +1,13 @@
 """Segment statistics: how a metric's distribution differs between groups of
 posts (topics, hour buckets, length bands, has-link ...).
 
-Everything here takes plain arrays and lists and returns dataclasses with a
-``to_dict()`` that is ready for JSON. Social-media counts are heavy-tailed
-and full of ties, so every comparison is rank-based (medians, Mann–Whitney
-U, Kruskal–Wallis) rather than built on means.
+Everything here takes plain arrays and lists and returns pydantic models
+that are the answers themselves: the API sends them as they are and the CLI
+prints their ``model_dump(mode="json")``. Social-media counts are
+heavy-tailed and full of ties, so every comparison is rank-based (medians,
+Mann–Whitney U, Kruskal–Wallis) rather than built on means. This module
+also holds the one reading of a segment in words (:func:`verdict`) and the
+one way its numbers are written (:func:`fmt_value`, :func:`fmt_p`).
 
 Effect size. For a segment of ``n1`` posts against the ``n2`` other posts
 we report the rank-biserial correlation in Kerby's (2014) simple-difference
@@ -23,14 +26,15 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Hashable, Mapping, Sequence
-from dataclasses import asdict, dataclass, field
-from typing import Any, cast
+from typing import Annotated, Any
 
 import numpy as np
 import numpy.typing as npt
+from pydantic import BaseModel, BeforeValidator, Field, computed_field
 from scipy import stats
 
 from .errors import InputError
+from .metrics import Metric
 
 #: Name of the catch-all topic segment; it is treated like any other.
 OTHER = "other"
@@ -39,6 +43,13 @@ OTHER = "other"
 DEFAULT_HOUR_EDGES: tuple[int, ...] = (0, 6, 9, 12, 15, 18, 21, 24)
 DEFAULT_LENGTH_EDGES: tuple[int, ...] = (0, 80, 160, 240, 10**9)
 
+#: Defaults of a comparison: segments with fewer posts are flagged, the
+#: median's bootstrap interval, and the level that steers the wording.
+DEFAULT_MIN_N = 20
+DEFAULT_CONFIDENCE = 0.95
+DEFAULT_RESAMPLES = 2000
+DEFAULT_ALPHA = 0.05
+
 # An upper length edge this large means "no upper limit" in labels.
 _OPEN_END = 10**9
 
@@ -46,21 +57,77 @@ _OPEN_END = 10**9
 # resamples) never allocates one giant index matrix.
 _BOOTSTRAP_BLOCK_CELLS = 4_000_000
 
-_NORM_TOL = 1e-3  # float32 vectors that claim unit length are within this
+
+# --------------------------------------------------------------------------
+# Parameter checks (each stated once; the use case calls these too)
+
+
+def check_min_n(min_n: int) -> int:
+    if isinstance(min_n, bool) or not isinstance(min_n, (int, np.integer)) or min_n < 1:
+        raise InputError("min_n must be a whole number of at least 1", field="min_n", value=min_n)
+    return int(min_n)
+
+
+def check_confidence(confidence: float) -> float:
+    if not 0.0 < confidence < 1.0:
+        raise InputError("confidence must lie strictly between 0 and 1", field="confidence", value=confidence)
+    return float(confidence)
+
+
+def check_resamples(n_resamples: int) -> int:
+    if n_resamples < 1:
+        raise InputError("n_resamples must be at least 1", field="n_resamples", value=n_resamples)
+    return int(n_resamples)
+
+
+def check_alpha(alpha: float) -> float:
+    if not 0.0 < alpha < 1.0:
+        raise InputError("alpha must lie strictly between 0 and 1", field="alpha", value=alpha)
+    return float(alpha)
+
+
+def check_threshold(threshold: float) -> float:
+    """A cosine similarity a post needs to join a topic."""
+    if (
+        isinstance(threshold, bool)
+        or not isinstance(threshold, (int, float, np.integer, np.floating))
+        or not -1.0 <= threshold <= 1.0
+    ):
+        raise InputError(
+            "threshold is a cosine similarity and must lie in -1..1", field="threshold", value=threshold
+        )
+    return float(threshold)
+
+
+def check_k(k: int) -> int:
+    """How many posts a topic takes in top-k mode."""
+    if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
+        raise InputError("k must be a whole number of at least 1", field="k", value=k)
+    return int(k)
+
+
+def check_params(*, min_n: int, confidence: float, n_resamples: int, alpha: float) -> None:
+    """The parameters of a comparison (:func:`compare_segments`)."""
+    check_min_n(min_n)
+    check_confidence(confidence)
+    check_resamples(n_resamples)
+    check_alpha(alpha)
 
 
 # --------------------------------------------------------------------------
-# Small helpers
+# Input helpers
 
 
-def _clean(x: Any) -> Any:
-    """JSON-ready scalar: numpy -> Python, NaN/inf -> None."""
-    if isinstance(x, (np.integer,)):
-        return int(x)
-    if isinstance(x, (float, np.floating)):
+def _finite_or_none(x: Any) -> Any:
+    """NaN or an infinity (no test was run) becomes None, which JSON carries."""
+    if isinstance(x, (int, float, np.integer, np.floating)) and not isinstance(x, bool):
         x = float(x)
         return x if math.isfinite(x) else None
     return x
+
+
+#: A number that may be absent: None where no test was run (NaN on input).
+Num = Annotated[float | None, BeforeValidator(_finite_or_none)]
 
 
 def _as_values(values: npt.ArrayLike, what: str = "values") -> np.ndarray:
@@ -111,63 +178,75 @@ def _ordered_names(names: Sequence[str], order: Sequence[str] | None) -> list[st
     return [name for name in dict.fromkeys(order) if name in present]
 
 
-def _check_unit_rows(vecs: np.ndarray, what: str) -> np.ndarray:
-    arr = np.asarray(vecs, dtype=np.float32)
-    if arr.ndim != 2:
-        raise InputError(f"{what} must be a 2-D array (one vector per row)", field=what)
-    if not np.isfinite(arr).all():
-        raise InputError(f"{what} has non-finite entries", field=what)
-    if arr.shape[0] and not np.allclose(np.linalg.norm(arr, axis=1), 1.0, atol=_NORM_TOL):
-        # Dot products are only cosines for unit vectors; catching this here
-        # beats silently wrong topic assignments.
-        raise InputError(f"{what} must be L2-normalised (unit length rows)", field=what)
-    return arr
+# --------------------------------------------------------------------------
+# Numbers and words for people (the CLI, the API and the page read these)
 
 
-def _similarities(post_vecs: np.ndarray, topic_vecs: np.ndarray) -> np.ndarray:
-    posts = _check_unit_rows(post_vecs, "post_vecs")
-    topics = _check_unit_rows(topic_vecs, "topic_vecs")
-    if topics.shape[0] == 0:
-        raise InputError("there are no topics to assign posts to", field="topic_vecs")
-    if posts.shape[1] != topics.shape[1]:
-        raise InputError(
-            f"post vectors have {posts.shape[1]} dimensions but topic vectors have {topics.shape[1]}",
-            field="topic_vecs",
-        )
-    return cast(np.ndarray, posts @ topics.T)  # cosine similarity, as rows are unit length
+def fmt_value(x: float | None, metric: str | None = None) -> str:
+    """A metric value as people read it: 2,310 impressions, 3.12% rate; 4.5
+    for a small count; "-" when there is none."""
+    if x is None or not math.isfinite(x):
+        return "-"
+    if metric == Metric.ENGAGEMENT_RATE:
+        return f"{100 * x:.2f}%"
+    # Thousands separators for big values (1.23e+03 is unfriendly), three
+    # significant digits below.
+    return f"{x:,.0f}" if abs(x) >= 100 else f"{x:.3g}"
+
+
+def fmt_p(p: float | None) -> str:
+    """A p-value: two significant digits, "< 0.001" below that."""
+    if p is None or not math.isfinite(p):
+        return "-"
+    return "< 0.001" if p < 0.001 else f"{p:.2g}"
+
+
+def verdict(seg: SegmentStats, *, metric: str | None, min_n: int, alpha: float) -> str:
+    """The one reading of a segment against the rest: which way, by how
+    much, how sure (or why nothing can be said)."""
+    if seg.too_small:
+        posts = "post" if seg.n == 1 else "posts"
+        return f"too few posts to judge: only {seg.n} {posts} (fewer than {min_n})"
+    numbers = f"median {fmt_value(seg.median, metric)} vs {fmt_value(seg.rest_median, metric)}"
+    if seg.p_holm is None or seg.rank_biserial is None:
+        return f"no test possible ({numbers}): the other posts are missing or all equal"
+    p = fmt_p(seg.p_holm)
+    stats_part = f"r = {seg.rank_biserial:+.2f}, Holm p {'' if p.startswith('<') else '= '}{p}"
+    if seg.p_holm < alpha:
+        way = "higher" if seg.rank_biserial > 0 else "lower"
+        return f"{way} than the rest: {numbers}; {stats_part}"
+    return f"no clear difference from the rest: {numbers}; {stats_part}"
 
 
 # --------------------------------------------------------------------------
-# Assignment of posts to segments
+# Assignment of posts to topics
 
 
-def assign_nearest_topic(post_vecs: np.ndarray, topic_vecs: np.ndarray, *, threshold: float) -> np.ndarray:
-    """For each post, the index of its most similar topic, or -1 ("other")
-    when even the best cosine similarity is below ``threshold``. Ties go to
-    the lower topic index."""
-    if not -1.0 <= threshold <= 1.0:
+def assign_nearest(similarities: npt.ArrayLike, *, threshold: float) -> np.ndarray:
+    """For each post (a row of cosine similarities, one column per topic),
+    the index of its most similar topic, or -1 ("other") when even the best
+    similarity is below ``threshold``. Ties go to the lower topic index."""
+    check_threshold(threshold)
+    # No cast: float32 similarities are compared as they come, so the
+    # threshold means the same here as beside a search's scores.
+    sims = np.asarray(similarities)
+    if sims.ndim != 2 or sims.dtype.kind != "f":
         raise InputError(
-            "threshold is a cosine similarity and must lie in -1..1", field="threshold", value=threshold
+            "similarities must be a 2-D array of numbers (one row per post)", field="similarities"
         )
-    sims = _similarities(post_vecs, topic_vecs)
+    if sims.shape[1] == 0:
+        raise InputError("there are no topics to assign posts to", field="similarities")
+    if not np.isfinite(sims).all():
+        raise InputError("similarities has non-finite entries", field="similarities")
     if sims.shape[0] == 0:
         return np.empty(0, dtype=np.int64)
-    best = np.argmax(sims, axis=1).astype(np.int64)
+    best: np.ndarray = np.argmax(sims, axis=1).astype(np.int64)
     best[sims[np.arange(sims.shape[0]), best] < threshold] = -1
-    return cast(np.ndarray, best)
+    return best
 
 
-def assign_top_k(post_vecs: np.ndarray, topic_vecs: np.ndarray, *, k: int) -> list[np.ndarray]:
-    """For each topic, the indices of its ``k`` most similar posts, most
-    similar first (ties: lower post index first). A post may belong to
-    several topics. With fewer than ``k`` posts every post is returned,
-    because a small history is normal, not an error."""
-    if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
-        raise InputError("k must be a whole number of at least 1", field="k", value=k)
-    sims = _similarities(post_vecs, topic_vecs)
-    # Stable sort of the negated similarity keeps ties in post order.
-    order = np.argsort(-sims, axis=0, kind="stable")[: int(k)]
-    return [order[:, t].astype(np.int64) for t in range(sims.shape[1])]
+# --------------------------------------------------------------------------
+# Hour buckets and length bands
 
 
 def _check_edges(edges: Sequence[float], what: str) -> np.ndarray:
@@ -242,20 +321,18 @@ def length_band(lengths: npt.ArrayLike, edges: Sequence[int] = DEFAULT_LENGTH_ED
 def bootstrap_median_ci(
     values: npt.ArrayLike,
     *,
-    confidence: float = 0.95,
-    n_resamples: int = 2000,
+    confidence: float = DEFAULT_CONFIDENCE,
+    n_resamples: int = DEFAULT_RESAMPLES,
     seed: int | Sequence[int] = 0,
 ) -> tuple[float, float]:
     """Percentile-bootstrap confidence interval of the median.
 
     One value gives a zero-width interval at that value: there is nothing
-    to resample, and the note on the segment says it is too small anyway.
+    to resample, and the reading of the segment says it is too small anyway.
     """
     arr = _as_values(values)
-    if not 0.0 < confidence < 1.0:
-        raise InputError("confidence must lie strictly between 0 and 1", field="confidence", value=confidence)
-    if n_resamples < 1:
-        raise InputError("n_resamples must be at least 1", field="n_resamples")
+    check_confidence(confidence)
+    check_resamples(n_resamples)
     n = arr.size
     if n == 1:
         return float(arr[0]), float(arr[0])
@@ -297,9 +374,8 @@ def holm(pvalues: npt.ArrayLike) -> np.ndarray:
     return out
 
 
-@dataclass
-class SegmentStats:
-    """One segment against all other posts. Test fields are NaN where no
+class SegmentStats(BaseModel):
+    """One segment against all other posts. Test fields are None where no
     test was run (fewer than 2 posts, or no other posts)."""
 
     name: str
@@ -307,86 +383,40 @@ class SegmentStats:
     median: float
     q1: float
     q3: float
-    ci_low: float
+    ci_low: float = Field(description="Bootstrap confidence interval of the median")
     ci_high: float
-    u_statistic: float = math.nan
-    p_value: float = math.nan
-    p_holm: float = math.nan
-    rank_biserial: float = math.nan
-    too_small: bool = False
-    note: str = ""
+    u_statistic: Num = Field(default=None, description="Mann-Whitney U of the segment vs the rest")
+    p_value: Num = None
+    p_holm: Num = Field(default=None, description="Holm-adjusted across the split's segments")
+    rank_biserial: Num = Field(default=None, description="+1: every post beats every other post")
+    too_small: bool
+    rest_median: Num = Field(description="Median of the posts outside the segment")
+    summary: str = Field(default="", description="The segment against the rest, in one line")
 
-    def to_dict(self) -> dict[str, Any]:
-        return {k: _clean(v) for k, v in asdict(self).items()}
+    @computed_field(description="The same reading as summary (its earlier name)")  # type: ignore[prop-decorator]
+    @property
+    def note(self) -> str:
+        return self.summary
 
 
-@dataclass
-class SegmentReport:
+class SegmentReport(BaseModel):
     """All segments of one split, plus the omnibus Kruskal–Wallis test."""
 
-    segments: list[SegmentStats]
-    kruskal_h: float | None
-    kruskal_p: float | None
+    segments: Sequence[SegmentStats]
+    kruskal_h: Num = Field(description="Kruskal-Wallis H across segments (none when segments overlap)")
+    kruskal_p: Num
     overall_median: float
     n_total: int
     confidence: float
     min_n: int
     alpha: float
-    overlapping: bool = False  # True when a post may sit in several segments
+    overlapping: bool = Field(default=False, description="True when a post may sit in several segments")
 
     def segment(self, name: str) -> SegmentStats:
         for seg in self.segments:
             if seg.name == name:
                 return seg
         raise KeyError(name)
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "segments": [s.to_dict() for s in self.segments],
-            "kruskal_h": _clean(self.kruskal_h),
-            "kruskal_p": _clean(self.kruskal_p),
-            "overall_median": _clean(self.overall_median),
-            "n_total": self.n_total,
-            "confidence": self.confidence,
-            "min_n": self.min_n,
-            "alpha": self.alpha,
-            "overlapping": self.overlapping,
-        }
-
-
-def _fmt(x: float) -> str:
-    """A number for a sentence: 1234.5 -> "1.23e+03" is unfriendly, so use
-    thousands separators for big values and 3 significant digits below."""
-    return f"{x:,.0f}" if abs(x) >= 100 else f"{x:.3g}"
-
-
-def _note(seg: SegmentStats, rest_median: float, min_n: int, alpha: float) -> str:
-    if seg.n < min_n:
-        posts = "post" if seg.n == 1 else "posts"
-        return f"only {seg.n} {posts}: too few to say anything"
-    if not math.isfinite(seg.p_holm):
-        return "no test possible: the other posts are missing or every value is the same"
-    if seg.p_holm < alpha:
-        way = "higher" if seg.rank_biserial > 0 else "lower"
-        return (
-            f"tends {way} than the other posts (median {_fmt(seg.median)} vs "
-            f"{_fmt(rest_median)}); unlikely to be chance (Holm-adjusted p = {seg.p_holm:.2g})"
-        )
-    return (
-        f"no clear difference from the other posts (median {_fmt(seg.median)} vs "
-        f"{_fmt(rest_median)}, Holm-adjusted p = {seg.p_holm:.2g})"
-    )
-
-
-def _check_params(min_n: int, confidence: float, n_resamples: int, alpha: float) -> None:
-    if min_n < 1:
-        raise InputError("min_n must be at least 1", field="min_n", value=min_n)
-    if not 0.0 < confidence < 1.0:
-        raise InputError("confidence must lie strictly between 0 and 1", field="confidence")
-    if n_resamples < 1:
-        raise InputError("n_resamples must be at least 1", field="n_resamples")
-    if not 0.0 < alpha < 1.0:
-        raise InputError("alpha must lie strictly between 0 and 1", field="alpha")
 
 
 def _compare(
@@ -399,10 +429,10 @@ def _compare(
     n_resamples: int,
     seed: int,
     alpha: float,
+    metric: str | None,
 ) -> SegmentReport:
     """Shared core: ``groups`` are (name, index array) pairs into ``arr``."""
-    segments: list[SegmentStats] = []
-    rest_medians: list[float] = []
+    found: list[dict[str, Any]] = []
     for pos, (name, idx) in enumerate(groups):
         seg_vals = arr[idx]
         mask = np.ones(arr.size, dtype=bool)
@@ -414,34 +444,38 @@ def _compare(
         lo, hi = bootstrap_median_ci(
             seg_vals, confidence=confidence, n_resamples=n_resamples, seed=(seed, pos)
         )
-        seg = SegmentStats(
-            name=name,
-            n=int(seg_vals.size),
-            median=float(med),
-            q1=float(q1),
-            q3=float(q3),
-            ci_low=lo,
-            ci_high=hi,
-            too_small=bool(seg_vals.size < min_n),
-        )
+        u = p = r = math.nan
         if seg_vals.size >= 2 and rest.size >= 1:
             res = stats.mannwhitneyu(seg_vals, rest, alternative="two-sided", method="auto")
-            seg.u_statistic = float(res.statistic)  # U1: the segment's U
-            seg.p_value = float(res.pvalue)
-            seg.rank_biserial = 2.0 * seg.u_statistic / (seg_vals.size * rest.size) - 1.0
-        segments.append(seg)
-        rest_medians.append(float(np.median(rest)) if rest.size else math.nan)
+            u = float(res.statistic)  # U1: the segment's U
+            p = float(res.pvalue)
+            r = 2.0 * u / (seg_vals.size * rest.size) - 1.0
+        found.append(
+            {
+                "name": name,
+                "n": int(seg_vals.size),
+                "median": float(med),
+                "q1": float(q1),
+                "q3": float(q3),
+                "ci_low": lo,
+                "ci_high": hi,
+                "u_statistic": u,
+                "p_value": p,
+                "rank_biserial": r,
+                "too_small": bool(seg_vals.size < min_n),
+                "rest_median": float(np.median(rest)) if rest.size else math.nan,
+            }
+        )
 
-    pvals = np.array([s.p_value for s in segments])
+    pvals = np.array([f["p_value"] for f in found])
     # Two segments that split the posts: "A vs rest" and "B vs rest" are
     # the same single test, so there is nothing to correct for.
-    adjusted = pvals if disjoint and len(segments) == 2 else holm(pvals)
-    for seg, p_adj, rest_med in zip(segments, adjusted, rest_medians, strict=True):
-        seg.p_holm = float(p_adj)
-        seg.note = _note(seg, rest_med, min_n, alpha)
+    adjusted = pvals if disjoint and len(found) == 2 else holm(pvals)
+    segments = [SegmentStats(**f, p_holm=float(p_adj)) for f, p_adj in zip(found, adjusted, strict=True)]
+    for seg in segments:
+        seg.summary = verdict(seg, metric=metric, min_n=min_n, alpha=alpha)
 
-    kh: float | None = None
-    kp: float | None = None
+    kh = kp = math.nan
     testable = [arr[idx] for _, idx in groups if idx.size >= 2]
     # Kruskal–Wallis assumes each post is in one group only.
     if disjoint and len(testable) >= 2:
@@ -466,22 +500,24 @@ def compare_segments(
     values: npt.ArrayLike,
     labels: Sequence[Hashable] | np.ndarray,
     *,
-    min_n: int = 20,
-    confidence: float = 0.95,
-    n_resamples: int = 2000,
+    min_n: int = DEFAULT_MIN_N,
+    confidence: float = DEFAULT_CONFIDENCE,
+    n_resamples: int = DEFAULT_RESAMPLES,
     seed: int = 0,
-    alpha: float = 0.05,
+    alpha: float = DEFAULT_ALPHA,
     order: Sequence[str] | None = None,
+    metric: str | None = None,
 ) -> SegmentReport:
     """Compare each segment (one label per post) with all other posts.
 
     Segments come out alphabetically with "other" last unless ``order`` is
     given (e.g. ``hour_labels(edges)``). ``alpha`` only steers the wording
-    of the notes; the numbers are reported in full either way.
+    of the readings, and ``metric`` how their numbers are written; the
+    numbers are reported in full either way.
     """
     arr = _as_values(values)
     names = _as_labels(labels, arr.size)
-    _check_params(min_n, confidence, n_resamples, alpha)
+    check_params(min_n=min_n, confidence=confidence, n_resamples=n_resamples, alpha=alpha)
     ordered = _ordered_names(names, order)
     if len(ordered) < 2:
         raise InputError(
@@ -499,6 +535,7 @@ def compare_segments(
         n_resamples=n_resamples,
         seed=seed,
         alpha=alpha,
+        metric=metric,
     )
 
 
@@ -506,18 +543,19 @@ def compare_groups(
     values: npt.ArrayLike,
     groups: Mapping[str, Sequence[int] | np.ndarray],
     *,
-    min_n: int = 20,
-    confidence: float = 0.95,
-    n_resamples: int = 2000,
+    min_n: int = DEFAULT_MIN_N,
+    confidence: float = DEFAULT_CONFIDENCE,
+    n_resamples: int = DEFAULT_RESAMPLES,
     seed: int = 0,
-    alpha: float = 0.05,
+    alpha: float = DEFAULT_ALPHA,
+    metric: str | None = None,
 ) -> SegmentReport:
-    """Like :func:`compare_segments` for groups that may overlap, such as the
-    output of :func:`assign_top_k` (name -> post indices). Each group is
+    """Like :func:`compare_segments` for groups that may overlap, such as
+    each topic's nearest posts (name -> post indices). Each group is
     compared with the posts outside it. No Kruskal–Wallis test is given,
     because it needs every post in exactly one group."""
     arr = _as_values(values)
-    _check_params(min_n, confidence, n_resamples, alpha)
+    check_params(min_n=min_n, confidence=confidence, n_resamples=n_resamples, alpha=alpha)
     if len(groups) < 2:
         raise InputError("a split needs at least two groups to compare", field="groups")
     pairs: list[tuple[str, np.ndarray]] = []
@@ -537,6 +575,7 @@ def compare_groups(
         n_resamples=n_resamples,
         seed=seed,
         alpha=alpha,
+        metric=metric,
     )
 
 
@@ -544,34 +583,41 @@ def compare_groups(
 # Two-way table
 
 
-@dataclass
-class TwoWayTable:
-    """Post count and median of the metric per (row, column) cell; cells
-    with no posts have median NaN."""
+class TwoWayCell(BaseModel):
+    row: str
+    col: str
+    n: int
+    median: Num
+    too_small: bool
 
+
+class TwoWayTable(BaseModel):
+    """Post count and median of the metric per (row, column) cell; cells
+    with no posts have no median."""
+
+    row_by: str = Field(description="What the rows split by (topic)")
+    col_by: str = Field(description="What the columns split by")
     rows: list[str]
     cols: list[str]
-    n: np.ndarray  # int, shape (len(rows), len(cols))
-    median: np.ndarray  # float, same shape
     min_n: int
-    too_small: np.ndarray = field(init=False)
+    cells: list[TwoWayCell] = Field(description="Row by row, each row's columns in order")
 
-    def __post_init__(self) -> None:
-        self.too_small = self.n < self.min_n
+    def _grid(self, values: list[Any], dtype: type) -> np.ndarray:
+        return np.asarray(values, dtype=dtype).reshape(len(self.rows), len(self.cols))
 
-    def to_dict(self) -> dict[str, Any]:
-        cells = [
-            {
-                "row": r,
-                "col": c,
-                "n": int(self.n[i, j]),
-                "median": _clean(self.median[i, j]),
-                "too_small": bool(self.too_small[i, j]),
-            }
-            for i, r in enumerate(self.rows)
-            for j, c in enumerate(self.cols)
-        ]
-        return {"rows": self.rows, "cols": self.cols, "min_n": self.min_n, "cells": cells}
+    @property
+    def n(self) -> np.ndarray:
+        """Post counts, shape (rows, cols)."""
+        return self._grid([c.n for c in self.cells], np.int64)
+
+    @property
+    def median(self) -> np.ndarray:
+        """Medians, shape (rows, cols); NaN for an empty cell."""
+        return self._grid([math.nan if c.median is None else c.median for c in self.cells], np.float64)
+
+    @property
+    def too_small(self) -> np.ndarray:
+        return self._grid([c.too_small for c in self.cells], np.bool_)
 
 
 def two_way(
@@ -579,7 +625,9 @@ def two_way(
     row_labels: Sequence[Hashable] | np.ndarray,
     col_labels: Sequence[Hashable] | np.ndarray,
     *,
-    min_n: int = 20,
+    row_by: str = "rows",
+    col_by: str = "columns",
+    min_n: int = DEFAULT_MIN_N,
     row_order: Sequence[str] | None = None,
     col_order: Sequence[str] | None = None,
 ) -> TwoWayTable:
@@ -588,18 +636,23 @@ def two_way(
     arr = _as_values(values)
     rows = _as_labels(row_labels, arr.size, "row_labels")
     cols = _as_labels(col_labels, arr.size, "col_labels")
-    if min_n < 1:
-        raise InputError("min_n must be at least 1", field="min_n", value=min_n)
+    check_min_n(min_n)
     row_names = _ordered_names(rows, row_order)
     col_names = _ordered_names(cols, col_order)
-    r_idx = {name: i for i, name in enumerate(row_names)}
-    c_idx = {name: j for j, name in enumerate(col_names)}
-    cell_vals: dict[tuple[int, int], list[float]] = {}
+    cell_vals: dict[tuple[str, str], list[float]] = {}
     for v, r, c in zip(arr, rows, cols, strict=True):
-        cell_vals.setdefault((r_idx[r], c_idx[c]), []).append(float(v))
-    n = np.zeros((len(row_names), len(col_names)), dtype=np.int64)
-    med = np.full(n.shape, np.nan)
-    for (i, j), vals in cell_vals.items():
-        n[i, j] = len(vals)
-        med[i, j] = float(np.median(vals))
-    return TwoWayTable(rows=row_names, cols=col_names, n=n, median=med, min_n=min_n)
+        cell_vals.setdefault((r, c), []).append(float(v))
+    cells = []
+    for r in row_names:
+        for c in col_names:
+            vals = cell_vals.get((r, c), [])
+            cells.append(
+                TwoWayCell(
+                    row=r,
+                    col=c,
+                    n=len(vals),
+                    median=float(np.median(vals)) if vals else None,
+                    too_small=len(vals) < min_n,
+                )
+            )
+    return TwoWayTable(row_by=row_by, col_by=col_by, rows=row_names, cols=col_names, min_n=min_n, cells=cells)

@@ -11,12 +11,13 @@ from typing import Protocol
 
 from models.embedding import Embedder
 
+from .retrieval import Retriever
 from .settings import Settings
 from .store import Store
 
 
 class DataDir(Protocol):
-    """A data directory's store, settings and embedder (a ``Workspace``)."""
+    """A data directory's store, settings, embedder and retrieval (a ``Workspace``)."""
 
     @property
     def store(self) -> Store: ...
@@ -26,6 +27,9 @@ class DataDir(Protocol):
 
     @property
     def embedder(self) -> Embedder: ...
+
+    @property
+    def retrieval(self) -> Retriever: ...
 
     def writing(self, what: str) -> AbstractContextManager[None]:
         """Hold the data directory's write lock for ``what`` (service.locking)."""

@@ -70,6 +70,20 @@ class Retriever:
             for row_ids, row_sims in zip(ids, sims, strict=True)
         ]
 
+    def similarities(self, vectors: np.ndarray, pks: np.ndarray) -> np.ndarray:
+        """Cosine similarity of each given post (store row id) to each vector,
+        shape (len(pks), len(vectors)), from the index's own stored vectors.
+
+        For questions that need every post's score rather than the nearest
+        few (topics: each post's nearest phrase); exact also where the index
+        searches approximately.
+        """
+        queries = np.asarray(vectors, dtype=np.float32)
+        with self._lock:
+            stored = self._index().vectors_of(np.asarray(pks, dtype=np.int64))
+        scores: np.ndarray = stored @ queries.T  # unit vectors: the dot product is the cosine
+        return scores
+
     # History rows -----------------------------------------------------------
 
     def rows(self, view: HistoryView, vec: np.ndarray, k: int, allowed: np.ndarray | None = None) -> Found:

@@ -2,18 +2,21 @@
 hours, weekdays, forms (link, media, length) and accounts.
 
 A library first: the CLI (``sounding segments``) and the API
-(``POST /v1/segments``) both call :func:`segment` and render what it returns.
-The statistics live in :mod:`models.segments`, the figure in
-:mod:`models.plots`; this module gathers the posts, labels them and writes
-the plain-language lines people read.
+(``POST /v1/segments``) both call :func:`segment` and show what it returns,
+a :class:`SegmentResult` (the API sends it as it is; the CLI prints it).
+The statistics, the reading of each segment in words and the way its
+numbers are written live in :mod:`models.segments`, the figure in
+:mod:`models.plots`; this module is the use case: it reads the history,
+chooses the posts, finds each topic's posts and labels the rest.
 
 Topics need no labels: the user names each topic with a short phrase, the
 phrase is embedded with the workspace's embedder (the same model and the
 same normalisation as the stored post vectors), and posts are matched by
-cosine similarity. A topic may list alternative phrases separated by ``|``
-("events | tickets | what's on"); its vector is then the renormalised mean
-of the phrases' vectors, which catches a theme better than any one short
-phrase does.
+cosine similarity through the one retrieval component
+(:class:`service.retrieval.Retriever`). A topic may list alternative
+phrases separated by ``|`` ("events | tickets | what's on"); its vector is
+then the renormalised mean of the phrases' vectors, which catches a theme
+better than any one short phrase does.
 
 Differences between segments are associations in this team's own history,
 not causes: a topic posted mostly at good hours looks better partly because
@@ -22,30 +25,37 @@ of the hours.
 
 from __future__ import annotations
 
-import math
 import typing
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass
 from datetime import datetime, timedelta
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
+from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_serializer
 
 from models.embedding import normalise_text
 from models.errors import InputError, NotReady
 from models.metrics import DEFAULT_METRIC, METRIC_COLUMNS, check_target, target_value
 from models.plots import FORMATS, plot_segments
 from models.segments import (
+    DEFAULT_ALPHA,
+    DEFAULT_CONFIDENCE,
     DEFAULT_HOUR_EDGES,
     DEFAULT_LENGTH_EDGES,
+    DEFAULT_MIN_N,
+    DEFAULT_RESAMPLES,
     OTHER,
+    Num,
     SegmentReport,
     SegmentStats,
     TwoWayTable,
-    assign_nearest_topic,
-    assign_top_k,
+    assign_nearest,
     bucket_hours,
+    check_k,
+    check_min_n,
+    check_threshold,
     compare_groups,
     compare_segments,
     hour_labels,
@@ -59,8 +69,11 @@ from .history import local_clock
 from .timeparse import now_utc
 
 #: What a one-way split can be made by, besides topics.
-BY_CHOICES: tuple[str, ...] = ("hour", "weekday", "link", "media", "length", "account")
-MODES: tuple[str, ...] = ("nearest", "top-k")
+By = Literal["hour", "weekday", "link", "media", "length", "account"]
+BY_CHOICES: tuple[str, ...] = typing.get_args(By)
+#: How posts join topics: each post its nearest phrase, or each phrase its k nearest posts.
+Mode = Literal["nearest", "top-k"]
+MODES: tuple[str, ...] = typing.get_args(Mode)
 TOPIC = "topic"
 
 #: Cosine similarity a post needs with its nearest phrase to join that topic.
@@ -69,6 +82,9 @@ TOPIC = "topic"
 #: the median best similarity of a post to six one-phrase topics is 0.35).
 DEFAULT_THRESHOLD = 0.3
 DEFAULT_K = 100
+#: Example posts shown per topic segment, and the most that may be asked for.
+DEFAULT_EXAMPLES = 3
+MAX_EXAMPLES = 20
 #: Fewer posts with the metric than this, and no split is worth reading.
 MIN_POSTS = 20
 MAX_TOPICS = 20
@@ -103,17 +119,20 @@ class SegmentRequest:
     hour_edges: Sequence[int] = DEFAULT_HOUR_EDGES
     length_edges: Sequence[int] = DEFAULT_LENGTH_EDGES
     account: str | None = None
-    min_n: int = 20
-    confidence: float = 0.95
-    n_resamples: int = 2000
-    alpha: float = 0.05
-    examples: int = 3
+    min_n: int = DEFAULT_MIN_N
+    confidence: float = DEFAULT_CONFIDENCE
+    n_resamples: int = DEFAULT_RESAMPLES
+    alpha: float = DEFAULT_ALPHA
+    examples: int = DEFAULT_EXAMPLES
     seed: int = 0
 
 
-@dataclass(frozen=True, slots=True)
-class Topic:
-    name: str  # the segment's name: the phrases as given, tidied
+class Topic(BaseModel):
+    """A topic as the answer names it: its phrases as given, tidied."""
+
+    model_config = ConfigDict(frozen=True)
+
+    name: str
     phrases: tuple[str, ...]
 
 
@@ -157,7 +176,7 @@ def parse_topics(raw: Sequence[str]) -> list[Topic]:
         if key in seen:
             raise InputError(f"topic {i + 1} ({name!r}) repeats topic {seen[key] + 1}", field=f"topics.{i}")
         seen[key] = i
-        topics.append(Topic(name, tuple(parts)))
+        topics.append(Topic(name=name, phrases=tuple(parts)))
     return topics
 
 
@@ -215,16 +234,17 @@ def _check(req: SegmentRequest) -> list[Topic]:
         raise InputError(
             f"unknown mode {req.mode!r}; choose one of {', '.join(MODES)}", field="mode", value=req.mode
         )
-    if not (isinstance(req.threshold, (int, float)) and -1.0 <= req.threshold <= 1.0):
-        raise InputError(
-            "threshold is a cosine similarity and must lie in -1..1", field="threshold", value=req.threshold
-        )
-    if isinstance(req.k, bool) or not isinstance(req.k, int) or req.k < 1:
-        raise InputError("k must be a whole number of at least 1", field="k", value=req.k)
-    if isinstance(req.examples, bool) or not isinstance(req.examples, int) or not 0 <= req.examples <= 20:
-        raise InputError("examples must be a whole number from 0 to 20", field="examples")
-    if req.min_n < 1:
-        raise InputError("min_n must be at least 1", field="min_n", value=req.min_n)
+    check_threshold(req.threshold)
+    check_k(req.k)
+    if (
+        isinstance(req.examples, bool)
+        or not isinstance(req.examples, int)
+        or not 0 <= req.examples <= MAX_EXAMPLES
+    ):
+        raise InputError(f"examples must be a whole number from 0 to {MAX_EXAMPLES}", field="examples")
+    # The rest of the comparison's parameters are checked where they are used
+    # (models.segments.check_params); min_n is needed before that, for warnings.
+    check_min_n(req.min_n)
     _check_hour_edges(req.hour_edges)
     _check_length_edges(req.length_edges)
     return topics
@@ -234,65 +254,118 @@ def _check(req: SegmentRequest) -> list[Topic]:
 # The result
 
 
-@dataclass(slots=True)
-class Example:
+class Example(BaseModel):
     """A post that a topic phrase caught, to show what the phrase means."""
 
     post_id: str
     account: str
     posted_at: datetime
     text: str
-    similarity: float
-    value: float
+    similarity: float = Field(description="Cosine similarity to the topic's phrase(s)")
+    value: Num = Field(description="The post's value of the metric")
 
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "post_id": self.post_id,
-            "account": self.account,
-            "posted_at": self.posted_at.isoformat(),
-            "text": self.text,
-            "similarity": round(self.similarity, 4),
-            "value": _json_num(self.value),
-        }
+    @field_serializer("similarity")
+    def _rounded(self, similarity: float) -> float:
+        return round(similarity, 4)  # four places tell posts apart; more is noise
 
 
-@dataclass(slots=True)
-class Split:
-    """One one-way split: the report plus what people read and what the
-    figure needs (values and per-post labels or overlapping groups)."""
+class SplitSegment(SegmentStats):
+    """One segment of a split, with the posts that show a topic's meaning."""
 
-    by: str  # "topic" or one of BY_CHOICES
+    examples: list[Example] | None = Field(
+        default=None,
+        description="Topic splits only: the posts most similar to the phrase; "
+        "for 'other', the posts closest to a topic that still missed",
+    )
+
+
+class Split(SegmentReport):
+    """One one-way split: the statistics of its segments, what they were
+    split by, and (kept out of the JSON) what the figure needs: the values
+    and the per-post labels or overlapping groups."""
+
+    by: str = Field(description="topic, or the by of the request")
     title: str
-    report: SegmentReport
-    rest_medians: dict[str, float]
-    summaries: dict[str, str]
-    values: np.ndarray
-    labels: np.ndarray | Mapping[str, np.ndarray]
-    examples: dict[str, list[Example]] = field(default_factory=dict)
-    settings: dict[str, Any] = field(default_factory=dict)
+    mode: str | None = None
+    threshold: float | None = None
+    k: int | None = None
+    topics: list[Topic] | None = None
+    segments: list[SplitSegment]
 
-    def to_dict(self) -> dict[str, Any]:
-        rep = self.report.to_dict()
-        segs = []
-        for seg, d in zip(self.report.segments, rep.pop("segments"), strict=True):
-            d["rest_median"] = _json_num(self.rest_medians[seg.name])
-            d["summary"] = self.summaries[seg.name]
-            if self.by == TOPIC:
-                d["examples"] = [e.to_dict() for e in self.examples.get(seg.name, [])]
-            segs.append(d)
-        return {"by": self.by, "title": self.title, **self.settings, **rep, "segments": segs}
+    _values: np.ndarray = PrivateAttr(default_factory=lambda: np.zeros(0))
+    _labels: np.ndarray | Mapping[str, np.ndarray] = PrivateAttr(default_factory=dict)
+
+    @classmethod
+    def of(
+        cls,
+        report: SegmentReport,
+        *,
+        by: str,
+        title: str,
+        values: np.ndarray,
+        labels: np.ndarray | Mapping[str, np.ndarray],
+        examples: Mapping[str, list[Example]] | None = None,
+        mode: str | None = None,
+        threshold: float | None = None,
+        k: int | None = None,
+        topics: list[Topic] | None = None,
+    ) -> Split:
+        """The split of ``report``; ``examples`` (by segment name) for topics."""
+        segments = [
+            SplitSegment(
+                **seg.model_dump(exclude={"note"}),
+                examples=None if examples is None else examples.get(seg.name, []),
+            )
+            for seg in report.segments
+        ]
+        split = cls(
+            **report.model_dump(exclude={"segments"}),
+            segments=segments,
+            by=by,
+            title=title,
+            mode=mode,
+            threshold=threshold,
+            k=k,
+            topics=topics,
+        )
+        split._values, split._labels = values, labels
+        return split
+
+    def segment(self, name: str) -> SplitSegment:
+        for seg in self.segments:
+            if seg.name == name:
+                return seg
+        raise KeyError(name)
+
+    @property
+    def values(self) -> np.ndarray:
+        """The metric of each post in the split."""
+        return self._values
+
+    @property
+    def labels(self) -> np.ndarray | Mapping[str, np.ndarray]:
+        """Each post's segment, or (overlapping segments) each segment's post rows."""
+        return self._labels
 
 
-@dataclass(slots=True)
-class SegmentResult:
+class LeftOut(BaseModel):
+    no_metric: int = Field(description="Posts without the metric")
+    still_gathering: int = Field(
+        description="Posts whose metrics are not final yet (younger than the maturity window)"
+    )
+
+
+class SegmentResult(BaseModel):
+    """The answer to a segments request (HTTP, CLI ``--json`` and page alike)."""
+
     metric: str
     account: str | None
     n_posts: int
-    left_out: dict[str, int]
+    left_out: LeftOut
     splits: list[Split]
     two_way: TwoWayTable | None = None
-    two_way_axes: tuple[str, str] | None = None
-    warnings: list[str] = field(default_factory=list)
+    warnings: list[str] = Field(default_factory=list)
+    note: str = NOTE
 
     def split(self, by: str) -> Split:
         for s in self.splits:
@@ -303,61 +376,6 @@ class SegmentResult:
             field="plot",
             value=by,
         )
-
-    def to_dict(self) -> dict[str, Any]:
-        tw = None
-        if self.two_way is not None and self.two_way_axes is not None:
-            tw = {"row_by": self.two_way_axes[0], "col_by": self.two_way_axes[1], **self.two_way.to_dict()}
-        return {
-            "metric": self.metric,
-            "account": self.account,
-            "n_posts": self.n_posts,
-            "left_out": dict(self.left_out),
-            "splits": [s.to_dict() for s in self.splits],
-            "two_way": tw,
-            "warnings": list(self.warnings),
-            "note": NOTE,
-        }
-
-
-# --------------------------------------------------------------------------
-# Words and numbers for people
-
-
-def fmt_value(x: float | None, metric: str) -> str:
-    """A metric value as people read it: 2,310 impressions, 3.12% rate."""
-    if x is None or not math.isfinite(x):
-        return "-"
-    if metric == "engagement_rate":
-        return f"{100 * x:.2f}%"
-    return f"{x:,.0f}" if abs(x) >= 100 else f"{x:.3g}"
-
-
-def fmt_p(p: float | None) -> str:
-    if p is None or not math.isfinite(p):
-        return "-"
-    return "< 0.001" if p < 0.001 else f"{p:.2g}"
-
-
-def summary_line(seg: SegmentStats, rest_median: float, *, metric: str, min_n: int, alpha: float) -> str:
-    """One short line per segment: which way, by how much, how sure."""
-    if seg.too_small:
-        posts = "post" if seg.n == 1 else "posts"
-        return f"too few posts to judge: only {seg.n} {posts} (fewer than {min_n})"
-    numbers = f"median {fmt_value(seg.median, metric)} vs {fmt_value(rest_median, metric)}"
-    if not math.isfinite(seg.p_holm):
-        return f"no test possible ({numbers}): the other posts are missing or all equal"
-    p = fmt_p(seg.p_holm)
-    stats_part = f"r = {seg.rank_biserial:+.2f}, Holm p {'' if p.startswith('<') else '= '}{p}"
-    if seg.p_holm < alpha:
-        way = "higher" if seg.rank_biserial > 0 else "lower"
-        return f"{way} than the rest: {numbers}; {stats_part}"
-    return f"no clear difference from the rest: {numbers}; {stats_part}"
-
-
-def _json_num(x: float) -> float | None:
-    x = float(x)
-    return x if math.isfinite(x) else None
 
 
 # --------------------------------------------------------------------------
@@ -437,34 +455,6 @@ def _by_labels(posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray,
 # Building the splits
 
 
-def _finish(
-    by: str,
-    title: str,
-    report: SegmentReport,
-    values: np.ndarray,
-    members: dict[str, np.ndarray],
-    labels: np.ndarray | Mapping[str, np.ndarray],
-    req: SegmentRequest,
-) -> Split:
-    rest_medians: dict[str, float] = {}
-    summaries: dict[str, str] = {}
-    for seg in report.segments:
-        mask = np.ones(values.size, dtype=bool)
-        mask[members[seg.name]] = False
-        rest = float(np.median(values[mask])) if mask.any() else math.nan
-        rest_medians[seg.name] = rest
-        summaries[seg.name] = summary_line(seg, rest, metric=req.metric, min_n=req.min_n, alpha=req.alpha)
-    return Split(
-        by=by,
-        title=title,
-        report=report,
-        rest_medians=rest_medians,
-        summaries=summaries,
-        values=values,
-        labels=labels,
-    )
-
-
 def _stats_kwargs(req: SegmentRequest) -> dict[str, Any]:
     return {
         "min_n": req.min_n,
@@ -472,6 +462,7 @@ def _stats_kwargs(req: SegmentRequest) -> dict[str, Any]:
         "n_resamples": req.n_resamples,
         "seed": req.seed,
         "alpha": req.alpha,
+        "metric": req.metric,
     }
 
 
@@ -487,8 +478,7 @@ def _by_split(posts: _Posts, by: str, req: SegmentRequest) -> tuple[Split, np.nd
             hint="drop --account for a split by account" if by == "account" else None,
         )
     report = compare_segments(posts.values, labels, order=order, **_stats_kwargs(req))
-    members = {name: np.flatnonzero(labels == name) for name in present}
-    split = _finish(by, title, report, posts.values, members, labels, req)
+    split = Split.of(report, by=by, title=title, values=posts.values, labels=labels)
     return split, labels, present
 
 
@@ -524,81 +514,121 @@ def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[
     ]
 
 
+def _nearest_members(
+    sims: np.ndarray, names: list[str], req: SegmentRequest, warnings: list[str]
+) -> tuple[dict[str, np.ndarray], np.ndarray]:
+    """Nearest mode: each post joins its most similar topic if it reaches the
+    threshold, else "other". The members (name -> post rows) and each post's label."""
+    best = assign_nearest(sims, threshold=req.threshold)
+    members: dict[str, np.ndarray] = {}
+    for j, name in enumerate(names):
+        idx = np.flatnonzero(best == j)
+        if idx.size:
+            members[name] = idx
+        else:
+            warnings.append(
+                f"topic {name!r} caught no posts at threshold {req.threshold:g}: no post is "
+                "closer to it than to another topic and above the threshold; try another "
+                "phrase or a lower threshold"
+            )
+    if (best < 0).any():
+        members[OTHER] = np.flatnonzero(best < 0)
+    if len(members) < 2:
+        only = next(iter(members), OTHER)
+        raise InputError(
+            f"every post fell in one topic segment ({only!r}), so there is nothing to compare",
+            field="topics",
+            hint="add a topic, or raise the threshold"
+            if only != OTHER
+            else "lower the threshold or try other phrases",
+        )
+    labels = np.asarray([names[b] if b >= 0 else OTHER for b in best], dtype=object)
+    return members, labels
+
+
+def _top_k_members(
+    ws: DataDir,
+    topic_vecs: np.ndarray,
+    pks: np.ndarray,
+    names: list[str],
+    req: SegmentRequest,
+    warnings: list[str],
+) -> dict[str, np.ndarray]:
+    """Top-k mode: each topic takes its k nearest posts (a post may join several);
+    "other" holds the posts no topic took."""
+    n = len(pks)
+    if req.k >= n:
+        warnings.append(
+            f"k = {req.k} is not below the {n} posts: every topic takes every "
+            "post, so the topics cannot differ; use a smaller k"
+        )
+    hits = ws.retrieval.nearest(topic_vecs, min(req.k, n), allowed_pks=pks)
+    row_of = {int(pk): i for i, pk in enumerate(pks)}
+    members = {
+        name: np.sort(np.array([row_of[pk] for pk, _ in found], dtype=np.int64))
+        for name, found in zip(names, hits, strict=True)
+    }
+    caught = np.zeros(n, dtype=bool)
+    for idx in members.values():
+        caught[idx] = True
+    if (~caught).any():
+        members[OTHER] = np.flatnonzero(~caught)
+    if len(members) < 2:
+        raise InputError(
+            "one topic whose k nearest posts are every post leaves nothing to compare",
+            field="k",
+            hint="use a smaller k",
+        )
+    if len(names) > 1:
+        warnings.append(
+            "in top-k mode a post may sit in several topics, so segments "
+            "overlap and there is no Kruskal–Wallis test across them"
+        )
+    return members
+
+
 def _topic_split(
     ws: DataDir, posts: _Posts, topics: list[Topic], req: SegmentRequest, warnings: list[str]
 ) -> tuple[Split, dict[str, np.ndarray]]:
     """The topic split and its members (name -> post rows), which may
     overlap in top-k mode."""
-    post_vecs = ws.store.vectors(list(posts.frame["vector_key"]))
     topic_vecs = _topic_vectors(ws, topics)
-    sims = post_vecs @ topic_vecs.T
-    n = posts.values.size
+    pks = posts.frame["pk"].to_numpy(dtype=np.int64)
+    # Every post's similarity to every topic, scored by the retrieval component
+    # (nearest mode needs all of them; both modes show examples from them).
+    sims = ws.retrieval.similarities(topic_vecs, pks)
     names = [t.name for t in topics]
-    members: dict[str, np.ndarray] = {}
-    if req.mode == "nearest":
-        best = assign_nearest_topic(post_vecs, topic_vecs, threshold=req.threshold)
-        for j, name in enumerate(names):
-            idx = np.flatnonzero(best == j)
-            if idx.size:
-                members[name] = idx
-            else:
-                warnings.append(
-                    f"topic {name!r} caught no posts at threshold {req.threshold:g}: no post is "
-                    "closer to it than to another topic and above the threshold; try another "
-                    "phrase or a lower threshold"
-                )
-        if (best < 0).any():
-            members[OTHER] = np.flatnonzero(best < 0)
-        if len(members) < 2:
-            only = next(iter(members), OTHER)
-            raise InputError(
-                f"every post fell in one topic segment ({only!r}), so there is nothing to compare",
-                field="topics",
-                hint="add a topic, or raise the threshold"
-                if only != OTHER
-                else "lower the threshold or try other phrases",
-            )
-        labels = np.asarray([names[b] if b >= 0 else OTHER for b in best], dtype=object)
+    labels: np.ndarray | Mapping[str, np.ndarray]
+    nearest = req.mode == "nearest"
+    if nearest:
+        members, labels = _nearest_members(sims, names, req, warnings)
         report = compare_segments(posts.values, labels, order=[*names, OTHER], **_stats_kwargs(req))
         title = f"topic (nearest phrase, similarity at least {req.threshold:g}; else {OTHER})"
-        settings: dict[str, Any] = {"mode": "nearest", "threshold": req.threshold}
-        plot_labels: np.ndarray | Mapping[str, np.ndarray] = labels
     else:
-        if req.k >= n:
-            warnings.append(
-                f"k = {req.k} is not below the {n} posts: every topic takes every "
-                "post, so the topics cannot differ; use a smaller k"
-            )
-        groups = assign_top_k(post_vecs, topic_vecs, k=req.k)
-        members = {name: np.sort(g) for name, g in zip(names, groups, strict=True)}
-        caught = np.zeros(n, dtype=bool)
-        for g in groups:
-            caught[g] = True
-        if (~caught).any():
-            members[OTHER] = np.flatnonzero(~caught)
-        if len(members) < 2:
-            raise InputError(
-                "one topic whose k nearest posts are every post leaves nothing to compare",
-                field="k",
-                hint="use a smaller k",
-            )
+        members = _top_k_members(ws, topic_vecs, pks, names, req, warnings)
+        labels = members
         report = compare_groups(posts.values, members, **_stats_kwargs(req))
         title = f"topic (the {req.k} posts nearest each phrase; {OTHER}: posts in none)"
-        settings = {"mode": "top-k", "k": req.k}
-        plot_labels = members
-        if len(topics) > 1:
-            warnings.append(
-                "in top-k mode a post may sit in several topics, so segments "
-                "overlap and there is no Kruskal–Wallis test across them"
-            )
-    split = _finish(TOPIC, title, report, posts.values, members, plot_labels, req)
-    split.settings = {**settings, "topics": [{"name": t.name, "phrases": list(t.phrases)} for t in topics]}
-    for j, name in enumerate(names):
-        if name in members:
-            split.examples[name] = _examples(posts, members[name], sims[:, j], req.examples)
+    examples = {
+        name: _examples(posts, members[name], sims[:, j], req.examples)
+        for j, name in enumerate(names)
+        if name in members
+    }
     if OTHER in members:
         # The "other" posts closest to any topic: what the threshold just missed.
-        split.examples[OTHER] = _examples(posts, members[OTHER], sims.max(axis=1), req.examples)
+        examples[OTHER] = _examples(posts, members[OTHER], sims.max(axis=1), req.examples)
+    split = Split.of(
+        report,
+        by=TOPIC,
+        title=title,
+        values=posts.values,
+        labels=labels,
+        examples=examples,
+        mode=req.mode,
+        threshold=req.threshold if nearest else None,
+        k=None if nearest else req.k,
+        topics=topics,
+    )
     return split, members
 
 
@@ -607,7 +637,7 @@ def _small_warnings(split: Split, min_n: int) -> list[str]:
     return [
         f"{what} {seg.name!r} has only {seg.n} post{'s' if seg.n != 1 else ''} (fewer than "
         f"{min_n}): too few to trust its median or its test"
-        for seg in split.report.segments
+        for seg in split.segments
         if seg.too_small
     ]
 
@@ -632,7 +662,7 @@ def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) ->
         warnings.extend(_small_warnings(s, req.min_n))
 
     table = None
-    if members is not None and by_labels is not None:
+    if members is not None and by_labels is not None and req.by is not None:
         # One row per (topic, post) pair, so top-k topics that share posts
         # each count them; in nearest mode this is one row per post.
         rows = np.concatenate([np.full(idx.size, name, dtype=object) for name, idx in members.items()])
@@ -641,6 +671,8 @@ def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) ->
             posts.values[picks],
             rows,
             by_labels[picks],
+            row_by=TOPIC,
+            col_by=req.by,
             min_n=req.min_n,
             row_order=list(members),
             col_order=by_order,
@@ -661,10 +693,9 @@ def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) ->
         metric=req.metric,
         account=req.account,
         n_posts=int(posts.values.size),
-        left_out=left_out,
+        left_out=LeftOut(**left_out),
         splits=splits,
         two_way=table,
-        two_way_axes=(TOPIC, req.by) if table is not None and req.by else None,
         warnings=warnings,
     )
 
@@ -675,16 +706,16 @@ def render(result: SegmentResult, *, by: str | None = None, fmt: str = "png") ->
     if fmt not in FORMATS:
         raise InputError(f"figure format must be one of {', '.join(FORMATS)}", field="format", value=fmt)
     split = result.split(by) if by else result.splits[0]
-    names = plot_names([seg.name for seg in split.report.segments])
-    report = replace(
-        split.report, segments=[replace(seg, name=names[seg.name]) for seg in split.report.segments]
+    names = plot_names([seg.name for seg in split.segments])
+    shown = split.model_copy(
+        update={"segments": [seg.model_copy(update={"name": names[seg.name]}) for seg in split.segments]}
     )
     labels: np.ndarray | dict[str, np.ndarray]
     if isinstance(split.labels, Mapping):
         labels = {names[k]: v for k, v in split.labels.items()}
     else:
         labels = np.asarray([names[x] for x in split.labels], dtype=object)
-    return plot_segments(report, split.values, labels, metric=result.metric, fmt=fmt)
+    return plot_segments(shown, split.values, labels, metric=result.metric, fmt=fmt)
 
 
 def plot_names(names: Sequence[str], width: int = PLOT_NAME_CHARS) -> dict[str, str]:
@@ -706,23 +737,26 @@ def plot_names(names: Sequence[str], width: int = PLOT_NAME_CHARS) -> dict[str, 
 
 __all__ = [
     "BY_CHOICES",
+    "DEFAULT_EXAMPLES",
     "DEFAULT_K",
     "DEFAULT_THRESHOLD",
+    "MAX_EXAMPLES",
     "MIN_POSTS",
     "MODES",
     "NOTE",
     "TOPIC",
+    "By",
     "Example",
+    "LeftOut",
+    "Mode",
     "SegmentRequest",
     "SegmentResult",
     "Split",
+    "SplitSegment",
     "Topic",
-    "fmt_p",
-    "fmt_value",
     "parse_edges",
     "parse_topics",
     "plot_names",
     "render",
     "segment",
-    "summary_line",
 ]

@@ -48,7 +48,7 @@ SVG_NS = "{http://www.w3.org/2000/svg}"  # W3C SVG namespace
 
 def _medians(result: SegmentResult, names: list[str]) -> list[float]:
     split = result.split("topic")
-    return [split.report.segment(n).median for n in names]
+    return [split.segment(n).median for n in names]
 
 
 @pytest.fixture(scope="module")
@@ -85,8 +85,8 @@ def test_one_phrase_topics_recover_documented_topic_order(topic_hour: SegmentRes
     assert set(by_median[:2]) == set(FIRST_PHRASES[:2])
     assert by_median[-1] == FIRST_PHRASES[-1]
     split = topic_hour.split("topic")
-    assert split.report.kruskal_p is not None and split.report.kruskal_p < 1e-10
-    weakest = split.report.segment(FIRST_PHRASES[-1])
+    assert split.kruskal_p is not None and split.kruskal_p < 1e-10
+    weakest = split.segment(FIRST_PHRASES[-1])
     assert weakest.rank_biserial < 0 and weakest.p_holm < 0.001
 
 
@@ -102,10 +102,10 @@ def test_multi_phrase_topics_recover_the_full_order(demo_workspace) -> None:
     rho = stats.spearmanr(meds, -np.arange(len(ORDER))).statistic
     assert rho >= 0.94, (rho, meds)
     split = result.split("topic")
-    strongest, weakest = split.report.segment(ALL_PHRASES[0]), split.report.segment(ALL_PHRASES[-1])
+    strongest, weakest = split.segment(ALL_PHRASES[0]), split.segment(ALL_PHRASES[-1])
     assert strongest.rank_biserial > 0 and strongest.p_holm < 0.001
     assert weakest.rank_biserial < 0 and weakest.p_holm < 0.001
-    assert split.settings["topics"][0]["phrases"] == EFFECTS["topic_phrases"][ORDER[0]]
+    assert list(split.topics[0].phrases) == EFFECTS["topic_phrases"][ORDER[0]]
 
 
 def test_topic_assignment_matches_cosine_similarity(
@@ -121,16 +121,18 @@ def test_topic_assignment_matches_cosine_similarity(
     caught = sims.max(axis=1) >= 0.3  # the default threshold
     split = topic_hour.split("topic")
     for j, name in enumerate(FIRST_PHRASES):
-        assert split.report.segment(name).n == int(np.sum(caught & (best == j)))
-        shown = split.examples[name]
+        assert split.segment(name).n == int(np.sum(caught & (best == j)))
+        shown = split.segment(name).examples
         assert len(shown) == 3
         # Examples are the posts most similar to the phrase, most similar first.
         top = np.sort(sims[caught & (best == j), j])[::-1][:3]
         assert [e.similarity for e in shown] == pytest.approx(top, abs=1e-4)
-    assert split.report.segment(OTHER).n == int(np.sum(~caught))
+    assert split.segment(OTHER).n == int(np.sum(~caught))
     # "other" shows the posts that came closest to a topic and still missed.
-    assert split.examples[OTHER][0].similarity == pytest.approx(sims.max(axis=1)[~caught].max(), abs=1e-4)
-    assert split.examples[OTHER][0].similarity < 0.3
+    assert split.segment(OTHER).examples[0].similarity == pytest.approx(
+        sims.max(axis=1)[~caught].max(), abs=1e-4
+    )
+    assert split.segment(OTHER).examples[0].similarity < 0.3
 
 
 def test_top_k_mode_gives_each_topic_its_k_nearest(demo_workspace, embedder) -> None:
@@ -141,23 +143,23 @@ def test_top_k_mode_gives_each_topic_its_k_nearest(demo_workspace, embedder) -> 
     sims = cosine_similarity(
         demo_workspace.store.vectors(list(frame["vector_key"])), embedder.encode(FIRST_PHRASES[:3])
     )  # reference: scikit-learn
-    assert split.report.overlapping and split.report.kruskal_p is None
+    assert split.overlapping and split.kruskal_p is None
     for j, name in enumerate(FIRST_PHRASES[:3]):
-        seg = split.report.segment(name)
+        seg = split.segment(name)
         assert seg.n == k
         # The k-th largest similarity is where the topic's posts stop.
         kth = np.sort(sims[:, j])[::-1][k - 1]
-        assert min(e.similarity for e in split.examples[name]) >= kth - 1e-4
-        assert split.examples[name][0].similarity == pytest.approx(sims[:, j].max(), abs=1e-4)
+        assert min(e.similarity for e in split.segment(name).examples) >= kth - 1e-4
+        assert split.segment(name).examples[0].similarity == pytest.approx(sims[:, j].max(), abs=1e-4)
     n_in_none = int(np.sum(~np.any(sims >= np.sort(sims, axis=0)[::-1][k - 1], axis=1)))
-    assert split.report.segment(OTHER).n == n_in_none
+    assert split.segment(OTHER).n == n_in_none
     assert any("overlap" in w for w in result.warnings)
 
 
 def test_two_way_table_adds_up_to_both_one_way_splits(topic_hour: SegmentResult, demo_workspace) -> None:
     tw = topic_hour.two_way
-    assert tw is not None and topic_hour.two_way_axes == ("topic", "hour")
-    topic, hour = topic_hour.split("topic").report, topic_hour.split("hour").report
+    assert tw is not None and (tw.row_by, tw.col_by) == ("topic", "hour")
+    topic, hour = topic_hour.split("topic"), topic_hour.split("hour")
     assert tw.rows == [s.name for s in topic.segments]
     assert tw.cols == [s.name for s in hour.segments]
     assert tw.n.sum(axis=1).tolist() == [s.n for s in topic.segments]
@@ -176,15 +178,15 @@ def test_two_way_table_adds_up_to_both_one_way_splits(topic_hour: SegmentResult,
 
 def test_too_small_topics_are_flagged_in_plain_words(topic_hour: SegmentResult) -> None:
     split = topic_hour.split("topic")
-    small = [s for s in split.report.segments if s.n < 20]
+    small = [s for s in split.segments if s.n < 20]
     assert small, "at the default threshold some one-phrase topics catch few posts"
     for seg in small:
         assert seg.too_small
-        assert split.summaries[seg.name].startswith("too few posts to judge")
+        assert seg.summary.startswith("too few posts to judge")
         assert any(f"{seg.name!r} has only {seg.n} posts" in w for w in topic_hour.warnings)
-    big = split.report.segment(FIRST_PHRASES[-1])
-    assert split.summaries[big.name].startswith("lower than the rest: median ")
-    assert "Holm p" in split.summaries[big.name]
+    big = split.segment(FIRST_PHRASES[-1])
+    assert big.summary.startswith("lower than the rest: median ")
+    assert "Holm p" in big.summary
 
 
 # ------------------------------------------------------------------ timing and form
@@ -202,7 +204,7 @@ def _local_hours_by_zoneinfo() -> dict[tuple[str, str], int]:
 
 
 def test_hour_split_recovers_documented_daily_rhythm(topic_hour: SegmentResult) -> None:
-    hour = topic_hour.split("hour").report
+    hour = topic_hour.split("hour")
     # Bucket counts match local hours computed independently with zoneinfo.
     local = np.array(list(_local_hours_by_zoneinfo().values()))
     edges = [0, 6, 9, 12, 15, 18, 21, 24]
@@ -240,7 +242,7 @@ def test_form_split_recovers_documented_effect(
     demo_workspace, link_split: SegmentResult, by: str, with_name: str, without_name: str, effect_key: str
 ) -> None:
     result = link_split if by == "link" else segment(demo_workspace, SegmentRequest(by=by))
-    rep = result.split(by).report
+    rep = result.split(by)
     yes, no = rep.segment(with_name), rep.segment(without_name)
     effect = EFFECTS[effect_key]  # documented log effect: link -0.35, media +0.2
     assert (yes.median < no.median) == (effect < 0)
@@ -262,7 +264,7 @@ def test_form_split_recovers_documented_effect(
 
 def test_custom_hour_edges(demo_workspace) -> None:
     result = segment(demo_workspace, SegmentRequest(by="hour", hour_edges=[0, 12, 24], n_resamples=200))
-    rep = result.split("hour").report
+    rep = result.split("hour")
     local = np.array(list(_local_hours_by_zoneinfo().values()))  # reference: zoneinfo
     assert [s.name for s in rep.segments] == ["00–12", "12–24"]
     assert [s.n for s in rep.segments] == [int(np.sum(local < 12)), int(np.sum(local >= 12))]
@@ -276,7 +278,7 @@ def test_young_posts_are_left_out(demo_workspace) -> None:
     young = sum(t > now - timedelta(hours=hours) for t in times)
     assert young > 0
     result = segment(demo_workspace, SegmentRequest(by="media", n_resamples=200), now=now)
-    assert result.left_out["still_gathering"] == young
+    assert result.left_out.still_gathering == young
     assert result.n_posts == len(times) - young
     assert any("younger than" in w for w in result.warnings)
 
@@ -366,7 +368,9 @@ def test_http_returns_the_library_statistics(client, demo_workspace) -> None:
     assert r.status_code == 200, r.text
     assert r.headers["content-type"].startswith("application/json")
     got = r.json()
-    want = segment(demo_workspace, SegmentRequest(topics=FIRST_PHRASES[:3], by="link")).to_dict()
+    want = segment(demo_workspace, SegmentRequest(topics=FIRST_PHRASES[:3], by="link")).model_dump(
+        mode="json"
+    )
     assert [s["by"] for s in got["splits"]] == ["topic", "link"]
     for g, w in zip(got["splits"], want["splits"], strict=True):
         assert g["kruskal_p"] == pytest.approx(w["kruskal_p"])
@@ -427,12 +431,13 @@ def test_cli_json_table_and_plot(
     r = runner.invoke(cli_app, ["segments", *topics, "--by", "hour", "--json"], env=env)
     assert r.exit_code == 0, r.output
     got = json.loads(r.stdout)  # stdout is JSON only; figure notes go to stderr
-    want = topic_hour.to_dict()
+    want = topic_hour.model_dump(mode="json")
     for g, w in zip(got["splits"], want["splits"], strict=True):
         assert [{k: s[k] for k in _STATS} for s in g["segments"]] == [
             {k: s[k] for k in _STATS} for s in w["segments"]
         ]
     assert got["two_way"] == want["two_way"]
+    assert got == want  # one shape: the CLI prints the answer the API sends
 
     fig = tmp_path / "seg.png"
     r = runner.invoke(

@@ -11,7 +11,17 @@ from typing import Annotated, Literal
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
+from models.segments import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES, DEFAULT_MIN_N
 
+from ..segmenting import (
+    DEFAULT_EXAMPLES,
+    DEFAULT_K,
+    DEFAULT_THRESHOLD,
+    MAX_EXAMPLES,
+    By,
+    Mode,
+)
+from ..segmenting import SegmentResult as SegmentResult  # the answer, used as it is
 from ..timeparse import EARLIEST, as_utc, latest_time, range_text
 
 
@@ -453,32 +463,35 @@ class SegmentsRequest(Strict):
         "alternative phrases (their vectors are averaged). No labels are needed.",
         examples=[["flowers in bloom", "shop offers | membership"]],
     )
-    by: Literal["hour", "weekday", "link", "media", "length", "account"] | None = Field(
+    by: By | None = Field(
         default=None,
         description="A one-way split by local hour bucket, local weekday, link in the text, "
         "media attached, text length band or account. With topics too, the answer adds the "
         "two-way table topic x by.",
     )
     metric: str = METRIC_FIELD
-    mode: Literal["nearest", "top-k"] = Field(
+    mode: Mode = Field(
         default="nearest",
         description="nearest: each post joins its most similar topic if the cosine similarity "
         "reaches threshold, else 'other'. top-k: each topic takes its k most similar posts.",
     )
-    k: int = Field(default=100, ge=1, description="Posts per topic in top-k mode")
+    k: int = Field(default=DEFAULT_K, ge=1, description="Posts per topic in top-k mode")
     threshold: float = Field(
-        default=0.3, ge=-1, le=1, description="Cosine similarity a post needs in nearest mode"
+        default=DEFAULT_THRESHOLD, ge=-1, le=1, description="Cosine similarity a post needs in nearest mode"
     )
     hour_edges: list[int] = Field(
-        default=[0, 6, 9, 12, 15, 18, 21, 24], description="Local hour bucket edges, from 0 to 24"
+        default=list(DEFAULT_HOUR_EDGES), description="Local hour bucket edges, from 0 to 24"
     )
     length_edges: list[int] = Field(
-        default=[0, 80, 160, 240, 10**9], description="Text length band edges in characters, from 0"
+        default=list(DEFAULT_LENGTH_EDGES), description="Text length band edges in characters, from 0"
     )
     account: str | None = Field(default=None, description="Only this account's posts")
-    min_n: int = Field(default=20, ge=1, description="Segments with fewer posts are flagged")
+    min_n: int = Field(default=DEFAULT_MIN_N, ge=1, description="Segments with fewer posts are flagged")
     examples: int = Field(
-        default=3, ge=0, le=20, description="Example posts per topic segment, most similar first"
+        default=DEFAULT_EXAMPLES,
+        ge=0,
+        le=MAX_EXAMPLES,
+        description="Example posts per topic segment, most similar first",
     )
     format: Literal["json", "png", "svg"] = Field(
         default="json", description="json for the statistics, png or svg for the figure"
@@ -487,98 +500,6 @@ class SegmentsRequest(Strict):
         default=None,
         description="Which split the figure shows: 'topic' or the value of by (default: the first split)",
     )
-
-
-class SegmentExampleOut(BaseModel):
-    post_id: str
-    account: str
-    posted_at: datetime
-    text: str
-    similarity: float = Field(description="Cosine similarity to the topic's phrase(s)")
-    value: float | None = Field(description="The post's value of the metric")
-
-
-class SegmentOut(BaseModel):
-    name: str
-    n: int
-    median: float | None
-    q1: float | None
-    q3: float | None
-    ci_low: float | None = Field(description="Bootstrap confidence interval of the median")
-    ci_high: float | None
-    u_statistic: float | None = Field(description="Mann-Whitney U of the segment vs the rest")
-    p_value: float | None
-    p_holm: float | None = Field(description="Holm-adjusted across the split's segments")
-    rank_biserial: float | None = Field(description="+1: every post beats every other post")
-    too_small: bool
-    note: str
-    rest_median: float | None = Field(description="Median of the posts outside the segment")
-    summary: str
-    examples: list[SegmentExampleOut] | None = Field(
-        default=None,
-        description="Topic splits only: the posts most similar to the phrase; "
-        "for 'other', the posts closest to a topic that still missed",
-    )
-
-
-class SegmentTopicOut(BaseModel):
-    name: str
-    phrases: list[str]
-
-
-class SegmentSplitOut(BaseModel):
-    by: str = Field(description="topic, or the by of the request")
-    title: str
-    mode: str | None = None
-    threshold: float | None = None
-    k: int | None = None
-    topics: list[SegmentTopicOut] | None = None
-    kruskal_h: float | None = Field(
-        description="Kruskal-Wallis H across segments (none when segments overlap)"
-    )
-    kruskal_p: float | None
-    overall_median: float | None
-    n_total: int
-    confidence: float
-    min_n: int
-    alpha: float
-    overlapping: bool
-    segments: list[SegmentOut]
-
-
-class TwoWayCellOut(BaseModel):
-    row: str
-    col: str
-    n: int
-    median: float | None
-    too_small: bool
-
-
-class TwoWayOut(BaseModel):
-    row_by: str
-    col_by: str
-    rows: list[str]
-    cols: list[str]
-    min_n: int
-    cells: list[TwoWayCellOut]
-
-
-class SegmentsLeftOut(BaseModel):
-    no_metric: int = Field(description="Posts without the metric")
-    still_gathering: int = Field(
-        description="Posts whose metrics are not final yet (younger than the maturity window)"
-    )
-
-
-class SegmentsResponse(BaseModel):
-    metric: str
-    account: str | None
-    n_posts: int
-    left_out: SegmentsLeftOut
-    splits: list[SegmentSplitOut]
-    two_way: TwoWayOut | None
-    warnings: list[str]
-    note: str
 
 
 # Training -------------------------------------------------------------------

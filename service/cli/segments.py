@@ -12,9 +12,11 @@ from rich.text import Text
 from models.errors import InputError
 from models.metrics import DEFAULT_METRIC
 from models.plots import FORMATS
+from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value
 
 from ..segmenting import (
     BY_CHOICES,
+    DEFAULT_EXAMPLES,
     DEFAULT_K,
     DEFAULT_THRESHOLD,
     NOTE,
@@ -22,8 +24,6 @@ from ..segmenting import (
     SegmentRequest,
     SegmentResult,
     Split,
-    fmt_p,
-    fmt_value,
     parse_edges,
     render,
     segment,
@@ -42,8 +42,7 @@ def _short(text: str, width: int) -> str:
 
 
 def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
-    rep = split.report
-    pct = f"{100 * rep.confidence:g}%"
+    pct = f"{100 * split.confidence:g}%"
     cols = [
         Column(header="segment", free=True),
         Column(header="posts", right=True),
@@ -60,27 +59,22 @@ def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
             fmt_value(seg.median, metric),
             f"{fmt_value(seg.q1, metric)}–{fmt_value(seg.q3, metric)}",
             f"{fmt_value(seg.ci_low, metric)}–{fmt_value(seg.ci_high, metric)}",
-            "-" if seg.rank_biserial != seg.rank_biserial else f"{seg.rank_biserial:+.2f}",
+            "-" if seg.rank_biserial is None else f"{seg.rank_biserial:+.2f}",
             fmt_p(seg.p_holm),
         ]
-        for seg in rep.segments
+        for seg in split.segments
     ]
     print_table(out, cols, rows, title=f"{metric} by {split.title}", wide=wide)
     # Each segment's median (●) and its confidence interval (├─┤) on one log axis.
-    shown = [
-        seg
-        for seg in rep.segments
-        if seg.median is not None and seg.ci_low is not None and seg.ci_high is not None
-    ]
-    if shown:
-        lo = min(float(seg.ci_low) for seg in shown)
-        hi = max(float(seg.ci_high) for seg in shown)
+    if split.segments:
+        lo = min(seg.ci_low for seg in split.segments)
+        hi = max(seg.ci_high for seg in split.segments)
         room = max(out.width - 34, 10)
-        for seg in shown:
+        for seg in split.segments:
             bar = interval_bar(
-                float(seg.ci_low),
-                float(seg.median),
-                float(seg.ci_high),
+                seg.ci_low,
+                seg.median,
+                seg.ci_high,
                 lo=lo,
                 hi=hi,
                 cells=min(room, 40),
@@ -90,26 +84,26 @@ def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
                 highlight=False,
                 markup=False,
             )
-    for seg in rep.segments:
+    for seg in split.segments:
         line = Text(f"  {seg.name}: ", style="bold")
-        line.append(split.summaries[seg.name], style="dim" if seg.too_small else "")
+        line.append(seg.summary, style="dim" if seg.too_small else "")
         out.print(line)
-    if rep.kruskal_p is not None and rep.kruskal_h is not None:
+    if split.kruskal_p is not None and split.kruskal_h is not None:
         out.print(
-            f"  across all segments (Kruskal–Wallis): H = {rep.kruskal_h:,.1f}, "
-            f"p {'' if fmt_p(rep.kruskal_p).startswith('<') else '= '}"
-            f"{fmt_p(rep.kruskal_p)}",
+            f"  across all segments (Kruskal–Wallis): H = {split.kruskal_h:,.1f}, "
+            f"p {'' if fmt_p(split.kruskal_p).startswith('<') else '= '}"
+            f"{fmt_p(split.kruskal_p)}",
             highlight=False,
         )
-    elif rep.overlapping:
+    elif split.overlapping:
         out.print("  no test across all segments: in top-k mode they share posts", highlight=False)
-    if split.by == TOPIC and any(split.examples.values()):
+    if split.by == TOPIC and any(seg.examples for seg in split.segments):
         out.print(f"\n  what each phrase caught (most similar first; {metric} in brackets):", highlight=False)
-        for seg in rep.segments:
-            caught = split.examples.get(seg.name, [])
+        for seg in split.segments:
+            caught = seg.examples or []
             if not caught:
                 continue
-            head = "closest posts left out" if seg.name == "other" else _short(seg.name, 60)
+            head = "closest posts left out" if seg.name == OTHER else _short(seg.name, 60)
             out.print(Text(f"  {head}", style="bold"))
             for e in caught:
                 out.print(
@@ -122,9 +116,9 @@ def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
 
 def print_two_way(result: SegmentResult) -> None:
     tw = result.two_way
-    if tw is None or result.two_way_axes is None:
+    if tw is None:
         return
-    rows_by, cols_by = result.two_way_axes
+    rows_by, cols_by = tw.row_by, tw.col_by
     # One line per row: each cell is the median, with "*" where it rests on fewer
     # than min_n posts; the counts are in --json.
     rows = []
@@ -183,8 +177,8 @@ def segments_cmd(
         None, "--length-edges", help="Text length band edges, e.g. 0,80,160,240,1000000000."
     ),
     account: str | None = typer.Option(None, "--account", help="Only this account's posts."),
-    min_n: int = typer.Option(20, "--min-posts", help="Flag segments with fewer posts."),
-    examples: int = typer.Option(3, "--examples", help="Example posts per topic."),
+    min_n: int = typer.Option(DEFAULT_MIN_N, "--min-posts", help="Flag segments with fewer posts."),
+    examples: int = typer.Option(DEFAULT_EXAMPLES, "--examples", help="Example posts per topic."),
     plot: Path | None = typer.Option(None, "--plot", help="Write the figure (.png or .svg)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     wide: bool = typer.Option(
@@ -216,7 +210,7 @@ def segments_cmd(
     )
     result = segment(workspace(), req)
     if as_json:
-        print_json(result.to_dict())
+        print_json(result.model_dump(mode="json"))
     else:
         out.print(
             f"{result.n_posts:,} posts with {metric}" + (f" from {account}" if account else "") + "\n",

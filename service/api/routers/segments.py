@@ -10,7 +10,7 @@ from models.errors import InputError, NotFound, NotReady, StoreError
 from ...segmenting import SegmentRequest, render, segment
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
-from ..schemas import SegmentsRequest, SegmentsResponse
+from ..schemas import SegmentResult, SegmentsRequest
 
 router = APIRouter(prefix="/v1", tags=["segments"])
 
@@ -30,7 +30,7 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
 
 @router.post(
     "/segments",
-    response_model=SegmentsResponse,
+    response_model=SegmentResult,
     responses=RESPONSES,
     summary="How a metric differs between topics, hours, forms or accounts",
     description="Topics are short phrases matched to posts by embedding similarity, so no "
@@ -39,24 +39,12 @@ RESPONSES: dict[int | str, dict[str, Any]] = {
     "one-line reading; Kruskal-Wallis tests the split as a whole. Differences are "
     "associations in this team's history, not causes.",
 )
-def segments(body: SegmentsRequest, ws: WorkspaceDep) -> SegmentsResponse | Response:
-    req = SegmentRequest(
-        topics=body.topics,
-        by=body.by,
-        metric=body.metric,
-        mode=body.mode,
-        k=body.k,
-        threshold=body.threshold,
-        hour_edges=body.hour_edges,
-        length_edges=body.length_edges,
-        account=body.account,
-        min_n=body.min_n,
-        examples=body.examples,
-    )
+def segments(body: SegmentsRequest, ws: WorkspaceDep) -> SegmentResult | Response:
+    req = SegmentRequest(**body.model_dump(exclude={"format", "plot"}))
     result = segment(ws, req)
     if body.plot is not None:
         result.split(body.plot)  # a wrong name is an error in JSON mode too
     if body.format in MEDIA_TYPES:
         data = render(result, by=body.plot, fmt=body.format)
         return Response(content=data, media_type=MEDIA_TYPES[body.format])
-    return SegmentsResponse.model_validate(result.to_dict())
+    return result
