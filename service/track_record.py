@@ -41,8 +41,9 @@ from models import features as F
 from models.adaptive import aci_step, adaptive_quantile
 from models.artefact import TrainedModel, versions
 from models.errors import InputError, NotReady, SoundingError
-from models.metrics import TARGETS, check_target, target_value
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS, check_target, target_value
 
+from .answers import Calibration, LiveCoverage
 from .forecasting import Draft, Forecast, _back
 from .tables import (
     Account,
@@ -59,7 +60,6 @@ SIMILARITY_TIE = 0.01
 #: Scored forecasts behind the staleness check of live coverage.
 RECENT_SCORED = 50
 WORST = 5
-DEFAULT_COVERAGE = 0.8
 BASELINES = ("account_median", "precedents_median")
 
 
@@ -81,8 +81,8 @@ def give(
     ws: Any,
     drafts: list[Draft],
     *,
-    metric: str = "impressions",
-    coverage: float = 0.8,
+    metric: str = DEFAULT_METRIC,
+    coverage: float = DEFAULT_COVERAGE,
     record: bool = True,
     source: str = "check",
     now: datetime | None = None,
@@ -116,24 +116,18 @@ def _adapt_band(f: Forecast, model: TrainedModel, coverage: float, state: Calibr
     """Widen or narrow the CQR band by the ACI level alpha_t (same median)."""
     alpha = 1.0 - coverage
     alpha_t = alpha if state is None else state.alpha_t
-    info: dict[str, Any] = {
-        "method": "cqr",
-        "level": level_key(coverage),
-        "alpha": alpha,
-        "alpha_t": alpha_t,
-        "outcomes": 0,
-        "pseudo_outcomes": 0,
-        "capped": False,
-    }
+    info = Calibration(method="cqr", level=level_key(coverage), alpha=alpha, alpha_t=alpha_t)
     if state is not None and (state.real_updates or state.pseudo_updates):
-        info.update(
-            method="cqr+aci",
-            outcomes=state.real_updates,
-            pseudo_outcomes=state.pseudo_updates,
-            gamma=state.gamma,
-        )
         shift, capped = _shift(_scores(model, coverage), alpha, alpha_t)
-        info["capped"] = capped
+        info = info.model_copy(
+            update={
+                "method": "cqr+aci",
+                "outcomes": state.real_updates,
+                "pseudo_outcomes": state.pseudo_updates,
+                "gamma": state.gamma,
+                "capped": capped,
+            }
+        )
         lo, med, hi = f.log
         lo, hi = min(lo - shift, med), max(hi + shift, med)
         f.log = (lo, med, hi)
@@ -173,9 +167,9 @@ def _record(
             prec = [
                 math.log1p(v)
                 for p in f.precedents
-                if p.get("weight", 0) > 0
-                and not p.get("still_gathering", True)
-                and (v := target_value(p["metrics"], f.metric)) is not None
+                if p.weight > 0
+                and not p.still_gathering
+                and (v := target_value(p.metrics, f.metric)) is not None
             ]
             lo, med, hi = f.log
             s.add(
@@ -196,18 +190,18 @@ def _record(
                     median_log=med,
                     high_log=hi,
                     model_version=f.model_version,
-                    calibration=f.calibration.get("method", "cqr"),
-                    alpha_t=f.calibration.get("alpha_t", 1.0 - f.coverage),
+                    calibration=f.calibration.method if f.calibration else "cqr",
+                    alpha_t=f.calibration.alpha_t if f.calibration else 1.0 - f.coverage,
                     account_median_log=None if math.isnan(acct) else float(acct),
                     precedents_median_log=float(np.median(prec)) if prec else None,
                     precedents=json.dumps(
                         [
                             {
-                                "post_id": p["post_id"],
-                                "account": p["account"],
-                                "text": p["text"][:280],
-                                "similarity": p["similarity"],
-                                "value": target_value(p["metrics"], f.metric),
+                                "post_id": p.post_id,
+                                "account": p.account,
+                                "text": p.text[:280],
+                                "similarity": round(p.similarity, 4),
+                                "value": target_value(p.metrics, f.metric),
                             }
                             for p in f.precedents[:5]
                         ],
@@ -235,7 +229,7 @@ def reset_adaptation(ws: Any, metric: str | None = None) -> int:
         return int(s.execute(q).rowcount or 0)
 
 
-def live_coverage(store: Any, metric: str, coverage: float) -> dict[str, Any]:
+def live_coverage(store: Any, metric: str, coverage: float) -> LiveCoverage:
     """How often scored forecasts of this metric and level held so far."""
     with store.session() as s:
         n, k = s.execute(
@@ -244,12 +238,9 @@ def live_coverage(store: Any, metric: str, coverage: float) -> dict[str, Any]:
             .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None), _at_level(coverage))
         ).one()
     n, k = int(n or 0), int(k or 0)
-    return {
-        "scored": n,
-        "held": k,
-        "coverage": k / n if n else None,
-        "ci": list(_wilson(k, n)) if n else None,
-    }
+    return LiveCoverage(
+        scored=n, held=k, coverage=k / n if n else None, ci=list(_wilson(k, n)) if n else None
+    )
 
 
 def _wilson(k: int, n: int) -> tuple[float, float]:
@@ -264,7 +255,7 @@ def _wilson(k: int, n: int) -> tuple[float, float]:
 def staleness(
     ws: Any,
     metric: str,
-    coverage: float = 0.8,
+    coverage: float = DEFAULT_COVERAGE,
     *,
     model: TrainedModel | None = None,
     now: datetime | None = None,
@@ -669,7 +660,7 @@ def report(
     *,
     since: datetime | None = None,
     account: str | None = None,
-    metric: str = "impressions",
+    metric: str = DEFAULT_METRIC,
     now: datetime | None = None,
 ) -> dict[str, Any]:
     """The track record of ``metric``: per month (of the forecast) and overall."""

@@ -4,6 +4,7 @@ from fastapi import APIRouter
 
 from models.errors import StoreError
 
+from ...health import health as health_of
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
 from ..schemas import AccountOut, Health
@@ -15,7 +16,7 @@ router = APIRouter(prefix="/v1", tags=["health"])
     "/health", response_model=Health, responses=ERRORS(StoreError), summary="Counts, model and index state"
 )
 def health(ws: WorkspaceDep) -> Health:
-    return Health(**ws.health())
+    return health_of(ws)
 
 
 @router.get(
