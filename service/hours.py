@@ -118,9 +118,7 @@ class HoursReport(BaseModel):
     last_day: date
     n_slots: int
     told_apart: bool = Field(description="False when most hours cannot be told apart")
-    fraction_tied_with_best: Round3 = Field(
-        description="Share of the other slots about equal to the best"
-    )
+    fraction_tied_with_best: Round3 = Field(description="Share of the other slots about equal to the best")
     best_stays_best: float | None = Field(
         default=None,
         description="Share of bootstrap refits of the timing effect in which the "

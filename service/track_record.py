@@ -33,6 +33,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from pydantic import BaseModel, Field
 from scipy.stats import binom
 from sqlalchemy import Integer, cast, delete, func, select
 from statsmodels.stats.proportion import proportion_confint
@@ -41,7 +42,7 @@ from models import features as F
 from models.adaptive import aci_step, adaptive_quantile
 from models.artefact import TrainedModel, versions
 from models.errors import InputError, NotReady, SoundingError
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS, check_target, target_value
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS, Metric, check_target, target_value
 
 from .answers import Calibration, LiveCoverage
 from .forecasting import Draft, Forecast, _back
@@ -72,6 +73,100 @@ def _at_level(coverage: float) -> Any:
     range rather than round(), which PostgreSQL lacks for double precision."""
     c = round(float(coverage), 2)
     return ForecastGiven.coverage.between(c - 0.005, c + 0.005)
+
+
+# Answers ---------------------------------------------------------------------
+
+
+class BaselineScore(BaseModel):
+    mae_log: float | None = Field(description="MAE on the log1p scale on the same settled posts")
+    posts: int
+
+
+class Baselines(BaseModel):
+    account_median: BaselineScore = Field(
+        description="The account's trailing median, as it stood when the forecast was given"
+    )
+    precedents_median: BaselineScore = Field(
+        description="The median of the settled precedents shown with the forecast"
+    )
+
+
+class PeriodSummary(BaseModel):
+    given: int = Field(description="Forecasts given")
+    matched: int = Field(description="Forecasts matched to a published post")
+    settled: int = Field(description="Matched forecasts whose post is settled, i.e. scored")
+    stated_coverage: float | None
+    live_coverage: float | None = Field(
+        description="Share of settled forecasts whose outcome fell inside the interval"
+    )
+    live_coverage_ci: list[float] | None = Field(description="Wilson 95% interval [low, high]")
+    mae_log: float | None
+    baselines: Baselines
+
+
+class MonthSummary(PeriodSummary):
+    month: str = Field(description="YYYY-MM of when the forecasts were given (UTC)")
+
+
+class PrecedentBrief(BaseModel):
+    post_id: str
+    account: str
+    text: str
+    similarity: float
+    value: float | None
+
+
+class Miss(BaseModel):
+    forecast_id: int
+    given_at: str
+    draft_id: str | None
+    account: str
+    text: str
+    planned_at: str
+    post_id: str | None
+    posted_at: str | None
+    coverage: float
+    low: float
+    median: float
+    high: float
+    outcome: float | None
+    error_log: float | None
+    model_version: str
+    calibration: str
+    precedents: list[PrecedentBrief]
+
+
+class CalibrationLevel(BaseModel):
+    level: str
+    alpha_t: float
+    gamma: float
+    outcomes: int
+    pseudo_outcomes: int
+
+
+class TrackPoint(BaseModel):
+    given_at: str
+    posted_at: str | None
+    coverage: float
+    low: float
+    median: float
+    high: float
+    outcome: float | None
+    inside: bool | None
+
+
+class TrackRecord(BaseModel):
+    """The track record of one metric (``GET /v1/track-record``, ``sounding track-record``)."""
+
+    metric: Metric
+    as_of: str
+    filters: dict[str, str | None]
+    overall: PeriodSummary
+    months: list[MonthSummary]
+    worst: list[Miss] = Field(description="The settled forecasts that missed worst (log error)")
+    calibration: list[CalibrationLevel] = Field(description="Adaptive conformal state per level")
+    points: list[TrackPoint]
 
 
 # Giving ----------------------------------------------------------------------
@@ -662,7 +757,7 @@ def report(
     account: str | None = None,
     metric: str = DEFAULT_METRIC,
     now: datetime | None = None,
-) -> dict[str, Any]:
+) -> TrackRecord:
     """The track record of ``metric``: per month (of the forecast) and overall."""
     check_target(metric)
     if account is not None:
@@ -700,22 +795,19 @@ def report(
         months.setdefault(r["given_at"][:7], []).append(r)
     settled = [r for r in rows if r["inside"] is not None]
     worst = sorted(settled, key=lambda r: -r["error_log"])[:WORST]
-    return {
-        "metric": metric,
-        "as_of": (now or now_utc()).isoformat(),
-        "filters": {"since": since.isoformat() if since else None, "account": account},
-        "overall": summarise(rows),
-        "months": [{"month": k, **summarise(v)} for k, v in sorted(months.items())],
-        "worst": worst,
-        "calibration": states,
-        "points": [
-            {
-                k: r[k]
-                for k in ("given_at", "posted_at", "coverage", "low", "median", "high", "outcome", "inside")
-            }
-            for r in settled
-        ],
-    }
+    # Rows carry working columns (baseline logs, match kind) the answer leaves out.
+    return TrackRecord.model_validate(
+        {
+            "metric": metric,
+            "as_of": (now or now_utc()).isoformat(),
+            "filters": {"since": since.isoformat() if since else None, "account": account},
+            "overall": summarise(rows),
+            "months": [{"month": k, **summarise(v)} for k, v in sorted(months.items())],
+            "worst": worst,
+            "calibration": states,
+            "points": settled,
+        }
+    )
 
 
 def _row(

@@ -32,9 +32,7 @@ class Variant(BaseModel):
     high: float
     tied_with_best: bool = False
     precedents: list[str] = Field(description="Post ids of its precedents, most similar first")
-    only_here: list[str] = Field(
-        default_factory=list, description="Precedent post ids no other variant has"
-    )
+    only_here: list[str] = Field(default_factory=list, description="Precedent post ids no other variant has")
     warnings: list[str]
     log: tuple[float, float, float] = Field(default=(0.0, 0.0, 0.0), exclude=True)
 

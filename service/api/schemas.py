@@ -25,6 +25,7 @@ from ..importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, Previ
 from ..precedents import Precedent, Precedents, WeightedPrecedent
 from ..repeats import Repeat
 from ..timeparse import EARLIEST, as_utc, latest_time, range_text
+from ..track_record import TrackRecord
 from ..wordings import Variant, VariantsReport
 
 __all__ = [
@@ -49,6 +50,7 @@ __all__ = [
     "RowProblem",
     "SearchState",
     "Slot",
+    "TrackRecord",
     "Variant",
     "VariantsReport",
     "WeightedPrecedent",
