@@ -81,7 +81,9 @@ def answer_schema(openapi: dict[str, Any], method: str, path: str) -> dict[str, 
 
 
 @pytest.mark.parametrize(("method", "path", "model"), ANSWERS)
-def test_declared_answer_is_the_service_model(openapi, method: str, path: str, model: type[BaseModel]) -> None:
+def test_declared_answer_is_the_service_model(
+    openapi, method: str, path: str, model: type[BaseModel]
+) -> None:
     declared = component(openapi, answer_schema(openapi, method, path))
     assert declared["title"] == model.__name__
     assert set(declared["properties"]) == published(model)
