@@ -29,6 +29,7 @@ from service.health import Health
 from service.hours import HoursReport
 from service.importer import ImportPreview, ImportSummary
 from service.precedents import Precedents
+from service.store import AccountInfo
 from service.track_record import TrackRecord
 from service.wordings import VariantsReport
 from service.workspace import Workspace
@@ -99,6 +100,12 @@ def test_forecast_answer_is_the_forecast_model(openapi) -> None:
     assert "log" not in declared["Forecast"]["properties"]
     precedent = component(openapi, declared["Forecast"]["properties"]["precedents"]["items"])
     assert "pk" not in precedent["properties"] and "weight" in precedent["properties"]
+
+
+def test_accounts_answer_is_the_store_model(openapi) -> None:
+    declared = component(openapi, answer_schema(openapi, "get", "/v1/accounts")["items"])
+    assert declared["title"] == "AccountInfo"
+    assert set(declared["properties"]) == published(AccountInfo)
 
 
 def test_import_answer_is_the_importer_models(openapi) -> None:

@@ -4,8 +4,8 @@ Kept apart from the SQLAlchemy tables: these are the public contract. Each
 answer is defined once, as the pydantic result type of the module that
 produces it (``service.forecasting.Forecast``, ``service.hours.HoursReport``,
 ...); it is re-exported here so the API and the client name one set of
-models. Only the answers built in the routers themselves (accounts, forget,
-training) and the segments answers are defined below.
+models. Only the answers built in the routers themselves (forget, training)
+and the segments answers are defined below.
 """
 
 from __future__ import annotations
@@ -24,11 +24,13 @@ from ..hours import HoursReport, Slot
 from ..importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
 from ..precedents import Precedent, Precedents, WeightedPrecedent
 from ..repeats import Repeat
+from ..store import AccountInfo
 from ..timeparse import EARLIEST, as_utc, latest_time, range_text
 from ..track_record import TrackRecord
 from ..wordings import Variant, VariantsReport
 
 __all__ = [
+    "AccountInfo",
     "Calibration",
     "ColumnUse",
     "Contributions",
@@ -105,13 +107,6 @@ class PrecedentsRequest(Strict):
     k: int = Field(default=10, ge=1, le=100)
     since: InRangeTime | None = None
     until: InRangeTime | None = None
-
-
-class AccountOut(BaseModel):
-    handle: str
-    display_name: str | None
-    timezone: str
-    posts: int
 
 
 class ForgetOut(BaseModel):

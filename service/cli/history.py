@@ -5,7 +5,6 @@ from __future__ import annotations
 import ipaddress
 import json
 import os
-from dataclasses import asdict
 from datetime import datetime
 from pathlib import Path
 
@@ -66,7 +65,7 @@ def accounts_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.
     """List the accounts in the store."""
     rows = workspace().store.accounts()
     if as_json:
-        print_json([asdict(a) for a in rows])
+        print_json([a.model_dump(mode="json") for a in rows])
         return
     if not rows:
         out.print(next_step() or "No accounts yet: import some history first.", highlight=False)
