@@ -26,7 +26,7 @@ from numpy.typing import ArrayLike
 
 from .calibration import CQRCalibrator
 from .errors import InputError, NotFittedError, NotFound, StoreError
-from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE
+from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
 
 # Coverage levels ``predict`` accepts are models.metrics' MIN_COVERAGE to MAX_COVERAGE:
 # below 0.5 a band is not useful; above 0.95 the calibration blocks we see are too
@@ -87,7 +87,7 @@ class QuantileForecaster:
     def __init__(
         self,
         *,
-        levels: Sequence[float] = (0.5, 0.7, 0.8, 0.9, 0.95),
+        levels: Sequence[float] = TRAINED_LEVELS,
         n_estimators: int = 300,
         learning_rate: float = 0.05,
         num_leaves: int = 15,

@@ -51,7 +51,7 @@ from . import features as F
 from .blend import simplex_weights
 from .calibration import cqr_scores
 from .errors import InputError, NotFittedError, NotFound, StoreError
-from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE
+from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
 from .regressor import QuantileForecaster, _matrix, _target
 from .textmodel import RidgeText
 from .timing import TimingEffect, best_hour_share, hour_from_cyclic
@@ -131,7 +131,7 @@ class StackedForecaster:
     def __init__(
         self,
         *,
-        levels: Sequence[float] = (0.5, 0.7, 0.8, 0.9, 0.95),
+        levels: Sequence[float] = TRAINED_LEVELS,
         max_estimators: int = 600,
         early_stopping_rounds: int = 40,
         learning_rate: float = 0.06,

@@ -487,4 +487,4 @@ class Forecaster:
 def _back(value: float, metric: str) -> float:
     v = float(from_log(value))
     v = max(v, 0.0)
-    return round(v, 5) if metric == "engagement_rate" else round(v, 1)
+    return round(v, 5) if metric == Metric.ENGAGEMENT_RATE else round(v, 1)

@@ -45,7 +45,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
-from models.metrics import METRIC_COLUMNS
+from models.metrics import METRIC_COLUMNS, Metric
 
 from .answers import Instant, MetricValues
 from .csvread import Abandoned, BadRecord, Record, RecordReader
@@ -53,7 +53,7 @@ from .numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from .store import PostRow, Store
 from .timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order, zone
 
-RATE_COLUMN = "engagement_rate"
+RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
 CANONICAL_COLUMNS: tuple[str, ...] = (
     "post_id",
     "account",

@@ -76,7 +76,7 @@ def _ago(days: float) -> str:
 def _how_it_did(metric: str, value: float | None, mature: bool) -> str:
     if value is None:
         return f"no {metric} recorded yet"
-    shown = f"{value:.1%} {metric}" if metric == "engagement_rate" else f"{value:,.0f} {metric}"
+    shown = f"{value:.1%} {metric}" if metric == Metric.ENGAGEMENT_RATE else f"{value:,.0f} {metric}"
     return shown if mature else f"{shown} so far (still gathering)"
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import typer
 
 from models.errors import InputError
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 
 from ..forecasting import CAUTION
 from ..hours import HoursReport, best_hours, parse_day
@@ -16,7 +16,7 @@ from .render import Column, interval_bar, print_table
 
 
 def _value(v: float, metric: str) -> str:
-    return f"{v:.2%}" if metric == "engagement_rate" else f"{v:,.0f}"
+    return f"{v:.2%}" if metric == Metric.ENGAGEMENT_RATE else f"{v:,.0f}"
 
 
 def print_hours(r: HoursReport) -> None:
