@@ -29,6 +29,8 @@ from ..timeparse import EARLIEST, as_utc, latest_time, range_text
 from ..track_record import TrackRecord
 from ..wordings import Variant, VariantsReport
 
+# The answers re-exported from the modules that define them (the request models
+# below are public too; this list only keeps the re-exports explicit).
 __all__ = [
     "AccountInfo",
     "Calibration",
