@@ -280,8 +280,8 @@ def main() -> int:
         "agreement_with_reference": agreement,
         "import_breakdown_s": breakdown(import_s, first_stages),
         "reimport_breakdown_s": breakdown(reimport_s, re_stages),
-        "import_summary": {k: v for k, v in first.to_dict().items() if k != "problems"},
-        "reimport_summary": {k: v for k, v in again.to_dict().items() if k != "problems"},
+        "import_summary": first.model_dump(mode="json", exclude={"problems"}),
+        "reimport_summary": again.model_dump(mode="json", exclude={"problems"}),
         "texts_embedded_by_import": embedded_first,
         "texts_embedded_by_reimport": embedded_again,
         "machine": {

@@ -27,6 +27,7 @@ import numpy as np
 from .errors import InputError
 from .evaluation import coverage, mae, mean_width, rolling_origin_splits, spearman
 from .features import TIMING_FEATURES
+from .metrics import DEFAULT_COVERAGE
 from .regressor import QuantileForecaster
 from .stacking import CANDIDATES, SIMPLE, StackedForecaster
 
@@ -75,7 +76,7 @@ def run_backtest(
     times: np.ndarray,
     *,
     feature_names: Sequence[str],
-    coverage_level: float = 0.8,
+    coverage_level: float = DEFAULT_COVERAGE,
     n_folds: int = 4,
     params: dict[str, Any] | None = None,
     timing_only: bool = True,

@@ -38,6 +38,9 @@ DEFAULT_METRIC = Metric.IMPRESSIONS
 #: can be asked for (the trained quantile levels span it).
 DEFAULT_COVERAGE = 0.8
 MIN_COVERAGE, MAX_COVERAGE = 0.5, 0.95
+#: Coverage levels a forecaster trains quantile models for; another coverage uses the
+#: nearest of them, calibrated (CQR) at the coverage asked for.
+TRAINED_LEVELS: tuple[float, ...] = (MIN_COVERAGE, 0.7, DEFAULT_COVERAGE, 0.9, MAX_COVERAGE)
 
 
 def check_coverage(coverage: float) -> float:
@@ -65,7 +68,7 @@ def check_target(name: str) -> str:
 def target_value(metrics: Mapping[str, float | int | None], name: str) -> float | None:
     """The raw value of target ``name`` from one post's metrics, or None
     where it was not measured (engagement_rate needs impressions > 0)."""
-    if name == "engagement_rate":
+    if name == Metric.ENGAGEMENT_RATE:
         imp = metrics.get("impressions")
         eng = metrics.get("engagements")
         if imp is None or eng is None or imp <= 0:

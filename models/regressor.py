@@ -26,11 +26,11 @@ from numpy.typing import ArrayLike
 
 from .calibration import CQRCalibrator
 from .errors import InputError, NotFittedError, NotFound, StoreError
+from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
 
-#: Coverage levels ``predict`` accepts. Below 0.5 a band is not useful;
-#: above 0.95 the calibration blocks we see are too small to be sharp.
-MIN_COVERAGE = 0.5
-MAX_COVERAGE = 0.95
+# Coverage levels ``predict`` accepts are models.metrics' MIN_COVERAGE to MAX_COVERAGE:
+# below 0.5 a band is not useful; above 0.95 the calibration blocks we see are too
+# small to be sharp.
 
 #: Version of the on-disk layout written by ``save``.
 FORMAT_VERSION = 1
@@ -87,7 +87,7 @@ class QuantileForecaster:
     def __init__(
         self,
         *,
-        levels: Sequence[float] = (0.5, 0.7, 0.8, 0.9, 0.95),
+        levels: Sequence[float] = TRAINED_LEVELS,
         n_estimators: int = 300,
         learning_rate: float = 0.05,
         num_leaves: int = 15,
@@ -241,7 +241,9 @@ class QuantileForecaster:
         gaps = [(abs(c - coverage), -c) for c in self.levels_]
         return min(range(len(gaps)), key=gaps.__getitem__)
 
-    def predict(self, X: ArrayLike, *, coverage: float = 0.8) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def predict(
+        self, X: ArrayLike, *, coverage: float = DEFAULT_COVERAGE
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(lo, median, hi)`` with ``P(lo <= y <= hi) >= coverage`` for a
         row exchangeable with the calibration block."""
         self._check_fitted()

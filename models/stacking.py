@@ -51,7 +51,8 @@ from . import features as F
 from .blend import simplex_weights
 from .calibration import cqr_scores
 from .errors import InputError, NotFittedError, NotFound, StoreError
-from .regressor import MAX_COVERAGE, MIN_COVERAGE, QuantileForecaster, _matrix, _target
+from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
+from .regressor import QuantileForecaster, _matrix, _target
 from .textmodel import RidgeText
 from .timing import TimingEffect, best_hour_share, hour_from_cyclic
 
@@ -130,7 +131,7 @@ class StackedForecaster:
     def __init__(
         self,
         *,
-        levels: Sequence[float] = (0.5, 0.7, 0.8, 0.9, 0.95),
+        levels: Sequence[float] = TRAINED_LEVELS,
         max_estimators: int = 600,
         early_stopping_rounds: int = 40,
         learning_rate: float = 0.06,
@@ -395,7 +396,9 @@ class StackedForecaster:
         ``coverage``, sorted (what adaptive conformal inference moves along)."""
         return np.sort(np.asarray(self.cal_scores_[self.level_for(coverage)], dtype=float))
 
-    def predict(self, X: ArrayLike, *, coverage: float = 0.8) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def predict(
+        self, X: ArrayLike, *, coverage: float = DEFAULT_COVERAGE
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(lo, median, hi)``: the blend and its CQR band at ``coverage``."""
         i = self.level_for(coverage)
         Xp = _matrix("X", X, self.n_features_in_)

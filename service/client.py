@@ -30,11 +30,11 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 
 from .api.schemas import (
     DraftIn,
-    ForecastList,
-    ForecastOut,
+    Forecast,
+    Forecasts,
     Health,
-    HoursOut,
-    VariantsOut,
+    HoursReport,
+    VariantsReport,
 )
 
 M = TypeVar("M", bound=BaseModel)
@@ -120,7 +120,7 @@ class SoundingClient:
         coverage: float = DEFAULT_COVERAGE,
         draft_id: str | None = None,
         has_media: bool = False,
-    ) -> ForecastOut:
+    ) -> Forecast:
         """Forecast one draft: interval, precedents, contributions and
         warnings (near-repeats are in ``warnings`` and ``repeats``)."""
         body = {
@@ -132,11 +132,11 @@ class SoundingClient:
             "draft_id": draft_id,
             "has_media": has_media,
         }
-        return self._call("POST", "/v1/forecasts", _drop_none(body), ForecastOut)
+        return self._call("POST", "/v1/forecasts", _drop_none(body), Forecast)
 
     def forecast_plan(
         self, drafts: Sequence[DraftLike], *, metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE
-    ) -> list[ForecastOut]:
+    ) -> list[Forecast]:
         """Forecast several drafts in one request, in their order. Each draft
         is a ``DraftIn`` or a mapping with its fields (text, account,
         planned_at, draft_id, has_media); a planned_at may be a datetime."""
@@ -146,7 +146,7 @@ class SoundingClient:
             raw["planned_at"] = _when(raw.get("planned_at"))
             items.append(_drop_none(raw))
         body = {"drafts": items, "metric": metric, "coverage": coverage}
-        return self._call("POST", "/v1/forecasts", body, ForecastList).forecasts
+        return self._call("POST", "/v1/forecasts", body, Forecasts).forecasts
 
     def best_hours(
         self,
@@ -158,7 +158,7 @@ class SoundingClient:
         metric: str = DEFAULT_METRIC,
         coverage: float = DEFAULT_COVERAGE,
         top: int = 3,
-    ) -> HoursOut:
+    ) -> HoursReport:
         """Forecast ``text`` at every hour of a local day (default tomorrow)
         or of seven days; says when the hours cannot be told apart."""
         body = {
@@ -170,7 +170,7 @@ class SoundingClient:
             "coverage": coverage,
             "top": top,
         }
-        return self._call("POST", "/v1/hours", _drop_none(body), HoursOut)
+        return self._call("POST", "/v1/hours", _drop_none(body), HoursReport)
 
     def compare(
         self,
@@ -180,7 +180,7 @@ class SoundingClient:
         planned_at: datetime | str | None = None,
         metric: str = DEFAULT_METRIC,
         coverage: float = DEFAULT_COVERAGE,
-    ) -> VariantsOut:
+    ) -> VariantsReport:
         """Forecast several phrasings of one draft side by side, best first."""
         body = {
             "texts": list(texts),
@@ -189,7 +189,7 @@ class SoundingClient:
             "metric": metric,
             "coverage": coverage,
         }
-        return self._call("POST", "/v1/variants", _drop_none(body), VariantsOut)
+        return self._call("POST", "/v1/variants", _drop_none(body), VariantsReport)
 
     # Plumbing ---------------------------------------------------------------
 

@@ -14,11 +14,12 @@ from __future__ import annotations
 
 import threading
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
 import numpy as np
+from pydantic import BaseModel, Field
 
 from models import features as F
 from models.artefact import TrainedModel, newest
@@ -28,17 +29,19 @@ from models.explain import describe, group_contributions
 from models.metrics import (
     DEFAULT_COVERAGE,
     DEFAULT_METRIC,
+    Metric,
     check_coverage,
     check_target,
     from_log,
 )
 from models.stacking import ALL_FEATURES, ALL_GROUPS, STACK_PARAMS, StackedForecaster, extra_columns
 
+from .answers import Calibration, Coverage, Instant, LiveCoverage
 from .datadir import DataDir
 from .history import HistoryView, build_view, feature_params, local_clock
 from .limits import Limits
-from .precedents import precedents_for
-from .repeats import near_repeats_many
+from .precedents import WeightedPrecedent, precedents_for
+from .repeats import Repeat, near_repeats_many
 from .retrieval import Retriever, WideCache
 from .settings import Settings
 from .store import Store, has_link
@@ -46,9 +49,12 @@ from .timeparse import now_utc, wall_clock, zone
 
 __all__ = [
     "CAUTION",
+    "Contributions",
     "Draft",
     "Forecast",
     "Forecaster",
+    "Forecasts",
+    "GroupEffect",
     "HistoryView",
     "backtest",
     "build_view",
@@ -206,51 +212,63 @@ class Draft:
     has_media: bool = False  # an image or video attached, as the has_media column of posts
 
 
-@dataclass(slots=True)
-class Forecast:
-    metric: str
+class GroupEffect(BaseModel):
+    """One group of features' share of a forecast (models.explain)."""
+
+    group: str
+    log_contribution: float
+    factor: float = Field(description="Multiplicative effect on (1 + metric)")
+    summary: str
+
+
+class Contributions(BaseModel):
+    """What moved a forecast away from the model's expected value, by group."""
+
+    scale: str = "log1p; factors multiply (1 + metric)"
+    expected_log: float
+    predicted_log: float
+    groups: list[GroupEffect]
+
+
+class Forecast(BaseModel):
+    """A draft's forecast: an interval with its stated and backtested coverage."""
+
+    draft_id: str | None = None
+    metric: Metric
     account: str
-    planned_at: datetime
-    local_time: str
+    planned_at: Instant
+    local_time: str = Field(description="The planned time in the account's zone, with its offset")
     low: float
     median: float
     high: float
-    coverage: float
-    backtested_coverage: float | None
+    coverage: Coverage = Field(description="Nominal coverage of [low, high]")
+    backtested_coverage: float | None = Field(
+        description="How often intervals of this level held in time-ordered backtests"
+    )
     model_version: str
-    precedents: list[dict[str, Any]]
-    contributions: dict[str, Any]
-    warnings: list[str] = field(default_factory=list)
-    draft_id: str | None = None
-    log: tuple[float, float, float] = (0.0, 0.0, 0.0)
-    repeats: list[dict[str, Any]] = field(default_factory=list)  # service.review.Repeat dicts
+    precedents: list[WeightedPrecedent]
+    contributions: Contributions
+    warnings: list[str] = Field(default_factory=list)
+    caution: str = CAUTION
+    repeats: list[Repeat] = Field(
+        default_factory=list, description="Near-repeats behind the warnings, most similar first"
+    )
     # Track record (issue 11): set by service.track_record.give.
-    calibration: dict[str, Any] = field(default_factory=dict)
-    live_coverage: dict[str, Any] | None = None
-    note: str | None = None  # issue 10: the backtest's one-line reading of a weak text signal
+    calibration: Calibration | None = None
+    live_coverage: LiveCoverage | None = None
+    note: str | None = Field(
+        default=None,
+        description="One plain line from the backtest when the history's text "
+        "carries little signal (what the forecast leans on instead)",
+    )
+    #: low, median and high on the model's log1p scale (kept for ranking and adaptation).
+    log: tuple[float, float, float] = Field(default=(0.0, 0.0, 0.0), exclude=True)
 
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "draft_id": self.draft_id,
-            "metric": self.metric,
-            "account": self.account,
-            "planned_at": self.planned_at.isoformat(),
-            "local_time": self.local_time,
-            "low": self.low,
-            "median": self.median,
-            "high": self.high,
-            "coverage": self.coverage,
-            "backtested_coverage": self.backtested_coverage,
-            "model_version": self.model_version,
-            "precedents": self.precedents,
-            "contributions": self.contributions,
-            "warnings": self.warnings,
-            "caution": CAUTION,
-            "repeats": self.repeats,
-            "note": self.note,
-            "calibration": self.calibration or None,
-            "live_coverage": self.live_coverage,
-        }
+
+class Forecasts(BaseModel):
+    """Forecasts of several drafts, in the order given."""
+
+    forecasts: list[Forecast]
 
 
 class Forecaster:
@@ -380,25 +398,24 @@ class Forecaster:
                     backtested_coverage=model.backtested_at(coverage),
                     model_version=model.version,
                     precedents=self._precedents(view, hood_rows, weights, now, details),
-                    contributions={
-                        "scale": "log1p; factors multiply (1 + metric)",
-                        "expected_log": expected,
-                        "predicted_log": float(expected + sum(groups.values())),
-                        "groups": [
-                            {
-                                "group": e.group,
-                                "log_contribution": e.log_contribution,
-                                "factor": e.factor,
-                                "summary": e.summary,
-                            }
+                    contributions=Contributions(
+                        expected_log=expected,
+                        predicted_log=float(expected + sum(groups.values())),
+                        groups=[
+                            GroupEffect(
+                                group=e.group,
+                                log_contribution=e.log_contribution,
+                                factor=e.factor,
+                                summary=e.summary,
+                            )
                             for e in (describe(g, groups[g]) for g in F.GROUPS)
                         ],
-                    },
+                    ),
                     draft_id=d.draft_id,
                     log=(float(lo[i]), float(med[i]), float(hi[i])),
                     # Near-repeats of recent posts (own account and teammates), in every forecast.
                     warnings=[r.message for r in repeats[i]],
-                    repeats=[r.to_dict() for r in repeats[i]],
+                    repeats=repeats[i],
                     note=model.report.get("note"),
                 )
             )
@@ -454,7 +471,7 @@ class Forecaster:
         weights: dict[int, float],
         now: datetime,
         details: dict[int, dict[str, Any]],
-    ) -> list[dict[str, Any]]:
+    ) -> list[WeightedPrecedent]:
         pks = [int(view.history.pk[r]) for r, _ in shown]
         found = {
             p.pk: p
@@ -471,13 +488,11 @@ class Forecaster:
             p = found.get(pk)
             if p is None:
                 continue
-            d = p.to_dict()
-            d["weight"] = round(weights.get(row, 0.0), 4)
-            out.append(d)
+            out.append(WeightedPrecedent(**dict(p), weight=weights.get(row, 0.0)))
         return out
 
 
 def _back(value: float, metric: str) -> float:
     v = float(from_log(value))
     v = max(v, 0.0)
-    return round(v, 5) if metric == "engagement_rate" else round(v, 1)
+    return round(v, 5) if metric == Metric.ENGAGEMENT_RATE else round(v, 1)

@@ -5,16 +5,17 @@ statement when the intervals do not tell the hours apart (``overlap.RULE``).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 from datetime import date, datetime, time, timedelta
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
+from pydantic import BaseModel, Field
 
 from models.errors import InputError
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from models.stacking import best_hour_confidence
 
+from .answers import Coverage, Instant, Round3
 from .forecasting import CAUTION, Draft, Forecaster
 from .overlap import RULE, ranks, tied_with_best
 from .timeparse import UTC, now_utc, zone
@@ -56,95 +57,79 @@ def parse_day(text: str, *, where: str = "day") -> date:
         ) from None
 
 
-@dataclass(slots=True)
-class Slot:
-    planned_at: datetime  # UTC
-    local: datetime  # in the account's zone
+def _offset_text(local: datetime) -> str:
+    """UTC offset as ISO 8601 ±HH:MM (seconds of old local mean times dropped)."""
+    minutes = int((local.utcoffset() or timedelta(0)).total_seconds() // 60)
+    sign = "-" if minutes < 0 else "+"
+    return f"{sign}{abs(minutes) // 60:02d}:{abs(minutes) % 60:02d}"
+
+
+class Slot(BaseModel):
+    """One hour of the day (or week): the draft's forecast if posted then."""
+
+    planned_at: Instant = Field(description="The slot's start, UTC")
+    local_time: str = Field(description="The slot's start in the account's zone, with its offset")
+    local_date: date
+    local_hour: str = Field(description="Local wall-clock hour, HH:MM")
+    utc_offset: str = Field(description="UTC offset at that instant, e.g. +01:00")
     low: float
     median: float
     high: float
-    log: tuple[float, float, float]
+    rank: int = Field(default=0, description="1 = highest median")
+    tied_with_best: bool = Field(
+        default=False, description="Interval about equal to the best slot's (see rule)"
+    )
     warnings: list[str]
-    rank: int = 0
-    tied_with_best: bool = False
+    log: tuple[float, float, float] = Field(default=(0.0, 0.0, 0.0), exclude=True)
+
+    @classmethod
+    def at(cls, planned_at: datetime, local: datetime, **forecast: Any) -> Slot:
+        """The slot starting at ``planned_at`` (UTC), ``local`` in the account's zone."""
+        return cls(
+            planned_at=planned_at,
+            local_time=local.isoformat(timespec="minutes"),
+            local_date=local.date(),
+            local_hour=f"{local:%H:%M}",
+            utc_offset=_offset_text(local),
+            **forecast,
+        )
 
     @property
-    def offset(self) -> str:
-        """UTC offset as ISO 8601 ±HH:MM (seconds of old local mean times dropped)."""
-        minutes = int((self.local.utcoffset() or timedelta(0)).total_seconds() // 60)
-        sign = "-" if minutes < 0 else "+"
-        return f"{sign}{abs(minutes) // 60:02d}:{abs(minutes) % 60:02d}"
+    def local(self) -> datetime:
+        """The slot's start in the account's zone (at its UTC offset)."""
+        return datetime.fromisoformat(self.local_time)
 
     def label(self, *, with_day: bool = False) -> str:
         day = f"{self.local:%a %d %b} " if with_day else ""
-        return f"{day}{self.local:%H:%M} (UTC{self.offset})"
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "planned_at": self.planned_at.isoformat(),
-            "local_time": self.local.isoformat(timespec="minutes"),
-            "local_date": self.local.date().isoformat(),
-            "local_hour": f"{self.local:%H:%M}",
-            "utc_offset": self.offset,
-            "low": self.low,
-            "median": self.median,
-            "high": self.high,
-            "rank": self.rank,
-            "tied_with_best": self.tied_with_best,
-            "warnings": self.warnings,
-        }
+        return f"{day}{self.local_hour} (UTC{self.utc_offset})"
 
 
-@dataclass(slots=True)
-class HoursReport:
+class HoursReport(BaseModel):
+    """Best hours of one draft: every slot forecast, ranked, and whether they can be told apart."""
+
     account: str
     timezone: str
-    metric: str
-    coverage: float
+    metric: Metric
+    coverage: Coverage
     backtested_coverage: float | None
     model_version: str
-    mode: str  # "day" or "week"
+    mode: Literal["day", "week"] = Field(description="day or week")
     first_day: date
     last_day: date
-    slots: list[Slot]  # chronological
-    best_index: int
-    fraction_tied_with_best: float  # of the other slots, the share about equal to the best
-    told_apart: bool
+    n_slots: int
+    told_apart: bool = Field(description="False when most hours cannot be told apart")
+    fraction_tied_with_best: Round3 = Field(description="Share of the other slots about equal to the best")
+    best_stays_best: float | None = Field(
+        default=None,
+        description="Share of bootstrap refits of the timing effect in which the "
+        "best slot stays best (null for models without a timing component)",
+    )
     summary: str
-    top: int = 3
-    warnings: list[str] = field(default_factory=list)
-    # Share of the timing component's bootstrap refits in which the best slot
-    # stays best (None: the model has no timing component).
-    best_stays_best: float | None = None
-
-    @property
-    def best(self) -> list[Slot]:
-        """The slots about equal to the best, highest median first, at most ``top``."""
-        group = [s for s in self.slots if s.tied_with_best]
-        return sorted(group, key=lambda s: s.rank)[: self.top]
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "account": self.account,
-            "timezone": self.timezone,
-            "metric": self.metric,
-            "coverage": self.coverage,
-            "backtested_coverage": self.backtested_coverage,
-            "model_version": self.model_version,
-            "mode": self.mode,
-            "first_day": self.first_day.isoformat(),
-            "last_day": self.last_day.isoformat(),
-            "n_slots": len(self.slots),
-            "told_apart": self.told_apart,
-            "fraction_tied_with_best": round(self.fraction_tied_with_best, 3),
-            "summary": self.summary,
-            "best_stays_best": self.best_stays_best,
-            "rule": RULE,
-            "best": [s.to_dict() for s in self.best],
-            "slots": [s.to_dict() for s in self.slots],
-            "warnings": self.warnings,
-            "caution": CAUTION,
-        }
+    rule: str = RULE
+    best: list[Slot] = Field(description="Slots about equal to the best, highest median first")
+    slots: list[Slot] = Field(description="Every slot, in time order")
+    warnings: list[str] = Field(default_factory=list)
+    caution: str = CAUTION
 
 
 def best_hours(
@@ -187,15 +172,7 @@ def best_hours(
     )
     z = zone(tz)
     slots = [
-        Slot(
-            planned_at=t,
-            local=t.astimezone(z),
-            low=f.low,
-            median=f.median,
-            high=f.high,
-            log=f.log,
-            warnings=f.warnings,
-        )
+        Slot.at(t, t.astimezone(z), low=f.low, median=f.median, high=f.high, log=f.log, warnings=f.warnings)
         for t, f in zip(instants, found, strict=True)
     ]
     best, flags = tied_with_best([s.log for s in slots])
@@ -203,7 +180,8 @@ def best_hours(
         s.rank, s.tied_with_best = r, flag
     others = len(slots) - 1
     share = (sum(flags) - 1) / others if others else 1.0
-    report = HoursReport(
+    told_apart = share <= 0.5
+    return HoursReport(
         account=account,
         timezone=tz,
         metric=metric,
@@ -213,37 +191,35 @@ def best_hours(
         mode="week" if week else "day",
         first_day=days[0],
         last_day=days[-1],
-        slots=slots,
-        best_index=best,
+        n_slots=len(slots),
+        told_apart=told_apart,
         fraction_tied_with_best=share,
-        told_apart=share <= 0.5,
-        summary="",
-        top=top,
+        best_stays_best=best_hour_confidence(
+            forecaster.model(metric).quantiles,
+            local_hours=[s.local.hour + s.local.minute / 60 for s in slots],
+            weekdays=[s.local.weekday() for s in slots],
+            account=forecaster.view(metric).account_codes[account],
+            medians=[s.log[1] for s in slots],
+        ),
+        summary=hours_summary(slots, coverage=coverage, told_apart=told_apart, top=top, week=week),
+        best=sorted((s for s in slots if s.tied_with_best), key=lambda s: s.rank)[:top],
+        slots=slots,
         warnings=list(slots[best].warnings),
     )
-    report.best_stays_best = best_hour_confidence(
-        forecaster.model(metric).quantiles,
-        local_hours=[s.local.hour + s.local.minute / 60 for s in slots],
-        weekdays=[s.local.weekday() for s in slots],
-        account=forecaster.view(metric).account_codes[account],
-        medians=[s.log[1] for s in slots],
-    )
-    report.summary = _hours_summary(report)
-    return report
 
 
-def _hours_summary(r: HoursReport) -> str:
-    week = r.mode == "week"
-    group = sorted((s for s in r.slots if s.tied_with_best), key=lambda s: s.rank)
-    lower = [s for s in r.slots if not s.tied_with_best]
-    n = len(r.slots)
+def hours_summary(slots: list[Slot], *, coverage: float, told_apart: bool, top: int, week: bool) -> str:
+    """One plain sentence on the best hours, or on why they cannot be told apart."""
+    group = sorted((s for s in slots if s.tied_with_best), key=lambda s: s.rank)
+    lower = [s for s in slots if not s.tied_with_best]
+    n = len(slots)
     if not lower:
         return (
             f"These hours cannot be told apart with this history: every hour's "
-            f"{r.coverage:.0%} interval overlaps the best hour's by at least half its width."
+            f"{coverage:.0%} interval overlaps the best hour's by at least half its width."
         )
     weaker = _spans(lower, week)
-    if not r.told_apart:
+    if not told_apart:
         return (
             f"These hours cannot be told apart with this history: {len(group) - 1} of the "
             f"other {n - 1} hours have intervals overlapping the best hour's by at least half. "
@@ -251,8 +227,8 @@ def _hours_summary(r: HoursReport) -> str:
         )
     if len(group) == 1:
         return f"Best hour: {group[0].label(with_day=week)}; every other hour looks clearly weaker."
-    shown = ", ".join(s.label(with_day=week) for s in group[: r.top])
-    more = f" and {len(group) - r.top} more" if len(group) > r.top else ""
+    shown = ", ".join(s.label(with_day=week) for s in group[:top])
+    more = f" and {len(group) - top} more" if len(group) > top else ""
     return (
         f"Best hours: {shown}{more}, about equal to each other (not ranked among "
         f"themselves); the other {len(lower)} hours look clearly weaker."

@@ -38,20 +38,22 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from decimal import ROUND_HALF_EVEN, Decimal
 from pathlib import Path
-from typing import Any, TextIO
+from typing import Any, Literal, TextIO
 
 import numpy as np
+from pydantic import BaseModel, ConfigDict, Field
 
 from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
-from models.metrics import METRIC_COLUMNS
+from models.metrics import METRIC_COLUMNS, Metric
 
+from .answers import Instant, MetricValues
 from .csvread import Abandoned, BadRecord, Record, RecordReader
 from .numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from .store import PostRow, Store
 from .timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order, zone
 
-RATE_COLUMN = "engagement_rate"
+RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
 CANONICAL_COLUMNS: tuple[str, ...] = (
     "post_id",
     "account",
@@ -67,6 +69,7 @@ _TRUE = {"true", "1", "yes", "y", "t"}
 _FALSE = {"false", "0", "no", "n", "f", ""}
 _CHUNK = 1 << 20
 PREVIEW_ROWS = 5
+QUOTE_HINT = "check the quotes of this row: a quote inside a quoted field is written twice (RFC 4180)"
 
 # Our own fields can be long, but a single field past this is not a post.
 csv.field_size_limit(1 << 24)
@@ -114,59 +117,45 @@ class ImportOptions:
         return self
 
 
-@dataclass(frozen=True, slots=True)
-class RowProblem:
-    line: int
-    column: str | None
+class RowProblem(BaseModel):
+    """A rejected row: where it starts, which column is at fault, why, and a fix to try."""
+
+    model_config = ConfigDict(frozen=True)
+
+    line: int = Field(description="Line of the file where the rejected row starts")
+    column: str | None = Field(description="Our column name, when one field is at fault")
     reason: str
-    hint: str | None = None
-    post_id: str | None = None
+    hint: str | None = Field(default=None, description="A fix to try")
+    post_id: str | None = Field(default=None, description="The row's post_id, when readable")
 
     def __str__(self) -> str:
         col = f", column {self.column}" if self.column else ""
         fix = f" ({self.hint})" if self.hint else ""
         return f"line {self.line}{col}: {self.reason}{fix}"
 
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "line": self.line,
-            "column": self.column,
-            "reason": self.reason,
-            "hint": self.hint,
-            "post_id": self.post_id,
-        }
 
+class ImportSummary(BaseModel):
+    """What an import did."""
 
-@dataclass(slots=True)
-class ImportSummary:
     added: int = 0
     updated: int = 0
     unchanged: int = 0
     rejected: int = 0
-    embedded: int = 0
-    approximate: int = 0  # rows stored with an abbreviated or derived count
-    skipped_lines: int = 0  # lines never read: the rest of the file was not CSV
-    stopped: str | None = None
-    problems: list[RowProblem] = field(default_factory=list)
-    changed_pks: list[int] = field(default_factory=list)
+    embedded: int = Field(default=0, description="Texts embedded for the first time")
+    approximate: int = Field(
+        default=0, description="Rows stored with an abbreviated (1.2K) or derived count, marked approximate"
+    )
+    skipped_lines: int = Field(
+        default=0, description="Lines never read because the rest of the file was not CSV"
+    )
+    stopped: str | None = Field(default=None, description="Why reading stopped early, if it did")
+    problems: list[RowProblem] = Field(default_factory=list)
+    changed_pks: list[int] = Field(default_factory=list, exclude=True)
 
     @property
     def complete(self) -> bool:
         """Every row was stored (none rejected, none left unread)."""
         return not self.rejected and not self.skipped_lines
-
-    def to_dict(self) -> dict[str, object]:
-        return {
-            "added": self.added,
-            "updated": self.updated,
-            "unchanged": self.unchanged,
-            "rejected": self.rejected,
-            "embedded": self.embedded,
-            "approximate": self.approximate,
-            "skipped_lines": self.skipped_lines,
-            "stopped": self.stopped,
-            "problems": [p.to_dict() for p in self.problems],
-        }
 
 
 def parse_mapping(pairs: Sequence[str] | None) -> dict[str, str]:
@@ -324,12 +313,10 @@ class _Rows:
                 return
             if isinstance(item, BadRecord):
                 yield RowProblem(
-                    item.line,
-                    None,
-                    item.reason,
-                    "check the quotes of this row: a quote inside a quoted field is written twice (RFC 4180)"
-                    if "quote" in item.reason
-                    else None,
+                    line=item.line,
+                    column=None,
+                    reason=item.reason,
+                    hint=QUOTE_HINT if "quote" in item.reason else None,
                 )
                 continue
             fields, start = item.fields, item.line
@@ -338,13 +325,16 @@ class _Rows:
             post_id = fields[id_at].strip() or None if len(fields) > id_at else None
             if len(fields) < width:
                 yield RowProblem(
-                    start, None, f"has {len(fields)} fields, expected at least {width}", None, post_id
+                    line=start,
+                    column=None,
+                    reason=f"has {len(fields)} fields, expected at least {width}",
+                    post_id=post_id,
                 )
                 continue
             try:
                 yield self._row(fields, start)
             except _Reject as r:
-                yield RowProblem(start, r.column, r.reason, r.hint, post_id)
+                yield RowProblem(line=start, column=r.column, reason=r.reason, hint=r.hint, post_id=post_id)
 
     def _get(self, fields: list[str], col: str) -> str | None:
         i = self.positions.get(col)
@@ -572,73 +562,66 @@ def import_csv(
 # Dry run --------------------------------------------------------------------
 
 
-@dataclass(frozen=True, slots=True)
-class ColumnUse:
+class ColumnUse(BaseModel):
     """How one of our columns is read: from which of the file's columns, and as what."""
 
     ours: str
-    theirs: str | None
-    reads: str
+    theirs: str | None = Field(description="The file's column, or null when not read")
+    reads: str = Field(description="How its values are read")
 
 
-@dataclass(frozen=True, slots=True)
-class PreviewRow:
+class PreviewRow(BaseModel):
+    """One row of a dry run, as it would be stored."""
+
     line: int
     account: str
     post_id: str
     text: str
-    posted_at: str  # UTC, ISO 8601
-    local_time: str  # in the zone the time was read in, ISO 8601 with its offset
+    posted_at: Instant = Field(description="UTC")
+    local_time: str = Field(description="In the zone the time was read in, with its offset")
     zone: str
-    metrics: dict[str, int | None]
-    approximate: list[str]
+    metrics: MetricValues
+    approximate: list[str] = Field(description="Metrics known only roughly")
     has_media: bool | None
 
 
-@dataclass(slots=True)
-class ImportPreview:
-    """What an import would do, with nothing written."""
+class ImportFix(BaseModel):
+    """A fix to try, with how many rejected rows it concerns and the first of them."""
 
+    column: str | None
+    hint: str
+    rows: int = Field(description="Rejected rows this fix concerns")
+    first_line: int
+
+
+class ImportPreview(BaseModel):
+    """A dry run: what the import would do; nothing was stored."""
+
+    dry_run: Literal[True] = True
     columns: list[ColumnUse]
-    unused: list[str]
+    unused_columns: list[str]
     time_layout: str
-    rows: list[PreviewRow] = field(default_factory=list)
-    would_import: int = 0
-    approximate: int = 0
-    summary: ImportSummary = field(default_factory=ImportSummary)
-
-    def fixes(self) -> list[dict[str, Any]]:
-        """Each distinct fix to try, with how many rejected rows it concerns
-        and the first of them."""
-        seen: dict[tuple[str | None, str], dict[str, Any]] = {}
-        for p in self.summary.problems:
-            if p.hint:
-                entry = seen.setdefault(
-                    (p.column, p.hint), {"column": p.column, "hint": p.hint, "rows": 0, "first_line": p.line}
-                )
-                entry["rows"] += 1
-        return list(seen.values())
-
-    def to_dict(self) -> dict[str, Any]:
-        s = self.summary
-        return {
-            "dry_run": True,
-            "columns": [vars_of(c) for c in self.columns],
-            "unused_columns": self.unused,
-            "time_layout": self.time_layout,
-            "rows": [vars_of(r) for r in self.rows],
-            "would_import": self.would_import,
-            "approximate": self.approximate,
-            "rejected": s.rejected,
-            "skipped_lines": s.skipped_lines,
-            "stopped": s.stopped,
-            "problems": [p.to_dict() for p in s.problems],
-            "fixes": self.fixes(),
-        }
+    rows: list[PreviewRow] = Field(description="The first rows as read")
+    would_import: int
+    approximate: int
+    rejected: int
+    skipped_lines: int
+    stopped: str | None
+    problems: list[RowProblem]
+    fixes: list[ImportFix]
 
 
-def vars_of(obj: Any) -> dict[str, Any]:
-    return {k: getattr(obj, k) for k in obj.__slots__}
+def fixes_of(problems: Sequence[RowProblem]) -> list[ImportFix]:
+    """Each distinct fix to try among ``problems``, with how many rows it
+    concerns and the first of them."""
+    seen: dict[tuple[str | None, str], ImportFix] = {}
+    for p in problems:
+        if p.hint:
+            fix = seen.setdefault(
+                (p.column, p.hint), ImportFix(column=p.column, hint=p.hint, rows=0, first_line=p.line)
+            )
+            fix.rows += 1
+    return list(seen.values())
 
 
 def preview_csv(
@@ -661,28 +644,28 @@ def preview_csv(
     """
     options = _options(account, mapping, timezone, time_format, date_order, decimal_comma)
     with _open_rows(Path(path), options, store, embedder) as (reader, _):
-        preview = ImportPreview(
-            columns=_column_uses(reader),
-            unused=[h for i, h in enumerate(reader.header) if i not in set(reader.positions.values())],
-            time_layout=options.layout().describe(),
-        )
-        s = preview.summary
+        columns = _column_uses(reader)
+        used = set(reader.positions.values())
+        unused = [h for i, h in enumerate(reader.header) if i not in used]
+        s = ImportSummary()
+        shown: list[PreviewRow] = []
+        would_import = 0
         for item in reader:
             if isinstance(item, RowProblem):
                 s.rejected += 1
                 s.problems.append(item)
                 continue
-            preview.would_import += 1
-            preview.approximate += bool(item.approximate)
-            if len(preview.rows) < rows:
+            would_import += 1
+            s.approximate += bool(item.approximate)
+            if len(shown) < rows:
                 tz = reader.zone_of(item.account)
-                preview.rows.append(
+                shown.append(
                     PreviewRow(
                         line=item.line,
                         account=item.account,
                         post_id=item.post_id,
                         text=item.text,
-                        posted_at=item.posted_at.astimezone(UTC).isoformat(),
+                        posted_at=item.posted_at.astimezone(UTC),
                         local_time=item.posted_at.astimezone(zone(tz)).isoformat(),
                         zone=tz,
                         metrics=item.metrics,
@@ -691,7 +674,19 @@ def preview_csv(
                     )
                 )
         _finish(s, reader)
-    return preview
+    return ImportPreview(
+        columns=columns,
+        unused_columns=unused,
+        time_layout=options.layout().describe(),
+        rows=shown,
+        would_import=would_import,
+        approximate=s.approximate,
+        rejected=s.rejected,
+        skipped_lines=s.skipped_lines,
+        stopped=s.stopped,
+        problems=s.problems,
+        fixes=fixes_of(s.problems),
+    )
 
 
 def _column_uses(rows: _Rows) -> list[ColumnUse]:
@@ -711,9 +706,9 @@ def _column_uses(rows: _Rows) -> list[ColumnUse]:
     for col in CANONICAL_COLUMNS:
         i = rows.positions.get(col)
         if i is not None:
-            out.append(ColumnUse(col, rows.header[i], reads[col]))
+            out.append(ColumnUse(ours=col, theirs=rows.header[i], reads=reads[col]))
         elif col == "account" and o.account:
-            out.append(ColumnUse(col, None, f"every row: {o.account} (--account)"))
+            out.append(ColumnUse(ours=col, theirs=None, reads=f"every row: {o.account} (--account)"))
         else:
-            out.append(ColumnUse(col, None, "not in the file"))
+            out.append(ColumnUse(ours=col, theirs=None, reads="not in the file"))
     return out

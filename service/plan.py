@@ -160,7 +160,7 @@ def forecast_plan(
                     [row.draft_id, metric, "", "", "", coverage, "", "", problems.get(i) or "not forecast"]
                 )
                 continue
-            top = fc.precedents[0]["post_id"] if fc.precedents else ""
+            top = fc.precedents[0].post_id if fc.precedents else ""
             w.writerow(
                 [
                     row.draft_id,

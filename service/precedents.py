@@ -2,39 +2,43 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
 
+from pydantic import BaseModel, Field
+
+from .answers import Instant, MetricValues, Round4
 from .store import Store
 from .timeparse import now_utc
 
 
-@dataclass(frozen=True, slots=True)
-class Precedent:
-    """A past post similar to a draft."""
+class Precedent(BaseModel):
+    """A past post similar to a draft, with its current metrics."""
 
-    pk: int
+    pk: int | None = Field(default=None, exclude=True, description="The post's row id in the store")
     post_id: str
     account: str
-    posted_at: datetime
+    posted_at: Instant
     text: str
-    similarity: float
-    metrics: dict[str, int | None]
-    mature: bool
-    has_link: bool = False
-    has_media: bool = False
+    similarity: Round4 = Field(description="Cosine similarity of the post's text to the draft's")
+    metrics: MetricValues
+    still_gathering: bool = Field(
+        description="True while the post's metrics are not final yet (younger than the maturity window)"
+    )
+    has_link: bool = Field(default=False, exclude=True)
+    has_media: bool = Field(default=False, exclude=True)
 
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "post_id": self.post_id,
-            "account": self.account,
-            "posted_at": self.posted_at.isoformat(),
-            "text": self.text,
-            "similarity": round(self.similarity, 4),
-            "metrics": self.metrics,
-            "still_gathering": not self.mature,
-        }
+
+class WeightedPrecedent(Precedent):
+    """A precedent shown with a forecast, with its weight in the forecast's features."""
+
+    weight: Round4 = Field(description="Share in the similarity-weighted mean of the precedents")
+
+
+class Precedents(BaseModel):
+    """The answer of a precedents search, most similar first."""
+
+    precedents: list[Precedent]
 
 
 def precedents_for(
@@ -64,7 +68,7 @@ def precedents_for(
                 text=d["text"],
                 similarity=sim,
                 metrics=d["metrics"],
-                mature=d["posted_at"] <= cutoff,
+                still_gathering=d["posted_at"] > cutoff,
                 has_link=d["has_link"],
                 has_media=d["has_media"],
             )

@@ -6,15 +6,16 @@ carries them as warnings.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
 from datetime import datetime
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
+from pydantic import BaseModel, Field
 
-from models.metrics import METRIC_COLUMNS, target_value
+from models.metrics import METRIC_COLUMNS, Metric, target_value
 
+from .answers import Instant, Round2, Round4
 from .history import HistoryView
 from .retrieval import Retriever, WideCache
 from .settings import Settings
@@ -22,51 +23,46 @@ from .settings import Settings
 DAY = 86400.0
 
 
-@dataclass(frozen=True, slots=True)
-class Repeat:
-    """A recent post very similar to a draft."""
+class Repeat(BaseModel):
+    """A recent post that a draft nearly repeats."""
 
-    scope: str  # "own": the draft's account; "team": another account of the store
+    scope: Literal["own", "team"] = Field(description="own: the draft's account; team: another account")
     post_id: str
     account: str
-    posted_at: datetime
-    days_before: float  # before the planned time
-    similarity: float
-    metric: str
-    value: float | None  # the post's metric so far
-    mature: bool
-    text: str
-    planned_is_now: bool = True
+    posted_at: Instant
+    days_before: Round2 = Field(description="Days before the planned time")
+    similarity: Round4
+    metric: Metric
+    value: float | None = Field(description="The post's metric so far")
+    still_gathering: bool = Field(description="True while the post's metrics are not final yet")
+    message: str = Field(description="The warning as one line")
 
-    @property
-    def message(self) -> str:
-        ago = _ago(self.days_before) + (" ago" if self.planned_is_now else " before the planned time")
-        how = _how_it_did(self.metric, self.value, self.mature)
-        snippet = self.text if len(self.text) <= 90 else self.text[:87].rstrip() + "..."
-        what = (
-            f"{self.post_id} on {self.posted_at:%Y-%m-%d}, {how}, similarity "
-            f"{self.similarity:.2f}: \u201c{snippet}\u201d"
-        )
-        if self.scope == "own":
-            return f"near-repeat: {self.account} posted something very similar {ago}: {what}"
-        return (
-            f"near-repeat on the team: someone on the team ({self.account}) posted something "
-            f"very similar {ago}: {what}"
-        )
 
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "scope": self.scope,
-            "post_id": self.post_id,
-            "account": self.account,
-            "posted_at": self.posted_at.isoformat(),
-            "days_before": round(self.days_before, 2),
-            "similarity": round(self.similarity, 4),
-            "metric": self.metric,
-            "value": self.value,
-            "still_gathering": not self.mature,
-            "message": self.message,
-        }
+def repeat_message(
+    *,
+    scope: str,
+    post_id: str,
+    account: str,
+    posted_at: datetime,
+    days_before: float,
+    similarity: float,
+    metric: str,
+    value: float | None,
+    still_gathering: bool,
+    text: str,
+    planned_is_now: bool,
+) -> str:
+    """The warning line of a near-repeat."""
+    ago = _ago(days_before) + (" ago" if planned_is_now else " before the planned time")
+    how = _how_it_did(metric, value, not still_gathering)
+    snippet = text if len(text) <= 90 else text[:87].rstrip() + "..."
+    what = f"{post_id} on {posted_at:%Y-%m-%d}, {how}, similarity {similarity:.2f}: \u201c{snippet}\u201d"
+    if scope == "own":
+        return f"near-repeat: {account} posted something very similar {ago}: {what}"
+    return (
+        f"near-repeat on the team: someone on the team ({account}) posted something "
+        f"very similar {ago}: {what}"
+    )
 
 
 def _ago(days: float) -> str:
@@ -80,7 +76,7 @@ def _ago(days: float) -> str:
 def _how_it_did(metric: str, value: float | None, mature: bool) -> str:
     if value is None:
         return f"no {metric} recorded yet"
-    shown = f"{value:.1%} {metric}" if metric == "engagement_rate" else f"{value:,.0f} {metric}"
+    shown = f"{value:.1%} {metric}" if metric == Metric.ENGAGEMENT_RATE else f"{value:,.0f} {metric}"
     return shown if mature else f"{shown} so far (still gathering)"
 
 
@@ -156,19 +152,19 @@ def _repeat(
 ) -> Repeat:
     rec = view.frame.iloc[row]
     posted = view.history.time[row]
-    return Repeat(
-        scope=scope,
-        post_id=str(rec["post_id"]),
-        account=str(rec["account"]),
-        posted_at=rec["posted_at"].to_pydatetime(),
-        days_before=(t - posted) / DAY,
-        similarity=float(sim),
-        metric=view.metric,
-        value=target_value(_metrics(rec), view.metric),
-        mature=bool(posted <= now.timestamp() - maturity),
-        text=str(rec["text"]),
-        planned_is_now=abs(t - now.timestamp()) < DAY,
-    )
+    fields: dict[str, Any] = {
+        "scope": scope,
+        "post_id": str(rec["post_id"]),
+        "account": str(rec["account"]),
+        "posted_at": rec["posted_at"].to_pydatetime(),
+        "days_before": (t - posted) / DAY,
+        "similarity": float(sim),
+        "metric": view.metric,
+        "value": target_value(_metrics(rec), view.metric),
+        "still_gathering": not bool(posted <= now.timestamp() - maturity),
+    }
+    message = repeat_message(**fields, text=str(rec["text"]), planned_is_now=abs(t - now.timestamp()) < DAY)
+    return Repeat(**fields, message=message)
 
 
 def _metrics(rec: pd.Series) -> dict[str, float | None]:

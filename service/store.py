@@ -21,6 +21,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from pydantic import BaseModel, ConfigDict, Field
 from sqlalchemy import create_engine, delete, event, func, select, update
 from sqlalchemy.engine import Engine, make_url
 from sqlalchemy.exc import IntegrityError, OperationalError, SQLAlchemyError
@@ -52,11 +53,14 @@ def has_link(text: str) -> bool:
     return bool(_LINK.search(text))
 
 
-@dataclass(frozen=True, slots=True)
-class AccountInfo:
+class AccountInfo(BaseModel):
+    """An account of the store (``GET /v1/accounts``, ``sounding accounts``)."""
+
+    model_config = ConfigDict(frozen=True)
+
     handle: str
     display_name: str | None
-    timezone: str
+    timezone: str = Field(description="IANA zone its local times are read in")
     posts: int = 0
 
 
@@ -226,7 +230,9 @@ class Store:
                 acc.timezone = timezone
             s.flush()
             n = s.scalar(select(func.count(Post.id)).where(Post.account_id == acc.id)) or 0
-            return AccountInfo(acc.handle, acc.display_name, acc.timezone, int(n))
+            return AccountInfo(
+                handle=acc.handle, display_name=acc.display_name, timezone=acc.timezone, posts=int(n)
+            )
 
     def account(self, handle: str) -> AccountInfo:
         with self.session() as s:
@@ -234,7 +240,9 @@ class Store:
             if acc is None:
                 raise NotFound(f"unknown account {handle!r}", field="account", value=handle)
             n = s.scalar(select(func.count(Post.id)).where(Post.account_id == acc.id)) or 0
-            return AccountInfo(acc.handle, acc.display_name, acc.timezone, int(n))
+            return AccountInfo(
+                handle=acc.handle, display_name=acc.display_name, timezone=acc.timezone, posts=int(n)
+            )
 
     def accounts(self) -> list[AccountInfo]:
         with self.session() as s:
@@ -244,7 +252,10 @@ class Store:
                 .group_by(Account.id)
                 .order_by(Account.handle)
             ).all()
-            return [AccountInfo(a.handle, a.display_name, a.timezone, int(n)) for a, n in rows]
+            return [
+                AccountInfo(handle=a.handle, display_name=a.display_name, timezone=a.timezone, posts=int(n))
+                for a, n in rows
+            ]
 
     def counts(self) -> dict[str, int]:
         with self.session() as s:

@@ -36,6 +36,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from pydantic import BaseModel, Field
 from scipy.stats import binom
 from sqlalchemy import Integer, cast, delete, func, select
 from statsmodels.stats.proportion import proportion_confint
@@ -44,8 +45,17 @@ from models import features as F
 from models.adaptive import aci_step, adaptive_quantile
 from models.artefact import TrainedModel, versions
 from models.errors import InputError, NotReady, SoundingError
-from models.metrics import TARGETS, check_coverage, check_target, target_value
+from models.metrics import (
+    DEFAULT_COVERAGE,
+    DEFAULT_METRIC,
+    TARGETS,
+    Metric,
+    check_coverage,
+    check_target,
+    target_value,
+)
 
+from .answers import Calibration, LiveCoverage
 from .forecasting import Draft, Forecast, _back
 from .tables import (
     Account,
@@ -62,7 +72,6 @@ SIMILARITY_TIE = 0.01
 #: Scored forecasts behind the staleness check of live coverage.
 RECENT_SCORED = 50
 WORST = 5
-DEFAULT_COVERAGE = 0.8
 BASELINES = ("account_median", "precedents_median")
 
 
@@ -77,6 +86,100 @@ def _at_level(coverage: float) -> Any:
     return ForecastGiven.coverage.between(c - 0.005, c + 0.005)
 
 
+# Answers ---------------------------------------------------------------------
+
+
+class BaselineScore(BaseModel):
+    mae_log: float | None = Field(description="MAE on the log1p scale on the same settled posts")
+    posts: int
+
+
+class Baselines(BaseModel):
+    account_median: BaselineScore = Field(
+        description="The account's trailing median, as it stood when the forecast was given"
+    )
+    precedents_median: BaselineScore = Field(
+        description="The median of the settled precedents shown with the forecast"
+    )
+
+
+class PeriodSummary(BaseModel):
+    given: int = Field(description="Forecasts given")
+    matched: int = Field(description="Forecasts matched to a published post")
+    settled: int = Field(description="Matched forecasts whose post is settled, i.e. scored")
+    stated_coverage: float | None
+    live_coverage: float | None = Field(
+        description="Share of settled forecasts whose outcome fell inside the interval"
+    )
+    live_coverage_ci: list[float] | None = Field(description="Wilson 95% interval [low, high]")
+    mae_log: float | None
+    baselines: Baselines
+
+
+class MonthSummary(PeriodSummary):
+    month: str = Field(description="YYYY-MM of when the forecasts were given (UTC)")
+
+
+class PrecedentBrief(BaseModel):
+    post_id: str
+    account: str
+    text: str
+    similarity: float
+    value: float | None
+
+
+class Miss(BaseModel):
+    forecast_id: int
+    given_at: str
+    draft_id: str | None
+    account: str
+    text: str
+    planned_at: str
+    post_id: str | None
+    posted_at: str | None
+    coverage: float
+    low: float
+    median: float
+    high: float
+    outcome: float | None
+    error_log: float | None
+    model_version: str
+    calibration: str
+    precedents: list[PrecedentBrief]
+
+
+class CalibrationLevel(BaseModel):
+    level: str
+    alpha_t: float
+    gamma: float
+    outcomes: int
+    pseudo_outcomes: int
+
+
+class TrackPoint(BaseModel):
+    given_at: str
+    posted_at: str | None
+    coverage: float
+    low: float
+    median: float
+    high: float
+    outcome: float | None
+    inside: bool | None
+
+
+class TrackRecord(BaseModel):
+    """The track record of one metric (``GET /v1/track-record``, ``sounding track-record``)."""
+
+    metric: Metric
+    as_of: str
+    filters: dict[str, str | None]
+    overall: PeriodSummary
+    months: list[MonthSummary]
+    worst: list[Miss] = Field(description="The settled forecasts that missed worst (log error)")
+    calibration: list[CalibrationLevel] = Field(description="Adaptive conformal state per level")
+    points: list[TrackPoint]
+
+
 # Giving ----------------------------------------------------------------------
 
 
@@ -84,8 +187,8 @@ def give(
     ws: Any,
     drafts: list[Draft],
     *,
-    metric: str = "impressions",
-    coverage: float = 0.8,
+    metric: str = DEFAULT_METRIC,
+    coverage: float = DEFAULT_COVERAGE,
     record: bool = True,
     source: str = "check",
     now: datetime | None = None,
@@ -104,7 +207,7 @@ def give(
         warnings = staleness(ws, metric, coverage, model=model, now=now)["warnings"]
         for f in found:
             _adapt_band(f, model, coverage, scored.state)
-            f.live_coverage = dict(scored.live)
+            f.live_coverage = scored.live.model_copy()
             f.warnings.extend(warnings)
         if record and found:
             _record(ws, drafts, found, model=model, source=source, now=now)
@@ -120,24 +223,18 @@ def _adapt_band(f: Forecast, model: TrainedModel, coverage: float, state: Calibr
     """Widen or narrow the CQR band by the ACI level alpha_t (same median)."""
     alpha = 1.0 - coverage
     alpha_t = alpha if state is None else state.alpha_t
-    info: dict[str, Any] = {
-        "method": "cqr",
-        "level": level_key(coverage),
-        "alpha": alpha,
-        "alpha_t": alpha_t,
-        "outcomes": 0,
-        "pseudo_outcomes": 0,
-        "capped": False,
-    }
+    info = Calibration(method="cqr", level=level_key(coverage), alpha=alpha, alpha_t=alpha_t)
     if state is not None and (state.real_updates or state.pseudo_updates):
-        info.update(
-            method="cqr+aci",
-            outcomes=state.real_updates,
-            pseudo_outcomes=state.pseudo_updates,
-            gamma=state.gamma,
-        )
         shift, capped = _shift(_scores(model, coverage), alpha, alpha_t)
-        info["capped"] = capped
+        info = info.model_copy(
+            update={
+                "method": "cqr+aci",
+                "outcomes": state.real_updates,
+                "pseudo_outcomes": state.pseudo_updates,
+                "gamma": state.gamma,
+                "capped": capped,
+            }
+        )
         lo, med, hi = f.log
         lo, hi = min(lo - shift, med), max(hi + shift, med)
         f.log = (lo, med, hi)
@@ -176,9 +273,9 @@ def _record(
             prec = [
                 math.log1p(v)
                 for p in f.precedents
-                if p.get("weight", 0) > 0
-                and not p.get("still_gathering", True)
-                and (v := target_value(p["metrics"], f.metric)) is not None
+                if p.weight > 0
+                and not p.still_gathering
+                and (v := target_value(p.metrics, f.metric)) is not None
             ]
             lo, med, hi = f.log
             s.add(
@@ -199,18 +296,18 @@ def _record(
                     median_log=med,
                     high_log=hi,
                     model_version=f.model_version,
-                    calibration=f.calibration.get("method", "cqr"),
-                    alpha_t=f.calibration.get("alpha_t", 1.0 - f.coverage),
+                    calibration=f.calibration.method if f.calibration else "cqr",
+                    alpha_t=f.calibration.alpha_t if f.calibration else 1.0 - f.coverage,
                     account_median_log=None if math.isnan(acct) else float(acct),
                     precedents_median_log=float(np.median(prec)) if prec else None,
                     precedents=json.dumps(
                         [
                             {
-                                "post_id": p["post_id"],
-                                "account": p["account"],
-                                "text": p["text"][:280],
-                                "similarity": p["similarity"],
-                                "value": target_value(p["metrics"], f.metric),
+                                "post_id": p.post_id,
+                                "account": p.account,
+                                "text": p.text[:280],
+                                "similarity": round(p.similarity, 4),
+                                "value": target_value(p.metrics, f.metric),
                             }
                             for p in f.precedents[:5]
                         ],
@@ -229,7 +326,7 @@ class _Scored:
     coverage, and the last scored forecasts (held?, stated coverage)."""
 
     state: CalibrationState | None
-    live: dict[str, Any]
+    live: LiveCoverage
     recent: list[tuple[bool, float]]
 
 
@@ -305,7 +402,7 @@ def reset_adaptation(ws: Any, metric: str | None = None) -> int:
         return int(s.execute(q).rowcount or 0)
 
 
-def live_coverage(store: Any, metric: str, coverage: float) -> dict[str, Any]:
+def live_coverage(store: Any, metric: str, coverage: float) -> LiveCoverage:
     """How often scored forecasts of this metric and level held so far."""
     with store.session() as s:
         n, k = s.execute(
@@ -314,12 +411,9 @@ def live_coverage(store: Any, metric: str, coverage: float) -> dict[str, Any]:
             .where(ForecastGiven.metric == metric, ForecastMatch.inside.is_not(None), _at_level(coverage))
         ).one()
     n, k = int(n or 0), int(k or 0)
-    return {
-        "scored": n,
-        "held": k,
-        "coverage": k / n if n else None,
-        "ci": list(_wilson(k, n)) if n else None,
-    }
+    return LiveCoverage(
+        scored=n, held=k, coverage=k / n if n else None, ci=list(_wilson(k, n)) if n else None
+    )
 
 
 def _wilson(k: int, n: int) -> tuple[float, float]:
@@ -334,7 +428,7 @@ def _wilson(k: int, n: int) -> tuple[float, float]:
 def staleness(
     ws: Any,
     metric: str,
-    coverage: float = 0.8,
+    coverage: float = DEFAULT_COVERAGE,
     *,
     model: TrainedModel | None = None,
     now: datetime | None = None,
@@ -725,9 +819,9 @@ def report(
     *,
     since: datetime | None = None,
     account: str | None = None,
-    metric: str = "impressions",
+    metric: str = DEFAULT_METRIC,
     now: datetime | None = None,
-) -> dict[str, Any]:
+) -> TrackRecord:
     """The track record of ``metric``: per month (of the forecast) and overall."""
     check_target(metric)
     if account is not None:
@@ -765,22 +859,19 @@ def report(
         months.setdefault(r["given_at"][:7], []).append(r)
     settled = [r for r in rows if r["inside"] is not None]
     worst = sorted(settled, key=lambda r: -r["error_log"])[:WORST]
-    return {
-        "metric": metric,
-        "as_of": (now or now_utc()).isoformat(),
-        "filters": {"since": since.isoformat() if since else None, "account": account},
-        "overall": summarise(rows),
-        "months": [{"month": k, **summarise(v)} for k, v in sorted(months.items())],
-        "worst": worst,
-        "calibration": states,
-        "points": [
-            {
-                k: r[k]
-                for k in ("given_at", "posted_at", "coverage", "low", "median", "high", "outcome", "inside")
-            }
-            for r in settled
-        ],
-    }
+    # Rows carry working columns (baseline logs, match kind) the answer leaves out.
+    return TrackRecord.model_validate(
+        {
+            "metric": metric,
+            "as_of": (now or now_utc()).isoformat(),
+            "filters": {"since": since.isoformat() if since else None, "account": account},
+            "overall": summarise(rows),
+            "months": [{"month": k, **summarise(v)} for k, v in sorted(months.items())],
+            "worst": worst,
+            "calibration": states,
+            "points": settled,
+        }
+    )
 
 
 def _row(

@@ -6,73 +6,52 @@ not, and told apart only by ``overlap.RULE``.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
 from datetime import datetime
-from typing import Any
+
+from pydantic import BaseModel, Field
 
 from models.errors import InputError, LimitExceeded, SoundingError
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 
-from .forecasting import CAUTION, Draft, Forecast, Forecaster
+from .answers import Coverage, Instant
+from .forecasting import CAUTION, Draft, Forecaster
 from .overlap import RULE, ranks, tied_with_best
 from .timeparse import now_utc
 
 MAX_VARIANTS = 10
 
 
-@dataclass(slots=True)
-class Variant:
-    index: int  # 1-based, in the order given
+class Variant(BaseModel):
+    """One phrasing of the draft with its forecast, rank and own precedents."""
+
+    index: int = Field(description="Position in the request, from 1")
     text: str
-    forecast: Forecast
     rank: int = 0
+    low: float
+    median: float
+    high: float
     tied_with_best: bool = False
-    only_here: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        f = self.forecast
-        return {
-            "index": self.index,
-            "text": self.text,
-            "rank": self.rank,
-            "low": f.low,
-            "median": f.median,
-            "high": f.high,
-            "tied_with_best": self.tied_with_best,
-            "precedents": [p["post_id"] for p in f.precedents],
-            "only_here": self.only_here,
-            "warnings": f.warnings,
-        }
+    precedents: list[str] = Field(description="Post ids of its precedents, most similar first")
+    only_here: list[str] = Field(default_factory=list, description="Precedent post ids no other variant has")
+    warnings: list[str]
+    log: tuple[float, float, float] = Field(default=(0.0, 0.0, 0.0), exclude=True)
 
 
-@dataclass(slots=True)
-class VariantsReport:
+class VariantsReport(BaseModel):
+    """Wordings of one draft compared at the same account and time."""
+
     account: str
-    planned_at: datetime
+    planned_at: Instant
     local_time: str
-    metric: str
-    coverage: float
+    metric: Metric
+    coverage: Coverage
     backtested_coverage: float | None
     model_version: str
-    variants: list[Variant]  # best first
     told_apart: bool
     summary: str
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "account": self.account,
-            "planned_at": self.planned_at.isoformat(),
-            "local_time": self.local_time,
-            "metric": self.metric,
-            "coverage": self.coverage,
-            "backtested_coverage": self.backtested_coverage,
-            "model_version": self.model_version,
-            "told_apart": self.told_apart,
-            "summary": self.summary,
-            "rule": RULE,
-            "variants": [v.to_dict() for v in self.variants],
-            "caution": CAUTION,
-        }
+    rule: str = RULE
+    variants: list[Variant] = Field(description="Best first")
+    caution: str = CAUTION
 
 
 def compare_variants(
@@ -111,15 +90,24 @@ def compare_variants(
     ]
     found = forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now)
     variants = [
-        Variant(index=i, text=t, forecast=f)
+        Variant(
+            index=i,
+            text=t,
+            low=f.low,
+            median=f.median,
+            high=f.high,
+            precedents=[p.post_id for p in f.precedents],
+            warnings=f.warnings,
+            log=f.log,
+        )
         for i, (t, f) in enumerate(zip(texts, found, strict=True), start=1)
     ]
-    ids = [[p["post_id"] for p in v.forecast.precedents] for v in variants]
+    ids = [v.precedents for v in variants]
     for i, v in enumerate(variants):
         elsewhere = set().union(*(set(x) for j, x in enumerate(ids) if j != i))
         v.only_here = [p for p in ids[i] if p not in elsewhere]
-    _, flags = tied_with_best([v.forecast.log for v in variants])
-    for v, r, flag in zip(variants, ranks([v.forecast.log[1] for v in variants]), flags, strict=True):
+    _, flags = tied_with_best([v.log for v in variants])
+    for v, r, flag in zip(variants, ranks([v.log[1] for v in variants]), flags, strict=True):
         v.rank, v.tied_with_best = r, flag
     variants.sort(key=lambda v: v.rank)
     told_apart = sum(flags) == 1

@@ -20,7 +20,7 @@ from typing import Any
 
 import numpy as np
 
-from models.artefact import clean_leftovers, intact
+from models.artefact import clean_leftovers
 from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
 from models.index import VectorIndex, fingerprint
@@ -29,7 +29,7 @@ from .forecasting import Forecaster
 from .importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
 from .locking import LOCK_FILE, WriteLock
 from .precedents import Precedent, precedents_for
-from .retrieval import Hits, Retriever
+from .retrieval import Retriever
 from .settings import Settings
 from .store import AccountInfo, Store
 from .timeparse import as_utc
@@ -370,32 +370,6 @@ class Workspace:
 
     # Precedents -------------------------------------------------------------
 
-    def check_draft(self, text: str) -> str:
-        """The draft text, within the request limits (``service.limits``)."""
-        return self.forecaster.limits.check_draft(text)
-
-    def check_batch(self, n: int) -> int:
-        return self.forecaster.limits.check_batch(n)
-
-    def embed_drafts(self, texts: list[str]) -> np.ndarray:
-        return self.forecaster.embed(texts)
-
-    def neighbours(
-        self,
-        vectors: np.ndarray,
-        k: int,
-        *,
-        account: str | None = None,
-        since: datetime | None = None,
-        until: datetime | None = None,
-        allowed_pks: np.ndarray | None = None,
-    ) -> list[Hits]:
-        """(post row id, similarity) of the ``k`` nearest posts per vector
-        (``service.retrieval.Retriever.nearest``)."""
-        return self.retrieval.nearest(
-            vectors, k, account=account, since=since, until=until, allowed_pks=allowed_pks
-        )
-
     def precedents(
         self,
         text: str,
@@ -412,33 +386,6 @@ class Workspace:
         since, until = _utc_bound(since, "since"), _utc_bound(until, "until")
         if since and until and since > until:
             raise InputError("the date range ends before it starts", field="since")
-        vec = self.embed_drafts([text])
-        hits = self.neighbours(vec, k, account=account, since=since, until=until)[0]
-        return self.precedents_for(hits, now=now)
-
-    def precedents_for(
-        self,
-        hits: Hits,
-        *,
-        now: datetime | None = None,
-        details: dict[int, dict[str, Any]] | None = None,
-    ) -> list[Precedent]:
-        """Precedents for (post row id, similarity) hits (``service.precedents``)."""
-        return precedents_for(
-            self.store, hits, maturity_hours=self.settings.maturity_hours, now=now, details=details
-        )
-
-    def health(self) -> dict[str, Any]:
-        counts = self.store.counts()
-        served, damaged = intact(self.settings.models_dir, "impressions")
-        return {
-            "posts": counts["posts"],
-            "accounts": counts["accounts"],
-            "model_id": self.embedder.model_id,
-            "embedding": self.embedder.info(),
-            "index": self.index_state(),
-            "search": self.search_state(),
-            "forecaster": served,
-            "damaged_models": [f"impressions/{v}: {why}" for v, why in damaged],
-            "read_only": self.read_only,
-        }
+        vec = self.forecaster.embed([text])
+        hits = self.retrieval.nearest(vec, k, account=account, since=since, until=until)[0]
+        return precedents_for(self.store, hits, maturity_hours=self.settings.maturity_hours, now=now)

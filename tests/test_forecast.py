@@ -187,11 +187,11 @@ def test_forecast_fields_and_interval(demo_workspace):
     )
     assert f.local_time.startswith("2026-12-02T12:30+00:00")
     assert len(f.precedents) >= 10
-    sims = [p["similarity"] for p in f.precedents]
+    sims = [p.similarity for p in f.precedents]
     assert sims == sorted(sims, reverse=True)
-    weights = [p["weight"] for p in f.precedents if not p["still_gathering"]]
+    weights = [p.weight for p in f.precedents if not p.still_gathering]
     assert sum(weights) == pytest.approx(1.0, abs=1e-3)
-    d = f.to_dict()
+    d = f.model_dump(mode="json")
     assert "not a certainty" in d["caution"]
 
 
@@ -236,13 +236,11 @@ def test_contributions_add_up_to_the_prediction(demo_workspace):
         # to it. Computed here from the model's own predict, not the answer.
         x = model.rows(x, vec.reshape(1, -1), [view.account_codes[d.account]])
         raw = model.quantiles.predict(x)[1][0]
-        total = f.contributions["expected_log"] + sum(
-            g["log_contribution"] for g in f.contributions["groups"]
-        )
+        total = f.contributions.expected_log + sum(g.log_contribution for g in f.contributions.groups)
         assert total == pytest.approx(raw, abs=1e-6)
-        assert [g["group"] for g in f.contributions["groups"]] == list(F.GROUPS)
-        for g in f.contributions["groups"]:
-            assert g["factor"] == pytest.approx(np.exp(g["log_contribution"]))
+        assert [g.group for g in f.contributions.groups] == list(F.GROUPS)
+        for g in f.contributions.groups:
+            assert g.factor == pytest.approx(np.exp(g.log_contribution))
 
 
 def _mean_log(ws, texts, account, when):

@@ -17,7 +17,7 @@ from typer.testing import CliRunner
 
 from service.api.app import create_app
 from service.forecasting import CAUTION
-from service.hours import Slot, _hours_summary, best_hours, day_slots
+from service.hours import Slot, best_hours, day_slots, hours_summary
 from service.overlap import heavy_overlap, tied_with_best
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -140,7 +140,7 @@ def rhythm(demo_workspace) -> list[list[float]]:
         r = best_hours(demo_workspace.forecaster, text, account="loomhaven", day=date(2026, 12, 3))
         assert len(r.slots) == 24  # no DST change in December (EU rule, as above)
         assert [s.local.hour for s in r.slots] == list(range(24))
-        assert r.summary and r.warnings == r.slots[r.best_index].warnings
+        assert r.summary and r.warnings == r.best[0].warnings
         out.append([s.log[1] for s in r.slots])
     return out
 
@@ -190,9 +190,9 @@ def _slots(logs: list[tuple[float, float, float]]) -> list[Slot]:
     for i, lg in enumerate(logs):
         t = t0 + timedelta(hours=i)
         out.append(
-            Slot(
-                planned_at=t,
-                local=t,
+            Slot.at(
+                t,
+                t,
                 low=lg[0],
                 median=lg[1],
                 high=lg[2],
@@ -215,30 +215,12 @@ def _slots(logs: list[tuple[float, float, float]]) -> list[Slot]:
     ],
 )
 def test_summary_says_when_hours_cannot_be_told_apart(logs, expect: str) -> None:
-    from service.hours import HoursReport
-
     slots = _slots(logs)
-    best, flags = tied_with_best([s.log for s in slots])
-    share = (sum(flags) - 1) / (len(slots) - 1)
-    r = HoursReport(
-        account="a",
-        timezone="UTC",
-        metric="impressions",
-        coverage=0.8,
-        backtested_coverage=None,
-        model_version="v",
-        mode="day",
-        first_day=date(2026, 12, 3),
-        last_day=date(2026, 12, 3),
-        slots=slots,
-        best_index=best,
-        fraction_tied_with_best=share,
-        told_apart=share <= 0.5,
-        summary="",
-    )
-    text = _hours_summary(r)
+    _best, flags = tied_with_best([s.log for s in slots])
+    told_apart = (sum(flags) - 1) / (len(slots) - 1) <= 0.5
+    text = hours_summary(slots, coverage=0.8, told_apart=told_apart, top=3, week=False)
     assert expect in text
-    assert ("cannot be told apart" in text) == (not r.told_apart)
+    assert ("cannot be told apart" in text) == (not told_apart)
 
 
 # CLI -----------------------------------------------------------------------------------

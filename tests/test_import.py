@@ -80,8 +80,10 @@ def test_rfc4180_quoting_is_read_exactly(workspace: Workspace, tmp_path: Path) -
     assert s.added == 3
     # Line numbers are physical lines: q3 spans lines 4-5, so q4 is on 6 and q5 on 7.
     assert s.problems == [
-        RowProblem(6, "text", "is empty", post_id="q4"),
-        RowProblem(7, "posted_at", s.problems[1].reason, s.problems[1].hint, post_id="q5"),
+        RowProblem(line=6, column="text", reason="is empty", post_id="q4"),
+        RowProblem(
+            line=7, column="posted_at", reason=s.problems[1].reason, hint=s.problems[1].hint, post_id="q5"
+        ),
     ]
     assert "cannot read time 'not-a-time'" in s.problems[1].reason
 
@@ -385,7 +387,7 @@ def test_blank_lines_are_skipped(workspace: Workspace, tmp_path: Path) -> None:
 def test_summary_json_shape(workspace: Workspace, tmp_path: Path) -> None:
     body = HEADER + "\nx1,garden,,2026-05-01T10:00:00Z,1,1,false\n"
     s = workspace.import_csv(write(tmp_path / "s.csv", body))
-    assert s.to_dict() == {
+    assert s.model_dump(mode="json") == {
         "added": 0,
         "updated": 0,
         "unchanged": 0,

@@ -20,6 +20,7 @@ from sklearn.neighbors import NearestNeighbors
 from models.embedding import Embedder
 from models.errors import InputError, NotFittedError, NotFound, StoreError
 from models.index import VectorIndex, fingerprint
+from service.health import health as health_of
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -207,7 +208,7 @@ def _check_workspace(
     k: int,
     **filters,
 ) -> None:
-    hits = ws.neighbours(queries, k, **filters)
+    hits = ws.retrieval.nearest(queries, k, **filters)
     sub_ids = df["pk"].to_numpy()[mask]
     ref_sims, ref_ids = sklearn_topk(vecs[mask], sub_ids, queries, k)
     sim_of = _sim_of(df, vecs, queries)
@@ -272,7 +273,7 @@ def test_precedents_rules(demo_workspace: Workspace, demo_truth) -> None:
 
 
 def _search(ws: Workspace, q: np.ndarray) -> list[list[tuple[int, float]]]:
-    return ws.neighbours(q, 10)
+    return ws.retrieval.nearest(q, 10)
 
 
 def _same(a, b, sim_of) -> None:
@@ -304,7 +305,7 @@ def test_deleted_index_is_rebuilt_with_same_results(
     fresh = Workspace(settings=Settings(home=demo_copy.settings.home), embedder=embedder)
     try:
         _same(before, _search(fresh, q), sim_of)
-        assert fresh.health()["index"]["state"] == "ready"
+        assert health_of(fresh).model_dump()["index"]["state"] == "ready"
         # A corrupt index file is rebuilt too, not a crash.
         (fresh.settings.index_dir / "index.faiss").write_bytes(b"garbage")
         third = Workspace(settings=Settings(home=demo_copy.settings.home), embedder=embedder)
@@ -320,18 +321,18 @@ def test_stale_index_is_detected_and_rebuilt(
     df, vecs = demo_truth
     ws1 = demo_copy
     ws1.index()
-    assert ws1.health()["index"]["state"] == "ready"
+    assert health_of(ws1).model_dump()["index"]["state"] == "ready"
     ws2 = Workspace(settings=Settings(home=ws1.settings.home), embedder=embedder)
     try:
         # Another process deletes a post through the store alone: the index on disk is stale.
         victim = df.iloc[500]
         ws2.store.forget(account=victim["account"], post_id=victim["post_id"])
-        assert ws1.health()["index"]["state"] == "stale"
-        assert ws2.health()["index"]["state"] == "stale"
+        assert health_of(ws1).model_dump()["index"]["state"] == "stale"
+        assert health_of(ws2).model_dump()["index"]["state"] == "stale"
         # ws1's next search notices, rebuilds, and never returns the deleted post.
-        hits = ws1.neighbours(vecs[500:501], 3)[0]
+        hits = ws1.retrieval.nearest(vecs[500:501], 3)[0]
         assert int(victim["pk"]) not in [p for p, _ in hits]
-        assert ws1.health()["index"] == {"state": "ready", "count": len(df) - 1}
+        assert health_of(ws1).model_dump()["index"] == {"state": "ready", "count": len(df) - 1}
 
         # Another workspace imports a new post: ws1's in-memory index picks it up.
         text = "A brand-new post about the midnight cactus bloom that nobody has seen before."
@@ -340,10 +341,10 @@ def test_stale_index_is_detected_and_rebuilt(
         )
         assert ws2.import_csv(tmp_path / "new.csv").added == 1
         q = embedder.encode([text])
-        pk, sim = ws1.neighbours(q, 1)[0][0]
+        pk, sim = ws1.retrieval.nearest(q, 1)[0][0]
         assert ws1.store.posts_by_pk([pk])[pk]["post_id"] == "new-1"
         assert sim == pytest.approx(1.0, abs=1e-4)
-        assert ws1.health()["index"] == {"state": "ready", "count": len(df)}
+        assert health_of(ws1).model_dump()["index"] == {"state": "ready", "count": len(df)}
 
         # A changed text (same post id) moves the post in ws1's search too.
         (tmp_path / "edit.csv").write_text(
@@ -352,7 +353,7 @@ def test_stale_index_is_detected_and_rebuilt(
             "2026-10-30T10:00:00Z,10\n"
         )
         assert ws2.import_csv(tmp_path / "edit.csv").updated == 1
-        pk2, sim2 = ws1.neighbours(q, 1)[0][0]
+        pk2, sim2 = ws1.retrieval.nearest(q, 1)[0][0]
         assert pk2 != pk or sim2 < 0.9
     finally:
         ws2.close()
@@ -366,7 +367,7 @@ def test_forget_updates_store_and_index(demo_copy: Workspace, demo_truth) -> Non
     after = demo_copy.store.counts()
     assert after["posts"] == before["posts"] - 1
     assert after["snapshots"] < before["snapshots"]
-    hits = demo_copy.neighbours(vecs[42:43], 5)[0]
+    hits = demo_copy.retrieval.nearest(vecs[42:43], 5)[0]
     assert int(victim["pk"]) not in [p for p, _ in hits]
     assert demo_copy.index_state() == {"state": "ready", "count": len(df) - 1}
     n = demo_copy.forget(account="loomhaven_lab")

@@ -14,6 +14,7 @@ import pytest
 from sklearn.neighbors import NearestNeighbors
 
 from models.index import VectorIndex
+from service.health import health as health_of
 from service.workspace import Workspace
 
 
@@ -131,7 +132,7 @@ def test_forget_removes_posts_from_the_approximate_index(demo_copy: Workspace, d
     assert index.approximate
     state = demo_copy.search_state()
     assert state is not None and state["approximate"] and state["recall_at_10"] >= 0.98
-    assert demo_copy.health()["search"] == state  # what GET /v1/health reports
+    assert health_of(demo_copy).model_dump()["search"] == state  # what GET /v1/health reports
     victim = 42
     demo_copy.forget(
         account=str(accounts[victim]), post_id=str(demo_copy.store.posts_frame().iloc[victim]["post_id"])
@@ -140,7 +141,7 @@ def test_forget_removes_posts_from_the_approximate_index(demo_copy: Workspace, d
     assert n > 0
     gone = set(ids[accounts == "loomhaven_lab"].tolist()) | {int(ids[victim])}
     q = np.vstack([vecs[victim : victim + 1], vecs[accounts == "loomhaven_lab"][:200]])
-    hits = demo_copy.neighbours(q, 20)
+    hits = demo_copy.retrieval.nearest(q, 20)
     assert all(p not in gone for h in hits for p, _ in h)
     # Also from the index saved to disk, as a restarted service would load it.
     loaded = VectorIndex.load(demo_copy.settings.index_dir)

@@ -71,13 +71,13 @@ def test_draft_at_the_limit_passes_and_one_more_character_is_refused(client: Tes
 
 def test_batch_limit_is_checked_before_any_embedding(ws: Workspace) -> None:
     calls = ws.embedder.calls
-    vecs = ws.embed_drafts(["one draft", "two drafts", "three drafts"])
+    vecs = ws.forecaster.embed(["one draft", "two drafts", "three drafts"])
     assert vecs.shape == (MAX_BATCH, 384)  # all-MiniLM-L6-v2 gives 384 dimensions
     with pytest.raises(LimitExceeded) as info:
-        ws.embed_drafts(["a draft"] * (MAX_BATCH + 1))
+        ws.forecaster.embed(["a draft"] * (MAX_BATCH + 1))
     assert (info.value.limit, info.value.maximum) == ("max_batch", MAX_BATCH)
     assert ws.embedder.calls == calls + MAX_BATCH  # the refused batch embedded nothing
-    assert ws.check_batch(MAX_BATCH) == MAX_BATCH
+    assert ws.forecaster.limits.check_batch(MAX_BATCH) == MAX_BATCH
 
 
 def test_batch_limit_over_http(client: TestClient, ws: Workspace) -> None:

@@ -27,7 +27,7 @@ import uvicorn
 from conftest import NEWS, SUBJECTS, TOKEN, history_csv
 
 from service.api.app import create_app
-from service.api.schemas import ImportSummaryOut, PrecedentsResponse
+from service.api.schemas import ImportSummary, Precedents
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -57,7 +57,7 @@ def precedents_body(t: int, i: int) -> dict[str, Any]:
 
 
 def check_precedents(data: dict[str, Any]) -> None:
-    found = PrecedentsResponse.model_validate(data).precedents
+    found = Precedents.model_validate(data).precedents
     assert len(found) == K
     assert {p.post_id for p in found} <= KNOWN_IDS
     sims = [p.similarity for p in found]
@@ -166,7 +166,7 @@ def test_concurrent_reads_during_an_import(served, artifacts: Path, capsys) -> N
     assert tally.errors == 0, tally.problems[:5]
     assert tally.ok == total
     assert import_result["status"] == 200, import_result
-    summary = ImportSummaryOut.model_validate(import_result["body"])
+    summary = ImportSummary.model_validate(import_result["body"])
     assert (summary.added, summary.rejected) == (IMPORT_ROWS, 0)
     # The reads really overlapped the import (else this tested nothing).
     assert tally.during_import > 0

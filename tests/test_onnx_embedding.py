@@ -18,6 +18,7 @@ from models.embedding import Embedder
 from models.errors import InputError, StoreError
 from service.cli import app
 from service.cli import base as cli_base
+from service.health import health as health_of
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -186,11 +187,11 @@ def test_int8_setting_is_recorded_in_health(tmp_path: Path) -> None:
     s = Settings(home=tmp_path / "home", embed_quantize="int8")
     ws = Workspace(settings=s)  # its own embedder, built from the settings
     try:
-        health = ws.health()
+        health = health_of(ws).model_dump()
         assert health["embedding"]["quantize"] == "int8"
         assert health["embedding"]["vector_space"].endswith("#onnx-int8")
         default = Workspace(settings=Settings(home=tmp_path / "other"))
-        assert default.health()["embedding"]["quantize"] == "none"
+        assert health_of(default).model_dump()["embedding"]["quantize"] == "none"
         assert default.embedder.key("a") != ws.embedder.key("a")
         default.close()
     finally:

@@ -107,7 +107,7 @@ def test_forecasts_match_the_sqlite_store(demo_workspace: Workspace, pg_demo: Wo
     for r, g in zip(ref, got, strict=True):
         assert g.model_version == r.model_version
         assert (g.low, g.median, g.high) == pytest.approx((r.low, r.median, r.high), rel=1e-9)
-        assert [p["post_id"] for p in g.precedents] == [p["post_id"] for p in r.precedents]
+        assert [p.post_id for p in g.precedents] == [p.post_id for p in r.precedents]
 
 
 def test_segments_match_the_sqlite_store(demo_workspace: Workspace, pg_demo: Workspace) -> None:

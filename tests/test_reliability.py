@@ -281,7 +281,7 @@ def test_two_processes_importing_overlapping_files(workspace: Workspace, tmp_pat
         assert index_matches_store(ws)
         texts = [r[2] for r in rows(400, prefix="ov")]
         vecs = ws.embedder.encode(texts)
-        hits = ws.neighbours(vecs, 1)
+        hits = ws.retrieval.nearest(vecs, 1)
         found = ws.store.posts_by_pk([h[0][0] for h in hits])
         # Every post is found by its own text (cosine 1 with itself).
         assert [found[h[0][0]]["text"] for h in hits] == texts

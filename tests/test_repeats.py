@@ -106,11 +106,11 @@ def test_planted_repeats_are_flagged_and_ordinary_posts_are_not(demo, demo_works
     found = demo_workspace.forecaster.forecast(drafts, vectors=vecs[chosen])
     for (_, p), f in zip(planted.iterrows(), found[: len(rows)], strict=True):
         scope = "own" if p["kind"] == "same_account" else "team"
-        hits = [(r["account"], r["post_id"], r["scope"]) for r in f.repeats]
+        hits = [(r.account, r.post_id, r.scope) for r in f.repeats]
         assert (p["original_account"], p["original_post_id"], scope) in hits, (p.to_dict(), hits)
-        orig = next(r for r in f.repeats if r["post_id"] == p["original_post_id"])
+        orig = next(r for r in f.repeats if r.post_id == p["original_post_id"])
         # Source: planted_repeats.csv days_after (the generator's own record of the gap).
-        assert orig["days_before"] == pytest.approx(p["days_after"], abs=0.01)
+        assert orig.days_before == pytest.approx(p["days_after"], abs=0.01)
         msg = next(w for w in f.warnings if p["original_post_id"] in w)
         assert msg.startswith("near-repeat")
         if scope == "team":

@@ -51,12 +51,12 @@ def test_forgotten_posts_never_return(demo_copy) -> None:
     draft = Draft(text=text, account="loomhaven", planned_at=at)
     before = ws.forecaster.forecast([draft], now=at)[0]
     # Its own text right after it: it is the top precedent and a near-repeat.
-    assert before.precedents[0]["post_id"] == rec["post_id"]
-    assert rec["post_id"] in [r["post_id"] for r in before.repeats]
+    assert before.precedents[0].post_id == rec["post_id"]
+    assert rec["post_id"] in [r.post_id for r in before.repeats]
     assert ws.forget(account="loomhaven", post_id=str(rec["post_id"])) == 1
     after = ws.forecaster.forecast([draft], now=at)[0]
-    assert rec["post_id"] not in [p["post_id"] for p in after.precedents]
-    assert rec["post_id"] not in [r["post_id"] for r in after.repeats]
+    assert rec["post_id"] not in [p.post_id for p in after.precedents]
+    assert rec["post_id"] not in [r.post_id for r in after.repeats]
     assert all(rec["post_id"] not in w for w in after.warnings)
-    hits = ws.neighbours(ws.embedder.encode([text]), 5)[0]
+    hits = ws.retrieval.nearest(ws.embedder.encode([text]), 5)[0]
     assert int(rec["pk"]) not in [pk for pk, _ in hits]

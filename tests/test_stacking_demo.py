@@ -43,12 +43,12 @@ def test_hour_curve_matches_the_documented_one(demo_workspace, account: str) -> 
 
 def test_hours_answer_says_how_sure_it_is_of_the_best_hour(demo_workspace) -> None:
     r = best_hours(demo_workspace.forecaster, DRAFT, account="loomhaven", day=DAY, now=NOW)
-    share = r.to_dict()["best_stays_best"]
+    share = r.best_stays_best
     assert share is not None and 0.0 <= share <= 1.0
     # The documented peak (12-13 local) beats the night by 0.68 log units, far
     # beyond sampling noise at 1,500 posts: the best hour is a daytime one and
     # the refits agree on it more often than not.
-    best = r.slots[r.best_index].local.hour
+    best = r.best[0].local.hour
     assert 9 <= best <= 20
     assert share > 0.5
 

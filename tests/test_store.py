@@ -176,7 +176,7 @@ def test_changes_without_new_metrics(workspace: Workspace, embedder: Embedder, t
     row = workspace.store.posts_frame().iloc[0]
     assert row["text"] == "Goodbye garden" and row["vector_key"] != key1
     assert row["vector_key"] == embedder.key("Goodbye garden")
-    hits = workspace.neighbours(embedder.encode(["Goodbye garden"]), 1)[0]
+    hits = workspace.retrieval.nearest(embedder.encode(["Goodbye garden"]), 1)[0]
     assert hits[0][1] == pytest.approx(1.0, abs=1e-4)
 
 

@@ -150,19 +150,19 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
         out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
     if f.note:  # issue 10
         out.print(f"note: {f.note}", highlight=False)
-    for g in f.contributions["groups"]:
-        out.print(f"  {g['summary']}", highlight=False)
+    for g in f.contributions.groups:
+        out.print(f"  {g.summary}", highlight=False)
     rows = []
     for p in f.precedents[:8]:
-        v = p["metrics"].get(f.metric) if f.metric in p["metrics"] else None
+        v = p.metrics.get(f.metric)
         rows.append(
             [
-                f"{p['similarity']:.2f}",
-                f"{p['weight']:.2f}",
-                p["account"],
-                p["posted_at"][:10] + (" *" if p["still_gathering"] else ""),
+                f"{p.similarity:.2f}",
+                f"{p.weight:.2f}",
+                p.account,
+                f"{p.posted_at:%Y-%m-%d}" + (" *" if p.still_gathering else ""),
                 "-" if v is None else f"{v:,}",
-                p["text"],
+                p.text,
             ]
         )
     print_table(
@@ -179,18 +179,18 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
         title="precedents",
         wide=wide,
     )
-    if any(p["still_gathering"] for p in f.precedents[:8]):
+    if any(p.still_gathering for p in f.precedents[:8]):
         out.print(
             "* still gathering: its metrics are not final yet, so it is shown but not used", highlight=False
         )
     if f.calibration:  # track record (issue 11): calibration used, live coverage so far
-        live = f.live_coverage or {}
+        live = f.live_coverage
         held = (
-            "no forecast scored yet"
-            if not live.get("scored")
-            else f"held {live['coverage']:.0%} of {live['scored']} scored forecasts"
+            f"held {live.coverage:.0%} of {live.scored} scored forecasts"
+            if live is not None and live.scored and live.coverage is not None
+            else "no forecast scored yet"
         )
-        out.print(f"calibration: {f.calibration['method']}; live coverage: {held}")
+        out.print(f"calibration: {f.calibration.method}; live coverage: {held}")
     out.print(f"[dim]{CAUTION}[/dim]")
 
 
@@ -246,7 +246,7 @@ def check_cmd(
         source="check",
     )[0]
     if as_json:
-        print_json(f.to_dict())
+        print_json(f.model_dump(mode="json"))
     else:
         print_forecast(f, wide=wide)
 
@@ -254,11 +254,11 @@ def check_cmd(
 def demo_forecast(ws: Workspace, draft: str) -> None:
     """The forecasting half of `sounding demo`."""
     out.rule("3. train and backtest a forecast of impressions")
-    m = forecasting.train(ws, "impressions")
+    m = forecasting.train(ws, DEFAULT_METRIC)
     out.print(
         f"model {m.version}: {m.report['n_train']} posts to train, {m.report['n_calibration']} to calibrate"
     )
-    print_backtest(m.report["backtest"], "impressions")
+    print_backtest(m.report["backtest"], DEFAULT_METRIC)
     out.rule("4. forecast the sample draft for tomorrow noon")
     account = "loomhaven"
     tz = ws.store.account(account).timezone

@@ -5,7 +5,6 @@ from __future__ import annotations
 import ipaddress
 import json
 import os
-from dataclasses import asdict
 from datetime import datetime
 from pathlib import Path
 
@@ -26,7 +25,7 @@ from ..api.app import create_app
 from ..cluster import cluster_import_options
 from ..importer import ImportPreview, ImportSummary
 from ..mappings import combine, load_mapping
-from ..precedents import Precedent
+from ..precedents import Precedent, Precedents
 from ..settings import Settings
 from ..timeparse import parse_time
 from .base import app, err, is_terminal, next_step, out, print_json, workspace
@@ -66,7 +65,7 @@ def accounts_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.
     """List the accounts in the store."""
     rows = workspace().store.accounts()
     if as_json:
-        print_json([asdict(a) for a in rows])
+        print_json([a.model_dump(mode="json") for a in rows])
         return
     if not rows:
         out.print(next_step() or "No accounts yet: import some history first.", highlight=False)
@@ -105,8 +104,9 @@ def print_preview(p: ImportPreview, *, limit: int = 10) -> None:
         [[c.ours, c.theirs or "-", c.reads] for c in p.columns],
         title="columns",
     )
-    if p.unused:
-        shown = ", ".join(p.unused[:20]) + (f" and {len(p.unused) - 20} more" if len(p.unused) > 20 else "")
+    unused = p.unused_columns
+    if unused:
+        shown = ", ".join(unused[:20]) + (f" and {len(unused) - 20} more" if len(unused) > 20 else "")
         out.print(f"not read: {shown}", highlight=False, markup=False)
     metrics = [c.ours for c in p.columns if c.ours in METRIC_COLUMNS and c.theirs]
     out.print(f"first {len(p.rows)} rows as read (~ marks an approximate count):", highlight=False)
@@ -115,24 +115,23 @@ def print_preview(p: ImportPreview, *, limit: int = 10) -> None:
         counts = ", ".join(f"{m} {'~' if m in r.approximate else ''}{_n(r.metrics.get(m))}" for m in metrics)
         text = r.text if len(r.text) <= 40 else r.text[:37] + "..."
         out.print(
-            f"  line {r.line}: {r.account} {r.post_id}, {r.posted_at[:16].replace('T', ' ')}"
+            f"  line {r.line}: {r.account} {r.post_id}, {r.posted_at:%Y-%m-%d %H:%M}"
             f" UTC = {local}; {counts}; {text!r}",
             highlight=False,
             markup=False,
         )
-    s = p.summary
     rough = f" ({p.approximate} with approximate counts)" if p.approximate else ""
-    out.print(f"would import {p.would_import} rows{rough}; {s.rejected} would be rejected", highlight=False)
-    for prob in s.problems[:limit]:
+    out.print(f"would import {p.would_import} rows{rough}; {p.rejected} would be rejected", highlight=False)
+    for prob in p.problems[:limit]:
         err.print(f"rejected {prob}", highlight=False, markup=False)
-    if len(s.problems) > limit:
-        err.print(f"... and {len(s.problems) - limit} more rejected rows")
-    if s.stopped:
-        err.print(s.stopped, highlight=False, markup=False)
-    for fix in p.fixes():
-        col = f"column {fix['column']}, " if fix["column"] else ""
+    if len(p.problems) > limit:
+        err.print(f"... and {len(p.problems) - limit} more rejected rows")
+    if p.stopped:
+        err.print(p.stopped, highlight=False, markup=False)
+    for fix in p.fixes:
+        col = f"column {fix.column}, " if fix.column else ""
         err.print(
-            f"to try: {fix['hint']} ({col}{fix['rows']} rows, first on line {fix['first_line']})",
+            f"to try: {fix.hint} ({col}{fix.rows} rows, first on line {fix.first_line})",
             highlight=False,
             markup=False,
         )
@@ -193,13 +192,13 @@ def import_cmd(
     options = combine(load_mapping(ws.settings.resolved_home, saved) if saved else None, given)
     kw = options.kwargs()
     on_cluster = cluster_import_options(ws, cluster, workers=cluster_workers)
+    summary: ImportSummary | ImportPreview
     if dry_run:
-        preview = ws.preview_import(file, **kw)
+        summary = ws.preview_import(file, **kw)
         if as_json:
-            print_json(preview.to_dict())
+            print_json(summary.model_dump(mode="json"))
         else:
-            print_preview(preview)
-        summary = preview.summary
+            print_preview(summary)
     elif is_terminal() and not as_json:
         cols = (TextColumn("importing"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn())
         with Progress(*cols, console=out, transient=True) as bar:
@@ -211,9 +210,9 @@ def import_cmd(
             summary = ws.import_csv(file, progress=progress, **kw, **on_cluster)
     else:
         summary = ws.import_csv(file, **kw, **on_cluster)
-    if not dry_run:
+    if isinstance(summary, ImportSummary):
         if as_json:
-            print_json(summary.to_dict())
+            print_json(summary.model_dump(mode="json"))
         else:
             print_summary(summary)
     if summary.skipped_lines or (summary.rejected and not allow_rejects):
@@ -243,7 +242,7 @@ def print_precedents(found: list[Precedent], *, title: str = "precedents", wide:
         [
             f"{p.similarity:.2f}",
             p.account,
-            p.posted_at.strftime("%Y-%m-%d") + ("" if p.mature else " *"),
+            p.posted_at.strftime("%Y-%m-%d") + (" *" if p.still_gathering else ""),
             _n(p.metrics.get("impressions")),
             _n(p.metrics.get("engagements")),
             p.text,
@@ -264,7 +263,7 @@ def print_precedents(found: list[Precedent], *, title: str = "precedents", wide:
         title=title,
         wide=wide,
     )
-    if any(not p.mature for p in found):
+    if any(p.still_gathering for p in found):
         out.print("* still gathering: its metrics are not final yet", highlight=False)
 
 
@@ -293,7 +292,7 @@ def precedents_cmd(
         until=_time_opt(until, "--until"),
     )
     if as_json:
-        print_json({"precedents": [p.to_dict() for p in found]})
+        print_json(Precedents(precedents=found).model_dump(mode="json"))
     else:
         print_precedents(found, wide=wide)
 

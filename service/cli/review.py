@@ -5,7 +5,7 @@ from __future__ import annotations
 import typer
 
 from models.errors import InputError
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 
 from ..forecasting import CAUTION
 from ..hours import HoursReport, best_hours, parse_day
@@ -16,7 +16,7 @@ from .render import Column, interval_bar, print_table
 
 
 def _value(v: float, metric: str) -> str:
-    return f"{v:.2%}" if metric == "engagement_rate" else f"{v:,.0f}"
+    return f"{v:.2%}" if metric == Metric.ENGAGEMENT_RATE else f"{v:,.0f}"
 
 
 def print_hours(r: HoursReport) -> None:
@@ -110,7 +110,7 @@ def hours_cmd(
         has_media=media,
     )
     if as_json:
-        print_json(r.to_dict())
+        print_json(r.model_dump(mode="json"))
     else:
         print_hours(r)
 
@@ -128,14 +128,13 @@ def print_variants(r: VariantsReport, *, wide: bool = False) -> None:
     out.print(r.summary, highlight=False)
     rows = []
     for v in r.variants:
-        f = v.forecast
         rows.append(
             [
                 str(v.rank),
                 f"#{v.index}",
-                _value(f.low, r.metric),
-                _value(f.median, r.metric),
-                _value(f.high, r.metric),
+                _value(v.low, r.metric),
+                _value(v.median, r.metric),
+                _value(v.high, r.metric),
                 "yes" if v.tied_with_best else "no",
                 str(len(v.only_here)),
                 v.text,
@@ -158,7 +157,7 @@ def print_variants(r: VariantsReport, *, wide: bool = False) -> None:
     )
     out.print("own precedents: similar past posts that only this wording has", highlight=False)
     for v in r.variants:
-        for w in v.forecast.warnings:
+        for w in v.warnings:
             out.print(f"[yellow]warning (#{v.index}):[/yellow] {w}", highlight=False)
     out.print(f"[dim]{CAUTION}[/dim]")
 
@@ -191,6 +190,6 @@ def compare_cmd(
         has_media=media,
     )
     if as_json:
-        print_json(r.to_dict())
+        print_json(r.model_dump(mode="json"))
     else:
         print_variants(r, wide=wide)

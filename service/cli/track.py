@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any
 
 import typer
 
 from models.errors import InputError
+from models.metrics import DEFAULT_METRIC
 from models.track_plots import FORMATS, track_record_figure
 
-from ..track_record import parse_since, report, reset_adaptation
+from ..track_record import PeriodSummary, TrackRecord, parse_since, report, reset_adaptation
 from .base import app, out, print_json, workspace
 from .render import Column, print_table, typical_miss
 
@@ -24,7 +24,7 @@ def _miss(v: float | None) -> str:
     return "-" if v is None else typical_miss(abs(v))
 
 
-def print_report(rep: dict[str, Any]) -> None:
+def print_report(rep: TrackRecord) -> None:
     cols = [
         Column(header="period"),
         Column(header="given", right=True),
@@ -38,43 +38,44 @@ def print_report(rep: dict[str, Any]) -> None:
         Column(header="matched", right=True, optional=True),
     ]
     rows = []
-    for name, s in [(m["month"], m) for m in rep["months"]] + [("overall", rep["overall"])]:
-        ci = s["live_coverage_ci"]
-        b = s["baselines"]
+    periods: list[tuple[str, PeriodSummary]] = [(m.month, m) for m in rep.months]
+    for name, s in [*periods, ("overall", rep.overall)]:
+        ci = s.live_coverage_ci
+        b = s.baselines
         rows.append(
             [
                 name,
-                str(s["given"]),
-                str(s["settled"]),
-                _pct(s["stated_coverage"]),
-                _pct(s["live_coverage"]),
+                str(s.given),
+                str(s.settled),
+                _pct(s.stated_coverage),
+                _pct(s.live_coverage),
                 "-" if ci is None else f"{ci[0]:.1%}–{ci[1]:.1%}",
-                _miss(s["mae_log"]),
-                _miss(b["account_median"]["mae_log"]),
-                _miss(b["precedents_median"]["mae_log"]),
-                str(s["matched"]),
+                _miss(s.mae_log),
+                _miss(b.account_median.mae_log),
+                _miss(b.precedents_median.mae_log),
+                str(s.matched),
             ]
         )
     print_table(
         out,
         cols,
         rows,
-        title=f"track record of {rep['metric']} forecasts (95% CI: Wilson; the simple "
+        title=f"track record of {rep.metric} forecasts (95% CI: Wilson; the simple "
         "forecasters' typical miss on the same posts)",
     )
-    if rep["worst"]:
+    if rep.worst:
         worst = []
-        for r in rep["worst"]:
-            top = r["precedents"][0] if r["precedents"] else None
+        for r in rep.worst:
+            top = r.precedents[0] if r.precedents else None
             worst.append(
                 [
-                    r["draft_id"] or "-",
-                    r["account"],
-                    (r["posted_at"] or "")[:10],
-                    f"{r['low']:,.0f}–{r['high']:,.0f}",
-                    f"{r['outcome']:,.0f}",
-                    _miss(r["error_log"]),
-                    "-" if top is None else f"{top['post_id']}: {top['text']}",
+                    r.draft_id or "-",
+                    r.account,
+                    (r.posted_at or "")[:10],
+                    f"{r.low:,.0f}–{r.high:,.0f}",
+                    "-" if r.outcome is None else f"{r.outcome:,.0f}",
+                    _miss(r.error_log),
+                    "-" if top is None else f"{top.post_id}: {top.text}",
                 ]
             )
         print_table(
@@ -91,10 +92,10 @@ def print_report(rep: dict[str, Any]) -> None:
             worst,
             title="the forecasts that missed worst",
         )
-    for c in rep["calibration"]:
+    for c in rep.calibration:
         out.print(
-            f"adaptive calibration at {float(c['level']):.0%}: alpha_t {c['alpha_t']:.3f} "
-            f"after {c['outcomes']} outcomes and {c['pseudo_outcomes']} pseudo-outcomes"
+            f"adaptive calibration at {float(c.level):.0%}: alpha_t {c.alpha_t:.3f} "
+            f"after {c.outcomes} outcomes and {c.pseudo_outcomes} pseudo-outcomes"
         )
     out.print(
         "[dim]Live coverage is how often the stated intervals held on the posts that "
@@ -108,7 +109,7 @@ def track_record_cmd(
         None, "--since", help="Only forecasts given from this date or time (ISO 8601)."
     ),
     account: str | None = typer.Option(None, "--account", help="Only this account."),
-    metric: str = typer.Option("impressions", "--metric", help="The forecast metric."),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help="The forecast metric."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     plot: Path | None = typer.Option(None, "--plot", help="Also draw the record (.png or .svg)."),
     reset: bool = typer.Option(
@@ -127,9 +128,9 @@ def track_record_cmd(
         fmt = plot.suffix.lstrip(".").lower()
         if fmt not in FORMATS:
             raise InputError(f"--plot must end in .png or .svg, got {plot.name}", field="--plot")
-        plot.write_bytes(track_record_figure(rep, fmt=fmt))
+        plot.write_bytes(track_record_figure(rep.model_dump(mode="json"), fmt=fmt))
     if as_json:
-        print_json(rep)
+        print_json(rep.model_dump(mode="json"))
     else:
         print_report(rep)
         if plot is not None:

@@ -10,7 +10,7 @@ from ...track_record import give
 from ...workspace import Workspace
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
-from ..schemas import DraftIn, ForecastBatchRequest, ForecastList, ForecastOut, ForecastRequest
+from ..schemas import DraftIn, Forecast, ForecastBatchRequest, ForecastRequest, Forecasts
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
 
@@ -25,25 +25,25 @@ def to_draft(ws: Workspace, d: DraftIn, where: str) -> Draft:
 
 @router.post(
     "/forecasts",
-    response_model=ForecastOut | ForecastList,
+    response_model=Forecast | Forecasts,
     responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast one draft, or a list of drafts",
     description="Send one draft's fields, or {'drafts': [...]} for several. The answer is an "
     "interval with its stated and backtested coverage: an estimate from this team's history, "
     "not a certainty.",
 )
-def forecasts(body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep) -> ForecastOut | ForecastList:
+def forecasts(body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep) -> Forecast | Forecasts:
     with ws.store.pinned():  # the store's counters read once for the whole answer
         return _forecasts(body, ws)
 
 
-def _forecasts(body: ForecastRequest | ForecastBatchRequest, ws: Workspace) -> ForecastOut | ForecastList:
+def _forecasts(body: ForecastRequest | ForecastBatchRequest, ws: Workspace) -> Forecast | Forecasts:
     if isinstance(body, ForecastBatchRequest):
         ws.forecaster.limits.check_batch(len(body.drafts))
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
         # Track record hook (issue 11): adapted, staleness-checked and recorded.
         found = give(ws, drafts, metric=body.metric, coverage=body.coverage, record=body.record, source="api")
-        return ForecastList(forecasts=[ForecastOut(**f.to_dict()) for f in found])
+        return Forecasts(forecasts=found)
     # Track record hook (issue 11).
     found = give(
         ws,
@@ -53,4 +53,4 @@ def _forecasts(body: ForecastRequest | ForecastBatchRequest, ws: Workspace) -> F
         record=body.record,
         source="api",
     )
-    return ForecastOut(**found[0].to_dict())
+    return found[0]

@@ -7,14 +7,14 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 from ...hours import best_hours
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
-from ..schemas import HoursOut, HoursRequest
+from ..schemas import HoursReport, HoursRequest
 
 router = APIRouter(prefix="/v1", tags=["hours"])
 
 
 @router.post(
     "/hours",
-    response_model=HoursOut,
+    response_model=HoursReport,
     responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast one draft at every hour of a local day, or of seven days",
     description="Slots step hour by hour in UTC from local midnight to the next local midnight "
@@ -22,8 +22,8 @@ router = APIRouter(prefix="/v1", tags=["hours"])
     "slots by median and says when their intervals cannot tell them apart. Estimates from this "
     "team's history, not certainties.",
 )
-def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursOut:
-    report = best_hours(
+def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursReport:
+    return best_hours(
         ws.forecaster,
         body.text,
         account=body.account,
@@ -34,4 +34,3 @@ def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursOut:
         top=body.top,
         has_media=body.has_media,
     )
-    return HoursOut(**report.to_dict())

@@ -32,7 +32,7 @@ from ...mappings import combine, load_mapping
 from ...timeparse import DateOrder
 from ..deps import WorkspaceDep, WriteAccess
 from ..responses import ERRORS
-from ..schemas import ImportPreviewOut, ImportSummaryOut
+from ..schemas import ImportPreview, ImportSummary
 
 if typing.TYPE_CHECKING:
     from python_multipart.multipart import MultipartCallbacks
@@ -290,7 +290,7 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
 
 @router.post(
     "/imports",
-    response_model=ImportSummaryOut | ImportPreviewOut,
+    response_model=ImportSummary | ImportPreview,
     responses=ERRORS(AuthError, NotFound, NotReady, LimitExceeded, InputError, StoreError),
     openapi_extra={"requestBody": UPLOAD_BODY},
     summary="Import past posts and their metrics from an uploaded CSV file",
@@ -306,7 +306,7 @@ async def create_import(
             "first rows as read and what would be rejected"
         ),
     ] = False,
-) -> ImportSummaryOut | ImportPreviewOut:
+) -> ImportSummary | ImportPreview:
     """Rows with problems are reported with line, column, reason and a fix
     to try; every valid row is stored, in batches that are each one
     transaction. With dry_run=true nothing is stored."""
@@ -327,9 +327,9 @@ async def create_import(
         kw = o.kwargs()
         # Reading, embedding and writing are slow and blocking: off the event loop.
         if dry_run:
-            preview = await run_in_threadpool(ws.preview_import, upload.path, **kw)
-            return ImportPreviewOut(**preview.to_dict())
+            preview: ImportPreview = await run_in_threadpool(ws.preview_import, upload.path, **kw)
+            return preview
         summary = await run_in_threadpool(ws.import_csv, upload.path, **kw)
     finally:
         _remove(upload.path)
-    return ImportSummaryOut(**summary.to_dict())
+    return summary

@@ -7,12 +7,13 @@ from typing import Annotated, Any, Literal
 from fastapi import APIRouter, Query
 from fastapi.responses import Response
 
+from models.metrics import DEFAULT_METRIC
 from models.track_plots import track_record_figure
 
 from ...track_record import parse_since, report
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
-from ..track_schemas import TrackRecordOut
+from ..schemas import TrackRecord
 
 router = APIRouter(prefix="/v1", tags=["track record"])
 
@@ -22,7 +23,7 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
 
 @router.get(
     "/track-record",
-    response_model=TrackRecordOut,
+    response_model=TrackRecord,
     responses={
         200: {
             "description": "The report as JSON, or with format png or svg its figure",
@@ -39,10 +40,11 @@ def track_record(
     ws: WorkspaceDep,
     since: Annotated[str | None, Query(description="Forecasts given from this date or time")] = None,
     account: Annotated[str | None, Query(description="Only this account")] = None,
-    metric: Annotated[str, Query(description="The forecast metric")] = "impressions",
+    metric: Annotated[str, Query(description="The forecast metric")] = DEFAULT_METRIC.value,
     format: Annotated[Literal["json", "png", "svg"], Query(description="json, png or svg")] = "json",
 ) -> Any:
     rep = report(ws, since=parse_since(since), account=account, metric=metric)
     if format in MEDIA_TYPES:
-        return Response(content=track_record_figure(rep, fmt=format), media_type=MEDIA_TYPES[format])
-    return TrackRecordOut.model_validate(rep)
+        figure = track_record_figure(rep.model_dump(mode="json"), fmt=format)
+        return Response(content=figure, media_type=MEDIA_TYPES[format])
+    return rep

@@ -8,24 +8,24 @@ from ...timeparse import parse_time
 from ...wordings import compare_variants
 from ..deps import WorkspaceDep
 from ..responses import ERRORS
-from ..schemas import VariantsOut, VariantsRequest
+from ..schemas import VariantsReport, VariantsRequest
 
 router = APIRouter(prefix="/v1", tags=["variants"])
 
 
 @router.post(
     "/variants",
-    response_model=VariantsOut,
+    response_model=VariantsReport,
     responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
     summary="Forecast several phrasings of one draft side by side",
     description="Each variant is forecast for the same account and time, ranked by median, with "
     "the precedents it has that the others do not. Variants whose intervals overlap heavily are "
     "reported as not told apart. Estimates from this team's history, not certainties.",
 )
-def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsOut:
+def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsReport:
     tz = ws.store.account(body.account).timezone
     planned = parse_time(body.planned_at, tz=tz, where="planned_at") if body.planned_at else None
-    report = compare_variants(
+    return compare_variants(
         ws.forecaster,
         body.texts,
         account=body.account,
@@ -34,4 +34,3 @@ def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsOut:
         coverage=body.coverage,
         has_media=body.has_media,
     )
-    return VariantsOut(**report.to_dict())

@@ -1,0 +1,98 @@
+"""The health answer: counts, the embedding model, the index and the model in use.
+
+A function of a data directory's parts (its store, settings, embedder and
+saved index state), so the workspace holds the parts and not the answer.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Literal, Protocol
+
+from pydantic import BaseModel, Field
+
+from models.artefact import intact
+from models.embedding import Embedder
+from models.metrics import DEFAULT_METRIC
+
+from .settings import Settings
+from .store import Store
+
+
+class IndexState(BaseModel):
+    state: Literal["ready", "stale", "missing"] = Field(description="ready, stale or missing")
+    count: int
+
+
+class EmbeddingState(BaseModel):
+    backend: str = Field(
+        description="onnx or torch once loaded; the setting (auto, onnx, "
+        "torch) before the model is first used"
+    )
+    loaded: bool
+    quantize: str = Field(description="none, or int8: approximate vectors, kept apart")
+    vector_space: str = Field(description="What the stored vectors are vectors of")
+    export: str | None = Field(default=None, description="The ONNX export in use")
+    fallback: str | None = Field(default=None, description="Why ONNX is not in use")
+
+
+class SearchState(BaseModel):
+    approximate: bool = Field(description="true for an HNSW graph, false for an exact scan")
+    recall_at_10: float = Field(
+        description="recall@10 against exact search, measured at build "
+        "on a sample of the index's own vectors (1.0 when exact)"
+    )
+    ef_search: int | None = Field(default=None, description="HNSW efSearch chosen at build")
+
+
+class Health(BaseModel):
+    posts: int
+    accounts: int
+    model_id: str
+    embedding: EmbeddingState | None = None
+    index: IndexState
+    search: SearchState | None = Field(default=None, description="How the index searches")
+    forecaster: str | None = Field(default=None, description="Version of the model in use")
+    damaged_models: list[str] = Field(
+        default_factory=list,
+        description="Model versions skipped because their files do not match their checksums",
+    )
+    read_only: bool = Field(default=False, description="The data directory refuses changes")
+
+
+class Parts(Protocol):
+    """What the health answer reads of a data directory (a ``Workspace``)."""
+
+    @property
+    def store(self) -> Store: ...
+
+    @property
+    def settings(self) -> Settings: ...
+
+    @property
+    def embedder(self) -> Embedder: ...
+
+    @property
+    def read_only(self) -> bool: ...
+
+    def index_state(self) -> dict[str, Any]: ...
+
+    def search_state(self) -> dict[str, Any] | None: ...
+
+
+def health(ws: Parts) -> Health:
+    """The health answer of a data directory (``GET /v1/health``)."""
+    counts = ws.store.counts()
+    metric = DEFAULT_METRIC.value
+    served, damaged = intact(ws.settings.models_dir, metric)
+    search = ws.search_state()
+    return Health(
+        posts=counts["posts"],
+        accounts=counts["accounts"],
+        model_id=ws.embedder.model_id,
+        embedding=EmbeddingState(**ws.embedder.info()),
+        index=IndexState(**ws.index_state()),
+        search=None if search is None else SearchState(**search),
+        forecaster=served,
+        damaged_models=[f"{metric}/{v}: {why}" for v, why in damaged],
+        read_only=ws.read_only,
+    )
