@@ -171,9 +171,8 @@ def _our_modules() -> Iterator[Any]:
             yield importlib.import_module(info.name)
 
 
-# The segments answers are converted by their own change (issue 9); the
-# error classes keep to_dict, which builds the error body.
-EXEMPT_MODULES = {"models.errors", "models.segments", "service.segmenting"}
+# The error classes keep to_dict, which builds the error body.
+EXEMPT_MODULES = {"models.errors"}
 
 
 def test_no_hand_written_to_dict_remains() -> None:
