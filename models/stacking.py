@@ -222,6 +222,7 @@ class StackedForecaster:
     ) -> Self:
         """Rows of each block in time order; ``cal_times`` (the calibration
         rows' times) lets rows posted together share one score weight."""
+        self.__dict__.pop("_derived", None)  # quantiles of an earlier fit
         # Small linear algebra only: one BLAS thread (shared cores; see textmodel).
         with threadpool_limits(limits=1):
             return self._fit(
@@ -394,7 +395,31 @@ class StackedForecaster:
     def calibration_scores(self, coverage: float) -> np.ndarray:
         """The CQR scores of the calibration block at the level nearest
         ``coverage``, sorted (what adaptive conformal inference moves along)."""
-        return np.sort(np.asarray(self.cal_scores_[self.level_for(coverage)], dtype=float))
+        i = self.level_for(coverage)
+        key = ("sorted", i, 0.0)
+        hit = self._cache().get(key)
+        if hit is None:
+            hit = self._cache()[key] = np.sort(np.asarray(self.cal_scores_[i], dtype=float))
+        return np.asarray(hit)
+
+    def _cache(self) -> dict[tuple[str, int, float], Any]:
+        # Worked out from the fitted state and kept: sorting a large
+        # calibration block on every forecast cost more than the forecast.
+        # A plain attribute (not learned state), made on first use.
+        cache: dict[tuple[str, int, float], Any] | None = self.__dict__.get("_derived")
+        if cache is None:
+            cache = self.__dict__["_derived"] = {}
+        return cache
+
+    def _band_quantile(self, i: int, coverage: float) -> float:
+        """The weighted CQR quantile of level ``i`` at ``coverage`` (cached)."""
+        key = ("q", i, float(coverage))
+        hit = self._cache().get(key)
+        if hit is None:
+            hit = self._cache()[key] = weighted_conformal_quantile(
+                self.cal_scores_[i], self.cal_weights_, alpha=1.0 - float(coverage)
+            )
+        return float(hit)
 
     def predict(
         self, X: ArrayLike, *, coverage: float = DEFAULT_COVERAGE
@@ -403,7 +428,7 @@ class StackedForecaster:
         i = self.level_for(coverage)
         Xp = _matrix("X", X, self.n_features_in_)
         med, lows, highs = self._raw(Xp)
-        q = weighted_conformal_quantile(self.cal_scores_[i], self.cal_weights_, alpha=1.0 - float(coverage))
+        q = self._band_quantile(i, coverage)
         lo, hi = lows[i] - q, highs[i] + q
         # Sorting only widens [lo, hi] to include the median (guarantee kept).
         ordered = np.sort(np.stack([lo, med, hi], axis=1), axis=1)
