@@ -453,7 +453,11 @@ def staleness(
     mature = st.maturity_hours * 3600.0
     # Posts settled since the model's data: counted on the cached history view.
     times = ws.forecaster.view(metric).history.time
-    fresh = int(np.count_nonzero((times > as_of.timestamp() - mature) & (times <= now.timestamp() - mature)))
+    fresh = int(  # the view is sorted by time: two binary searches
+        np.searchsorted(times, now.timestamp() - mature, side="right")
+        - np.searchsorted(times, as_of.timestamp() - mature, side="right")
+    )
+    fresh = max(fresh, 0)
     recent = _scored(ws.store, metric, coverage).recent
     if fresh >= st.stale_after_posts:
         reasons.append(
