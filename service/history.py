@@ -99,6 +99,8 @@ def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
         if with_vectors and len(frame)
         else np.zeros((len(frame), 0), dtype=np.float32)
     )
+    # The keys were only needed for the vectors: a million of them hold 70 MB.
+    frame = frame.drop(columns=["vector_key"])
     history = F.History(
         pk=frame["pk"].to_numpy(np.int64),
         # Seconds since the epoch, whatever resolution pandas chose for datetimes.
