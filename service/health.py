@@ -11,11 +11,9 @@ from typing import Any, Literal, Protocol
 from pydantic import BaseModel, Field
 
 from models.artefact import intact
-from models.embedding import Embedder
 from models.metrics import DEFAULT_METRIC
 
-from .settings import Settings
-from .store import Store
+from .datadir import DataDir
 
 
 class IndexState(BaseModel):
@@ -59,17 +57,8 @@ class Health(BaseModel):
     read_only: bool = Field(default=False, description="The data directory refuses changes")
 
 
-class Parts(Protocol):
+class Parts(DataDir, Protocol):
     """What the health answer reads of a data directory (a ``Workspace``)."""
-
-    @property
-    def store(self) -> Store: ...
-
-    @property
-    def settings(self) -> Settings: ...
-
-    @property
-    def embedder(self) -> Embedder: ...
 
     @property
     def read_only(self) -> bool: ...
