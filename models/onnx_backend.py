@@ -26,6 +26,7 @@ import hashlib
 import json
 import os
 import shutil
+import warnings
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -175,8 +176,6 @@ def _export_into(tmp: Path, *, model_path: Path, model_id: str, quantize: str) -
     fp32 = tmp / ("model-fp32.onnx" if quantize != "none" else MODEL_NAME)
     axes = {n: {0: "batch", 1: "tokens"} for n in INPUTS}
     axes["sentence_embedding"] = {0: "batch"}
-    import warnings
-
     with torch.no_grad(), warnings.catch_warnings():
         warnings.simplefilter("ignore")  # the tracer's notes on Python control flow
         torch.onnx.export(
