@@ -336,7 +336,7 @@ class StackedForecaster:
         # 5. CQR on the calibration block, around the blend.
         _, lows, highs = self._raw(Xc)
         #    Scores stay in time order; their weights favour the latest rows.
-        self.cal_scores_ = tuple(cqr_scores(yc, lo, hi) for lo, hi in zip(lows, highs, strict=True))
+        self.cal_scores_ = tuple(cqr_scores(yc, lows[i], highs[i]) for i in sorted(lows))
         self.cal_weights_ = recency_weights(
             cal_times if cal_times is not None else np.arange(len(yc), dtype=float),
             half_life=self.recency_half_life,
@@ -368,16 +368,21 @@ class StackedForecaster:
         med = sum(self.weights_[c] * cands[c] for c in CANDIDATES)
         return np.asarray(med + self.timing_weight_ * cands["timing"], dtype=float)
 
-    def _raw(self, X: np.ndarray) -> tuple[np.ndarray, list[np.ndarray], list[np.ndarray]]:
+    def _raw(
+        self, X: np.ndarray, *, level: int | None = None
+    ) -> tuple[np.ndarray, dict[int, np.ndarray], dict[int, np.ndarray]]:
+        """The blend and each level's raw band by level index (only ``level``
+        when given: a forecast needs one level, not all of them)."""
         cands = self.candidates(X)
         med = self._blend(cands)
         Xb = X[:, self._cols]
-        lows, highs = [], []
-        for lo_m, hi_m in zip(self.boosted_.lower_models_, self.boosted_.upper_models_, strict=True):
-            # The boosted quantiles' offsets from their own median, around the blend.
-            raw_med = cands["boosted"] - cands["timing"]
-            lows.append(med + _predict(lo_m, Xb) - raw_med)
-            highs.append(med + _predict(hi_m, Xb) - raw_med)
+        lows, highs = {}, {}
+        # The boosted quantiles' offsets from their own median, around the blend.
+        raw_med = cands["boosted"] - cands["timing"]
+        models = self.boosted_
+        for i in range(len(models.lower_models_)) if level is None else (level,):
+            lows[i] = med + _predict(models.lower_models_[i], Xb) - raw_med
+            highs[i] = med + _predict(models.upper_models_[i], Xb) - raw_med
         return med, lows, highs
 
     def level_for(self, coverage: float) -> int:
@@ -427,7 +432,7 @@ class StackedForecaster:
         """``(lo, median, hi)``: the blend and its CQR band at ``coverage``."""
         i = self.level_for(coverage)
         Xp = _matrix("X", X, self.n_features_in_)
-        med, lows, highs = self._raw(Xp)
+        med, lows, highs = self._raw(Xp, level=i)
         q = self._band_quantile(i, coverage)
         lo, hi = lows[i] - q, highs[i] + q
         # Sorting only widens [lo, hi] to include the median (guarantee kept).

@@ -91,12 +91,14 @@ class Retriever:
         if (allowed is not None and len(allowed) == 0) or k < 1:
             return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.float32)
         pks = None if allowed is None else view.history.pk[allowed]
-        hits = self.nearest(np.asarray(vec, dtype=np.float32).reshape(1, -1), k, allowed_pks=pks)[0]
-        found = [(view.row_of_pk[p], s) for p, s in hits if p in view.row_of_pk]
-        return (
-            np.array([r for r, _ in found], dtype=np.int64),
-            np.array([s for _, s in found], dtype=np.float32),
-        )
+        with self._lock:
+            sims, ids = self._index().search(
+                np.asarray(vec, dtype=np.float32).reshape(1, -1), k, allowed_ids=pks
+            )
+        ids, sims = ids[0], sims[0]
+        live = ids >= 0
+        rows, held = view.rows_for(ids[live])
+        return rows, np.asarray(sims[live][held], dtype=np.float32)
 
     def wide(
         self, view: HistoryView, vec: np.ndarray, params: F.FeatureParams, cache: WideCache | None = None
