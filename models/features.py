@@ -215,9 +215,15 @@ def _top(sims: np.ndarray, valid: np.ndarray, k: int) -> tuple[np.ndarray, np.nd
     return cand[order], s[order]
 
 
-def eligible(history: History, t: float, params: FeatureParams) -> np.ndarray:
-    """Posts whose settled metric was known at time ``t``."""
-    return cast(np.ndarray, (history.time <= t - params.maturity_s) & ~np.isnan(history.log_target))
+def eligible(history: History, t: float, params: FeatureParams, rows: np.ndarray | None = None) -> np.ndarray:
+    """Posts whose settled metric was known at time ``t``: a mask over the
+    whole history, or over ``rows`` only (a draft must not pay a pass over
+    the history to judge the few posts it found)."""
+    if rows is None:
+        return cast(np.ndarray, (history.time <= t - params.maturity_s) & ~np.isnan(history.log_target))
+    return cast(
+        np.ndarray, (history.time[rows] <= t - params.maturity_s) & ~np.isnan(history.log_target[rows])
+    )
 
 
 def training_matrix(
@@ -598,7 +604,6 @@ def draft_neighbourhood(
     the draft's account. Posts not eligible at ``t`` are dropped."""
     parts = []
     for rows, sims in (team, own):
-        # ``eligible`` on these rows only: a draft must not pay a pass over the history.
-        keep = (history.time[rows] <= t - params.maturity_s) & ~np.isnan(history.log_target[rows])
+        keep = eligible(history, t, params, rows)
         parts.extend([rows[keep][: params.k], sims[keep][: params.k]])
     return Neighbourhood(*parts)

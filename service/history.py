@@ -35,7 +35,6 @@ class HistoryView:
     weekdays: np.ndarray
     forms: np.ndarray
     account_codes: dict[str, int]
-    row_of_pk: dict[int, int]
     zones: dict[int, str]  # account code -> IANA zone
     _columns: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
@@ -95,10 +94,6 @@ class HistoryView:
         held = ordered[at] == pks
         return order[at[held]], held
 
-    def rows_of(self, pks: np.ndarray | list[int]) -> np.ndarray:
-        """History rows of store row ids (ids not in the view are dropped)."""
-        return np.array([self.row_of_pk[int(p)] for p in pks if int(p) in self.row_of_pk], dtype=np.int64)
-
 
 def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     """Local hour (with minutes as a fraction) and weekday in each post's zone."""
@@ -149,7 +144,6 @@ def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
         days,
         forms,
         codes,
-        {int(p): i for i, p in enumerate(frame["pk"])},
         zones,
     )
 

@@ -63,12 +63,18 @@ class Retriever:
             allowed = self.store.pks_where(account=account, since=since, until=until)
             if allowed_pks is not None:
                 allowed = np.intersect1d(allowed, allowed_pks)
-        with self._lock:
-            sims, ids = self._index().search(vectors, k, allowed_ids=allowed)
+        sims, ids = self._search(vectors, k, allowed)
         return [
             [(int(i), float(s)) for i, s in zip(row_ids, row_sims, strict=True) if i >= 0]
             for row_ids, row_sims in zip(ids, sims, strict=True)
         ]
+
+    def _search(
+        self, vectors: np.ndarray, k: int, allowed: np.ndarray | None
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """(similarities, store row ids; -1 for none) from the current index."""
+        with self._lock:
+            return self._index().search(vectors, k, allowed_ids=allowed)
 
     def similarities(self, vectors: np.ndarray, pks: np.ndarray) -> np.ndarray:
         """Cosine similarity of each given post (store row id) to each vector,
@@ -91,10 +97,7 @@ class Retriever:
         if (allowed is not None and len(allowed) == 0) or k < 1:
             return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.float32)
         pks = None if allowed is None else view.history.pk[allowed]
-        with self._lock:
-            sims, ids = self._index().search(
-                np.asarray(vec, dtype=np.float32).reshape(1, -1), k, allowed_ids=pks
-            )
+        sims, ids = self._search(np.asarray(vec, dtype=np.float32).reshape(1, -1), k, pks)
         ids, sims = ids[0], sims[0]
         live = ids >= 0
         rows, held = view.rows_for(ids[live])
@@ -133,7 +136,7 @@ class Retriever:
         rows, sims = self.wide(view, vec, params, cache)
         # Eligibility of the found rows only; the eligible sets themselves are
         # binary searches (History.eligible_rows), not passes over the history.
-        ok = (h.time[rows] <= t - params.maturity_s) & ~np.isnan(h.log_target[rows])
+        ok = F.eligible(h, t, params, rows)
         own_ok = ok & (h.account[rows] == account)
         team: Found = (rows[ok], sims[ok])
         own: Found = (rows[own_ok], sims[own_ok])
