@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import re
 import tempfile
+import time
 from pathlib import Path
 from types import TracebackType
 from typing import Any
@@ -81,24 +82,36 @@ class RayEmbedder:
     """An import's embed function that embeds on a Ray cluster.
 
     ``workers`` is the number of model-holding actors (one CPU each);
-    ``batch_size`` the texts per ``map_batches`` call. Use it as a context
-    manager: it connects on entry and disconnects on exit.
+    ``batch_size`` the texts per ``map_batches`` call; ``attempts`` how many
+    times to try connecting, ``retry_pause`` the seconds between tries. Use
+    it as a context manager: it connects on entry and disconnects on exit.
     """
 
-    def __init__(self, *, address: str, embedder: Embedder, workers: int = 2, batch_size: int = 256) -> None:
+    def __init__(
+        self,
+        *,
+        address: str,
+        embedder: Embedder,
+        workers: int = 2,
+        batch_size: int = 256,
+        attempts: int = 3,
+        retry_pause: float = 2.0,
+    ) -> None:
         self.address = address
         self.embedder = embedder
         self.workers = workers
         self.batch_size = batch_size
+        self.attempts = attempts
+        self.retry_pause = retry_pause
         #: Texts embedded on the cluster so far.
         self.calls = 0
         self._ray: Any = None
 
     def connect(self) -> RayEmbedder:
         check_address(self.address)
-        if self.workers < 1 or self.batch_size < 1:
+        if self.workers < 1 or self.batch_size < 1 or self.attempts < 1:
             raise InputError(
-                "cluster workers and batch size must be at least 1",
+                "cluster workers, batch size and connection attempts must be at least 1",
                 field="cluster_workers",
                 value=str(self.workers),
             )
@@ -111,14 +124,24 @@ class RayEmbedder:
                 field="cluster",
                 hint="pip install 'sounding[cluster]'",
             ) from None
-        try:
-            # Ray types logging_level as int, but passes it to logging, which takes level names too.
-            ray.init(self.address, logging_level="WARNING", log_to_driver=False)  # type: ignore[arg-type]
-        except Exception as exc:  # grpc and Ray raise many kinds here
-            raise ServiceUnavailable(
-                f"cannot reach the Ray cluster at {self.address}: {type(exc).__name__}: {exc}",
-                hint="check that the head runs `ray start --head` and its client server port",
-            ) from None
+        # The head starts one server process per client session, forked from a
+        # process busy with gRPC threads; now and then that fork dies at once
+        # ("Starting Ray client server failed") and a fresh session succeeds.
+        # So a failed connection is tried again before it is reported.
+        for attempt in range(1, self.attempts + 1):
+            try:
+                # Ray types logging_level as int, but passes it to logging, which takes level names too.
+                ray.init(self.address, logging_level="WARNING", log_to_driver=False)  # type: ignore[arg-type]
+                break
+            except Exception as exc:  # grpc and Ray raise many kinds here
+                ray.shutdown()  # drop the half-made client before the next try
+                if attempt == self.attempts:
+                    raise ServiceUnavailable(
+                        f"cannot reach the Ray cluster at {self.address} "
+                        f"({self.attempts} tries): {type(exc).__name__}: {exc}",
+                        hint="check that the head runs `ray start --head` and its client server port",
+                    ) from None
+                time.sleep(self.retry_pause)
         self._ray = ray
         return self
 
@@ -140,7 +163,7 @@ class RayEmbedder:
         if self._ray is None:
             raise ServiceUnavailable("not connected to a Ray cluster", hint="use connect()")
         if not texts:
-            return np.zeros((0, 384), dtype=np.float32)
+            return np.zeros((0, self.embedder.dim), dtype=np.float32)
         # Ray Data cannot run its executor through the Ray Client (ray-project/ray#48682),
         # so the pipeline runs in a task on the cluster; it takes no CPU of its own.
         task = self._ray.remote(num_cpus=0, max_retries=0)(embed_with_ray_data)
@@ -191,7 +214,8 @@ def embed_with_ray_data(
         result[pos] = vecs
         filled[pos] = True
     if result is None or not filled.all():
-        return np.zeros((int(filled.sum()), 384), dtype=np.float32)  # caller reports the gap
+        # Fewer rows than texts: the caller reports the gap.
+        return np.zeros((int(filled.sum()), 0 if result is None else result.shape[1]), dtype=np.float32)
     return result
 
 

@@ -291,7 +291,10 @@ class Store:
         if missing:
             raise StoreError(f"{len(missing)} vectors are missing from the store")
         if not keys:
-            return np.zeros((0, 384), dtype=np.float32)
+            # No rows; their width is that of the stored vectors (0 in an empty store).
+            with self.session() as s:
+                width = s.execute(select(Vector.dim).limit(1)).scalar()
+            return np.zeros((0, int(width or 0)), dtype=np.float32)
         return np.vstack([out[k] for k in keys])
 
     def index_pairs(self) -> list[tuple[int, str]]:

@@ -20,9 +20,10 @@ import pytest
 from typer.testing import CliRunner
 
 from models.embedding import Embedder
+from models.errors import ServiceUnavailable
 from service.cli import app
 from service.cli.base import use_embedder
-from service.cluster import check_address
+from service.cluster import RayEmbedder, check_address
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -53,8 +54,13 @@ def ray_head() -> Iterator[str]:
         import ray.util.client  # noqa: F401
     except ImportError as exc:
         pytest.skip(f"Ray with the client is not installed ({exc.name})")
-    gcs, client, node, obj, agent, agent_grpc, metrics, env_agent = free_ports(8)
-    lo = free_ports(1)[0] // 100 * 100  # a block of worker ports near a free one
+    ports = free_ports(8)
+    gcs, client, node, obj, agent, agent_grpc, metrics, env_agent = ports
+    # A block of 100 worker ports near a free one, holding none of the ports above
+    # (Ray refuses to start when two of its components would share a port).
+    lo = free_ports(1)[0] // 100 * 100
+    while any(lo <= p <= lo + 99 for p in ports):
+        lo = free_ports(1)[0] // 100 * 100
     tmp = Path(tempfile.mkdtemp(prefix="sray"))  # short: Ray's socket paths must stay short
     log = (tmp / "head.log").open("w")
     env = dict(os.environ, PYTHONPATH=str(ROOT), RAY_USAGE_STATS_ENABLED="0")
@@ -147,8 +153,37 @@ def test_cli_refuses_a_bad_cluster_address(
     )
 
 
+def test_connect_tries_again_after_a_failed_session(
+    embedder: Embedder, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A head whose per-client server dies at start is tried again: two failures
+    then a success connect; three failures report how many tries were made."""
+    ray = pytest.importorskip("ray")
+    pytest.importorskip("ray.data")
+    calls: list[str] = []
+    shutdowns: list[int] = []
+
+    def flaky_init(address: str, **_: object) -> None:
+        calls.append(address)
+        if len(calls) <= failures:
+            raise ConnectionAbortedError("Starting Ray client server failed")
+
+    monkeypatch.setattr(ray, "init", flaky_init)
+    monkeypatch.setattr(ray, "shutdown", lambda: shutdowns.append(1))
+    addr = "ray://head.internal:10001"
+
+    failures = 2
+    emb = RayEmbedder(address=addr, embedder=embedder, retry_pause=0.0).connect()
+    assert calls == [addr] * 3 and len(shutdowns) == 2 and emb._ray is ray
+
+    calls.clear()
+    failures = 3
+    with pytest.raises(ServiceUnavailable, match=r"3 tries\): ConnectionAbortedError"):
+        RayEmbedder(address=addr, embedder=embedder, retry_pause=0.0).connect()
+    assert len(calls) == 3
+
+
 @pytest.mark.slow
-@pytest.mark.timeout(900)
 def test_cluster_import_equals_local_import(
     ray_head: str, embedder: Embedder, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
