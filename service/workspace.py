@@ -226,7 +226,13 @@ class Workspace:
         cfg = VectorIndex.saved_config(self.settings.index_dir)
         if cfg is None or not (self.settings.index_dir / "index.faiss").is_file():
             return {"state": "missing", "count": 0}
-        ready = cfg.get("fingerprint") == self.store.fingerprint()
+        # The index in memory, when in step with the store's change counter, is
+        # what the store holds, so its fingerprint stands in for hashing every
+        # (post, vector) pair again: 0.2 s at 100,000 posts, on every check.
+        index, at = self._index, self._index_stamp
+        in_step = index is not None and at is not None and at == self.store.stamp()
+        now = index.fingerprint_ if in_step and index is not None else self.store.fingerprint()
+        ready = cfg.get("fingerprint") == now
         return {"state": "ready" if ready else "stale", "count": int(cfg.get("count", 0))}
 
     def search_state(self) -> dict[str, Any] | None:

@@ -101,6 +101,32 @@ def test_pinned_counters_hold_for_the_request_and_move_after(demo_copy: Workspac
         other.close()
 
 
+def test_a_warm_health_check_reads_only_the_counters_and_follows_other_writers(
+    demo_copy: Workspace,
+) -> None:
+    ws = demo_copy
+    with TestClient(create_app(workspace=ws)) as client:
+        first = client.get("/v1/health").json()  # warm: counts kept, index in step
+        with statements(ws.store) as seen:
+            again = client.get("/v1/health").json()
+        assert again == first and first["index"]["state"] == "ready"
+        # No count(*) and no read of every (post, vector) pair: one counter read per part asked.
+        assert seen and all("store_stamp" in s for s in seen), seen
+        # A write by another handle on the same store (another process, in effect)
+        # moves the counter, so the counts are taken again and the index is seen stale.
+        other = Store(url=ws.store.url)
+        try:
+            other.set_account("glasshouse_night_desk", timezone="UTC")
+            gone = str(ws.store.posts_frame()["post_id"].iloc[0])
+            assert len(other.forget(post_id=gone)) == 1
+        finally:
+            other.close()
+        after = client.get("/v1/health").json()
+    assert after["accounts"] == first["accounts"] + 1
+    assert after["posts"] == first["posts"] - 1
+    assert after["index"]["state"] == "stale"
+
+
 def test_eligible_rows_and_baseline_equal_the_whole_history_masks() -> None:
     rng = np.random.default_rng(7)
     n = 3000

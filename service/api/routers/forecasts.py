@@ -1,6 +1,6 @@
 from __future__ import annotations
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Response
 
 from models.errors import InputError, LimitExceeded, NotFound, NotReady
 
@@ -9,7 +9,7 @@ from ...timeparse import parse_time
 from ...track_record import give
 from ...workspace import Workspace
 from ..deps import WorkspaceDep
-from ..responses import ERRORS
+from ..responses import ERRORS, json_answer
 from ..schemas import DraftIn, Forecast, ForecastBatchRequest, ForecastRequest, Forecasts
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
@@ -32,9 +32,9 @@ def to_draft(ws: Workspace, d: DraftIn, where: str) -> Draft:
     "interval with its stated and backtested coverage: an estimate from this team's history, "
     "not a certainty.",
 )
-def forecasts(body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep) -> Forecast | Forecasts:
+def forecasts(body: ForecastRequest | ForecastBatchRequest, ws: WorkspaceDep) -> Response:
     with ws.store.pinned():  # the store's counters read once for the whole answer
-        return _forecasts(body, ws)
+        return json_answer(_forecasts(body, ws))
 
 
 def _forecasts(body: ForecastRequest | ForecastBatchRequest, ws: Workspace) -> Forecast | Forecasts:
