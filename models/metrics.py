@@ -8,8 +8,10 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from enum import StrEnum
+from typing import Any
 
 import numpy as np
+import pandas as pd
 
 from .errors import InputError
 
@@ -65,17 +67,27 @@ def check_target(name: str) -> str:
     return name
 
 
+def target_values(columns: Mapping[str, Any] | pd.DataFrame, name: str) -> np.ndarray:
+    """Target ``name`` for many posts at once, from their metric columns
+    (a DataFrame or a mapping of equal-length sequences), as float64 with
+    NaN where it was not measured (engagement_rate needs impressions > 0)."""
+
+    def column(metric: str) -> np.ndarray:
+        return np.asarray(columns[metric], dtype=np.float64)  # None becomes NaN
+
+    if name == Metric.ENGAGEMENT_RATE:
+        imp, eng = column("impressions"), column("engagements")
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(imp > 0, eng / imp, np.nan)  # NaN > 0 is False
+    return column(name)
+
+
 def target_value(metrics: Mapping[str, float | int | None], name: str) -> float | None:
     """The raw value of target ``name`` from one post's metrics, or None
-    where it was not measured (engagement_rate needs impressions > 0)."""
-    if name == Metric.ENGAGEMENT_RATE:
-        imp = metrics.get("impressions")
-        eng = metrics.get("engagements")
-        if imp is None or eng is None or imp <= 0:
-            return None
-        return float(eng) / float(imp)
-    value = metrics.get(name)
-    return None if value is None else float(value)
+    where it was not measured (the rule of :func:`target_values`)."""
+    wanted = ("impressions", "engagements") if name == Metric.ENGAGEMENT_RATE else (name,)
+    value = float(target_values({m: [metrics.get(m)] for m in wanted}, name)[0])
+    return None if np.isnan(value) else value
 
 
 def to_log(values: np.ndarray | float) -> np.ndarray | float:

@@ -10,13 +10,13 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
-from typing import Any, cast
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from models import features as F
-from models.metrics import METRIC_COLUMNS, target_value
+from models.metrics import METRIC_COLUMNS, target_values
 
 from .settings import Settings
 from .store import Store
@@ -109,9 +109,7 @@ def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndar
 
 def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
     frame = store.posts_frame()
-    records = cast(list[dict[str, float | None]], frame[list(METRIC_COLUMNS)].to_dict("records"))
-    values = [target_value(r, metric) for r in records]
-    logs = np.log1p(np.array([np.nan if v is None else v for v in values], dtype=np.float64))
+    logs = np.log1p(target_values(frame, metric))
     codes = {h: i for i, h in enumerate(sorted(frame["account"].unique()))}
     vecs = (
         store.vectors(list(frame["vector_key"]))

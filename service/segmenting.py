@@ -37,7 +37,7 @@ from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_serializer
 
 from models.embedding import normalise_text
 from models.errors import InputError, NotReady
-from models.metrics import DEFAULT_METRIC, METRIC_COLUMNS, check_target, target_value
+from models.metrics import DEFAULT_METRIC, check_target, target_values
 from models.plots import FORMATS, plot_segments
 from models.segments import (
     DEFAULT_ALPHA,
@@ -390,9 +390,7 @@ class _Posts:
 
 def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dict[str, int]]:
     frame = ws.store.posts_frame(account=req.account)
-    records = frame[list(METRIC_COLUMNS)].to_dict("records")
-    raw = [target_value(typing.cast(dict[str, Any], r), req.metric) for r in records]
-    values = np.array([np.nan if v is None else v for v in raw], dtype=np.float64)
+    values = target_values(frame, req.metric)
     has_metric = np.isfinite(values)
     # Young posts are still gathering their metric; counting them would pull
     # every segment they sit in down.

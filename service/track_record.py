@@ -53,6 +53,7 @@ from models.metrics import (
     check_coverage,
     check_target,
     target_value,
+    target_values,
 )
 
 from .answers import Calibration, LiveCoverage
@@ -770,9 +771,9 @@ def _pseudo_outcomes(
     with ws.store.session() as s:
         real = set(s.scalars(select(ForecastMatch.post_pk).where(ForecastMatch.metric == metric)))
     keep = (posted > start) & (posted <= now - mature) & ~frame["pk"].isin(real)
-    rows = frame[keep]
-    values = [target_value(r, metric) for r in rows.to_dict("records")]
-    rows = rows[[v is not None for v in values]]
+    values = target_values(frame[keep], metric)
+    measured = ~np.isnan(values)
+    rows = frame[keep][measured]
     if rows.empty:
         return None
     drafts = [
@@ -784,7 +785,7 @@ def _pseudo_outcomes(
         found = ws.forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now, vectors=vecs)
     except SoundingError:
         return None
-    ys = [math.log1p(v) for v in values if v is not None]
+    ys = [float(v) for v in np.log1p(values[measured])]
     return ([typing.cast(datetime, d.planned_at) for d in drafts], ys, [(f.log[0], f.log[2]) for f in found])
 
 

@@ -15,7 +15,7 @@ import pytest
 from sqlalchemy import select
 
 from models.embedding import Embedder
-from models.errors import InputError, NotFound
+from models.errors import InputError, NotFound, StoreError
 from models.metrics import METRIC_COLUMNS
 from service.store import PostRow, Store, has_link
 from service.tables import Snapshot
@@ -196,6 +196,19 @@ def test_same_text_shares_one_vector(workspace: Workspace, embedder: Embedder, t
     assert workspace.store.counts()["vectors"] == 1
     workspace.forget(account="h")
     assert workspace.store.counts() == {"accounts": 1, "posts": 0, "snapshots": 0, "vectors": 0}
+
+
+def test_vectors_come_back_in_the_order_asked_with_repeats(demo_workspace: Workspace) -> None:
+    store = demo_workspace.store
+    keys = list(store.posts_frame()["vector_key"].iloc[:5])
+    one_by_one = np.vstack([store.vectors([k]) for k in keys])
+    asked = [keys[3], keys[0], keys[3], keys[4], keys[1], keys[0]]
+    got = store.vectors(asked)
+    # Reference: the rows fetched one key at a time, picked by position here.
+    np.testing.assert_array_equal(got, one_by_one[[3, 0, 3, 4, 1, 0]])
+    assert store.vectors([]).shape == (0, one_by_one.shape[1])  # the stored width, even for none
+    with pytest.raises(StoreError, match="2 vectors are missing"):
+        store.vectors([keys[0], "no-such-key", "nor-this-one"])
 
 
 def test_a_batch_is_one_transaction(workspace: Workspace, embedder: Embedder) -> None:
