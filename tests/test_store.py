@@ -211,6 +211,22 @@ def test_vectors_come_back_in_the_order_asked_with_repeats(demo_workspace: Works
         store.vectors([keys[0], "no-such-key", "nor-this-one"])
 
 
+def test_posts_read_in_chunks_equal_posts_read_at_once(
+    demo_workspace: Workspace, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import service.store as store_module
+
+    whole = demo_workspace.store.posts_frame()
+    monkeypatch.setattr(store_module, "_FRAME_CHUNK", 97)  # many chunks, the last one short
+    chunked = demo_workspace.store.posts_frame()
+    assert len(whole) > 10 * 97
+    pd.testing.assert_frame_equal(chunked, whole)
+    for c in ("text", "post_id", "account"):
+        to_arrow = getattr(chunked[c].array, "__arrow_array__", None)
+        if to_arrow is not None:  # Arrow-backed strings: one piece, so row look-ups stay cheap
+            assert to_arrow().num_chunks == 1
+
+
 def test_a_batch_is_one_transaction(workspace: Workspace, embedder: Embedder) -> None:
     """If anything fails while writing a batch, none of the batch is stored."""
     good = PostRow(
