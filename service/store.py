@@ -160,7 +160,7 @@ class Store:
         # Write transactions this object committed: with stamp(), it tells
         # a process whether changes came only from itself.
         self.own_writes = 0
-        self._counts: tuple[int, dict[str, int]] | None = None  # (history counter, counts)
+        self._counts: tuple[tuple[int, int], dict[str, int]] | None = None  # ((counter, own), counts)
         self.read_only = read_only
         if read_only and url.startswith("sqlite:///"):
             # A WAL database on a read-only file system cannot make its
@@ -288,8 +288,10 @@ class Store:
     def counts(self) -> dict[str, int]:
         """Rows of accounts, posts, snapshots and vectors. Kept per history
         counter, which every write to these tables moves: counting them is
-        12 ms at 100,000 posts, and the health check asks on every call."""
-        stamp = self.stamp()
+        12 ms at 100,000 posts, and the health check asks on every call.
+        This object's own writes count too, so a write inside ``pinned()``
+        is never hidden by the counter read before it."""
+        stamp = (self.stamp(), self.own_writes)
         known = self._counts
         if known is not None and known[0] == stamp:
             return dict(known[1])

@@ -127,6 +127,14 @@ def test_a_warm_health_check_reads_only_the_counters_and_follows_other_writers(
     assert after["index"]["state"] == "stale"
 
 
+def test_counts_follow_a_write_made_inside_a_pinned_request(demo_copy: Workspace) -> None:
+    store = demo_copy.store
+    before = store.counts()
+    with store.pinned():
+        store.set_account("glasshouse_night_desk", timezone="UTC")
+        assert store.counts()["accounts"] == before["accounts"] + 1
+
+
 def test_eligible_rows_and_baseline_equal_the_whole_history_masks() -> None:
     rng = np.random.default_rng(7)
     n = 3000
