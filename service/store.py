@@ -119,23 +119,11 @@ def _note_flush(session: Session, _ctx: Any, _instances: Any) -> None:
 
 
 _FRAME_CHUNK = 100_000  # rows typed at a time by Store.posts_frame
-_POST_COLUMNS = [
-    "pk",
-    "account",
-    "timezone",
-    "post_id",
-    "text",
-    "posted_at",
-    "has_link",
-    "has_media",
-    "vector_key",
-    *METRIC_COLUMNS,
-]
 
 
-def _posts_part(rows: Sequence[Any]) -> pd.DataFrame:
+def _posts_part(rows: Sequence[Any], columns: list[str]) -> pd.DataFrame:
     """One chunk of ``Store.posts_frame``'s rows as a typed frame."""
-    df = pd.DataFrame(rows, columns=_POST_COLUMNS)
+    df = pd.DataFrame(rows, columns=columns)
     df["posted_at"] = pd.to_datetime(df["posted_at"], utc=True)
     for m in METRIC_COLUMNS:
         df[m] = pd.to_numeric(df[m], errors="coerce").astype("float64")
@@ -590,9 +578,10 @@ class Store:
         # once as Python objects hold about 2 GB for a frame of 360 MB.
         with self.session() as s:
             result = s.execute(q.execution_options(yield_per=_FRAME_CHUNK))
-            parts = [_posts_part(chunk) for chunk in result.partitions()]
+            columns = list(result.keys())  # the labels of the select above
+            parts = [_posts_part(chunk, columns) for chunk in result.partitions()]
         if not parts:
-            return _posts_part([])
+            return _posts_part([], columns)
         if len(parts) == 1:
             return parts[0]
         df = pd.concat(parts, ignore_index=True)

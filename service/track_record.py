@@ -771,9 +771,10 @@ def _pseudo_outcomes(
     with ws.store.session() as s:
         real = set(s.scalars(select(ForecastMatch.post_pk).where(ForecastMatch.metric == metric)))
     keep = (posted > start) & (posted <= now - mature) & ~frame["pk"].isin(real)
-    values = target_values(frame[keep], metric)
+    kept = frame[keep]
+    values = target_values(kept, metric)
     measured = ~np.isnan(values)
-    rows = frame[keep][measured]
+    rows = kept[measured]
     if rows.empty:
         return None
     drafts = [

@@ -230,8 +230,9 @@ class Workspace:
         # what the store holds, so its fingerprint stands in for hashing every
         # (post, vector) pair again: 0.2 s at 100,000 posts, on every check.
         index, at = self._index, self._index_stamp
-        in_step = index is not None and at is not None and at == self.store.stamp()
-        now = index.fingerprint_ if in_step and index is not None else self.store.fingerprint()
+        now = (
+            index.fingerprint_ if index is not None and at == self.store.stamp() else self.store.fingerprint()
+        )
         ready = cfg.get("fingerprint") == now
         return {"state": "ready" if ready else "stale", "count": int(cfg.get("count", 0))}
 
