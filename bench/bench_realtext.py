@@ -41,7 +41,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from models.embedding import Embedder
 from models.evaluation import coverage, mae, spearman
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
-from service import forecasting as FC
+from service.forecast import forecaster as FC
 from service.settings import Settings
 from service.workspace import Workspace
 

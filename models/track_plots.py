@@ -110,7 +110,7 @@ def _outcome_panel(ax: Axes, points: list[Mapping[str, Any]], metric: str) -> No
 
 
 def track_record_figure(report: Mapping[str, Any], *, fmt: str = "png") -> bytes:
-    """PNG or SVG bytes of a track-record report (``service.track_record.report``)."""
+    """PNG or SVG bytes of a track-record report (``service.track.record.report``)."""
     fmt = fmt.lower()
     if fmt not in FORMATS:
         raise InputError(f"format must be one of {', '.join(FORMATS)}", field="fmt", value=fmt)

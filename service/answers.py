@@ -1,7 +1,7 @@
 """Pieces shared by several answers, each defined once.
 
 The answers themselves are pydantic models in the module that produces them
-(``service.precedents.Precedent``, ``service.forecasting.Forecast``, ...):
+(``service.history.precedents.Precedent``, ``service.forecast.forecaster.Forecast``, ...):
 the CLI's ``--json`` prints ``model_dump(mode="json")`` of them and the API
 declares them as its response models, so an answer's fields, renames and
 rounding are written in one place. This module holds what more than one of
@@ -68,7 +68,7 @@ MetricValues = Annotated[
 
 
 class Calibration(BaseModel):
-    """Which calibration shaped a forecast's interval (service.track_record)."""
+    """Which calibration shaped a forecast's interval (service.track.record)."""
 
     method: str = Field(
         description="cqr: as trained; cqr+aci: adapted to scored outcomes "
@@ -84,7 +84,7 @@ class Calibration(BaseModel):
 
 
 class LiveCoverage(BaseModel):
-    """How often scored forecasts of one metric and level held so far (service.track_record)."""
+    """How often scored forecasts of one metric and level held so far (service.track.record)."""
 
     scored: int = Field(description="Forecasts of this metric and level scored so far")
     held: int

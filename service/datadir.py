@@ -10,9 +10,9 @@ from contextlib import AbstractContextManager
 from typing import Protocol
 
 from models.embedding import Embedder
-from service.retrieval import Retriever
+from service.history.retrieval import Retriever
 from service.settings import Settings
-from service.store import Store
+from service.storage.store import Store
 
 
 class DataDir(Protocol):
@@ -31,5 +31,5 @@ class DataDir(Protocol):
     def retrieval(self) -> Retriever: ...
 
     def writing(self, what: str) -> AbstractContextManager[None]:
-        """Hold the data directory's write lock for ``what`` (service.locking)."""
+        """Hold the data directory's write lock for ``what`` (service.storage.locking)."""
         ...

@@ -20,10 +20,10 @@ from pathlib import Path
 
 from models.errors import CSVFormatError, InputError, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
-from service.forecasting import Draft, Forecast
-from service.importer import _FALSE, _TRUE, check_encoding
-from service.timeparse import parse_time
-from service.track_record import give
+from service.clock import parse_time
+from service.forecast.forecaster import Draft, Forecast
+from service.ingest.importer import _FALSE, _TRUE, check_encoding
+from service.track.record import give
 from service.workspace import Workspace
 
 PLAN_COLUMNS = ("draft_id", "account", "text", "planned_at")

@@ -123,7 +123,7 @@ class Settings(BaseSettings):
         description="Largest JSON request body; refused (413) before it is parsed.",
     )
 
-    # Writers and the HTTP service's defences (service.locking, service.api.guard)
+    # Writers and the HTTP service's defences (service.storage.locking, service.api.guard)
     write_wait_seconds: float = Field(
         default=300.0,
         ge=0,
@@ -142,11 +142,11 @@ class Settings(BaseSettings):
         default=120.0, gt=0, description="Time a client has to send a request's body."
     )
 
-    # Track record (issue 11; service.track_record) ---------------------------
+    # Track record (issue 11; service.track.record) ---------------------------
     now: str | None = Field(
         default=None,
         description="RFC 3339 time fixing 'now' for every command and the service "
-        "(read by service.timeparse.now_utc); default: the system clock.",
+        "(read by service.clock.now_utc); default: the system clock.",
     )
     # Matching a published post to the forecast of its draft: same account, a planned time
     # within this many hours of the posting time, and draft-to-post cosine similarity

@@ -24,15 +24,15 @@ from models.artefact import clean_leftovers
 from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
 from models.index import VectorIndex, fingerprint
-from service.forecasting import Forecaster
-from service.importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
-from service.locking import LOCK_FILE, WriteLock
-from service.precedents import Precedent, precedents_for
-from service.retrieval import Retriever
+from service.clock import as_utc
+from service.forecast.forecaster import Forecaster
+from service.history.precedents import Precedent, precedents_for
+from service.history.retrieval import Retriever
+from service.ingest.importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
 from service.settings import Settings
-from service.store import AccountInfo, Store
-from service.timeparse import as_utc
-from service.track_record import after_import
+from service.storage.locking import LOCK_FILE, WriteLock
+from service.storage.store import AccountInfo, Store
+from service.track.record import after_import
 
 __all__ = ["Precedent", "Workspace"]
 
@@ -118,7 +118,7 @@ class Workspace:
 
     @contextmanager
     def writing(self, what: str) -> Iterator[None]:
-        """Hold this data directory's write lock for ``what`` (service.locking):
+        """Hold this data directory's write lock for ``what`` (service.storage.locking):
         imports, forgets, reindexing and training run one at a time."""
         self.check_writable(what)
         with self._writer.hold(what):
@@ -249,7 +249,7 @@ class Workspace:
 
     def reindex(self) -> VectorIndex:
         """Rebuild the index from the vectors in the store, as the data
-        directory's one writer (service.locking)."""
+        directory's one writer (service.storage.locking)."""
         with self.writing("a reindex"):
             return self._reindex()
 
@@ -309,7 +309,7 @@ class Workspace:
         batch_rows: int | None = None,
         **layout: Any,
     ) -> ImportSummary:
-        """``layout``: time_format, date_order, decimal_comma (service.importer)."""
+        """``layout``: time_format, date_order, decimal_comma (service.ingest.importer)."""
         with self.writing("an import"):
             self.index()  # load or rebuild first, so the update below is incremental
             before = self.store.counts()["posts"]

@@ -20,7 +20,7 @@ os.environ.setdefault("SOUNDING_ALLOWED_HOSTS", '["testserver"]')
 from pgsupport import SERVER, create_database, drop_database
 
 from models.embedding import Embedder
-from service.forecasting import train
+from service.forecast.forecaster import train
 from service.settings import Settings
 from service.workspace import Workspace
 

@@ -86,8 +86,8 @@ def copy_home_to_postgres(src_home: Path, dest_home: Path) -> str:
     """Copy a data directory (models, index) and its store's rows into a new
     PostgreSQL database, registered for ``dest_home`` in HOMES; returns the
     database URL (drop it with ``release``)."""
-    from service.store import Store
-    from service.storecopy import copy_store
+    from service.storage.copying import copy_store
+    from service.storage.store import Store
 
     src_url = HOMES.get(src_home.resolve()) or f"sqlite:///{src_home.resolve() / 'sounding.db'}"
     shutil.copytree(src_home, dest_home, ignore=shutil.ignore_patterns("sounding.db*"))

@@ -149,7 +149,7 @@ def test_health_reports_a_stale_index(demo_copy: Workspace, tmp_path: Path) -> N
     with TestClient(create_app(workspace=demo_copy)) as c:
         assert c.get("/v1/health").json()["index"]["state"] == "ready"
         # Change the store behind the service's back (as another process would).
-        from service.store import Store
+        from service.storage.store import Store
 
         other = Store(url=demo_copy.settings.db_url)
         other.forget(account="loomhaven_lab")

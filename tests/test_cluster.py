@@ -1,4 +1,4 @@
-"""Import with embedding on a Ray cluster (service.cluster): a local Ray head
+"""Import with embedding on a Ray cluster (service.ingest.ray_embedding): a local Ray head
 limited to 2 CPUs, reached through the Ray Client as a remote cluster would be."""
 
 from __future__ import annotations
@@ -23,7 +23,7 @@ from models.embedding import Embedder
 from models.errors import ServiceUnavailable
 from service.cli import app
 from service.cli.base import use_embedder
-from service.cluster import RayEmbedder, check_address
+from service.ingest.ray_embedding import RayEmbedder, check_address
 from service.settings import Settings
 from service.workspace import Workspace
 

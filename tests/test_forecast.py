@@ -18,8 +18,8 @@ from models import features as F
 from models.artefact import TrainedModel, newest, versions
 from models.errors import InputError, NotFound, NotReady
 from service.api.app import create_app
-from service.forecasting import Draft, build_view, feature_params, train
-from service.timeparse import localize
+from service.clock import localize
+from service.forecast.forecaster import Draft, build_view, feature_params, train
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text())

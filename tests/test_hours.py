@@ -16,9 +16,9 @@ from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
 from service.api.app import create_app
-from service.forecasting import CAUTION
-from service.hours import Slot, best_hours, day_slots, hours_summary
-from service.overlap import heavy_overlap, tied_with_best
+from service.forecast.forecaster import CAUTION
+from service.review.hours import Slot, best_hours, day_slots, hours_summary
+from service.review.overlap import heavy_overlap, tied_with_best
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))

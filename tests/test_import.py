@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from models.errors import CSVFormatError, InputError
-from service.importer import RowProblem, check_encoding, parse_mapping
+from service.ingest.importer import RowProblem, check_encoding, parse_mapping
 from service.workspace import Workspace
 
 HEADER = "post_id,account,text,posted_at,impressions,engagements,has_media"

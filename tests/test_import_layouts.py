@@ -361,7 +361,7 @@ def test_a_field_over_the_csv_size_limit_costs_only_its_row(workspace: Workspace
 
 
 def test_a_file_whose_rest_is_not_csv_says_how_much_was_skipped(workspace: Workspace, tmp_path: Path) -> None:
-    from service.csvread import MAX_BAD_IN_A_ROW
+    from service.ingest.csvread import MAX_BAD_IN_A_ROW
 
     junk = ['x,"a"b' for _ in range(MAX_BAD_IN_A_ROW + 30)]
     f = tmp_path / "junk.csv"
@@ -561,7 +561,7 @@ def test_api_dry_run_stores_nothing(make_workspace) -> None:
 
 
 def test_an_unreadable_rest_exits_3_even_with_allow_rejects(cli_home: Path, tmp_path: Path) -> None:
-    from service.csvread import MAX_BAD_IN_A_ROW
+    from service.ingest.csvread import MAX_BAD_IN_A_ROW
 
     f = tmp_path / "junk.csv"
     f.write_text(

@@ -16,8 +16,8 @@ import pytest
 from sqlalchemy import Boolean, Column, String, create_engine, false, text
 
 from models.errors import StoreError
-from service.migrations import SCHEMA_VERSION, add_column
-from service.store import Store
+from service.storage.migrations import SCHEMA_VERSION, add_column
+from service.storage.store import Store
 
 V0_SQLITE = [
     """CREATE TABLE accounts (id INTEGER NOT NULL, handle VARCHAR(200) NOT NULL,

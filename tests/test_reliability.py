@@ -32,16 +32,16 @@ from typer.testing import CliRunner
 
 from models.artefact import versions
 from models.errors import Busy, InputError, NotReady, ReadOnly, StoreError
-from service import forecasting
 from service.api import guard
 from service.api.app import create_app
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.cli.history import check_bind
-from service.forecasting import Draft
-from service.importer import import_csv
-from service.locking import LOCK_FILE
+from service.forecast import forecaster as forecasting
+from service.forecast.forecaster import Draft
+from service.ingest.importer import import_csv
 from service.settings import Settings
+from service.storage.locking import LOCK_FILE
 from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -515,7 +515,7 @@ def test_an_interrupted_backup_leaves_no_plausible_file(
     def killed(*_a: object) -> None:  # stands in for a kill just before the rename
         raise KeyboardInterrupt
 
-    monkeypatch.setattr("service.store.os.replace", killed)
+    monkeypatch.setattr("service.storage.store.os.replace", killed)
     with pytest.raises(KeyboardInterrupt):
         workspace.store.backup(dest)
     assert not dest.exists()

@@ -16,9 +16,9 @@ from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
 from service.api.app import create_app
-from service.forecasting import Draft
+from service.forecast.forecaster import Draft
+from service.history.repeats import near_repeats_many
 from service.plan import forecast_plan
-from service.repeats import near_repeats_many
 from service.settings import Settings
 from service.workspace import Workspace
 

@@ -20,10 +20,10 @@ from fastapi.testclient import TestClient
 from sqlalchemy import event
 
 from models import features as F
-from service import track_record
 from service.api.app import create_app
-from service.forecasting import Draft
-from service.store import Store
+from service.forecast.forecaster import Draft
+from service.storage.store import Store
+from service.track import record as track_record
 from service.workspace import Workspace
 
 BODY = {"text": "Guided walk through the winter glasshouse", "account": "loomhaven"}

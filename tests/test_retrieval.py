@@ -10,9 +10,9 @@ import numpy as np
 from conftest import NOW
 
 from models.features import FEATURE_NAMES
-from service.forecasting import Draft
-from service.history import build_view, feature_params
-from service.retrieval import Retriever
+from service.forecast.forecaster import Draft
+from service.history.retrieval import Retriever
+from service.history.view import build_view, feature_params
 
 
 def test_a_stored_post_as_a_draft_gets_its_training_row(demo_workspace) -> None:

@@ -31,7 +31,7 @@ from models.segments import OTHER
 from service.api.app import create_app
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
-from service.segmenting import SegmentRequest, SegmentResult, render, segment
+from service.segments.segmenting import SegmentRequest, SegmentResult, render, segment
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text())

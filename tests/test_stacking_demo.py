@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from scipy.stats import spearmanr
 
-from service.forecasting import Draft
-from service.review import best_hours, day_slots
+from service.forecast.forecaster import Draft
+from service.review.hours import best_hours, day_slots
 
 ROOT = Path(__file__).resolve().parents[1]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))

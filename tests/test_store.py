@@ -17,8 +17,8 @@ from sqlalchemy import select
 from models.embedding import Embedder
 from models.errors import InputError, NotFound, StoreError
 from models.metrics import METRIC_COLUMNS
-from service.store import PostRow, Store, has_link
-from service.tables import Snapshot
+from service.storage.store import PostRow, Store, has_link
+from service.storage.tables import Snapshot
 from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -214,7 +214,7 @@ def test_vectors_come_back_in_the_order_asked_with_repeats(demo_workspace: Works
 def test_posts_read_in_chunks_equal_posts_read_at_once(
     demo_workspace: Workspace, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    import service.store as store_module
+    import service.storage.store as store_module
 
     whole = demo_workspace.store.posts_frame()
     monkeypatch.setattr(store_module, "_FRAME_CHUNK", 97)  # many chunks, the last one short

@@ -1,4 +1,4 @@
-"""Reading ISO 8601 / RFC 3339 times and IANA zones (service.timeparse)."""
+"""Reading ISO 8601 / RFC 3339 times and IANA zones (service.clock)."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from zoneinfo import ZoneInfo
 import pytest
 
 from models.errors import InputError, TimeParseError
-from service.timeparse import as_utc, localize, parse_time, to_naive_utc, zone
+from service.clock import as_utc, localize, parse_time, to_naive_utc, zone
 
 
 def utc(*args: int) -> datetime:

@@ -1,5 +1,5 @@
 """Topic segments find their posts through the one retrieval component
-(``service.retrieval.Retriever``: ``similarities`` for nearest mode,
+(``service.history.retrieval.Retriever``: ``similarities`` for nearest mode,
 ``nearest`` for top-k mode) and get exactly the members that an independent
 computation gives: scikit-learn's ``cosine_similarity`` over the vectors as
 the store holds them (not as the index holds them), named beside each check.
@@ -19,7 +19,7 @@ from sklearn.metrics.pairwise import cosine_similarity
 from models.errors import StoreError
 from models.index import VectorIndex
 from models.segments import OTHER
-from service.segmenting import SegmentRequest, segment
+from service.segments.segmenting import SegmentRequest, segment
 from service.settings import Settings
 from service.workspace import Workspace
 

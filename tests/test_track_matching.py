@@ -1,4 +1,4 @@
-"""Matching published posts to the forecasts they fulfil (service.track_record).
+"""Matching published posts to the forecasts they fulfil (service.track.record).
 
 The rules come from issue 11 (explicit draft id first; else same account, text
 similarity at or above the threshold and a posting time within the window;
@@ -16,8 +16,8 @@ from pathlib import Path
 import pytest
 from sqlalchemy import func, select
 
-from service.tables import Account, ForecastGiven, ForecastMatch, Post
-from service.timeparse import UTC, to_naive_utc
+from service.clock import UTC, to_naive_utc
+from service.storage.tables import Account, ForecastGiven, ForecastMatch, Post
 from service.workspace import Workspace
 
 T0 = datetime(2026, 6, 1, 12, 0, tzinfo=UTC)

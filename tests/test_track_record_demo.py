@@ -28,7 +28,7 @@ from service.api.app import create_app
 from service.cli import app
 from service.cli.base import use_embedder
 from service.settings import Settings
-from service.tables import ForecastGiven
+from service.storage.tables import ForecastGiven
 from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]

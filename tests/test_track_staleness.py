@@ -20,12 +20,12 @@ from typer.testing import CliRunner
 
 from models.embedding import Embedder
 from models.errors import TimeParseError
-from service import track_record
 from service.cli import app
 from service.cli.base import use_embedder
-from service.forecasting import train
-from service.tables import Account, CalibrationState, ForecastGiven, ForecastMatch, Post
-from service.timeparse import UTC, now_utc, to_naive_utc
+from service.clock import UTC, now_utc, to_naive_utc
+from service.forecast.forecaster import train
+from service.storage.tables import Account, CalibrationState, ForecastGiven, ForecastMatch, Post
+from service.track import record as track_record
 from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -1,4 +1,4 @@
-"""Numbers and times as people write them (service.numbers, service.timeparse),
+"""Numbers and times as people write them (service.ingest.numbers, service.clock),
 checked against independent readers: babel's locale-aware number parsing and
 python-dateutil's date parser."""
 
@@ -12,10 +12,10 @@ from babel.numbers import NumberFormatError, parse_decimal
 from dateutil import parser as dateutil_parser
 
 from models.errors import InputError, TimeParseError
-from service.importer import ImportOptions
-from service.mappings import combine, from_toml, to_toml
-from service.numbers import MAX_COUNT, NumberError, read_count, read_rate
-from service.timeparse import TimeLayout, TimeReader
+from service.ingest.importer import ImportOptions
+from service.ingest.mappings import combine, from_toml, to_toml
+from service.ingest.numbers import MAX_COUNT, NumberError, read_count, read_rate
+from service.ingest.timestamps import TimeLayout, TimeReader
 
 
 # Counts against babel (CLDR number formats): en groups with ',' and a decimal point,

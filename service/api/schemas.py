@@ -2,7 +2,7 @@
 
 Kept apart from the SQLAlchemy tables: these are the public contract. Each
 answer is defined once, as the pydantic result type of the module that
-produces it (``service.forecasting.Forecast``, ``service.hours.HoursReport``,
+produces it (``service.forecast.forecaster.Forecast``, ``service.review.hours.HoursReport``,
 ...); it is re-exported here so the API and the client name one set of
 models. Only the answers built in the routers themselves (forget, training)
 and the segments answers are defined below.
@@ -18,18 +18,18 @@ from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segments import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES, DEFAULT_MIN_N
 from service.answers import Calibration, Coverage, LiveCoverage
-from service.forecasting import Contributions, Forecast, Forecasts, GroupEffect
+from service.clock import EARLIEST, as_utc, latest_time, range_text
+from service.forecast.forecaster import Contributions, Forecast, Forecasts, GroupEffect
 from service.health import EmbeddingState, Health, IndexState, SearchState
-from service.hours import HoursReport, Slot
-from service.importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
-from service.precedents import Precedent, Precedents, WeightedPrecedent
-from service.repeats import Repeat
-from service.segmenting import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
-from service.segmenting import SegmentResult as SegmentResult  # the answer, used as it is
-from service.store import AccountInfo
-from service.timeparse import EARLIEST, as_utc, latest_time, range_text
-from service.track_record import TrackRecord
-from service.wordings import Variant, VariantsReport
+from service.history.precedents import Precedent, Precedents, WeightedPrecedent
+from service.history.repeats import Repeat
+from service.ingest.importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
+from service.review.hours import HoursReport, Slot
+from service.review.wordings import Variant, VariantsReport
+from service.segments.segmenting import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
+from service.segments.segmenting import SegmentResult as SegmentResult  # the answer, used as it is
+from service.storage.store import AccountInfo
+from service.track.record import TrackRecord
 
 # The answers re-exported from the modules that define them (the request models
 # below are public too; this list only keeps the re-exports explicit).
@@ -64,7 +64,7 @@ __all__ = [
 
 
 def _time_in_range(dt: datetime) -> datetime:
-    """A time field inside the accepted range (service.timeparse), naive read as UTC."""
+    """A time field inside the accepted range (service.clock), naive read as UTC."""
     try:
         ok = EARLIEST <= as_utc(dt) <= latest_time()
     except OverflowError:

@@ -8,8 +8,8 @@ import typer
 
 from models.errors import InputError, StoreError
 from service.cli.base import app, out, workspace
-from service.store import Store
-from service.storecopy import copy_store
+from service.storage.copying import copy_store
+from service.storage.store import Store
 
 
 @app.command("forget")

@@ -11,13 +11,13 @@ import typer
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
-from service import forecasting
 from service.cli.base import app, out, print_json, workspace
 from service.cli.render import Column, level_bar, print_table, typical_miss
-from service.forecasting import CAUTION, Draft, Forecast
+from service.clock import localize, now_utc, parse_time, zone
+from service.forecast import forecaster as forecasting
+from service.forecast.forecaster import CAUTION, Draft, Forecast
 from service.plan import forecast_plan
-from service.timeparse import localize, now_utc, parse_time, zone
-from service.track_record import give, staleness
+from service.track.record import give, staleness
 from service.workspace import Workspace
 
 METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."

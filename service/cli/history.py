@@ -34,12 +34,12 @@ from service.cli.mappings import (
     given_options,
 )
 from service.cli.render import Column, print_table
-from service.cluster import cluster_import_options
-from service.importer import ImportPreview, ImportSummary
-from service.mappings import combine, load_mapping
-from service.precedents import Precedent, Precedents
+from service.clock import parse_time
+from service.history.precedents import Precedent, Precedents
+from service.ingest.importer import ImportPreview, ImportSummary
+from service.ingest.mappings import combine, load_mapping
+from service.ingest.ray_embedding import cluster_import_options
 from service.settings import Settings
-from service.timeparse import parse_time
 
 # The demo history sits beside the source tree; an installed copy (the
 # container image) points at it with SOUNDING_DEMO_DIR.

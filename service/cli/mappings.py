@@ -13,10 +13,10 @@ import typer
 from models.errors import InputError
 from service.cli.base import app, out, print_json
 from service.cli.render import Column, print_table
-from service.importer import ImportOptions, parse_mapping
-from service.mappings import command_line, list_mappings, load_mapping, mapping_text, save_mapping
+from service.ingest.importer import ImportOptions, parse_mapping
+from service.ingest.mappings import command_line, list_mappings, load_mapping, mapping_text, save_mapping
+from service.ingest.timestamps import DateOrder
 from service.settings import Settings
-from service.timeparse import DateOrder
 
 ACCOUNT = typer.Option(None, "--account", help="Account for rows without an account column.")
 MAP = typer.Option([], "--map", help="Read our column from theirs: ours=theirs (repeatable).")

@@ -15,7 +15,7 @@ from models.plots import FORMATS
 from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value
 from service.cli.base import app, err, out, print_json, workspace
 from service.cli.render import Column, cut, interval_bar, print_table
-from service.segmenting import (
+from service.segments.segmenting import (
     BY_CHOICES,
     DEFAULT_EXAMPLES,
     DEFAULT_K,

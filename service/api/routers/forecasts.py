@@ -6,9 +6,9 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS, json_answer
 from service.api.schemas import DraftIn, Forecast, ForecastBatchRequest, ForecastRequest, Forecasts
-from service.forecasting import Draft
-from service.timeparse import parse_time
-from service.track_record import give
+from service.clock import parse_time
+from service.forecast.forecaster import Draft
+from service.track.record import give
 from service.workspace import Workspace
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])

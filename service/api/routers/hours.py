@@ -6,7 +6,7 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
 from service.api.schemas import HoursReport, HoursRequest
-from service.hours import best_hours
+from service.review.hours import best_hours
 
 router = APIRouter(prefix="/v1", tags=["hours"])
 

@@ -9,7 +9,7 @@ from models.errors import InputError, NotFound, NotReady, StoreError
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
 from service.api.schemas import SegmentResult, SegmentsRequest
-from service.segmenting import SegmentRequest, render, segment
+from service.segments.segmenting import SegmentRequest, render, segment
 
 router = APIRouter(prefix="/v1", tags=["segments"])
 

@@ -3,10 +3,10 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from models.errors import AuthError, InputError, NotReady, StoreError
-from service import forecasting
 from service.api.deps import WorkspaceDep, WriteAccess
 from service.api.responses import ERRORS
 from service.api.schemas import TrainingOut, TrainingRequest
+from service.forecast import forecaster as forecasting
 
 router = APIRouter(prefix="/v1", tags=["training"])
 

@@ -6,8 +6,8 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
 from service.api.schemas import VariantsReport, VariantsRequest
-from service.timeparse import parse_time
-from service.wordings import compare_variants
+from service.clock import parse_time
+from service.review.wordings import compare_variants
 
 router = APIRouter(prefix="/v1", tags=["variants"])
 

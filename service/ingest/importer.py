@@ -14,7 +14,7 @@ may carry thousands separators and abbreviations (``1.2K``, marked
 approximate); an ``engagement_rate`` column is checked against engagements
 / impressions, or fills in the one of them a row leaves out.
 
-Parsing follows RFC 4180 (``service.csvread``: quoted commas, doubled
+Parsing follows RFC 4180 (``service.ingest.csvread``: quoted commas, doubled
 quotes, line breaks inside quotes); the file is UTF-8 with or without a
 byte-order mark. Problems with the file as a whole (encoding, header,
 dates that read two ways) stop the import before anything is written.
@@ -47,10 +47,11 @@ from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
 from models.metrics import METRIC_COLUMNS, Metric
 from service.answers import Instant, MetricValues
-from service.csvread import Abandoned, BadRecord, Record, RecordReader
-from service.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
-from service.store import PostRow, Store
-from service.timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order, zone
+from service.clock import UTC, zone
+from service.ingest.csvread import Abandoned, BadRecord, Record, RecordReader
+from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
+from service.ingest.timestamps import DateOrder, TimeLayout, TimeReader, check_date_order
+from service.storage.store import PostRow, Store
 
 RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
 CANONICAL_COLUMNS: tuple[str, ...] = (
@@ -61,7 +62,7 @@ CANONICAL_COLUMNS: tuple[str, ...] = (
     *METRIC_COLUMNS,
     "has_media",
     RATE_COLUMN,
-    "draft_id",  # optional: the draft a post fulfils (service.track_record, issue 11)
+    "draft_id",  # optional: the draft a post fulfils (service.track.record, issue 11)
 )
 REQUIRED_COLUMNS: tuple[str, ...] = ("post_id", "text", "posted_at")
 _TRUE = {"true", "1", "yes", "y", "t"}
@@ -77,7 +78,7 @@ csv.field_size_limit(1 << 24)
 @dataclass(frozen=True, slots=True)
 class ImportOptions:
     """How to read one export: column mapping, account, and how its times
-    and numbers are written. A saved mapping (``service.mappings``) holds
+    and numbers are written. A saved mapping (``service.ingest.mappings``) holds
     exactly these."""
 
     mapping: dict[str, str] = field(default_factory=dict)
@@ -443,7 +444,7 @@ class _Rows:
 
 ProgressFn = Callable[[int, int], None]
 #: Embeds a batch of new texts into unit float32 rows (default: ``embedder.encode``);
-#: service.cluster passes one that embeds on a Ray cluster.
+#: service.ingest.ray_embedding passes one that embeds on a Ray cluster.
 EmbedFn = Callable[[list[str]], np.ndarray]
 
 

@@ -11,8 +11,8 @@ from __future__ import annotations
 from sqlalchemy import func, insert, select, text
 
 from models.errors import StoreError
-from service.store import Store
-from service.tables import Base, ChangeStamp, SchemaVersion
+from service.storage.store import Store
+from service.storage.tables import Base, ChangeStamp, SchemaVersion
 
 _BATCH = 1000
 # Each store keeps its own version and change stamp.

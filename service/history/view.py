@@ -18,7 +18,7 @@ import pandas as pd
 from models import features as F
 from models.metrics import METRIC_COLUMNS, target_values
 from service.settings import Settings
-from service.store import Store
+from service.storage.store import Store
 
 EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 

@@ -1,153 +1,18 @@
-"""Reading times and zones.
-
-Times are ISO 8601 / RFC 3339. A time with an offset (``+01:00`` or ``Z``)
-is exact. A naive time is local wall-clock time in a named IANA zone; one
-that does not exist there (skipped by a daylight-saving change) is refused
-rather than shifted, and one that occurs twice (clocks going back) is read
-as the first occurrence, as ``zoneinfo`` does with ``fold=0``.
-
-Every time that enters sounding (an imported post, a planned time, a range
-bound) must lie between :data:`EARLIEST` and :data:`YEARS_AHEAD` years from
-now: a stray year 1 or 9999 would otherwise break every later computation
-that turns times into numbers.
-
-Imports also read the layouts of exported spreadsheets (:class:`TimeLayout`):
-a fixed strptime pattern, Unix times, or, by default, ISO 8601 plus a strict
-list of common layouts (:data:`DATE_LAYOUTS`, :data:`CLOCK_LAYOUTS`).
-Whether ``03/11/2026`` is 3 November or 11 March is never guessed.
-"""
+"""Layouts of exported times: a fixed strptime pattern, Unix times, or ISO 8601
+plus a strict list of common layouts. Whether ``03/11/2026`` is 3 November or
+11 March is never guessed."""
 
 from __future__ import annotations
 
-import os
 import re
 from collections.abc import Iterable
 from dataclasses import dataclass
-from datetime import UTC as UTC  # re-exported: the service modules take UTC from here
-from datetime import datetime, time, timedelta, timezone
+from datetime import UTC, datetime, time, timedelta, timezone
 from decimal import Decimal, InvalidOperation
-from functools import lru_cache
 from typing import Literal
-from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from models.errors import CSVFormatError, InputError, TimeParseError
-
-#: The earliest time sounding accepts anywhere (import, requests, options).
-EARLIEST = datetime(1990, 1, 1, tzinfo=UTC)
-#: How far ahead of now a time may lie; 100 years as 36,525 days.
-YEARS_AHEAD = 100
-_AHEAD = timedelta(days=round(365.25 * YEARS_AHEAD))
-
-
-def latest_time(now: datetime | None = None) -> datetime:
-    """The latest time accepted now."""
-    return (now or now_utc()) + _AHEAD
-
-
-def range_text(now: datetime | None = None) -> str:
-    return f"{EARLIEST:%Y-%m-%d} to {latest_time(now):%Y-%m-%d} ({YEARS_AHEAD} years from now)"
-
-
-def check_range(dt: datetime, *, where: str | None = None, value: str | None = None) -> datetime:
-    """``dt`` (aware) if it lies in the accepted range, else a clear error."""
-    if not EARLIEST <= dt <= latest_time():
-        raise TimeParseError(
-            f"time {dt.isoformat()} is outside the accepted range, {range_text()}",
-            where=where,
-            value=value or dt.isoformat(),
-        )
-    return dt
-
-
-def zone(name: str) -> ZoneInfo:
-    """The IANA zone ``name``, or a clear error."""
-    try:
-        if not name or name != name.strip() or name.startswith("/") or ".." in name:
-            raise ValueError
-        return ZoneInfo(name)
-    except (ZoneInfoNotFoundError, ValueError, OSError):
-        raise InputError(
-            f"unknown time zone {name!r}",
-            field="timezone",
-            value=name,
-            hint="use an IANA zone name such as Europe/London or America/New_York",
-        ) from None
-
-
-def parse_time(text: str, *, tz: str = "UTC", where: str | None = None, check: bool = True) -> datetime:
-    """Parse an ISO 8601 time; return an aware datetime in UTC, in the
-    accepted range unless ``check`` is false."""
-    dt = _parse_iso(text, tz=tz, where=where)
-    return check_range(dt, where=where, value=text) if check else dt
-
-
-def _parse_iso(text: str, *, tz: str, where: str | None) -> datetime:
-    raw = (text or "").strip()
-    if not raw:
-        raise TimeParseError("empty time", where=where, value=text)
-    try:
-        # fromisoformat reads ISO 8601 with 'Z', offsets, 'T' or a space;
-        # upper() because RFC 3339 (5.6) also allows lower-case 't' and 'z'.
-        dt = datetime.fromisoformat(raw.upper())
-    except ValueError:
-        raise TimeParseError(
-            f"cannot read time {raw!r}",
-            where=where,
-            value=text,
-            hint="use ISO 8601, e.g. 2026-12-02T10:00:00+01:00",
-        ) from None
-    if len(raw) <= 10:
-        raise TimeParseError(f"time {raw!r} has a date but no time of day", where=where, value=text)
-    try:
-        if dt.tzinfo is not None:
-            return dt.astimezone(UTC)
-        return localize(dt, tz, where=where)
-    except OverflowError:  # e.g. 0001-01-01T00:00+05:00 is before year 1 in UTC
-        raise TimeParseError(f"time {raw!r} is out of range in UTC", where=where, value=text) from None
-
-
-def localize(naive: datetime, tz: str, *, where: str | None = None) -> datetime:
-    """Attach zone ``tz`` to a wall-clock time; refuse a time that does not exist."""
-    z = zone(tz)
-    local = naive.replace(tzinfo=z, fold=0)
-    back = local.astimezone(UTC).astimezone(z)
-    if back.replace(tzinfo=None) != naive:
-        raise TimeParseError(
-            f"{naive.isoformat(sep=' ', timespec='minutes')} does not exist in {tz} "
-            "(the clocks skip it at a daylight-saving change)",
-            where=where,
-            value=naive.isoformat(),
-            hint="give the time with its UTC offset",
-        )
-    return local.astimezone(UTC)
-
-
-def as_utc(dt: datetime) -> datetime:
-    """A stored naive-UTC datetime as an aware one."""
-    return dt.replace(tzinfo=UTC) if dt.tzinfo is None else dt.astimezone(UTC)
-
-
-def to_naive_utc(dt: datetime) -> datetime:
-    return as_utc(dt).replace(tzinfo=None)
-
-
-def now_utc() -> datetime:
-    """The one clock: SOUNDING_NOW (RFC 3339) when set, else the system clock.
-
-    Every command and the service read "now" here, so a fixed SOUNDING_NOW
-    makes runs reproducible and lets past forecasts be backfilled (issue 11).
-    """
-    fixed = os.environ.get("SOUNDING_NOW", "").strip()
-    return _fixed_now(fixed) if fixed else datetime.now(UTC)
-
-
-def wall_clock() -> datetime:
-    """The system clock, whatever SOUNDING_NOW says: for names of artefacts
-    (model versions) that must stay unique across runs at a fixed "now"."""
-    return datetime.now(UTC)
-
-
-# Layouts of exported times ---------------------------------------------------
+from service.clock import check_range, localize, read_iso
 
 DateOrder = Literal["day-first", "month-first"]
 DATE_ORDERS: tuple[str, ...] = ("day-first", "month-first")
@@ -306,7 +171,7 @@ class TimeReader:
     def _common(self, raw: str, *, tz: str, where: str | None) -> datetime:
         if (raw[:4].isdigit() and raw[4:5] == "-") or raw[:8].isdigit():
             try:
-                return _parse_iso(raw, tz=tz, where=where)  # ISO 8601 first: the canonical case
+                return read_iso(raw, tz=tz, where=where)  # ISO 8601 first: the canonical case
             except TimeParseError as exc:
                 if "no time of day" in exc.message or "out of range" in exc.message:
                     raise
@@ -470,15 +335,3 @@ def check_date_order(
             field=column,
             hint="give --day-first or --month-first; rows in the other order are then rejected",
         )
-
-
-@lru_cache(maxsize=8)
-def _fixed_now(raw: str) -> datetime:
-    # RFC 3339 (5.6) requires the offset; a time without one is refused here.
-    # Not range-checked: the accepted range is itself measured from "now".
-    dt = parse_time(raw, where="SOUNDING_NOW", check=False)
-    if not (raw.upper().endswith("Z") or re.search(r"[+-]\d\d:\d\d$", raw)):
-        raise TimeParseError(
-            f"SOUNDING_NOW {raw!r} needs a UTC offset (RFC 3339)", where="SOUNDING_NOW", value=raw
-        )
-    return dt

@@ -2,7 +2,7 @@
 
 These are storage rows only; the API's pydantic schemas live apart in
 ``service.api.schemas``. Times are stored as naive UTC (SQLite has no time
-zone type); ``service.store`` attaches UTC on the way out.
+zone type); ``service.storage.store`` attaches UTC on the way out.
 """
 
 from __future__ import annotations
@@ -117,7 +117,7 @@ class Vector(Base):
 
 
 class SchemaVersion(Base):
-    """The store's schema version (one row); see ``service.migrations``."""
+    """The store's schema version (one row); see ``service.storage.migrations``."""
 
     __tablename__ = "schema_version"
 
@@ -139,7 +139,7 @@ class ChangeStamp(Base):
     counter: Mapped[int] = mapped_column(BigInteger, nullable=False, default=0)
 
 
-# Track record (issue 11; service.track_record) --------------------------------
+# Track record (issue 11; service.track.record) --------------------------------
 # Forecasts given, what they were matched to and how they scored, and the state
 # of the adaptive calibration. Portable types only (SQLite and PostgreSQL).
 # Deleting a post or an account cascades to its matches and forecasts.

@@ -15,8 +15,8 @@ from pydantic import BaseModel, Field
 
 from models.metrics import METRIC_COLUMNS, Metric, target_value
 from service.answers import Instant, Round2, Round4
-from service.history import HistoryView
-from service.retrieval import Retriever, WideCache
+from service.history.retrieval import Retriever, WideCache
+from service.history.view import HistoryView
 from service.settings import Settings
 
 DAY = 86400.0

@@ -13,7 +13,7 @@ Topics need no labels: the user names each topic with a short phrase, the
 phrase is embedded with the workspace's embedder (the same model and the
 same normalisation as the stored post vectors), and posts are matched by
 cosine similarity through the one retrieval component
-(:class:`service.retrieval.Retriever`). A topic may list alternative
+(:class:`service.history.retrieval.Retriever`). A topic may list alternative
 phrases separated by ``|`` ("events | tickets | what's on"); its vector is
 then the renormalised mean of the phrases' vectors, which catches a theme
 better than any one short phrase does.
@@ -63,9 +63,9 @@ from models.segments import (
     length_labels,
     two_way,
 )
+from service.clock import now_utc
 from service.datadir import DataDir
-from service.history import local_clock
-from service.timeparse import now_utc
+from service.history.view import local_clock
 
 #: What a one-way split can be made by, besides topics.
 By = Literal["hour", "weekday", "link", "media", "length", "account"]

@@ -19,8 +19,8 @@ import numpy as np
 
 from models import features as F
 from models.index import VectorIndex
-from service.history import HistoryView
-from service.store import Store
+from service.history.view import HistoryView
+from service.storage.store import Store
 
 #: Nearest posts fetched per draft in one unfiltered pass before filtering.
 WIDE = 200

@@ -1,6 +1,6 @@
 """Saved import mappings: a team's own way of reading one kind of export.
 
-A mapping is the :class:`~service.importer.ImportOptions` of an import
+A mapping is the :class:`~service.ingest.importer.ImportOptions` of an import
 (column names, account, zone, time layout, decimal comma), kept as a small
 TOML file ``mappings/NAME.toml`` in the data directory, so the next export
 of the same shape imports with ``--mapping NAME``. There are no built-in
@@ -34,7 +34,7 @@ from typing import Any
 import tomli_w
 
 from models.errors import InputError, NotFound
-from service.importer import ImportOptions
+from service.ingest.importer import ImportOptions
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 _KEYS = {"account", "columns", "times", "numbers"}

@@ -40,8 +40,8 @@ from sqlalchemy.exc import IntegrityError, OperationalError, ProgrammingError
 from sqlalchemy.schema import CreateColumn
 
 from models.errors import StoreError
-from service.tables import HISTORY_STAMP, SCORING_STAMP, Base, ChangeStamp, SchemaVersion
-from service.timeparse import now_utc, to_naive_utc
+from service.clock import now_utc, to_naive_utc
+from service.storage.tables import HISTORY_STAMP, SCORING_STAMP, Base, ChangeStamp, SchemaVersion
 
 SCHEMA_VERSION = 1
 

@@ -1,9 +1,9 @@
 """Forecasts of a draft's metric: the path from store to response.
 
-    store -> history view (service.history) -> neighbours (service.retrieval)
+    store -> history view (service.history.view) -> neighbours (service.history.retrieval)
     -> features (models.features) -> StackedForecaster: candidates blended in
     time order + CQR on the blend (models.stacking) -> interval, precedents,
-    near-repeats (service.repeats) and grouped contributions (models.explain)
+    near-repeats (service.history.repeats) and grouped contributions (models.explain)
 
 Training and forecasting take neighbours by the same rule and call the same
 ``models.features.assemble``, so a draft is described exactly as the
@@ -36,15 +36,15 @@ from models.metrics import (
 )
 from models.stacking import ALL_FEATURES, ALL_GROUPS, STACK_PARAMS, StackedForecaster, extra_columns
 from service.answers import Calibration, Coverage, Instant, LiveCoverage
+from service.clock import now_utc, wall_clock, zone
 from service.datadir import DataDir
-from service.history import HistoryView, build_view, feature_params, local_clock
+from service.history.precedents import WeightedPrecedent, precedents_for
+from service.history.repeats import Repeat, near_repeats_many
+from service.history.retrieval import Retriever, WideCache
+from service.history.view import HistoryView, build_view, feature_params, local_clock
 from service.limits import Limits
-from service.precedents import WeightedPrecedent, precedents_for
-from service.repeats import Repeat, near_repeats_many
-from service.retrieval import Retriever, WideCache
 from service.settings import Settings
-from service.store import Store, has_link
-from service.timeparse import now_utc, wall_clock, zone
+from service.storage.store import Store, has_link
 
 __all__ = [
     "CAUTION",
@@ -112,7 +112,7 @@ def train(
     cal_fraction: float = 0.2,
 ) -> TrainedModel:
     """Train, backtest and save a new model version for ``metric``, as the
-    data directory's one writer (service.locking)."""
+    data directory's one writer (service.storage.locking)."""
     check_target(metric)
     with ws.writing("a training run"):
         return _train(ws, metric, now=now, backtest=backtest, cal_fraction=cal_fraction)
@@ -252,7 +252,7 @@ class Forecast(BaseModel):
     repeats: list[Repeat] = Field(
         default_factory=list, description="Near-repeats behind the warnings, most similar first"
     )
-    # Track record (issue 11): set by service.track_record.give.
+    # Track record (issue 11): set by service.track.record.give.
     calibration: Calibration | None = None
     live_coverage: LiveCoverage | None = None
     note: str | None = Field(

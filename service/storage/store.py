@@ -30,8 +30,9 @@ from sqlalchemy.orm import ORMExecuteState, Session, sessionmaker
 from models.errors import InputError, NotFound, StoreError
 from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
-from service.migrations import check_current, upgrade
-from service.tables import (
+from service.clock import as_utc, now_utc, to_naive_utc, zone
+from service.storage.migrations import check_current, upgrade
+from service.storage.tables import (
     HISTORY_STAMP,
     SCORING_STAMP,
     STAMP_OF,
@@ -42,7 +43,6 @@ from service.tables import (
     Snapshot,
     Vector,
 )
-from service.timeparse import as_utc, now_utc, to_naive_utc, zone
 
 _LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
 
@@ -210,7 +210,7 @@ class Store:
             s.rollback()
             raise StoreError(f"the store is unavailable: {exc.orig}") from None
         except IntegrityError as exc:
-            # Only a writer outside the write lock (service.locking) gets here.
+            # Only a writer outside the write lock (service.storage.locking) gets here.
             s.rollback()
             raise StoreError(
                 f"another writer changed the same rows at the same time ({exc.orig})",

@@ -13,9 +13,9 @@ from pydantic import BaseModel, Field
 from models.errors import InputError, LimitExceeded, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from service.answers import Coverage, Instant
-from service.forecasting import CAUTION, Draft, Forecaster
-from service.overlap import RULE, ranks, tied_with_best
-from service.timeparse import now_utc
+from service.clock import now_utc
+from service.forecast.forecaster import CAUTION, Draft, Forecaster
+from service.review.overlap import RULE, ranks, tied_with_best
 
 MAX_VARIANTS = 10
 

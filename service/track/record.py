@@ -56,9 +56,16 @@ from models.metrics import (
     target_values,
 )
 from service.answers import Calibration, LiveCoverage
-from service.forecasting import Draft, Forecast, _back
-from service.tables import Account, CalibrationState, ForecastGiven, ForecastMatch, Post, PostDraftLink
-from service.timeparse import as_utc, now_utc, parse_time, to_naive_utc
+from service.clock import as_utc, now_utc, parse_time, to_naive_utc
+from service.forecast.forecaster import Draft, Forecast, _back
+from service.storage.tables import (
+    Account,
+    CalibrationState,
+    ForecastGiven,
+    ForecastMatch,
+    Post,
+    PostDraftLink,
+)
 
 #: Near ties in similarity (same draft edited and checked again) go to the latest forecast.
 SIMILARITY_TIE = 0.01

@@ -8,8 +8,8 @@ from typing import Any
 from pydantic import BaseModel, Field
 
 from service.answers import Instant, MetricValues, Round4
-from service.store import Store
-from service.timeparse import now_utc
+from service.clock import now_utc
+from service.storage.store import Store
 
 
 class Precedent(BaseModel):

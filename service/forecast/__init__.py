@@ -1,0 +1,1 @@
+"""A draft's forecast: history -> retrieval -> features -> model -> answer; training."""

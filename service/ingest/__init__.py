@@ -1,0 +1,1 @@
+"""Import: CSV records, numbers and times as exports write them, mappings, embedding batches."""

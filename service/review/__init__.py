@@ -1,0 +1,1 @@
+"""Choices about a draft: best hours, wordings compared, the rule that tells options apart."""

@@ -1,0 +1,1 @@
+"""Metric splits by topic, timing and form, with their statistics."""

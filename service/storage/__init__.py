@@ -1,0 +1,1 @@
+"""The store: tables, the library API over them, migrations, the write lock."""

@@ -1,0 +1,1 @@
+"""The track record: forecasts given, matched to published posts, scored, adapted."""
