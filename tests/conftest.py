@@ -17,7 +17,15 @@ os.environ.setdefault("HF_HUB_OFFLINE", "1")
 # host names it knows (service.api.guard), so the tests name that one.
 os.environ.setdefault("SOUNDING_ALLOWED_HOSTS", '["testserver"]')
 
-from pgsupport import SERVER, create_database, drop_database
+from support.pgsupport import (
+    HOMES,
+    SERVER,
+    copy_home_to_postgres,
+    create_database,
+    drop_database,
+    every_home_on_postgres,
+    release,
+)
 
 from models.embedding import Embedder
 from service.forecast.forecaster import train
@@ -139,24 +147,89 @@ def demo_home(tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> P
     return home
 
 
+#: The store backends a module marked ``both_backends`` runs on, in turn.
+BACKENDS = ["sqlite", pytest.param("postgresql", marks=pytest.mark.postgres)]
+both_backends = pytest.mark.both_backends
+
+
+def pytest_generate_tests(metafunc: pytest.Metafunc) -> None:
+    """A module marked ``both_backends`` runs all its tests on SQLite, then again
+    on PostgreSQL (skipped without a server); every other module on SQLite."""
+    if "backend" in metafunc.fixturenames and metafunc.definition.get_closest_marker("both_backends"):
+        metafunc.parametrize("backend", BACKENDS, indirect=True, scope="module")
+
+
+@pytest.fixture(scope="module", autouse=True)
+def backend(request: pytest.FixtureRequest) -> Iterator[str]:
+    """The store backend of this module's tests. On PostgreSQL, every data
+    directory a test makes gets a database of its own."""
+    name = getattr(request, "param", "sqlite")
+    if name == "sqlite":
+        yield name
+        return
+    if not SERVER:
+        pytest.skip("SOUNDING_TEST_POSTGRES_URL is not set (start a server with .ci/start-postgres)")
+    with every_home_on_postgres():
+        yield name
+
+
 @pytest.fixture(scope="session")
-def demo_workspace(demo_home: Path, embedder: Embedder) -> Iterator[Workspace]:
-    """A read-only workspace over the demo history."""
+def sqlite_demo_workspace(demo_home: Path, embedder: Embedder) -> Iterator[Workspace]:
     ws = Workspace(settings=Settings(home=demo_home), embedder=embedder)
     yield ws
     ws.close()
 
 
+@pytest.fixture(scope="module")
+def backend_demo_home(
+    backend: str, demo_home: Path, tmp_path_factory: pytest.TempPathFactory
+) -> Iterator[Path]:
+    """The demo data directory on this module's backend (on PostgreSQL, the
+    SQLite demo copied row for row into a database of its own)."""
+    if backend == "sqlite":
+        yield demo_home
+        return
+    home = tmp_path_factory.mktemp("pgdemo") / "home"
+    copy_home_to_postgres(demo_home, home)
+    yield home
+    release(home)
+
+
+@pytest.fixture(scope="module")
+def demo_workspace(
+    backend: str, backend_demo_home: Path, sqlite_demo_workspace: Workspace, embedder: Embedder
+) -> Iterator[Workspace]:
+    """A read-only workspace over the demo history, on this module's backend."""
+    if backend == "sqlite":
+        yield sqlite_demo_workspace
+        return
+    ws = Workspace(
+        settings=Settings(home=backend_demo_home, database_url=HOMES[backend_demo_home.resolve()]),
+        embedder=embedder,
+    )
+    assert ws.store.backend == "postgresql"
+    yield ws
+    ws.close()
+
+
 @pytest.fixture()
-def demo_copy(demo_home: Path, tmp_path: Path, embedder: Embedder) -> Iterator[Workspace]:
-    """A private, writable copy of the demo data directory."""
+def demo_copy(
+    backend: str, backend_demo_home: Path, tmp_path: Path, embedder: Embedder
+) -> Iterator[Workspace]:
+    """A private, writable copy of the demo data directory, on this module's backend."""
     import shutil
 
     home = tmp_path / "demo-copy"
-    shutil.copytree(demo_home, home)
-    ws = Workspace(settings=Settings(home=home), embedder=embedder)
+    if backend == "sqlite":
+        shutil.copytree(backend_demo_home, home)
+        settings = Settings(home=home)
+    else:
+        settings = Settings(home=home, database_url=copy_home_to_postgres(backend_demo_home, home))
+    ws = Workspace(settings=settings, embedder=embedder)
     yield ws
     ws.close()
+    if backend != "sqlite":
+        release(home)
 
 
 @pytest.fixture(scope="session")

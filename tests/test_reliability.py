@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 import uvicorn
 from fastapi.testclient import TestClient
-from serving import serve  # tests/serving.py, the shared loopback server
+from support.serving import serve  # the shared loopback server
 from typer.testing import CliRunner
 
 from models.artefact import versions

@@ -1,0 +1,220 @@
+"""The review page in headless Chromium: typed with the keyboard, checked
+against the API's own answer for the same draft and time."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+from pathlib import Path
+
+import httpx
+import pytest
+from support.serving import CHROMIUM, CHROMIUM_ARGS, serve
+
+from service.api.app import create_app
+
+ROOT = Path(__file__).resolve().parents[2]
+EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))
+DRAFT = (
+    "The dahlias in the Walled Garden are at their peak this week 🌸 The colour glows in "
+    "low sun. #WhatsFlowering"
+)
+PLANNED = "2026-12-03T12:30"
+
+pytestmark = [
+    pytest.mark.browser,
+    pytest.mark.skipif(
+        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
+    ),
+]
+
+
+def _shown(v: float) -> str:
+    """How the page writes a count: rounded half up, with thousands separators."""
+    return f"{math.floor(v + 0.5):,}"
+
+
+def test_review_page(demo_workspace, artifacts: Path) -> None:
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        # The API's own answer for the same draft and time (no offset: the account's zone).
+        api = httpx.post(
+            f"{base}/v1/forecasts",
+            timeout=60,
+            json={"text": DRAFT, "account": "loomhaven", "planned_at": PLANNED + ":00"},
+        )
+        assert api.status_code == 200, api.text
+        want = api.json()
+
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 900})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            outside: list[str] = []
+            page.on(
+                "request",
+                lambda r: (
+                    None if r.url.startswith(base) or r.url.startswith("data:") else outside.append(r.url)
+                ),
+            )
+            page.goto(base + "/")
+            expect(page).to_have_title("sounding — a sounding board for drafts")
+            expect(page.locator("#output")).to_be_hidden()
+            expect(page.locator("#account option")).to_have_count(
+                len(httpx.get(f"{base}/v1/accounts").json())
+            )
+
+            # Keyboard only: Tab from the skip link to the tabs (one stop, the WAI-ARIA
+            # tabs pattern), into the draft, type, Tab on.
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.className") == "skip"
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.id") == "tab-check"
+            page.keyboard.press("Tab")  # the link to the import preview
+            assert page.evaluate("document.activeElement.getAttribute('href')") == "/import"
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.id") == "text"
+            page.keyboard.type(DRAFT)
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.id") == "account"
+            page.select_option("#account", "loomhaven")
+            page.locator("#planned").fill(PLANNED)
+            # (a datetime-local field has one Tab stop per part, so skip to the next field)
+            page.locator("#metric").focus()
+            page.keyboard.press("Tab")
+            assert page.evaluate("document.activeElement.id") == "submit"
+            page.keyboard.press("Enter")  # submits the form
+
+            expect(page.locator("#output")).to_be_visible(timeout=60_000)
+            expect(page.locator("#fc-low")).to_have_text(_shown(want["low"]))
+            expect(page.locator("#fc-median")).to_have_text(_shown(want["median"]))
+            expect(page.locator("#fc-high")).to_have_text(_shown(want["high"]))
+            expect(page.locator("#fc-caution")).to_have_text(want["caution"])
+            pct = round(want["backtested_coverage"] * 100)
+            expect(page.locator("#fc-coverage")).to_contain_text(f"held {pct}%")
+            first = page.locator("#prec-list li .prec-text").first
+            expect(first).to_have_text(want["precedents"][0]["text"])
+            expect(page.locator("#contrib-body tr")).to_have_count(len(want["contributions"]["groups"]))
+            # The charts: one point per precedent with the metric, one band over the day.
+            expect(page.locator("#scatter-chart circle")).to_have_count(
+                sum(p["metrics"]["impressions"] is not None for p in want["precedents"])
+            )
+            expect(page.locator("#hours-chart polygon.band")).to_have_count(1, timeout=60_000)
+            expect(page.locator("#hours-summary")).not_to_be_empty()
+            assert page.locator("#results").get_attribute("aria-live") == "polite"
+            assert page.locator("#error").is_hidden()
+            page.screenshot(path=str(artifacts / "review-page.png"), full_page=True)
+
+            # An error: the draft emptied, submitted with Ctrl+Enter -> the API's message.
+            page.locator("#text").fill("")
+            page.locator("#text").focus()
+            page.keyboard.press("Control+Enter")
+            box = page.locator("#error[role=alert]")
+            expect(box).to_be_visible()
+            empty = httpx.post(f"{base}/v1/forecasts", json={"text": "", "account": "loomhaven"})
+            assert empty.status_code == 422
+            expect(page.locator("#error-message")).to_contain_text(empty.json()["error"]["message"])
+            expect(page.locator("#output")).to_be_hidden()  # no stale forecast beside an error
+
+            # Too long: the limit's own message (413).
+            limit = demo_workspace.settings.max_draft_chars
+            page.locator("#text").fill("x" * (limit + 1))
+            page.locator("#submit").focus()
+            page.keyboard.press("Enter")
+            big = httpx.post(f"{base}/v1/forecasts", json={"text": "x" * (limit + 1), "account": "loomhaven"})
+            assert big.status_code == 413
+            expect(page.locator("#error-message")).to_contain_text(big.json()["error"]["message"])
+            page.screenshot(path=str(artifacts / "review-page-error.png"))
+
+            # The plan's planted near-repeat: the warning shows above the charts.
+            plan = {
+                r["draft_id"]: r
+                for r in csv.DictReader((ROOT / "demo_data" / "plan.csv").open(encoding="utf-8", newline=""))
+            }
+            q = plan[EFFECTS["plan"]["near_repeat"]["draft_id"]]  # Source: effects.json
+            page.locator("#text").fill(q["text"])
+            page.locator("#planned").fill(q["planned_at"][:16])  # local wall-clock time (+00:00)
+            page.locator("#submit").focus()
+            page.keyboard.press("Enter")
+            expect(page.locator("#warn-card")).to_be_visible(timeout=60_000)
+            expect(page.locator("#warn-list li").first).to_contain_text(
+                EFFECTS["plan"]["near_repeat"]["post_id"]
+            )
+            assert page.locator("#error").is_hidden()
+            assert errors == [] and outside == []
+        finally:
+            browser.close()
+
+
+WORDINGS = [DRAFT, "Dahlia peak week in the Walled Garden: the colours glow in the low sun"]
+
+
+def test_wordings_and_segments_panels(demo_workspace, artifacts: Path) -> None:
+    """The compare-wordings and segments panels, driven with the keyboard and
+    checked against the API's own answers to the same requests."""
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        variants = httpx.post(
+            f"{base}/v1/variants",
+            timeout=60,
+            json={"texts": WORDINGS, "account": "loomhaven", "planned_at": PLANNED + ":00"},
+        )
+        assert variants.status_code == 200, variants.text
+        segs = httpx.post(
+            f"{base}/v1/segments",
+            timeout=60,
+            json={"topics": ["flowers in bloom", "volunteering"], "by": None},
+        )
+        assert segs.status_code == 200, segs.text
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 1000})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(base + "/")
+            # Arrow keys move between the tabs.
+            page.locator("#tab-check").focus()
+            page.keyboard.press("ArrowRight")
+            assert page.evaluate("document.activeElement.id") == "tab-wordings"
+            expect(page.locator("#wordings-panel")).to_be_visible()
+            expect(page.locator("#check-panel")).to_be_hidden()
+            page.locator("#w-text-1").fill(WORDINGS[0])
+            page.locator("#w-text-2").fill(WORDINGS[1])
+            expect(page.locator("#w-account option")).to_have_count(
+                len(httpx.get(f"{base}/v1/accounts").json())
+            )
+            page.select_option("#w-account", "loomhaven")
+            page.locator("#w-planned").fill(PLANNED)
+            page.locator("#w-submit").focus()
+            page.keyboard.press("Enter")
+            rows = page.locator("#w-body tr")
+            expect(rows).to_have_count(2, timeout=60_000)
+            for i, v in enumerate(variants.json()["variants"]):
+                cells = rows.nth(i).locator("td")
+                expect(cells.nth(0)).to_have_text(str(v["rank"]))
+                expect(cells.nth(3)).to_have_text(_shown(v["median"]))
+                expect(cells.nth(4)).to_have_text("yes" if v["tied_with_best"] else "no")
+            expect(page.locator("#w-caution")).to_have_text(variants.json()["caution"])
+            page.screenshot(path=str(artifacts / "page-wordings.png"), full_page=True)
+
+            page.locator("#tab-wordings").focus()
+            page.keyboard.press("ArrowRight")
+            assert page.evaluate("document.activeElement.id") == "tab-segments"
+            page.locator("#s-topics").fill("flowers in bloom\nvolunteering")
+            page.locator("#s-submit").focus()
+            page.keyboard.press("Enter")
+            want = segs.json()["splits"][0]["segments"]
+            seg_rows = page.locator(".seg-table tbody tr")
+            expect(seg_rows).to_have_count(len(want), timeout=60_000)
+            for i, s in enumerate(want):
+                expect(seg_rows.nth(i).locator("th")).to_have_text(s["name"])
+                expect(seg_rows.nth(i).locator("td").nth(0)).to_have_text(str(s["n"]))
+            expect(page.locator("#s-plot")).to_be_visible(timeout=60_000)
+            page.screenshot(path=str(artifacts / "page-segments.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()
