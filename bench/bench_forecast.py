@@ -66,7 +66,7 @@ def bench_embedder() -> Embedder:
 
 class ReferenceEncode:
     """Plain ``SentenceTransformer.encode`` of the draft (torch): the reference
-    a forecast's p50 is compared with (issue 16: forecast p50 <= 1.0x this)."""
+    a forecast's p50 is compared with (forecast p50 <= 1.0x this)."""
 
     def __init__(self) -> None:
         from sentence_transformers import SentenceTransformer
@@ -340,7 +340,7 @@ def main() -> None:
             body = {"text": DRAFT, "account": "loomhaven", "planned_at": "2026-12-02T12:00"}
             emb, fc, bare = [], [], []
             # The same forecast with "record": false, interleaved, so the cost of keeping
-            # it in the track record is a ratio within this run (issue 11).
+            # it in the track record is a ratio within this run.
             unrecorded = {**body, "record": False}
             try:
                 with httpx.Client(base_url=url, timeout=600) as client:
@@ -374,13 +374,13 @@ def main() -> None:
                 "embed_equivalent_s": round(embed_eq, 1),
                 "train_ratio": None if train_s is None else round(train_s / embed_eq, 3),
                 "rss_mb": round(rss, 1),
-                # Issue 16: against a plain SentenceTransformer.encode of the draft (torch).
+                # Against a plain SentenceTransformer.encode of the draft (torch).
                 **reference.row(fc),
                 "embedding": embedder.info()["backend"],
-                # Issue 11: recorded / not recorded in the track record.
+                # Recorded / not recorded in the track record.
                 "forecast_unrecorded_p50_ms": round(1000 * statistics.median(bare), 2),
                 "record_ratio_p50": round(statistics.median(fc) / statistics.median(bare), 3),
-                # Context, not asked for by issue 12 but needed to read the figures.
+                # Context, needed to read the figures.
                 "rss_peak_mb": round(peak, 1),
                 "fill_s": round(fill, 1),
                 "index": {k: index_cfg[k] for k in ("kind", "ef_search", "recall_at_10", "count")},

@@ -22,12 +22,12 @@ Printed and saved (bench/results/, gitignored) as ratios from this one run:
   embedding_time / import_time     aim >= 0.8: the import adds little to embedding
   first_import_time / reimport     aim >= 20:  a re-import embeds nothing
   reference_encode / embedding     how much faster the backend embeds than plain encode
-  torch_import / import            aim >= 1.5 (issue 16): the backend's gain on a whole import
+  torch_import / import            aim >= 1.5: the backend's gain on a whole import
   reference_encode / import        the whole import against plain encode of its texts
 
 It also checks the backend's vectors against the reference's on every text:
 the lowest cosine, and whether each text's top-10 neighbours by scikit-learn's
-exact NearestNeighbors are the same (issue 16: cosine >= 0.99999, identical).
+exact NearestNeighbors are the same (cosine >= 0.99999, identical).
 
 The import is also broken down by stage (time inside Embedder.encode,
 Store.write_batch, the vector-cache lookup and the index update) so that a

@@ -44,7 +44,7 @@ CONFIG_NAME = "export.json"
 MODEL_NAME = "model.onnx"
 TOKENIZER_NAME = "tokenizer.json"
 INPUTS = ("input_ids", "attention_mask", "token_type_ids")
-# An fp32 export must reproduce the torch vectors (issue 16: within 1e-5 cosine);
+# An fp32 export must reproduce the torch vectors (within 1e-5 cosine);
 # int8 changes them by design (cosine ~0.99 on the demo texts), so only a
 # broken graph falls below this.
 FP32_MIN_COSINE = 0.99999

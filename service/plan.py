@@ -138,7 +138,7 @@ def forecast_plan(
     problems: dict[int, str] = {i: r.problem for i, r in enumerate(rows) if r.draft is None}
     drafts = [d for d in (rows[i].draft for i in todo) if d is not None]
     try:
-        # Adapted, staleness-checked and recorded in the track record (issue 11).
+        # Adapted, staleness-checked and recorded in the track record.
         found = give(ws, drafts, metric=metric, coverage=coverage, record=record, source="plan")
         results.update(zip(todo, found, strict=True))
     except SoundingError:

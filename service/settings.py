@@ -76,7 +76,7 @@ class Settings(BaseSettings):
     baseline_posts: int = Field(default=20, ge=1)
     min_history_posts: int = Field(default=20, ge=1)
 
-    # Scale (issue 12). An exact scan costs about 2 ms per draft at 10,000 posts and
+    # Scale. An exact scan costs about 2 ms per draft at 10,000 posts and
     # 18-20 ms at 100,000 on two cores, while an HNSW graph answers in well under a
     # millisecond at either size; below 50,000 posts the graph's build time (tens of
     # seconds) buys little, so the index stays exact there.
@@ -142,7 +142,7 @@ class Settings(BaseSettings):
         default=120.0, gt=0, description="Time a client has to send a request's body."
     )
 
-    # Track record (issue 11; service.track.record) ---------------------------
+    # Track record (service.track.record) ---------------------------
     now: str | None = Field(
         default=None,
         description="RFC 3339 time fixing 'now' for every command and the service "

@@ -341,7 +341,7 @@ class Workspace:
                 ) from None
             if summary.changed_pks or summary.updated:
                 self._sync_index(summary.changed_pks)
-            # The track record: draft ids, matching, scoring, adaptation (issue 11).
+            # The track record: draft ids, matching, scoring, adaptation.
             after_import(self, path, mapping=mapping, account=account)
             self.forecaster.warm()  # the import pays for the views, not the next forecast
             return summary

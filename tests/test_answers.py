@@ -1,4 +1,4 @@
-"""Each answer's shape is defined once (issue 9, item 2).
+"""Each answer's shape is defined once.
 
 The result types of the service layer are the pydantic models the API
 declares and the CLI's ``--json`` prints: these tests fail when a response

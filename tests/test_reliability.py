@@ -1,4 +1,4 @@
-"""Issue 15: nothing lost, nothing stale, nothing that takes the service down.
+"""nothing lost, nothing stale, nothing that takes the service down.
 
 Damaged model files, concurrent writers, a full disk, read-only data
 directories, backups, and the local service's defences (Host check, body cap,

@@ -39,7 +39,7 @@ def train_cmd(
     ),
 ) -> None:
     """Train a new forecast model version from the store."""
-    if if_stale:  # track record hook (issue 11)
+    if if_stale:
         why = staleness(workspace(), metric)
         if not why["stale"]:
             out.print(f"the {metric} model is not stale; nothing to do")
@@ -147,7 +147,7 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
     )
     for w in f.warnings:
         out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
-    if f.note:  # issue 10
+    if f.note:
         out.print(f"note: {f.note}", highlight=False)
     for g in f.contributions.groups:
         out.print(f"  {g.summary}", highlight=False)
@@ -182,7 +182,7 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
         out.print(
             "* still gathering: its metrics are not final yet, so it is shown but not used", highlight=False
         )
-    if f.calibration:  # track record (issue 11): calibration used, live coverage so far
+    if f.calibration:  # track record: calibration used, live coverage so far
         live = f.live_coverage
         held = (
             f"held {live.coverage:.0%} of {live.scored} scored forecasts"
@@ -235,7 +235,7 @@ def check_cmd(
         raise InputError("give the draft text, or --plan with a plan file", field="text")
     if not account:
         raise InputError("say which account would post it with --account", field="--account")
-    # Adapted, staleness-checked and recorded in the track record (issue 11).
+    # Adapted, staleness-checked and recorded in the track record.
     f = give(
         ws,
         [Draft(text=text, account=account, planned_at=planned(at, account), has_media=media)],

@@ -31,7 +31,7 @@ def print_hours(r: HoursReport) -> None:
         f"({r.timezone}, {len(r.slots)} slots); {r.coverage:.0%} intervals, {bt}"
     )
     out.print(r.summary, highlight=False)
-    if r.best_stays_best is not None:  # issue 10
+    if r.best_stays_best is not None:
         out.print(
             f"The best hour stays best in {r.best_stays_best:.0%} of refits of the timing "
             "effect on resampled history.",

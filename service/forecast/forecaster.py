@@ -163,7 +163,7 @@ def _train(
         report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES, params=STACK_PARAMS)
         report["note"] = report["backtest"]["note"]
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
-    stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique (issue 11)
+    stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique
     version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
     trained = TrainedModel(
         metric=metric, version=version, features=params, quantiles=model, report=report, text=text
@@ -252,7 +252,7 @@ class Forecast(BaseModel):
     repeats: list[Repeat] = Field(
         default_factory=list, description="Near-repeats behind the warnings, most similar first"
     )
-    # Track record (issue 11): set by service.track.record.give.
+    # Track record: set by service.track.record.give.
     calibration: Calibration | None = None
     live_coverage: LiveCoverage | None = None
     note: str | None = Field(
@@ -368,7 +368,7 @@ class Forecaster:
         details = view.details(sorted({r for row in rows for r, _ in row[3]}))
         X = model.rows(
             np.vstack([r[0] for r in rows]), vecs, [view.account_codes[d.account] for d in drafts]
-        )  # issue 10: extra columns
+        )  # extra columns
         lo, med, hi = model.quantiles.predict(X, coverage=coverage)
         contribs = model.quantiles.contributions(X)
         repeats = near_repeats_many(

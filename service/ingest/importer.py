@@ -62,7 +62,7 @@ CANONICAL_COLUMNS: tuple[str, ...] = (
     *METRIC_COLUMNS,
     "has_media",
     RATE_COLUMN,
-    "draft_id",  # optional: the draft a post fulfils (service.track.record, issue 11)
+    "draft_id",  # optional: the draft a post fulfils (service.track.record)
 )
 REQUIRED_COLUMNS: tuple[str, ...] = ("post_id", "text", "posted_at")
 _TRUE = {"true", "1", "yes", "y", "t"}

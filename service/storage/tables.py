@@ -139,7 +139,7 @@ class ChangeStamp(Base):
     counter: Mapped[int] = mapped_column(BigInteger, nullable=False, default=0)
 
 
-# Track record (issue 11; service.track.record) --------------------------------
+# Track record (service.track.record) --------------------------------
 # Forecasts given, what they were matched to and how they scored, and the state
 # of the adaptive calibration. Portable types only (SQLite and PostgreSQL).
 # Deleting a post or an account cascades to its matches and forecasts.

@@ -234,7 +234,7 @@ def test_contributions_add_up_to_the_prediction(demo_workspace):
     for d, f in zip(drafts, out, strict=True):
         vec = demo_workspace.embedder.encode([d.text])[0]
         x = fc.features(view, model.features, d, vec, NOW)[0]
-        # issue 10: the served median is a blend; its parts (TreeSHAP of the
+        # the served median is a blend; its parts (TreeSHAP of the
         # boosted model times its weight, plus the linear candidates) add up
         # to it. Computed here from the model's own predict, not the answer.
         x = model.rows(x, vec.reshape(1, -1), [view.account_codes[d.account]])

@@ -1,4 +1,4 @@
-"""What a forecast asks of the store (issue 12: nothing on the request path
+"""What a forecast asks of the store (nothing on the request path
 that can be known in advance).
 
 A warm forecast reads the store's change counters once and writes its own

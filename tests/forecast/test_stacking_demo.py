@@ -1,4 +1,4 @@
-"""Issue 10 on the demo history: the served blend holds up against the
+"""On the demo history: the served blend holds up against the
 simple forecasters, and the hour-by-hour forecast has the documented hour
 curve at its full size (demo_data/effects.json, the generator's truth)."""
 

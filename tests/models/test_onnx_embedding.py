@@ -63,7 +63,7 @@ def test_onnx_vectors_match_sentence_transformers(onnx_embedder: Embedder, embed
     got = onnx_embedder.encode(texts)
     assert onnx_embedder.backend_ == "onnx"
     # Reference: sentence-transformers' own torch model (SentenceTransformer.encode),
-    # not our export. Issue 16: cosine >= 0.99999 for every text.
+    # not our export. cosine >= 0.99999 for every text.
     ref_model = embedder._load()
     assert type(ref_model).__name__ == "SentenceTransformer"
     want = ref_model.encode(

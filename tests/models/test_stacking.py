@@ -1,4 +1,4 @@
-"""The learnt pieces of the served forecast (issue 10), each against an
+"""The learnt pieces of the served forecast, each against an
 independent computation: the ridge text model against scikit-learn's Ridge,
 the blend weights against scipy's NNLS, the blend's CQR band against the
 split-conformal guarantee over many seeds, and the text column's time order

@@ -1,6 +1,6 @@
 """Matching published posts to the forecasts they fulfil (service.track.record).
 
-The rules come from issue 11 (explicit draft id first; else same account, text
+The rules (explicit draft id first; else same account, text
 similarity at or above the threshold and a posting time within the window;
 one post fulfils at most one forecast, the latest given before it was posted;
 a forecast given after the post never counts; idempotent; forget removes

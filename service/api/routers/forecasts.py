@@ -40,10 +40,10 @@ def _forecasts(body: ForecastRequest | ForecastBatchRequest, ws: Workspace) -> F
     if isinstance(body, ForecastBatchRequest):
         ws.forecaster.limits.check_batch(len(body.drafts))
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
-        # Track record hook (issue 11): adapted, staleness-checked and recorded.
+        # Track record hook: adapted, staleness-checked and recorded.
         found = give(ws, drafts, metric=body.metric, coverage=body.coverage, record=body.record, source="api")
         return Forecasts(forecasts=found)
-    # Track record hook (issue 11).
+    # Track record hook.
     found = give(
         ws,
         [to_draft(ws, body, "planned_at")],

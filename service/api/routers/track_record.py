@@ -1,4 +1,4 @@
-"""The track record: how the forecasts given turned out (issue 11)."""
+"""The track record: how the forecasts given turned out."""
 
 from __future__ import annotations
 

@@ -33,5 +33,5 @@ def train(body: TrainingRequest, ws: WorkspaceDep, _auth: WriteAccess) -> Traini
         else {
             k: bt.get(k)
             for k in ("model", "baselines", "n_test", "coverage_nominal", "candidates", "weights", "note")
-        },  # issue 10: candidates, combination, note
+        },  # candidates, combination, note
     )
