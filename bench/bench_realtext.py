@@ -41,7 +41,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from models.embedding import Embedder
 from models.evaluation import coverage, mae, spearman
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
-from service.forecast import forecaster as FC
+from service.forecast import training as FC
+from service.history.view import build_view, feature_params
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -89,11 +90,11 @@ def main() -> None:
         ws.import_csv(path)
         print(f"imported {n} rows in {time.perf_counter() - t0:.0f} s")
     now = datetime(2027, 1, 1, tzinfo=UTC)
-    params = FC.feature_params(ws.settings)
-    view = FC.build_view(ws.store, "impressions", with_vectors=True)
+    params = feature_params(ws.settings)
+    view = build_view(ws.store, "impressions", with_vectors=True)
     t1 = time.perf_counter()
     X, y, times = FC.training_set(view, params, now)
-    X, _ = FC._with_extra(view, params, now, X)
+    X, _ = FC.with_extra_columns(view, params, now, X, ws.settings)
     order = np.argsort(times, kind="stable")
     X, y, times = X[order], y[order], times[order]
     # Hold out the latest 15% in time. Posts of one month share one time and

@@ -57,7 +57,7 @@ class TrainedModel:
     metric: str
     version: str
     features: FeatureParams
-    quantiles: QuantileForecaster | StackedForecaster
+    forecaster: QuantileForecaster | StackedForecaster  # saved in quantiles/
     report: dict[str, Any] = field(default_factory=dict)
     text: RidgeText | None = None
 
@@ -65,7 +65,7 @@ class TrainedModel:
         """Draft rows as the forecaster reads them: the features of
         ``models.features.assemble`` plus, for a stacked forecaster, the text
         model's prediction and the account code (``stacking.draft_columns``)."""
-        if X.shape[1] >= self.quantiles.n_features_in_:
+        if X.shape[1] >= self.forecaster.n_features_in_:
             return X
         return np.hstack([X, draft_columns(self.text, vectors, accounts)])
 
@@ -75,7 +75,7 @@ class TrainedModel:
 
     def backtested_at(self, coverage: float) -> float | None:
         """Backtested coverage of the grid level that serves ``coverage``."""
-        level = self.quantiles.levels_[self.quantiles.level_for(coverage)]
+        level = self.forecaster.levels_[self.forecaster.level_for(coverage)]
         return self.backtested_coverage.get(f"{level:g}")
 
     def save(self, root: Path) -> Path:
@@ -89,7 +89,7 @@ class TrainedModel:
         try:
             if tmp.exists():
                 shutil.rmtree(tmp)
-            self.quantiles.save(tmp / "quantiles")
+            self.forecaster.save(tmp / "quantiles")
             if self.text is not None:
                 self.text.save(tmp / "text")
             (tmp / REPORT).write_text(json.dumps(self.report, indent=2, default=str))
@@ -130,7 +130,7 @@ class TrainedModel:
             metric=cfg["metric"],
             version=cfg["version"],
             features=features,
-            quantiles=load_forecaster(d / "quantiles"),
+            forecaster=load_forecaster(d / "quantiles"),
             report=report,
             text=RidgeText.load(d / "text") if (d / "text").is_dir() else None,
         )

@@ -106,6 +106,14 @@ class History:
         return rows[: int(np.searchsorted(times, t - params.maturity_s, side="right"))]
 
 
+_LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
+
+
+def has_link(text: str) -> bool:
+    """Whether a text carries a link (a URL with a scheme, or www.)."""
+    return bool(_LINK.search(text))
+
+
 def text_form(text: str, has_link: bool, has_media: bool) -> list[float]:
     return [
         float(len(text)),

@@ -20,10 +20,10 @@ from pathlib import Path
 
 from models.errors import CSVFormatError, InputError, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
-from service.clock import parse_time
-from service.forecast.forecaster import Draft, Forecast
+from service.checking import check_drafts
+from service.forecast.answer import Forecast
+from service.forecast.draft import Draft, make_draft
 from service.ingest.importer import _FALSE, _TRUE, check_encoding
-from service.track.record import give
 from service.workspace import Workspace
 
 PLAN_COLUMNS = ("draft_id", "account", "text", "planned_at")
@@ -77,28 +77,18 @@ def read_plan(ws: Workspace, path: Path) -> list[PlanRow]:
             draft_id = (rec.get("draft_id") or "").strip() or f"row-{n}"
             where = f"{path.name}, line {line}"
             try:
-                account = (rec.get("account") or "").strip()
-                tz = ws.store.account(account).timezone
                 text = ws.forecaster.limits.check_draft(rec.get("text") or "")
-                planned = (
-                    parse_time(rec["planned_at"], tz=tz, where=where)
-                    if (rec.get("planned_at") or "").strip()
-                    else None
-                )
                 media = _flag(rec.get("has_media"), column="has_media", where=where)
-                rows.append(
-                    PlanRow(
-                        line,
-                        draft_id,
-                        Draft(
-                            text=text,
-                            account=account,
-                            planned_at=planned,
-                            draft_id=draft_id,
-                            has_media=bool(media),
-                        ),
-                    )
+                draft = make_draft(
+                    ws,
+                    text=text,
+                    account=(rec.get("account") or "").strip(),
+                    planned_at=rec.get("planned_at"),
+                    draft_id=draft_id,
+                    has_media=bool(media),
+                    where=where,
                 )
+                rows.append(PlanRow(line, draft_id, draft))
             except SoundingError as exc:
                 rows.append(PlanRow(line, draft_id, None, exc.message))
     _refuse_duplicates(rows, path)
@@ -139,13 +129,15 @@ def forecast_plan(
     drafts = [d for d in (rows[i].draft for i in todo) if d is not None]
     try:
         # Adapted, staleness-checked and recorded in the track record.
-        found = give(ws, drafts, metric=metric, coverage=coverage, record=record, source="plan")
+        found = check_drafts(ws, drafts, metric=metric, coverage=coverage, record=record, source="plan")
         results.update(zip(todo, found, strict=True))
     except SoundingError:
         # One draft spoiled the batch: forecast them one by one to isolate it.
         for i, d in zip(todo, drafts, strict=True):
             try:
-                results[i] = give(ws, [d], metric=metric, coverage=coverage, record=record, source="plan")[0]
+                results[i] = check_drafts(
+                    ws, [d], metric=metric, coverage=coverage, record=record, source="plan"
+                )[0]
             except SoundingError as one:
                 problems[i] = one.message
     Path(dest).parent.mkdir(parents=True, exist_ok=True)

@@ -32,7 +32,7 @@ from service.ingest.importer import EmbedFn, ImportPreview, ImportSummary, Progr
 from service.settings import Settings
 from service.storage.locking import LOCK_FILE, WriteLock
 from service.storage.store import AccountInfo, Store
-from service.track.record import after_import
+from service.track.adaptation import after_import
 
 __all__ = ["Precedent", "Workspace"]
 

@@ -28,7 +28,7 @@ from support.pgsupport import (
 )
 
 from models.embedding import Embedder
-from service.forecast.forecaster import train
+from service.forecast.training import train
 from service.settings import Settings
 from service.workspace import Workspace
 

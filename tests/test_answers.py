@@ -24,14 +24,14 @@ from typer.testing import CliRunner
 import models
 import service
 from service.api.app import create_app
-from service.forecast.forecaster import Forecast, Forecasts
+from service.forecast.answer import Forecast, Forecasts
 from service.health import Health
 from service.history.precedents import Precedents
 from service.ingest.importer import ImportPreview, ImportSummary
 from service.review.hours import HoursReport
 from service.review.wordings import VariantsReport
 from service.storage.store import AccountInfo
-from service.track.record import TrackRecord
+from service.track.answers import TrackRecord
 from service.workspace import Workspace
 
 NOW = "2026-12-01T09:00:00+00:00"

@@ -22,7 +22,8 @@ from models.errors import NotReady
 from service.api.app import create_app
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
-from service.forecast.forecaster import Draft, train
+from service.forecast.draft import Draft
+from service.forecast.training import train
 from service.settings import Settings
 from service.workspace import Workspace
 

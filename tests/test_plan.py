@@ -15,7 +15,7 @@ from models.errors import CSVFormatError
 from service.api.app import create_app
 from service.cli import app
 from service.cli.base import use_embedder
-from service.forecast.forecaster import Draft
+from service.forecast.draft import Draft
 from service.plan import OUT_COLUMNS, forecast_plan
 
 ROOT = Path(__file__).resolve().parents[1]

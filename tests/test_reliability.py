@@ -37,8 +37,8 @@ from service.api.app import create_app
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.cli.history import check_bind
-from service.forecast import forecaster as forecasting
-from service.forecast.forecaster import Draft
+from service.forecast import training as forecasting
+from service.forecast.draft import Draft
 from service.ingest.importer import import_csv
 from service.settings import Settings
 from service.storage.locking import LOCK_FILE

@@ -10,7 +10,7 @@ from typer.testing import CliRunner
 
 from service.api.app import create_app
 from service.cli import app
-from service.forecast.forecaster import CAUTION
+from service.forecast.answer import CAUTION
 from service.settings import Settings
 from service.workspace import Workspace
 

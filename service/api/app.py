@@ -26,7 +26,7 @@ from service.api.routers import (
     training,
     variants,
 )
-from service.forecast.forecaster import CAUTION
+from service.forecast.answer import CAUTION
 from service.refresher import refreshing
 from service.settings import Settings, get_settings
 from service.workspace import Workspace

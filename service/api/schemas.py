@@ -19,7 +19,7 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segments import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES, DEFAULT_MIN_N
 from service.answers import Calibration, Coverage, LiveCoverage
 from service.clock import EARLIEST, as_utc, latest_time, range_text
-from service.forecast.forecaster import Contributions, Forecast, Forecasts, GroupEffect
+from service.forecast.answer import Contributions, Forecast, Forecasts, GroupEffect
 from service.health import EmbeddingState, Health, IndexState, SearchState
 from service.history.precedents import Precedent, Precedents, WeightedPrecedent
 from service.history.repeats import Repeat
@@ -29,7 +29,7 @@ from service.review.wordings import Variant, VariantsReport
 from service.segments.segmenting import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
 from service.segments.segmenting import SegmentResult as SegmentResult  # the answer, used as it is
 from service.storage.store import AccountInfo
-from service.track.record import TrackRecord
+from service.track.answers import TrackRecord
 
 # The answers re-exported from the modules that define them (the request models
 # below are public too; this list only keeps the re-exports explicit).

@@ -11,13 +11,15 @@ import typer
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
+from service.checking import check_drafts
 from service.cli.base import app, out, print_json, workspace
 from service.cli.render import Column, level_bar, print_table, typical_miss
-from service.clock import localize, now_utc, parse_time, zone
-from service.forecast import forecaster as forecasting
-from service.forecast.forecaster import CAUTION, Draft, Forecast
+from service.clock import localize, now_utc, zone
+from service.forecast import training as forecasting
+from service.forecast.answer import CAUTION, Forecast
+from service.forecast.draft import Draft, make_draft, planned_time
 from service.plan import forecast_plan
-from service.track.record import give, staleness
+from service.track.facts import staleness
 from service.workspace import Workspace
 
 METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
@@ -194,10 +196,8 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
 
 
 def planned(at: str | None, account: str) -> datetime | None:
-    if not at:
-        return None
-    tz = workspace().store.account(account).timezone
-    return parse_time(at, tz=tz, where="--at")
+    """``--at`` in the account's zone (service.forecast.draft)."""
+    return planned_time(workspace().store, account, at, where="--at")
 
 
 @app.command("check")
@@ -236,9 +236,9 @@ def check_cmd(
     if not account:
         raise InputError("say which account would post it with --account", field="--account")
     # Adapted, staleness-checked and recorded in the track record.
-    f = give(
+    f = check_drafts(
         ws,
-        [Draft(text=text, account=account, planned_at=planned(at, account), has_media=media)],
+        [make_draft(ws.store, text=text, account=account, planned_at=at, has_media=media, where="--at")],
         metric=metric,
         coverage=coverage,
         record=not no_record,

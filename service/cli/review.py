@@ -9,7 +9,7 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from service.cli.base import app, out, print_json, workspace
 from service.cli.forecast import COVERAGE_HELP, METRIC_HELP, planned
 from service.cli.render import Column, interval_bar, print_table
-from service.forecast.forecaster import CAUTION
+from service.forecast.answer import CAUTION
 from service.review.hours import HoursReport, best_hours, parse_day
 from service.review.wordings import VariantsReport, compare_variants
 

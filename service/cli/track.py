@@ -11,7 +11,9 @@ from models.metrics import DEFAULT_METRIC
 from models.track_plots import FORMATS, track_record_figure
 from service.cli.base import app, out, print_json, workspace
 from service.cli.render import Column, print_table, typical_miss
-from service.track.record import PeriodSummary, TrackRecord, parse_since, report, reset_adaptation
+from service.track.adaptation import reset_adaptation
+from service.track.answers import PeriodSummary, TrackRecord
+from service.track.report import parse_since, report
 
 
 def _pct(v: float | None) -> str:

@@ -2,7 +2,8 @@
 
     store -> history view (service.history.view) -> neighbours (service.history.retrieval)
     -> features (models.features) -> StackedForecaster: candidates blended in
-    time order + CQR on the blend (models.stacking) -> interval, precedents,
+    time order + CQR on the blend (models.stacking) -> interval, adapted by the
+    track record's calibration (service.forecast.calibration), precedents,
     near-repeats (service.history.repeats) and grouped contributions (models.explain)
 
 Training and forecasting take neighbours by the same rule and call the same
@@ -14,260 +15,28 @@ from __future__ import annotations
 
 import threading
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
 import numpy as np
-from pydantic import BaseModel, Field
 
 from models import features as F
 from models.artefact import TrainedModel, newest
-from models.backtest import run_backtest
 from models.errors import NotReady
 from models.explain import describe, group_contributions
-from models.metrics import (
-    DEFAULT_COVERAGE,
-    DEFAULT_METRIC,
-    Metric,
-    check_coverage,
-    check_target,
-    from_log,
-)
-from models.stacking import ALL_FEATURES, ALL_GROUPS, STACK_PARAMS, StackedForecaster, extra_columns
-from service.answers import Calibration, Coverage, Instant, LiveCoverage
-from service.clock import now_utc, wall_clock, zone
-from service.datadir import DataDir
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_coverage, check_target
+from models.stacking import ALL_GROUPS
+from service.clock import now_utc, zone
+from service.forecast.answer import Contributions, Forecast, GroupEffect, from_model_scale
+from service.forecast.calibration import CalibrationSource, adapted_band
+from service.forecast.draft import Draft
 from service.history.precedents import WeightedPrecedent, precedents_for
-from service.history.repeats import Repeat, near_repeats_many
+from service.history.repeats import near_repeats_many
 from service.history.retrieval import Retriever, WideCache
-from service.history.view import HistoryView, build_view, feature_params, local_clock
+from service.history.view import HistoryView, build_view
 from service.limits import Limits
 from service.settings import Settings
-from service.storage.store import Store, has_link
-
-__all__ = [
-    "CAUTION",
-    "Contributions",
-    "Draft",
-    "Forecast",
-    "Forecaster",
-    "Forecasts",
-    "GroupEffect",
-    "HistoryView",
-    "backtest",
-    "build_view",
-    "feature_params",
-    "local_clock",
-    "train",
-    "training_set",
-]
-
-CAUTION = (
-    "An estimate from this team's own history, not a certainty: the interval "
-    "is calibrated to the stated coverage, and the backtest says how often "
-    "such intervals held on past posts."
-)
-
-
-def training_rows(
-    view: HistoryView, params: F.FeatureParams, now: datetime, *, max_posts: int | None = None
-) -> np.ndarray:
-    """Rows of the view that train: every post settled by ``now`` (only the
-    ``max_posts`` most recent of them when set)."""
-    keep = np.flatnonzero(F.eligible(view.history, now.timestamp(), params))
-    return keep if max_posts is None else keep[-max_posts:]  # the view is sorted by time
-
-
-def training_set(
-    view: HistoryView,
-    params: F.FeatureParams,
-    now: datetime,
-    *,
-    max_posts: int | None = None,
-    approximate_above: int | None = None,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Leak-free features, targets and times of every post settled by ``now``
-    (only the ``max_posts`` most recent of them when set; their neighbours
-    still come from the whole history)."""
-    keep = training_rows(view, params, now, max_posts=max_posts)
-    X = Retriever.training_matrix(view, params, rows=keep, approximate_above=approximate_above)
-    return X, view.history.log_target[keep], view.history.time[keep]
-
-
-def scale_options(settings: Settings) -> dict[str, Any]:
-    """The training-set options of the scale settings (SOUNDING_TRAIN_*)."""
-    return {"max_posts": settings.train_max_posts, "approximate_above": settings.train_approximate_above}
-
-
-MIN_TRAINING_POSTS = 200
-
-
-def train(
-    ws: DataDir,
-    metric: str = DEFAULT_METRIC,
-    *,
-    now: datetime | None = None,
-    backtest: bool = True,
-    cal_fraction: float = 0.2,
-) -> TrainedModel:
-    """Train, backtest and save a new model version for ``metric``, as the
-    data directory's one writer (service.storage.locking)."""
-    check_target(metric)
-    with ws.writing("a training run"):
-        return _train(ws, metric, now=now, backtest=backtest, cal_fraction=cal_fraction)
-
-
-def _train(
-    ws: Any, metric: str, *, now: datetime | None, backtest: bool, cal_fraction: float
-) -> TrainedModel:
-    now = now or now_utc()
-    params = feature_params(ws.settings)
-    view = build_view(ws.store, metric, with_vectors=True)
-    X, y, times = training_set(view, params, now, **scale_options(ws.settings))
-    if len(y) < MIN_TRAINING_POSTS:
-        raise NotReady(
-            f"{len(y)} mature posts with {metric}; training needs at least {MIN_TRAINING_POSTS}",
-            hint="import more history",
-        )
-    # The text model's time-ordered column and the account code (models.stacking).
-    X, text = _with_extra(view, params, now, X, ws.settings)
-    order = np.argsort(times, kind="stable")
-    X, y, times = X[order], y[order], times[order]
-    # The calibration block comes after the training block in time.
-    cut = round(len(y) * (1 - cal_fraction))
-    model = StackedForecaster(**STACK_PARAMS).fit(
-        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:]
-    )
-    report: dict[str, Any] = {
-        "metric": metric,
-        "trained_at": now_utc().isoformat(),
-        "data_as_of": now.isoformat(),
-        "n_posts": len(y),
-        "n_train": int(cut),
-        "n_calibration": int(len(y) - cut),
-        "train_until": datetime.fromtimestamp(times[cut - 1], tz=now.tzinfo).isoformat(),
-        "calibration_from": datetime.fromtimestamp(times[cut], tz=now.tzinfo).isoformat(),
-        "features": {
-            "k": params.k,
-            "maturity_hours": params.maturity_s / 3600,
-            "similar_threshold": params.similar_threshold,
-            "baseline_posts": params.baseline_n,
-        },
-        # Which vectors the features came from (int8 ONNX vectors differ from fp32 ones).
-        "embedding": {k: v for k, v in ws.embedder.info().items() if k != "loaded"},
-        "combination": model.summary(),
-        "text_model": None if text is None else {"penalty": text.alpha_},
-    }
-    if backtest:
-        report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES, params=STACK_PARAMS)
-        report["note"] = report["backtest"]["note"]
-    # Versions sort by the wall clock of training, whatever "now" the data was seen at.
-    stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique
-    version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
-    trained = TrainedModel(
-        metric=metric, version=version, features=params, quantiles=model, report=report, text=text
-    )
-    trained.save(ws.settings.models_dir)
-    return trained
-
-
-def backtest(
-    ws: DataDir,
-    metric: str = DEFAULT_METRIC,
-    *,
-    coverage: float = DEFAULT_COVERAGE,
-    n_folds: int = 4,
-    now: datetime | None = None,
-) -> dict[str, Any]:
-    check_target(metric)
-    params = feature_params(ws.settings)
-    view = build_view(ws.store, metric, with_vectors=True)
-    now = now or now_utc()
-    X, y, times = training_set(view, params, now, **scale_options(ws.settings))
-    if len(y) < MIN_TRAINING_POSTS:
-        raise NotReady(f"{len(y)} mature posts with {metric}; a backtest needs {MIN_TRAINING_POSTS}")
-    X, _ = _with_extra(view, params, now, X, ws.settings)
-    return run_backtest(
-        X, y, times, feature_names=ALL_FEATURES, coverage_level=coverage, n_folds=n_folds, params=STACK_PARAMS
-    )
-
-
-def _with_extra(
-    view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray, settings: Settings
-) -> tuple[np.ndarray, Any]:
-    """``X`` (rows of ``training_set``) with models.stacking's extra columns."""
-    extra, text = extra_columns(view.history, maturity_s=params.maturity_s, now=now.timestamp())
-    keep = training_rows(view, params, now, max_posts=settings.train_max_posts)
-    return np.hstack([X, extra[keep]]), text
-
-
-@dataclass(slots=True)
-class Draft:
-    text: str
-    account: str
-    planned_at: datetime | None = None  # aware; None means now
-    draft_id: str | None = None
-    has_media: bool = False  # an image or video attached, as the has_media column of posts
-
-
-class GroupEffect(BaseModel):
-    """One group of features' share of a forecast (models.explain)."""
-
-    group: str
-    log_contribution: float
-    factor: float = Field(description="Multiplicative effect on (1 + metric)")
-    summary: str
-
-
-class Contributions(BaseModel):
-    """What moved a forecast away from the model's expected value, by group."""
-
-    scale: str = "log1p; factors multiply (1 + metric)"
-    expected_log: float
-    predicted_log: float
-    groups: list[GroupEffect]
-
-
-class Forecast(BaseModel):
-    """A draft's forecast: an interval with its stated and backtested coverage."""
-
-    draft_id: str | None = None
-    metric: Metric
-    account: str
-    planned_at: Instant
-    local_time: str = Field(description="The planned time in the account's zone, with its offset")
-    low: float
-    median: float
-    high: float
-    coverage: Coverage = Field(description="Nominal coverage of [low, high]")
-    backtested_coverage: float | None = Field(
-        description="How often intervals of this level held in time-ordered backtests"
-    )
-    model_version: str
-    precedents: list[WeightedPrecedent]
-    contributions: Contributions
-    warnings: list[str] = Field(default_factory=list)
-    caution: str = CAUTION
-    repeats: list[Repeat] = Field(
-        default_factory=list, description="Near-repeats behind the warnings, most similar first"
-    )
-    # Track record: set by service.track.record.give.
-    calibration: Calibration | None = None
-    live_coverage: LiveCoverage | None = None
-    note: str | None = Field(
-        default=None,
-        description="One plain line from the backtest when the history's text "
-        "carries little signal (what the forecast leans on instead)",
-    )
-    #: low, median and high on the model's log1p scale (kept for ranking and adaptation).
-    log: tuple[float, float, float] = Field(default=(0.0, 0.0, 0.0), exclude=True)
-
-
-class Forecasts(BaseModel):
-    """Forecasts of several drafts, in the order given."""
-
-    forecasts: list[Forecast]
+from service.storage.store import Store
 
 
 class Forecaster:
@@ -337,12 +106,13 @@ class Forecaster:
         coverage: float = DEFAULT_COVERAGE,
         now: datetime | None = None,
         vectors: np.ndarray | None = None,
-        model: TrainedModel | None = None,
+        calibration: CalibrationSource | None = None,
     ) -> list[Forecast]:
-        """Forecast each draft; ``vectors`` may pass embeddings already made,
-        ``model`` the model already looked up for this answer."""
+        """Forecast each draft, whole: ``vectors`` may pass embeddings already
+        made; with ``calibration`` (the track record), each band is adapted to
+        the outcomes scored so far and carries the live coverage and warnings."""
         check_coverage(coverage)
-        model = model or self.model(metric)
+        model = self.model(metric)
         view = self.view(metric)
         now = now or now_utc()
         least = self.settings.min_history_posts
@@ -369,8 +139,8 @@ class Forecaster:
         X = model.rows(
             np.vstack([r[0] for r in rows]), vecs, [view.account_codes[d.account] for d in drafts]
         )  # extra columns
-        lo, med, hi = model.quantiles.predict(X, coverage=coverage)
-        contribs = model.quantiles.contributions(X)
+        lo, med, hi = model.forecaster.predict(X, coverage=coverage)
+        contribs = model.forecaster.contributions(X)
         repeats = near_repeats_many(
             self.retrieval,
             self.settings,
@@ -379,10 +149,15 @@ class Forecaster:
             now=now,
             wide=wide,
         )
+        facts = None if calibration is None else calibration.facts(model)
         out = []
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = rows[i]
-            expected, groups = group_contributions(contribs[i], model.quantiles.feature_names_, ALL_GROUPS)
+            band = (float(lo[i]), float(med[i]), float(hi[i]))
+            info = None
+            if facts is not None:
+                band, info = adapted_band(band, model, coverage, facts.state)
+            expected, groups = group_contributions(contribs[i], model.forecaster.feature_names_, ALL_GROUPS)
             local = plans[i].astimezone(zone(tz))
             out.append(
                 Forecast(
@@ -390,9 +165,9 @@ class Forecaster:
                     account=d.account,
                     planned_at=plans[i],
                     local_time=local.isoformat(timespec="minutes"),
-                    low=_back(lo[i], metric),
-                    median=_back(med[i], metric),
-                    high=_back(hi[i], metric),
+                    low=from_model_scale(band[0], metric),
+                    median=from_model_scale(band[1], metric),
+                    high=from_model_scale(band[2], metric),
                     coverage=coverage,
                     backtested_coverage=model.backtested_at(coverage),
                     model_version=model.version,
@@ -411,9 +186,11 @@ class Forecaster:
                         ],
                     ),
                     draft_id=d.draft_id,
-                    log=(float(lo[i]), float(med[i]), float(hi[i])),
+                    log=band,
                     # Near-repeats of recent posts (own account and teammates), in every forecast.
-                    warnings=[r.message for r in repeats[i]],
+                    warnings=[r.message for r in repeats[i]] + (facts.warnings if facts else []),
+                    calibration=info,
+                    live_coverage=None if facts is None else facts.live.model_copy(),
                     repeats=repeats[i],
                     note=model.report.get("note"),
                 )
@@ -440,7 +217,7 @@ class Forecaster:
         hood = self.retrieval.neighbourhood(view, vec, t=t, account=code, params=params, cache=wide)
         tz = view.zones[code]
         local = planned.astimezone(zone(tz))
-        form = F.text_form(d.text, has_link(d.text), d.has_media)
+        form = F.text_form(d.text, F.has_link(d.text), d.has_media)
         x, weights = F.assemble(
             h,
             hood,
@@ -489,9 +266,3 @@ class Forecaster:
                 continue
             out.append(WeightedPrecedent(**dict(p), weight=weights.get(row, 0.0)))
         return out
-
-
-def _back(value: float, metric: str) -> float:
-    v = float(from_log(value))
-    v = max(v, 0.0)
-    return round(v, 5) if metric == Metric.ENGAGEMENT_RATE else round(v, 1)

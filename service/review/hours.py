@@ -16,7 +16,9 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from models.stacking import best_hour_confidence
 from service.answers import Coverage, Instant, Round3
 from service.clock import UTC, now_utc, zone
-from service.forecast.forecaster import CAUTION, Draft, Forecaster
+from service.forecast.answer import CAUTION
+from service.forecast.draft import Draft
+from service.forecast.forecaster import Forecaster
 from service.review.overlap import RULE, ranks, tied_with_best
 
 WEEK_DAYS = 7
@@ -194,7 +196,7 @@ def best_hours(
         told_apart=told_apart,
         fraction_tied_with_best=share,
         best_stays_best=best_hour_confidence(
-            forecaster.model(metric).quantiles,
+            forecaster.model(metric).forecaster,
             local_hours=[s.local.hour + s.local.minute / 60 for s in slots],
             weekdays=[s.local.weekday() for s in slots],
             account=forecaster.view(metric).account_codes[account],

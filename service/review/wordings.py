@@ -14,7 +14,9 @@ from models.errors import InputError, LimitExceeded, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from service.answers import Coverage, Instant
 from service.clock import now_utc
-from service.forecast.forecaster import CAUTION, Draft, Forecaster
+from service.forecast.answer import CAUTION
+from service.forecast.draft import Draft
+from service.forecast.forecaster import Forecaster
 from service.review.overlap import RULE, ranks, tied_with_best
 
 MAX_VARIANTS = 10

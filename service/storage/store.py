@@ -9,13 +9,13 @@ go on while an import writes.
 from __future__ import annotations
 
 import os
-import re
 import sqlite3
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from contextvars import ContextVar
 from dataclasses import dataclass, field
 from datetime import datetime
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -27,6 +27,7 @@ from sqlalchemy.engine import Engine, make_url
 from sqlalchemy.exc import IntegrityError, OperationalError, SQLAlchemyError
 from sqlalchemy.orm import ORMExecuteState, Session, sessionmaker
 
+from models import features as F
 from models.errors import InputError, NotFound, StoreError
 from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
@@ -43,13 +44,7 @@ from service.storage.tables import (
     Snapshot,
     Vector,
 )
-
-_LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
-
-
-def has_link(text: str) -> bool:
-    """Whether a text carries a link (a URL with a scheme, or www.)."""
-    return bool(_LINK.search(text))
+from service.storage.track_tables import TrackTables
 
 
 class AccountInfo(BaseModel):
@@ -183,6 +178,11 @@ class Store:
             return make_url(self.url).render_as_string(hide_password=True)
         except SQLAlchemyError:
             return "the configured database"
+
+    @cached_property
+    def track(self) -> TrackTables:
+        """The track record's tables (service.storage.track_tables), with their caches."""
+        return TrackTables(self)
 
     @property
     def backend(self) -> str:
@@ -459,7 +459,7 @@ class Store:
                         text=r.text,
                         vector_key=r.vector_key,
                         posted_at=posted,
-                        has_link=has_link(r.text),
+                        has_link=F.has_link(r.text),
                         has_media=bool(r.has_media),
                         imported_at=now,
                         updated_at=now,
@@ -474,7 +474,7 @@ class Store:
                 changed = False
                 if post.text != r.text or post.vector_key != r.vector_key:
                     post.text, post.vector_key = r.text, r.vector_key
-                    post.has_link = has_link(r.text)
+                    post.has_link = F.has_link(r.text)
                     if post.id is not None:  # a post new in this batch is listed below
                         res.changed_pks.append(post.id)
                     changed = True

@@ -19,7 +19,9 @@ from models.artefact import TrainedModel, newest, versions
 from models.errors import InputError, NotFound, NotReady
 from service.api.app import create_app
 from service.clock import localize
-from service.forecast.forecaster import Draft, build_view, feature_params, train
+from service.forecast.draft import Draft
+from service.forecast.training import train
+from service.history.view import build_view, feature_params
 
 # These tests run on SQLite, then again on PostgreSQL when a server is set.
 pytestmark = pytest.mark.both_backends
@@ -238,7 +240,7 @@ def test_contributions_add_up_to_the_prediction(demo_workspace):
         # boosted model times its weight, plus the linear candidates) add up
         # to it. Computed here from the model's own predict, not the answer.
         x = model.rows(x, vec.reshape(1, -1), [view.account_codes[d.account]])
-        raw = model.quantiles.predict(x)[1][0]
+        raw = model.forecaster.predict(x)[1][0]
         total = f.contributions.expected_log + sum(g.log_contribution for g in f.contributions.groups)
         assert total == pytest.approx(raw, abs=1e-6)
         assert [g.group for g in f.contributions.groups] == list(F.GROUPS)

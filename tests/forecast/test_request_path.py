@@ -21,9 +21,10 @@ from sqlalchemy import event
 
 from models import features as F
 from service.api.app import create_app
-from service.forecast.forecaster import Draft
+from service.checking import check_drafts
+from service.forecast.draft import Draft
 from service.storage.store import Store
-from service.track import record as track_record
+from service.track import adaptation
 from service.workspace import Workspace
 
 BODY = {"text": "Guided walk through the winter glasshouse", "account": "loomhaven"}
@@ -71,10 +72,10 @@ def test_recording_moves_no_counter_and_scoring_moves_only_its_own(
     before = ws.store.stamps()
     view, index = ws.forecaster.view("impressions"), ws.index()
     draft = Draft(text=BODY["text"], account="loomhaven")
-    got = track_record.give(ws, [draft], now=NOW)
+    got = check_drafts(ws, [draft], now=NOW)
     assert got and ws.store.stamps() == before  # a forecast was written, no counter moved
     assert ws.forecaster.view("impressions") is view and ws.index() is index
-    track_record.reset_adaptation(ws)  # a write to the scoring tables
+    adaptation.reset_adaptation(ws)  # a write to the scoring tables
     assert ws.store.stamps() == (before[0], before[1] + 1)
     assert ws.forecaster.view("impressions") is view  # the history did not change
     csv = tmp_path / "one.csv"

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy.stats import spearmanr
 
-from service.forecast.forecaster import Draft
+from service.forecast.draft import Draft
 from service.review.hours import best_hours, day_slots
 
 ROOT = Path(__file__).resolve().parents[2]

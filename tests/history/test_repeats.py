@@ -16,7 +16,7 @@ from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
 from service.api.app import create_app
-from service.forecast.forecaster import Draft
+from service.forecast.draft import Draft
 from service.history.repeats import near_repeats_many
 from service.plan import forecast_plan
 from service.settings import Settings

@@ -10,7 +10,7 @@ import numpy as np
 from conftest import NOW
 
 from models.features import FEATURE_NAMES
-from service.forecast.forecaster import Draft
+from service.forecast.draft import Draft
 from service.history.retrieval import Retriever
 from service.history.view import build_view, feature_params
 

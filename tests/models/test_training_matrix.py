@@ -15,7 +15,7 @@ import pytest
 from sklearn.neighbors import NearestNeighbors
 
 from models import features as F
-from service.forecast.forecaster import build_view, feature_params
+from service.history.view import build_view, feature_params
 
 
 @pytest.fixture(scope="module")

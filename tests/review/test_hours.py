@@ -16,7 +16,7 @@ from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
 from service.api.app import create_app
-from service.forecast.forecaster import CAUTION
+from service.forecast.answer import CAUTION
 from service.review.hours import Slot, best_hours, day_slots, hours_summary
 from service.review.overlap import heavy_overlap, tied_with_best
 

@@ -11,7 +11,7 @@ from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
 from service.api.app import create_app
-from service.forecast.forecaster import CAUTION
+from service.forecast.answer import CAUTION
 
 ROOT = Path(__file__).resolve().parents[2]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text(encoding="utf-8"))

@@ -27,7 +27,7 @@ from typer.testing import CliRunner
 from models.embedding import Embedder
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
-from service.forecast.forecaster import Draft
+from service.forecast.draft import Draft
 from service.segments.segmenting import SegmentRequest, segment
 from service.settings import Settings
 from service.workspace import Workspace

@@ -16,8 +16,9 @@ from sqlalchemy import select
 
 from models.embedding import Embedder
 from models.errors import InputError, NotFound, StoreError
+from models.features import has_link
 from models.metrics import METRIC_COLUMNS
-from service.storage.store import PostRow, Store, has_link
+from service.storage.store import PostRow, Store
 from service.storage.tables import Snapshot
 from service.workspace import Workspace
 

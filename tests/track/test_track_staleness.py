@@ -23,9 +23,9 @@ from models.errors import TimeParseError
 from service.cli import app
 from service.cli.base import use_embedder
 from service.clock import UTC, now_utc, to_naive_utc
-from service.forecast.forecaster import train
+from service.forecast.training import train
 from service.storage.tables import Account, CalibrationState, ForecastGiven, ForecastMatch, Post
-from service.track import record as track_record
+from service.track import adaptation, facts
 from service.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -70,12 +70,12 @@ def test_old_model_warns_pseudo_outcomes_adapt_and_train_if_stale(
     )
     assert fresh >= ws.settings.stale_after_posts  # the demo has enough for the warning
 
-    why = track_record.staleness(ws, "impressions")
+    why = facts.staleness(ws, "impressions")
     assert why["stale"] and why["newly_settled"] == fresh
     assert any(f"{fresh} posts have settled" in w for w in why["warnings"])
 
     # Pseudo-outcomes: every newly settled post, forecast as it would have been.
-    track_record.adapt(ws, "impressions")
+    adaptation.adapt(ws, "impressions")
     with ws.store.session() as s:
         state = s.get(CalibrationState, ("impressions", "0.8"))
         alpha_t, n = state.alpha_t, state.pseudo_updates
@@ -172,7 +172,7 @@ def test_live_coverage_outside_its_binomial_band_warns(
                     adapted=True,
                 )
             )
-    why = track_record.staleness(
+    why = facts.staleness(
         workspace,
         "impressions",
         0.8,

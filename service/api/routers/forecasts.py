@@ -6,19 +6,22 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS, json_answer
 from service.api.schemas import DraftIn, Forecast, ForecastBatchRequest, ForecastRequest, Forecasts
-from service.clock import parse_time
-from service.forecast.forecaster import Draft
-from service.track.record import give
+from service.checking import check_drafts
+from service.forecast.draft import Draft, make_draft
 from service.workspace import Workspace
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
 
 
 def to_draft(ws: Workspace, d: DraftIn, where: str) -> Draft:
-    tz = ws.account(d.account).timezone  # cached behind the store's stamp
-    planned = parse_time(d.planned_at, tz=tz, where=where) if d.planned_at else None
-    return Draft(
-        text=d.text, account=d.account, planned_at=planned, draft_id=d.draft_id, has_media=d.has_media
+    return make_draft(
+        ws,  # the workspace's account facts are cached behind the store's stamp
+        text=d.text,
+        account=d.account,
+        planned_at=d.planned_at,
+        draft_id=d.draft_id,
+        has_media=d.has_media,
+        where=where,
     )
 
 
@@ -40,16 +43,9 @@ def _forecasts(body: ForecastRequest | ForecastBatchRequest, ws: Workspace) -> F
     if isinstance(body, ForecastBatchRequest):
         ws.forecaster.limits.check_batch(len(body.drafts))
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
-        # Track record hook: adapted, staleness-checked and recorded.
-        found = give(ws, drafts, metric=body.metric, coverage=body.coverage, record=body.record, source="api")
-        return Forecasts(forecasts=found)
-    # Track record hook.
-    found = give(
-        ws,
-        [to_draft(ws, body, "planned_at")],
-        metric=body.metric,
-        coverage=body.coverage,
-        record=body.record,
-        source="api",
+    else:
+        drafts = [to_draft(ws, body, "planned_at")]
+    found = check_drafts(
+        ws, drafts, metric=body.metric, coverage=body.coverage, record=body.record, source="api"
     )
-    return found[0]
+    return Forecasts(forecasts=found) if isinstance(body, ForecastBatchRequest) else found[0]

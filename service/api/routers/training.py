@@ -6,7 +6,7 @@ from models.errors import AuthError, InputError, NotReady, StoreError
 from service.api.deps import WorkspaceDep, WriteAccess
 from service.api.responses import ERRORS
 from service.api.schemas import TrainingOut, TrainingRequest
-from service.forecast import forecaster as forecasting
+from service.forecast import training as forecasting
 
 router = APIRouter(prefix="/v1", tags=["training"])
 

@@ -6,7 +6,7 @@ from models.errors import InputError, LimitExceeded, NotFound, NotReady
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
 from service.api.schemas import VariantsReport, VariantsRequest
-from service.clock import parse_time
+from service.forecast.draft import planned_time
 from service.review.wordings import compare_variants
 
 router = APIRouter(prefix="/v1", tags=["variants"])
@@ -22,8 +22,7 @@ router = APIRouter(prefix="/v1", tags=["variants"])
     "reported as not told apart. Estimates from this team's history, not certainties.",
 )
 def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsReport:
-    tz = ws.store.account(body.account).timezone
-    planned = parse_time(body.planned_at, tz=tz, where="planned_at") if body.planned_at else None
+    planned = planned_time(ws, body.account, body.planned_at, where="planned_at")
     return compare_variants(
         ws.forecaster,
         body.texts,
