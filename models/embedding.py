@@ -20,6 +20,7 @@ from typing import Any
 
 import numpy as np
 
+from models.configfile import write_config
 from models.errors import InputError, StoreError
 
 # Set before sentence-transformers / transformers are imported anywhere:
@@ -263,7 +264,7 @@ class Embedder:
             "export_dir": str(self.export_dir) if self.export_dir else None,
             "threads": self.threads,
         }
-        (d / CONFIG_NAME).write_text(json.dumps(cfg, indent=2))
+        write_config(d, cfg, CONFIG_NAME)
 
     @classmethod
     def load(cls, directory: str | Path) -> Embedder:

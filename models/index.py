@@ -36,6 +36,7 @@ from typing import Any, cast
 import faiss
 import numpy as np
 
+from models.configfile import write_config
 from models.errors import InputError, NotFittedError, StoreError
 
 INDEX_FILE = "index.faiss"
@@ -417,9 +418,7 @@ class VectorIndex:
         tmp = d / (INDEX_FILE + ".tmp")
         faiss.write_index(index, str(tmp))
         os.replace(tmp, d / INDEX_FILE)
-        tmpc = d / (CONFIG_FILE + ".tmp")
-        tmpc.write_text(json.dumps(self.config(), indent=2))
-        os.replace(tmpc, d / CONFIG_FILE)
+        write_config(d, self.config(), CONFIG_FILE)
 
     @staticmethod
     def saved_config(directory: str | Path) -> dict[str, Any] | None:

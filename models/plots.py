@@ -1,22 +1,14 @@
 """Figures of a segment split, rendered off-screen to PNG or SVG bytes.
 
-The figure is built with the object-oriented ``Figure`` API rather than
-pyplot, so no figure is ever registered with pyplot's global manager: each
-one is freed when it goes out of scope, nothing leaks between requests and
-no window can open. The Agg backend is still selected for any code that
-does import pyplot in the same process.
+Style and rendering as every figure (models.figure_style).
 """
 
 from __future__ import annotations
 
-import io
 from collections.abc import Hashable, Mapping, Sequence
 from pathlib import Path
 
 import matplotlib
-
-matplotlib.use("Agg")
-
 import numpy as np
 import numpy.typing as npt
 from matplotlib.axes import Axes
@@ -24,46 +16,22 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, LogLocator
 
 from models.errors import InputError
+from models.figure_style import (
+    DPI,
+    FORMATS,
+    GRID,
+    INK,
+    MUTED,
+    PALETTE,
+    STYLE,
+    WIDTH_IN,
+    check_format,
+    figure_bytes,
+    plain_number,
+)
 from models.segments import SegmentReport, SegmentStats
 
-#: Our palette: calm, distinguishable, and still readable in greyscale.
-PALETTE: tuple[str, ...] = (
-    "#1f6f78",  # deep teal
-    "#d08c2c",  # amber
-    "#4a5a6a",  # slate
-    "#8a4f7d",  # plum
-    "#6b8e3d",  # moss
-    "#3f6fa6",  # steel blue
-    "#b5523b",  # brick
-    "#9c8a5a",  # sand
-)
-MUTED = "#a9b0b7"  # too-small segments: present but visibly not to be trusted
-INK = "#2b3440"  # text and axes
-GRID = "#e6e9ec"
 _SMALL_DASHES: list[tuple[float, ...]] = [(3, 2), (1, 1.5), (6, 2, 1, 2), (4, 4)]
-
-DPI = 110
-WIDTH_IN = 11.0
-FORMATS = ("png", "svg")
-
-_STYLE = {
-    "font.size": 10,
-    "axes.titlesize": 11,
-    "axes.labelsize": 10,
-    "xtick.labelsize": 9,
-    "ytick.labelsize": 9.5,
-    "legend.fontsize": 9,
-    "axes.edgecolor": INK,
-    "axes.labelcolor": INK,
-    "xtick.color": INK,
-    "ytick.color": INK,
-    "text.color": INK,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-    # Keep SVG text as text, so names stay searchable and selectable.
-    "svg.fonttype": "none",
-    "svg.hashsalt": "sounding",  # stable element ids across renders
-}
 
 
 def figure_size(n_segments: int) -> tuple[float, float]:
@@ -97,21 +65,11 @@ def _floor(values: np.ndarray) -> float:
     return float(min(1.0, positive.min()))
 
 
-def _plain_number(x: float, _pos: int | None = None) -> str:
-    """Tick labels people read without thinking: 1k, 25k, 1.2M, 0.03."""
-    if x <= 0:
-        return "0"
-    for div, suffix in ((1e9, "B"), (1e6, "M"), (1e3, "k")):
-        if x >= div:
-            return f"{x / div:.3g}{suffix}"
-    return f"{x:.3g}"
-
-
 def _log_axis(ax: Axes) -> None:
     ax.set_xscale("log")
     # 1-2-5 ticks: a narrow range of medians still gets several labels.
     ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
-    ax.xaxis.set_major_formatter(FuncFormatter(_plain_number))
+    ax.xaxis.set_major_formatter(FuncFormatter(plain_number))
     ax.xaxis.set_minor_formatter(FuncFormatter(lambda *_: ""))
     ax.grid(True, axis="x", which="major", color=GRID, linewidth=0.8)
     ax.set_axisbelow(True)
@@ -149,9 +107,7 @@ def _ecdf_panel(
     _log_axis(ax)
     ax.set_ylim(0, 1.02)
     ax.set_ylabel("fraction of posts at or below")
-    ax.set_xlabel(
-        f"{metric} (log scale; values below {_plain_number(floor)} drawn at {_plain_number(floor)})"
-    )
+    ax.set_xlabel(f"{metric} (log scale; values below {plain_number(floor)} drawn at {plain_number(floor)})")
     ax.set_title("How each segment is spread", loc="left")
     ax.grid(True, axis="y", color=GRID, linewidth=0.8)
     # ECDFs climb from lower left to upper right, so the upper left corner
@@ -196,7 +152,7 @@ def _interval_panel(
     overall = max(report.overall_median, floor)
     ax.axvline(overall, color=INK, linestyle=(0, (4, 3)), linewidth=1, alpha=0.7, zorder=1)
     ax.annotate(
-        f"all posts: {_plain_number(overall)}",
+        f"all posts: {plain_number(overall)}",
         xy=(overall, 1.0),
         xycoords=("data", "axes fraction"),
         xytext=(4, -2),
@@ -235,9 +191,7 @@ def plot_segments(
 
     Returns the PNG or SVG bytes and also writes them to ``path`` if given.
     """
-    fmt = fmt.lower()
-    if fmt not in FORMATS:
-        raise InputError(f"format must be one of {', '.join(FORMATS)}", field="fmt", value=fmt)
+    fmt = check_format(fmt)
     arr = np.asarray(values, dtype=float)
     if arr.ndim != 1 or arr.size != report.n_total:
         raise InputError("values do not match the report they are drawn with", field="values")
@@ -256,7 +210,7 @@ def plot_segments(
     floor = _floor(arr)
 
     # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
-    with matplotlib.rc_context(_STYLE):  # type: ignore[arg-type]
+    with matplotlib.rc_context(STYLE):  # type: ignore[arg-type]
         fig = Figure(figsize=figure_size(len(order)), dpi=DPI, layout="constrained")
         left, right = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.05, 1.0]})
         _ecdf_panel(left, order, groups, floor, colours, metric)
@@ -270,12 +224,7 @@ def plot_segments(
             fontsize=12.5,
             fontweight="bold",
         )
-        buf = io.BytesIO()
-        fig.savefig(
-            buf, format=fmt, dpi=DPI, facecolor="white", metadata={"Date": None} if fmt == "svg" else None
-        )
-    data = buf.getvalue()
-    fig.clear()  # drop artists now rather than waiting for the collector
+        data = figure_bytes(fig, fmt)
     if path is not None:
         Path(path).write_bytes(data)
     return data

@@ -25,6 +25,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from models.calibration import CQRCalibrator
+from models.configfile import write_config
 from models.errors import InputError, NotFittedError, NotFound, StoreError
 from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
 
@@ -306,9 +307,7 @@ class QuantileForecaster:
             "levels": entries,
             "versions": {"lightgbm": lgb.__version__, "numpy": np.__version__},
         }
-        tmp = root / (CONFIG_FILE + ".tmp")
-        tmp.write_text(json.dumps(config, indent=2), encoding="utf-8")
-        tmp.replace(root / CONFIG_FILE)
+        write_config(root, config, CONFIG_FILE)
         return root
 
     @classmethod

@@ -50,6 +50,7 @@ from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
 from models import features as F
 from models.blend import simplex_weights
 from models.calibration import cqr_scores
+from models.configfile import write_config
 from models.errors import InputError, NotFittedError, NotFound, StoreError
 from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
 from models.regressor import QuantileForecaster, _matrix, _target
@@ -512,9 +513,7 @@ class StackedForecaster:
             "n_train": self.n_train_,
             "n_cal": self.n_cal_,
         }
-        tmp = root / (CONFIG_FILE + ".tmp")
-        tmp.write_text(json.dumps(config))
-        tmp.replace(root / CONFIG_FILE)
+        write_config(root, config, CONFIG_FILE, indent=None)
         return root
 
     @classmethod

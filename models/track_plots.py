@@ -9,7 +9,6 @@ missed are drawn in the second colour. Same style and object-oriented
 
 from __future__ import annotations
 
-import io
 from collections.abc import Mapping
 from typing import Any
 
@@ -19,8 +18,18 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, LogLocator, PercentFormatter
 
-from models.errors import InputError
-from models.plots import _STYLE, DPI, FORMATS, GRID, INK, PALETTE, WIDTH_IN, _plain_number
+from models.figure_style import (
+    DPI,
+    FORMATS,
+    GRID,
+    INK,
+    PALETTE,
+    STYLE,
+    WIDTH_IN,
+    check_format,
+    figure_bytes,
+    plain_number,
+)
 
 HELD, MISSED = PALETTE[0], PALETTE[6]
 
@@ -99,7 +108,7 @@ def _outcome_panel(ax: Axes, points: list[Mapping[str, Any]], metric: str) -> No
     # After set_*scale, which installs its own formatters.
     for axis in (ax.xaxis, ax.yaxis):
         axis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
-        axis.set_major_formatter(FuncFormatter(_plain_number))
+        axis.set_major_formatter(FuncFormatter(plain_number))
         axis.set_minor_formatter(FuncFormatter(lambda *_: ""))
     ax.set_xlabel(f"{metric}: what happened")
     ax.set_ylabel(f"{metric}: middle estimate and interval")
@@ -110,12 +119,10 @@ def _outcome_panel(ax: Axes, points: list[Mapping[str, Any]], metric: str) -> No
 
 
 def track_record_figure(report: Mapping[str, Any], *, fmt: str = "png") -> bytes:
-    """PNG or SVG bytes of a track-record report (``service.track.record.report``)."""
-    fmt = fmt.lower()
-    if fmt not in FORMATS:
-        raise InputError(f"format must be one of {', '.join(FORMATS)}", field="fmt", value=fmt)
+    """PNG or SVG bytes of a track-record report (``service.track.report.report``)."""
+    fmt = check_format(fmt)
     # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
-    with matplotlib.rc_context(_STYLE):  # type: ignore[arg-type]
+    with matplotlib.rc_context(STYLE):  # type: ignore[arg-type]
         fig = Figure(figsize=(WIDTH_IN, 4.6), dpi=DPI, layout="constrained")
         left, right = fig.subplots(1, 2)
         _coverage_panel(left, list(report.get("months", [])))
@@ -134,13 +141,7 @@ def track_record_figure(report: Mapping[str, Any], *, fmt: str = "png") -> bytes
             fontsize=12.5,
             fontweight="bold",
         )
-        buf = io.BytesIO()
-        fig.savefig(
-            buf, format=fmt, dpi=DPI, facecolor="white", metadata={"Date": None} if fmt == "svg" else None
-        )
-    data = buf.getvalue()
-    fig.clear()
-    return data
+        return figure_bytes(fig, fmt)
 
 
 __all__ = ["FORMATS", "track_record_figure"]

@@ -10,8 +10,8 @@ import typer
 from rich.text import Text
 
 from models.errors import InputError
+from models.figure_style import FORMATS
 from models.metrics import DEFAULT_METRIC
-from models.plots import FORMATS
 from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value
 from service.cli.base import app, err, out, print_json, workspace
 from service.cli.render import Column, cut, interval_bar, print_table

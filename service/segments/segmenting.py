@@ -37,8 +37,9 @@ from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_serializer
 
 from models.embedding import normalise_text
 from models.errors import InputError, NotReady
+from models.figure_style import FORMATS
 from models.metrics import DEFAULT_METRIC, check_target, target_values
-from models.plots import FORMATS, plot_segments
+from models.plots import plot_segments
 from models.segments import (
     DEFAULT_ALPHA,
     DEFAULT_CONFIDENCE,

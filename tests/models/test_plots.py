@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 
 from models.errors import InputError
-from models.plots import DPI, figure_size, plot_segments
+from models.figure_style import DPI
+from models.plots import figure_size, plot_segments
 from models.segments import compare_groups, compare_segments
 
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # source: PNG specification (RFC 2083), section 3.1
