@@ -28,12 +28,15 @@ from __future__ import annotations
 
 import math
 from collections import deque
-from typing import Self
+from collections.abc import Mapping
+from types import MappingProxyType
+from typing import ClassVar, Self
 
 import numpy as np
 from numpy.typing import ArrayLike
 
 from models.calibration import conformal_rank
+from models.constraints import OPEN_UNIT, Constraint, Interval, validate_params
 from models.errors import InputError, NotFittedError
 
 
@@ -78,11 +81,12 @@ class AdaptiveConformal:
         self.alpha_start = alpha_start
         self.window = window
 
+    _parameter_constraints: ClassVar[Mapping[str, Constraint]] = MappingProxyType(
+        {"alpha": OPEN_UNIT, "gamma": Interval(float, 0.0, 1.0, closed="right")}
+    )
+
     def fit(self, scores: ArrayLike) -> Self:
-        if not 0.0 < float(self.alpha) < 1.0:
-            raise InputError(f"alpha must lie in (0, 1), got {self.alpha}", field="alpha")
-        if not 0.0 < float(self.gamma) <= 1.0:
-            raise InputError(f"gamma must lie in (0, 1], got {self.gamma}", field="gamma")
+        validate_params(vars(self), self._parameter_constraints)
         s = np.asarray(scores, dtype=float).ravel()
         if s.size == 0 or not np.isfinite(s).all():
             raise InputError("calibration scores must be finite and non-empty", field="scores")

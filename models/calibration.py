@@ -18,6 +18,7 @@ from typing import Self, cast
 import numpy as np
 from numpy.typing import ArrayLike
 
+from models.constraints import OPEN_UNIT
 from models.errors import InputError, NotFittedError
 
 # (n + 1)(1 - alpha) is often an integer in exact arithmetic (n = 19,
@@ -43,10 +44,7 @@ def _vectors(**named: ArrayLike) -> list[np.ndarray]:
 
 
 def _check_alpha(alpha: float) -> float:
-    alpha = float(alpha)
-    if not 0.0 < alpha < 1.0:
-        raise InputError(f"alpha must lie in (0, 1), got {alpha}", field="alpha", value=alpha)
-    return alpha
+    return float(OPEN_UNIT.check(float(alpha), "alpha"))
 
 
 def cqr_scores(y: ArrayLike, lo: ArrayLike, hi: ArrayLike) -> np.ndarray:

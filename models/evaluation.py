@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike
 
+from models.constraints import AT_LEAST_ONE, OPEN_UNIT, Interval
 from models.errors import InputError
 
 
@@ -46,8 +47,7 @@ def pinball_loss(y: ArrayLike, q: ArrayLike, alpha: float) -> float:
     ``alpha``-quantile: ``alpha * d`` if ``d = y - q >= 0``, else
     ``(alpha - 1) * d``."""
     alpha = float(alpha)
-    if not 0.0 <= alpha <= 1.0:
-        raise InputError(f"alpha must lie in [0, 1], got {alpha}", field="alpha", value=alpha)
+    Interval(float, 0.0, 1.0).check(alpha, "alpha")
     y_, q_ = _vectors({"y": y, "q": q})
     d = y_ - q_
     return float(np.mean(np.where(d >= 0, alpha * d, (alpha - 1.0) * d)))
@@ -150,14 +150,11 @@ def rolling_origin_splits(
     """
     keys = _time_keys(times)
     n = keys.size
-    if int(n_folds) != n_folds or n_folds < 1:
-        raise InputError(f"n_folds must be a positive integer, got {n_folds}", field="n_folds")
-    n_folds = int(n_folds)
+    n_folds = AT_LEAST_ONE.check(n_folds, "n_folds")
     for name, frac in (("min_train_fraction", min_train_fraction), ("cal_fraction", cal_fraction)):
-        if not 0.0 < frac < 1.0:
-            raise InputError(f"{name} must lie in (0, 1), got {frac}", field=name)
-    if test_fraction is not None and not 0.0 < test_fraction < 1.0:
-        raise InputError(f"test_fraction must lie in (0, 1), got {test_fraction}", field="test_fraction")
+        OPEN_UNIT.check(frac, name)
+    if test_fraction is not None:
+        OPEN_UNIT.check(test_fraction, "test_fraction")
 
     n0 = math.ceil(min_train_fraction * n)
     c = math.ceil(cal_fraction * n)

@@ -37,6 +37,7 @@ import faiss
 import numpy as np
 
 from models.configfile import write_config
+from models.constraints import AT_LEAST_ONE
 from models.errors import InputError, NotFittedError, StoreError
 
 INDEX_FILE = "index.faiss"
@@ -315,8 +316,7 @@ class VectorIndex:
         top-k are the best of that subset.
         """
         q = np.ascontiguousarray(queries, dtype=np.float32).reshape(-1, self.dim)
-        if k < 1:
-            raise InputError("k must be at least 1", field="k", value=k)
+        AT_LEAST_ONE.check(k, "k")
         if len(q) > SMALL_BATCH:
             return self._search(q, k, allowed_ids)
         # One thread for a draft or a few: OpenMP threads that wait for busy

@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from models.constraints import Interval
 from models.errors import InputError
 
 
@@ -43,17 +44,13 @@ MIN_COVERAGE, MAX_COVERAGE = 0.5, 0.95
 #: Coverage levels a forecaster trains quantile models for; another coverage uses the
 #: nearest of them, calibrated (CQR) at the coverage asked for.
 TRAINED_LEVELS: tuple[float, ...] = (MIN_COVERAGE, 0.7, DEFAULT_COVERAGE, 0.9, MAX_COVERAGE)
+#: The coverage a forecast can be asked for.
+COVERAGE = Interval(float, MIN_COVERAGE, MAX_COVERAGE)
 
 
 def check_coverage(coverage: float) -> float:
     """Return ``coverage`` if it can be asked for, else raise a clear error."""
-    if not MIN_COVERAGE <= coverage <= MAX_COVERAGE:
-        raise InputError(
-            f"coverage must be between {MIN_COVERAGE} and {MAX_COVERAGE}, got {coverage}",
-            field="coverage",
-            value=coverage,
-        )
-    return coverage
+    return float(COVERAGE.check(coverage, "coverage"))
 
 
 def check_target(name: str) -> str:

@@ -26,8 +26,9 @@ from numpy.typing import ArrayLike
 
 from models.calibration import CQRCalibrator
 from models.configfile import write_config
+from models.constraints import AT_LEAST_ONE
 from models.errors import InputError, NotFittedError, NotFound, StoreError
-from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
+from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, TRAINED_LEVELS, check_coverage
 
 # Coverage levels ``predict`` accepts are models.metrics' MIN_COVERAGE to MAX_COVERAGE:
 # below 0.5 a band is not useful; above 0.95 the calibration blocks we see are too
@@ -156,8 +157,7 @@ class QuantileForecaster:
         feature_names: Sequence[str] | None = None,
     ) -> Self:
         levels = self._checked_levels()
-        if int(self.n_estimators) < 1:
-            raise InputError("n_estimators must be at least 1", field="n_estimators")
+        AT_LEAST_ONE.check(int(self.n_estimators), "n_estimators")
         if feature_names is None and hasattr(X_train, "columns"):
             feature_names = [str(c) for c in X_train.columns]
         Xt = _matrix("X_train", X_train)
@@ -232,13 +232,7 @@ class QuantileForecaster:
     def level_for(self, coverage: float) -> int:
         """Index of the grid level nearest ``coverage`` (ties: the wider)."""
         self._check_fitted()
-        coverage = float(coverage)
-        if not MIN_COVERAGE <= coverage <= MAX_COVERAGE:
-            raise InputError(
-                f"coverage must lie in [{MIN_COVERAGE}, {MAX_COVERAGE}], got {coverage}",
-                field="coverage",
-                value=coverage,
-            )
+        coverage = check_coverage(coverage)
         gaps = [(abs(c - coverage), -c) for c in self.levels_]
         return min(range(len(gaps)), key=gaps.__getitem__)
 

@@ -33,8 +33,12 @@ import numpy.typing as npt
 from pydantic import BaseModel, BeforeValidator, Field, computed_field
 from scipy import stats
 
+from models.constraints import AT_LEAST_ONE, OPEN_UNIT, Interval
 from models.errors import InputError
 from models.metrics import Metric
+
+#: A similarity between two texts' vectors (cosine).
+SIMILARITY = Interval(float, -1.0, 1.0)
 
 #: Name of the catch-all topic segment; it is treated like any other.
 OTHER = "other"
@@ -69,34 +73,20 @@ def check_min_n(min_n: int) -> int:
 
 
 def check_confidence(confidence: float) -> float:
-    if not 0.0 < confidence < 1.0:
-        raise InputError("confidence must lie strictly between 0 and 1", field="confidence", value=confidence)
-    return float(confidence)
+    return float(OPEN_UNIT.check(confidence, "confidence"))
 
 
 def check_resamples(n_resamples: int) -> int:
-    if n_resamples < 1:
-        raise InputError("n_resamples must be at least 1", field="n_resamples", value=n_resamples)
-    return int(n_resamples)
+    return int(AT_LEAST_ONE.check(n_resamples, "n_resamples"))
 
 
 def check_alpha(alpha: float) -> float:
-    if not 0.0 < alpha < 1.0:
-        raise InputError("alpha must lie strictly between 0 and 1", field="alpha", value=alpha)
-    return float(alpha)
+    return float(OPEN_UNIT.check(alpha, "alpha"))
 
 
 def check_threshold(threshold: float) -> float:
     """A cosine similarity a post needs to join a topic."""
-    if (
-        isinstance(threshold, bool)
-        or not isinstance(threshold, (int, float, np.integer, np.floating))
-        or not -1.0 <= threshold <= 1.0
-    ):
-        raise InputError(
-            "threshold is a cosine similarity and must lie in -1..1", field="threshold", value=threshold
-        )
-    return float(threshold)
+    return float(SIMILARITY.check(threshold, "threshold"))
 
 
 def check_k(k: int) -> int:

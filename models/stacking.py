@@ -51,11 +51,15 @@ from models import features as F
 from models.blend import simplex_weights
 from models.calibration import cqr_scores
 from models.configfile import write_config
+from models.constraints import OPEN_UNIT, Interval
 from models.errors import InputError, NotFittedError, NotFound, StoreError
-from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
+from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS, check_coverage
 from models.regressor import QuantileForecaster, _matrix, _target
 from models.textmodel import RidgeText
 from models.timing import TimingEffect, best_hour_share, hour_from_cyclic
+
+#: The share of the training block the stacking weights are fitted on.
+STACK_FRACTION = Interval(float, 0.05, 0.5)
 
 #: Columns added after ``models.features.FEATURE_NAMES`` (see ``extra_columns``).
 EXTRA_FEATURES: tuple[str, ...] = ("text_ridge", "account_code")
@@ -252,8 +256,7 @@ class StackedForecaster:
         yc = _target("y_cal", y_cal, Xc.shape[0])
         if len(set(names)) != len(names):
             raise InputError("feature_names must be distinct", field="feature_names")
-        if not 0.05 <= float(self.stack_fraction) <= 0.5:
-            raise InputError("stack_fraction must lie in [0.05, 0.5]", field="stack_fraction")
+        STACK_FRACTION.check(float(self.stack_fraction), "stack_fraction")
         self._index = {n: i for i, n in enumerate(names)}
         n = Xt.shape[0]
         cut = round(n * (1 - float(self.stack_fraction)))
@@ -388,13 +391,7 @@ class StackedForecaster:
 
     def level_for(self, coverage: float) -> int:
         self._check_fitted()
-        coverage = float(coverage)
-        if not MIN_COVERAGE <= coverage <= MAX_COVERAGE:
-            raise InputError(
-                f"coverage must lie in [{MIN_COVERAGE}, {MAX_COVERAGE}], got {coverage}",
-                field="coverage",
-                value=coverage,
-            )
+        coverage = check_coverage(coverage)
         gaps = [(abs(c - coverage), -c) for c in self.levels_]
         return min(range(len(gaps)), key=gaps.__getitem__)
 
@@ -628,8 +625,7 @@ def weighted_conformal_quantile(scores: ArrayLike, weights: ArrayLike, *, alpha:
     w = np.asarray(weights, dtype=float)
     if s.shape != w.shape or s.ndim != 1 or s.size == 0:
         raise InputError("scores and weights must be 1-D of one non-zero length", field="scores")
-    if not 0.0 < float(alpha) < 1.0:
-        raise InputError(f"alpha must lie in (0, 1), got {alpha}", field="alpha")
+    OPEN_UNIT.check(float(alpha), "alpha")
     order = np.argsort(s, kind="stable")
     cum = np.cumsum(w[order]) / (w.sum() + w.max())
     k = int(np.searchsorted(cum, 1.0 - float(alpha) - 1e-12, side="left"))

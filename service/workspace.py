@@ -21,6 +21,7 @@ from typing import Any
 import numpy as np
 
 from models.artefact import clean_leftovers
+from models.constraints import Interval
 from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
 from models.index import VectorIndex, fingerprint
@@ -387,8 +388,7 @@ class Workspace:
         now: datetime | None = None,
     ) -> list[Precedent]:
         """The ``k`` past posts most similar to ``text``, with current metrics."""
-        if not 1 <= k <= self.settings.max_k:
-            raise InputError(f"k must be between 1 and {self.settings.max_k}", field="k", value=k)
+        Interval(int, 1, self.settings.max_k).check(k, "k")
         since, until = _utc_bound(since, "since"), _utc_bound(until, "until")
         if since and until and since > until:
             raise InputError("the date range ends before it starts", field="since")

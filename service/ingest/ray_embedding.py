@@ -24,6 +24,7 @@ from typing import Any
 
 import numpy as np
 
+from models.constraints import AT_LEAST_ONE
 from models.embedding import Embedder
 from models.errors import InputError, ServiceUnavailable
 
@@ -109,12 +110,9 @@ class RayEmbedder:
 
     def connect(self) -> RayEmbedder:
         check_address(self.address)
-        if self.workers < 1 or self.batch_size < 1 or self.attempts < 1:
-            raise InputError(
-                "cluster workers, batch size and connection attempts must be at least 1",
-                field="cluster_workers",
-                value=str(self.workers),
-            )
+        for name, value in (("cluster workers", self.workers), ("batch size", self.batch_size)):
+            AT_LEAST_ONE.check(value, name, field="cluster_workers")
+        AT_LEAST_ONE.check(self.attempts, "connection attempts", field="cluster_workers")
         try:
             import ray
             import ray.data

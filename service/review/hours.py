@@ -11,6 +11,7 @@ from typing import Any, Literal
 import numpy as np
 from pydantic import BaseModel, Field
 
+from models.constraints import Interval
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from models.stacking import best_hour_confidence
@@ -152,8 +153,7 @@ def best_hours(
     The draft is embedded once and every slot goes through one
     ``Forecaster.forecast`` call.
     """
-    if not 1 <= top <= 24 * WEEK_DAYS:
-        raise InputError(f"top must be between 1 and {24 * WEEK_DAYS}, got {top}", field="top")
+    Interval(int, 1, 24 * WEEK_DAYS).check(top, "top")
     tz = forecaster.store.account(account).timezone
     now = now or now_utc()
     first = day or (now.astimezone(zone(tz)).date() + timedelta(days=1))
