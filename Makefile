@@ -22,7 +22,7 @@ demo: $(STAMP)
 	rm -rf $(DEMO_HOME)
 	SOUNDING_HOME=$(DEMO_HOME) $(BIN)/sounding demo
 	@echo
-	@echo "Review page and API: SOUNDING_HOME=$(DEMO_HOME) $(BIN)/sounding serve  -> http://127.0.0.1:8000/"
+	@echo "Page and API: SOUNDING_HOME=$(DEMO_HOME) $(BIN)/sounding serve  -> http://127.0.0.1:8000/"
 
 ## test: install, then run the whole test suite (browser test included)
 test: $(STAMP) system-deps

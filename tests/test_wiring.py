@@ -55,7 +55,7 @@ def test_the_page_and_its_files_are_served(workspace) -> None:
         assert page.status_code == 200 and page.headers["content-type"].startswith("text/html")
         assert "default-src 'self'" in page.headers["content-security-policy"]
         assert '<form id="draft-form"' in page.text and 'id="media"' in page.text
-        for name, kind in (("review.js", "javascript"), ("style.css", "text/css")):
+        for name, kind in (("check.js", "javascript"), ("style.css", "text/css")):
             r = client.get(f"/static/{name}")
             assert r.status_code == 200 and kind in r.headers["content-type"], name
             assert f"/static/{name}" in page.text  # the page links the file it is served

@@ -1,4 +1,4 @@
-"""The review page at ``/``: plain HTML, CSS and one small script.
+"""The page at ``/``: plain HTML, CSS and one small script.
 
 Everything is served from ``service/static``; nothing is fetched from
 elsewhere, and the Content-Security-Policy says so to the browser.

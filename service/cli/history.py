@@ -328,7 +328,7 @@ def serve_cmd(
     host: str = typer.Option("127.0.0.1", "--host", help="Address to listen on."),
     port: int = typer.Option(8000, "--port", help="Port to listen on."),
 ) -> None:
-    """Run the HTTP service (review page at /, API docs at /docs)."""
+    """Run the HTTP service (the page at /, API docs at /docs)."""
     import uvicorn  # the server, only when serving
 
     ws = workspace()

@@ -1,4 +1,4 @@
-// The review page's track-record panel: how the forecasts given turned out.
+// The page's track-record panel: how the forecasts given turned out.
 "use strict";
 (function () {
   const $ = (id) => document.getElementById(id);

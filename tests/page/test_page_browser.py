@@ -1,4 +1,4 @@
-"""The review page in headless Chromium: typed with the keyboard, checked
+"""The page in headless Chromium: typed with the keyboard, checked
 against the API's own answer for the same draft and time."""
 
 from __future__ import annotations

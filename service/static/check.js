@@ -1,4 +1,4 @@
-// sounding review page: talks to the same-origin API and draws two small SVG charts.
+// The page's check tab: forecasts a draft through the same-origin API and draws two small SVG charts.
 "use strict";
 
 (() => {
