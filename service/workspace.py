@@ -31,8 +31,9 @@ from service.history.precedents import Precedent, precedents_for
 from service.history.retrieval import Retriever
 from service.ingest.importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
 from service.settings import Settings
+from service.storage.accounts import AccountInfo
 from service.storage.locking import LOCK_FILE, WriteLock
-from service.storage.store import AccountInfo, Store
+from service.storage.store import Store
 from service.track.adaptation import after_import
 
 __all__ = ["Precedent", "Workspace"]

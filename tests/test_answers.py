@@ -30,7 +30,7 @@ from service.history.precedents import Precedents
 from service.ingest.importer import ImportPreview, ImportSummary
 from service.review.hours import HoursReport
 from service.review.wordings import VariantsReport
-from service.storage.store import AccountInfo
+from service.storage.accounts import AccountInfo
 from service.track.answers import TrackRecord
 from service.workspace import Workspace
 

@@ -28,7 +28,7 @@ from service.review.hours import HoursReport, Slot
 from service.review.wordings import Variant, VariantsReport
 from service.segments.segmenting import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
 from service.segments.segmenting import SegmentResult as SegmentResult  # the answer, used as it is
-from service.storage.store import AccountInfo
+from service.storage.accounts import AccountInfo
 from service.track.answers import TrackRecord
 
 # The answers re-exported from the modules that define them (the request models

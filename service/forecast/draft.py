@@ -12,7 +12,7 @@ from datetime import datetime
 from typing import Protocol
 
 from service.clock import parse_time
-from service.storage.store import AccountInfo
+from service.storage.accounts import AccountInfo
 
 
 class Accounts(Protocol):

@@ -51,7 +51,8 @@ from service.clock import UTC, zone
 from service.ingest.csvread import Abandoned, BadRecord, Record, RecordReader
 from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from service.ingest.timestamps import DateOrder, TimeLayout, TimeReader, check_date_order
-from service.storage.store import PostRow, Store
+from service.storage.post_writes import PostRow
+from service.storage.store import Store
 
 RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
 CANONICAL_COLUMNS: tuple[str, ...] = (

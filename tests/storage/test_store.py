@@ -18,7 +18,8 @@ from models.embedding import Embedder
 from models.errors import InputError, NotFound, StoreError
 from models.features import has_link
 from models.metrics import METRIC_COLUMNS
-from service.storage.store import PostRow, Store
+from service.storage.post_writes import PostRow
+from service.storage.store import Store
 from service.storage.tables import Snapshot
 from service.workspace import Workspace
 
@@ -219,7 +220,7 @@ def test_posts_read_in_chunks_equal_posts_read_at_once(
     demo_workspace: Workspace, monkeypatch: pytest.MonkeyPatch
 ) -> None:
 
-    import service.storage.store as store_module
+    import service.storage.post_reads as store_module
 
     whole = demo_workspace.store.posts_frame()
     monkeypatch.setattr(store_module, "_FRAME_CHUNK", 97)  # many chunks, the last one short

@@ -1,0 +1,198 @@
+"""Reading the history: posts as a frame or by row id, vectors, and what the index is built from."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+from datetime import datetime
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from sqlalchemy import func, select
+
+from models.errors import StoreError
+from models.index import fingerprint
+from models.metrics import METRIC_COLUMNS
+from service.clock import as_utc, to_naive_utc
+from service.storage.accounts import AccountRecords
+from service.storage.tables import (
+    Account,
+    Post,
+    Snapshot,
+    Vector,
+)
+
+_FRAME_CHUNK = 100_000  # rows typed at a time by Store.posts_frame
+
+
+def _posts_part(rows: Sequence[Any], columns: list[str]) -> pd.DataFrame:
+    """One chunk of ``Store.posts_frame``'s rows as a typed frame."""
+    df = pd.DataFrame(rows, columns=columns)
+    df["posted_at"] = pd.to_datetime(df["posted_at"], utc=True)
+    for m in METRIC_COLUMNS:
+        df[m] = pd.to_numeric(df[m], errors="coerce").astype("float64")
+    df["pk"] = df["pk"].astype("int64")
+    df["has_link"] = df["has_link"].astype(bool)
+    df["has_media"] = df["has_media"].astype(bool)
+    return df
+
+
+class PostReads(AccountRecords):
+    """A store's reads of posts and vectors."""
+
+    def missing_vectors(self, keys: Iterable[str]) -> set[str]:
+        wanted = set(keys)
+        found: set[str] = set()
+        with self.session() as s:
+            ks = list(wanted)
+            for i in range(0, len(ks), 900):  # SQLite's variable limit
+                found.update(s.scalars(select(Vector.key).where(Vector.key.in_(ks[i : i + 900]))))
+        return wanted - found
+
+    def vectors(self, keys: Sequence[str]) -> np.ndarray:
+        """Vectors for ``keys`` in the given order.
+
+        Rows are written into one array as they are read, so a million
+        vectors (1.5 GB) are held once, not once as fetched bytes and again
+        when stacked."""
+        uniq = list(dict.fromkeys(keys))
+        at = {k: i for i, k in enumerate(uniq)}
+        result: np.ndarray | None = None
+        got = np.zeros(len(uniq), dtype=bool)
+        with self.session() as s:
+            if not uniq:
+                # No rows; their width is that of the stored vectors (0 in an empty store).
+                width = s.execute(select(Vector.dim).limit(1)).scalar()
+                return np.zeros((0, int(width or 0)), dtype=np.float32)
+            for i in range(0, len(uniq), 900):
+                for k, dim, data in s.execute(
+                    select(Vector.key, Vector.dim, Vector.data).where(Vector.key.in_(uniq[i : i + 900]))
+                ):
+                    if result is None:
+                        result = np.empty((len(uniq), dim), dtype=np.float32)
+                    j = at[k]
+                    result[j] = np.frombuffer(data, dtype=np.float32, count=dim)
+                    got[j] = True
+        if result is None or not got.all():
+            raise StoreError(f"{len(uniq) - int(got.sum())} vectors are missing from the store")
+        if len(uniq) == len(keys):
+            return result
+        return result[[at[k] for k in keys]]
+
+    def index_pairs(self) -> list[tuple[int, str]]:
+        """(post row id, vector key) of every post: what the index must hold."""
+        with self.session() as s:
+            return [(int(a), b) for a, b in s.execute(select(Post.id, Post.vector_key))]
+
+    def index_data(self) -> tuple[np.ndarray, np.ndarray, str]:
+        """Post row ids, their vectors and the fingerprint, for a rebuild."""
+        pairs = self.index_pairs()
+        ids = np.array([p for p, _ in pairs], dtype=np.int64)
+        vecs = self.vectors([k for _, k in pairs])
+        return ids, vecs, fingerprint(pairs)
+
+    def fingerprint(self) -> str:
+        return fingerprint(self.index_pairs())
+
+    def posts_frame(self, *, account: str | None = None) -> pd.DataFrame:
+        """Every post with its current metrics, one row a post, oldest first.
+
+        Columns: pk, account, timezone, post_id, text, posted_at (aware UTC),
+        has_link, has_media, vector_key and one column per metric.
+        """
+        latest = (
+            select(Snapshot.post_pk, func.max(Snapshot.id).label("sid")).group_by(Snapshot.post_pk).subquery()
+        )
+        q = (
+            select(
+                Post.id.label("pk"),
+                Account.handle.label("account"),
+                Account.timezone,
+                Post.post_id,
+                Post.text,
+                Post.posted_at,
+                Post.has_link,
+                Post.has_media,
+                Post.vector_key,
+                *[getattr(Snapshot, m) for m in METRIC_COLUMNS],
+            )
+            .join(Account, Account.id == Post.account_id)
+            .outerjoin(latest, latest.c.post_pk == Post.id)
+            .outerjoin(Snapshot, Snapshot.id == latest.c.sid)
+            .order_by(Post.posted_at, Post.id)
+        )
+        if account is not None:
+            self.account(account)
+            q = q.where(Account.handle == account)
+        # Rows are read and typed a chunk at a time: a million rows fetched at
+        # once as Python objects hold about 2 GB for a frame of 360 MB.
+        with self.session() as s:
+            result = s.execute(q.execution_options(yield_per=_FRAME_CHUNK))
+            columns = list(result.keys())  # the labels of the select above
+            parts = [_posts_part(chunk, columns) for chunk in result.partitions()]
+        if not parts:
+            return _posts_part([], columns)
+        if len(parts) == 1:
+            return parts[0]
+        df = pd.concat(parts, ignore_index=True)
+        # concat keeps each chunk's strings as a piece of their own, and every
+        # later row look-up visits all pieces (10 ms a column at a million
+        # rows, on each forecast's precedents): one piece per column.
+        # (Arrow-backed strings only, through the Arrow interchange protocol;
+        # strings held as Python objects have no pieces.)
+        for c in df.columns:
+            to_arrow = getattr(df[c].array, "__arrow_array__", None)
+            if isinstance(df[c].dtype, pd.StringDtype) and to_arrow is not None:
+                df[c] = pd.array(to_arrow().combine_chunks(), dtype=df[c].dtype)
+        return df
+
+    def posts_by_pk(self, pks: Sequence[int]) -> dict[int, dict[str, Any]]:
+        """Posts with current metrics for the given row ids (precedent details)."""
+        if not len(pks):
+            return {}
+        latest = (
+            select(Snapshot.post_pk, func.max(Snapshot.id).label("sid"))
+            .where(Snapshot.post_pk.in_(list(pks)))
+            .group_by(Snapshot.post_pk)
+            .subquery()
+        )
+        q = (
+            select(Post, Account.handle, Snapshot)
+            .join(Account, Account.id == Post.account_id)
+            .outerjoin(latest, latest.c.post_pk == Post.id)
+            .outerjoin(Snapshot, Snapshot.id == latest.c.sid)
+            .where(Post.id.in_(list(pks)))
+        )
+        out: dict[int, dict[str, Any]] = {}
+        with self.session() as s:
+            for post, handle, snap in s.execute(q):
+                out[post.id] = {
+                    "pk": post.id,
+                    "post_id": post.post_id,
+                    "account": handle,
+                    "text": post.text,
+                    "posted_at": as_utc(post.posted_at),
+                    "has_link": post.has_link,
+                    "has_media": post.has_media,
+                    "metrics": {m: getattr(snap, m) if snap else None for m in METRIC_COLUMNS},
+                }
+        return out
+
+    def pks_where(
+        self,
+        *,
+        account: str | None = None,
+        since: datetime | None = None,
+        until: datetime | None = None,
+    ) -> np.ndarray:
+        """Row ids of posts of one account and/or inside a date range."""
+        q = select(Post.id)
+        if account is not None:
+            self.account(account)
+            q = q.join(Account, Account.id == Post.account_id).where(Account.handle == account)
+        if since is not None:
+            q = q.where(Post.posted_at >= to_naive_utc(since))
+        if until is not None:
+            q = q.where(Post.posted_at <= to_naive_utc(until))
+        with self.session() as s:
+            return np.array(list(s.scalars(q)), dtype=np.int64)
