@@ -35,9 +35,10 @@ from typing import ClassVar, Self
 import numpy as np
 from numpy.typing import ArrayLike
 
+from models.bands import check_is_fitted
 from models.calibration import conformal_rank
 from models.constraints import OPEN_UNIT, Constraint, Interval, validate_params
-from models.errors import InputError, NotFittedError
+from models.errors import InputError
 
 
 def aci_step(alpha_t: float, *, alpha: float, gamma: float, miss: bool) -> float:
@@ -98,10 +99,7 @@ class AdaptiveConformal:
         return self
 
     def _check_fitted(self) -> None:
-        if not hasattr(self, "alpha_t_"):
-            raise NotFittedError(
-                "AdaptiveConformal is not fitted yet; call fit(scores) first", where="AdaptiveConformal"
-            )
+        check_is_fitted(self, "alpha_t_")
 
     def quantile(self) -> float:
         self._check_fitted()

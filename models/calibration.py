@@ -18,8 +18,9 @@ from typing import Self, cast
 import numpy as np
 from numpy.typing import ArrayLike
 
+from models.bands import check_is_fitted
 from models.constraints import OPEN_UNIT
-from models.errors import InputError, NotFittedError
+from models.errors import InputError
 
 # (n + 1)(1 - alpha) is often an integer in exact arithmetic (n = 19,
 # alpha = 0.05 gives 20 * 0.95 = 19) but lands a hair above it in floating
@@ -120,11 +121,7 @@ class CQRCalibrator:
         return cal
 
     def _check_fitted(self) -> None:
-        if not hasattr(self, "scores_"):
-            raise NotFittedError(
-                "CQRCalibrator is not fitted yet; call fit(y_cal, lo_cal, hi_cal) first",
-                where="CQRCalibrator",
-            )
+        check_is_fitted(self, "scores_")
 
     def correction(self, alpha: float | None = None) -> float:
         """The additive widening ``q`` at miscoverage ``alpha`` (default:

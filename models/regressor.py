@@ -24,11 +24,13 @@ import lightgbm as lgb
 import numpy as np
 from numpy.typing import ArrayLike
 
+from models.arrays import as_matrix, as_target
+from models.bands import check_is_fitted, nearest_level, ordered_band, predict_booster
 from models.calibration import CQRCalibrator
 from models.configfile import write_config
 from models.constraints import AT_LEAST_ONE
-from models.errors import InputError, NotFittedError, NotFound, StoreError
-from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, TRAINED_LEVELS, check_coverage
+from models.errors import InputError, NotFound, StoreError
+from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, TRAINED_LEVELS
 
 # Coverage levels ``predict`` accepts are models.metrics' MIN_COVERAGE to MAX_COVERAGE:
 # below 0.5 a band is not useful; above 0.95 the calibration blocks we see are too
@@ -43,44 +45,6 @@ CONFIG_FILE = "config.json"
 # so boosters see neutral column names; ours stay exact in config.json.
 def _internal_names(n: int) -> list[str]:
     return [f"f{i}" for i in range(n)]
-
-
-def _matrix(name: str, X: Any, n_features: int | None = None) -> np.ndarray:
-    try:
-        arr = np.asarray(X, dtype=float)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be numeric: {exc}", field=name) from None
-    if arr.ndim != 2:
-        raise InputError(f"{name} must be 2-D (rows x features), got shape {arr.shape}", field=name)
-    if n_features is not None and arr.shape[1] != n_features:
-        raise InputError(f"{name} has {arr.shape[1]} features, the model expects {n_features}", field=name)
-    # NaN is a missing feature (no baseline yet, no neighbours), which
-    # LightGBM routes natively; infinities are bugs upstream.
-    if np.isinf(arr).any():
-        raise InputError(f"{name} contains infinite values", field=name)
-    return arr
-
-
-def _target(name: str, y: Any, n_rows: int) -> np.ndarray:
-    try:
-        arr = np.asarray(y, dtype=float)
-    except (TypeError, ValueError) as exc:
-        raise InputError(f"{name} must be numeric: {exc}", field=name) from None
-    if arr.ndim != 1 or arr.shape[0] != n_rows:
-        raise InputError(f"{name} must be 1-D with {n_rows} values, got shape {arr.shape}", field=name)
-    if not np.isfinite(arr).all():
-        raise InputError(f"{name} contains NaN or infinite values", field=name)
-    return arr
-
-
-def _raw(booster: lgb.Booster, X: np.ndarray, *, contrib: bool = False) -> np.ndarray:
-    # LightGBM divides by the row count, so an empty batch is answered here.
-    if X.shape[0] == 0:
-        return np.empty((0, X.shape[1] + 1) if contrib else 0)
-    # A forecast predicts a few rows: OpenMP threads cost more than they save
-    # there, and fight the service's other work for the cores.
-    threads = 1 if X.shape[0] < 1000 else 0
-    return np.asarray(booster.predict(X, pred_contrib=contrib, num_threads=threads), dtype=float)
 
 
 class QuantileForecaster:
@@ -126,7 +90,7 @@ class QuantileForecaster:
             raise InputError("levels must lie strictly between 0 and 1", field="levels")
         return levels
 
-    def _booster_params(self, alpha: float) -> dict[str, Any]:
+    def booster_params(self, alpha: float) -> dict[str, Any]:
         return {
             "objective": "quantile",
             "alpha": alpha,
@@ -160,13 +124,13 @@ class QuantileForecaster:
         AT_LEAST_ONE.check(int(self.n_estimators), "n_estimators")
         if feature_names is None and hasattr(X_train, "columns"):
             feature_names = [str(c) for c in X_train.columns]
-        Xt = _matrix("X_train", X_train)
+        Xt = as_matrix("X_train", X_train)
         n_features = Xt.shape[1]
         if n_features == 0:
             raise InputError("X_train has no feature columns", field="X_train")
-        yt = _target("y_train", y_train, Xt.shape[0])
-        Xc = _matrix("X_cal", X_cal, n_features)
-        yc = _target("y_cal", y_cal, Xc.shape[0])
+        yt = as_target("y_train", y_train, Xt.shape[0])
+        Xc = as_matrix("X_cal", X_cal, n_features)
+        yc = as_target("y_cal", y_cal, Xc.shape[0])
 
         # Fewer rows than two leaves' minimum leaves no split to learn.
         need_train = 2 * int(self.min_child_samples)
@@ -190,11 +154,11 @@ class QuantileForecaster:
             )
 
         # One binned Dataset serves every booster: only alpha differs.
-        base = self._booster_params(0.5)
+        base = self.booster_params(0.5)
         data = lgb.Dataset(Xt, yt, feature_name=_internal_names(n_features), params=base, free_raw_data=False)
 
         def train(alpha: float) -> lgb.Booster:
-            return lgb.train(self._booster_params(alpha), data, num_boost_round=int(self.n_estimators))
+            return lgb.train(self.booster_params(alpha), data, num_boost_round=int(self.n_estimators))
 
         self.median_model_ = train(0.5)
         lowers: list[lgb.Booster] = []
@@ -219,11 +183,7 @@ class QuantileForecaster:
     # -- prediction --------------------------------------------------------
 
     def _check_fitted(self) -> None:
-        if not hasattr(self, "median_model_"):
-            raise NotFittedError(
-                "QuantileForecaster is not fitted yet; call fit(...) or load(directory) first",
-                where="QuantileForecaster",
-            )
+        check_is_fitted(self, "median_model_")
 
     def calibration_scores(self, coverage: float) -> np.ndarray:
         """The sorted CQR scores at the level nearest ``coverage``."""
@@ -232,9 +192,7 @@ class QuantileForecaster:
     def level_for(self, coverage: float) -> int:
         """Index of the grid level nearest ``coverage`` (ties: the wider)."""
         self._check_fitted()
-        coverage = check_coverage(coverage)
-        gaps = [(abs(c - coverage), -c) for c in self.levels_]
-        return min(range(len(gaps)), key=gaps.__getitem__)
+        return nearest_level(self.levels_, coverage)
 
     def predict(
         self, X: ArrayLike, *, coverage: float = DEFAULT_COVERAGE
@@ -243,26 +201,22 @@ class QuantileForecaster:
         row exchangeable with the calibration block."""
         self._check_fitted()
         i = self.level_for(coverage)
-        Xp = _matrix("X", X, self.n_features_in_)
+        Xp = as_matrix("X", X, self.n_features_in_)
         lo, hi = self.calibrators_[i].transform(
-            _raw(self.lower_models_[i], Xp),
-            _raw(self.upper_models_[i], Xp),
+            predict_booster(self.lower_models_[i], Xp),
+            predict_booster(self.upper_models_[i], Xp),
             alpha=1.0 - float(coverage),
         )
-        median = _raw(self.median_model_, Xp)
-        # Separately trained quantiles can cross. Sorting the three values
-        # per row only ever widens [lo, hi] (to include the median), so the
-        # conformal guarantee survives and lo <= median <= hi holds.
-        ordered = np.sort(np.stack([lo, median, hi], axis=1), axis=1)
-        return ordered[:, 0].copy(), ordered[:, 1].copy(), ordered[:, 2].copy()
+        median = predict_booster(self.median_model_, Xp)
+        return ordered_band(lo, median, hi)
 
     def contributions(self, X: ArrayLike) -> np.ndarray:
         """TreeSHAP values of the median model, shape (n, n_features + 1);
         the last column is the expected value, and each row sums to the
         median model's raw prediction."""
         self._check_fitted()
-        Xp = _matrix("X", X, self.n_features_in_)
-        return _raw(self.median_model_, Xp, contrib=True)
+        Xp = as_matrix("X", X, self.n_features_in_)
+        return predict_booster(self.median_model_, Xp, contrib=True)
 
     # -- persistence -------------------------------------------------------
 

@@ -48,13 +48,15 @@ from numpy.typing import ArrayLike
 from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
 
 from models import features as F
+from models.arrays import as_matrix, as_target
+from models.bands import check_is_fitted, nearest_level, ordered_band, predict_booster
 from models.blend import simplex_weights
 from models.calibration import cqr_scores
 from models.configfile import write_config
 from models.constraints import OPEN_UNIT, Interval
-from models.errors import InputError, NotFittedError, NotFound, StoreError
-from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS, check_coverage
-from models.regressor import QuantileForecaster, _matrix, _target
+from models.errors import InputError, NotFound, StoreError
+from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS
+from models.regressor import QuantileForecaster
 from models.textmodel import RidgeText
 from models.timing import TimingEffect, best_hour_share, hour_from_cyclic
 
@@ -250,10 +252,10 @@ class StackedForecaster:
         cal_times: np.ndarray | None,
     ) -> Self:
         names = [str(n) for n in feature_names]
-        Xt = _matrix("X_train", X_train, len(names))
-        yt = _target("y_train", y_train, Xt.shape[0])
-        Xc = _matrix("X_cal", X_cal, len(names))
-        yc = _target("y_cal", y_cal, Xc.shape[0])
+        Xt = as_matrix("X_train", X_train, len(names))
+        yt = as_target("y_train", y_train, Xt.shape[0])
+        Xc = as_matrix("X_cal", X_cal, len(names))
+        yc = as_target("y_cal", y_cal, Xc.shape[0])
         if len(set(names)) != len(names):
             raise InputError("feature_names must be distinct", field="feature_names")
         STACK_FRACTION.check(float(self.stack_fraction), "stack_fraction")
@@ -295,7 +297,7 @@ class StackedForecaster:
         self.boosted_columns_ = tuple(names[c] for c in cols)
         self._cols = cols
         # 2. Rounds by early stopping on the stack block (time-ordered validation).
-        base = QuantileForecaster(**self._quantile_params(1))._booster_params(0.5)
+        base = QuantileForecaster(**self._quantile_params(1)).booster_params(0.5)
         d_fit = lgb.Dataset(
             Xt[fit_idx][:, cols], yt[fit_idx] - tau[fit_idx], params=base, free_raw_data=False
         )
@@ -338,7 +340,7 @@ class StackedForecaster:
         self.means_ = {c: float(np.mean(v)) for c, v in lin_train.items()}
 
         # 5. CQR on the calibration block, around the blend.
-        _, lows, highs = self._raw(Xc)
+        _, lows, highs = self._blend_and_bands(Xc)
         #    Scores stay in time order; their weights favour the latest rows.
         self.cal_scores_ = tuple(cqr_scores(yc, lows[i], highs[i]) for i in sorted(lows))
         self.cal_weights_ = recency_weights(
@@ -351,15 +353,12 @@ class StackedForecaster:
     # -- prediction --------------------------------------------------------
 
     def _check_fitted(self) -> None:
-        if not hasattr(self, "boosted_"):
-            raise NotFittedError(
-                "StackedForecaster is not fitted yet; call fit(...) or load(...)", where="StackedForecaster"
-            )
+        check_is_fitted(self, "boosted_")
 
     def candidates(self, X: ArrayLike) -> dict[str, np.ndarray]:
         """Each candidate's point forecast, and ``timing``, the timing effect."""
         self._check_fitted()
-        Xp = _matrix("X", X, self.n_features_in_)
+        Xp = as_matrix("X", X, self.n_features_in_)
         tau = self.timing_.predict(*self._clock(Xp))
         out = {
             "boosted": _booster_median(self.boosted_, Xp[:, self._cols]) + tau,
@@ -372,7 +371,7 @@ class StackedForecaster:
         med = sum(self.weights_[c] * cands[c] for c in CANDIDATES)
         return np.asarray(med + self.timing_weight_ * cands["timing"], dtype=float)
 
-    def _raw(
+    def _blend_and_bands(
         self, X: np.ndarray, *, level: int | None = None
     ) -> tuple[np.ndarray, dict[int, np.ndarray], dict[int, np.ndarray]]:
         """The blend and each level's raw band by level index (only ``level``
@@ -385,15 +384,13 @@ class StackedForecaster:
         raw_med = cands["boosted"] - cands["timing"]
         models = self.boosted_
         for i in range(len(models.lower_models_)) if level is None else (level,):
-            lows[i] = med + _predict(models.lower_models_[i], Xb) - raw_med
-            highs[i] = med + _predict(models.upper_models_[i], Xb) - raw_med
+            lows[i] = med + predict_booster(models.lower_models_[i], Xb) - raw_med
+            highs[i] = med + predict_booster(models.upper_models_[i], Xb) - raw_med
         return med, lows, highs
 
     def level_for(self, coverage: float) -> int:
         self._check_fitted()
-        coverage = check_coverage(coverage)
-        gaps = [(abs(c - coverage), -c) for c in self.levels_]
-        return min(range(len(gaps)), key=gaps.__getitem__)
+        return nearest_level(self.levels_, coverage)
 
     def calibration_scores(self, coverage: float) -> np.ndarray:
         """The CQR scores of the calibration block at the level nearest
@@ -429,13 +426,11 @@ class StackedForecaster:
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(lo, median, hi)``: the blend and its CQR band at ``coverage``."""
         i = self.level_for(coverage)
-        Xp = _matrix("X", X, self.n_features_in_)
-        med, lows, highs = self._raw(Xp, level=i)
+        Xp = as_matrix("X", X, self.n_features_in_)
+        med, lows, highs = self._blend_and_bands(Xp, level=i)
         q = self._band_quantile(i, coverage)
         lo, hi = lows[i] - q, highs[i] + q
-        # Sorting only widens [lo, hi] to include the median (guarantee kept).
-        ordered = np.sort(np.stack([lo, med, hi], axis=1), axis=1)
-        return ordered[:, 0].copy(), ordered[:, 1].copy(), ordered[:, 2].copy()
+        return ordered_band(lo, med, hi)
 
     def contributions(self, X: ArrayLike) -> np.ndarray:
         """Per-feature contributions to the blended median, shape
@@ -444,7 +439,7 @@ class StackedForecaster:
         each linear candidate adds ``weight * (value - mean)`` to the column
         it reads; the timing effect goes to ``hour_sin``."""
         self._check_fitted()
-        Xp = _matrix("X", X, self.n_features_in_)
+        Xp = as_matrix("X", X, self.n_features_in_)
         out = np.zeros((Xp.shape[0], self.n_features_in_ + 1))
         wb = self.weights_["boosted"]
         shap = self.boosted_.contributions(Xp[:, self._cols])
@@ -465,7 +460,7 @@ class StackedForecaster:
         """The timing component's part of the median, and the same part from
         each bootstrap refit (n_bootstrap, rows)."""
         self._check_fitted()
-        Xp = _matrix("X", X, self.n_features_in_)
+        Xp = as_matrix("X", X, self.n_features_in_)
         clock = self._clock(Xp)
         scale = self.timing_weight_ + self.weights_["boosted"]
         return scale * self.timing_.predict(*clock), scale * self.timing_.draws(*clock)
@@ -551,14 +546,8 @@ class StackedForecaster:
         return m
 
 
-def _predict(booster: lgb.Booster, X: np.ndarray) -> np.ndarray:
-    if X.shape[0] == 0:
-        return np.empty(0)
-    return np.asarray(booster.predict(X, num_threads=1 if X.shape[0] < 1000 else 0), dtype=float)
-
-
 def _booster_median(model: QuantileForecaster, X: np.ndarray) -> np.ndarray:
-    return _predict(model.median_model_, X)
+    return predict_booster(model.median_model_, X)
 
 
 def load_forecaster(directory: str | os.PathLike[str]) -> QuantileForecaster | StackedForecaster:
