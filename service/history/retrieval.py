@@ -18,6 +18,7 @@ from datetime import datetime
 import numpy as np
 
 from models import features as F
+from models import training_matrix as TM
 from models.index import VectorIndex
 from service.history.view import HistoryView
 from service.storage.store import Store
@@ -196,7 +197,7 @@ class Retriever:
         """Leak-free feature rows of the view's posts (all, or ``rows``; needs its
         vectors): each post's neighbours by the same eligibility rule as a
         draft's, from an approximate index past ``approximate_above`` posts."""
-        return F.training_matrix(
+        return TM.training_matrix(
             view.history,
             local_hours=view.local_hours,
             weekdays=view.weekdays,

@@ -15,6 +15,7 @@ from fastapi.testclient import TestClient
 from sklearn.neighbors import NearestNeighbors
 
 from models import features as F
+from models import training_matrix as TM
 from models.artefact import TrainedModel, newest, versions
 from models.errors import InputError, NotFound, NotReady
 from service.api.app import create_app
@@ -47,7 +48,7 @@ def params(demo_workspace):
 
 
 def _matrix(v, params):
-    return F.training_matrix(
+    return TM.training_matrix(
         v.history, local_hours=v.local_hours, weekdays=v.weekdays, forms=v.forms, params=params
     )
 
@@ -68,7 +69,7 @@ def test_no_leakage_future_metrics_leave_past_features_unchanged(view, params):
         log_target=np.where(future, rng.uniform(0, 15, len(h)), h.log_target),
         vectors=h.vectors,
     )
-    X2 = F.training_matrix(
+    X2 = TM.training_matrix(
         changed, local_hours=view.local_hours, weekdays=view.weekdays, forms=view.forms, params=params
     )
     past = h.time < T
@@ -83,7 +84,7 @@ def test_a_posts_own_metric_never_enters_its_features(view, params):
     X = _matrix(view, params)
     logs = h.log_target.copy()
     logs[i] += 5.0
-    X2 = F.training_matrix(
+    X2 = TM.training_matrix(
         F.History(h.pk, h.time, h.account, logs, h.vectors),
         local_hours=view.local_hours,
         weekdays=view.weekdays,

@@ -2,9 +2,9 @@
 against the row-by-row loop it replaced, and the approximate neighbours used
 past a size threshold against exact ones.
 
-References: the previous implementation, kept as
-``features._training_matrix_loop`` (rows built one at a time with
-``assemble``), and scikit-learn's exact ``NearestNeighbors(metric="cosine",
+References: the row-by-row rules written out below (``training_matrix_loop``,
+rows built one at a time with ``assemble`` over a plain top-k), and scikit-learn's
+exact ``NearestNeighbors(metric="cosine",
 algorithm="brute")`` for the neighbours themselves.
 """
 
@@ -15,7 +15,61 @@ import pytest
 from sklearn.neighbors import NearestNeighbors
 
 from models import features as F
+from models import training_matrix as TM
 from service.history.view import build_view, feature_params
+
+
+def _top(sims: np.ndarray, valid: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    cand = np.flatnonzero(valid)
+    if len(cand) == 0:
+        return cand, np.zeros(0, dtype=np.float32)
+    s = sims[cand]
+    if len(cand) > k:
+        # Ties at the k-th similarity (posts with the same text have the same
+        # vector) go to the earlier posts, so the choice is deterministic.
+        kth = s[np.argpartition(-s, k - 1)[k - 1]]
+        above = np.flatnonzero(s > kth)
+        tied = np.flatnonzero(s == kth)[: k - len(above)]
+        keep = np.concatenate([above, tied])
+        cand, s = cand[keep], s[keep]
+    # Stable order: similarity descending, then earlier index first.
+    order = np.lexsort((cand, -s))
+    return cand[order], s[order]
+
+
+def training_matrix_loop(
+    history: F.History,
+    *,
+    local_hours: np.ndarray,
+    weekdays: np.ndarray,
+    forms: np.ndarray,
+    params: F.FeatureParams,
+    block: int = 256,
+) -> np.ndarray:
+    """The row-by-row statement of the rules ``F.training_matrix`` computes with
+    array operations: each post's neighbours among the posts eligible at its time."""
+    n = len(history)
+    X = np.empty((n, len(F.FEATURE_NAMES)), dtype=np.float64)
+    for start in range(0, n, block):
+        stop = min(n, start + block)
+        horizon = int(np.searchsorted(history.time, history.time[stop - 1], side="right"))
+        S = history.vectors[start:stop] @ history.vectors[:horizon].T
+        for r, i in enumerate(range(start, stop)):
+            t = history.time[i]
+            ok = F.eligible(history, t, params)[:horizon]
+            team, team_s = _top(S[r], ok, params.k)
+            own, own_s = _top(S[r], ok & (history.account[:horizon] == history.account[i]), params.k)
+            X[i], _ = F.assemble(
+                history,
+                F.Neighbourhood(team, team_s, own, own_s),
+                t=t,
+                account=int(history.account[i]),
+                local_hour=float(local_hours[i]),
+                weekday=int(weekdays[i]),
+                form=forms[i],
+                params=params,
+            )
+    return X
 
 
 @pytest.fixture(scope="module")
@@ -34,8 +88,8 @@ def _kw(v, params):
 
 def test_array_matrix_equals_the_loop_on_the_demo(view, params) -> None:
     # 3,000 posts over three accounts, a few texts posted twice (exact ties).
-    X = F.training_matrix(view.history, **_kw(view, params))
-    ref = F._training_matrix_loop(view.history, **_kw(view, params))
+    X = TM.training_matrix(view.history, **_kw(view, params))
+    ref = training_matrix_loop(view.history, **_kw(view, params))
     assert np.array_equal(X, ref, equal_nan=True)  # bit for bit
     assert np.isfinite(X[:, 0]).sum() > 2500  # and not vacuous: most rows have neighbours
 
@@ -66,24 +120,24 @@ def test_array_matrix_equals_the_loop_with_ties_and_missing_metrics(view, params
         "forms": view.forms[pick],
         "params": params,
     }
-    assert np.array_equal(F.training_matrix(hist, **kw), F._training_matrix_loop(hist, **kw), equal_nan=True)
+    assert np.array_equal(TM.training_matrix(hist, **kw), training_matrix_loop(hist, **kw), equal_nan=True)
 
 
 def test_rows_subset_keeps_neighbours_from_the_whole_history(view, params) -> None:
     h = view.history
-    full = F.training_matrix(h, **_kw(view, params))
+    full = TM.training_matrix(h, **_kw(view, params))
     # The cap: the most recent posts only. Starting on a block boundary, the
     # blocks and so the products are the same as the full run's (BLAS may round
     # a product differently in another block shape, which can flip exact ties).
     rows = np.arange((len(h) - 700) // 256 * 256, len(h))
-    part = F.training_matrix(h, rows=rows, **_kw(view, params))
+    part = TM.training_matrix(h, rows=rows, **_kw(view, params))
     assert np.array_equal(part, full[rows], equal_nan=True)
 
 
 def test_exact_neighbours_are_sklearns(view, params) -> None:
     h = view.history
     rows = np.arange(len(h) - 300, len(h))
-    nb = F.exact_neighbours(h, rows=rows, params=params)
+    nb = TM.exact_neighbours(h, rows=rows, params=params)
     for j, i in enumerate(rows[::10]):
         ok = np.flatnonzero(F.eligible(h, h.time[i], params))
         # Reference: scikit-learn's exact brute-force cosine search over the eligible posts.
@@ -95,9 +149,9 @@ def test_exact_neighbours_are_sklearns(view, params) -> None:
 def test_approximate_neighbours_match_exact_ones(view, params) -> None:
     h = view.history
     rows = np.arange(len(h))
-    exact = F.exact_neighbours(h, rows=rows, params=params)
+    exact = TM.exact_neighbours(h, rows=rows, params=params)
     # exact_below=300: nearly every row goes through the time-ordered graphs.
-    approx = F.approximate_neighbours(h, rows=rows, params=params, exact_below=300)
+    approx = TM.approximate_neighbours(h, rows=rows, params=params, exact_below=300)
     for a, e in ((approx.team, exact.team), (approx.own, exact.own)):
         found = [
             len(set(x[x >= 0]) & set(y[y >= 0])) / max(1, int((y >= 0).sum()))
