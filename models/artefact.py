@@ -35,7 +35,8 @@ import numpy as np
 from models.errors import NotFound, NotReady, StoreError
 from models.features import FeatureParams
 from models.regressor import QuantileForecaster
-from models.stacking import StackedForecaster, draft_columns, load_forecaster
+from models.stack_columns import draft_columns
+from models.stacking import StackedForecaster
 from models.textmodel import RidgeText
 
 CONFIG = "config.json"
@@ -339,3 +340,15 @@ def _alive(pid: str) -> bool:
     except PermissionError:
         return True
     return True
+
+
+def load_forecaster(directory: str | os.PathLike[str]) -> QuantileForecaster | StackedForecaster:
+    """Either kind of saved forecaster, by the kind its config names."""
+    path = Path(directory) / "config.json"
+    try:
+        kind = json.loads(path.read_text()).get("kind")
+    except (OSError, ValueError):
+        kind = None
+    if kind == "StackedForecaster":
+        return StackedForecaster.load(directory)
+    return QuantileForecaster.load(directory)

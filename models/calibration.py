@@ -138,3 +138,35 @@ class CQRCalibrator:
         q = self.correction(alpha)
         lo_, hi_ = _vectors(lo=lo, hi=hi)
         return lo_ - q, hi_ + q
+
+
+def recency_weights(times: ArrayLike, *, half_life: float | None) -> np.ndarray:
+    """Weights of calibration rows (oldest first): halving every
+    ``half_life`` of the block's rows back from the newest, by position;
+    rows posted at the same time share their mean position. All ones when
+    ``half_life`` is None (plain split conformal)."""
+    t = np.asarray(times, dtype=float)
+    n = len(t)
+    if half_life is None or n == 0:
+        return np.ones(n)
+    # Average position of each distinct time (ties share it).
+    _, inverse, counts = np.unique(t, return_inverse=True, return_counts=True)
+    starts = np.r_[0, np.cumsum(counts)[:-1]]
+    pos = (starts + (counts - 1) / 2.0)[inverse]
+    return np.asarray(0.5 ** ((n - 1 - pos) / (float(half_life) * n)), dtype=float)
+
+
+def weighted_conformal_quantile(scores: ArrayLike, weights: ArrayLike, *, alpha: float) -> float:
+    """The smallest score ``q`` with ``sum(w_i [s_i <= q]) / (sum(w) + w_test)
+    >= 1 - alpha``, the test point weighing as much as the newest row
+    (``max(w)``); infinite when no score reaches it. With equal weights this
+    is the ``ceil((n + 1)(1 - alpha))``-th smallest score of split conformal."""
+    s = np.asarray(scores, dtype=float)
+    w = np.asarray(weights, dtype=float)
+    if s.shape != w.shape or s.ndim != 1 or s.size == 0:
+        raise InputError("scores and weights must be 1-D of one non-zero length", field="scores")
+    OPEN_UNIT.check(float(alpha), "alpha")
+    order = np.argsort(s, kind="stable")
+    cum = np.cumsum(w[order]) / (w.sum() + w.max())
+    k = int(np.searchsorted(cum, 1.0 - float(alpha) - 1e-12, side="left"))
+    return float(s[order][k]) if k < s.size else math.inf

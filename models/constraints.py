@@ -8,6 +8,7 @@ all: ``coverage must be between 0.5 and 0.95, got 2``.
 
 from __future__ import annotations
 
+import inspect
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -103,3 +104,21 @@ def validate_params(params: Mapping[str, Any], constraints: Mapping[str, Constra
 #: Probabilities and fractions that cannot be 0 or 1 (alpha, confidence levels).
 OPEN_UNIT = Interval(float, 0.0, 1.0, closed="neither")
 AT_LEAST_ONE = Interval(int, 1, None)
+
+
+def _plain(value: Any) -> Any:
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    item = getattr(value, "item", None)  # numpy scalars
+    return item() if callable(item) else value
+
+
+class ParamsMixin:
+    """``get_params`` read from the constructor's keyword-only parameters, as
+    scikit-learn's ``BaseEstimator.get_params`` reads them from ``__init__``'s
+    signature; values in plain Python types, so a config can hold them."""
+
+    def get_params(self) -> dict[str, Any]:
+        sig = inspect.signature(type(self).__init__)
+        names = [p.name for p in sig.parameters.values() if p.kind is inspect.Parameter.KEYWORD_ONLY]
+        return {n: _plain(getattr(self, n)) for n in names}

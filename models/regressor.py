@@ -28,7 +28,7 @@ from models.arrays import as_matrix, as_target
 from models.bands import check_is_fitted, nearest_level, ordered_band, predict_booster
 from models.calibration import CQRCalibrator
 from models.configfile import write_config
-from models.constraints import AT_LEAST_ONE
+from models.constraints import AT_LEAST_ONE, ParamsMixin
 from models.errors import InputError, NotFound, StoreError
 from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, TRAINED_LEVELS
 
@@ -47,7 +47,7 @@ def _internal_names(n: int) -> list[str]:
     return [f"f{i}" for i in range(n)]
 
 
-class QuantileForecaster:
+class QuantileForecaster(ParamsMixin):
     """Calibrated prediction bands from LightGBM quantile boosters."""
 
     def __init__(
@@ -68,17 +68,6 @@ class QuantileForecaster:
         self.min_child_samples = min_child_samples
         self.random_state = random_state
         self.num_threads = num_threads
-
-    def get_params(self) -> dict[str, Any]:
-        return {
-            "levels": [float(c) for c in self.levels],
-            "n_estimators": int(self.n_estimators),
-            "learning_rate": float(self.learning_rate),
-            "num_leaves": int(self.num_leaves),
-            "min_child_samples": int(self.min_child_samples),
-            "random_state": int(self.random_state),
-            "num_threads": int(self.num_threads),
-        }
 
     # -- fitting -----------------------------------------------------------
 

@@ -51,14 +51,14 @@ from models import features as F
 from models.arrays import as_matrix, as_target
 from models.bands import check_is_fitted, nearest_level, ordered_band, predict_booster
 from models.blend import simplex_weights
-from models.calibration import cqr_scores
+from models.calibration import cqr_scores, recency_weights, weighted_conformal_quantile
 from models.configfile import write_config
-from models.constraints import OPEN_UNIT, Interval
+from models.constraints import Interval, ParamsMixin
 from models.errors import InputError, NotFound, StoreError
 from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS
 from models.regressor import QuantileForecaster
-from models.textmodel import RidgeText
-from models.timing import TimingEffect, best_hour_share, hour_from_cyclic
+from models.stack_columns import duplicate_columns
+from models.timing import TimingEffect, hour_from_cyclic
 
 #: The share of the training block the stacking weights are fitted on.
 STACK_FRACTION = Interval(float, 0.05, 0.5)
@@ -95,44 +95,7 @@ STACK_PARAMS: dict[str, Any] = {
 }
 
 
-def extra_columns(
-    history: F.History, *, maturity_s: float, now: float
-) -> tuple[np.ndarray, RidgeText | None]:
-    """``text_ridge`` and ``account_code`` for every post of ``history``,
-    and the text model fitted on every post settled by ``now`` (for drafts).
-
-    ``text_ridge`` of a post comes from a ridge fitted only on posts settled
-    before the post (``models.textmodel.time_ordered_predictions``).
-    """
-    settled = F.eligible(history, now, F.FeatureParams(maturity_s=maturity_s))
-    y = np.where(settled, history.log_target, np.nan)
-    text: RidgeText | None = None
-    pred = np.full(len(history), np.nan)
-    if history.vectors.ndim == 2 and history.vectors.shape[1] > 0 and settled.sum() >= 30:
-        text = RidgeText(maturity_s=maturity_s).fit(history.vectors, y, history.time)
-        pred = text.oof_
-    return np.column_stack([pred, history.account.astype(np.float64)]), text
-
-
-def draft_columns(text: RidgeText | None, vectors: np.ndarray, accounts: Sequence[int]) -> np.ndarray:
-    """The same two columns for drafts: the fitted text model's prediction."""
-    n = len(accounts)
-    pred = text.predict(np.asarray(vectors).reshape(n, -1)) if text is not None else np.full(n, np.nan)
-    return np.column_stack([pred, np.asarray(accounts, dtype=np.float64)])
-
-
-def _duplicates(X: np.ndarray) -> set[int]:
-    """Columns equal (NaN included) to an earlier column on these rows."""
-    out: set[int] = set()
-    for j in range(X.shape[1]):
-        for i in range(j):
-            if i not in out and np.array_equal(X[:, i], X[:, j], equal_nan=True):
-                out.add(j)
-                break
-    return out
-
-
-class StackedForecaster:
+class StackedForecaster(ParamsMixin):
     """Blend of candidate forecasts with CQR bands; see the module doc."""
 
     def __init__(
@@ -165,23 +128,6 @@ class StackedForecaster:
         self.timing_bootstrap = timing_bootstrap
         self.random_state = random_state
         self.num_threads = num_threads
-
-    def get_params(self) -> dict[str, Any]:
-        return {
-            "levels": [float(c) for c in self.levels],
-            "max_estimators": int(self.max_estimators),
-            "early_stopping_rounds": int(self.early_stopping_rounds),
-            "learning_rate": float(self.learning_rate),
-            "num_leaves": int(self.num_leaves),
-            "min_child_samples": int(self.min_child_samples),
-            "stack_fraction": float(self.stack_fraction),
-            "boosted_timing": bool(self.boosted_timing),
-            "blend_timing": bool(self.blend_timing),
-            "recency_half_life": (None if self.recency_half_life is None else float(self.recency_half_life)),
-            "timing_bootstrap": int(self.timing_bootstrap),
-            "random_state": int(self.random_state),
-            "num_threads": int(self.num_threads),
-        }
 
     def _quantile_params(self, n_estimators: int) -> dict[str, Any]:
         return {
@@ -291,7 +237,7 @@ class StackedForecaster:
         if not self.boosted_timing or self.time_carries_nothing_:
             skip |= set(F.TIMING_FEATURES)
         cols = [i for i, nm in enumerate(names) if nm not in skip]
-        dup = _duplicates(Xt[:, cols])
+        dup = duplicate_columns(Xt[:, cols])
         self.dropped_ = tuple(names[cols[j]] for j in sorted(dup)) + tuple(nm for nm in names if nm in skip)
         cols = [c for j, c in enumerate(cols) if j not in dup]
         self.boosted_columns_ = tuple(names[c] for c in cols)
@@ -548,74 +494,3 @@ class StackedForecaster:
 
 def _booster_median(model: QuantileForecaster, X: np.ndarray) -> np.ndarray:
     return predict_booster(model.median_model_, X)
-
-
-def load_forecaster(directory: str | os.PathLike[str]) -> QuantileForecaster | StackedForecaster:
-    """Either kind of saved forecaster, by the kind its config names."""
-    path = Path(directory) / CONFIG_FILE
-    try:
-        kind = json.loads(path.read_text()).get("kind")
-    except (OSError, ValueError):
-        kind = None
-    if kind == "StackedForecaster":
-        return StackedForecaster.load(directory)
-    return QuantileForecaster.load(directory)
-
-
-def best_hour_confidence(
-    model: QuantileForecaster | StackedForecaster,
-    *,
-    local_hours: Sequence[float],
-    weekdays: Sequence[int],
-    account: int,
-    medians: Sequence[float],
-) -> float | None:
-    """Share of the timing component's bootstrap refits in which the slot
-    with the highest served median (log) stays highest; None for a model
-    without a timing component (older versions)."""
-    if not isinstance(model, StackedForecaster) or len(medians) == 0:
-        return None
-    n = len(medians)
-    clock = (
-        np.asarray(local_hours, dtype=float),
-        np.asarray(weekdays, dtype=float),
-        np.full(n, float(account)),
-    )
-    scale = model.timing_weight_ + model.weights_["boosted"]
-    effect = scale * model.timing_.predict(*clock)
-    draws = model.timing_.draws(*clock)
-    if draws.shape[0] == 0:
-        return None
-    return round(best_hour_share(np.asarray(medians, dtype=float), effect, draws, scale=scale), 3)
-
-
-def recency_weights(times: ArrayLike, *, half_life: float | None) -> np.ndarray:
-    """Weights of calibration rows (oldest first): halving every
-    ``half_life`` of the block's rows back from the newest, by position;
-    rows posted at the same time share their mean position. All ones when
-    ``half_life`` is None (plain split conformal)."""
-    t = np.asarray(times, dtype=float)
-    n = len(t)
-    if half_life is None or n == 0:
-        return np.ones(n)
-    # Average position of each distinct time (ties share it).
-    _, inverse, counts = np.unique(t, return_inverse=True, return_counts=True)
-    starts = np.r_[0, np.cumsum(counts)[:-1]]
-    pos = (starts + (counts - 1) / 2.0)[inverse]
-    return np.asarray(0.5 ** ((n - 1 - pos) / (float(half_life) * n)), dtype=float)
-
-
-def weighted_conformal_quantile(scores: ArrayLike, weights: ArrayLike, *, alpha: float) -> float:
-    """The smallest score ``q`` with ``sum(w_i [s_i <= q]) / (sum(w) + w_test)
-    >= 1 - alpha``, the test point weighing as much as the newest row
-    (``max(w)``); infinite when no score reaches it. With equal weights this
-    is the ``ceil((n + 1)(1 - alpha))``-th smallest score of split conformal."""
-    s = np.asarray(scores, dtype=float)
-    w = np.asarray(weights, dtype=float)
-    if s.shape != w.shape or s.ndim != 1 or s.size == 0:
-        raise InputError("scores and weights must be 1-D of one non-zero length", field="scores")
-    OPEN_UNIT.check(float(alpha), "alpha")
-    order = np.argsort(s, kind="stable")
-    cum = np.cumsum(w[order]) / (w.sum() + w.max())
-    k = int(np.searchsorted(cum, 1.0 - float(alpha) - 1e-12, side="left"))
-    return float(s[order][k]) if k < s.size else math.inf

@@ -14,7 +14,8 @@ from models.artefact import TrainedModel
 from models.backtest import run_backtest
 from models.errors import NotReady
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_target
-from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster, extra_columns
+from models.stack_columns import extra_columns
+from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
 from service.clock import now_utc, wall_clock
 from service.datadir import DataDir
 from service.history.retrieval import Retriever

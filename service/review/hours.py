@@ -13,8 +13,8 @@ from pydantic import BaseModel, Field
 
 from models.constraints import Interval
 from models.errors import InputError
+from models.hour_confidence import best_hour_confidence
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
-from models.stacking import best_hour_confidence
 from service.answers import Coverage, Instant, Round3
 from service.clock import UTC, now_utc, zone
 from service.forecast.answer import CAUTION

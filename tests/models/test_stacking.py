@@ -16,15 +16,11 @@ from sklearn.linear_model import Ridge
 from models import features as F
 from models.backtest import _splits, signal_note, text_signal
 from models.blend import simplex_weights
+from models.calibration import recency_weights, weighted_conformal_quantile
 from models.errors import InputError, NotFittedError
 from models.evaluation import rolling_origin_splits
-from models.stacking import (
-    ALL_FEATURES,
-    StackedForecaster,
-    extra_columns,
-    recency_weights,
-    weighted_conformal_quantile,
-)
+from models.stack_columns import extra_columns
+from models.stacking import ALL_FEATURES, StackedForecaster
 from models.textmodel import (
     RidgeText,
     chunk_starts,
