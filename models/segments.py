@@ -23,7 +23,6 @@ when it loses every pair, and 0 when it wins as often as it loses.
 
 from __future__ import annotations
 
-import itertools
 import math
 from collections.abc import Hashable, Mapping, Sequence
 from typing import Annotated, Any
@@ -43,9 +42,6 @@ SIMILARITY = Interval(float, -1.0, 1.0)
 #: Name of the catch-all topic segment; it is treated like any other.
 OTHER = "other"
 
-#: Default hour buckets (local time) and text-length bands (characters).
-DEFAULT_HOUR_EDGES: tuple[int, ...] = (0, 6, 9, 12, 15, 18, 21, 24)
-DEFAULT_LENGTH_EDGES: tuple[int, ...] = (0, 80, 160, 240, 10**9)
 
 #: Defaults of a comparison: segments with fewer posts are flagged, the
 #: median's bootstrap interval, and the level that steers the wording.
@@ -54,8 +50,6 @@ DEFAULT_CONFIDENCE = 0.95
 DEFAULT_RESAMPLES = 2000
 DEFAULT_ALPHA = 0.05
 
-# An upper length edge this large means "no upper limit" in labels.
-_OPEN_END = 10**9
 
 # Resampling is done in blocks so that a long history (say 100k posts x 2000
 # resamples) never allocates one giant index matrix.
@@ -67,9 +61,7 @@ _BOOTSTRAP_BLOCK_CELLS = 4_000_000
 
 
 def check_min_n(min_n: int) -> int:
-    if isinstance(min_n, bool) or not isinstance(min_n, (int, np.integer)) or min_n < 1:
-        raise InputError("min_n must be a whole number of at least 1", field="min_n", value=min_n)
-    return int(min_n)
+    return int(AT_LEAST_ONE.check(min_n, "min_n"))
 
 
 def check_confidence(confidence: float) -> float:
@@ -91,9 +83,7 @@ def check_threshold(threshold: float) -> float:
 
 def check_k(k: int) -> int:
     """How many posts a topic takes in top-k mode."""
-    if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or k < 1:
-        raise InputError("k must be a whole number of at least 1", field="k", value=k)
-    return int(k)
+    return int(AT_LEAST_ONE.check(k, "k"))
 
 
 def check_params(*, min_n: int, confidence: float, n_resamples: int, alpha: float) -> None:
@@ -120,7 +110,7 @@ def _finite_or_none(x: Any) -> Any:
 Num = Annotated[float | None, BeforeValidator(_finite_or_none)]
 
 
-def _as_values(values: npt.ArrayLike, what: str = "values") -> np.ndarray:
+def as_values(values: npt.ArrayLike, what: str = "values") -> np.ndarray:
     """A finite, non-empty 1-D float array, or a clear InputError."""
     try:
         arr = np.asarray(values, dtype=float)
@@ -141,7 +131,7 @@ def _as_values(values: npt.ArrayLike, what: str = "values") -> np.ndarray:
     return arr
 
 
-def _as_labels(labels: Sequence[Hashable] | np.ndarray, n: int, what: str = "labels") -> list[str]:
+def as_labels(labels: Sequence[Hashable] | np.ndarray, n: int, what: str = "labels") -> list[str]:
     """Labels as strings, one per value. None is refused rather than turned
     into the string "None", which would hide a missing-data bug."""
     out = list(labels)
@@ -156,7 +146,7 @@ def _as_labels(labels: Sequence[Hashable] | np.ndarray, n: int, what: str = "lab
     return [str(lab) for lab in out]
 
 
-def _ordered_names(names: Sequence[str], order: Sequence[str] | None) -> list[str]:
+def ordered_names(names: Sequence[str], order: Sequence[str] | None) -> list[str]:
     """Segment order: the caller's, or alphabetical with "other" last."""
     present = set(names)
     if order is None:
@@ -209,102 +199,6 @@ def verdict(seg: SegmentStats, *, metric: str | None, min_n: int, alpha: float) 
 
 
 # --------------------------------------------------------------------------
-# Assignment of posts to topics
-
-
-def assign_nearest(similarities: npt.ArrayLike, *, threshold: float) -> np.ndarray:
-    """For each post (a row of cosine similarities, one column per topic),
-    the index of its most similar topic, or -1 ("other") when even the best
-    similarity is below ``threshold``. Ties go to the lower topic index."""
-    check_threshold(threshold)
-    # No cast: float32 similarities are compared as they come, so the
-    # threshold means the same here as beside a search's scores.
-    sims = np.asarray(similarities)
-    if sims.ndim != 2 or sims.dtype.kind != "f":
-        raise InputError(
-            "similarities must be a 2-D array of numbers (one row per post)", field="similarities"
-        )
-    if sims.shape[1] == 0:
-        raise InputError("there are no topics to assign posts to", field="similarities")
-    if not np.isfinite(sims).all():
-        raise InputError("similarities has non-finite entries", field="similarities")
-    if sims.shape[0] == 0:
-        return np.empty(0, dtype=np.int64)
-    best: np.ndarray = np.argmax(sims, axis=1).astype(np.int64)
-    best[sims[np.arange(sims.shape[0]), best] < threshold] = -1
-    return best
-
-
-# --------------------------------------------------------------------------
-# Hour buckets and length bands
-
-
-def _check_edges(edges: Sequence[float], what: str) -> np.ndarray:
-    arr = np.asarray(edges, dtype=float)
-    if arr.ndim != 1 or arr.size < 2:
-        raise InputError(f"{what} needs at least two edges", field=what)
-    if not np.isfinite(arr).all() or np.any(np.diff(arr) <= 0):
-        raise InputError(f"{what} must be strictly increasing numbers", field=what)
-    return arr
-
-
-def hour_labels(edges: Sequence[int] = DEFAULT_HOUR_EDGES) -> list[str]:
-    """Labels of the hour buckets in clock order, e.g. "06–09"."""
-    arr = _check_edges(edges, "hour edges")
-    if arr[0] != 0 or arr[-1] != 24:
-        raise InputError("hour edges must start at 0 and end at 24", field="hour edges")
-    if np.any(arr != np.round(arr)):
-        raise InputError("hour edges must be whole hours", field="hour edges")
-    ints = arr.astype(int)
-    return [f"{a:02d}–{b:02d}" for a, b in itertools.pairwise(ints)]
-
-
-def bucket_hours(hours: npt.ArrayLike, edges: Sequence[int] = DEFAULT_HOUR_EDGES) -> np.ndarray:
-    """The bucket label of each local hour (0 <= hour < 24; fractions such
-    as 13.5 are fine). A bucket includes its lower edge, not its upper."""
-    names = hour_labels(edges)
-    arr = np.asarray(hours, dtype=float)
-    if arr.ndim != 1:
-        raise InputError("hours must be a flat list", field="hours")
-    if arr.size and (not np.isfinite(arr).all() or arr.min() < 0 or arr.max() >= 24):
-        raise InputError("hours must lie in 0..24 (24 itself is hour 0)", field="hours")
-    idx = np.searchsorted(np.asarray(edges, dtype=float), arr, side="right") - 1
-    return np.asarray(names, dtype=object)[idx]
-
-
-def length_labels(edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> list[str]:
-    """Labels of the length bands in increasing order: "<80", "80–159", ...,
-    and "≥240" for a last band whose upper edge is 10**9 or more."""
-    arr = _check_edges(edges, "length edges")
-    if arr[0] != 0 or np.any(arr != np.round(arr)):
-        raise InputError("length edges must be whole numbers starting at 0", field="length edges")
-    ints = [int(e) for e in arr]
-    out = []
-    for i, (a, b) in enumerate(itertools.pairwise(ints)):
-        if i == 0:
-            out.append(f"<{b}")
-        elif b >= _OPEN_END:
-            out.append(f"≥{a}")
-        else:
-            out.append(f"{a}–{b - 1}")
-    return out
-
-
-def length_band(lengths: npt.ArrayLike, edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> np.ndarray:
-    """The band label of each text length (a whole number of characters)."""
-    names = length_labels(edges)
-    arr = np.asarray(lengths, dtype=float)
-    if arr.ndim != 1:
-        raise InputError("lengths must be a flat list", field="lengths")
-    if arr.size and (
-        not np.isfinite(arr).all() or np.any(arr != np.round(arr)) or arr.min() < 0 or arr.max() >= edges[-1]
-    ):
-        raise InputError(f"lengths must be whole numbers from 0 to below {edges[-1]}", field="lengths")
-    idx = np.searchsorted(np.asarray(edges, dtype=float), arr, side="right") - 1
-    return np.asarray(names, dtype=object)[idx]
-
-
-# --------------------------------------------------------------------------
 # Statistics
 
 
@@ -320,7 +214,7 @@ def bootstrap_median_ci(
     One value gives a zero-width interval at that value: there is nothing
     to resample, and the reading of the segment says it is too small anyway.
     """
-    arr = _as_values(values)
+    arr = as_values(values)
     check_confidence(confidence)
     check_resamples(n_resamples)
     n = arr.size
@@ -505,10 +399,10 @@ def compare_segments(
     of the readings, and ``metric`` how their numbers are written; the
     numbers are reported in full either way.
     """
-    arr = _as_values(values)
-    names = _as_labels(labels, arr.size)
+    arr = as_values(values)
+    names = as_labels(labels, arr.size)
     check_params(min_n=min_n, confidence=confidence, n_resamples=n_resamples, alpha=alpha)
-    ordered = _ordered_names(names, order)
+    ordered = ordered_names(names, order)
     if len(ordered) < 2:
         raise InputError(
             f"only one segment ({ordered[0]!r}): a split needs at least two to compare",
@@ -544,7 +438,7 @@ def compare_groups(
     each topic's nearest posts (name -> post indices). Each group is
     compared with the posts outside it. No Kruskal–Wallis test is given,
     because it needs every post in exactly one group."""
-    arr = _as_values(values)
+    arr = as_values(values)
     check_params(min_n=min_n, confidence=confidence, n_resamples=n_resamples, alpha=alpha)
     if len(groups) < 2:
         raise InputError("a split needs at least two groups to compare", field="groups")
@@ -567,82 +461,3 @@ def compare_groups(
         alpha=alpha,
         metric=metric,
     )
-
-
-# --------------------------------------------------------------------------
-# Two-way table
-
-
-class TwoWayCell(BaseModel):
-    row: str
-    col: str
-    n: int
-    median: Num
-    too_small: bool
-
-
-class TwoWayTable(BaseModel):
-    """Post count and median of the metric per (row, column) cell; cells
-    with no posts have no median."""
-
-    row_by: str = Field(description="What the rows split by (topic)")
-    col_by: str = Field(description="What the columns split by")
-    rows: list[str]
-    cols: list[str]
-    min_n: int
-    cells: list[TwoWayCell] = Field(description="Row by row, each row's columns in order")
-
-    def _grid(self, values: list[Any], dtype: type) -> np.ndarray:
-        return np.asarray(values, dtype=dtype).reshape(len(self.rows), len(self.cols))
-
-    @property
-    def n(self) -> np.ndarray:
-        """Post counts, shape (rows, cols)."""
-        return self._grid([c.n for c in self.cells], np.int64)
-
-    @property
-    def median(self) -> np.ndarray:
-        """Medians, shape (rows, cols); NaN for an empty cell."""
-        return self._grid([math.nan if c.median is None else c.median for c in self.cells], np.float64)
-
-    @property
-    def too_small(self) -> np.ndarray:
-        return self._grid([c.too_small for c in self.cells], np.bool_)
-
-
-def two_way(
-    values: npt.ArrayLike,
-    row_labels: Sequence[Hashable] | np.ndarray,
-    col_labels: Sequence[Hashable] | np.ndarray,
-    *,
-    row_by: str = "rows",
-    col_by: str = "columns",
-    min_n: int = DEFAULT_MIN_N,
-    row_order: Sequence[str] | None = None,
-    col_order: Sequence[str] | None = None,
-) -> TwoWayTable:
-    """Cross two splits, e.g. topic by hour bucket. Only counts and medians:
-    with many small cells, per-cell tests would mostly be noise."""
-    arr = _as_values(values)
-    rows = _as_labels(row_labels, arr.size, "row_labels")
-    cols = _as_labels(col_labels, arr.size, "col_labels")
-    check_min_n(min_n)
-    row_names = _ordered_names(rows, row_order)
-    col_names = _ordered_names(cols, col_order)
-    cell_vals: dict[tuple[str, str], list[float]] = {}
-    for v, r, c in zip(arr, rows, cols, strict=True):
-        cell_vals.setdefault((r, c), []).append(float(v))
-    cells = []
-    for r in row_names:
-        for c in col_names:
-            vals = cell_vals.get((r, c), [])
-            cells.append(
-                TwoWayCell(
-                    row=r,
-                    col=c,
-                    n=len(vals),
-                    median=float(np.median(vals)) if vals else None,
-                    too_small=len(vals) < min_n,
-                )
-            )
-    return TwoWayTable(row_by=row_by, col_by=col_by, rows=row_names, cols=col_names, min_n=min_n, cells=cells)

@@ -16,7 +16,8 @@ from typing import Annotated, Literal
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
-from models.segments import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES, DEFAULT_MIN_N
+from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES
+from models.segments import DEFAULT_MIN_N
 from service.answers import Calibration, Coverage, LiveCoverage
 from service.clock import EARLIEST, as_utc, latest_time, range_text
 from service.forecast.answer import Contributions, Forecast, Forecasts, GroupEffect

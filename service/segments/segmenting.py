@@ -40,30 +40,31 @@ from models.errors import InputError, NotReady
 from models.figure_style import FORMATS
 from models.metrics import DEFAULT_METRIC, check_target, target_values
 from models.plots import plot_segments
+from models.segment_bins import (
+    DEFAULT_HOUR_EDGES,
+    DEFAULT_LENGTH_EDGES,
+    assign_nearest,
+    bucket_hours,
+    hour_labels,
+    length_band,
+    length_labels,
+)
 from models.segments import (
     DEFAULT_ALPHA,
     DEFAULT_CONFIDENCE,
-    DEFAULT_HOUR_EDGES,
-    DEFAULT_LENGTH_EDGES,
     DEFAULT_MIN_N,
     DEFAULT_RESAMPLES,
     OTHER,
     Num,
     SegmentReport,
     SegmentStats,
-    TwoWayTable,
-    assign_nearest,
-    bucket_hours,
     check_k,
     check_min_n,
     check_threshold,
     compare_groups,
     compare_segments,
-    hour_labels,
-    length_band,
-    length_labels,
-    two_way,
 )
+from models.two_way import TwoWayTable, two_way
 from service.clock import now_utc
 from service.datadir import DataDir
 from service.history.view import local_clock

@@ -13,19 +13,9 @@ from sklearn.metrics.pairwise import cosine_similarity
 from statsmodels.stats.multitest import multipletests
 
 from models.errors import InputError
-from models.segments import (
-    SegmentReport,
-    assign_nearest,
-    bootstrap_median_ci,
-    bucket_hours,
-    compare_groups,
-    compare_segments,
-    holm,
-    hour_labels,
-    length_band,
-    length_labels,
-    two_way,
-)
+from models.segment_bins import assign_nearest, bucket_hours, hour_labels, length_band, length_labels
+from models.segments import SegmentReport, bootstrap_median_ci, compare_groups, compare_segments, holm
+from models.two_way import two_way
 
 
 def _tied_data(seed: int) -> tuple[np.ndarray, np.ndarray]:
