@@ -27,8 +27,8 @@ from service.history.repeats import Repeat
 from service.ingest.importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
 from service.review.hours import HoursReport, Slot
 from service.review.wordings import Variant, VariantsReport
-from service.segments.segmenting import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
-from service.segments.segmenting import SegmentResult as SegmentResult  # the answer, used as it is
+from service.segments.answer import SegmentResult as SegmentResult  # the answer, used as it is
+from service.segments.request import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
 from service.storage.accounts import AccountInfo
 from service.track.answers import TrackRecord
 

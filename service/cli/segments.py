@@ -15,7 +15,9 @@ from models.metrics import DEFAULT_METRIC
 from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value
 from service.cli.base import app, err, out, print_json, workspace
 from service.cli.render import Column, cut, interval_bar, print_table
-from service.segments.segmenting import (
+from service.segments.answer import SegmentResult, Split
+from service.segments.figure import render
+from service.segments.request import (
     BY_CHOICES,
     DEFAULT_EXAMPLES,
     DEFAULT_K,
@@ -23,12 +25,9 @@ from service.segments.segmenting import (
     NOTE,
     TOPIC,
     SegmentRequest,
-    SegmentResult,
-    Split,
     parse_edges,
-    render,
-    segment,
 )
+from service.segments.segmenting import segment
 
 # Long (multi-phrase) topic names are shortened in tables only; the reading
 # lines and the JSON keep them whole.

@@ -26,358 +26,41 @@ of the hours.
 from __future__ import annotations
 
 import typing
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime, timedelta
-from typing import Any, Literal
+from typing import Any
 
 import numpy as np
 import pandas as pd
-from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_serializer
 
-from models.embedding import normalise_text
 from models.errors import InputError, NotReady
-from models.figure_style import FORMATS
-from models.metrics import DEFAULT_METRIC, check_target, target_values
-from models.plots import plot_segments
+from models.metrics import target_values
 from models.segment_bins import (
-    DEFAULT_HOUR_EDGES,
-    DEFAULT_LENGTH_EDGES,
     assign_nearest,
     bucket_hours,
     hour_labels,
     length_band,
     length_labels,
 )
-from models.segments import (
-    DEFAULT_ALPHA,
-    DEFAULT_CONFIDENCE,
-    DEFAULT_MIN_N,
-    DEFAULT_RESAMPLES,
-    OTHER,
-    Num,
-    SegmentReport,
-    SegmentStats,
-    check_k,
-    check_min_n,
-    check_threshold,
-    compare_groups,
-    compare_segments,
-)
-from models.two_way import TwoWayTable, two_way
+from models.segments import OTHER, compare_groups, compare_segments
+from models.two_way import two_way
 from service.clock import now_utc
 from service.datadir import DataDir
 from service.history.view import local_clock
-
-#: What a one-way split can be made by, besides topics.
-By = Literal["hour", "weekday", "link", "media", "length", "account"]
-BY_CHOICES: tuple[str, ...] = typing.get_args(By)
-#: How posts join topics: each post its nearest phrase, or each phrase its k nearest posts.
-Mode = Literal["nearest", "top-k"]
-MODES: tuple[str, ...] = typing.get_args(Mode)
-TOPIC = "topic"
-
-#: Cosine similarity a post needs with its nearest phrase to join that topic.
-#: all-MiniLM-L6-v2 gives a short phrase and a matching post about 0.3-0.6;
-#: unrelated pairs sit mostly below 0.25 (measured on the demo history, where
-#: the median best similarity of a post to six one-phrase topics is 0.35).
-DEFAULT_THRESHOLD = 0.3
-DEFAULT_K = 100
-#: Example posts shown per topic segment, and the most that may be asked for.
-DEFAULT_EXAMPLES = 3
-MAX_EXAMPLES = 20
-#: Fewer posts with the metric than this, and no split is worth reading.
-MIN_POSTS = 20
-MAX_TOPICS = 20
-MAX_PHRASE_CHARS = 200
-PHRASE_SEPARATOR = "|"
-PLOT_NAME_CHARS = 30  # longer segment names crowd the figure's axis labels
-WEEKDAYS: tuple[str, ...] = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
-
-NOTE = (
-    "Segments describe this team's own history: a difference between segments is an "
-    "association, not a cause (topics, hours and forms are mixed in the posts)."
+from service.segments.answer import Example, LeftOut, SegmentResult, Split
+from service.segments.request import (
+    LINK_NAMES,
+    MEDIA_NAMES,
+    MIN_POSTS,
+    TOPIC,
+    WEEKDAYS,
+    SegmentRequest,
+    Topic,
+    _check_hour_edges,
+    _check_length_edges,
+    check_request,
 )
-
-_LINK_NAMES = ("no link", "with link")
-_MEDIA_NAMES = ("no media", "with media")
-
-
-# --------------------------------------------------------------------------
-# The request
-
-
-@dataclass(frozen=True, slots=True, kw_only=True)
-class SegmentRequest:
-    """What to split, by what, and how. Checked by :func:`segment`."""
-
-    topics: Sequence[str] = ()
-    by: str | None = None
-    metric: str = DEFAULT_METRIC
-    mode: str = "nearest"
-    k: int = DEFAULT_K
-    threshold: float = DEFAULT_THRESHOLD
-    hour_edges: Sequence[int] = DEFAULT_HOUR_EDGES
-    length_edges: Sequence[int] = DEFAULT_LENGTH_EDGES
-    account: str | None = None
-    min_n: int = DEFAULT_MIN_N
-    confidence: float = DEFAULT_CONFIDENCE
-    n_resamples: int = DEFAULT_RESAMPLES
-    alpha: float = DEFAULT_ALPHA
-    examples: int = DEFAULT_EXAMPLES
-    seed: int = 0
-
-
-class Topic(BaseModel):
-    """A topic as the answer names it: its phrases as given, tidied."""
-
-    model_config = ConfigDict(frozen=True)
-
-    name: str
-    phrases: tuple[str, ...]
-
-
-def parse_topics(raw: Sequence[str]) -> list[Topic]:
-    """Topics from the user's phrases; "a | b" is one topic with two phrases."""
-    if isinstance(raw, str):
-        raw = [raw]
-    if len(raw) > MAX_TOPICS:
-        raise InputError(f"{len(raw)} topics; at most {MAX_TOPICS} at a time", field="topics")
-    topics: list[Topic] = []
-    seen: dict[str, int] = {}
-    for i, text in enumerate(raw):
-        if not isinstance(text, str):
-            raise InputError(f"topic {i + 1} is not text", field=f"topics.{i}")
-        parts = [normalise_text(p) for p in text.split(PHRASE_SEPARATOR)]
-        if not any(parts):
-            raise InputError(
-                f"topic {i + 1} is an empty phrase",
-                field=f"topics.{i}",
-                hint="give a few words such as 'flowers in bloom'",
-            )
-        if not all(parts):
-            raise InputError(
-                f"topic {i + 1} ({text.strip()!r}) has an empty alternative around '{PHRASE_SEPARATOR}'",
-                field=f"topics.{i}",
-            )
-        for p in parts:
-            if len(p) > MAX_PHRASE_CHARS:
-                raise InputError(
-                    f"topic {i + 1} has a phrase of {len(p)} characters; a topic phrase is "
-                    f"short (at most {MAX_PHRASE_CHARS})",
-                    field=f"topics.{i}",
-                )
-        name = f" {PHRASE_SEPARATOR} ".join(parts)
-        key = name.casefold()
-        if key == OTHER:
-            raise InputError(
-                f"{OTHER!r} is the name of the posts no topic catches; choose another phrase",
-                field=f"topics.{i}",
-            )
-        if key in seen:
-            raise InputError(f"topic {i + 1} ({name!r}) repeats topic {seen[key] + 1}", field=f"topics.{i}")
-        seen[key] = i
-        topics.append(Topic(name=name, phrases=tuple(parts)))
-    return topics
-
-
-def parse_edges(text: str, what: str = "--hour-edges") -> list[int]:
-    """Comma-separated whole numbers, as typed on the command line."""
-    parts = [p.strip() for p in text.split(",")]
-    try:
-        return [int(p) for p in parts]
-    except ValueError:
-        raise InputError(
-            f"{what} must be whole numbers separated by commas, such as 0,6,9,12,15,18,21,24; got {text!r}",
-            field=what,
-        ) from None
-
-
-def _check_hour_edges(edges: Sequence[int]) -> tuple[int, ...]:
-    try:
-        hour_labels(edges)
-    except InputError as exc:
-        shown = ",".join(str(e) for e in edges)
-        raise InputError(
-            f"bad hour edges {shown or '(none)'}: {exc.message}",
-            field="hour_edges",
-            hint="for example 0,6,9,12,15,18,21,24",
-        ) from None
-    return tuple(int(e) for e in edges)
-
-
-def _check_length_edges(edges: Sequence[int]) -> tuple[int, ...]:
-    try:
-        length_labels(edges)
-    except InputError as exc:
-        shown = ",".join(str(e) for e in edges)
-        raise InputError(
-            f"bad length edges {shown or '(none)'}: {exc.message}", field="length_edges"
-        ) from None
-    return tuple(int(e) for e in edges)
-
-
-def _check(req: SegmentRequest) -> list[Topic]:
-    """Every input check, before the store is read."""
-    topics = parse_topics(req.topics)
-    if req.by is not None and req.by not in BY_CHOICES:
-        raise InputError(
-            f"cannot split by {req.by!r}; choose one of {', '.join(BY_CHOICES)}", field="by", value=req.by
-        )
-    if not topics and req.by is None:
-        raise InputError(
-            "nothing to split: give topic phrases, a split (by), or both",
-            field="topics",
-            hint="e.g. --topic 'flowers in bloom' --topic 'shop offers' or --by hour",
-        )
-    check_target(req.metric)
-    if req.mode not in MODES:
-        raise InputError(
-            f"unknown mode {req.mode!r}; choose one of {', '.join(MODES)}", field="mode", value=req.mode
-        )
-    check_threshold(req.threshold)
-    check_k(req.k)
-    if (
-        isinstance(req.examples, bool)
-        or not isinstance(req.examples, int)
-        or not 0 <= req.examples <= MAX_EXAMPLES
-    ):
-        raise InputError(f"examples must be a whole number from 0 to {MAX_EXAMPLES}", field="examples")
-    # The rest of the comparison's parameters are checked where they are used
-    # (models.segments.check_params); min_n is needed before that, for warnings.
-    check_min_n(req.min_n)
-    _check_hour_edges(req.hour_edges)
-    _check_length_edges(req.length_edges)
-    return topics
-
-
-# --------------------------------------------------------------------------
-# The result
-
-
-class Example(BaseModel):
-    """A post that a topic phrase caught, to show what the phrase means."""
-
-    post_id: str
-    account: str
-    posted_at: datetime
-    text: str
-    similarity: float = Field(description="Cosine similarity to the topic's phrase(s)")
-    value: Num = Field(description="The post's value of the metric")
-
-    @field_serializer("similarity")
-    def _rounded(self, similarity: float) -> float:
-        return round(similarity, 4)  # four places tell posts apart; more is noise
-
-
-class SplitSegment(SegmentStats):
-    """One segment of a split, with the posts that show a topic's meaning."""
-
-    examples: list[Example] | None = Field(
-        default=None,
-        description="Topic splits only: the posts most similar to the phrase; "
-        "for 'other', the posts closest to a topic that still missed",
-    )
-
-
-class Split(SegmentReport):
-    """One one-way split: the statistics of its segments, what they were
-    split by, and (kept out of the JSON) what the figure needs: the values
-    and the per-post labels or overlapping groups."""
-
-    by: str = Field(description="topic, or the by of the request")
-    title: str
-    mode: str | None = None
-    threshold: float | None = None
-    k: int | None = None
-    topics: list[Topic] | None = None
-    segments: list[SplitSegment]
-
-    _values: np.ndarray = PrivateAttr(default_factory=lambda: np.zeros(0))
-    _labels: np.ndarray | Mapping[str, np.ndarray] = PrivateAttr(default_factory=dict)
-
-    @classmethod
-    def of(
-        cls,
-        report: SegmentReport,
-        *,
-        by: str,
-        title: str,
-        values: np.ndarray,
-        labels: np.ndarray | Mapping[str, np.ndarray],
-        examples: Mapping[str, list[Example]] | None = None,
-        mode: str | None = None,
-        threshold: float | None = None,
-        k: int | None = None,
-        topics: list[Topic] | None = None,
-    ) -> Split:
-        """The split of ``report``; ``examples`` (by segment name) for topics."""
-        segments = [
-            SplitSegment(
-                **seg.model_dump(exclude={"note"}),
-                examples=None if examples is None else examples.get(seg.name, []),
-            )
-            for seg in report.segments
-        ]
-        split = cls(
-            **report.model_dump(exclude={"segments"}),
-            segments=segments,
-            by=by,
-            title=title,
-            mode=mode,
-            threshold=threshold,
-            k=k,
-            topics=topics,
-        )
-        split._values, split._labels = values, labels
-        return split
-
-    def segment(self, name: str) -> SplitSegment:
-        for seg in self.segments:
-            if seg.name == name:
-                return seg
-        raise KeyError(name)
-
-    @property
-    def values(self) -> np.ndarray:
-        """The metric of each post in the split."""
-        return self._values
-
-    @property
-    def labels(self) -> np.ndarray | Mapping[str, np.ndarray]:
-        """Each post's segment, or (overlapping segments) each segment's post rows."""
-        return self._labels
-
-
-class LeftOut(BaseModel):
-    no_metric: int = Field(description="Posts without the metric")
-    still_gathering: int = Field(
-        description="Posts whose metrics are not final yet (younger than the maturity window)"
-    )
-
-
-class SegmentResult(BaseModel):
-    """The answer to a segments request (HTTP, CLI ``--json`` and page alike)."""
-
-    metric: str
-    account: str | None
-    n_posts: int
-    left_out: LeftOut
-    splits: list[Split]
-    two_way: TwoWayTable | None = None
-    warnings: list[str] = Field(default_factory=list)
-    note: str = NOTE
-
-    def split(self, by: str) -> Split:
-        for s in self.splits:
-            if s.by == by:
-                return s
-        raise InputError(
-            f"there is no {by!r} split here; this answer has {', '.join(s.by for s in self.splits)}",
-            field="plot",
-            value=by,
-        )
-
 
 # --------------------------------------------------------------------------
 # Gathering the posts
@@ -435,11 +118,11 @@ def _by_labels(posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray,
             "local weekday of posting",
         )
     if by == "link":
-        lab = np.where(f["has_link"].to_numpy(bool), _LINK_NAMES[1], _LINK_NAMES[0])
-        return lab.astype(object), list(_LINK_NAMES), "link in the text"
+        lab = np.where(f["has_link"].to_numpy(bool), LINK_NAMES[1], LINK_NAMES[0])
+        return lab.astype(object), list(LINK_NAMES), "link in the text"
     if by == "media":
-        lab = np.where(f["has_media"].to_numpy(bool), _MEDIA_NAMES[1], _MEDIA_NAMES[0])
-        return lab.astype(object), list(_MEDIA_NAMES), "media attached"
+        lab = np.where(f["has_media"].to_numpy(bool), MEDIA_NAMES[1], MEDIA_NAMES[0])
+        return lab.astype(object), list(MEDIA_NAMES), "media attached"
     if by == "length":
         edges = _check_length_edges(req.length_edges)
         lengths = np.array([len(t) for t in f["text"]], dtype=np.int64)
@@ -644,7 +327,7 @@ def _small_warnings(split: Split, min_n: int) -> list[str]:
 def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) -> SegmentResult:
     """Split the store's mature posts by topic, by ``req.by``, or both (then
     also the two-way table topic x by)."""
-    topics = _check(req)
+    topics = check_request(req)
     posts, left_out = _posts(ws, req, now or now_utc())
     warnings: list[str] = []
     splits: list[Split] = []
@@ -697,65 +380,3 @@ def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) ->
         two_way=table,
         warnings=warnings,
     )
-
-
-def render(result: SegmentResult, *, by: str | None = None, fmt: str = "png") -> bytes:
-    """The figure of one split (the first one unless ``by`` names another)."""
-    fmt = fmt.lower()
-    if fmt not in FORMATS:
-        raise InputError(f"figure format must be one of {', '.join(FORMATS)}", field="format", value=fmt)
-    split = result.split(by) if by else result.splits[0]
-    names = plot_names([seg.name for seg in split.segments])
-    shown = split.model_copy(
-        update={"segments": [seg.model_copy(update={"name": names[seg.name]}) for seg in split.segments]}
-    )
-    labels: np.ndarray | dict[str, np.ndarray]
-    if isinstance(split.labels, Mapping):
-        labels = {names[k]: v for k, v in split.labels.items()}
-    else:
-        labels = np.asarray([names[x] for x in split.labels], dtype=object)
-    return plot_segments(shown, split.values, labels, metric=result.metric, fmt=fmt)
-
-
-def plot_names(names: Sequence[str], width: int = PLOT_NAME_CHARS) -> dict[str, str]:
-    """Short, unique figure labels: a topic of several phrases shows its
-    first phrase and how many more ("flowers in bloom (+5)"); the full
-    names stay in the JSON and the table."""
-    out: dict[str, str] = {}
-    for name in names:
-        parts = name.split(f" {PHRASE_SEPARATOR} ")
-        short = name if len(parts) == 1 else f"{parts[0]} (+{len(parts) - 1})"
-        if len(short) > width:
-            short = short[: width - 1].rstrip() + "…"
-        base, i = short, 2
-        while short in out.values():
-            short, i = f"{base} #{i}", i + 1
-        out[name] = short
-    return out
-
-
-__all__ = [
-    "BY_CHOICES",
-    "DEFAULT_EXAMPLES",
-    "DEFAULT_K",
-    "DEFAULT_THRESHOLD",
-    "MAX_EXAMPLES",
-    "MIN_POSTS",
-    "MODES",
-    "NOTE",
-    "TOPIC",
-    "By",
-    "Example",
-    "LeftOut",
-    "Mode",
-    "SegmentRequest",
-    "SegmentResult",
-    "Split",
-    "SplitSegment",
-    "Topic",
-    "parse_edges",
-    "parse_topics",
-    "plot_names",
-    "render",
-    "segment",
-]

@@ -31,7 +31,10 @@ from models.segments import OTHER
 from service.api.app import create_app
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
-from service.segments.segmenting import SegmentRequest, SegmentResult, render, segment
+from service.segments.answer import SegmentResult
+from service.segments.figure import render
+from service.segments.request import SegmentRequest
+from service.segments.segmenting import segment
 
 ROOT = Path(__file__).resolve().parents[2]
 EFFECTS = json.loads((ROOT / "demo_data" / "effects.json").read_text())

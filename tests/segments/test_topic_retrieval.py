@@ -19,7 +19,8 @@ from sklearn.metrics.pairwise import cosine_similarity
 from models.errors import StoreError
 from models.index import VectorIndex
 from models.segments import OTHER
-from service.segments.segmenting import SegmentRequest, segment
+from service.segments.request import SegmentRequest
+from service.segments.segmenting import segment
 from service.settings import Settings
 from service.workspace import Workspace
 

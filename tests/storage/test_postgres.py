@@ -28,7 +28,8 @@ from models.embedding import Embedder
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.forecast.draft import Draft
-from service.segments.segmenting import SegmentRequest, segment
+from service.segments.request import SegmentRequest
+from service.segments.segmenting import segment
 from service.settings import Settings
 from service.workspace import Workspace
 

@@ -9,7 +9,9 @@ from models.errors import InputError, NotFound, NotReady, StoreError
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
 from service.api.schemas import SegmentResult, SegmentsRequest
-from service.segments.segmenting import SegmentRequest, render, segment
+from service.segments.figure import render
+from service.segments.request import SegmentRequest
+from service.segments.segmenting import segment
 
 router = APIRouter(prefix="/v1", tags=["segments"])
 

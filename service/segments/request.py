@@ -1,0 +1,209 @@
+"""What a segments request asks: the metric, the topics (phrases, alternatives
+joined by ``|``), the splits, the statistics' parameters; checked before any
+post is read."""
+
+from __future__ import annotations
+
+import typing
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict
+
+from models.embedding import normalise_text
+from models.errors import InputError
+from models.metrics import DEFAULT_METRIC, check_target
+from models.segment_bins import (
+    DEFAULT_HOUR_EDGES,
+    DEFAULT_LENGTH_EDGES,
+    hour_labels,
+    length_labels,
+)
+from models.segments import (
+    DEFAULT_ALPHA,
+    DEFAULT_CONFIDENCE,
+    DEFAULT_MIN_N,
+    DEFAULT_RESAMPLES,
+    OTHER,
+    check_k,
+    check_min_n,
+    check_threshold,
+)
+
+#: What a one-way split can be made by, besides topics.
+By = Literal["hour", "weekday", "link", "media", "length", "account"]
+BY_CHOICES: tuple[str, ...] = typing.get_args(By)
+#: How posts join topics: each post its nearest phrase, or each phrase its k nearest posts.
+Mode = Literal["nearest", "top-k"]
+MODES: tuple[str, ...] = typing.get_args(Mode)
+TOPIC = "topic"
+
+#: Cosine similarity a post needs with its nearest phrase to join that topic.
+#: all-MiniLM-L6-v2 gives a short phrase and a matching post about 0.3-0.6;
+#: unrelated pairs sit mostly below 0.25 (measured on the demo history, where
+#: the median best similarity of a post to six one-phrase topics is 0.35).
+DEFAULT_THRESHOLD = 0.3
+DEFAULT_K = 100
+#: Example posts shown per topic segment, and the most that may be asked for.
+DEFAULT_EXAMPLES = 3
+MAX_EXAMPLES = 20
+#: Fewer posts with the metric than this, and no split is worth reading.
+MIN_POSTS = 20
+MAX_TOPICS = 20
+MAX_PHRASE_CHARS = 200
+PHRASE_SEPARATOR = "|"
+PLOT_NAME_CHARS = 30  # longer segment names crowd the figure's axis labels
+WEEKDAYS: tuple[str, ...] = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
+
+NOTE = (
+    "Segments describe this team's own history: a difference between segments is an "
+    "association, not a cause (topics, hours and forms are mixed in the posts)."
+)
+
+LINK_NAMES = ("no link", "with link")
+MEDIA_NAMES = ("no media", "with media")
+
+
+@dataclass(frozen=True, slots=True, kw_only=True)
+class SegmentRequest:
+    """What to split, by what, and how. Checked by :func:`segment`."""
+
+    topics: Sequence[str] = ()
+    by: str | None = None
+    metric: str = DEFAULT_METRIC
+    mode: str = "nearest"
+    k: int = DEFAULT_K
+    threshold: float = DEFAULT_THRESHOLD
+    hour_edges: Sequence[int] = DEFAULT_HOUR_EDGES
+    length_edges: Sequence[int] = DEFAULT_LENGTH_EDGES
+    account: str | None = None
+    min_n: int = DEFAULT_MIN_N
+    confidence: float = DEFAULT_CONFIDENCE
+    n_resamples: int = DEFAULT_RESAMPLES
+    alpha: float = DEFAULT_ALPHA
+    examples: int = DEFAULT_EXAMPLES
+    seed: int = 0
+
+
+class Topic(BaseModel):
+    """A topic as the answer names it: its phrases as given, tidied."""
+
+    model_config = ConfigDict(frozen=True)
+
+    name: str
+    phrases: tuple[str, ...]
+
+
+def parse_topics(raw: Sequence[str]) -> list[Topic]:
+    """Topics from the user's phrases; "a | b" is one topic with two phrases."""
+    if isinstance(raw, str):
+        raw = [raw]
+    if len(raw) > MAX_TOPICS:
+        raise InputError(f"{len(raw)} topics; at most {MAX_TOPICS} at a time", field="topics")
+    topics: list[Topic] = []
+    seen: dict[str, int] = {}
+    for i, text in enumerate(raw):
+        if not isinstance(text, str):
+            raise InputError(f"topic {i + 1} is not text", field=f"topics.{i}")
+        parts = [normalise_text(p) for p in text.split(PHRASE_SEPARATOR)]
+        if not any(parts):
+            raise InputError(
+                f"topic {i + 1} is an empty phrase",
+                field=f"topics.{i}",
+                hint="give a few words such as 'flowers in bloom'",
+            )
+        if not all(parts):
+            raise InputError(
+                f"topic {i + 1} ({text.strip()!r}) has an empty alternative around '{PHRASE_SEPARATOR}'",
+                field=f"topics.{i}",
+            )
+        for p in parts:
+            if len(p) > MAX_PHRASE_CHARS:
+                raise InputError(
+                    f"topic {i + 1} has a phrase of {len(p)} characters; a topic phrase is "
+                    f"short (at most {MAX_PHRASE_CHARS})",
+                    field=f"topics.{i}",
+                )
+        name = f" {PHRASE_SEPARATOR} ".join(parts)
+        key = name.casefold()
+        if key == OTHER:
+            raise InputError(
+                f"{OTHER!r} is the name of the posts no topic catches; choose another phrase",
+                field=f"topics.{i}",
+            )
+        if key in seen:
+            raise InputError(f"topic {i + 1} ({name!r}) repeats topic {seen[key] + 1}", field=f"topics.{i}")
+        seen[key] = i
+        topics.append(Topic(name=name, phrases=tuple(parts)))
+    return topics
+
+
+def parse_edges(text: str, what: str) -> list[int]:
+    """Comma-separated whole numbers, as typed on the command line."""
+    parts = [p.strip() for p in text.split(",")]
+    try:
+        return [int(p) for p in parts]
+    except ValueError:
+        raise InputError(
+            f"{what} must be whole numbers separated by commas, such as 0,6,9,12,15,18,21,24; got {text!r}",
+            field=what,
+        ) from None
+
+
+def _check_hour_edges(edges: Sequence[int]) -> tuple[int, ...]:
+    try:
+        hour_labels(edges)
+    except InputError as exc:
+        shown = ",".join(str(e) for e in edges)
+        raise InputError(
+            f"bad hour edges {shown or '(none)'}: {exc.message}",
+            field="hour_edges",
+            hint="for example 0,6,9,12,15,18,21,24",
+        ) from None
+    return tuple(int(e) for e in edges)
+
+
+def _check_length_edges(edges: Sequence[int]) -> tuple[int, ...]:
+    try:
+        length_labels(edges)
+    except InputError as exc:
+        shown = ",".join(str(e) for e in edges)
+        raise InputError(
+            f"bad length edges {shown or '(none)'}: {exc.message}", field="length_edges"
+        ) from None
+    return tuple(int(e) for e in edges)
+
+
+def check_request(req: SegmentRequest) -> list[Topic]:
+    """Every input check, before the store is read."""
+    topics = parse_topics(req.topics)
+    if req.by is not None and req.by not in BY_CHOICES:
+        raise InputError(
+            f"cannot split by {req.by!r}; choose one of {', '.join(BY_CHOICES)}", field="by", value=req.by
+        )
+    if not topics and req.by is None:
+        raise InputError(
+            "nothing to split: give topic phrases, a split (by), or both",
+            field="topics",
+            hint="e.g. --topic 'flowers in bloom' --topic 'shop offers' or --by hour",
+        )
+    check_target(req.metric)
+    if req.mode not in MODES:
+        raise InputError(
+            f"unknown mode {req.mode!r}; choose one of {', '.join(MODES)}", field="mode", value=req.mode
+        )
+    check_threshold(req.threshold)
+    check_k(req.k)
+    if (
+        isinstance(req.examples, bool)
+        or not isinstance(req.examples, int)
+        or not 0 <= req.examples <= MAX_EXAMPLES
+    ):
+        raise InputError(f"examples must be a whole number from 0 to {MAX_EXAMPLES}", field="examples")
+    # The rest of the comparison's parameters are checked where they are used
+    # (models.segments.check_params); min_n is needed before that, for warnings.
+    check_min_n(req.min_n)
+    _check_hour_edges(req.hour_edges)
+    _check_length_edges(req.length_edges)
+    return topics
