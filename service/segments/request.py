@@ -151,7 +151,7 @@ def parse_edges(text: str, what: str) -> list[int]:
         ) from None
 
 
-def _check_hour_edges(edges: Sequence[int]) -> tuple[int, ...]:
+def check_hour_edges(edges: Sequence[int]) -> tuple[int, ...]:
     try:
         hour_labels(edges)
     except InputError as exc:
@@ -164,7 +164,7 @@ def _check_hour_edges(edges: Sequence[int]) -> tuple[int, ...]:
     return tuple(int(e) for e in edges)
 
 
-def _check_length_edges(edges: Sequence[int]) -> tuple[int, ...]:
+def check_length_edges(edges: Sequence[int]) -> tuple[int, ...]:
     try:
         length_labels(edges)
     except InputError as exc:
@@ -204,6 +204,6 @@ def check_request(req: SegmentRequest) -> list[Topic]:
     # The rest of the comparison's parameters are checked where they are used
     # (models.segments.check_params); min_n is needed before that, for warnings.
     check_min_n(req.min_n)
-    _check_hour_edges(req.hour_edges)
-    _check_length_edges(req.length_edges)
+    check_hour_edges(req.hour_edges)
+    check_length_edges(req.length_edges)
     return topics

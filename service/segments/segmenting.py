@@ -57,8 +57,8 @@ from service.segments.request import (
     WEEKDAYS,
     SegmentRequest,
     Topic,
-    _check_hour_edges,
-    _check_length_edges,
+    check_hour_edges,
+    check_length_edges,
     check_request,
 )
 
@@ -106,7 +106,7 @@ def _by_labels(posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray,
     if by in ("hour", "weekday"):
         hours, days = local_clock(f["posted_at"], f["timezone"])
         if by == "hour":
-            edges = _check_hour_edges(req.hour_edges)
+            edges = check_hour_edges(req.hour_edges)
             return (
                 bucket_hours(hours, edges),
                 hour_labels(edges),
@@ -124,7 +124,7 @@ def _by_labels(posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray,
         lab = np.where(f["has_media"].to_numpy(bool), MEDIA_NAMES[1], MEDIA_NAMES[0])
         return lab.astype(object), list(MEDIA_NAMES), "media attached"
     if by == "length":
-        edges = _check_length_edges(req.length_edges)
+        edges = check_length_edges(req.length_edges)
         lengths = np.array([len(t) for t in f["text"]], dtype=np.int64)
         # Keep texts past the last edge in the last band rather than failing.
         lengths = np.minimum(lengths, edges[-1] - 1)
