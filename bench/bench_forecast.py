@@ -45,7 +45,7 @@ from models.index import VectorIndex, recall_at  # noqa: E402
 from service import forecasting  # noqa: E402
 from service.cli.history import _demo_accounts  # noqa: E402
 from service.settings import Settings  # noqa: E402
-from service.storage.store import PostRow  # noqa: E402
+from service.storage.post_writes import PostRow  # noqa: E402
 from service.workspace import Workspace  # noqa: E402
 
 DRAFT = (ROOT / "demo_data" / "sample_draft.txt").read_text().strip()

@@ -29,7 +29,9 @@ from service.clock import as_utc
 from service.forecast.forecaster import Forecaster
 from service.history.precedents import Precedent, precedents_for
 from service.history.retrieval import Retriever
-from service.ingest.importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
+from service.ingest.answers import ImportPreview, ImportSummary
+from service.ingest.importer import EmbedFn, ProgressFn, import_csv
+from service.ingest.preview import preview_csv
 from service.settings import Settings
 from service.storage.accounts import AccountInfo
 from service.storage.locking import LOCK_FILE, WriteLock

@@ -27,7 +27,7 @@ from service.api.app import create_app
 from service.forecast.answer import Forecast, Forecasts
 from service.health import Health
 from service.history.precedents import Precedents
-from service.ingest.importer import ImportPreview, ImportSummary
+from service.ingest.answers import ImportPreview, ImportSummary
 from service.review.hours import HoursReport
 from service.review.wordings import VariantsReport
 from service.storage.accounts import AccountInfo

@@ -24,7 +24,7 @@ from service.forecast.answer import Contributions, Forecast, Forecasts, GroupEff
 from service.health import EmbeddingState, Health, IndexState, SearchState
 from service.history.precedents import Precedent, Precedents, WeightedPrecedent
 from service.history.repeats import Repeat
-from service.ingest.importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
+from service.ingest.answers import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
 from service.review.hours import HoursReport, Slot
 from service.review.wordings import Variant, VariantsReport
 from service.segments.answer import SegmentResult as SegmentResult  # the answer, used as it is

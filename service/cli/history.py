@@ -36,7 +36,7 @@ from service.cli.mappings import (
 from service.cli.render import Column, print_table
 from service.clock import parse_time
 from service.history.precedents import Precedent, Precedents
-from service.ingest.importer import ImportPreview, ImportSummary
+from service.ingest.answers import ImportPreview, ImportSummary
 from service.ingest.mappings import combine, load_mapping
 from service.ingest.ray_embedding import cluster_import_options
 from service.settings import Settings

@@ -13,8 +13,8 @@ import typer
 from models.errors import InputError
 from service.cli.base import app, out, print_json
 from service.cli.render import Column, print_table
-from service.ingest.importer import ImportOptions, parse_mapping
 from service.ingest.mappings import command_line, list_mappings, load_mapping, mapping_text, save_mapping
+from service.ingest.options import ImportOptions, parse_mapping
 from service.ingest.timestamps import DateOrder
 from service.settings import Settings
 

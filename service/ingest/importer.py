@@ -33,39 +33,25 @@ from __future__ import annotations
 import codecs
 import csv
 from collections import Counter
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass, field
 from decimal import ROUND_HALF_EVEN, Decimal
 from pathlib import Path
-from typing import Any, Literal, TextIO
+from typing import TextIO
 
 import numpy as np
-from pydantic import BaseModel, ConfigDict, Field
 
 from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
-from models.metrics import METRIC_COLUMNS, Metric
-from service.answers import Instant, MetricValues
-from service.clock import UTC, zone
+from models.metrics import METRIC_COLUMNS
+from service.ingest.answers import ImportSummary, RowProblem
 from service.ingest.csvread import Abandoned, BadRecord, Record, RecordReader
 from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
-from service.ingest.timestamps import DateOrder, TimeLayout, TimeReader, check_date_order
+from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLUMNS, ImportOptions
+from service.ingest.timestamps import DateOrder, TimeReader, check_date_order
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
 
-RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
-CANONICAL_COLUMNS: tuple[str, ...] = (
-    "post_id",
-    "account",
-    "text",
-    "posted_at",
-    *METRIC_COLUMNS,
-    "has_media",
-    RATE_COLUMN,
-    "draft_id",  # optional: the draft a post fulfils (service.track.record)
-)
-REQUIRED_COLUMNS: tuple[str, ...] = ("post_id", "text", "posted_at")
 _TRUE = {"true", "1", "yes", "y", "t"}
 _FALSE = {"false", "0", "no", "n", "f", ""}
 _CHUNK = 1 << 20
@@ -74,113 +60,6 @@ QUOTE_HINT = "check the quotes of this row: a quote inside a quoted field is wri
 
 # Our own fields can be long, but a single field past this is not a post.
 csv.field_size_limit(1 << 24)
-
-
-@dataclass(frozen=True, slots=True)
-class ImportOptions:
-    """How to read one export: column mapping, account, and how its times
-    and numbers are written. A saved mapping (``service.ingest.mappings``) holds
-    exactly these."""
-
-    mapping: dict[str, str] = field(default_factory=dict)
-    account: str | None = None
-    timezone: str | None = None
-    time_format: str | None = None
-    date_order: DateOrder | None = None
-    decimal_comma: bool = False
-
-    def kwargs(self) -> dict[str, Any]:
-        """As keyword arguments of :func:`import_csv` and :func:`preview_csv`."""
-        return {
-            "account": self.account,
-            "mapping": self.mapping,
-            "timezone": self.timezone,
-            "time_format": self.time_format,
-            "date_order": self.date_order,
-            "decimal_comma": self.decimal_comma,
-        }
-
-    def layout(self) -> TimeLayout:
-        return TimeLayout(pattern=self.time_format, date_order=self.date_order)
-
-    def check(self) -> ImportOptions:
-        """Validate every option before a file is opened."""
-        if self.timezone is not None:
-            zone(self.timezone)
-        self.layout()
-        bad = [k for k in self.mapping if k not in CANONICAL_COLUMNS]
-        if bad:
-            raise InputError(
-                f"{bad[0]!r} is not one of our columns ({', '.join(CANONICAL_COLUMNS)})",
-                field="map",
-                value=bad[0],
-            )
-        return self
-
-
-class RowProblem(BaseModel):
-    """A rejected row: where it starts, which column is at fault, why, and a fix to try."""
-
-    model_config = ConfigDict(frozen=True)
-
-    line: int = Field(description="Line of the file where the rejected row starts")
-    column: str | None = Field(description="Our column name, when one field is at fault")
-    reason: str
-    hint: str | None = Field(default=None, description="A fix to try")
-    post_id: str | None = Field(default=None, description="The row's post_id, when readable")
-
-    def __str__(self) -> str:
-        col = f", column {self.column}" if self.column else ""
-        fix = f" ({self.hint})" if self.hint else ""
-        return f"line {self.line}{col}: {self.reason}{fix}"
-
-
-class ImportSummary(BaseModel):
-    """What an import did."""
-
-    added: int = 0
-    updated: int = 0
-    unchanged: int = 0
-    rejected: int = 0
-    embedded: int = Field(default=0, description="Texts embedded for the first time")
-    approximate: int = Field(
-        default=0, description="Rows stored with an abbreviated (1.2K) or derived count, marked approximate"
-    )
-    skipped_lines: int = Field(
-        default=0, description="Lines never read because the rest of the file was not CSV"
-    )
-    stopped: str | None = Field(default=None, description="Why reading stopped early, if it did")
-    problems: list[RowProblem] = Field(default_factory=list)
-    changed_pks: list[int] = Field(default_factory=list, exclude=True)
-
-    @property
-    def complete(self) -> bool:
-        """Every row was stored (none rejected, none left unread)."""
-        return not self.rejected and not self.skipped_lines
-
-
-def parse_mapping(pairs: Sequence[str] | None) -> dict[str, str]:
-    """``["text=Post body", ...]`` -> ``{"text": "Post body"}``, checked."""
-    mapping: dict[str, str] = {}
-    for pair in pairs or ():
-        ours, sep, theirs = pair.partition("=")
-        ours, theirs = ours.strip(), theirs.strip()
-        if not sep or not ours or not theirs:
-            raise InputError(
-                f"mapping {pair!r} must look like ours=theirs, e.g. text=Post body",
-                field="map",
-                value=pair,
-            )
-        if ours not in CANONICAL_COLUMNS:
-            raise InputError(
-                f"mapping {pair!r}: {ours!r} is not one of our columns ({', '.join(CANONICAL_COLUMNS)})",
-                field="map",
-                value=pair,
-            )
-        if ours in mapping:
-            raise InputError(f"column {ours!r} is mapped twice", field="map", value=pair)
-        mapping[ours] = theirs
-    return mapping
 
 
 def check_encoding(path: Path) -> int:
@@ -217,7 +96,7 @@ class _Reject(Exception):
         self.column, self.reason, self.hint = column, reason, hint
 
 
-class _Rows:
+class RowReader:
     """Validates the rows of an open CSV one at a time."""
 
     def __init__(
@@ -449,7 +328,7 @@ ProgressFn = Callable[[int, int], None]
 EmbedFn = Callable[[list[str]], np.ndarray]
 
 
-def _options(
+def import_options(
     account: str | None,
     mapping: dict[str, str] | None,
     timezone: str | None,
@@ -468,9 +347,9 @@ def _options(
 
 
 @contextmanager
-def _open_rows(
+def open_rows(
     path: Path, options: ImportOptions, store: Store, embedder: Embedder
-) -> Iterator[tuple[_Rows, int]]:
+) -> Iterator[tuple[RowReader, int]]:
     """The file's rows, after every whole-file check (encoding, header, date
     order); nothing is written before this yields. Also the file's line count."""
     if not path.is_file():
@@ -478,8 +357,8 @@ def _open_rows(
     total_lines = check_encoding(path)
     zones = {a.handle: a.timezone for a in store.accounts()}
 
-    def rows(handle: TextIO) -> _Rows:
-        return _Rows(handle, where=str(path), options=options, account_zones=zones, embedder=embedder)
+    def rows(handle: TextIO) -> RowReader:
+        return RowReader(handle, where=str(path), options=options, account_zones=zones, embedder=embedder)
 
     # utf-8-sig drops a byte-order mark; newline="" lets csv see quoted line breaks.
     if options.time_format is None and options.date_order is None:
@@ -495,7 +374,7 @@ def _open_rows(
         yield rows(handle), total_lines
 
 
-def _finish(summary: ImportSummary, rows: _Rows) -> None:
+def finish(summary: ImportSummary, rows: RowReader) -> None:
     if rows.abandoned is not None:
         a = rows.abandoned
         summary.skipped_lines = a.lines_left
@@ -518,7 +397,7 @@ def import_csv(
     embed: EmbedFn | None = None,
 ) -> ImportSummary:
     """Import one CSV file; see the module docstring for the rules."""
-    options = _options(account, mapping, timezone, time_format, date_order, decimal_comma)
+    options = import_options(account, mapping, timezone, time_format, date_order, decimal_comma)
     summary = ImportSummary()
     batch: list[PostRow] = []
 
@@ -540,7 +419,7 @@ def import_csv(
         summary.changed_pks.extend(res.changed_pks)
         batch.clear()
 
-    with _open_rows(Path(path), options, store, embedder) as (rows, total_lines):
+    with open_rows(Path(path), options, store, embedder) as (rows, total_lines):
         for item in rows:
             if isinstance(item, RowProblem):
                 summary.rejected += 1
@@ -554,162 +433,10 @@ def import_csv(
                         progress(rows.line_num, total_lines)
         if batch:
             flush()
-        _finish(summary, rows)
+        finish(summary, rows)
         if progress:
             progress(total_lines, total_lines)
     return summary
 
 
 # Dry run --------------------------------------------------------------------
-
-
-class ColumnUse(BaseModel):
-    """How one of our columns is read: from which of the file's columns, and as what."""
-
-    ours: str
-    theirs: str | None = Field(description="The file's column, or null when not read")
-    reads: str = Field(description="How its values are read")
-
-
-class PreviewRow(BaseModel):
-    """One row of a dry run, as it would be stored."""
-
-    line: int
-    account: str
-    post_id: str
-    text: str
-    posted_at: Instant = Field(description="UTC")
-    local_time: str = Field(description="In the zone the time was read in, with its offset")
-    zone: str
-    metrics: MetricValues
-    approximate: list[str] = Field(description="Metrics known only roughly")
-    has_media: bool | None
-
-
-class ImportFix(BaseModel):
-    """A fix to try, with how many rejected rows it concerns and the first of them."""
-
-    column: str | None
-    hint: str
-    rows: int = Field(description="Rejected rows this fix concerns")
-    first_line: int
-
-
-class ImportPreview(BaseModel):
-    """A dry run: what the import would do; nothing was stored."""
-
-    dry_run: Literal[True] = True
-    columns: list[ColumnUse]
-    unused_columns: list[str]
-    time_layout: str
-    rows: list[PreviewRow] = Field(description="The first rows as read")
-    would_import: int
-    approximate: int
-    rejected: int
-    skipped_lines: int
-    stopped: str | None
-    problems: list[RowProblem]
-    fixes: list[ImportFix]
-
-
-def fixes_of(problems: Sequence[RowProblem]) -> list[ImportFix]:
-    """Each distinct fix to try among ``problems``, with how many rows it
-    concerns and the first of them."""
-    seen: dict[tuple[str | None, str], ImportFix] = {}
-    for p in problems:
-        if p.hint:
-            fix = seen.setdefault(
-                (p.column, p.hint), ImportFix(column=p.column, hint=p.hint, rows=0, first_line=p.line)
-            )
-            fix.rows += 1
-    return list(seen.values())
-
-
-def preview_csv(
-    store: Store,
-    embedder: Embedder,
-    path: str | Path,
-    *,
-    account: str | None = None,
-    mapping: dict[str, str] | None = None,
-    timezone: str | None = None,
-    time_format: str | None = None,
-    date_order: DateOrder | None = None,
-    decimal_comma: bool = False,
-    rows: int = PREVIEW_ROWS,
-) -> ImportPreview:
-    """Read and check a file as :func:`import_csv` would; write nothing.
-
-    Reads the store only for the accounts' zones; the embedder only hashes
-    texts (no model is loaded).
-    """
-    options = _options(account, mapping, timezone, time_format, date_order, decimal_comma)
-    with _open_rows(Path(path), options, store, embedder) as (reader, _):
-        columns = _column_uses(reader)
-        used = set(reader.positions.values())
-        unused = [h for i, h in enumerate(reader.header) if i not in used]
-        s = ImportSummary()
-        shown: list[PreviewRow] = []
-        would_import = 0
-        for item in reader:
-            if isinstance(item, RowProblem):
-                s.rejected += 1
-                s.problems.append(item)
-                continue
-            would_import += 1
-            s.approximate += bool(item.approximate)
-            if len(shown) < rows:
-                tz = reader.zone_of(item.account)
-                shown.append(
-                    PreviewRow(
-                        line=item.line,
-                        account=item.account,
-                        post_id=item.post_id,
-                        text=item.text,
-                        posted_at=item.posted_at.astimezone(UTC),
-                        local_time=item.posted_at.astimezone(zone(tz)).isoformat(),
-                        zone=tz,
-                        metrics=item.metrics,
-                        approximate=sorted(item.approximate),
-                        has_media=item.has_media,
-                    )
-                )
-        _finish(s, reader)
-    return ImportPreview(
-        columns=columns,
-        unused_columns=unused,
-        time_layout=options.layout().describe(),
-        rows=shown,
-        would_import=would_import,
-        approximate=s.approximate,
-        rejected=s.rejected,
-        skipped_lines=s.skipped_lines,
-        stopped=s.stopped,
-        problems=s.problems,
-        fixes=fixes_of(s.problems),
-    )
-
-
-def _column_uses(rows: _Rows) -> list[ColumnUse]:
-    o = rows.options
-    zone_text = f"naive times in {o.timezone}" if o.timezone else "naive times in the account's zone"
-    number = "count, decimal comma" if o.decimal_comma else "count"
-    reads = {
-        "post_id": "identifier, unique within an account",
-        "account": "account handle",
-        "text": "post text",
-        "posted_at": f"time: {o.layout().describe()}; {zone_text}",
-        "has_media": "true or false",
-        RATE_COLUMN: "rate (4.5% or 0.045), checked against engagements / impressions",
-        **dict.fromkeys(METRIC_COLUMNS, number + " (1,234, 1.2K marked approximate)"),
-    }
-    out = []
-    for col in CANONICAL_COLUMNS:
-        i = rows.positions.get(col)
-        if i is not None:
-            out.append(ColumnUse(ours=col, theirs=rows.header[i], reads=reads[col]))
-        elif col == "account" and o.account:
-            out.append(ColumnUse(ours=col, theirs=None, reads=f"every row: {o.account} (--account)"))
-        else:
-            out.append(ColumnUse(ours=col, theirs=None, reads="not in the file"))
-    return out

@@ -16,7 +16,9 @@ import pandas as pd
 import pytest
 
 from models.errors import CSVFormatError, InputError
-from service.ingest.importer import RowProblem, check_encoding, parse_mapping
+from service.ingest.answers import RowProblem
+from service.ingest.importer import check_encoding
+from service.ingest.options import parse_mapping
 from service.workspace import Workspace
 
 # These tests run on SQLite, then again on PostgreSQL when a server is set.

@@ -12,9 +12,9 @@ from babel.numbers import NumberFormatError, parse_decimal
 from dateutil import parser as dateutil_parser
 
 from models.errors import InputError, TimeParseError
-from service.ingest.importer import ImportOptions
 from service.ingest.mappings import combine, from_toml, to_toml
 from service.ingest.numbers import MAX_COUNT, NumberError, read_count, read_rate
+from service.ingest.options import ImportOptions
 from service.ingest.timestamps import TimeLayout, TimeReader
 
 

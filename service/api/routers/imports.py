@@ -29,8 +29,8 @@ from models.errors import AuthError, InputError, LimitExceeded, NotFound, NotRea
 from service.api.deps import WorkspaceDep, WriteAccess
 from service.api.responses import ERRORS
 from service.api.schemas import ImportPreview, ImportSummary
-from service.ingest.importer import ImportOptions, parse_mapping
 from service.ingest.mappings import combine, load_mapping
+from service.ingest.options import ImportOptions, parse_mapping
 from service.ingest.timestamps import DateOrder
 
 if typing.TYPE_CHECKING:
