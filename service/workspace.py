@@ -31,6 +31,7 @@ from service.history.precedents import Precedent, precedents_for
 from service.history.retrieval import Retriever
 from service.ingest.answers import ImportPreview, ImportSummary
 from service.ingest.importer import EmbedFn, ProgressFn, import_csv
+from service.ingest.options import ImportOptions
 from service.ingest.preview import preview_csv
 from service.settings import Settings
 from service.storage.accounts import AccountInfo
@@ -304,16 +305,15 @@ class Workspace:
     def import_csv(
         self,
         path: str | Path,
+        options: ImportOptions | None = None,
         *,
-        account: str | None = None,
-        mapping: dict[str, str] | None = None,
-        timezone: str | None = None,
         progress: ProgressFn | None = None,
         embed: EmbedFn | None = None,
         batch_rows: int | None = None,
-        **layout: Any,
     ) -> ImportSummary:
-        """``layout``: time_format, date_order, decimal_comma (service.ingest.importer)."""
+        """Import a file read as ``options`` say (service.ingest.importer), keeping
+        the index and the track record in step."""
+        options = options or ImportOptions()
         with self.writing("an import"):
             self.index()  # load or rebuild first, so the update below is incremental
             before = self.store.counts()["posts"]
@@ -322,13 +322,10 @@ class Workspace:
                     self.store,
                     self.embedder,
                     path,
-                    account=account,
-                    mapping=mapping,
-                    timezone=timezone,
+                    options,
                     batch_rows=batch_rows or self.settings.import_batch_rows,
                     progress=progress,
                     embed=embed,
-                    **layout,
                 )
             except StoreError as exc:
                 # A full disk or a lost store mid-import: whole batches before
@@ -346,13 +343,13 @@ class Workspace:
             if summary.changed_pks or summary.updated:
                 self._sync_index(summary.changed_pks)
             # The track record: draft ids, matching, scoring, adaptation.
-            after_import(self, path, mapping=mapping, account=account)
+            after_import(self, path, options)
             self.forecaster.warm()  # the import pays for the views, not the next forecast
             return summary
 
-    def preview_import(self, path: str | Path, **options: Any) -> ImportPreview:
+    def preview_import(self, path: str | Path, options: ImportOptions | None = None) -> ImportPreview:
         """A dry run of :meth:`import_csv`: the same checks, nothing written."""
-        return preview_csv(self.store, self.embedder, path, **options)
+        return preview_csv(self.store, self.embedder, path, options)
 
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
         """Delete posts from the store and the index together."""

@@ -189,11 +189,10 @@ def import_cmd(
         decimal_comma=decimal_comma,
     )
     options = combine(load_mapping(ws.settings.resolved_home, saved) if saved else None, given)
-    kw = options.kwargs()
     on_cluster = cluster_import_options(ws, cluster, workers=cluster_workers)
     summary: ImportSummary | ImportPreview
     if dry_run:
-        summary = ws.preview_import(file, **kw)
+        summary = ws.preview_import(file, options)
         if as_json:
             print_json(summary.model_dump(mode="json"))
         else:
@@ -206,9 +205,9 @@ def import_cmd(
             def progress(done: int, total: int) -> None:
                 bar.update(task, completed=done, total=total)
 
-            summary = ws.import_csv(file, progress=progress, **kw, **on_cluster)
+            summary = ws.import_csv(file, options, progress=progress, **on_cluster)
     else:
-        summary = ws.import_csv(file, **kw, **on_cluster)
+        summary = ws.import_csv(file, options, **on_cluster)
     if isinstance(summary, ImportSummary):
         if as_json:
             print_json(summary.model_dump(mode="json"))

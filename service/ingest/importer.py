@@ -48,7 +48,7 @@ from service.ingest.answers import ImportSummary, RowProblem
 from service.ingest.csvread import Abandoned, BadRecord, Record, RecordReader
 from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLUMNS, ImportOptions
-from service.ingest.timestamps import DateOrder, TimeReader, check_date_order
+from service.ingest.timestamps import TimeReader, check_date_order
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
 
@@ -328,24 +328,6 @@ ProgressFn = Callable[[int, int], None]
 EmbedFn = Callable[[list[str]], np.ndarray]
 
 
-def import_options(
-    account: str | None,
-    mapping: dict[str, str] | None,
-    timezone: str | None,
-    time_format: str | None,
-    date_order: DateOrder | None,
-    decimal_comma: bool,
-) -> ImportOptions:
-    return ImportOptions(
-        mapping=dict(mapping or {}),
-        account=account,
-        timezone=timezone,
-        time_format=time_format,
-        date_order=date_order,
-        decimal_comma=decimal_comma,
-    ).check()
-
-
 @contextmanager
 def open_rows(
     path: Path, options: ImportOptions, store: Store, embedder: Embedder
@@ -385,19 +367,14 @@ def import_csv(
     store: Store,
     embedder: Embedder,
     path: str | Path,
+    options: ImportOptions | None = None,
     *,
-    account: str | None = None,
-    mapping: dict[str, str] | None = None,
-    timezone: str | None = None,
-    time_format: str | None = None,
-    date_order: DateOrder | None = None,
-    decimal_comma: bool = False,
     batch_rows: int = 500,
     progress: ProgressFn | None = None,
     embed: EmbedFn | None = None,
 ) -> ImportSummary:
-    """Import one CSV file; see the module docstring for the rules."""
-    options = import_options(account, mapping, timezone, time_format, date_order, decimal_comma)
+    """Import one CSV file, read as ``options`` say; see the module docstring for the rules."""
+    options = (options or ImportOptions()).check()
     summary = ImportSummary()
     batch: list[PostRow] = []
 

@@ -5,7 +5,6 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
 
 from models.errors import InputError
 from models.metrics import METRIC_COLUMNS, Metric
@@ -38,17 +37,6 @@ class ImportOptions:
     time_format: str | None = None
     date_order: DateOrder | None = None
     decimal_comma: bool = False
-
-    def kwargs(self) -> dict[str, Any]:
-        """As keyword arguments of :func:`import_csv` and :func:`preview_csv`."""
-        return {
-            "account": self.account,
-            "mapping": self.mapping,
-            "timezone": self.timezone,
-            "time_format": self.time_format,
-            "date_order": self.date_order,
-            "decimal_comma": self.decimal_comma,
-        }
 
     def layout(self) -> TimeLayout:
         return TimeLayout(pattern=self.time_format, date_order=self.date_order)

@@ -8,9 +8,8 @@ from models.embedding import Embedder
 from models.metrics import METRIC_COLUMNS
 from service.clock import UTC, zone
 from service.ingest.answers import ColumnUse, ImportPreview, ImportSummary, PreviewRow, RowProblem, fixes_of
-from service.ingest.importer import PREVIEW_ROWS, RowReader, finish, import_options, open_rows
-from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN
-from service.ingest.timestamps import DateOrder
+from service.ingest.importer import PREVIEW_ROWS, RowReader, finish, open_rows
+from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, ImportOptions
 from service.storage.store import Store
 
 
@@ -18,13 +17,8 @@ def preview_csv(
     store: Store,
     embedder: Embedder,
     path: str | Path,
+    options: ImportOptions | None = None,
     *,
-    account: str | None = None,
-    mapping: dict[str, str] | None = None,
-    timezone: str | None = None,
-    time_format: str | None = None,
-    date_order: DateOrder | None = None,
-    decimal_comma: bool = False,
     rows: int = PREVIEW_ROWS,
 ) -> ImportPreview:
     """Read and check a file as :func:`import_csv` would; write nothing.
@@ -32,7 +26,7 @@ def preview_csv(
     Reads the store only for the accounts' zones; the embedder only hashes
     texts (no model is loaded).
     """
-    options = import_options(account, mapping, timezone, time_format, date_order, decimal_comma)
+    options = (options or ImportOptions()).check()
     with open_rows(Path(path), options, store, embedder) as (reader, _):
         columns = _column_uses(reader)
         used = set(reader.positions.values())

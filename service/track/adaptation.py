@@ -18,6 +18,7 @@ from models.metrics import DEFAULT_COVERAGE, TARGETS, check_target, target_value
 from service.clock import as_utc, now_utc, to_naive_utc
 from service.forecast.calibration import band_shift
 from service.forecast.draft import Draft
+from service.ingest.options import ImportOptions
 from service.storage.track_tables import level_key
 from service.track.matching import link_drafts, match, score
 from service.track.parts import TrackedDir
@@ -129,16 +130,11 @@ def _pseudo_outcomes(
 
 
 def after_import(
-    ws: TrackedDir,
-    path: str | Path,
-    *,
-    mapping: dict[str, str] | None = None,
-    account: str | None = None,
-    now: datetime | None = None,
+    ws: TrackedDir, path: str | Path, options: ImportOptions, *, now: datetime | None = None
 ) -> dict[str, Any]:
     """Everything the track record does after an import: explicit draft ids,
     matching, scoring, and adaptation of every metric with a model."""
-    linked = link_drafts(ws, path, mapping=mapping, account=account)
+    linked = link_drafts(ws, path, mapping=options.mapping, account=options.account)
     matched = match(ws)
     scored = score(ws, now=now)
     fed: dict[str, Any] = {}

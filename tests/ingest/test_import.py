@@ -18,7 +18,7 @@ import pytest
 from models.errors import CSVFormatError, InputError
 from service.ingest.answers import RowProblem
 from service.ingest.importer import check_encoding
-from service.ingest.options import parse_mapping
+from service.ingest.options import ImportOptions, parse_mapping
 from service.workspace import Workspace
 
 # These tests run on SQLite, then again on PostgreSQL when a server is set.
@@ -150,7 +150,7 @@ def test_naive_times_use_the_account_zone(workspace: Workspace, tmp_path: Path) 
 
 def test_timezone_option_overrides_account_zone(workspace: Workspace, tmp_path: Path) -> None:
     body = "post_id,account,text,posted_at,impressions\nz1,garden,Frost fair,2026-07-01T12:00,5\n"
-    workspace.import_csv(write(tmp_path / "z.csv", body), timezone="Europe/London")
+    workspace.import_csv(write(tmp_path / "z.csv", body), ImportOptions(timezone="Europe/London"))
     # IANA tz: London is on BST (UTC+1) in July.
     assert by_id(workspace)["z1"].posted_at == pd.Timestamp(datetime(2026, 7, 1, 11, tzinfo=UTC))
 
@@ -159,7 +159,7 @@ def test_unknown_timezone_option_is_refused(loaded: Workspace, tmp_path: Path) -
     before = state(loaded)
     path = write(tmp_path / "more.csv", GOOD.replace("g1", "g9"))
     with pytest.raises(InputError, match="unknown time zone 'Mars/Olympus'"):
-        loaded.import_csv(path, timezone="Mars/Olympus")
+        loaded.import_csv(path, ImportOptions(timezone="Mars/Olympus"))
     assert state(loaded) == before
 
 
@@ -174,7 +174,7 @@ def test_mapping_reads_other_column_names(workspace: Workspace, tmp_path: Path) 
     mapping = parse_mapping(
         ["account=Handle", "text=Post body", "posted_at=When", "impressions=Views", "post_id=ID"]
     )
-    s = workspace.import_csv(write(tmp_path / "m.csv", body), mapping=mapping)
+    s = workspace.import_csv(write(tmp_path / "m.csv", body), ImportOptions(mapping=mapping))
     assert (s.added, s.rejected) == (1, 0)
     p = by_id(workspace)["m1"]
     assert (p.account, p.text, p.impressions) == ("garden", "Moss garden at dawn", 321)
@@ -185,7 +185,7 @@ def test_account_option_supplies_missing_column(workspace: Workspace, tmp_path: 
     path = write(tmp_path / "a.csv", body)
     with pytest.raises(CSVFormatError, match="missing required column account"):
         workspace.import_csv(path)
-    s = workspace.import_csv(path, account="garden_team")
+    s = workspace.import_csv(path, ImportOptions(account="garden_team"))
     assert s.added == 1
     assert by_id(workspace)["a1"].account == "garden_team"
 
@@ -280,7 +280,7 @@ def test_mapping_to_absent_column(loaded: Workspace, tmp_path: Path) -> None:
     before = state(loaded)
     path = write(tmp_path / "good2.csv", GOOD.replace("g", "h"))
     with pytest.raises(CSVFormatError, match="names column 'Body', which is not in the file"):
-        loaded.import_csv(path, mapping={"text": "Body"})
+        loaded.import_csv(path, ImportOptions(mapping={"text": "Body"}))
     assert state(loaded) == before
 
 

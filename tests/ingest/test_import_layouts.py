@@ -24,6 +24,7 @@ from models.embedding import Embedder
 from models.errors import CSVFormatError, InputError
 from service.cli import app, base
 from service.cli.base import use_embedder
+from service.ingest.options import ImportOptions
 from service.workspace import Workspace
 
 FIXTURES = Path(__file__).resolve().parents[1] / "fixtures" / "exports"
@@ -105,7 +106,7 @@ def test_each_layout_imports_as_the_canonical_file(
     opts = dict(opts)
     mapping = {**MAP, **(RATE if opts.pop("rate", False) else {})}
     ws = london_workspace(make_workspace, name)
-    s = ws.import_csv(FIXTURES / f"{name}.csv", account="loomhaven", mapping=mapping, **opts)
+    s = ws.import_csv(FIXTURES / f"{name}.csv", ImportOptions(account="loomhaven", mapping=mapping, **opts))
     assert (s.added, s.rejected) == (13, 0), s.problems
     got = stored(ws)
     assert set(got) == set(canonical)
@@ -153,7 +154,7 @@ def test_times_at_the_dst_changes_follow_the_iana_rules(canonical) -> None:
 def test_ambiguous_dates_are_refused_without_an_order(make_workspace, name: str, first: str) -> None:
     ws = london_workspace(make_workspace, name)
     with pytest.raises(CSVFormatError) as e:
-        ws.import_csv(FIXTURES / f"{name}.csv", account="loomhaven", mapping=MAP)
+        ws.import_csv(FIXTURES / f"{name}.csv", ImportOptions(account="loomhaven", mapping=MAP))
     msg = str(e.value)
     assert f"{first!r} on line 2" in msg and "--day-first or --month-first" in msg
     assert ws.store.counts()["posts"] == 0  # refused before anything was written
@@ -163,7 +164,9 @@ def test_rows_in_the_other_order_are_rejected(make_workspace) -> None:
     # Read month-first, a day-first date with a day above 12 cannot be a date
     # (there is no month 13): those rows, and only those, are rejected.
     ws = london_workspace(make_workspace, "wrong")
-    s = ws.import_csv(FIXTURES / "day_first.csv", account="loomhaven", mapping=MAP, date_order="month-first")
+    s = ws.import_csv(
+        FIXTURES / "day_first.csv", ImportOptions(account="loomhaven", mapping=MAP, date_order="month-first")
+    )
     gen = _generator()
     days = [datetime.fromisoformat(r["posted_at"]).astimezone(ZoneInfo(LONDON)).day for r in gen.canonical()]
     assert [p.line for p in s.problems] == [i + 2 for i, d in enumerate(days) if d > 12]
@@ -191,7 +194,7 @@ def test_a_skipped_local_time_is_refused_in_every_layout(
     ws = london_workspace(make_workspace, "dst")
     f = tmp_path / "dst.csv"
     f.write_text(f"post_id,text,posted_at,impressions\nd1,Early start,{value},5\nd2,Later,{good},6\n")
-    s = ws.import_csv(f, account="loomhaven", **opts)
+    s = ws.import_csv(f, ImportOptions(account="loomhaven", **opts))
     assert s.added == 1 and [(p.line, p.column) for p in s.problems] == [(2, "posted_at")]
     assert "does not exist in Europe/London" in s.problems[0].reason
 
@@ -404,7 +407,7 @@ def test_wide_headers_are_checked_for_repeats(workspace: Workspace, tmp_path: Pa
 )
 def test_bad_layout_options_are_refused(workspace: Workspace, opts: dict, fragment: str) -> None:
     with pytest.raises(InputError, match=fragment):
-        workspace.import_csv(FIXTURES / "canonical.csv", **opts)
+        workspace.import_csv(FIXTURES / "canonical.csv", ImportOptions(**opts))
 
 
 # CLI: saved mappings, dry run, exit status ---------------------------------------------

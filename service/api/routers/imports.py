@@ -323,12 +323,11 @@ async def create_import(
     assert upload.path is not None  # receive_upload raises when the form has no file
     try:
         o = upload_options(upload, ws.settings.resolved_home)
-        kw = o.kwargs()
         # Reading, embedding and writing are slow and blocking: off the event loop.
         if dry_run:
-            preview: ImportPreview = await run_in_threadpool(ws.preview_import, upload.path, **kw)
+            preview: ImportPreview = await run_in_threadpool(ws.preview_import, upload.path, o)
             return preview
-        summary = await run_in_threadpool(ws.import_csv, upload.path, **kw)
+        summary = await run_in_threadpool(ws.import_csv, upload.path, o)
     finally:
         _remove(upload.path)
     return summary
