@@ -30,13 +30,13 @@ def check_drafts(
     vectors: np.ndarray | None = None,
 ) -> list[Forecast]:
     """Forecast ``drafts`` with the track record's calibration; record them
-    unless ``record`` is False (``source`` says where they were asked)."""
+    unless ``record`` is False (``source`` says where they were asked). The
+    caller holds the store's counters for the request (``Store.pinned``)."""
     now = now or now_utc()
     calibration = TrackCalibration(ws, metric, coverage, now=now)
-    with ws.store.pinned():  # one read of the store's counters for the whole answer
-        found = ws.forecaster.forecast(
-            list(drafts), metric=metric, coverage=coverage, now=now, vectors=vectors, calibration=calibration
-        )
-        if record and found and calibration.model is not None:
-            record_forecasts(ws, drafts, found, model=calibration.model, source=source, now=now)
+    found = ws.forecaster.forecast(
+        list(drafts), metric=metric, coverage=coverage, now=now, vectors=vectors, calibration=calibration
+    )
+    if record and found and calibration.model is not None:
+        record_forecasts(ws, drafts, found, model=calibration.model, source=source, now=now)
     return found

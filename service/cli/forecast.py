@@ -236,14 +236,11 @@ def check_cmd(
     if not account:
         raise InputError("say which account would post it with --account", field="--account")
     # Adapted, staleness-checked and recorded in the track record.
-    f = check_drafts(
-        ws,
-        [make_draft(ws.store, text=text, account=account, planned_at=at, has_media=media, where="--at")],
-        metric=metric,
-        coverage=coverage,
-        record=not no_record,
-        source="check",
-    )[0]
+    with ws.store.pinned():  # the store's counters read once for the whole answer
+        draft = make_draft(ws.store, text=text, account=account, planned_at=at, has_media=media, where="--at")
+        f = check_drafts(ws, [draft], metric=metric, coverage=coverage, record=not no_record, source="check")[
+            0
+        ]
     if as_json:
         print_json(f.model_dump(mode="json"))
     else:
