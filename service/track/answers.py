@@ -48,20 +48,26 @@ class PrecedentBrief(BaseModel):
     value: float | None
 
 
-class Miss(BaseModel):
-    forecast_id: int
+class TrackPoint(BaseModel):
+    """One forecast given and what happened: its interval and the outcome."""
+
     given_at: str
-    draft_id: str | None
-    account: str
-    text: str
-    planned_at: str
-    post_id: str | None
     posted_at: str | None
     coverage: float
     low: float
     median: float
     high: float
     outcome: float | None
+    inside: bool | None
+
+
+class Miss(TrackPoint):
+    forecast_id: int
+    draft_id: str | None
+    account: str
+    text: str
+    planned_at: str
+    post_id: str | None
     error_log: float | None
     model_version: str
     calibration: str
@@ -74,17 +80,6 @@ class CalibrationLevel(BaseModel):
     gamma: float
     outcomes: int
     pseudo_outcomes: int
-
-
-class TrackPoint(BaseModel):
-    given_at: str
-    posted_at: str | None
-    coverage: float
-    low: float
-    median: float
-    high: float
-    outcome: float | None
-    inside: bool | None
 
 
 class TrackRecord(BaseModel):
