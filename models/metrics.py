@@ -8,12 +8,14 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from enum import StrEnum
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from .errors import InputError
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 class Metric(StrEnum):

@@ -12,19 +12,25 @@ from __future__ import annotations
 import io
 from collections.abc import Hashable, Mapping, Sequence
 from pathlib import Path
-
-import matplotlib
-
-matplotlib.use("Agg")
+from typing import TYPE_CHECKING
 
 import numpy as np
 import numpy.typing as npt
-from matplotlib.axes import Axes
-from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter, LogLocator
 
 from .errors import InputError
 from .segments import SegmentReport, SegmentStats
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
+
+
+def agg() -> None:
+    """Select the off-screen backend. matplotlib is imported only when a
+    figure is drawn: the command line's other commands never load it."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+
 
 #: Our palette: calm, distinguishable, and still readable in greyscale.
 PALETTE: tuple[str, ...] = (
@@ -108,6 +114,8 @@ def _plain_number(x: float, _pos: int | None = None) -> str:
 
 
 def _log_axis(ax: Axes) -> None:
+    from matplotlib.ticker import FuncFormatter, LogLocator
+
     ax.set_xscale("log")
     # 1-2-5 ticks: a narrow range of medians still gets several labels.
     ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
@@ -254,6 +262,10 @@ def plot_segments(
     colours = {s.name: PALETTE[i % len(PALETTE)] for i, s in enumerate(trusted)}
     colours.update({s.name: MUTED for s in order if s.too_small})
     floor = _floor(arr)
+
+    agg()
+    import matplotlib
+    from matplotlib.figure import Figure
 
     # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
     with matplotlib.rc_context(_STYLE):  # type: ignore[arg-type]

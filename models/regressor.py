@@ -18,15 +18,22 @@ import math
 import os
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any, Self
+from typing import TYPE_CHECKING, Any, Self
 
-import lightgbm as lgb
 import numpy as np
 from numpy.typing import ArrayLike
 
+from .booster_loading import NativeBooster, lightgbm_version
 from .calibration import CQRCalibrator
 from .errors import InputError, NotFittedError, NotFound, StoreError
 from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
+
+if TYPE_CHECKING:
+    # The lightgbm package (and the scikit-learn and scipy it imports) loads
+    # for training only; saved boosters are served by models.booster_loading.
+    import lightgbm as lgb
+
+    Booster = lgb.Booster | NativeBooster
 
 # Coverage levels ``predict`` accepts are models.metrics' MIN_COVERAGE to MAX_COVERAGE:
 # below 0.5 a band is not useful; above 0.95 the calibration blocks we see are too
@@ -71,7 +78,7 @@ def _target(name: str, y: Any, n_rows: int) -> np.ndarray:
     return arr
 
 
-def _raw(booster: lgb.Booster, X: np.ndarray, *, contrib: bool = False) -> np.ndarray:
+def _raw(booster: Booster, X: np.ndarray, *, contrib: bool = False) -> np.ndarray:
     # LightGBM divides by the row count, so an empty batch is answered here.
     if X.shape[0] == 0:
         return np.empty((0, X.shape[1] + 1) if contrib else 0)
@@ -190,14 +197,16 @@ class QuantileForecaster:
 
         # One binned Dataset serves every booster: only alpha differs.
         base = self._booster_params(0.5)
+        import lightgbm as lgb
+
         data = lgb.Dataset(Xt, yt, feature_name=_internal_names(n_features), params=base, free_raw_data=False)
 
-        def train(alpha: float) -> lgb.Booster:
+        def train(alpha: float) -> Booster:
             return lgb.train(self._booster_params(alpha), data, num_boost_round=int(self.n_estimators))
 
         self.median_model_ = train(0.5)
-        lowers: list[lgb.Booster] = []
-        uppers: list[lgb.Booster] = []
+        lowers: list[Booster] = []
+        uppers: list[Booster] = []
         calibrators: list[CQRCalibrator] = []
         for c in levels:
             lo_model, hi_model = train((1.0 - c) / 2.0), train(1.0 - (1.0 - c) / 2.0)
@@ -304,7 +313,7 @@ class QuantileForecaster:
             "n_cal": self.n_cal_,
             "median_model": "median.txt",
             "levels": entries,
-            "versions": {"lightgbm": lgb.__version__, "numpy": np.__version__},
+            "versions": {"lightgbm": lightgbm_version(), "numpy": np.__version__},
         }
         tmp = root / (CONFIG_FILE + ".tmp")
         tmp.write_text(json.dumps(config, indent=2), encoding="utf-8")
@@ -330,8 +339,8 @@ class QuantileForecaster:
             params["levels"] = tuple(params["levels"])
             model = cls(**params)
 
-            def booster(name: str) -> lgb.Booster:
-                return lgb.Booster(model_file=str(root / name))
+            def booster(name: str) -> NativeBooster:
+                return NativeBooster(root / name)
 
             entries = config["levels"]
             model.median_model_ = booster(config["median_model"])
@@ -347,7 +356,7 @@ class QuantileForecaster:
             model.n_cal_ = int(config["n_cal"])
         except StoreError:
             raise
-        except (OSError, ValueError, KeyError, TypeError, lgb.basic.LightGBMError, InputError) as exc:
+        except (OSError, ValueError, KeyError, TypeError, InputError) as exc:
             raise StoreError(f"unreadable model: {exc}", where=str(root)) from exc
         if model.median_model_.num_feature() != model.n_features_in_:
             raise StoreError("boosters and feature names disagree in width", where=str(root))

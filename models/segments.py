@@ -31,7 +31,6 @@ from typing import Annotated, Any
 import numpy as np
 import numpy.typing as npt
 from pydantic import BaseModel, BeforeValidator, Field, computed_field
-from scipy import stats
 
 from .errors import InputError
 from .metrics import Metric
@@ -432,6 +431,8 @@ def _compare(
     metric: str | None,
 ) -> SegmentReport:
     """Shared core: ``groups`` are (name, index array) pairs into ``arr``."""
+    from scipy import stats  # loaded by a segment split only, not by the command line's start
+
     found: list[dict[str, Any]] = []
     for pos, (name, idx) in enumerate(groups):
         seg_vals = arr[idx]

@@ -40,9 +40,8 @@ import math
 import os
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any, Self
+from typing import TYPE_CHECKING, Any, Self
 
-import lightgbm as lgb
 import numpy as np
 from numpy.typing import ArrayLike
 from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
@@ -55,6 +54,10 @@ from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVEL
 from .regressor import QuantileForecaster, _matrix, _target
 from .textmodel import RidgeText
 from .timing import TimingEffect, best_hour_share, hour_from_cyclic
+
+if TYPE_CHECKING:
+    # Loaded for training only: saved boosters are served by models.booster_loading.
+    from .regressor import Booster
 
 #: Columns added after ``models.features.FEATURE_NAMES`` (see ``extra_columns``).
 EXTRA_FEATURES: tuple[str, ...] = ("text_ridge", "account_code")
@@ -291,6 +294,8 @@ class StackedForecaster:
         self.boosted_columns_ = tuple(names[c] for c in cols)
         self._cols = cols
         # 2. Rounds by early stopping on the stack block (time-ordered validation).
+        import lightgbm as lgb
+
         base = QuantileForecaster(**self._quantile_params(1))._booster_params(0.5)
         d_fit = lgb.Dataset(
             Xt[fit_idx][:, cols], yt[fit_idx] - tau[fit_idx], params=base, free_raw_data=False
@@ -555,7 +560,7 @@ class StackedForecaster:
         return m
 
 
-def _predict(booster: lgb.Booster, X: np.ndarray) -> np.ndarray:
+def _predict(booster: Booster, X: np.ndarray) -> np.ndarray:
     if X.shape[0] == 0:
         return np.empty(0)
     return np.asarray(booster.predict(X, num_threads=1 if X.shape[0] < 1000 else 0), dtype=float)

@@ -11,21 +11,23 @@ from __future__ import annotations
 
 import io
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import matplotlib
 import numpy as np
-from matplotlib.axes import Axes
-from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter, LogLocator, PercentFormatter
 
 from .errors import InputError
-from .plots import _STYLE, DPI, FORMATS, GRID, INK, PALETTE, WIDTH_IN, _plain_number
+from .plots import _STYLE, DPI, FORMATS, GRID, INK, PALETTE, WIDTH_IN, _plain_number, agg
+
+if TYPE_CHECKING:
+    # matplotlib is imported only when a figure is drawn.
+    from matplotlib.axes import Axes
 
 HELD, MISSED = PALETTE[0], PALETTE[6]
 
 
 def _coverage_panel(ax: Axes, months: list[Mapping[str, Any]]) -> None:
+    from matplotlib.ticker import PercentFormatter
+
     shown = [m for m in months if m.get("settled")]
     if not shown:
         ax.text(
@@ -66,6 +68,8 @@ def _coverage_panel(ax: Axes, months: list[Mapping[str, Any]]) -> None:
 
 
 def _outcome_panel(ax: Axes, points: list[Mapping[str, Any]], metric: str) -> None:
+    from matplotlib.ticker import FuncFormatter, LogLocator
+
     if not points:
         ax.text(
             0.5, 0.5, "no forecast settled yet", ha="center", va="center", transform=ax.transAxes, color=INK
@@ -114,6 +118,10 @@ def track_record_figure(report: Mapping[str, Any], *, fmt: str = "png") -> bytes
     fmt = fmt.lower()
     if fmt not in FORMATS:
         raise InputError(f"format must be one of {', '.join(FORMATS)}", field="fmt", value=fmt)
+    agg()
+    import matplotlib
+    from matplotlib.figure import Figure
+
     # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
     with matplotlib.rc_context(_STYLE):  # type: ignore[arg-type]
         fig = Figure(figsize=(WIDTH_IN, 4.6), dpi=DPI, layout="constrained")

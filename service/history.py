@@ -10,16 +10,19 @@ import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from models import features as F
 from models.metrics import METRIC_COLUMNS, target_values
 
 from .settings import Settings
 from .store import Store
+
+if TYPE_CHECKING:
+    # pandas loads with the first view built, not with this module.
+    import pandas as pd
 
 EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
@@ -108,6 +111,8 @@ def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndar
 
 
 def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
+    import pandas as pd
+
     frame = store.posts_frame()
     logs = np.log1p(target_values(frame, metric))
     codes = {h: i for i, h in enumerate(sorted(frame["account"].unique()))}

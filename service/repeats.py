@@ -7,10 +7,9 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from datetime import datetime
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
-import pandas as pd
 from pydantic import BaseModel, Field
 
 from models.metrics import METRIC_COLUMNS, Metric, target_value
@@ -18,6 +17,9 @@ from models.metrics import METRIC_COLUMNS, Metric, target_value
 from .answers import Instant, Round2, Round4
 from .history import HistoryView
 from .retrieval import Retriever, WideCache
+
+if TYPE_CHECKING:
+    import pandas as pd
 from .settings import Settings
 
 DAY = 86400.0

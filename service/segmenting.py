@@ -29,10 +29,9 @@ import typing
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import datetime, timedelta
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
-import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, PrivateAttr, field_serializer
 
 from models.embedding import normalise_text
@@ -67,6 +66,10 @@ from models.segments import (
 from .datadir import DataDir
 from .history import local_clock
 from .timeparse import now_utc
+
+if TYPE_CHECKING:
+    # pandas loads when a split reads its posts, not with this module.
+    import pandas as pd
 
 #: What a one-way split can be made by, besides topics.
 By = Literal["hour", "weekday", "link", "media", "length", "account"]
@@ -389,6 +392,8 @@ class _Posts:
 
 
 def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dict[str, int]]:
+    import pandas as pd
+
     frame = ws.store.posts_frame(account=req.account)
     values = target_values(frame, req.metric)
     has_metric = np.isfinite(values)
@@ -503,7 +508,7 @@ def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[
         Example(
             post_id=str(f["post_id"].iat[i]),
             account=str(f["account"].iat[i]),
-            posted_at=typing.cast(pd.Timestamp, f["posted_at"].iat[i]).to_pydatetime(),
+            posted_at=typing.cast("pd.Timestamp", f["posted_at"].iat[i]).to_pydatetime(),
             text=str(f["text"].iat[i]),
             similarity=float(sims[i]),
             value=float(posts.values[i]),

@@ -17,10 +17,9 @@ from contextvars import ContextVar
 from dataclasses import dataclass, field
 from datetime import datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field
 from sqlalchemy import create_engine, delete, event, func, select, update
 from sqlalchemy.engine import Engine, make_url
@@ -44,6 +43,10 @@ from .tables import (
     Vector,
 )
 from .timeparse import as_utc, now_utc, to_naive_utc, zone
+
+if TYPE_CHECKING:
+    # pandas loads when posts are first read as a frame, not with the store.
+    import pandas as pd
 
 _LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
 
@@ -123,6 +126,8 @@ _FRAME_CHUNK = 100_000  # rows typed at a time by Store.posts_frame
 
 def _posts_part(rows: Sequence[Any], columns: list[str]) -> pd.DataFrame:
     """One chunk of ``Store.posts_frame``'s rows as a typed frame."""
+    import pandas as pd
+
     df = pd.DataFrame(rows, columns=columns)
     df["posted_at"] = pd.to_datetime(df["posted_at"], utc=True)
     for m in METRIC_COLUMNS:
@@ -550,6 +555,8 @@ class Store:
         Columns: pk, account, timezone, post_id, text, posted_at (aware UTC),
         has_link, has_media, vector_key and one column per metric.
         """
+        import pandas as pd
+
         latest = (
             select(Snapshot.post_pk, func.max(Snapshot.id).label("sid")).group_by(Snapshot.post_pk).subquery()
         )

@@ -37,9 +37,7 @@ from typing import Any
 
 import numpy as np
 from pydantic import BaseModel, Field
-from scipy.stats import binom
 from sqlalchemy import Integer, cast, delete, func, select
-from statsmodels.stats.proportion import proportion_confint
 
 from models import features as F
 from models.adaptive import aci_step, adaptive_quantile
@@ -419,6 +417,8 @@ def live_coverage(store: Any, metric: str, coverage: float) -> LiveCoverage:
 
 def _wilson(k: int, n: int) -> tuple[float, float]:
     # Wilson score interval, 95% (statsmodels).
+    from statsmodels.stats.proportion import proportion_confint
+
     lo, hi = proportion_confint(k, n, alpha=0.05, method="wilson")
     return float(lo), float(hi)
 
@@ -469,6 +469,8 @@ def staleness(
         held = sum(bool(r[0]) for r in recent)
         stated = float(np.mean([r[1] for r in recent]))
         # Central 95% of Binomial(n, stated): live coverage outside it is unlikely by chance.
+        from scipy.stats import binom
+
         low, high = binom.interval(0.95, len(recent), stated)
         if not low <= held <= high:
             reasons.append(

@@ -20,8 +20,6 @@ from rich.progress import (
 from models.errors import InputError
 from models.metrics import METRIC_COLUMNS
 
-from ..api import guard
-from ..api.app import create_app
 from ..cluster import cluster_import_options
 from ..importer import ImportPreview, ImportSummary
 from ..mappings import combine, load_mapping
@@ -331,6 +329,9 @@ def serve_cmd(
 ) -> None:
     """Run the HTTP service (review page at /, API docs at /docs)."""
     import uvicorn  # the server, only when serving
+
+    from ..api import guard
+    from ..api.app import create_app  # FastAPI, only when serving
 
     ws = workspace()
     check_bind(host, ws.settings)
