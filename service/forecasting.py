@@ -36,6 +36,7 @@ from models.metrics import (
 )
 from models.stacking import ALL_FEATURES, ALL_GROUPS, STACK_PARAMS, StackedForecaster, extra_columns
 
+from . import viewcache
 from .answers import Calibration, Coverage, Instant, LiveCoverage
 from .datadir import DataDir
 from .history import HistoryView, build_view, feature_params, local_clock
@@ -296,9 +297,15 @@ class Forecaster:
         self._lock = threading.Lock()
 
     def embed(self, texts: Sequence[str]) -> np.ndarray:
-        """Drafts' vectors, after the request limits."""
+        """Drafts' vectors, after the request limits; each distinct text is
+        embedded once (a plan file or a comparison may repeat one)."""
         self.limits.check_drafts(texts)
-        return self._encode(list(texts))
+        distinct = list(dict.fromkeys(texts))
+        vecs = self._encode(distinct)
+        if len(distinct) == len(texts):
+            return vecs
+        at = {t: i for i, t in enumerate(distinct)}
+        return vecs[[at[t] for t in texts]]
 
     def model(self, metric: str) -> TrainedModel:
         check_target(metric)
@@ -316,7 +323,11 @@ class Forecaster:
             hit = self._views.get(metric)
             if hit is not None and hit[0] == stamp:
                 return hit[1]
-        v = build_view(self.store, metric, with_vectors=False)
+        # Kept between processes (service.viewcache): a cold command maps it.
+        v = viewcache.load(self.settings, self.store, metric, stamp)
+        if v is None:
+            v = build_view(self.store, metric, with_vectors=False)
+            viewcache.save(self.settings, v, stamp)
         with self._lock:
             self._views[metric] = (stamp, v)
         return v

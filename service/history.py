@@ -7,7 +7,7 @@ this one view, so a post is described the same way everywhere.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING, Any
@@ -32,18 +32,24 @@ class HistoryView:
     """The store's posts as arrays for one metric, oldest first."""
 
     metric: str
-    frame: pd.DataFrame
+    #: None for a view kept between commands (service.viewcache): no texts then.
+    frame: pd.DataFrame | None
     history: F.History
     local_hours: np.ndarray
     weekdays: np.ndarray
     forms: np.ndarray
     account_codes: dict[str, int]
     zones: dict[int, str]  # account code -> IANA zone
+    #: Posts by store row id (``Store.posts_by_pk``), for a view without a frame.
+    lookup: Callable[[Sequence[int]], dict[int, dict[str, Any]]] | None = None
     _columns: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
     def details(self, rows: Sequence[int]) -> dict[int, dict[str, Any]]:
         """Posts' details with current metrics, by store row id, for History
         rows (the shape ``Store.posts_by_pk`` gives)."""
+        if self.frame is None:
+            assert self.lookup is not None, "a view without a frame reads posts from the store"
+            return self.lookup([int(p) for p in self.history.pk[np.asarray(rows, dtype=np.int64)]])
         if "text" not in self._columns:
             # Arrays made once per view (a pandas row look-up costs more than
             # the rest of a forecast); strings stay in pandas' own array, read
