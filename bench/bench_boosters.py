@@ -67,9 +67,8 @@ def main() -> None:
         "ratio_to_floor": {k: round(v / med["floor"], 3) for k, v in med.items()},
     }
     for k, v in med.items():
-        print(
-            f"{k:9s} {v * 1000:8.0f} ms  {v / med['floor']:5.2f}x floor  (load {statistics.median(loads[k]):.1f})"
-        )
+        load = statistics.median(loads[k])
+        print(f"{k:9s} {v * 1000:8.0f} ms  {v / med['floor']:5.2f}x floor  (load {load:.1f})")
     out = ROOT / "bench" / "results" / f"boosters-{time.strftime('%Y%m%dT%H%M%SZ', time.gmtime())}.json"
     out.write_text(json.dumps(result, indent=2) + "\n")
     print(f"wrote {out.relative_to(ROOT)}")
