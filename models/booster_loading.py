@@ -29,7 +29,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import StoreError
+from models.errors import StoreError
 
 # Constants of LightGBM's C API (include/LightGBM/c_api.h).
 _DTYPE_FLOAT64 = 1

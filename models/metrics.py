@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from .errors import InputError
+from models.errors import InputError
 
 if TYPE_CHECKING:
     import pandas as pd

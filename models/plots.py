@@ -17,8 +17,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 import numpy.typing as npt
 
-from .errors import InputError
-from .segments import SegmentReport, SegmentStats
+from models.errors import InputError
+from models.segments import SegmentReport, SegmentStats
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes

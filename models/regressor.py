@@ -23,10 +23,10 @@ from typing import TYPE_CHECKING, Any, Self
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .booster_loading import NativeBooster, lightgbm_version
-from .calibration import CQRCalibrator
-from .errors import InputError, NotFittedError, NotFound, StoreError
-from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
+from models.booster_loading import NativeBooster, lightgbm_version
+from models.calibration import CQRCalibrator
+from models.errors import InputError, NotFittedError, NotFound, StoreError
+from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
 
 if TYPE_CHECKING:
     # The lightgbm package (and the scikit-learn and scipy it imports) loads

@@ -15,8 +15,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from .errors import InputError
-from .plots import _STYLE, DPI, FORMATS, GRID, INK, PALETTE, WIDTH_IN, _plain_number, agg
+from models.errors import InputError
+from models.plots import _STYLE, DPI, FORMATS, GRID, INK, PALETTE, WIDTH_IN, _plain_number, agg
 
 if TYPE_CHECKING:
     # matplotlib is imported only when a figure is drawn.

@@ -16,9 +16,8 @@ import numpy as np
 
 from models import features as F
 from models.metrics import METRIC_COLUMNS, target_values
-
-from .settings import Settings
-from .store import Store
+from service.settings import Settings
+from service.store import Store
 
 if TYPE_CHECKING:
     # pandas loads with the first view built, not with this module.

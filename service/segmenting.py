@@ -62,10 +62,9 @@ from models.segments import (
     length_labels,
     two_way,
 )
-
-from .datadir import DataDir
-from .history import local_clock
-from .timeparse import now_utc
+from service.datadir import DataDir
+from service.history import local_clock
+from service.timeparse import now_utc
 
 if TYPE_CHECKING:
     # pandas loads when a split reads its posts, not with this module.

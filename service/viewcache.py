@@ -21,10 +21,9 @@ from pathlib import Path
 import numpy as np
 
 from models import features as F
-
-from .history import HistoryView
-from .settings import Settings
-from .store import Store
+from service.history import HistoryView
+from service.settings import Settings
+from service.store import Store
 
 FORMAT = 1
 ARRAYS = ("pk", "time", "account", "log_target", "local_hours", "weekdays", "forms")

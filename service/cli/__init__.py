@@ -7,13 +7,13 @@ only a bug shows a traceback.
 
 from __future__ import annotations
 
-from .base import app
+from service.cli.base import app
 
 # Commands are listed from their modules' source and each module is imported
 # only when one of its commands runs or shows its help (service/cli/lazy.py),
 # so `sounding --help` loads none of the heavy libraries. The order of
 # their commands in --help is lazy.COMMAND_MODULES.
-from .lazy import COMMAND_MODULES, LazyGroup
+from service.cli.lazy import COMMAND_MODULES, LazyGroup
 
 app.info.cls = LazyGroup
 

@@ -21,8 +21,7 @@ if TYPE_CHECKING:
     from typer._click.core import Context as ClickContext
 
     from models.embedding import Embedder
-
-    from ..workspace import Workspace
+    from service.workspace import Workspace
 
 out = Console(soft_wrap=True)
 err = Console(stderr=True, soft_wrap=True)
@@ -130,8 +129,8 @@ def workspace() -> Workspace:
     """The workspace of this invocation. The embedder is kept per process,
     so tests that run many commands load the model once."""
     global _workspace, _embedder
-    from ..settings import Settings
-    from ..workspace import Workspace
+    from service.settings import Settings
+    from service.workspace import Workspace
 
     settings = Settings()
     if _workspace is None or _workspace.settings.resolved_home != settings.resolved_home:

@@ -27,7 +27,7 @@ import typer.main
 from typer._click import Command, HelpFormatter
 from typer._click.utils import make_default_short_help
 
-from .base import _Group, app
+from service.cli.base import _Group, app
 
 if TYPE_CHECKING:
     from typer._click.core import Context as ClickContext
