@@ -3,20 +3,18 @@
 Figures are built with the object-oriented ``Figure`` API rather than pyplot,
 so no figure is ever registered with pyplot's global manager: each one is freed
 when it goes out of scope, nothing leaks between requests and no window can
-open. The Agg backend is still selected for any code that imports pyplot.
+open. The Agg backend is still selected (``agg``) for any code that imports pyplot.
 """
 
 from __future__ import annotations
 
 import io
-
-import matplotlib
-
-matplotlib.use("Agg")
-
-from matplotlib.figure import Figure
+from typing import TYPE_CHECKING
 
 from models.errors import InputError
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 #: Our palette: calm, distinguishable, and still readable in greyscale.
 PALETTE: tuple[str, ...] = (
@@ -55,6 +53,14 @@ STYLE = {
     "svg.fonttype": "none",
     "svg.hashsalt": "sounding",  # stable element ids across renders
 }
+
+
+def agg() -> None:
+    """Select the off-screen backend. matplotlib is imported only when a
+    figure is drawn: the command line's other commands never load it."""
+    import matplotlib
+
+    matplotlib.use("Agg")
 
 
 def check_format(fmt: str) -> str:

@@ -8,13 +8,15 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from enum import StrEnum
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from models.constraints import Interval
 from models.errors import InputError
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 class Metric(StrEnum):

@@ -7,13 +7,10 @@ from __future__ import annotations
 
 from collections.abc import Hashable, Mapping, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import matplotlib
 import numpy as np
 import numpy.typing as npt
-from matplotlib.axes import Axes
-from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter, LogLocator
 
 from models.errors import InputError
 from models.figure_style import (
@@ -25,11 +22,15 @@ from models.figure_style import (
     PALETTE,
     STYLE,
     WIDTH_IN,
+    agg,
     check_format,
     figure_bytes,
     plain_number,
 )
 from models.segments import SegmentReport, SegmentStats
+
+if TYPE_CHECKING:
+    from matplotlib.axes import Axes
 
 _SMALL_DASHES: list[tuple[float, ...]] = [(3, 2), (1, 1.5), (6, 2, 1, 2), (4, 4)]
 
@@ -66,6 +67,8 @@ def _floor(values: np.ndarray) -> float:
 
 
 def _log_axis(ax: Axes) -> None:
+    from matplotlib.ticker import FuncFormatter, LogLocator
+
     ax.set_xscale("log")
     # 1-2-5 ticks: a narrow range of medians still gets several labels.
     ax.xaxis.set_major_locator(LogLocator(base=10, subs=(1.0, 2.0, 5.0)))
@@ -208,6 +211,10 @@ def plot_segments(
     colours = {s.name: PALETTE[i % len(PALETTE)] for i, s in enumerate(trusted)}
     colours.update({s.name: MUTED for s in order if s.too_small})
     floor = _floor(arr)
+
+    agg()
+    import matplotlib
+    from matplotlib.figure import Figure
 
     # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
     with matplotlib.rc_context(STYLE):  # type: ignore[arg-type]

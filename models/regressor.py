@@ -18,19 +18,26 @@ import math
 import os
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any, Self
+from typing import TYPE_CHECKING, Any, Self
 
-import lightgbm as lgb
 import numpy as np
 from numpy.typing import ArrayLike
 
 from models.arrays import as_matrix, as_target
 from models.bands import check_is_fitted, nearest_level, ordered_band, predict_booster
+from models.booster_loading import NativeBooster, lightgbm_version
 from models.calibration import CQRCalibrator
 from models.configfile import write_config
 from models.constraints import AT_LEAST_ONE, ParamsMixin
 from models.errors import InputError, NotFound, StoreError
 from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, TRAINED_LEVELS
+
+if TYPE_CHECKING:
+    # The lightgbm package (and the scikit-learn and scipy it imports) loads
+    # for training only; saved boosters are served by models.booster_loading.
+    import lightgbm as lgb
+
+    Booster = lgb.Booster | NativeBooster
 
 # Coverage levels ``predict`` accepts are models.metrics' MIN_COVERAGE to MAX_COVERAGE:
 # below 0.5 a band is not useful; above 0.95 the calibration blocks we see are too
@@ -144,14 +151,16 @@ class QuantileForecaster(ParamsMixin):
 
         # One binned Dataset serves every booster: only alpha differs.
         base = self.booster_params(0.5)
+        import lightgbm as lgb
+
         data = lgb.Dataset(Xt, yt, feature_name=_internal_names(n_features), params=base, free_raw_data=False)
 
-        def train(alpha: float) -> lgb.Booster:
+        def train(alpha: float) -> Booster:
             return lgb.train(self.booster_params(alpha), data, num_boost_round=int(self.n_estimators))
 
         self.median_model_ = train(0.5)
-        lowers: list[lgb.Booster] = []
-        uppers: list[lgb.Booster] = []
+        lowers: list[Booster] = []
+        uppers: list[Booster] = []
         calibrators: list[CQRCalibrator] = []
         for c in levels:
             lo_model, hi_model = train((1.0 - c) / 2.0), train(1.0 - (1.0 - c) / 2.0)
@@ -242,7 +251,7 @@ class QuantileForecaster(ParamsMixin):
             "n_cal": self.n_cal_,
             "median_model": "median.txt",
             "levels": entries,
-            "versions": {"lightgbm": lgb.__version__, "numpy": np.__version__},
+            "versions": {"lightgbm": lightgbm_version(), "numpy": np.__version__},
         }
         write_config(root, config, CONFIG_FILE)
         return root
@@ -266,8 +275,8 @@ class QuantileForecaster(ParamsMixin):
             params["levels"] = tuple(params["levels"])
             model = cls(**params)
 
-            def booster(name: str) -> lgb.Booster:
-                return lgb.Booster(model_file=str(root / name))
+            def booster(name: str) -> NativeBooster:
+                return NativeBooster(root / name)
 
             entries = config["levels"]
             model.median_model_ = booster(config["median_model"])
@@ -283,7 +292,7 @@ class QuantileForecaster(ParamsMixin):
             model.n_cal_ = int(config["n_cal"])
         except StoreError:
             raise
-        except (OSError, ValueError, KeyError, TypeError, lgb.basic.LightGBMError, InputError) as exc:
+        except (OSError, ValueError, KeyError, TypeError, InputError) as exc:
             raise StoreError(f"unreadable model: {exc}", where=str(root)) from exc
         if model.median_model_.num_feature() != model.n_features_in_:
             raise StoreError("boosters and feature names disagree in width", where=str(root))

@@ -30,7 +30,6 @@ from typing import Annotated, Any
 import numpy as np
 import numpy.typing as npt
 from pydantic import BaseModel, BeforeValidator, Field, computed_field
-from scipy import stats
 
 from models.constraints import AT_LEAST_ONE, OPEN_UNIT, Interval
 from models.errors import InputError
@@ -316,6 +315,8 @@ def _compare(
     metric: str | None,
 ) -> SegmentReport:
     """Shared core: ``groups`` are (name, index array) pairs into ``arr``."""
+    from scipy import stats  # loaded by a segment split only, not by the command line's start
+
     found: list[dict[str, Any]] = []
     for pos, (name, idx) in enumerate(groups):
         seg_vals = arr[idx]

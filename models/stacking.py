@@ -40,9 +40,8 @@ import math
 import os
 from collections.abc import Sequence
 from pathlib import Path
-from typing import Any, Self
+from typing import TYPE_CHECKING, Any, Self
 
-import lightgbm as lgb
 import numpy as np
 from numpy.typing import ArrayLike
 from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
@@ -59,6 +58,10 @@ from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS
 from models.regressor import QuantileForecaster
 from models.stack_columns import duplicate_columns
 from models.timing import TimingEffect, hour_from_cyclic
+
+if TYPE_CHECKING:
+    # Loaded for training only: saved boosters are served by models.booster_loading.
+    pass
 
 #: The share of the training block the stacking weights are fitted on.
 STACK_FRACTION = Interval(float, 0.05, 0.5)
@@ -243,6 +246,8 @@ class StackedForecaster(ParamsMixin):
         self.boosted_columns_ = tuple(names[c] for c in cols)
         self._cols = cols
         # 2. Rounds by early stopping on the stack block (time-ordered validation).
+        import lightgbm as lgb
+
         base = QuantileForecaster(**self._quantile_params(1)).booster_params(0.5)
         d_fit = lgb.Dataset(
             Xt[fit_idx][:, cols], yt[fit_idx] - tau[fit_idx], params=base, free_raw_data=False

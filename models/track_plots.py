@@ -10,13 +10,9 @@ missed are drawn in the second colour. Same style and object-oriented
 from __future__ import annotations
 
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import matplotlib
 import numpy as np
-from matplotlib.axes import Axes
-from matplotlib.figure import Figure
-from matplotlib.ticker import FuncFormatter, LogLocator, PercentFormatter
 
 from models.figure_style import (
     DPI,
@@ -26,15 +22,22 @@ from models.figure_style import (
     PALETTE,
     STYLE,
     WIDTH_IN,
+    agg,
     check_format,
     figure_bytes,
     plain_number,
 )
 
+if TYPE_CHECKING:
+    # matplotlib is imported only when a figure is drawn.
+    from matplotlib.axes import Axes
+
 HELD, MISSED = PALETTE[0], PALETTE[6]
 
 
 def _coverage_panel(ax: Axes, months: list[Mapping[str, Any]]) -> None:
+    from matplotlib.ticker import PercentFormatter
+
     shown = [m for m in months if m.get("settled")]
     if not shown:
         ax.text(
@@ -75,6 +78,8 @@ def _coverage_panel(ax: Axes, months: list[Mapping[str, Any]]) -> None:
 
 
 def _outcome_panel(ax: Axes, points: list[Mapping[str, Any]], metric: str) -> None:
+    from matplotlib.ticker import FuncFormatter, LogLocator
+
     if not points:
         ax.text(
             0.5, 0.5, "no forecast settled yet", ha="center", va="center", transform=ax.transAxes, color=INK
@@ -121,6 +126,10 @@ def _outcome_panel(ax: Axes, points: list[Mapping[str, Any]], metric: str) -> No
 def track_record_figure(report: Mapping[str, Any], *, fmt: str = "png") -> bytes:
     """PNG or SVG bytes of a track-record report (``service.track.report.report``)."""
     fmt = check_format(fmt)
+    agg()
+    import matplotlib
+    from matplotlib.figure import Figure
+
     # matplotlib types rc keys as a closed Literal set; ours are valid rc names.
     with matplotlib.rc_context(STYLE):  # type: ignore[arg-type]
         fig = Figure(figsize=(WIDTH_IN, 4.6), dpi=DPI, layout="constrained")

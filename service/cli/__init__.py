@@ -7,19 +7,19 @@ only a bug shows a traceback.
 
 from __future__ import annotations
 
-# Command modules register their commands on ``app`` when imported. Imported
-# by name: a missing module fails here rather than silently dropping its commands.
-from service.cli import admin, forecast, history, mappings, model_export, review, segments, track
 from service.cli.base import app
 
-#: The order their commands appear in --help.
-COMMAND_MODULES = (history, mappings, forecast, review, segments, admin, model_export, track)
-_ORDER = {m.__name__: i for i, m in enumerate(COMMAND_MODULES)}
-app.registered_commands.sort(key=lambda c: _ORDER.get(getattr(c.callback, "__module__", ""), len(_ORDER)))
+# Commands are listed from their modules' source and each module is imported
+# only when one of its commands runs or shows its help (service/cli/lazy.py),
+# so `sounding --help` loads none of the heavy libraries. The order of
+# their commands in --help is lazy.COMMAND_MODULES.
+from service.cli.lazy import COMMAND_MODULES, LazyGroup
+
+app.info.cls = LazyGroup
 
 
 def main() -> None:
     app()
 
 
-__all__ = ["app", "main"]
+__all__ = ["COMMAND_MODULES", "app", "main"]

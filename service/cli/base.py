@@ -12,14 +12,18 @@ import typer
 from rich.console import Console
 from typer.core import TyperGroup
 
-from models.embedding import Embedder
 from models.errors import NotFound, NotReady, SoundingError
 from service.settings import Settings
 from service.workspace import Workspace
 
 if TYPE_CHECKING:
+    # Imported where used: --help and the light commands load neither
+    # pydantic-settings nor the workspace's store, index and model code.
     # typer runs its own copy of click; its groups take that copy's Context.
     from typer._click.core import Context as ClickContext
+
+    from models.embedding import Embedder
+    from service.workspace import Workspace
 
 out = Console(soft_wrap=True)
 err = Console(stderr=True, soft_wrap=True)
@@ -127,6 +131,8 @@ def workspace() -> Workspace:
     """The workspace of this invocation. The embedder is kept per process,
     so tests that run many commands load the model once."""
     global _workspace, _embedder
+    from service.workspace import Workspace
+
     settings = Settings()
     if _workspace is None or _workspace.settings.resolved_home != settings.resolved_home:
         if _workspace is not None:

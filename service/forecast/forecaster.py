@@ -30,6 +30,7 @@ from service.clock import now_utc, zone
 from service.forecast.answer import Contributions, Forecast, GroupEffect, from_model_scale
 from service.forecast.calibration import CalibrationSource, adapted_band
 from service.forecast.draft import Draft
+from service.history import viewcache
 from service.history.precedents import WeightedPrecedent, precedents_for
 from service.history.repeats import near_repeats_many
 from service.history.retrieval import Retriever, WideCache
@@ -64,9 +65,15 @@ class Forecaster:
         self._lock = threading.Lock()
 
     def embed(self, texts: Sequence[str]) -> np.ndarray:
-        """Drafts' vectors, after the request limits."""
+        """Drafts' vectors, after the request limits; each distinct text is
+        embedded once (a plan file or a comparison may repeat one)."""
         self.limits.check_drafts(texts)
-        return self._encode(list(texts))
+        distinct = list(dict.fromkeys(texts))
+        vecs = self._encode(distinct)
+        if len(distinct) == len(texts):
+            return vecs
+        at = {t: i for i, t in enumerate(distinct)}
+        return vecs[[at[t] for t in texts]]
 
     def model(self, metric: str) -> TrainedModel:
         check_target(metric)
@@ -84,7 +91,11 @@ class Forecaster:
             hit = self._views.get(metric)
             if hit is not None and hit[0] == stamp:
                 return hit[1]
-        v = build_view(self.store, metric, with_vectors=False)
+        # Kept between processes (service.history.viewcache): a cold command maps it.
+        v = viewcache.load(self.settings, self.store, metric, stamp)
+        if v is None:
+            v = build_view(self.store, metric, with_vectors=False)
+            viewcache.save(self.settings, v, stamp)
         with self._lock:
             self._views[metric] = (stamp, v)
         return v

@@ -5,12 +5,11 @@ carries them as warnings.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from datetime import datetime
 from typing import Any, Literal
 
 import numpy as np
-import pandas as pd
 from pydantic import BaseModel, Field
 
 from models.metrics import METRIC_COLUMNS, Metric, target_value
@@ -149,22 +148,22 @@ def near_repeats_many(
 def _repeat(
     view: HistoryView, scope: str, row: int, sim: float, *, t: float, now: datetime, maturity: float
 ) -> Repeat:
-    rec = view.frame.iloc[row]
+    rec = view.details([row])[int(view.history.pk[row])]
     posted = view.history.time[row]
     fields: dict[str, Any] = {
         "scope": scope,
         "post_id": str(rec["post_id"]),
         "account": str(rec["account"]),
-        "posted_at": rec["posted_at"].to_pydatetime(),
+        "posted_at": rec["posted_at"],
         "days_before": (t - posted) / DAY,
         "similarity": float(sim),
         "metric": view.metric,
-        "value": target_value(_metrics(rec), view.metric),
+        "value": target_value(_metrics(rec["metrics"]), view.metric),
         "still_gathering": not bool(posted <= now.timestamp() - maturity),
     }
     message = repeat_message(**fields, text=str(rec["text"]), planned_is_now=abs(t - now.timestamp()) < DAY)
     return Repeat(**fields, message=message)
 
 
-def _metrics(rec: pd.Series) -> dict[str, float | None]:
-    return {m: (None if rec[m] != rec[m] else float(rec[m])) for m in METRIC_COLUMNS}
+def _metrics(rec: Mapping[str, Any]) -> dict[str, float | None]:
+    return {m: (None if rec[m] is None or rec[m] != rec[m] else float(rec[m])) for m in METRIC_COLUMNS}

@@ -7,18 +7,21 @@ this one view, so a post is described the same way everywhere.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from models import features as F
 from models.metrics import METRIC_COLUMNS, target_values
 from service.settings import Settings
 from service.storage.store import Store
+
+if TYPE_CHECKING:
+    # pandas loads with the first view built, not with this module.
+    import pandas as pd
 
 EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 
@@ -28,18 +31,24 @@ class HistoryView:
     """The store's posts as arrays for one metric, oldest first."""
 
     metric: str
-    frame: pd.DataFrame
+    #: None for a view kept between commands (service.history.viewcache): no texts then.
+    frame: pd.DataFrame | None
     history: F.History
     local_hours: np.ndarray
     weekdays: np.ndarray
     forms: np.ndarray
     account_codes: dict[str, int]
     zones: dict[int, str]  # account code -> IANA zone
+    #: Posts by store row id (``Store.posts_by_pk``), for a view without a frame.
+    lookup: Callable[[Sequence[int]], dict[int, dict[str, Any]]] | None = None
     _columns: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
     def details(self, rows: Sequence[int]) -> dict[int, dict[str, Any]]:
         """Posts' details with current metrics, by store row id, for History
         rows (the shape ``Store.posts_by_pk`` gives)."""
+        if self.frame is None:
+            assert self.lookup is not None, "a view without a frame reads posts from the store"
+            return self.lookup([int(p) for p in self.history.pk[np.asarray(rows, dtype=np.int64)]])
         if "text" not in self._columns:
             # Arrays made once per view (a pandas row look-up costs more than
             # the rest of a forecast); strings stay in pandas' own array, read
@@ -107,6 +116,8 @@ def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndar
 
 
 def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
+    import pandas as pd
+
     frame = store.posts_frame()
     logs = np.log1p(target_values(frame, metric))
     codes = {h: i for i, h in enumerate(sorted(frame["account"].unique()))}

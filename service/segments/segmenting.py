@@ -29,10 +29,9 @@ import typing
 from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime, timedelta
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from models.errors import InputError, NotReady
 from models.metrics import target_values
@@ -65,6 +64,10 @@ from service.segments.request import (
 # --------------------------------------------------------------------------
 # Gathering the posts
 
+if TYPE_CHECKING:
+    # pandas loads when a split reads its posts, not with this module.
+    import pandas as pd
+
 
 @dataclass(slots=True)
 class _Posts:
@@ -78,6 +81,8 @@ def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dic
     has_metric = np.isfinite(values)
     # Young posts are still gathering their metric; counting them would pull
     # every segment they sit in down.
+    import pandas as pd
+
     cutoff = pd.Timestamp(now - timedelta(hours=float(ws.settings.maturity_hours)))
     mature = (frame["posted_at"] <= cutoff).to_numpy()
     keep = has_metric & mature
@@ -187,7 +192,7 @@ def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[
         Example(
             post_id=str(f["post_id"].iat[i]),
             account=str(f["account"].iat[i]),
-            posted_at=typing.cast(pd.Timestamp, f["posted_at"].iat[i]).to_pydatetime(),
+            posted_at=typing.cast("pd.Timestamp", f["posted_at"].iat[i]).to_pydatetime(),
             text=str(f["text"].iat[i]),
             similarity=float(sims[i]),
             value=float(posts.values[i]),

@@ -4,10 +4,9 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
 from datetime import datetime
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 from sqlalchemy import func, select
 
 from models.errors import StoreError
@@ -15,6 +14,10 @@ from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
 from service.clock import as_utc, to_naive_utc
 from service.storage.accounts import AccountRecords
+
+if TYPE_CHECKING:
+    # pandas loads when posts are first read as a frame, not with the store.
+    import pandas as pd
 from service.storage.tables import (
     Account,
     Post,
@@ -27,6 +30,8 @@ _FRAME_CHUNK = 100_000  # rows typed at a time by Store.posts_frame
 
 def _posts_part(rows: Sequence[Any], columns: list[str]) -> pd.DataFrame:
     """One chunk of ``Store.posts_frame``'s rows as a typed frame."""
+    import pandas as pd
+
     df = pd.DataFrame(rows, columns=columns)
     df["posted_at"] = pd.to_datetime(df["posted_at"], utc=True)
     for m in METRIC_COLUMNS:
@@ -100,6 +105,8 @@ class PostReads(AccountRecords):
         Columns: pk, account, timezone, post_id, text, posted_at (aware UTC),
         has_link, has_media, vector_key and one column per metric.
         """
+        import pandas as pd
+
         latest = (
             select(Snapshot.post_pk, func.max(Snapshot.id).label("sid")).group_by(Snapshot.post_pk).subquery()
         )

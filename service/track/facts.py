@@ -7,7 +7,6 @@ from datetime import datetime
 from typing import Any
 
 import numpy as np
-from scipy.stats import binom, binomtest
 
 from models.artefact import TrainedModel
 from models.errors import NotReady
@@ -51,6 +50,8 @@ def live_coverage(store: Store, metric: str, coverage: float) -> LiveCoverage:
 
 def wilson(k: int, n: int) -> tuple[float, float]:
     """The Wilson score interval (95%) of k successes in n trials."""
+    from scipy.stats import binomtest
+
     ci = binomtest(k, n).proportion_ci(confidence_level=0.95, method="wilson")
     return float(ci.low), float(ci.high)
 
@@ -98,6 +99,8 @@ def staleness(
         held = sum(bool(r[0]) for r in recent)
         stated = float(np.mean([r[1] for r in recent]))
         # Central 95% of Binomial(n, stated): live coverage outside it is unlikely by chance.
+        from scipy.stats import binom
+
         low, high = binom.interval(0.95, len(recent), stated)
         if not low <= held <= high:
             reasons.append(

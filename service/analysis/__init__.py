@@ -1,0 +1,1 @@
+"""The analyst's questions: distribution, surprises, trends, topics the history holds."""

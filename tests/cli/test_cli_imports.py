@@ -1,0 +1,125 @@
+"""The command line imports what the command needs, and nothing heavy to
+print help or to list accounts and mappings.
+
+Each command runs in a fresh interpreter (a subprocess), which then lists
+``sys.modules``: the only honest way to see what a start-up loads. Every
+command is taken from the typer app itself, so a new command is covered.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+from typer.main import get_command
+
+from service.cli import app
+from service.cli.lazy import catalogue
+
+ROOT = Path(__file__).resolve().parents[1]
+
+#: Libraries a light command must not load (each costs a large part of a second or more).
+HEAVY = ("pandas", "lightgbm", "sklearn", "scipy", "matplotlib", "fastapi", "torch", "onnxruntime", "uvicorn")
+
+# Runs the command line as the `sounding` script does, then prints the loaded modules.
+PROBE = r"""
+import sys
+sys.argv = ["sounding", *sys.argv[1:]]
+from service.cli import main
+try:
+    main()
+except SystemExit as exc:
+    code = exc.code
+else:
+    code = 0
+sys.stdout.flush()
+print("\n@@modules", code, " ".join(sorted(sys.modules)))
+"""
+
+
+def _paths(group: Any, prefix: tuple[str, ...] = ()) -> Iterator[tuple[str, ...]]:
+    # typer runs its own copy of click: a group is anything with commands.
+    for name, cmd in group.commands.items():
+        yield (*prefix, name)
+        if hasattr(cmd, "commands"):
+            yield from _paths(cmd, (*prefix, name))
+
+
+ALL_PATHS = list(_paths(get_command(app)))
+
+
+def loaded(*args: str, home: Path | None = None) -> tuple[int, set[str], str]:
+    env = {**os.environ, "PYTHONPATH": str(ROOT), "HF_HUB_OFFLINE": "1", "COLUMNS": "120"}
+    if home is not None:
+        env["SOUNDING_HOME"] = str(home)
+    r = subprocess.run(
+        [sys.executable, "-c", PROBE, *args], capture_output=True, text=True, env=env, cwd=ROOT, timeout=300
+    )
+    head, _, tail = r.stdout.rpartition("\n@@modules ")
+    assert tail, f"the probe printed no module list: {r.stderr[-2000:]}"
+    code, *mods = tail.split()
+    return int(code or 0), set(mods), head
+
+
+def heavy(mods: set[str]) -> list[str]:
+    return sorted({m.split(".")[0] for m in mods} & set(HEAVY))
+
+
+def test_root_help_imports_no_command_module() -> None:
+    code, mods, text = loaded("--help")
+    assert code == 0
+    assert heavy(mods) == []
+    # The listing comes from the source: no command's module runs for it.
+    assert not {m for m in mods if m.startswith("service.cli.")} - {
+        "service.cli.base",
+        "service.cli.lazy",
+    }
+    for name in catalogue():
+        assert f"  {name} " in text
+    assert any(p == ("mapping", "list") for p in ALL_PATHS)  # sub-commands are walked too
+
+
+@pytest.mark.parametrize("path", ALL_PATHS, ids=" ".join)
+def test_command_help_loads_nothing_heavy(path: tuple[str, ...]) -> None:
+    code, mods, text = loaded(*path, "--help")
+    assert code == 0, text
+    assert "Usage:" in text
+    assert heavy(mods) == [], f"`sounding {' '.join(path)} --help` loaded {heavy(mods)}"
+
+
+@pytest.mark.parametrize("args", [("accounts",), ("mapping", "list")], ids=" ".join)
+def test_listing_commands_load_nothing_heavy(args: tuple[str, ...], demo_home: Path) -> None:
+    code, mods, text = loaded(*args, home=demo_home)
+    assert code == 0, text
+    assert heavy(mods) == [], f"`sounding {' '.join(args)}` loaded {heavy(mods)}"
+    if args == ("accounts",):
+        assert "loomhaven" in text.lower()  # the demo's accounts were listed
+
+
+def test_the_catalogue_is_what_typer_registers() -> None:
+    """The names, order and one-line help read from source are the ones the
+    built commands carry (checked on the fully imported app)."""
+    root: Any = get_command(app)
+    built = dict(root.commands.items())  # builds every command
+    assert list(catalogue()) == list(built)
+    for name, entry in catalogue().items():
+        assert entry.help == (built[name].help or "").strip(), name
+        assert entry.hidden == built[name].hidden, name
+
+
+def test_a_figure_loads_matplotlib_and_serving_loads_fastapi_only_there() -> None:
+    """matplotlib and FastAPI are imported by what draws and what serves."""
+    probe = (
+        "import sys; import service.segments.segmenting, service.track.record, models.track_plots;"
+        "import service.cli.history;"
+        "print(sorted({m.split('.')[0] for m in sys.modules} & {'matplotlib', 'fastapi', 'uvicorn'}))"
+    )
+    env = {**os.environ, "PYTHONPATH": str(ROOT), "HF_HUB_OFFLINE": "1"}
+    r = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, env=env, cwd=ROOT)
+    assert r.returncode == 0, r.stderr
+    assert r.stdout.strip() == "[]"
