@@ -11,7 +11,7 @@ from __future__ import annotations
 import os
 import re
 import sqlite3
-from collections.abc import Iterable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from contextvars import ContextVar
 from dataclasses import dataclass, field
@@ -92,6 +92,9 @@ def _sqlite_pragmas(dbapi_conn: Any, _record: Any) -> None:
         cur = dbapi_conn.cursor()
         cur.execute("PRAGMA journal_mode=WAL")
         cur.execute("PRAGMA foreign_keys=ON")
+        # Deleted rows are overwritten, not left in free pages: a forgotten
+        # post's text must not stay readable in the file (sqlite.org/pragma.html).
+        cur.execute("PRAGMA secure_delete=ON")
         cur.execute("PRAGMA synchronous=NORMAL")
         cur.execute("PRAGMA busy_timeout=30000")
         cur.close()
@@ -649,14 +652,27 @@ class Store:
 
     # Forgetting -----------------------------------------------------------
 
-    def forget(self, *, account: str | None = None, post_id: str | None = None) -> list[int]:
+    def forget(
+        self,
+        *,
+        account: str | None = None,
+        post_id: str | None = None,
+        also: Callable[..., object] | None = None,
+    ) -> list[int]:
         """Delete a post (``post_id``, with ``account`` when ids repeat across
         accounts) or a whole account, with snapshots and now-unused vectors.
+        ``also(session, rows, account=...)`` runs in the same transaction
+        first, for copies kept elsewhere in the store (service.forget_track);
+        ``rows`` are (row id, vector key, post id, handle, account row id),
+        ``account`` (row id, handle) when a whole account goes.
         Returns the deleted post row ids, for the index."""
         if account is None and post_id is None:
             raise InputError("say which account or post to forget")
         with self.session() as s:
-            q = select(Post.id, Post.vector_key).join(Account, Account.id == Post.account_id)
+            q = select(Post.id, Post.vector_key, Post.post_id, Account.handle, Account.id).join(
+                Account, Account.id == Post.account_id
+            )
+            acc = None
             if account is not None:
                 acc = s.scalar(select(Account).where(Account.handle == account))
                 if acc is None:
@@ -675,6 +691,9 @@ class Store:
                     )
             pks = [int(r[0]) for r in rows]
             keys = {r[1] for r in rows}
+            if also is not None:
+                whole = (acc.id, acc.handle) if acc is not None and post_id is None else None
+                also(s, [(int(r[0]), r[1], r[2], r[3], int(r[4])) for r in rows], account=whole)
             for i in range(0, len(pks), 900):
                 chunk = pks[i : i + 900]
                 s.execute(delete(Snapshot).where(Snapshot.post_pk.in_(chunk)))

@@ -25,6 +25,7 @@ from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
 from models.index import VectorIndex, fingerprint
 
+from . import forgetting, uploads
 from .forecasting import Forecaster
 from .importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
 from .locking import LOCK_FILE, WriteLock
@@ -92,6 +93,8 @@ class Workspace:
         if not self.read_only:
             for p in clean_leftovers(settings.models_dir):
                 log.warning("removed %s, left by a training that did not finish", p.name)
+            for p in uploads.sweep(settings.uploads_dir):
+                log.warning("removed %s, an upload left by an import that did not finish", p.name)
         self.embedder = embedder or Embedder(
             model_path=settings.embed_model_path,
             batch_size=settings.embed_batch_size,
@@ -352,12 +355,18 @@ class Workspace:
         return preview_csv(self.store, self.embedder, path, **options)
 
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
-        """Delete posts from the store and the index together."""
+        """Delete posts from the store, the track record and the index
+        together, and clear the copies left outside them (service.forgetting)."""
         with self.writing("a forget"), self._lock:
             self.index()
-            pks = self.store.forget(account=account, post_id=post_id)
+            pks = self.store.forget(
+                account=account, post_id=post_id, also=forgetting.hook(self.settings.resolved_home)
+            )
             self._sync_index([], pks)
+            if self._index is not None and self._index.tombstones:
+                self._reindex()  # an HNSW graph keeps removed vectors until rebuilt
             self.forecaster.warm()
+            forgetting.clear_leftovers(self.store, self.settings.uploads_dir)
             return len(pks)
 
     def account(self, handle: str) -> AccountInfo:
