@@ -30,6 +30,7 @@ from .forecasting import Forecaster
 from .importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
 from .locking import LOCK_FILE, WriteLock
 from .precedents import Precedent, precedents_for
+from .presence import Presence
 from .retrieval import Retriever
 from .settings import Settings
 from .store import AccountInfo, Store
@@ -86,6 +87,8 @@ class Workspace:
         # A read-only directory (a read-only mount, a restored snapshot) still
         # serves reads; every change is refused with one message (writing()).
         self.read_only = not os.access(settings.resolved_home, os.W_OK)
+        # Held while open, so a restore never swaps the store under this process.
+        self._presence = None if self.read_only else Presence(settings.resolved_home)
         self.store = Store(url=settings.db_url, read_only=self.read_only and settings.database_url is None)
         self._writer = WriteLock(
             path=settings.resolved_home / LOCK_FILE, wait_seconds=settings.write_wait_seconds
@@ -119,6 +122,8 @@ class Workspace:
 
     def close(self) -> None:
         self.store.close()
+        if self._presence is not None:
+            self._presence.release()
 
     @contextmanager
     def writing(self, what: str) -> Iterator[None]:
