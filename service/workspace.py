@@ -23,7 +23,8 @@ import numpy as np
 from models.artefact import clean_leftovers
 from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
-from models.index import VectorIndex, fingerprint
+from models.index import DamagedIndex, VectorIndex, fingerprint
+from models.integrity import note_repair
 
 from . import forgetting, uploads
 from .forecasting import Forecaster
@@ -164,6 +165,10 @@ class Workspace:
             if index is None:
                 try:
                     index = VectorIndex.load(self.settings.index_dir)
+                except DamagedIndex as exc:
+                    log.warning("%s; rebuilding it", exc.message)
+                    note_repair(f"index: {exc.message}; rebuilt from the store")
+                    index = None
                 except StoreError:
                     index = None
             if index is None or index.fingerprint_ != fp:
