@@ -22,6 +22,7 @@ import os
 import shutil
 import sqlite3
 from dataclasses import dataclass, field
+from datetime import UTC
 from pathlib import Path
 
 from models.embedding import Embedder
@@ -79,18 +80,21 @@ def coming_back(backup: Path, log: list[Forgotten]) -> list[Forgotten]:
     """The logged forgets whose account or post ``backup`` holds again."""
     con = sqlite3.connect(f"file:{backup}?mode=ro", uri=True)
     try:
-        handles = {r[0] for r in con.execute("SELECT handle FROM accounts")}
+        created = {r[0]: r[1] for r in con.execute("SELECT handle, created_at FROM accounts")}
         back: dict[tuple[str, str | None], Forgotten] = {}
         for e in log:
-            if e.account not in handles:
+            # Rows made after the forget (an account or post imported again
+            # on purpose) are not the forgotten ones: times are naive UTC.
+            after = e.at.astimezone(UTC).replace(tzinfo=None).isoformat(sep=" ", timespec="microseconds")
+            if e.account not in created or str(created[e.account]) > after:
                 continue
             if e.post_id is not None:
                 found = con.execute(
-                    "SELECT 1 FROM posts p JOIN accounts a ON a.id = p.account_id "
+                    "SELECT p.imported_at FROM posts p JOIN accounts a ON a.id = p.account_id "
                     "WHERE a.handle = ? AND p.post_id = ?",
                     (e.account, e.post_id),
                 ).fetchone()
-                if found is None:
+                if found is None or str(found[0]) > after:
                     continue
             back[(e.account, e.post_id)] = e
     finally:
