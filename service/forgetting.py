@@ -15,10 +15,10 @@ and clear the copies left outside the tables.
 from __future__ import annotations
 
 import logging
+import sqlite3
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
-from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session
 
 from service.forget_log import append, entries_for
@@ -45,13 +45,18 @@ def hook(home: Path) -> Hook:
 
 def truncate_wal(store: Store) -> bool:
     """Checkpoint a SQLite store's write-ahead log and cut it to nothing;
-    False when a reader kept it (it is reused, and so overwritten, later)."""
+    False when a reader kept it (its pages are reused, and so overwritten,
+    later). Waits one second at most: a forget must not stall behind a long
+    read."""
     if store.backend != "sqlite" or store.read_only:
         return False
     try:
-        with store.engine.connect() as con:
-            busy = con.exec_driver_sql("PRAGMA wal_checkpoint(TRUNCATE)").fetchone()
-    except SQLAlchemyError as exc:
+        con = sqlite3.connect(store.url.removeprefix("sqlite:///"), timeout=1)
+        try:
+            busy = con.execute("PRAGMA wal_checkpoint(TRUNCATE)").fetchone()
+        finally:
+            con.close()
+    except sqlite3.Error as exc:
         log.warning("the write-ahead log was not checkpointed after a forget: %s", exc)
         return False
     return busy is not None and int(busy[0]) == 0
