@@ -36,8 +36,8 @@ from typing import Any, cast
 import faiss
 import numpy as np
 
-from .errors import InputError, NotFittedError, StoreError
-from .integrity import checksums, mismatch, self_search_problem
+from models.errors import InputError, NotFittedError, StoreError
+from models.integrity import checksums, mismatch, self_search_problem
 
 INDEX_FILE = "index.faiss"
 CONFIG_FILE = "config.json"

@@ -36,8 +36,8 @@ import numpy as np
 import onnxruntime as ort  # an ImportError here makes the embedder fall back to torch
 from tokenizers import Tokenizer
 
-from .errors import InputError, StoreError
-from .integrity import checksums, mismatch, note_repair
+from models.errors import InputError, StoreError
+from models.integrity import checksums, mismatch, note_repair
 
 log = logging.getLogger("sounding.embedding")
 

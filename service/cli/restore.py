@@ -8,12 +8,11 @@ from pathlib import Path
 import typer
 
 from models.errors import InputError
-
-from ..forget_log import Forgotten, read
-from ..restore import check_backup, coming_back, restore
-from ..settings import Settings
-from . import base
-from .base import app, out
+from service.cli import base
+from service.cli.base import app, out
+from service.forget_log import Forgotten, read
+from service.restore import check_backup, coming_back, restore
+from service.settings import Settings
 
 
 def _named(e: Forgotten) -> str:
