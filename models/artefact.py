@@ -34,6 +34,7 @@ import numpy as np
 
 from models.errors import NotFound, NotReady, StoreError
 from models.features import FeatureParams
+from models.integrity import boosters_parse, checksums, mismatch
 from models.regressor import QuantileForecaster
 from models.stack_columns import draft_columns
 from models.stacking import StackedForecaster
@@ -280,7 +281,33 @@ def _check_legacy(d: Path, cfg: dict[str, Any]) -> dict[str, Any] | str:
     for key in ("metric", "version", "features"):
         if key not in cfg:
             return f"its {CONFIG} has no {key!r}"
-    return cfg
+    wrong = _check_legacy_body(d, boosters)
+    return cfg if wrong is None else wrong
+
+
+LEGACY_CHECKED = "checked.json"  # checksums written once a format-1 version parsed
+
+
+def _check_legacy_body(d: Path, boosters: list[Path]) -> str | None:
+    """Damage inside a format-1 booster file, which only LightGBM's parser
+    would find (and it may end the process): parsed once in a child process,
+    then checksummed beside the version so later loads only compare hashes."""
+    names = sorted(p.relative_to(d).as_posix() for p in (d / "quantiles").rglob("*") if p.is_file())
+    try:
+        sums = json.loads((d / LEGACY_CHECKED).read_text())
+    except (OSError, ValueError):
+        sums = None
+    if isinstance(sums, dict) and set(sums) == set(names):
+        return mismatch(d, sums)
+    wrong = boosters_parse(boosters)
+    if wrong is None:
+        try:
+            tmp = d / (LEGACY_CHECKED + ".tmp")
+            tmp.write_text(json.dumps(checksums(d, names), indent=2))
+            os.replace(tmp, d / LEGACY_CHECKED)
+        except OSError:
+            pass  # a read-only directory: parsed again next start
+    return wrong
 
 
 _warned: set[str] = set()

@@ -39,9 +39,17 @@ import numpy as np
 from models.configfile import write_config
 from models.constraints import AT_LEAST_ONE
 from models.errors import InputError, NotFittedError, StoreError
+from models.integrity import checksums, mismatch, self_search_problem
 
 INDEX_FILE = "index.faiss"
 CONFIG_FILE = "config.json"
+
+
+class DamagedIndex(StoreError):
+    """A saved index whose files do not match their checksums or whose
+    vectors do not find themselves: rebuilt from the store."""
+
+    code = "damaged_index"
 
 
 def fingerprint(pairs: Iterable[tuple[int, str]]) -> str:
@@ -418,7 +426,10 @@ class VectorIndex:
         tmp = d / (INDEX_FILE + ".tmp")
         faiss.write_index(index, str(tmp))
         os.replace(tmp, d / INDEX_FILE)
-        write_config(d, self.config(), CONFIG_FILE)
+        cfg = self.config()
+        # Checked at load before FAISS reads a byte (models.integrity).
+        cfg["files"] = checksums(d, [INDEX_FILE] + ([IDS_FILE] if self.ids_ is not None else []))
+        write_config(d, cfg, CONFIG_FILE)
 
     @staticmethod
     def saved_config(directory: str | Path) -> dict[str, Any] | None:
@@ -435,6 +446,12 @@ class VectorIndex:
         d = Path(directory)
         try:
             cfg = json.loads((d / CONFIG_FILE).read_text())
+            files = cfg.get("files")
+            wrong = mismatch(d, files) if isinstance(files, dict) else None
+            if wrong is not None:
+                raise DamagedIndex(
+                    f"the index in {d} is damaged: {wrong}", hint="it is rebuilt from the store"
+                )
             index = faiss.read_index(str(d / INDEX_FILE))
             ids = np.load(d / IDS_FILE) if cfg.get("approximate") else None
         except FileNotFoundError:
@@ -461,4 +478,20 @@ class VectorIndex:
                 self.fingerprint_ = ""  # ids and graph disagree: treat as stale
         if self.ntotal != int(cfg.get("count", -1)):
             self.fingerprint_ = ""  # config and file disagree: treat as stale
+        if not isinstance(cfg.get("files"), dict):
+            # Saved before checksums: its own vectors must find themselves.
+            wrong = self._self_search()
+            if wrong is not None:
+                raise DamagedIndex(
+                    f"the index in {d} is damaged: {wrong}", hint="it is rebuilt from the store"
+                )
         return self
+
+    def _self_search(self, sample: int = 16) -> str | None:
+        xb = self.stored_vectors()
+        if not len(xb):
+            return None
+        pick = np.linspace(0, len(xb) - 1, num=min(sample, len(xb))).astype(np.int64)
+        q = np.ascontiguousarray(xb[pick], dtype=np.float32)
+        sims, _ = self.index_.search(q, 1)
+        return self_search_problem(q, sims)

@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import logging
 import os
 import shutil
 import warnings
@@ -36,6 +37,9 @@ import onnxruntime as ort  # an ImportError here makes the embedder fall back to
 from tokenizers import Tokenizer
 
 from models.errors import InputError, StoreError
+from models.integrity import checksums, mismatch, note_repair
+
+log = logging.getLogger("sounding.embedding")
 
 EXPORT_FORMAT = 1  # bump when the graph or the files of an export change
 OPSET = 17
@@ -98,8 +102,27 @@ def find_or_export(*, root: Path, model_id: str, model_path: Path, quantize: str
     check_quantize(quantize)
     target = root / export_name(model_id=model_id, model_path=model_path, quantize=quantize)
     if (target / CONFIG_NAME).is_file():
-        return target
+        wrong = export_problem(target)
+        if wrong is None:
+            return target
+        # A damaged graph can load and give wrong vectors: export it again.
+        log.warning("the ONNX export %s is damaged (%s); exporting it again", target.name, wrong)
+        note_repair(f"embedding export {target.name}: {wrong}; exported again")
+        shutil.rmtree(target, ignore_errors=True)
     return export(model_path=model_path, model_id=model_id, target=target, quantize=quantize)
+
+
+def export_problem(target: Path) -> str | None:
+    """What is wrong with a saved export (None when its files match the
+    checksums in its config); one saved without checksums cannot be trusted."""
+    try:
+        cfg = json.loads((target / CONFIG_NAME).read_text())
+    except (OSError, ValueError) as exc:
+        return f"its config is unreadable ({exc})"
+    files = cfg.get("files") if isinstance(cfg, dict) else None
+    if not isinstance(files, dict):
+        return "it was saved without checksums"
+    return mismatch(target, files)
 
 
 def export(*, model_path: Path, model_id: str, target: Path, quantize: str = "none") -> Path:
@@ -114,6 +137,8 @@ def export(*, model_path: Path, model_id: str, target: Path, quantize: str = "no
         shutil.rmtree(tmp, ignore_errors=True)
         tmp.mkdir(parents=True)
         cfg = _export_into(tmp, model_path=model_path, model_id=model_id, quantize=quantize)
+        # Compared before ONNX Runtime reads the graph (models.integrity).
+        cfg["files"] = checksums(tmp, [MODEL_NAME, TOKENIZER_NAME])
         (tmp / CONFIG_NAME).write_text(json.dumps(cfg, indent=2))
         try:
             tmp.rename(target)

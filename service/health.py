@@ -11,6 +11,7 @@ from typing import Any, Literal, Protocol
 from pydantic import BaseModel, Field
 
 from models.artefact import intact
+from models.integrity import REPAIRED
 from models.metrics import DEFAULT_METRIC
 from service.datadir import DataDir
 
@@ -54,6 +55,10 @@ class Health(BaseModel):
         description="Model versions skipped because their files do not match their checksums",
     )
     read_only: bool = Field(default=False, description="The data directory refuses changes")
+    repaired: list[str] = Field(
+        default_factory=list,
+        description="Saved files found damaged since the service started, and what was done (rebuilt)",
+    )
 
 
 class Parts(DataDir, Protocol):
@@ -83,4 +88,5 @@ def health(ws: Parts) -> Health:
         forecaster=served,
         damaged_models=[f"{metric}/{v}: {why}" for v, why in damaged],
         read_only=ws.read_only,
+        repaired=list(REPAIRED),
     )

@@ -24,7 +24,8 @@ from models.artefact import clean_leftovers
 from models.constraints import Interval
 from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
-from models.index import VectorIndex, fingerprint
+from models.index import DamagedIndex, VectorIndex, fingerprint
+from models.integrity import note_repair
 from service.clock import as_utc
 from service.forecast.forecaster import Forecaster
 from service.history.precedents import Precedent, precedents_for
@@ -34,8 +35,10 @@ from service.ingest.importer import EmbedFn, ProgressFn, import_csv
 from service.ingest.options import ImportOptions
 from service.ingest.preview import preview_csv
 from service.settings import Settings
+from service.storage import forgetting, uploads
 from service.storage.accounts import AccountInfo
 from service.storage.locking import LOCK_FILE, WriteLock
+from service.storage.presence import Presence
 from service.storage.store import Store
 from service.track.adaptation import after_import
 
@@ -89,6 +92,8 @@ class Workspace:
         # A read-only directory (a read-only mount, a restored snapshot) still
         # serves reads; every change is refused with one message (writing()).
         self.read_only = not os.access(settings.resolved_home, os.W_OK)
+        # Held while open, so a restore never swaps the store under this process.
+        self._presence = None if self.read_only else Presence(settings.resolved_home)
         self.store = Store(url=settings.db_url, read_only=self.read_only and settings.database_url is None)
         self._writer = WriteLock(
             path=settings.resolved_home / LOCK_FILE, wait_seconds=settings.write_wait_seconds
@@ -96,6 +101,8 @@ class Workspace:
         if not self.read_only:
             for p in clean_leftovers(settings.models_dir):
                 log.warning("removed %s, left by a training that did not finish", p.name)
+            for p in uploads.sweep(settings.uploads_dir):
+                log.warning("removed %s, an upload left by an import that did not finish", p.name)
         self.embedder = embedder or Embedder(
             model_path=settings.embed_model_path,
             batch_size=settings.embed_batch_size,
@@ -120,6 +127,8 @@ class Workspace:
 
     def close(self) -> None:
         self.store.close()
+        if self._presence is not None:
+            self._presence.release()
 
     @contextmanager
     def writing(self, what: str) -> Iterator[None]:
@@ -160,6 +169,10 @@ class Workspace:
             if index is None:
                 try:
                     index = VectorIndex.load(self.settings.index_dir)
+                except DamagedIndex as exc:
+                    log.warning("%s; rebuilding it", exc.message)
+                    note_repair(f"index: {exc.message}; rebuilt from the store")
+                    index = None
                 except StoreError:
                     index = None
             if index is None or index.fingerprint_ != fp:
@@ -352,12 +365,18 @@ class Workspace:
         return preview_csv(self.store, self.embedder, path, options)
 
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
-        """Delete posts from the store and the index together."""
+        """Delete posts from the store, the track record and the index
+        together, and clear the copies left outside them (service.storage.forgetting)."""
         with self.writing("a forget"), self._lock:
             self.index()
-            pks = self.store.forget(account=account, post_id=post_id)
+            pks = self.store.forget(
+                account=account, post_id=post_id, also=forgetting.hook(self.settings.resolved_home)
+            )
             self._sync_index([], pks)
+            if self._index is not None and self._index.tombstones:
+                self._reindex()  # an HNSW graph keeps removed vectors until rebuilt
             self.forecaster.warm()
+            forgetting.clear_leftovers(self.store, self.settings.uploads_dir)
             return len(pks)
 
     def account(self, handle: str) -> AccountInfo:

@@ -59,7 +59,7 @@ def backup_cmd(
     if check != "ok":
         raise StoreError(f"the copy at {path} failed its integrity check: {check}")
     out.print(f"backed up {posts} posts to {path} (integrity check ok)")
-    out.print("to restore: stop the service, copy the file to sounding.db in a data directory")
+    out.print(f"to restore it: stop the service, then run `sounding restore {path}`")
 
 
 @app.command("copy-to")

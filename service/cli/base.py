@@ -94,7 +94,7 @@ PURPOSES: dict[str, list[str]] = {
     "Your history": ["account", "accounts", "import", "mapping", "reindex"],
     "Before you publish": ["precedents", "check", "hours", "compare"],
     "What worked, and how good the forecasts are": ["segments", "train", "backtest", "track-record"],
-    "Keeping things": ["forget", "backup", "copy-to", "serve", "demo", "model"],
+    "Keeping things": ["forget", "backup", "restore", "copy-to", "serve", "demo", "model"],
 }
 
 
@@ -140,6 +140,14 @@ def workspace() -> Workspace:
         _workspace = Workspace(settings=settings, embedder=_embedder)
         _embedder = _workspace.embedder
     return _workspace
+
+
+def close_workspace() -> None:
+    """Let go of this invocation's workspace (a restore needs the directory to itself)."""
+    global _workspace
+    if _workspace is not None:
+        _workspace.close()
+        _workspace = None
 
 
 def use_embedder(embedder: Embedder) -> None:

@@ -40,6 +40,7 @@ COMMAND_MODULES = (
     "review",
     "segments",
     "admin",
+    "restore",
     "model_export",
     "track",
 )

@@ -33,6 +33,9 @@ def _sqlite_pragmas(dbapi_conn: Any, _record: Any) -> None:
         cur = dbapi_conn.cursor()
         cur.execute("PRAGMA journal_mode=WAL")
         cur.execute("PRAGMA foreign_keys=ON")
+        # Deleted rows are overwritten, not left in free pages: a forgotten
+        # post's text must not stay readable in the file (sqlite.org/pragma.html).
+        cur.execute("PRAGMA secure_delete=ON")
         cur.execute("PRAGMA synchronous=NORMAL")
         cur.execute("PRAGMA busy_timeout=30000")
         cur.close()

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import os
 import sqlite3
+from collections.abc import Callable
 from functools import cached_property
 from pathlib import Path
 
@@ -66,14 +67,27 @@ class Store(PostWrites, PostReads):
 
     # Forgetting -----------------------------------------------------------
 
-    def forget(self, *, account: str | None = None, post_id: str | None = None) -> list[int]:
+    def forget(
+        self,
+        *,
+        account: str | None = None,
+        post_id: str | None = None,
+        also: Callable[..., object] | None = None,
+    ) -> list[int]:
         """Delete a post (``post_id``, with ``account`` when ids repeat across
         accounts) or a whole account, with snapshots and now-unused vectors.
+        ``also(session, rows, account=...)`` runs in the same transaction
+        first, for copies kept elsewhere in the store (service.storage.track_forget);
+        ``rows`` are (row id, vector key, post id, handle, account row id),
+        ``account`` (row id, handle) when a whole account goes.
         Returns the deleted post row ids, for the index."""
         if account is None and post_id is None:
             raise InputError("say which account or post to forget")
         with self.session() as s:
-            q = select(Post.id, Post.vector_key).join(Account, Account.id == Post.account_id)
+            q = select(Post.id, Post.vector_key, Post.post_id, Account.handle, Account.id).join(
+                Account, Account.id == Post.account_id
+            )
+            acc = None
             if account is not None:
                 acc = s.scalar(select(Account).where(Account.handle == account))
                 if acc is None:
@@ -92,6 +106,9 @@ class Store(PostWrites, PostReads):
                     )
             pks = [int(r[0]) for r in rows]
             keys = {r[1] for r in rows}
+            if also is not None:
+                whole = (acc.id, acc.handle) if acc is not None and post_id is None else None
+                also(s, [(int(r[0]), r[1], r[2], r[3], int(r[4])) for r in rows], account=whole)
             for i in range(0, len(pks), 900):
                 chunk = pks[i : i + 900]
                 s.execute(delete(Snapshot).where(Snapshot.post_pk.in_(chunk)))

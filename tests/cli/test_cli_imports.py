@@ -21,7 +21,7 @@ from typer.main import get_command
 from service.cli import app
 from service.cli.lazy import catalogue
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 
 #: Libraries a light command must not load (each costs a large part of a second or more).
 HEAVY = ("pandas", "lightgbm", "sklearn", "scipy", "matplotlib", "fastapi", "torch", "onnxruntime", "uvicorn")

@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import json
 import logging
+import shutil
 import sys
 from pathlib import Path
 
@@ -16,6 +17,7 @@ from typer.testing import CliRunner
 from models import onnx_backend
 from models.embedding import Embedder
 from models.errors import InputError, StoreError
+from models.integrity import REPAIRED
 from service.cli import app
 from service.cli import base as cli_base
 from service.health import health as health_of
@@ -207,3 +209,26 @@ def test_model_export_command_reports_the_export(onnx_home: Path, monkeypatch: p
     info = json.loads(res.output)
     assert info["backend"] == "onnx" and info["quantize"] == "none"
     assert Path(info["export"]).parent == onnx_home / "embedding"
+
+
+def test_a_damaged_export_is_exported_again(onnx_home: Path, embedder: Embedder, tmp_path: Path) -> None:
+    """A graph damaged in the middle of its weights can still load and give
+    wrong vectors: its checksum catches it and it is exported again; the new
+    one's vectors match sentence-transformers' (the reference) again."""
+    (export,) = [p for p in (onnx_home / "embedding").iterdir() if p.is_dir()]
+    root = tmp_path / "embedding"
+    shutil.copytree(export, root / export.name)
+    graph = root / export.name / onnx_backend.MODEL_NAME
+    data = bytearray(graph.read_bytes())
+    mid = len(data) // 2
+    data[mid : mid + 4096] = b"\x7f" * 4096
+    graph.write_bytes(bytes(data))
+    assert (
+        onnx_backend.export_problem(root / export.name)
+        == f"{onnx_backend.MODEL_NAME} does not match its checksum"
+    )
+    e = Embedder(backend="onnx", export_dir=root).prepare()
+    assert onnx_backend.export_problem(e.export_path_) is None
+    assert any("exported again" in r for r in REPAIRED)
+    texts = ["Snowdrops under the cedar this week", "The seed library opens on Saturday"]
+    assert np.allclose(e.encode(texts), embedder.encode(texts), atol=1e-4)

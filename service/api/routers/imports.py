@@ -13,7 +13,6 @@ happened.
 from __future__ import annotations
 
 import os
-import tempfile
 import typing
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -32,6 +31,7 @@ from service.api.schemas import ImportPreview, ImportSummary
 from service.ingest.mappings import combine, load_mapping
 from service.ingest.options import ImportOptions, parse_mapping
 from service.ingest.timestamps import DateOrder
+from service.storage.uploads import new_upload, release
 
 if typing.TYPE_CHECKING:
     from python_multipart.multipart import MultipartCallbacks
@@ -103,6 +103,7 @@ class Upload:
     """What the form held: the file on disk and the text fields."""
 
     path: Path | None = None
+    held: int | None = None  # the descriptor holding the file's lock (service.storage.uploads)
     fields: dict[str, list[str]] = field(default_factory=dict)
 
     def one(self, name: str) -> str | None:
@@ -169,8 +170,8 @@ class _FormReader:
         if name == FILE_FIELD:
             if self.upload.path is not None:
                 raise InputError("the form holds more than one file; send one per import", field=FILE_FIELD)
-            fd, tmp = tempfile.mkstemp(prefix="upload-", suffix=".csv", dir=self.directory)
-            self.upload.path = Path(tmp)
+            path, fd, self.upload.held = new_upload(self.directory)
+            self.upload.path = path
             self.file = os.fdopen(fd, "wb")
         elif name not in TEXT_FIELDS:
             raise InputError(
@@ -253,18 +254,18 @@ async def receive_upload(request: Request, *, directory: Path, max_bytes: int) -
             )
     except ClientDisconnect:
         reader.close()
-        _remove(upload.path)
+        _remove(upload)
         raise InputError("the client went away before the upload was complete") from None
     except BaseException:
         reader.close()
-        _remove(upload.path)
+        _remove(upload)
         raise
     return upload
 
 
-def _remove(path: Path | None) -> None:
-    if path is not None:
-        path.unlink(missing_ok=True)
+def _remove(upload: Upload) -> None:
+    release(upload.path, upload.held)
+    upload.path = upload.held = None
 
 
 def upload_options(upload: Upload, home: Path) -> ImportOptions:
@@ -329,5 +330,5 @@ async def create_import(
             return preview
         summary = await run_in_threadpool(ws.import_csv, upload.path, o)
     finally:
-        _remove(upload.path)
+        _remove(upload)
     return summary
