@@ -66,8 +66,8 @@ __all__ = [
 
 CAUTION = (
     "An estimate from this team's own history, not a certainty: the interval "
-    "is calibrated to the stated coverage, and the backtest says how often "
-    "such intervals held on past posts."
+    "is set to hold as often as it says, and past tries on the team's posts "
+    "say how often such intervals did."
 )
 
 
@@ -381,6 +381,7 @@ class Forecaster:
             wide=wide,
         )
         out = []
+        team = len(view.account_codes) > 1  # "the team's usual" needs a team
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = rows[i]
             expected, groups = group_contributions(contribs[i], model.quantiles.feature_names_, ALL_GROUPS)
@@ -408,7 +409,7 @@ class Forecaster:
                                 factor=e.factor,
                                 summary=e.summary,
                             )
-                            for e in (describe(g, groups[g]) for g in F.GROUPS)
+                            for e in (describe(g, groups[g], team=team) for g in F.GROUPS)
                         ],
                     ),
                     draft_id=d.draft_id,

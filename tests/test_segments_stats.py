@@ -25,6 +25,7 @@ from models.segments import (
     length_band,
     length_labels,
     two_way,
+    verdict_details,
 )
 
 
@@ -350,7 +351,8 @@ def test_reading_states_both_medians_in_the_metric_s_units() -> None:
     # exact two-sided p is 2 / C(6, 3) = 0.1 (Mann-Whitney exact null
     # distribution, from memory), not corrected for two segments that split the
     # posts. A rate is shown as a percentage (common practice, no source).
-    assert a.summary == "no clear difference from the rest: median 2.00% vs 5.00%; r = -1.00, Holm p = 0.1"
+    assert a.summary == "no clear difference from the rest: median 2.00% vs 5.00%; could be chance"
+    assert verdict_details(a) == "r = -1.00, Holm p = 0.1"
 
 
 def test_json_turns_nan_into_none() -> None:

@@ -21,6 +21,7 @@ from models.segments import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES, DEFAULT_MI
 from ..answers import Calibration, Coverage, LiveCoverage
 from ..forecasting import Contributions, Forecast, Forecasts, GroupEffect
 from ..health import EmbeddingState, Health, IndexState, SearchState
+from ..hour_support import DEFAULT_MIN_POSTS
 from ..hours import HoursReport, Slot
 from ..importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
 from ..precedents import Precedent, Precedents, WeightedPrecedent
@@ -179,6 +180,13 @@ class HoursRequest(Strict):
     coverage: Coverage = COVERAGE_FIELD
     top: int = Field(default=3, ge=1, le=168, description="How many of the best hours to list")
     has_media: bool = Field(default=False, description="An image or video goes with the text")
+    min_posts: int = Field(
+        default=DEFAULT_MIN_POSTS,
+        ge=0,
+        le=10_000,
+        description="Hours (and weekdays in a week) with fewer of the account's posts are marked "
+        "few_posts and never called best",
+    )
 
 
 class VariantsRequest(Strict):

@@ -10,7 +10,9 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from ..forecasting import CAUTION
 from ..hours import HoursReport, best_hours, parse_day
 from ..wordings import VariantsReport, compare_variants
+from ..hour_support import DEFAULT_MIN_POSTS, FEW_POSTS
 from .base import app, out, print_json, workspace
+from .prose import plural, say
 from .forecast import COVERAGE_HELP, METRIC_HELP, planned
 from .render import Column, interval_bar, print_table
 
@@ -22,21 +24,17 @@ def _value(v: float, metric: str) -> str:
 def print_hours(r: HoursReport) -> None:
     week = r.mode == "week"
     span = r.first_day.isoformat() + (f" to {r.last_day.isoformat()}" if week else "")
-    bt = (
-        "not backtested"
-        if r.backtested_coverage is None
-        else f"held {r.backtested_coverage:.0%} in backtests"
-    )
     out.print(
         f"[bold]{r.metric}[/bold] of this draft for {r.account}, hour by hour on {span} "
-        f"({r.timezone}, {len(r.slots)} slots); {r.coverage:.0%} intervals, {bt}"
+        f"({r.timezone}, {plural(len(r.slots), 'hour')}); {r.coverage:.0%} intervals, "
+        f"{_held(r.backtested_coverage)}"
     )
-    out.print(r.summary, highlight=False)
-    if r.best_stays_best is not None:  # issue 10
-        out.print(
+    say(out, r.summary)
+    if r.best_stays_best is not None:
+        say(
+            out,
             f"The best hour stays best in {r.best_stays_best:.0%} of refits of the timing "
             "effect on resampled history.",
-            highlight=False,
         )
     lo = min(s.low for s in r.slots)
     hi = max(s.high for s in r.slots)
@@ -71,16 +69,23 @@ def print_hours(r: HoursReport) -> None:
             "● median, ├─┤ interval):"
         )
         for s in r.slots:
-            mark = "=" if s.tied_with_best else " "
+            mark = "=" if s.tied_with_best else "?" if s.few_posts else " "
             out.print(
                 f"  {s.label():<20} {interval_bar(s.low, s.median, s.high, lo=lo, hi=hi)}"
                 f" {_value(s.median, r.metric):>8} {mark}",
                 highlight=False,
             )
         out.print("  = tied with the best", highlight=False)
+        if any(s.few_posts for s in r.slots):
+            say(out, f"? {FEW_POSTS}", indent="  ", hanging="    ")
     for w in r.warnings:
-        out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
-    out.print(f"[dim]{CAUTION}[/dim]")
+        say(out, f"warning: {w}", hanging="  ", style="yellow")
+    say(out, CAUTION, style="dim")
+
+
+def _held(backtested: float | None) -> str:
+    """How often such intervals held, in words."""
+    return "not yet tried on past posts" if backtested is None else f"held in {backtested:.0%} of past tries"
 
 
 @app.command("hours")
@@ -93,8 +98,15 @@ def hours_cmd(
     week: bool = typer.Option(False, "--week", help="Seven days from --day, hour by hour."),
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
-    top: int = typer.Option(3, "--top", help="How many of the best hours to list."),
+    top: int = typer.Option(3, "--top", metavar="N", help="How many of the best hours to list."),
     media: bool = typer.Option(False, "--media", help="An image or video goes with the text."),
+    min_posts: int = typer.Option(
+        DEFAULT_MIN_POSTS,
+        "--min-posts",
+        metavar="N",
+        help="Hours (and, with --week, weekdays) with fewer of the account's posts are marked "
+        "and never called best.",
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
     """Forecast a draft at every hour of a day (or a week) in the account's zone."""
@@ -108,6 +120,7 @@ def hours_cmd(
         coverage=coverage,
         top=top,
         has_media=media,
+        min_posts=min_posts,
     )
     if as_json:
         print_json(r.model_dump(mode="json"))
