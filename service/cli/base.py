@@ -89,7 +89,7 @@ Every command has --help."""
 
 PURPOSES: dict[str, list[str]] = {
     "Your history": ["account", "accounts", "import", "mapping", "reindex"],
-    "Before you publish": ["precedents", "check", "hours", "compare"],
+    "Before posting": ["precedents", "check", "hours", "compare"],
     "What worked, and how good the forecasts are": ["segments", "train", "backtest", "track-record"],
     "Keeping things": ["forget", "backup", "copy-to", "serve", "demo", "model"],
 }

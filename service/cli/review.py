@@ -1,4 +1,4 @@
-"""Commands for reviewing a draft before publishing: hours, compare."""
+"""Commands for reviewing a draft before posting: hours, compare."""
 
 from __future__ import annotations
 
@@ -129,26 +129,19 @@ def hours_cmd(
 
 
 def print_variants(r: VariantsReport, *, wide: bool = False) -> None:
-    bt = (
-        "not backtested"
-        if r.backtested_coverage is None
-        else f"held {r.backtested_coverage:.0%} in backtests"
-    )
     out.print(
-        f"[bold]{r.metric}[/bold] of {len(r.variants)} variants for {r.account} at "
-        f"{r.local_time}; {r.coverage:.0%} intervals, {bt}"
+        f"[bold]{r.metric}[/bold] of {len(r.variants)} versions compared for {r.account} at "
+        f"{r.local_time}; {r.coverage:.0%} intervals, {_held(r.backtested_coverage)}"
     )
-    out.print(r.summary, highlight=False)
+    say(out, r.summary)
     rows = []
     for v in r.variants:
         rows.append(
             [
-                str(v.rank),
+                f"{v.rank}{' =' if v.tied_with_best else '  '}",
                 f"#{v.index}",
-                _value(v.low, r.metric),
                 _value(v.median, r.metric),
-                _value(v.high, r.metric),
-                "yes" if v.tied_with_best else "no",
+                f"{_value(v.low, r.metric)}–{_value(v.high, r.metric)}",
                 str(len(v.only_here)),
                 v.text,
             ]
@@ -157,42 +150,40 @@ def print_variants(r: VariantsReport, *, wide: bool = False) -> None:
         out,
         [
             Column(header="rank", right=True),
-            Column(header="wording"),
-            Column(header="low", right=True),
+            Column(header="version"),
             Column(header="median", right=True),
-            Column(header="high", right=True),
-            Column(header="tied with the best"),
-            Column(header="own precedents", right=True),
+            Column(header="interval", right=True),
+            Column(header="own precedents", right=True, optional=True),
             Column(header="text", free=True),
         ],
         rows,
         wide=wide,
     )
-    out.print("own precedents: similar past posts that only this wording has", highlight=False)
+    say(out, "= tied with the best; own precedents: precedents that only this version has", indent="  ")
     for v in r.variants:
         for w in v.warnings:
-            out.print(f"[yellow]warning (#{v.index}):[/yellow] {w}", highlight=False)
-    out.print(f"[dim]{CAUTION}[/dim]")
+            say(out, f"warning (#{v.index}): {w}", hanging="  ", style="yellow")
+    say(out, CAUTION, style="dim")
 
 
 @app.command("compare")
 def compare_cmd(
-    texts: list[str] = typer.Argument(..., help="Two or more phrasings of the draft."),
+    texts: list[str] = typer.Argument(..., metavar="TEXT...", help="Two or more versions of the draft."),
     account: str = typer.Option(..., "--account", help="Account that would post them."),
     at: str | None = typer.Option(
         None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."
     ),
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
-    media: bool = typer.Option(False, "--media", help="An image or video goes with each phrasing."),
+    media: bool = typer.Option(False, "--media", help="An image or video goes with each version."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     wide: bool = typer.Option(
-        False, "--wide", help="Wrap the wordings in full instead of cutting them to the terminal's width."
+        False, "--wide", help="Wrap the versions in full instead of cutting them to the terminal's width."
     ),
 ) -> None:
-    """Forecast several phrasings of one draft side by side."""
+    """Compare several versions of one draft side by side."""
     if len(texts) < 2:
-        raise InputError("give at least two phrasings to compare", field="texts")
+        raise InputError("give at least two versions to compare", field="texts")
     r = compare_variants(
         workspace().forecaster,
         texts,
