@@ -11,11 +11,13 @@ from __future__ import annotations
 # by name: a missing module fails here rather than silently dropping its commands.
 from . import admin, forecast, history, mappings, model_export, review, segments, track
 from .base import app
+from .metavars import name_values
 
 #: The order their commands appear in --help.
 COMMAND_MODULES = (history, mappings, forecast, review, segments, admin, model_export, track)
 _ORDER = {m.__name__: i for i, m in enumerate(COMMAND_MODULES)}
 app.registered_commands.sort(key=lambda c: _ORDER.get(getattr(c.callback, "__module__", ""), len(_ORDER)))
+name_values(app)  # --account HANDLE, not --account <str>
 
 
 def main() -> None:

@@ -81,7 +81,7 @@ def print_backtest(bt: dict[str, Any], metric: str, *, details: bool = False) ->
         "history_median": "history median",
         "timing_only": "timing only",
         "boosted": "precedents + timing",
-        "text_ridge": "wording alone",
+        "text_ridge": "text alone",
     }
     methods = {
         "boosted": "LightGBM quantile trees on precedent features and timing",
@@ -174,10 +174,11 @@ def print_forecast(f: Forecast, *, wide: bool = False, details: bool = False) ->
         if f.backtested_coverage is None
         else f"held in {f.backtested_coverage:.0%} of past tries"
     )
-    out.print(
-        f"[bold]{f.metric}[/bold] for {f.account} at {f.local_time}: "
-        f"[bold]{f.low:,.0f} – {f.high:,.0f}[/bold] (median {f.median:,.0f}); "
-        f"{f.coverage:.0%} interval, {bt}; model {f.model_version}"
+    say(
+        out,
+        f"{f.metric} for {f.account} at {f.local_time}: "
+        f"{f.low:,.0f} – {f.high:,.0f} (median {f.median:,.0f}); "
+        f"{f.coverage:.0%} interval, {bt}; model {f.model_version}",
     )
     for w in f.warnings:
         say(out, f"warning: {w}", hanging="  ", style="yellow")

@@ -8,12 +8,12 @@ from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 
 from ..forecasting import CAUTION
+from ..hour_support import DEFAULT_MIN_POSTS, FEW_POSTS
 from ..hours import HoursReport, best_hours, parse_day
 from ..wordings import VariantsReport, compare_variants
-from ..hour_support import DEFAULT_MIN_POSTS, FEW_POSTS
 from .base import app, out, print_json, workspace
-from .prose import plural, say
 from .forecast import COVERAGE_HELP, METRIC_HELP, planned
+from .prose import plural, say
 from .render import Column, interval_bar, print_table
 
 
@@ -24,10 +24,11 @@ def _value(v: float, metric: str) -> str:
 def print_hours(r: HoursReport) -> None:
     week = r.mode == "week"
     span = r.first_day.isoformat() + (f" to {r.last_day.isoformat()}" if week else "")
-    out.print(
-        f"[bold]{r.metric}[/bold] of this draft for {r.account}, hour by hour on {span} "
+    say(
+        out,
+        f"{r.metric} of this draft for {r.account}, hour by hour on {span} "
         f"({r.timezone}, {plural(len(r.slots), 'hour')}); {r.coverage:.0%} intervals, "
-        f"{_held(r.backtested_coverage)}"
+        f"{_held(r.backtested_coverage)}",
     )
     say(out, r.summary)
     if r.best_stays_best is not None:
@@ -44,7 +45,8 @@ def print_hours(r: HoursReport) -> None:
         Column(header="low", right=True),
         Column(header="median", right=True),
         Column(header="high", right=True),
-        Column(header="tied with the best"),
+        # Every slot listed is tied with the best: the column goes first when room is short.
+        Column(header="tied with the best", optional=True),
     ]
     print_table(
         out,
@@ -129,9 +131,10 @@ def hours_cmd(
 
 
 def print_variants(r: VariantsReport, *, wide: bool = False) -> None:
-    out.print(
-        f"[bold]{r.metric}[/bold] of {len(r.variants)} versions compared for {r.account} at "
-        f"{r.local_time}; {r.coverage:.0%} intervals, {_held(r.backtested_coverage)}"
+    say(
+        out,
+        f"{r.metric} of {len(r.variants)} versions compared for {r.account} at "
+        f"{r.local_time}; {r.coverage:.0%} intervals, {_held(r.backtested_coverage)}",
     )
     say(out, r.summary)
     rows = []

@@ -240,7 +240,7 @@ def segments_cmd(
             say(out, f"warning: {w}", hanging="  ", style="yellow")
         say(out, NOTE, style="dim")
     if plot is not None and fmt is not None:
-        say = err if as_json else out  # keep stdout pure JSON
+        note_to = err if as_json else out  # keep stdout pure JSON
         for path, split_by in _plot_paths(plot, result):
             path.write_bytes(render(result, by=split_by, fmt=fmt))
-            say.print(f"figure of the {split_by} split written to {path}", highlight=False)
+            note_to.print(f"figure of the {split_by} split written to {path}", highlight=False)

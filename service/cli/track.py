@@ -64,8 +64,7 @@ def print_report(rep: TrackRecord, *, details: bool = False) -> None:
         title=f"track record of {rep.metric} forecasts (95% CI: Wilson; the simple "
         "forecasters' typical miss on the same posts)"
         if details
-        else f"how the {rep.metric} forecasts given turned out (beside sounding's typical miss, "
-        "the simple forecasters' on the same posts)",
+        else f"how the {rep.metric} forecasts given turned out",
     )
     if rep.worst:
         worst = []
@@ -114,7 +113,8 @@ def print_report(rep: TrackRecord, *, details: bool = False) -> None:
     say(
         out,
         "held: how often the intervals given held on the posts that went out; the range beside "
-        "it says how sure that share is; settled: posts whose numbers are final.",
+        "it says how sure that share is; settled: posts whose numbers are final; beside "
+        "sounding's typical miss, the simple forecasters' on the same posts.",
         style="dim",
     )
 
