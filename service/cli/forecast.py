@@ -115,7 +115,7 @@ def print_backtest(bt: dict[str, Any], metric: str, *, details: bool = False) ->
         f"backtest of {metric}: {bt['n_folds']} time-ordered folds, {bt['n_test']} test posts, "
         f"nominal coverage {bt['coverage_nominal']:.0%}"
         if details
-        else f"how {metric} forecasts did on {bt['n_test']} past posts, tried in time order "
+        else f"{metric} forecast for {bt['n_test']:,} past posts, in time order "
         f"({bt['coverage_nominal']:.0%} intervals)"
     )
     print_table(out, cols, rows, title=title)
