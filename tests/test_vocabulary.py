@@ -21,7 +21,7 @@ STATIC = Path(__file__).resolve().parents[1] / "service" / "static"
 
 # Retired words and the word that replaced each.
 RETIRED = {
-    r"\bmiddle\b": "median (one word for the middle estimate)",
+    r"\bmiddle\b(?! half of posts)": "median (one word for the middle estimate)",
     r"\bmiddles\b": "median",
     r"\byoung\b": "still gathering (metrics not final yet)",
     r"\bmature\b": "still gathering",
