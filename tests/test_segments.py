@@ -449,7 +449,9 @@ def test_cli_json_table_and_plot(
     assert "with link: lower than the rest: median" in text
     assert "clearly different from the rest" in text and "Holm p" not in text
     # --details names the statistics.
-    r = runner.invoke(cli_app, ["segments", "--topic", FIRST_PHRASES[1], "--by", "link", "--details"], env=env)
+    r = runner.invoke(
+        cli_app, ["segments", "--topic", FIRST_PHRASES[1], "--by", "link", "--details"], env=env
+    )
     assert r.exit_code == 0, r.output
     assert "Holm p < 0.001" in " ".join(r.stdout.split())
     assert f"warning: topic '{FIRST_PHRASES[1]}' has only" in text
