@@ -6,15 +6,14 @@ import typer
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
-
-from ..forecasting import CAUTION
-from ..hour_support import DEFAULT_MIN_POSTS, FEW_POSTS
-from ..hours import HoursReport, best_hours, parse_day
-from ..wordings import VariantsReport, compare_variants
-from .base import app, out, print_json, workspace
-from .forecast import COVERAGE_HELP, METRIC_HELP, planned
-from .prose import plural, say
-from .render import Column, interval_bar, print_table
+from service.cli.base import app, out, print_json, workspace
+from service.cli.forecast import COVERAGE_HELP, METRIC_HELP, planned
+from service.cli.prose import plural, say
+from service.cli.render import Column, interval_bar, print_table
+from service.forecasting import CAUTION
+from service.hour_support import DEFAULT_MIN_POSTS, FEW_POSTS
+from service.hours import HoursReport, best_hours, parse_day
+from service.wordings import VariantsReport, compare_variants
 
 
 def _value(v: float, metric: str) -> str:
