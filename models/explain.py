@@ -39,7 +39,7 @@ def group_contributions(
 
 
 _WHY = {
-    "precedents": ("similar past posts did better than usual", "similar past posts did worse than usual"),
+    "precedents": ("precedents did better than usual", "precedents did worse than usual"),
     "timing": ("the planned hour and day tend to do well", "the planned hour and day tend to do worse"),
     "account baseline": (
         "this account's recent posts run above the team's usual",
@@ -52,13 +52,24 @@ _WHY = {
 }
 
 
-def describe(group: str, log_contribution: float) -> GroupEffect:
-    """A one-line, plain reading of one group's effect."""
+# With one account in the store there is no team to compare with.
+_WHY_ALONE = {
+    "account baseline": (
+        "this account's recent posts run above its longer-run usual",
+        "this account's recent posts run below its longer-run usual",
+    ),
+}
+
+
+def describe(group: str, log_contribution: float, *, team: bool = True) -> GroupEffect:
+    """A one-line, plain reading of one group's effect (``team``: the store
+    holds more than one account)."""
     factor = float(np.exp(log_contribution))
     if abs(factor - 1.0) < 0.03:
         text = f"{group}: about neutral (x{factor:.2f})"
     else:
-        up, down = _WHY.get(group, ("raises the forecast", "lowers the forecast"))
+        why = _WHY if team else {**_WHY, **_WHY_ALONE}
+        up, down = why.get(group, ("raises the forecast", "lowers the forecast"))
         pct = (factor - 1.0) * 100
         text = f"{group}: x{factor:.2f} ({pct:+.0f}%), {up if factor > 1 else down}"
     return GroupEffect(group, float(log_contribution), factor, text)

@@ -72,12 +72,14 @@ def check_format(fmt: str) -> str:
 
 
 def plain_number(x: float, _pos: int | None = None) -> str:
-    """Tick labels people read without thinking: 1k, 25k, 1.2M, 0.03."""
+    """Tick labels people read without thinking, in the one style the import
+    also reads: 1K, 25K, 1.2K, 1.2M, 0.03."""
     if x <= 0:
         return "0"
-    for div, suffix in ((1e9, "B"), (1e6, "M"), (1e3, "k")):
+    for div, suffix in ((1e9, "B"), (1e6, "M"), (1e3, "K")):
         if x >= div:
-            return f"{x / div:.3g}{suffix}"
+            v = x / div
+            return f"{v:.0f}{suffix}" if v >= 10 else f"{v:.2g}{suffix}"
     return f"{x:.3g}"
 
 

@@ -189,12 +189,21 @@ def verdict(seg: SegmentStats, *, metric: str | None, min_n: int, alpha: float) 
     numbers = f"median {fmt_value(seg.median, metric)} vs {fmt_value(seg.rest_median, metric)}"
     if seg.p_holm is None or seg.rank_biserial is None:
         return f"no test possible ({numbers}): the other posts are missing or all equal"
-    p = fmt_p(seg.p_holm)
-    stats_part = f"r = {seg.rank_biserial:+.2f}, Holm p {'' if p.startswith('<') else '= '}{p}"
+    # Plain words here; the test's own names and numbers are in verdict_details.
     if seg.p_holm < alpha:
         way = "higher" if seg.rank_biserial > 0 else "lower"
-        return f"{way} than the rest: {numbers}; {stats_part}"
-    return f"no clear difference from the rest: {numbers}; {stats_part}"
+        return f"{way} than the rest: {numbers}; clearly different from the rest"
+    return f"no clear difference from the rest: {numbers}; could be chance"
+
+
+def verdict_details(seg: SegmentStats) -> str:
+    """The statistics behind a verdict, by their published names (for the
+    ``--details`` view and the glossary): rank-biserial r and the
+    Holm-adjusted Mann-Whitney p."""
+    if seg.p_holm is None or seg.rank_biserial is None:
+        return "no test"
+    p = fmt_p(seg.p_holm)
+    return f"r = {seg.rank_biserial:+.2f}, Holm p {'' if p.startswith('<') else '= '}{p}"
 
 
 # --------------------------------------------------------------------------

@@ -181,7 +181,7 @@ class SoundingClient:
             "metric": metric,
             "coverage": coverage,
         }
-        return self._call("POST", "/v1/variants", _drop_none(body), VariantsReport)
+        return self._call("POST", "/v1/comparisons", _drop_none(body), VariantsReport)
 
     # Plumbing ---------------------------------------------------------------
 

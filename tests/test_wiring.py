@@ -17,7 +17,8 @@ ENDPOINTS = {
     ("POST", "/v1/precedents"),
     ("POST", "/v1/forecasts"),
     ("POST", "/v1/hours"),
-    ("POST", "/v1/variants"),
+    ("POST", "/v1/comparisons"),
+    ("POST", "/v1/variants"),  # the earlier path, kept for one release
     ("POST", "/v1/segments"),
     ("POST", "/v1/imports"),
     ("POST", "/v1/training"),

@@ -25,6 +25,7 @@ from service.health import EmbeddingState, Health, IndexState, SearchState
 from service.history.precedents import Precedent, Precedents, WeightedPrecedent
 from service.history.repeats import Repeat
 from service.ingest.answers import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
+from service.review.hour_support import DEFAULT_MIN_POSTS
 from service.review.hours import HoursReport, Slot
 from service.review.wordings import Variant, VariantsReport
 from service.segments.answer import SegmentResult as SegmentResult  # the answer, used as it is
@@ -172,6 +173,13 @@ class HoursRequest(Strict):
     coverage: Coverage = COVERAGE_FIELD
     top: int = Field(default=3, ge=1, le=168, description="How many of the best hours to list")
     has_media: bool = Field(default=False, description="An image or video goes with the text")
+    min_posts: int = Field(
+        default=DEFAULT_MIN_POSTS,
+        ge=0,
+        le=10_000,
+        description="Hours (and weekdays in a week) with fewer of the account's posts are marked "
+        "few_posts and never called best",
+    )
 
 
 class VariantsRequest(Strict):

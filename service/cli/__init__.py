@@ -14,8 +14,10 @@ from service.cli.base import app
 # so `sounding --help` loads none of the heavy libraries. The order of
 # their commands in --help is lazy.COMMAND_MODULES.
 from service.cli.lazy import COMMAND_MODULES, LazyGroup
+from service.cli.metavars import name_values
 
 app.info.cls = LazyGroup
+name_values(app)  # --home DIR, not --home <path>; each command gets its words when built
 
 
 def main() -> None:

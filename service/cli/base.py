@@ -92,7 +92,7 @@ Every command has --help."""
 
 PURPOSES: dict[str, list[str]] = {
     "Your history": ["account", "accounts", "import", "mapping", "reindex"],
-    "Before you publish": ["precedents", "check", "hours", "compare"],
+    "Before posting": ["precedents", "check", "hours", "compare"],
     "What worked, and how good the forecasts are": ["segments", "train", "backtest", "track-record"],
     "Keeping things": ["forget", "backup", "restore", "copy-to", "serve", "demo", "model"],
 }

@@ -13,6 +13,7 @@ from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
 from service.checking import check_drafts
 from service.cli.base import app, out, print_json, workspace
+from service.cli.prose import plural, say
 from service.cli.render import Column, level_bar, print_table, typical_miss
 from service.clock import localize, now_utc, zone
 from service.forecast import training as forecasting
@@ -62,23 +63,30 @@ def train_cmd(
         print_backtest(m.report["backtest"], metric)
 
 
-def print_backtest(bt: dict[str, Any], metric: str) -> None:
+def print_backtest(bt: dict[str, Any], metric: str, *, details: bool = False) -> None:
     cols = [
         Column(header="forecaster", free=True),
         Column(header="typical miss", right=True),
-        Column(header="MAE (log)", right=True),
-        Column(header="Spearman", right=True),
-        Column(header="coverage", right=True),
+        *(
+            [Column(header="MAE (log)", right=True), Column(header="Spearman", right=True)]
+            if details
+            else [Column(header="order (0–1)", right=True)]
+        ),
+        Column(header="intervals held", right=True),
         Column(header="weight", right=True),
     ]
-    # Short enough to stay whole in an 80-column table.
+    # Short enough to stay whole in an 80-column table; the method names are in --details.
     labels = {
         "account_median": "account median",
         "precedents_median": "precedents' median",
         "history_median": "history median",
         "timing_only": "timing only",
-        "boosted": "boosted trees",
-        "text_ridge": "text model",
+        "boosted": "precedents + timing",
+        "text_ridge": "text alone",
+    }
+    methods = {
+        "boosted": "LightGBM quantile trees on precedent features and timing",
+        "text_ridge": "ridge regression on the embedding vectors",
     }
     weights = bt.get("weights") or {}
     rows: list[list[str]] = []
@@ -88,8 +96,11 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
             [
                 name,
                 typical_miss(s["mae_log"]),
-                f"{s['mae_log']:.3f}",
-                f"{s['spearman']:.3f}",
+                *(
+                    [f"{s['mae_log']:.3f}", f"{s['spearman']:.3f}"]
+                    if details
+                    else [f"{max(s['spearman'], 0.0):.2f}"]
+                ),
                 "-" if s["coverage"] is None else f"{s['coverage']:.1%}",
                 f"{weights[key]:.2f}" if key in weights else "-",
             ]
@@ -101,66 +112,89 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
     for k, s in (bt.get("candidates") or {}).items():
         if k not in bt["baselines"]:
             row(k, labels.get(k, k), s)
-    print_table(
+    title = (
+        f"backtest of {metric}: {bt['n_folds']} time-ordered folds, {bt['n_test']} test posts, "
+        f"nominal coverage {bt['coverage_nominal']:.0%}"
+        if details
+        else f"{metric} forecast for {bt['n_test']:,} past posts, in time order "
+        f"({bt['coverage_nominal']:.0%} intervals)"
+    )
+    print_table(out, cols, rows, title=title)
+    say(
         out,
-        cols,
-        rows,
-        title=f"backtest of {metric}: {bt['n_folds']} time-ordered "
-        f"folds, {bt['n_test']} test posts, nominal coverage {bt['coverage_nominal']:.0%}",
+        "typical miss: a typical forecast is off by this factor either way; order: how well it "
+        "ranks posts in the right order (0–1, 1 is perfect); intervals held: how often the "
+        "actual number fell inside the interval.",
     )
-    out.print(
-        "boosted trees: with the timing effect; typical miss: a typical forecast is off by "
-        "this factor either way "
-        "(exp of the mean absolute error of log1p values, MAE (log)).",
-        highlight=False,
-    )
+    if details:
+        say(
+            out,
+            "typical miss is exp(MAE (log)), the mean absolute error of log1p values; order is "
+            "Spearman's rank correlation; "
+            + "; ".join(f"{labels[k]}: {v}" for k, v in methods.items())
+            + ". Each fold trains on the posts before it and tests on the next (rolling origin).",
+        )
     if weights.get("timing"):
-        out.print(f"the timing effect is added with weight {weights['timing']:.2f}", highlight=False)
+        say(out, f"the timing effect is added with weight {weights['timing']:.2f}")
     levels = bt.get("coverage_by_level", {})
     if levels:
-        out.print("how often intervals held in the backtest, by stated coverage:")
+        out.print("how often intervals held in past tries, by interval width:")
         for k, v in levels.items():
-            out.print(f"  {float(k):>4.0%} stated  {level_bar(v)} {v:6.1%}", highlight=False)
+            out.print(f"  {float(k):>4.0%} interval  {level_bar(v)} held {v:6.1%}", highlight=False)
     if bt.get("note"):
-        out.print(f"note: {bt['note']}", highlight=False)
+        say(out, f"note: {bt['note']}", hanging="  ")
 
 
 @app.command("backtest")
 def backtest_cmd(
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
-    coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help="Nominal interval coverage."),
-    folds: int = typer.Option(4, "--folds", help="Number of rolling-origin folds."),
-    json_file: Path | None = typer.Option(None, "--json", help="Also write the report as JSON."),
+    coverage: float = typer.Option(
+        DEFAULT_COVERAGE, "--coverage", metavar="N", help="How sure the intervals should be, e.g. 0.8."
+    ),
+    folds: int = typer.Option(
+        4, "--folds", metavar="N", help="How many time-ordered rounds to try (rolling-origin folds)."
+    ),
+    json_file: Path | None = typer.Option(
+        None, "--json", metavar="FILE", help="Also write the report as JSON."
+    ),
+    details: bool = typer.Option(
+        False, "--details", help="Also show the statistics by name (MAE (log), Spearman, folds)."
+    ),
 ) -> None:
     """Time-ordered backtest of the forecast against simple baselines."""
     bt = forecasting.backtest(workspace(), metric, coverage=coverage, n_folds=folds)
-    print_backtest(bt, metric)
+    print_backtest(bt, metric, details=details)
     if json_file:
         json_file.write_text(json.dumps(bt, indent=2))
         out.print(f"report written to {json_file}")
 
 
-def print_forecast(f: Forecast, *, wide: bool = False) -> None:
-    bt = "not backtested" if f.backtested_coverage is None else f"{f.backtested_coverage:.0%} in backtests"
-    out.print(
-        f"[bold]{f.metric}[/bold] for {f.account} at {f.local_time}: "
-        f"[bold]{f.low:,.0f} – {f.high:,.0f}[/bold] (median {f.median:,.0f}); "
-        f"{f.coverage:.0%} interval, held {bt}; model {f.model_version}"
+def print_forecast(f: Forecast, *, wide: bool = False, details: bool = False) -> None:
+    bt = (
+        "not yet tried on past posts"
+        if f.backtested_coverage is None
+        else f"held in {f.backtested_coverage:.0%} of past tries"
+    )
+    say(
+        out,
+        f"{f.metric} for {f.account} at {f.local_time}: "
+        f"{f.low:,.0f} – {f.high:,.0f} (median {f.median:,.0f}); "
+        f"{f.coverage:.0%} interval, {bt}; model {f.model_version}",
     )
     for w in f.warnings:
-        out.print(f"[yellow]warning:[/yellow] {w}", highlight=False)
+        say(out, f"warning: {w}", hanging="  ", style="yellow")
     if f.note:
-        out.print(f"note: {f.note}", highlight=False)
+        say(out, f"note: {f.note}", hanging="  ")
     for g in f.contributions.groups:
-        out.print(f"  {g.summary}", highlight=False)
+        say(out, g.summary, indent="  ", hanging="    ")
     rows = []
     for p in f.precedents[:8]:
         v = p.metrics.get(f.metric)
         rows.append(
             [
                 f"{p.similarity:.2f}",
-                f"{p.weight:.2f}",
                 p.account,
+                f"{p.weight:.2f}",
                 f"{p.posted_at:%Y-%m-%d}" + (" *" if p.still_gathering else ""),
                 "-" if v is None else f"{v:,}",
                 p.text,
@@ -170,8 +204,9 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
         out,
         [
             Column(header="similarity", right=True),
+            # Left out last first when the text would get too little room.
+            Column(header="account", optional=True),
             Column(header="weight", right=True, optional=True),
-            Column(header="account"),
             Column(header="posted"),
             Column(header=f.metric.replace("_", " "), right=True),
             Column(header="text", free=True),
@@ -184,15 +219,23 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
         out.print(
             "* still gathering: its metrics are not final yet, so it is shown but not used", highlight=False
         )
-    if f.calibration:  # track record: calibration used, live coverage so far
+    if f.calibration:  # calibration used, live coverage so far
         live = f.live_coverage
         held = (
-            f"held {live.coverage:.0%} of {live.scored} scored forecasts"
+            f"intervals given so far held in {live.coverage:.0%} of {plural(live.scored, 'post')} "
+            "that went out"
             if live is not None and live.scored and live.coverage is not None
-            else "no forecast scored yet"
+            else "no forecast given here has been scored against a published post yet"
         )
-        out.print(f"calibration: {f.calibration.method}; live coverage: {held}")
-    out.print(f"[dim]{CAUTION}[/dim]")
+        say(out, held)
+        if details:
+            c = f.calibration
+            say(
+                out,
+                f"calibration: {c.method}, alpha_t {c.alpha_t:.3f} (CQR, Romano et al. 2019; "
+                "+aci: adaptive conformal inference, Gibbs & Candès 2021)",
+            )
+    say(out, CAUTION, style="dim")
 
 
 def planned(at: str | None, account: str) -> datetime | None:
@@ -219,6 +262,7 @@ def check_cmd(
     wide: bool = typer.Option(
         False, "--wide", help="Wrap post texts in full instead of cutting them to the terminal's width."
     ),
+    details: bool = typer.Option(False, "--details", help="Also name the calibration method."),
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
@@ -244,7 +288,7 @@ def check_cmd(
     if as_json:
         print_json(f.model_dump(mode="json"))
     else:
-        print_forecast(f, wide=wide)
+        print_forecast(f, wide=wide, details=details)
 
 
 def demo_forecast(ws: Workspace, draft: str) -> None:

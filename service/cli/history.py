@@ -251,7 +251,7 @@ def print_precedents(found: list[Precedent], *, title: str = "precedents", wide:
         out,
         [
             Column(header="similarity", right=True),
-            Column(header="account"),
+            Column(header="account", optional=True),
             Column(header="posted"),
             Column(header="impressions", right=True),
             Column(header="engagements", right=True, optional=True),

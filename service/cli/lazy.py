@@ -28,6 +28,7 @@ from typer._click import Command, HelpFormatter
 from typer._click.utils import make_default_short_help
 
 from service.cli.base import _Group, app
+from service.cli.metavars import name_values
 
 if TYPE_CHECKING:
     from typer._click.core import Context as ClickContext
@@ -121,6 +122,7 @@ def build(name: str) -> Command | None:
     if entry is None:
         return None
     importlib.import_module(f"{__package__}.{entry.module}")
+    name_values(app)  # --account HANDLE, not --account <str>
     for info in app.registered_commands:
         assert info.callback is not None
         if (info.name or typer.main.get_command_name(info.callback.__name__)) == name:

@@ -40,8 +40,9 @@ class Column:
     optional: bool = False
 
 
-#: Below this many cells for the free text, optional columns are left out.
-MIN_FREE = 24
+#: Below this many cells for the free text, optional columns are left out
+#: (30: enough of a post to tell two precedents apart at 80 columns).
+MIN_FREE = 30
 
 
 def cut(text: str, width: int) -> str:

@@ -12,8 +12,9 @@ from rich.text import Text
 from models.errors import InputError
 from models.figure_style import FORMATS
 from models.metrics import DEFAULT_METRIC
-from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value
+from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value, verdict_details
 from service.cli.base import app, err, out, print_json, workspace
+from service.cli.prose import say
 from service.cli.render import Column, cut, interval_bar, print_table
 from service.segments.answer import SegmentResult, Split
 from service.segments.figure import render
@@ -39,17 +40,17 @@ def _short(text: str, width: int) -> str:
     return text if len(text) <= width else text[: width - 1] + "…"
 
 
-def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
+def print_split(split: Split, metric: str, *, wide: bool = False, details: bool = False) -> None:
     pct = f"{100 * split.confidence:g}%"
     cols = [
         Column(header="segment", free=True),
         Column(header="posts", right=True),
         Column(header="median", right=True),
-        Column(header="central half", right=True),
-        Column(header=f"{pct} CI", right=True),
-        Column(header="r", right=True),
-        Column(header="Holm p", right=True),
+        Column(header="middle half of posts", right=True),
+        Column(header=f"median, {pct} sure", right=True),
     ]
+    if details:  # the statistics by their published names
+        cols += [Column(header="r", right=True), Column(header="Holm p", right=True)]
     rows = [
         [
             seg.name + (" (few posts)" if seg.too_small else ""),
@@ -57,9 +58,12 @@ def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
             fmt_value(seg.median, metric),
             f"{fmt_value(seg.q1, metric)}–{fmt_value(seg.q3, metric)}",
             f"{fmt_value(seg.ci_low, metric)}–{fmt_value(seg.ci_high, metric)}",
-            "-" if seg.rank_biserial is None else f"{seg.rank_biserial:+.2f}",
-            fmt_p(seg.p_holm),
         ]
+        + (
+            ["-" if seg.rank_biserial is None else f"{seg.rank_biserial:+.2f}", fmt_p(seg.p_holm)]
+            if details
+            else []
+        )
         for seg in split.segments
     ]
     print_table(out, cols, rows, title=f"{metric} by {split.title}", wide=wide)
@@ -83,20 +87,24 @@ def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
                 markup=False,
             )
     for seg in split.segments:
-        line = Text(f"  {seg.name}: ", style="bold")
-        line.append(seg.summary, style="dim" if seg.too_small else "")
-        out.print(line)
+        extra = f" ({verdict_details(seg)})" if details and not seg.too_small else ""
+        say(out, f"{seg.name}: {seg.summary}{extra}", indent="  ", hanging="    ")
     if split.kruskal_p is not None and split.kruskal_h is not None:
-        out.print(
-            f"  across all segments (Kruskal–Wallis): H = {split.kruskal_h:,.1f}, "
-            f"p {'' if fmt_p(split.kruskal_p).startswith('<') else '= '}"
-            f"{fmt_p(split.kruskal_p)}",
-            highlight=False,
+        differ = (
+            "clearly different from each other"
+            if split.kruskal_p < split.alpha
+            else "not clearly different from each other: could be chance"
         )
+        stats = ""
+        if details:
+            p = fmt_p(split.kruskal_p)
+            stats = f" (Kruskal–Wallis H = {split.kruskal_h:,.1f}, p {'' if p.startswith('<') else '= '}{p})"
+        say(out, f"across all segments: {differ}{stats}", indent="  ", hanging="    ")
     elif split.overlapping:
         out.print("  no test across all segments: in top-k mode they share posts", highlight=False)
     if split.by == TOPIC and any(seg.examples for seg in split.segments):
-        out.print(f"\n  what each phrase caught (most similar first; {metric} in brackets):", highlight=False)
+        out.print()
+        say(out, f"what each phrase caught (most similar first; {metric} in brackets):", indent="  ")
         for seg in split.segments:
             caught = seg.examples or []
             if not caught:
@@ -104,10 +112,11 @@ def print_split(split: Split, metric: str, *, wide: bool = False) -> None:
             head = "closest posts left out" if seg.name == OTHER else _short(seg.name, 60)
             out.print(Text(f"  {head}", style="bold"))
             for e in caught:
-                out.print(
-                    f"    {e.similarity:.2f}  [{fmt_value(e.value, metric)}]  {_short(e.text, 90)}",
-                    highlight=False,
-                    markup=False,
+                say(
+                    out,
+                    f"{e.similarity:.2f}  [{fmt_value(e.value, metric)}]  {_short(e.text, 90)}",
+                    indent="    ",
+                    hanging="          ",
                 )
     out.print()
 
@@ -166,7 +175,11 @@ def segments_cmd(
     ),
     k: int = typer.Option(DEFAULT_K, "-k", "--count", help="Posts per topic in top-k mode."),
     threshold: float = typer.Option(
-        DEFAULT_THRESHOLD, "--threshold", help="Cosine similarity a post needs to join a topic."
+        DEFAULT_THRESHOLD,
+        "--threshold",
+        metavar="N",
+        help="How close in meaning a post must be to a topic's phrase to join it, 0 to 1 "
+        "(higher: fewer, closer posts).",
     ),
     hour_edges: str | None = typer.Option(
         None, "--hour-edges", help="Local hour bucket edges, e.g. 0,6,9,12,15,18,21,24."
@@ -181,6 +194,9 @@ def segments_cmd(
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     wide: bool = typer.Option(
         False, "--wide", help="Wrap segment names in full instead of cutting them to the terminal's width."
+    ),
+    details: bool = typer.Option(
+        False, "--details", help="Also show the statistics by name (rank-biserial r, Holm p, Kruskal–Wallis)."
     ),
 ) -> None:
     """How a metric differs between topics (named by phrases), hours, forms or accounts."""
@@ -215,14 +231,14 @@ def segments_cmd(
             highlight=False,
         )
         for split in result.splits:
-            print_split(split, metric, wide=wide)
+            print_split(split, metric, wide=wide, details=details)
         print_two_way(result)
         for w in result.warnings:
             # Text, not markup: topic names are the user's and may hold brackets.
-            out.print(Text("warning: ", style="yellow") + Text(w))
-        out.print(Text(NOTE, style="dim"))
+            say(out, f"warning: {w}", hanging="  ", style="yellow")
+        say(out, NOTE, style="dim")
     if plot is not None and fmt is not None:
-        say = err if as_json else out  # keep stdout pure JSON
+        note_to = err if as_json else out  # keep stdout pure JSON
         for path, split_by in _plot_paths(plot, result):
             path.write_bytes(render(result, by=split_by, fmt=fmt))
-            say.print(f"figure of the {split_by} split written to {path}", highlight=False)
+            note_to.print(f"figure of the {split_by} split written to {path}", highlight=False)

@@ -10,6 +10,7 @@ from models.errors import InputError
 from models.metrics import DEFAULT_METRIC
 from models.track_plots import FORMATS, track_record_figure
 from service.cli.base import app, out, print_json, workspace
+from service.cli.prose import plural, say
 from service.cli.render import Column, print_table, typical_miss
 from service.track.adaptation import reset_adaptation
 from service.track.answers import PeriodSummary, TrackRecord
@@ -25,14 +26,14 @@ def _miss(v: float | None) -> str:
     return "-" if v is None else typical_miss(abs(v))
 
 
-def print_report(rep: TrackRecord) -> None:
+def print_report(rep: TrackRecord, *, details: bool = False) -> None:
     cols = [
         Column(header="period"),
         Column(header="given", right=True),
         Column(header="settled", right=True),
-        Column(header="stated", right=True),
-        Column(header="live", right=True),
-        Column(header="95% CI", right=True),
+        Column(header="interval" if not details else "stated", right=True),
+        Column(header="held" if not details else "live", right=True),
+        Column(header="held, 95% sure" if not details else "95% CI", right=True),
         Column(header="typical miss", right=True),
         Column(header="account median", right=True, optional=True),
         Column(header="precedents' median", right=True, optional=True),
@@ -62,7 +63,9 @@ def print_report(rep: TrackRecord) -> None:
         cols,
         rows,
         title=f"track record of {rep.metric} forecasts (95% CI: Wilson; the simple "
-        "forecasters' typical miss on the same posts)",
+        "forecasters' typical miss on the same posts)"
+        if details
+        else f"how the {rep.metric} forecasts given turned out",
     )
     if rep.worst:
         worst = []
@@ -94,13 +97,26 @@ def print_report(rep: TrackRecord) -> None:
             title="the forecasts that missed worst",
         )
     for c in rep.calibration:
-        out.print(
-            f"adaptive calibration at {float(c.level):.0%}: alpha_t {c.alpha_t:.3f} "
-            f"after {c.outcomes} outcomes and {c.pseudo_outcomes} pseudo-outcomes"
-        )
-    out.print(
-        "[dim]Live coverage is how often the stated intervals held on the posts that "
-        "went out; the interval beside it says how sure that share is.[/dim]"
+        if details:
+            say(
+                out,
+                f"adaptive calibration at {float(c.level):.0%}: alpha_t {c.alpha_t:.3f} "
+                f"after {plural(c.outcomes, 'outcome')} and {plural(c.pseudo_outcomes, 'pseudo-outcome')} "
+                "(adaptive conformal inference, Gibbs & Candès 2021)",
+            )
+        else:
+            say(
+                out,
+                f"{float(c.level):.0%} intervals are adjusted to how past forecasts did: "
+                f"{plural(c.outcomes, 'published post')} so far, and "
+                f"{plural(c.pseudo_outcomes, 'older post')} forecast as it would have been",
+            )
+    say(
+        out,
+        "held: how often the intervals given held on the posts that went out; the range beside "
+        "it says how sure that share is; settled: posts whose numbers are final; beside "
+        "sounding's typical miss, the simple forecasters' on the same posts.",
+        style="dim",
     )
 
 
@@ -118,6 +134,9 @@ def track_record_cmd(
         "--reset-adaptation",
         help="Forget what the adaptive calibration of this metric has learnt, then report.",
     ),
+    details: bool = typer.Option(
+        False, "--details", help="Also show the statistics by name (stated and live coverage, alpha_t)."
+    ),
 ) -> None:
     """How the forecasts given turned out: live against stated coverage, errors, worst misses."""
     ws = workspace()
@@ -133,6 +152,6 @@ def track_record_cmd(
     if as_json:
         print_json(rep.model_dump(mode="json"))
     else:
-        print_report(rep)
+        print_report(rep, details=details)
         if plot is not None:
             out.print(f"plot written to {plot}")

@@ -12,8 +12,8 @@ from service.history.repeats import Repeat
 
 CAUTION = (
     "An estimate from this team's own history, not a certainty: the interval "
-    "is calibrated to the stated coverage, and the backtest says how often "
-    "such intervals held on past posts."
+    "is set to hold as often as it says, and past tries on the team's posts "
+    "say how often such intervals did."
 )
 
 

@@ -161,6 +161,7 @@ class Forecaster:
             wide=wide,
         )
         facts = None if calibration is None else calibration.facts(model)
+        team = len(view.account_codes) > 1  # "the team's usual" needs a team
         out = []
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = rows[i]
@@ -193,7 +194,7 @@ class Forecaster:
                                 factor=e.factor,
                                 summary=e.summary,
                             )
-                            for e in (describe(g, groups[g]) for g in F.GROUPS)
+                            for e in (describe(g, groups[g], team=team) for g in F.GROUPS)
                         ],
                     ),
                     draft_id=d.draft_id,

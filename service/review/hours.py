@@ -20,6 +20,7 @@ from service.clock import UTC, now_utc, zone
 from service.forecast.answer import CAUTION
 from service.forecast.draft import Draft
 from service.forecast.forecaster import Forecaster
+from service.review.hour_support import DEFAULT_MIN_POSTS, FEW_POSTS, few_posts
 from service.review.overlap import RULE, ranks, tied_with_best
 
 WEEK_DAYS = 7
@@ -81,6 +82,11 @@ class Slot(BaseModel):
     tied_with_best: bool = Field(
         default=False, description="Interval about equal to the best slot's (see rule)"
     )
+    few_posts: bool = Field(
+        default=False,
+        description="The account has fewer than min_posts posts at this hour (or weekday): "
+        "never best, never tied with the best",
+    )
     warnings: list[str]
     log: tuple[float, float, float] = Field(default=(0.0, 0.0, 0.0), exclude=True)
 
@@ -128,6 +134,9 @@ class HoursReport(BaseModel):
     )
     summary: str
     rule: str = RULE
+    min_posts: int = Field(
+        default=DEFAULT_MIN_POSTS, description="Posts an hour needs not to be marked few_posts"
+    )
     best: list[Slot] = Field(description="Slots about equal to the best, highest median first")
     slots: list[Slot] = Field(description="Every slot, in time order")
     warnings: list[str] = Field(default_factory=list)
@@ -146,6 +155,7 @@ def best_hours(
     top: int = 3,
     now: datetime | None = None,
     has_media: bool = False,
+    min_posts: int = DEFAULT_MIN_POSTS,
 ) -> HoursReport:
     """Forecast ``text`` at every hour of ``day`` (default: tomorrow in the
     account's zone), or of the seven days from ``day`` with ``week``.
@@ -176,11 +186,25 @@ def best_hours(
         Slot.at(t, t.astimezone(z), low=f.low, median=f.median, high=f.high, log=f.log, warnings=f.warnings)
         for t, f in zip(instants, found, strict=True)
     ]
-    best, flags = tied_with_best([s.log for s in slots])
-    for s, r, flag in zip(slots, ranks([s.log[1] for s in slots]), flags, strict=True):
-        s.rank, s.tied_with_best = r, flag
-    others = len(slots) - 1
-    share = (sum(flags) - 1) / others if others else 1.0
+    thin = few_posts(
+        forecaster.view(metric), account, [s.local for s in slots], min_posts=min_posts, by_weekday=week
+    )
+    # Only hours the account's history speaks for can be best or tied with it.
+    backed = [i for i, t in enumerate(thin) if not t]
+    flags = [False] * len(slots)
+    if backed:
+        at, sub = tied_with_best([slots[i].log for i in backed])
+        best = backed[at]
+        for i, flag in zip(backed, sub, strict=True):
+            flags[i] = flag
+    else:
+        best = int(np.argmax([s.log[1] for s in slots]))
+    # Marked hours rank after every backed one, whatever their medians.
+    order = ranks([s.log[1] - (1e9 if t else 0.0) for s, t in zip(slots, thin, strict=True)])
+    for s, r, flag, t in zip(slots, order, flags, thin, strict=True):
+        s.rank, s.tied_with_best, s.few_posts = r, flag, t
+    others = len(backed) - 1
+    share = (sum(flags) - 1) / others if others > 0 else 1.0
     told_apart = share <= 0.5
     return HoursReport(
         account=account,
@@ -205,12 +229,26 @@ def best_hours(
         summary=hours_summary(slots, coverage=coverage, told_apart=told_apart, top=top, week=week),
         best=sorted((s for s in slots if s.tied_with_best), key=lambda s: s.rank)[:top],
         slots=slots,
+        min_posts=min_posts,
         warnings=list(slots[best].warnings),
     )
 
 
 def hours_summary(slots: list[Slot], *, coverage: float, told_apart: bool, top: int, week: bool) -> str:
     """One plain sentence on the best hours, or on why they cannot be told apart."""
+    thin = [s for s in slots if s.few_posts]
+    # FEW_POSTS is the mark of one hour; the sentence speaks of all of them.
+    note = (
+        f" {_spans(thin, week)}: few or no posts at these hours, so the forecast there leans on other hours."
+        if thin
+        else ""
+    )
+    if len(thin) == len(slots):
+        return f"No hour can be called best: {FEW_POSTS}, at every hour of this span."
+    return _backed_summary([s for s in slots if not s.few_posts], coverage, told_apart, top, week) + note
+
+
+def _backed_summary(slots: list[Slot], coverage: float, told_apart: bool, top: int, week: bool) -> str:
     group = sorted((s for s in slots if s.tied_with_best), key=lambda s: s.rank)
     lower = [s for s in slots if not s.tied_with_best]
     n = len(slots)
@@ -239,7 +277,7 @@ def hours_summary(slots: list[Slot], *, coverage: float, told_apart: bool, top: 
 def _spans(slots: list[Slot], week: bool) -> str:
     """Consecutive slots as ranges, e.g. '00:00–07:00, 23:00'."""
     if week:
-        return f"{len(slots)} hours (mostly {_commonest_hours(slots)})"
+        return f"{len(slots)} {'hour' if len(slots) == 1 else 'hours'} (mostly {_commonest_hours(slots)})"
     runs: list[list[Slot]] = []
     for s in slots:
         if runs and s.planned_at - runs[-1][-1].planned_at == timedelta(hours=1):

@@ -69,10 +69,10 @@ def compare_variants(
     """Forecast each phrasing at the same time, rank by median, and list the
     precedents each has that none of the others has."""
     if len(texts) < 2:
-        raise InputError(f"give at least two variants to compare, got {len(texts)}", field="texts")
+        raise InputError(f"give at least two versions to compare, got {len(texts)}", field="texts")
     if len(texts) > MAX_VARIANTS:
         raise LimitExceeded(
-            f"{len(texts)} variants; the limit is {MAX_VARIANTS}",
+            f"{len(texts)} versions; the limit is {MAX_VARIANTS}",
             limit="max_variants",
             maximum=MAX_VARIANTS,
             field="texts",
@@ -81,7 +81,7 @@ def compare_variants(
         try:
             forecaster.limits.check_draft(t)
         except SoundingError as exc:  # say which variant is at fault
-            exc.where = exc.where or f"variant {i}"
+            exc.where = exc.where or f"version {i}"
             raise
     now = now or now_utc()
     planned = planned_at or now
@@ -116,14 +116,14 @@ def compare_variants(
     lower = [v for v in variants if not v.tied_with_best]
     if not lower:
         summary = (
-            "These variants cannot be told apart with this history: their intervals "
+            "These versions cannot be told apart with this history: their intervals "
             "overlap the best one's by at least half."
         )
     elif told_apart:
-        summary = f"Variant #{equal[0].index} looks ahead of the others ({names(lower)})."
+        summary = f"Version #{equal[0].index} looks ahead of the others ({names(lower)})."
     else:
         summary = (
-            f"Variants {names(equal)} cannot be told apart with this history; "
+            f"Versions {names(equal)} cannot be told apart with this history; "
             f"{names(lower)} look{'s' if len(lower) == 1 else ''} clearly weaker."
         )
     f0 = found[0]

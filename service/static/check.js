@@ -6,6 +6,9 @@
   const { $, fmt, metricLabel, node, svg, api, ApiError, niceTicks } = S;
   const zones = {};
   let busy = false;
+  // The last check's request, with its planned time fixed: "I'll post this" records
+  // exactly the forecast shown.
+  let lastBody = null;
 
   function valueOf(metrics, metric) {
     if (metric === "engagement_rate") {
@@ -35,7 +38,7 @@
       const accounts = await S.fillAccounts(sel);
       for (const a of accounts) zones[a.handle] = a.timezone;
       $("account-help").textContent = accounts.length
-        ? `${accounts.length} accounts in this store.`
+        ? `${accounts.length} ${accounts.length === 1 ? "account" : "accounts"} in this store.`
         : "No accounts yet: import some history first.";
       showZone();
     } catch (e) {
@@ -52,9 +55,16 @@
     $("fc-median").textContent = fmt(f.median, f.metric);
     $("fc-metric").textContent = metricLabel(f.metric);
     const bt = f.backtested_coverage === null
-      ? "not backtested yet"
-      : `such intervals held ${Math.round(f.backtested_coverage * 100)}% of the time in backtests`;
+      ? "not yet tried on past posts"
+      : `such intervals held in ${Math.round(f.backtested_coverage * 100)}% of past tries`;
     $("fc-coverage").textContent = `${Math.round(f.coverage * 100)}% interval; ${bt}`;
+    // statistics: begin (their own names, for the analyst, behind an expandable line)
+    const c = f.calibration;
+    $("fc-stats-text").textContent = [
+      `Stated coverage ${f.coverage}; backtested coverage ${f.backtested_coverage === null ? "none" : f.backtested_coverage}.`,
+      c ? `Calibration ${c.method} (CQR, Romano et al. 2019; +aci: adaptive conformal inference, Gibbs & Candès 2021), alpha_t ${c.alpha_t.toFixed(3)}.` : "",
+    ].join(" ");
+    // statistics: end
     $("fc-caution").textContent = f.caution;
     $("fc-note").textContent = f.note || "";
     $("fc-note").hidden = !f.note;
@@ -189,11 +199,15 @@
     chart.append(svg("polyline", {
       points: s.map((d, i) => `${sx(i)},${sy(d.median)}`).join(" "), class: "median",
     }));
-    const best = new Set(h.best.map((d) => d.planned_at));
+    // One source for the dots, the sentence and the command line: each slot's own flags.
     s.forEach((d, i) => {
-      if (best.has(d.planned_at)) {
-        const c = svg("circle", { cx: sx(i), cy: sy(d.median), r: 4, class: "best" });
-        c.append(svg("title", {}, `${d.local_hour} (UTC${d.utc_offset}): median ${fmt(d.median, h.metric)}`));
+      if (d.tied_with_best || d.few_posts) {
+        const c = svg("circle", {
+          cx: sx(i), cy: sy(d.median), r: 4, class: d.tied_with_best ? "best" : "few",
+        });
+        const what = d.tied_with_best ? "tied with the best"
+          : "few or no posts at this hour: the forecast leans on other hours";
+        c.append(svg("title", {}, `${d.local_hour} (UTC${d.utc_offset}): median ${fmt(d.median, h.metric)}; ${what}`));
         chart.append(c);
       }
       const last = i === s.length - 1 && i % 3 === 2;
@@ -235,11 +249,14 @@
       account: $("account").value,
       metric: $("metric").value,
       has_media: $("media").checked,
+      record: false,  // trying things out is never recorded
     };
     if (planned) body.planned_at = S.plannedValue(planned);
     try {
       const f = await api("/v1/forecasts", body);
       renderForecast(f);
+      lastBody = { ...body, planned_at: f.planned_at };
+      resetRecord();
       $("placeholder").hidden = true;
       $("output").hidden = false;
       try {
@@ -264,8 +281,32 @@
     }
   }
 
+  function resetRecord() {
+    $("record").disabled = false;
+    $("record").textContent = "I'll post this";
+    $("record-note").textContent = "Trying a draft out is never recorded. Say you will post it, "
+      + "and the track record will score this forecast once the post's numbers are in.";
+  }
+
+  // Recorded only when the person says the draft will go out.
+  async function record() {
+    if (!lastBody || $("record").disabled) return;
+    $("record").disabled = true;
+    try {
+      await api("/v1/forecasts", { ...lastBody, record: true });
+      $("record").textContent = "Recorded";
+      $("record-note").textContent = "In the track record: once the post is imported, "
+        + "this forecast is scored against its numbers.";
+      document.dispatchEvent(new CustomEvent("sounding:recorded"));
+    } catch (e) {
+      $("record").disabled = false;
+      showError(e instanceof ApiError ? e.message : `Unexpected problem: ${e.message}`);
+    }
+  }
+
   document.addEventListener("DOMContentLoaded", () => {
     $("planned").value = S.tomorrowNoon();
+    $("record").addEventListener("click", record);
     $("account").addEventListener("change", showZone);
     $("draft-form").addEventListener("submit", check);
     $("text").addEventListener("keydown", (e) => {

@@ -18,7 +18,7 @@
     box.append(S.node("h3", {}, split.title));
     const table = S.node("table", { class: "contrib seg-table" });
     const head = S.node("tr");
-    for (const h of ["Segment", "Posts", "Median", "95% interval of the median", "Effect r", "Holm p", "Reading"]) {
+    for (const h of ["Segment", "Posts", "Median", "Middle half of posts", "Median, 95% sure", "Reading"]) {
       head.append(S.node("th", { scope: "col" }, h));
     }
     const thead = S.node("thead");
@@ -30,19 +30,29 @@
       tr.append(S.node("th", { scope: "row" }, s.name));
       tr.append(S.node("td", { class: "num" }, String(s.n)));
       tr.append(S.node("td", { class: "num" }, S.fmt(s.median, metric)));
+      tr.append(S.node("td", { class: "num" }, `${S.fmt(s.q1, metric)} – ${S.fmt(s.q3, metric)}`));
       tr.append(S.node("td", { class: "num" }, s.ci_low === null ? "–"
         : `${S.fmt(s.ci_low, metric)} – ${S.fmt(s.ci_high, metric)}`));
-      tr.append(S.node("td", { class: "num" }, s.rank_biserial === null ? "–"
-        : (s.rank_biserial > 0 ? "+" : "") + s.rank_biserial.toFixed(2)));
-      tr.append(S.node("td", { class: "num" }, pText(s.p_holm)));
       tr.append(S.node("td", {}, s.summary));
       body.append(tr);
     }
     box.append(table);
-    if (split.kruskal_h !== null) {
-      box.append(S.node("p", { class: "summary" },
-        `Across all segments (Kruskal–Wallis): H = ${split.kruskal_h.toFixed(1)}, p ${pText(split.kruskal_p)}.`));
+    if (split.kruskal_p !== null) {
+      box.append(S.node("p", { class: "summary" }, split.kruskal_p < split.alpha
+        ? "Across all segments: clearly different from each other."
+        : "Across all segments: not clearly different from each other; could be chance."));
     }
+    // statistics: begin (their own names, behind an expandable line)
+    const stats = S.node("details", { class: "stats" });
+    stats.append(S.node("summary", {}, "The statistics behind this"));
+    const lines = split.segments.filter((s) => s.p_holm !== null).map((s) =>
+      `${s.name}: rank-biserial r ${(s.rank_biserial > 0 ? "+" : "") + s.rank_biserial.toFixed(2)}, Holm-adjusted Mann–Whitney p ${pText(s.p_holm)}`);
+    if (split.kruskal_h !== null) {
+      lines.push(`Kruskal–Wallis H = ${split.kruskal_h.toFixed(1)}, p ${pText(split.kruskal_p)}`);
+    }
+    for (const l of lines) stats.append(S.node("p", {}, l));
+    // statistics: end
+    if (lines.length) box.append(stats);
     return box;
   }
 

@@ -24,8 +24,8 @@
     }
     const ci = o.live_coverage_ci;
     $("track-live").textContent =
-      `${pct(o.live_coverage)} of ${o.settled} (95% interval ${pct(ci[0])}–${pct(ci[1])}), ` +
-      `stated ${pct(o.stated_coverage)}`;
+      `${pct(o.live_coverage)} of ${o.settled} (95% sure: ${pct(ci[0])}–${pct(ci[1])}) ` +
+      `of ${pct(o.stated_coverage)} intervals`;
     const b = o.baselines;
     // A typical miss: the forecast is off by this factor either way (exp of MAE on log1p).
     const f = (v) => (v === null ? "–" : "×" + Math.exp(v).toFixed(2));
@@ -38,7 +38,7 @@
   document.addEventListener("DOMContentLoaded", () => {
     load();
     if ($("metric")) $("metric").addEventListener("change", load);
-    // A check adds a forecast to the record: refresh after each one.
-    if ($("draft-form")) $("draft-form").addEventListener("submit", () => setTimeout(load, 1500));
+    // Only "I'll post this" adds a forecast to the record: refresh after it.
+    document.addEventListener("sounding:recorded", load);
   });
 })();

@@ -1,4 +1,4 @@
-// sounding page, "Compare wordings" panel: two to six phrasings forecast side by side.
+// sounding page, "Compare versions" panel: two to six versions of a draft forecast side by side.
 "use strict";
 
 (() => {
@@ -13,7 +13,7 @@
     if (n > MAX) return;
     const id = `w-text-${n}`;
     const li = S.node("li", { class: "field" });
-    li.append(S.node("label", { for: id }, `Wording ${n}`));
+    li.append(S.node("label", { for: id }, `Version ${n}`));
     const ta = S.node("textarea", { id, rows: "3", class: "w-text" });
     ta.value = value || "";
     li.append(ta);
@@ -27,8 +27,8 @@
     $("w-summary").textContent = r.summary;
     $("w-coverage").textContent = `${Math.round(r.coverage * 100)}% intervals for ${r.account} at `
       + `${r.local_time.replace("T", " ")}; ` + (r.backtested_coverage === null
-        ? "not backtested yet."
-        : `such intervals held ${Math.round(r.backtested_coverage * 100)}% of the time in backtests.`);
+        ? "not yet tried on past posts."
+        : `such intervals held in ${Math.round(r.backtested_coverage * 100)}% of past tries.`);
     $("w-caution").textContent = r.caution;
     const body = $("w-body");
     body.replaceChildren();
@@ -62,14 +62,14 @@
     const texts = Array.from(document.querySelectorAll(".w-text"))
       .map((t) => t.value).filter((t) => t.trim());
     if (texts.length < 2) {
-      S.showError(err, "Write at least two wordings to compare.");
+      S.showError(err, "Write at least two versions to compare.");
       return;
     }
     busy = true;
     $("w-submit").textContent = "Comparing…";
     $("wordings-panel").setAttribute("aria-busy", "true");
     try {
-      render(await S.api("/v1/variants", {
+      render(await S.api("/v1/comparisons", {
         texts, account: $("w-account").value, metric: $("w-metric").value,
         planned_at: S.plannedValue($("w-planned").value),
       }));
@@ -78,7 +78,7 @@
       S.showError(err, e.message);
     } finally {
       busy = false;
-      $("w-submit").textContent = "Compare wordings";
+      $("w-submit").textContent = "Compare";
       $("wordings-panel").setAttribute("aria-busy", "false");
     }
   }

@@ -94,7 +94,7 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             expect(page.locator("#fc-high")).to_have_text(_shown(want["high"]))
             expect(page.locator("#fc-caution")).to_have_text(want["caution"])
             pct = round(want["backtested_coverage"] * 100)
-            expect(page.locator("#fc-coverage")).to_contain_text(f"held {pct}%")
+            expect(page.locator("#fc-coverage")).to_contain_text(f"held in {pct}%")
             first = page.locator("#prec-list li .prec-text").first
             expect(first).to_have_text(want["precedents"][0]["text"])
             expect(page.locator("#contrib-body tr")).to_have_count(len(want["contributions"]["groups"]))
@@ -159,7 +159,7 @@ def test_wordings_and_segments_panels(demo_workspace, artifacts: Path) -> None:
 
     with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
         variants = httpx.post(
-            f"{base}/v1/variants",
+            f"{base}/v1/comparisons",
             timeout=60,
             json={"texts": WORDINGS, "account": "loomhaven", "planned_at": PLANNED + ":00"},
         )
@@ -215,6 +215,81 @@ def test_wordings_and_segments_panels(demo_workspace, artifacts: Path) -> None:
                 expect(seg_rows.nth(i).locator("td").nth(0)).to_have_text(str(s["n"]))
             expect(page.locator("#s-plot")).to_be_visible(timeout=60_000)
             page.screenshot(path=str(artifacts / "page-segments.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()
+
+
+def _given(base: str) -> int:
+    r = httpx.get(f"{base}/v1/track-record", params={"metric": "impressions"}, timeout=60)
+    assert r.status_code == 200, r.text
+    return int(r.json()["overall"]["given"])
+
+
+def test_page_records_only_what_will_be_posted_and_marks_tied_hours(demo_copy, artifacts: Path) -> None:
+    """Trying a draft on the page records nothing; "I'll post this" records it once.
+    The hour chart's dots are the answer's own tied and few-post hours."""
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_copy)) as base, sync_playwright() as p:
+        before = _given(base)
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 900})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(base + "/")
+            expect(page.locator("#account option")).not_to_have_count(0)
+            page.locator("#text").fill(DRAFT)
+            page.select_option("#account", "loomhaven_lab")
+            page.locator("#planned").fill(PLANNED)
+            page.locator("#submit").click()
+            expect(page.locator("#output")).to_be_visible(timeout=60_000)
+            expect(page.locator("#hours-chart polygon.band")).to_have_count(1, timeout=60_000)
+            # Another try: still nothing recorded.
+            page.locator("#submit").click()
+            expect(page.locator("#submit")).to_have_text("Check draft", timeout=60_000)
+            assert _given(base) == before
+
+            # The same day's hours from the API: the dots and the sentence agree with it.
+            hours = httpx.post(
+                f"{base}/v1/hours",
+                timeout=60,
+                json={"text": DRAFT, "account": "loomhaven_lab", "day": PLANNED[:10]},
+            ).json()
+            tied = sum(s["tied_with_best"] for s in hours["slots"])
+            few = sum(s["few_posts"] for s in hours["slots"])
+            assert few > 0  # the demo's nights are thin
+            expect(page.locator("#hours-chart circle.best")).to_have_count(tied)
+            expect(page.locator("#hours-chart circle.few")).to_have_count(few)
+            expect(page.locator("#hours-summary")).to_have_text(hours["summary"])
+            assert not any(s["few_posts"] and s["tied_with_best"] for s in hours["slots"])
+
+            # The form sits at the top of its column, level with the results, also
+            # after scrolling (it is not pinned to the middle of the window).
+            form = page.locator("#check-panel .compose").bounding_box()
+            results = page.locator("#results").bounding_box()
+            assert form is not None and results is not None
+            assert abs(form["y"] - results["y"]) < 2
+            page.mouse.wheel(0, 700)
+            page.wait_for_timeout(200)
+            form2 = page.locator("#check-panel .compose").bounding_box()
+            results2 = page.locator("#results").bounding_box()
+            assert form2 is not None and results2 is not None
+            assert abs(form2["y"] - results2["y"]) < 2
+
+            # Saying it will be posted records it, once.
+            record = page.locator("#record")
+            expect(record).to_have_text("I'll post this")
+            record.click()
+            expect(record).to_have_text("Recorded", timeout=60_000)
+            expect(record).to_be_disabled()
+            assert _given(base) == before + 1
+            page.screenshot(path=str(artifacts / "page-recorded.png"), full_page=True)
+            # A new check is a new try: not recorded, and the button is offered again.
+            page.locator("#submit").click()
+            expect(record).to_have_text("I'll post this", timeout=60_000)
+            assert _given(base) == before + 1
             assert errors == []
         finally:
             browser.close()

@@ -97,9 +97,13 @@ def test_api_labels_dst_day(demo_workspace) -> None:
     assert got == [("00:00", "+01:00"), ("01:00", "+01:00"), ("01:00", "+00:00"), ("02:00", "+00:00")]
     assert body["caution"] == CAUTION
     assert sorted(s["rank"] for s in body["slots"]) == list(range(1, 26))
-    # Ranks follow the medians (highest first).
+    # Ranks follow the medians (highest first), hours the account's history speaks for
+    # before the hours with few of its posts.
     by_rank = sorted(body["slots"], key=lambda s: s["rank"])
-    assert all(a["median"] >= b["median"] for a, b in itertools.pairwise(by_rank))
+    assert [s["few_posts"] for s in by_rank] == sorted(s["few_posts"] for s in by_rank)
+    for group in (False, True):
+        ranked = [s for s in by_rank if s["few_posts"] == group]
+        assert all(a["median"] >= b["median"] for a, b in itertools.pairwise(ranked))
 
 
 def test_week_across_the_change_has_169_slots(demo_workspace) -> None:
@@ -238,7 +242,61 @@ def test_cli_hours(demo_home, embedder, monkeypatch) -> None:
     res = runner.invoke(app, ["hours", DRAFTS[0], "--account", "loomhaven", "--day", "2026-03-29"])
     assert res.exit_code == 0, res.output
     # The EU spring-forward day again (IANA tz "EU" rule): 01:00 local is skipped.
-    assert "23 slots" in res.output and "every hour" in res.output
+    assert "23 hours" in res.output and "every hour" in res.output
     assert "00:00 (UTC+00:00)" in res.output and "02:00 (UTC+01:00)" in res.output
     assert "01:00 (UTC" not in res.output
     assert "not a certainty" in res.output
+
+
+# Hours with few of the account's posts ----------------------------------------------
+
+
+def _demo_posts_per_local_hour(account: str) -> list[int]:
+    """Counted straight from the demo CSV, each time converted with zoneinfo (IANA rules)."""
+    import csv
+    from zoneinfo import ZoneInfo
+
+    tz = ZoneInfo(EFFECTS["accounts"][account]["zone"])
+    counts = [0] * 24
+    with (ROOT / "demo_data" / "posts.csv").open(encoding="utf-8", newline="") as f:
+        for row in csv.DictReader(f):
+            if row["account"] == account:
+                counts[datetime.fromisoformat(row["posted_at"]).astimezone(tz).hour] += 1
+    return counts
+
+
+@pytest.mark.parametrize("account", ["loomhaven", "loomhaven_lab"])
+def test_hours_with_few_posts_are_marked_and_never_best(demo_workspace, account: str) -> None:
+    from service.review.hour_support import DEFAULT_MIN_POSTS, EVEN_SHARE, FEW_POSTS
+
+    counts = _demo_posts_per_local_hour(account)
+    floor = max(DEFAULT_MIN_POSTS, EVEN_SHARE * sum(counts) / 24)
+    want = {h for h in range(24) if counts[h] < floor}
+    # The demo's nights are thin: the marked hours are night hours, and there are some.
+    assert want and want <= set(range(8)), (counts, want)
+    r = best_hours(demo_workspace.forecaster, DRAFTS[0], account=account, day=date(2026, 12, 3))
+    assert {s.local.hour for s in r.slots if s.few_posts} == want
+    for s in r.slots:
+        if s.few_posts:
+            assert not s.tied_with_best and s.rank > len(r.slots) - len(want)
+    assert all(not s.few_posts for s in r.best)
+    assert "few or no posts at these hours" in r.summary
+    # A floor above every hour's count marks them all: then no hour is called best.
+    thin = best_hours(
+        demo_workspace.forecaster,
+        DRAFTS[0],
+        account=account,
+        day=date(2026, 12, 3),
+        min_posts=max(counts) + 1,
+    )
+    assert all(s.few_posts and not s.tied_with_best for s in thin.slots) and thin.best == []
+    assert thin.summary.startswith("No hour can be called best")
+    assert FEW_POSTS == "few or no posts at this hour: the forecast leans on other hours"
+
+
+def test_every_hour_thin_names_no_best() -> None:
+    slots = _slots([(6.0, 7.0, 8.0)] * 24)
+    for s in slots:
+        s.few_posts, s.tied_with_best = True, False
+    text = hours_summary(slots, coverage=0.8, told_apart=False, top=3, week=False)
+    assert text.startswith("No hour can be called best")

@@ -76,7 +76,7 @@ def test_near_identical_variants_cannot_be_told_apart(client: TestClient) -> Non
     [
         ([BLOOMS], 422, "texts"),
         ([BLOOMS, "   "], 422, "the draft text is empty"),
-        ([BLOOMS] * 11, 413, "11 variants; the limit is 10"),
+        ([BLOOMS] * 11, 413, "11 versions; the limit is 10"),
         ([BLOOMS, "x" * 6000], 413, "the limit is"),
     ],
 )
@@ -86,7 +86,7 @@ def test_variant_errors(client: TestClient, texts: list[str], status: int, needl
     err = r.json()["error"]
     assert needle in err["message"]
     if "empty" in needle:
-        assert err["where"] == "variant 2"
+        assert err["where"] == "version 2"
 
 
 def test_unknown_account(client: TestClient) -> None:

@@ -189,7 +189,8 @@ def test_too_small_topics_are_flagged_in_plain_words(topic_hour: SegmentResult) 
         assert any(f"{seg.name!r} has only {seg.n} posts" in w for w in topic_hour.warnings)
     big = split.segment(FIRST_PHRASES[-1])
     assert big.summary.startswith("lower than the rest: median ")
-    assert "Holm p" in big.summary
+    assert big.summary.endswith("clearly different from the rest")
+    assert "Holm p" not in big.summary  # the statistics' names are for --details
 
 
 # ------------------------------------------------------------------ timing and form
@@ -449,7 +450,13 @@ def test_cli_json_table_and_plot(
     assert r.exit_code == 0, r.output
     text = " ".join(r.stdout.split())  # the table may wrap at the runner's width
     assert "with link: lower than the rest: median" in text
-    assert "Holm p < 0.001" in text
+    assert "clearly different from the rest" in text and "Holm p" not in text
+    # --details names the statistics.
+    r = runner.invoke(
+        cli_app, ["segments", "--topic", FIRST_PHRASES[1], "--by", "link", "--details"], env=env
+    )
+    assert r.exit_code == 0, r.output
+    assert "Holm p < 0.001" in " ".join(r.stdout.split())
     assert f"warning: topic '{FIRST_PHRASES[1]}' has only" in text
     assert fig.read_bytes().startswith(PNG_SIGNATURE)
     assert (tmp_path / "seg-link.png").read_bytes().startswith(PNG_SIGNATURE)

@@ -32,4 +32,5 @@ def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursReport:
         coverage=body.coverage,
         top=body.top,
         has_media=body.has_media,
+        min_posts=body.min_posts,
     )

@@ -12,14 +12,28 @@ from service.review.wordings import compare_variants
 router = APIRouter(prefix="/v1", tags=["variants"])
 
 
+DESCRIPTION = (
+    "Each version is forecast for the same account and time, ranked by median, with its own "
+    "precedents (those the others do not have). Versions whose intervals overlap heavily are "
+    "reported as not told apart. Estimates from this team's history, not certainties."
+)
+
+
+@router.post(
+    "/comparisons",
+    response_model=VariantsReport,
+    responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
+    summary="Compare several versions of one draft side by side",
+    description=DESCRIPTION,
+)
+# The earlier path, kept for one release so scripts written against it keep working.
 @router.post(
     "/variants",
     response_model=VariantsReport,
     responses=ERRORS(NotFound, NotReady, LimitExceeded, InputError),
-    summary="Forecast several phrasings of one draft side by side",
-    description="Each variant is forecast for the same account and time, ranked by median, with "
-    "the precedents it has that the others do not. Variants whose intervals overlap heavily are "
-    "reported as not told apart. Estimates from this team's history, not certainties.",
+    summary="Compare several versions of one draft (earlier path of /v1/comparisons)",
+    description=DESCRIPTION + " Deprecated: use /v1/comparisons.",
+    deprecated=True,
 )
 def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsReport:
     planned = planned_time(ws, body.account, body.planned_at, where="planned_at")
