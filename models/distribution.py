@@ -283,6 +283,8 @@ def reading(summary: Summary, fits: TailFits | None, metric: str) -> str:
         tail = "The top posts follow a power law: there is no typical size for a hit, and a rare post can dwarf all the rest."
     elif fits.best == "exponential":
         tail = "The top posts fall off quickly (exponential): very large outliers are unlikely."
+    elif not any(c.favoured for c in fits.comparisons):
+        tail = "Among the top posts, a log-normal, a power law and an exponential fit about equally well: too few big posts to tell them apart."
     elif pl.favoured is None:
         tail = "The top posts fit a log-normal and a power law about equally well: the data cannot tell them apart."
     else:

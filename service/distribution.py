@@ -8,6 +8,7 @@ from datetime import datetime
 
 from pydantic import BaseModel, Field
 
+from models.analyst_plots import plot_histogram
 from models.distribution import Bin, Summary, TailFits, fit_tail, log_histogram, reading, summarise
 from models.errors import InputError
 from models.metrics import DEFAULT_METRIC
@@ -68,10 +69,24 @@ def distribution(
     )
 
 
+def render(a: DistributionAnswer, fmt: str = "png") -> bytes:
+    """The histogram on a log axis with the median, 90th and 99th percentiles marked."""
+    s = a.summary
+    return plot_histogram(
+        [b.low for b in a.histogram],
+        [b.high for b in a.histogram],
+        [b.count for b in a.histogram],
+        {"median": s.median, "90th percentile": s.p90, "99th percentile": s.p99},
+        metric=a.metric.replace("_", " "),
+        caption=a.note,
+        fmt=fmt,
+    )
+
+
 def csv_table(answer: DistributionAnswer) -> tuple[list[str], list[list[str]]]:
     """The histogram as the screen shows it: whole numbers, plain headers."""
     rows = [[f"{b.low:.0f}", f"{b.high:.0f}", str(b.count)] for b in answer.histogram]
     return ["from", "to", "posts"], rows
 
 
-__all__ = ["NOTE", "DistributionAnswer", "csv_table", "distribution"]
+__all__ = ["NOTE", "DistributionAnswer", "csv_table", "distribution", "render"]

@@ -19,6 +19,7 @@ from ..settings import Settings, get_settings
 from ..workspace import Workspace
 from . import errors, guard, page
 from .routers import (
+    distribution,
     forecasts,
     forget,
     health,
@@ -35,7 +36,19 @@ STATIC = Path(__file__).resolve().parent.parent / "static"
 
 # One router module per resource, in the order they appear in /docs. Imported
 # by name, so a missing module fails at import rather than dropping an endpoint.
-ROUTERS = (health, precedents, forecasts, hours, variants, segments, imports, training, forget, track_record)
+ROUTERS = (
+    health,
+    precedents,
+    forecasts,
+    hours,
+    variants,
+    segments,
+    distribution,
+    imports,
+    training,
+    forget,
+    track_record,
+)
 
 
 def create_app(

@@ -9,11 +9,11 @@ from __future__ import annotations
 
 # Command modules register their commands on ``app`` when imported. Imported
 # by name: a missing module fails here rather than silently dropping its commands.
-from . import admin, forecast, history, mappings, model_export, review, segments, track
+from . import admin, analyst, forecast, history, mappings, model_export, review, segments, track
 from .base import app
 
 #: The order their commands appear in --help.
-COMMAND_MODULES = (history, mappings, forecast, review, segments, admin, model_export, track)
+COMMAND_MODULES = (history, mappings, forecast, review, segments, analyst, admin, model_export, track)
 _ORDER = {m.__name__: i for i, m in enumerate(COMMAND_MODULES)}
 app.registered_commands.sort(key=lambda c: _ORDER.get(getattr(c.callback, "__module__", ""), len(_ORDER)))
 

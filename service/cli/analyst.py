@@ -1,0 +1,80 @@
+"""The analyst's commands: how a metric is distributed over the posts (and,
+through ``segments --by month|week``, how it moves over time)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import typer
+from rich.text import Text
+
+from models.analyst_plots import check_format
+from models.metrics import DEFAULT_METRIC
+from models.segments import fmt_value
+
+from ..distribution import DistributionAnswer, csv_table, distribution, render
+from ..settled import parse_since
+from .base import app, err, out, print_json, workspace
+from .render import Column, print_table
+from .tables import write_csv
+
+
+def _plot_format(plot: Path | None) -> str | None:
+    return None if plot is None else check_format(plot.suffix or "?")
+
+
+def print_distribution(a: DistributionAnswer) -> None:
+    m = a.metric
+    s = a.summary
+    who = f" from {a.account}" if a.account else ""
+    out.print(f"{a.n_posts:,} settled posts with {m}{who}\n", highlight=False)
+    print_table(
+        out,
+        [Column(header="median", right=True), Column(header="middle half", right=True),
+         Column(header="90th pct", right=True), Column(header="99th pct", right=True),
+         Column(header="half the total from", right=True)],
+        [[fmt_value(s.median, m), f"{fmt_value(s.q1, m)}–{fmt_value(s.q3, m)}", fmt_value(s.p90, m),
+          fmt_value(s.p99, m), f"top {100 * s.half_share:.0f}% of posts"]],
+        title=f"{m}: summary",
+    )
+    peak = max((b.count for b in a.histogram), default=1) or 1
+    for b in a.histogram:
+        bar = "█" * round(30 * b.count / peak)
+        out.print(f"  {fmt_value(b.low, m):>8}–{fmt_value(b.high, m):<8} {bar} {b.count}", highlight=False)
+    if a.tail is not None:
+        t = a.tail
+        out.print(
+            f"\n  the top {100 * t.tail_share:.0f}% of posts ({t.n_tail}, from {fmt_value(t.xmin, m)} up) compared:",
+            highlight=False,
+        )
+        for c in t.comparisons:
+            word = f"{c.favoured} fits better" if c.favoured else "cannot tell apart"
+            out.print(f"    {c.first} vs {c.second}: {word} (p = {c.p_value:.3f})", highlight=False)
+    out.print()
+    out.print(Text(a.reading))
+    out.print(Text(a.note, style="dim"))
+
+
+@app.command("distribution")
+def distribution_cmd(
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help="impressions, engagements, likes, ..."),
+    account: str | None = typer.Option(None, "--account", help="Only this account's posts."),
+    since: str | None = typer.Option(None, "--since", help="Only posts from this date or time (ISO 8601)."),
+    plot: Path | None = typer.Option(None, "--plot", help="Write the histogram (.png or .svg)."),
+    csv_path: Path | None = typer.Option(None, "--csv", help="Write the histogram's table as CSV."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON (with the fits' statistics)."),
+) -> None:
+    """How a metric is spread over the posts, and which law its top follows."""
+    fmt = _plot_format(plot)
+    a = distribution(workspace(), metric=metric, account=account, since=parse_since(since))
+    if as_json:
+        print_json(a.model_dump(mode="json"))
+    else:
+        print_distribution(a)
+    say = err if as_json else out
+    if plot is not None and fmt is not None:
+        plot.write_bytes(render(a, fmt))
+        say.print(f"figure written to {plot}", highlight=False)
+    if csv_path is not None:
+        write_csv(csv_path, *csv_table(a))
+        say.print(f"table written to {csv_path}", highlight=False)

@@ -1,0 +1,57 @@
+"""The analyst's tabs of the page in headless Chromium, driven with the
+keyboard and checked against the API's own answers to the same requests."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import httpx
+import pytest
+from serving import CHROMIUM, CHROMIUM_ARGS, serve
+
+from service.api.app import create_app
+
+pytestmark = [
+    pytest.mark.browser,
+    pytest.mark.skipif(
+        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
+    ),
+]
+
+
+def _shown(v: float) -> str:
+    """How the page writes a count: rounded half up, with thousands separators."""
+    return f"{math.floor(v + 0.5):,}"
+
+
+def test_spread_tab(demo_workspace, artifacts: Path) -> None:
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        want = httpx.get(f"{base}/v1/distribution", params={"account": "loomhaven"}, timeout=60)
+        assert want.status_code == 200, want.text
+        answer = want.json()
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 1000})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(base + "/#spread")
+            expect(page.locator("#spread-panel")).to_be_visible()
+            expect(page.locator("#d-account option[value='loomhaven']")).to_have_count(1)
+            page.select_option("#d-account", "loomhaven")
+            page.locator("#d-submit").focus()
+            page.keyboard.press("Enter")
+            cells = page.locator("#d-summary-row td")
+            expect(cells).to_have_count(5, timeout=60_000)
+            expect(cells.nth(0)).to_have_text(_shown(answer["summary"]["median"]))
+            expect(cells.nth(3)).to_have_text(_shown(answer["summary"]["p99"]))
+            expect(page.locator("#d-reading")).to_have_text(answer["reading"])
+            expect(page.locator("#d-fits-body tr")).to_have_count(len(answer["tail"]["comparisons"]))
+            expect(page.locator("#d-note")).to_contain_text("association")
+            expect(page.locator("#d-plot")).to_be_visible(timeout=60_000)
+            page.screenshot(path=str(artifacts / "page-spread.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()
