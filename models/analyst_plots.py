@@ -5,6 +5,7 @@ is drawn, so the command line starts without it."""
 from __future__ import annotations
 
 import io
+import textwrap
 from collections.abc import Sequence
 from typing import Any
 
@@ -66,7 +67,7 @@ def plot_histogram(
     ax.set_xlabel(f"{metric} (log scale)")
     ax.set_ylabel("posts")
     ax.legend(frameon=False)
-    ax.set_title(caption, fontsize=9, loc="left", color=INK)
+    ax.set_title("\n".join(textwrap.wrap(caption, 100)), fontsize=9, loc="left", color=INK)
     return _bytes(fig, fmt)
 
 
@@ -93,7 +94,7 @@ def plot_series(
     ax.set_xticks(xs[::step], [labels[i] for i in range(0, len(labels), step)], rotation=45, ha="right")
     ax.set_ylabel(f"median {metric} (log scale)")
     ax.legend(frameon=False, fontsize=8)
-    ax.set_title(caption, fontsize=9, loc="left", color=INK)
+    ax.set_title("\n".join(textwrap.wrap(caption, 100)), fontsize=9, loc="left", color=INK)
     return _bytes(fig, fmt)
 
 
@@ -116,7 +117,7 @@ def plot_map(
         ax.annotate(name, (cx, cy), ha="center", fontsize=8, color=INK, weight="bold")
     ax.set_xlabel("first principal component")
     ax.set_ylabel("second principal component")
-    ax.set_title(caption, fontsize=9, loc="left", color=INK)
+    ax.set_title("\n".join(textwrap.wrap(caption, 100)), fontsize=9, loc="left", color=INK)
     return _bytes(fig, fmt)
 
 

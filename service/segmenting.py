@@ -494,6 +494,10 @@ def _topic_vectors(ws: DataDir, topics: list[Topic]) -> np.ndarray:
     return np.asarray(out, dtype=np.float32)
 
 
+#: The topics' vectors, for other answers that place posts in the same topics.
+topic_vectors = _topic_vectors
+
+
 def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[Example]:
     if n == 0 or idx.size == 0:
         return []
@@ -757,4 +761,5 @@ __all__ = [
     "plot_names",
     "render",
     "segment",
+    "topic_vectors",
 ]

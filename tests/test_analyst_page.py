@@ -55,3 +55,39 @@ def test_spread_tab(demo_workspace, artifacts: Path) -> None:
             assert errors == []
         finally:
             browser.close()
+
+
+def test_over_time_tab(demo_workspace, artifacts: Path) -> None:
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        body = {"by": "month", "topics": ["volunteering"]}
+        want = httpx.post(f"{base}/v1/trends", json=body, timeout=60)
+        assert want.status_code == 200, want.text
+        answer = want.json()
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 1000})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(base + "/#spread")
+            page.locator("#tab-spread").focus()
+            page.keyboard.press("ArrowRight")
+            assert page.evaluate("document.activeElement.id") == "tab-trends"
+            page.locator("#t-topics").fill("volunteering")
+            page.locator("#t-submit").focus()
+            page.keyboard.press("Enter")
+            cards = page.locator(".t-series")
+            expect(cards).to_have_count(len(answer["series"]), timeout=60_000)
+            for i, s in enumerate(answer["series"]):
+                expect(cards.nth(i).locator("h3")).to_have_text(s["name"])
+                expect(cards.nth(i).locator("tbody tr")).to_have_count(len(s["rows"]))
+                first = cards.nth(i).locator("tbody tr").nth(0).locator("td")
+                expect(first.nth(0)).to_have_text(str(s["rows"][0]["n"]))
+                expect(first.nth(2)).to_have_text(_shown(s["rows"][0]["median"]))
+                expect(cards.nth(i).locator(".t-reading")).to_contain_text(s["trend"]["reading"])
+            expect(page.locator("#t-plot")).to_be_visible(timeout=60_000)
+            page.screenshot(path=str(artifacts / "page-trends.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()

@@ -20,6 +20,7 @@ ENDPOINTS = {
     ("POST", "/v1/variants"),
     ("POST", "/v1/segments"),
     ("GET", "/v1/distribution"),
+    ("POST", "/v1/trends"),
     ("POST", "/v1/imports"),
     ("POST", "/v1/training"),
     ("DELETE", "/v1/accounts/{handle}"),

@@ -29,6 +29,7 @@ from .routers import (
     segments,
     track_record,
     training,
+    trends,
     variants,
 )
 
@@ -44,6 +45,7 @@ ROUTERS = (
     variants,
     segments,
     distribution,
+    trends,
     imports,
     training,
     forget,

@@ -14,6 +14,9 @@ from models.segments import fmt_value
 
 from ..distribution import DistributionAnswer, csv_table, distribution, render
 from ..settled import parse_since
+from ..trends import TrendAnswer, TrendRequest, trends
+from ..trends import csv_table as trends_table
+from ..trends import render as render_trends
 from .base import app, err, out, print_json, workspace
 from .render import Column, print_table
 from .tables import write_csv
@@ -77,4 +80,53 @@ def distribution_cmd(
         say.print(f"figure written to {plot}", highlight=False)
     if csv_path is not None:
         write_csv(csv_path, *csv_table(a))
+        say.print(f"table written to {csv_path}", highlight=False)
+
+
+def print_trends(a: TrendAnswer, *, wide: bool = False) -> None:
+    m = a.metric
+    who = f" from {a.account}" if a.account else ""
+    out.print(f"{a.n_posts:,} settled posts with {m}{who}, by {a.by}\n", highlight=False)
+    for s in a.series:
+        rows = [
+            [
+                r.period + (" (few posts)" if r.few_posts and r.n else ""),
+                f"{r.n:,}",
+                f"{100 * r.share:.0f}%",
+                fmt_value(r.median, m) if r.median is not None else "-",
+                "-" if r.ci_low is None else f"{fmt_value(r.ci_low, m)}–{fmt_value(r.ci_high, m)}",
+            ]
+            for r in s.rows
+        ]
+        print_table(
+            out,
+            [Column(header=a.by, free=True), Column(header="posts", right=True),
+             Column(header="share", right=True), Column(header="median", right=True),
+             Column(header="95% CI", right=True)],
+            rows,
+            title=f"{s.name}: {m} by {a.by}",
+            wide=wide,
+        )
+        trend = s.trend.reading if s.trend else "too few periods for a trend"
+        out.print(Text(f"  {s.name}, last {a.last} {a.by}s: ", style="bold") + Text(trend))
+        out.print()
+    for w in a.warnings:
+        out.print(Text("warning: ", style="yellow") + Text(w))
+    out.print(Text(a.note, style="dim"))
+
+
+def trends_cmd(req: TrendRequest, *, as_json: bool, plot: Path | None, csv_path: Path | None, wide: bool) -> None:
+    """``segments --by month|week``: the table, the figure and the CSV of a trend."""
+    fmt = _plot_format(plot)
+    a = trends(workspace(), req)
+    if as_json:
+        print_json(a.model_dump(mode="json"))
+    else:
+        print_trends(a, wide=wide)
+    say = err if as_json else out
+    if plot is not None and fmt is not None:
+        plot.write_bytes(render_trends(a, fmt))
+        say.print(f"figure written to {plot}", highlight=False)
+    if csv_path is not None:
+        write_csv(csv_path, *trends_table(a))
         say.print(f"table written to {csv_path}", highlight=False)
