@@ -91,3 +91,39 @@ def test_over_time_tab(demo_workspace, artifacts: Path) -> None:
             assert errors == []
         finally:
             browser.close()
+
+
+def test_topics_tab_and_map(demo_workspace, artifacts: Path) -> None:
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        want = httpx.get(f"{base}/v1/topics", timeout=120)
+        assert want.status_code == 200, want.text
+        answer = want.json()
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 1000})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(base + "/#found")
+            expect(page.locator("#found-panel")).to_be_visible()
+            page.locator("#f-submit").focus()
+            page.keyboard.press("Enter")
+            rows = page.locator("#f-body tr")
+            expect(rows).to_have_count(len(answer["topics"]), timeout=120_000)
+            for i, t in enumerate(answer["topics"]):
+                expect(rows.nth(i).locator("th")).to_have_text(t["name"])
+                expect(rows.nth(i).locator("td").nth(0)).to_have_text(str(t["n"]))
+            points = page.locator("#f-map circle.f-point")
+            expect(points).to_have_count(answer["n_posts"], timeout=120_000)
+            expect(page.locator("#f-map text.f-centre")).to_have_count(len(answer["topics"]))
+            first = points.nth(0)
+            post = first.get_attribute("data-post")
+            first.hover(force=True)
+            texts = {pid: t for t in answer["topics"] for pid in t["post_ids"]}
+            expect(page.locator("#f-hover")).to_contain_text(texts[post]["name"])
+            expect(page.locator("#f-map-note")).to_contain_text("approximate")
+            page.screenshot(path=str(artifacts / "page-topics.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()

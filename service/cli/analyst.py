@@ -1,5 +1,6 @@
-"""The analyst's commands: how a metric is distributed over the posts (and,
-through ``segments --by month|week``, how it moves over time)."""
+"""The analyst's commands: how a metric is distributed over the posts, the
+topics the history holds and their map (and, through ``segments --by
+month|week``, how a metric moves over time)."""
 
 from __future__ import annotations
 
@@ -14,6 +15,8 @@ from models.segments import fmt_value
 
 from ..distribution import DistributionAnswer, csv_table, distribution, render
 from ..settled import parse_since
+from ..topics import TopicsAnswer, render_map, topic_map, topics
+from ..topics import csv_table as topics_table
 from ..trends import TrendAnswer, TrendRequest, trends
 from ..trends import csv_table as trends_table
 from ..trends import render as render_trends
@@ -129,4 +132,94 @@ def trends_cmd(req: TrendRequest, *, as_json: bool, plot: Path | None, csv_path:
         say.print(f"figure written to {plot}", highlight=False)
     if csv_path is not None:
         write_csv(csv_path, *trends_table(a))
+        say.print(f"table written to {csv_path}", highlight=False)
+
+
+def print_topics(a: TopicsAnswer, *, wide: bool = False) -> None:
+    m = a.metric
+    out.print(f"{a.n_posts:,} settled posts, {a.k} topics ({a.criterion})\n", highlight=False)
+    rows = [
+        [
+            t.name + (" (few posts)" if t.too_small else ""),
+            f"{t.n:,}",
+            f"{100 * t.share:.0f}%",
+            fmt_value(t.median, m),
+            f"{fmt_value(t.ci_low, m)}–{fmt_value(t.ci_high, m)}",
+            "-" if t.rank_biserial is None else f"{t.rank_biserial:+.2f}",
+        ]
+        for t in a.topics
+    ]
+    print_table(
+        out,
+        [Column(header="topic", free=True), Column(header="posts", right=True),
+         Column(header="share", right=True), Column(header="median", right=True),
+         Column(header="95% CI", right=True), Column(header="r", right=True)],
+        rows,
+        title=f"topics found in the history, {m}",
+        wide=wide,
+    )
+    for t in a.topics:
+        out.print(Text(f"  {t.name}: ", style="bold") + Text(t.summary))
+        for c in t.central:
+            out.print(Text(f"    [{fmt_value(c.value, m)}] {c.text[:100]}", style="dim"))
+    out.print(Text("\nEach name works as a phrase: sounding segments --topic 'NAME'.", style="dim"))
+    out.print(Text(a.note, style="dim"))
+
+
+@app.command("topics")
+def topics_cmd(
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help="impressions, engagements, likes, ..."),
+    account: str | None = typer.Option(None, "--account", help="Only this account's posts."),
+    since: str | None = typer.Option(None, "--since", help="Only posts from this date or time (ISO 8601)."),
+    plot: Path | None = typer.Option(None, "--plot", help="Write the map of the topics (.png or .svg)."),
+    csv_path: Path | None = typer.Option(None, "--csv", help="Write one row per post with its topic."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON (with each topic's post ids)."),
+    wide: bool = typer.Option(False, "--wide", help="Wrap topic names in full."),
+) -> None:
+    """The topics the history holds, found without phrases, with how each has done."""
+    fmt = _plot_format(plot)
+    ws = workspace()
+    a = topics(ws, metric=metric, account=account, since=parse_since(since))
+    if as_json:
+        print_json(a.model_dump(mode="json"))
+    else:
+        print_topics(a, wide=wide)
+    say = err if as_json else out
+    if plot is not None and fmt is not None:
+        plot.write_bytes(render_map(topic_map(ws, metric=metric, account=account, since=parse_since(since)), fmt))
+        say.print(f"figure written to {plot}", highlight=False)
+    if csv_path is not None:
+        write_csv(csv_path, *topics_table(a))
+        say.print(f"table written to {csv_path}", highlight=False)
+
+
+@app.command("map")
+def map_cmd(
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help="The metric that colours the posts."),
+    account: str | None = typer.Option(None, "--account", help="Only this account's posts."),
+    since: str | None = typer.Option(None, "--since", help="Only posts from this date or time (ISO 8601)."),
+    plot: Path | None = typer.Option(None, "--plot", help="Write the map (.png or .svg)."),
+    csv_path: Path | None = typer.Option(None, "--csv", help="Write each post's place on the map."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON (every post's place)."),
+) -> None:
+    """Where the posts lie in meaning: a 2-D projection coloured by the metric."""
+    fmt = _plot_format(plot)
+    m = topic_map(workspace(), metric=metric, account=account, since=parse_since(since))
+    if as_json:
+        print_json(m.model_dump(mode="json"))
+    else:
+        out.print(f"{len(m.points):,} posts; {m.projection}", highlight=False)
+        out.print(f"the two axes hold {100 * sum(m.explained):.0f}% of the vectors' variance", highlight=False)
+        for name, (x, y) in m.centres.items():
+            out.print(f"  {name}: centre at ({x:+.2f}, {y:+.2f})", highlight=False)
+        out.print(Text(m.note, style="dim"))
+        if plot is None:
+            out.print("add --plot map.png (or .svg) for the picture", highlight=False)
+    say = err if as_json else out
+    if plot is not None and fmt is not None:
+        plot.write_bytes(render_map(m, fmt))
+        say.print(f"figure written to {plot}", highlight=False)
+    if csv_path is not None:
+        rows = [[p.post_id, p.topic, f"{p.x:.3f}", f"{p.y:.3f}", f"{p.value:.0f}"] for p in m.points]
+        write_csv(csv_path, ["post id", "topic", "x", "y", metric], rows)
         say.print(f"table written to {csv_path}", highlight=False)
