@@ -40,7 +40,9 @@ def _figure(width: float, height: float) -> Any:
 
 def _bytes(fig: Any, fmt: str) -> bytes:
     buf = io.BytesIO()
-    fig.savefig(buf, format=check_format(fmt), bbox_inches="tight", metadata={"Date": None} if fmt == "svg" else None)
+    fig.savefig(
+        buf, format=check_format(fmt), bbox_inches="tight", metadata={"Date": None} if fmt == "svg" else None
+    )
     return buf.getvalue()
 
 

@@ -147,7 +147,8 @@ def power_law_alpha(tail: np.ndarray, xmin: float) -> float:
 
 
 def _power_law_logpdf(tail: np.ndarray, xmin: float, alpha: float) -> np.ndarray:
-    return np.log((alpha - 1.0) / xmin) - alpha * np.log(tail / xmin)
+    out: np.ndarray = np.log((alpha - 1.0) / xmin) - alpha * np.log(tail / xmin)
+    return out
 
 
 def _exponential_logpdf(tail: np.ndarray, xmin: float) -> tuple[np.ndarray, float]:
@@ -163,13 +164,14 @@ def _lognormal_logpdf(tail: np.ndarray, xmin: float, mu: float, sigma: float) ->
     z0 = (math.log(xmin) - mu) / sigma
     # log of the density over P(X >= xmin), the survival function in log form
     # so that a tail far past the mode keeps its precision.
-    return (
+    out: np.ndarray = (
         -logx
         - math.log(sigma)
         - 0.5 * math.log(2 * math.pi)
         - 0.5 * ((logx - mu) / sigma) ** 2
         - float(log_ndtr(-z0))
     )
+    return out
 
 
 def _fit_lognormal(tail: np.ndarray, xmin: float) -> tuple[float, float]:
@@ -202,7 +204,9 @@ def choose_xmin(values: np.ndarray, *, min_tail: int = MIN_TAIL) -> tuple[float,
     x = np.sort(values[values > 0])
     top = x.size - min_tail
     if top < 0:
-        raise InputError(f"only {x.size} positive values; a tail fit needs at least {min_tail}", field="metric")
+        raise InputError(
+            f"only {x.size} positive values; a tail fit needs at least {min_tail}", field="metric"
+        )
     cands = np.unique(np.quantile(x[: top + 1], np.linspace(0, 1, XMIN_CANDIDATES)))
     best_xmin, best_d = float(x[0]), math.inf
     for xmin in cands:
@@ -228,7 +232,9 @@ def fit_tail(values: npt.ArrayLike, *, xmin: float | None = None, min_tail: int 
         xmin, ks = choose_xmin(x, min_tail=min_tail)
     tail = np.sort(x[x >= xmin])
     if tail.size < min_tail:
-        raise InputError(f"only {tail.size} values at or above {xmin:g}; a fit needs {min_tail}", field="metric")
+        raise InputError(
+            f"only {tail.size} values at or above {xmin:g}; a fit needs {min_tail}", field="metric"
+        )
     alpha = power_law_alpha(tail, xmin)
     mu, sigma = _fit_lognormal(tail, xmin)
     exp_ll, rate = _exponential_logpdf(tail, xmin)
@@ -278,15 +284,27 @@ def reading(summary: Summary, fits: TailFits | None, metric: str) -> str:
         return head + " Too few posts to say which law the top follows."
     pl = next(c for c in fits.comparisons if c.first == "log-normal" and c.second == "power law")
     if fits.best == "log-normal":
-        tail = "The top posts follow a log-normal shape: big hits happen, but the very biggest are rarer than a power law would have."
+        tail = (
+            "The top posts follow a log-normal shape: big hits happen, but the very biggest "
+            "are rarer than a power law would have."
+        )
     elif fits.best == "power law":
-        tail = "The top posts follow a power law: there is no typical size for a hit, and a rare post can dwarf all the rest."
+        tail = (
+            "The top posts follow a power law: there is no typical size for a hit, and a rare "
+            "post can dwarf all the rest."
+        )
     elif fits.best == "exponential":
         tail = "The top posts fall off quickly (exponential): very large outliers are unlikely."
     elif not any(c.favoured for c in fits.comparisons):
-        tail = "Among the top posts, a log-normal, a power law and an exponential fit about equally well: too few big posts to tell them apart."
+        tail = (
+            "Among the top posts, a log-normal, a power law and an exponential fit about "
+            "equally well: too few big posts to tell them apart."
+        )
     elif pl.favoured is None:
-        tail = "The top posts fit a log-normal and a power law about equally well: the data cannot tell them apart."
+        tail = (
+            "The top posts fit a log-normal and a power law about equally well: the data "
+            "cannot tell them apart."
+        )
     else:
         tail = f"The top posts lean towards a {pl.favoured}, though not against every other law."
     return f"{head} {tail}"

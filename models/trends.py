@@ -59,8 +59,8 @@ def theil_sen(
     c = z * math.sqrt(max(var_s, 0.0))
     m = slopes.size
     # 1-based ranks M1 = (N - C) / 2 and M2 + 1 = (N + C) / 2 + 1, rounded.
-    lo = max(int(round((m - c) / 2.0)) - 1, 0)
-    hi = min(int(round((m + c) / 2.0)), m - 1)
+    lo = max(round((m - c) / 2.0) - 1, 0)
+    hi = min(round((m + c) / 2.0), m - 1)
     return slope, intercept, float(slopes[lo]), float(slopes[hi])
 
 
@@ -105,7 +105,9 @@ class Trend(BaseModel):
     reading: str
 
 
-def trend_of(rows: Sequence[PeriodRow], by: str, *, last: int = DEFAULT_LAST, confidence: float = DEFAULT_CONFIDENCE) -> Trend | None:
+def trend_of(
+    rows: Sequence[PeriodRow], by: str, *, last: int = DEFAULT_LAST, confidence: float = DEFAULT_CONFIDENCE
+) -> Trend | None:
     """The Theil–Sen trend of log(median) over the last ``last`` periods with
     posts and a positive median; None with fewer than three."""
     idx = [k for k, r in enumerate(rows) if r.n > 0 and r.median is not None and r.median > 0]
@@ -149,6 +151,8 @@ def period_rows(
     rows = []
     for k, label in enumerate(labels):
         v = values[period_index == k]
+        lo: float | None
+        hi: float | None
         if v.size:
             lo, hi = bootstrap_median_ci(v, confidence=confidence, n_resamples=n_resamples, seed=seed + k)
             med: float | None = float(np.median(v))

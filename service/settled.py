@@ -24,7 +24,9 @@ MIN_POSTS = 20
 
 class LeftOut(BaseModel):
     no_metric: int = Field(description="Posts without the metric")
-    still_gathering: int = Field(description="Posts whose metrics are not final yet (younger than the maturity window)")
+    still_gathering: int = Field(
+        description="Posts whose metrics are not final yet (younger than the maturity window)"
+    )
     before_since: int = Field(default=0, description="Posts before the requested start")
 
 
@@ -61,7 +63,11 @@ def settled_posts(
     has_metric = np.isfinite(values)
     cutoff = pd.Timestamp((now or now_utc()) - timedelta(hours=float(ws.settings.maturity_hours)))
     mature = (frame["posted_at"] <= cutoff).to_numpy()
-    recent = np.ones(len(frame), dtype=bool) if since is None else (frame["posted_at"] >= pd.Timestamp(since)).to_numpy()
+    recent = (
+        np.ones(len(frame), dtype=bool)
+        if since is None
+        else (frame["posted_at"] >= pd.Timestamp(since)).to_numpy()
+    )
     keep = has_metric & mature & recent
     left = LeftOut(
         no_metric=int((~has_metric).sum()),

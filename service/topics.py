@@ -142,7 +142,8 @@ def topics(
         n_posts=int(values.size),
         left_out=left_out,
         k=model.k_,
-        criterion=f"k-means on the text vectors; k from {lo} to {hi} chosen by the highest mean cosine silhouette",
+        criterion=f"k-means on the text vectors; k from {lo} to {hi} chosen by the highest "
+        "mean cosine silhouette",
         silhouettes=model.silhouettes_,
         topics=found,
         kruskal_h=report.kruskal_h,

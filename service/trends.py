@@ -17,7 +17,16 @@ from models.analyst_plots import plot_series
 from models.errors import InputError
 from models.metrics import DEFAULT_METRIC
 from models.segments import DEFAULT_MIN_N, OTHER, assign_nearest, check_min_n, check_threshold
-from models.trends import DEFAULT_LAST, PERIODS, PeriodRow, Trend, period_label, period_rows, period_starts, trend_of
+from models.trends import (
+    DEFAULT_LAST,
+    PERIODS,
+    PeriodRow,
+    Trend,
+    period_label,
+    period_rows,
+    period_starts,
+    trend_of,
+)
 
 from .answers import Instant
 from .datadir import DataDir
@@ -99,7 +108,9 @@ def trends(ws: DataDir, req: TrendRequest, *, now: datetime | None = None) -> Tr
     series = []
     for name, mask in groups:
         rows = period_rows(posts.values[mask], index[mask], totals, labels, min_n=req.min_n)
-        series.append(Series(name=name, n=int(mask.sum()), rows=rows, trend=trend_of(rows, req.by, last=req.last)))
+        series.append(
+            Series(name=name, n=int(mask.sum()), rows=rows, trend=trend_of(rows, req.by, last=req.last))
+        )
         few = sum(r.few_posts and r.n > 0 for r in rows[-req.last :])
         if few:
             warnings.append(
@@ -125,7 +136,7 @@ def trends(ws: DataDir, req: TrendRequest, *, now: datetime | None = None) -> Tr
 def render(a: TrendAnswer, fmt: str = "png") -> bytes:
     """Each series' median per period with its interval, on a log axis."""
     nan = float("nan")
-    data = {
+    data: dict[str, tuple[Sequence[float], Sequence[float], Sequence[float]]] = {
         s.name: (
             [nan if r.median is None else r.median for r in s.rows],
             [nan if r.ci_low is None else r.ci_low for r in s.rows],
@@ -153,8 +164,28 @@ def csv_table(a: TrendAnswer) -> tuple[list[str], list[list[str]]]:
                     "yes" if r.few_posts else "no",
                 ]
             )
-    headers = ["series", a.by, "posts", "share %", f"median {a.metric}", "interval low", "interval high", "few posts"]
+    headers = [
+        "series",
+        a.by,
+        "posts",
+        "share %",
+        f"median {a.metric}",
+        "interval low",
+        "interval high",
+        "few posts",
+    ]
     return headers, rows
 
 
-__all__ = ["NOTE", "WHOLE", "Series", "TrendAnswer", "TrendRequest", "csv_table", "render", "trends"]
+__all__ = [
+    "MAX_LAST",
+    "NOTE",
+    "PERIODS",
+    "WHOLE",
+    "Series",
+    "TrendAnswer",
+    "TrendRequest",
+    "csv_table",
+    "render",
+    "trends",
+]

@@ -9,11 +9,10 @@ import warnings
 
 import numpy as np
 import pytest
+from conftest import NOW
 
 from models.distribution import fit_tail, half_share, log_histogram, summarise
 from service.distribution import distribution
-
-from conftest import NOW
 
 
 def test_power_law_exponent_is_the_papers_mle() -> None:
@@ -71,7 +70,10 @@ def test_fits_agree_with_the_powerlaw_package() -> None:
             assert c.normalised_ratio == pytest.approx(nr, abs=1e-3)
             assert c.p_value == pytest.approx(p, abs=1e-3)
     # A log-normal sample: the log-normal wins against the exponential.
-    assert next(c for c in ours.comparisons if c.second == "exponential" and c.first == "log-normal").favoured == "log-normal"
+    assert (
+        next(c for c in ours.comparisons if c.second == "exponential" and c.first == "log-normal").favoured
+        == "log-normal"
+    )
 
 
 def test_summary_quantiles_and_half_share() -> None:

@@ -11,12 +11,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import NOW
 from sklearn.metrics import normalized_mutual_info_score
 
 from models.topic_clusters import class_tfidf
 from service.topics import topic_map, topics
-
-from conftest import NOW
 
 TRUTH = Path(__file__).resolve().parents[1] / "demo_data" / "truth.csv"
 

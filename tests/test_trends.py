@@ -8,12 +8,11 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import NOW
 from scipy.stats import theilslopes
 
 from models.trends import PeriodRow, period_label, period_starts, theil_sen, trend_of
 from service.trends import TrendRequest, trends
-
-from conftest import NOW
 
 
 @pytest.mark.parametrize("n", [4, 12, 30])

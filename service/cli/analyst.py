@@ -36,11 +36,22 @@ def print_distribution(a: DistributionAnswer) -> None:
     out.print(f"{a.n_posts:,} settled posts with {m}{who}\n", highlight=False)
     print_table(
         out,
-        [Column(header="median", right=True), Column(header="middle half", right=True),
-         Column(header="90th pct", right=True), Column(header="99th pct", right=True),
-         Column(header="half the total from", right=True)],
-        [[fmt_value(s.median, m), f"{fmt_value(s.q1, m)}–{fmt_value(s.q3, m)}", fmt_value(s.p90, m),
-          fmt_value(s.p99, m), f"top {100 * s.half_share:.0f}% of posts"]],
+        [
+            Column(header="median", right=True),
+            Column(header="middle half", right=True),
+            Column(header="90th pct", right=True),
+            Column(header="99th pct", right=True),
+            Column(header="half the total from", right=True),
+        ],
+        [
+            [
+                fmt_value(s.median, m),
+                f"{fmt_value(s.q1, m)}–{fmt_value(s.q3, m)}",
+                fmt_value(s.p90, m),
+                fmt_value(s.p99, m),
+                f"top {100 * s.half_share:.0f}% of posts",
+            ]
+        ],
         title=f"{m}: summary",
     )
     peak = max((b.count for b in a.histogram), default=1) or 1
@@ -50,7 +61,8 @@ def print_distribution(a: DistributionAnswer) -> None:
     if a.tail is not None:
         t = a.tail
         out.print(
-            f"\n  the top {100 * t.tail_share:.0f}% of posts ({t.n_tail}, from {fmt_value(t.xmin, m)} up) compared:",
+            f"\n  the top {100 * t.tail_share:.0f}% of posts ({t.n_tail}, from "
+            f"{fmt_value(t.xmin, m)} up) compared:",
             highlight=False,
         )
         for c in t.comparisons:
@@ -103,9 +115,13 @@ def print_trends(a: TrendAnswer, *, wide: bool = False) -> None:
         ]
         print_table(
             out,
-            [Column(header=a.by, free=True), Column(header="posts", right=True),
-             Column(header="share", right=True), Column(header="median", right=True),
-             Column(header="95% CI", right=True)],
+            [
+                Column(header=a.by, free=True),
+                Column(header="posts", right=True),
+                Column(header="share", right=True),
+                Column(header="median", right=True),
+                Column(header="95% CI", right=True),
+            ],
             rows,
             title=f"{s.name}: {m} by {a.by}",
             wide=wide,
@@ -118,7 +134,9 @@ def print_trends(a: TrendAnswer, *, wide: bool = False) -> None:
     out.print(Text(a.note, style="dim"))
 
 
-def trends_cmd(req: TrendRequest, *, as_json: bool, plot: Path | None, csv_path: Path | None, wide: bool) -> None:
+def trends_cmd(
+    req: TrendRequest, *, as_json: bool, plot: Path | None, csv_path: Path | None, wide: bool
+) -> None:
     """``segments --by month|week``: the table, the figure and the CSV of a trend."""
     fmt = _plot_format(plot)
     a = trends(workspace(), req)
@@ -151,9 +169,14 @@ def print_topics(a: TopicsAnswer, *, wide: bool = False) -> None:
     ]
     print_table(
         out,
-        [Column(header="topic", free=True), Column(header="posts", right=True),
-         Column(header="share", right=True), Column(header="median", right=True),
-         Column(header="95% CI", right=True), Column(header="r", right=True)],
+        [
+            Column(header="topic", free=True),
+            Column(header="posts", right=True),
+            Column(header="share", right=True),
+            Column(header="median", right=True),
+            Column(header="95% CI", right=True),
+            Column(header="r", right=True),
+        ],
         rows,
         title=f"topics found in the history, {m}",
         wide=wide,
@@ -186,7 +209,9 @@ def topics_cmd(
         print_topics(a, wide=wide)
     say = err if as_json else out
     if plot is not None and fmt is not None:
-        plot.write_bytes(render_map(topic_map(ws, metric=metric, account=account, since=parse_since(since)), fmt))
+        plot.write_bytes(
+            render_map(topic_map(ws, metric=metric, account=account, since=parse_since(since)), fmt)
+        )
         say.print(f"figure written to {plot}", highlight=False)
     if csv_path is not None:
         write_csv(csv_path, *topics_table(a))
@@ -209,7 +234,9 @@ def map_cmd(
         print_json(m.model_dump(mode="json"))
     else:
         out.print(f"{len(m.points):,} posts; {m.projection}", highlight=False)
-        out.print(f"the two axes hold {100 * sum(m.explained):.0f}% of the vectors' variance", highlight=False)
+        out.print(
+            f"the two axes hold {100 * sum(m.explained):.0f}% of the vectors' variance", highlight=False
+        )
         for name, (x, y) in m.centres.items():
             out.print(f"  {name}: centre at ({x:+.2f}, {y:+.2f})", highlight=False)
         out.print(Text(m.note, style="dim"))

@@ -190,7 +190,9 @@ def segments_cmd(
     examples: int = typer.Option(DEFAULT_EXAMPLES, "--examples", help="Example posts per topic."),
     plot: Path | None = typer.Option(None, "--plot", help="Write the figure (.png or .svg)."),
     csv_path: Path | None = typer.Option(None, "--csv", help="Write the table as CSV."),
-    last: int = typer.Option(12, "--last", help="With --by month or week: fit the trend over this many periods."),
+    last: int = typer.Option(
+        12, "--last", help="With --by month or week: fit the trend over this many periods."
+    ),
     since: str | None = typer.Option(
         None, "--since", help="With --by month or week: only posts from this date or time."
     ),
@@ -281,6 +283,17 @@ def segments_table(result: SegmentResult) -> tuple[list[str], list[list[str]]]:
         for seg in split.segments
     ]
     metric = result.metric
-    headers = ["split", "segment", "posts", f"median {metric}", "central half low", "central half high",
-               "interval low", "interval high", "effect r", "Holm p", "few posts"]
+    headers = [
+        "split",
+        "segment",
+        "posts",
+        f"median {metric}",
+        "central half low",
+        "central half high",
+        "interval low",
+        "interval high",
+        "effect r",
+        "Holm p",
+        "few posts",
+    ]
     return headers, rows
