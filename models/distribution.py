@@ -47,12 +47,12 @@ class Summary(BaseModel):
     n: int
     total: float
     median: float
-    q1: float = Field(description="25th percentile (the middle half starts here)")
-    q3: float = Field(description="75th percentile (the middle half ends here)")
+    q1: float = Field(description="25th percentile (the central half starts here)")
+    q3: float = Field(description="75th percentile (the central half ends here)")
     p90: float
     p99: float
     half_share: float = Field(
-        description="Smallest share of posts (the best first) whose values add up to half the total"
+        description="Smallest fraction of posts (the best first) whose values add up to half the total"
     )
 
 
@@ -94,7 +94,7 @@ class TailFits(BaseModel):
 
 
 def half_share(values: npt.ArrayLike) -> float:
-    """Smallest share of posts, taken from the top, holding half the total."""
+    """Smallest fraction of posts, taken from the top, holding half the total."""
     x = np.sort(np.asarray(values, dtype=np.float64))[::-1]
     total = float(x.sum())
     if x.size == 0 or total <= 0:

@@ -38,7 +38,7 @@ def print_distribution(a: DistributionAnswer) -> None:
         out,
         [
             Column(header="median", right=True),
-            Column(header="middle half", right=True),
+            Column(header="central half", right=True),
             Column(header="90th pct", right=True),
             Column(header="99th pct", right=True),
             Column(header="half the total from", right=True),

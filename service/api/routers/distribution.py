@@ -31,7 +31,7 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
         **ERRORS(404, 422, 503),
     },
     summary="How a metric is spread over the posts, and which law its top follows",
-    description="Median, middle half, 90th and 99th percentiles and the share of posts that "
+    description="Median, central half, 90th and 99th percentiles and the fraction of posts that "
     "make half the total; a histogram on a log axis; log-normal, power-law and exponential "
     "fits to the tail compared by likelihood ratio with Vuong's p-value (Clauset, Shalizi & "
     "Newman 2009). This team's own history: associations, not causes.",
