@@ -100,6 +100,32 @@ def plot_series(
     return _bytes(fig, fmt)
 
 
+def plot_intervals(
+    names: Sequence[str],
+    lows: Sequence[float],
+    highs: Sequence[float],
+    outcomes: Sequence[float],
+    *,
+    metric: str,
+    caption: str,
+    fmt: str = "png",
+) -> bytes:
+    """One row per post: its forecast interval as a bar and its outcome as a dot."""
+    fig = _figure(9.0, max(3.0, 0.4 * len(names) + 1.5))
+    ax = fig.add_subplot()
+    ys = np.arange(len(names))
+    lo, hi = np.asarray(lows, float), np.asarray(highs, float)
+    ax.barh(ys, hi - lo, left=lo, height=0.5, color=TEAL, alpha=0.35, label="forecast interval")
+    ax.scatter(np.asarray(outcomes, float), ys, color=AMBER, zorder=3, label="outcome")
+    ax.set_yticks(ys, list(names))
+    ax.set_xscale("log")
+    ax.invert_yaxis()
+    ax.set_xlabel(f"{metric} (log scale)")
+    ax.legend(frameon=False, fontsize=8)
+    ax.set_title("\n".join(textwrap.wrap(caption, 100)), fontsize=9, loc="left", color=INK)
+    return _bytes(fig, fmt)
+
+
 def plot_map(
     x: np.ndarray,
     y: np.ndarray,
@@ -123,4 +149,4 @@ def plot_map(
     return _bytes(fig, fmt)
 
 
-__all__ = ["FORMATS", "check_format", "plot_histogram", "plot_map", "plot_series"]
+__all__ = ["FORMATS", "check_format", "plot_histogram", "plot_intervals", "plot_map", "plot_series"]

@@ -194,6 +194,22 @@ def backtest(
     )
 
 
+def backtest_inputs(
+    ws: DataDir, metric: str, *, now: datetime
+) -> tuple[HistoryView, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """What the backtest fits on: the view, its training rows, and their
+    features (with the extra columns), targets and times."""
+    check_target(metric)
+    params = feature_params(ws.settings)
+    view = build_view(ws.store, metric, with_vectors=True)
+    X, y, times = training_set(view, params, now, **scale_options(ws.settings))
+    if len(y) < MIN_TRAINING_POSTS:
+        raise NotReady(f"{len(y)} mature posts with {metric}; this needs {MIN_TRAINING_POSTS}")
+    X, _ = _with_extra(view, params, now, X, ws.settings)
+    keep = training_rows(view, params, now, max_posts=ws.settings.train_max_posts)
+    return view, keep, X, y, times
+
+
 def _with_extra(
     view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray, settings: Settings
 ) -> tuple[np.ndarray, Any]:

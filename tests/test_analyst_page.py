@@ -127,3 +127,33 @@ def test_topics_tab_and_map(demo_workspace, artifacts: Path) -> None:
             assert errors == []
         finally:
             browser.close()
+
+
+def test_surprises_tab(demo_workspace, artifacts: Path) -> None:
+    from playwright.sync_api import expect, sync_playwright
+
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        want = httpx.get(f"{base}/v1/surprises", timeout=300)
+        assert want.status_code == 200, want.text
+        answer = want.json()
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 1000})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            page.goto(base + "/#surprises")
+            page.locator("#x-submit").focus()
+            page.keyboard.press("Enter")
+            items = page.locator(".x-item")
+            expect(items).to_have_count(len(answer["better"]) + len(answer["worse"]), timeout=300_000)
+            for i, s in enumerate([*answer["better"], *answer["worse"]]):
+                expect(items.nth(i)).to_have_attribute("data-post", s["post_id"])
+                expect(items.nth(i).locator(".x-figures")).to_contain_text(_shown(s["outcome"]))
+            expect(page.locator("#x-summary")).to_contain_text(
+                f"{answer['outside']} of {answer['n_forecast']}"
+            )
+            expect(page.locator("#x-note")).to_have_text(answer["note"])
+            page.screenshot(path=str(artifacts / "page-surprises.png"), full_page=True)
+            assert errors == []
+        finally:
+            browser.close()

@@ -4,6 +4,7 @@ month|week``, how a metric moves over time)."""
 
 from __future__ import annotations
 
+from datetime import datetime
 from pathlib import Path
 
 import typer
@@ -15,6 +16,9 @@ from models.segments import fmt_value
 
 from ..distribution import DistributionAnswer, csv_table, distribution, render
 from ..settled import parse_since
+from ..surprises import SurprisesAnswer, surprises
+from ..surprises import csv_table as surprises_table
+from ..surprises import render as render_surprises
 from ..topics import TopicsAnswer, render_map, topic_map, topics
 from ..topics import csv_table as topics_table
 from ..trends import TrendAnswer, TrendRequest, trends
@@ -249,4 +253,73 @@ def map_cmd(
     if csv_path is not None:
         rows = [[p.post_id, p.topic, f"{p.x:.3f}", f"{p.y:.3f}", f"{p.value:.0f}"] for p in m.points]
         write_csv(csv_path, ["post id", "topic", "x", "y", metric], rows)
+        say.print(f"table written to {csv_path}", highlight=False)
+
+
+def print_surprises(a: SurprisesAnswer) -> None:
+    m = a.metric
+    out.print(
+        f"{a.n_forecast:,} settled posts forecast out of sample, in time order; {a.outside:,} fell "
+        f"outside their {100 * a.coverage:.0f}% interval\n",
+        highlight=False,
+    )
+    for title, items in (
+        ("did far better than forecast", a.better),
+        ("did far worse than forecast", a.worse),
+    ):
+        rows = [
+            [
+                s.post_id,
+                s.posted_at.date().isoformat() if isinstance(s.posted_at, datetime) else str(s.posted_at),
+                fmt_value(s.outcome, m),
+                f"{fmt_value(s.low, m)}–{fmt_value(s.high, m)}",
+                f"×{s.factor:.2f}",
+                s.text,
+            ]
+            for s in items
+        ]
+        print_table(
+            out,
+            [
+                Column(header="post"),
+                Column(header="posted"),
+                Column(header=m, right=True),
+                Column(header="interval", right=True),
+                Column(header="beyond", right=True),
+                Column(header="text", free=True),
+            ],
+            rows,
+            title=title,
+        )
+        for s in items:
+            out.print(Text(f"  {s.post_id}: ", style="bold") + Text("; ".join(s.moved)))
+            for p in s.precedents:
+                out.print(
+                    Text(f"    {p.similarity:.2f} [{fmt_value(p.value, m)}] {p.text[:90]}", style="dim")
+                )
+        out.print()
+    out.print(Text(a.note, style="dim"))
+
+
+@app.command("surprises")
+def surprises_cmd(
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help="impressions, engagements, likes, ..."),
+    top: int = typer.Option(5, "--top", help="Posts shown each way (better, worse)."),
+    plot: Path | None = typer.Option(None, "--plot", help="Write outcome against interval (.png or .svg)."),
+    csv_path: Path | None = typer.Option(None, "--csv", help="Write the table as CSV."),
+    as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+) -> None:
+    """Settled posts that did far better or worse than their out-of-sample forecast."""
+    fmt = _plot_format(plot)
+    a = surprises(workspace(), metric=metric, top=top)
+    if as_json:
+        print_json(a.model_dump(mode="json"))
+    else:
+        print_surprises(a)
+    say = err if as_json else out
+    if plot is not None and fmt is not None:
+        plot.write_bytes(render_surprises(a, fmt))
+        say.print(f"figure written to {plot}", highlight=False)
+    if csv_path is not None:
+        write_csv(csv_path, *surprises_table(a))
         say.print(f"table written to {csv_path}", highlight=False)
