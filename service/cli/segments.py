@@ -161,8 +161,7 @@ def segments_cmd(
     by: str | None = typer.Option(
         None,
         "--by",
-        help=f"Split by {', '.join(BY_CHOICES)}; month or week for a trend over time; "
-        "label:NAME for an imported label.",
+        help=f"Split by {', '.join(BY_CHOICES)}; or month, week for a trend over time.",
     ),
     metric: str = typer.Option(
         DEFAULT_METRIC.value,
