@@ -33,6 +33,9 @@ NOTE = (
 
 class SurprisePrecedent(BaseModel):
     post_id: str
+    account: str
+    posted_at: Instant
+    days_before: float = Field(description="How long before the surprising post it went out")
     text: str
     similarity: float
     value: float
@@ -108,6 +111,9 @@ def surprises(
             precedents=[
                 SurprisePrecedent(
                     post_id=str(frame["post_id"].iat[int(p)]),
+                    account=str(frame["account"].iat[int(p)]),
+                    posted_at=datetime.fromtimestamp(float(hist.time[int(p)]), tz=UTC),
+                    days_before=round((t - float(hist.time[int(p)])) / 86400.0, 1),
                     text=str(frame["text"].iat[int(p)]),
                     similarity=float(s),
                     value=back(hist.log_target[int(p)]),
