@@ -91,6 +91,7 @@ PURPOSES: dict[str, list[str]] = {
     "Your history": ["account", "accounts", "import", "mapping", "reindex"],
     "Before you publish": ["precedents", "check", "hours", "compare"],
     "What worked, and how good the forecasts are": ["segments", "train", "backtest", "track-record"],
+    "The analyst's questions": ["distribution", "topics", "map", "surprises"],
     "Keeping things": ["forget", "backup", "copy-to", "serve", "demo", "model"],
 }
 
