@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import InputError
+from models.errors import InputError
 
 FORMATS = ("png", "svg")
 INK = "#2b3440"

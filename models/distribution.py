@@ -28,7 +28,7 @@ import numpy as np
 import numpy.typing as npt
 from pydantic import BaseModel, Field
 
-from .errors import InputError
+from models.errors import InputError
 
 #: The laws compared, by the names the answer uses.
 LAWS: tuple[str, ...] = ("log-normal", "power law", "exponential")

@@ -10,9 +10,9 @@ from typing import Any
 
 import numpy as np
 
-from .evaluation import rolling_origin_splits
-from .metrics import DEFAULT_COVERAGE
-from .stacking import StackedForecaster
+from models.evaluation import rolling_origin_splits
+from models.metrics import DEFAULT_COVERAGE
+from models.stacking import StackedForecaster
 
 
 @dataclass(slots=True)

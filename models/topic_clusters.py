@@ -18,7 +18,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from .errors import InputError, NotFittedError
+from models.errors import InputError, NotFittedError
 
 #: The range of cluster counts tried, and the most posts the silhouette is scored on.
 DEFAULT_K_RANGE: tuple[int, int] = (2, 10)

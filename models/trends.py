@@ -21,8 +21,8 @@ import numpy.typing as npt
 import pandas as pd
 from pydantic import BaseModel, Field
 
-from .errors import InputError
-from .segments import bootstrap_median_ci
+from models.errors import InputError
+from models.segments import bootstrap_median_ci
 
 PERIODS: tuple[str, ...] = ("month", "week")
 #: Periods the trend is fitted over by default.

@@ -12,10 +12,9 @@ from models.analyst_plots import plot_histogram
 from models.distribution import Bin, Summary, TailFits, fit_tail, log_histogram, reading, summarise
 from models.errors import InputError
 from models.metrics import DEFAULT_METRIC
-
-from .answers import Instant
-from .datadir import DataDir
-from .settled import LeftOut, settled_posts
+from service.answers import Instant
+from service.datadir import DataDir
+from service.settled import LeftOut, settled_posts
 
 NOTE = (
     "This describes this team's own history: which posts did well is an association "

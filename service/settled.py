@@ -14,9 +14,8 @@ from pydantic import BaseModel, Field
 
 from models.errors import InputError, NotReady, SoundingError
 from models.metrics import check_target, target_values
-
-from .datadir import DataDir
-from .timeparse import now_utc, parse_time
+from service.datadir import DataDir
+from service.timeparse import now_utc, parse_time
 
 #: Fewer settled posts than this, and no analysis is worth reading.
 MIN_POSTS = 20

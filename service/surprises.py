@@ -16,12 +16,11 @@ from models.explain import describe, group_contributions
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, from_log
 from models.stacking import ALL_FEATURES, ALL_GROUPS, STACK_PARAMS
 from models.surprises import beyond_interval, out_of_sample, pick
-
-from .answers import Instant
-from .datadir import DataDir
-from .forecasting import backtest_inputs
-from .history import feature_params
-from .timeparse import now_utc
+from service.answers import Instant
+from service.datadir import DataDir
+from service.forecasting import backtest_inputs
+from service.history import feature_params
+from service.timeparse import now_utc
 
 DEFAULT_TOP = 5
 PRECEDENTS = 3

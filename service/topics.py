@@ -18,10 +18,9 @@ from models.analyst_plots import plot_map
 from models.metrics import DEFAULT_METRIC
 from models.segments import DEFAULT_MIN_N, SegmentStats, compare_segments
 from models.topic_clusters import DEFAULT_K_RANGE, TopicClusterer, log_colour, unique_names
-
-from .answers import Instant
-from .datadir import DataDir
-from .settled import LeftOut, settled_posts
+from service.answers import Instant
+from service.datadir import DataDir
+from service.settled import LeftOut, settled_posts
 
 CENTRAL = 3
 NOTE = (

@@ -27,11 +27,10 @@ from models.trends import (
     period_starts,
     trend_of,
 )
-
-from .answers import Instant
-from .datadir import DataDir
-from .segmenting import DEFAULT_THRESHOLD, parse_topics, topic_vectors
-from .settled import LeftOut, settled_posts
+from service.answers import Instant
+from service.datadir import DataDir
+from service.segmenting import DEFAULT_THRESHOLD, parse_topics, topic_vectors
+from service.settled import LeftOut, settled_posts
 
 WHOLE = "all posts"
 NOTE = (

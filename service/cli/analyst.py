@@ -13,20 +13,19 @@ from rich.text import Text
 from models.analyst_plots import check_format
 from models.metrics import DEFAULT_METRIC
 from models.segments import fmt_value
-
-from ..distribution import DistributionAnswer, csv_table, distribution, render
-from ..settled import parse_since
-from ..surprises import SurprisesAnswer, surprises
-from ..surprises import csv_table as surprises_table
-from ..surprises import render as render_surprises
-from ..topics import TopicsAnswer, render_map, topic_map, topics
-from ..topics import csv_table as topics_table
-from ..trends import TrendAnswer, TrendRequest, trends
-from ..trends import csv_table as trends_table
-from ..trends import render as render_trends
-from .base import app, err, out, print_json, workspace
-from .render import Column, print_table
-from .tables import write_csv
+from service.cli.base import app, err, out, print_json, workspace
+from service.cli.render import Column, print_table
+from service.cli.tables import write_csv
+from service.distribution import DistributionAnswer, csv_table, distribution, render
+from service.settled import parse_since
+from service.surprises import SurprisesAnswer, surprises
+from service.surprises import csv_table as surprises_table
+from service.surprises import render as render_surprises
+from service.topics import TopicsAnswer, render_map, topic_map, topics
+from service.topics import csv_table as topics_table
+from service.trends import TrendAnswer, TrendRequest, trends
+from service.trends import csv_table as trends_table
+from service.trends import render as render_trends
 
 
 def _plot_format(plot: Path | None) -> str | None:

@@ -13,8 +13,11 @@ from models.errors import InputError
 from models.metrics import DEFAULT_METRIC
 from models.plots import FORMATS
 from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value
-
-from ..segmenting import (
+from service.cli.analyst import trends_cmd
+from service.cli.base import app, err, out, print_json, workspace
+from service.cli.render import Column, cut, interval_bar, print_table
+from service.cli.tables import whole, write_csv
+from service.segmenting import (
     BY_CHOICES,
     DEFAULT_EXAMPLES,
     DEFAULT_K,
@@ -28,12 +31,8 @@ from ..segmenting import (
     render,
     segment,
 )
-from ..settled import parse_since
-from ..trends import PERIODS, TrendRequest
-from .analyst import trends_cmd
-from .base import app, err, out, print_json, workspace
-from .render import Column, cut, interval_bar, print_table
-from .tables import whole, write_csv
+from service.settled import parse_since
+from service.trends import PERIODS, TrendRequest
 
 # Long (multi-phrase) topic names are shortened in tables only; the reading
 # lines and the JSON keep them whole.

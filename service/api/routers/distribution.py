@@ -8,11 +8,10 @@ from fastapi import APIRouter, Query
 from fastapi.responses import Response
 
 from models.metrics import DEFAULT_METRIC
-
-from ...distribution import DistributionAnswer, distribution, render
-from ...settled import parse_since
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.distribution import DistributionAnswer, distribution, render
+from service.settled import parse_since
 
 router = APIRouter(prefix="/v1", tags=["distribution"])
 

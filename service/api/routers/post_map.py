@@ -8,11 +8,10 @@ from fastapi import APIRouter, Query
 from fastapi.responses import Response
 
 from models.metrics import DEFAULT_METRIC
-
-from ...settled import parse_since
-from ...topics import MapAnswer, render_map, topic_map
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.settled import parse_since
+from service.topics import MapAnswer, render_map, topic_map
 
 router = APIRouter(prefix="/v1", tags=["map"])
 

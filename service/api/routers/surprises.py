@@ -8,10 +8,9 @@ from fastapi import APIRouter, Query
 from fastapi.responses import Response
 
 from models.metrics import DEFAULT_METRIC
-
-from ...surprises import DEFAULT_TOP, SurprisesAnswer, render, surprises
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.surprises import DEFAULT_TOP, SurprisesAnswer, render, surprises
 
 router = APIRouter(prefix="/v1", tags=["surprises"])
 

@@ -7,11 +7,10 @@ from typing import Annotated
 from fastapi import APIRouter, Query
 
 from models.metrics import DEFAULT_METRIC
-
-from ...settled import parse_since
-from ...topics import TopicsAnswer, topics
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.settled import parse_since
+from service.topics import TopicsAnswer, topics
 
 router = APIRouter(prefix="/v1", tags=["topics"])
 

@@ -11,12 +11,11 @@ from pydantic import BaseModel, Field
 from models.metrics import DEFAULT_METRIC
 from models.segments import DEFAULT_MIN_N
 from models.trends import DEFAULT_LAST
-
-from ...segmenting import DEFAULT_THRESHOLD, MAX_TOPICS
-from ...settled import parse_since
-from ...trends import MAX_LAST, TrendAnswer, TrendRequest, render, trends
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.segmenting import DEFAULT_THRESHOLD, MAX_TOPICS
+from service.settled import parse_since
+from service.trends import MAX_LAST, TrendAnswer, TrendRequest, render, trends
 
 router = APIRouter(prefix="/v1", tags=["trends"])
 
