@@ -15,15 +15,20 @@ from fastapi.staticfiles import StaticFiles
 from service import __version__
 from service.api import errors, guard, page
 from service.api.routers import (
+    distribution,
     forecasts,
     forget,
     health,
     hours,
     imports,
+    post_map,
     precedents,
     segments,
+    surprises,
+    topics,
     track_record,
     training,
+    trends,
     variants,
 )
 from service.forecast.answer import CAUTION
@@ -35,7 +40,23 @@ STATIC = Path(__file__).resolve().parent.parent / "static"
 
 # One router module per resource, in the order they appear in /docs. Imported
 # by name, so a missing module fails at import rather than dropping an endpoint.
-ROUTERS = (health, precedents, forecasts, hours, variants, segments, imports, training, forget, track_record)
+ROUTERS = (
+    health,
+    precedents,
+    forecasts,
+    hours,
+    variants,
+    segments,
+    distribution,
+    trends,
+    topics,
+    post_map,
+    surprises,
+    imports,
+    training,
+    forget,
+    track_record,
+)
 
 
 def create_app(

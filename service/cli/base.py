@@ -94,6 +94,7 @@ PURPOSES: dict[str, list[str]] = {
     "Your history": ["account", "accounts", "import", "mapping", "reindex"],
     "Before posting": ["precedents", "check", "hours", "compare"],
     "What worked, and how good the forecasts are": ["segments", "train", "backtest", "track-record"],
+    "The analyst's questions": ["distribution", "topics", "map", "surprises"],
     "Keeping things": ["forget", "backup", "restore", "copy-to", "serve", "demo", "model"],
 }
 

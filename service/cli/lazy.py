@@ -40,6 +40,7 @@ COMMAND_MODULES = (
     "forecast",
     "review",
     "segments",
+    "analyst",
     "admin",
     "restore",
     "model_export",

@@ -13,9 +13,13 @@ from models.errors import InputError
 from models.figure_style import FORMATS
 from models.metrics import DEFAULT_METRIC
 from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value, verdict_details
+from service.analysis.settled import parse_since
+from service.analysis.trends import PERIODS, TrendRequest
+from service.cli.analyst import trends_cmd
 from service.cli.base import app, err, out, print_json, workspace
 from service.cli.prose import say
 from service.cli.render import Column, cut, interval_bar, print_table
+from service.cli.tables import whole, write_csv
 from service.segments.answer import SegmentResult, Split
 from service.segments.figure import render
 from service.segments.request import (
@@ -161,7 +165,11 @@ def segments_cmd(
         help="A topic phrase such as 'flowers in bloom' (repeat for more). "
         "'a | b' is one topic with two phrases.",
     ),
-    by: str | None = typer.Option(None, "--by", help=f"Split by {', '.join(BY_CHOICES)}."),
+    by: str | None = typer.Option(
+        None,
+        "--by",
+        help=f"Split by {', '.join(BY_CHOICES)}; or month, week for a trend over time.",
+    ),
     metric: str = typer.Option(
         DEFAULT_METRIC.value,
         "--metric",
@@ -191,6 +199,13 @@ def segments_cmd(
     min_n: int = typer.Option(DEFAULT_MIN_N, "--min-posts", help="Flag segments with fewer posts."),
     examples: int = typer.Option(DEFAULT_EXAMPLES, "--examples", help="Example posts per topic."),
     plot: Path | None = typer.Option(None, "--plot", help="Write the figure (.png or .svg)."),
+    csv_path: Path | None = typer.Option(None, "--csv", help="Write the table as CSV."),
+    last: int = typer.Option(
+        12, "--last", help="With --by month or week: fit the trend over this many periods."
+    ),
+    since: str | None = typer.Option(
+        None, "--since", help="With --by month or week: only posts from this date or time."
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     wide: bool = typer.Option(
         False, "--wide", help="Wrap segment names in full instead of cutting them to the terminal's width."
@@ -199,7 +214,21 @@ def segments_cmd(
         False, "--details", help="Also show the statistics by name (rank-biserial r, Holm p, Kruskal–Wallis)."
     ),
 ) -> None:
-    """How a metric differs between topics (named by phrases), hours, forms or accounts."""
+    """How a metric differs between topics (named by phrases), hours, forms or accounts,
+    or (--by month, --by week) how it moves over time."""
+    if by in PERIODS:
+        trend_req = TrendRequest(
+            by=by,
+            topics=list(topic or []),
+            metric=metric,
+            account=account,
+            since=parse_since(since),
+            last=last,
+            min_n=min_n,
+            threshold=threshold,
+        )
+        trends_cmd(trend_req, as_json=as_json, plot=plot, csv_path=csv_path, wide=wide)
+        return
     fmt = None
     if plot is not None:
         fmt = plot.suffix.lower().lstrip(".")
@@ -242,3 +271,42 @@ def segments_cmd(
         for path, split_by in _plot_paths(plot, result):
             path.write_bytes(render(result, by=split_by, fmt=fmt))
             note_to.print(f"figure of the {split_by} split written to {path}", highlight=False)
+    if csv_path is not None:
+        write_csv(csv_path, *segments_table(result))
+        (err if as_json else out).print(f"table written to {csv_path}", highlight=False)
+
+
+def segments_table(result: SegmentResult) -> tuple[list[str], list[list[str]]]:
+    """Every split's segments as the screen shows them: whole numbers, plain headers."""
+    rows = [
+        [
+            split.by,
+            seg.name,
+            str(seg.n),
+            whole(seg.median),
+            whole(seg.q1),
+            whole(seg.q3),
+            whole(seg.ci_low),
+            whole(seg.ci_high),
+            "" if seg.rank_biserial is None else f"{seg.rank_biserial:+.2f}",
+            fmt_p(seg.p_holm),
+            "yes" if seg.too_small else "no",
+        ]
+        for split in result.splits
+        for seg in split.segments
+    ]
+    metric = result.metric
+    headers = [
+        "split",
+        "segment",
+        "posts",
+        f"median {metric}",
+        "middle half low",
+        "middle half high",
+        "interval low",
+        "interval high",
+        "effect (rank-biserial r)",
+        "p-value (Holm)",
+        "few posts",
+    ]
+    return headers, rows

@@ -12,6 +12,7 @@ from models.track_plots import FORMATS, track_record_figure
 from service.cli.base import app, out, print_json, workspace
 from service.cli.prose import plural, say
 from service.cli.render import Column, print_table, typical_miss
+from service.cli.tables import percent, write_csv
 from service.track.adaptation import reset_adaptation
 from service.track.answers import PeriodSummary, TrackRecord
 from service.track.report import parse_since, report
@@ -24,6 +25,43 @@ def _pct(v: float | None) -> str:
 def _miss(v: float | None) -> str:
     """A log error read plainly: off by this factor either way."""
     return "-" if v is None else typical_miss(abs(v))
+
+
+def track_table(rep: TrackRecord) -> tuple[list[str], list[list[str]]]:
+    """The periods' table as the screen shows it, percentages as whole numbers."""
+    rows = []
+    for name, s in [*((m.month, m) for m in rep.months), ("overall", rep.overall)]:
+        ci = s.live_coverage_ci
+        b = s.baselines
+        rows.append(
+            [
+                name,
+                str(s.given),
+                str(s.settled),
+                percent(s.stated_coverage),
+                percent(s.live_coverage),
+                "" if ci is None else percent(ci[0]),
+                "" if ci is None else percent(ci[1]),
+                "" if s.mae_log is None else _miss(s.mae_log),
+                "" if b.account_median.mae_log is None else _miss(b.account_median.mae_log),
+                "" if b.precedents_median.mae_log is None else _miss(b.precedents_median.mae_log),
+                str(s.matched),
+            ]
+        )
+    headers = [
+        "period",
+        "given",
+        "settled",
+        "stated coverage",
+        "live coverage",
+        "live coverage low",
+        "live coverage high",
+        "typical miss",
+        "account median miss",
+        "precedents median miss",
+        "matched",
+    ]
+    return headers, rows
 
 
 def print_report(rep: TrackRecord, *, details: bool = False) -> None:
@@ -129,6 +167,7 @@ def track_record_cmd(
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help="The forecast metric."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     plot: Path | None = typer.Option(None, "--plot", help="Also draw the record (.png or .svg)."),
+    csv_path: Path | None = typer.Option(None, "--csv", help="Write the table of periods as CSV."),
     reset: bool = typer.Option(
         False,
         "--reset-adaptation",
@@ -155,3 +194,5 @@ def track_record_cmd(
         print_report(rep, details=details)
         if plot is not None:
             out.print(f"plot written to {plot}")
+    if csv_path is not None:
+        write_csv(csv_path, *track_table(rep))

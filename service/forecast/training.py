@@ -133,14 +133,7 @@ def backtest(
     n_folds: int = 4,
     now: datetime | None = None,
 ) -> dict[str, Any]:
-    check_target(metric)
-    params = feature_params(ws.settings)
-    view = build_view(ws.store, metric, with_vectors=True)
-    now = now or now_utc()
-    X, y, times = training_set(view, params, now, **scale_options(ws.settings))
-    if len(y) < MIN_TRAINING_POSTS:
-        raise NotReady(f"{len(y)} mature posts with {metric}; a backtest needs {MIN_TRAINING_POSTS}")
-    X, _ = with_extra_columns(view, params, now, X, ws.settings)
+    _, _, X, y, times = backtest_inputs(ws, metric, now=now or now_utc())
     return run_backtest(
         X, y, times, feature_names=ALL_FEATURES, coverage_level=coverage, n_folds=n_folds, params=STACK_PARAMS
     )
@@ -153,3 +146,19 @@ def with_extra_columns(
     extra, text = extra_columns(view.history, maturity_s=params.maturity_s, now=now.timestamp())
     keep = training_rows(view, params, now, max_posts=settings.train_max_posts)
     return np.hstack([X, extra[keep]]), text
+
+
+def backtest_inputs(
+    ws: DataDir, metric: str, *, now: datetime
+) -> tuple[HistoryView, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """What the backtest fits on: the view, its training rows, and their
+    features (with the extra columns), targets and times."""
+    check_target(metric)
+    params = feature_params(ws.settings)
+    view = build_view(ws.store, metric, with_vectors=True)
+    X, y, times = training_set(view, params, now, **scale_options(ws.settings))
+    if len(y) < MIN_TRAINING_POSTS:
+        raise NotReady(f"{len(y)} mature posts with {metric}; a backtest needs {MIN_TRAINING_POSTS}")
+    X, _ = with_extra_columns(view, params, now, X, ws.settings)
+    keep = training_rows(view, params, now, max_posts=ws.settings.train_max_posts)
+    return view, keep, X, y, times

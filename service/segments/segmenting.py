@@ -169,7 +169,7 @@ def _by_split(posts: _Posts, by: str, req: SegmentRequest) -> tuple[Split, np.nd
     return split, labels, present
 
 
-def _topic_vectors(ws: DataDir, topics: list[Topic]) -> np.ndarray:
+def topic_vectors(ws: DataDir, topics: list[Topic]) -> np.ndarray:
     phrases = [p for t in topics for p in t.phrases]
     vecs = ws.embedder.encode(phrases)  # one call: every phrase embedded once
     out, i = [], 0
@@ -279,7 +279,7 @@ def _topic_split(
 ) -> tuple[Split, dict[str, np.ndarray]]:
     """The topic split and its members (name -> post rows), which may
     overlap in top-k mode."""
-    topic_vecs = _topic_vectors(ws, topics)
+    topic_vecs = topic_vectors(ws, topics)
     pks = posts.frame["pk"].to_numpy(dtype=np.int64)
     # Every post's similarity to every topic, scored by the retrieval component
     # (nearest mode needs all of them; both modes show examples from them).
