@@ -38,6 +38,7 @@ import numpy as np
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
+from models.backtest import run_backtest
 from models.embedding import Embedder
 from models.evaluation import coverage, mae, spearman
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
@@ -49,8 +50,10 @@ SOURCE = Path("/work/.library/env/packages/pypi.tsv")
 ACCOUNT = "packages"
 
 
-def canonical_csv(out: Path, *, rows: int, seed: int) -> int:
-    """Write the canonical CSV; returns the number of rows written."""
+def canonical_csv(out: Path, *, rows: int, seed: int, months: tuple[str, str] | None = None) -> int:
+    """Write the canonical CSV; returns the number of rows written. With
+    ``months`` (first, last as YYYY-MM), only releases of that range: a
+    second source built the same way from another subset of the list."""
     kept = []
     with SOURCE.open(encoding="utf-8", newline="") as f:
         for r in csv.DictReader(f, delimiter="\t", quoting=csv.QUOTE_NONE):
@@ -59,6 +62,8 @@ def canonical_csv(out: Path, *, rows: int, seed: int) -> int:
                 (r.get("summary") or "").strip(),
                 (r.get("month") or "").strip(),
             )
+            if months is not None and not months[0] <= month <= months[1]:
+                continue
             if rank and summary and len(month) == 7:
                 kept.append((r["name"], summary, month, int(float(rank))))
     rng = np.random.default_rng(seed)
@@ -78,16 +83,19 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--home", type=Path, default=None)
     ap.add_argument("--json", type=Path, default=None)
+    ap.add_argument("--months", default=None, help="FIRST:LAST release months (YYYY-MM:YYYY-MM)")
     args = ap.parse_args()
     home = args.home or Path(tempfile.mkdtemp(prefix="sounding-realtext-"))
     ws = Workspace(settings=Settings(home=home), embedder=Embedder())
     t0 = time.perf_counter()
     if ws.store.posts_frame().empty:
         path = home / "packages.csv"
-        n = canonical_csv(path, rows=args.rows, seed=args.seed)
+        months = tuple(args.months.split(":")) if args.months else None
+        n = canonical_csv(path, rows=args.rows, seed=args.seed, months=months)  # type: ignore[arg-type]
         ws.store.set_account(ACCOUNT, display_name="Package summaries", timezone="UTC")
         ws.import_csv(path)
         print(f"imported {n} rows in {time.perf_counter() - t0:.0f} s")
+    embed_s = time.perf_counter() - t0
     now = datetime(2027, 1, 1, tzinfo=UTC)
     params = FC.feature_params(ws.settings)
     view = FC.build_view(ws.store, "impressions", with_vectors=True)
@@ -118,6 +126,7 @@ def main() -> None:
     }
     cands = model.candidates(Xte)
     result = {
+        "source": {"months": args.months or "all", "seed": args.seed, "rows_asked": args.rows},
         "rows": len(y),
         "train": int(cut),
         "held_out": len(yte),
@@ -125,10 +134,18 @@ def main() -> None:
         "seconds_features_and_training": round(time.perf_counter() - t1, 1),
         "sounding": {
             "mae_log": mae(yte, med),
+            "mse_log": float(np.mean((yte - med) ** 2)),
             "spearman": spearman(yte, med),
             "coverage_80": coverage(yte, lo, hi),
         },
-        "simple": {k: {"mae_log": mae(yte, v), "spearman": spearman(yte, v)} for k, v in simple.items()},
+        "simple": {
+            k: {
+                "mae_log": mae(yte, v),
+                "mse_log": float(np.mean((yte - v) ** 2)),
+                "spearman": spearman(yte, v),
+            }
+            for k, v in simple.items()
+        },
         "candidates": {
             k: {"mae_log": mae(yte, v), "spearman": spearman(yte, v)}
             for k, v in cands.items()
@@ -136,12 +153,33 @@ def main() -> None:
         },
         "combination": model.summary(),
     }
-    print(f"{'forecaster':28s} {'MAE(log)':>9s} {'Spearman':>9s} {'cov80':>7s}")
-    s = result["sounding"]
-    print(f"{'sounding':28s} {s['mae_log']:9.3f} {s['spearman']:9.3f} {s['coverage_80']:7.1%}")
-    for k, v in result["simple"].items():
-        print(f"{k:28s} {v['mae_log']:9.3f} {v['spearman']:9.3f} {'-':>7s}")
-    print("weights:", result["combination"]["weights"], "timing:", result["combination"]["timing_weight"])
+    # The time-ordered backtest on the training part (what `sounding train`
+    # reports), beside the held-out block.
+    bt = run_backtest(
+        Xtr, ytr, times[:cut], feature_names=ALL_FEATURES, n_folds=3, params=STACK_PARAMS, timing_only=False
+    )
+    result["backtest"] = {
+        "n_folds": bt["n_folds"],
+        "model": bt["model"],
+        "baselines": bt["baselines"],
+        "fallback_folds": bt["fallback_folds"],
+        "folds": [
+            {"blend_kind": f["blend_kind"], "fallback_to": f["fallback_to"], "model": f["model"]}
+            for f in bt["folds"]
+        ],
+    }
+    for block, own, others in (
+        ("held out", result["sounding"], result["simple"]),
+        ("backtest", bt["model"], bt["baselines"]),
+    ):
+        print(f"{block:28s} {'MAE(log)':>9s} {'MSE(log)':>9s} {'Spearman':>9s}")
+        for k, v in {"sounding": own, **others}.items():
+            print(f"  {k:26s} {v['mae_log']:9.3f} {v['mse_log']:9.3f} {v['spearman']:9.3f}")
+    print(
+        f"coverage 80%: held out {result['sounding']['coverage_80']:.1%}, backtest {bt['model']['coverage']:.1%}"
+    )
+    c = result["combination"]
+    print("weights:", c["weights"], "timing:", c["timing_weight"], "kind:", c["blend_kind"], c["fallback_to"])
     if args.json:
         args.json.write_text(json.dumps(result, indent=2, default=float))
     ws.close()

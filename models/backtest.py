@@ -46,6 +46,9 @@ def _scores(
 ) -> dict[str, float | None]:
     out: dict[str, float | None] = {
         "mae_log": mae(y, med),
+        # Both losses: the blend is fitted for the absolute one, and the
+        # squared one shows what that choice costs a mean-minded reader.
+        "mse_log": float(np.mean((np.asarray(y, dtype=float) - np.asarray(med, dtype=float)) ** 2)),
         "spearman": spearman(y, med),
         "coverage": None,
         "mean_width_log": None,
@@ -141,6 +144,8 @@ def run_backtest(
             "model": _scores(y[te], med, lo, hi),
             "candidates": {c: _scores(y[te], cands[c]) for c in CANDIDATES},
             "weights": weights[-1],
+            "blend_kind": summary["blend_kind"],
+            "fallback_to": summary["fallback_to"],
             "boosted_rounds": summary["boosted_rounds"],
             "left_out_of_boosted": summary["left_out_of_boosted"],
         }
@@ -163,6 +168,8 @@ def run_backtest(
         "baselines": baselines,
         "candidates": candidates,
         "weights": mean_weights,
+        "blend_loss": "absolute",
+        "fallback_folds": sum(f["blend_kind"] == "fallback" for f in folds),
         "coverage_by_level": {
             f"{lvl:g}": float(np.concatenate(h).mean()) for lvl, h in sorted(level_hits.items())
         },

@@ -15,8 +15,10 @@ Rows arrive sorted by time and are cut into three blocks:
   (the trees learn what it leaves). With ``blend_timing`` it is also offered
   to the blend as an additive column with a non-negative weight (off by
   default: on the demo it only added noise to the weights).
-- Blend weights: non-negative, summing to one, least squares on the stack
-  block from models fitted on the fit block only (``models.blend``).
+- Blend weights: non-negative, summing to one, least absolute error on the
+  stack block from models fitted on the fit block only, with a time-ordered
+  fallback to one candidate when the blend loses to a simple forecaster
+  (``models.blend_lp``).
 - Bands: the boosted lower/upper quantiles re-centred on the blend, then
   CQR (Romano et al. 2019) on the calibration block, which nothing above
   has seen, so the stated coverage holds for the blend. The conformal
@@ -48,7 +50,8 @@ from numpy.typing import ArrayLike
 from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
 
 from . import features as F
-from .blend import simplex_weights
+from .band_shape import choose_shrink, shaped
+from .blend_lp import choose_weights
 from .calibration import cqr_scores
 from .errors import InputError, NotFittedError, NotFound, StoreError
 from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
@@ -309,8 +312,14 @@ class StackedForecaster:
         # 3. Blend weights on the stack block, from the fit block only.
         cands = {"boosted": boosted_stack, **{k: v[stack_idx] for k, v in lin_all.items()}}
         Fm = np.column_stack([cands[c] for c in CANDIDATES])
-        w, g = simplex_weights(Fm, yt[stack_idx], tau_stack[:, None] if self.blend_timing else None)
+        #    Absolute loss (the loss the median is scored on), checked in
+        #    time order against the simple forecasters (models.blend_lp).
+        choice = choose_weights(
+            Fm, yt[stack_idx], CANDIDATES, SIMPLE, tau_stack[:, None] if self.blend_timing else None
+        )
+        w, g = choice.weights, choice.effect_weights
         g = g if self.blend_timing else np.zeros(1)
+        self.blend_kind_, self.fallback_to_ = choice.kind, choice.fallback_to
         self.weights_ = {c: float(x) for c, x in zip(CANDIDATES, w, strict=True)}
         self.timing_weight_ = float(g[0])
         self.stack_scores_ = {c: float(np.mean(np.abs(yt[stack_idx] - cands[c]))) for c in CANDIDATES}
@@ -334,13 +343,22 @@ class StackedForecaster:
         self.means_ = {c: float(np.mean(v)) for c, v in lin_train.items()}
 
         # 5. CQR on the calibration block, around the blend.
-        _, lows, highs = self._raw(Xc)
         #    Scores stay in time order; their weights favour the latest rows.
-        self.cal_scores_ = tuple(cqr_scores(yc, lows[i], highs[i]) for i in sorted(lows))
         self.cal_weights_ = recency_weights(
             cal_times if cal_times is not None else np.arange(len(yc), dtype=float),
             half_life=self.recency_half_life,
         )
+        self.band_shape_ = {}
+        med_c, lows, highs = self._raw(Xc)
+        for i in sorted(lows):
+            alpha = 1.0 - float(self.levels_[i])
+
+            def quantile(sc: np.ndarray, a: float = alpha) -> float:
+                return weighted_conformal_quantile(sc, self.cal_weights_, alpha=a)
+
+            self.band_shape_[i] = choose_shrink(yc, med_c, lows[i] - med_c, highs[i] - med_c, quantile=quantile)
+        _, lows, highs = self._raw(Xc)
+        self.cal_scores_ = tuple(cqr_scores(yc, lows[i], highs[i]) for i in sorted(lows))
         self.n_train_, self.n_cal_ = int(n), int(Xc.shape[0])
         return self
 
@@ -380,9 +398,14 @@ class StackedForecaster:
         # The boosted quantiles' offsets from their own median, around the blend.
         raw_med = cands["boosted"] - cands["timing"]
         models = self.boosted_
+        shape = getattr(self, "band_shape_", {})
         for i in range(len(models.lower_models_)) if level is None else (level,):
-            lows[i] = med + _predict(models.lower_models_[i], Xb) - raw_med
-            highs[i] = med + _predict(models.upper_models_[i], Xb) - raw_med
+            off_lo = _predict(models.lower_models_[i], Xb) - raw_med
+            off_hi = _predict(models.upper_models_[i], Xb) - raw_med
+            if i in shape:  # the offsets' spread kept (models.band_shape)
+                lam, m_lo, m_hi = shape[i]
+                off_lo, off_hi = shaped(m_lo, off_lo, lam), shaped(m_hi, off_hi, lam)
+            lows[i], highs[i] = med + off_lo, med + off_hi
         return med, lows, highs
 
     def level_for(self, coverage: float) -> int:
@@ -484,6 +507,10 @@ class StackedForecaster:
             "left_out_of_boosted": list(self.dropped_),
             "time_carries_nothing": getattr(self, "time_carries_nothing_", None),
             "stack_block_mae_log": {c: round(v, 4) for c, v in self.stack_scores_.items()},
+            "blend_loss": "absolute",
+            "band_shrink": {f"{self.levels_[i]:g}": round(v[0], 2) for i, v in self.band_shape_.items()},
+            "blend_kind": getattr(self, "blend_kind_", "blend"),
+            "fallback_to": getattr(self, "fallback_to_", None),
         }
 
     # -- persistence -------------------------------------------------------
@@ -504,11 +531,14 @@ class StackedForecaster:
             "weights": self.weights_,
             "timing_weight": self.timing_weight_,
             "stack_scores": self.stack_scores_,
+            "blend_kind": getattr(self, "blend_kind_", "blend"),
+            "fallback_to": getattr(self, "fallback_to_", None),
             "history_median": self.history_median_,
             "means": self.means_,
             "timing": self.timing_.to_config(),
             "scores": [[float(x) for x in sc] for sc in self.cal_scores_],
             "score_weights": [float(x) for x in self.cal_weights_],
+            "band_shape": {str(i): list(v) for i, v in self.band_shape_.items()},
             "n_train": self.n_train_,
             "n_cal": self.n_cal_,
         }
@@ -541,12 +571,15 @@ class StackedForecaster:
             m.weights_ = {k: float(v) for k, v in cfg["weights"].items()}
             m.timing_weight_ = float(cfg["timing_weight"])
             m.stack_scores_ = dict(cfg["stack_scores"])
+            m.blend_kind_, m.fallback_to_ = cfg.get("blend_kind", "blend"), cfg.get("fallback_to")
             m.history_median_ = float(cfg["history_median"])
             m.means_ = {k: float(v) for k, v in cfg["means"].items()}
             m.timing_ = TimingEffect.from_config(cfg["timing"])
             m.levels_ = m.boosted_.levels_
             m.cal_scores_ = tuple(np.asarray(sc, dtype=float) for sc in cfg["scores"])
             m.cal_weights_ = np.asarray(cfg["score_weights"], dtype=float)
+            # Older models kept the trees' band as it was (no entry).
+            m.band_shape_ = {int(i): tuple(float(x) for x in v) for i, v in cfg.get("band_shape", {}).items()}
             m.n_train_, m.n_cal_ = int(cfg["n_train"]), int(cfg["n_cal"])
         except StoreError:
             raise

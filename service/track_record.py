@@ -42,6 +42,7 @@ from sqlalchemy import Integer, cast, delete, func, select
 from statsmodels.stats.proportion import proportion_confint
 
 from models import features as F
+from models.aci_warmup import reason, served_shift
 from models.adaptive import aci_step, adaptive_quantile
 from models.artefact import TrainedModel, versions
 from models.errors import InputError, NotReady, SoundingError
@@ -207,7 +208,7 @@ def give(
         scored = _scored(ws.store, metric, coverage)
         warnings = staleness(ws, metric, coverage, model=model, now=now)["warnings"]
         for f in found:
-            _adapt_band(f, model, coverage, scored.state)
+            _adapt_band(f, model, coverage, scored.state, min_real=ws.settings.adaptive_min_scored)
             f.live_coverage = scored.live.model_copy()
             f.warnings.extend(warnings)
         if record and found:
@@ -220,20 +221,39 @@ def _scores(model: TrainedModel, coverage: float) -> np.ndarray:
     return model.quantiles.calibration_scores(coverage)
 
 
-def _adapt_band(f: Forecast, model: TrainedModel, coverage: float, state: CalibrationState | None) -> None:
-    """Widen or narrow the CQR band by the ACI level alpha_t (same median)."""
+def _adapt_band(
+    f: Forecast, model: TrainedModel, coverage: float, state: CalibrationState | None, *, min_real: int
+) -> None:
+    """Widen or narrow the CQR band by the ACI level alpha_t (same median);
+    never wider before ``min_real`` real outcomes (models.aci_warmup)."""
     alpha = 1.0 - coverage
     alpha_t = alpha if state is None else state.alpha_t
-    info = Calibration(method="cqr", level=level_key(coverage), alpha=alpha, alpha_t=alpha_t)
+    info = Calibration(
+        method="cqr",
+        level=level_key(coverage),
+        alpha=alpha,
+        alpha_t=alpha_t,
+        reason=reason(alpha=alpha, alpha_t=alpha_t, real=0, pseudo=0, min_real=min_real, held=False),
+    )
     if state is not None and (state.real_updates or state.pseudo_updates):
         shift, capped = _shift(_scores(model, coverage), alpha, alpha_t)
+        shift, held = served_shift(shift, real_outcomes=state.real_updates, min_real=min_real)
         info = info.model_copy(
             update={
                 "method": "cqr+aci",
                 "outcomes": state.real_updates,
                 "pseudo_outcomes": state.pseudo_updates,
                 "gamma": state.gamma,
-                "capped": capped,
+                "capped": capped and not held,
+                "widening_held": held,
+                "reason": reason(
+                    alpha=alpha,
+                    alpha_t=alpha_t,
+                    real=state.real_updates,
+                    pseudo=state.pseudo_updates,
+                    min_real=min_real,
+                    held=held,
+                ),
             }
         )
         lo, med, hi = f.log
@@ -742,8 +762,12 @@ def _adapt_level(
     sorted_scores = _scores(model, coverage)
     updates = 0
     for y, (lo, hi) in zip(ys, bands, strict=True):
-        shift, _ = _shift(sorted_scores, alpha, alpha_t)
-        alpha_t = aci_step(alpha_t, alpha=alpha, gamma=g, miss=not lo - shift <= y <= hi + shift)
+        # Scored against the band as it would have been served (pseudo-
+        # outcomes only run before enough real ones, so never wider).
+        shift, _ = served_shift(_shift(sorted_scores, alpha, alpha_t)[0], real_outcomes=0, min_real=1)
+        # Floored at the stated level: pseudo-outcomes may narrow the band
+        # but never build up a widening that real outcomes did not ask for.
+        alpha_t = max(alpha, aci_step(alpha_t, alpha=alpha, gamma=g, miss=not lo - shift <= y <= hi + shift))
         updates += 1
     with ws.store.session() as s:
         state = s.get(CalibrationState, (metric, key))
@@ -778,8 +802,10 @@ def _pseudo_outcomes(
     if rows.empty:
         return None
     drafts = [
-        Draft(text=t, account=a, planned_at=p.to_pydatetime())
-        for t, a, p in zip(rows["text"], rows["account"], rows["posted_at"], strict=True)
+        # The post's own media flag: left out, posts with media were forecast
+        # as text only and missed more often than the calibration said.
+        Draft(text=t, account=a, planned_at=p.to_pydatetime(), has_media=bool(m))
+        for t, a, p, m in zip(rows["text"], rows["account"], rows["posted_at"], rows["has_media"], strict=True)
     ]
     vecs = ws.store.vectors(list(rows["vector_key"]))
     try:

@@ -66,6 +66,7 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
         Column(header="forecaster", free=True),
         Column(header="typical miss", right=True),
         Column(header="MAE (log)", right=True),
+        Column(header="MSE (log)", right=True),
         Column(header="Spearman", right=True),
         Column(header="coverage", right=True),
         Column(header="weight", right=True),
@@ -88,6 +89,7 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
                 name,
                 typical_miss(s["mae_log"]),
                 f"{s['mae_log']:.3f}",
+                "-" if s.get("mse_log") is None else f"{s['mse_log']:.3f}",
                 f"{s['spearman']:.3f}",
                 "-" if s["coverage"] is None else f"{s['coverage']:.1%}",
                 f"{weights[key]:.2f}" if key in weights else "-",
@@ -113,6 +115,12 @@ def print_backtest(bt: dict[str, Any], metric: str) -> None:
         "(exp of the mean absolute error of log1p values, MAE (log)).",
         highlight=False,
     )
+    if bt.get("fallback_folds"):
+        out.print(
+            f"in {bt['fallback_folds']} of {bt['n_folds']} folds the combination lost to a simple "
+            "forecaster on its own earlier posts, so that fold served the better one alone",
+            highlight=False,
+        )
     if weights.get("timing"):
         out.print(f"the timing effect is added with weight {weights['timing']:.2f}", highlight=False)
     levels = bt.get("coverage_by_level", {})
@@ -139,7 +147,7 @@ def backtest_cmd(
         out.print(f"report written to {json_file}")
 
 
-def print_forecast(f: Forecast, *, wide: bool = False) -> None:
+def print_forecast(f: Forecast, *, wide: bool = False, details: bool = False) -> None:
     bt = "not backtested" if f.backtested_coverage is None else f"{f.backtested_coverage:.0%} in backtests"
     out.print(
         f"[bold]{f.metric}[/bold] for {f.account} at {f.local_time}: "
@@ -191,6 +199,16 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
             else "no forecast scored yet"
         )
         out.print(f"calibration: {f.calibration.method}; live coverage: {held}")
+        if details:
+            c = f.calibration
+            out.print(
+                f"adaptive level (alpha_t) {c.alpha_t:.3f} at stated {c.alpha:.3f} miss rate; "
+                f"{c.outcomes} scored forecasts, {c.pseudo_outcomes} pseudo-outcomes"
+                + ("; widening held back" if c.widening_held else ""),
+                highlight=False,
+            )
+            if c.reason:
+                out.print(f"why: {c.reason}", highlight=False)
     out.print(f"[dim]{CAUTION}[/dim]")
 
 
@@ -220,6 +238,9 @@ def check_cmd(
     wide: bool = typer.Option(
         False, "--wide", help="Wrap post texts in full instead of cutting them to the terminal's width."
     ),
+    details: bool = typer.Option(
+        False, "--details", help="Also show the adaptive calibration's level and why it moved."
+    ),
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
@@ -248,7 +269,7 @@ def check_cmd(
     if as_json:
         print_json(f.model_dump(mode="json"))
     else:
-        print_forecast(f, wide=wide)
+        print_forecast(f, wide=wide, details=details)
 
 
 def demo_forecast(ws: Workspace, draft: str) -> None:
