@@ -88,6 +88,7 @@ def main() -> None:
     home = args.home or Path(tempfile.mkdtemp(prefix="sounding-realtext-"))
     ws = Workspace(settings=Settings(home=home), embedder=Embedder())
     t0 = time.perf_counter()
+    embed_s: float | None = None
     if ws.store.posts_frame().empty:
         path = home / "packages.csv"
         months = tuple(args.months.split(":")) if args.months else None
@@ -101,7 +102,7 @@ def main() -> None:
     view = FC.build_view(ws.store, "impressions", with_vectors=True)
     t1 = time.perf_counter()
     X, y, times = FC.training_set(view, params, now)
-    X, _ = FC._with_extra(view, params, now, X)
+    X, _ = FC._with_extra(view, params, now, X, ws.settings)
     order = np.argsort(times, kind="stable")
     X, y, times = X[order], y[order], times[order]
     # Hold out the latest 15% in time. Posts of one month share one time and
@@ -131,6 +132,7 @@ def main() -> None:
         "train": int(cut),
         "held_out": len(yte),
         "held_out_share": round(len(yte) / len(y), 3),
+        "seconds_import_and_embedding": None if embed_s is None else round(embed_s, 1),
         "seconds_features_and_training": round(time.perf_counter() - t1, 1),
         "sounding": {
             "mae_log": mae(yte, med),

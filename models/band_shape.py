@@ -53,4 +53,3 @@ def choose_shrink(
         if np.isfinite(width) and (best is None or width < best[1] - 1e-12):
             best = (lam, width)
     return (1.0 if best is None else best[0]), m_lo, m_hi
-

@@ -98,11 +98,15 @@ def choose_weights(
     names: Sequence[str],
     simple: Sequence[str],
     effects: ArrayLike | None = None,
+    *,
+    references: ArrayLike | None = None,
 ) -> BlendChoice:
     """Absolute-loss weights on all rows, kept when the time-ordered check
     (fit on the earlier half, score on the later half) finds the blend no
     worse than the best simple forecaster on both MAE and Spearman; else a
-    single candidate. Rows in time order."""
+    single candidate. Rows in time order. ``references`` (rows x len(simple))
+    are the simple forecasters to beat when the candidates named ``simple``
+    are adjusted versions of them (default: those candidate columns)."""
     F = np.asarray(forecasts, dtype=np.float64)
     t = np.asarray(y, dtype=np.float64)
     E = None if effects is None else np.asarray(effects, dtype=np.float64).reshape(len(t), -1)
@@ -117,8 +121,13 @@ def choose_weights(
     check = {"blend": {"mae_log": float(np.mean(np.abs(tb - blend_b))), "spearman": _spear(tb, blend_b)}}
     for j, nm in enumerate(names):
         check[nm] = {"mae_log": float(np.mean(np.abs(tb - F[half:, j]))), "spearman": _spear(tb, F[half:, j])}
-    best_mae = min(check[s]["mae_log"] for s in simple)
-    best_rank = max(check[s]["spearman"] for s in simple)
+    if references is None:
+        bar = [check[s] for s in simple]
+    else:
+        R = np.asarray(references, dtype=np.float64).reshape(len(t), -1)[half:]
+        bar = [{"mae_log": float(np.mean(np.abs(tb - r))), "spearman": _spear(tb, r)} for r in R.T]
+    best_mae = min(b["mae_log"] for b in bar)
+    best_rank = max(b["spearman"] for b in bar)
 
     def no_worse(key: str) -> bool:
         return check[key]["mae_log"] <= best_mae + TOL and check[key]["spearman"] >= best_rank - TOL

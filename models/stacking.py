@@ -311,11 +311,23 @@ class StackedForecaster:
 
         # 3. Blend weights on the stack block, from the fit block only.
         cands = {"boosted": boosted_stack, **{k: v[stack_idx] for k, v in lin_all.items()}}
-        Fm = np.column_stack([cands[c] for c in CANDIDATES])
+        #    Every candidate carries the timing effect (the boosted one has it
+        #    already): blending with candidates that lack it shrank the served
+        #    hour curve by the boosted weight (0.66-0.79x the true range on a
+        #    generator with a known curve; our measurement).
+        self.timing_in_all_ = not self.time_carries_nothing_
+        adj = self._with_timing(cands, tau_stack)
+        Fm = np.column_stack([adj[c] for c in CANDIDATES])
+        refs = np.column_stack([cands[c] for c in SIMPLE])
         #    Absolute loss (the loss the median is scored on), checked in
         #    time order against the simple forecasters (models.blend_lp).
         choice = choose_weights(
-            Fm, yt[stack_idx], CANDIDATES, SIMPLE, tau_stack[:, None] if self.blend_timing else None
+            Fm,
+            yt[stack_idx],
+            CANDIDATES,
+            SIMPLE,
+            tau_stack[:, None] if self.blend_timing else None,
+            references=refs,
         )
         w, g = choice.weights, choice.effect_weights
         g = g if self.blend_timing else np.zeros(1)
@@ -353,10 +365,16 @@ class StackedForecaster:
         for i in sorted(lows):
             alpha = 1.0 - float(self.levels_[i])
 
-            def quantile(sc: np.ndarray, a: float = alpha) -> float:
-                return weighted_conformal_quantile(sc, self.cal_weights_, alpha=a)
+            # The shape is chosen on the earlier half of the block only, so
+            # the later half's scores did not pick it (less selection effect).
+            h = len(yc) // 2
 
-            self.band_shape_[i] = choose_shrink(yc, med_c, lows[i] - med_c, highs[i] - med_c, quantile=quantile)
+            def quantile(sc: np.ndarray, a: float = alpha, h: int = h) -> float:
+                return weighted_conformal_quantile(sc, self.cal_weights_[:h], alpha=a)
+
+            self.band_shape_[i] = choose_shrink(
+                yc[:h], med_c[:h], lows[i][:h] - med_c[:h], highs[i][:h] - med_c[:h], quantile=quantile
+            )
         _, lows, highs = self._raw(Xc)
         self.cal_scores_ = tuple(cqr_scores(yc, lows[i], highs[i]) for i in sorted(lows))
         self.n_train_, self.n_cal_ = int(n), int(Xc.shape[0])
@@ -382,9 +400,24 @@ class StackedForecaster:
         out["timing"] = tau
         return out
 
+    def _with_timing(self, cands: dict[str, np.ndarray], tau: np.ndarray) -> dict[str, np.ndarray]:
+        """The candidates as blended: the linear ones plus the timing effect
+        when every candidate carries it (``timing_in_all_``)."""
+        if not getattr(self, "timing_in_all_", False):
+            return cands
+        return {c: (v if c == "boosted" else v + tau) for c, v in cands.items() if c in CANDIDATES}
+
+    @property
+    def timing_scale_(self) -> float:
+        """How much of the timing effect the served median carries."""
+        carried = 1.0 if getattr(self, "timing_in_all_", False) else self.weights_["boosted"]
+        return float(self.timing_weight_ + carried)
+
     def _blend(self, cands: dict[str, np.ndarray]) -> np.ndarray:
         med = sum(self.weights_[c] * cands[c] for c in CANDIDATES)
-        return np.asarray(med + self.timing_weight_ * cands["timing"], dtype=float)
+        return np.asarray(
+            med + (self.timing_scale_ - self.weights_["boosted"]) * cands["timing"], dtype=float
+        )
 
     def _raw(
         self, X: np.ndarray, *, level: int | None = None
@@ -482,7 +515,7 @@ class StackedForecaster:
             expected = expected + wc * self.means_[cand]
         expected = expected + self.weights_["history_median"] * self.history_median_
         tau = self.timing_.predict(*self._clock(Xp))
-        out[:, self._index["hour_sin"]] += (self.timing_weight_ + wb) * tau
+        out[:, self._index["hour_sin"]] += self.timing_scale_ * tau
         out[:, -1] = expected
         return out
 
@@ -492,7 +525,7 @@ class StackedForecaster:
         self._check_fitted()
         Xp = _matrix("X", X, self.n_features_in_)
         clock = self._clock(Xp)
-        scale = self.timing_weight_ + self.weights_["boosted"]
+        scale = self.timing_scale_
         return scale * self.timing_.predict(*clock), scale * self.timing_.draws(*clock)
 
     def summary(self) -> dict[str, Any]:
@@ -501,6 +534,8 @@ class StackedForecaster:
         return {
             "weights": {c: round(w, 4) for c, w in self.weights_.items()},
             "timing_weight": round(self.timing_weight_, 4),
+            "timing_in_every_candidate": bool(getattr(self, "timing_in_all_", False)),
+            "timing_scale": round(self.timing_scale_, 4),
             "timing_penalty": self.timing_.alpha_,
             "boosted_rounds": self.n_estimators_,
             "boosted_columns": list(self.boosted_columns_),
@@ -530,6 +565,7 @@ class StackedForecaster:
             "n_estimators": self.n_estimators_,
             "weights": self.weights_,
             "timing_weight": self.timing_weight_,
+            "timing_in_all": bool(getattr(self, "timing_in_all_", False)),
             "stack_scores": self.stack_scores_,
             "blend_kind": getattr(self, "blend_kind_", "blend"),
             "fallback_to": getattr(self, "fallback_to_", None),
@@ -570,6 +606,7 @@ class StackedForecaster:
             m.n_estimators_ = int(cfg["n_estimators"])
             m.weights_ = {k: float(v) for k, v in cfg["weights"].items()}
             m.timing_weight_ = float(cfg["timing_weight"])
+            m.timing_in_all_ = bool(cfg.get("timing_in_all", False))  # older models: boosted only
             m.stack_scores_ = dict(cfg["stack_scores"])
             m.blend_kind_, m.fallback_to_ = cfg.get("blend_kind", "blend"), cfg.get("fallback_to")
             m.history_median_ = float(cfg["history_median"])
@@ -629,7 +666,7 @@ def best_hour_confidence(
         np.asarray(weekdays, dtype=float),
         np.full(n, float(account)),
     )
-    scale = model.timing_weight_ + model.weights_["boosted"]
+    scale = model.timing_scale_
     effect = scale * model.timing_.predict(*clock)
     draws = model.timing_.draws(*clock)
     if draws.shape[0] == 0:

@@ -805,7 +805,9 @@ def _pseudo_outcomes(
         # The post's own media flag: left out, posts with media were forecast
         # as text only and missed more often than the calibration said.
         Draft(text=t, account=a, planned_at=p.to_pydatetime(), has_media=bool(m))
-        for t, a, p, m in zip(rows["text"], rows["account"], rows["posted_at"], rows["has_media"], strict=True)
+        for t, a, p, m in zip(
+            rows["text"], rows["account"], rows["posted_at"], rows["has_media"], strict=True
+        )
     ]
     vecs = ws.store.vectors(list(rows["vector_key"]))
     try:

@@ -13,7 +13,7 @@ from models.stacking import ALL_FEATURES, StackedForecaster
 
 SIGMA = 0.5
 SMALL = {"max_estimators": 80, "early_stopping_rounds": 10, "num_leaves": 7, "min_child_samples": 20}
-N_FIT, N_CAL, N_PSEUDO, N_LATER = 1600, 500, 300, 600
+N_FIT, N_CAL, N_PSEUDO, N_LATER = 1600, 1000, 300, 600
 
 
 def _generator(rng: np.random.Generator, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
