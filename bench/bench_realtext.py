@@ -178,7 +178,8 @@ def main() -> None:
         for k, v in {"sounding": own, **others}.items():
             print(f"  {k:26s} {v['mae_log']:9.3f} {v['mse_log']:9.3f} {v['spearman']:9.3f}")
     print(
-        f"coverage 80%: held out {result['sounding']['coverage_80']:.1%}, backtest {bt['model']['coverage']:.1%}"
+        f"coverage 80%: held out {result['sounding']['coverage_80']:.1%}, "
+        f"backtest {bt['model']['coverage']:.1%}"
     )
     c = result["combination"]
     print("weights:", c["weights"], "timing:", c["timing_weight"], "kind:", c["blend_kind"], c["fallback_to"])

@@ -7,8 +7,8 @@ import numpy as np
 import pytest
 from scipy.stats import norm
 
-from models.adaptive import aci_step, adaptive_quantile
 from models.aci_warmup import reason, served_shift
+from models.adaptive import aci_step, adaptive_quantile
 from models.stacking import ALL_FEATURES, StackedForecaster
 
 SIGMA = 0.5
