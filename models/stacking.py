@@ -360,7 +360,7 @@ class StackedForecaster:
             cal_times if cal_times is not None else np.arange(len(yc), dtype=float),
             half_life=self.recency_half_life,
         )
-        self.band_shape_ = {}
+        self.band_shape_: dict[int, tuple[float, float, float]] = {}
         med_c, lows, highs = self._raw(Xc)
         for i in sorted(lows):
             alpha = 1.0 - float(self.levels_[i])
@@ -616,7 +616,9 @@ class StackedForecaster:
             m.cal_scores_ = tuple(np.asarray(sc, dtype=float) for sc in cfg["scores"])
             m.cal_weights_ = np.asarray(cfg["score_weights"], dtype=float)
             # Older models kept the trees' band as it was (no entry).
-            m.band_shape_ = {int(i): tuple(float(x) for x in v) for i, v in cfg.get("band_shape", {}).items()}
+            m.band_shape_ = {
+                int(i): (float(v[0]), float(v[1]), float(v[2])) for i, v in cfg.get("band_shape", {}).items()
+            }
             m.n_train_, m.n_cal_ = int(cfg["n_train"]), int(cfg["n_cal"])
         except StoreError:
             raise
