@@ -201,9 +201,10 @@ def print_forecast(f: Forecast, *, wide: bool = False, details: bool = False) ->
         out.print(f"calibration: {f.calibration.method}; live coverage: {held}")
         if details:
             c = f.calibration
+            # Short lines: each stays whole in an 80-column terminal.
+            out.print(f"adaptive level (alpha_t) {c.alpha_t:.3f}, stated {c.alpha:.3f}", highlight=False)
             out.print(
-                f"adaptive level (alpha_t) {c.alpha_t:.3f} at stated {c.alpha:.3f} miss rate; "
-                f"{c.outcomes} scored forecasts, {c.pseudo_outcomes} pseudo-outcomes"
+                f"seen: {c.outcomes} scored forecasts, {c.pseudo_outcomes} pseudo-outcomes"
                 + ("; widening held back" if c.widening_held else ""),
                 highlight=False,
             )
