@@ -89,6 +89,7 @@ class BlendChoice:
     effect_weights: np.ndarray
     kind: str
     fallback_to: str | None = None
+    raw: bool = False
     check: dict[str, dict[str, float]] = field(default_factory=dict)
 
 
@@ -122,21 +123,30 @@ def choose_weights(
     for j, nm in enumerate(names):
         check[nm] = {"mae_log": float(np.mean(np.abs(tb - F[half:, j]))), "spearman": _spear(tb, F[half:, j])}
     if references is None:
-        bar = [check[s] for s in simple]
+        bar = {s: check[s] for s in simple}
     else:
         R = np.asarray(references, dtype=np.float64).reshape(len(t), -1)[half:]
-        bar = [{"mae_log": float(np.mean(np.abs(tb - r))), "spearman": _spear(tb, r)} for r in R.T]
-    best_mae = min(b["mae_log"] for b in bar)
-    best_rank = max(b["spearman"] for b in bar)
+        bar = {
+            s: {"mae_log": float(np.mean(np.abs(tb - r))), "spearman": _spear(tb, r)}
+            for s, r in zip(simple, R.T, strict=True)
+        }
+    # The better simple forecaster: the least absolute error; the blend must
+    # match it on both absolute error and rank correlation.
+    ref = min(bar, key=lambda s: bar[s]["mae_log"])
+    check["reference"] = {**bar[ref]}
 
     def no_worse(key: str) -> bool:
-        return check[key]["mae_log"] <= best_mae + TOL and check[key]["spearman"] >= best_rank - TOL
+        return (
+            check[key]["mae_log"] <= bar[ref]["mae_log"] + TOL
+            and check[key]["spearman"] >= bar[ref]["spearman"] - TOL
+        )
 
     if no_worse("blend"):
         return BlendChoice(w, g, "blend", check=check)
     fine = [nm for nm in names if no_worse(nm)]
-    pool = fine or names
-    pick = min(pool, key=lambda nm: check[nm]["mae_log"])
+    # Nothing else holds up: the better simple forecaster itself (``raw``:
+    # as it is, without adjustments the candidates carry).
+    pick = min(fine, key=lambda nm: check[nm]["mae_log"]) if fine else ref
     one = np.zeros(len(names))
     one[names.index(pick)] = 1.0
-    return BlendChoice(one, np.zeros_like(g), "fallback", fallback_to=pick, check=check)
+    return BlendChoice(one, np.zeros_like(g), "fallback", fallback_to=pick, check=check, raw=not fine)

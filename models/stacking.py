@@ -332,6 +332,8 @@ class StackedForecaster:
         w, g = choice.weights, choice.effect_weights
         g = g if self.blend_timing else np.zeros(1)
         self.blend_kind_, self.fallback_to_ = choice.kind, choice.fallback_to
+        if choice.raw:  # the simple forecaster as it is, without the timing effect
+            self.timing_in_all_ = False
         self.weights_ = {c: float(x) for c, x in zip(CANDIDATES, w, strict=True)}
         self.timing_weight_ = float(g[0])
         self.stack_scores_ = {c: float(np.mean(np.abs(yt[stack_idx] - cands[c]))) for c in CANDIDATES}
