@@ -147,6 +147,7 @@ class StackedForecaster:
         timing_bootstrap: int = 100,
         random_state: int = 0,
         num_threads: int = 1,
+        force_candidate: str | None = None,
     ) -> None:
         self.levels = levels
         self.max_estimators = max_estimators
@@ -161,6 +162,7 @@ class StackedForecaster:
         self.timing_bootstrap = timing_bootstrap
         self.random_state = random_state
         self.num_threads = num_threads
+        self.force_candidate = force_candidate
 
     def get_params(self) -> dict[str, Any]:
         return {
@@ -177,6 +179,7 @@ class StackedForecaster:
             "timing_bootstrap": int(self.timing_bootstrap),
             "random_state": int(self.random_state),
             "num_threads": int(self.num_threads),
+            "force_candidate": self.force_candidate,
         }
 
     def _quantile_params(self, n_estimators: int) -> dict[str, Any]:
@@ -334,6 +337,14 @@ class StackedForecaster:
         self.blend_kind_, self.fallback_to_ = choice.kind, choice.fallback_to
         if choice.raw:  # the simple forecaster as it is, without the timing effect
             self.timing_in_all_ = False
+        if self.force_candidate is not None:
+            # The time-ordered backtest found the blend losing to this simple
+            # forecaster on earlier posts: serve it alone, as it is.
+            if self.force_candidate not in CANDIDATES:
+                raise InputError(f"unknown candidate {self.force_candidate!r}", field="force_candidate")
+            w, g = np.array([float(c == self.force_candidate) for c in CANDIDATES]), np.zeros(1)
+            self.timing_in_all_ = False
+            self.blend_kind_, self.fallback_to_ = "fallback", self.force_candidate
         self.weights_ = {c: float(x) for c, x in zip(CANDIDATES, w, strict=True)}
         self.timing_weight_ = float(g[0])
         self.stack_scores_ = {c: float(np.mean(np.abs(yt[stack_idx] - cands[c]))) for c in CANDIDATES}
