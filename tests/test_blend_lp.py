@@ -92,3 +92,24 @@ def test_the_blend_is_kept_when_it_is_no_worse() -> None:
     b = y + rng.normal(scale=0.6, size=n)
     choice = choose_weights(np.column_stack([a, b]), y, ["boosted", "account_median"], ["account_median"])
     assert choice.kind == "blend" and 0.2 < choice.weights[0] < 0.8
+
+
+def test_backtest_folds_fall_back_after_a_fold_the_blend_lost() -> None:
+    from models.backtest import fallback_after
+
+    y = np.array([1.0, 2.0, 3.0, 4.0, 5.0, 6.0])
+    close = y + np.array([0.1, -0.1, 0.1, -0.1, 0.1, -0.1])  # MAE 0.1, same ranks as y
+    far = y[::-1].copy()  # ranks reversed
+    pooled = {
+        "y": [y],
+        "med": [far],
+        "account_median": [np.full(6, 3.5)],
+        "precedents_median": [close],
+        "history_median": [np.full(6, 3.0)],
+    }
+    # By hand: the precedents' median has the least absolute error (0.1), and
+    # the served forecast is worse than it on both measures.
+    assert fallback_after(pooled) == "precedents_median"
+    pooled["med"] = [y.copy()]  # exact: no worse on either measure
+    assert fallback_after(pooled) is None
+    assert fallback_after({k: [] for k in pooled}) is None
