@@ -23,7 +23,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from .calibration import cqr_scores
+from models.calibration import cqr_scores
 
 SHRINK_GRID: tuple[float, ...] = (0.0, 0.25, 0.5, 0.75, 1.0)
 

@@ -27,8 +27,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .errors import InputError
-from .evaluation import spearman
+from models.errors import InputError
+from models.evaluation import spearman
 
 #: Rows fed to the linear program at most (evenly spaced in time order): the
 #: optimum of a few weights is settled long before this, and HiGHS time
