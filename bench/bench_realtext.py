@@ -38,6 +38,7 @@ import numpy as np
 os.environ.setdefault("HF_HUB_OFFLINE", "1")
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
+from models.backtest import run_backtest
 from models.embedding import Embedder
 from models.evaluation import coverage, mae, spearman
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
@@ -50,8 +51,10 @@ SOURCE = Path("/work/.library/env/packages/pypi.tsv")
 ACCOUNT = "packages"
 
 
-def canonical_csv(out: Path, *, rows: int, seed: int) -> int:
-    """Write the canonical CSV; returns the number of rows written."""
+def canonical_csv(out: Path, *, rows: int, seed: int, months: tuple[str, str] | None = None) -> int:
+    """Write the canonical CSV; returns the number of rows written. With
+    ``months`` (first, last as YYYY-MM), only releases of that range: a
+    second source built the same way from another subset of the list."""
     kept = []
     with SOURCE.open(encoding="utf-8", newline="") as f:
         for r in csv.DictReader(f, delimiter="\t", quoting=csv.QUOTE_NONE):
@@ -60,6 +63,8 @@ def canonical_csv(out: Path, *, rows: int, seed: int) -> int:
                 (r.get("summary") or "").strip(),
                 (r.get("month") or "").strip(),
             )
+            if months is not None and not months[0] <= month <= months[1]:
+                continue
             if rank and summary and len(month) == 7:
                 kept.append((r["name"], summary, month, int(float(rank))))
     rng = np.random.default_rng(seed)
@@ -79,16 +84,20 @@ def main() -> None:
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--home", type=Path, default=None)
     ap.add_argument("--json", type=Path, default=None)
+    ap.add_argument("--months", default=None, help="FIRST:LAST release months (YYYY-MM:YYYY-MM)")
     args = ap.parse_args()
     home = args.home or Path(tempfile.mkdtemp(prefix="sounding-realtext-"))
     ws = Workspace(settings=Settings(home=home), embedder=Embedder())
     t0 = time.perf_counter()
+    embed_s: float | None = None
     if ws.store.posts_frame().empty:
         path = home / "packages.csv"
-        n = canonical_csv(path, rows=args.rows, seed=args.seed)
+        months = tuple(args.months.split(":")) if args.months else None
+        n = canonical_csv(path, rows=args.rows, seed=args.seed, months=months)  # type: ignore[arg-type]
         ws.store.set_account(ACCOUNT, display_name="Package summaries", timezone="UTC")
         ws.import_csv(path)
         print(f"imported {n} rows in {time.perf_counter() - t0:.0f} s")
+    embed_s = time.perf_counter() - t0
     now = datetime(2027, 1, 1, tzinfo=UTC)
     params = feature_params(ws.settings)
     view = build_view(ws.store, "impressions", with_vectors=True)
@@ -104,7 +113,12 @@ def main() -> None:
     Xtr, ytr, Xte, yte = X[:cut], y[:cut], X[cut:], y[cut:]
     cal = round(cut * 0.8)
     cal = int(np.searchsorted(times, times[cal], side="left"))
-    model = StackedForecaster(**STACK_PARAMS).fit(
+    # As `sounding train` does: the time-ordered backtest first, and the
+    # better simple forecaster alone when the blend lost to it there.
+    bt = run_backtest(
+        Xtr, ytr, times[:cut], feature_names=ALL_FEATURES, n_folds=3, params=STACK_PARAMS, timing_only=False
+    )
+    model = StackedForecaster(**{**STACK_PARAMS, "force_candidate": bt["serve_fallback"]}).fit(
         Xtr[:cal], ytr[:cal], Xtr[cal:], ytr[cal:], feature_names=ALL_FEATURES, cal_times=times[cal:cut]
     )
     lo, med, hi = model.predict(Xte, coverage=0.8)
@@ -119,17 +133,27 @@ def main() -> None:
     }
     cands = model.candidates(Xte)
     result = {
+        "source": {"months": args.months or "all", "seed": args.seed, "rows_asked": args.rows},
         "rows": len(y),
         "train": int(cut),
         "held_out": len(yte),
         "held_out_share": round(len(yte) / len(y), 3),
+        "seconds_import_and_embedding": None if embed_s is None else round(embed_s, 1),
         "seconds_features_and_training": round(time.perf_counter() - t1, 1),
         "sounding": {
             "mae_log": mae(yte, med),
+            "mse_log": float(np.mean((yte - med) ** 2)),
             "spearman": spearman(yte, med),
             "coverage_80": coverage(yte, lo, hi),
         },
-        "simple": {k: {"mae_log": mae(yte, v), "spearman": spearman(yte, v)} for k, v in simple.items()},
+        "simple": {
+            k: {
+                "mae_log": mae(yte, v),
+                "mse_log": float(np.mean((yte - v) ** 2)),
+                "spearman": spearman(yte, v),
+            }
+            for k, v in simple.items()
+        },
         "candidates": {
             k: {"mae_log": mae(yte, v), "spearman": spearman(yte, v)}
             for k, v in cands.items()
@@ -137,12 +161,32 @@ def main() -> None:
         },
         "combination": model.summary(),
     }
-    print(f"{'forecaster':28s} {'MAE(log)':>9s} {'Spearman':>9s} {'cov80':>7s}")
-    s = result["sounding"]
-    print(f"{'sounding':28s} {s['mae_log']:9.3f} {s['spearman']:9.3f} {s['coverage_80']:7.1%}")
-    for k, v in result["simple"].items():
-        print(f"{k:28s} {v['mae_log']:9.3f} {v['spearman']:9.3f} {'-':>7s}")
-    print("weights:", result["combination"]["weights"], "timing:", result["combination"]["timing_weight"])
+    # The time-ordered backtest on the training part (what `sounding train`
+    # reports), beside the held-out block.
+    result["backtest"] = {
+        "n_folds": bt["n_folds"],
+        "model": bt["model"],
+        "baselines": bt["baselines"],
+        "fallback_folds": bt["fallback_folds"],
+        "serve_fallback": bt["serve_fallback"],
+        "folds": [
+            {"blend_kind": f["blend_kind"], "fallback_to": f["fallback_to"], "model": f["model"]}
+            for f in bt["folds"]
+        ],
+    }
+    for block, own, others in (
+        ("held out", result["sounding"], result["simple"]),
+        ("backtest", bt["model"], bt["baselines"]),
+    ):
+        print(f"{block:28s} {'MAE(log)':>9s} {'MSE(log)':>9s} {'Spearman':>9s}")
+        for k, v in {"sounding": own, **others}.items():
+            print(f"  {k:26s} {v['mae_log']:9.3f} {v['mse_log']:9.3f} {v['spearman']:9.3f}")
+    print(
+        f"coverage 80%: held out {result['sounding']['coverage_80']:.1%}, "
+        f"backtest {bt['model']['coverage']:.1%}"
+    )
+    c = result["combination"]
+    print("weights:", c["weights"], "timing:", c["timing_weight"], "kind:", c["blend_kind"], c["fallback_to"])
     if args.json:
         args.json.write_text(json.dumps(result, indent=2, default=float))
     ws.close()

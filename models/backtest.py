@@ -46,6 +46,9 @@ def _scores(
 ) -> dict[str, float | None]:
     out: dict[str, float | None] = {
         "mae_log": mae(y, med),
+        # Both losses: the blend is fitted for the absolute one, and the
+        # squared one shows what that choice costs a mean-minded reader.
+        "mse_log": float(np.mean((np.asarray(y, dtype=float) - np.asarray(med, dtype=float)) ** 2)),
         "spearman": spearman(y, med),
         "coverage": None,
         "mean_width_log": None,
@@ -96,8 +99,11 @@ def run_backtest(
     folds, weights = [], []
     splits, n_folds = _splits(times, n_folds)
     for i, (tr, ca, te) in enumerate(splits):
+        # In time order: when the served forecast lost to the better simple
+        # forecaster on the earlier folds, this fold serves that one alone.
+        fold_back = fallback_after(pooled) if i else None
         # Bootstrap refits of the timing effect only serve the hours answer.
-        model = StackedForecaster(**{**params, "timing_bootstrap": 0}).fit(
+        model = StackedForecaster(**{**params, "timing_bootstrap": 0, "force_candidate": fold_back}).fit(
             X[tr], y[tr], X[ca], y[ca], feature_names=names, cal_times=times[ca]
         )
         lo, med, hi = model.predict(X[te], coverage=coverage_level)
@@ -141,6 +147,9 @@ def run_backtest(
             "model": _scores(y[te], med, lo, hi),
             "candidates": {c: _scores(y[te], cands[c]) for c in CANDIDATES},
             "weights": weights[-1],
+            "blend_kind": summary["blend_kind"],
+            "fallback_to": summary["fallback_to"],
+            "fold_fallback": fold_back,
             "boosted_rounds": summary["boosted_rounds"],
             "left_out_of_boosted": summary["left_out_of_boosted"],
         }
@@ -163,6 +172,11 @@ def run_backtest(
         "baselines": baselines,
         "candidates": candidates,
         "weights": mean_weights,
+        "blend_loss": "absolute",
+        "fallback_folds": sum(f["blend_kind"] == "fallback" for f in folds),
+        # What training serves: the better simple forecaster alone when the
+        # pooled folds found the served forecast losing to it, else None.
+        "serve_fallback": fallback_after(pooled),
         "coverage_by_level": {
             f"{lvl:g}": float(np.concatenate(h).mean()) for lvl, h in sorted(level_hits.items())
         },
@@ -173,6 +187,26 @@ def run_backtest(
     }
     report["note"] = signal_note(report)
     return report
+
+
+def fallback_after(pooled: dict[str, list[np.ndarray]]) -> str | None:
+    """The better simple forecaster (least absolute error over the folds so
+    far) when the served forecast was worse than it on absolute error or
+    rank correlation there; None while the served forecast holds up."""
+    if not pooled["y"]:
+        return None
+    y, med = np.concatenate(pooled["y"]), np.concatenate(pooled["med"])
+    simple = {c: np.concatenate(pooled[c]) for c in SIMPLE}
+    ref = min(simple, key=lambda c: mae(y, simple[c]))
+
+    def rank(f: np.ndarray) -> float:
+        r = spearman(y, f)
+        return -1.0 if np.isnan(r) else r
+
+    tol = 1e-9
+    if mae(y, med) > mae(y, simple[ref]) + tol or rank(med) < rank(simple[ref]) - tol:
+        return ref
+    return None
 
 
 #: Below this share of the variance left by the account median, the text is

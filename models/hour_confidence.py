@@ -31,7 +31,7 @@ def best_hour_confidence(
         np.asarray(weekdays, dtype=float),
         np.full(n, float(account)),
     )
-    scale = model.timing_weight_ + model.weights_["boosted"]
+    scale = model.timing_scale_
     effect = scale * model.timing_.predict(*clock)
     draws = model.timing_.draws(*clock)
     if draws.shape[0] == 0:

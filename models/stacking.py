@@ -15,8 +15,10 @@ Rows arrive sorted by time and are cut into three blocks:
   (the trees learn what it leaves). With ``blend_timing`` it is also offered
   to the blend as an additive column with a non-negative weight (off by
   default: on the demo it only added noise to the weights).
-- Blend weights: non-negative, summing to one, least squares on the stack
-  block from models fitted on the fit block only (``models.blend``).
+- Blend weights: non-negative, summing to one, least absolute error on the
+  stack block from models fitted on the fit block only, with a time-ordered
+  fallback to one candidate when the blend loses to a simple forecaster
+  (``models.blend_lp``).
 - Bands: the boosted lower/upper quantiles re-centred on the blend, then
   CQR (Romano et al. 2019) on the calibration block, which nothing above
   has seen, so the stated coverage holds for the blend. The conformal
@@ -40,7 +42,7 @@ import math
 import os
 from collections.abc import Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Self
+from typing import Any, Self
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -48,8 +50,9 @@ from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
 
 from models import features as F
 from models.arrays import as_matrix, as_target
+from models.band_shape import choose_shrink, shaped
 from models.bands import check_is_fitted, nearest_level, ordered_band, predict_booster
-from models.blend import simplex_weights
+from models.blend_lp import choose_weights
 from models.calibration import cqr_scores, recency_weights, weighted_conformal_quantile
 from models.configfile import write_config
 from models.constraints import Interval, ParamsMixin
@@ -58,10 +61,6 @@ from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS
 from models.regressor import QuantileForecaster
 from models.stack_columns import duplicate_columns
 from models.timing import TimingEffect, hour_from_cyclic
-
-if TYPE_CHECKING:
-    # Loaded for training only: saved boosters are served by models.booster_loading.
-    pass
 
 #: The share of the training block the stacking weights are fitted on.
 STACK_FRACTION = Interval(float, 0.05, 0.5)
@@ -117,6 +116,7 @@ class StackedForecaster(ParamsMixin):
         timing_bootstrap: int = 100,
         random_state: int = 0,
         num_threads: int = 1,
+        force_candidate: str | None = None,
     ) -> None:
         self.levels = levels
         self.max_estimators = max_estimators
@@ -131,6 +131,7 @@ class StackedForecaster(ParamsMixin):
         self.timing_bootstrap = timing_bootstrap
         self.random_state = random_state
         self.num_threads = num_threads
+        self.force_candidate = force_candidate
 
     def _quantile_params(self, n_estimators: int) -> dict[str, Any]:
         return {
@@ -265,9 +266,37 @@ class StackedForecaster(ParamsMixin):
 
         # 3. Blend weights on the stack block, from the fit block only.
         cands = {"boosted": boosted_stack, **{k: v[stack_idx] for k, v in lin_all.items()}}
-        Fm = np.column_stack([cands[c] for c in CANDIDATES])
-        w, g = simplex_weights(Fm, yt[stack_idx], tau_stack[:, None] if self.blend_timing else None)
+        #    Every candidate carries the timing effect (the boosted one has it
+        #    already): blending with candidates that lack it shrank the served
+        #    hour curve by the boosted weight (0.66-0.79x the true range on a
+        #    generator with a known curve; our measurement).
+        self.timing_in_all_ = not self.time_carries_nothing_
+        adj = self._with_timing(cands, tau_stack)
+        Fm = np.column_stack([adj[c] for c in CANDIDATES])
+        refs = np.column_stack([cands[c] for c in SIMPLE])
+        #    Absolute loss (the loss the median is scored on), checked in
+        #    time order against the simple forecasters (models.blend_lp).
+        choice = choose_weights(
+            Fm,
+            yt[stack_idx],
+            CANDIDATES,
+            SIMPLE,
+            tau_stack[:, None] if self.blend_timing else None,
+            references=refs,
+        )
+        w, g = choice.weights, choice.effect_weights
         g = g if self.blend_timing else np.zeros(1)
+        self.blend_kind_, self.fallback_to_ = choice.kind, choice.fallback_to
+        if choice.raw:  # the simple forecaster as it is, without the timing effect
+            self.timing_in_all_ = False
+        if self.force_candidate is not None:
+            # The time-ordered backtest found the blend losing to this simple
+            # forecaster on earlier posts: serve it alone, as it is.
+            if self.force_candidate not in CANDIDATES:
+                raise InputError(f"unknown candidate {self.force_candidate!r}", field="force_candidate")
+            w, g = np.array([float(c == self.force_candidate) for c in CANDIDATES]), np.zeros(1)
+            self.timing_in_all_ = False
+            self.blend_kind_, self.fallback_to_ = "fallback", self.force_candidate
         self.weights_ = {c: float(x) for c, x in zip(CANDIDATES, w, strict=True)}
         self.timing_weight_ = float(g[0])
         self.stack_scores_ = {c: float(np.mean(np.abs(yt[stack_idx] - cands[c]))) for c in CANDIDATES}
@@ -291,13 +320,28 @@ class StackedForecaster(ParamsMixin):
         self.means_ = {c: float(np.mean(v)) for c, v in lin_train.items()}
 
         # 5. CQR on the calibration block, around the blend.
-        _, lows, highs = self._blend_and_bands(Xc)
         #    Scores stay in time order; their weights favour the latest rows.
-        self.cal_scores_ = tuple(cqr_scores(yc, lows[i], highs[i]) for i in sorted(lows))
         self.cal_weights_ = recency_weights(
             cal_times if cal_times is not None else np.arange(len(yc), dtype=float),
             half_life=self.recency_half_life,
         )
+        self.band_shape_: dict[int, tuple[float, float, float]] = {}
+        med_c, lows, highs = self._blend_and_bands(Xc)
+        for i in sorted(lows):
+            alpha = 1.0 - float(self.levels_[i])
+
+            # The shape is chosen on the earlier half of the block only, so
+            # the later half's scores did not pick it (less selection effect).
+            h = len(yc) // 2
+
+            def quantile(sc: np.ndarray, a: float = alpha, h: int = h) -> float:
+                return weighted_conformal_quantile(sc, self.cal_weights_[:h], alpha=a)
+
+            self.band_shape_[i] = choose_shrink(
+                yc[:h], med_c[:h], lows[i][:h] - med_c[:h], highs[i][:h] - med_c[:h], quantile=quantile
+            )
+        _, lows, highs = self._blend_and_bands(Xc)
+        self.cal_scores_ = tuple(cqr_scores(yc, lows[i], highs[i]) for i in sorted(lows))
         self.n_train_, self.n_cal_ = int(n), int(Xc.shape[0])
         return self
 
@@ -318,9 +362,24 @@ class StackedForecaster(ParamsMixin):
         out["timing"] = tau
         return out
 
+    def _with_timing(self, cands: dict[str, np.ndarray], tau: np.ndarray) -> dict[str, np.ndarray]:
+        """The candidates as blended: the linear ones plus the timing effect
+        when every candidate carries it (``timing_in_all_``)."""
+        if not getattr(self, "timing_in_all_", False):
+            return cands
+        return {c: (v if c == "boosted" else v + tau) for c, v in cands.items() if c in CANDIDATES}
+
+    @property
+    def timing_scale_(self) -> float:
+        """How much of the timing effect the served median carries."""
+        carried = 1.0 if getattr(self, "timing_in_all_", False) else self.weights_["boosted"]
+        return float(self.timing_weight_ + carried)
+
     def _blend(self, cands: dict[str, np.ndarray]) -> np.ndarray:
         med = sum(self.weights_[c] * cands[c] for c in CANDIDATES)
-        return np.asarray(med + self.timing_weight_ * cands["timing"], dtype=float)
+        return np.asarray(
+            med + (self.timing_scale_ - self.weights_["boosted"]) * cands["timing"], dtype=float
+        )
 
     def _blend_and_bands(
         self, X: np.ndarray, *, level: int | None = None
@@ -334,9 +393,14 @@ class StackedForecaster(ParamsMixin):
         # The boosted quantiles' offsets from their own median, around the blend.
         raw_med = cands["boosted"] - cands["timing"]
         models = self.boosted_
+        shape = getattr(self, "band_shape_", {})
         for i in range(len(models.lower_models_)) if level is None else (level,):
-            lows[i] = med + predict_booster(models.lower_models_[i], Xb) - raw_med
-            highs[i] = med + predict_booster(models.upper_models_[i], Xb) - raw_med
+            off_lo = predict_booster(models.lower_models_[i], Xb) - raw_med
+            off_hi = predict_booster(models.upper_models_[i], Xb) - raw_med
+            if i in shape:  # the offsets' spread kept (models.band_shape)
+                lam, m_lo, m_hi = shape[i]
+                off_lo, off_hi = shaped(m_lo, off_lo, lam), shaped(m_hi, off_hi, lam)
+            lows[i], highs[i] = med + off_lo, med + off_hi
         return med, lows, highs
 
     def level_for(self, coverage: float) -> int:
@@ -403,7 +467,7 @@ class StackedForecaster(ParamsMixin):
             expected = expected + wc * self.means_[cand]
         expected = expected + self.weights_["history_median"] * self.history_median_
         tau = self.timing_.predict(*self._clock(Xp))
-        out[:, self._index["hour_sin"]] += (self.timing_weight_ + wb) * tau
+        out[:, self._index["hour_sin"]] += self.timing_scale_ * tau
         out[:, -1] = expected
         return out
 
@@ -413,7 +477,7 @@ class StackedForecaster(ParamsMixin):
         self._check_fitted()
         Xp = as_matrix("X", X, self.n_features_in_)
         clock = self._clock(Xp)
-        scale = self.timing_weight_ + self.weights_["boosted"]
+        scale = self.timing_scale_
         return scale * self.timing_.predict(*clock), scale * self.timing_.draws(*clock)
 
     def summary(self) -> dict[str, Any]:
@@ -422,12 +486,18 @@ class StackedForecaster(ParamsMixin):
         return {
             "weights": {c: round(w, 4) for c, w in self.weights_.items()},
             "timing_weight": round(self.timing_weight_, 4),
+            "timing_in_every_candidate": bool(getattr(self, "timing_in_all_", False)),
+            "timing_scale": round(self.timing_scale_, 4),
             "timing_penalty": self.timing_.alpha_,
             "boosted_rounds": self.n_estimators_,
             "boosted_columns": list(self.boosted_columns_),
             "left_out_of_boosted": list(self.dropped_),
             "time_carries_nothing": getattr(self, "time_carries_nothing_", None),
             "stack_block_mae_log": {c: round(v, 4) for c, v in self.stack_scores_.items()},
+            "blend_loss": "absolute",
+            "band_shrink": {f"{self.levels_[i]:g}": round(v[0], 2) for i, v in self.band_shape_.items()},
+            "blend_kind": getattr(self, "blend_kind_", "blend"),
+            "fallback_to": getattr(self, "fallback_to_", None),
         }
 
     # -- persistence -------------------------------------------------------
@@ -447,12 +517,16 @@ class StackedForecaster(ParamsMixin):
             "n_estimators": self.n_estimators_,
             "weights": self.weights_,
             "timing_weight": self.timing_weight_,
+            "timing_in_all": bool(getattr(self, "timing_in_all_", False)),
             "stack_scores": self.stack_scores_,
+            "blend_kind": getattr(self, "blend_kind_", "blend"),
+            "fallback_to": getattr(self, "fallback_to_", None),
             "history_median": self.history_median_,
             "means": self.means_,
             "timing": self.timing_.to_config(),
             "scores": [[float(x) for x in sc] for sc in self.cal_scores_],
             "score_weights": [float(x) for x in self.cal_weights_],
+            "band_shape": {str(i): list(v) for i, v in self.band_shape_.items()},
             "n_train": self.n_train_,
             "n_cal": self.n_cal_,
         }
@@ -482,13 +556,19 @@ class StackedForecaster(ParamsMixin):
             m.n_estimators_ = int(cfg["n_estimators"])
             m.weights_ = {k: float(v) for k, v in cfg["weights"].items()}
             m.timing_weight_ = float(cfg["timing_weight"])
+            m.timing_in_all_ = bool(cfg.get("timing_in_all", False))  # older models: boosted only
             m.stack_scores_ = dict(cfg["stack_scores"])
+            m.blend_kind_, m.fallback_to_ = cfg.get("blend_kind", "blend"), cfg.get("fallback_to")
             m.history_median_ = float(cfg["history_median"])
             m.means_ = {k: float(v) for k, v in cfg["means"].items()}
             m.timing_ = TimingEffect.from_config(cfg["timing"])
             m.levels_ = m.boosted_.levels_
             m.cal_scores_ = tuple(np.asarray(sc, dtype=float) for sc in cfg["scores"])
             m.cal_weights_ = np.asarray(cfg["score_weights"], dtype=float)
+            # Older models kept the trees' band as it was (no entry).
+            m.band_shape_ = {
+                int(i): (float(v[0]), float(v[1]), float(v[2])) for i, v in cfg.get("band_shape", {}).items()
+            }
             m.n_train_, m.n_cal_ = int(cfg["n_train"]), int(cfg["n_cal"])
         except StoreError:
             raise

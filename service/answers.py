@@ -81,6 +81,11 @@ class Calibration(BaseModel):
     pseudo_outcomes: int = Field(default=0, description="Settled posts forecast as they would have been")
     capped: bool = False
     gamma: float | None = None
+    widening_held: bool = Field(
+        default=False,
+        description="The level asked for a wider interval, held back until enough forecasts are scored",
+    )
+    reason: str | None = Field(default=None, description="Why the working level moved, in words")
 
 
 class LiveCoverage(BaseModel):

@@ -68,7 +68,11 @@ def print_backtest(bt: dict[str, Any], metric: str, *, details: bool = False) ->
         Column(header="forecaster", free=True),
         Column(header="typical miss", right=True),
         *(
-            [Column(header="MAE (log)", right=True), Column(header="Spearman", right=True)]
+            [
+                Column(header="MAE (log)", right=True),
+                Column(header="MSE (log)", right=True),
+                Column(header="Spearman", right=True),
+            ]
             if details
             else [Column(header="order (0–1)", right=True)]
         ),
@@ -97,7 +101,11 @@ def print_backtest(bt: dict[str, Any], metric: str, *, details: bool = False) ->
                 name,
                 typical_miss(s["mae_log"]),
                 *(
-                    [f"{s['mae_log']:.3f}", f"{s['spearman']:.3f}"]
+                    [
+                        f"{s['mae_log']:.3f}",
+                        "-" if s.get("mse_log") is None else f"{s['mse_log']:.3f}",
+                        f"{s['spearman']:.3f}",
+                    ]
                     if details
                     else [f"{max(s['spearman'], 0.0):.2f}"]
                 ),
@@ -126,11 +134,17 @@ def print_backtest(bt: dict[str, Any], metric: str, *, details: bool = False) ->
         "ranks posts in the right order (0–1, 1 is perfect); intervals held: how often the "
         "actual number fell inside the interval.",
     )
+    if bt.get("fallback_folds"):
+        say(
+            out,
+            f"in {bt['fallback_folds']} of {bt['n_folds']} past tries the combination did worse than a "
+            "simple forecaster on the posts before them, so those tries used the better one alone",
+        )
     if details:
         say(
             out,
-            "typical miss is exp(MAE (log)), the mean absolute error of log1p values; order is "
-            "Spearman's rank correlation; "
+            "typical miss is exp(MAE (log)), the mean absolute error of log1p values; MSE (log) is "
+            "their mean squared error; order is Spearman's rank correlation; "
             + "; ".join(f"{labels[k]}: {v}" for k, v in methods.items())
             + ". Each fold trains on the posts before it and tests on the next (rolling origin).",
         )
@@ -232,9 +246,16 @@ def print_forecast(f: Forecast, *, wide: bool = False, details: bool = False) ->
             c = f.calibration
             say(
                 out,
-                f"calibration: {c.method}, alpha_t {c.alpha_t:.3f} (CQR, Romano et al. 2019; "
-                "+aci: adaptive conformal inference, Gibbs & Candès 2021)",
+                f"calibration: {c.method}, alpha_t {c.alpha_t:.3f}, stated {c.alpha:.3f} (CQR, Romano "
+                "et al. 2019; +aci: adaptive conformal inference, Gibbs & Candès 2021)",
             )
+            say(
+                out,
+                f"seen: {c.outcomes} scored forecasts, {c.pseudo_outcomes} pseudo-outcomes"
+                + ("; widening held back" if c.widening_held else ""),
+            )
+            if c.reason:
+                say(out, f"why: {c.reason}", hanging="  ")
     say(out, CAUTION, style="dim")
 
 
@@ -262,7 +283,9 @@ def check_cmd(
     wide: bool = typer.Option(
         False, "--wide", help="Wrap post texts in full instead of cutting them to the terminal's width."
     ),
-    details: bool = typer.Option(False, "--details", help="Also name the calibration method."),
+    details: bool = typer.Option(
+        False, "--details", help="Also name the calibration method and show its level and why it moved."
+    ),
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()

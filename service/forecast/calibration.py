@@ -14,6 +14,7 @@ from typing import Protocol
 
 import numpy as np
 
+from models.aci_warmup import reason, served_shift
 from models.adaptive import adaptive_quantile
 from models.artefact import TrainedModel
 from service.answers import Calibration, LiveCoverage
@@ -54,23 +55,45 @@ def band_shift(sorted_scores: np.ndarray, alpha: float, alpha_t: float) -> tuple
 
 
 def adapted_band(
-    band: tuple[float, float, float], model: TrainedModel, coverage: float, state: LevelState | None
+    band: tuple[float, float, float],
+    model: TrainedModel,
+    coverage: float,
+    state: LevelState | None,
+    *,
+    min_real: int,
 ) -> tuple[tuple[float, float, float], Calibration]:
     """The band (log1p scale) at the working level alpha_t, same median, and
-    the calibration that says how it was made."""
+    the calibration that says how it was made; never wider before ``min_real``
+    real outcomes (models.aci_warmup)."""
     alpha = 1.0 - coverage
     alpha_t = alpha if state is None else state.alpha_t
-    info = Calibration(method="cqr", level=level_key(coverage), alpha=alpha, alpha_t=alpha_t)
+    info = Calibration(
+        method="cqr",
+        level=level_key(coverage),
+        alpha=alpha,
+        alpha_t=alpha_t,
+        reason=reason(alpha=alpha, alpha_t=alpha_t, real=0, pseudo=0, min_real=min_real, held=False),
+    )
     if state is None or not (state.real_updates or state.pseudo_updates):
         return band, info
     shift, capped = band_shift(model.forecaster.calibration_scores(coverage), alpha, alpha_t)
+    shift, held = served_shift(shift, real_outcomes=state.real_updates, min_real=min_real)
     info = info.model_copy(
         update={
             "method": "cqr+aci",
             "outcomes": state.real_updates,
             "pseudo_outcomes": state.pseudo_updates,
             "gamma": state.gamma,
-            "capped": capped,
+            "capped": capped and not held,
+            "widening_held": held,
+            "reason": reason(
+                alpha=alpha,
+                alpha_t=alpha_t,
+                real=state.real_updates,
+                pseudo=state.pseudo_updates,
+                min_real=min_real,
+                held=held,
+            ),
         }
     )
     lo, med, hi = band

@@ -168,7 +168,9 @@ class Forecaster:
             band = (float(lo[i]), float(med[i]), float(hi[i]))
             info = None
             if facts is not None:
-                band, info = adapted_band(band, model, coverage, facts.state)
+                band, info = adapted_band(
+                    band, model, coverage, facts.state, min_real=self.settings.adaptive_min_scored
+                )
             expected, groups = group_contributions(contribs[i], model.forecaster.feature_names_, ALL_GROUPS)
             local = plans[i].astimezone(zone(tz))
             out.append(

@@ -114,6 +114,12 @@ def _train(
     }
     if backtest:
         report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES, params=STACK_PARAMS)
+        back = report["backtest"].get("serve_fallback")
+        if back:  # the blend lost to this simple forecaster in time order: serve it
+            model = StackedForecaster(**{**STACK_PARAMS, "force_candidate": back}).fit(
+                X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:]
+            )
+            report["combination"] = model.summary()
         report["note"] = report["backtest"]["note"]
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
     stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique

@@ -11,6 +11,7 @@ from typing import Any
 
 import numpy as np
 
+from models.aci_warmup import served_shift
 from models.adaptive import aci_step
 from models.artefact import TrainedModel, versions
 from models.errors import NotReady, SoundingError
@@ -78,8 +79,12 @@ def _adapt_level(
     sorted_scores = model.forecaster.calibration_scores(coverage)
     updates = 0
     for y, (lo, hi) in zip(ys, bands, strict=True):
-        shift, _ = band_shift(sorted_scores, alpha, alpha_t)
-        alpha_t = aci_step(alpha_t, alpha=alpha, gamma=g, miss=not lo - shift <= y <= hi + shift)
+        # Scored against the band as it would have been served (pseudo-
+        # outcomes only run before enough real ones, so never wider).
+        shift, _ = served_shift(band_shift(sorted_scores, alpha, alpha_t)[0], real_outcomes=0, min_real=1)
+        # Floored at the stated level: pseudo-outcomes may narrow the band
+        # but never build up a widening that real outcomes did not ask for.
+        alpha_t = max(alpha, aci_step(alpha_t, alpha=alpha, gamma=g, miss=not lo - shift <= y <= hi + shift))
         updates += 1
     ws.store.track.add_pseudo_outcomes(
         metric, coverage, alpha_t=alpha_t, updates=updates, until=to_naive_utc(times[-1])
@@ -117,8 +122,12 @@ def _pseudo_outcomes(
     if rows.empty:
         return None
     drafts = [
-        Draft(text=t, account=a, planned_at=p.to_pydatetime())
-        for t, a, p in zip(rows["text"], rows["account"], rows["posted_at"], strict=True)
+        # The post's own media flag: left out, posts with media were forecast
+        # as text only and missed more often than the calibration said.
+        Draft(text=t, account=a, planned_at=p.to_pydatetime(), has_media=bool(m))
+        for t, a, p, m in zip(
+            rows["text"], rows["account"], rows["posted_at"], rows["has_media"], strict=True
+        )
     ]
     vecs = ws.store.vectors(list(rows["vector_key"]))
     try:

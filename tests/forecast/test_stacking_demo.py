@@ -37,6 +37,10 @@ def test_hour_curve_matches_the_documented_one(demo_workspace, account: str) -> 
     got = np.array([f.log[1] for f in out])
     truth = np.array([EFFECTS["hour_effect"][str(h)] for h in range(24)])
     rho = spearmanr(got, truth).statistic
+    print(
+        f"{account} ({tz}): peak-to-trough {np.ptp(got) / np.ptp(truth):.2f}x the documented, "
+        f"rank correlation {rho:.3f}"
+    )
     assert rho >= 0.9, (account, rho)
     assert np.ptp(got) == pytest.approx(np.ptp(truth), rel=0.25), (account, np.ptp(got))
 

@@ -81,15 +81,31 @@ def test_old_model_warns_pseudo_outcomes_adapt_and_train_if_stale(
         alpha_t, n = state.alpha_t, state.pseudo_updates
     assert n == fresh
     gamma = ws.settings.adaptive_gamma
-    # Gibbs & Candès eq. 2 summed: alpha_t = alpha + gamma * (n * alpha - misses).
-    misses = n * 0.2 - (alpha_t - 0.2) / gamma
-    assert misses == pytest.approx(round(misses), abs=1e-6) and 0 <= round(misses) <= n
+    # Gibbs & Candès eq. 2, floored at the stated level while no real outcome
+    # exists (pseudo-outcomes never widen): after the last time the floor was
+    # hit, j steps with m misses give alpha_t = alpha + gamma * (j * alpha - m),
+    # so (alpha_t - alpha) / gamma is a multiple of alpha = 1/5, and >= 0.
+    steps = (alpha_t - 0.2) / gamma
+    assert steps >= -1e-9
+    assert 5 * steps == pytest.approx(round(5 * steps), abs=1e-6) and round(5 * steps) <= n
 
     ans = json.loads(
         run("check", "Autumn colour in the arboretum this week", "--account", "loomhaven", "--json").output
     )
     assert ans["calibration"]["method"] == "cqr+aci"
     assert ans["calibration"]["pseudo_outcomes"] == fresh
+    assert ans["calibration"]["widening_held"] is False  # alpha_t >= alpha: nothing to hold back
+    assert "settled posts forecast afterwards" in ans["calibration"]["reason"]
+    shown = run(
+        "check",
+        "Autumn colour in the arboretum this week",
+        "--account",
+        "loomhaven",
+        "--details",
+        "--no-record",
+    ).output
+    assert f"adaptive level (alpha_t) {alpha_t:.3f}" in shown and f"{fresh} pseudo-outcomes" in shown
+    assert "why: " in shown
     assert any("posts have settled" in w for w in ans["warnings"])
 
     assert "stale:" in run("train", "--if-stale", "--skip-backtest").output
