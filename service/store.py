@@ -31,6 +31,7 @@ from models.errors import InputError, NotFound, StoreError
 from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
 
+from . import keywords
 from .migrations import check_current, upgrade
 from .tables import (
     HISTORY_STAMP,
@@ -510,6 +511,8 @@ class Store:
                 for m in sorted(flags)
             )
             res.changed_pks.extend(post.id for post in new_posts)
+            changed = set(res.changed_pks)
+            keywords.add(s.connection(), [(p.id, p.text) for p in stored.values() if p.id in changed])
         return res
 
     @staticmethod
@@ -678,6 +681,7 @@ class Store:
             for i in range(0, len(pks), 900):
                 chunk = pks[i : i + 900]
                 s.execute(delete(Snapshot).where(Snapshot.post_pk.in_(chunk)))
+                keywords.remove(s.connection(), chunk)
                 s.execute(delete(Post).where(Post.id.in_(chunk)))
             still_used = set(s.scalars(select(Post.vector_key).where(Post.vector_key.in_(list(keys)))))
             unused = list(keys - still_used)

@@ -12,6 +12,7 @@ from sqlalchemy import func, insert, select, text
 
 from models.errors import StoreError
 
+from . import keywords
 from .store import Store
 from .tables import Base, ChangeStamp, SchemaVersion
 
@@ -38,6 +39,7 @@ def copy_store(source: Store, dest: Store) -> dict[str, int]:
                 s.execute(insert(table), [dict(r) for r in batch])
                 n += len(batch)
             copied[table.name] = n
+        copied[keywords.TABLE] = keywords.rebuild(s.connection())
         if dest.backend == "postgresql":
             for table in tables:
                 pk = list(table.primary_key.columns)

@@ -28,6 +28,7 @@ from models.index import VectorIndex, fingerprint
 from .forecasting import Forecaster
 from .importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
 from .locking import LOCK_FILE, WriteLock
+from .matching import Match, matched
 from .precedents import Precedent, precedents_for
 from .retrieval import Retriever
 from .settings import Settings
@@ -386,13 +387,20 @@ class Workspace:
         since: datetime | None = None,
         until: datetime | None = None,
         now: datetime | None = None,
+        match: Match = Match.MEANING,
     ) -> list[Precedent]:
-        """The ``k`` past posts most similar to ``text``, with current metrics."""
+        """The ``k`` past posts most similar to ``text``, with current metrics,
+        matched by meaning, by words or both (``service.matching``)."""
         if not 1 <= k <= self.settings.max_k:
             raise InputError(f"k must be between 1 and {self.settings.max_k}", field="k", value=k)
         since, until = _utc_bound(since, "since"), _utc_bound(until, "until")
         if since and until and since > until:
             raise InputError("the date range ends before it starts", field="since")
         vec = self.forecaster.embed([text])
-        hits = self.retrieval.nearest(vec, k, account=account, since=since, until=until)[0]
+        if match is Match.MEANING:
+            hits = self.retrieval.nearest(vec, k, account=account, since=since, until=until)[0]
+        else:
+            filtered = account is not None or since is not None or until is not None
+            allowed = self.store.pks_where(account=account, since=since, until=until) if filtered else None
+            hits = matched(self.retrieval, vec, text, k, match=match, allowed_pks=allowed)
         return precedents_for(self.store, hits, maturity_hours=self.settings.maturity_hours, now=now)

@@ -23,6 +23,7 @@ from ..forecasting import Contributions, Forecast, Forecasts, GroupEffect
 from ..health import EmbeddingState, Health, IndexState, SearchState
 from ..hours import HoursReport, Slot
 from ..importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
+from ..matching import Match
 from ..precedents import Precedent, Precedents, WeightedPrecedent
 from ..repeats import Repeat
 from ..segmenting import (
@@ -119,6 +120,11 @@ class PrecedentsRequest(Strict):
     k: int = Field(default=10, ge=1, le=100)
     since: InRangeTime | None = None
     until: InRangeTime | None = None
+    match: Match = Field(
+        default=Match.MEANING,
+        description="meaning: by the text's embedding; words: by shared words (BM25); "
+        "both: the two rankings fused by reciprocal rank fusion",
+    )
 
 
 class ForgetOut(BaseModel):

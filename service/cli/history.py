@@ -25,6 +25,7 @@ from ..api.app import create_app
 from ..cluster import cluster_import_options
 from ..importer import ImportPreview, ImportSummary
 from ..mappings import combine, load_mapping
+from ..matching import Match
 from ..precedents import Precedent, Precedents
 from ..settings import Settings
 from ..timeparse import parse_time
@@ -278,6 +279,12 @@ def precedents_cmd(
     k: int = typer.Option(10, "-k", "--count", help="How many precedents."),
     since: str | None = typer.Option(None, "--since", help="Only posts from this time (ISO 8601)."),
     until: str | None = typer.Option(None, "--until", help="Only posts up to this time."),
+    match: Match = typer.Option(
+        Match.MEANING,
+        "--match",
+        help="Find them by meaning (the text's embedding), by the words they share (hashtags, "
+        "@mentions and numbers included; BM25) or both, fused by rank.",
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     wide: bool = typer.Option(
         False, "--wide", help="Wrap post texts in full instead of cutting them to the terminal's width."
@@ -287,6 +294,7 @@ def precedents_cmd(
     found = workspace().precedents(
         text,
         k=k,
+        match=match,
         account=account,
         since=_time_opt(since, "--since"),
         until=_time_opt(until, "--until"),
