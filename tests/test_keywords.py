@@ -12,6 +12,7 @@ score = sum over rankings of 1 / (60 + rank)).
 
 from __future__ import annotations
 
+import json
 import math
 from datetime import UTC, datetime, timedelta
 
@@ -192,3 +193,20 @@ def test_the_api_takes_the_match_field(tagged) -> None:  # type: ignore[no-untyp
         bad = c.post("/v1/precedents", json={"text": DRAFT, "match": "sound"})
         assert bad.status_code == 422
         assert "match" in bad.text
+
+
+def test_the_cli_takes_match(tagged, embedder, monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    from typer.testing import CliRunner
+
+    from service.cli import app
+    from service.cli.base import use_embedder
+
+    use_embedder(embedder)
+    monkeypatch.setenv("SOUNDING_HOME", str(tagged.settings.home))
+    tagged.close()  # the command opens the directory itself
+    runner = CliRunner()
+    r = runner.invoke(app, ["precedents", DRAFT, "-k", "3", "--match", "words", "--json"])
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.stdout)["precedents"][0]["post_id"] == "tag-1"
+    bad = runner.invoke(app, ["precedents", DRAFT, "--match", "sound"])
+    assert bad.exit_code != 0 and "--match" in bad.output and "Traceback" not in bad.output
