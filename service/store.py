@@ -511,8 +511,8 @@ class Store:
                 for m in sorted(flags)
             )
             res.changed_pks.extend(post.id for post in new_posts)
-            changed = set(res.changed_pks)
-            keywords.add(s.connection(), [(p.id, p.text) for p in stored.values() if p.id in changed])
+            reworded = set(res.changed_pks)
+            keywords.add(s.connection(), [(p.id, p.text) for p in stored.values() if p.id in reworded])
         return res
 
     @staticmethod
