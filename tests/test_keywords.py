@@ -210,3 +210,20 @@ def test_the_cli_takes_match(tagged, embedder, monkeypatch) -> None:  # type: ig
     assert json.loads(r.stdout)["precedents"][0]["post_id"] == "tag-1"
     bad = runner.invoke(app, ["precedents", DRAFT, "--match", "sound"])
     assert bad.exit_code != 0 and "--match" in bad.output and "Traceback" not in bad.output
+
+
+def test_a_copied_store_gets_the_same_keyword_scores(tmp_path, database_url: str) -> None:  # type: ignore[no-untyped-def]
+    from service.storecopy import copy_store
+
+    src, _ = stored(f"sqlite:///{tmp_path / 'source.db'}", CORPUS)
+    dest = Store(url=database_url)
+    try:
+        copied = copy_store(src, dest)
+        assert copied[keywords.TABLE] == len(CORPUS)
+        want = search(src, "#seedswap bulbs lake")
+        got = search(dest, "#seedswap bulbs lake")
+        assert [pk for pk, _ in got] == [pk for pk, _ in want]
+        assert [s for _, s in got] == pytest.approx([s for _, s in want], rel=1e-9)
+    finally:
+        src.close()
+        dest.close()
