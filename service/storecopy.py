@@ -11,10 +11,9 @@ from __future__ import annotations
 from sqlalchemy import func, insert, select, text
 
 from models.errors import StoreError
-
-from . import keywords
-from .store import Store
-from .tables import Base, ChangeStamp, SchemaVersion
+from service import keywords
+from service.store import Store
+from service.tables import Base, ChangeStamp, SchemaVersion
 
 _BATCH = 1000
 # Each store keeps its own version and change stamp.
