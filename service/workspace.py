@@ -28,6 +28,7 @@ from models.index import DamagedIndex, VectorIndex, fingerprint
 from models.integrity import note_repair
 from service.clock import as_utc
 from service.forecast.forecaster import Forecaster
+from service.history.match_modes import Match, matched
 from service.history.precedents import Precedent, precedents_for
 from service.history.retrieval import Retriever
 from service.ingest.answers import ImportPreview, ImportSummary
@@ -405,12 +406,19 @@ class Workspace:
         since: datetime | None = None,
         until: datetime | None = None,
         now: datetime | None = None,
+        match: Match = Match.MEANING,
     ) -> list[Precedent]:
-        """The ``k`` past posts most similar to ``text``, with current metrics."""
+        """The ``k`` past posts most similar to ``text``, with current metrics,
+        matched by meaning, by words or both (``service.history.match_modes``)."""
         Interval(int, 1, self.settings.max_k).check(k, "k")
         since, until = _utc_bound(since, "since"), _utc_bound(until, "until")
         if since and until and since > until:
             raise InputError("the date range ends before it starts", field="since")
         vec = self.forecaster.embed([text])
-        hits = self.retrieval.nearest(vec, k, account=account, since=since, until=until)[0]
+        if match is Match.MEANING:
+            hits = self.retrieval.nearest(vec, k, account=account, since=since, until=until)[0]
+        else:
+            filtered = account is not None or since is not None or until is not None
+            allowed = self.store.pks_where(account=account, since=since, until=until) if filtered else None
+            hits = matched(self.retrieval, vec, text, k, match=match, allowed_pks=allowed)
         return precedents_for(self.store, hits, maturity_hours=self.settings.maturity_hours, now=now)

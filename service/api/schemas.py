@@ -22,6 +22,7 @@ from service.answers import Calibration, Coverage, LiveCoverage
 from service.clock import EARLIEST, as_utc, latest_time, range_text
 from service.forecast.answer import Contributions, Forecast, Forecasts, GroupEffect
 from service.health import EmbeddingState, Health, IndexState, SearchState
+from service.history.match_modes import Match
 from service.history.precedents import Precedent, Precedents, WeightedPrecedent
 from service.history.repeats import Repeat
 from service.ingest.answers import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
@@ -113,6 +114,11 @@ class PrecedentsRequest(Strict):
     k: int = Field(default=10, ge=1, le=100)
     since: InRangeTime | None = None
     until: InRangeTime | None = None
+    match: Match = Field(
+        default=Match.MEANING,
+        description="meaning: by the text's embedding; words: by shared words (BM25); "
+        "both: the two rankings fused by reciprocal rank fusion",
+    )
 
 
 class ForgetOut(BaseModel):

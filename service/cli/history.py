@@ -35,6 +35,7 @@ from service.cli.mappings import (
 )
 from service.cli.render import Column, print_table
 from service.clock import parse_time
+from service.history.match_modes import Match
 from service.history.precedents import Precedent, Precedents
 from service.ingest.answers import ImportPreview, ImportSummary
 from service.ingest.mappings import combine, load_mapping
@@ -276,6 +277,12 @@ def precedents_cmd(
     k: int = typer.Option(10, "-k", "--count", help="How many precedents."),
     since: str | None = typer.Option(None, "--since", help="Only posts from this time (ISO 8601)."),
     until: str | None = typer.Option(None, "--until", help="Only posts up to this time."),
+    match: Match = typer.Option(
+        Match.MEANING,
+        "--match",
+        help="Find them by meaning (the text's embedding), by the words they share (hashtags, "
+        "@mentions and numbers included; BM25) or both, fused by rank.",
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     wide: bool = typer.Option(
         False, "--wide", help="Wrap post texts in full instead of cutting them to the terminal's width."
@@ -285,6 +292,7 @@ def precedents_cmd(
     found = workspace().precedents(
         text,
         k=k,
+        match=match,
         account=account,
         since=_time_opt(since, "--since"),
         until=_time_opt(until, "--until"),

@@ -21,6 +21,7 @@ from models import features as F
 from models import training_matrix as TM
 from models.index import VectorIndex
 from service.history.view import HistoryView
+from service.storage import keywords
 from service.storage.store import Store
 
 #: Nearest posts fetched per draft in one unfiltered pass before filtering.
@@ -68,6 +69,16 @@ class Retriever:
             [(int(i), float(s)) for i, s in zip(row_ids, row_sims, strict=True) if i >= 0]
             for row_ids, row_sims in zip(ids, sims, strict=True)
         ]
+
+    def by_words(
+        self, text: str, k: int, *, allowed_pks: np.ndarray | None = None
+    ) -> list[tuple[int, float]]:
+        """(post row id, BM25 score) of the ``k`` posts whose words best match
+        ``text`` (``service.storage.keywords``), optionally among ``allowed_pks``."""
+        with self.store.engine.connect() as conn:
+            return keywords.search(
+                conn, text, k, allowed_pks=None if allowed_pks is None else allowed_pks.tolist()
+            )
 
     def _search(
         self, vectors: np.ndarray, k: int, allowed: np.ndarray | None

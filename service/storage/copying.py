@@ -11,6 +11,7 @@ from __future__ import annotations
 from sqlalchemy import func, insert, select, text
 
 from models.errors import StoreError
+from service.storage import keywords
 from service.storage.store import Store
 from service.storage.tables import Base, ChangeStamp, SchemaVersion
 
@@ -37,6 +38,7 @@ def copy_store(source: Store, dest: Store) -> dict[str, int]:
                 s.execute(insert(table), [dict(r) for r in batch])
                 n += len(batch)
             copied[table.name] = n
+        copied[keywords.TABLE] = keywords.rebuild(s.connection())
         if dest.backend == "postgresql":
             for table in tables:
                 pk = list(table.primary_key.columns)

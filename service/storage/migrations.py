@@ -41,9 +41,10 @@ from sqlalchemy.schema import CreateColumn
 
 from models.errors import StoreError
 from service.clock import now_utc, to_naive_utc
+from service.storage import keywords
 from service.storage.tables import HISTORY_STAMP, SCORING_STAMP, Base, ChangeStamp, SchemaVersion
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 
 # The tables of version 0, the layout before versions: a database holding
 # all of them and no schema_version table is such a store.
@@ -73,8 +74,13 @@ def add_column(conn: Connection, table: str, column: Column[Any]) -> None:
     conn.execute(text(f"ALTER TABLE {conn.dialect.identifier_preparer.quote(table)} ADD COLUMN {ddl}"))
 
 
+def _v1_to_v2(conn: Connection) -> None:
+    """Version 2 adds the keyword index of the posts' words (service.storage.keywords)."""
+    keywords.rebuild(conn)
+
+
 # STEPS[v] takes a store from version v - 1 to version v.
-STEPS: dict[int, Callable[[Connection], None]] = {1: _v0_to_v1}
+STEPS: dict[int, Callable[[Connection], None]] = {1: _v0_to_v1, 2: _v1_to_v2}
 
 
 def stored_version(conn: Connection) -> int | None:
@@ -144,6 +150,7 @@ def _upgrade_once(engine: Engine) -> int:
         # Tables added since (a new table needs no step) and, for a new
         # database, every table.
         Base.metadata.create_all(conn)
+        keywords.create(conn)  # not a SQLAlchemy table: FTS5 or a tsvector with its GIN index
         if found is None or found < SCHEMA_VERSION:
             now = to_naive_utc(now_utc())
             insert_missing(conn, _VERSION_T, {"id": 1, "version": SCHEMA_VERSION, "migrated_at": now})

@@ -13,6 +13,7 @@ from sqlalchemy.orm import Session
 from models import features as F
 from models.metrics import METRIC_COLUMNS
 from service.clock import now_utc, to_naive_utc
+from service.storage import keywords
 from service.storage.engine import StoreBase
 from service.storage.tables import (
     Account,
@@ -174,6 +175,8 @@ class PostWrites(StoreBase):
                 for m in sorted(flags)
             )
             res.changed_pks.extend(post.id for post in new_posts)
+            reworded = set(res.changed_pks)
+            keywords.add(s.connection(), [(p.id, p.text) for p in stored.values() if p.id in reworded])
         return res
 
     @staticmethod

@@ -19,6 +19,7 @@ from sqlalchemy.engine import make_url
 
 from models.errors import InputError, NotFound, StoreError
 from service.clock import now_utc
+from service.storage import keywords
 from service.storage.post_reads import PostReads
 from service.storage.post_writes import PostWrites
 from service.storage.tables import (
@@ -112,6 +113,7 @@ class Store(PostWrites, PostReads):
             for i in range(0, len(pks), 900):
                 chunk = pks[i : i + 900]
                 s.execute(delete(Snapshot).where(Snapshot.post_pk.in_(chunk)))
+                keywords.remove(s.connection(), chunk)
                 s.execute(delete(Post).where(Post.id.in_(chunk)))
             still_used = set(s.scalars(select(Post.vector_key).where(Post.vector_key.in_(list(keys)))))
             unused = list(keys - still_used)

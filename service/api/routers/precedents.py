@@ -17,5 +17,7 @@ router = APIRouter(prefix="/v1", tags=["precedents"])
     summary="The most similar past posts of a draft",
 )
 def precedents(body: PrecedentsRequest, ws: WorkspaceDep) -> Precedents:
-    found = ws.precedents(body.text, k=body.k, account=body.account, since=body.since, until=body.until)
+    found = ws.precedents(
+        body.text, k=body.k, account=body.account, since=body.since, until=body.until, match=body.match
+    )
     return Precedents(precedents=found)
