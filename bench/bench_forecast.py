@@ -222,7 +222,7 @@ def index_only(sizes: list[int], rng: np.random.Generator, as_json: bool, keep: 
         if not demo.store.counts()["posts"]:
             for handle, name, tz in _demo_accounts():
                 demo.store.set_account(handle, display_name=name, timezone=tz)
-            demo.import_csv(ROOT / "demo_data" / "posts.csv")
+            demo.import_csv(ROOT / "demo_data" / "posts.csv", new_accounts="UTC")
         _, base, _ = demo.store.index_data()
         settings = demo.settings
         demo.close()
@@ -307,7 +307,7 @@ def main() -> None:
         if not demo.store.counts()["posts"]:
             for handle, name, tz in _demo_accounts():
                 demo.store.set_account(handle, display_name=name, timezone=tz)
-            demo.import_csv(ROOT / "demo_data" / "posts.csv")
+            demo.import_csv(ROOT / "demo_data" / "posts.csv", new_accounts="UTC")
         texts = list(demo.store.posts_frame()["text"])
         sample = [
             texts[i] for i in rng.choice(len(texts), size=min(args.embed_sample, len(texts)), replace=False)

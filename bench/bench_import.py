@@ -214,7 +214,7 @@ def main() -> int:
         for handle, name, tz in _demo_accounts():
             tws.store.set_account(handle, display_name=name, timezone=tz)
         t = time.perf_counter()
-        tws.import_csv(csv_path)
+        tws.import_csv(csv_path, new_accounts="UTC")
         torch_import_s = time.perf_counter() - t
         tws.close()
 
@@ -232,7 +232,7 @@ def main() -> int:
     t = time.perf_counter()
     if profiler:
         profiler.enable()
-    first = ws.import_csv(csv_path)
+    first = ws.import_csv(csv_path, new_accounts="UTC")
     if profiler:
         profiler.disable()
     import_s = time.perf_counter() - t
@@ -243,7 +243,7 @@ def main() -> int:
     # (c) re-import of the unchanged file.
     calls1 = embedder.calls
     t = time.perf_counter()
-    again = ws.import_csv(csv_path)
+    again = ws.import_csv(csv_path, new_accounts="UTC")
     reimport_s = time.perf_counter() - t
     re_stages = dict(stages.total)
     embedded_again = embedder.calls - calls1

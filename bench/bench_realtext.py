@@ -86,7 +86,7 @@ def main() -> None:
         path = home / "packages.csv"
         n = canonical_csv(path, rows=args.rows, seed=args.seed)
         ws.store.set_account(ACCOUNT, display_name="Package summaries", timezone="UTC")
-        ws.import_csv(path)
+        ws.import_csv(path, new_accounts="UTC")
         print(f"imported {n} rows in {time.perf_counter() - t0:.0f} s")
     now = datetime(2027, 1, 1, tzinfo=UTC)
     params = FC.feature_params(ws.settings)

@@ -16,8 +16,9 @@ approximate); an ``engagement_rate`` column is checked against engagements
 
 Parsing follows RFC 4180 (``service.csvread``: quoted commas, doubled
 quotes, line breaks inside quotes); the file is UTF-8 with or without a
-byte-order mark. Problems with the file as a whole (encoding, header,
-dates that read two ways) stop the import before anything is written.
+byte-order mark, or in the codec named by ``encoding``
+(service.encodings). Problems with the file as a whole (encoding, header,
+dates that read two ways, unknown accounts) stop the import before anything is written.
 Problems with a row, including a record the CSV reader cannot read, are
 reported with the row's line number, column, reason and a fix to try, and
 every valid row is still stored, in batches that are each one transaction:
@@ -30,7 +31,6 @@ write the batch. The index is updated by the caller (``Workspace``).
 
 from __future__ import annotations
 
-import codecs
 import csv
 from collections import Counter
 from collections.abc import Callable, Iterator, Sequence
@@ -46,6 +46,9 @@ from pydantic import BaseModel, ConfigDict, Field
 from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
 from models.metrics import METRIC_COLUMNS, Metric
+from service.accounts_rules import HANDLE_RULE, check_handle, fold_handle, handle_problem
+from service.encodings import check_text, codec_of
+from service.import_accounts import accounts_to_create, handles_in
 
 from .answers import Instant, MetricValues
 from .csvread import Abandoned, BadRecord, Record, RecordReader
@@ -182,33 +185,10 @@ def parse_mapping(pairs: Sequence[str] | None) -> dict[str, str]:
     return mapping
 
 
-def check_encoding(path: Path) -> int:
-    """Check the file is UTF-8 text, reading it in chunks; return its line count.
-
-    Done before any write, so a file with bad bytes halfway stores nothing
-    of itself rather than its first half.
-    """
-    decoder = codecs.getincrementaldecoder("utf-8")()
-    lines, offset, line_start = 0, 0, 1
-    with path.open("rb") as f:
-        while chunk := f.read(_CHUNK):
-            try:
-                text = decoder.decode(chunk)
-            except UnicodeDecodeError as exc:
-                bad_at = offset + exc.start
-                with path.open("rb") as g:
-                    line = g.read(bad_at).count(b"\n") + 1
-                raise CSVFormatError(
-                    f"the file is not UTF-8 text (byte {bad_at} on line {line} cannot be read)",
-                    where=str(path),
-                    hint="save it as UTF-8 CSV",
-                ) from None
-            if "\x00" in text:
-                raise CSVFormatError("the file contains NUL bytes: it is not a text CSV", where=str(path))
-            lines += text.count("\n")
-            offset += len(chunk)
-        decoder.decode(b"", final=True)
-    return max(lines, line_start)
+def check_encoding(path: Path, encoding: str | None = None) -> int:
+    """Check the file decodes (UTF-8 unless ``encoding`` names another) and
+    return its line count; see :mod:`service.encodings`."""
+    return check_text(path, encoding)
 
 
 class _Reject(Exception):
@@ -294,12 +274,9 @@ class _Rows:
     def line_num(self) -> int:
         return self.records.line_num
 
-    def time_values(self) -> Iterator[tuple[int, str]]:
-        """(line, text) of every readable row's time, for the date-order check."""
-        i = self.positions["posted_at"]
-        for item in self._items:
-            if isinstance(item, Record) and len(item.fields) > i:
-                yield item.line, item.fields[i]
+    def rest(self) -> Iterator[object]:
+        """The records after the header, unchecked (for the whole-file pass)."""
+        return self._items
 
     def zone_of(self, account: str) -> str:
         return self.timezone or self.account_zones.get(account, "UTC")
@@ -344,11 +321,12 @@ class _Rows:
         post_id = (self._get(fields, "post_id") or "").strip()
         if not post_id:
             raise _Reject("post_id", "is empty")
-        account = (self._get(fields, "account") or "").strip() or self.account
+        account = fold_handle(self._get(fields, "account") or "") or self.account
         if not account:
             raise _Reject("account", "is empty and no --account was given")
-        if any(c.isspace() for c in account):
-            raise _Reject("account", f"handle {account!r} contains spaces")
+        problem = handle_problem(account)
+        if problem:
+            raise _Reject("account", f"handle {problem}", f"a handle holds {HANDLE_RULE}")
         text = self._get(fields, "text") or ""
         if not normalise_text(text):
             raise _Reject("text", "is empty")
@@ -458,7 +436,7 @@ def _options(
 ) -> ImportOptions:
     return ImportOptions(
         mapping=dict(mapping or {}),
-        account=account,
+        account=None if account is None else check_handle(account, where="account"),
         timezone=timezone,
         time_format=time_format,
         date_order=date_order,
@@ -468,29 +446,54 @@ def _options(
 
 @contextmanager
 def _open_rows(
-    path: Path, options: ImportOptions, store: Store, embedder: Embedder
+    path: Path,
+    options: ImportOptions,
+    store: Store,
+    embedder: Embedder,
+    *,
+    new_accounts: str | None = None,
+    create: bool = True,
+    encoding: str | None = None,
 ) -> Iterator[tuple[_Rows, int]]:
     """The file's rows, after every whole-file check (encoding, header, date
-    order); nothing is written before this yields. Also the file's line count."""
+    order, unknown accounts); nothing is written before this yields, except
+    the accounts asked for with ``new_accounts`` (their zone), made once
+    every check has passed when ``create``. Also the file's line count."""
     if not path.is_file():
         raise InputError(f"no such file: {path}", where=str(path))
-    total_lines = check_encoding(path)
+    codec = codec_of(encoding)
+    total_lines = check_encoding(path, encoding)
     zones = {a.handle: a.timezone for a in store.accounts()}
 
     def rows(handle: TextIO) -> _Rows:
         return _Rows(handle, where=str(path), options=options, account_zones=zones, embedder=embedder)
 
     # utf-8-sig drops a byte-order mark; newline="" lets csv see quoted line breaks.
-    if options.time_format is None and options.date_order is None:
-        with path.open("r", encoding="utf-8-sig", newline="") as handle:
-            r = rows(handle)
-            check_date_order(
-                r.times,
-                r.time_values(),
-                where=str(path),
-                column=options.mapping.get("posted_at", "posted_at"),
-            )
-    with path.open("r", encoding="utf-8-sig", newline="") as handle:
+    # One pass before any write: the date order (when not given) and the
+    # account column's handles.
+    named: dict[str, list[int]] = {}
+    with path.open("r", encoding=codec, newline="") as handle:
+        r = rows(handle)
+        values = handles_in(
+            r.rest(),
+            time_at=r.positions["posted_at"],
+            account_at=r.positions.get("account"),
+            lines=named,
+        )
+        check_date_order(
+            r.times, values, where=str(path), column=options.mapping.get("posted_at", "posted_at")
+        )
+        for _ in values:  # the date check may not need every row; the accounts do
+            pass
+    new = accounts_to_create(
+        store, account=options.account, column=named, new_accounts=new_accounts, where=str(path)
+    )
+    for h in new:
+        assert new_accounts is not None  # accounts_to_create refuses new handles otherwise
+        if create:
+            store.set_account(h, timezone=new_accounts)
+        zones[h] = new_accounts
+    with path.open("r", encoding=codec, newline="") as handle:
         yield rows(handle), total_lines
 
 
@@ -515,8 +518,14 @@ def import_csv(
     batch_rows: int = 500,
     progress: ProgressFn | None = None,
     embed: EmbedFn | None = None,
+    new_accounts: str | None = None,
+    encoding: str | None = None,
 ) -> ImportSummary:
-    """Import one CSV file; see the module docstring for the rules."""
+    """Import one CSV file; see the module docstring for the rules.
+
+    Every account the file names must be in the store, unless
+    ``new_accounts`` gives the zone to create the missing ones in. The file
+    is UTF-8 unless ``encoding`` names another codec."""
     options = _options(account, mapping, timezone, time_format, date_order, decimal_comma)
     summary = ImportSummary()
     batch: list[PostRow] = []
@@ -539,7 +548,10 @@ def import_csv(
         summary.changed_pks.extend(res.changed_pks)
         batch.clear()
 
-    with _open_rows(Path(path), options, store, embedder) as (rows, total_lines):
+    with _open_rows(Path(path), options, store, embedder, new_accounts=new_accounts, encoding=encoding) as (
+        rows,
+        total_lines,
+    ):
         for item in rows:
             if isinstance(item, RowProblem):
                 summary.rejected += 1
@@ -636,6 +648,8 @@ def preview_csv(
     date_order: DateOrder | None = None,
     decimal_comma: bool = False,
     rows: int = PREVIEW_ROWS,
+    new_accounts: str | None = None,
+    encoding: str | None = None,
 ) -> ImportPreview:
     """Read and check a file as :func:`import_csv` would; write nothing.
 
@@ -643,7 +657,12 @@ def preview_csv(
     texts (no model is loaded).
     """
     options = _options(account, mapping, timezone, time_format, date_order, decimal_comma)
-    with _open_rows(Path(path), options, store, embedder) as (reader, _):
+    with _open_rows(
+        Path(path), options, store, embedder, new_accounts=new_accounts, create=False, encoding=encoding
+    ) as (
+        reader,
+        _,
+    ):
         columns = _column_uses(reader)
         used = set(reader.positions.values())
         unused = [h for i, h in enumerate(reader.header) if i not in used]

@@ -30,6 +30,7 @@ from sqlalchemy.orm import ORMExecuteState, Session, sessionmaker
 from models.errors import InputError, NotFound, StoreError
 from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
+from service.accounts_rules import check_handle, unknown_account
 
 from .migrations import check_current, upgrade
 from .tables import (
@@ -254,7 +255,7 @@ class Store:
         with self.session() as s:
             acc = s.scalar(select(Account).where(Account.handle == handle))
             if acc is None:
-                raise NotFound(f"unknown account {handle!r}", field="account", value=handle)
+                raise unknown_account(handle, s.scalars(select(Account.handle)).all())
             n = s.scalar(select(func.count(Post.id)).where(Post.account_id == acc.id)) or 0
             return AccountInfo(
                 handle=acc.handle, display_name=acc.display_name, timezone=acc.timezone, posts=int(n)
@@ -660,7 +661,7 @@ class Store:
             if account is not None:
                 acc = s.scalar(select(Account).where(Account.handle == account))
                 if acc is None:
-                    raise NotFound(f"unknown account {account!r}", field="account", value=account)
+                    raise unknown_account(account, s.scalars(select(Account.handle)).all())
                 q = q.where(Account.id == acc.id)
             if post_id is not None:
                 q = q.where(Post.post_id == post_id)
@@ -752,14 +753,8 @@ def pg_dump_target(url: str) -> str:
 
 
 def _check_handle(handle: str) -> str:
-    h = (handle or "").strip()
-    if not h or len(h) > 200 or any(c.isspace() for c in h):
-        raise InputError(
-            f"account handle {handle!r} must be 1-200 characters without spaces",
-            field="account",
-            value=handle,
-        )
-    return h
+    """The folded handle (service.accounts_rules), or an InputError."""
+    return check_handle(handle)
 
 
 def _now() -> datetime:

@@ -51,7 +51,7 @@ def base_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     """A small imported history, built once; each test works on a copy."""
     home = tmp_path_factory.mktemp("access") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
-    ws.import_csv(write_history(home.parent / "history.csv", 12))
+    ws.import_csv(write_history(home.parent / "history.csv", 12), new_accounts="UTC")
     ws.close()
     return home
 

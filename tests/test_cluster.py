@@ -191,7 +191,7 @@ def test_cluster_import_equals_local_import(
 
     src = small_csv(tmp_path / "posts.csv", 60)
     local = Workspace(settings=Settings(home=tmp_path / "local"), embedder=embedder)
-    local_summary = local.import_csv(src)
+    local_summary = local.import_csv(src, new_accounts="UTC")
 
     use_embedder(embedder)
     monkeypatch.setenv("SOUNDING_HOME", str(tmp_path / "cluster"))

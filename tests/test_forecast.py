@@ -312,7 +312,7 @@ def test_too_little_history_to_train(workspace, tmp_path):
             for i in range(30)
         )
     )
-    workspace.import_csv(p)
+    workspace.import_csv(p, new_accounts="UTC")
     with pytest.raises(NotReady, match="training needs at least"):
         train(workspace, "impressions")
 

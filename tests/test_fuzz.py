@@ -77,7 +77,7 @@ def write_history(path: Path, n: int) -> Path:
 def fuzz_workspace(tmp_path_factory: pytest.TempPathFactory, embedder) -> Workspace:
     home = tmp_path_factory.mktemp("fuzz") / "home"
     ws = Workspace(settings=Settings(home=home, token=TOKEN), embedder=embedder)
-    ws.import_csv(write_history(home.parent / "history.csv", 36))
+    ws.import_csv(write_history(home.parent / "history.csv", 36), new_accounts="UTC")
     yield ws
     ws.close()
 
@@ -274,7 +274,7 @@ COUNTS = st.one_of(
 def value_app(tmp_path_factory: pytest.TempPathFactory, embedder):
     home = tmp_path_factory.mktemp("values") / "home"
     ws = Workspace(settings=Settings(home=home, token=VALUE_TOKEN), embedder=embedder)
-    ws.import_csv(write_history(home.parent / "history.csv", 6))
+    ws.import_csv(write_history(home.parent / "history.csv", 6), new_accounts="UTC")
     yield create_app(workspace=ws)
     ws.close()
 

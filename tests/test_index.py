@@ -339,7 +339,7 @@ def test_stale_index_is_detected_and_rebuilt(
         (tmp_path / "new.csv").write_text(
             f"post_id,account,text,posted_at,impressions\nnew-1,loomhaven,{text},2026-10-30T10:00:00Z,10\n"
         )
-        assert ws2.import_csv(tmp_path / "new.csv").added == 1
+        assert ws2.import_csv(tmp_path / "new.csv", new_accounts="UTC").added == 1
         q = embedder.encode([text])
         pk, sim = ws1.retrieval.nearest(q, 1)[0][0]
         assert ws1.store.posts_by_pk([pk])[pk]["post_id"] == "new-1"
@@ -352,7 +352,7 @@ def test_stale_index_is_detected_and_rebuilt(
             "new-1,loomhaven,Entirely different words about parking charges.,"
             "2026-10-30T10:00:00Z,10\n"
         )
-        assert ws2.import_csv(tmp_path / "edit.csv").updated == 1
+        assert ws2.import_csv(tmp_path / "edit.csv", new_accounts="UTC").updated == 1
         pk2, sim2 = ws1.retrieval.nearest(q, 1)[0][0]
         assert pk2 != pk or sim2 < 0.9
     finally:

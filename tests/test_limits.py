@@ -30,7 +30,7 @@ def base_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     home = tmp_path_factory.mktemp("limits") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
     (home.parent / "h.csv").write_bytes(history_csv(10, prefix="lm", step_hours=3))
-    ws.import_csv(home.parent / "h.csv")
+    ws.import_csv(home.parent / "h.csv", new_accounts="UTC")
     ws.close()
     return home
 

@@ -322,7 +322,7 @@ def small_workspace(make_workspace, tmp_path: Path):
     path = tmp_path / "few.csv"
     rows.to_csv(path, index=False)
     ws = make_workspace("few")
-    ws.import_csv(path)
+    ws.import_csv(path, new_accounts="UTC")
     return ws
 
 

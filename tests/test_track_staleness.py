@@ -130,7 +130,7 @@ def test_live_coverage_outside_its_binomial_band_warns(
         for i in range(50)
     ]
     (tmp_path / "posts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    workspace.import_csv(tmp_path / "posts.csv")
+    workspace.import_csv(tmp_path / "posts.csv", new_accounts="UTC")
     low, _ = _band(50, 0.8)
     held = low + offset
     with workspace.store.session() as s:

@@ -40,7 +40,17 @@ if typing.TYPE_CHECKING:
 router = APIRouter(prefix="/v1", tags=["imports"])
 
 FILE_FIELD = "file"
-TEXT_FIELDS = ("account", "timezone", "map", "time_format", "date_order", "decimal_comma", "mapping")
+TEXT_FIELDS = (
+    "account",
+    "timezone",
+    "map",
+    "time_format",
+    "date_order",
+    "decimal_comma",
+    "mapping",
+    "new_account",
+    "encoding",
+)
 # A form field is a handle, a zone name or one mapping: never long.
 MAX_FIELD_BYTES = 64 * 1024
 
@@ -91,6 +101,16 @@ UPLOAD_BODY: dict[str, Any] = {
                     "mapping": {
                         "type": "string",
                         "description": "A saved mapping's name; the other fields override it",
+                    },
+                    "new_account": {
+                        "type": "string",
+                        "enum": ["true", "false"],
+                        "description": "Create the accounts the file names that the store lacks, "
+                        "in `timezone` (which it needs); otherwise an unknown account is refused",
+                    },
+                    "encoding": {
+                        "type": "string",
+                        "description": "The file's text encoding, any codec Python knows (default: UTF-8)",
                     },
                 },
             }
@@ -288,6 +308,26 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
     return combine(load_mapping(home, name) if name else None, given)
 
 
+def upload_extras(upload: Upload, options: ImportOptions) -> dict[str, Any]:
+    """The form's fields that are not a reading option: new accounts, encoding."""
+    new = upload.one("new_account")
+    if new not in (None, "true", "false"):
+        raise InputError("new_account must be true or false", field="new_account")
+    zone_name: str | None = None
+    if new == "true":
+        zone_name = options.timezone
+        if not zone_name:
+            raise InputError(
+                "new_account needs timezone: the zone the new account's local hours are counted in",
+                field="timezone",
+            )
+    extras: dict[str, Any] = {"new_accounts": zone_name}
+    encoding = upload.one("encoding")
+    if encoding is not None:
+        extras["encoding"] = encoding
+    return extras
+
+
 @router.post(
     "/imports",
     response_model=ImportSummary | ImportPreview,
@@ -324,7 +364,7 @@ async def create_import(
     assert upload.path is not None  # receive_upload raises when the form has no file
     try:
         o = upload_options(upload, ws.settings.resolved_home)
-        kw = o.kwargs()
+        kw = {**o.kwargs(), **upload_extras(upload, o)}
         # Reading, embedding and writing are slow and blocking: off the event loop.
         if dry_run:
             preview: ImportPreview = await run_in_threadpool(ws.preview_import, upload.path, **kw)
