@@ -37,7 +37,7 @@ def fold_handle(raw: str) -> str:
 
 
 def _shown(c: str) -> str:
-    if c.isprintable() and not c.isspace():
+    if c.isascii() and c.isprintable() and not c.isspace():
         return repr(c)
     return f"U+{ord(c):04X} ({unicodedata.name(c, 'unnamed')})"
 

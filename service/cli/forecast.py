@@ -15,11 +15,17 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_C
 from .. import forecasting
 from ..forecasting import CAUTION, Draft, Forecast
 from ..plan import forecast_plan
-from ..timeparse import localize, now_utc, parse_time, zone
+from ..plan_options import PlanOptions
+from ..timeparse import TimeReader, localize, now_utc, zone
 from ..track_record import give, staleness
 from ..workspace import Workspace
 from .base import app, out, print_json, workspace
+from .mappings import DAY_FIRST, MONTH_FIRST, TIME_FORMAT
+from .plan_view import plan_options, print_plan
 from .render import Column, level_bar, print_table, typical_miss
+
+# Exit status when rows of a plan could not be forecast, as import's for rejected rows.
+EXIT_REJECTS = 3
 
 METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
 COVERAGE_HELP = f"Interval coverage, {MIN_COVERAGE} to {MAX_COVERAGE}."
@@ -194,17 +200,21 @@ def print_forecast(f: Forecast, *, wide: bool = False) -> None:
     out.print(f"[dim]{CAUTION}[/dim]")
 
 
-def planned(at: str | None, account: str) -> datetime | None:
+def planned(at: str | None, account: str, options: PlanOptions | None = None) -> datetime | None:
+    """``--at`` read as a plan file's times are (zone, format, date order)."""
     if not at:
         return None
-    tz = workspace().store.account(account).timezone
-    return parse_time(at, tz=tz, where="--at")
+    o = options or PlanOptions()
+    tz = o.timezone or workspace().store.account(account).timezone
+    return TimeReader(layout=o.layout()).read(at, tz=tz, where="--at")
 
 
 @app.command("check")
 def check_cmd(
     text: str | None = typer.Argument(None, help="The draft (or use --plan for a plan file)."),
-    account: str | None = typer.Option(None, "--account", help="Account that would post it."),
+    account: str | None = typer.Option(
+        None, "--account", help="Account that would post it (with --plan: for rows without one)."
+    ),
     at: str | None = typer.Option(
         None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."
     ),
@@ -214,6 +224,15 @@ def check_cmd(
         None, "--plan", help="Plan CSV: draft_id,account,text,planned_at[,has_media]."
     ),
     dest: Path | None = typer.Option(None, "--out", help="Where to write the plan's forecasts (CSV)."),
+    timezone: str | None = typer.Option(
+        None, "--timezone", help="IANA zone of times without an offset (default: the account's)."
+    ),
+    time_format: str | None = TIME_FORMAT,
+    day_first: bool = DAY_FIRST,
+    month_first: bool = MONTH_FIRST,
+    allow_rejects: bool = typer.Option(
+        False, "--allow-rejects", help="With --plan: exit 0 even if rows could not be forecast (else 3)."
+    ),
     media: bool = typer.Option(False, "--media", help="An image or video goes with the text."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     no_record: bool = typer.Option(False, "--no-record", help="Keep this forecast out of the track record."),
@@ -223,14 +242,25 @@ def check_cmd(
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
+    options = plan_options(
+        account=account,
+        timezone=timezone,
+        time_format=time_format,
+        day_first=day_first,
+        month_first=month_first,
+    )
     if plan is not None:
         if dest is None:
             raise InputError("--plan needs --out for the forecasts", field="--out")
-        counts = forecast_plan(ws, plan, dest, metric=metric, coverage=coverage, record=not no_record)
-        out.print(
-            f"{counts.forecast} of {counts.rows} drafts forecast into {dest}"
-            + (f"; {counts.failed} with a reason in warnings" if counts.failed else "")
+        counts = forecast_plan(
+            ws, plan, dest, metric=metric, coverage=coverage, record=not no_record, options=options
         )
+        if as_json:
+            print_json({"rows": counts.rows, "forecast": counts.forecast, "lines": counts.lines})
+        else:
+            print_plan(counts, str(dest), wide=wide)
+        if counts.failed and not allow_rejects:
+            raise typer.Exit(EXIT_REJECTS)
         return
     if not text:
         raise InputError("give the draft text, or --plan with a plan file", field="text")
@@ -239,7 +269,7 @@ def check_cmd(
     # Adapted, staleness-checked and recorded in the track record (issue 11).
     f = give(
         ws,
-        [Draft(text=text, account=account, planned_at=planned(at, account), has_media=media)],
+        [Draft(text=text, account=account, planned_at=planned(at, account, options), has_media=media)],
         metric=metric,
         coverage=coverage,
         record=not no_record,
