@@ -55,6 +55,8 @@ from models.metrics import (
     target_value,
     target_values,
 )
+from service.accounts_rules import fold_handle
+from service.encodings import codec_of
 
 from .answers import Calibration, LiveCoverage
 from .forecasting import Draft, Forecast, _back
@@ -483,7 +485,12 @@ def staleness(
 
 
 def link_drafts(
-    ws: Any, path: str | Path, *, mapping: dict[str, str] | None = None, account: str | None = None
+    ws: Any,
+    path: str | Path,
+    *,
+    mapping: dict[str, str] | None = None,
+    account: str | None = None,
+    encoding: str | None = None,
 ) -> int:
     """Store the explicit draft ids of an imported file (its ``draft_id``
     column, or the column ``--map draft_id=...`` names)."""
@@ -491,13 +498,13 @@ def link_drafts(
     col = mapping.get("draft_id", "draft_id")
     acc_col, id_col = mapping.get("account", "account"), mapping.get("post_id", "post_id")
     pairs: dict[tuple[str, str], str] = {}
-    with Path(path).open("r", encoding="utf-8-sig", newline="") as handle:
+    with Path(path).open("r", encoding=codec_of(encoding), newline="") as handle:
         reader = csv.DictReader(handle)
         if col not in (reader.fieldnames or []):
             return 0
         for rec in reader:
             draft = (rec.get(col) or "").strip()
-            acc = (rec.get(acc_col) or "").strip() or account
+            acc = fold_handle(rec.get(acc_col) or "") or account
             pid = (rec.get(id_col) or "").strip()
             if draft and acc and pid:
                 pairs[(acc, pid)] = draft
@@ -797,10 +804,11 @@ def after_import(
     mapping: dict[str, str] | None = None,
     account: str | None = None,
     now: datetime | None = None,
+    encoding: str | None = None,
 ) -> dict[str, Any]:
     """Everything the track record does after an import: explicit draft ids,
     matching, scoring, and adaptation of every metric with a model."""
-    linked = link_drafts(ws, path, mapping=mapping, account=account)
+    linked = link_drafts(ws, path, mapping=mapping, account=account, encoding=encoding)
     matched = match(ws)
     scored = score(ws, now=now)
     fed: dict[str, Any] = {}

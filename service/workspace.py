@@ -343,7 +343,7 @@ class Workspace:
             if summary.changed_pks or summary.updated:
                 self._sync_index(summary.changed_pks)
             # The track record: draft ids, matching, scoring, adaptation (issue 11).
-            after_import(self, path, mapping=mapping, account=account)
+            after_import(self, path, mapping=mapping, account=account, encoding=layout.get("encoding"))
             self.forecaster.warm()  # the import pays for the views, not the next forecast
             return summary
 

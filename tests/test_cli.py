@@ -119,7 +119,7 @@ def test_unknown_timezone_is_refused(tmp_path: Path) -> None:
         (("import", "{tmp}/a.csv", "--map", "nonsense"), "must look like ours=theirs"),
         (("import", "{tmp}/a.csv", "--map", "text=Nope", "--account", "g"), "'Nope', which is not in"),
         (("import", "{tmp}/latin1.csv", "--account", "g"), "not UTF-8"),
-        (("account", "two words"), "without spaces"),
+        (("account", "two words"), "holds U+0020 (SPACE)"),
         (("precedents", "   "), "empty"),
         (("precedents", "hello", "--since", "last tuesday"), "cannot read time"),
         (("serve", "--host", "0.0.0.0"), "without SOUNDING_TOKEN"),

@@ -295,8 +295,10 @@ def test_backup_while_importing_is_consistent_and_restores(base_home: Path, tmp_
     def writer() -> None:
         try:
             ws.import_csv(
-                write_csv(tmp_path / "more.csv", rows(200, prefix="more", start=100)), progress=progress
-            , new_accounts="UTC")
+                write_csv(tmp_path / "more.csv", rows(200, prefix="more", start=100)),
+                progress=progress,
+                new_accounts="UTC",
+            )
         except BaseException as exc:  # reported below
             failure.append(exc)
 

@@ -105,7 +105,9 @@ def test_each_layout_imports_as_the_canonical_file(
     opts = dict(opts)
     mapping = {**MAP, **(RATE if opts.pop("rate", False) else {})}
     ws = london_workspace(make_workspace, name)
-    s = ws.import_csv(FIXTURES / f"{name}.csv", account="loomhaven", mapping=mapping, **opts, new_accounts="UTC")
+    s = ws.import_csv(
+        FIXTURES / f"{name}.csv", account="loomhaven", mapping=mapping, **opts, new_accounts="UTC"
+    )
     assert (s.added, s.rejected) == (13, 0), s.problems
     got = stored(ws)
     assert set(got) == set(canonical)
@@ -163,7 +165,13 @@ def test_rows_in_the_other_order_are_rejected(make_workspace) -> None:
     # Read month-first, a day-first date with a day above 12 cannot be a date
     # (there is no month 13): those rows, and only those, are rejected.
     ws = london_workspace(make_workspace, "wrong")
-    s = ws.import_csv(FIXTURES / "day_first.csv", account="loomhaven", mapping=MAP, date_order="month-first", new_accounts="UTC")
+    s = ws.import_csv(
+        FIXTURES / "day_first.csv",
+        account="loomhaven",
+        mapping=MAP,
+        date_order="month-first",
+        new_accounts="UTC",
+    )
     gen = _generator()
     days = [datetime.fromisoformat(r["posted_at"]).astimezone(ZoneInfo(LONDON)).day for r in gen.canonical()]
     assert [p.line for p in s.problems] == [i + 2 for i, d in enumerate(days) if d > 12]

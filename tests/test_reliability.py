@@ -295,7 +295,9 @@ def test_forget_during_an_import_leaves_nothing_searchable(make_workspace, tmp_p
     and the account is not re-created."""
     ws = make_workspace("home", import_batch_rows=50)
     ws.store.set_account("gone", timezone="Europe/London")
-    ws.import_csv(write_csv(tmp_path / "old.csv", rows(60, prefix="old", accounts=("gone",))), new_accounts="UTC")
+    ws.import_csv(
+        write_csv(tmp_path / "old.csv", rows(60, prefix="old", accounts=("gone",))), new_accounts="UTC"
+    )
     other = make_workspace("home")  # the same data directory, its own locks
     started, resume = threading.Event(), threading.Event()
     failures: list[BaseException] = []
@@ -308,7 +310,8 @@ def test_forget_during_an_import_leaves_nothing_searchable(make_workspace, tmp_p
         try:
             ws.import_csv(
                 write_csv(tmp_path / "new.csv", rows(200, prefix="new", accounts=("gone", "kept"))),
-                progress=progress, new_accounts="UTC",
+                progress=progress,
+                new_accounts="UTC",
             )
         except BaseException as exc:  # reported below
             failures.append(exc)
@@ -411,7 +414,9 @@ def test_the_index_is_rebuilt_when_it_misses_posts(make_workspace, tmp_path: Pat
         if not done:  # once, between two batches of the import below
             done.append(import_csv(ws.store, ws.embedder, outside, new_accounts="UTC").added)
 
-    ws.import_csv(write_csv(tmp_path / "c.csv", rows(30, prefix="fp", start=30)), progress=progress, new_accounts="UTC")
+    ws.import_csv(
+        write_csv(tmp_path / "c.csv", rows(30, prefix="fp", start=30)), progress=progress, new_accounts="UTC"
+    )
     assert done == [10]
     assert ws.store.counts()["posts"] == 60
     assert ws.index().ntotal == 60 and index_matches_store(ws)
@@ -569,7 +574,9 @@ def test_a_read_only_directory_serves_reads_and_refuses_writes(
 
 def test_a_handle_with_a_slash_can_be_forgotten_over_http(workspace: Workspace, tmp_path: Path) -> None:
     ws = open_ws(workspace.settings.resolved_home, workspace.embedder)
-    ws.import_csv(write_csv(tmp_path / "a.csv", rows(4, prefix="sl", accounts=("team/news",))), new_accounts="UTC")
+    ws.import_csv(
+        write_csv(tmp_path / "a.csv", rows(4, prefix="sl", accounts=("team/news",))), new_accounts="UTC"
+    )
     with TestClient(create_app(workspace=ws)) as c:
         r = c.delete("/v1/accounts/team/news", headers=AUTH)
     assert r.status_code == 200, r.text

@@ -151,8 +151,12 @@ def _csv(path: Path, body: str) -> Path:
 
 
 def test_blank_metric_carries_over(workspace: Workspace, tmp_path: Path) -> None:
-    workspace.import_csv(_csv(tmp_path / "a.csv", "p1,g,Hello garden,2026-01-01T10:00Z,100,5,true\n"), new_accounts="UTC")
-    s = workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,Hello garden,2026-01-01T10:00Z,150,,\n"), new_accounts="UTC")
+    workspace.import_csv(
+        _csv(tmp_path / "a.csv", "p1,g,Hello garden,2026-01-01T10:00Z,100,5,true\n"), new_accounts="UTC"
+    )
+    s = workspace.import_csv(
+        _csv(tmp_path / "b.csv", "p1,g,Hello garden,2026-01-01T10:00Z,150,,\n"), new_accounts="UTC"
+    )
     assert s.updated == 1
     pk = int(workspace.store.posts_frame()["pk"].iloc[0])
     hist = snapshots_of(workspace, pk)
@@ -162,16 +166,22 @@ def test_blank_metric_carries_over(workspace: Workspace, tmp_path: Path) -> None
 
 
 def test_changes_without_new_metrics(workspace: Workspace, embedder: Embedder, tmp_path: Path) -> None:
-    workspace.import_csv(_csv(tmp_path / "a.csv", "p1,g,Hello garden,2026-01-01T10:00Z,100,5,true\n"), new_accounts="UTC")
+    workspace.import_csv(
+        _csv(tmp_path / "a.csv", "p1,g,Hello garden,2026-01-01T10:00Z,100,5,true\n"), new_accounts="UTC"
+    )
     key1 = workspace.store.posts_frame()["vector_key"].iloc[0]
     # A new time only: updated in place, no snapshot, nothing embedded.
     calls = embedder.calls
-    s = workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,Hello garden,2026-01-02T10:00Z,100,5,true\n"), new_accounts="UTC")
+    s = workspace.import_csv(
+        _csv(tmp_path / "b.csv", "p1,g,Hello garden,2026-01-02T10:00Z,100,5,true\n"), new_accounts="UTC"
+    )
     assert (s.updated, s.embedded, embedder.calls) == (1, 0, calls)
     assert workspace.store.counts()["snapshots"] == 1
     assert workspace.store.posts_frame()["posted_at"].iloc[0] == pd.Timestamp("2026-01-02T10:00Z")
     # A new text: embedded once, new vector key, found by search.
-    s = workspace.import_csv(_csv(tmp_path / "c.csv", "p1,g,Goodbye garden,2026-01-02T10:00Z,100,5,true\n"), new_accounts="UTC")
+    s = workspace.import_csv(
+        _csv(tmp_path / "c.csv", "p1,g,Goodbye garden,2026-01-02T10:00Z,100,5,true\n"), new_accounts="UTC"
+    )
     assert (s.updated, s.embedded, embedder.calls) == (1, 1, calls + 1)
     row = workspace.store.posts_frame().iloc[0]
     assert row["text"] == "Goodbye garden" and row["vector_key"] != key1
@@ -187,8 +197,9 @@ def test_same_text_shares_one_vector(workspace: Workspace, embedder: Embedder, t
             tmp_path / "a.csv",
             "p1,g,Bees  in the lavender,2026-01-01T10:00Z,1,1,\n"
             "p2,h,Bees in the lavender ,2026-01-02T10:00Z,2,1,\n",
-        )
-    , new_accounts="UTC")
+        ),
+        new_accounts="UTC",
+    )
     assert (s.added, s.embedded, embedder.calls - calls) == (2, 1, 1)
     assert workspace.store.counts()["vectors"] == 1
     # Forgetting one post keeps the vector the other still uses.

@@ -113,7 +113,9 @@ def test_explicit_draft_id_wins_over_text_and_time(ws: Workspace, tmp_path: Path
     f = _given(ws, text=ROSES, account="garden", planned=T0, given=T0 - timedelta(days=1), draft_id="plan-7")
     # Different words and five days late: only the explicit id can link them.
     rows = [("p1", "garden", FERNS, T0 + timedelta(days=5), "plan-7")]
-    ws.import_csv(_csv(tmp_path / "pub.csv", rows, draft_col="Draft"), mapping={"draft_id": "Draft"}, new_accounts="UTC")
+    ws.import_csv(
+        _csv(tmp_path / "pub.csv", rows, draft_col="Draft"), mapping={"draft_id": "Draft"}, new_accounts="UTC"
+    )
     assert _matches(ws) == {f: ("p1", "draft_id")}
 
 
