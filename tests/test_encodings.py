@@ -90,7 +90,8 @@ def test_utf16_file_reads_when_named(workspace: Workspace, tmp_path: Path) -> No
 
 def test_form_field_encoding(workspace: Workspace, cp1252_file: Path) -> None:
     workspace.store.set_account("garden")
-    client = TestClient(create_app(workspace=workspace))
+    # A preview from this machine needs no token (it stores nothing).
+    client = TestClient(create_app(workspace=workspace), client=("127.0.0.1", 50000))
     data = cp1252_file.read_bytes()
     r = client.post("/v1/imports?dry_run=true", files={"file": ("w.csv", data, "text/csv")})
     assert r.status_code == 422 and "line 3, column 14" in r.json()["error"]["message"]
@@ -101,3 +102,19 @@ def test_form_field_encoding(workspace: Workspace, cp1252_file: Path) -> None:
     )
     assert r.status_code == 200, r.text
     assert r.json()["would_import"] == 2
+
+
+def test_import_preview_needs_no_token_on_loopback_but_importing_does(
+    workspace: Workspace, cp1252_file: Path
+) -> None:
+    workspace.store.set_account("garden")
+    data = cp1252_file.read_bytes()
+    local = TestClient(create_app(workspace=workspace), client=("127.0.0.1", 50000))
+    far = TestClient(create_app(workspace=workspace), client=("192.0.2.7", 50000))  # RFC 5737 address
+    form = {"encoding": "cp1252"}
+    assert (
+        local.post("/v1/imports?dry_run=true", files={"file": ("w.csv", data)}, data=form).status_code == 200
+    )
+    assert far.post("/v1/imports?dry_run=true", files={"file": ("w.csv", data)}, data=form).status_code == 401
+    assert local.post("/v1/imports", files={"file": ("w.csv", data)}, data=form).status_code == 401
+    assert workspace.store.counts()["posts"] == 0

@@ -30,7 +30,7 @@ from models.errors import AuthError, InputError, LimitExceeded, NotFound, NotRea
 from ...importer import ImportOptions, parse_mapping
 from ...mappings import combine, load_mapping
 from ...timeparse import DateOrder
-from ..deps import WorkspaceDep, WriteAccess
+from ..deps import Credentials, SettingsDep, WorkspaceDep, from_loopback, require_token
 from ..responses import ERRORS
 from ..schemas import ImportPreview, ImportSummary
 
@@ -338,7 +338,8 @@ def upload_extras(upload: Upload, options: ImportOptions) -> dict[str, Any]:
 async def create_import(
     request: Request,
     ws: WorkspaceDep,
-    _auth: WriteAccess,
+    settings: SettingsDep,
+    creds: Credentials,
     dry_run: Annotated[
         bool,
         Query(
@@ -349,7 +350,10 @@ async def create_import(
 ) -> ImportSummary | ImportPreview:
     """Rows with problems are reported with line, column, reason and a fix
     to try; every valid row is stored, in batches that are each one
-    transaction. With dry_run=true nothing is stored."""
+    transaction. With dry_run=true nothing is stored, and from this machine
+    (loopback) no token is needed for it: a preview changes nothing."""
+    if not (dry_run and from_loopback(request)):
+        require_token(settings, creds)
     if not dry_run:
         ws.check_writable("an import")  # before the upload is written into the data directory
     try:
