@@ -24,6 +24,7 @@ from .routers import (
     health,
     hours,
     imports,
+    mappings,
     precedents,
     segments,
     track_record,
@@ -35,7 +36,19 @@ STATIC = Path(__file__).resolve().parent.parent / "static"
 
 # One router module per resource, in the order they appear in /docs. Imported
 # by name, so a missing module fails at import rather than dropping an endpoint.
-ROUTERS = (health, precedents, forecasts, hours, variants, segments, imports, training, forget, track_record)
+ROUTERS = (
+    health,
+    precedents,
+    forecasts,
+    hours,
+    variants,
+    segments,
+    imports,
+    mappings,
+    training,
+    forget,
+    track_record,
+)
 
 
 def create_app(
