@@ -20,6 +20,7 @@ ENDPOINTS = {
     ("POST", "/v1/variants"),
     ("POST", "/v1/segments"),
     ("POST", "/v1/imports"),
+    ("GET", "/v1/mappings"),
     ("POST", "/v1/training"),
     ("DELETE", "/v1/accounts/{handle}"),
     ("DELETE", "/v1/posts/{post_id}"),
