@@ -126,6 +126,7 @@ def test_unknown_timezone_is_refused(tmp_path: Path) -> None:
     ],
 )
 def test_expected_failures_are_one_line(args: tuple[str, ...], fragment: str, tmp_path: Path) -> None:
+    (tmp_path / "home").mkdir()  # read commands never create a data directory
     (tmp_path / "a.csv").write_text(CSV)
     (tmp_path / "latin1.csv").write_bytes(
         "post_id,text,posted_at,impressions\np1,Caf\u00e9,2026-01-01T10:00Z,1\n".encode("latin-1")
