@@ -296,7 +296,7 @@ def test_accounts(workspace: Workspace) -> None:
     assert workspace.store.set_account("lab").timezone == "UTC"
     with pytest.raises(InputError, match="unknown time zone 'Mars/Olympus'"):
         workspace.store.set_account("garden", timezone="Mars/Olympus")
-    with pytest.raises(InputError, match="without spaces"):
+    with pytest.raises(InputError, match=r"holds U\+0020 \(SPACE\)"):
         workspace.store.set_account("two words")
     with pytest.raises(InputError):
         workspace.store.set_account("")
