@@ -138,6 +138,20 @@ def test_upload_form_fields_account_timezone_and_mapping(client: TestClient, ws:
             "map": ["post_id=id", "text=body", "posted_at=when", "impressions=views"],
         },
     )
+    # A new account is made only on purpose: refused, naming the closest handle.
+    assert r.status_code == 404 and "did you mean loomhaven?" in r.json()["error"]["message"]
+    assert ws.store.counts()["posts"] == 0 or "loomhaven_lab" not in {a.handle for a in ws.store.accounts()}
+    r = client.post(
+        "/v1/imports",
+        headers=AUTH,
+        files={"file": ("theirs.csv", data, "text/csv")},
+        data={
+            "account": "loomhaven_lab",
+            "timezone": "America/New_York",
+            "new_account": "true",
+            "map": ["post_id=id", "text=body", "posted_at=when", "impressions=views"],
+        },
+    )
     assert r.status_code == 200, r.text
     assert r.json()["added"] == 1
     row = ws.store.posts_frame(account="loomhaven_lab").iloc[0]
