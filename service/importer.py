@@ -47,14 +47,13 @@ from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
 from models.metrics import METRIC_COLUMNS, Metric
 from service.accounts_rules import HANDLE_RULE, check_handle, fold_handle, handle_problem
+from service.answers import Instant, MetricValues
+from service.csvread import Abandoned, BadRecord, Record, RecordReader
 from service.encodings import check_text, codec_of
 from service.import_accounts import accounts_to_create, handles_in
-
-from .answers import Instant, MetricValues
-from .csvread import Abandoned, BadRecord, Record, RecordReader
-from .numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
-from .store import PostRow, Store
-from .timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order, zone
+from service.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
+from service.store import PostRow, Store
+from service.timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order, zone
 
 RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
 CANONICAL_COLUMNS: tuple[str, ...] = (

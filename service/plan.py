@@ -24,13 +24,12 @@ from pathlib import Path
 from models.errors import CSVFormatError, InputError, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 from service.accounts_rules import fold_handle
+from service.forecasting import Draft, Forecast
+from service.importer import _FALSE, _TRUE, check_encoding
 from service.plan_options import PlanOptions
 from service.timeparse import TimeReader, check_date_order
-
-from .forecasting import Draft, Forecast
-from .importer import _FALSE, _TRUE, check_encoding
-from .track_record import give
-from .workspace import Workspace
+from service.track_record import give
+from service.workspace import Workspace
 
 PLAN_COLUMNS = ("draft_id", "account", "text", "planned_at")
 OPTIONAL_COLUMNS = ("has_media",)

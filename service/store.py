@@ -31,9 +31,8 @@ from models.errors import InputError, NotFound, StoreError
 from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
 from service.accounts_rules import check_handle, unknown_account
-
-from .migrations import check_current, upgrade
-from .tables import (
+from service.migrations import check_current, upgrade
+from service.tables import (
     HISTORY_STAMP,
     SCORING_STAMP,
     STAMP_OF,
@@ -44,7 +43,7 @@ from .tables import (
     Snapshot,
     Vector,
 )
-from .timeparse import as_utc, now_utc, to_naive_utc, zone
+from service.timeparse import as_utc, now_utc, to_naive_utc, zone
 
 _LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
 

@@ -9,9 +9,8 @@ from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 
 from models.errors import AuthError
-
-from ..settings import Settings
-from ..workspace import Workspace
+from service.settings import Settings
+from service.workspace import Workspace
 
 _bearer = HTTPBearer(auto_error=False, description="SOUNDING_TOKEN of the server")
 

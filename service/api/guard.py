@@ -27,7 +27,7 @@ import h11
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from uvicorn.protocols.http.h11_impl import H11Protocol
 
-from ..settings import Settings
+from service.settings import Settings
 
 log = logging.getLogger("sounding.api")
 

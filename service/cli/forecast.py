@@ -11,18 +11,17 @@ import typer
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
-
-from .. import forecasting
-from ..forecasting import CAUTION, Draft, Forecast
-from ..plan import forecast_plan
-from ..plan_options import PlanOptions
-from ..timeparse import TimeReader, localize, now_utc, zone
-from ..track_record import give, staleness
-from ..workspace import Workspace
-from .base import app, out, print_json, workspace
-from .mappings import DAY_FIRST, MONTH_FIRST, TIME_FORMAT
-from .plan_view import plan_options, print_plan
-from .render import Column, level_bar, print_table, typical_miss
+from service import forecasting
+from service.cli.base import app, out, print_json, workspace
+from service.cli.mappings import DAY_FIRST, MONTH_FIRST, TIME_FORMAT
+from service.cli.plan_view import plan_options, print_plan
+from service.cli.render import Column, level_bar, print_table, typical_miss
+from service.forecasting import CAUTION, Draft, Forecast
+from service.plan import forecast_plan
+from service.plan_options import PlanOptions
+from service.timeparse import TimeReader, localize, now_utc, zone
+from service.track_record import give, staleness
+from service.workspace import Workspace
 
 # Exit status when rows of a plan could not be forecast, as import's for rejected rows.
 EXIT_REJECTS = 3

@@ -4,12 +4,11 @@ them, and a fitted table of what was forecast."""
 from __future__ import annotations
 
 from models.errors import InputError
-
-from ..plan import RATES, PlanCounts
-from ..plan_options import PlanOptions
-from ..timeparse import DateOrder
-from .base import err, out
-from .render import Column, print_table
+from service.cli.base import err, out
+from service.cli.render import Column, print_table
+from service.plan import RATES, PlanCounts
+from service.plan_options import PlanOptions
+from service.timeparse import DateOrder
 
 
 def plan_options(

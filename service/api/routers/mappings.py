@@ -6,10 +6,9 @@ from fastapi import APIRouter
 from pydantic import BaseModel, Field
 
 from models.errors import StoreError
-
-from ...mappings import list_mappings
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.mappings import list_mappings
 
 router = APIRouter(prefix="/v1", tags=["imports"])
 
