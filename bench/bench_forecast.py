@@ -42,8 +42,9 @@ sys.path.insert(0, str(ROOT))
 
 from models.embedding import Embedder, bundled_model_path  # noqa: E402
 from models.index import VectorIndex, recall_at  # noqa: E402
-from service import forecasting  # noqa: E402
 from service.cli.history import _demo_accounts  # noqa: E402
+from service.forecast import training as forecasting  # noqa: E402
+from service.ingest.options import ImportOptions  # noqa: E402
 from service.settings import Settings  # noqa: E402
 from service.storage.post_writes import PostRow  # noqa: E402
 from service.workspace import Workspace  # noqa: E402
@@ -222,7 +223,7 @@ def index_only(sizes: list[int], rng: np.random.Generator, as_json: bool, keep: 
         if not demo.store.counts()["posts"]:
             for handle, name, tz in _demo_accounts():
                 demo.store.set_account(handle, display_name=name, timezone=tz)
-            demo.import_csv(ROOT / "demo_data" / "posts.csv")
+            demo.import_csv(ROOT / "demo_data" / "posts.csv", ImportOptions(new_accounts="UTC"))
         _, base, _ = demo.store.index_data()
         settings = demo.settings
         demo.close()
@@ -307,7 +308,7 @@ def main() -> None:
         if not demo.store.counts()["posts"]:
             for handle, name, tz in _demo_accounts():
                 demo.store.set_account(handle, display_name=name, timezone=tz)
-            demo.import_csv(ROOT / "demo_data" / "posts.csv")
+            demo.import_csv(ROOT / "demo_data" / "posts.csv", ImportOptions(new_accounts="UTC"))
         texts = list(demo.store.posts_frame()["text"])
         sample = [
             texts[i] for i in rng.choice(len(texts), size=min(args.embed_sample, len(texts)), replace=False)

@@ -65,6 +65,7 @@ import numpy as np  # noqa: E402
 
 from models.embedding import Embedder, bundled_model_path, normalise_text  # noqa: E402
 from service.cli.history import _demo_accounts  # noqa: E402
+from service.ingest.options import ImportOptions  # noqa: E402
 from service.settings import Settings  # noqa: E402
 from service.workspace import Workspace  # noqa: E402
 
@@ -214,7 +215,7 @@ def main() -> int:
         for handle, name, tz in _demo_accounts():
             tws.store.set_account(handle, display_name=name, timezone=tz)
         t = time.perf_counter()
-        tws.import_csv(csv_path)
+        tws.import_csv(csv_path, ImportOptions(new_accounts="UTC"))
         torch_import_s = time.perf_counter() - t
         tws.close()
 
@@ -232,7 +233,7 @@ def main() -> int:
     t = time.perf_counter()
     if profiler:
         profiler.enable()
-    first = ws.import_csv(csv_path)
+    first = ws.import_csv(csv_path, ImportOptions(new_accounts="UTC"))
     if profiler:
         profiler.disable()
     import_s = time.perf_counter() - t
@@ -243,7 +244,7 @@ def main() -> int:
     # (c) re-import of the unchanged file.
     calls1 = embedder.calls
     t = time.perf_counter()
-    again = ws.import_csv(csv_path)
+    again = ws.import_csv(csv_path, ImportOptions(new_accounts="UTC"))
     reimport_s = time.perf_counter() - t
     re_stages = dict(stages.total)
     embedded_again = embedder.calls - calls1

@@ -44,6 +44,7 @@ from models.evaluation import coverage, mae, spearman
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
 from service.forecast import training as FC
 from service.history.view import build_view, feature_params
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -95,7 +96,7 @@ def main() -> None:
         months = tuple(args.months.split(":")) if args.months else None
         n = canonical_csv(path, rows=args.rows, seed=args.seed, months=months)  # type: ignore[arg-type]
         ws.store.set_account(ACCOUNT, display_name="Package summaries", timezone="UTC")
-        ws.import_csv(path)
+        ws.import_csv(path, ImportOptions(new_accounts="UTC"))
         print(f"imported {n} rows in {time.perf_counter() - t0:.0f} s")
     embed_s = time.perf_counter() - t0
     now = datetime(2027, 1, 1, tzinfo=UTC)

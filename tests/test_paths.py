@@ -24,6 +24,7 @@ from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.forecast.draft import Draft
 from service.forecast.training import train
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -37,7 +38,7 @@ def small_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     home = tmp_path_factory.mktemp("paths") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
     (home.parent / "h.csv").write_bytes(history_csv(N, prefix="p", accounts=ACCOUNTS, engagements=True))
-    ws.import_csv(home.parent / "h.csv")
+    ws.import_csv(home.parent / "h.csv", ImportOptions(new_accounts="UTC"))
     ws.close()
     return home
 
@@ -148,7 +149,7 @@ def test_two_imports_at_once(ws: Workspace, tmp_path: Path) -> None:
 
     def run(p: Path) -> None:
         try:
-            results[p.name] = ws.import_csv(p).added
+            results[p.name] = ws.import_csv(p, ImportOptions(new_accounts="UTC")).added
         except BaseException as exc:  # reported below
             errors.append(exc)
 

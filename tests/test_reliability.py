@@ -40,6 +40,7 @@ from service.cli.history import check_bind
 from service.forecast import training as forecasting
 from service.forecast.draft import Draft
 from service.ingest.importer import import_csv
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.storage.locking import LOCK_FILE
 from service.workspace import Workspace
@@ -122,7 +123,9 @@ def trained_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     home = tmp_path_factory.mktemp("reliability") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
     ws.store.set_account("garden", timezone="Europe/London")
-    ws.import_csv(write_csv(home.parent / "base.csv", rows(300, prefix="base")))
+    ws.import_csv(
+        write_csv(home.parent / "base.csv", rows(300, prefix="base")), ImportOptions(new_accounts="UTC")
+    )
     forecasting.train(ws, "impressions", backtest=False)
     ws.close()
     return home
@@ -295,7 +298,10 @@ def test_forget_during_an_import_leaves_nothing_searchable(make_workspace, tmp_p
     and the account is not re-created."""
     ws = make_workspace("home", import_batch_rows=50)
     ws.store.set_account("gone", timezone="Europe/London")
-    ws.import_csv(write_csv(tmp_path / "old.csv", rows(60, prefix="old", accounts=("gone",))))
+    ws.import_csv(
+        write_csv(tmp_path / "old.csv", rows(60, prefix="old", accounts=("gone",))),
+        ImportOptions(new_accounts="UTC"),
+    )
     other = make_workspace("home")  # the same data directory, its own locks
     started, resume = threading.Event(), threading.Event()
     failures: list[BaseException] = []
@@ -308,6 +314,7 @@ def test_forget_during_an_import_leaves_nothing_searchable(make_workspace, tmp_p
         try:
             ws.import_csv(
                 write_csv(tmp_path / "new.csv", rows(200, prefix="new", accounts=("gone", "kept"))),
+                ImportOptions(new_accounts="UTC"),
                 progress=progress,
             )
         except BaseException as exc:  # reported below
@@ -382,7 +389,7 @@ def test_a_second_writer_gets_busy_not_a_traceback(workspace: Workspace, tmp_pat
     csv_file = write_csv(tmp_path / "x.csv", rows(5, prefix="busy"))
     with held:
         with pytest.raises(Busy, match="another sounding process"):
-            ws.import_csv(csv_file)
+            ws.import_csv(csv_file, ImportOptions(new_accounts="UTC"))
         with TestClient(create_app(workspace=ws)) as c, csv_file.open("rb") as f:
             r = c.post("/v1/imports", headers=AUTH, files={"file": ("x.csv", f, "text/csv")})
         assert r.status_code == 409 and r.json()["error"]["code"] == "busy"
@@ -394,7 +401,9 @@ def test_a_second_writer_gets_busy_not_a_traceback(workspace: Workspace, tmp_pat
         )
         assert r.exit_code == 1 and r.output.startswith("Error: cannot start an import")
         assert "Traceback" not in r.output
-    assert ws.import_csv(csv_file).added == 5  # once the other writer is done
+    assert (
+        ws.import_csv(csv_file, ImportOptions(new_accounts="UTC")).added == 5
+    )  # once the other writer is done
     ws.close()
 
 
@@ -403,15 +412,19 @@ def test_the_index_is_rebuilt_when_it_misses_posts(make_workspace, tmp_path: Pat
     in the middle of an import: the import's index may then not claim the
     store's fingerprint. Before the fix it did, while missing those posts."""
     ws = make_workspace("home", import_batch_rows=10)
-    ws.import_csv(write_csv(tmp_path / "a.csv", rows(20, prefix="fp")))
+    ws.import_csv(write_csv(tmp_path / "a.csv", rows(20, prefix="fp")), ImportOptions(new_accounts="UTC"))
     outside = write_csv(tmp_path / "b.csv", rows(10, prefix="fp", start=20))
     done: list[int] = []
 
     def progress(n: int, _total: int) -> None:
         if not done:  # once, between two batches of the import below
-            done.append(import_csv(ws.store, ws.embedder, outside).added)
+            done.append(import_csv(ws.store, ws.embedder, outside, ImportOptions(new_accounts="UTC")).added)
 
-    ws.import_csv(write_csv(tmp_path / "c.csv", rows(30, prefix="fp", start=30)), progress=progress)
+    ws.import_csv(
+        write_csv(tmp_path / "c.csv", rows(30, prefix="fp", start=30)),
+        ImportOptions(new_accounts="UTC"),
+        progress=progress,
+    )
     assert done == [10]
     assert ws.store.counts()["posts"] == 60
     assert ws.index().ntotal == 60 and index_matches_store(ws)
@@ -462,7 +475,9 @@ def test_a_full_disk_is_an_ordinary_error(
         before = ws.store.counts()["posts"]
         fill(small_disk, leave=256 * 1024)
         with pytest.raises(StoreError) as err:
-            ws.import_csv(write_csv(tmp_path / "more.csv", rows(2000, prefix="full")))
+            ws.import_csv(
+                write_csv(tmp_path / "more.csv", rows(2000, prefix="full")), ImportOptions(new_accounts="UTC")
+            )
         msg = str(err.value)
         assert "new posts were stored" in msg and "the rest of the file was not" in msg
         assert "Traceback" not in msg
@@ -491,7 +506,9 @@ def test_a_full_disk_is_an_ordinary_error(
 
 
 def test_backup_into_a_new_directory(workspace: Workspace, tmp_path: Path) -> None:
-    workspace.import_csv(write_csv(tmp_path / "a.csv", rows(10, prefix="bk")))
+    workspace.import_csv(
+        write_csv(tmp_path / "a.csv", rows(10, prefix="bk")), ImportOptions(new_accounts="UTC")
+    )
     use_embedder(workspace.embedder)
     target = tmp_path / "backups" / "nightly"
     r = CliRunner().invoke(
@@ -509,7 +526,9 @@ def test_backup_into_a_new_directory(workspace: Workspace, tmp_path: Path) -> No
 def test_an_interrupted_backup_leaves_no_plausible_file(
     workspace: Workspace, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    workspace.import_csv(write_csv(tmp_path / "a.csv", rows(10, prefix="bk")))
+    workspace.import_csv(
+        write_csv(tmp_path / "a.csv", rows(10, prefix="bk")), ImportOptions(new_accounts="UTC")
+    )
     dest = tmp_path / "copies" / "team.db"
 
     def killed(*_a: object) -> None:  # stands in for a kill just before the rename
@@ -568,12 +587,18 @@ def test_a_read_only_directory_serves_reads_and_refuses_writes(
 
 
 def test_a_handle_with_a_slash_can_be_forgotten_over_http(workspace: Workspace, tmp_path: Path) -> None:
+    """Handles with a slash are refused now; one left by an older store can still go."""
+    from datetime import datetime
+
+    from service.storage.tables import Account
+
     ws = open_ws(workspace.settings.resolved_home, workspace.embedder)
-    ws.import_csv(write_csv(tmp_path / "a.csv", rows(4, prefix="sl", accounts=("team/news",))))
+    with ws.store.session() as s:
+        s.add(Account(handle="team/news", timezone="UTC", created_at=datetime(2026, 1, 1)))
     with TestClient(create_app(workspace=ws)) as c:
         r = c.delete("/v1/accounts/team/news", headers=AUTH)
     assert r.status_code == 200, r.text
-    assert r.json()["deleted"] == 4 and ws.store.accounts() == []
+    assert r.json()["deleted"] == 0 and ws.store.accounts() == []
     ws.close()
 
 

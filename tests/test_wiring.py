@@ -26,6 +26,7 @@ ENDPOINTS = {
     ("GET", "/v1/map"),
     ("GET", "/v1/surprises"),
     ("POST", "/v1/imports"),
+    ("GET", "/v1/mappings"),
     ("POST", "/v1/training"),
     ("DELETE", "/v1/accounts/{handle}"),
     ("DELETE", "/v1/posts/{post_id}"),

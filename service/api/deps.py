@@ -45,3 +45,16 @@ def require_token(
 WorkspaceDep = Annotated[Workspace, Depends(get_workspace)]
 SettingsDep = Annotated[Settings, Depends(get_settings)]
 WriteAccess = Annotated[None, Depends(require_token)]
+#: The bearer credentials, if any, for an endpoint that decides itself when they are needed.
+Credentials = Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)]
+
+
+def from_loopback(request: Request) -> bool:
+    """Whether the peer is this machine (127.0.0.0/8 or ::1)."""
+    import ipaddress
+
+    host = request.client.host if request.client else ""
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        return False

@@ -128,13 +128,24 @@ _workspace: Workspace | None = None
 _embedder: Embedder | None = None
 
 
-def workspace() -> Workspace:
+def workspace(*, create: bool = False) -> Workspace:
     """The workspace of this invocation. The embedder is kept per process,
-    so tests that run many commands load the model once."""
+    so tests that run many commands load the model once.
+
+    Only commands that store something (``create``) make a data directory:
+    a mistyped --home on a read gets a clear error, not a new empty one."""
     global _workspace, _embedder
     from service.workspace import Workspace
 
     settings = Settings()
+    home = settings.resolved_home
+    if not create and settings.database_url is None and not home.exists():
+        raise NotFound(
+            f"there is no data directory at {home}",
+            field="--home",
+            value=str(home),
+            hint="check --home or SOUNDING_HOME; `sounding import` or `sounding demo` makes one",
+        )
     if _workspace is None or _workspace.settings.resolved_home != settings.resolved_home:
         if _workspace is not None:
             _workspace.close()

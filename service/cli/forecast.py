@@ -13,15 +13,22 @@ from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
 from service.checking import check_drafts
 from service.cli.base import app, out, print_json, workspace
+from service.cli.mappings import DAY_FIRST, MONTH_FIRST, TIME_FORMAT
+from service.cli.plan_view import plan_options, print_plan
 from service.cli.prose import plural, say
 from service.cli.render import Column, level_bar, print_table, typical_miss
 from service.clock import localize, now_utc, zone
 from service.forecast import training as forecasting
 from service.forecast.answer import CAUTION, Forecast
 from service.forecast.draft import Draft, make_draft, planned_time
+from service.ingest.plan_options import PlanOptions
+from service.ingest.timestamps import TimeReader
 from service.plan import forecast_plan
 from service.track.facts import staleness
 from service.workspace import Workspace
+
+# Exit status when rows of a plan could not be forecast, as import's for rejected rows.
+EXIT_REJECTS = 3
 
 METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
 COVERAGE_HELP = f"Interval coverage, {MIN_COVERAGE} to {MAX_COVERAGE}."
@@ -259,15 +266,25 @@ def print_forecast(f: Forecast, *, wide: bool = False, details: bool = False) ->
     say(out, CAUTION, style="dim")
 
 
-def planned(at: str | None, account: str) -> datetime | None:
-    """``--at`` in the account's zone (service.forecast.draft)."""
-    return planned_time(workspace().store, account, at, where="--at")
+def planned(at: str | None, account: str, options: PlanOptions | None = None) -> datetime | None:
+    """``--at`` read as a plan file's times are (zone, format, date order)."""
+    o = options or PlanOptions()
+    return planned_time(
+        workspace().store,
+        account,
+        at,
+        where="--at",
+        reader=TimeReader(layout=o.layout()),
+        timezone=o.timezone,
+    )
 
 
 @app.command("check")
 def check_cmd(
     text: str | None = typer.Argument(None, help="The draft (or use --plan for a plan file)."),
-    account: str | None = typer.Option(None, "--account", help="Account that would post it."),
+    account: str | None = typer.Option(
+        None, "--account", help="Account that would post it (with --plan: for rows without one)."
+    ),
     at: str | None = typer.Option(
         None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."
     ),
@@ -277,6 +294,15 @@ def check_cmd(
         None, "--plan", help="Plan CSV: draft_id,account,text,planned_at[,has_media]."
     ),
     dest: Path | None = typer.Option(None, "--out", help="Where to write the plan's forecasts (CSV)."),
+    timezone: str | None = typer.Option(
+        None, "--timezone", help="IANA zone of times without an offset (default: the account's)."
+    ),
+    time_format: str | None = TIME_FORMAT,
+    day_first: bool = DAY_FIRST,
+    month_first: bool = MONTH_FIRST,
+    allow_rejects: bool = typer.Option(
+        False, "--allow-rejects", help="With --plan: exit 0 even if rows could not be forecast (else 3)."
+    ),
     media: bool = typer.Option(False, "--media", help="An image or video goes with the text."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     no_record: bool = typer.Option(False, "--no-record", help="Keep this forecast out of the track record."),
@@ -289,14 +315,25 @@ def check_cmd(
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
+    options = plan_options(
+        account=account,
+        timezone=timezone,
+        time_format=time_format,
+        day_first=day_first,
+        month_first=month_first,
+    )
     if plan is not None:
         if dest is None:
             raise InputError("--plan needs --out for the forecasts", field="--out")
-        counts = forecast_plan(ws, plan, dest, metric=metric, coverage=coverage, record=not no_record)
-        out.print(
-            f"{counts.forecast} of {counts.rows} drafts forecast into {dest}"
-            + (f"; {counts.failed} with a reason in warnings" if counts.failed else "")
+        counts = forecast_plan(
+            ws, plan, dest, metric=metric, coverage=coverage, record=not no_record, options=options
         )
+        if as_json:
+            print_json({"rows": counts.rows, "forecast": counts.forecast, "lines": counts.lines})
+        else:
+            print_plan(counts, str(dest), wide=wide)
+        if counts.failed and not allow_rejects:
+            raise typer.Exit(EXIT_REJECTS)
         return
     if not text:
         raise InputError("give the draft text, or --plan with a plan file", field="text")
@@ -304,7 +341,10 @@ def check_cmd(
         raise InputError("say which account would post it with --account", field="--account")
     # Adapted, staleness-checked and recorded in the track record.
     with ws.store.pinned():  # the store's counters read once for the whole answer
-        draft = make_draft(ws.store, text=text, account=account, planned_at=at, has_media=media, where="--at")
+        when = planned(at, account, options)
+        draft = make_draft(
+            ws.store, text=text, account=account, planned_at=when, has_media=media, where="--at"
+        )
         f = check_drafts(ws, [draft], metric=metric, coverage=coverage, record=not no_record, source="check")[
             0
         ]

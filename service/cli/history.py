@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import ipaddress
 import json
 import os
@@ -56,7 +57,7 @@ def account_cmd(
     ),
 ) -> None:
     """Create or update an account."""
-    a = workspace().store.set_account(handle, display_name=name, timezone=timezone)
+    a = workspace(create=True).store.set_account(handle, display_name=name, timezone=timezone)
     out.print(f"{a.handle}: {a.display_name or '(no name)'}, {a.timezone}, {a.posts} posts")
 
 
@@ -156,6 +157,18 @@ def import_cmd(
         "--mapping",
         help="Read the file with a saved mapping (sounding mapping save); options given here override it.",
     ),
+    encoding: str | None = typer.Option(
+        None,
+        "--encoding",
+        metavar="CODEC",
+        help="The file's text encoding, any Python codec (cp1252, latin-1, utf-16...). Default: UTF-8.",
+    ),
+    new_account: bool = typer.Option(
+        False,
+        "--new-account",
+        help="Create the accounts the file names that the store lacks, in the --timezone zone "
+        "(without it, an unknown account is refused).",
+    ),
     dry_run: bool = typer.Option(
         False,
         "--dry-run",
@@ -179,7 +192,7 @@ def import_cmd(
 
     Exits 3 when rows were rejected (unless --allow-rejects) or part of the file
     could not be read; a dry run exits the same way for what it would do."""
-    ws = workspace()
+    ws = workspace(create=not dry_run)
     given = given_options(
         mapping=mapping,
         account=account,
@@ -190,6 +203,9 @@ def import_cmd(
         decimal_comma=decimal_comma,
     )
     options = combine(load_mapping(ws.settings.resolved_home, saved) if saved else None, given)
+    options = dataclasses.replace(
+        options, new_accounts=new_account_zone(new_account, options.timezone), encoding=encoding
+    )
     on_cluster = cluster_import_options(ws, cluster, workers=cluster_workers)
     summary: ImportSummary | ImportPreview
     if dry_run:
@@ -216,6 +232,19 @@ def import_cmd(
             print_summary(summary)
     if summary.skipped_lines or (summary.rejected and not allow_rejects):
         raise typer.Exit(EXIT_REJECTS)
+
+
+def new_account_zone(new_account: bool, timezone: str | None) -> str | None:
+    """The zone new accounts start in, when asked for; new accounts need one."""
+    if not new_account:
+        return None
+    if not timezone:
+        raise InputError(
+            "--new-account needs --timezone: the zone the new account's local hours are counted in",
+            field="--timezone",
+            hint="e.g. --new-account --timezone Europe/London",
+        )
+    return timezone
 
 
 @app.command("reindex")
@@ -338,7 +367,7 @@ def serve_cmd(
     """Run the HTTP service (the page at /, API docs at /docs)."""
     import uvicorn  # the server, only when serving
 
-    ws = workspace()
+    ws = workspace(create=True)
     check_bind(host, ws.settings)
     out.print(f"serving {ws.settings.resolved_home} on http://{host}:{port}/  (API docs: /docs)")
     uvicorn.run(
@@ -357,7 +386,7 @@ def demo_cmd(
     train: bool = typer.Option(True, "--train/--no-train", help="Also train and forecast."),
 ) -> None:
     """Run the whole job on the bundled demo history in an empty data directory."""
-    ws = workspace()
+    ws = workspace(create=True)
     if ws.store.counts()["posts"]:
         raise InputError(
             f"the data directory {ws.settings.resolved_home} already holds posts; "

@@ -12,6 +12,7 @@ from datetime import datetime
 from typing import Protocol
 
 from service.clock import parse_time
+from service.ingest.timestamps import TimeReader
 from service.storage.accounts import AccountInfo
 
 
@@ -30,12 +31,23 @@ class Draft:
     has_media: bool = False  # an image or video attached, as the has_media column of posts
 
 
-def planned_time(accounts: Accounts, account: str, text: str | None, *, where: str) -> datetime | None:
-    """A planned time as sent: ISO 8601, in the account's zone when it has no
-    offset; None (meaning now) when blank. Unknown accounts raise NotFound."""
-    tz = accounts.account(account).timezone
+def planned_time(
+    accounts: Accounts,
+    account: str,
+    text: str | None,
+    *,
+    where: str,
+    reader: TimeReader | None = None,
+    timezone: str | None = None,
+) -> datetime | None:
+    """A planned time as sent: ISO 8601 (or the layouts ``reader`` reads), in
+    ``timezone`` or else the account's zone when it has no offset; None
+    (meaning now) when blank. Unknown accounts raise NotFound."""
+    tz = timezone or accounts.account(account).timezone
     if text is None or not text.strip():
         return None
+    if reader is not None:
+        return reader.read(text, tz=tz, where=where)
     return parse_time(text, tz=tz, where=where)
 
 

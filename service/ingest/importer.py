@@ -16,8 +16,9 @@ approximate); an ``engagement_rate`` column is checked against engagements
 
 Parsing follows RFC 4180 (``service.ingest.csvread``: quoted commas, doubled
 quotes, line breaks inside quotes); the file is UTF-8 with or without a
-byte-order mark. Problems with the file as a whole (encoding, header,
-dates that read two ways) stop the import before anything is written.
+byte-order mark, or in the codec named by ``encoding``
+(service.ingest.encodings). Problems with the file as a whole (encoding, header,
+dates that read two ways, unknown accounts) stop the import before anything is written.
 Problems with a row, including a record the CSV reader cannot read, are
 reported with the row's line number, column, reason and a fix to try, and
 every valid row is still stored, in batches that are each one transaction:
@@ -30,7 +31,6 @@ write the batch. The index is updated by the caller (``Workspace``).
 
 from __future__ import annotations
 
-import codecs
 import csv
 from collections import Counter
 from collections.abc import Callable, Iterator
@@ -44,11 +44,14 @@ import numpy as np
 from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
 from models.metrics import METRIC_COLUMNS
+from service.ingest.accounts import accounts_to_create, handles_in
 from service.ingest.answers import ImportSummary, RowProblem
 from service.ingest.csvread import Abandoned, BadRecord, Record, RecordReader
+from service.ingest.encodings import check_text, codec_of
 from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLUMNS, ImportOptions
 from service.ingest.timestamps import TimeReader, check_date_order
+from service.storage.handles import HANDLE_RULE, fold_handle, handle_problem
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
 
@@ -62,33 +65,10 @@ QUOTE_HINT = "check the quotes of this row: a quote inside a quoted field is wri
 csv.field_size_limit(1 << 24)
 
 
-def check_encoding(path: Path) -> int:
-    """Check the file is UTF-8 text, reading it in chunks; return its line count.
-
-    Done before any write, so a file with bad bytes halfway stores nothing
-    of itself rather than its first half.
-    """
-    decoder = codecs.getincrementaldecoder("utf-8")()
-    lines, offset, line_start = 0, 0, 1
-    with path.open("rb") as f:
-        while chunk := f.read(_CHUNK):
-            try:
-                text = decoder.decode(chunk)
-            except UnicodeDecodeError as exc:
-                bad_at = offset + exc.start
-                with path.open("rb") as g:
-                    line = g.read(bad_at).count(b"\n") + 1
-                raise CSVFormatError(
-                    f"the file is not UTF-8 text (byte {bad_at} on line {line} cannot be read)",
-                    where=str(path),
-                    hint="save it as UTF-8 CSV",
-                ) from None
-            if "\x00" in text:
-                raise CSVFormatError("the file contains NUL bytes: it is not a text CSV", where=str(path))
-            lines += text.count("\n")
-            offset += len(chunk)
-        decoder.decode(b"", final=True)
-    return max(lines, line_start)
+def check_encoding(path: Path, encoding: str | None = None) -> int:
+    """Check the file decodes (UTF-8 unless ``encoding`` names another) and
+    return its line count; see :mod:`service.ingest.encodings`."""
+    return check_text(path, encoding)
 
 
 class _Reject(Exception):
@@ -174,12 +154,9 @@ class RowReader:
     def line_num(self) -> int:
         return self.records.line_num
 
-    def time_values(self) -> Iterator[tuple[int, str]]:
-        """(line, text) of every readable row's time, for the date-order check."""
-        i = self.positions["posted_at"]
-        for item in self._items:
-            if isinstance(item, Record) and len(item.fields) > i:
-                yield item.line, item.fields[i]
+    def rest(self) -> Iterator[object]:
+        """The records after the header, unchecked (for the whole-file pass)."""
+        return self._items
 
     def zone_of(self, account: str) -> str:
         return self.timezone or self.account_zones.get(account, "UTC")
@@ -224,11 +201,12 @@ class RowReader:
         post_id = (self._get(fields, "post_id") or "").strip()
         if not post_id:
             raise _Reject("post_id", "is empty")
-        account = (self._get(fields, "account") or "").strip() or self.account
+        account = fold_handle(self._get(fields, "account") or "") or self.account
         if not account:
             raise _Reject("account", "is empty and no --account was given")
-        if any(c.isspace() for c in account):
-            raise _Reject("account", f"handle {account!r} contains spaces")
+        problem = handle_problem(account)
+        if problem:
+            raise _Reject("account", f"handle {problem}", f"a handle holds {HANDLE_RULE}")
         text = self._get(fields, "text") or ""
         if not normalise_text(text):
             raise _Reject("text", "is empty")
@@ -330,29 +308,53 @@ EmbedFn = Callable[[list[str]], np.ndarray]
 
 @contextmanager
 def open_rows(
-    path: Path, options: ImportOptions, store: Store, embedder: Embedder
+    path: Path,
+    options: ImportOptions,
+    store: Store,
+    embedder: Embedder,
+    *,
+    create: bool = True,
 ) -> Iterator[tuple[RowReader, int]]:
     """The file's rows, after every whole-file check (encoding, header, date
-    order); nothing is written before this yields. Also the file's line count."""
+    order, unknown accounts); nothing is written before this yields, except
+    the accounts asked for with ``options.new_accounts`` (their zone), made once
+    every check has passed when ``create``. Also the file's line count."""
     if not path.is_file():
         raise InputError(f"no such file: {path}", where=str(path))
-    total_lines = check_encoding(path)
+    new_accounts, encoding = options.new_accounts, options.encoding
+    codec = codec_of(encoding)
+    total_lines = check_encoding(path, encoding)
     zones = {a.handle: a.timezone for a in store.accounts()}
 
     def rows(handle: TextIO) -> RowReader:
         return RowReader(handle, where=str(path), options=options, account_zones=zones, embedder=embedder)
 
     # utf-8-sig drops a byte-order mark; newline="" lets csv see quoted line breaks.
-    if options.time_format is None and options.date_order is None:
-        with path.open("r", encoding="utf-8-sig", newline="") as handle:
-            r = rows(handle)
-            check_date_order(
-                r.times,
-                r.time_values(),
-                where=str(path),
-                column=options.mapping.get("posted_at", "posted_at"),
-            )
-    with path.open("r", encoding="utf-8-sig", newline="") as handle:
+    # One pass before any write: the date order (when not given) and the
+    # account column's handles.
+    named: dict[str, list[int]] = {}
+    with path.open("r", encoding=codec, newline="") as handle:
+        r = rows(handle)
+        values = handles_in(
+            r.rest(),
+            time_at=r.positions["posted_at"],
+            account_at=r.positions.get("account"),
+            lines=named,
+        )
+        check_date_order(
+            r.times, values, where=str(path), column=options.mapping.get("posted_at", "posted_at")
+        )
+        for _ in values:  # the date check may not need every row; the accounts do
+            pass
+    new = accounts_to_create(
+        store, account=options.account, column=named, new_accounts=new_accounts, where=str(path)
+    )
+    for h in new:
+        assert new_accounts is not None  # accounts_to_create refuses new handles otherwise
+        if create:
+            store.set_account(h, timezone=new_accounts)
+        zones[h] = new_accounts
+    with path.open("r", encoding=codec, newline="") as handle:
         yield rows(handle), total_lines
 
 
@@ -373,7 +375,11 @@ def import_csv(
     progress: ProgressFn | None = None,
     embed: EmbedFn | None = None,
 ) -> ImportSummary:
-    """Import one CSV file, read as ``options`` say; see the module docstring for the rules."""
+    """Import one CSV file read as ``options`` say; see the module docstring for the rules.
+
+    Every account the file names must be in the store, unless
+    ``options.new_accounts`` gives the zone to create the missing ones in. The
+    file is UTF-8 unless ``options.encoding`` names another codec."""
     options = (options or ImportOptions()).check()
     summary = ImportSummary()
     batch: list[PostRow] = []
@@ -396,7 +402,10 @@ def import_csv(
         summary.changed_pks.extend(res.changed_pks)
         batch.clear()
 
-    with open_rows(Path(path), options, store, embedder) as (rows, total_lines):
+    with open_rows(Path(path), options, store, embedder) as (
+        rows,
+        total_lines,
+    ):
         for item in rows:
             if isinstance(item, RowProblem):
                 summary.rejected += 1

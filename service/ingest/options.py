@@ -4,12 +4,14 @@ account and zone, and how its times and numbers are written."""
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from models.errors import InputError
 from models.metrics import METRIC_COLUMNS, Metric
 from service.clock import zone
+from service.ingest.encodings import codec_of
 from service.ingest.timestamps import DateOrder, TimeLayout
+from service.storage.handles import check_handle
 
 RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
 CANONICAL_COLUMNS: tuple[str, ...] = (
@@ -37,14 +39,28 @@ class ImportOptions:
     time_format: str | None = None
     date_order: DateOrder | None = None
     decimal_comma: bool = False
+    #: The zone to create accounts in that the file names and the store lacks
+    #: (None: such a file is refused, naming the closest handles).
+    new_accounts: str | None = None
+    #: The file's codec (None: UTF-8, with or without a byte-order mark).
+    encoding: str | None = None
 
     def layout(self) -> TimeLayout:
         return TimeLayout(pattern=self.time_format, date_order=self.date_order)
 
     def check(self) -> ImportOptions:
-        """Validate every option before a file is opened."""
+        """Validate every option before a file is opened; the account's handle
+        comes back folded (service.storage.handles)."""
         if self.timezone is not None:
             zone(self.timezone)
+        if self.new_accounts is not None:
+            zone(self.new_accounts)
+        if self.encoding is not None:
+            codec_of(self.encoding)
+        if self.account is not None:
+            folded = check_handle(self.account, where="account")
+            if folded != self.account:
+                return replace(self, account=folded).check()
         self.layout()
         bad = [k for k in self.mapping if k not in CANONICAL_COLUMNS]
         if bad:

@@ -27,7 +27,7 @@ def preview_csv(
     texts (no model is loaded).
     """
     options = (options or ImportOptions()).check()
-    with open_rows(Path(path), options, store, embedder) as (reader, _):
+    with open_rows(Path(path), options, store, embedder, create=False) as (reader, _):
         columns = _column_uses(reader)
         used = set(reader.positions.values())
         unused = [h for i, h in enumerate(reader.header) if i not in used]

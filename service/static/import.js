@@ -16,25 +16,58 @@
     for (const line of $("map").value.split("\n")) {
       if (line.trim()) fd.append("map", line.trim());
     }
-    for (const [id, name] of [["account", "account"], ["mapping", "mapping"],
+    for (const [id, name] of [["account", "account"], ["mapping", "mapping"], ["timezone", "timezone"],
+                              ["encoding", "encoding"],
                               ["time-format", "time_format"], ["date-order", "date_order"]]) {
       if ($(id).value.trim()) fd.append(name, $(id).value.trim());
     }
     if ($("decimal-comma").checked) fd.append("decimal_comma", "true");
+    if ($("new-account").checked) fd.append("new_account", "true");
     return fd;
+  }
+
+  // The service's messages name command-line options; the page says what to do here instead.
+  const WORDS = [
+    [/create it with `sounding account HANDLE --timezone ZONE`, or import with --new-account --timezone ZONE/g,
+      "to create it, give its time zone and tick \u201cThe file names a new account\u201d"],
+    [/--new-account needs --timezone/g, "a new account needs its time zone"],
+    [/give --day-first or --month-first/g, "choose the order under \u201cNumeric dates\u201d"],
+    [/--day-first \/ --month-first/g, "the order under \u201cNumeric dates\u201d"],
+    [/--time-format/g, "the time format"],
+    [/rename with --map ours=theirs/g, "add the column to the column mapping (ours=theirs)"],
+    [/--map/g, "the column mapping"],
+    [/--account/g, "the account field"],
+    [/--timezone/g, "the time zone field"],
+    [/--decimal-comma/g, "the decimal comma box"],
+    [/--encoding/g, "the text encoding field"],
+  ];
+  function pageWords(text) {
+    let out = text || "";
+    for (const [re, words] of WORDS) out = out.replace(re, words);
+    return out;
+  }
+
+  async function loadMappings() {
+    const resp = await fetch("/v1/mappings").catch(() => null);
+    if (!resp || !resp.ok) return;
+    const body = await resp.json();
+    for (const name of body.mappings || []) $("mapping").append(node("option", name));
   }
 
   async function send(dryRun) {
     $("error").hidden = true;
+    const token = $("token").value.trim();
     const resp = await fetch("/v1/imports" + (dryRun ? "?dry_run=true" : ""), {
       method: "POST",
-      headers: { Authorization: "Bearer " + $("token").value },
+      headers: token ? { Authorization: "Bearer " + token } : {},
       body: form(),
     });
     const body = await resp.json().catch(() => ({}));
     if (!resp.ok) {
       const e = body.error || {};
-      $("error-message").textContent = (e.message || resp.statusText) + (e.hint ? " (" + e.hint + ")" : "");
+      const said = (e.message || resp.statusText) + (e.hint ? " (" + e.hint + ")" : "");
+      $("error-message").textContent = resp.status === 401 && !dryRun
+        ? "Importing needs the service's access token: enter it in the token field." : pageWords(said);
       $("error").hidden = false;
       return null;
     }
@@ -54,8 +87,8 @@
     const ul = $("problems");
     ul.replaceChildren();
     for (const p of list.slice(0, 20)) {
-      ul.append(node("li", "line " + p.line + (p.column ? ", " + p.column : "") + ": " + p.reason +
-        (p.hint ? " (" + p.hint + ")" : "")));
+      ul.append(node("li", "line " + p.line + (p.column ? ", " + p.column : "") + ": " +
+        pageWords(p.reason) + (p.hint ? " (" + pageWords(p.hint) + ")" : "")));
     }
   }
 
@@ -88,6 +121,7 @@
       ", unchanged " + s.unchanged + ", rejected " + s.rejected + ".";
   }
 
+  loadMappings();
   $("import-form").addEventListener("submit", preview);
   $("commit").addEventListener("click", commit);
 })();

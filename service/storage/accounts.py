@@ -7,9 +7,9 @@ from datetime import datetime
 from pydantic import BaseModel, ConfigDict, Field
 from sqlalchemy import func, select
 
-from models.errors import InputError, NotFound
 from service.clock import now_utc, to_naive_utc, zone
 from service.storage.engine import StoreBase
+from service.storage.handles import check_handle, unknown_account
 from service.storage.tables import Account, Post
 
 
@@ -31,7 +31,7 @@ class AccountRecords(StoreBase):
         self, handle: str, *, display_name: str | None = None, timezone: str | None = None
     ) -> AccountInfo:
         """Create or update an account. A new account starts in UTC."""
-        handle = _check_handle(handle)
+        handle = check_handle(handle)
         if timezone is not None:
             zone(timezone)  # refuse unknown names before touching the store
         with self.session() as s:
@@ -53,7 +53,7 @@ class AccountRecords(StoreBase):
         with self.session() as s:
             acc = s.scalar(select(Account).where(Account.handle == handle))
             if acc is None:
-                raise NotFound(f"unknown account {handle!r}", field="account", value=handle)
+                raise unknown_account(handle, s.scalars(select(Account.handle)).all())
             n = s.scalar(select(func.count(Post.id)).where(Post.account_id == acc.id)) or 0
             return AccountInfo(
                 handle=acc.handle, display_name=acc.display_name, timezone=acc.timezone, posts=int(n)
@@ -71,17 +71,6 @@ class AccountRecords(StoreBase):
                 AccountInfo(handle=a.handle, display_name=a.display_name, timezone=a.timezone, posts=int(n))
                 for a, n in rows
             ]
-
-
-def _check_handle(handle: str) -> str:
-    h = (handle or "").strip()
-    if not h or len(h) > 200 or any(c.isspace() for c in h):
-        raise InputError(
-            f"account handle {handle!r} must be 1-200 characters without spaces",
-            field="account",
-            value=handle,
-        )
-    return h
 
 
 def _now() -> datetime:

@@ -20,6 +20,7 @@ from sqlalchemy.engine import make_url
 from models.errors import InputError, NotFound, StoreError
 from service.clock import now_utc
 from service.storage import keywords
+from service.storage.handles import unknown_account
 from service.storage.post_reads import PostReads
 from service.storage.post_writes import PostWrites
 from service.storage.tables import (
@@ -92,7 +93,7 @@ class Store(PostWrites, PostReads):
             if account is not None:
                 acc = s.scalar(select(Account).where(Account.handle == account))
                 if acc is None:
-                    raise NotFound(f"unknown account {account!r}", field="account", value=account)
+                    raise unknown_account(account, s.scalars(select(Account.handle)).all())
                 q = q.where(Account.id == acc.id)
             if post_id is not None:
                 q = q.where(Post.post_id == post_id)

@@ -143,7 +143,9 @@ def after_import(
 ) -> dict[str, Any]:
     """Everything the track record does after an import: explicit draft ids,
     matching, scoring, and adaptation of every metric with a model."""
-    linked = link_drafts(ws, path, mapping=options.mapping, account=options.account)
+    linked = link_drafts(
+        ws, path, mapping=options.mapping, account=options.account, encoding=options.encoding
+    )
     matched = match(ws)
     scored = score(ws, now=now)
     fed: dict[str, Any] = {}

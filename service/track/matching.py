@@ -21,6 +21,8 @@ import numpy as np
 
 from models.metrics import target_value
 from service.clock import now_utc, to_naive_utc
+from service.ingest.encodings import codec_of
+from service.storage.handles import fold_handle
 from service.track.parts import TrackedDir
 
 #: Near ties in similarity (same draft edited and checked again) go to the latest forecast.
@@ -28,7 +30,12 @@ SIMILARITY_TIE = 0.01
 
 
 def link_drafts(
-    ws: TrackedDir, path: str | Path, *, mapping: dict[str, str] | None = None, account: str | None = None
+    ws: TrackedDir,
+    path: str | Path,
+    *,
+    mapping: dict[str, str] | None = None,
+    account: str | None = None,
+    encoding: str | None = None,
 ) -> int:
     """Store the explicit draft ids of an imported file (its ``draft_id``
     column, or the column ``--map draft_id=...`` names)."""
@@ -36,13 +43,13 @@ def link_drafts(
     col = mapping.get("draft_id", "draft_id")
     acc_col, id_col = mapping.get("account", "account"), mapping.get("post_id", "post_id")
     pairs: dict[tuple[str, str], str] = {}
-    with Path(path).open("r", encoding="utf-8-sig", newline="") as handle:
+    with Path(path).open("r", encoding=codec_of(encoding), newline="") as handle:
         reader = csv.DictReader(handle)
         if col not in (reader.fieldnames or []):
             return 0
         for rec in reader:
             draft = (rec.get(col) or "").strip()
-            acc = (rec.get(acc_col) or "").strip() or account
+            acc = fold_handle(rec.get(acc_col) or "") or account
             pid = (rec.get(id_col) or "").strip()
             if draft and acc and pid:
                 pairs[(acc, pid)] = draft

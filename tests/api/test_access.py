@@ -22,6 +22,7 @@ from service.api.schemas import ErrorBody
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.cli.history import check_bind
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -51,7 +52,7 @@ def base_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     """A small imported history, built once; each test works on a copy."""
     home = tmp_path_factory.mktemp("access") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
-    ws.import_csv(write_history(home.parent / "history.csv", 12))
+    ws.import_csv(write_history(home.parent / "history.csv", 12), ImportOptions(new_accounts="UTC"))
     ws.close()
     return home
 

@@ -31,6 +31,7 @@ from schemathesis.specs.openapi.checks import (
 
 from service.api.app import create_app
 from service.api.schemas import ErrorBody
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -77,7 +78,7 @@ def write_history(path: Path, n: int) -> Path:
 def fuzz_workspace(tmp_path_factory: pytest.TempPathFactory, embedder) -> Workspace:
     home = tmp_path_factory.mktemp("fuzz") / "home"
     ws = Workspace(settings=Settings(home=home, token=TOKEN), embedder=embedder)
-    ws.import_csv(write_history(home.parent / "history.csv", 36))
+    ws.import_csv(write_history(home.parent / "history.csv", 36), ImportOptions(new_accounts="UTC"))
     yield ws
     ws.close()
 
@@ -274,7 +275,7 @@ COUNTS = st.one_of(
 def value_app(tmp_path_factory: pytest.TempPathFactory, embedder):
     home = tmp_path_factory.mktemp("values") / "home"
     ws = Workspace(settings=Settings(home=home, token=VALUE_TOKEN), embedder=embedder)
-    ws.import_csv(write_history(home.parent / "history.csv", 6))
+    ws.import_csv(write_history(home.parent / "history.csv", 6), ImportOptions(new_accounts="UTC"))
     yield create_app(workspace=ws)
     ws.close()
 

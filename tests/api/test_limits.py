@@ -17,6 +17,7 @@ from fastapi.testclient import TestClient
 from models.errors import LimitExceeded
 from service.api.app import create_app
 from service.api.schemas import ErrorBody
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -30,7 +31,7 @@ def base_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
     home = tmp_path_factory.mktemp("limits") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
     (home.parent / "h.csv").write_bytes(history_csv(10, prefix="lm", step_hours=3))
-    ws.import_csv(home.parent / "h.csv")
+    ws.import_csv(home.parent / "h.csv", ImportOptions(new_accounts="UTC"))
     ws.close()
     return home
 
@@ -135,6 +136,20 @@ def test_upload_form_fields_account_timezone_and_mapping(client: TestClient, ws:
         data={
             "account": "loomhaven_lab",
             "timezone": "America/New_York",
+            "map": ["post_id=id", "text=body", "posted_at=when", "impressions=views"],
+        },
+    )
+    # A new account is made only on purpose: refused, naming the closest handle.
+    assert r.status_code == 404 and "did you mean loomhaven?" in r.json()["error"]["message"]
+    assert "loomhaven_lab" not in {a.handle for a in ws.store.accounts()}
+    r = client.post(
+        "/v1/imports",
+        headers=AUTH,
+        files={"file": ("theirs.csv", data, "text/csv")},
+        data={
+            "account": "loomhaven_lab",
+            "timezone": "America/New_York",
+            "new_account": "true",
             "map": ["post_id=id", "text=body", "posted_at=when", "impressions=views"],
         },
     )

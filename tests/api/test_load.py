@@ -28,6 +28,7 @@ from conftest import NEWS, SUBJECTS, TOKEN, history_csv
 
 from service.api.app import create_app
 from service.api.schemas import ImportSummary, Precedents
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -86,7 +87,7 @@ def served(tmp_path: Path, embedder) -> Iterator[tuple[str, Workspace]]:
     home = tmp_path / "home"
     ws = Workspace(settings=Settings(home=home, token=TOKEN, import_batch_rows=40), embedder=embedder)
     (tmp_path / "base.csv").write_bytes(history_csv(BASE_ROWS, prefix="base", accounts=ACCOUNTS))
-    ws.import_csv(tmp_path / "base.csv")
+    ws.import_csv(tmp_path / "base.csv", ImportOptions(new_accounts="UTC"))
     sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
     sock.bind(("127.0.0.1", 0))  # a free port on loopback only
     port = sock.getsockname()[1]

@@ -119,13 +119,14 @@ def test_unknown_timezone_is_refused(tmp_path: Path) -> None:
         (("import", "{tmp}/a.csv", "--map", "nonsense"), "must look like ours=theirs"),
         (("import", "{tmp}/a.csv", "--map", "text=Nope", "--account", "g"), "'Nope', which is not in"),
         (("import", "{tmp}/latin1.csv", "--account", "g"), "not UTF-8"),
-        (("account", "two words"), "without spaces"),
+        (("account", "two words"), "holds U+0020 (SPACE)"),
         (("precedents", "   "), "empty"),
         (("precedents", "hello", "--since", "last tuesday"), "cannot read time"),
         (("serve", "--host", "0.0.0.0"), "without SOUNDING_TOKEN"),
     ],
 )
 def test_expected_failures_are_one_line(args: tuple[str, ...], fragment: str, tmp_path: Path) -> None:
+    (tmp_path / "home").mkdir()  # read commands never create a data directory
     (tmp_path / "a.csv").write_text(CSV)
     (tmp_path / "latin1.csv").write_bytes(
         "post_id,text,posted_at,impressions\np1,Caf\u00e9,2026-01-01T10:00Z,1\n".encode("latin-1")

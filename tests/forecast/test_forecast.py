@@ -23,6 +23,7 @@ from service.clock import localize
 from service.forecast.draft import Draft
 from service.forecast.training import train
 from service.history.view import build_view, feature_params
+from service.ingest.options import ImportOptions
 
 # These tests run on SQLite, then again on PostgreSQL when a server is set.
 pytestmark = pytest.mark.both_backends
@@ -318,7 +319,7 @@ def test_too_little_history_to_train(workspace, tmp_path):
             for i in range(30)
         )
     )
-    workspace.import_csv(p)
+    workspace.import_csv(p, ImportOptions(new_accounts="UTC"))
     with pytest.raises(NotReady, match="training needs at least"):
         train(workspace, "impressions")
 

@@ -23,6 +23,7 @@ from models import features as F
 from service.api.app import create_app
 from service.checking import check_drafts
 from service.forecast.draft import Draft
+from service.ingest.options import ImportOptions
 from service.storage.store import Store
 from service.track import adaptation
 from service.workspace import Workspace
@@ -83,7 +84,7 @@ def test_recording_moves_no_counter_and_scoring_moves_only_its_own(
         "post_id,account,text,posted_at,impressions\nnew-1,loomhaven,A new post,2026-11-30T10:00Z,120\n",
         encoding="utf-8",
     )
-    ws.import_csv(csv)
+    ws.import_csv(csv, ImportOptions(new_accounts="UTC"))
     assert ws.store.stamps()[0] > before[0]
     assert ws.forecaster.view("impressions") is not view  # rebuilt for the new post
 
@@ -185,7 +186,7 @@ def test_an_import_leaves_the_views_in_use_ready_for_the_next_forecast(
         "new-2,loomhaven,Moss garden reopens,2026-11-29T09:00Z,80\n",
         encoding="utf-8",
     )
-    ws.import_csv(csv)
+    ws.import_csv(csv, ImportOptions(new_accounts="UTC"))
     with statements(ws.store) as seen:
         fresh = ws.forecaster.view("impressions")
     assert fresh is not old and "new-2" in set(fresh.frame["post_id"])

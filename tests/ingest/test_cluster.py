@@ -23,6 +23,7 @@ from models.embedding import Embedder
 from models.errors import ServiceUnavailable
 from service.cli import app
 from service.cli.base import use_embedder
+from service.ingest.options import ImportOptions
 from service.ingest.ray_embedding import RayEmbedder, check_address
 from service.settings import Settings
 from service.workspace import Workspace
@@ -191,7 +192,7 @@ def test_cluster_import_equals_local_import(
 
     src = small_csv(tmp_path / "posts.csv", 60)
     local = Workspace(settings=Settings(home=tmp_path / "local"), embedder=embedder)
-    local_summary = local.import_csv(src)
+    local_summary = local.import_csv(src, ImportOptions(new_accounts="UTC"))
 
     use_embedder(embedder)
     monkeypatch.setenv("SOUNDING_HOME", str(tmp_path / "cluster"))

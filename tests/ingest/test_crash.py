@@ -24,6 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -186,7 +187,7 @@ def test_killed_import_leaves_whole_batches_and_a_rerun_completes_it(
         top = ws.precedents(TEXTS[7], k=1)[0]
         assert top.text == TEXTS[7] and top.similarity > 0.999
 
-        summary = ws.import_csv(big)  # the re-run
+        summary = ws.import_csv(big, ImportOptions(new_accounts="UTC"))  # the re-run
         assert (summary.added, summary.unchanged, summary.updated, summary.rejected) == (
             ROWS - committed,
             committed,

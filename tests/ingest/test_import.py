@@ -55,7 +55,7 @@ def by_id(ws: Workspace) -> dict[str, pd.Series]:
 @pytest.fixture()
 def loaded(workspace: Workspace, tmp_path: Path) -> Workspace:
     """A workspace holding the three GOOD posts."""
-    s = workspace.import_csv(write(tmp_path / "good.csv", GOOD))
+    s = workspace.import_csv(write(tmp_path / "good.csv", GOOD), ImportOptions(new_accounts="UTC"))
     assert (s.added, s.rejected) == (3, 0)
     return workspace
 
@@ -75,7 +75,9 @@ def test_rfc4180_quoting_is_read_exactly(workspace: Workspace, tmp_path: Path) -
         'q4,garden,"",2026-04-01T13:00:00Z,40\n'
         'q5,garden,"after the multi-line row",not-a-time,50\n'
     )
-    s = workspace.import_csv(write(tmp_path / "rfc.csv", body, newline="\r\n"))
+    s = workspace.import_csv(
+        write(tmp_path / "rfc.csv", body, newline="\r\n"), ImportOptions(new_accounts="UTC")
+    )
     posts = by_id(workspace)
     assert posts["q1"].text == "Roses, lilies, and ferns"
     assert posts["q2"].text == 'She said "bring a hat" today'
@@ -96,14 +98,14 @@ def test_rfc4180_quoting_is_read_exactly(workspace: Workspace, tmp_path: Path) -
 def test_utf8_bom_is_ignored(workspace: Workspace, tmp_path: Path) -> None:
     # Unicode FAQ / RFC 3629 section 6: U+FEFF at the start is a signature, not text.
     path = write(tmp_path / "bom.csv", b"\xef\xbb\xbf" + GOOD.encode("utf-8"))
-    s = workspace.import_csv(path)
+    s = workspace.import_csv(path, ImportOptions(new_accounts="UTC"))
     assert (s.added, s.rejected) == (3, 0)
     assert set(by_id(workspace)) == {"g1", "g2", "g3"}
 
 
 def test_non_ascii_text_is_kept(workspace: Workspace, tmp_path: Path) -> None:
     body = HEADER + "\nu1,garden,Café terrace 🌷 reopens — ñ,2026-04-01T10:00:00Z,5,1,false\n"
-    workspace.import_csv(write(tmp_path / "u.csv", body))
+    workspace.import_csv(write(tmp_path / "u.csv", body), ImportOptions(new_accounts="UTC"))
     assert by_id(workspace)["u1"].text == "Café terrace 🌷 reopens — ñ"
 
 
@@ -133,7 +135,7 @@ def test_naive_times_use_the_account_zone(workspace: Workspace, tmp_path: Path) 
         "t2,lab,Night walk,2026-11-01T01:30:00,20\n"  # happens twice: first one
         "t3,lab,Morning dew,2026-01-10T08:00:00,30\n"  # plain EST
     )
-    s = workspace.import_csv(write(tmp_path / "tz.csv", body))
+    s = workspace.import_csv(write(tmp_path / "tz.csv", body), ImportOptions(new_accounts="UTC"))
     posts = by_id(workspace)
     # IANA tz via zoneinfo: 02:30 on 2026-03-08 does not exist in New York.
     assert "t1" not in posts
@@ -150,7 +152,9 @@ def test_naive_times_use_the_account_zone(workspace: Workspace, tmp_path: Path) 
 
 def test_timezone_option_overrides_account_zone(workspace: Workspace, tmp_path: Path) -> None:
     body = "post_id,account,text,posted_at,impressions\nz1,garden,Frost fair,2026-07-01T12:00,5\n"
-    workspace.import_csv(write(tmp_path / "z.csv", body), ImportOptions(timezone="Europe/London"))
+    workspace.import_csv(
+        write(tmp_path / "z.csv", body), ImportOptions(timezone="Europe/London", new_accounts="UTC")
+    )
     # IANA tz: London is on BST (UTC+1) in July.
     assert by_id(workspace)["z1"].posted_at == pd.Timestamp(datetime(2026, 7, 1, 11, tzinfo=UTC))
 
@@ -159,7 +163,7 @@ def test_unknown_timezone_option_is_refused(loaded: Workspace, tmp_path: Path) -
     before = state(loaded)
     path = write(tmp_path / "more.csv", GOOD.replace("g1", "g9"))
     with pytest.raises(InputError, match="unknown time zone 'Mars/Olympus'"):
-        loaded.import_csv(path, ImportOptions(timezone="Mars/Olympus"))
+        loaded.import_csv(path, ImportOptions(timezone="Mars/Olympus", new_accounts="UTC"))
     assert state(loaded) == before
 
 
@@ -174,7 +178,9 @@ def test_mapping_reads_other_column_names(workspace: Workspace, tmp_path: Path) 
     mapping = parse_mapping(
         ["account=Handle", "text=Post body", "posted_at=When", "impressions=Views", "post_id=ID"]
     )
-    s = workspace.import_csv(write(tmp_path / "m.csv", body), ImportOptions(mapping=mapping))
+    s = workspace.import_csv(
+        write(tmp_path / "m.csv", body), ImportOptions(mapping=mapping, new_accounts="UTC")
+    )
     assert (s.added, s.rejected) == (1, 0)
     p = by_id(workspace)["m1"]
     assert (p.account, p.text, p.impressions) == ("garden", "Moss garden at dawn", 321)
@@ -184,8 +190,8 @@ def test_account_option_supplies_missing_column(workspace: Workspace, tmp_path: 
     body = "post_id,text,posted_at,impressions\na1,Bees in the lavender,2026-05-01T06:00:00Z,99\n"
     path = write(tmp_path / "a.csv", body)
     with pytest.raises(CSVFormatError, match="missing required column account"):
-        workspace.import_csv(path)
-    s = workspace.import_csv(path, ImportOptions(account="garden_team"))
+        workspace.import_csv(path, ImportOptions(new_accounts="UTC"))
+    s = workspace.import_csv(path, ImportOptions(account="garden_team", new_accounts="UTC"))
     assert s.added == 1
     assert by_id(workspace)["a1"].account == "garden_team"
 
@@ -253,7 +259,7 @@ BAD_FILES: dict[str, tuple[bytes, str]] = {
         .replace("g3", "n3")
         .replace("Volunteers", "Volunt\u00e9ers")
         .encode("latin-1"),
-        "not UTF-8 text (byte",
+        "not UTF-8 text: line 3, column 17",
     ),
 }
 
@@ -264,7 +270,7 @@ def test_bad_file_stores_nothing_and_loses_nothing(case: str, loaded: Workspace,
     before = state(loaded)
     path = write(tmp_path / f"{case}.csv", content)
     with pytest.raises(CSVFormatError) as exc:
-        loaded.import_csv(path)
+        loaded.import_csv(path, ImportOptions(new_accounts="UTC"))
     assert message in str(exc.value)
     assert str(path) in str(exc.value)  # says where
     assert state(loaded) == before
@@ -272,7 +278,8 @@ def test_bad_file_stores_nothing_and_loses_nothing(case: str, loaded: Workspace,
 
 def test_latin1_error_names_the_line(tmp_path: Path) -> None:
     content = BAD_FILES["latin1_halfway"][0]
-    with pytest.raises(CSVFormatError, match="on line 3 cannot be read"):
+    # "Volunt" + the bad byte: 16 characters of "g2,garden,Volunt" come first.
+    with pytest.raises(CSVFormatError, match="line 3, column 17 cannot be read"):
         check_encoding(write(tmp_path / "l.csv", content))
 
 
@@ -280,13 +287,13 @@ def test_mapping_to_absent_column(loaded: Workspace, tmp_path: Path) -> None:
     before = state(loaded)
     path = write(tmp_path / "good2.csv", GOOD.replace("g", "h"))
     with pytest.raises(CSVFormatError, match="names column 'Body', which is not in the file"):
-        loaded.import_csv(path, ImportOptions(mapping={"text": "Body"}))
+        loaded.import_csv(path, ImportOptions(mapping={"text": "Body"}, new_accounts="UTC"))
     assert state(loaded) == before
 
 
 def test_missing_file(workspace: Workspace, tmp_path: Path) -> None:
     with pytest.raises(InputError, match="no such file"):
-        workspace.import_csv(tmp_path / "nope.csv")
+        workspace.import_csv(tmp_path / "nope.csv", ImportOptions(new_accounts="UTC"))
 
 
 def test_bad_byte_past_the_first_chunk(make_workspace, tmp_path: Path) -> None:
@@ -303,7 +310,7 @@ def test_bad_byte_past_the_first_chunk(make_workspace, tmp_path: Path) -> None:
     filler = "y" * ((1 << 20) - len(prefix) - 1)
     good = head + row1 + filler + "\u00e9" + "\nc2,garden,Second,2026-04-01T11:00:00Z,6,z\n"
     assert good.encode()[(1 << 20) - 1 : (1 << 20) + 1] == "\u00e9".encode()
-    s = workspace.import_csv(write(tmp_path / "big.csv", good))
+    s = workspace.import_csv(write(tmp_path / "big.csv", good), ImportOptions(new_accounts="UTC"))
     assert (s.added, s.rejected) == (2, 0)
 
     before = state(workspace)
@@ -311,8 +318,8 @@ def test_bad_byte_past_the_first_chunk(make_workspace, tmp_path: Path) -> None:
         good.replace("c1", "d1").replace("c2", "d2").encode()
         + b"d3,garden,Caf\xe9,2026-04-01T12:00:00Z,7,z\n"
     )
-    with pytest.raises(CSVFormatError, match="on line 4 cannot be read"):
-        workspace.import_csv(write(tmp_path / "bigbad.csv", bad))
+    with pytest.raises(CSVFormatError, match="line 4, column 15 cannot be read"):
+        workspace.import_csv(write(tmp_path / "bigbad.csv", bad), ImportOptions(new_accounts="UTC"))
     assert state(workspace) == before
 
 
@@ -337,7 +344,7 @@ def test_bad_rows_are_reported_and_good_rows_stored(loaded: Workspace, tmp_path:
         ",garden,No id,2026-05-01T10:00:00Z,1,1,false\n"  # 12: no id
         "r12,garden,Last good one,2026-05-02T10:00:00Z,7,1,true\n"  # 13: ok
     )
-    s = loaded.import_csv(write(tmp_path / "rows.csv", body))
+    s = loaded.import_csv(write(tmp_path / "rows.csv", body), ImportOptions(new_accounts="UTC"))
     got = [(p.line, p.column) for p in s.problems]
     assert got == [
         (3, "text"),
@@ -377,7 +384,7 @@ def test_numbers_with_separators_and_exponents(workspace: Workspace, tmp_path: P
         "n1,garden,Big day,2026-05-01T10:00Z,1_200\n"
         "n2,garden,Bigger,2026-05-01T11:00Z,1.2e3\n"
     )
-    s = workspace.import_csv(write(tmp_path / "n.csv", body))
+    s = workspace.import_csv(write(tmp_path / "n.csv", body), ImportOptions(new_accounts="UTC"))
     assert s.rejected == 0
     posts = by_id(workspace)
     assert posts["n1"].impressions == 1200 and posts["n2"].impressions == 1200
@@ -385,13 +392,13 @@ def test_numbers_with_separators_and_exponents(workspace: Workspace, tmp_path: P
 
 def test_blank_lines_are_skipped(workspace: Workspace, tmp_path: Path) -> None:
     body = GOOD.replace("\ng2", "\n\n,,,,,,\ng2")
-    s = workspace.import_csv(write(tmp_path / "blank.csv", body))
+    s = workspace.import_csv(write(tmp_path / "blank.csv", body), ImportOptions(new_accounts="UTC"))
     assert (s.added, s.rejected) == (3, 0)
 
 
 def test_summary_json_shape(workspace: Workspace, tmp_path: Path) -> None:
     body = HEADER + "\nx1,garden,,2026-05-01T10:00:00Z,1,1,false\n"
-    s = workspace.import_csv(write(tmp_path / "s.csv", body))
+    s = workspace.import_csv(write(tmp_path / "s.csv", body), ImportOptions(new_accounts="UTC"))
     assert s.model_dump(mode="json") == {
         "added": 0,
         "updated": 0,

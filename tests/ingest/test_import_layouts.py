@@ -87,7 +87,7 @@ def london_workspace(make_workspace, name: str) -> Workspace:
 @pytest.fixture()
 def canonical(make_workspace) -> dict[str, dict[str, Any]]:
     ws = london_workspace(make_workspace, "canonical")
-    s = ws.import_csv(FIXTURES / "canonical.csv")
+    s = ws.import_csv(FIXTURES / "canonical.csv", ImportOptions(new_accounts="UTC"))
     assert (s.added, s.rejected) == (13, 0)
     return stored(ws)
 
@@ -106,7 +106,10 @@ def test_each_layout_imports_as_the_canonical_file(
     opts = dict(opts)
     mapping = {**MAP, **(RATE if opts.pop("rate", False) else {})}
     ws = london_workspace(make_workspace, name)
-    s = ws.import_csv(FIXTURES / f"{name}.csv", ImportOptions(account="loomhaven", mapping=mapping, **opts))
+    s = ws.import_csv(
+        FIXTURES / f"{name}.csv",
+        ImportOptions(account="loomhaven", mapping=mapping, **opts, new_accounts="UTC"),
+    )
     assert (s.added, s.rejected) == (13, 0), s.problems
     got = stored(ws)
     assert set(got) == set(canonical)
@@ -154,7 +157,9 @@ def test_times_at_the_dst_changes_follow_the_iana_rules(canonical) -> None:
 def test_ambiguous_dates_are_refused_without_an_order(make_workspace, name: str, first: str) -> None:
     ws = london_workspace(make_workspace, name)
     with pytest.raises(CSVFormatError) as e:
-        ws.import_csv(FIXTURES / f"{name}.csv", ImportOptions(account="loomhaven", mapping=MAP))
+        ws.import_csv(
+            FIXTURES / f"{name}.csv", ImportOptions(account="loomhaven", mapping=MAP, new_accounts="UTC")
+        )
     msg = str(e.value)
     assert f"{first!r} on line 2" in msg and "--day-first or --month-first" in msg
     assert ws.store.counts()["posts"] == 0  # refused before anything was written
@@ -165,7 +170,8 @@ def test_rows_in_the_other_order_are_rejected(make_workspace) -> None:
     # (there is no month 13): those rows, and only those, are rejected.
     ws = london_workspace(make_workspace, "wrong")
     s = ws.import_csv(
-        FIXTURES / "day_first.csv", ImportOptions(account="loomhaven", mapping=MAP, date_order="month-first")
+        FIXTURES / "day_first.csv",
+        ImportOptions(account="loomhaven", mapping=MAP, date_order="month-first", new_accounts="UTC"),
     )
     gen = _generator()
     days = [datetime.fromisoformat(r["posted_at"]).astimezone(ZoneInfo(LONDON)).day for r in gen.canonical()]
@@ -194,7 +200,7 @@ def test_a_skipped_local_time_is_refused_in_every_layout(
     ws = london_workspace(make_workspace, "dst")
     f = tmp_path / "dst.csv"
     f.write_text(f"post_id,text,posted_at,impressions\nd1,Early start,{value},5\nd2,Later,{good},6\n")
-    s = ws.import_csv(f, ImportOptions(account="loomhaven", **opts))
+    s = ws.import_csv(f, ImportOptions(account="loomhaven", **opts, new_accounts="UTC"))
     assert s.added == 1 and [(p.line, p.column) for p in s.problems] == [(2, "posted_at")]
     assert "does not exist in Europe/London" in s.problems[0].reason
 
@@ -221,7 +227,7 @@ def test_counts_above_2_53_are_refused_per_row(workspace: Workspace, tmp_path: P
     )
     f = tmp_path / "big.csv"
     f.write_text(body)
-    s = workspace.import_csv(f)
+    s = workspace.import_csv(f, ImportOptions(new_accounts="UTC"))
     assert [(p.line, p.column, p.post_id) for p in s.problems] == [
         (3, "impressions", "n2"),
         (4, "impressions", "n3"),
@@ -252,7 +258,7 @@ def test_times_outside_the_range_are_refused_with_row_column_and_range(
         "t1,garden,Fine,2026-05-01T10:00:00Z,5\n"
         f"t2,garden,Out of range,{when},5\n"
     )
-    s = workspace.import_csv(f)
+    s = workspace.import_csv(f, ImportOptions(new_accounts="UTC"))
     assert s.added == 1 and [(p.line, p.column) for p in s.problems] == [(3, "posted_at")]
     assert "outside the accepted range, 1990-01-01 to" in s.problems[0].reason
 
@@ -264,7 +270,7 @@ def test_the_range_edges_are_accepted(workspace: Workspace, tmp_path: Path) -> N
         "e1,garden,First day,1990-01-01T00:00:00Z,5\n"
         "e2,garden,Next decade,2099-06-01T00:00:00Z,5\n"
     )
-    assert workspace.import_csv(f).added == 2
+    assert workspace.import_csv(f, ImportOptions(new_accounts="UTC")).added == 2
 
 
 def test_a_rate_that_does_not_match_is_rejected_and_a_missing_count_derived(
@@ -279,7 +285,7 @@ def test_a_rate_that_does_not_match_is_rejected_and_a_missing_count_derived(
         "r4,garden,Derived,2026-05-01T13:00:00Z,2000,,3.5%\n"  # 3.5% of 2000 = 70
         "r5,garden,Alone,2026-05-01T14:00:00Z,,,3.5%\n"
     )
-    s = workspace.import_csv(f)
+    s = workspace.import_csv(f, ImportOptions(new_accounts="UTC"))
     assert [(p.line, p.column) for p in s.problems] == [(3, "engagement_rate"), (6, "engagement_rate")]
     assert "does not match engagements / impressions" in s.problems[0].reason
     got = stored(workspace)
@@ -294,7 +300,7 @@ def test_number_hints_name_the_decimal_comma(workspace: Workspace, tmp_path: Pat
         "d1,garden,Dots,2026-05-01T10:00:00Z,1.234.567\n"
         "d2,garden,Percent,2026-05-01T10:00:00Z,45%\n"
     )
-    s = workspace.import_csv(f)
+    s = workspace.import_csv(f, ImportOptions(new_accounts="UTC"))
     assert "--decimal-comma" in (s.problems[0].hint or "")
     assert "percentage" in s.problems[1].reason
 
@@ -305,9 +311,9 @@ def test_an_exact_count_replacing_an_abbreviated_one_clears_the_flag(
     head = "post_id,account,text,posted_at,impressions,likes\n"
     (tmp_path / "a.csv").write_text(head + "a1,garden,Shortened,2026-05-01T10:00:00Z,3M,1.5K\n")
     (tmp_path / "b.csv").write_text(head + "a1,garden,Shortened,2026-05-01T10:00:00Z,3000000,\n")
-    workspace.import_csv(tmp_path / "a.csv")
+    workspace.import_csv(tmp_path / "a.csv", ImportOptions(new_accounts="UTC"))
     assert stored(workspace)["a1"]["approximate"] == {"impressions", "likes"}
-    s = workspace.import_csv(tmp_path / "b.csv")
+    s = workspace.import_csv(tmp_path / "b.csv", ImportOptions(new_accounts="UTC"))
     assert s.updated == 1  # same numbers, but now known exactly: a new snapshot
     got = stored(workspace)["a1"]
     # likes carried over from the earlier snapshot keep their flag.
@@ -342,7 +348,7 @@ def test_a_malformed_quote_in_row_2_of_5_costs_only_that_row(
     f.write_text(
         "\n".join(["post_id,account,text,posted_at,impressions", GOOD_ROWS[0], bad, *GOOD_ROWS[1:]]) + "\n"
     )
-    s = workspace.import_csv(f)
+    s = workspace.import_csv(f, ImportOptions(new_accounts="UTC"))
     assert [(p.line, p.column) for p in s.problems] == [(3, None)]
     assert s.added == 4 and s.skipped_lines == 0
     assert set(stored(workspace)) == {"m1", "m3", "m4", "m5"}
@@ -357,7 +363,7 @@ def test_a_field_over_the_csv_size_limit_costs_only_its_row(workspace: Workspace
         h.write("post_id,account,text,posted_at,impressions\n" + GOOD_ROWS[0] + "\n")
         h.write('m2,garden,"' + "x" * (limit + 10) + '\nstill the same field",2026-05-01T11:00:00Z,22\n')
         h.write("\n".join(GOOD_ROWS[1:]) + "\n")
-    s = workspace.import_csv(f)
+    s = workspace.import_csv(f, ImportOptions(new_accounts="UTC"))
     assert [(p.line, p.column) for p in s.problems] == [(3, None)]
     assert f"limit of {limit:,} characters" in s.problems[0].reason
     assert set(stored(workspace)) == {"m1", "m3", "m4", "m5"}
@@ -371,7 +377,7 @@ def test_a_file_whose_rest_is_not_csv_says_how_much_was_skipped(workspace: Works
     f.write_text(
         "\n".join(["post_id,account,text,posted_at,impressions", GOOD_ROWS[0], *junk, *GOOD_ROWS[1:]]) + "\n"
     )
-    s = workspace.import_csv(f)
+    s = workspace.import_csv(f, ImportOptions(new_accounts="UTC"))
     assert s.added == 1 and s.rejected == MAX_BAD_IN_A_ROW - 1
     # 49 bad records are reported; reading stops at the 50th, and its line, the junk
     # after it and the three good rows at the end are counted as not read.
@@ -386,11 +392,11 @@ def test_wide_headers_are_checked_for_repeats(workspace: Workspace, tmp_path: Pa
     row = ["w1", "garden", "Wide", "2026-05-01T10:00:00Z", "5", *["0"] * width]
     f = tmp_path / "wide.csv"
     f.write_text(",".join(head) + "\n" + ",".join(row) + "\n")
-    assert workspace.import_csv(f).added == 1
+    assert workspace.import_csv(f, ImportOptions(new_accounts="UTC")).added == 1
     head[-1] = head[7]  # one repeat, far from the start
     f.write_text(",".join(head) + "\n" + ",".join(row) + "\n")
     with pytest.raises(CSVFormatError, match=f"names {head[7]} more than once"):
-        workspace.import_csv(f)
+        workspace.import_csv(f, ImportOptions(new_accounts="UTC"))
 
 
 # Options -------------------------------------------------------------------------------
@@ -407,7 +413,7 @@ def test_wide_headers_are_checked_for_repeats(workspace: Workspace, tmp_path: Pa
 )
 def test_bad_layout_options_are_refused(workspace: Workspace, opts: dict, fragment: str) -> None:
     with pytest.raises(InputError, match=fragment):
-        workspace.import_csv(FIXTURES / "canonical.csv", ImportOptions(**opts))
+        workspace.import_csv(FIXTURES / "canonical.csv", ImportOptions(**opts, new_accounts="UTC"))
 
 
 # CLI: saved mappings, dry run, exit status ---------------------------------------------
@@ -540,7 +546,7 @@ def test_api_dry_run_stores_nothing(make_workspace) -> None:
 
     token = "t" * 40
     workspace = make_workspace(token=token)
-    workspace.import_csv(FIXTURES / "canonical.csv")
+    workspace.import_csv(FIXTURES / "canonical.csv", ImportOptions(new_accounts="UTC"))
     before = workspace.store.counts()
     data = {
         "map": [f"{k}={v}" for k, v in {**MAP, **RATE}.items()],
@@ -573,6 +579,6 @@ def test_an_unreadable_rest_exits_3_even_with_allow_rejects(cli_home: Path, tmp_
         )
         + "\n"
     )
-    r = run("import", str(f), "--allow-rejects")
+    r = run("import", str(f), "--allow-rejects", "--new-account", "--timezone", "UTC")
     assert r.exit_code == 3
     assert "added 1" in r.stdout and "6 lines were not read" in r.stderr

@@ -21,6 +21,7 @@ from models.embedding import Embedder
 from models.errors import InputError, NotFittedError, NotFound, StoreError
 from models.index import VectorIndex, fingerprint
 from service.health import health as health_of
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -340,7 +341,7 @@ def test_stale_index_is_detected_and_rebuilt(
         (tmp_path / "new.csv").write_text(
             f"post_id,account,text,posted_at,impressions\nnew-1,loomhaven,{text},2026-10-30T10:00:00Z,10\n"
         )
-        assert ws2.import_csv(tmp_path / "new.csv").added == 1
+        assert ws2.import_csv(tmp_path / "new.csv", ImportOptions(new_accounts="UTC")).added == 1
         q = embedder.encode([text])
         pk, sim = ws1.retrieval.nearest(q, 1)[0][0]
         assert ws1.store.posts_by_pk([pk])[pk]["post_id"] == "new-1"
@@ -353,7 +354,7 @@ def test_stale_index_is_detected_and_rebuilt(
             "new-1,loomhaven,Entirely different words about parking charges.,"
             "2026-10-30T10:00:00Z,10\n"
         )
-        assert ws2.import_csv(tmp_path / "edit.csv").updated == 1
+        assert ws2.import_csv(tmp_path / "edit.csv", ImportOptions(new_accounts="UTC")).updated == 1
         pk2, sim2 = ws1.retrieval.nearest(q, 1)[0][0]
         assert pk2 != pk or sim2 < 0.9
     finally:

@@ -31,6 +31,7 @@ from models.segments import OTHER
 from service.api.app import create_app
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
+from service.ingest.options import ImportOptions
 from service.segments.answer import SegmentResult
 from service.segments.figure import render
 from service.segments.request import SegmentRequest
@@ -326,7 +327,7 @@ def small_workspace(make_workspace, tmp_path: Path):
     path = tmp_path / "few.csv"
     rows.to_csv(path, index=False)
     ws = make_workspace("few")
-    ws.import_csv(path)
+    ws.import_csv(path, ImportOptions(new_accounts="UTC"))
     return ws
 
 

@@ -21,6 +21,7 @@ from typer.testing import CliRunner
 from service.api.app import create_app
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
+from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -79,9 +80,11 @@ def base_home(tmp_path_factory: pytest.TempPathFactory, embedder) -> Path:
         ["dup-1", "loomhaven", "Dawn chorus walk, tickets now open.", "2025-05-03T07:00:00+00:00", 410],
         ["dup-1", "loomhaven_lab", "Soil science open lab on Thursday.", "2025-05-03T08:00:00+00:00", 120],
     ]
-    ws.import_csv(write_csv(home.parent / "base.csv", rows(30) + extra))
+    ws.import_csv(write_csv(home.parent / "base.csv", rows(30) + extra), ImportOptions(new_accounts="UTC"))
     # A second reading of fb-4's metrics: it now has two snapshots.
-    ws.import_csv(write_csv(home.parent / "update.csv", [rows(30, bump=50)[4]]))
+    ws.import_csv(
+        write_csv(home.parent / "update.csv", [rows(30, bump=50)[4]]), ImportOptions(new_accounts="UTC")
+    )
     ws.close()
     return home
 
@@ -295,7 +298,9 @@ def test_backup_while_importing_is_consistent_and_restores(base_home: Path, tmp_
     def writer() -> None:
         try:
             ws.import_csv(
-                write_csv(tmp_path / "more.csv", rows(200, prefix="more", start=100)), progress=progress
+                write_csv(tmp_path / "more.csv", rows(200, prefix="more", start=100)),
+                ImportOptions(new_accounts="UTC"),
+                progress=progress,
             )
         except BaseException as exc:  # reported below
             failure.append(exc)

@@ -28,6 +28,7 @@ from models.embedding import Embedder
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
 from service.forecast.draft import Draft
+from service.ingest.options import ImportOptions
 from service.segments.request import SegmentRequest
 from service.segments.segmenting import segment
 from service.settings import Settings
@@ -122,7 +123,7 @@ def test_segments_match_the_sqlite_store(demo_workspace: Workspace, pg_demo: Wor
 
 def test_forget_on_postgres(make_workspace, pg_url: str, tmp_path: Path) -> None:
     ws = make_workspace("pg", database_url=pg_url)
-    ws.import_csv(write_csv(tmp_path / "a.csv", 12))
+    ws.import_csv(write_csv(tmp_path / "a.csv", 12), ImportOptions(new_accounts="UTC"))
     ((pk, key),) = raw(pg_url, "SELECT id, vector_key FROM posts WHERE post_id = 'pg-3'")
     assert ws.forget(post_id="pg-3") == 1
     assert raw(pg_url, "SELECT COUNT(*) FROM snapshots WHERE post_pk = :pk", pk=pk) == [(0,)]
@@ -134,7 +135,7 @@ def test_forget_on_postgres(make_workspace, pg_url: str, tmp_path: Path) -> None
     assert raw(pg_url, "SELECT handle FROM accounts") == [("loomhaven",)]
     assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(6,)]
     # New rows after a forget get fresh ids (the sequence is PostgreSQL's own).
-    s = ws.import_csv(write_csv(tmp_path / "b.csv", 4, prefix="more"))
+    s = ws.import_csv(write_csv(tmp_path / "b.csv", 4, prefix="more"), ImportOptions(new_accounts="UTC"))
     assert s.added == 4
     assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(10,)]
 
@@ -142,7 +143,7 @@ def test_forget_on_postgres(make_workspace, pg_url: str, tmp_path: Path) -> None
 def test_copy_to_then_use_on_postgres(
     workspace: Workspace, embedder: Embedder, pg_url: str, tmp_path: Path
 ) -> None:
-    workspace.import_csv(write_csv(tmp_path / "a.csv", 9))
+    workspace.import_csv(write_csv(tmp_path / "a.csv", 9), ImportOptions(new_accounts="UTC"))
     sqlite_url = workspace.settings.db_url
     use_embedder(embedder)
     runner = CliRunner()
@@ -170,7 +171,12 @@ def test_copy_to_then_use_on_postgres(
     # The copy takes new imports: ids continue past the copied ones.
     pg = Workspace(settings=Settings(home=tmp_path / "pg-home", database_url=pg_url), embedder=embedder)
     try:
-        assert pg.import_csv(write_csv(tmp_path / "b.csv", 3, prefix="new")).added == 3
+        assert (
+            pg.import_csv(
+                write_csv(tmp_path / "b.csv", 3, prefix="new"), ImportOptions(new_accounts="UTC")
+            ).added
+            == 3
+        )
     finally:
         pg.close()
     assert raw(pg_url, "SELECT COUNT(*) FROM posts") == [(12,)]

@@ -18,6 +18,7 @@ from models.embedding import Embedder
 from models.errors import InputError, NotFound, StoreError
 from models.features import has_link
 from models.metrics import METRIC_COLUMNS
+from service.ingest.options import ImportOptions
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
 from service.storage.tables import Snapshot
@@ -104,7 +105,7 @@ def test_unchanged_reimport_writes_and_embeds_nothing(demo_copy: Workspace, embe
     before_counts = demo_copy.store.counts()
     before = frame_values(demo_copy)
     calls = embedder.calls
-    s = demo_copy.import_csv(DEMO_CSV)
+    s = demo_copy.import_csv(DEMO_CSV, ImportOptions(new_accounts="UTC"))
     assert embedder.calls == calls  # not one text embedded again
     assert (s.added, s.updated, s.unchanged, s.rejected, s.embedded) == (0, 0, n, 0, 0)
     assert demo_copy.store.counts() == before_counts  # no new post, snapshot or vector
@@ -124,7 +125,7 @@ def test_one_changed_metric_makes_exactly_one_snapshot(
     before_counts = demo_copy.store.counts()
     before = frame_values(demo_copy)
     calls = embedder.calls
-    s = demo_copy.import_csv(path)
+    s = demo_copy.import_csv(path, ImportOptions(new_accounts="UTC"))
     assert embedder.calls == calls
     assert (s.added, s.updated, s.unchanged, s.embedded) == (0, 1, n - 1, 0)
     after_counts = demo_copy.store.counts()
@@ -145,7 +146,7 @@ def test_one_changed_metric_makes_exactly_one_snapshot(
     assert [h.impressions for h in history] == [old, old + 17]
     assert history[0].engagements == history[1].engagements == int(target["engagements"])
     # Re-importing the same changed file again adds nothing.
-    s2 = demo_copy.import_csv(path)
+    s2 = demo_copy.import_csv(path, ImportOptions(new_accounts="UTC"))
     assert (s2.updated, s2.unchanged) == (0, n)
     assert demo_copy.store.counts()["snapshots"] == before_counts["snapshots"] + 1
 
@@ -156,8 +157,14 @@ def _csv(path: Path, body: str) -> Path:
 
 
 def test_blank_metric_carries_over(workspace: Workspace, tmp_path: Path) -> None:
-    workspace.import_csv(_csv(tmp_path / "a.csv", "p1,g,Hello garden,2026-01-01T10:00Z,100,5,true\n"))
-    s = workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,Hello garden,2026-01-01T10:00Z,150,,\n"))
+    workspace.import_csv(
+        _csv(tmp_path / "a.csv", "p1,g,Hello garden,2026-01-01T10:00Z,100,5,true\n"),
+        ImportOptions(new_accounts="UTC"),
+    )
+    s = workspace.import_csv(
+        _csv(tmp_path / "b.csv", "p1,g,Hello garden,2026-01-01T10:00Z,150,,\n"),
+        ImportOptions(new_accounts="UTC"),
+    )
     assert s.updated == 1
     pk = int(workspace.store.posts_frame()["pk"].iloc[0])
     hist = snapshots_of(workspace, pk)
@@ -167,16 +174,25 @@ def test_blank_metric_carries_over(workspace: Workspace, tmp_path: Path) -> None
 
 
 def test_changes_without_new_metrics(workspace: Workspace, embedder: Embedder, tmp_path: Path) -> None:
-    workspace.import_csv(_csv(tmp_path / "a.csv", "p1,g,Hello garden,2026-01-01T10:00Z,100,5,true\n"))
+    workspace.import_csv(
+        _csv(tmp_path / "a.csv", "p1,g,Hello garden,2026-01-01T10:00Z,100,5,true\n"),
+        ImportOptions(new_accounts="UTC"),
+    )
     key1 = workspace.store.posts_frame()["vector_key"].iloc[0]
     # A new time only: updated in place, no snapshot, nothing embedded.
     calls = embedder.calls
-    s = workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,Hello garden,2026-01-02T10:00Z,100,5,true\n"))
+    s = workspace.import_csv(
+        _csv(tmp_path / "b.csv", "p1,g,Hello garden,2026-01-02T10:00Z,100,5,true\n"),
+        ImportOptions(new_accounts="UTC"),
+    )
     assert (s.updated, s.embedded, embedder.calls) == (1, 0, calls)
     assert workspace.store.counts()["snapshots"] == 1
     assert workspace.store.posts_frame()["posted_at"].iloc[0] == pd.Timestamp("2026-01-02T10:00Z")
     # A new text: embedded once, new vector key, found by search.
-    s = workspace.import_csv(_csv(tmp_path / "c.csv", "p1,g,Goodbye garden,2026-01-02T10:00Z,100,5,true\n"))
+    s = workspace.import_csv(
+        _csv(tmp_path / "c.csv", "p1,g,Goodbye garden,2026-01-02T10:00Z,100,5,true\n"),
+        ImportOptions(new_accounts="UTC"),
+    )
     assert (s.updated, s.embedded, embedder.calls) == (1, 1, calls + 1)
     row = workspace.store.posts_frame().iloc[0]
     assert row["text"] == "Goodbye garden" and row["vector_key"] != key1
@@ -192,7 +208,8 @@ def test_same_text_shares_one_vector(workspace: Workspace, embedder: Embedder, t
             tmp_path / "a.csv",
             "p1,g,Bees  in the lavender,2026-01-01T10:00Z,1,1,\n"
             "p2,h,Bees in the lavender ,2026-01-02T10:00Z,2,1,\n",
-        )
+        ),
+        ImportOptions(new_accounts="UTC"),
     )
     assert (s.added, s.embedded, embedder.calls - calls) == (2, 1, 1)
     assert workspace.store.counts()["vectors"] == 1
@@ -261,19 +278,27 @@ def test_a_batch_is_one_transaction(workspace: Workspace, embedder: Embedder) ->
 
 def test_stamp_moves_with_every_change(workspace: Workspace, tmp_path: Path) -> None:
     s0 = workspace.store.stamp()
-    workspace.import_csv(_csv(tmp_path / "a.csv", "p1,g,One,2026-01-01T10:00Z,1,1,\n"))
+    workspace.import_csv(
+        _csv(tmp_path / "a.csv", "p1,g,One,2026-01-01T10:00Z,1,1,\n"), ImportOptions(new_accounts="UTC")
+    )
     s1 = workspace.store.stamp()
-    workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,One,2026-01-01T10:00Z,2,1,\n"))
+    workspace.import_csv(
+        _csv(tmp_path / "b.csv", "p1,g,One,2026-01-01T10:00Z,2,1,\n"), ImportOptions(new_accounts="UTC")
+    )
     s2 = workspace.store.stamp()
     workspace.forget(post_id="p1")
     s3 = workspace.store.stamp()
     # The stamp is a counter of write transactions: it only grows, even when
     # a forget empties the store again.
     assert s0 < s1 < s2 < s3
-    workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,One,2026-01-01T10:00Z,2,1,\n"))
+    workspace.import_csv(
+        _csv(tmp_path / "b.csv", "p1,g,One,2026-01-01T10:00Z,2,1,\n"), ImportOptions(new_accounts="UTC")
+    )
     s4 = workspace.store.stamp()
     # Re-importing the same file writes nothing, so the stamp stays; reads never move it.
-    workspace.import_csv(_csv(tmp_path / "b.csv", "p1,g,One,2026-01-01T10:00Z,2,1,\n"))
+    workspace.import_csv(
+        _csv(tmp_path / "b.csv", "p1,g,One,2026-01-01T10:00Z,2,1,\n"), ImportOptions(new_accounts="UTC")
+    )
     workspace.store.posts_frame()
     assert workspace.store.stamp() == s4 > s3
     workspace.store.set_account("g", timezone="Europe/Paris")
@@ -291,7 +316,7 @@ def test_accounts(workspace: Workspace) -> None:
     assert workspace.store.set_account("lab").timezone == "UTC"
     with pytest.raises(InputError, match="unknown time zone 'Mars/Olympus'"):
         workspace.store.set_account("garden", timezone="Mars/Olympus")
-    with pytest.raises(InputError, match="without spaces"):
+    with pytest.raises(InputError, match=r"holds U\+0020 \(SPACE\)"):
         workspace.store.set_account("two words")
     with pytest.raises(InputError):
         workspace.store.set_account("")

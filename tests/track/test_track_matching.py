@@ -1,6 +1,6 @@
 """Matching published posts to the forecasts they fulfil (service.track.record).
 
-The rules (explicit draft id first; else same account, text
+The rules come from issue 11 (explicit draft id first; else same account, text
 similarity at or above the threshold and a posting time within the window;
 one post fulfils at most one forecast, the latest given before it was posted;
 a forecast given after the post never counts; idempotent; forget removes
@@ -106,7 +106,7 @@ def _matches(ws: Workspace) -> dict[int, tuple[str, str]]:
 
 @pytest.fixture()
 def ws(workspace: Workspace, tmp_path: Path) -> Workspace:
-    workspace.import_csv(_csv(tmp_path / "history.csv", HISTORY))
+    workspace.import_csv(_csv(tmp_path / "history.csv", HISTORY), ImportOptions(new_accounts="UTC"))
     return workspace
 
 
@@ -115,7 +115,8 @@ def test_explicit_draft_id_wins_over_text_and_time(ws: Workspace, tmp_path: Path
     # Different words and five days late: only the explicit id can link them.
     rows = [("p1", "garden", FERNS, T0 + timedelta(days=5), "plan-7")]
     ws.import_csv(
-        _csv(tmp_path / "pub.csv", rows, draft_col="Draft"), ImportOptions(mapping={"draft_id": "Draft"})
+        _csv(tmp_path / "pub.csv", rows, draft_col="Draft"),
+        ImportOptions(mapping={"draft_id": "Draft"}, new_accounts="UTC"),
     )
     assert _matches(ws) == {f: ("p1", "draft_id")}
 
@@ -128,7 +129,7 @@ def test_text_and_time_match_and_their_limits(ws: Workspace, tmp_path: Path) -> 
         ("p1", "garden", ROSES_EDITED, T0 + timedelta(minutes=20)),  # light edit, on time
         ("p2", "garden", FERNS, T0 + timedelta(days=4)),  # same text, outside the 48 h window
     ]
-    ws.import_csv(_csv(tmp_path / "pub.csv", rows))
+    ws.import_csv(_csv(tmp_path / "pub.csv", rows), ImportOptions(new_accounts="UTC"))
     got = _matches(ws)
     assert got.get(near) == ("p1", "text_time")
     assert late not in got  # too far from its planned time
@@ -156,7 +157,7 @@ def test_near_duplicate_drafts_each_find_their_own_post(ws: Workspace, tmp_path:
         ("p-sat", "garden", LANTERN_SAT, T0 + timedelta(hours=2, minutes=5)),
         ("p-rose", "garden", ROSES, T0 + timedelta(hours=3)),
     ]
-    ws.import_csv(_csv(tmp_path / "pub.csv", rows))
+    ws.import_csv(_csv(tmp_path / "pub.csv", rows), ImportOptions(new_accounts="UTC"))
     got = _matches(ws)
     assert got[fri][0] == "p-fri" and got[sat][0] == "p-sat"
     assert got[again_2][0] == "p-rose" and again_1 not in got  # one post, one forecast
@@ -167,7 +168,7 @@ def test_post_published_before_the_forecast_never_matches(ws: Workspace, tmp_pat
         ws, text=ROSES, account="garden", planned=T0, given=T0 + timedelta(hours=1), draft_id="d-1"
     )
     rows = [("p1", "garden", ROSES, T0, "d-1")]  # out at T0, forecast given an hour later
-    ws.import_csv(_csv(tmp_path / "pub.csv", rows, draft_col="draft_id"))
+    ws.import_csv(_csv(tmp_path / "pub.csv", rows, draft_col="draft_id"), ImportOptions(new_accounts="UTC"))
     assert after not in _matches(ws)
 
 
@@ -178,11 +179,11 @@ def test_reimport_is_idempotent_and_forget_removes_matches(ws: Workspace, tmp_pa
         tmp_path / "pub.csv",
         [("p1", "garden", ROSES, T0 + timedelta(minutes=3)), ("p2", "lab", FERNS, T0 + timedelta(minutes=9))],
     )
-    ws.import_csv(pub)
+    ws.import_csv(pub, ImportOptions(new_accounts="UTC"))
     first = _matches(ws)
     assert set(first) == {f1, f2}
-    ws.import_csv(pub)
-    ws.import_csv(pub)
+    ws.import_csv(pub, ImportOptions(new_accounts="UTC"))
+    ws.import_csv(pub, ImportOptions(new_accounts="UTC"))
     assert _matches(ws) == first
     with ws.store.session() as s:
         assert s.scalar(select(func.count(ForecastMatch.id))) == 2
@@ -194,5 +195,5 @@ def test_reimport_is_idempotent_and_forget_removes_matches(ws: Workspace, tmp_pa
         # The account's forecasts go with it; the other account's stay, unmatched.
         assert s.scalar(select(func.count(ForecastGiven.id))) == 1
     # Re-importing the forgotten post matches it again: nothing else held the link.
-    ws.import_csv(pub)
+    ws.import_csv(pub, ImportOptions(new_accounts="UTC"))
     assert _matches(ws)[f1][0] == "p1"

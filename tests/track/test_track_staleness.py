@@ -24,6 +24,7 @@ from service.cli import app
 from service.cli.base import use_embedder
 from service.clock import UTC, now_utc, to_naive_utc
 from service.forecast.training import train
+from service.ingest.options import ImportOptions
 from service.storage.tables import Account, CalibrationState, ForecastGiven, ForecastMatch, Post
 from service.track import adaptation, facts
 from service.workspace import Workspace
@@ -146,7 +147,7 @@ def test_live_coverage_outside_its_binomial_band_warns(
         for i in range(50)
     ]
     (tmp_path / "posts.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    workspace.import_csv(tmp_path / "posts.csv")
+    workspace.import_csv(tmp_path / "posts.csv", ImportOptions(new_accounts="UTC"))
     low, _ = _band(50, 0.8)
     held = low + offset
     with workspace.store.session() as s:

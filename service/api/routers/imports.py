@@ -12,6 +12,7 @@ happened.
 
 from __future__ import annotations
 
+import dataclasses
 import os
 import typing
 from dataclasses import dataclass, field
@@ -25,7 +26,7 @@ from starlette.concurrency import run_in_threadpool
 from starlette.requests import ClientDisconnect
 
 from models.errors import AuthError, InputError, LimitExceeded, NotFound, NotReady, StoreError
-from service.api.deps import WorkspaceDep, WriteAccess
+from service.api.deps import Credentials, SettingsDep, WorkspaceDep, from_loopback, require_token
 from service.api.responses import ERRORS
 from service.api.schemas import ImportPreview, ImportSummary
 from service.ingest.mappings import combine, load_mapping
@@ -39,7 +40,17 @@ if typing.TYPE_CHECKING:
 router = APIRouter(prefix="/v1", tags=["imports"])
 
 FILE_FIELD = "file"
-TEXT_FIELDS = ("account", "timezone", "map", "time_format", "date_order", "decimal_comma", "mapping")
+TEXT_FIELDS = (
+    "account",
+    "timezone",
+    "map",
+    "time_format",
+    "date_order",
+    "decimal_comma",
+    "mapping",
+    "new_account",
+    "encoding",
+)
 # A form field is a handle, a zone name or one mapping: never long.
 MAX_FIELD_BYTES = 64 * 1024
 
@@ -90,6 +101,16 @@ UPLOAD_BODY: dict[str, Any] = {
                     "mapping": {
                         "type": "string",
                         "description": "A saved mapping's name; the other fields override it",
+                    },
+                    "new_account": {
+                        "type": "string",
+                        "enum": ["true", "false"],
+                        "description": "Create the accounts the file names that the store lacks, "
+                        "in `timezone` (which it needs); otherwise an unknown account is refused",
+                    },
+                    "encoding": {
+                        "type": "string",
+                        "description": "The file's text encoding, any codec Python knows (default: UTF-8)",
                     },
                 },
             }
@@ -288,6 +309,26 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
     return combine(load_mapping(home, name) if name else None, given)
 
 
+def upload_extras(upload: Upload, options: ImportOptions) -> dict[str, Any]:
+    """The form's fields that are not a reading option: new accounts, encoding."""
+    new = upload.one("new_account")
+    if new not in (None, "true", "false"):
+        raise InputError("new_account must be true or false", field="new_account")
+    zone_name: str | None = None
+    if new == "true":
+        zone_name = options.timezone
+        if not zone_name:
+            raise InputError(
+                "new_account needs timezone: the zone the new account's local hours are counted in",
+                field="timezone",
+            )
+    extras: dict[str, Any] = {"new_accounts": zone_name}
+    encoding = upload.one("encoding")
+    if encoding is not None:
+        extras["encoding"] = encoding
+    return extras
+
+
 @router.post(
     "/imports",
     response_model=ImportSummary | ImportPreview,
@@ -298,7 +339,8 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
 async def create_import(
     request: Request,
     ws: WorkspaceDep,
-    _auth: WriteAccess,
+    settings: SettingsDep,
+    creds: Credentials,
     dry_run: Annotated[
         bool,
         Query(
@@ -309,7 +351,10 @@ async def create_import(
 ) -> ImportSummary | ImportPreview:
     """Rows with problems are reported with line, column, reason and a fix
     to try; every valid row is stored, in batches that are each one
-    transaction. With dry_run=true nothing is stored."""
+    transaction. With dry_run=true nothing is stored, and from this machine
+    (loopback) no token is needed for it: a preview changes nothing."""
+    if not (dry_run and from_loopback(request)):
+        require_token(settings, creds)
     if not dry_run:
         ws.check_writable("an import")  # before the upload is written into the data directory
     try:
@@ -324,6 +369,7 @@ async def create_import(
     assert upload.path is not None  # receive_upload raises when the form has no file
     try:
         o = upload_options(upload, ws.settings.resolved_home)
+        o = dataclasses.replace(o, **upload_extras(upload, o))
         # Reading, embedding and writing are slow and blocking: off the event loop.
         if dry_run:
             preview: ImportPreview = await run_in_threadpool(ws.preview_import, upload.path, o)
