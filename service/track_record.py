@@ -39,7 +39,6 @@ import numpy as np
 from pydantic import BaseModel, Field
 from scipy.stats import binom
 from sqlalchemy import Integer, cast, delete, func, select
-from statsmodels.stats.proportion import proportion_confint
 
 from models import features as F
 from models.adaptive import aci_step, adaptive_quantile
@@ -55,6 +54,7 @@ from models.metrics import (
     target_value,
     target_values,
 )
+from models.proportions import wilson_interval
 
 from .answers import Calibration, LiveCoverage
 from .forecasting import Draft, Forecast, _back
@@ -418,9 +418,8 @@ def live_coverage(store: Any, metric: str, coverage: float) -> LiveCoverage:
 
 
 def _wilson(k: int, n: int) -> tuple[float, float]:
-    # Wilson score interval, 95% (statsmodels).
-    lo, hi = proportion_confint(k, n, alpha=0.05, method="wilson")
-    return float(lo), float(hi)
+    # Wilson score interval, 95%.
+    return wilson_interval(k, n)
 
 
 # Staleness -------------------------------------------------------------------

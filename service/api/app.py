@@ -62,7 +62,7 @@ def create_app(
     )
     app.state.workspace = ws
     errors.install(app)
-    guard.install(app, ws.settings, bound=bound_host)
+    guard.install(app, ws.settings, bound=bound_host, routers=[m.router for m in ROUTERS])
     _docs(app)
     for module in ROUTERS:
         app.include_router(module.router)
