@@ -32,6 +32,9 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from models.errors import CSVFormatError, InputError, TimeParseError
 
+from .offsets import HINT as OFFSET_HINT
+from .offsets import offset_problem, utc_offset
+
 #: The earliest time sounding accepts anywhere (import, requests, options).
 EARLIEST = datetime(1990, 1, 1, tzinfo=UTC)
 #: How far ahead of now a time may lie; 100 years as 36,525 days.
@@ -90,6 +93,7 @@ def _parse_iso(text: str, *, tz: str, where: str | None) -> datetime:
         # upper() because RFC 3339 (5.6) also allows lower-case 't' and 'z'.
         dt = datetime.fromisoformat(raw.upper())
     except ValueError:
+        _refuse_offset(raw, where=where)
         raise TimeParseError(
             f"cannot read time {raw!r}",
             where=where,
@@ -104,6 +108,12 @@ def _parse_iso(text: str, *, tz: str, where: str | None) -> datetime:
         return localize(dt, tz, where=where)
     except OverflowError:  # e.g. 0001-01-01T00:00+05:00 is before year 1 in UTC
         raise TimeParseError(f"time {raw!r} is out of range in UTC", where=where, value=text) from None
+
+
+def _refuse_offset(raw: str, *, where: str | None) -> None:
+    problem = offset_problem(raw)
+    if problem is not None:
+        raise TimeParseError(problem, where=where, value=raw, hint=OFFSET_HINT)
 
 
 def localize(naive: datetime, tz: str, *, where: str | None = None) -> datetime:
@@ -312,6 +322,7 @@ class TimeReader:
                     raise
         reading = self.reading(raw)
         if reading is None:
+            _refuse_offset(raw, where=where)
             raise TimeParseError(
                 f"cannot read time {raw!r}",
                 where=where,
@@ -349,7 +360,10 @@ class TimeReader:
         clock = _clock(m["clock"])
         if clock is None:
             return None
-        offset = _offset(m["zone"])
+        try:
+            offset = _offset(m["zone"])
+        except ValueError:
+            return None  # the caller names the offset (offset_problem)
         found: dict[str | None, datetime] = {}
         for order, layouts in DATE_LAYOUTS.items():
             for layout in layouts:
@@ -403,11 +417,7 @@ def _offset(text: str | None) -> timezone | None:
         return None
     if text.upper() in ("Z", "UTC", "GMT"):
         return UTC
-    if len(text) == 3:
-        text += "00"
-    parsed = datetime.strptime(text, "%z").tzinfo
-    assert isinstance(parsed, timezone)
-    return parsed
+    return utc_offset(text)  # ValueError past ±23:59
 
 
 def _epoch(raw: str, per_second: int, *, where: str | None) -> datetime:
