@@ -49,7 +49,7 @@ def check_coverage(coverage: float) -> float:
     """Return ``coverage`` if it can be asked for, else raise a clear error."""
     if not MIN_COVERAGE <= coverage <= MAX_COVERAGE:
         raise InputError(
-            f"coverage must be between {MIN_COVERAGE} and {MAX_COVERAGE}, got {coverage}",
+            f"coverage must be a number between {MIN_COVERAGE} and {MAX_COVERAGE}, got {coverage}",
             field="coverage",
             value=coverage,
         )

@@ -13,7 +13,7 @@ from __future__ import annotations
 from datetime import date, datetime
 from typing import Annotated, Literal
 
-from pydantic import AfterValidator, BaseModel, ConfigDict, Field
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, field_validator
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segments import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES, DEFAULT_MIN_N
@@ -38,6 +38,7 @@ from ..store import AccountInfo
 from ..timeparse import EARLIEST, as_utc, latest_time, range_text
 from ..track_record import TrackRecord
 from ..wordings import Variant, VariantsReport
+from .textcheck import utf8_only
 
 # The answers re-exported from the modules that define them (the request models
 # below are public too; this list only keeps the re-exports explicit).
@@ -94,6 +95,9 @@ InRangeDay = Annotated[date, AfterValidator(_day_in_range)]
 
 class Strict(BaseModel):
     model_config = ConfigDict(extra="forbid")
+
+    # Every string of every request is text that encodes (textcheck).
+    _utf8 = field_validator("*", mode="before")(utf8_only)
 
 
 class ErrorDetail(BaseModel):
