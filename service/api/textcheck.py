@@ -12,7 +12,7 @@ from typing import Any
 
 
 def has_lone_surrogate(value: Any) -> bool:
-    """Whether ``value`` (a string, or lists and dicts of them) holds a lone surrogate."""
+    """Whether ``value`` (a string, or a list of them) holds a lone surrogate."""
     if isinstance(value, str):
         try:
             value.encode("utf-8")
@@ -21,8 +21,7 @@ def has_lone_surrogate(value: Any) -> bool:
         return False
     if isinstance(value, list | tuple):
         return any(has_lone_surrogate(v) for v in value)
-    if isinstance(value, dict):
-        return any(has_lone_surrogate(k) or has_lone_surrogate(v) for k, v in value.items())
+    # A nested object is a model of its own, checked there with its own field names.
     return False
 
 
