@@ -33,8 +33,8 @@ from typing import Self
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .calibration import conformal_rank
-from .errors import InputError, NotFittedError
+from models.calibration import conformal_rank
+from models.errors import InputError, NotFittedError
 
 
 def aci_step(alpha_t: float, *, alpha: float, gamma: float, miss: bool) -> float:

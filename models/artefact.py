@@ -32,11 +32,11 @@ from typing import Any
 
 import numpy as np
 
-from .errors import NotFound, NotReady, StoreError
-from .features import FeatureParams
-from .regressor import QuantileForecaster
-from .stacking import StackedForecaster, draft_columns, load_forecaster
-from .textmodel import RidgeText
+from models.errors import NotFound, NotReady, StoreError
+from models.features import FeatureParams
+from models.regressor import QuantileForecaster
+from models.stacking import StackedForecaster, draft_columns, load_forecaster
+from models.textmodel import RidgeText
 
 CONFIG = "config.json"
 REPORT = "report.json"

@@ -24,12 +24,12 @@ from typing import Any
 
 import numpy as np
 
-from .errors import InputError
-from .evaluation import coverage, mae, mean_width, rolling_origin_splits, spearman
-from .features import TIMING_FEATURES
-from .metrics import DEFAULT_COVERAGE
-from .regressor import QuantileForecaster
-from .stacking import CANDIDATES, SIMPLE, StackedForecaster
+from models.errors import InputError
+from models.evaluation import coverage, mae, mean_width, rolling_origin_splits, spearman
+from models.features import TIMING_FEATURES
+from models.metrics import DEFAULT_COVERAGE
+from models.regressor import QuantileForecaster
+from models.stacking import CANDIDATES, SIMPLE, StackedForecaster
 
 #: The timing-only comparison model (one thread: the cores are shared).
 TIMING_ONLY_PARAMS: dict[str, Any] = {

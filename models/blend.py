@@ -17,7 +17,7 @@ import itertools
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .errors import InputError
+from models.errors import InputError
 
 MAX_COLUMNS = 12
 

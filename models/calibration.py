@@ -18,7 +18,7 @@ from typing import Self, cast
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .errors import InputError, NotFittedError
+from models.errors import InputError, NotFittedError
 
 # (n + 1)(1 - alpha) is often an integer in exact arithmetic (n = 19,
 # alpha = 0.05 gives 20 * 0.95 = 19) but lands a hair above it in floating

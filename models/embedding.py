@@ -20,7 +20,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import InputError, StoreError
+from models.errors import InputError, StoreError
 
 # Set before sentence-transformers / transformers are imported anywhere:
 # they read these at import time and would otherwise try a model hub.
@@ -197,7 +197,7 @@ class Embedder:
             return self._onnx if self._onnx is not None else self._model
 
     def _load_onnx(self) -> Any:
-        from . import onnx_backend  # imports onnxruntime: an optional dependency
+        from models import onnx_backend  # imports onnxruntime: an optional dependency
 
         assert self.export_dir is not None
         directory = onnx_backend.find_or_export(

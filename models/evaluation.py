@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .errors import InputError
+from models.errors import InputError
 
 
 def _vectors(named: dict[str, ArrayLike], *, infinite_ok: tuple[str, ...] = ()) -> list[np.ndarray]:

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .features import GROUPS
+from models.features import GROUPS
 
 
 @dataclass(frozen=True, slots=True)

@@ -21,7 +21,7 @@ from typing import cast
 import faiss
 import numpy as np
 
-from .errors import InputError
+from models.errors import InputError
 
 NEIGHBOUR_STATS = ("wmean", "median", "spread", "max", "top_sim", "n_similar", "days_since_top")
 

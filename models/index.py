@@ -36,7 +36,7 @@ from typing import Any, cast
 import faiss
 import numpy as np
 
-from .errors import InputError, NotFittedError, StoreError
+from models.errors import InputError, NotFittedError, StoreError
 
 INDEX_FILE = "index.faiss"
 CONFIG_FILE = "config.json"

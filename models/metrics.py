@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .errors import InputError
+from models.errors import InputError
 
 
 class Metric(StrEnum):

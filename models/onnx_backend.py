@@ -35,7 +35,7 @@ import numpy as np
 import onnxruntime as ort  # an ImportError here makes the embedder fall back to torch
 from tokenizers import Tokenizer
 
-from .errors import InputError, StoreError
+from models.errors import InputError, StoreError
 
 EXPORT_FORMAT = 1  # bump when the graph or the files of an export change
 OPSET = 17

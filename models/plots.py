@@ -23,8 +23,8 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, LogLocator
 
-from .errors import InputError
-from .segments import SegmentReport, SegmentStats
+from models.errors import InputError
+from models.segments import SegmentReport, SegmentStats
 
 #: Our palette: calm, distinguishable, and still readable in greyscale.
 PALETTE: tuple[str, ...] = (

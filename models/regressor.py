@@ -24,9 +24,9 @@ import lightgbm as lgb
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .calibration import CQRCalibrator
-from .errors import InputError, NotFittedError, NotFound, StoreError
-from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
+from models.calibration import CQRCalibrator
+from models.errors import InputError, NotFittedError, NotFound, StoreError
+from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
 
 # Coverage levels ``predict`` accepts are models.metrics' MIN_COVERAGE to MAX_COVERAGE:
 # below 0.5 a band is not useful; above 0.95 the calibration blocks we see are too

@@ -33,8 +33,8 @@ import numpy.typing as npt
 from pydantic import BaseModel, BeforeValidator, Field, computed_field
 from scipy import stats
 
-from .errors import InputError
-from .metrics import Metric
+from models.errors import InputError
+from models.metrics import Metric
 
 #: Name of the catch-all topic segment; it is treated like any other.
 OTHER = "other"

@@ -47,14 +47,14 @@ import numpy as np
 from numpy.typing import ArrayLike
 from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
 
-from . import features as F
-from .blend import simplex_weights
-from .calibration import cqr_scores
-from .errors import InputError, NotFittedError, NotFound, StoreError
-from .metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
-from .regressor import QuantileForecaster, _matrix, _target
-from .textmodel import RidgeText
-from .timing import TimingEffect, best_hour_share, hour_from_cyclic
+from models import features as F
+from models.blend import simplex_weights
+from models.calibration import cqr_scores
+from models.errors import InputError, NotFittedError, NotFound, StoreError
+from models.metrics import DEFAULT_COVERAGE, MAX_COVERAGE, MIN_COVERAGE, TRAINED_LEVELS
+from models.regressor import QuantileForecaster, _matrix, _target
+from models.textmodel import RidgeText
+from models.timing import TimingEffect, best_hour_share, hour_from_cyclic
 
 #: Columns added after ``models.features.FEATURE_NAMES`` (see ``extra_columns``).
 EXTRA_FEATURES: tuple[str, ...] = ("text_ridge", "account_code")

@@ -36,7 +36,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
 
-from .errors import InputError, NotFittedError, NotFound, StoreError
+from models.errors import InputError, NotFittedError, NotFound, StoreError
 
 #: Penalties tried; embedding vectors are unit rows of 384 values.
 ALPHAS: tuple[float, ...] = tuple(float(a) for a in np.logspace(-1, 4, 11))

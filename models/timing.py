@@ -22,8 +22,8 @@ from typing import Any, Self, cast
 import numpy as np
 from numpy.typing import ArrayLike
 
-from .errors import InputError, NotFittedError
-from .textmodel import ridge_fit
+from models.errors import InputError, NotFittedError
+from models.textmodel import ridge_fit
 
 HARMONICS = 4
 ALPHAS: tuple[float, ...] = tuple(float(a) for a in np.logspace(-1, 4, 11))

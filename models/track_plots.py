@@ -19,8 +19,8 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 from matplotlib.ticker import FuncFormatter, LogLocator, PercentFormatter
 
-from .errors import InputError
-from .plots import _STYLE, DPI, FORMATS, GRID, INK, PALETTE, WIDTH_IN, _plain_number
+from models.errors import InputError
+from models.plots import _STYLE, DPI, FORMATS, GRID, INK, PALETTE, WIDTH_IN, _plain_number
 
 HELD, MISSED = PALETTE[0], PALETTE[6]
 

@@ -27,15 +27,7 @@ from pydantic import BaseModel, ValidationError
 
 from models.errors import ServiceUnavailable, SoundingError, error_class
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
-
-from .api.schemas import (
-    DraftIn,
-    Forecast,
-    Forecasts,
-    Health,
-    HoursReport,
-    VariantsReport,
-)
+from service.api.schemas import DraftIn, Forecast, Forecasts, Health, HoursReport, VariantsReport
 
 M = TypeVar("M", bound=BaseModel)
 DraftLike = Mapping[str, Any] | DraftIn

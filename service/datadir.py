@@ -10,10 +10,9 @@ from contextlib import AbstractContextManager
 from typing import Protocol
 
 from models.embedding import Embedder
-
-from .retrieval import Retriever
-from .settings import Settings
-from .store import Store
+from service.retrieval import Retriever
+from service.settings import Settings
+from service.store import Store
 
 
 class DataDir(Protocol):

@@ -35,17 +35,16 @@ from models.metrics import (
     from_log,
 )
 from models.stacking import ALL_FEATURES, ALL_GROUPS, STACK_PARAMS, StackedForecaster, extra_columns
-
-from .answers import Calibration, Coverage, Instant, LiveCoverage
-from .datadir import DataDir
-from .history import HistoryView, build_view, feature_params, local_clock
-from .limits import Limits
-from .precedents import WeightedPrecedent, precedents_for
-from .repeats import Repeat, near_repeats_many
-from .retrieval import Retriever, WideCache
-from .settings import Settings
-from .store import Store, has_link
-from .timeparse import now_utc, wall_clock, zone
+from service.answers import Calibration, Coverage, Instant, LiveCoverage
+from service.datadir import DataDir
+from service.history import HistoryView, build_view, feature_params, local_clock
+from service.limits import Limits
+from service.precedents import WeightedPrecedent, precedents_for
+from service.repeats import Repeat, near_repeats_many
+from service.retrieval import Retriever, WideCache
+from service.settings import Settings
+from service.store import Store, has_link
+from service.timeparse import now_utc, wall_clock, zone
 
 __all__ = [
     "CAUTION",

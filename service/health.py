@@ -12,8 +12,7 @@ from pydantic import BaseModel, Field
 
 from models.artefact import intact
 from models.metrics import DEFAULT_METRIC
-
-from .datadir import DataDir
+from service.datadir import DataDir
 
 
 class IndexState(BaseModel):

@@ -17,9 +17,8 @@ import pandas as pd
 
 from models import features as F
 from models.metrics import METRIC_COLUMNS, target_values
-
-from .settings import Settings
-from .store import Store
+from service.settings import Settings
+from service.store import Store
 
 EPOCH = datetime(1970, 1, 1, tzinfo=UTC)
 

@@ -14,11 +14,10 @@ from pydantic import BaseModel, Field
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from models.stacking import best_hour_confidence
-
-from .answers import Coverage, Instant, Round3
-from .forecasting import CAUTION, Draft, Forecaster
-from .overlap import RULE, ranks, tied_with_best
-from .timeparse import UTC, now_utc, zone
+from service.answers import Coverage, Instant, Round3
+from service.forecasting import CAUTION, Draft, Forecaster
+from service.overlap import RULE, ranks, tied_with_best
+from service.timeparse import UTC, now_utc, zone
 
 WEEK_DAYS = 7
 FIRST_DAY, LAST_DAY = date(2, 1, 1), date(9999, 12, 20)

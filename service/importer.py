@@ -46,12 +46,11 @@ from pydantic import BaseModel, ConfigDict, Field
 from models.embedding import Embedder, normalise_text
 from models.errors import CSVFormatError, InputError, TimeParseError
 from models.metrics import METRIC_COLUMNS, Metric
-
-from .answers import Instant, MetricValues
-from .csvread import Abandoned, BadRecord, Record, RecordReader
-from .numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
-from .store import PostRow, Store
-from .timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order, zone
+from service.answers import Instant, MetricValues
+from service.csvread import Abandoned, BadRecord, Record, RecordReader
+from service.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
+from service.store import PostRow, Store
+from service.timeparse import UTC, DateOrder, TimeLayout, TimeReader, check_date_order, zone
 
 RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
 CANONICAL_COLUMNS: tuple[str, ...] = (

@@ -10,8 +10,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from models.errors import InputError, LimitExceeded
-
-from .settings import Settings
+from service.settings import Settings
 
 
 @dataclass(frozen=True, slots=True)

@@ -34,8 +34,7 @@ from typing import Any
 import tomli_w
 
 from models.errors import InputError, NotFound
-
-from .importer import ImportOptions
+from service.importer import ImportOptions
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 _KEYS = {"account", "columns", "times", "numbers"}

@@ -40,9 +40,8 @@ from sqlalchemy.exc import IntegrityError, OperationalError, ProgrammingError
 from sqlalchemy.schema import CreateColumn
 
 from models.errors import StoreError
-
-from .tables import HISTORY_STAMP, SCORING_STAMP, Base, ChangeStamp, SchemaVersion
-from .timeparse import now_utc, to_naive_utc
+from service.tables import HISTORY_STAMP, SCORING_STAMP, Base, ChangeStamp, SchemaVersion
+from service.timeparse import now_utc, to_naive_utc
 
 SCHEMA_VERSION = 1
 

@@ -20,12 +20,11 @@ from pathlib import Path
 
 from models.errors import CSVFormatError, InputError, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
-
-from .forecasting import Draft, Forecast
-from .importer import _FALSE, _TRUE, check_encoding
-from .timeparse import parse_time
-from .track_record import give
-from .workspace import Workspace
+from service.forecasting import Draft, Forecast
+from service.importer import _FALSE, _TRUE, check_encoding
+from service.timeparse import parse_time
+from service.track_record import give
+from service.workspace import Workspace
 
 PLAN_COLUMNS = ("draft_id", "account", "text", "planned_at")
 OPTIONAL_COLUMNS = ("has_media",)

@@ -7,9 +7,9 @@ from typing import Any
 
 from pydantic import BaseModel, Field
 
-from .answers import Instant, MetricValues, Round4
-from .store import Store
-from .timeparse import now_utc
+from service.answers import Instant, MetricValues, Round4
+from service.store import Store
+from service.timeparse import now_utc
 
 
 class Precedent(BaseModel):

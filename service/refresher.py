@@ -16,8 +16,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 
 from models.errors import SoundingError
-
-from .workspace import Workspace
+from service.workspace import Workspace
 
 log = logging.getLogger("sounding.refresher")
 

@@ -14,11 +14,10 @@ import pandas as pd
 from pydantic import BaseModel, Field
 
 from models.metrics import METRIC_COLUMNS, Metric, target_value
-
-from .answers import Instant, Round2, Round4
-from .history import HistoryView
-from .retrieval import Retriever, WideCache
-from .settings import Settings
+from service.answers import Instant, Round2, Round4
+from service.history import HistoryView
+from service.retrieval import Retriever, WideCache
+from service.settings import Settings
 
 DAY = 86400.0
 

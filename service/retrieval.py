@@ -19,9 +19,8 @@ import numpy as np
 
 from models import features as F
 from models.index import VectorIndex
-
-from .history import HistoryView
-from .store import Store
+from service.history import HistoryView
+from service.store import Store
 
 #: Nearest posts fetched per draft in one unfiltered pass before filtering.
 WIDE = 200

@@ -11,10 +11,10 @@ imports from the modules above.
 
 from __future__ import annotations
 
-from .hours import HoursReport, Slot, best_hours, day_slots, parse_day
-from .overlap import RULE, heavy_overlap, tied_with_best
-from .repeats import Repeat, near_repeats, near_repeats_many
-from .wordings import MAX_VARIANTS, Variant, VariantsReport, compare_variants
+from service.hours import HoursReport, Slot, best_hours, day_slots, parse_day
+from service.overlap import RULE, heavy_overlap, tied_with_best
+from service.repeats import Repeat, near_repeats, near_repeats_many
+from service.wordings import MAX_VARIANTS, Variant, VariantsReport, compare_variants
 
 __all__ = [
     "MAX_VARIANTS",

@@ -63,10 +63,9 @@ from models.segments import (
     length_labels,
     two_way,
 )
-
-from .datadir import DataDir
-from .history import local_clock
-from .timeparse import now_utc
+from service.datadir import DataDir
+from service.history import local_clock
+from service.timeparse import now_utc
 
 #: What a one-way split can be made by, besides topics.
 By = Literal["hour", "weekday", "link", "media", "length", "account"]

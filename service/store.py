@@ -30,9 +30,8 @@ from sqlalchemy.orm import ORMExecuteState, Session, sessionmaker
 from models.errors import InputError, NotFound, StoreError
 from models.index import fingerprint
 from models.metrics import METRIC_COLUMNS
-
-from .migrations import check_current, upgrade
-from .tables import (
+from service.migrations import check_current, upgrade
+from service.tables import (
     HISTORY_STAMP,
     SCORING_STAMP,
     STAMP_OF,
@@ -43,7 +42,7 @@ from .tables import (
     Snapshot,
     Vector,
 )
-from .timeparse import as_utc, now_utc, to_naive_utc, zone
+from service.timeparse import as_utc, now_utc, to_naive_utc, zone
 
 _LINK = re.compile(r"(?i)\b(?:https?://|www\.)\S+")
 

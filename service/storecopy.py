@@ -11,9 +11,8 @@ from __future__ import annotations
 from sqlalchemy import func, insert, select, text
 
 from models.errors import StoreError
-
-from .store import Store
-from .tables import Base, ChangeStamp, SchemaVersion
+from service.store import Store
+from service.tables import Base, ChangeStamp, SchemaVersion
 
 _BATCH = 1000
 # Each store keeps its own version and change stamp.

@@ -31,9 +31,8 @@ from typing import Literal
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from models.errors import CSVFormatError, InputError, TimeParseError
-
-from .offsets import HINT as OFFSET_HINT
-from .offsets import offset_problem, utc_offset
+from service.offsets import HINT as OFFSET_HINT
+from service.offsets import offset_problem, utc_offset
 
 #: The earliest time sounding accepts anywhere (import, requests, options).
 EARLIEST = datetime(1990, 1, 1, tzinfo=UTC)

@@ -55,18 +55,10 @@ from models.metrics import (
     target_values,
 )
 from models.proportions import wilson_interval
-
-from .answers import Calibration, LiveCoverage
-from .forecasting import Draft, Forecast, _back
-from .tables import (
-    Account,
-    CalibrationState,
-    ForecastGiven,
-    ForecastMatch,
-    Post,
-    PostDraftLink,
-)
-from .timeparse import as_utc, now_utc, parse_time, to_naive_utc
+from service.answers import Calibration, LiveCoverage
+from service.forecasting import Draft, Forecast, _back
+from service.tables import Account, CalibrationState, ForecastGiven, ForecastMatch, Post, PostDraftLink
+from service.timeparse import as_utc, now_utc, parse_time, to_naive_utc
 
 #: Near ties in similarity (same draft edited and checked again) go to the latest forecast.
 SIMILARITY_TIE = 0.01

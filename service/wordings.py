@@ -12,11 +12,10 @@ from pydantic import BaseModel, Field
 
 from models.errors import InputError, LimitExceeded, SoundingError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
-
-from .answers import Coverage, Instant
-from .forecasting import CAUTION, Draft, Forecaster
-from .overlap import RULE, ranks, tied_with_best
-from .timeparse import now_utc
+from service.answers import Coverage, Instant
+from service.forecasting import CAUTION, Draft, Forecaster
+from service.overlap import RULE, ranks, tied_with_best
+from service.timeparse import now_utc
 
 MAX_VARIANTS = 10
 

@@ -24,16 +24,15 @@ from models.artefact import clean_leftovers
 from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
 from models.index import VectorIndex, fingerprint
-
-from .forecasting import Forecaster
-from .importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
-from .locking import LOCK_FILE, WriteLock
-from .precedents import Precedent, precedents_for
-from .retrieval import Retriever
-from .settings import Settings
-from .store import AccountInfo, Store
-from .timeparse import as_utc
-from .track_record import after_import
+from service.forecasting import Forecaster
+from service.importer import EmbedFn, ImportPreview, ImportSummary, ProgressFn, import_csv, preview_csv
+from service.locking import LOCK_FILE, WriteLock
+from service.precedents import Precedent, precedents_for
+from service.retrieval import Retriever
+from service.settings import Settings
+from service.store import AccountInfo, Store
+from service.timeparse import as_utc
+from service.track_record import after_import
 
 __all__ = ["Precedent", "Workspace"]
 

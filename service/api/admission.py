@@ -19,10 +19,10 @@ from fastapi.routing import APIRoute
 from starlette.routing import Match
 from starlette.types import ASGIApp, Receive, Scope, Send
 
-from ..settings import Settings
-from .deps import require_token
-from .errors import scrub
-from .tokens import header_problem
+from service.api.deps import require_token
+from service.api.errors import scrub
+from service.api.tokens import header_problem
+from service.settings import Settings
 
 
 def _needs_token(dependant: Any) -> bool:

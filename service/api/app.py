@@ -12,14 +12,10 @@ from fastapi.openapi.docs import get_swagger_ui_html
 from fastapi.responses import HTMLResponse, JSONResponse
 from fastapi.staticfiles import StaticFiles
 
-from .. import __version__
-from ..forecasting import CAUTION
-from ..refresher import refreshing
-from ..settings import Settings, get_settings
-from ..workspace import Workspace
-from . import errors, guard, page
-from .csp import ContentSecurityPolicy
-from .routers import (
+from service import __version__
+from service.api import errors, guard, page
+from service.api.csp import ContentSecurityPolicy
+from service.api.routers import (
     forecasts,
     forget,
     health,
@@ -31,6 +27,10 @@ from .routers import (
     training,
     variants,
 )
+from service.forecasting import CAUTION
+from service.refresher import refreshing
+from service.settings import Settings, get_settings
+from service.workspace import Workspace
 
 STATIC = Path(__file__).resolve().parent.parent / "static"
 

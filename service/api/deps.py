@@ -7,9 +7,9 @@ from typing import Annotated
 from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 
-from ..settings import Settings
-from ..workspace import Workspace
-from .tokens import token_problem
+from service.api.tokens import token_problem
+from service.settings import Settings
+from service.workspace import Workspace
 
 _bearer = HTTPBearer(auto_error=False, description="SOUNDING_TOKEN of the server")
 

@@ -30,8 +30,8 @@ from fastapi import APIRouter
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from uvicorn.protocols.http.h11_impl import H11Protocol
 
-from ..settings import Settings
-from .admission import TokenFirst
+from service.api.admission import TokenFirst
+from service.settings import Settings
 
 log = logging.getLogger("sounding.api")
 

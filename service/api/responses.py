@@ -13,8 +13,7 @@ from fastapi import Response
 from pydantic import BaseModel
 
 from models.errors import SoundingError, error_class
-
-from .schemas import ErrorBody
+from service.api.schemas import ErrorBody
 
 
 def ERRORS(*errors: type[SoundingError] | int) -> dict[int | str, dict[str, Any]]:  # noqa: N802 - reads as a constant

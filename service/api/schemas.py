@@ -17,28 +17,20 @@ from pydantic import AfterValidator, BaseModel, ConfigDict, Field, field_validat
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segments import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES, DEFAULT_MIN_N
-
-from ..answers import Calibration, Coverage, LiveCoverage
-from ..forecasting import Contributions, Forecast, Forecasts, GroupEffect
-from ..health import EmbeddingState, Health, IndexState, SearchState
-from ..hours import HoursReport, Slot
-from ..importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
-from ..precedents import Precedent, Precedents, WeightedPrecedent
-from ..repeats import Repeat
-from ..segmenting import (
-    DEFAULT_EXAMPLES,
-    DEFAULT_K,
-    DEFAULT_THRESHOLD,
-    MAX_EXAMPLES,
-    By,
-    Mode,
-)
-from ..segmenting import SegmentResult as SegmentResult  # the answer, used as it is
-from ..store import AccountInfo
-from ..timeparse import EARLIEST, as_utc, latest_time, range_text
-from ..track_record import TrackRecord
-from ..wordings import Variant, VariantsReport
-from .textcheck import utf8_only
+from service.answers import Calibration, Coverage, LiveCoverage
+from service.api.textcheck import utf8_only
+from service.forecasting import Contributions, Forecast, Forecasts, GroupEffect
+from service.health import EmbeddingState, Health, IndexState, SearchState
+from service.hours import HoursReport, Slot
+from service.importer import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
+from service.precedents import Precedent, Precedents, WeightedPrecedent
+from service.repeats import Repeat
+from service.segmenting import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
+from service.segmenting import SegmentResult as SegmentResult  # the answer, used as it is
+from service.store import AccountInfo
+from service.timeparse import EARLIEST, as_utc, latest_time, range_text
+from service.track_record import TrackRecord
+from service.wordings import Variant, VariantsReport
 
 # The answers re-exported from the modules that define them (the request models
 # below are public too; this list only keeps the re-exports explicit).

@@ -7,8 +7,7 @@ import hmac
 import ipaddress
 
 from models.errors import AuthError
-
-from ..settings import Settings
+from service.settings import Settings
 
 
 def token_problem(settings: Settings, scheme: str | None, credentials: str | None) -> AuthError | None:

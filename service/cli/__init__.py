@@ -9,8 +9,8 @@ from __future__ import annotations
 
 # Command modules register their commands on ``app`` when imported. Imported
 # by name: a missing module fails here rather than silently dropping its commands.
-from . import admin, forecast, history, mappings, model_export, review, segments, track
-from .base import app
+from service.cli import admin, forecast, history, mappings, model_export, review, segments, track
+from service.cli.base import app
 
 #: The order their commands appear in --help.
 COMMAND_MODULES = (history, mappings, forecast, review, segments, admin, model_export, track)

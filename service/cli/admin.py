@@ -7,10 +7,9 @@ import sqlite3
 import typer
 
 from models.errors import InputError, StoreError
-
-from ..store import Store
-from ..storecopy import copy_store
-from .base import app, out, workspace
+from service.cli.base import app, out, workspace
+from service.store import Store
+from service.storecopy import copy_store
 
 
 @app.command("forget")

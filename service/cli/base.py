@@ -14,9 +14,8 @@ from typer.core import TyperGroup
 
 from models.embedding import Embedder
 from models.errors import NotFound, NotReady, SoundingError
-
-from ..settings import Settings
-from ..workspace import Workspace
+from service.settings import Settings
+from service.workspace import Workspace
 
 if TYPE_CHECKING:
     # typer runs its own copy of click; its groups take that copy's Context.

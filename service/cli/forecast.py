@@ -11,15 +11,14 @@ import typer
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
-
-from .. import forecasting
-from ..forecasting import CAUTION, Draft, Forecast
-from ..plan import forecast_plan
-from ..timeparse import localize, now_utc, parse_time, zone
-from ..track_record import give, staleness
-from ..workspace import Workspace
-from .base import app, out, print_json, workspace
-from .render import Column, level_bar, print_table, typical_miss
+from service import forecasting
+from service.cli.base import app, out, print_json, workspace
+from service.cli.render import Column, level_bar, print_table, typical_miss
+from service.forecasting import CAUTION, Draft, Forecast
+from service.plan import forecast_plan
+from service.timeparse import localize, now_utc, parse_time, zone
+from service.track_record import give, staleness
+from service.workspace import Workspace
 
 METRIC_HELP = "Metric to forecast: " + ", ".join(TARGETS) + "."
 COVERAGE_HELP = f"Interval coverage, {MIN_COVERAGE} to {MAX_COVERAGE}."

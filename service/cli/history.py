@@ -19,18 +19,11 @@ from rich.progress import (
 
 from models.errors import InputError
 from models.metrics import METRIC_COLUMNS
-
-from ..api import guard
-from ..api.app import create_app
-from ..cluster import cluster_import_options
-from ..importer import ImportPreview, ImportSummary
-from ..mappings import combine, load_mapping
-from ..precedents import Precedent, Precedents
-from ..settings import Settings
-from ..timeparse import parse_time
-from .base import app, err, is_terminal, next_step, out, print_json, workspace
-from .forecast import demo_forecast
-from .mappings import (
+from service.api import guard
+from service.api.app import create_app
+from service.cli.base import app, err, is_terminal, next_step, out, print_json, workspace
+from service.cli.forecast import demo_forecast
+from service.cli.mappings import (
     ACCOUNT,
     DAY_FIRST,
     DECIMAL_COMMA,
@@ -40,7 +33,13 @@ from .mappings import (
     TIMEZONE,
     given_options,
 )
-from .render import Column, print_table
+from service.cli.render import Column, print_table
+from service.cluster import cluster_import_options
+from service.importer import ImportPreview, ImportSummary
+from service.mappings import combine, load_mapping
+from service.precedents import Precedent, Precedents
+from service.settings import Settings
+from service.timeparse import parse_time
 
 # The demo history sits beside the source tree; an installed copy (the
 # container image) points at it with SOUNDING_DEMO_DIR.

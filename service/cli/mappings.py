@@ -11,19 +11,12 @@ import shlex
 import typer
 
 from models.errors import InputError
-
-from ..importer import ImportOptions, parse_mapping
-from ..mappings import (
-    command_line,
-    list_mappings,
-    load_mapping,
-    mapping_text,
-    save_mapping,
-)
-from ..settings import Settings
-from ..timeparse import DateOrder
-from .base import app, out, print_json
-from .render import Column, print_table
+from service.cli.base import app, out, print_json
+from service.cli.render import Column, print_table
+from service.importer import ImportOptions, parse_mapping
+from service.mappings import command_line, list_mappings, load_mapping, mapping_text, save_mapping
+from service.settings import Settings
+from service.timeparse import DateOrder
 
 ACCOUNT = typer.Option(None, "--account", help="Account for rows without an account column.")
 MAP = typer.Option([], "--map", help="Read our column from theirs: ours=theirs (repeatable).")

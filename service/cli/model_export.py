@@ -5,8 +5,7 @@ from __future__ import annotations
 import typer
 
 from models.errors import InputError, StoreError
-
-from .base import app, out, print_json, workspace
+from service.cli.base import app, out, print_json, workspace
 
 model_app = typer.Typer(help="The embedding model: export it for ONNX Runtime.", no_args_is_help=True)
 app.add_typer(model_app, name="model")

@@ -6,13 +6,12 @@ import typer
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
-
-from ..forecasting import CAUTION
-from ..hours import HoursReport, best_hours, parse_day
-from ..wordings import VariantsReport, compare_variants
-from .base import app, out, print_json, workspace
-from .forecast import COVERAGE_HELP, METRIC_HELP, planned
-from .render import Column, interval_bar, print_table
+from service.cli.base import app, out, print_json, workspace
+from service.cli.forecast import COVERAGE_HELP, METRIC_HELP, planned
+from service.cli.render import Column, interval_bar, print_table
+from service.forecasting import CAUTION
+from service.hours import HoursReport, best_hours, parse_day
+from service.wordings import VariantsReport, compare_variants
 
 
 def _value(v: float, metric: str) -> str:

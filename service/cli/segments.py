@@ -13,8 +13,9 @@ from models.errors import InputError
 from models.metrics import DEFAULT_METRIC
 from models.plots import FORMATS
 from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value
-
-from ..segmenting import (
+from service.cli.base import app, err, out, print_json, workspace
+from service.cli.render import Column, cut, interval_bar, print_table
+from service.segmenting import (
     BY_CHOICES,
     DEFAULT_EXAMPLES,
     DEFAULT_K,
@@ -28,8 +29,6 @@ from ..segmenting import (
     render,
     segment,
 )
-from .base import app, err, out, print_json, workspace
-from .render import Column, cut, interval_bar, print_table
 
 # Long (multi-phrase) topic names are shortened in tables only; the reading
 # lines and the JSON keep them whole.

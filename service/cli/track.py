@@ -9,10 +9,9 @@ import typer
 from models.errors import InputError
 from models.metrics import DEFAULT_METRIC
 from models.track_plots import FORMATS, track_record_figure
-
-from ..track_record import PeriodSummary, TrackRecord, parse_since, report, reset_adaptation
-from .base import app, out, print_json, workspace
-from .render import Column, print_table, typical_miss
+from service.cli.base import app, out, print_json, workspace
+from service.cli.render import Column, print_table, typical_miss
+from service.track_record import PeriodSummary, TrackRecord, parse_since, report, reset_adaptation
 
 
 def _pct(v: float | None) -> str:

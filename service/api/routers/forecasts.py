@@ -3,15 +3,14 @@ from __future__ import annotations
 from fastapi import APIRouter, Request, Response
 
 from models.errors import AuthError, InputError, LimitExceeded, NotFound, NotReady
-
-from ...forecasting import Draft
-from ...timeparse import parse_time
-from ...track_record import give
-from ...workspace import Workspace
-from ..deps import WorkspaceDep
-from ..responses import ERRORS, json_answer
-from ..schemas import DraftIn, Forecast, ForecastBatchRequest, ForecastRequest, Forecasts
-from ..tokens import may_record
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS, json_answer
+from service.api.schemas import DraftIn, Forecast, ForecastBatchRequest, ForecastRequest, Forecasts
+from service.api.tokens import may_record
+from service.forecasting import Draft
+from service.timeparse import parse_time
+from service.track_record import give
+from service.workspace import Workspace
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
 

@@ -7,10 +7,9 @@ from typing import Annotated
 from fastapi import APIRouter, Query
 
 from models.errors import AuthError, InputError, NotFound, NotReady, StoreError
-
-from ..deps import WorkspaceDep, WriteAccess
-from ..responses import ERRORS
-from ..schemas import ForgetOut
+from service.api.deps import WorkspaceDep, WriteAccess
+from service.api.responses import ERRORS
+from service.api.schemas import ForgetOut
 
 router = APIRouter(prefix="/v1", tags=["forget"])
 

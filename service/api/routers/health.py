@@ -3,11 +3,10 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from models.errors import StoreError
-
-from ...health import health as health_of
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
-from ..schemas import AccountInfo, Health
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.api.schemas import AccountInfo, Health
+from service.health import health as health_of
 
 router = APIRouter(prefix="/v1", tags=["health"])
 

@@ -3,11 +3,10 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from models.errors import InputError, LimitExceeded, NotFound, NotReady
-
-from ...hours import best_hours
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
-from ..schemas import HoursReport, HoursRequest
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.api.schemas import HoursReport, HoursRequest
+from service.hours import best_hours
 
 router = APIRouter(prefix="/v1", tags=["hours"])
 

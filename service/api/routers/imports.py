@@ -26,13 +26,12 @@ from starlette.concurrency import run_in_threadpool
 from starlette.requests import ClientDisconnect
 
 from models.errors import AuthError, InputError, LimitExceeded, NotFound, NotReady, StoreError
-
-from ...importer import ImportOptions, parse_mapping
-from ...mappings import combine, load_mapping
-from ...timeparse import DateOrder
-from ..deps import WorkspaceDep, WriteAccess
-from ..responses import ERRORS
-from ..schemas import ImportPreview, ImportSummary
+from service.api.deps import WorkspaceDep, WriteAccess
+from service.api.responses import ERRORS
+from service.api.schemas import ImportPreview, ImportSummary
+from service.importer import ImportOptions, parse_mapping
+from service.mappings import combine, load_mapping
+from service.timeparse import DateOrder
 
 if typing.TYPE_CHECKING:
     from python_multipart.multipart import MultipartCallbacks

@@ -3,10 +3,9 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from models.errors import InputError, LimitExceeded, NotFound, StoreError
-
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
-from ..schemas import Precedents, PrecedentsRequest
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.api.schemas import Precedents, PrecedentsRequest
 
 router = APIRouter(prefix="/v1", tags=["precedents"])
 

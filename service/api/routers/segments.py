@@ -6,11 +6,10 @@ from fastapi import APIRouter
 from fastapi.responses import Response
 
 from models.errors import InputError, NotFound, NotReady, StoreError
-
-from ...segmenting import SegmentRequest, render, segment
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
-from ..schemas import SegmentResult, SegmentsRequest
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.api.schemas import SegmentResult, SegmentsRequest
+from service.segmenting import SegmentRequest, render, segment
 
 router = APIRouter(prefix="/v1", tags=["segments"])
 

@@ -9,11 +9,10 @@ from fastapi.responses import Response
 
 from models.metrics import DEFAULT_METRIC
 from models.track_plots import track_record_figure
-
-from ...track_record import parse_since, report
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
-from ..schemas import TrackRecord
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.api.schemas import TrackRecord
+from service.track_record import parse_since, report
 
 router = APIRouter(prefix="/v1", tags=["track record"])
 

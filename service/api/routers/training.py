@@ -3,11 +3,10 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from models.errors import AuthError, InputError, NotReady, StoreError
-
-from ... import forecasting
-from ..deps import WorkspaceDep, WriteAccess
-from ..responses import ERRORS
-from ..schemas import TrainingOut, TrainingRequest
+from service import forecasting
+from service.api.deps import WorkspaceDep, WriteAccess
+from service.api.responses import ERRORS
+from service.api.schemas import TrainingOut, TrainingRequest
 
 router = APIRouter(prefix="/v1", tags=["training"])
 

@@ -3,12 +3,11 @@ from __future__ import annotations
 from fastapi import APIRouter
 
 from models.errors import InputError, LimitExceeded, NotFound, NotReady
-
-from ...timeparse import parse_time
-from ...wordings import compare_variants
-from ..deps import WorkspaceDep
-from ..responses import ERRORS
-from ..schemas import VariantsReport, VariantsRequest
+from service.api.deps import WorkspaceDep
+from service.api.responses import ERRORS
+from service.api.schemas import VariantsReport, VariantsRequest
+from service.timeparse import parse_time
+from service.wordings import compare_variants
 
 router = APIRouter(prefix="/v1", tags=["variants"])
 
