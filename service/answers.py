@@ -12,10 +12,11 @@ pieces of a forecast (its calibration and live coverage).
 
 from __future__ import annotations
 
+import math
 from datetime import datetime
 from typing import Annotated, Any
 
-from pydantic import BaseModel, Field, PlainSerializer, WithJsonSchema
+from pydantic import BaseModel, BeforeValidator, Field, PlainSerializer, WithJsonSchema
 
 from models.metrics import MAX_COVERAGE, METRIC_COLUMNS, MIN_COVERAGE
 
@@ -50,8 +51,16 @@ Round2 = Annotated[float, PlainSerializer(_round2, return_type=float)]
 Round3 = Annotated[float, PlainSerializer(_round3, return_type=float)]
 Round4 = Annotated[float, PlainSerializer(_round4, return_type=float)]
 
+
+def _a_number(value: Any) -> Any:
+    # NaN compares false with both bounds; say what is wanted rather than "<= 0.95".
+    if isinstance(value, float) and math.isnan(value):
+        raise ValueError(f"coverage must be a number between {MIN_COVERAGE} and {MAX_COVERAGE}, got NaN")
+    return value
+
+
 #: A nominal coverage that can be asked for (models.metrics states the range).
-Coverage = Annotated[float, Field(ge=MIN_COVERAGE, le=MAX_COVERAGE)]
+Coverage = Annotated[float, Field(ge=MIN_COVERAGE, le=MAX_COVERAGE), BeforeValidator(_a_number)]
 
 _COUNT_OR_NULL: dict[str, Any] = {"anyOf": [{"type": "integer"}, {"type": "null"}]}
 #: A post's metric values by name (models.metrics.METRIC_COLUMNS), null where not measured.

@@ -24,6 +24,8 @@ from functools import lru_cache
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from models.errors import InputError, TimeParseError
+from service.offsets import HINT as OFFSET_HINT
+from service.offsets import offset_problem
 
 #: The earliest time sounding accepts anywhere (import, requests, options).
 EARLIEST = datetime(1990, 1, 1, tzinfo=UTC)
@@ -83,6 +85,7 @@ def read_iso(text: str, *, tz: str, where: str | None) -> datetime:
         # upper() because RFC 3339 (5.6) also allows lower-case 't' and 'z'.
         dt = datetime.fromisoformat(raw.upper())
     except ValueError:
+        refuse_bad_offset(raw, where=where)
         raise TimeParseError(
             f"cannot read time {raw!r}",
             where=where,
@@ -97,6 +100,13 @@ def read_iso(text: str, *, tz: str, where: str | None) -> datetime:
         return localize(dt, tz, where=where)
     except OverflowError:  # e.g. 0001-01-01T00:00+05:00 is before year 1 in UTC
         raise TimeParseError(f"time {raw!r} is out of range in UTC", where=where, value=text) from None
+
+
+def refuse_bad_offset(raw: str, *, where: str | None) -> None:
+    """A time error naming the offset, for a time whose UTC offset is past ±23:59."""
+    problem = offset_problem(raw)
+    if problem is not None:
+        raise TimeParseError(problem, where=where, value=raw, hint=OFFSET_HINT)
 
 
 def localize(naive: datetime, tz: str, *, where: str | None = None) -> datetime:

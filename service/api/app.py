@@ -14,6 +14,7 @@ from fastapi.staticfiles import StaticFiles
 
 from service import __version__
 from service.api import errors, guard, page
+from service.api.csp import ContentSecurityPolicy
 from service.api.routers import (
     distribution,
     forecasts,
@@ -84,8 +85,10 @@ def create_app(
         redoc_url=None,
     )
     app.state.workspace = ws
+    app.state.bound_host = bound_host  # off loopback, recording forecasts needs the token
     errors.install(app)
-    guard.install(app, ws.settings, bound=bound_host)
+    guard.install(app, ws.settings, bound=bound_host, routers=[m.router for m in ROUTERS])
+    app.add_middleware(ContentSecurityPolicy)
     _docs(app)
     for module in ROUTERS:
         app.include_router(module.router)
@@ -107,6 +110,8 @@ def _docs(app: FastAPI) -> None:
             swagger_js_url="/docs-assets/swagger-ui-bundle.js",
             swagger_css_url="/docs-assets/swagger-ui.css",
             swagger_favicon_url="/docs-assets/favicon-32x32.png",
+            # Swagger UI would send the schema to its online validator: nothing leaves the machine.
+            swagger_ui_parameters={"validatorUrl": None},
         )
 
     @app.get("/docs/openapi.json", include_in_schema=False)

@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-import hmac
 from typing import Annotated
 
 from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 
-from models.errors import AuthError
+from service.api.tokens import token_problem
 from service.settings import Settings
 from service.workspace import Workspace
 
@@ -29,17 +28,9 @@ def require_token(
     creds: Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)],
 ) -> None:
     """Every change over HTTP needs ``Authorization: Bearer <SOUNDING_TOKEN>``."""
-    expected = settings.token.get_secret_value() if settings.token else ""
-    if not expected:
-        raise AuthError(
-            "changes over HTTP are switched off: the server has no SOUNDING_TOKEN",
-            hint="start the service with SOUNDING_TOKEN set",
-        )
-    if creds is None or creds.scheme.lower() != "bearer":
-        raise AuthError("this endpoint changes data and needs 'Authorization: Bearer <token>'")
-    # Constant-time comparison, so the token cannot be guessed byte by byte.
-    if not hmac.compare_digest(creds.credentials.encode(), expected.encode()):
-        raise AuthError("the bearer token is wrong")
+    problem = token_problem(settings, creds.scheme if creds else None, creds.credentials if creds else None)
+    if problem is not None:
+        raise problem
 
 
 WorkspaceDep = Annotated[Workspace, Depends(get_workspace)]

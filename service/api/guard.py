@@ -4,10 +4,12 @@
   (loopback names, the bound address, SOUNDING_ALLOWED_HOSTS). A page in
   the user's browser that rebinds its own DNS name to 127.0.0.1 sends its
   own name as Host, so it is refused before any route runs.
-- ``BodyCap``: a JSON (any non-multipart) body is read up to
-  SOUNDING_MAX_JSON_BYTES and refused with 413 past it, before anything
-  parses it; a declared Content-Length past the cap is refused unread.
-  Uploads (multipart) have their own streaming limit in routers/imports.
+- ``BodyCap``: every body, whatever its Content-Type (multipart too), is
+  read up to SOUNDING_MAX_JSON_BYTES and refused with 413 past it, before
+  anything parses it; a declared Content-Length past the cap is refused
+  unread. Only the upload endpoint streams its body itself (to disk, under
+  SOUNDING_MAX_UPLOAD_BYTES, in routers/imports); here it is refused unread
+  when its declared length passes that limit.
 - ``GuardedH11Protocol``: uvicorn's h11 protocol with a deadline for a
   request's headers and one for its body. uvicorn's own
   ``timeout_keep_alive`` only covers the idle time between requests and is
@@ -20,13 +22,15 @@ from __future__ import annotations
 import asyncio
 import json
 import logging
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from typing import Any
 
 import h11
+from fastapi import APIRouter
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from uvicorn.protocols.http.h11_impl import H11Protocol
 
+from service.api.admission import TokenFirst
 from service.settings import Settings
 
 log = logging.getLogger("sounding.api")
@@ -89,21 +93,27 @@ class HostCheck:
 
 
 class BodyCap:
-    """Refuse a non-multipart request body past ``limit`` bytes before parsing."""
+    """Refuse a request body past ``limit`` bytes before parsing, whatever its type;
+    ``streamed`` maps the paths that stream their own body to their limit."""
 
-    def __init__(self, app: ASGIApp, *, limit: int) -> None:
+    def __init__(self, app: ASGIApp, *, limit: int, streamed: dict[str, int] | None = None) -> None:
         self.app = app
         self.limit = limit
+        self.streamed = streamed or {}
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
         headers = dict(scope.get("headers") or [])
-        if headers.get(b"content-type", b"").lower().startswith(b"multipart/form-data"):
+        declared = headers.get(b"content-length", b"")
+        own = self.streamed.get(scope.get("path", ""))
+        if own is not None:  # counted chunk by chunk where it is read
+            if declared.isdigit() and int(declared) > own:
+                await _answer(send, 413, _too_big_error(own, "max_upload_bytes"))
+                return
             await self.app(scope, receive, send)
             return
-        declared = headers.get(b"content-length", b"")
         if declared.isdigit() and int(declared) > self.limit:
             await self._too_big(send)
             return
@@ -133,16 +143,16 @@ class BodyCap:
         await self.app(scope, replay, send)
 
     async def _too_big(self, send: Send) -> None:
-        await _answer(
-            send,
-            413,
-            {
-                "code": "limit_exceeded",
-                "message": f"the request body is larger than {self.limit} bytes (SOUNDING_MAX_JSON_BYTES)",
-                "limit": "max_json_bytes",
-                "maximum": self.limit,
-            },
-        )
+        await _answer(send, 413, _too_big_error(self.limit, "max_json_bytes"))
+
+
+def _too_big_error(limit: int, setting: str) -> dict[str, Any]:
+    return {
+        "code": "limit_exceeded",
+        "message": f"the request body is larger than {limit} bytes (SOUNDING_{setting.upper()})",
+        "limit": setting,
+        "maximum": limit,
+    }
 
 
 class GuardedH11Protocol(H11Protocol):
@@ -203,7 +213,19 @@ def allowed_hosts(settings: Settings, bound: str | None = None) -> list[str]:
     return [*LOOPBACK_NAMES, *([bound] if bound else []), *settings.allowed_hosts]
 
 
-def install(app: Any, settings: Settings, *, bound: str | None = None) -> None:
-    """Add the Host check (outermost) and the body cap to ``app``."""
-    app.add_middleware(BodyCap, limit=settings.max_json_bytes)
+# The one endpoint that streams its body itself (to disk, counting as it goes).
+STREAMED_PATHS = ("/v1/imports",)
+
+
+def install(
+    app: Any, settings: Settings, *, bound: str | None = None, routers: Sequence[APIRouter] = ()
+) -> None:
+    """Add the Host check (outermost), the token check of write routes (before
+    any body is read) and the body cap to ``app``."""
+    app.add_middleware(
+        BodyCap,
+        limit=settings.max_json_bytes,
+        streamed=dict.fromkeys(STREAMED_PATHS, settings.max_upload_bytes),
+    )
+    app.add_middleware(TokenFirst, routers=routers, settings=settings)
     app.add_middleware(HostCheck, allowed=allowed_hosts(settings, bound))

@@ -13,12 +13,13 @@ from __future__ import annotations
 from datetime import date, datetime
 from typing import Annotated, Literal
 
-from pydantic import AfterValidator, BaseModel, ConfigDict, Field
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, field_validator
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES
 from models.segments import DEFAULT_MIN_N
 from service.answers import Calibration, Coverage, LiveCoverage
+from service.api.textcheck import utf8_only
 from service.clock import EARLIEST, as_utc, latest_time, range_text
 from service.forecast.answer import Contributions, Forecast, Forecasts, GroupEffect
 from service.health import EmbeddingState, Health, IndexState, SearchState
@@ -89,6 +90,9 @@ InRangeDay = Annotated[date, AfterValidator(_day_in_range)]
 
 class Strict(BaseModel):
     model_config = ConfigDict(extra="forbid")
+
+    # Every string of every request is text that encodes (textcheck).
+    _utf8 = field_validator("*", mode="before")(utf8_only)
 
 
 class ErrorDetail(BaseModel):

@@ -341,17 +341,15 @@ def check_bind(host: str, settings: Settings) -> None:
         loopback = host == "localhost" or ipaddress.ip_address(host).is_loopback
     except ValueError:
         loopback = False
-    if not loopback and not settings.token:
+    # A blank or whitespace token is no token (32 spaces are no secret).
+    token = settings.token.get_secret_value().strip() if settings.token else ""
+    if not loopback and not token:
         raise InputError(
             f"refusing to listen on {host} without SOUNDING_TOKEN",
             hint="set SOUNDING_TOKEN, or use --host 127.0.0.1",
         )
     # Anyone on the network may try tokens: a short one can be guessed.
-    if (
-        not loopback
-        and settings.token is not None
-        and len(settings.token.get_secret_value()) < MIN_TOKEN_CHARS
-    ):
+    if not loopback and len(token) < MIN_TOKEN_CHARS:
         raise InputError(
             f"refusing to listen on {host}: SOUNDING_TOKEN has fewer than {MIN_TOKEN_CHARS} characters",
             hint="use a long random token, e.g. `python -c 'import secrets; "

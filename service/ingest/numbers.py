@@ -105,9 +105,24 @@ def read_number(raw: str, *, decimal_comma: bool = False, allow_suffix: bool = T
     )
 
 
+def _odd_writing(raw: str) -> NumberError | None:
+    # Python's int() and \\d read every script's digits and 1_000; an export never
+    # writes those, so a count in them is more likely a damaged field than a number.
+    if any(c.isdigit() and not c.isascii() for c in raw):
+        return NumberError(f"{raw!r} uses digits other than 0-9", hint="write counts with the digits 0-9")
+    if "_" in raw:
+        return NumberError(f"{raw!r} has an underscore in it", hint="write 1000 or 1,000")
+    if re.search(r"[0-9.][eE][+-]?[0-9]", raw):
+        return NumberError(f"{raw!r} is written with an exponent", hint="write the count out, e.g. 1500")
+    return None
+
+
 def read_count(raw: str, *, decimal_comma: bool = False) -> Reading:
     """A non-negative whole count up to MAX_COUNT; abbreviations are approximate."""
     plain = raw.strip()
+    odd = None if plain.isascii() and plain.isdigit() else _odd_writing(plain)
+    if odd is not None:
+        raise odd
     if plain.isascii() and plain.isdigit():  # the common case, without the grammar
         if len(plain) > 15 and int(plain) > MAX_COUNT:
             raise NumberError(f"{raw!r} is above {MAX_COUNT:,} (2^53), the largest count stored exactly")

@@ -12,7 +12,8 @@ from decimal import Decimal, InvalidOperation
 from typing import Literal
 
 from models.errors import CSVFormatError, InputError, TimeParseError
-from service.clock import check_range, localize, read_iso
+from service.clock import check_range, localize, read_iso, refuse_bad_offset
+from service.offsets import utc_offset
 
 DateOrder = Literal["day-first", "month-first"]
 DATE_ORDERS: tuple[str, ...] = ("day-first", "month-first")
@@ -177,6 +178,7 @@ class TimeReader:
                     raise
         reading = self.reading(raw)
         if reading is None:
+            refuse_bad_offset(raw, where=where)
             raise TimeParseError(
                 f"cannot read time {raw!r}",
                 where=where,
@@ -214,7 +216,10 @@ class TimeReader:
         clock = _clock(m["clock"])
         if clock is None:
             return None
-        offset = _offset(m["zone"])
+        try:
+            offset = _offset(m["zone"])
+        except ValueError:
+            return None  # the caller names the offset (offset_problem)
         found: dict[str | None, datetime] = {}
         for order, layouts in DATE_LAYOUTS.items():
             for layout in layouts:
@@ -268,11 +273,7 @@ def _offset(text: str | None) -> timezone | None:
         return None
     if text.upper() in ("Z", "UTC", "GMT"):
         return UTC
-    if len(text) == 3:
-        text += "00"
-    parsed = datetime.strptime(text, "%z").tzinfo
-    assert isinstance(parsed, timezone)
-    return parsed
+    return utc_offset(text)  # ValueError past ±23:59
 
 
 def _epoch(raw: str, per_second: int, *, where: str | None) -> datetime:

@@ -51,6 +51,8 @@ MAX_EXAMPLES = 20
 #: Fewer posts with the metric than this, and no split is worth reading.
 MIN_POSTS = 20
 MAX_TOPICS = 20
+#: Every alternative phrase is embedded, so they count towards the limit too.
+MAX_PHRASES = 2 * MAX_TOPICS
 MAX_PHRASE_CHARS = 200
 PHRASE_SEPARATOR = "|"
 PLOT_NAME_CHARS = 30  # longer segment names crowd the figure's axis labels
@@ -101,6 +103,13 @@ def parse_topics(raw: Sequence[str]) -> list[Topic]:
         raw = [raw]
     if len(raw) > MAX_TOPICS:
         raise InputError(f"{len(raw)} topics; at most {MAX_TOPICS} at a time", field="topics")
+    phrases = sum(t.count(PHRASE_SEPARATOR) + 1 for t in raw if isinstance(t, str))
+    if phrases > MAX_PHRASES:
+        raise InputError(
+            f"{phrases} topic phrases, counting each alternative after '{PHRASE_SEPARATOR}'; "
+            f"at most {MAX_PHRASES} at a time",
+            field="topics",
+        )
     topics: list[Topic] = []
     seen: dict[str, int] = {}
     for i, text in enumerate(raw):

@@ -11,6 +11,7 @@ import numpy as np
 from models.artefact import TrainedModel
 from models.errors import NotReady
 from models.metrics import DEFAULT_COVERAGE
+from models.proportions import wilson_interval
 from service.answers import LiveCoverage
 from service.clock import as_utc, now_utc
 from service.forecast.calibration import TrackFacts
@@ -50,10 +51,7 @@ def live_coverage(store: Store, metric: str, coverage: float) -> LiveCoverage:
 
 def wilson(k: int, n: int) -> tuple[float, float]:
     """The Wilson score interval (95%) of k successes in n trials."""
-    from scipy.stats import binomtest
-
-    ci = binomtest(k, n).proportion_ci(confidence_level=0.95, method="wilson")
-    return float(ci.low), float(ci.high)
+    return wilson_interval(k, n)
 
 
 def staleness(

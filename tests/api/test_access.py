@@ -16,7 +16,7 @@ from fastapi.testclient import TestClient
 from typer.testing import CliRunner
 
 from models.errors import InputError
-from service.api import deps
+from service.api import tokens
 from service.api.app import create_app
 from service.api.schemas import ErrorBody
 from service.cli import app as cli_app
@@ -183,7 +183,7 @@ def test_token_is_compared_in_constant_time(client: TestClient, monkeypatch) -> 
         seen.append((a, b))
         return real(a, b)
 
-    monkeypatch.setattr(deps.hmac, "compare_digest", spy)
+    monkeypatch.setattr(tokens.hmac, "compare_digest", spy)
     r = client.delete("/v1/accounts/nobody", headers={"Authorization": "Bearer guess"})
     assert r.status_code == 401
     assert seen == [(b"guess", TOKEN.encode())]
