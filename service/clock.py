@@ -160,3 +160,14 @@ def _fixed_now(raw: str) -> datetime:
             f"SOUNDING_NOW {raw!r} needs a UTC offset (RFC 3339)", where="SOUNDING_NOW", value=raw
         )
     return dt
+
+
+def parse_since(value: str | None) -> datetime | None:
+    """``--since`` / ``?since=``: a date (UTC midnight) or an RFC 3339 time."""
+    if not value:
+        return None
+    raw = value.strip()
+    try:
+        return parse_time(raw + ("T00:00:00+00:00" if len(raw) == 10 else ""), where="since")
+    except InputError as exc:
+        raise InputError(exc.message, field="since", value=value) from None

@@ -12,9 +12,9 @@ import numpy as np
 import pandas as pd
 from pydantic import BaseModel, Field
 
-from models.errors import InputError, NotReady, SoundingError
+from models.errors import NotReady
 from models.metrics import check_target, target_values
-from service.clock import now_utc, parse_time
+from service.clock import now_utc, parse_since
 from service.datadir import DataDir
 
 #: Fewer settled posts than this, and no analysis is worth reading.
@@ -34,17 +34,6 @@ class Settled:
     frame: pd.DataFrame  # the kept posts, oldest first, index 0..n-1
     values: np.ndarray  # the metric of each kept post
     left_out: LeftOut
-
-
-def parse_since(value: str | None) -> datetime | None:
-    """``--since`` / ``since``: a date (UTC midnight) or an RFC 3339 time."""
-    if not value:
-        return None
-    raw = value.strip()
-    try:
-        return parse_time(raw + ("T00:00:00+00:00" if len(raw) == 10 else ""), where="since")
-    except SoundingError as exc:
-        raise InputError(exc.message, field="since", value=value) from None
 
 
 def settled_posts(

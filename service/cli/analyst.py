@@ -14,7 +14,6 @@ from models.analyst_plots import check_format
 from models.metrics import DEFAULT_METRIC
 from models.segments import fmt_value
 from service.analysis.distribution import DistributionAnswer, csv_table, distribution, render
-from service.analysis.settled import parse_since
 from service.analysis.surprises import SurprisesAnswer, surprises
 from service.analysis.surprises import csv_table as surprises_table
 from service.analysis.surprises import render as render_surprises
@@ -26,6 +25,7 @@ from service.analysis.trends import render as render_trends
 from service.cli.base import app, err, out, print_json, workspace
 from service.cli.render import Column, print_table
 from service.cli.tables import write_csv
+from service.clock import parse_since
 
 
 def _plot_format(plot: Path | None) -> str | None:

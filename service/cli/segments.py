@@ -13,13 +13,13 @@ from models.errors import InputError
 from models.figure_style import FORMATS
 from models.metrics import DEFAULT_METRIC
 from models.segments import DEFAULT_MIN_N, OTHER, fmt_p, fmt_value, verdict_details
-from service.analysis.settled import parse_since
 from service.analysis.trends import PERIODS, TrendRequest
 from service.cli.analyst import trends_cmd
 from service.cli.base import app, err, out, print_json, workspace
 from service.cli.prose import say
 from service.cli.render import Column, cut, interval_bar, print_table
 from service.cli.tables import whole, write_csv
+from service.clock import parse_since
 from service.segments.answer import SegmentResult, Split
 from service.segments.figure import render
 from service.segments.request import (

@@ -13,9 +13,10 @@ from service.cli.base import app, out, print_json, workspace
 from service.cli.prose import plural, say
 from service.cli.render import Column, print_table, typical_miss
 from service.cli.tables import percent, write_csv
+from service.clock import parse_since
 from service.track.adaptation import reset_adaptation
 from service.track.answers import PeriodSummary, TrackRecord
-from service.track.report import parse_since, report
+from service.track.report import report
 
 
 def _pct(v: float | None) -> str:
@@ -27,12 +28,18 @@ def _miss(v: float | None) -> str:
     return "-" if v is None else typical_miss(abs(v))
 
 
+def _periods(rep: TrackRecord) -> list[tuple[str, PeriodSummary]]:
+    """Each month, then the whole record."""
+    return [*((m.month, m) for m in rep.months), ("overall", rep.overall)]
+
+
 def track_table(rep: TrackRecord) -> tuple[list[str], list[list[str]]]:
     """The periods' table as the screen shows it, percentages as whole numbers."""
     rows = []
-    for name, s in [*((m.month, m) for m in rep.months), ("overall", rep.overall)]:
-        ci = s.live_coverage_ci
-        b = s.baselines
+    for name, s in _periods(rep):
+        ci, b = s.live_coverage_ci, s.baselines
+        low, high = ("", "") if ci is None else (percent(ci[0]), percent(ci[1]))
+        misses = [s.mae_log, b.account_median.mae_log, b.precedents_median.mae_log]
         rows.append(
             [
                 name,
@@ -40,11 +47,9 @@ def track_table(rep: TrackRecord) -> tuple[list[str], list[list[str]]]:
                 str(s.settled),
                 percent(s.stated_coverage),
                 percent(s.live_coverage),
-                "" if ci is None else percent(ci[0]),
-                "" if ci is None else percent(ci[1]),
-                "" if s.mae_log is None else _miss(s.mae_log),
-                "" if b.account_median.mae_log is None else _miss(b.account_median.mae_log),
-                "" if b.precedents_median.mae_log is None else _miss(b.precedents_median.mae_log),
+                low,
+                high,
+                *("" if m is None else _miss(m) for m in misses),
                 str(s.matched),
             ]
         )
@@ -78,10 +83,10 @@ def print_report(rep: TrackRecord, *, details: bool = False) -> None:
         Column(header="matched", right=True, optional=True),
     ]
     rows = []
-    periods: list[tuple[str, PeriodSummary]] = [(m.month, m) for m in rep.months]
-    for name, s in [*periods, ("overall", rep.overall)]:
-        ci = s.live_coverage_ci
-        b = s.baselines
+    for name, s in _periods(rep):
+        ci, b = s.live_coverage_ci, s.baselines
+        held = "-" if ci is None else f"{ci[0]:.1%}–{ci[1]:.1%}"
+        misses = [s.mae_log, b.account_median.mae_log, b.precedents_median.mae_log]
         rows.append(
             [
                 name,
@@ -89,10 +94,8 @@ def print_report(rep: TrackRecord, *, details: bool = False) -> None:
                 str(s.settled),
                 _pct(s.stated_coverage),
                 _pct(s.live_coverage),
-                "-" if ci is None else f"{ci[0]:.1%}–{ci[1]:.1%}",
-                _miss(s.mae_log),
-                _miss(b.account_median.mae_log),
-                _miss(b.precedents_median.mae_log),
+                held,
+                *(_miss(m) for m in misses),
                 str(s.matched),
             ]
         )

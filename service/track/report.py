@@ -11,9 +11,8 @@ from typing import Any
 
 import numpy as np
 
-from models.errors import InputError, SoundingError
 from models.metrics import DEFAULT_METRIC, check_target
-from service.clock import as_utc, now_utc, parse_time, to_naive_utc
+from service.clock import as_utc, now_utc, to_naive_utc
 from service.storage.tables import ForecastGiven, ForecastMatch
 from service.track.answers import TrackRecord
 from service.track.facts import wilson
@@ -130,14 +129,3 @@ def summarise(rows: Sequence[dict[str, Any]]) -> dict[str, Any]:
                 errs.append(abs(b - r["outcome_log"]))
         out["baselines"][name] = {"mae_log": float(np.mean(errs)) if errs else None, "posts": len(errs)}
     return out
-
-
-def parse_since(value: str | None) -> datetime | None:
-    """``--since`` / ``?since=``: a date (UTC midnight) or an RFC 3339 time."""
-    if not value:
-        return None
-    raw = value.strip()
-    try:
-        return parse_time(raw + ("T00:00:00+00:00" if len(raw) == 10 else ""), where="since")
-    except SoundingError as exc:
-        raise InputError(exc.message, field="since", value=value) from None

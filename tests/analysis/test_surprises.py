@@ -10,7 +10,7 @@ import numpy as np
 from conftest import NOW
 
 from models.surprises import beyond_interval, pick
-from service.surprises import surprises
+from service.analysis.surprises import surprises
 
 
 def test_beyond_interval_and_pick() -> None:

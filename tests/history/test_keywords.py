@@ -21,7 +21,7 @@ import pytest
 from conftest import history_csv
 from fastapi.testclient import TestClient
 from sqlalchemy import create_engine, text
-from test_migrations import make_v0_store
+from storage.test_migrations import make_v0_store
 
 from service.api.app import create_app
 from service.history.fusion import rrf

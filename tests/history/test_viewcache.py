@@ -6,7 +6,8 @@ from __future__ import annotations
 import numpy as np
 from conftest import history_csv
 
-from service.history.view import build_view, viewcache
+from service.history import viewcache
+from service.history.view import build_view
 
 
 def test_a_kept_view_is_the_built_view_until_the_store_changes(make_workspace, tmp_path) -> None:

@@ -12,7 +12,7 @@ import pytest
 from conftest import NOW
 
 from models.distribution import fit_tail, half_share, log_histogram, summarise
-from service.distribution import distribution
+from service.analysis.distribution import distribution
 
 
 def test_power_law_exponent_is_the_papers_mle() -> None:

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import httpx
 import pytest
-from serving import CHROMIUM, CHROMIUM_ARGS, serve
+from support.serving import CHROMIUM, CHROMIUM_ARGS, serve
 
 from service.api.app import create_app
 

@@ -5,8 +5,7 @@ from __future__ import annotations
 import pytest
 
 from models.errors import InputError
-from service.segments.request import MAX_TOPICS, parse_topics
-from service.segments.segmenting import MAX_PHRASES
+from service.segments.request import MAX_PHRASES, MAX_TOPICS, parse_topics
 
 
 def test_many_alternatives_are_refused_before_embedding() -> None:

@@ -9,9 +9,9 @@ from fastapi.responses import Response
 
 from models.metrics import DEFAULT_METRIC
 from service.analysis.distribution import DistributionAnswer, distribution, render
-from service.analysis.settled import parse_since
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
+from service.clock import parse_since
 
 router = APIRouter(prefix="/v1", tags=["distribution"])
 

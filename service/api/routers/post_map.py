@@ -8,10 +8,10 @@ from fastapi import APIRouter, Query
 from fastapi.responses import Response
 
 from models.metrics import DEFAULT_METRIC
-from service.analysis.settled import parse_since
 from service.analysis.topics import MapAnswer, render_map, topic_map
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
+from service.clock import parse_since
 
 router = APIRouter(prefix="/v1", tags=["map"])
 

@@ -7,10 +7,10 @@ from typing import Annotated
 from fastapi import APIRouter, Query
 
 from models.metrics import DEFAULT_METRIC
-from service.analysis.settled import parse_since
 from service.analysis.topics import TopicsAnswer, topics
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
+from service.clock import parse_since
 
 router = APIRouter(prefix="/v1", tags=["topics"])
 

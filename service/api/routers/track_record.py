@@ -12,7 +12,8 @@ from models.track_plots import track_record_figure
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
 from service.api.schemas import TrackRecord
-from service.track.report import parse_since, report
+from service.clock import parse_since
+from service.track.report import report
 
 router = APIRouter(prefix="/v1", tags=["track record"])
 

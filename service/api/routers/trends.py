@@ -11,10 +11,10 @@ from pydantic import BaseModel, Field
 from models.metrics import DEFAULT_METRIC
 from models.segments import DEFAULT_MIN_N
 from models.trends import DEFAULT_LAST
-from service.analysis.settled import parse_since
 from service.analysis.trends import MAX_LAST, TrendAnswer, TrendRequest, render, trends
 from service.api.deps import WorkspaceDep
 from service.api.responses import ERRORS
+from service.clock import parse_since
 from service.segments.request import DEFAULT_THRESHOLD, MAX_TOPICS
 
 router = APIRouter(prefix="/v1", tags=["trends"])
