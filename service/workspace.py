@@ -368,14 +368,18 @@ class Workspace:
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
         """Delete posts from the store, the track record and the index
         together, and clear the copies left outside them (service.storage.forgetting)."""
-        with self.writing("a forget"), self._lock:
-            self.index()
-            pks = self.store.forget(
-                account=account, post_id=post_id, also=forgetting.hook(self.settings.resolved_home)
-            )
-            self._sync_index([], pks)
-            if self._index is not None and self._index.tombstones:
-                self._reindex()  # an HNSW graph keeps removed vectors until rebuilt
+        with self.writing("a forget"):
+            with self._lock:
+                self.index()
+                pks = self.store.forget(
+                    account=account, post_id=post_id, also=forgetting.hook(self.settings.resolved_home)
+                )
+                self._sync_index([], pks)
+                rebuild = self._index is not None and bool(self._index.tombstones)
+            if rebuild:
+                # An HNSW graph keeps removed vectors until rebuilt; outside the
+                # index lock, as a build waits for any build already under way.
+                self._reindex()
             self.forecaster.warm()
             forgetting.clear_leftovers(self.store, self.settings.uploads_dir)
             return len(pks)
