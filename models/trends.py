@@ -15,10 +15,10 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 import numpy.typing as npt
-import pandas as pd
 from pydantic import BaseModel, Field
 
 from models.errors import InputError
@@ -28,6 +28,9 @@ PERIODS: tuple[str, ...] = ("month", "week")
 #: Periods the trend is fitted over by default.
 DEFAULT_LAST = 12
 DEFAULT_CONFIDENCE = 0.95
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 def theil_sen(
@@ -66,6 +69,8 @@ def theil_sen(
 
 def period_starts(times: pd.Series, by: str) -> pd.Series:
     """Each time's period start (UTC midnight of the month's first day, or of the ISO week's Monday)."""
+    import pandas as pd
+
     if by not in PERIODS:
         raise InputError(f"period must be one of {', '.join(PERIODS)}", field="by", value=by)
     t = pd.to_datetime(times, utc=True).dt.tz_localize(None)

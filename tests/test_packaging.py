@@ -85,7 +85,7 @@ def test_wilson_interval_matches_the_formula(k: int, n: int) -> None:
 
 def test_track_record_needs_no_test_only_package() -> None:
     # statsmodels is installed only by the test extra; the track record must not need it.
-    assert "statsmodels" not in _imports(ROOT / "service" / "track_record.py")
+    assert "statsmodels" not in _imports(ROOT / "service" / "track" / "facts.py")
 
 
 @pytest.mark.slow

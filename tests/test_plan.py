@@ -114,4 +114,7 @@ def test_media_reaches_the_forecast_from_every_door(
     assert res.exit_code == 0, res.output
     assert json.loads(res.stdout)["median"] == with_media["median"]
     res = CliRunner().invoke(app, ["check", "--plan", str(src), "--out", str(dest)])
+    # A row that cannot be forecast exits 3, as import does for rejected rows.
+    assert res.exit_code == 3 and "2 of 3 drafts forecast" in res.output
+    res = CliRunner().invoke(app, ["check", "--plan", str(src), "--out", str(dest), "--allow-rejects"])
     assert res.exit_code == 0 and "2 of 3 drafts forecast" in res.output

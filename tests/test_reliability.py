@@ -268,7 +268,15 @@ def test_two_processes_importing_overlapping_files(workspace: Workspace, tmp_pat
         "PYTHONPATH": str(ROOT),
         "SOUNDING_IMPORT_BATCH_ROWS": "50",
     }
-    cmd = [sys.executable, "-c", "from service.cli import main; main()", "import"]
+    cmd = [
+        sys.executable,
+        "-c",
+        "from service.cli import main; main()",
+        "import",
+        "--new-account",
+        "--timezone",
+        "UTC",
+    ]
     procs = [
         subprocess.Popen([*cmd, str(f)], env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
         for f in (a, b)
@@ -366,6 +374,7 @@ def test_overlapping_api_imports_both_succeed(workspace: Workspace, tmp_path: Pa
                         headers=AUTH,
                         timeout=600,
                         files={"file": (path.name, f, "text/csv")},
+                        data={"new_account": "true", "timezone": "UTC"},
                     )
                 )
 
@@ -391,12 +400,17 @@ def test_a_second_writer_gets_busy_not_a_traceback(workspace: Workspace, tmp_pat
         with pytest.raises(Busy, match="another sounding process"):
             ws.import_csv(csv_file, ImportOptions(new_accounts="UTC"))
         with TestClient(create_app(workspace=ws)) as c, csv_file.open("rb") as f:
-            r = c.post("/v1/imports", headers=AUTH, files={"file": ("x.csv", f, "text/csv")})
+            r = c.post(
+                "/v1/imports",
+                headers=AUTH,
+                files={"file": ("x.csv", f, "text/csv")},
+                data={"new_account": "true", "timezone": "UTC"},
+            )
         assert r.status_code == 409 and r.json()["error"]["code"] == "busy"
         use_embedder(workspace.embedder)
         r = CliRunner().invoke(
             cli_app,
-            ["import", str(csv_file)],
+            ["import", "--new-account", "--timezone", "UTC", str(csv_file)],
             env={"SOUNDING_HOME": str(home), "SOUNDING_WRITE_WAIT_SECONDS": "0.2"},
         )
         assert r.exit_code == 1 and r.output.startswith("Error: cannot start an import")
@@ -575,7 +589,12 @@ def test_a_read_only_directory_serves_reads_and_refuses_writes(
                 action()
         csv_file = write_csv(tmp_path / "x.csv", rows(3, prefix="ro"))
         with TestClient(create_app(workspace=ws)) as c, csv_file.open("rb") as fh:
-            r = c.post("/v1/imports", headers=AUTH, files={"file": ("x.csv", fh, "text/csv")})
+            r = c.post(
+                "/v1/imports",
+                headers=AUTH,
+                files={"file": ("x.csv", fh, "text/csv")},
+                data={"new_account": "true", "timezone": "UTC"},
+            )
             assert r.status_code == 503 and r.json()["error"]["code"] == "read_only"
             assert c.get("/v1/health").json()["read_only"] is True
         use_embedder(embedder)

@@ -7,9 +7,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime, timedelta
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 from pydantic import BaseModel, Field
 
 from models.errors import NotReady
@@ -19,6 +19,9 @@ from service.datadir import DataDir
 
 #: Fewer settled posts than this, and no analysis is worth reading.
 MIN_POSTS = 20
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 class LeftOut(BaseModel):
@@ -45,6 +48,8 @@ def settled_posts(
     now: datetime | None = None,
     min_posts: int = MIN_POSTS,
 ) -> Settled:
+    import pandas as pd
+
     check_target(metric)
     frame = ws.store.posts_frame(account=account)
     values = target_values(frame, metric)

@@ -9,9 +9,9 @@ with the rest by the segment statistics of :mod:`models.segments`.
 from __future__ import annotations
 
 from datetime import datetime
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 from pydantic import BaseModel, Field
 
 from models.analyst_plots import plot_map
@@ -31,6 +31,9 @@ MAP_NOTE = (
     "A PCA projection of the 384-dimensional text vectors onto their two main directions: "
     "near posts are mostly alike in meaning, but distances are approximate."
 )
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 
 class CentralPost(BaseModel):

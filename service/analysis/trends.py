@@ -8,9 +8,9 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 from datetime import datetime
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 from pydantic import BaseModel, Field
 
 from models.analyst_plots import plot_series
@@ -40,6 +40,9 @@ NOTE = (
     "association, not a cause (what was posted, when and by whom changed together)."
 )
 MAX_LAST = 120
+
+if TYPE_CHECKING:
+    pass
 
 
 @dataclass(frozen=True, slots=True, kw_only=True)
@@ -87,6 +90,8 @@ def _check(req: TrendRequest) -> None:
 
 
 def trends(ws: DataDir, req: TrendRequest, *, now: datetime | None = None) -> TrendAnswer:
+    import pandas as pd
+
     _check(req)
     topics = parse_topics(req.topics)
     posts = settled_posts(ws, req.metric, account=req.account, since=req.since, now=now)

@@ -68,6 +68,7 @@ def create_app(
     """Build the app around one workspace (created from settings if not given).
     ``bound_host`` is the address it listens on, one of the Host names it answers."""
     ws = workspace or Workspace(settings=settings or get_settings())
+    ws.forecaster.keep_views = False  # a service holds its views, details and all, in memory
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> AsyncIterator[None]:

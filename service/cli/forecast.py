@@ -253,9 +253,10 @@ def print_forecast(f: Forecast, *, wide: bool = False, details: bool = False) ->
             c = f.calibration
             say(
                 out,
-                f"calibration: {c.method}, alpha_t {c.alpha_t:.3f}, stated {c.alpha:.3f} (CQR, Romano "
-                "et al. 2019; +aci: adaptive conformal inference, Gibbs & Candès 2021)",
+                f"calibration: {c.method} (CQR, Romano et al. 2019; +aci: adaptive conformal "
+                "inference, Gibbs & Candès 2021)",
             )
+            say(out, f"adaptive level (alpha_t) {c.alpha_t:.3f}, stated {c.alpha:.3f}")
             say(
                 out,
                 f"seen: {c.outcomes} scored forecasts, {c.pseudo_outcomes} pseudo-outcomes"

@@ -20,8 +20,6 @@ from rich.progress import (
 
 from models.errors import InputError
 from models.metrics import METRIC_COLUMNS
-from service.api import guard
-from service.api.app import create_app
 from service.cli.base import app, err, is_terminal, next_step, out, print_json, workspace
 from service.cli.forecast import demo_forecast
 from service.cli.mappings import (
@@ -364,6 +362,9 @@ def serve_cmd(
 ) -> None:
     """Run the HTTP service (the page at /, API docs at /docs)."""
     import uvicorn  # the server, only when serving
+
+    from service.api import guard
+    from service.api.app import create_app
 
     ws = workspace(create=True)
     check_bind(host, ws.settings)

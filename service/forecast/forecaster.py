@@ -62,6 +62,10 @@ class Forecaster:
         self._encode = encode
         self._models: dict[str, TrainedModel] = {}
         self._views: dict[str, tuple[int, HistoryView]] = {}
+        #: Keep each view between processes (service.history.viewcache): a cold command
+        #: maps it instead of building it. A service keeps its views in memory with
+        #: their posts' details, so a forecast asks the store nothing but the counters.
+        self.keep_views = True
         self._lock = threading.Lock()
 
     def embed(self, texts: Sequence[str]) -> np.ndarray:
@@ -92,10 +96,11 @@ class Forecaster:
             if hit is not None and hit[0] == stamp:
                 return hit[1]
         # Kept between processes (service.history.viewcache): a cold command maps it.
-        v = viewcache.load(self.settings, self.store, metric, stamp)
+        v = viewcache.load(self.settings, self.store, metric, stamp) if self.keep_views else None
         if v is None:
             v = build_view(self.store, metric, with_vectors=False)
-            viewcache.save(self.settings, v, stamp)
+            if self.keep_views:
+                viewcache.save(self.settings, v, stamp)
         with self._lock:
             self._views[metric] = (stamp, v)
         return v

@@ -78,6 +78,7 @@ def test_root_help_imports_no_command_module() -> None:
     assert not {m for m in mods if m.startswith("service.cli.")} - {
         "service.cli.base",
         "service.cli.lazy",
+        "service.cli.metavars",
     }
     for name in catalogue():
         assert f"  {name} " in text
@@ -115,7 +116,7 @@ def test_the_catalogue_is_what_typer_registers() -> None:
 def test_a_figure_loads_matplotlib_and_serving_loads_fastapi_only_there() -> None:
     """matplotlib and FastAPI are imported by what draws and what serves."""
     probe = (
-        "import sys; import service.segments.segmenting, service.track.record, models.track_plots;"
+        "import sys; import service.segments.segmenting, service.track.report, models.track_plots;"
         "import service.cli.history;"
         "print(sorted({m.split('.')[0] for m in sys.modules} & {'matplotlib', 'fastapi', 'uvicorn'}))"
     )

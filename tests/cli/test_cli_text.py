@@ -48,6 +48,7 @@ def test_an_empty_data_directory_says_what_to_do_next(tmp_path, embedder) -> Non
     from service.cli.base import use_embedder
 
     use_embedder(embedder)
+    (tmp_path / "empty").mkdir()  # a read command never makes one itself
     env = {"SOUNDING_HOME": str(tmp_path / "empty")}
     listed = runner.invoke(app, ["accounts"], env=env)
     assert listed.exit_code == 0

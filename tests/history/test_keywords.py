@@ -26,6 +26,7 @@ from storage.test_migrations import make_v0_store
 from service.api.app import create_app
 from service.history.fusion import rrf
 from service.history.match_modes import Match
+from service.ingest.options import ImportOptions
 from service.storage import keywords
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
@@ -166,7 +167,7 @@ def tagged(workspace, tmp_path):  # type: ignore[no-untyped-def]
     path = tmp_path / "tagged.csv"
     extra = f'tag-1,loomhaven,"{HASHTAG_POST}",2025-03-20T10:00:00+00:00,90\n'
     path.write_bytes(history_csv(48) + extra.encode())
-    workspace.import_csv(path)
+    workspace.import_csv(path, ImportOptions(new_accounts="UTC"))
     return workspace
 
 

@@ -8,13 +8,14 @@ from conftest import history_csv
 
 from service.history import viewcache
 from service.history.view import build_view
+from service.ingest.options import ImportOptions
 
 
 def test_a_kept_view_is_the_built_view_until_the_store_changes(make_workspace, tmp_path) -> None:
     ws = make_workspace()
     csv = tmp_path / "posts.csv"
     csv.write_bytes(history_csv(40, accounts=("loomhaven", "loomhaven_lab")))
-    ws.import_csv(csv)
+    ws.import_csv(csv, ImportOptions(new_accounts="UTC"))
     stamp = ws.store.stamp()
     built = build_view(ws.store, "impressions", with_vectors=False)
     viewcache.save(ws.settings, built, stamp)

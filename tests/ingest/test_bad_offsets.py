@@ -11,6 +11,7 @@ from conftest import history_csv
 
 from models.errors import TimeParseError
 from service.clock import parse_time
+from service.ingest.options import ImportOptions
 from service.ingest.timestamps import TimeLayout, TimeReader
 
 # ISO 8601-1:2019 and RFC 3339 5.6 (time-numoffset = ("+" / "-") time-hour ":" time-minute,
@@ -59,9 +60,9 @@ def test_one_bad_offset_rejects_its_row_only(make_workspace, tmp_path) -> None:
     path = tmp_path / "history.csv"
     path.write_bytes(_with_bad_offset(400, 252, offset))
     ws = make_workspace()
-    preview = ws.preview_import(path)
+    preview = ws.preview_import(path, ImportOptions(new_accounts="UTC"))
     assert preview.would_import == 399 and preview.rejected == 1
-    summary = ws.import_csv(path)
+    summary = ws.import_csv(path, ImportOptions(new_accounts="UTC"))
     assert summary.added == 399 and summary.rejected == 1
     (problem,) = summary.problems
     assert problem.line == 252 and problem.column == "posted_at" and offset in problem.reason

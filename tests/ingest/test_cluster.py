@@ -199,7 +199,19 @@ def test_cluster_import_equals_local_import(
     before = embedder.calls
     try:
         res = CliRunner().invoke(
-            app, ["import", str(src), "--cluster", ray_head, "--cluster-workers", "2", "--json"]
+            app,
+            [
+                "import",
+                str(src),
+                "--cluster",
+                ray_head,
+                "--cluster-workers",
+                "2",
+                "--json",
+                "--new-account",
+                "--timezone",
+                "UTC",
+            ],
         )
     finally:
         ray.shutdown()

@@ -109,7 +109,17 @@ def test_killed_import_leaves_whole_batches_and_a_rerun_completes_it(
     env.update(SOUNDING_HOME=str(home), SOUNDING_IMPORT_BATCH_ROWS=str(BATCH), HF_HUB_OFFLINE="1")
     log = (tmp_path / "import.out").open("wb")
     proc = subprocess.Popen(
-        [sys.executable, "-c", "from service.cli import main; main()", "import", str(big), "--json"],
+        [
+            sys.executable,
+            "-c",
+            "from service.cli import main; main()",
+            "import",
+            str(big),
+            "--json",
+            "--new-account",
+            "--timezone",
+            "UTC",
+        ],
         cwd=ROOT,
         env=env,
         stdout=log,

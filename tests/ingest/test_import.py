@@ -385,9 +385,10 @@ def test_numbers_with_separators_and_exponents(workspace: Workspace, tmp_path: P
         "n2,garden,Bigger,2026-05-01T11:00Z,1.2e3\n"
     )
     s = workspace.import_csv(write(tmp_path / "n.csv", body), ImportOptions(new_accounts="UTC"))
-    assert s.rejected == 0
-    posts = by_id(workspace)
-    assert posts["n1"].impressions == 1200 and posts["n2"].impressions == 1200
+    # Neither is how people write counts in an export: each row is refused, by line and column.
+    assert s.rejected == 2 and s.added == 0
+    assert {(r.line, r.column) for r in s.problems} == {(2, "impressions"), (3, "impressions")}
+    assert any("exponent" in r.reason for r in s.problems)
 
 
 def test_blank_lines_are_skipped(workspace: Workspace, tmp_path: Path) -> None:

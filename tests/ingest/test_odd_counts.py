@@ -10,6 +10,7 @@ import pytest
 from conftest import history_csv
 
 from service.ingest.numbers import NumberError, read_count
+from service.ingest.options import ImportOptions
 
 ODD = ["١٢٣", "１２３", "१२३", "1_000", "1.5e3", "2E4", "1e+3"]
 
@@ -34,7 +35,7 @@ def test_odd_counts_are_rejected_row_by_row(make_workspace, tmp_path) -> None:
     csv.writer(out).writerows(rows)
     path = tmp_path / "odd.csv"
     path.write_text(out.getvalue(), encoding="utf-8")
-    summary = make_workspace().import_csv(path)
+    summary = make_workspace().import_csv(path, ImportOptions(new_accounts="UTC"))
     assert summary.added == 3 and summary.rejected == len(ODD)
     got = {(p.line, p.column) for p in summary.problems}
     assert got == {(line, "impressions") for line in range(2, len(ODD) + 2)}

@@ -177,6 +177,7 @@ def test_int8_is_refused_unless_asked_for(
     # The command refuses --int8 while the setting does not ask for it.
     runner = CliRunner()
     cli_base.use_embedder(embedder)
+    (tmp_path / "home").mkdir()  # a data directory, as `model export` reads one
     monkeypatch.setenv("SOUNDING_HOME", str(tmp_path / "home"))
     monkeypatch.delenv("SOUNDING_EMBED_QUANTIZE", raising=False)
     res = runner.invoke(app, ["model", "export", "--int8"])

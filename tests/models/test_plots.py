@@ -97,11 +97,11 @@ def test_bad_format_and_mismatch(split: tuple[np.ndarray, list[str]]) -> None:
 
 
 def test_tick_labels_use_the_one_number_style() -> None:
-    from models.figure_style import _plain_number
+    from models.figure_style import plain_number
 
     # Worked by hand: thousands as K with two significant digits below ten of the unit,
     # whole units above (the style the import reads back, e.g. 1.2K; common practice, no source).
-    assert [_plain_number(x) for x in (0.03, 999, 1000, 1290, 25_000, 125_000, 1.2e6)] == [
+    assert [plain_number(x) for x in (0.03, 999, 1000, 1290, 25_000, 125_000, 1.2e6)] == [
         "0.03",
         "999",
         "1K",

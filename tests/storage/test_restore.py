@@ -26,6 +26,7 @@ from typer.testing import CliRunner
 from models.errors import Busy, InputError, StoreError
 from service.cli import app
 from service.cli.base import use_embedder
+from service.ingest.options import ImportOptions
 from service.restore import restore
 from service.settings import Settings
 from service.workspace import Workspace
@@ -71,7 +72,7 @@ def prepared(tmp_path: Path, embedder) -> tuple[Settings, Path, str]:
     ws = Workspace(settings=settings, embedder=embedder)
     csv = tmp_path / "h.csv"
     csv.write_bytes(history_csv(40, accounts=("loomhaven", "loomhaven_lab")))
-    ws.import_csv(csv)
+    ws.import_csv(csv, ImportOptions(new_accounts="UTC"))
     backup = ws.store.backup(tmp_path / "backups" / "b.db")
     text = ws.store.posts_frame().set_index("post_id").loc["h-3", "text"]
     ws.forget(post_id="h-3")

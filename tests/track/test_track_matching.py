@@ -192,8 +192,9 @@ def test_reimport_is_idempotent_and_forget_removes_matches(ws: Workspace, tmp_pa
     ws.forget(account="lab")
     with ws.store.session() as s:
         assert s.scalar(select(func.count(ForecastMatch.id))) == 0
-        # The account's forecasts go with it; the other account's stay, unmatched.
-        assert s.scalar(select(func.count(ForecastGiven.id))) == 1
-    # Re-importing the forgotten post matches it again: nothing else held the link.
+        # The account's forecasts go with it, and a forgotten post takes the forecast
+        # it fulfilled (that forecast holds the post's own words): none is left.
+        assert s.scalar(select(func.count(ForecastGiven.id))) == 0
+    # Re-importing the forgotten post finds no forecast to match: forgotten means forgotten.
     ws.import_csv(pub, ImportOptions(new_accounts="UTC"))
-    assert _matches(ws)[f1][0] == "p1"
+    assert not _matches(ws)
