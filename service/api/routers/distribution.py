@@ -27,7 +27,7 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
             "description": "The answer as JSON, or with format png or svg its histogram",
             "content": dict.fromkeys(MEDIA_TYPES.values(), _IMAGE),
         },
-        **ERRORS(404, 422, 503),
+        **ERRORS(404, 409, 422, 503),
     },
     summary="How a metric is spread over the posts, and which law its top follows",
     description="Median, central half, 90th and 99th percentiles and the fraction of posts that "

@@ -27,7 +27,7 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
             "description": "Every post's place as JSON, or with format png or svg the picture",
             "content": dict.fromkeys(MEDIA_TYPES.values(), _IMAGE),
         },
-        **ERRORS(404, 422, 503),
+        **ERRORS(404, 409, 422, 503),
     },
     summary="Where the posts lie in meaning: a PCA projection coloured by the metric",
     description="The first two principal components of the text vectors; distances are "

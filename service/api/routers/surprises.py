@@ -26,7 +26,7 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
             "description": "The answer as JSON, or with format png or svg its figure",
             "content": dict.fromkeys(MEDIA_TYPES.values(), _IMAGE),
         },
-        **ERRORS(404, 422, 503),
+        **ERRORS(404, 409, 422, 503),
     },
     summary="Posts that did far better or worse than the forecast made for them at their time",
     description="Every settled post forecast out of sample in time order (rolling origin, as "

@@ -18,7 +18,7 @@ router = APIRouter(prefix="/v1", tags=["topics"])
 @router.get(
     "/topics",
     response_model=TopicsAnswer,
-    responses=ERRORS(404, 422, 503),
+    responses=ERRORS(404, 409, 422, 503),
     summary="The topics the history holds, each named by its distinctive words",
     description="k-means on the text vectors with k chosen by the mean cosine silhouette; "
     "names from class-based TF-IDF; each topic's central posts, post ids and its median "

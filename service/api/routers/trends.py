@@ -43,7 +43,7 @@ class TrendsBody(BaseModel):
             "description": "The answer as JSON, or with format png or svg its figure",
             "content": dict.fromkeys(MEDIA_TYPES.values(), _IMAGE),
         },
-        **ERRORS(404, 422, 503),
+        **ERRORS(404, 409, 422, 503),
     },
     summary="A metric per month or week, for the whole history and for topics, with its trend",
     description="Posts per period and their share, the median with a bootstrap interval, and "
