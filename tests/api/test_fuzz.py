@@ -11,6 +11,8 @@ the declared schema - for errors the one ErrorBody shape.
 
 from __future__ import annotations
 
+import os
+
 import csv
 import json
 import tempfile
@@ -126,6 +128,8 @@ def test_api_never_fails_on_generated_requests(case, fuzz_app) -> None:
 
 
 def test_every_operation_was_fuzzed(artifacts: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    if os.environ.get("PYTEST_XDIST_WORKER") and not CASES:
+        pytest.skip("the fuzz cases ran on another worker; a serial run checks them all")
     operations = {op.ok().label for op in schema.get_all_operations()}
     missing = operations - set(CASES)
     assert not missing, f"operations never fuzzed: {sorted(missing)}"
