@@ -11,10 +11,9 @@ the declared schema - for errors the one ErrorBody shape.
 
 from __future__ import annotations
 
-import os
-
 import csv
 import json
+import os
 import tempfile
 from collections import Counter
 from datetime import UTC, datetime, timedelta
