@@ -384,14 +384,14 @@ def test_api_forecasts_single_and_batch(demo_workspace):
     assert r.status_code == 409 and r.json()["error"]["code"] == "not_ready"
 
 
-def test_cli_check_json(demo_home, embedder, monkeypatch):
+def test_cli_check_json(backend_demo_home, embedder, monkeypatch):
     from typer.testing import CliRunner
 
     from service.cli import app
     from service.cli.base import use_embedder
 
     use_embedder(embedder)
-    monkeypatch.setenv("SOUNDING_HOME", str(demo_home))
+    monkeypatch.setenv("SOUNDING_HOME", str(backend_demo_home))
     res = CliRunner().invoke(
         app,
         [
