@@ -7,9 +7,10 @@ rather than shifted, and one that occurs twice (clocks going back) is read
 as the first occurrence, as ``zoneinfo`` does with ``fold=0``.
 
 Every time that enters sounding (an imported post, a planned time, a range
-bound) must lie between :data:`EARLIEST` and :data:`YEARS_AHEAD` years from
-now: a stray year 1 or 9999 would otherwise break every later computation
-that turns times into numbers.
+bound) must lie in the years :data:`FIRST_YEAR` to :data:`LAST_YEAR`: a stray
+year 1 or 9999 would otherwise break every later computation that turns
+times into numbers. The bounds are fixed years rather than "so long from
+now" so that the API's schema can state them exactly (:data:`YEAR_PATTERN`).
 
 The layouts of exported spreadsheets are read in :mod:`service.ingest.timestamps`.
 """
@@ -19,7 +20,7 @@ from __future__ import annotations
 import os
 import re
 from datetime import UTC as UTC  # re-exported: the service modules take UTC from here
-from datetime import datetime, timedelta
+from datetime import date, datetime
 from functools import lru_cache
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
@@ -27,27 +28,27 @@ from models.errors import InputError, TimeParseError
 from service.offsets import HINT as OFFSET_HINT
 from service.offsets import offset_problem
 
-#: The earliest time sounding accepts anywhere (import, requests, options).
-EARLIEST = datetime(1990, 1, 1, tzinfo=UTC)
-#: How far ahead of now a time may lie; 100 years as 36,525 days.
-YEARS_AHEAD = 100
-_AHEAD = timedelta(days=round(365.25 * YEARS_AHEAD))
+#: The first and last years sounding accepts anywhere (import, requests, options).
+FIRST_YEAR, LAST_YEAR = 1990, 2199
+#: The earliest instant accepted, and the first one past the range.
+EARLIEST = datetime(FIRST_YEAR, 1, 1, tzinfo=UTC)
+PAST_LAST = datetime(LAST_YEAR + 1, 1, 1, tzinfo=UTC)
+#: A written time or date whose year is in the range starts so (JSON Schema
+#: ``pattern``, which matches anywhere unless anchored).
+YEAR_PATTERN = r"^(199[0-9]|2[01][0-9][0-9])-"
+RANGE_TEXT = f"the years {FIRST_YEAR} to {LAST_YEAR}"
 
 
-def latest_time(now: datetime | None = None) -> datetime:
-    """The latest time accepted now."""
-    return (now or now_utc()) + _AHEAD
-
-
-def range_text(now: datetime | None = None) -> str:
-    return f"{EARLIEST:%Y-%m-%d} to {latest_time(now):%Y-%m-%d} ({YEARS_AHEAD} years from now)"
+def year_in_range(value: datetime | date) -> bool:
+    """Whether a time or date, as written (its own offset or none), falls in the range."""
+    return FIRST_YEAR <= value.year <= LAST_YEAR
 
 
 def check_range(dt: datetime, *, where: str | None = None, value: str | None = None) -> datetime:
     """``dt`` (aware) if it lies in the accepted range, else a clear error."""
-    if not EARLIEST <= dt <= latest_time():
+    if not EARLIEST <= dt < PAST_LAST:
         raise TimeParseError(
-            f"time {dt.isoformat()} is outside the accepted range, {range_text()}",
+            f"time {dt.isoformat()} is outside the accepted range, {RANGE_TEXT}",
             where=where,
             value=value or dt.isoformat(),
         )

@@ -16,6 +16,9 @@ from typing import Literal
 from pydantic import Field, SecretStr
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
+#: The longest post text an import stores (characters, after normalising).
+DEFAULT_MAX_TEXT_CHARS = 10_000
+
 
 class Settings(BaseSettings):
     model_config = SettingsConfigDict(env_prefix="SOUNDING_", extra="ignore")
@@ -114,6 +117,9 @@ class Settings(BaseSettings):
 
     # Limits
     max_draft_chars: int = Field(default=5000, ge=1)
+    # A stored text is echoed into every answer that shows it as a precedent,
+    # so an imported text is capped too (far above any platform's post length).
+    max_text_chars: int = Field(default=DEFAULT_MAX_TEXT_CHARS, ge=1)
     max_batch: int = Field(default=500, ge=1)
     max_upload_bytes: int = Field(default=50 * 1024 * 1024, ge=1)
     max_k: int = Field(default=100, ge=1)

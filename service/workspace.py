@@ -340,6 +340,7 @@ class Workspace:
                     batch_rows=batch_rows or self.settings.import_batch_rows,
                     progress=progress,
                     embed=embed,
+                    max_text_chars=self.settings.max_text_chars,
                 )
             except StoreError as exc:
                 # A full disk or a lost store mid-import: whole batches before
@@ -363,7 +364,9 @@ class Workspace:
 
     def preview_import(self, path: str | Path, options: ImportOptions | None = None) -> ImportPreview:
         """A dry run of :meth:`import_csv`: the same checks, nothing written."""
-        return preview_csv(self.store, self.embedder, path, options)
+        return preview_csv(
+            self.store, self.embedder, path, options, max_text_chars=self.settings.max_text_chars
+        )
 
     def forget(self, *, account: str | None = None, post_id: str | None = None) -> int:
         """Delete posts from the store, the track record and the index

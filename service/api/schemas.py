@@ -11,7 +11,7 @@ and the segments answers are defined below.
 from __future__ import annotations
 
 from datetime import date, datetime
-from typing import Annotated, Literal
+from typing import Annotated, Literal, TypeVar
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, field_validator
 
@@ -20,7 +20,7 @@ from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES
 from models.segments import DEFAULT_MIN_N
 from service.answers import Calibration, Coverage, LiveCoverage
 from service.api.textcheck import utf8_only
-from service.clock import EARLIEST, as_utc, latest_time, range_text
+from service.clock import RANGE_TEXT, YEAR_PATTERN, year_in_range
 from service.forecast.answer import Contributions, Forecast, Forecasts, GroupEffect
 from service.health import EmbeddingState, Health, IndexState, SearchState
 from service.history.match_modes import Match
@@ -31,7 +31,15 @@ from service.review.hour_support import DEFAULT_MIN_POSTS
 from service.review.hours import HoursReport, Slot
 from service.review.wordings import Variant, VariantsReport
 from service.segments.answer import SegmentResult as SegmentResult  # the answer, used as it is
-from service.segments.request import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
+from service.segments.request import (
+    DEFAULT_EXAMPLES,
+    DEFAULT_K,
+    DEFAULT_THRESHOLD,
+    MAX_EXAMPLES,
+    MAX_TOPICS,
+    By,
+    Mode,
+)
 from service.storage.accounts import AccountInfo
 from service.track.answers import TrackRecord
 
@@ -67,25 +75,23 @@ __all__ = [
 ]
 
 
-def _time_in_range(dt: datetime) -> datetime:
-    """A time field inside the accepted range (service.clock), naive read as UTC."""
-    try:
-        ok = EARLIEST <= as_utc(dt) <= latest_time()
-    except OverflowError:
-        ok = False
-    if not ok:
-        raise ValueError(f"{dt.isoformat()} is outside the accepted range, {range_text()}")
-    return dt
+_When = TypeVar("_When", datetime, date)
 
 
-def _day_in_range(day: date) -> date:
-    if not EARLIEST.date() <= day <= latest_time().date():
-        raise ValueError(f"{day.isoformat()} is outside the accepted range, {range_text()}")
-    return day
+def _in_range(value: _When) -> _When:
+    """A time or date inside the accepted range (service.clock), by its year as
+    written: exactly what the schema's pattern states."""
+    if not year_in_range(value):
+        raise ValueError(f"{value.isoformat()} is outside the accepted range, {RANGE_TEXT}")
+    return value
 
 
-InRangeTime = Annotated[datetime, AfterValidator(_time_in_range)]
-InRangeDay = Annotated[date, AfterValidator(_day_in_range)]
+#: One topic phrase ("a | b": one topic, two alternatives); never empty.
+TopicPhrase = Annotated[str, Field(min_length=1)]
+
+_YEARS = Field(json_schema_extra={"pattern": YEAR_PATTERN})
+InRangeTime = Annotated[datetime, AfterValidator(_in_range), _YEARS]
+InRangeDay = Annotated[date, AfterValidator(_in_range), _YEARS]
 
 
 class Strict(BaseModel):
@@ -212,8 +218,20 @@ class VariantsRequest(Strict):
 
 
 class SegmentsRequest(Strict):
-    topics: list[str] = Field(
+    # A request needs something to split on: topic phrases, a split, or both.
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "anyOf": [
+                {"required": ["by"], "properties": {"by": {"not": {"type": "null"}}}},
+                {"required": ["topics"], "properties": {"topics": {"minItems": 1}}},
+            ]
+        },
+    )
+
+    topics: list[TopicPhrase] = Field(
         default_factory=list,
+        max_length=MAX_TOPICS,
         description="Topic phrases, e.g. 'flowers in bloom'. 'a | b' is one topic with two "
         "alternative phrases (their vectors are averaged). No labels are needed.",
         examples=[["flowers in bloom", "shop offers | membership"]],

@@ -51,6 +51,7 @@ from service.ingest.encodings import check_text, codec_of
 from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLUMNS, ImportOptions
 from service.ingest.timestamps import TimeReader, check_date_order
+from service.settings import DEFAULT_MAX_TEXT_CHARS
 from service.storage.handles import HANDLE_RULE, fold_handle, handle_problem
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
@@ -87,8 +88,10 @@ class RowReader:
         options: ImportOptions,
         account_zones: dict[str, str],
         embedder: Embedder,
+        max_text_chars: int = DEFAULT_MAX_TEXT_CHARS,
     ) -> None:
         self.records = RecordReader(handle)
+        self.max_text_chars = max_text_chars
         self._items = iter(self.records)
         self.where = where
         self.options = options
@@ -210,6 +213,12 @@ class RowReader:
         text = self._get(fields, "text") or ""
         if not normalise_text(text):
             raise _Reject("text", "is empty")
+        if len(text) > self.max_text_chars:
+            raise _Reject(
+                "text",
+                f"has {len(text):,} characters; the limit is {self.max_text_chars:,}",
+                "shorten it, or raise SOUNDING_MAX_TEXT_CHARS",
+            )
         try:
             posted_at = self.times.read(self._get(fields, "posted_at") or "", tz=self.zone_of(account))
         except TimeParseError as exc:
@@ -314,6 +323,7 @@ def open_rows(
     embedder: Embedder,
     *,
     create: bool = True,
+    max_text_chars: int = DEFAULT_MAX_TEXT_CHARS,
 ) -> Iterator[tuple[RowReader, int]]:
     """The file's rows, after every whole-file check (encoding, header, date
     order, unknown accounts); nothing is written before this yields, except
@@ -327,7 +337,14 @@ def open_rows(
     zones = {a.handle: a.timezone for a in store.accounts()}
 
     def rows(handle: TextIO) -> RowReader:
-        return RowReader(handle, where=str(path), options=options, account_zones=zones, embedder=embedder)
+        return RowReader(
+            handle,
+            where=str(path),
+            options=options,
+            account_zones=zones,
+            embedder=embedder,
+            max_text_chars=max_text_chars,
+        )
 
     # utf-8-sig drops a byte-order mark; newline="" lets csv see quoted line breaks.
     # One pass before any write: the date order (when not given) and the
@@ -374,6 +391,7 @@ def import_csv(
     batch_rows: int = 500,
     progress: ProgressFn | None = None,
     embed: EmbedFn | None = None,
+    max_text_chars: int = DEFAULT_MAX_TEXT_CHARS,
 ) -> ImportSummary:
     """Import one CSV file read as ``options`` say; see the module docstring for the rules.
 
@@ -402,7 +420,7 @@ def import_csv(
         summary.changed_pks.extend(res.changed_pks)
         batch.clear()
 
-    with open_rows(Path(path), options, store, embedder) as (
+    with open_rows(Path(path), options, store, embedder, max_text_chars=max_text_chars) as (
         rows,
         total_lines,
     ):

@@ -10,6 +10,7 @@ from service.clock import UTC, zone
 from service.ingest.answers import ColumnUse, ImportPreview, ImportSummary, PreviewRow, RowProblem, fixes_of
 from service.ingest.importer import PREVIEW_ROWS, RowReader, finish, open_rows
 from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, ImportOptions
+from service.settings import DEFAULT_MAX_TEXT_CHARS
 from service.storage.store import Store
 
 
@@ -20,6 +21,7 @@ def preview_csv(
     options: ImportOptions | None = None,
     *,
     rows: int = PREVIEW_ROWS,
+    max_text_chars: int = DEFAULT_MAX_TEXT_CHARS,
 ) -> ImportPreview:
     """Read and check a file as :func:`import_csv` would; write nothing.
 
@@ -27,7 +29,10 @@ def preview_csv(
     texts (no model is loaded).
     """
     options = (options or ImportOptions()).check()
-    with open_rows(Path(path), options, store, embedder, create=False) as (reader, _):
+    with open_rows(Path(path), options, store, embedder, create=False, max_text_chars=max_text_chars) as (
+        reader,
+        _,
+    ):
         columns = _column_uses(reader)
         used = set(reader.positions.values())
         unused = [h for i, h in enumerate(reader.header) if i not in used]

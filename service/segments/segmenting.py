@@ -158,7 +158,9 @@ def _by_split(posts: _Posts, by: str, req: SegmentRequest) -> tuple[Split, np.nd
     present = [name for name in order if np.any(labels == name)]
     if len(present) < 2:
         only = present[0] if present else "none"
-        raise InputError(
+        # The history, not the request, leaves nothing to compare: the same
+        # request splits another history. So "not ready", not bad input.
+        raise NotReady(
             f"every post falls in one {by} segment ({only!r}), so there is nothing to compare",
             field="by",
             value=by,
@@ -222,7 +224,7 @@ def _nearest_members(
         members[OTHER] = np.flatnonzero(best < 0)
     if len(members) < 2:
         only = next(iter(members), OTHER)
-        raise InputError(
+        raise NotReady(
             f"every post fell in one topic segment ({only!r}), so there is nothing to compare",
             field="topics",
             hint="add a topic, or raise the threshold"

@@ -306,12 +306,17 @@ def test_young_posts_are_left_out(demo_workspace) -> None:
         (SegmentRequest(topics=["flowers"], mode="closest"), "unknown mode"),
         (SegmentRequest(topics=["flowers"], threshold=1.5), "threshold"),
         (SegmentRequest(topics=["flowers"], mode="top-k", k=0), "k must be"),
-        (SegmentRequest(by="account", account="loomhaven"), "every post falls in one account"),
     ],
 )
 def test_bad_input_is_refused_clearly(demo_workspace, req: SegmentRequest, message: str) -> None:
     with pytest.raises(InputError, match=message):
         segment(demo_workspace, req)
+
+
+def test_a_split_the_history_cannot_make_is_not_ready_rather_than_bad_input(demo_workspace) -> None:
+    # The same request splits a history of several accounts; this one has one.
+    with pytest.raises(NotReady, match="every post falls in one account"):
+        segment(demo_workspace, SegmentRequest(by="account", account="loomhaven"))
 
 
 def test_unknown_account_is_not_found(demo_workspace) -> None:
@@ -408,7 +413,8 @@ def test_http_answers_png_and_svg(client) -> None:
     ("body", "status", "where"),
     [
         ({}, 422, "nothing to split"),
-        ({"topics": [""]}, 422, "empty phrase"),
+        ({"topics": [""]}, 422, "at least 1 character"),
+        ({"topics": ["  "]}, 422, "empty phrase"),
         ({"by": "hour", "metric": "reach"}, 422, "unknown metric"),
         ({"by": "colour"}, 422, "by"),
         ({"by": "hour", "hour_edges": [0, 6, 25]}, 422, "must start at 0 and end at 24"),

@@ -10,8 +10,8 @@ from fastapi.responses import Response
 from models.metrics import DEFAULT_METRIC
 from service.analysis.topics import MapAnswer, render_map, topic_map
 from service.api.deps import WorkspaceDep
+from service.api.params import Since, metric_query, since_instant, since_query
 from service.api.responses import ERRORS
-from service.clock import parse_since
 
 router = APIRouter(prefix="/v1", tags=["map"])
 
@@ -35,12 +35,12 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
 )
 def get_map(
     ws: WorkspaceDep,
-    metric: Annotated[str, Query(description="The metric that colours the posts")] = DEFAULT_METRIC.value,
+    metric: Annotated[str, metric_query("The metric that colours the posts")] = DEFAULT_METRIC.value,
     account: Annotated[str | None, Query(description="Only this account")] = None,
-    since: Annotated[str | None, Query(description="Only posts from this date or time")] = None,
+    since: Annotated[Since | None, since_query()] = None,
     format: Annotated[Literal["json", "png", "svg"], Query(description="json, png or svg")] = "json",
 ) -> Any:
-    answer = topic_map(ws, metric=metric, account=account or None, since=parse_since(since))
+    answer = topic_map(ws, metric=metric, account=account or None, since=since_instant(since))
     if format in MEDIA_TYPES:
         return Response(content=render_map(answer, format), media_type=MEDIA_TYPES[format])
     return answer

@@ -10,6 +10,7 @@ from fastapi.responses import Response
 from models.metrics import DEFAULT_METRIC
 from service.analysis.surprises import DEFAULT_TOP, SurprisesAnswer, render, surprises
 from service.api.deps import WorkspaceDep
+from service.api.params import metric_query
 from service.api.responses import ERRORS
 
 router = APIRouter(prefix="/v1", tags=["surprises"])
@@ -35,7 +36,7 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
 )
 def get_surprises(
     ws: WorkspaceDep,
-    metric: Annotated[str, Query(description="The metric")] = DEFAULT_METRIC.value,
+    metric: Annotated[str, metric_query()] = DEFAULT_METRIC.value,
     top: Annotated[int, Query(ge=1, le=50, description="Posts each way")] = DEFAULT_TOP,
     format: Annotated[Literal["json", "png", "svg"], Query(description="json, png or svg")] = "json",
 ) -> Any:

@@ -9,8 +9,8 @@ from fastapi import APIRouter, Query
 from models.metrics import DEFAULT_METRIC
 from service.analysis.topics import TopicsAnswer, topics
 from service.api.deps import WorkspaceDep
+from service.api.params import Since, metric_query, since_instant, since_query
 from service.api.responses import ERRORS
-from service.clock import parse_since
 
 router = APIRouter(prefix="/v1", tags=["topics"])
 
@@ -26,8 +26,8 @@ router = APIRouter(prefix="/v1", tags=["topics"])
 )
 def get_topics(
     ws: WorkspaceDep,
-    metric: Annotated[str, Query(description="The metric")] = DEFAULT_METRIC.value,
+    metric: Annotated[str, metric_query()] = DEFAULT_METRIC.value,
     account: Annotated[str | None, Query(description="Only this account")] = None,
-    since: Annotated[str | None, Query(description="Only posts from this date or time")] = None,
+    since: Annotated[Since | None, since_query()] = None,
 ) -> TopicsAnswer:
-    return topics(ws, metric=metric, account=account or None, since=parse_since(since))
+    return topics(ws, metric=metric, account=account or None, since=since_instant(since))

@@ -10,9 +10,9 @@ from fastapi.responses import Response
 from models.metrics import DEFAULT_METRIC
 from models.track_plots import track_record_figure
 from service.api.deps import WorkspaceDep
+from service.api.params import Since, metric_query, since_instant, since_query
 from service.api.responses import ERRORS
 from service.api.schemas import TrackRecord
-from service.clock import parse_since
 from service.track.report import report
 
 router = APIRouter(prefix="/v1", tags=["track record"])
@@ -38,12 +38,12 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
 )
 def track_record(
     ws: WorkspaceDep,
-    since: Annotated[str | None, Query(description="Forecasts given from this date or time")] = None,
+    since: Annotated[Since | None, since_query("Forecasts given from this date or time")] = None,
     account: Annotated[str | None, Query(description="Only this account")] = None,
-    metric: Annotated[str, Query(description="The forecast metric")] = DEFAULT_METRIC.value,
+    metric: Annotated[str, metric_query("The forecast metric")] = DEFAULT_METRIC.value,
     format: Annotated[Literal["json", "png", "svg"], Query(description="json, png or svg")] = "json",
 ) -> Any:
-    rep = report(ws, since=parse_since(since), account=account, metric=metric)
+    rep = report(ws, since=since_instant(since), account=account, metric=metric)
     if format in MEDIA_TYPES:
         figure = track_record_figure(rep.model_dump(mode="json"), fmt=format)
         return Response(content=figure, media_type=MEDIA_TYPES[format])

@@ -13,8 +13,9 @@ from models.segments import DEFAULT_MIN_N
 from models.trends import DEFAULT_LAST
 from service.analysis.trends import MAX_LAST, TrendAnswer, TrendRequest, render, trends
 from service.api.deps import WorkspaceDep
+from service.api.params import MetricName, Since, since_instant
 from service.api.responses import ERRORS
-from service.clock import parse_since
+from service.api.schemas import TopicPhrase
 from service.segments.request import DEFAULT_THRESHOLD, MAX_TOPICS
 
 router = APIRouter(prefix="/v1", tags=["trends"])
@@ -25,10 +26,12 @@ _IMAGE = {"schema": {"type": "string", "format": "binary"}}
 
 class TrendsBody(BaseModel):
     by: Literal["month", "week"] = "month"
-    topics: list[str] = Field(default_factory=list, max_length=MAX_TOPICS, description="Topic phrases")
-    metric: str = DEFAULT_METRIC.value
+    topics: list[TopicPhrase] = Field(
+        default_factory=list, max_length=MAX_TOPICS, description="Topic phrases"
+    )
+    metric: MetricName = DEFAULT_METRIC.value
     account: str | None = None
-    since: str | None = Field(default=None, description="Only posts from this date or time")
+    since: Since | None = Field(default=None, description="Only posts from this date or time")
     last: int = Field(default=DEFAULT_LAST, ge=3, le=MAX_LAST, description="Periods the trend is fitted over")
     min_n: int = Field(default=DEFAULT_MIN_N, ge=1, description="Flag periods with fewer posts")
     threshold: float = Field(default=DEFAULT_THRESHOLD, ge=-1, le=1)
@@ -56,7 +59,7 @@ def post_trends(body: TrendsBody, ws: WorkspaceDep) -> Any:
         topics=body.topics,
         metric=body.metric,
         account=body.account or None,
-        since=parse_since(body.since),
+        since=since_instant(body.since),
         last=body.last,
         min_n=body.min_n,
         threshold=body.threshold,
