@@ -11,7 +11,9 @@ repeated with a numbered variant of its text and a vector near its own
 - forecast: ``POST /v1/forecasts`` for one draft to a uvicorn server on
   127.0.0.1, end to end (HTTP, embedding, search, features, model);
 - training: ``forecasting.train`` with its backtest, at 100,000 posts
-  (``--no-train`` skips it).
+  (``--no-train`` skips it);
+- a week of hours: ``POST /v1/hours`` with ``week`` (168 slots) for the same
+  draft, as a ratio to one unrecorded forecast (aim: <= 4).
 
 Prints p50/p95 and the ratio forecast p50 / embedding p50 (aim: <= 1.5),
 and writes JSON under bench/results/.
@@ -339,7 +341,9 @@ def main() -> None:
             gc.collect()
             proc, url = serve(home)
             body = {"text": DRAFT, "account": "loomhaven", "planned_at": "2026-12-02T12:00"}
-            emb, fc, bare = [], [], []
+            emb, fc, bare, week = [], [], [], []
+            # A week of hours (168 slots) for the same draft: aim <= 4x one forecast.
+            hours_body = {"text": DRAFT, "account": "loomhaven", "day": "2026-12-07", "week": True}
             # The same forecast with "record": false, interleaved, so the cost of keeping
             # it in the track record is a ratio within this run.
             unrecorded = {**body, "record": False}
@@ -358,6 +362,9 @@ def main() -> None:
                         t0 = time.perf_counter()
                         client.post("/v1/forecasts", json=unrecorded).raise_for_status()
                         bare.append(time.perf_counter() - t0)
+                        t0 = time.perf_counter()
+                        client.post("/v1/hours", json=hours_body).raise_for_status()
+                        week.append(time.perf_counter() - t0)
             finally:
                 proc.terminate()
                 proc.wait(timeout=30)
@@ -381,6 +388,8 @@ def main() -> None:
                 # Recorded / not recorded in the track record.
                 "forecast_unrecorded_p50_ms": round(1000 * statistics.median(bare), 2),
                 "record_ratio_p50": round(statistics.median(fc) / statistics.median(bare), 3),
+                "hours_week_p50_ms": round(1000 * statistics.median(week), 2),
+                "hours_week_ratio_p50": round(statistics.median(week) / statistics.median(bare), 2),
                 # Context, needed to read the figures.
                 "rss_peak_mb": round(peak, 1),
                 "fill_s": round(fill, 1),

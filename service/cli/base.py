@@ -13,8 +13,6 @@ from rich.console import Console
 from typer.core import TyperGroup
 
 from models.errors import NotFound, NotReady, SoundingError
-from service.settings import Settings
-from service.workspace import Workspace
 
 if TYPE_CHECKING:
     # Imported where used: --help and the light commands load neither
@@ -135,6 +133,7 @@ def workspace(*, create: bool = False) -> Workspace:
     Only commands that store something (``create``) make a data directory:
     a mistyped --home on a read gets a clear error, not a new empty one."""
     global _workspace, _embedder
+    from service.settings import Settings
     from service.workspace import Workspace
 
     settings = Settings()
