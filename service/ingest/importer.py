@@ -53,6 +53,7 @@ from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLU
 from service.ingest.timestamps import TimeReader, check_date_order
 from service.storage.handles import HANDLE_RULE, fold_handle, handle_problem
 from service.storage.post_writes import PostRow
+from service.storage.tables import LABEL_CHARS
 from service.storage.store import Store
 
 _TRUE = {"true", "1", "yes", "y", "t"}
@@ -108,6 +109,7 @@ class RowReader:
         self.header = [h.strip() for h in first.fields]
         self.positions = self._resolve(self.header, options.mapping)
         self.metric_positions = [(m, self.positions[m]) for m in METRIC_COLUMNS if m in self.positions]
+        self.label_positions = self._label_columns(self.header, options.labels)
 
     def _resolve(self, header: list[str], mapping: dict[str, str]) -> dict[str, int]:
         # One pass with a Counter and a dict: a list.count per column made
@@ -150,6 +152,32 @@ class RowReader:
             )
         return pos
 
+    def _label_columns(self, header: list[str], names: tuple[str, ...]) -> dict[str, int]:
+        where_is = {h: i for i, h in enumerate(header)}
+        missing = [n for n in names if n not in where_is]
+        if missing:
+            listed = ", ".join(header[:50]) + (" ..." if len(header) > 50 else "")
+            raise CSVFormatError(
+                f"the label column{'s' if len(missing) > 1 else ''} {', '.join(map(repr, missing))} "
+                f"{'are' if len(missing) > 1 else 'is'} not in the file (its columns: {listed or 'none'})",
+                where=self.where,
+                field="label",
+                value=missing[0],
+                hint="name a column of the file's header as it is written there",
+            )
+        return {n: where_is[n] for n in names}
+
+    def _labels(self, fields: list[str]) -> dict[str, str | None] | None:
+        if not self.label_positions:
+            return None
+        got: dict[str, str | None] = {}
+        for name, i in self.label_positions.items():
+            value = fields[i].strip()
+            if len(value) > LABEL_CHARS:
+                raise _Reject(name, f"a label of {len(value)} characters; at most {LABEL_CHARS}")
+            got[name] = value or None
+        return got
+
     @property
     def line_num(self) -> int:
         return self.records.line_num
@@ -162,7 +190,8 @@ class RowReader:
         return self.timezone or self.account_zones.get(account, "UTC")
 
     def __iter__(self) -> Iterator[PostRow | RowProblem]:
-        width = len(self.positions) and max(self.positions.values()) + 1
+        used = [*self.positions.values(), *self.label_positions.values()]
+        width = max(used) + 1 if used else 0
         id_at = self.positions["post_id"]
         for item in self._items:
             if isinstance(item, Abandoned):
@@ -239,6 +268,7 @@ class RowReader:
                 has_media = False if v else None
             else:
                 raise _Reject("has_media", f"{media_raw!r} is not true or false")
+        labels = self._labels(fields)
         first = self.seen.setdefault((account, post_id), line)
         if first != line:
             raise _Reject("post_id", f"{post_id!r} of {account} already appears on line {first}")
@@ -252,6 +282,7 @@ class RowReader:
             vector_key=self.embedder.key(text),
             line=line,
             approximate=frozenset(m for m, r in readings.items() if r is not None and r.approximate),
+            labels=labels,
         )
 
     def _rate(self, fields: list[str], readings: dict[str, Reading | None]) -> None:
