@@ -31,7 +31,15 @@ from service.review.hour_support import DEFAULT_MIN_POSTS
 from service.review.hours import HoursReport, Slot
 from service.review.wordings import Variant, VariantsReport
 from service.segments.answer import SegmentResult as SegmentResult  # the answer, used as it is
-from service.segments.request import DEFAULT_EXAMPLES, DEFAULT_K, DEFAULT_THRESHOLD, MAX_EXAMPLES, By, Mode
+from service.segments.request import (
+    DEFAULT_EXAMPLES,
+    DEFAULT_K,
+    DEFAULT_THRESHOLD,
+    MAX_EXAMPLES,
+    By,
+    LabelBy,
+    Mode,
+)
 from service.storage.accounts import AccountInfo
 from service.track.answers import TrackRecord
 
@@ -218,11 +226,12 @@ class SegmentsRequest(Strict):
         "alternative phrases (their vectors are averaged). No labels are needed.",
         examples=[["flowers in bloom", "shop offers | membership"]],
     )
-    by: By | None = Field(
+    by: By | LabelBy | None = Field(
         default=None,
         description="A one-way split by local hour bucket, local weekday, link in the text, "
-        "media attached, text length band or account. With topics too, the answer adds the "
-        "two-way table topic x by.",
+        "media attached, text length band or account, or `label:NAME` by the team's own label "
+        "NAME kept at import (posts without it: 'no label'). With topics too, the answer adds "
+        "the two-way table topic x by.",
     )
     metric: str = METRIC_FIELD
     mode: Mode = Field(

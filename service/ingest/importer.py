@@ -53,8 +53,8 @@ from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLU
 from service.ingest.timestamps import TimeReader, check_date_order
 from service.storage.handles import HANDLE_RULE, fold_handle, handle_problem
 from service.storage.post_writes import PostRow
-from service.storage.tables import LABEL_CHARS
 from service.storage.store import Store
+from service.storage.tables import LABEL_CHARS
 
 _TRUE = {"true", "1", "yes", "y", "t"}
 _FALSE = {"false", "0", "no", "n", "f", ""}

@@ -106,7 +106,7 @@ def from_toml(text: str, *, where: str) -> ImportOptions:
         raise InputError("mapping values must be strings (decimal_comma true or false)", where=where)
     labels = data.get("labels", [])
     if not isinstance(labels, list) or not all(isinstance(v, str) for v in labels):
-        raise InputError("labels must be a list of column names, e.g. labels = [\"Campaign\"]", where=where)
+        raise InputError('labels must be a list of column names, e.g. labels = ["Campaign"]', where=where)
     return ImportOptions(
         mapping=dict(columns),
         account=data.get("account"),

@@ -101,9 +101,18 @@
     }
   }
 
+  // The team's own labels kept at import (import --label) join the split choices.
+  async function addLabelChoices(select) {
+    const r = await S.api("/v1/labels");
+    for (const l of r.labels) {
+      select.append(S.node("option", { value: `label:${l.name}` }, `label: ${l.name} (${l.posts} posts)`));
+    }
+  }
+
   document.addEventListener("DOMContentLoaded", () => {
     $("s-form").addEventListener("submit", run);
     S.fillAccounts($("s-account"), { anyLabel: "every account" })
       .catch((e) => S.showError($("s-error"), e.message));
+    addLabelChoices($("s-by")).catch((e) => S.showError($("s-error"), e.message));
   });
 })();
