@@ -12,6 +12,7 @@ import json
 from pathlib import Path
 
 import pytest
+from conftest import AUTH, TOKEN
 from fastapi.testclient import TestClient
 from sqlalchemy import func, select
 from typer.testing import CliRunner
@@ -26,7 +27,6 @@ from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.storage.tables import PostLabel
 from service.workspace import Workspace
-from tests.conftest import AUTH, TOKEN
 
 pytestmark = pytest.mark.both_backends
 

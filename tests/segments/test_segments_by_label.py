@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import NOW
 from fastapi.testclient import TestClient
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
@@ -33,7 +34,6 @@ from service.segments.request import NO_LABEL, SegmentRequest
 from service.segments.segmenting import segment
 from service.settings import Settings
 from service.workspace import Workspace
-from tests.conftest import NOW
 
 pytestmark = pytest.mark.both_backends
 
