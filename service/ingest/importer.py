@@ -48,13 +48,13 @@ from service.ingest.accounts import accounts_to_create, handles_in
 from service.ingest.answers import ImportSummary, RowProblem
 from service.ingest.csvread import Abandoned, BadRecord, Record, RecordReader
 from service.ingest.encodings import check_text, codec_of
+from service.ingest.header import LabelTooLong, label_positions, listed_columns, read_labels
 from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLUMNS, ImportOptions
 from service.ingest.timestamps import TimeReader, check_date_order
 from service.storage.handles import HANDLE_RULE, fold_handle, handle_problem
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
-from service.storage.tables import LABEL_CHARS
 
 _TRUE = {"true", "1", "yes", "y", "t"}
 _FALSE = {"false", "0", "no", "n", "f", ""}
@@ -109,7 +109,7 @@ class RowReader:
         self.header = [h.strip() for h in first.fields]
         self.positions = self._resolve(self.header, options.mapping)
         self.metric_positions = [(m, self.positions[m]) for m in METRIC_COLUMNS if m in self.positions]
-        self.label_positions = self._label_columns(self.header, options.labels)
+        self.label_positions = label_positions(self.header, options.labels, where=where)
 
     def _resolve(self, header: list[str], mapping: dict[str, str]) -> dict[str, int]:
         # One pass with a Counter and a dict: a list.count per column made
@@ -123,10 +123,10 @@ class RowReader:
         pos: dict[str, int] = {}
         for ours, theirs in mapping.items():
             if theirs not in where_is:
-                listed = ", ".join(header[:50]) + (" ..." if len(header) > 50 else "")
+                listed = listed_columns(header)
                 raise CSVFormatError(
                     f"the mapping {ours}={theirs} names column {theirs!r}, which is not in "
-                    f"the file (its columns: {listed or 'none'})",
+                    f"the file (its columns: {listed})",
                     where=self.where,
                     field="map",
                 )
@@ -137,10 +137,10 @@ class RowReader:
         needed = list(REQUIRED_COLUMNS) + ([] if self.account else ["account"])
         missing = [c for c in needed if c not in pos]
         if missing:
-            listed = ", ".join(header[:50]) + (" ..." if len(header) > 50 else "")
+            listed = listed_columns(header)
             raise CSVFormatError(
                 f"missing required column{'s' if len(missing) > 1 else ''} "
-                f"{', '.join(missing)} (found: {listed or 'none'})",
+                f"{', '.join(missing)} (found: {listed})",
                 where=self.where,
                 hint="rename with --map ours=theirs"
                 + (", or give --account" if "account" in missing else ""),
@@ -151,32 +151,6 @@ class RowReader:
                 where=self.where,
             )
         return pos
-
-    def _label_columns(self, header: list[str], names: tuple[str, ...]) -> dict[str, int]:
-        where_is = {h: i for i, h in enumerate(header)}
-        missing = [n for n in names if n not in where_is]
-        if missing:
-            listed = ", ".join(header[:50]) + (" ..." if len(header) > 50 else "")
-            raise CSVFormatError(
-                f"the label column{'s' if len(missing) > 1 else ''} {', '.join(map(repr, missing))} "
-                f"{'are' if len(missing) > 1 else 'is'} not in the file (its columns: {listed or 'none'})",
-                where=self.where,
-                field="label",
-                value=missing[0],
-                hint="name a column of the file's header as it is written there",
-            )
-        return {n: where_is[n] for n in names}
-
-    def _labels(self, fields: list[str]) -> dict[str, str | None] | None:
-        if not self.label_positions:
-            return None
-        got: dict[str, str | None] = {}
-        for name, i in self.label_positions.items():
-            value = fields[i].strip()
-            if len(value) > LABEL_CHARS:
-                raise _Reject(name, f"a label of {len(value)} characters; at most {LABEL_CHARS}")
-            got[name] = value or None
-        return got
 
     @property
     def line_num(self) -> int:
@@ -268,7 +242,10 @@ class RowReader:
                 has_media = False if v else None
             else:
                 raise _Reject("has_media", f"{media_raw!r} is not true or false")
-        labels = self._labels(fields)
+        try:
+            labels = read_labels(fields, self.label_positions)
+        except LabelTooLong as exc:
+            raise _Reject(exc.column, exc.reason) from None
         first = self.seen.setdefault((account, post_id), line)
         if first != line:
             raise _Reject("post_id", f"{post_id!r} of {account} already appears on line {first}")

@@ -167,9 +167,17 @@ def test_the_command_line_and_the_api_take_labels(
     r = run(app, ["import", str(path), "--new-account", "--timezone", "UTC", "--label", "series", "--json"])
     assert r.exit_code == 0, r.output
     assert json.loads(r.stdout)["added"] == 3
+    # A saved mapping keeps --label; importing with it adds that label to the posts.
+    r = run(app, ["mapping", "save", "garden", "--label", "Campaign"])
+    assert r.exit_code == 0, r.output
+    r = run(app, ["mapping", "show", "garden", "--json"])
+    assert json.loads(r.stdout)["labels"] == ["Campaign"]
+    r = run(app, ["import", str(path), "--mapping", "garden", "--json"])
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.stdout)["updated"] == 2  # g1 and g3 gain a campaign; g2's cell is empty
     cli_ws = Workspace(settings=Settings(home=home), embedder=embedder)
     try:
-        assert cli_ws.store.label_names() == {"series": 2}
+        assert cli_ws.store.label_names() == {"Campaign": 2, "series": 2}
     finally:
         cli_ws.close()
 

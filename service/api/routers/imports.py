@@ -311,7 +311,8 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
         time_format=upload.one("time_format"),
         date_order=typing.cast(DateOrder | None, order),  # checked just above
         decimal_comma=comma == "true",
-        labels=tuple(upload.fields.get("labels", [])),
+        # A blank field is a form's empty box: not a label asked for.
+        labels=tuple(v for v in upload.fields.get("labels", []) if v.strip()),
     )
     name = upload.one("mapping")
     return combine(load_mapping(home, name) if name else None, given)
