@@ -38,6 +38,7 @@ from service.segments.request import (
     MAX_EXAMPLES,
     MAX_TOPICS,
     By,
+    LabelBy,
     Mode,
 )
 from service.storage.accounts import AccountInfo
@@ -236,11 +237,12 @@ class SegmentsRequest(Strict):
         "alternative phrases (their vectors are averaged). No labels are needed.",
         examples=[["flowers in bloom", "shop offers | membership"]],
     )
-    by: By | None = Field(
+    by: By | LabelBy | None = Field(
         default=None,
         description="A one-way split by local hour bucket, local weekday, link in the text, "
-        "media attached, text length band or account. With topics too, the answer adds the "
-        "two-way table topic x by.",
+        "media attached, text length band or account, or `label:NAME` by the team's own label "
+        "NAME kept at import (posts without it: 'no label'). With topics too, the answer adds "
+        "the two-way table topic x by.",
     )
     metric: str = METRIC_FIELD
     mode: Mode = Field(

@@ -4,10 +4,12 @@ month|week``, how a metric moves over time)."""
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from datetime import datetime
 from pathlib import Path
 
 import typer
+from pydantic import BaseModel
 from rich.text import Text
 
 from models.analyst_plots import check_format
@@ -30,6 +32,37 @@ from service.clock import parse_since
 
 def _plot_format(plot: Path | None) -> str | None:
     return None if plot is None else check_format(plot.suffix or "?")
+
+
+Table = tuple[Sequence[str], Sequence[Sequence[str]]]
+
+
+def emit(
+    answer: BaseModel,
+    *,
+    as_json: bool,
+    show: Callable[[], None],
+    plot: Path | None,
+    fmt: str | None,
+    figure: Callable[[str], bytes],
+    csv_path: Path | None,
+    table: Callable[[], Table],
+) -> None:
+    """One answer as every analyst command gives it: JSON (``--json``) or the
+    screen (``show``), then the figure (``--plot``, in ``fmt`` checked before
+    the answer was computed) and the table (``--csv``). With --json the notes
+    go to stderr, so stdout stays pure JSON."""
+    if as_json:
+        print_json(answer.model_dump(mode="json"))
+    else:
+        show()
+    say = err if as_json else out
+    if plot is not None and fmt is not None:
+        plot.write_bytes(figure(fmt))
+        say.print(f"figure written to {plot}", highlight=False)
+    if csv_path is not None:
+        write_csv(csv_path, *table())
+        say.print(f"table written to {csv_path}", highlight=False)
 
 
 def print_distribution(a: DistributionAnswer) -> None:
@@ -88,17 +121,16 @@ def distribution_cmd(
     """How a metric is spread over the posts, and which law its top follows."""
     fmt = _plot_format(plot)
     a = distribution(workspace(), metric=metric, account=account, since=parse_since(since))
-    if as_json:
-        print_json(a.model_dump(mode="json"))
-    else:
-        print_distribution(a)
-    say = err if as_json else out
-    if plot is not None and fmt is not None:
-        plot.write_bytes(render(a, fmt))
-        say.print(f"figure written to {plot}", highlight=False)
-    if csv_path is not None:
-        write_csv(csv_path, *csv_table(a))
-        say.print(f"table written to {csv_path}", highlight=False)
+    emit(
+        a,
+        as_json=as_json,
+        show=lambda: print_distribution(a),
+        plot=plot,
+        fmt=fmt,
+        figure=lambda f: render(a, f),
+        csv_path=csv_path,
+        table=lambda: csv_table(a),
+    )
 
 
 def print_trends(a: TrendAnswer, *, wide: bool = False) -> None:
@@ -143,17 +175,16 @@ def trends_cmd(
     """``segments --by month|week``: the table, the figure and the CSV of a trend."""
     fmt = _plot_format(plot)
     a = trends(workspace(), req)
-    if as_json:
-        print_json(a.model_dump(mode="json"))
-    else:
-        print_trends(a, wide=wide)
-    say = err if as_json else out
-    if plot is not None and fmt is not None:
-        plot.write_bytes(render_trends(a, fmt))
-        say.print(f"figure written to {plot}", highlight=False)
-    if csv_path is not None:
-        write_csv(csv_path, *trends_table(a))
-        say.print(f"table written to {csv_path}", highlight=False)
+    emit(
+        a,
+        as_json=as_json,
+        show=lambda: print_trends(a, wide=wide),
+        plot=plot,
+        fmt=fmt,
+        figure=lambda f: render_trends(a, f),
+        csv_path=csv_path,
+        table=lambda: trends_table(a),
+    )
 
 
 def print_topics(a: TopicsAnswer, *, wide: bool = False) -> None:
@@ -206,19 +237,18 @@ def topics_cmd(
     fmt = _plot_format(plot)
     ws = workspace()
     a = topics(ws, metric=metric, account=account, since=parse_since(since))
-    if as_json:
-        print_json(a.model_dump(mode="json"))
-    else:
-        print_topics(a, wide=wide)
-    say = err if as_json else out
-    if plot is not None and fmt is not None:
-        plot.write_bytes(
-            render_map(topic_map(ws, metric=metric, account=account, since=parse_since(since)), fmt)
-        )
-        say.print(f"figure written to {plot}", highlight=False)
-    if csv_path is not None:
-        write_csv(csv_path, *topics_table(a))
-        say.print(f"table written to {csv_path}", highlight=False)
+    emit(
+        a,
+        as_json=as_json,
+        show=lambda: print_topics(a, wide=wide),
+        plot=plot,
+        fmt=fmt,
+        figure=lambda f: render_map(
+            topic_map(ws, metric=metric, account=account, since=parse_since(since)), f
+        ),
+        csv_path=csv_path,
+        table=lambda: topics_table(a),
+    )
 
 
 @app.command("map")
@@ -233,9 +263,8 @@ def map_cmd(
     """Where the posts lie in meaning: a 2-D projection coloured by the metric."""
     fmt = _plot_format(plot)
     m = topic_map(workspace(), metric=metric, account=account, since=parse_since(since))
-    if as_json:
-        print_json(m.model_dump(mode="json"))
-    else:
+
+    def show() -> None:
         out.print(f"{len(m.points):,} posts; {m.projection}", highlight=False)
         out.print(
             f"the two axes hold {100 * sum(m.explained):.0f}% of the vectors' variance", highlight=False
@@ -245,14 +274,21 @@ def map_cmd(
         out.print(Text(m.note, style="dim"))
         if plot is None:
             out.print("add --plot map.png (or .svg) for the picture", highlight=False)
-    say = err if as_json else out
-    if plot is not None and fmt is not None:
-        plot.write_bytes(render_map(m, fmt))
-        say.print(f"figure written to {plot}", highlight=False)
-    if csv_path is not None:
+
+    def table() -> Table:
         rows = [[p.post_id, p.topic, f"{p.x:.3f}", f"{p.y:.3f}", f"{p.value:.0f}"] for p in m.points]
-        write_csv(csv_path, ["post id", "topic", "x", "y", metric], rows)
-        say.print(f"table written to {csv_path}", highlight=False)
+        return ["post id", "topic", "x", "y", metric], rows
+
+    emit(
+        m,
+        as_json=as_json,
+        show=show,
+        plot=plot,
+        fmt=fmt,
+        figure=lambda f: render_map(m, f),
+        csv_path=csv_path,
+        table=table,
+    )
 
 
 def print_surprises(a: SurprisesAnswer) -> None:
@@ -311,14 +347,13 @@ def surprises_cmd(
     """Settled posts that did far better or worse than their out-of-sample forecast."""
     fmt = _plot_format(plot)
     a = surprises(workspace(), metric=metric, top=top)
-    if as_json:
-        print_json(a.model_dump(mode="json"))
-    else:
-        print_surprises(a)
-    say = err if as_json else out
-    if plot is not None and fmt is not None:
-        plot.write_bytes(render_surprises(a, fmt))
-        say.print(f"figure written to {plot}", highlight=False)
-    if csv_path is not None:
-        write_csv(csv_path, *surprises_table(a))
-        say.print(f"table written to {csv_path}", highlight=False)
+    emit(
+        a,
+        as_json=as_json,
+        show=lambda: print_surprises(a),
+        plot=plot,
+        fmt=fmt,
+        figure=lambda f: render_surprises(a, f),
+        csv_path=csv_path,
+        table=lambda: surprises_table(a),
+    )

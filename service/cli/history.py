@@ -26,6 +26,7 @@ from service.cli.mappings import (
     ACCOUNT,
     DAY_FIRST,
     DECIMAL_COMMA,
+    LABEL,
     MAP,
     MONTH_FIRST,
     TIME_FORMAT,
@@ -150,6 +151,7 @@ def import_cmd(
     day_first: bool = DAY_FIRST,
     month_first: bool = MONTH_FIRST,
     decimal_comma: bool = DECIMAL_COMMA,
+    label: list[str] = LABEL,
     saved: str | None = typer.Option(
         None,
         "--mapping",
@@ -199,6 +201,7 @@ def import_cmd(
         day_first=day_first,
         month_first=month_first,
         decimal_comma=decimal_comma,
+        labels=label,
     )
     options = combine(load_mapping(ws.settings.resolved_home, saved) if saved else None, given)
     options = dataclasses.replace(

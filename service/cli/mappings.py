@@ -36,6 +36,13 @@ MONTH_FIRST = typer.Option(
 DECIMAL_COMMA = typer.Option(
     False, "--decimal-comma", help="Numbers use a decimal comma (1.234 is a thousand and more)."
 )
+LABEL = typer.Option(
+    [],
+    "--label",
+    metavar="COLUMN",
+    help="Keep this extra column of the file (a campaign, a series) as each post's label, "
+    "for segments --by label:COLUMN (repeatable).",
+)
 
 mapping_app = typer.Typer(
     help="Saved import mappings: how the team's exports are read.", no_args_is_help=True
@@ -52,6 +59,7 @@ def given_options(
     day_first: bool,
     month_first: bool,
     decimal_comma: bool,
+    labels: list[str] | None = None,
 ) -> ImportOptions:
     """The options given on the command line, checked."""
     if day_first and month_first:
@@ -64,6 +72,7 @@ def given_options(
         time_format=time_format,
         date_order=order,
         decimal_comma=decimal_comma,
+        labels=tuple(labels or ()),
     ).check()
 
 
@@ -77,6 +86,7 @@ def save_cmd(
     day_first: bool = DAY_FIRST,
     month_first: bool = MONTH_FIRST,
     decimal_comma: bool = DECIMAL_COMMA,
+    label: list[str] = LABEL,
     replace: bool = typer.Option(False, "--replace", help="Overwrite a mapping of that name."),
 ) -> None:
     """Save how one kind of export is read, for `sounding import FILE --mapping NAME`."""
@@ -88,6 +98,7 @@ def save_cmd(
         day_first=day_first,
         month_first=month_first,
         decimal_comma=decimal_comma,
+        labels=label,
     )
     path = save_mapping(Settings().resolved_home, name, options, replace=replace)
     out.print(f"saved mapping {name} ({path})", highlight=False)
@@ -130,6 +141,7 @@ def show_cmd(
                 "time_format": options.time_format,
                 "date_order": options.date_order,
                 "decimal_comma": options.decimal_comma,
+                "labels": list(options.labels),
             }
         )
         return

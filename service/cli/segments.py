@@ -153,7 +153,8 @@ def _plot_paths(plot: Path, result: SegmentResult) -> list[tuple[Path, str]]:
     """The first split goes to ``plot``; a second one to ``<stem>-<by><suffix>``."""
     first, *rest = result.splits
     paths = [(plot, first.by)]
-    paths += [(plot.with_name(f"{plot.stem}-{s.by}{plot.suffix}"), s.by) for s in rest]
+    # label:campaign names a file label-campaign: a colon is no file name on every system.
+    paths += [(plot.with_name(f"{plot.stem}-{s.by.replace(':', '-')}{plot.suffix}"), s.by) for s in rest]
     return paths
 
 
@@ -168,7 +169,8 @@ def segments_cmd(
     by: str | None = typer.Option(
         None,
         "--by",
-        help=f"Split by {', '.join(BY_CHOICES)}; or month, week for a trend over time.",
+        help=f"Split by {', '.join(BY_CHOICES)}; by label:NAME for a label kept at import "
+        "(import --label NAME); or month, week for a trend over time.",
     ),
     metric: str = typer.Option(
         DEFAULT_METRIC.value,

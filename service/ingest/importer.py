@@ -48,6 +48,7 @@ from service.ingest.accounts import accounts_to_create, handles_in
 from service.ingest.answers import ImportSummary, RowProblem
 from service.ingest.csvread import Abandoned, BadRecord, Record, RecordReader
 from service.ingest.encodings import check_text, codec_of
+from service.ingest.header import LabelTooLong, label_positions, listed_columns, read_labels
 from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLUMNS, ImportOptions
 from service.ingest.timestamps import TimeReader, check_date_order
@@ -111,6 +112,7 @@ class RowReader:
         self.header = [h.strip() for h in first.fields]
         self.positions = self._resolve(self.header, options.mapping)
         self.metric_positions = [(m, self.positions[m]) for m in METRIC_COLUMNS if m in self.positions]
+        self.label_positions = label_positions(self.header, options.labels, where=where)
 
     def _resolve(self, header: list[str], mapping: dict[str, str]) -> dict[str, int]:
         # One pass with a Counter and a dict: a list.count per column made
@@ -124,10 +126,10 @@ class RowReader:
         pos: dict[str, int] = {}
         for ours, theirs in mapping.items():
             if theirs not in where_is:
-                listed = ", ".join(header[:50]) + (" ..." if len(header) > 50 else "")
+                listed = listed_columns(header)
                 raise CSVFormatError(
                     f"the mapping {ours}={theirs} names column {theirs!r}, which is not in "
-                    f"the file (its columns: {listed or 'none'})",
+                    f"the file (its columns: {listed})",
                     where=self.where,
                     field="map",
                 )
@@ -138,10 +140,10 @@ class RowReader:
         needed = list(REQUIRED_COLUMNS) + ([] if self.account else ["account"])
         missing = [c for c in needed if c not in pos]
         if missing:
-            listed = ", ".join(header[:50]) + (" ..." if len(header) > 50 else "")
+            listed = listed_columns(header)
             raise CSVFormatError(
                 f"missing required column{'s' if len(missing) > 1 else ''} "
-                f"{', '.join(missing)} (found: {listed or 'none'})",
+                f"{', '.join(missing)} (found: {listed})",
                 where=self.where,
                 hint="rename with --map ours=theirs"
                 + (", or give --account" if "account" in missing else ""),
@@ -165,7 +167,8 @@ class RowReader:
         return self.timezone or self.account_zones.get(account, "UTC")
 
     def __iter__(self) -> Iterator[PostRow | RowProblem]:
-        width = len(self.positions) and max(self.positions.values()) + 1
+        used = [*self.positions.values(), *self.label_positions.values()]
+        width = max(used) + 1 if used else 0
         id_at = self.positions["post_id"]
         for item in self._items:
             if isinstance(item, Abandoned):
@@ -248,6 +251,10 @@ class RowReader:
                 has_media = False if v else None
             else:
                 raise _Reject("has_media", f"{media_raw!r} is not true or false")
+        try:
+            labels = read_labels(fields, self.label_positions)
+        except LabelTooLong as exc:
+            raise _Reject(exc.column, exc.reason) from None
         first = self.seen.setdefault((account, post_id), line)
         if first != line:
             raise _Reject("post_id", f"{post_id!r} of {account} already appears on line {first}")
@@ -261,6 +268,7 @@ class RowReader:
             vector_key=self.embedder.key(text),
             line=line,
             approximate=frozenset(m for m, r in readings.items() if r is not None and r.approximate),
+            labels=labels,
         )
 
     def _rate(self, fields: list[str], readings: dict[str, Reading | None]) -> None:

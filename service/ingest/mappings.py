@@ -8,6 +8,7 @@ mappings: each one is written by the team for its own exports. The file
 looks like::
 
     account = "loomhaven"
+    labels = ["Campaign"]
 
     [columns]
     text = "Post body"
@@ -37,7 +38,7 @@ from models.errors import InputError, NotFound
 from service.ingest.options import ImportOptions
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
-_KEYS = {"account", "columns", "times", "numbers"}
+_KEYS = {"account", "columns", "times", "numbers", "labels"}
 _TIME_KEYS = {"format", "date_order", "timezone"}
 _NUMBER_KEYS = {"decimal_comma"}
 
@@ -61,6 +62,8 @@ def to_toml(options: ImportOptions) -> str:
     data: dict[str, Any] = {}
     if options.account:
         data["account"] = options.account
+    if options.labels:
+        data["labels"] = list(options.labels)
     data["columns"] = dict(options.mapping)
     times = {
         k: v
@@ -101,6 +104,9 @@ def from_toml(text: str, *, where: str) -> ImportOptions:
         numbers.get("decimal_comma", False), bool
     ):
         raise InputError("mapping values must be strings (decimal_comma true or false)", where=where)
+    labels = data.get("labels", [])
+    if not isinstance(labels, list) or not all(isinstance(v, str) for v in labels):
+        raise InputError('labels must be a list of column names, e.g. labels = ["Campaign"]', where=where)
     return ImportOptions(
         mapping=dict(columns),
         account=data.get("account"),
@@ -108,6 +114,7 @@ def from_toml(text: str, *, where: str) -> ImportOptions:
         time_format=times.get("format"),
         date_order=times.get("date_order"),
         decimal_comma=numbers.get("decimal_comma", False),
+        labels=tuple(labels),
     ).check()
 
 
@@ -179,6 +186,7 @@ def combine(saved: ImportOptions | None, given: ImportOptions) -> ImportOptions:
         time_format=given.time_format if layout_given else saved.time_format,
         date_order=given.date_order if layout_given else saved.date_order,
         decimal_comma=given.decimal_comma or saved.decimal_comma,
+        labels=tuple(dict.fromkeys((*saved.labels, *given.labels))),
     ).check()
 
 
@@ -197,4 +205,6 @@ def command_line(options: ImportOptions) -> list[str]:
         args.append(f"--{options.date_order}")
     if options.decimal_comma:
         args.append("--decimal-comma")
+    for name in options.labels:
+        args += ["--label", name]
     return args

@@ -12,6 +12,7 @@ from service.clock import zone
 from service.ingest.encodings import codec_of
 from service.ingest.timestamps import DateOrder, TimeLayout
 from service.storage.handles import check_handle
+from service.storage.tables import LABEL_CHARS
 
 RATE_COLUMN = Metric.ENGAGEMENT_RATE.value
 CANONICAL_COLUMNS: tuple[str, ...] = (
@@ -44,6 +45,9 @@ class ImportOptions:
     new_accounts: str | None = None
     #: The file's codec (None: UTF-8, with or without a byte-order mark).
     encoding: str | None = None
+    #: The file's extra columns kept as the team's own labels of each post
+    #: (service.storage.labels); none: no label is stored or changed.
+    labels: tuple[str, ...] = ()
 
     def layout(self) -> TimeLayout:
         return TimeLayout(pattern=self.time_format, date_order=self.date_order)
@@ -61,6 +65,9 @@ class ImportOptions:
             folded = check_handle(self.account, where="account")
             if folded != self.account:
                 return replace(self, account=folded).check()
+        names = check_labels(self.labels)
+        if names != self.labels:
+            return replace(self, labels=names).check()
         self.layout()
         bad = [k for k in self.mapping if k not in CANONICAL_COLUMNS]
         if bad:
@@ -70,6 +77,27 @@ class ImportOptions:
                 value=bad[0],
             )
         return self
+
+
+def check_labels(names: Sequence[str]) -> tuple[str, ...]:
+    """Label columns as given (``--label campaign``): trimmed, each once, none blank."""
+    if isinstance(names, str):
+        names = [names]
+    out: list[str] = []
+    for raw in names:
+        name = raw.strip() if isinstance(raw, str) else ""
+        if not name:
+            raise InputError("a label column's name is empty", field="label", hint="e.g. --label campaign")
+        if len(name) > LABEL_CHARS:
+            raise InputError(
+                f"a label column's name has {len(name)} characters; at most {LABEL_CHARS}",
+                field="label",
+                value=name[:40],
+            )
+        if name in out:
+            raise InputError(f"label column {name!r} is named twice", field="label", value=name)
+        out.append(name)
+    return tuple(out)
 
 
 def parse_mapping(pairs: Sequence[str] | None) -> dict[str, str]:

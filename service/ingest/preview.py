@@ -34,7 +34,7 @@ def preview_csv(
         _,
     ):
         columns = _column_uses(reader)
-        used = set(reader.positions.values())
+        used = {*reader.positions.values(), *reader.label_positions.values()}
         unused = [h for i, h in enumerate(reader.header) if i not in used]
         s = ImportSummary()
         shown: list[PreviewRow] = []
@@ -100,4 +100,8 @@ def _column_uses(rows: RowReader) -> list[ColumnUse]:
             out.append(ColumnUse(ours=col, theirs=None, reads=f"every row: {o.account} (--account)"))
         else:
             out.append(ColumnUse(ours=col, theirs=None, reads="not in the file"))
+    out += [
+        ColumnUse(ours=f"label {name}", theirs=name, reads="kept as a label (an empty cell: none)")
+        for name in rows.label_positions
+    ]
     return out

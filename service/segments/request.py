@@ -7,9 +7,9 @@ from __future__ import annotations
 import typing
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal
+from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict
+from pydantic import BaseModel, ConfigDict, StringConstraints
 
 from models.embedding import normalise_text
 from models.errors import InputError
@@ -38,6 +38,12 @@ BY_CHOICES: tuple[str, ...] = typing.get_args(By)
 Mode = Literal["nearest", "top-k"]
 MODES: tuple[str, ...] = typing.get_args(Mode)
 TOPIC = "topic"
+#: ``by`` written ``label:NAME`` splits on the team's own label NAME (kept at
+#: import with ``--label NAME``); posts without it form the NO_LABEL segment.
+LABEL_BY = "label:"
+NO_LABEL = "no label"
+#: ``label:NAME`` as a request's schema declares it.
+LabelBy = Annotated[str, StringConstraints(pattern=r"^label:\s*\S", max_length=len(LABEL_BY) + 200)]
 
 #: Cosine similarity a post needs with its nearest phrase to join that topic.
 #: all-MiniLM-L6-v2 gives a short phrase and a matching post about 0.3-0.6;
@@ -184,12 +190,27 @@ def check_length_edges(edges: Sequence[int]) -> tuple[int, ...]:
     return tuple(int(e) for e in edges)
 
 
+def label_of(by: str | None) -> str | None:
+    """The label name a ``by`` of ``label:NAME`` asks for; None for the other splits."""
+    if by is None or not by.startswith(LABEL_BY):
+        return None
+    name = by.removeprefix(LABEL_BY).strip()
+    if not name:
+        raise InputError(
+            f"{by!r} names no label; write {LABEL_BY}NAME, e.g. {LABEL_BY}campaign", field="by", value=by
+        )
+    return name
+
+
 def check_request(req: SegmentRequest) -> list[Topic]:
     """Every input check, before the store is read."""
     topics = parse_topics(req.topics)
-    if req.by is not None and req.by not in BY_CHOICES:
+    if req.by is not None and req.by not in BY_CHOICES and label_of(req.by) is None:
         raise InputError(
-            f"cannot split by {req.by!r}; choose one of {', '.join(BY_CHOICES)}", field="by", value=req.by
+            f"cannot split by {req.by!r}; choose one of {', '.join(BY_CHOICES)}, or {LABEL_BY}NAME "
+            "for a label kept at import",
+            field="by",
+            value=req.by,
         )
     if not topics and req.by is None:
         raise InputError(

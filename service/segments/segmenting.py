@@ -48,6 +48,7 @@ from service.clock import now_utc
 from service.datadir import DataDir
 from service.history.view import local_clock
 from service.segments.answer import Example, LeftOut, SegmentResult, Split
+from service.segments.labels import by_label
 from service.segments.request import (
     LINK_NAMES,
     MEDIA_NAMES,
@@ -59,6 +60,7 @@ from service.segments.request import (
     check_hour_edges,
     check_length_edges,
     check_request,
+    label_of,
 )
 
 # --------------------------------------------------------------------------
@@ -105,9 +107,12 @@ def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dic
     return _Posts(kept, values[keep]), left_out
 
 
-def _by_labels(posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray, list[str], str]:
-    """Per-post labels, their display order and a title for ``by``."""
+def _by_labels(ws: DataDir, posts: _Posts, by: str, req: SegmentRequest) -> tuple[np.ndarray, list[str], str]:
+    """Per-post segment names, their display order and a title for ``by``."""
     f = posts.frame
+    name = label_of(by)
+    if name is not None:
+        return by_label(ws.store, f, name)
     if by in ("hour", "weekday"):
         hours, days = local_clock(f["posted_at"], f["timezone"])
         if by == "hour":
@@ -153,8 +158,10 @@ def _stats_kwargs(req: SegmentRequest) -> dict[str, Any]:
     }
 
 
-def _by_split(posts: _Posts, by: str, req: SegmentRequest) -> tuple[Split, np.ndarray, list[str]]:
-    labels, order, title = _by_labels(posts, by, req)
+def _by_split(
+    ws: DataDir, posts: _Posts, by: str, req: SegmentRequest
+) -> tuple[Split, np.ndarray, list[str]]:
+    labels, order, title = _by_labels(ws, posts, by, req)
     present = [name for name in order if np.any(labels == name)]
     if len(present) < 2:
         only = present[0] if present else "none"
@@ -345,7 +352,7 @@ def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) ->
     by_labels: np.ndarray | None = None
     by_order: list[str] = []
     if req.by is not None:
-        by_split, by_labels, by_order = _by_split(posts, req.by, req)
+        by_split, by_labels, by_order = _by_split(ws, posts, req.by, req)
         splits.append(by_split)
     for s in splits:
         warnings.extend(_small_warnings(s, req.min_n))

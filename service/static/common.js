@@ -126,6 +126,40 @@ window.Sounding = (() => {
     return s;
   }
 
+  // A table with its column headers; rows go in the returned body.
+  function table(cls, headers) {
+    const t = node("table", { class: cls });
+    const head = node("tr");
+    for (const h of headers) head.append(node("th", { scope: "col" }, h));
+    const thead = node("thead");
+    thead.append(head);
+    const body = node("tbody");
+    t.append(thead, body);
+    return { table: t, body };
+  }
+
+  // An interval as the tables write it ("–" when there is none).
+  function range(low, high, metric) {
+    return low === null || low === undefined ? "–" : `${fmt(low, metric)} – ${fmt(high, metric)}`;
+  }
+
+  // A p-value as the statistics lines write it.
+  function pText(p) {
+    if (p === null || p === undefined) return "–";
+    return p < 0.001 ? "< 0.001" : p.toFixed(3);
+  }
+
+  // A figure (an SVG or PNG blob) into its <img>, freeing the one it replaces.
+  const shownPlots = new WeakMap();
+  function showPlot(img, blob, alt) {
+    if (shownPlots.has(img)) URL.revokeObjectURL(shownPlots.get(img));
+    const url = URL.createObjectURL(blob);
+    shownPlots.set(img, url);
+    img.src = url;
+    img.alt = alt;
+    img.hidden = false;
+  }
+
   // Tabs: arrow keys, Home and End move between them (the WAI-ARIA tabs pattern),
   // and the address's #fragment opens a panel directly.
   function setupTabs() {
@@ -164,6 +198,6 @@ window.Sounding = (() => {
 
   return {
     $, fmt, metricLabel, node, svg, ApiError, api, apiBlob, showError, clearError, niceTicks,
-    loadAccounts, fillAccounts, tomorrowNoon, plannedValue, intervalStrip,
+    loadAccounts, fillAccounts, tomorrowNoon, plannedValue, intervalStrip, table, range, pText, showPlot,
   };
 })();

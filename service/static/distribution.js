@@ -6,7 +6,6 @@
   const S = window.Sounding;
   const $ = S.$;
   let busy = false;
-  let plotUrl = null;
 
   function query(format) {
     const q = new URLSearchParams({ metric: $("d-metric").value, format });
@@ -18,7 +17,7 @@
   function fill(r) {
     const m = r.metric;
     const s = r.summary;
-    const cells = [S.fmt(s.median, m), `${S.fmt(s.q1, m)} – ${S.fmt(s.q3, m)}`, S.fmt(s.p90, m),
+    const cells = [S.fmt(s.median, m), S.range(s.q1, s.q3, m), S.fmt(s.p90, m),
       S.fmt(s.p99, m), `the top ${Math.round(100 * s.half_share)}% of posts`];
     $("d-summary-row").replaceChildren(...cells.map((c) => S.node("td", { class: "num" }, c)));
     $("d-reading").textContent = r.reading;
@@ -26,7 +25,7 @@
       const tr = S.node("tr");
       tr.append(S.node("th", { scope: "row" }, `${c.first} vs ${c.second}`));
       tr.append(S.node("td", {}, c.favoured || "cannot tell apart"));
-      tr.append(S.node("td", { class: "num" }, c.p_value < 0.001 ? "< 0.001" : c.p_value.toFixed(3)));
+      tr.append(S.node("td", { class: "num" }, S.pText(c.p_value)));
       return tr;
     });
     $("d-fits-body").replaceChildren(...rows);
@@ -50,12 +49,8 @@
       $("d-output").hidden = false;
       const resp = await fetch(query("svg"));
       if (resp.ok) {
-        if (plotUrl) URL.revokeObjectURL(plotUrl);
-        plotUrl = URL.createObjectURL(await resp.blob());
-        const img = $("d-plot");
-        img.src = plotUrl;
-        img.alt = `Histogram of ${S.metricLabel(r.metric)} on a log axis, median and percentiles marked`;
-        img.hidden = false;
+        S.showPlot($("d-plot"), await resp.blob(),
+          `Histogram of ${S.metricLabel(r.metric)} on a log axis, median and percentiles marked`);
       }
     } catch (e) {
       $("d-output").hidden = true;

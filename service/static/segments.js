@@ -6,33 +6,19 @@
   const S = window.Sounding;
   const $ = S.$;
   let busy = false;
-  let plotUrl = null;
-
-  function pText(p) {
-    if (p === null || p === undefined) return "–";
-    return p < 0.001 ? "< 0.001" : p.toFixed(3);
-  }
 
   function renderSplit(split, metric) {
     const box = S.node("section", { class: "card seg-split" });
     box.append(S.node("h3", {}, split.title));
-    const table = S.node("table", { class: "contrib seg-table" });
-    const head = S.node("tr");
-    for (const h of ["Segment", "Posts", "Median", "Middle half of posts", "Median, 95% sure", "Reading"]) {
-      head.append(S.node("th", { scope: "col" }, h));
-    }
-    const thead = S.node("thead");
-    thead.append(head);
-    const body = S.node("tbody");
-    table.append(thead, body);
+    const { table, body } = S.table("contrib seg-table",
+      ["Segment", "Posts", "Median", "Middle half of posts", "Median, 95% sure", "Reading"]);
     for (const s of split.segments) {
       const tr = S.node("tr", s.too_small ? { class: "seg-small" } : {});
       tr.append(S.node("th", { scope: "row" }, s.name));
       tr.append(S.node("td", { class: "num" }, String(s.n)));
       tr.append(S.node("td", { class: "num" }, S.fmt(s.median, metric)));
-      tr.append(S.node("td", { class: "num" }, `${S.fmt(s.q1, metric)} – ${S.fmt(s.q3, metric)}`));
-      tr.append(S.node("td", { class: "num" }, s.ci_low === null ? "–"
-        : `${S.fmt(s.ci_low, metric)} – ${S.fmt(s.ci_high, metric)}`));
+      tr.append(S.node("td", { class: "num" }, S.range(s.q1, s.q3, metric)));
+      tr.append(S.node("td", { class: "num" }, S.range(s.ci_low, s.ci_high, metric)));
       tr.append(S.node("td", {}, s.summary));
       body.append(tr);
     }
@@ -46,9 +32,9 @@
     const stats = S.node("details", { class: "stats" });
     stats.append(S.node("summary", {}, "The statistics behind this"));
     const lines = split.segments.filter((s) => s.p_holm !== null).map((s) =>
-      `${s.name}: rank-biserial r ${(s.rank_biserial > 0 ? "+" : "") + s.rank_biserial.toFixed(2)}, Holm-adjusted Mann–Whitney p ${pText(s.p_holm)}`);
+      `${s.name}: rank-biserial r ${(s.rank_biserial > 0 ? "+" : "") + s.rank_biserial.toFixed(2)}, Holm-adjusted Mann–Whitney p ${S.pText(s.p_holm)}`);
     if (split.kruskal_h !== null) {
-      lines.push(`Kruskal–Wallis H = ${split.kruskal_h.toFixed(1)}, p ${pText(split.kruskal_p)}`);
+      lines.push(`Kruskal–Wallis H = ${split.kruskal_h.toFixed(1)}, p ${S.pText(split.kruskal_p)}`);
     }
     for (const l of lines) stats.append(S.node("p", {}, l));
     // statistics: end
@@ -58,12 +44,8 @@
 
   async function drawPlot(body, splitName) {
     const blob = await S.apiBlob("/v1/segments", { ...body, format: "svg", plot: splitName });
-    if (plotUrl) URL.revokeObjectURL(plotUrl);
-    plotUrl = URL.createObjectURL(blob);
-    const img = $("s-plot");
-    img.src = plotUrl;
-    img.alt = `Distribution of ${S.metricLabel(body.metric)} in each segment, with medians and their intervals`;
-    img.hidden = false;
+    S.showPlot($("s-plot"), blob,
+      `Distribution of ${S.metricLabel(body.metric)} in each segment, with medians and their intervals`);
   }
 
   async function run(ev) {
@@ -101,9 +83,18 @@
     }
   }
 
+  // The team's own labels kept at import (import --label) join the split choices.
+  async function addLabelChoices(select) {
+    const r = await S.api("/v1/labels");
+    for (const l of r.labels) {
+      select.append(S.node("option", { value: `label:${l.name}` }, `label: ${l.name} (${l.posts} posts)`));
+    }
+  }
+
   document.addEventListener("DOMContentLoaded", () => {
     $("s-form").addEventListener("submit", run);
     S.fillAccounts($("s-account"), { anyLabel: "every account" })
       .catch((e) => S.showError($("s-error"), e.message));
+    addLabelChoices($("s-by")).catch((e) => S.showError($("s-error"), e.message));
   });
 })();

@@ -6,32 +6,23 @@
   const S = window.Sounding;
   const $ = S.$;
   let busy = false;
-  let plotUrl = null;
 
   function renderSeries(s, r) {
     const box = S.node("section", { class: "card t-series" });
     box.append(S.node("h3", {}, s.name));
     box.append(S.node("p", { class: "summary t-reading" },
       s.trend ? `Last ${r.last} ${r.by}s: ${s.trend.reading}.` : "Too few periods for a trend."));
-    const table = S.node("table", { class: "contrib t-table" });
-    const head = S.node("tr");
-    for (const h of [r.by === "month" ? "Month" : "Week", "Posts", "Share", "Median", "95% interval"]) {
-      head.append(S.node("th", { scope: "col" }, h));
-    }
-    const thead = S.node("thead");
-    thead.append(head);
-    const body = S.node("tbody");
+    const { table, body } = S.table("contrib t-table",
+      [r.by === "month" ? "Month" : "Week", "Posts", "Share", "Median", "95% interval"]);
     for (const row of s.rows) {
       const tr = S.node("tr", row.few_posts ? { class: "seg-small" } : {});
       tr.append(S.node("th", { scope: "row" }, row.period + (row.few_posts && row.n ? " (few posts)" : "")));
       tr.append(S.node("td", { class: "num" }, String(row.n)));
       tr.append(S.node("td", { class: "num" }, `${Math.round(100 * row.share)}%`));
       tr.append(S.node("td", { class: "num" }, S.fmt(row.median, r.metric)));
-      tr.append(S.node("td", { class: "num" }, row.ci_low === null ? "–"
-        : `${S.fmt(row.ci_low, r.metric)} – ${S.fmt(row.ci_high, r.metric)}`));
+      tr.append(S.node("td", { class: "num" }, S.range(row.ci_low, row.ci_high, r.metric)));
       body.append(tr);
     }
-    table.append(thead, body);
     box.append(table);
     return box;
   }
@@ -53,12 +44,8 @@
       $("t-notes").replaceChildren(...r.warnings.concat([r.note]).map((n) => S.node("li", {}, n)));
       $("t-output").hidden = false;
       const blob = await S.apiBlob("/v1/trends", { ...body, format: "svg" });
-      if (plotUrl) URL.revokeObjectURL(plotUrl);
-      plotUrl = URL.createObjectURL(blob);
-      const img = $("t-plot");
-      img.src = plotUrl;
-      img.alt = `Median ${S.metricLabel(r.metric)} per ${r.by} with its interval, one line per series`;
-      img.hidden = false;
+      S.showPlot($("t-plot"), blob,
+        `Median ${S.metricLabel(r.metric)} per ${r.by} with its interval, one line per series`);
     } catch (e) {
       $("t-output").hidden = true;
       S.showError(err, e.message);

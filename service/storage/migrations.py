@@ -44,7 +44,7 @@ from service.clock import now_utc, to_naive_utc
 from service.storage import keywords
 from service.storage.tables import HISTORY_STAMP, SCORING_STAMP, Base, ChangeStamp, SchemaVersion
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 # The tables of version 0, the layout before versions: a database holding
 # all of them and no schema_version table is such a store.
@@ -79,8 +79,13 @@ def _v1_to_v2(conn: Connection) -> None:
     keywords.rebuild(conn)
 
 
+def _v2_to_v3(conn: Connection) -> None:
+    """Version 3 adds the team's own labels of posts (post_labels, kept with --label)."""
+    Base.metadata.create_all(conn, tables=[Base.metadata.tables["post_labels"]])
+
+
 # STEPS[v] takes a store from version v - 1 to version v.
-STEPS: dict[int, Callable[[Connection], None]] = {1: _v0_to_v1, 2: _v1_to_v2}
+STEPS: dict[int, Callable[[Connection], None]] = {1: _v0_to_v1, 2: _v1_to_v2, 3: _v2_to_v3}
 
 
 def stored_version(conn: Connection) -> int | None:

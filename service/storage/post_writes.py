@@ -13,8 +13,9 @@ from sqlalchemy.orm import Session
 from models import features as F
 from models.metrics import METRIC_COLUMNS
 from service.clock import now_utc, to_naive_utc
-from service.storage import keywords
+from service.storage import keywords, labels
 from service.storage.engine import StoreBase
+from service.storage.labels import Asked
 from service.storage.tables import (
     Account,
     ApproximateValue,
@@ -37,6 +38,9 @@ class PostRow:
     vector_key: str
     line: int = 0
     approximate: frozenset[str] = frozenset()  # metrics known only roughly (1.2K)
+    #: The labels asked for (service.storage.labels), None for an empty cell;
+    #: None when the import asked for no labels, so stored ones stay as they are.
+    labels: Asked | None = None
 
 
 @dataclass(slots=True)
@@ -104,6 +108,9 @@ class PostWrites(StoreBase):
                 for snap in s.scalars(select(Snapshot).where(Snapshot.id.in_(newest))):
                     latest[by_pk[snap.post_pk]] = snap
             new_posts: list[Post] = []
+            names = {n for r in rows if r.labels is not None for n in r.labels}
+            labels_before = labels.held(s, pks, names)
+            relabelled: list[tuple[Post, Asked]] = []
             flags_of = self._rough_lookup(s, latest.values())
             rough: dict[int, tuple[Snapshot, frozenset[str]]] = {}
 
@@ -135,6 +142,8 @@ class PostWrites(StoreBase):
                     rough[id(snap)] = (snap, r.approximate)
                     stored[key], latest[key] = post, snap
                     new_posts.append(post)
+                    if r.labels is not None:
+                        relabelled.append((post, r.labels))
                     res.added += 1
                     continue
                 changed = False
@@ -163,6 +172,9 @@ class PostWrites(StoreBase):
                     s.add(latest[key])
                     rough[id(latest[key])] = (latest[key], flags)
                     changed = True
+                if r.labels is not None and labels_before.get(post.id, {}) != labels.given(r.labels):
+                    relabelled.append((post, r.labels))
+                    changed = True
                 if changed:
                     post.updated_at = now
                     res.updated += 1
@@ -174,6 +186,7 @@ class PostWrites(StoreBase):
                 for snap, flags in rough.values()
                 for m in sorted(flags)
             )
+            labels.replace(s, [(post.id, asked) for post, asked in relabelled])
             res.changed_pks.extend(post.id for post in new_posts)
             reworded = set(res.changed_pks)
             keywords.add(s.connection(), [(p.id, p.text) for p in stored.values() if p.id in reworded])

@@ -19,8 +19,9 @@ from sqlalchemy.engine import make_url
 
 from models.errors import InputError, NotFound, StoreError
 from service.clock import now_utc
-from service.storage import keywords
+from service.storage import keywords, labels
 from service.storage.handles import unknown_account
+from service.storage.labels import PostLabels
 from service.storage.post_reads import PostReads
 from service.storage.post_writes import PostWrites
 from service.storage.tables import (
@@ -32,7 +33,7 @@ from service.storage.tables import (
 from service.storage.track_tables import TrackTables
 
 
-class Store(PostWrites, PostReads):
+class Store(PostWrites, PostReads, PostLabels):
     """Access to one store, addressed by a SQLAlchemy URL (SQLite or
     PostgreSQL).
 
@@ -114,6 +115,7 @@ class Store(PostWrites, PostReads):
             for i in range(0, len(pks), 900):
                 chunk = pks[i : i + 900]
                 s.execute(delete(Snapshot).where(Snapshot.post_pk.in_(chunk)))
+                labels.remove(s, chunk)
                 keywords.remove(s.connection(), chunk)
                 s.execute(delete(Post).where(Post.id.in_(chunk)))
             still_used = set(s.scalars(select(Post.vector_key).where(Post.vector_key.in_(list(keys)))))

@@ -29,6 +29,10 @@ class Base(DeclarativeBase):
     pass
 
 
+#: The longest label name or value (a column header, a campaign's name).
+LABEL_CHARS = 200
+
+
 class Account(Base):
     __tablename__ = "accounts"
 
@@ -103,6 +107,18 @@ class ApproximateValue(Base):
 
     snapshot_id: Mapped[int] = mapped_column(ForeignKey("snapshots.id", ondelete="CASCADE"), primary_key=True)
     metric: Mapped[str] = mapped_column(String(32), primary_key=True)
+
+
+class PostLabel(Base):
+    """A team's own label of a post: the value of one extra column of its
+    export (a campaign, a series), kept at import with ``--label``."""
+
+    __tablename__ = "post_labels"
+    __table_args__ = (Index("ix_post_labels_name", "name", "value"),)
+
+    post_pk: Mapped[int] = mapped_column(ForeignKey("posts.id", ondelete="CASCADE"), primary_key=True)
+    name: Mapped[str] = mapped_column(String(LABEL_CHARS), primary_key=True)
+    value: Mapped[str] = mapped_column(String(LABEL_CHARS), nullable=False)
 
 
 class Vector(Base):

@@ -9,14 +9,15 @@ same when tables.py grows.
 from __future__ import annotations
 
 import threading
-from datetime import datetime
+from datetime import UTC, datetime
 
 import numpy as np
 import pytest
-from sqlalchemy import Boolean, Column, String, create_engine, false, text
+from sqlalchemy import Boolean, Column, String, create_engine, false, inspect, text
 
 from models.errors import StoreError
-from service.storage.migrations import SCHEMA_VERSION, add_column
+from service.storage.migrations import SCHEMA_VERSION, STEPS, add_column
+from service.storage.post_writes import PostRow
 from service.storage.store import Store
 
 V0_SQLITE = [
@@ -221,3 +222,55 @@ def test_add_column_step_helper(database_url: str) -> None:
     finally:
         eng.dispose()
     assert raw(database_url, "SELECT impressions, approximate, note FROM snapshots") == [(1234, False, None)]
+
+
+def make_v2_store(url: str) -> None:
+    """A store at version 2: the unversioned layout above taken through the
+    steps of versions 1 and 2 only, before labels existed."""
+    make_v0_store(url)
+    eng = create_engine(url)
+    try:
+        with eng.begin() as c:
+            STEPS[1](c)
+            STEPS[2](c)
+            c.execute(
+                text("INSERT INTO schema_version (id, version, migrated_at) VALUES (1, 2, :t)"),
+                {"t": datetime(2026, 3, 2)},
+            )
+            c.execute(text("INSERT INTO store_stamp (id, counter) VALUES (1, 4), (2, 0)"))
+    finally:
+        eng.dispose()
+
+
+def test_a_version_2_store_gains_labels_and_keeps_its_rows(database_url: str) -> None:
+    make_v2_store(database_url)
+    eng = create_engine(database_url)
+    try:
+        assert "post_labels" not in inspect(eng).get_table_names()
+    finally:
+        eng.dispose()
+    store = Store(url=database_url)
+    try:
+        assert raw(database_url, "SELECT version FROM schema_version") == [(3,)]
+        assert raw(database_url, "SELECT COUNT(*) FROM post_labels") == [(0,)]
+        df = store.posts_frame()
+        assert list(df["post_id"]) == ["p1"] and df["impressions"].tolist() == [1234.0]
+        assert store.vectors(["k1"]).tobytes() == VEC
+        # The post takes a label on its next import, and keeps its row id.
+        row = PostRow(
+            account="loomhaven",
+            post_id="p1",
+            text="Snowdrops by the lake",
+            posted_at=datetime(2026, 3, 1, 9, 30, tzinfo=UTC),
+            metrics={"impressions": 1234},
+            has_media=True,
+            vector_key="k1",
+            labels={"campaign": "winter walks"},
+        )
+        res = store.write_batch([row], {}, model_id="m")
+        assert (res.added, res.updated) == (0, 1)
+        assert raw(database_url, "SELECT post_pk, name, value FROM post_labels") == [
+            (1, "campaign", "winter walks")
+        ]
+    finally:
+        store.close()

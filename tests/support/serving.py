@@ -1,4 +1,5 @@
-"""The real app served by uvicorn on loopback, for tests that need HTTP."""
+"""The real app served by uvicorn on loopback, for tests that need HTTP, and
+a page of headless Chromium to drive it with."""
 
 from __future__ import annotations
 
@@ -8,9 +9,13 @@ import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import uvicorn
 from fastapi import FastAPI
+
+if TYPE_CHECKING:
+    from playwright.sync_api import Page
 
 # Debian's Chromium, for the browser tests (CI installs it), and the flags it needs on a
 # machine with no network: without the background-networking ones it keeps trying to
@@ -48,3 +53,21 @@ def serve(app: FastAPI) -> Iterator[str]:
         sock.close()
         if thread.is_alive():
             raise RuntimeError("uvicorn did not stop")
+
+
+@contextmanager
+def chromium_page(app: FastAPI, *, height: int = 1000) -> Iterator[tuple[str, Page, list[str]]]:
+    """The app served (as :func:`serve`) and a fresh page of headless Chromium:
+    the base URL, the page, and the script errors the page raises (a test
+    ends by checking there were none). The browser is closed on exit."""
+    from playwright.sync_api import sync_playwright
+
+    with serve(app) as base, sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": height})
+            errors: list[str] = []
+            page.on("pageerror", lambda e: errors.append(str(e)))
+            yield base, page, errors
+        finally:
+            browser.close()

@@ -50,6 +50,7 @@ TEXT_FIELDS = (
     "mapping",
     "new_account",
     "encoding",
+    "labels",
 )
 # A form field is a handle, a zone name or one mapping: never long.
 MAX_FIELD_BYTES = 64 * 1024
@@ -111,6 +112,12 @@ UPLOAD_BODY: dict[str, Any] = {
                     "encoding": {
                         "type": "string",
                         "description": "The file's text encoding, any codec Python knows (default: UTF-8)",
+                    },
+                    "labels": {
+                        "type": "array",
+                        "items": {"type": "string"},
+                        "description": "A column of the file kept as each post's label (a campaign, "
+                        "a series), repeatable; segments split on it with by `label:COLUMN`",
                     },
                 },
             }
@@ -304,6 +311,8 @@ def upload_options(upload: Upload, home: Path) -> ImportOptions:
         time_format=upload.one("time_format"),
         date_order=typing.cast(DateOrder | None, order),  # checked just above
         decimal_comma=comma == "true",
+        # A blank field is a form's empty box: not a label asked for.
+        labels=tuple(v for v in upload.fields.get("labels", []) if v.strip()),
     )
     name = upload.one("mapping")
     return combine(load_mapping(home, name) if name else None, given)
