@@ -42,6 +42,7 @@ FEATURE_GROUPS: dict[str, str] = {
 FEATURE_NAMES: tuple[str, ...] = tuple(FEATURE_GROUPS)
 GROUPS: tuple[str, ...] = ("precedents", "timing", "account baseline", "text form")
 TIMING_FEATURES: tuple[str, ...] = ("hour_sin", "hour_cos", "weekday")
+_TIMING_AT = FEATURE_NAMES.index(TIMING_FEATURES[0])
 
 _HASHTAG = re.compile(r"(?<!\w)#\w+")
 _MENTION = re.compile(r"(?<!\w)@\w+")
@@ -202,6 +203,14 @@ def assemble(
     row.extend(timing(local_hour, weekday))
     row.extend(form)
     return np.asarray(row, dtype=np.float64), weights
+
+
+def with_timing(x: np.ndarray, *, local_hour: float, weekday: int) -> np.ndarray:
+    """A copy of the feature row ``x`` (from :func:`assemble`) with its timing
+    columns for another local hour and weekday."""
+    out = np.array(x, dtype=np.float64)
+    out[_TIMING_AT : _TIMING_AT + len(TIMING_FEATURES)] = timing(local_hour, weekday)
+    return out
 
 
 def eligible(history: History, t: float, params: FeatureParams, rows: np.ndarray | None = None) -> np.ndarray:

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import threading
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
@@ -38,6 +39,44 @@ from service.history.view import HistoryView, build_view
 from service.limits import Limits
 from service.settings import Settings
 from service.storage.store import Store
+
+#: Feature rows already made in one call: (vector bytes, account, cut-off, form) ->
+#: (row, precedents' weights, precedents to show).
+SameCache = dict[
+    tuple[bytes, int, float, tuple[float, ...]], tuple[np.ndarray, dict[int, float], list[tuple[int, float]]]
+]
+
+
+@dataclass(frozen=True, slots=True)
+class DraftBand:
+    """A draft's interval without its explanations (``Forecaster.bands``)."""
+
+    log: tuple[float, float, float]
+    low: float
+    median: float
+    high: float
+    warnings: list[str]
+    backtested_coverage: float | None
+    model_version: str
+
+
+@dataclass(frozen=True, slots=True)
+class _Run:
+    """What one forecast run made, before the answers are written."""
+
+    model: TrainedModel
+    view: HistoryView
+    now: datetime
+    rows: list[tuple[np.ndarray, dict[int, float], str, list[tuple[int, float]]]]
+    plans: list[datetime]
+    X: np.ndarray
+    bands: list[tuple[float, float, float]]
+    infos: list[Any]
+    repeats: list[Any]
+    facts: Any
+
+    def warnings(self, i: int) -> list[str]:
+        return [r.message for r in self.repeats[i]] + (self.facts.warnings if self.facts else [])
 
 
 class Forecaster:
@@ -127,6 +166,97 @@ class Forecaster:
         """Forecast each draft, whole: ``vectors`` may pass embeddings already
         made; with ``calibration`` (the track record), each band is adapted to
         the outcomes scored so far and carries the live coverage and warnings."""
+        run = self._run(drafts, metric, coverage, now, vectors, calibration)
+        model, view = run.model, run.view
+        # Shown precedents' details come from the view, as current as its stamp: no SQL.
+        details = view.details(sorted({r for row in run.rows for r, _ in row[3]}))
+        contribs = model.forecaster.contributions(run.X)
+        team = len(view.account_codes) > 1  # "the team's usual" needs a team
+        shown: dict[int, list[WeightedPrecedent]] = {}  # drafts sharing a neighbourhood share them
+        out = []
+        for i, d in enumerate(drafts):
+            _, weights, tz, hood_rows = run.rows[i]
+            band = run.bands[i]
+            expected, groups = group_contributions(contribs[i], model.forecaster.feature_names_, ALL_GROUPS)
+            local = run.plans[i].astimezone(zone(tz))
+            if id(hood_rows) not in shown:
+                shown[id(hood_rows)] = self._precedents(view, hood_rows, weights, run.now, details)
+            out.append(
+                Forecast(
+                    metric=metric,
+                    account=d.account,
+                    planned_at=run.plans[i],
+                    local_time=local.isoformat(timespec="minutes"),
+                    low=from_model_scale(band[0], metric),
+                    median=from_model_scale(band[1], metric),
+                    high=from_model_scale(band[2], metric),
+                    coverage=coverage,
+                    backtested_coverage=model.backtested_at(coverage),
+                    model_version=model.version,
+                    precedents=shown[id(hood_rows)],
+                    contributions=Contributions(
+                        expected_log=expected,
+                        predicted_log=float(expected + sum(groups.values())),
+                        groups=[
+                            GroupEffect(
+                                group=e.group,
+                                log_contribution=e.log_contribution,
+                                factor=e.factor,
+                                summary=e.summary,
+                            )
+                            for e in (describe(g, groups[g], team=team) for g in F.GROUPS)
+                        ],
+                    ),
+                    draft_id=d.draft_id,
+                    log=band,
+                    # Near-repeats of recent posts (own account and teammates), in every forecast.
+                    warnings=run.warnings(i),
+                    calibration=run.infos[i],
+                    live_coverage=None if run.facts is None else run.facts.live.model_copy(),
+                    repeats=run.repeats[i],
+                    note=model.report.get("note"),
+                )
+            )
+        return out
+
+    def bands(
+        self,
+        drafts: list[Draft],
+        *,
+        metric: str = DEFAULT_METRIC,
+        coverage: float = DEFAULT_COVERAGE,
+        now: datetime | None = None,
+        vectors: np.ndarray | None = None,
+    ) -> list[DraftBand]:
+        """Only the intervals (log scale and counts) and warnings of
+        :meth:`forecast`, from the same run, without the explanations (the
+        precedents shown and TreeSHAP contributions): what a choice among
+        many slots needs."""
+        run = self._run(drafts, metric, coverage, now, vectors, None)
+        return [
+            DraftBand(
+                log=b,
+                low=from_model_scale(b[0], metric),
+                median=from_model_scale(b[1], metric),
+                high=from_model_scale(b[2], metric),
+                warnings=run.warnings(i),
+                backtested_coverage=run.model.backtested_at(coverage),
+                model_version=run.model.version,
+            )
+            for i, b in enumerate(run.bands)
+        ]
+
+    def _run(
+        self,
+        drafts: list[Draft],
+        metric: str,
+        coverage: float,
+        now: datetime | None,
+        vectors: np.ndarray | None,
+        calibration: CalibrationSource | None,
+    ) -> _Run:
+        """The one forecast path: features, the model's bands (adapted by the
+        calibration source), near-repeats."""
         check_coverage(coverage)
         model = self.model(metric)
         view = self.view(metric)
@@ -147,16 +277,14 @@ class Forecaster:
         vecs = vectors if vectors is not None else self.embed([d.text for d in drafts])
         rows, plans = [], []
         wide: WideCache = {}  # one search per distinct text
+        same: SameCache = {}  # one neighbourhood per distinct text, account and cut-off
         for d, vec in zip(drafts, vecs, strict=True):
-            rows.append(self.features(view, model.features, d, vec, now, wide))
+            rows.append(self.features(view, model.features, d, vec, now, wide, same))
             plans.append(d.planned_at or now)
-        # Shown precedents' details come from the view, as current as its stamp: no SQL.
-        details = view.details(sorted({r for row in rows for r, _ in row[3]}))
         X = model.rows(
             np.vstack([r[0] for r in rows]), vecs, [view.account_codes[d.account] for d in drafts]
         )  # extra columns
         lo, med, hi = model.forecaster.predict(X, coverage=coverage)
-        contribs = model.forecaster.contributions(X)
         repeats = near_repeats_many(
             self.retrieval,
             self.settings,
@@ -166,55 +294,17 @@ class Forecaster:
             wide=wide,
         )
         facts = None if calibration is None else calibration.facts(model)
-        team = len(view.account_codes) > 1  # "the team's usual" needs a team
-        out = []
-        for i, d in enumerate(drafts):
-            _, weights, tz, hood_rows = rows[i]
+        bands, infos = [], []
+        for i in range(len(drafts)):
             band = (float(lo[i]), float(med[i]), float(hi[i]))
             info = None
             if facts is not None:
                 band, info = adapted_band(
                     band, model, coverage, facts.state, min_real=self.settings.adaptive_min_scored
                 )
-            expected, groups = group_contributions(contribs[i], model.forecaster.feature_names_, ALL_GROUPS)
-            local = plans[i].astimezone(zone(tz))
-            out.append(
-                Forecast(
-                    metric=metric,
-                    account=d.account,
-                    planned_at=plans[i],
-                    local_time=local.isoformat(timespec="minutes"),
-                    low=from_model_scale(band[0], metric),
-                    median=from_model_scale(band[1], metric),
-                    high=from_model_scale(band[2], metric),
-                    coverage=coverage,
-                    backtested_coverage=model.backtested_at(coverage),
-                    model_version=model.version,
-                    precedents=self._precedents(view, hood_rows, weights, now, details),
-                    contributions=Contributions(
-                        expected_log=expected,
-                        predicted_log=float(expected + sum(groups.values())),
-                        groups=[
-                            GroupEffect(
-                                group=e.group,
-                                log_contribution=e.log_contribution,
-                                factor=e.factor,
-                                summary=e.summary,
-                            )
-                            for e in (describe(g, groups[g], team=team) for g in F.GROUPS)
-                        ],
-                    ),
-                    draft_id=d.draft_id,
-                    log=band,
-                    # Near-repeats of recent posts (own account and teammates), in every forecast.
-                    warnings=[r.message for r in repeats[i]] + (facts.warnings if facts else []),
-                    calibration=info,
-                    live_coverage=None if facts is None else facts.live.model_copy(),
-                    repeats=repeats[i],
-                    note=model.report.get("note"),
-                )
-            )
-        return out
+            bands.append(band)
+            infos.append(info)
+        return _Run(model, view, now, rows, plans, X, bands, infos, repeats, facts)
 
     def features(
         self,
@@ -224,19 +314,29 @@ class Forecaster:
         vec: np.ndarray,
         now: datetime,
         wide: WideCache | None = None,
+        same: SameCache | None = None,
     ) -> tuple[np.ndarray, dict[int, float], str, list[tuple[int, float]]]:
         """A draft's feature row, its precedents' weights, its account's zone
-        and the precedents to show (History row, similarity), best first."""
+        and the precedents to show (History row, similarity), best first.
+
+        Drafts of one text for one account planned after ``now`` (the slots of
+        a day or week) all see what is settled now: with ``same``, they share
+        one neighbourhood and differ only in their timing columns."""
         h = view.history
         planned = d.planned_at or now
         # Only what is settled now is known, even for a post planned later.
         t = min(planned, now).timestamp()
         code = view.account_codes[d.account]
-        wide = {} if wide is None else wide
-        hood = self.retrieval.neighbourhood(view, vec, t=t, account=code, params=params, cache=wide)
         tz = view.zones[code]
         local = planned.astimezone(zone(tz))
         form = F.text_form(d.text, F.has_link(d.text), d.has_media)
+        key = (vec.tobytes(), code, t, tuple(form))
+        if same is not None and key in same:
+            x0, weights0, shown0 = same[key]
+            x = F.with_timing(x0, local_hour=local.hour + local.minute / 60.0, weekday=local.weekday())
+            return x.reshape(1, -1), weights0, tz, shown0
+        wide = {} if wide is None else wide
+        hood = self.retrieval.neighbourhood(view, vec, t=t, account=code, params=params, cache=wide)
         x, weights = F.assemble(
             h,
             hood,
@@ -257,6 +357,8 @@ class Forecaster:
             if s >= params.similar_threshold
         ]
         shown.sort(key=lambda p: -p[1])
+        if same is not None:
+            same[key] = (x, weights, shown)
         return x.reshape(1, -1), weights, tz, shown
 
     def _precedents(

@@ -178,7 +178,8 @@ def best_hours(
     instants = [t for d in days for t in day_slots(d, tz)]
     vec = forecaster.embed([text])
     drafts = [Draft(text=text, account=account, planned_at=t, has_media=has_media) for t in instants]
-    found = forecaster.forecast(
+    # Only the intervals: no slot shows precedents or contributions.
+    found = forecaster.bands(
         drafts, metric=metric, coverage=coverage, now=now, vectors=np.repeat(vec, len(drafts), axis=0)
     )
     z = zone(tz)
