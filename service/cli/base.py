@@ -27,7 +27,7 @@ out = Console(soft_wrap=True)
 err = Console(stderr=True, soft_wrap=True)
 
 
-class _Group(TyperGroup):
+class ErrorsAsMessages(TyperGroup):
     """Turns the library's named errors into clean messages."""
 
     def invoke(self, ctx: ClickContext) -> Any:
@@ -63,7 +63,7 @@ def next_step() -> str | None:
 
 
 app = typer.Typer(
-    cls=_Group,
+    cls=ErrorsAsMessages,
     name="sounding",
     help="A sounding board for social-media drafts, from your team's own post history.",
     invoke_without_command=True,

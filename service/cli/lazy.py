@@ -27,7 +27,7 @@ import typer.main
 from typer._click import Command, HelpFormatter
 from typer._click.utils import make_default_short_help
 
-from service.cli.base import _Group, app
+from service.cli.base import ErrorsAsMessages, app
 from service.cli.metavars import name_values
 
 if TYPE_CHECKING:
@@ -178,7 +178,7 @@ class LazyCommands(MutableMapping[str, Command]):
         return name in self._built or name in catalogue()
 
 
-class LazyGroup(_Group):
+class LazyGroup(ErrorsAsMessages):
     """The root group: lists commands from the catalogue, builds one on use."""
 
     def __init__(self, **attrs: Any) -> None:

@@ -10,8 +10,7 @@ import io
 from pathlib import Path
 
 import pytest
-from sqlalchemy import create_engine, text
-from support.pgsupport import SERVER, create_database, drop_database
+from support.pgsupport import SERVER, create_database, drop_database, raw
 
 from service.ingest.options import ImportOptions
 from service.storage.copying import copy_store
@@ -23,15 +22,6 @@ pytestmark = pytest.mark.both_backends
 LABELLED = (
     "SELECT p.post_id, l.name, l.value FROM post_labels l JOIN posts p ON p.id = l.post_pk ORDER BY 1, 2"
 )
-
-
-def raw(url: str, sql: str) -> list[tuple[object, ...]]:
-    eng = create_engine(url)
-    try:
-        with eng.connect() as c:
-            return [tuple(r) for r in c.execute(text(sql))]
-    finally:
-        eng.dispose()
 
 
 def labelled_history(ws: Workspace, tmp_path: Path) -> None:

@@ -14,6 +14,7 @@ from datetime import UTC, datetime
 import numpy as np
 import pytest
 from sqlalchemy import Boolean, Column, String, create_engine, false, inspect, text
+from support.pgsupport import raw
 
 from models.errors import StoreError
 from service.storage.migrations import SCHEMA_VERSION, STEPS, add_column
@@ -88,16 +89,6 @@ def make_v0_store(url: str) -> None:
             text("INSERT INTO snapshots (post_pk, captured_at, impressions) VALUES (1, :t, 1234)"), {"t": t}
         )
     eng.dispose()
-
-
-def raw(url: str, sql: str) -> list[tuple]:
-    """Straight SQL, not through Store."""
-    eng = create_engine(url)
-    try:
-        with eng.connect() as c:
-            return [tuple(r) for r in c.execute(text(sql))]
-    finally:
-        eng.dispose()
 
 
 def test_new_store_starts_at_the_current_version(database_url: str) -> None:

@@ -14,12 +14,12 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
-from sqlalchemy import create_engine, text
 from support.pgsupport import (
     copy_home_to_postgres,
     create_database,
     drop_database,
     needs_postgres,
+    raw,
     release,
 )
 from typer.testing import CliRunner
@@ -37,16 +37,6 @@ from service.workspace import Workspace
 pytestmark = [needs_postgres]
 
 NOW = datetime(2026, 11, 20, 12, tzinfo=UTC)  # after the demo history
-
-
-def raw(url: str, sql: str, **params: object) -> list[tuple]:
-    """Straight SQL, not through Store."""
-    eng = create_engine(url)
-    try:
-        with eng.connect() as c:
-            return [tuple(r) for r in c.execute(text(sql), params)]
-    finally:
-        eng.dispose()
 
 
 @pytest.fixture(scope="module")

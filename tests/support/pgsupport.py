@@ -106,3 +106,16 @@ def release(home: Path) -> None:
     url = HOMES.pop(home.resolve(), None)
     if url:
         drop_database(url)
+
+
+def raw(url: str, sql: str, **params: object) -> list[tuple[object, ...]]:
+    """Straight SQL on a store's database, not through Store (what a test reads
+    to see what is really stored)."""
+    from sqlalchemy import create_engine, text
+
+    eng = create_engine(url)
+    try:
+        with eng.connect() as c:
+            return [tuple(r) for r in c.execute(text(sql), params)]
+    finally:
+        eng.dispose()
