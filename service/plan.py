@@ -26,7 +26,8 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 from service.checking import check_drafts
 from service.forecast.answer import Forecast
 from service.forecast.draft import Draft, make_draft, planned_time
-from service.ingest.importer import _FALSE, _TRUE, check_encoding
+from service.ingest.encodings import check_text
+from service.ingest.flags import read_flag
 from service.ingest.plan_options import PlanOptions
 from service.ingest.timestamps import TimeReader, check_date_order
 from service.storage.handles import fold_handle
@@ -84,7 +85,7 @@ def _check_dates(path: Path, times: TimeReader) -> None:
 def read_plan(ws: Workspace, path: Path, options: PlanOptions | None = None) -> list[PlanRow]:
     """Every data row of a plan file, in file order."""
     o = (options or PlanOptions()).check()
-    check_encoding(path)
+    check_text(path)
     times = TimeReader(layout=o.layout())
     rows: list[PlanRow] = []
     with path.open("r", encoding="utf-8-sig", newline="") as f:
@@ -239,9 +240,7 @@ def _line(
 
 def _flag(raw: str | None, *, column: str, where: str) -> bool:
     """A true/false cell, read as the import format reads has_media (empty: false)."""
-    v = (raw or "").strip().lower()
-    if v in _TRUE:
-        return True
-    if v in _FALSE:
-        return False
+    flag = read_flag(raw or "")
+    if flag is not None:
+        return flag
     raise InputError(f"{raw!r} is not true or false", where=where, field=column, value=raw)

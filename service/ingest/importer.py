@@ -48,6 +48,7 @@ from service.ingest.accounts import accounts_to_create, handles_in
 from service.ingest.answers import ImportSummary, RowProblem
 from service.ingest.csvread import Abandoned, BadRecord, Record, RecordReader
 from service.ingest.encodings import check_text, codec_of
+from service.ingest.flags import read_flag
 from service.ingest.header import LabelTooLong, label_positions, listed_columns, read_labels
 from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, read_rate
 from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLUMNS, ImportOptions
@@ -57,8 +58,6 @@ from service.storage.handles import HANDLE_RULE, fold_handle, handle_problem
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
 
-_TRUE = {"true", "1", "yes", "y", "t"}
-_FALSE = {"false", "0", "no", "n", "f", ""}
 _CHUNK = 1 << 20
 PREVIEW_ROWS = 5
 QUOTE_HINT = "check the quotes of this row: a quote inside a quoted field is written twice (RFC 4180)"
@@ -244,13 +243,11 @@ class RowReader:
         media_raw = self._get(fields, "has_media")
         has_media: bool | None = None
         if media_raw is not None:
-            v = media_raw.strip().lower()
-            if v in _TRUE:
-                has_media = True
-            elif v in _FALSE:
-                has_media = False if v else None
-            else:
+            flag = read_flag(media_raw)
+            if flag is None:
                 raise _Reject("has_media", f"{media_raw!r} is not true or false")
+            # An empty cell says nothing: the post's media stays as stored.
+            has_media = flag if media_raw.strip() else None
         try:
             labels = read_labels(fields, self.label_positions)
         except LabelTooLong as exc:
