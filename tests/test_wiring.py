@@ -19,6 +19,7 @@ ENDPOINTS = {
     ("POST", "/v1/hours"),
     ("POST", "/v1/comparisons"),
     ("POST", "/v1/variants"),  # the earlier path, kept for one release
+    ("POST", "/v1/account-choices"),
     ("POST", "/v1/segments"),
     ("GET", "/v1/distribution"),
     ("POST", "/v1/trends"),

@@ -16,6 +16,7 @@ from service import __version__
 from service.api import errors, guard, page
 from service.api.csp import ContentSecurityPolicy
 from service.api.routers import (
+    account_choice,
     distribution,
     forecasts,
     forget,
@@ -48,6 +49,7 @@ ROUTERS = (
     forecasts,
     hours,
     variants,
+    account_choice,
     segments,
     distribution,
     trends,
