@@ -18,7 +18,7 @@ from pydantic import BaseModel, Field
 
 from models import features as F
 from models.errors import InputError, NotReady
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric, check_coverage
 from service.answers import Coverage, Instant, Round4
 from service.checking import check_drafts
 from service.clock import now_utc
@@ -112,7 +112,9 @@ def choose_account(
     now = now or now_utc()
     handles = _handles(ws, accounts)
     forecaster = ws.forecaster
-    ws.forecaster.limits.check_draft(text)
+    forecaster.limits.check_draft(text)
+    check_coverage(coverage)
+    params = forecaster.model(metric).features  # an unknown metric or no model yet: refused here
     view = forecaster.view(metric)
     least = ws.settings.min_history_posts
     ready, left_out = [], []
@@ -139,7 +141,6 @@ def choose_account(
         drafts.append(make_draft(ws.store, text=text, account=h, planned_at=when, has_media=has_media))
     vectors = np.repeat(forecaster.embed([text]), len(drafts), axis=0)
     found = check_drafts(ws, drafts, metric=metric, coverage=coverage, record=False, now=now, vectors=vectors)
-    params = forecaster.model(metric).features
     rows = [_fit(view, params, f, now) for f in found]
     _rank(rows)
     f0 = found[0]

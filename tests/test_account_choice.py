@@ -164,6 +164,8 @@ def test_cli_and_api_give_the_same_answer(team, monkeypatch: pytest.MonkeyPatch,
     assert "accounts, best first" in screen.output and "what sets each apart" in screen.output
     assert "log1p" not in screen.output  # statistical names only with --details
     assert "log1p" in runner.invoke(app, ["check", text, "--accounts", "all", "--at", at, "--details"]).output
+    odd = client.post("/v1/account-choices", json={"text": text, "metric": "nonsense"})
+    assert odd.status_code == 422 and odd.json()["error"]["field"] == "metric"
     bad = client.post("/v1/account-choices", json={"text": text, "accounts": ["nobody"]})
     assert bad.status_code == 404 and bad.json()["error"]["field"] == "account"
     both = runner.invoke(app, ["check", text, "--accounts", "all", "--account", "fernside"])

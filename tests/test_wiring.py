@@ -20,6 +20,7 @@ ENDPOINTS = {
     ("POST", "/v1/comparisons"),
     ("POST", "/v1/variants"),  # the earlier path, kept for one release
     ("POST", "/v1/account-choices"),
+    ("GET", "/v1/team"),
     ("POST", "/v1/segments"),
     ("GET", "/v1/distribution"),
     ("POST", "/v1/trends"),

@@ -19,6 +19,7 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES
 from models.segments import DEFAULT_MIN_N
 from service.account_choice import AccountChoice, AccountFit
+from service.analysis.team import TeamOverview
 from service.answers import Calibration, Coverage, LiveCoverage
 from service.api.textcheck import utf8_only
 from service.clock import EARLIEST, as_utc, latest_time, range_text
@@ -63,6 +64,7 @@ __all__ = [
     "RowProblem",
     "SearchState",
     "Slot",
+    "TeamOverview",
     "TrackRecord",
     "Variant",
     "VariantsReport",
