@@ -19,7 +19,7 @@ from pydantic import BaseModel, Field
 from models import features as F
 from models.errors import InputError, NotReady
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric, check_coverage
-from service.answers import Coverage, Instant, Round4
+from service.answers import Coverage, Instant, Round4, value_text
 from service.checking import check_drafts
 from service.clock import now_utc
 from service.forecast.answer import CAUTION, Forecast, from_model_scale
@@ -210,10 +210,6 @@ def _count(n: int) -> str:
     return _WORDS[n] if n < len(_WORDS) else f"{n:,}"
 
 
-def _level(v: float, metric: str) -> str:
-    return f"{v:.2%}" if metric == Metric.ENGAGEMENT_RATE else f"{v:,.0f}"
-
-
 def _reason(account: str, n: int, above: int, usual: float | None, metric: str) -> str:
     """What the account's own precedents say, in plain words."""
     if n == 0:
@@ -224,7 +220,7 @@ def _reason(account: str, n: int, above: int, usual: float | None, metric: str) 
     posts = "post" if n == 1 else "posts"
     if usual is None:
         return f"{account} posted {_count(n)} similar {posts}"
-    level = f"its usual {_level(usual, metric)}"
+    level = f"its usual {value_text(usual, metric)}"
     if above == n:
         return f"{account} posted {_count(n)} similar {posts} that did well (above {level})"
     if above == 0:

@@ -8,7 +8,6 @@ against theirs. Associations in the team's own history, not causes."""
 
 from __future__ import annotations
 
-import math
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING
 
@@ -21,7 +20,7 @@ from models.segments import DEFAULT_ALPHA, compare_segments, holm
 from models.trends import Trend, period_label, period_rows, period_starts, trend_of
 from service.analysis.settled import LeftOut
 from service.analysis.topics import clusters
-from service.answers import Instant
+from service.answers import Instant, value_text
 from service.clock import now_utc
 from service.datadir import DataDir
 from service.history.view import local_clock
@@ -241,22 +240,17 @@ def _better_topics(
     return sorted(out, key=lambda t: -(t.lift / t.team_lift))
 
 
-def _value(v: float, metric: str) -> str:
-    # Half up, as the page writes counts (a median of an even count may end in .5).
-    return f"{v:.2%}" if metric == "engagement_rate" else f"{math.floor(v + 0.5):,}"
-
-
 def _lines(a: AccountOverview, metric: str, min_posts: int) -> list[str]:
     """What the figures say, in plain words."""
     if not a.settled or a.median is None:
         return [f"no settled posts with {metric} yet"]
-    lines = [f"median {metric.replace('_', ' ')} {_value(a.median, metric)}"]
+    lines = [f"median {metric.replace('_', ' ')} {value_text(a.median, metric)}"]
     if a.recent_median is None:
         lines.append("no posts in the last three months")
     else:
         trend = a.trend.reading if a.trend else "too few weeks with posts for a trend"
         lines.append(
-            f"last three months: median {_value(a.recent_median, metric)} over {a.recent_posts} posts; "
+            f"last three months: median {value_text(a.recent_median, metric)} over {a.recent_posts} posts; "
             f"week by week, {trend}"
         )
     h = a.best_hours
@@ -264,8 +258,8 @@ def _lines(a: AccountOverview, metric: str, min_posts: int) -> list[str]:
         lines.append(f"best hours: too few posts at any hour (fewer than {min_posts} in every slot)")
     else:
         how = "clearly higher than its other hours" if h.clear else "could be chance"
-        rest = "" if h.rest_median is None else f" vs {_value(h.rest_median, metric)} at other hours"
-        lines.append(f"best hours: {h.hours} local time (median {_value(h.median, metric)}{rest}; {how})")
+        rest = "" if h.rest_median is None else f" vs {value_text(h.rest_median, metric)} at other hours"
+        lines.append(f"best hours: {h.hours} local time (median {value_text(h.median, metric)}{rest}; {how})")
     clear = [t for t in a.better_topics if t.clear]
     maybe = len(a.better_topics) - len(clear)
     more = " more" if clear else ""

@@ -5,15 +5,11 @@ from __future__ import annotations
 
 from datetime import datetime
 
-from models.metrics import Metric
 from service.account_choice import AccountChoice
+from service.answers import value_text
 from service.cli.base import out
 from service.cli.prose import say
 from service.cli.render import Column, print_table
-
-
-def _value(v: float, metric: str) -> str:
-    return f"{v:.2%}" if metric == Metric.ENGAGEMENT_RATE else f"{v:,.0f}"
 
 
 def _local(text: str) -> str:
@@ -44,9 +40,9 @@ def print_choice(c: AccountChoice, *, details: bool = False) -> None:
             str(r.rank),
             r.account,
             _local(r.local_time),
-            _value(r.low, c.metric),
-            _value(r.median, c.metric),
-            _value(r.high, c.metric),
+            value_text(r.low, c.metric),
+            value_text(r.median, c.metric),
+            value_text(r.high, c.metric),
             "yes" if r.tied_with_best else "no",
         ]
         for r in c.accounts

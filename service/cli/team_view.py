@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from service.analysis.team import TeamOverview
+from service.answers import value_text
 from service.cli.base import out
 from service.cli.prose import say
 from service.cli.render import Column, print_table
@@ -17,7 +18,7 @@ def print_team(t: TeamOverview) -> None:
             f"{a.share:.0%}",
             "-" if a.first_post is None else f"{a.first_post:%Y-%m-%d}",
             "-" if a.last_post is None else f"{a.last_post:%Y-%m-%d}",
-            "-" if a.median is None else _value(a.median, t.metric),
+            "-" if a.median is None else value_text(a.median, t.metric),
         ]
         for a in t.accounts
     ]
@@ -39,7 +40,3 @@ def print_team(t: TeamOverview) -> None:
         for line in a.lines:
             say(out, f"- {line}", indent="  ", hanging="    ")
     say(out, t.note, style="dim")
-
-
-def _value(v: float, metric: str) -> str:
-    return f"{v:.2%}" if metric == "engagement_rate" else f"{v:,.0f}"

@@ -12,22 +12,13 @@ from zoneinfo import ZoneInfo
 
 import numpy as np
 import pandas as pd
+from conftest import SUBJECTS
 
 from models.embedding import Embedder
 from service.forecast.training import train
 from service.settings import Settings
 from service.workspace import Workspace
 
-SUBJECTS = (
-    "Magnolias",
-    "Snowdrops",
-    "The bee hotel",
-    "The seed library",
-    "The fern house",
-    "The rose arbour",
-    "The herb garden",
-    "The lake path",
-)
 # Each account's true level (median impressions of a post at an average hour)
 # and its own zone; levels double from one to the next.
 ACCOUNTS = {
