@@ -25,6 +25,7 @@ from service.clock import now_utc
 from service.forecast.answer import CAUTION, Forecast, from_model_scale
 from service.forecast.draft import make_draft, planned_time
 from service.history.view import HistoryView
+from service.ingest.timestamps import TimeReader
 from service.review.overlap import RULE, heavy_overlap, ranks, tied_with_best
 from service.storage.handles import check_handle
 from service.track.parts import TrackedDir
@@ -99,6 +100,7 @@ def choose_account(
     accounts: Sequence[str] | str = EVERY,
     planned_at: str | datetime | None = None,
     timezone: str | None = None,
+    reader: TimeReader | None = None,
     has_media: bool = False,
     metric: str = DEFAULT_METRIC,
     coverage: float = DEFAULT_COVERAGE,
@@ -107,7 +109,7 @@ def choose_account(
 ) -> AccountChoice:
     """Forecast ``text`` for each of ``accounts`` (handles, or ``"all"``) at
     ``planned_at``: a time without an offset is read in each account's own
-    zone (or in ``timezone``). Accounts with too little history are left out
+    zone (or in ``timezone``; ``reader`` reads other layouts). Accounts with too little history are left out
     with the reason; an unknown handle is refused."""
     now = now or now_utc()
     handles = _handles(ws, accounts)
@@ -136,7 +138,7 @@ def choose_account(
         when = (
             planned_at
             if isinstance(planned_at, datetime)
-            else planned_time(ws.store, h, planned_at, where=where, timezone=timezone)
+            else planned_time(ws.store, h, planned_at, where=where, reader=reader, timezone=timezone)
         )
         drafts.append(make_draft(ws.store, text=text, account=h, planned_at=when, has_media=has_media))
     vectors = np.repeat(forecaster.embed([text]), len(drafts), axis=0)

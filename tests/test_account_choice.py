@@ -8,6 +8,7 @@ import math
 from datetime import datetime, timedelta
 from zoneinfo import ZoneInfo
 
+import httpx
 import numpy as np
 import pytest
 from conftest import NOW
@@ -158,6 +159,11 @@ def test_cli_and_api_give_the_same_answer(team, monkeypatch: pytest.MonkeyPatch,
     assert api.status_code == 200, api.text
     assert api.json() == cli
     assert [r["rank"] for r in cli["accounts"]] == [1, 2, 3]
+    # --at read as check reads it: another layout, day first, still in each account's zone.
+    other = ["check", text, "--accounts", "fernside,mossbank,reedmere", "--at", "04/12/2026 09:30"]
+    layout = runner.invoke(app, [*other, "--day-first", "--json"])
+    assert layout.exit_code == 0, layout.output
+    assert json.loads(layout.output) == cli
     assert cli["recorded"] is False
     screen = runner.invoke(app, ["check", text, "--accounts", "all", "--at", at])
     assert screen.exit_code == 0, screen.output
@@ -170,3 +176,22 @@ def test_cli_and_api_give_the_same_answer(team, monkeypatch: pytest.MonkeyPatch,
     assert bad.status_code == 404 and bad.json()["error"]["field"] == "account"
     both = runner.invoke(app, ["check", text, "--accounts", "all", "--account", "fernside"])
     assert both.exit_code == 1 and "not both" in both.output
+
+
+def test_the_client_reads_the_account_choice_and_the_team(team, monkeypatch: pytest.MonkeyPatch) -> None:
+    """service.client gives the API's answers, as the API's own models."""
+    from support.serving import serve
+
+    from service.client import SoundingClient
+
+    ws, _ = team
+    monkeypatch.setenv("SOUNDING_NOW", NOW.isoformat())
+    text, at = "The lake path gets a new bench this week", "2026-12-03T08:00"
+    with serve(create_app(workspace=ws)) as base, SoundingClient(base_url=base, timeout=120) as client:
+        choice = client.choose_account(text, planned_at=at)
+        overview = client.team()
+        with httpx.Client(base_url=base, timeout=120) as http:
+            want = http.post("/v1/account-choices", json={"text": text, "planned_at": at}).json()
+            assert overview.model_dump(mode="json") == http.get("/v1/team").json()
+    assert choice.model_dump(mode="json") == want
+    assert {a.account for a in overview.accounts} == set(ACCOUNTS)
