@@ -195,3 +195,20 @@ def test_the_client_reads_the_account_choice_and_the_team(team, monkeypatch: pyt
             assert overview.model_dump(mode="json") == http.get("/v1/team").json()
     assert choice.model_dump(mode="json") == want
     assert {a.account for a in overview.accounts} == set(ACCOUNTS)
+
+
+def test_an_account_with_too_little_history_is_left_out(team) -> None:
+    from models.errors import NotReady
+    from service.forecast.draft import Draft
+
+    ws, _ = team
+    ws.store.set_account("newcomer", timezone="Pacific/Auckland")  # no posts yet
+    least = ws.settings.min_history_posts
+    c = choose_account(ws, "The herb garden opens early this week", now=NOW)
+    assert {r.account for r in c.accounts} == set(ACCOUNTS)
+    assert c.left_out == [f"newcomer: 0 posts with impressions; a forecast needs at least {least}"]
+    # The same rule as a single forecast's (the forecaster's own refusal).
+    with pytest.raises(NotReady, match=f"a forecast needs at least {least}"):
+        ws.forecaster.forecast([Draft(text="x y z", account="newcomer")], now=NOW)
+    with pytest.raises(NotReady, match="no account has"):
+        choose_account(ws, "The herb garden opens early", accounts=["newcomer"], now=NOW)
