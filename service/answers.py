@@ -52,6 +52,13 @@ Round3 = Annotated[float, PlainSerializer(_round3, return_type=float)]
 Round4 = Annotated[float, PlainSerializer(_round4, return_type=float)]
 
 
+def value_text(v: float, metric: str) -> str:
+    """A metric value as sentences and tables write it: a rate as a percentage,
+    a count whole, rounded half up as the page rounds (a median of an even
+    number of posts may end in .5)."""
+    return f"{v:.2%}" if metric == "engagement_rate" else f"{math.floor(v + 0.5):,}"
+
+
 def _a_number(value: Any) -> Any:
     # NaN compares false with both bounds; say what is wanted rather than "<= 0.95".
     if isinstance(value, float) and math.isnan(value):

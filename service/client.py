@@ -27,7 +27,16 @@ from pydantic import BaseModel, ValidationError
 
 from models.errors import ServiceUnavailable, SoundingError, error_class
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
-from service.api.schemas import DraftIn, Forecast, Forecasts, Health, HoursReport, VariantsReport
+from service.api.schemas import (
+    AccountChoice,
+    DraftIn,
+    Forecast,
+    Forecasts,
+    Health,
+    HoursReport,
+    TeamOverview,
+    VariantsReport,
+)
 
 M = TypeVar("M", bound=BaseModel)
 DraftLike = Mapping[str, Any] | DraftIn
@@ -182,6 +191,31 @@ class SoundingClient:
             "coverage": coverage,
         }
         return self._call("POST", "/v1/comparisons", _drop_none(body), VariantsReport)
+
+    def choose_account(
+        self,
+        text: str,
+        *,
+        accounts: Sequence[str] = ("all",),
+        planned_at: datetime | str | None = None,
+        has_media: bool = False,
+        metric: str = DEFAULT_METRIC,
+        coverage: float = DEFAULT_COVERAGE,
+    ) -> AccountChoice:
+        """Which account should post it: the draft forecast for each, best first (never recorded)."""
+        body = {
+            "text": text,
+            "accounts": list(accounts),
+            "planned_at": _when(planned_at),
+            "has_media": has_media,
+            "metric": metric,
+            "coverage": coverage,
+        }
+        return self._call("POST", "/v1/account-choices", _drop_none(body), AccountChoice)
+
+    def team(self, *, metric: str = DEFAULT_METRIC) -> TeamOverview:
+        """The team overview: each account's posts, share, median, trend, best hours, topics."""
+        return self._call("GET", f"/v1/team?{httpx.QueryParams(metric=metric)}", None, TeamOverview)
 
     # Plumbing ---------------------------------------------------------------
 

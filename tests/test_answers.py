@@ -23,6 +23,8 @@ from typer.testing import CliRunner
 
 import models
 import service
+from service.account_choice import AccountChoice
+from service.analysis.team import TeamOverview
 from service.api.app import create_app
 from service.forecast.answer import Forecast, Forecasts
 from service.health import Health
@@ -52,6 +54,8 @@ ANSWERS: list[tuple[str, str, type[BaseModel]]] = [
     ("post", "/v1/variants", VariantsReport),
     ("get", "/v1/health", Health),
     ("get", "/v1/track-record", TrackRecord),
+    ("post", "/v1/account-choices", AccountChoice),
+    ("get", "/v1/team", TeamOverview),
 ]
 
 

@@ -133,6 +133,8 @@ SCREENS = [
     ["segments", "--by", "link"],
     ["segments", "--topic", "flowers in bloom", "--topic", "volunteering", "--by", "hour"],
     ["track-record"],
+    ["check", DRAFT, "--accounts", "all", "--at", "2026-12-03T12:00"],
+    ["accounts", "--details"],
 ]
 
 

@@ -19,6 +19,8 @@ ENDPOINTS = {
     ("POST", "/v1/hours"),
     ("POST", "/v1/comparisons"),
     ("POST", "/v1/variants"),  # the earlier path, kept for one release
+    ("POST", "/v1/account-choices"),
+    ("GET", "/v1/team"),
     ("POST", "/v1/segments"),
     ("GET", "/v1/labels"),
     ("GET", "/v1/distribution"),

@@ -87,9 +87,11 @@ class MapAnswer(BaseModel):
     note: str = MAP_NOTE
 
 
-def _clusters(
+def clusters(
     ws: DataDir, metric: str, account: str | None, since: datetime | None, now: datetime | None, seed: int
 ) -> tuple[pd.DataFrame, np.ndarray, np.ndarray, TopicClusterer, list[str], LeftOut]:
+    """The settled posts (frame, metric values, vectors), the fitted clusters,
+    their names and what was left out: what every topics answer starts from."""
     posts = settled_posts(ws, metric, account=account, since=since, now=now)
     vectors = ws.store.vectors(list(posts.frame["vector_key"]))
     model = TopicClusterer(seed=seed).fit(vectors)
@@ -108,7 +110,7 @@ def topics(
     now: datetime | None = None,
     seed: int = 0,
 ) -> TopicsAnswer:
-    frame, values, vectors, model, names, left_out = _clusters(ws, metric, account, since, now, seed)
+    frame, values, vectors, model, names, left_out = clusters(ws, metric, account, since, now, seed)
     labels = np.asarray([names[c] for c in model.labels_], dtype=object)
     report = compare_segments(values, labels, order=names, min_n=min_n, seed=seed, metric=metric)
     ids = frame["post_id"].astype(str).to_numpy(object)
@@ -164,7 +166,7 @@ def topic_map(
 ) -> MapAnswer:
     from sklearn.decomposition import PCA
 
-    frame, values, vectors, model, names, _ = _clusters(ws, metric, account, since, now, seed)
+    frame, values, vectors, model, names, _ = clusters(ws, metric, account, since, now, seed)
     pca = PCA(n_components=2, random_state=seed).fit(vectors)
     xy = pca.transform(vectors)
     centres = {
@@ -212,6 +214,7 @@ __all__ = [
     "MapAnswer",
     "MapPoint",
     "TopicsAnswer",
+    "clusters",
     "csv_table",
     "render_map",
     "topic_map",

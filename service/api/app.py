@@ -16,6 +16,7 @@ from service import __version__
 from service.api import errors, guard, page
 from service.api.csp import ContentSecurityPolicy
 from service.api.routers import (
+    account_choice,
     distribution,
     forecasts,
     forget,
@@ -28,6 +29,7 @@ from service.api.routers import (
     precedents,
     segments,
     surprises,
+    team,
     topics,
     track_record,
     training,
@@ -49,6 +51,7 @@ ROUTERS = (
     forecasts,
     hours,
     variants,
+    account_choice,
     segments,
     labels,
     distribution,
@@ -56,6 +59,7 @@ ROUTERS = (
     topics,
     post_map,
     surprises,
+    team,
     imports,
     mappings,
     training,

@@ -18,6 +18,8 @@ from pydantic import AfterValidator, BaseModel, ConfigDict, Field, field_validat
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES
 from models.segments import DEFAULT_MIN_N
+from service.account_choice import AccountChoice, AccountFit
+from service.analysis.team import TeamOverview
 from service.answers import Calibration, Coverage, LiveCoverage
 from service.api.textcheck import utf8_only
 from service.clock import RANGE_TEXT, YEAR_PATTERN, year_in_range
@@ -47,6 +49,8 @@ from service.track.answers import TrackRecord
 # The answers re-exported from the modules that define them (the request models
 # below are public too; this list only keeps the re-exports explicit).
 __all__ = [
+    "AccountChoice",
+    "AccountFit",
     "AccountInfo",
     "Calibration",
     "ColumnUse",
@@ -69,6 +73,7 @@ __all__ = [
     "RowProblem",
     "SearchState",
     "Slot",
+    "TeamOverview",
     "TrackRecord",
     "Variant",
     "VariantsReport",
@@ -172,6 +177,24 @@ class ForecastBatchRequest(Strict):
     metric: str = METRIC_FIELD
     coverage: Coverage = COVERAGE_FIELD
     record: bool = Field(default=True, description="Keep the forecasts in the track record")
+
+
+class AccountChoiceRequest(Strict):
+    text: str = Field(min_length=1, description="The draft's text")
+    accounts: list[str] = Field(
+        default=["all"],
+        min_length=1,
+        description="Handles of the accounts to rank, or ['all'] for every account of the store",
+        examples=[["all"], ["loomhaven", "loomhaven_events"]],
+    )
+    planned_at: str | None = Field(
+        default=None,
+        description="ISO 8601 time; without an offset it is read in each account's own zone. Default: now.",
+        examples=["2026-12-03T12:30:00"],
+    )
+    has_media: bool = Field(default=False, description="An image or video goes with the text")
+    metric: str = METRIC_FIELD
+    coverage: Coverage = COVERAGE_FIELD
 
 
 # Draft review: best hours and variants (service.review) ----------------------

@@ -11,8 +11,10 @@ import typer
 
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, MAX_COVERAGE, MIN_COVERAGE, TARGETS
+from service.account_choice import choose_account
 from service.checking import check_drafts
 from service.cli.base import app, out, print_json, workspace
+from service.cli.choice_view import print_choice
 from service.cli.mappings import DAY_FIRST, MONTH_FIRST, TIME_FORMAT
 from service.cli.plan_view import plan_options, print_plan
 from service.cli.prose import plural, say
@@ -286,6 +288,13 @@ def check_cmd(
     account: str | None = typer.Option(
         None, "--account", help="Account that would post it (with --plan: for rows without one)."
     ),
+    accounts: list[str] | None = typer.Option(
+        None,
+        "--accounts",
+        metavar="HANDLES",
+        help="Rank the accounts that could post it: 'all', or handles (repeat, or a comma list). "
+        "Not recorded in the track record.",
+    ),
     at: str | None = typer.Option(
         None, "--at", help="Planned time, ISO 8601 (no offset: the account's zone). Default: now."
     ),
@@ -338,6 +347,27 @@ def check_cmd(
         return
     if not text:
         raise InputError("give the draft text, or --plan with a plan file", field="text")
+    if accounts:
+        if account:
+            raise InputError("give --account or --accounts, not both", field="--accounts")
+        with ws.store.pinned():
+            choice = choose_account(
+                ws,
+                text,
+                accounts=[h for a in accounts for h in a.split(",")],
+                planned_at=at,
+                timezone=options.timezone,
+                reader=TimeReader(layout=options.layout()),
+                has_media=media,
+                metric=metric,
+                coverage=coverage,
+                where="--at",
+            )
+        if as_json:
+            print_json(choice.model_dump(mode="json"))
+        else:
+            print_choice(choice, details=details)
+        return
     if not account:
         raise InputError("say which account would post it with --account", field="--account")
     # Adapted, staleness-checked and recorded in the track record.

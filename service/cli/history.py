@@ -19,7 +19,8 @@ from rich.progress import (
 )
 
 from models.errors import InputError
-from models.metrics import METRIC_COLUMNS
+from models.metrics import DEFAULT_METRIC, METRIC_COLUMNS
+from service.analysis.team import DEFAULT_MIN_POSTS, team_overview
 from service.cli.base import app, err, is_terminal, next_step, out, print_json, workspace
 from service.cli.forecast import demo_forecast
 from service.cli.mappings import (
@@ -34,6 +35,7 @@ from service.cli.mappings import (
     given_options,
 )
 from service.cli.render import Column, print_table
+from service.cli.team_view import print_team
 from service.clock import parse_time
 from service.history.match_modes import Match
 from service.history.precedents import Precedent, Precedents
@@ -61,8 +63,30 @@ def account_cmd(
 
 
 @app.command("accounts")
-def accounts_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
-    """List the accounts in the store."""
+def accounts_cmd(
+    as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+    details: bool = typer.Option(
+        False,
+        "--details",
+        help="The team overview: each account's posts, share, median and its recent trend, "
+        "best hours and the topics where it does better than the team.",
+    ),
+    metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help="With --details: the metric read."),
+    min_posts: int = typer.Option(
+        DEFAULT_MIN_POSTS,
+        "--min-posts",
+        metavar="N",
+        help="With --details: posts an hour slot or a topic needs before it is read.",
+    ),
+) -> None:
+    """List the accounts in the store (with --details, the team overview)."""
+    if details:
+        overview = team_overview(workspace(), metric=metric, min_posts=min_posts)
+        if as_json:
+            print_json(overview.model_dump(mode="json"))
+        else:
+            print_team(overview)
+        return
     rows = workspace().store.accounts()
     if as_json:
         print_json([a.model_dump(mode="json") for a in rows])

@@ -144,6 +144,12 @@ class Forecaster:
             self._views[metric] = (stamp, v)
         return v
 
+    def history_posts(self, view: HistoryView, account: str) -> int:
+        """Posts of ``account`` that have the view's metric: a forecast needs
+        at least ``min_history_posts`` of them."""
+        code = view.account_codes.get(account)
+        return 0 if code is None else len(view.history.settled_rows(code)[0])
+
     def warm(self) -> None:
         """Rebuild, ahead of the next forecast, the history views already in
         use whose store changed (the service's background refresher calls
@@ -263,10 +269,9 @@ class Forecaster:
         now = now or now_utc()
         least = self.settings.min_history_posts
         for d in drafts:
-            code = view.account_codes.get(d.account)
-            if code is None:
+            if d.account not in view.account_codes:
                 self.store.account(d.account)  # raises NotFound for unknown accounts
-            n = 0 if code is None else len(view.history.settled_rows(code)[0])
+            n = self.history_posts(view, d.account)
             if n < least:
                 raise NotReady(
                     f"account {d.account!r} has {n} posts with {metric}; a forecast needs at "

@@ -26,6 +26,10 @@
   // ---------------------------------------------------------------- setup
 
   function showZone() {
+    if ($("account").value === S.choice.EVERY) {
+      $("planned-help").textContent = "Wall-clock time in each account's own time zone.";
+      return;
+    }
     const tz = zones[$("account").value];
     $("planned-help").textContent = tz
       ? `Wall-clock time in ${tz}, the account's time zone.`
@@ -37,6 +41,7 @@
     try {
       const accounts = await S.fillAccounts(sel);
       for (const a of accounts) zones[a.handle] = a.timezone;
+      if (accounts.length > 1) S.choice.addChoice(sel);
       $("account-help").textContent = accounts.length
         ? `${accounts.length} ${accounts.length === 1 ? "account" : "accounts"} in this store.`
         : "No accounts yet: import some history first.";
@@ -253,6 +258,15 @@
     };
     if (planned) body.planned_at = S.plannedValue(planned);
     try {
+      if (body.account === S.choice.EVERY) {
+        await S.choice.check(body);
+        lastBody = null;
+        $("output").hidden = true;
+        $("placeholder").hidden = true;
+        $("choice-output").hidden = false;
+        return;
+      }
+      $("choice-output").hidden = true;
       const f = await api("/v1/forecasts", body);
       renderForecast(f);
       lastBody = { ...body, planned_at: f.planned_at };
@@ -271,6 +285,7 @@
       }
     } catch (e) {
       $("output").hidden = true;
+      $("choice-output").hidden = true;
       $("placeholder").hidden = false;
       showError(e instanceof ApiError ? e.message : `Unexpected problem: ${e.message}`);
     } finally {

@@ -44,6 +44,8 @@ COMMANDS = [
     (["track-record"], None, 1),  # no forecast given yet: the overall row only
     (["hours", DRAFT, "--account", "loomhaven_lab", "--day", "2026-12-03", "--week"], None, 3),
     (["segments", "--topic", "flowers in bloom", "--topic", "volunteering"], None, 3),
+    (["check", DRAFT, "--accounts", "all", "--at", "2026-12-03T12:00"], "accounts, best first", 3),
+    (["accounts", "--details"], None, 3),
 ]
 
 
