@@ -27,7 +27,7 @@ from service.forecast.draft import make_draft, planned_time
 from service.history.view import HistoryView
 from service.ingest.timestamps import TimeReader
 from service.review.overlap import RULE, heavy_overlap, ranks, tied_with_best
-from service.storage.handles import check_handle
+from service.storage.handles import fold_handle
 from service.track.parts import TrackedDir
 
 #: What ``accounts`` says to mean every account of the store.
@@ -169,7 +169,8 @@ def _handles(ws: TrackedDir, accounts: Sequence[str] | str) -> list[str]:
     if EVERY in asked:
         return [a.handle for a in ws.store.accounts()]
     # Unknown handles raise NotFound with the closest matches.
-    return list(dict.fromkeys(ws.store.account(check_handle(a)).handle for a in asked))
+    # (a handle no account could hold is simply unknown, as on every other door).
+    return list(dict.fromkeys(ws.store.account(fold_handle(a)).handle for a in asked))
 
 
 def _fit(view: HistoryView, params: F.FeatureParams, f: Forecast, now: datetime) -> AccountFit:

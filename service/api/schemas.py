@@ -181,7 +181,7 @@ class ForecastBatchRequest(Strict):
 
 class AccountChoiceRequest(Strict):
     text: str = Field(min_length=1, description="The draft's text")
-    accounts: list[str] = Field(
+    accounts: list[Annotated[str, Field(pattern=r"\S")]] = Field(
         default=["all"],
         min_length=1,
         description="Handles of the accounts to rank, or ['all'] for every account of the store",

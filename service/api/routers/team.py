@@ -8,6 +8,7 @@ from models.errors import InputError, NotReady, StoreError
 from models.metrics import DEFAULT_METRIC
 from service.analysis.team import DEFAULT_MIN_POSTS, team_overview
 from service.api.deps import WorkspaceDep
+from service.api.params import metric_query
 from service.api.responses import ERRORS
 from service.api.schemas import TeamOverview
 
@@ -27,7 +28,7 @@ router = APIRouter(prefix="/v1", tags=["team"])
 )
 def team(
     ws: WorkspaceDep,
-    metric: Annotated[str, Query(description="The metric")] = DEFAULT_METRIC.value,
+    metric: Annotated[str, metric_query()] = DEFAULT_METRIC.value,
     min_posts: Annotated[
         int, Query(ge=2, le=10_000, description="Posts an hour slot or a topic needs to be read")
     ] = DEFAULT_MIN_POSTS,
