@@ -33,7 +33,7 @@ from service.cli.mappings import (
     given_options,
 )
 from service.cli.render import Column, print_table
-from service.clock import parse_time
+from service.clock import now_utc, parse_time
 from service.history.match_modes import Match
 from service.history.precedents import Precedent, Precedents
 from service.ingest.answers import ImportPreview, ImportSummary
@@ -53,10 +53,33 @@ def account_cmd(
     timezone: str | None = typer.Option(
         None, "--timezone", help="IANA time zone used for the local hour, e.g. Europe/London."
     ),
+    reference: bool | None = typer.Option(
+        None,
+        "--reference/--team",
+        help="--reference: a peer's account, whose posts are searched (precedents, near-repeats, "
+        "topic examples) and may come without metrics, but never measured or learnt from; "
+        "--team: one of the team's own accounts again.",
+    ),
+    followers: int | None = typer.Option(
+        None, "--followers", help="The account's follower count, from --since on (until the next count)."
+    ),
+    since: str | None = typer.Option(
+        None, "--since", help="When the --followers count was taken (ISO 8601; default: now)."
+    ),
 ) -> None:
-    """Create or update an account."""
-    a = workspace(create=True).store.set_account(handle, display_name=name, timezone=timezone)
-    out.print(f"{a.handle}: {a.display_name or '(no name)'}, {a.timezone}, {a.posts} posts")
+    """Create or update an account: name, zone, reference or team, follower count."""
+    if since is not None and followers is None:
+        raise InputError("--since dates a follower count: give --followers N with it", field="since")
+    at = parse_time(since, tz="UTC", where="--since") if since else now_utc()
+    a = workspace(create=True).change_account(
+        handle, display_name=name, timezone=timezone, reference=reference, followers=followers, since=at
+    )
+    kind = ", reference account" if a.reference else ""
+    out.print(
+        f"{a.handle}: {a.display_name or '(no name)'}, {a.timezone}, {a.posts} posts{kind}", highlight=False
+    )
+    if followers is not None:
+        out.print(f"{followers:,} followers from {at:%Y-%m-%d %H:%M} UTC", highlight=False)
 
 
 @app.command("accounts")
@@ -77,7 +100,15 @@ def accounts_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.
             Column(header="time zone"),
             Column(header="posts", right=True),
         ],
-        [[a.handle, a.display_name or "", a.timezone, f"{a.posts:,}"] for a in rows],
+        [
+            [
+                a.handle + (" (reference)" if a.reference else ""),
+                a.display_name or "",
+                a.timezone,
+                f"{a.posts:,}",
+            ]
+            for a in rows
+        ],
     )
 
 
@@ -267,7 +298,7 @@ def print_precedents(found: list[Precedent], *, title: str = "precedents", wide:
     rows = [
         [
             f"{p.similarity:.2f}",
-            p.account,
+            p.account + (" (reference)" if p.reference else ""),
             p.posted_at.strftime("%Y-%m-%d") + (" *" if p.still_gathering else ""),
             _n(p.metrics.get("impressions")),
             _n(p.metrics.get("engagements")),

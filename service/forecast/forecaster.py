@@ -22,7 +22,7 @@ import numpy as np
 
 from models import features as F
 from models.artefact import TrainedModel, newest
-from models.errors import NotReady
+from models.errors import InputError, NotReady
 from models.explain import describe, group_contributions
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_coverage, check_target
 from models.stacking import ALL_GROUPS
@@ -31,6 +31,7 @@ from service.forecast.answer import Contributions, Forecast, GroupEffect, from_m
 from service.forecast.calibration import CalibrationSource, adapted_band
 from service.forecast.draft import Draft
 from service.history import viewcache
+from service.history.peers import peer_repeats
 from service.history.precedents import WeightedPrecedent, precedents_for
 from service.history.repeats import near_repeats_many
 from service.history.retrieval import Retriever, WideCache
@@ -62,6 +63,7 @@ class Forecaster:
         self._encode = encode
         self._models: dict[str, TrainedModel] = {}
         self._views: dict[str, tuple[int, HistoryView]] = {}
+        self._peers: tuple[int, HistoryView] | None = None
         #: Keep each view between processes (service.history.viewcache): a cold command
         #: maps it instead of building it. A service keeps its views in memory with
         #: their posts' details, so a forecast asks the store nothing but the counters.
@@ -105,6 +107,19 @@ class Forecaster:
             self._views[metric] = (stamp, v)
         return v
 
+    def peers(self, metric: str) -> HistoryView:
+        """The reference accounts' posts (service.history.peers), kept until
+        the store's change counter moves."""
+        stamp = self.store.stamp()
+        with self._lock:
+            hit = self._peers
+            if hit is not None and hit[0] == stamp:
+                return hit[1]
+        v = build_view(self.store, metric, with_vectors=False, reference=True)
+        with self._lock:
+            self._peers = (stamp, v)
+        return v
+
     def warm(self) -> None:
         """Rebuild, ahead of the next forecast, the history views already in
         use whose store changed (the service's background refresher calls
@@ -134,8 +149,13 @@ class Forecaster:
         least = self.settings.min_history_posts
         for d in drafts:
             code = view.account_codes.get(d.account)
-            if code is None:
-                self.store.account(d.account)  # raises NotFound for unknown accounts
+            if code is None and self.store.account(d.account).reference:  # NotFound if unknown
+                raise InputError(
+                    f"{d.account} is a reference account: its posts are searched, never forecast",
+                    field="account",
+                    value=d.account,
+                    hint="choose one of the team's accounts (`sounding accounts`)",
+                )
             n = 0 if code is None else len(view.history.settled_rows(code)[0])
             if n < least:
                 raise NotReady(
@@ -165,6 +185,21 @@ class Forecaster:
             now=now,
             wide=wide,
         )
+        peers = self.peers(metric)
+        if len(peers.history):
+            for mine, theirs in zip(
+                repeats,
+                peer_repeats(
+                    self.retrieval,
+                    self.settings,
+                    peers,
+                    list(zip(vecs, plans, strict=True)),
+                    metric=metric,
+                    now=now,
+                ),
+                strict=True,
+            ):
+                mine.extend(theirs)
         facts = None if calibration is None else calibration.facts(model)
         team = len(view.account_codes) > 1  # "the team's usual" needs a team
         out = []

@@ -18,6 +18,7 @@ from service.storage.engine import StoreBase
 from service.storage.tables import (
     Account,
     ApproximateValue,
+    FollowerCount,
     Post,
     Snapshot,
     Vector,
@@ -37,6 +38,7 @@ class PostRow:
     vector_key: str
     line: int = 0
     approximate: frozenset[str] = frozenset()  # metrics known only roughly (1.2K)
+    followers: int | None = None  # the account's follower count at the post's time
 
 
 @dataclass(slots=True)
@@ -175,9 +177,31 @@ class PostWrites(StoreBase):
                 for m in sorted(flags)
             )
             res.changed_pks.extend(post.id for post in new_posts)
+            self._write_followers(
+                s, {(accounts[r.account].id, to_naive_utc(r.posted_at)): r.followers for r in rows}
+            )
             reworded = set(res.changed_pks)
             keywords.add(s.connection(), [(p.id, p.text) for p in stored.values() if p.id in reworded])
         return res
+
+    @staticmethod
+    def _write_followers(s: Session, given: dict[tuple[int, datetime], int | None]) -> None:
+        """A row's follower count, as its account's count from the post's time on."""
+        wanted = {k: n for k, n in given.items() if n is not None}
+        if not wanted:
+            return
+        times = list({t for _, t in wanted})
+        for i in range(0, len(times), 900):
+            for fc in s.scalars(
+                select(FollowerCount).where(
+                    FollowerCount.account_id.in_({a for a, _ in wanted}),
+                    FollowerCount.since.in_(times[i : i + 900]),
+                )
+            ):
+                n = wanted.pop((fc.account_id, fc.since), None)
+                if n is not None and fc.followers != n:
+                    fc.followers = n
+        s.add_all(FollowerCount(account_id=a, since=t, followers=n) for (a, t), n in wanted.items())
 
     @staticmethod
     def _rough_lookup(s: Session, snapshots: Iterable[Snapshot]) -> dict[int, frozenset[str]]:
