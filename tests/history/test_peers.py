@@ -33,7 +33,9 @@ N_TEAM, N_PEER = 300, 500
 RECENT = "Dawn chorus walk: our birders lead a slow loop of the east meadow at six on Sunday"
 DRAFTS = [
     Draft(text="Snowdrops open early this weekend", account="loomhaven", planned_at=NOW + timedelta(days=1)),
-    Draft(text="The fern house gets a new bench", account="loomhaven_lab", planned_at=NOW + timedelta(hours=5)),
+    Draft(
+        text="The fern house gets a new bench", account="loomhaven_lab", planned_at=NOW + timedelta(hours=5)
+    ),
     Draft(text="The herb garden needs volunteers", account="loomhaven", planned_at=NOW),
 ]
 TOPICS = ["snowdrops | winter flowers", "volunteers | helping out"]
@@ -49,7 +51,9 @@ def peer_csv(n: int, *, impressions: bool) -> bytes:
     for i in range(n):
         text = f"At Fernbrook Park, {SUBJECTS[i % 8].lower()} {NEWS[(i + 1) % 6]} (peer note {i})"
         when = (start + timedelta(hours=2.3 * i)).isoformat()
-        w.writerow([f"fp-{i}{'m' if impressions else ''}", PEER, text, when, *([90_000] if impressions else [])])
+        w.writerow(
+            [f"fp-{i}{'m' if impressions else ''}", PEER, text, when, *([90_000] if impressions else [])]
+        )
     if not impressions:
         w.writerow(["fp-recent", PEER, RECENT, (NOW - timedelta(days=2)).isoformat()])
     return buf.getvalue().encode()
@@ -131,7 +135,9 @@ def test_a_peer_text_is_found_as_a_reference_precedent(peers: Peers) -> None:
     assert all(v is None for v in top.metrics.values())
     assert top.model_dump(mode="json")["reference"] is True
     # A peer's row that came with impressions is found too, still without them.
-    numbered = peers.ws.precedents("At Fernbrook Park, magnolias need volunteers (peer note 8)", k=20, now=NOW)
+    numbered = peers.ws.precedents(
+        "At Fernbrook Park, magnolias need volunteers (peer note 8)", k=20, now=NOW
+    )
     mine = [p for p in numbered if p.post_id.endswith("m")]
     assert mine and all(p.metrics["impressions"] is None for p in mine)
 
@@ -158,7 +164,7 @@ def test_a_reference_account_is_not_forecast(peers: Peers) -> None:
 def test_only_reference_accounts_import_without_metrics(peers: Peers, tmp_path: Path) -> None:
     bare = tmp_path / "bare.csv"
     bare.write_text("post_id,account,text,posted_at\nx-1,loomhaven,Snowdrops,2025-03-01T10:00:00Z\n")
-    with pytest.raises(CSVFormatError, match="no metric column.*loomhaven is not one"):
+    with pytest.raises(CSVFormatError, match=r"no metric column.*loomhaven is not one"):
         peers.ws.import_csv(bare)
     assert peers.ws.store.account("loomhaven").posts == N_TEAM // 2  # nothing written
 
