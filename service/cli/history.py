@@ -33,7 +33,7 @@ from service.cli.mappings import (
     given_options,
 )
 from service.cli.render import Column, print_table
-from service.clock import now_utc, parse_time
+from service.clock import now_utc, parse_since, parse_time
 from service.history.match_modes import Match
 from service.history.precedents import Precedent, Precedents
 from service.ingest.answers import ImportPreview, ImportSummary
@@ -64,13 +64,15 @@ def account_cmd(
         None, "--followers", help="The account's follower count, from --since on (until the next count)."
     ),
     since: str | None = typer.Option(
-        None, "--since", help="When the --followers count was taken (ISO 8601; default: now)."
+        None,
+        "--since",
+        help="When the --followers count was taken: a date (UTC midnight) or an ISO 8601 time; default now.",
     ),
 ) -> None:
     """Create or update an account: name, zone, reference or team, follower count."""
     if since is not None and followers is None:
         raise InputError("--since dates a follower count: give --followers N with it", field="since")
-    at = parse_time(since, tz="UTC", where="--since") if since else now_utc()
+    at = parse_since(since) or now_utc()  # a date is its UTC midnight
     a = workspace(create=True).change_account(
         handle, display_name=name, timezone=timezone, reference=reference, followers=followers, since=at
     )

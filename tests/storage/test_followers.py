@@ -187,6 +187,20 @@ def test_the_account_command_records_a_count(ws: Workspace, embedder: Embedder) 
     with pytest.raises(InputError, match="follower count"):
         ws.change_account("loomhaven_lab", followers=10**11)
     assert len(ws.store.follower_counts(["loomhaven_lab"])) == 1  # nothing written
+    res = runner.invoke(
+        cli_app,
+        ["account", "fernbrook_park", "--reference", "--followers", "15000", "--since", "2025-06-01"],
+        env=env,
+    )
+    assert res.exit_code == 0, res.output
+    assert "reference account" in res.output and "15,000 followers from 2025-06-01" in res.output
+    assert ws.store.follower_counts(["fernbrook_park"]) == [
+        ("fernbrook_park", datetime(2025, 6, 1, tzinfo=UTC), 15_000)
+    ]
+    listed = runner.invoke(cli_app, ["accounts"], env=env, terminal_width=100)
+    assert "fernbrook_park (reference)" in listed.output
+    res = runner.invoke(cli_app, ["account", "fernbrook_park", "--team"], env=env)
+    assert res.exit_code == 0 and not ws.store.account("fernbrook_park").reference
 
 
 def test_a_version_2_store_gains_reference_marks_and_follower_counts(database_url: str) -> None:
