@@ -300,9 +300,9 @@ def print_precedents(found: list[Precedent], *, title: str = "precedents", wide:
     rows = [
         [
             f"{p.similarity:.2f}",
-            p.account + (" (reference)" if p.reference else ""),
+            p.account,
             p.posted_at.strftime("%Y-%m-%d") + (" *" if p.still_gathering else ""),
-            _n(p.metrics.get("impressions")),
+            "reference" if p.reference else _n(p.metrics.get("impressions")),
             _n(p.metrics.get("engagements")),
             p.text,
         ]
@@ -324,6 +324,11 @@ def print_precedents(found: list[Precedent], *, title: str = "precedents", wide:
     )
     if any(p.still_gathering for p in found):
         out.print("* still gathering: its metrics are not final yet", highlight=False)
+    if any(p.reference for p in found):
+        out.print(
+            "reference: a reference account's post (a peer's), shown without metrics",
+            highlight=False,
+        )
 
 
 def _n(v: int | None) -> str:

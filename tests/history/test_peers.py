@@ -73,7 +73,7 @@ def bands(ws: Workspace) -> list[tuple[float, float, float]]:
 
 
 @pytest.fixture(scope="module")
-def peers(tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> Iterator[Peers]:
+def peers(backend: str, tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> Iterator[Peers]:
     """The team's 300 posts and a model trained on them; the answers before the
     peer's posts; then 500 of the peer's posts imported without metrics
     (and 50 more with metrics, which must stay unread)."""
@@ -181,3 +181,18 @@ def test_forget_removes_reference_posts(make_workspace, embedder: Embedder) -> N
     assert ws.store.follower_counts() == []
     # The account and its mark are gone with it: made again, it is a team account.
     assert not ws.change_account(PEER).reference
+
+
+def test_the_precedents_screen_marks_the_peer(peers: Peers, embedder: Embedder) -> None:
+    from typer.testing import CliRunner
+
+    from service.cli import app as cli_app
+    from service.cli.base import use_embedder
+
+    use_embedder(embedder)
+    env = {"SOUNDING_HOME": str(peers.ws.settings.resolved_home), "SOUNDING_NOW": NOW.isoformat()}
+    res = CliRunner().invoke(cli_app, ["precedents", RECENT, "-k", "3"], env=env, terminal_width=80)
+    assert res.exit_code == 0, res.output
+    first = next(line for line in res.output.splitlines() if "Dawn chorus" in line)
+    assert "reference" in first  # in the metric's place, at any width
+    assert "reference: a reference account's post" in res.output

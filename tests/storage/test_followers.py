@@ -64,7 +64,7 @@ def rows() -> list[dict[str, str]]:
 
 
 @pytest.fixture(scope="module")
-def ws(tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> Iterator[Workspace]:
+def ws(backend: str, tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> Iterator[Workspace]:
     root = tmp_path_factory.mktemp("followers")
     w = Workspace(settings=Settings(home=root / "home"), embedder=embedder)
     (root / "h.csv").write_bytes(history_csv(N, prefix="f", accounts=ACCOUNTS))
