@@ -46,22 +46,30 @@ def as_of(
     """The follower count in force at each post's time: its account's latest
     count at or before the time, NaN where the account had none yet.
 
-    Accounts are any comparable keys (handles, row ids), times numbers on
+    Accounts are any hashable keys (handles, row ids), times numbers on
     one scale (seconds). A binary search per account, the rule of pandas'
     ``merge_asof(direction="backward", by=...)``, without sorting the posts.
     """
     out = np.full(len(post_times), np.nan)
     if len(counts) == 0 or len(post_times) == 0:
         return out
-    post_accounts = np.asarray(post_accounts)
+    import pandas as pd
+
+    # Posts' accounts as small integers once (a hash pass), so each account's
+    # posts are found by comparing integers, not strings, at a million posts.
+    codes, uniques = pd.factorize(pd.Series(np.asarray(post_accounts, dtype=object)))
+    code_of = {u: i for i, u in enumerate(uniques)}
     post_times = np.asarray(post_times, dtype=np.float64)
-    count_accounts = np.asarray(count_accounts)
-    for acc in np.unique(count_accounts):
+    count_accounts = np.asarray(count_accounts, dtype=object)
+    for acc in dict.fromkeys(count_accounts.tolist()):
+        code = code_of.get(acc)
+        if code is None:
+            continue  # counts of an account with no post here
         mine = count_accounts == acc
         order = np.argsort(np.asarray(count_times, dtype=np.float64)[mine], kind="stable")
         times = np.asarray(count_times, dtype=np.float64)[mine][order]
         values = np.asarray(counts, dtype=np.float64)[mine][order]
-        rows = np.flatnonzero(post_accounts == acc)
+        rows = np.flatnonzero(codes == code)
         at = np.searchsorted(times, post_times[rows], side="right") - 1
         known = at >= 0
         out[rows[known]] = values[at[known]]
