@@ -21,7 +21,9 @@ if TYPE_CHECKING:
 
 class Metric(StrEnum):
     """Metrics a forecast or a segment split may be asked for: the snapshot
-    columns and the engagement rate (engagements / impressions)."""
+    columns, the engagement rate (engagements / impressions) and impressions
+    and engagements per 1,000 followers (the account's count in force at
+    the post's time)."""
 
     IMPRESSIONS = "impressions"
     ENGAGEMENTS = "engagements"
@@ -31,12 +33,21 @@ class Metric(StrEnum):
     LINK_CLICKS = "link_clicks"
     PROFILE_CLICKS = "profile_clicks"
     ENGAGEMENT_RATE = "engagement_rate"
+    IMPRESSIONS_PER_1K_FOLLOWERS = "impressions_per_1k_followers"
+    ENGAGEMENTS_PER_1K_FOLLOWERS = "engagements_per_1k_followers"
 
 
 #: Metrics a forecast or a segment split may be asked for, as plain names.
 TARGETS: tuple[str, ...] = tuple(m.value for m in Metric)
+#: Metrics per 1,000 followers, and the count each one divides.
+PER_FOLLOWER: dict[str, str] = {
+    Metric.IMPRESSIONS_PER_1K_FOLLOWERS: "impressions",
+    Metric.ENGAGEMENTS_PER_1K_FOLLOWERS: "engagements",
+}
+#: Metrics worked out from others rather than stored.
+DERIVED: frozenset[str] = frozenset({Metric.ENGAGEMENT_RATE, *PER_FOLLOWER})
 #: Columns of a metric snapshot, in the order of the canonical CSV.
-METRIC_COLUMNS: tuple[str, ...] = tuple(m.value for m in Metric if m is not Metric.ENGAGEMENT_RATE)
+METRIC_COLUMNS: tuple[str, ...] = tuple(m.value for m in Metric if m not in DERIVED)
 #: What is forecast when no metric is named.
 DEFAULT_METRIC = Metric.IMPRESSIONS
 #: Nominal coverage of an interval when none is asked for, and the range that
@@ -69,11 +80,17 @@ def check_target(name: str) -> str:
 def target_values(columns: Mapping[str, Any] | pd.DataFrame, name: str) -> np.ndarray:
     """Target ``name`` for many posts at once, from their metric columns
     (a DataFrame or a mapping of equal-length sequences), as float64 with
-    NaN where it was not measured (engagement_rate needs impressions > 0)."""
+    NaN where it was not measured (engagement_rate needs impressions > 0; a
+    per-follower metric a ``followers`` column, with a count above 0)."""
 
     def column(metric: str) -> np.ndarray:
         return np.asarray(columns[metric], dtype=np.float64)  # None becomes NaN
 
+    if name in PER_FOLLOWER:
+        count = column(PER_FOLLOWER[name])
+        followers = column("followers") if "followers" in columns else np.full(len(count), np.nan)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(followers > 0, count / followers * 1000.0, np.nan)
     if name == Metric.ENGAGEMENT_RATE:
         imp, eng = column("impressions"), column("engagements")
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -81,11 +98,32 @@ def target_values(columns: Mapping[str, Any] | pd.DataFrame, name: str) -> np.nd
     return column(name)
 
 
-def target_value(metrics: Mapping[str, float | int | None], name: str) -> float | None:
-    """The raw value of target ``name`` from one post's metrics, or None
-    where it was not measured (the rule of :func:`target_values`)."""
-    wanted = ("impressions", "engagements") if name == Metric.ENGAGEMENT_RATE else (name,)
-    value = float(target_values({m: [metrics.get(m)] for m in wanted}, name)[0])
+def without_followers(columns: Mapping[str, Any] | pd.DataFrame, name: str) -> int:
+    """How many posts have the count a per-follower metric ``name`` divides
+    but no follower count in force at their time (0 for other metrics):
+    their metric is missing, not guessed."""
+    if name not in PER_FOLLOWER:
+        return 0
+    count = np.asarray(columns[PER_FOLLOWER[name]], dtype=np.float64)
+    if "followers" not in columns:
+        return int(np.isfinite(count).sum())
+    followers = np.asarray(columns["followers"], dtype=np.float64)
+    return int((np.isfinite(count) & ~(followers > 0)).sum())
+
+
+def target_value(
+    metrics: Mapping[str, float | int | None], name: str, *, followers: float | None = None
+) -> float | None:
+    """The raw value of target ``name`` from one post's metrics (and the
+    follower count in force at its time), or None where it was not
+    measured (the rule of :func:`target_values`)."""
+    if name == Metric.ENGAGEMENT_RATE:
+        wanted: tuple[str, ...] = ("impressions", "engagements")
+    else:
+        wanted = (PER_FOLLOWER.get(name, name),)
+    cols: dict[str, list[float | int | None]] = {m: [metrics.get(m)] for m in wanted}
+    cols["followers"] = [followers]
+    value = float(target_values(cols, name)[0])
     return None if np.isnan(value) else value
 
 

@@ -26,7 +26,7 @@ from models.embedding import Embedder
 from models.errors import InputError, ReadOnly, StoreError
 from models.index import DamagedIndex, VectorIndex, fingerprint
 from models.integrity import note_repair
-from service.clock import as_utc
+from service.clock import as_utc, now_utc
 from service.forecast.forecaster import Forecaster
 from service.history.match_modes import Match, matched
 from service.history.precedents import Precedent, precedents_for
@@ -38,6 +38,7 @@ from service.ingest.preview import preview_csv
 from service.settings import Settings
 from service.storage import forgetting, uploads
 from service.storage.accounts import AccountInfo
+from service.storage.followers import check_followers
 from service.storage.locking import LOCK_FILE, WriteLock
 from service.storage.presence import Presence
 from service.storage.store import Store
@@ -386,6 +387,31 @@ class Workspace:
             self.forecaster.warm()
             forgetting.clear_leftovers(self.store, self.settings.uploads_dir)
             return len(pks)
+
+    def change_account(
+        self,
+        handle: str,
+        *,
+        display_name: str | None = None,
+        timezone: str | None = None,
+        reference: bool | None = None,
+        followers: int | None = None,
+        since: datetime | None = None,
+    ) -> AccountInfo:
+        """Create or update an account, as the data directory's one writer:
+        name, zone, reference or team, and a follower count from ``since``
+        on (default: now). Every value is checked before anything is written."""
+        if followers is not None:
+            check_followers(followers)
+        at = _utc_bound(since, "since") or now_utc()
+        with self.writing("an account change"):
+            info = self.store.set_account(
+                handle, display_name=display_name, timezone=timezone, reference=reference
+            )
+            if followers is not None:
+                self.store.set_followers(info.handle, followers, since=at)
+        self.forecaster.warm()
+        return info
 
     def account(self, handle: str) -> AccountInfo:
         """An account's facts (zone, name), cached until the store's change

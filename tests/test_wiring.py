@@ -32,6 +32,7 @@ ENDPOINTS = {
     ("GET", "/v1/mappings"),
     ("POST", "/v1/training"),
     ("DELETE", "/v1/accounts/{handle}"),
+    ("PUT", "/v1/accounts/{handle}"),
     ("DELETE", "/v1/posts/{post_id}"),
 }
 COMMANDS = {

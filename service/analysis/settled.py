@@ -13,7 +13,7 @@ import numpy as np
 from pydantic import BaseModel, Field
 
 from models.errors import NotReady
-from models.metrics import check_target, target_values
+from models.metrics import check_target, target_values, without_followers
 from service.clock import now_utc, parse_since
 from service.datadir import DataDir
 
@@ -30,6 +30,11 @@ class LeftOut(BaseModel):
         description="Posts whose metrics are not final yet (younger than the maturity window)"
     )
     before_since: int = Field(default=0, description="Posts before the requested start")
+    no_followers: int = Field(
+        default=0,
+        description="Of no_metric: posts without a follower count in force at their time "
+        "(a per-follower metric is missing for them, not guessed)",
+    )
 
 
 @dataclass(slots=True)
@@ -66,16 +71,22 @@ def settled_posts(
         no_metric=int((~has_metric).sum()),
         still_gathering=int((has_metric & ~mature).sum()),
         before_since=int((has_metric & mature & ~recent).sum()),
+        no_followers=without_followers(frame, metric),
     )
     n = int(keep.sum())
     if n < min_posts:
         where = f" of account {account}" if account else ""
         raise NotReady(
-            f"only {n} settled posts{where} have {metric}; this needs at least {min_posts}",
+            f"only {n} settled posts{where} have {metric}; this needs at least {min_posts}"
+            + _followers_note(left.no_followers),
             field="metric",
             hint="import more history, or start earlier (--since)",
         )
     return Settled(frame.loc[keep].reset_index(drop=True), values[keep], left)
+
+
+def _followers_note(n: int) -> str:
+    return f" ({n} more have no follower count at their time)" if n else ""
 
 
 __all__ = ["MIN_POSTS", "LeftOut", "Settled", "parse_since", "settled_posts"]

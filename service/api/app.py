@@ -16,6 +16,7 @@ from service import __version__
 from service.api import errors, guard, page
 from service.api.csp import ContentSecurityPolicy
 from service.api.routers import (
+    account_changes,
     account_choice,
     distribution,
     forecasts,
@@ -64,6 +65,7 @@ ROUTERS = (
     mappings,
     training,
     forget,
+    account_changes,
     track_record,
 )
 

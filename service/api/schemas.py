@@ -44,6 +44,7 @@ from service.segments.request import (
     Mode,
 )
 from service.storage.accounts import AccountInfo
+from service.storage.followers import MAX_FOLLOWERS
 from service.track.answers import TrackRecord
 
 # The answers re-exported from the modules that define them (the request models
@@ -134,6 +135,24 @@ class PrecedentsRequest(Strict):
         default=Match.MEANING,
         description="meaning: by the text's embedding; words: by shared words (BM25); "
         "both: the two rankings fused by reciprocal rank fusion",
+    )
+
+
+class AccountChange(Strict):
+    """What to set on an account (created when new); fields left out stay as they are."""
+
+    display_name: str | None = Field(default=None, max_length=400)
+    timezone: str | None = Field(default=None, description="IANA zone its local times are read in")
+    reference: bool | None = Field(
+        default=None,
+        description="true: a peer's account, searched but never measured or learnt from; "
+        "false: one of the team's accounts",
+    )
+    followers: int | None = Field(
+        default=None, ge=0, le=MAX_FOLLOWERS, description="The account's follower count from `since` on"
+    )
+    since: InRangeTime | None = Field(
+        default=None, description="When the follower count was taken (default: now)"
     )
 
 

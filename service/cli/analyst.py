@@ -16,6 +16,7 @@ from models.analyst_plots import check_format
 from models.metrics import DEFAULT_METRIC
 from models.segments import fmt_value
 from service.analysis.distribution import DistributionAnswer, csv_table, distribution, render
+from service.analysis.settled import LeftOut
 from service.analysis.surprises import SurprisesAnswer, surprises
 from service.analysis.surprises import csv_table as surprises_table
 from service.analysis.surprises import render as render_surprises
@@ -65,11 +66,17 @@ def emit(
         say.print(f"table written to {csv_path}", highlight=False)
 
 
+def _no_followers(left: LeftOut) -> str:
+    """The posts a per-follower metric leaves out, said on the screen."""
+    n = left.no_followers
+    return f" ({n:,} more left out: no follower count at their time)" if n else ""
+
+
 def print_distribution(a: DistributionAnswer) -> None:
     m = a.metric
     s = a.summary
     who = f" from {a.account}" if a.account else ""
-    out.print(f"{a.n_posts:,} settled posts with {m}{who}\n", highlight=False)
+    out.print(f"{a.n_posts:,} settled posts with {m}{who}{_no_followers(a.left_out)}\n", highlight=False)
     print_table(
         out,
         [
@@ -136,7 +143,9 @@ def distribution_cmd(
 def print_trends(a: TrendAnswer, *, wide: bool = False) -> None:
     m = a.metric
     who = f" from {a.account}" if a.account else ""
-    out.print(f"{a.n_posts:,} settled posts with {m}{who}, by {a.by}\n", highlight=False)
+    out.print(
+        f"{a.n_posts:,} settled posts with {m}{who}, by {a.by}{_no_followers(a.left_out)}\n", highlight=False
+    )
     for s in a.series:
         rows = [
             [

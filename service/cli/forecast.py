@@ -63,6 +63,11 @@ def train_cmd(
         f"trained {metric} model {m.version} on {m.report['n_train']} posts, "
         f"calibrated on the next {m.report['n_calibration']}"
     )
+    if m.report.get("n_without_followers"):
+        out.print(
+            f"{m.report['n_without_followers']} posts were left out: no follower count was in force "
+            f"at their time, so their {metric} is unknown"
+        )
     if m.report.get("embedding", {}).get("quantize", "none") != "none":
         out.print(
             f"embedding vectors: ONNX {m.report['embedding']['quantize']} "

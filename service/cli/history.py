@@ -36,7 +36,7 @@ from service.cli.mappings import (
 )
 from service.cli.render import Column, print_table
 from service.cli.team_view import print_team
-from service.clock import parse_time
+from service.clock import now_utc, parse_since, parse_time
 from service.history.match_modes import Match
 from service.history.precedents import Precedent, Precedents
 from service.ingest.answers import ImportPreview, ImportSummary
@@ -56,10 +56,35 @@ def account_cmd(
     timezone: str | None = typer.Option(
         None, "--timezone", help="IANA time zone used for the local hour, e.g. Europe/London."
     ),
+    reference: bool | None = typer.Option(
+        None,
+        "--reference/--team",
+        help="--reference: a peer's account, whose posts are searched (precedents, near-repeats, "
+        "topic examples) and may come without metrics, but never measured or learnt from; "
+        "--team: one of the team's own accounts again.",
+    ),
+    followers: int | None = typer.Option(
+        None, "--followers", help="The account's follower count, from --since on (until the next count)."
+    ),
+    since: str | None = typer.Option(
+        None,
+        "--since",
+        help="When the --followers count was taken: a date (UTC midnight) or an ISO 8601 time; default now.",
+    ),
 ) -> None:
-    """Create or update an account."""
-    a = workspace(create=True).store.set_account(handle, display_name=name, timezone=timezone)
-    out.print(f"{a.handle}: {a.display_name or '(no name)'}, {a.timezone}, {a.posts} posts")
+    """Create or update an account: name, zone, reference or team, follower count."""
+    if since is not None and followers is None:
+        raise InputError("--since dates a follower count: give --followers N with it", field="since")
+    at = parse_since(since) or now_utc()  # a date is its UTC midnight
+    a = workspace(create=True).change_account(
+        handle, display_name=name, timezone=timezone, reference=reference, followers=followers, since=at
+    )
+    kind = ", reference account" if a.reference else ""
+    out.print(
+        f"{a.handle}: {a.display_name or '(no name)'}, {a.timezone}, {a.posts} posts{kind}", highlight=False
+    )
+    if followers is not None:
+        out.print(f"{followers:,} followers from {at:%Y-%m-%d %H:%M} UTC", highlight=False)
 
 
 @app.command("accounts")
@@ -102,7 +127,15 @@ def accounts_cmd(
             Column(header="time zone"),
             Column(header="posts", right=True),
         ],
-        [[a.handle, a.display_name or "", a.timezone, f"{a.posts:,}"] for a in rows],
+        [
+            [
+                a.handle + (" (reference)" if a.reference else ""),
+                a.display_name or "",
+                a.timezone,
+                f"{a.posts:,}",
+            ]
+            for a in rows
+        ],
     )
 
 
@@ -296,7 +329,7 @@ def print_precedents(found: list[Precedent], *, title: str = "precedents", wide:
             f"{p.similarity:.2f}",
             p.account,
             p.posted_at.strftime("%Y-%m-%d") + (" *" if p.still_gathering else ""),
-            _n(p.metrics.get("impressions")),
+            "reference" if p.reference else _n(p.metrics.get("impressions")),
             _n(p.metrics.get("engagements")),
             p.text,
         ]
@@ -318,6 +351,11 @@ def print_precedents(found: list[Precedent], *, title: str = "precedents", wide:
     )
     if any(p.still_gathering for p in found):
         out.print("* still gathering: its metrics are not final yet", highlight=False)
+    if any(p.reference for p in found):
+        out.print(
+            "reference: a reference account's post (a peer's), shown without metrics",
+            highlight=False,
+        )
 
 
 def _n(v: int | None) -> str:

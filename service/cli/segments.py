@@ -20,7 +20,7 @@ from service.cli.prose import say
 from service.cli.render import Column, cut, interval_bar, print_table
 from service.cli.tables import whole, write_csv
 from service.clock import parse_since
-from service.segments.answer import SegmentResult, Split
+from service.segments.answer import Example, SegmentResult, Split
 from service.segments.figure import render
 from service.segments.request import (
     BY_CHOICES,
@@ -118,11 +118,16 @@ def print_split(split: Split, metric: str, *, wide: bool = False, details: bool 
             for e in caught:
                 say(
                     out,
-                    f"{e.similarity:.2f}  [{fmt_value(e.value, metric)}]  {_short(e.text, 90)}",
+                    f"{e.similarity:.2f}  [{_example_value(e, metric)}]  {_short(e.text, 90)}",
                     indent="    ",
                     hanging="          ",
                 )
     out.print()
+
+
+def _example_value(e: Example, metric: str) -> str:
+    # A reference post is a peer's: named, never measured.
+    return f"reference: {e.account}" if e.reference else fmt_value(e.value, metric)
 
 
 def print_two_way(result: SegmentResult) -> None:

@@ -23,7 +23,7 @@ import numpy as np
 
 from models import features as F
 from models.artefact import TrainedModel, newest
-from models.errors import NotReady
+from models.errors import InputError, NotReady
 from models.explain import describe, group_contributions
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_coverage, check_target
 from models.stacking import ALL_GROUPS
@@ -32,6 +32,7 @@ from service.forecast.answer import Contributions, Forecast, GroupEffect, from_m
 from service.forecast.calibration import CalibrationSource, adapted_band
 from service.forecast.draft import Draft
 from service.history import viewcache
+from service.history.peers import peer_repeats
 from service.history.precedents import WeightedPrecedent, precedents_for
 from service.history.repeats import near_repeats_many
 from service.history.retrieval import Retriever, WideCache
@@ -101,6 +102,7 @@ class Forecaster:
         self._encode = encode
         self._models: dict[str, TrainedModel] = {}
         self._views: dict[str, tuple[int, HistoryView]] = {}
+        self._peers: tuple[int, HistoryView] | None = None
         #: Keep each view between processes (service.history.viewcache): a cold command
         #: maps it instead of building it. A service keeps its views in memory with
         #: their posts' details, so a forecast asks the store nothing but the counters.
@@ -149,6 +151,19 @@ class Forecaster:
         at least ``min_history_posts`` of them."""
         code = view.account_codes.get(account)
         return 0 if code is None else len(view.history.settled_rows(code)[0])
+
+    def peers(self, metric: str) -> HistoryView:
+        """The reference accounts' posts (service.history.peers), kept until
+        the store's change counter moves."""
+        stamp = self.store.stamp()
+        with self._lock:
+            hit = self._peers
+            if hit is not None and hit[0] == stamp:
+                return hit[1]
+        v = build_view(self.store, metric, with_vectors=False, reference=True)
+        with self._lock:
+            self._peers = (stamp, v)
+        return v
 
     def warm(self) -> None:
         """Rebuild, ahead of the next forecast, the history views already in
@@ -269,8 +284,14 @@ class Forecaster:
         now = now or now_utc()
         least = self.settings.min_history_posts
         for d in drafts:
-            if d.account not in view.account_codes:
-                self.store.account(d.account)  # raises NotFound for unknown accounts
+            if d.account not in view.account_codes and self.store.account(d.account).reference:
+                # (store.account raises NotFound for unknown accounts)
+                raise InputError(
+                    f"{d.account} is a reference account: its posts are searched, never forecast",
+                    field="account",
+                    value=d.account,
+                    hint="choose one of the team's accounts (`sounding accounts`)",
+                )
             n = self.history_posts(view, d.account)
             if n < least:
                 raise NotReady(
@@ -298,6 +319,21 @@ class Forecaster:
             now=now,
             wide=wide,
         )
+        peers = self.peers(metric)
+        if len(peers.history):
+            for mine, theirs in zip(
+                repeats,
+                peer_repeats(
+                    self.retrieval,
+                    self.settings,
+                    peers,
+                    list(zip(vecs, plans, strict=True)),
+                    metric=metric,
+                    now=now,
+                ),
+                strict=True,
+            ):
+                mine.extend(theirs)
         facts = None if calibration is None else calibration.facts(model)
         bands, infos = [], []
         for i in range(len(drafts)):

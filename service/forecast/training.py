@@ -13,7 +13,7 @@ from models import features as F
 from models.artefact import TrainedModel
 from models.backtest import run_backtest
 from models.errors import NotReady
-from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_target
+from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_target, without_followers
 from models.stack_columns import extra_columns
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
 from service.clock import now_utc, wall_clock
@@ -79,9 +79,13 @@ def _train(
     view = build_view(ws.store, metric, with_vectors=True)
     X, y, times = training_set(view, params, now, **scale_options(ws.settings))
     if len(y) < MIN_TRAINING_POSTS:
+        missing = without_followers(view.frame, metric) if view.frame is not None else 0
         raise NotReady(
-            f"{len(y)} mature posts with {metric}; training needs at least {MIN_TRAINING_POSTS}",
-            hint="import more history",
+            f"{len(y)} mature posts with {metric}; training needs at least {MIN_TRAINING_POSTS}"
+            + (f" ({missing} more have no follower count at their time)" if missing else ""),
+            hint="give the accounts' follower counts (`sounding account HANDLE --followers N --since DATE`)"
+            if missing
+            else "import more history",
         )
     # The text model's time-ordered column and the account code (models.stacking).
     X, text = with_extra_columns(view, params, now, X, ws.settings)
@@ -97,6 +101,8 @@ def _train(
         "trained_at": now_utc().isoformat(),
         "data_as_of": now.isoformat(),
         "n_posts": len(y),
+        # Per-follower metrics: posts left out for want of a follower count at their time.
+        "n_without_followers": without_followers(view.frame, metric) if view.frame is not None else 0,
         "n_train": int(cut),
         "n_calibration": int(len(y) - cut),
         "train_until": datetime.fromtimestamp(times[cut - 1], tz=now.tzinfo).isoformat(),

@@ -25,6 +25,13 @@ class Precedent(BaseModel):
     still_gathering: bool = Field(
         description="True while the post's metrics are not final yet (younger than the maturity window)"
     )
+    reference: bool = Field(
+        default=False,
+        description="A reference account's post (a peer's): found by its text, shown without metrics",
+    )
+    followers: int | None = Field(
+        default=None, description="The account's follower count at the post's time, where one is known"
+    )
     has_link: bool = Field(default=False, exclude=True)
     has_media: bool = Field(default=False, exclude=True)
 
@@ -68,7 +75,9 @@ def precedents_for(
                 text=d["text"],
                 similarity=sim,
                 metrics=d["metrics"],
-                still_gathering=d["posted_at"] > cutoff,
+                still_gathering=d["posted_at"] > cutoff and not d.get("reference", False),
+                reference=bool(d.get("reference", False)),
+                followers=d.get("followers"),
                 has_link=d["has_link"],
                 has_media=d["has_media"],
             )

@@ -24,7 +24,10 @@ DAY = 86400.0
 class Repeat(BaseModel):
     """A recent post that a draft nearly repeats."""
 
-    scope: Literal["own", "team"] = Field(description="own: the draft's account; team: another account")
+    scope: Literal["own", "team", "reference"] = Field(
+        description="own: the draft's account; team: another of the team's accounts; "
+        "reference: a reference account's post (a peer's, shown without metrics)"
+    )
     post_id: str
     account: str
     posted_at: Instant
@@ -57,6 +60,11 @@ def repeat_message(
     what = f"{post_id} on {posted_at:%Y-%m-%d}, {how}, similarity {similarity:.2f}: \u201c{snippet}\u201d"
     if scope == "own":
         return f"near-repeat: {account} posted something very similar {ago}: {what}"
+    if scope == "reference":
+        snippet_only = (
+            f"{post_id} on {posted_at:%Y-%m-%d}, similarity {similarity:.2f}: \u201c{snippet}\u201d"
+        )
+        return f"near-repeat of a peer: {account} posted something like this {ago}: {snippet_only}"
     return (
         f"near-repeat on the team: someone on the team ({account}) posted something "
         f"very similar {ago}: {what}"
@@ -158,7 +166,7 @@ def _repeat(
         "days_before": (t - posted) / DAY,
         "similarity": float(sim),
         "metric": view.metric,
-        "value": target_value(_metrics(rec["metrics"]), view.metric),
+        "value": target_value(_metrics(rec["metrics"]), view.metric, followers=rec.get("followers")),
         "still_gathering": not bool(posted <= now.timestamp() - maturity),
     }
     message = repeat_message(**fields, text=str(rec["text"]), planned_is_now=abs(t - now.timestamp()) < DAY)

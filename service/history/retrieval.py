@@ -26,6 +26,10 @@ from service.storage.store import Store
 
 #: Nearest posts fetched per draft in one unfiltered pass before filtering.
 WIDE = 200
+#: Posts the index holds beyond a view (reference accounts' posts) are
+#: skipped by fetching that many more; past this many, the search is limited
+#: to the view's posts instead.
+OVERFETCH_MAX = 2000
 
 Hits = list[tuple[int, float]]  # (store row id, similarity), best first
 Found = tuple[np.ndarray, np.ndarray]  # (History rows, similarities), best first
@@ -108,11 +112,19 @@ class Retriever:
         if (allowed is not None and len(allowed) == 0) or k < 1:
             return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.float32)
         pks = None if allowed is None else view.history.pk[allowed]
-        sims, ids = self._search(np.asarray(vec, dtype=np.float32).reshape(1, -1), k, pks)
+        q = np.asarray(vec, dtype=np.float32).reshape(1, -1)
+        with self._lock:
+            index = self._index()
+            # Posts outside the view (a peer's) must not take the places of
+            # the view's own nearest posts.
+            extra = 0 if pks is not None else max(0, index.ntotal - len(view.history))
+            if extra > OVERFETCH_MAX:
+                pks, extra = view.history.pk, 0
+            sims, ids = index.search(q, k + extra, allowed_ids=pks)
         ids, sims = ids[0], sims[0]
         live = ids >= 0
         rows, held = view.rows_for(ids[live])
-        return rows, np.asarray(sims[live][held], dtype=np.float32)
+        return rows[:k], np.asarray(sims[live][held], dtype=np.float32)[:k]
 
     def wide(
         self, view: HistoryView, vec: np.ndarray, params: F.FeatureParams, cache: WideCache | None = None

@@ -41,6 +41,8 @@ class HistoryView:
     zones: dict[int, str]  # account code -> IANA zone
     #: Posts by store row id (``Store.posts_by_pk``), for a view without a frame.
     lookup: Callable[[Sequence[int]], dict[int, dict[str, Any]]] | None = None
+    #: A view of the reference accounts' posts (service.history.peers) rather than the team's.
+    reference: bool = False
     _columns: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
 
     def details(self, rows: Sequence[int]) -> dict[int, dict[str, Any]]:
@@ -58,19 +60,21 @@ class HistoryView:
             made.update({c: f[c].to_numpy() for c in ("pk", "has_link", "has_media")})
             made["posted_at"] = f["posted_at"].dt.tz_convert(UTC).to_numpy("datetime64[us]").astype(np.int64)
             made["metrics"] = f[list(METRIC_COLUMNS)].to_numpy(np.float64)
+            made["followers"] = f["followers"].to_numpy(np.float64)
             self._columns.update(made)  # one step: another thread sees all or nothing
         c = self._columns
         idx = np.asarray(rows, dtype=np.int64)
         # One take per column, then plain Python values.
         post_ids, accounts, texts = (c[k].take(idx).tolist() for k in ("post_id", "account", "text"))
         out: dict[int, dict[str, Any]] = {}
-        for j, (pk, micros, link, media, values) in enumerate(
+        for j, (pk, micros, link, media, values, followers) in enumerate(
             zip(
                 c["pk"][idx].tolist(),
                 c["posted_at"][idx].tolist(),
                 c["has_link"][idx].tolist(),
                 c["has_media"][idx].tolist(),
                 c["metrics"][idx].tolist(),
+                c["followers"][idx].tolist(),
                 strict=True,
             )
         ):
@@ -85,6 +89,8 @@ class HistoryView:
                 "metrics": {
                     m: None if math.isnan(v) else int(v) for m, v in zip(METRIC_COLUMNS, values, strict=True)
                 },
+                "reference": self.reference,
+                "followers": None if math.isnan(followers) else int(followers),
             }
         return out
 
@@ -115,10 +121,12 @@ def local_clock(times: pd.Series, zones: pd.Series) -> tuple[np.ndarray, np.ndar
     return hours, days
 
 
-def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
+def build_view(store: Store, metric: str, *, with_vectors: bool, reference: bool = False) -> HistoryView:
+    """The team's posts as a view for ``metric``; ``reference`` the reference
+    accounts' posts instead (searched, never measured: no target)."""
     import pandas as pd
 
-    frame = store.posts_frame()
+    frame = store.posts_frame(reference=reference)
     logs = np.log1p(target_values(frame, metric))
     codes = {h: i for i, h in enumerate(sorted(frame["account"].unique()))}
     vecs = (
@@ -142,7 +150,7 @@ def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
             F.text_form(t, bool(lk), bool(md))
             for t, lk, md in zip(frame["text"], frame["has_link"], frame["has_media"], strict=True)
         ]
-    ).reshape(len(frame), -1)
+    ).reshape(len(frame), len(F.text_form("", False, False)))  # an empty view keeps its width
     zones = {codes[a]: str(z) for a, z in zip(frame["account"], frame["timezone"], strict=True)}
     return HistoryView(
         metric,
@@ -153,6 +161,7 @@ def build_view(store: Store, metric: str, *, with_vectors: bool) -> HistoryView:
         forms,
         codes,
         zones,
+        reference=reference,
     )
 
 

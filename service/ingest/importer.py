@@ -6,7 +6,10 @@ The canonical columns are::
     reposts, replies, link_clicks, profile_clicks, has_media, engagement_rate
 
 ``post_id``, ``text``, ``posted_at`` and at least one metric column are
-required; ``account`` may come from ``account=`` instead. A column mapping
+required (a file of reference accounts' posts only may have none: their
+metrics are never read); ``account`` may come from ``account=`` instead. An
+optional ``followers`` column gives the account's follower count at the
+post's time (service.storage.followers). A column mapping
 (``ours=theirs``) reads any export whose columns are named differently, and
 :class:`ImportOptions` say how its times and numbers are written: a strptime
 pattern or Unix times, the order of numeric dates, a decimal comma. Counts
@@ -33,7 +36,7 @@ from __future__ import annotations
 
 import csv
 from collections import Counter
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from decimal import ROUND_HALF_EVEN, Decimal
 from pathlib import Path
@@ -54,6 +57,7 @@ from service.ingest.numbers import MAX_COUNT, NumberError, Reading, read_count, 
 from service.ingest.options import CANONICAL_COLUMNS, RATE_COLUMN, REQUIRED_COLUMNS, ImportOptions
 from service.ingest.timestamps import TimeReader, check_date_order
 from service.settings import DEFAULT_MAX_TEXT_CHARS
+from service.storage.followers import MAX_FOLLOWERS
 from service.storage.handles import HANDLE_RULE, fold_handle, handle_problem
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
@@ -89,6 +93,7 @@ class RowReader:
         account_zones: dict[str, str],
         embedder: Embedder,
         max_text_chars: int = DEFAULT_MAX_TEXT_CHARS,
+        reference: frozenset[str] = frozenset(),
     ) -> None:
         self.records = RecordReader(handle)
         self.max_text_chars = max_text_chars
@@ -98,6 +103,7 @@ class RowReader:
         self.account = options.account
         self.timezone = options.timezone
         self.account_zones = account_zones
+        self.reference = reference
         self.embedder = embedder
         self.times = TimeReader(layout=options.layout())
         self.seen: dict[tuple[str, str], int] = {}
@@ -147,12 +153,21 @@ class RowReader:
                 hint="rename with --map ours=theirs"
                 + (", or give --account" if "account" in missing else ""),
             )
-        if not any(m in pos for m in METRIC_COLUMNS):
-            raise CSVFormatError(
-                f"no metric column; need at least one of {', '.join(METRIC_COLUMNS)}",
-                where=self.where,
-            )
         return pos
+
+    def check_metric_columns(self, accounts: Iterable[str]) -> None:
+        """A file without a metric column may hold reference accounts' posts only."""
+        if any(m in self.positions for m in METRIC_COLUMNS):
+            return
+        team = sorted(set(accounts) - self.reference)
+        if team or not self.reference & set(accounts):
+            why = f" (only a reference account's posts may come without; {team[0]} is not one)"
+            raise CSVFormatError(
+                f"no metric column; need at least one of {', '.join(METRIC_COLUMNS)}" + (why if team else ""),
+                where=self.where,
+                hint="mark a peer's account with `sounding account HANDLE --reference` to import "
+                "its posts without metrics",
+            )
 
     @property
     def line_num(self) -> int:
@@ -238,8 +253,9 @@ class RowReader:
             except NumberError as exc:
                 raise _Reject(m, exc.reason, exc.hint) from None
         self._rate(fields, readings)
-        if all(v is None for v in readings.values()):
+        if all(v is None for v in readings.values()) and account not in self.reference:
             raise _Reject(None, "has no metric value")
+        followers = self._followers(fields)
         media_raw = self._get(fields, "has_media")
         has_media: bool | None = None
         if media_raw is not None:
@@ -266,7 +282,20 @@ class RowReader:
             line=line,
             approximate=frozenset(m for m, r in readings.items() if r is not None and r.approximate),
             labels=labels,
+            followers=followers,
         )
+
+    def _followers(self, fields: list[str]) -> int | None:
+        raw = self._get(fields, "followers")
+        if raw is None or not raw.strip():
+            return None
+        try:
+            reading = read_count(raw, decimal_comma=self.options.decimal_comma)
+        except NumberError as exc:
+            raise _Reject("followers", exc.reason, exc.hint) from None
+        if reading.value > MAX_FOLLOWERS:
+            raise _Reject("followers", f"{raw.strip()!r} is above {MAX_FOLLOWERS:,}", "check the column")
+        return int(reading.value)
 
     def _rate(self, fields: list[str], readings: dict[str, Reading | None]) -> None:
         """Check an engagement rate against engagements / impressions, or
@@ -339,7 +368,9 @@ def open_rows(
     new_accounts, encoding = options.new_accounts, options.encoding
     codec = codec_of(encoding)
     total_lines = check_encoding(path, encoding)
-    zones = {a.handle: a.timezone for a in store.accounts()}
+    known = store.accounts()
+    zones = {a.handle: a.timezone for a in known}
+    reference = frozenset(a.handle for a in known if a.reference)
 
     def rows(handle: TextIO) -> RowReader:
         return RowReader(
@@ -349,6 +380,7 @@ def open_rows(
             account_zones=zones,
             embedder=embedder,
             max_text_chars=max_text_chars,
+            reference=reference,
         )
 
     # utf-8-sig drops a byte-order mark; newline="" lets csv see quoted line breaks.
@@ -368,6 +400,7 @@ def open_rows(
         )
         for _ in values:  # the date check may not need every row; the accounts do
             pass
+        r.check_metric_columns([*named, *([options.account] if options.account else [])])
     new = accounts_to_create(
         store, account=options.account, column=named, new_accounts=new_accounts, where=str(path)
     )

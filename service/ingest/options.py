@@ -24,6 +24,7 @@ CANONICAL_COLUMNS: tuple[str, ...] = (
     "has_media",
     RATE_COLUMN,
     "draft_id",  # optional: the draft a post fulfils (service.track.record)
+    "followers",  # optional: the account's follower count at the post's time
 )
 REQUIRED_COLUMNS: tuple[str, ...] = ("post_id", "text", "posted_at")
 

@@ -90,6 +90,7 @@ def _column_uses(rows: RowReader) -> list[ColumnUse]:
         "has_media": "true or false",
         RATE_COLUMN: "rate (4.5% or 0.045), checked against engagements / impressions",
         **dict.fromkeys(METRIC_COLUMNS, number + " (1,234, 1.2K marked approximate)"),
+        "followers": number + ": the account's follower count at the post's time",
     }
     out = []
     for col in CANONICAL_COLUMNS:

@@ -23,7 +23,11 @@ class Example(BaseModel):
     posted_at: datetime
     text: str
     similarity: float = Field(description="Cosine similarity to the topic's phrase(s)")
-    value: Num = Field(description="The post's value of the metric")
+    value: Num = Field(description="The post's value of the metric (none for a reference post)")
+    reference: bool = Field(
+        default=False,
+        description="A reference account's post (a peer's): shown for its text, counted in no segment",
+    )
 
     @field_serializer("similarity")
     def _rounded(self, similarity: float) -> float:
@@ -113,6 +117,11 @@ class LeftOut(BaseModel):
     no_metric: int = Field(description="Posts without the metric")
     still_gathering: int = Field(
         description="Posts whose metrics are not final yet (younger than the maturity window)"
+    )
+    no_followers: int = Field(
+        default=0,
+        description="Of no_metric: posts without a follower count in force at their time "
+        "(a per-follower metric is missing for them, not guessed)",
     )
 
 

@@ -34,7 +34,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from models.errors import InputError, NotReady
-from models.metrics import target_values
+from models.metrics import target_values, without_followers
 from models.segment_bins import (
     assign_nearest,
     bucket_hours,
@@ -49,6 +49,7 @@ from service.datadir import DataDir
 from service.history.view import local_clock
 from service.segments.answer import Example, LeftOut, SegmentResult, Split
 from service.segments.labels import by_label
+from service.segments.peer_examples import peer_examples
 from service.segments.request import (
     LINK_NAMES,
     MEDIA_NAMES,
@@ -88,7 +89,11 @@ def _posts(ws: DataDir, req: SegmentRequest, now: datetime) -> tuple[_Posts, dic
     cutoff = pd.Timestamp(now - timedelta(hours=float(ws.settings.maturity_hours)))
     mature = (frame["posted_at"] <= cutoff).to_numpy()
     keep = has_metric & mature
-    left_out = {"no_metric": int((~has_metric).sum()), "still_gathering": int((has_metric & ~mature).sum())}
+    left_out = {
+        "no_metric": int((~has_metric).sum()),
+        "still_gathering": int((has_metric & ~mature).sum()),
+        "no_followers": without_followers(frame, req.metric),
+    }
     n = int(keep.sum())
     if n < MIN_POSTS:
         where = f" of account {req.account}" if req.account else ""
@@ -313,6 +318,13 @@ def _topic_split(
     if OTHER in members:
         # The "other" posts closest to any topic: what the threshold just missed.
         examples[OTHER] = _examples(posts, members[OTHER], sims.max(axis=1), req.examples)
+    if req.account is None:  # one account's split asks nothing of peers
+        peers = peer_examples(
+            ws, topic_vecs, names, n=req.examples, threshold=req.threshold if nearest else None
+        )
+        for name, found in peers.items():
+            if name in examples:
+                examples[name] = examples[name] + found
     split = Split.of(
         report,
         by=TOPIC,
@@ -379,6 +391,11 @@ def segment(ws: DataDir, req: SegmentRequest, *, now: datetime | None = None) ->
                 f"{small} of {table.n.size} cells of the topic x {req.by} table have fewer "
                 f"than {req.min_n} posts: read their medians as rough"
             )
+    if left_out["no_followers"]:
+        warnings.append(
+            f"{left_out['no_followers']} posts are left out: no follower count was in force at "
+            f"their time, so their {req.metric} is unknown"
+        )
     if left_out["still_gathering"]:
         warnings.append(
             f"{left_out['still_gathering']} posts younger than "

@@ -93,7 +93,8 @@ window.Sounding = (() => {
   }
 
   async function fillAccounts(select, { anyLabel } = {}) {
-    const list = await loadAccounts();
+    // A reference account (a peer's) is searched, never forecast or measured.
+    const list = (await loadAccounts()).filter((a) => !a.reference);
     select.replaceChildren();
     if (anyLabel) select.append(node("option", { value: "" }, anyLabel));
     for (const a of list) {

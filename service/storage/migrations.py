@@ -42,9 +42,17 @@ from sqlalchemy.schema import CreateColumn
 from models.errors import StoreError
 from service.clock import now_utc, to_naive_utc
 from service.storage import keywords
-from service.storage.tables import HISTORY_STAMP, SCORING_STAMP, Base, ChangeStamp, SchemaVersion
+from service.storage.tables import (
+    HISTORY_STAMP,
+    SCORING_STAMP,
+    Account,
+    Base,
+    ChangeStamp,
+    FollowerCount,
+    SchemaVersion,
+)
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 
 # The tables of version 0, the layout before versions: a database holding
 # all of them and no schema_version table is such a store.
@@ -84,8 +92,20 @@ def _v2_to_v3(conn: Connection) -> None:
     Base.metadata.create_all(conn, tables=[Base.metadata.tables["post_labels"]])
 
 
+def _v3_to_v4(conn: Connection) -> None:
+    """Version 4 adds reference accounts (accounts.reference) and the accounts'
+    follower counts over time (follower_counts)."""
+    add_column(conn, "accounts", Base.metadata.tables[Account.__tablename__].c.reference)
+    Base.metadata.create_all(conn, tables=[Base.metadata.tables[FollowerCount.__tablename__]])
+
+
 # STEPS[v] takes a store from version v - 1 to version v.
-STEPS: dict[int, Callable[[Connection], None]] = {1: _v0_to_v1, 2: _v1_to_v2, 3: _v2_to_v3}
+STEPS: dict[int, Callable[[Connection], None]] = {
+    1: _v0_to_v1,
+    2: _v1_to_v2,
+    3: _v2_to_v3,
+    4: _v3_to_v4,
+}
 
 
 def stored_version(conn: Connection) -> int | None:

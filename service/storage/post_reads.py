@@ -39,6 +39,7 @@ def _posts_part(rows: Sequence[Any], columns: list[str]) -> pd.DataFrame:
     df["pk"] = df["pk"].astype("int64")
     df["has_link"] = df["has_link"].astype(bool)
     df["has_media"] = df["has_media"].astype(bool)
+    df["reference"] = df["reference"].astype(bool)
     return df
 
 
@@ -99,14 +100,16 @@ class PostReads(AccountRecords):
     def fingerprint(self) -> str:
         return fingerprint(self.index_pairs())
 
-    def posts_frame(self, *, account: str | None = None) -> pd.DataFrame:
-        """Every post with its current metrics, one row a post, oldest first.
+    def posts_frame(self, *, account: str | None = None, reference: bool | None = False) -> pd.DataFrame:
+        """Every post of the team's accounts with its current metrics, one row
+        a post, oldest first; ``reference=True`` the reference accounts' posts
+        instead (their metrics blank), None both.
 
         Columns: pk, account, timezone, post_id, text, posted_at (aware UTC),
-        has_link, has_media, vector_key and one column per metric.
+        has_link, has_media, vector_key, one column per metric and followers
+        (the account's count in force at the post's time, NaN where none is
+        known: service.storage.followers).
         """
-        import pandas as pd
-
         latest = (
             select(Snapshot.post_pk, func.max(Snapshot.id).label("sid")).group_by(Snapshot.post_pk).subquery()
         )
@@ -122,6 +125,7 @@ class PostReads(AccountRecords):
                 Post.has_media,
                 Post.vector_key,
                 *[getattr(Snapshot, m) for m in METRIC_COLUMNS],
+                Account.reference.label("reference"),
             )
             .join(Account, Account.id == Post.account_id)
             .outerjoin(latest, latest.c.post_pk == Post.id)
@@ -131,6 +135,20 @@ class PostReads(AccountRecords):
         if account is not None:
             self.account(account)
             q = q.where(Account.handle == account)
+        if reference is not None:
+            q = q.where(Account.reference.is_(reference))
+        df = self._frame_of(q)
+        if reference is not False and len(df):
+            # A peer's numbers are never read, even where its export had them.
+            df.loc[df["reference"].to_numpy(bool), list(METRIC_COLUMNS)] = np.nan
+        df = df.drop(columns=["reference"])
+        seconds = df["posted_at"].astype("datetime64[us, UTC]").astype("int64").to_numpy() / 1e6
+        df["followers"] = self.followers_at(df["account"].to_numpy(object), seconds)
+        return df
+
+    def _frame_of(self, q: Any) -> pd.DataFrame:
+        import pandas as pd
+
         # Rows are read and typed a chunk at a time: a million rows fetched at
         # once as Python objects hold about 2 GB for a frame of 360 MB.
         with self.session() as s:
@@ -164,7 +182,7 @@ class PostReads(AccountRecords):
             .subquery()
         )
         q = (
-            select(Post, Account.handle, Snapshot)
+            select(Post, Account.handle, Account.reference, Snapshot)
             .join(Account, Account.id == Post.account_id)
             .outerjoin(latest, latest.c.post_pk == Post.id)
             .outerjoin(Snapshot, Snapshot.id == latest.c.sid)
@@ -172,7 +190,8 @@ class PostReads(AccountRecords):
         )
         out: dict[int, dict[str, Any]] = {}
         with self.session() as s:
-            for post, handle, snap in s.execute(q):
+            for post, handle, reference, found in s.execute(q):
+                snap = None if reference else found  # a peer's numbers are never read
                 out[post.id] = {
                     "pk": post.id,
                     "post_id": post.post_id,
@@ -182,7 +201,14 @@ class PostReads(AccountRecords):
                     "has_link": post.has_link,
                     "has_media": post.has_media,
                     "metrics": {m: getattr(snap, m) if snap else None for m in METRIC_COLUMNS},
+                    "reference": bool(reference),
                 }
+        if out:
+            counts = self.followers_at(
+                [d["account"] for d in out.values()], [d["posted_at"].timestamp() for d in out.values()]
+            )
+            for d, n in zip(out.values(), counts.tolist(), strict=True):
+                d["followers"] = None if n != n else int(n)
         return out
 
     def pks_where(
@@ -191,12 +217,18 @@ class PostReads(AccountRecords):
         account: str | None = None,
         since: datetime | None = None,
         until: datetime | None = None,
+        reference: bool | None = None,
     ) -> np.ndarray:
-        """Row ids of posts of one account and/or inside a date range."""
+        """Row ids of posts of one account and/or inside a date range (and of
+        the reference accounts only, or of the team's only)."""
         q = select(Post.id)
+        if account is not None or reference is not None:
+            q = q.join(Account, Account.id == Post.account_id)
         if account is not None:
             self.account(account)
-            q = q.join(Account, Account.id == Post.account_id).where(Account.handle == account)
+            q = q.where(Account.handle == account)
+        if reference is not None:
+            q = q.where(Account.reference.is_(reference))
         if since is not None:
             q = q.where(Post.posted_at >= to_naive_utc(since))
         if until is not None:

@@ -19,6 +19,7 @@ from service.storage.labels import Asked
 from service.storage.tables import (
     Account,
     ApproximateValue,
+    FollowerCount,
     Post,
     Snapshot,
     Vector,
@@ -41,6 +42,7 @@ class PostRow:
     #: The labels asked for (service.storage.labels), None for an empty cell;
     #: None when the import asked for no labels, so stored ones stay as they are.
     labels: Asked | None = None
+    followers: int | None = None  # the account's follower count at the post's time
 
 
 @dataclass(slots=True)
@@ -188,9 +190,31 @@ class PostWrites(StoreBase):
             )
             labels.replace(s, [(post.id, asked) for post, asked in relabelled])
             res.changed_pks.extend(post.id for post in new_posts)
+            self._write_followers(
+                s, {(accounts[r.account].id, to_naive_utc(r.posted_at)): r.followers for r in rows}
+            )
             reworded = set(res.changed_pks)
             keywords.add(s.connection(), [(p.id, p.text) for p in stored.values() if p.id in reworded])
         return res
+
+    @staticmethod
+    def _write_followers(s: Session, given: dict[tuple[int, datetime], int | None]) -> None:
+        """A row's follower count, as its account's count from the post's time on."""
+        wanted = {k: n for k, n in given.items() if n is not None}
+        if not wanted:
+            return
+        times = list({t for _, t in wanted})
+        for i in range(0, len(times), 900):
+            for fc in s.scalars(
+                select(FollowerCount).where(
+                    FollowerCount.account_id.in_({a for a, _ in wanted}),
+                    FollowerCount.since.in_(times[i : i + 900]),
+                )
+            ):
+                n = wanted.pop((fc.account_id, fc.since), None)
+                if n is not None and fc.followers != n:
+                    fc.followers = n
+        s.add_all(FollowerCount(account_id=a, since=t, followers=n) for (a, t), n in wanted.items())
 
     @staticmethod
     def _rough_lookup(s: Session, snapshots: Iterable[Snapshot]) -> dict[int, frozenset[str]]:

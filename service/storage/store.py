@@ -26,6 +26,7 @@ from service.storage.post_reads import PostReads
 from service.storage.post_writes import PostWrites
 from service.storage.tables import (
     Account,
+    FollowerCount,
     Post,
     Snapshot,
     Vector,
@@ -123,6 +124,8 @@ class Store(PostWrites, PostReads, PostLabels):
             for i in range(0, len(unused), 900):
                 s.execute(delete(Vector).where(Vector.key.in_(unused[i : i + 900])))
             if account is not None and post_id is None:
+                assert acc is not None
+                s.execute(delete(FollowerCount).where(FollowerCount.account_id == acc.id))
                 s.execute(delete(Account).where(Account.handle == account))
         return pks
 

@@ -21,6 +21,7 @@ from sqlalchemy import (
     String,
     Text,
     UniqueConstraint,
+    false,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column, relationship
 
@@ -42,6 +43,9 @@ class Account(Base):
     # IANA zone name; the local hour of a post is read in it.
     timezone: Mapped[str] = mapped_column(String(64), nullable=False, default="UTC")
     created_at: Mapped[datetime] = mapped_column(DateTime, nullable=False)
+    # A reference account (a peer's): its posts are searched (precedents,
+    # near-repeats, topic examples) but never measured, learnt from or scored.
+    reference: Mapped[bool] = mapped_column(Boolean, nullable=False, default=False, server_default=false())
 
     posts: Mapped[list[Post]] = relationship(
         back_populates="account", cascade="all, delete-orphan", passive_deletes=True
@@ -119,6 +123,17 @@ class PostLabel(Base):
     post_pk: Mapped[int] = mapped_column(ForeignKey("posts.id", ondelete="CASCADE"), primary_key=True)
     name: Mapped[str] = mapped_column(String(LABEL_CHARS), primary_key=True)
     value: Mapped[str] = mapped_column(String(LABEL_CHARS), nullable=False)
+
+
+class FollowerCount(Base):
+    """An account's follower count from a time on: it holds until the account's
+    next count (the as-of rule of ``service.storage.followers``)."""
+
+    __tablename__ = "follower_counts"
+
+    account_id: Mapped[int] = mapped_column(ForeignKey("accounts.id", ondelete="CASCADE"), primary_key=True)
+    since: Mapped[datetime] = mapped_column(DateTime, primary_key=True)
+    followers: Mapped[int] = mapped_column(BigInteger, nullable=False)
 
 
 class Vector(Base):

@@ -151,7 +151,11 @@ def score(ws: TrackedDir, *, now: datetime | None = None) -> int:
     details = ws.store.posts_by_pk([pk for _, pk, *_ in rows])
     scores = []
     for mid, pk, metric, outcome, lo, hi in rows:
-        value = target_value(details[pk]["metrics"], metric) if pk in details else None
+        value = (
+            target_value(details[pk]["metrics"], metric, followers=details[pk].get("followers"))
+            if pk in details
+            else None
+        )
         if value is None or value == outcome:
             continue
         outcome_log = math.log1p(value)

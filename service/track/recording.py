@@ -40,7 +40,9 @@ def record_forecasts(
         prec = [
             math.log1p(v)
             for p in f.precedents
-            if p.weight > 0 and not p.still_gathering and (v := target_value(p.metrics, f.metric)) is not None
+            if p.weight > 0
+            and not p.still_gathering
+            and (v := target_value(p.metrics, f.metric, followers=p.followers)) is not None
         ]
         lo, med, hi = f.log
         rows.append(
@@ -72,7 +74,7 @@ def record_forecasts(
                             "account": p.account,
                             "text": p.text[:280],
                             "similarity": round(p.similarity, 4),
-                            "value": target_value(p.metrics, f.metric),
+                            "value": target_value(p.metrics, f.metric, followers=p.followers),
                         }
                         for p in f.precedents[:5]
                     ],

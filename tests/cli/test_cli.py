@@ -158,7 +158,13 @@ def test_import_with_mapping_and_account(tmp_path: Path) -> None:
     ]
     accounts = json.loads(run("accounts", "--json").stdout)
     assert accounts == [
-        {"handle": "garden", "display_name": "The Garden", "timezone": "Europe/London", "posts": 2}
+        {
+            "handle": "garden",
+            "display_name": "The Garden",
+            "timezone": "Europe/London",
+            "posts": 2,
+            "reference": False,
+        }
     ]
     r = run("reindex")
     assert r.exit_code == 0 and "index rebuilt: 2 posts" in r.stdout

@@ -242,7 +242,7 @@ def test_a_version_2_store_gains_labels_and_keeps_its_rows(database_url: str) ->
         eng.dispose()
     store = Store(url=database_url)
     try:
-        assert raw(database_url, "SELECT version FROM schema_version") == [(3,)]
+        assert raw(database_url, "SELECT version FROM schema_version") == [(SCHEMA_VERSION,)]
         assert raw(database_url, "SELECT COUNT(*) FROM post_labels") == [(0,)]
         df = store.posts_frame()
         assert list(df["post_id"]) == ["p1"] and df["impressions"].tolist() == [1234.0]
