@@ -77,7 +77,7 @@ def period_starts(times: pd.Series, by: str) -> pd.Series:
     if by == "month":
         start = t.dt.to_period("M").dt.start_time
     else:
-        start = t.dt.normalize() - pd.to_timedelta(t.dt.weekday, unit="D")
+        start = t.dt.normalize() - pd.to_timedelta(t.dt.day_of_week, unit="D")
     return start.dt.tz_localize("UTC")
 
 

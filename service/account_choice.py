@@ -167,7 +167,7 @@ def _handles(ws: TrackedDir, accounts: Sequence[str] | str) -> list[str]:
     if not asked:
         raise InputError("say which accounts to compare, or 'all'", field="accounts")
     if EVERY in asked:
-        return [a.handle for a in ws.store.accounts()]
+        return [a.handle for a in ws.store.accounts() if not a.reference]  # peers are never forecast
     # Unknown handles raise NotFound with the closest matches.
     # (a handle no account could hold is simply unknown, as on every other door).
     return list(dict.fromkeys(ws.store.account(fold_handle(a)).handle for a in asked))

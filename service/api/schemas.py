@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from datetime import date, datetime
 from typing import Annotated, Literal, TypeVar
+from zoneinfo import available_timezones
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, field_validator
 
@@ -138,11 +139,19 @@ class PrecedentsRequest(Strict):
     )
 
 
+#: The IANA zone names this machine knows (the tz database of tzdata or the system).
+ZONE_NAMES = sorted(available_timezones())
+
+
 class AccountChange(Strict):
     """What to set on an account (created when new); fields left out stay as they are."""
 
     display_name: str | None = Field(default=None, max_length=400)
-    timezone: str | None = Field(default=None, description="IANA zone its local times are read in")
+    timezone: str | None = Field(
+        default=None,
+        description="IANA zone its local times are read in",
+        json_schema_extra={"enum": ZONE_NAMES},
+    )
     reference: bool | None = Field(
         default=None,
         description="true: a peer's account, searched but never measured or learnt from; "

@@ -23,6 +23,12 @@ from models.errors import InputError, NotFound
 
 MAX_HANDLE = 200
 PUNCTUATION = "_.-"
+#: What a handle can never hold, as a regular expression that means the same
+#: in Python and in JSON Schema (ECMA-262): no space, control character or
+#: path separator anywhere, no ``_ . -`` first. "Letters of any script" needs
+#: Unicode classes that ECMA-262 patterns lack, so the rest of the rule is
+#: checked by :func:`handle_problem`.
+HANDLE_PATTERN = r"^[^\s_.\-/\\\u0000-\u001f\u007f-\u009f][^\s/\\\u0000-\u001f\u007f-\u009f]*$"
 #: The rule in words, for messages and help.
 HANDLE_RULE = "letters, digits and _ . - only, beginning with a letter or digit"
 #: How a new account is made on purpose, in command-line words.

@@ -96,7 +96,16 @@ schema = schemathesis.openapi.from_dict(_openapi_document())
 
 @pytest.fixture(scope="module")
 def fuzz_app(fuzz_workspace: Workspace):
-    return create_app(workspace=fuzz_workspace)
+    app = create_app(workspace=fuzz_workspace)
+    # Checks that send a request of their own (a resource asked for again,
+    # the same request without its credentials) reach this app in process.
+    schema.app = app
+    for op in OPERATIONS:
+        op.app = app
+    yield app
+    schema.app = None
+    for op in OPERATIONS:
+        op.app = None
 
 
 # One test item per operation and generation mode, built from the schema at
@@ -108,8 +117,15 @@ OPERATIONS = [result.ok() for result in schema.get_all_operations()]
 # state, schemathesis' "valid data is accepted" check is left out, and only
 # there: an uploaded file's content (checked row by row in the tests below),
 # and topic phrases, which are judged after their text is normalised (empty
-# alternatives, duplicates up to case, the reserved name "other").
-ACCEPTANCE_UNSTATABLE = {"POST /v1/imports", "POST /v1/segments", "POST /v1/trends"}
+# alternatives, duplicates up to case, the reserved name "other"), and a new
+# account's handle, whose "letters of any script" no ECMA-262 pattern without
+# Unicode classes can state (the schema states what a handle never holds).
+ACCEPTANCE_UNSTATABLE = {
+    "POST /v1/imports",
+    "POST /v1/segments",
+    "POST /v1/trends",
+    "PUT /v1/accounts/{handle}",
+}
 
 
 def _has_inputs(operation) -> bool:
