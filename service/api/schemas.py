@@ -14,7 +14,7 @@ from datetime import date, datetime
 from typing import Annotated, Literal, TypeVar
 from zoneinfo import available_timezones
 
-from pydantic import AfterValidator, BaseModel, ConfigDict, Field, field_validator
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, JsonValue, field_validator
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES
@@ -140,7 +140,7 @@ class PrecedentsRequest(Strict):
 
 
 #: The IANA zone names this machine knows (the tz database of tzdata or the system).
-ZONE_NAMES = sorted(available_timezones())
+ZONE_NAMES: list[JsonValue] = sorted(available_timezones())
 
 
 class AccountChange(Strict):
