@@ -140,7 +140,7 @@ class PrecedentsRequest(Strict):
 
 
 #: The IANA zone names this machine knows (the tz database of tzdata or the system).
-ZONE_NAMES: list[JsonValue] = sorted(available_timezones())
+ZONE_NAMES: list[JsonValue] = [*sorted(available_timezones())]
 
 
 class AccountChange(Strict):
