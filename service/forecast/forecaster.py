@@ -102,7 +102,7 @@ class Forecaster:
         self._encode = encode
         self._models: dict[str, TrainedModel] = {}
         self._views: dict[str, tuple[int, HistoryView]] = {}
-        self._peers: tuple[int, HistoryView] | None = None
+        self._peers: tuple[int, HistoryView | None] | None = None
         #: Keep each view between processes (service.history.viewcache): a cold command
         #: maps it instead of building it. A service keeps its views in memory with
         #: their posts' details, so a forecast asks the store nothing but the counters.
@@ -152,15 +152,20 @@ class Forecaster:
         code = view.account_codes.get(account)
         return 0 if code is None else len(view.history.settled_rows(code)[0])
 
-    def peers(self, metric: str) -> HistoryView:
+    def peers(self, metric: str) -> HistoryView | None:
         """The reference accounts' posts (service.history.peers), kept until
-        the store's change counter moves."""
+        the store's change counter moves; None when the store has none (asked
+        in one query, so a team without peers never builds their view)."""
         stamp = self.store.stamp()
         with self._lock:
             hit = self._peers
             if hit is not None and hit[0] == stamp:
                 return hit[1]
-        v = build_view(self.store, metric, with_vectors=False, reference=True)
+        v = (
+            build_view(self.store, metric, with_vectors=False, reference=True)
+            if self.store.reference_handles()
+            else None
+        )
         with self._lock:
             self._peers = (stamp, v)
         return v
@@ -320,7 +325,7 @@ class Forecaster:
             wide=wide,
         )
         peers = self.peers(metric)
-        if len(peers.history):
+        if peers is not None and len(peers.history):
             for mine, theirs in zip(
                 repeats,
                 peer_repeats(

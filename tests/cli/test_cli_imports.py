@@ -127,3 +127,26 @@ def test_a_figure_loads_matplotlib_and_serving_loads_fastapi_only_there() -> Non
     r = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, env=env, cwd=ROOT)
     assert r.returncode == 0, r.stderr
     assert r.stdout.strip() == "[]"
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ("check", "Snowdrops by the lake path this week", "--account", "loomhaven"),
+        ("hours", "Snowdrops by the lake path this week", "--account", "loomhaven", "--week"),
+    ],
+    ids=lambda a: a[0],
+)
+def test_a_cold_forecast_reads_the_kept_view_and_loads_nothing_heavy(
+    args: tuple[str, ...], demo_home: Path
+) -> None:
+    # The history view is kept between commands (service.history.viewcache), so a
+    # forecast from the command line needs pandas no more than the trees' package;
+    # a store without reference accounts builds no view of them either.
+    first_code, _, first_text = loaded(*args, home=demo_home)
+    assert first_code == 0, first_text
+    code, mods, text = loaded(*args, home=demo_home)
+    assert code == 0, text
+    # The embedding runs on ONNX Runtime; nothing else heavy is needed.
+    libraries = tuple(m for m in HEAVY if m != "onnxruntime")
+    assert heavy(mods, libraries) == [], f"`sounding {args[0]}` loaded {heavy(mods, libraries)}"
