@@ -3,26 +3,14 @@ keyboard and checked against the API's own answers to the same requests."""
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 import httpx
-import pytest
-from support.serving import CHROMIUM, chromium_page
+from support.serving import BROWSER, chromium_page, shown_count
 
 from service.api.app import create_app
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(
-        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
-    ),
-]
-
-
-def _shown(v: float) -> str:
-    """How the page writes a count: rounded half up, with thousands separators."""
-    return f"{math.floor(v + 0.5):,}"
+pytestmark = BROWSER
 
 
 def test_spread_tab(demo_workspace, artifacts: Path) -> None:
@@ -40,8 +28,8 @@ def test_spread_tab(demo_workspace, artifacts: Path) -> None:
         page.keyboard.press("Enter")
         cells = page.locator("#d-summary-row td")
         expect(cells).to_have_count(5, timeout=60_000)
-        expect(cells.nth(0)).to_have_text(_shown(answer["summary"]["median"]))
-        expect(cells.nth(3)).to_have_text(_shown(answer["summary"]["p99"]))
+        expect(cells.nth(0)).to_have_text(shown_count(answer["summary"]["median"]))
+        expect(cells.nth(3)).to_have_text(shown_count(answer["summary"]["p99"]))
         expect(page.locator("#d-reading")).to_have_text(answer["reading"])
         expect(page.locator("#d-fits-body tr")).to_have_count(len(answer["tail"]["comparisons"]))
         expect(page.locator("#d-note")).to_contain_text("association")
@@ -72,7 +60,7 @@ def test_over_time_tab(demo_workspace, artifacts: Path) -> None:
             expect(cards.nth(i).locator("tbody tr")).to_have_count(len(s["rows"]))
             first = cards.nth(i).locator("tbody tr").nth(0).locator("td")
             expect(first.nth(0)).to_have_text(str(s["rows"][0]["n"]))
-            expect(first.nth(2)).to_have_text(_shown(s["rows"][0]["median"]))
+            expect(first.nth(2)).to_have_text(shown_count(s["rows"][0]["median"]))
             expect(cards.nth(i).locator(".t-reading")).to_contain_text(s["trend"]["reading"])
         expect(page.locator("#t-plot")).to_be_visible(timeout=60_000)
         page.screenshot(path=str(artifacts / "page-trends.png"), full_page=True)
@@ -122,7 +110,7 @@ def test_surprises_tab(demo_workspace, artifacts: Path) -> None:
         expect(items).to_have_count(len(answer["better"]) + len(answer["worse"]), timeout=300_000)
         for i, s in enumerate([*answer["better"], *answer["worse"]]):
             expect(items.nth(i)).to_have_attribute("data-post", s["post_id"])
-            expect(items.nth(i).locator(".x-figures")).to_contain_text(_shown(s["outcome"]))
+            expect(items.nth(i).locator(".x-figures")).to_contain_text(shown_count(s["outcome"]))
         expect(page.locator("#x-summary")).to_contain_text(f"{answer['outside']} of {answer['n_forecast']}")
         expect(page.locator("#x-note")).to_have_text(answer["note"])
         page.screenshot(path=str(artifacts / "page-surprises.png"), full_page=True)

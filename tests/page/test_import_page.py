@@ -6,8 +6,7 @@ from __future__ import annotations
 import hashlib
 from pathlib import Path
 
-import pytest
-from support.serving import CHROMIUM, CHROMIUM_ARGS, serve
+from support.serving import BROWSER, CHROMIUM, CHROMIUM_ARGS, serve
 
 from service.api.app import create_app
 
@@ -24,12 +23,7 @@ MAP = [
     "engagement_rate=Engagement rate",
 ]
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(
-        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
-    ),
-]
+pytestmark = BROWSER
 
 
 def test_import_page_previews_then_imports(make_workspace, artifacts: Path) -> None:

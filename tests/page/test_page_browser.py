@@ -5,12 +5,10 @@ from __future__ import annotations
 
 import csv
 import json
-import math
 from pathlib import Path
 
 import httpx
-import pytest
-from support.serving import CHROMIUM, CHROMIUM_ARGS, serve
+from support.serving import BROWSER, CHROMIUM, CHROMIUM_ARGS, serve, shown_count
 
 from service.api.app import create_app
 
@@ -22,17 +20,7 @@ DRAFT = (
 )
 PLANNED = "2026-12-03T12:30"
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(
-        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
-    ),
-]
-
-
-def _shown(v: float) -> str:
-    """How the page writes a count: rounded half up, with thousands separators."""
-    return f"{math.floor(v + 0.5):,}"
+pytestmark = BROWSER
 
 
 def test_review_page(demo_workspace, artifacts: Path) -> None:
@@ -89,9 +77,9 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             page.keyboard.press("Enter")  # submits the form
 
             expect(page.locator("#output")).to_be_visible(timeout=60_000)
-            expect(page.locator("#fc-low")).to_have_text(_shown(want["low"]))
-            expect(page.locator("#fc-median")).to_have_text(_shown(want["median"]))
-            expect(page.locator("#fc-high")).to_have_text(_shown(want["high"]))
+            expect(page.locator("#fc-low")).to_have_text(shown_count(want["low"]))
+            expect(page.locator("#fc-median")).to_have_text(shown_count(want["median"]))
+            expect(page.locator("#fc-high")).to_have_text(shown_count(want["high"]))
             expect(page.locator("#fc-caution")).to_have_text(want["caution"])
             pct = round(want["backtested_coverage"] * 100)
             expect(page.locator("#fc-coverage")).to_contain_text(f"held in {pct}%")
@@ -196,7 +184,7 @@ def test_wordings_and_segments_panels(demo_workspace, artifacts: Path) -> None:
             for i, v in enumerate(variants.json()["variants"]):
                 cells = rows.nth(i).locator("td")
                 expect(cells.nth(0)).to_have_text(str(v["rank"]))
-                expect(cells.nth(3)).to_have_text(_shown(v["median"]))
+                expect(cells.nth(3)).to_have_text(shown_count(v["median"]))
                 expect(cells.nth(4)).to_have_text("yes" if v["tied_with_best"] else "no")
             expect(page.locator("#w-caution")).to_have_text(variants.json()["caution"])
             page.screenshot(path=str(artifacts / "page-wordings.png"), full_page=True)

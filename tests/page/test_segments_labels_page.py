@@ -8,19 +8,13 @@ import io
 from pathlib import Path
 
 import httpx
-import pytest
 from conftest import NOW, history_csv
-from support.serving import CHROMIUM, chromium_page
+from support.serving import BROWSER, chromium_page
 
 from service.api.app import create_app
 from service.ingest.options import ImportOptions
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(
-        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
-    ),
-]
+pytestmark = BROWSER
 
 
 def test_a_label_is_a_split_choice(make_workspace, tmp_path: Path, artifacts: Path, monkeypatch) -> None:

@@ -3,14 +3,13 @@ account" choice and the team tab, each checked against the API's own answer."""
 
 from __future__ import annotations
 
-import math
 from collections.abc import Iterator
 from pathlib import Path
 
 import httpx
 import pytest
 from conftest import NOW
-from support.serving import CHROMIUM, CHROMIUM_ARGS, serve
+from support.serving import BROWSER, CHROMIUM, CHROMIUM_ARGS, serve, shown_count
 from support.team_history import ACCOUNTS, make_team
 
 from models.embedding import Embedder
@@ -19,17 +18,7 @@ from service.api.app import create_app
 DRAFT = "The bee hotel hosts a talk this week"
 PLANNED = "2026-12-03T12:30"
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(
-        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
-    ),
-]
-
-
-def _shown(v: float) -> str:
-    """How the page writes a count: rounded half up, with thousands separators."""
-    return f"{math.floor(v + 0.5):,}"
+pytestmark = BROWSER
 
 
 @pytest.fixture(scope="module")
@@ -77,7 +66,7 @@ def test_every_account_in_the_check_tab(base: str, artifacts: Path) -> None:
                 cells = body.nth(i).locator("td, th")
                 expect(cells.nth(0)).to_have_text(str(r["rank"]))
                 expect(cells.nth(1)).to_have_text(r["account"])
-                expect(cells.nth(4)).to_have_text(_shown(r["median"]))
+                expect(cells.nth(4)).to_have_text(shown_count(r["median"]))
                 expect(cells.nth(5)).to_have_text("yes" if r["tied_with_best"] else "no")
                 expect(cells.nth(6)).to_have_text(r["reason"])
             expect(page.locator("#choice-summary")).to_have_text(want.json()["summary"])
@@ -117,7 +106,7 @@ def test_the_team_tab(base: str, artifacts: Path) -> None:
                 expect(cells.nth(0)).to_have_text(a["account"])
                 expect(cells.nth(1)).to_have_text(f"{a['settled']:,}")
                 expect(cells.nth(2)).to_have_text(f"{round(a['share'] * 100)}%")
-                expect(cells.nth(5)).to_have_text(_shown(a["median"]))
+                expect(cells.nth(5)).to_have_text(shown_count(a["median"]))
                 card = page.locator(f'#tm-cards section[data-account="{a["account"]}"] li')
                 expect(card).to_have_text(a["lines"])
             expect(page.locator("#tm-note")).to_have_text(team["note"])

@@ -3,6 +3,7 @@ a page of headless Chromium to drive it with."""
 
 from __future__ import annotations
 
+import math
 import socket
 import threading
 import time
@@ -11,6 +12,7 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+import pytest
 import uvicorn
 from fastapi import FastAPI
 
@@ -29,6 +31,20 @@ CHROMIUM_ARGS = [
     "--disable-sync",
     "--no-first-run",
 ]
+
+#: The marks of every browser test: marked ``browser``, and skipped where
+#: Debian's chromium is missing.
+BROWSER = [
+    pytest.mark.browser,
+    pytest.mark.skipif(
+        not CHROMIUM.exists(), reason="Debian's chromium is not at /usr/bin/chromium (CI installs it)"
+    ),
+]
+
+
+def shown_count(v: float) -> str:
+    """How the page writes a count: rounded half up, with thousands separators."""
+    return f"{math.floor(v + 0.5):,}"
 
 
 @contextmanager
