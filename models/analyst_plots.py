@@ -91,7 +91,9 @@ def plot_series(
         m = np.asarray(med, float)
         ax.plot(xs, m, marker="o", color=colour, label=name)
         ax.fill_between(xs, np.asarray(low, float), np.asarray(high, float), color=colour, alpha=0.15)
-    ax.set_yscale("log")
+    # Symmetric log: like a log axis above 1, and a period whose median is 0
+    # (or a series with no posts yet) still draws instead of failing.
+    ax.set_yscale("symlog", linthresh=1.0)
     step = max(1, len(labels) // 12)
     ax.set_xticks(xs[::step], [labels[i] for i in range(0, len(labels), step)], rotation=45, ha="right")
     ax.set_ylabel(f"median {metric} (log scale)")
@@ -118,7 +120,7 @@ def plot_intervals(
     ax.barh(ys, hi - lo, left=lo, height=0.5, color=TEAL, alpha=0.35, label="forecast interval")
     ax.scatter(np.asarray(outcomes, float), ys, color=AMBER, zorder=3, label="outcome")
     ax.set_yticks(ys, list(names))
-    ax.set_xscale("log")
+    ax.set_xscale("symlog", linthresh=1.0)  # outcomes and bounds of 0 happen (engagements)
     ax.invert_yaxis()
     ax.set_xlabel(f"{metric} (log scale)")
     ax.legend(frameon=False, fontsize=8)

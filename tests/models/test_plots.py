@@ -110,3 +110,19 @@ def test_tick_labels_use_the_one_number_style() -> None:
         "125K",
         "1.2M",
     ]
+
+
+def test_interval_and_trend_figures_draw_zero_counts() -> None:
+    # Engagements of 0 (and bounds of 0) are common; a log axis cannot show them
+    # and matplotlib refused to save such a figure (found by the API fuzz test).
+    from models.analyst_plots import plot_intervals, plot_series
+
+    png = plot_intervals(["a", "b"], [0.0, 0.0], [0.0, 3.0], [0.0, 0.0], metric="engagements", caption="x")
+    assert png.startswith(b"\x89PNG\r\n\x1a\n")  # the PNG signature (PNG specification, section 5.2)
+    png = plot_series(
+        ["2026-01", "2026-02"],
+        {"all": ([0.0, 0.0], [0.0, 0.0], [0.0, 0.0])},
+        metric="engagements",
+        caption="x",
+    )
+    assert png.startswith(b"\x89PNG\r\n\x1a\n")
