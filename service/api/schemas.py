@@ -11,10 +11,10 @@ and the segments answers are defined below.
 from __future__ import annotations
 
 from datetime import date, datetime
-from typing import Annotated, Literal, TypeVar
+from typing import Annotated, Any, Literal, TypeVar
 from zoneinfo import available_timezones
 
-from pydantic import AfterValidator, BaseModel, ConfigDict, Field, JsonValue, field_validator
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field, JsonValue, ValidationInfo, field_validator
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
 from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES
@@ -107,6 +107,17 @@ class Strict(BaseModel):
 
     # Every string of every request is text that encodes (textcheck).
     _utf8 = field_validator("*", mode="before")(utf8_only)
+
+    @field_validator("*", mode="before")
+    @classmethod
+    def _no_flag_for_a_number(cls, value: Any, info: ValidationInfo) -> Any:
+        # JSON true/false is not a number, though pydantic's lax mode reads it
+        # as 1/0: the schema says "integer" or "number", so it is refused.
+        if isinstance(value, bool) and info.field_name is not None:
+            annotation = cls.model_fields[info.field_name].annotation
+            if annotation in (int, float, int | None, float | None):
+                raise ValueError("must be a number, not true or false")
+        return value
 
 
 class ErrorDetail(BaseModel):
