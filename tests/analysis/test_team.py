@@ -5,7 +5,7 @@ effect are known."""
 from __future__ import annotations
 
 import json
-from datetime import UTC, timedelta
+from datetime import UTC
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -173,4 +173,7 @@ def test_cli_and_api_give_the_same_overview(
         assert name not in screen.output
     bad = TestClient(create_app(workspace=ws)).get("/v1/team", params={"metric": "nonsense"})
     assert bad.status_code == 422 and "error" in bad.json()
-    assert NOW - timedelta(weeks=13) < pd.Timestamp(cli["recent_from"]).to_pydatetime() <= NOW
+    # The command line reads the same clock: its window starts on the Monday twelve weeks
+    # before this week's, as the library's does (checked above).
+    monday = pd.Timestamp(NOW).normalize() - pd.Timedelta(days=NOW.weekday()) - pd.Timedelta(weeks=12)
+    assert pd.Timestamp(cli["recent_from"]) == monday

@@ -189,9 +189,9 @@ def _fuzz(operation, mode: GenerationMode, fuzz_app) -> None:
         # Every other valid case names an account the store holds (a generated
         # handle is never one), so forecasts are answered too, not only refused.
         body = case.body
-        if mode is GenerationMode.POSITIVE and isinstance(body, dict) and CASES[operation.label] % 2:
-            if isinstance(body.get("account"), str):
-                body["account"] = "loomhaven"
+        positive = mode is GenerationMode.POSITIVE and CASES[operation.label] % 2
+        if positive and isinstance(body, dict) and isinstance(body.get("account"), str):
+            body["account"] = "loomhaven"
         for headers in (None, auth) if needs_token else (auth,):
             response = case.call(headers=headers, app=fuzz_app)
             CALLS["with token" if headers else "without token"] += 1
