@@ -17,7 +17,7 @@ DEFAULT_HOUR_EDGES: tuple[int, ...] = (0, 6, 9, 12, 15, 18, 21, 24)
 DEFAULT_LENGTH_EDGES: tuple[int, ...] = (0, 80, 160, 240, 10**9)
 
 # An upper length edge this large means "no upper limit" in labels.
-_OPEN_END = 10**9
+OPEN_END = 10**9
 
 
 # --------------------------------------------------------------------------
@@ -52,11 +52,15 @@ def assign_nearest(similarities: npt.ArrayLike, *, threshold: float) -> np.ndarr
 
 
 def _check_edges(edges: Sequence[float], what: str) -> np.ndarray:
+    """The edges in increasing order: they may be given in any order, each once."""
     arr = np.asarray(edges, dtype=float)
     if arr.ndim != 1 or arr.size < 2:
         raise InputError(f"{what} needs at least two edges", field=what)
-    if not np.isfinite(arr).all() or np.any(np.diff(arr) <= 0):
-        raise InputError(f"{what} must be strictly increasing numbers", field=what)
+    if not np.isfinite(arr).all():
+        raise InputError(f"{what} must be numbers", field=what)
+    arr = np.sort(arr)
+    if np.any(np.diff(arr) <= 0):
+        raise InputError(f"{what} must be different numbers; one is given twice", field=what)
     return arr
 
 
@@ -75,6 +79,7 @@ def bucket_hours(hours: npt.ArrayLike, edges: Sequence[int] = DEFAULT_HOUR_EDGES
     """The bucket label of each local hour (0 <= hour < 24; fractions such
     as 13.5 are fine). A bucket includes its lower edge, not its upper."""
     names = hour_labels(edges)
+    edges = sorted(edges)
     arr = np.asarray(hours, dtype=float)
     if arr.ndim != 1:
         raise InputError("hours must be a flat list", field="hours")
@@ -84,18 +89,27 @@ def bucket_hours(hours: npt.ArrayLike, edges: Sequence[int] = DEFAULT_HOUR_EDGES
     return np.asarray(names, dtype=object)[idx]
 
 
+def open_length_edges(edges: Sequence[int]) -> list[int]:
+    """Length edges in increasing order, ending at the open end: a text at or
+    past the last edge given falls in a last band "≥ that edge"."""
+    arr = _check_edges(edges, "length edges")
+    if arr[0] != 0 or np.any(arr != np.round(arr)) or arr[-1] > OPEN_END:
+        raise InputError(
+            f"length edges must be whole numbers from 0 to {OPEN_END}, one of them 0", field="length edges"
+        )
+    ints = [int(e) for e in arr]
+    return ints if ints[-1] >= OPEN_END else [*ints, OPEN_END]
+
+
 def length_labels(edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> list[str]:
     """Labels of the length bands in increasing order: "<80", "80–159", ...,
     and "≥240" for a last band whose upper edge is 10**9 or more."""
-    arr = _check_edges(edges, "length edges")
-    if arr[0] != 0 or np.any(arr != np.round(arr)):
-        raise InputError("length edges must be whole numbers starting at 0", field="length edges")
-    ints = [int(e) for e in arr]
+    ints = open_length_edges(edges)
     out = []
     for i, (a, b) in enumerate(itertools.pairwise(ints)):
         if i == 0:
             out.append(f"<{b}")
-        elif b >= _OPEN_END:
+        elif b >= OPEN_END:
             out.append(f"≥{a}")
         else:
             out.append(f"{a}–{b - 1}")
@@ -105,12 +119,13 @@ def length_labels(edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> list[str]:
 def length_band(lengths: npt.ArrayLike, edges: Sequence[int] = DEFAULT_LENGTH_EDGES) -> np.ndarray:
     """The band label of each text length (a whole number of characters)."""
     names = length_labels(edges)
+    ints = open_length_edges(edges)
     arr = np.asarray(lengths, dtype=float)
     if arr.ndim != 1:
         raise InputError("lengths must be a flat list", field="lengths")
     if arr.size and (
-        not np.isfinite(arr).all() or np.any(arr != np.round(arr)) or arr.min() < 0 or arr.max() >= edges[-1]
+        not np.isfinite(arr).all() or np.any(arr != np.round(arr)) or arr.min() < 0 or arr.max() >= ints[-1]
     ):
-        raise InputError(f"lengths must be whole numbers from 0 to below {edges[-1]}", field="lengths")
-    idx = np.searchsorted(np.asarray(edges, dtype=float), arr, side="right") - 1
+        raise InputError(f"lengths must be whole numbers from 0 to below {ints[-1]}", field="lengths")
+    idx = np.searchsorted(np.asarray(ints, dtype=float), arr, side="right") - 1
     return np.asarray(names, dtype=object)[idx]

@@ -71,13 +71,24 @@ def zone(name: str) -> ZoneInfo:
 
 
 def parse_time(text: str, *, tz: str = "UTC", where: str | None = None, check: bool = True) -> datetime:
-    """Parse an ISO 8601 time; return an aware datetime in UTC, in the
-    accepted range unless ``check`` is false."""
-    dt = read_iso(text, tz=tz, where=where)
-    return check_range(dt, where=where, value=text) if check else dt
+    """Parse an ISO 8601 time; return an aware datetime in UTC. Unless
+    ``check`` is false, its year as written (before any offset is applied)
+    must be in the accepted range, as the API schema's pattern states."""
+    written = read_written(text, where=where)
+    if check and not year_in_range(written):
+        raise TimeParseError(
+            f"time {text.strip()!r} is outside the accepted range, {RANGE_TEXT}", where=where, value=text
+        )
+    return in_utc(written, text, tz=tz, where=where)
 
 
 def read_iso(text: str, *, tz: str, where: str | None) -> datetime:
+    """An ISO 8601 time in UTC, a naive one read in zone ``tz``."""
+    return in_utc(read_written(text, where=where), text, tz=tz, where=where)
+
+
+def read_written(text: str, *, where: str | None) -> datetime:
+    """An ISO 8601 time with a time of day, as written: aware when it carries an offset."""
     raw = (text or "").strip()
     if not raw:
         raise TimeParseError("empty time", where=where, value=text)
@@ -95,12 +106,18 @@ def read_iso(text: str, *, tz: str, where: str | None) -> datetime:
         ) from None
     if len(raw) <= 10:
         raise TimeParseError(f"time {raw!r} has a date but no time of day", where=where, value=text)
+    return dt
+
+
+def in_utc(dt: datetime, text: str, *, tz: str, where: str | None) -> datetime:
+    """A time as written, in UTC: with its own offset, or read in zone ``tz``."""
     try:
         if dt.tzinfo is not None:
             return dt.astimezone(UTC)
         return localize(dt, tz, where=where)
     except OverflowError:  # e.g. 0001-01-01T00:00+05:00 is before year 1 in UTC
-        raise TimeParseError(f"time {raw!r} is out of range in UTC", where=where, value=text) from None
+        problem = f"time {text.strip()!r} is out of range in UTC"
+        raise TimeParseError(problem, where=where, value=text) from None
 
 
 def refuse_bad_offset(raw: str, *, where: str | None) -> None:

@@ -12,6 +12,14 @@ from dataclasses import dataclass
 from models.errors import InputError, LimitExceeded
 from service.settings import Settings
 
+#: Python's whitespace (``str.isspace``: what ``strip`` and ``re``'s ``\s``
+#: remove), written out so that JSON Schema (ECMA-262) means the same set.
+SPACE_CLASS = r"\t-\r\u001c-\u0020\u0085\u00a0\u1680\u2000-\u200a\u2028\u2029\u202f\u205f\u3000"
+#: A text that is more than whitespace: it holds a character outside that set
+#: (a JSON Schema pattern, which matches anywhere). ``check_draft`` applies the
+#: same rule with ``strip``.
+VISIBLE_PATTERN = f"[^{SPACE_CLASS}]"
+
 
 @dataclass(frozen=True, slots=True)
 class Limits:

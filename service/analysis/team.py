@@ -8,6 +8,7 @@ against theirs. Associations in the team's own history, not causes."""
 
 from __future__ import annotations
 
+import math
 from datetime import UTC, datetime, timedelta
 from typing import TYPE_CHECKING
 
@@ -121,9 +122,7 @@ def team_overview(
     recent = (frame["posted_at"] >= pd.Timestamp(recent_from)).to_numpy()
     weeks = _weeks(frame["posted_at"], recent)
     accounts = frame["account"].to_numpy(object)
-    usual = {a: float(np.median(values[accounts == a])) for a in np.unique(accounts)}
-    # Each post against its own account's usual level, so accounts of any size compare.
-    ratio = values / np.array([usual[a] for a in accounts]) if values.size else values
+    ratio = ratios_to_usual(values, accounts)
     out = []
     for info in ws.store.accounts():
         mine = accounts == info.handle
@@ -140,7 +139,7 @@ def team_overview(
             first_post=times.min().to_pydatetime() if n else None,
             last_post=times.max().to_pydatetime() if n else None,
             share=n / values.size if values.size else 0.0,
-            median=usual.get(info.handle),
+            median=float(np.median(values[mine])) if n else None,
             recent_posts=int((mine & recent).sum()),
             recent_median=float(np.median(values[mine & recent])) if (mine & recent).any() else None,
             trend=trend,
@@ -207,6 +206,18 @@ def _best_hours(values: np.ndarray, buckets: np.ndarray, min_posts: int, metric:
     )
 
 
+def ratios_to_usual(values: np.ndarray, accounts: np.ndarray) -> np.ndarray:
+    """Each post against its own account's usual level (median), so accounts
+    of any size compare. An account whose usual level is 0 (a metric most of
+    its posts never get) has no ratio to speak of: NaN, left out of the
+    comparisons."""
+    usual = {a: float(np.median(values[accounts == a])) for a in np.unique(accounts)}
+    level = np.array([usual[a] for a in accounts], dtype=float)
+    out = np.full(values.shape, np.nan)
+    np.divide(values, level, out=out, where=level > 0)
+    return out
+
+
 def _better_topics(
     ratio: np.ndarray, topic: np.ndarray, mine: np.ndarray, names: list[str], min_posts: int
 ) -> list[BetterTopic]:
@@ -217,6 +228,7 @@ def _better_topics(
     for name in names:
         here = topic == name
         own, rest = ratio[here & mine], ratio[here & ~mine]
+        own, rest = own[np.isfinite(own)], rest[np.isfinite(rest)]
         if own.size < min_posts or rest.size < min_posts:
             continue
         res = stats.mannwhitneyu(own, rest, alternative="two-sided")
@@ -237,7 +249,9 @@ def _better_topics(
         for (name, own, rest, p, r), q in zip(read, adjusted, strict=True)
         if np.median(own) > np.median(rest)
     ]
-    return sorted(out, key=lambda t: -(t.lift / t.team_lift))
+    # The rest of the team's lift can be 0 (most of its posts on the topic got
+    # none of the metric): such a topic leads.
+    return sorted(out, key=lambda t: -(t.lift / t.team_lift) if t.team_lift > 0 else -math.inf)
 
 
 def _lines(a: AccountOverview, metric: str, min_posts: int) -> list[str]:

@@ -17,7 +17,7 @@ from zoneinfo import available_timezones
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field, JsonValue, ValidationInfo, field_validator
 
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, TARGETS
-from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES
+from models.segment_bins import DEFAULT_HOUR_EDGES, DEFAULT_LENGTH_EDGES, OPEN_END
 from models.segments import DEFAULT_MIN_N
 from service.account_choice import AccountChoice, AccountFit
 from service.analysis.team import TeamOverview
@@ -30,15 +30,18 @@ from service.history.match_modes import Match
 from service.history.precedents import Precedent, Precedents, WeightedPrecedent
 from service.history.repeats import Repeat
 from service.ingest.answers import ColumnUse, ImportFix, ImportPreview, ImportSummary, PreviewRow, RowProblem
+from service.limits import SPACE_CLASS, VISIBLE_PATTERN
 from service.review.hour_support import DEFAULT_MIN_POSTS
 from service.review.hours import HoursReport, Slot
-from service.review.wordings import Variant, VariantsReport
+from service.review.wordings import MAX_VARIANTS, Variant, VariantsReport
 from service.segments.answer import SegmentResult as SegmentResult  # the answer, used as it is
 from service.segments.request import (
     DEFAULT_EXAMPLES,
     DEFAULT_K,
     DEFAULT_THRESHOLD,
     MAX_EXAMPLES,
+    MAX_PHRASE_CHARS,
+    MAX_PHRASES,
     MAX_TOPICS,
     By,
     LabelBy,
@@ -94,12 +97,50 @@ def _in_range(value: _When) -> _When:
     return value
 
 
-#: One topic phrase ("a | b": one topic, two alternatives); never empty.
-TopicPhrase = Annotated[str, Field(min_length=1)]
+#: A draft's text is more than whitespace (``service.limits``).
+_VISIBLE: dict[str, JsonValue] = {"pattern": VISIBLE_PATTERN}
+DraftText = Annotated[str, Field(min_length=1, json_schema_extra=_VISIBLE)]
+
+#: One topic phrase ("a | b": one topic, two alternatives), as
+#: ``service.segments.request.parse_topics`` reads it: some text beside the
+#: separators, short, and not the name of the posts no topic catches.
+TopicPhrase = Annotated[
+    str,
+    Field(
+        min_length=1,
+        max_length=MAX_PHRASE_CHARS,
+        json_schema_extra={
+            "pattern": f"[^{SPACE_CLASS}|]",
+            "not": {"pattern": f"^[{SPACE_CLASS}|]*[Oo][Tt][Hh][Ee][Rr][{SPACE_CLASS}|]*$"},
+        },
+    ),
+]
+#: Split edges: each once, in any order (``models.segment_bins``).
+HourEdge = Annotated[int, Field(ge=0, le=24)]
+LengthEdge = Annotated[int, Field(ge=0, le=OPEN_END)]
+_HOUR_EDGES: dict[str, JsonValue] = {
+    "minItems": 2,
+    "uniqueItems": True,
+    "allOf": [{"contains": {"const": 0}}, {"contains": {"const": 24}}],
+}
+_LENGTH_EDGES: dict[str, JsonValue] = {"minItems": 2, "uniqueItems": True, "contains": {"const": 0}}
 
 _YEARS = Field(json_schema_extra={"pattern": YEAR_PATTERN})
 InRangeTime = Annotated[datetime, AfterValidator(_in_range), _YEARS]
 InRangeDay = Annotated[date, AfterValidator(_in_range), _YEARS]
+
+
+def planned_at_field(whose_zone: str) -> Any:
+    """A draft's planned time. The schema states RFC 3339 with its offset in
+    the accepted years; the server also reads the other ISO 8601 layouts, a
+    naive time in the account's zone among them (``service.clock``)."""
+    return Field(
+        default=None,
+        description="RFC 3339 time, e.g. 2026-12-03T12:30:00+01:00. Other ISO 8601 layouts are read "
+        f"too; a time without an offset is read in {whose_zone} zone. Default: now.",
+        examples=["2026-12-03T12:30:00+01:00"],
+        json_schema_extra={"format": "date-time", "pattern": YEAR_PATTERN},
+    )
 
 
 class Strict(BaseModel):
@@ -138,7 +179,7 @@ class ErrorBody(BaseModel):
 
 
 class PrecedentsRequest(Strict):
-    text: str = Field(min_length=1, description="The draft")
+    text: DraftText = Field(description="The draft")
     account: str | None = Field(default=None, description="Only this account's posts")
     k: int = Field(default=10, ge=1, le=100)
     since: InRangeTime | None = None
@@ -194,13 +235,9 @@ COVERAGE_FIELD = Field(default=DEFAULT_COVERAGE, description="Nominal coverage o
 
 
 class DraftIn(Strict):
-    text: str = Field(min_length=1, description="The draft's text")
+    text: DraftText = Field(description="The draft's text")
     account: str = Field(min_length=1, description="Handle of the account that would post it")
-    planned_at: str | None = Field(
-        default=None,
-        description="ISO 8601 time; without an offset it is read in the account's zone. Default: now.",
-        examples=["2026-12-02T10:00:00+01:00"],
-    )
+    planned_at: str | None = planned_at_field("the account's")
     draft_id: str | None = None
     has_media: bool = Field(default=False, description="An image or video goes with the text")
 
@@ -219,18 +256,14 @@ class ForecastBatchRequest(Strict):
 
 
 class AccountChoiceRequest(Strict):
-    text: str = Field(min_length=1, description="The draft's text")
+    text: DraftText = Field(description="The draft's text")
     accounts: list[Annotated[str, Field(pattern=r"\S")]] = Field(
         default=["all"],
         min_length=1,
         description="Handles of the accounts to rank, or ['all'] for every account of the store",
         examples=[["all"], ["loomhaven", "loomhaven_events"]],
     )
-    planned_at: str | None = Field(
-        default=None,
-        description="ISO 8601 time; without an offset it is read in each account's own zone. Default: now.",
-        examples=["2026-12-03T12:30:00"],
-    )
+    planned_at: str | None = planned_at_field("each account's own")
     has_media: bool = Field(default=False, description="An image or video goes with the text")
     metric: str = METRIC_FIELD
     coverage: Coverage = COVERAGE_FIELD
@@ -240,7 +273,7 @@ class AccountChoiceRequest(Strict):
 
 
 class HoursRequest(Strict):
-    text: str = Field(min_length=1, description="The draft's text")
+    text: DraftText = Field(description="The draft's text")
     account: str = Field(min_length=1, description="Handle of the account that would post it")
     day: InRangeDay | None = Field(
         default=None,
@@ -262,16 +295,14 @@ class HoursRequest(Strict):
 
 
 class VariantsRequest(Strict):
-    texts: list[str] = Field(
+    texts: list[DraftText] = Field(
         min_length=2,
-        description="Two to ten phrasings of one draft (more answers 413, like the other limits)",
+        description=f"Two to {MAX_VARIANTS} phrasings of one draft (more answers 413, like the other limits)",
+        # Stated in the schema, answered by the server's own limit (413).
+        json_schema_extra={"maxItems": MAX_VARIANTS},
     )
     account: str = Field(min_length=1)
-    planned_at: str | None = Field(
-        default=None,
-        description="ISO 8601 time; without an offset it is read in the account's zone. Default: now.",
-        examples=["2026-12-03T12:30:00"],
-    )
+    planned_at: str | None = planned_at_field("the account's")
     metric: str = METRIC_FIELD
     coverage: Coverage = COVERAGE_FIELD
     has_media: bool = Field(default=False, description="An image or video goes with every variant")
@@ -296,7 +327,9 @@ class SegmentsRequest(Strict):
         default_factory=list,
         max_length=MAX_TOPICS,
         description="Topic phrases, e.g. 'flowers in bloom'. 'a | b' is one topic with two "
-        "alternative phrases (their vectors are averaged). No labels are needed.",
+        "alternative phrases (their vectors are averaged). No labels are needed. Empty "
+        "alternatives are left out and a topic given twice (up to case) counts once; at most "
+        f"{MAX_PHRASES} alternatives in all (more answers 422).",
         examples=[["flowers in bloom", "shop offers | membership"]],
     )
     by: By | LabelBy | None = Field(
@@ -316,11 +349,16 @@ class SegmentsRequest(Strict):
     threshold: float = Field(
         default=DEFAULT_THRESHOLD, ge=-1, le=1, description="Cosine similarity a post needs in nearest mode"
     )
-    hour_edges: list[int] = Field(
-        default=list(DEFAULT_HOUR_EDGES), description="Local hour bucket edges, from 0 to 24"
+    hour_edges: list[HourEdge] = Field(
+        default=list(DEFAULT_HOUR_EDGES),
+        description="Local hour bucket edges: whole hours, 0 and 24 among them",
+        json_schema_extra=_HOUR_EDGES,
     )
-    length_edges: list[int] = Field(
-        default=list(DEFAULT_LENGTH_EDGES), description="Text length band edges in characters, from 0"
+    length_edges: list[LengthEdge] = Field(
+        default=list(DEFAULT_LENGTH_EDGES),
+        description="Text length band edges in characters, 0 among them; longer texts than the "
+        "last edge form a last band",
+        json_schema_extra=_LENGTH_EDGES,
     )
     account: str | None = Field(default=None, description="Only this account's posts")
     min_n: int = Field(default=DEFAULT_MIN_N, ge=1, description="Segments with fewer posts are flagged")

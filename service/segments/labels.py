@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from models.errors import InputError
+from models.errors import NotFound
 from service.segments.request import LABEL_BY, NO_LABEL
 from service.storage.store import Store
 
@@ -26,7 +26,8 @@ def by_label(store: Store, frame: pd.DataFrame, name: str) -> tuple[np.ndarray, 
     values = store.labels_of(name)
     if not values:
         known = store.label_names()
-        raise InputError(
+        # A label no post carries is an unknown name, like an unknown account.
+        raise NotFound(
             f"no post has a label {name!r}",
             field="by",
             value=f"{LABEL_BY}{name}",

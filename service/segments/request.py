@@ -117,29 +117,24 @@ def parse_topics(raw: Sequence[str]) -> list[Topic]:
             field="topics",
         )
     topics: list[Topic] = []
-    seen: dict[str, int] = {}
+    seen: set[str] = set()
     for i, text in enumerate(raw):
         if not isinstance(text, str):
             raise InputError(f"topic {i + 1} is not text", field=f"topics.{i}")
-        parts = [normalise_text(p) for p in text.split(PHRASE_SEPARATOR)]
-        if not any(parts):
+        if len(text) > MAX_PHRASE_CHARS:
+            raise InputError(
+                f"topic {i + 1} has {len(text)} characters; a topic phrase is short "
+                f"(at most {MAX_PHRASE_CHARS}, its alternatives together)",
+                field=f"topics.{i}",
+            )
+        # An empty alternative ("a | | b", "a |") is a slip of the keyboard: left out.
+        parts = [p for p in (normalise_text(p) for p in text.split(PHRASE_SEPARATOR)) if p]
+        if not parts:
             raise InputError(
                 f"topic {i + 1} is an empty phrase",
                 field=f"topics.{i}",
                 hint="give a few words such as 'flowers in bloom'",
             )
-        if not all(parts):
-            raise InputError(
-                f"topic {i + 1} ({text.strip()!r}) has an empty alternative around '{PHRASE_SEPARATOR}'",
-                field=f"topics.{i}",
-            )
-        for p in parts:
-            if len(p) > MAX_PHRASE_CHARS:
-                raise InputError(
-                    f"topic {i + 1} has a phrase of {len(p)} characters; a topic phrase is "
-                    f"short (at most {MAX_PHRASE_CHARS})",
-                    field=f"topics.{i}",
-                )
         name = f" {PHRASE_SEPARATOR} ".join(parts)
         key = name.casefold()
         if key == OTHER:
@@ -147,10 +142,10 @@ def parse_topics(raw: Sequence[str]) -> list[Topic]:
                 f"{OTHER!r} is the name of the posts no topic catches; choose another phrase",
                 field=f"topics.{i}",
             )
-        if key in seen:
-            raise InputError(f"topic {i + 1} ({name!r}) repeats topic {seen[key] + 1}", field=f"topics.{i}")
-        seen[key] = i
-        topics.append(Topic(name=name, phrases=tuple(parts)))
+        # The same topic given twice (up to case and spacing) is one topic.
+        if key not in seen:
+            seen.add(key)
+            topics.append(Topic(name=name, phrases=tuple(parts)))
     return topics
 
 

@@ -177,3 +177,22 @@ def test_cli_and_api_give_the_same_overview(
     # before this week's, as the library's does (checked above).
     monday = pd.Timestamp(NOW).normalize() - pd.Timedelta(days=NOW.weekday()) - pd.Timedelta(weeks=12)
     assert pd.Timestamp(cli["recent_from"]) == monday
+
+
+def test_an_account_that_usually_gets_none_of_a_metric_has_no_ratio() -> None:
+    from service.analysis.team import _better_topics, ratios_to_usual
+
+    # Account a's median is 0 (most posts got no clicks); b's is 4.
+    values = np.array([0.0, 0.0, 0.0, 3.0, 2.0, 4.0, 6.0])
+    accounts = np.array(["a", "a", "a", "a", "b", "b", "b"], dtype=object)
+    got = ratios_to_usual(values, accounts)
+    assert np.isnan(got[:4]).all()
+    assert got[4:] == pytest.approx([0.5, 1.0, 1.5])
+    # The rest of the team's median ratio on a topic can be 0: the topic is
+    # still listed, first, and nothing divides by zero.
+    ratio = np.array([2.0, 3.0, 0.0, 0.0, 1.5, 1.4, 1.0, 1.0, np.nan])
+    topic = np.array(["x", "x", "x", "x", "y", "y", "y", "y", "y"], dtype=object)
+    mine = np.array([True, True, False, False, True, True, False, False, True])
+    out = _better_topics(ratio, topic, mine, ["x", "y"], 2)
+    assert [t.topic for t in out] == ["x", "y"]
+    assert out[0].team_lift == 0.0 and out[1].n == 2  # the NaN ratio is left out

@@ -1,20 +1,27 @@
-"""Property-based fuzzing of the HTTP API with schemathesis (4.x), in process.
+"""Property-based fuzzing of the HTTP API with schemathesis (4.x), against a
+served demo store.
 
-Every operation in the app's own OpenAPI schema gets generated requests,
-valid ones and (schemathesis' negative mode) invalid ones, each sent twice:
+A copy of the demo data directory (3,000 invented posts, a trained model) is
+served by uvicorn on loopback, as `sounding serve` serves it (the same app
+factory and guarded HTTP protocol), with a token. Every operation in the
+app's own OpenAPI schema gets generated requests, valid ones and
+(schemathesis' negative mode) invalid ones, each sent over HTTP twice:
 without credentials and with the bearer token, so the write endpoints are
 exercised past the token check too. Every answer must pass every check
 schemathesis has (its `--checks all`; the reference here, not our own code):
 no 5xx, a status code and content type the schema declares, a body that
-conforms to the declared schema (for errors the one ErrorBody shape),
-valid data accepted and invalid data refused - so the declared constraints
+conforms to the declared schema (for errors the one ErrorBody shape), valid
+data accepted and invalid data refused - so the declared constraints
 (formats, ranges, lengths, required fields) are the ones the server applies.
+The seed is fixed (hypothesis' derandomize) and the cases per operation are
+bounded.
 """
 
 from __future__ import annotations
 
 import csv
 import json
+import shutil
 import tempfile
 from collections import Counter
 from datetime import UTC, datetime, timedelta
@@ -22,23 +29,25 @@ from pathlib import Path
 
 import pytest
 import schemathesis
-from conftest import NOW, TOKEN
+from conftest import TOKEN
 from hypothesis import HealthCheck, given, settings
 from schemathesis import GenerationMode
 from schemathesis.specs.openapi.checks import positive_data_acceptance
+from support.serving import serve
 
+from service.api import guard
 from service.api.app import create_app
 from service.api.schemas import ErrorBody
-from service.forecast.training import train
 from service.ingest.options import ImportOptions
 from service.settings import Settings
 from service.workspace import Workspace
 
 MAX_EXAMPLES = 30
 #: Operations that run a model fit or a backtest per request get fewer cases.
-SLOW_EXAMPLES = {"GET /v1/surprises": 4, "POST /v1/training": 3, "GET /v1/topics": 10, "GET /v1/map": 10}
-#: Posts of the fuzzed store: enough to train on (service.forecast.training needs 200).
-FUZZ_POSTS = 240
+SLOW_EXAMPLES = {"GET /v1/surprises": 4, "POST /v1/training": 2, "GET /v1/topics": 10, "GET /v1/map": 10}
+#: Seconds a request may take: training the demo store with its backtest
+#: takes tens of seconds on a loaded 2-core machine (schemathesis' default is 10).
+REQUEST_TIMEOUT = 300
 CASES: Counter[str] = Counter()
 MODE_CASES: Counter[str] = Counter()
 CALLS: Counter[str] = Counter()
@@ -87,13 +96,13 @@ def write_history(path: Path, n: int) -> Path:
 
 
 @pytest.fixture(scope="module")
-def fuzz_workspace(tmp_path_factory: pytest.TempPathFactory, embedder) -> Workspace:
+def fuzz_workspace(tmp_path_factory: pytest.TempPathFactory, demo_home: Path, embedder) -> Workspace:
+    # A private copy of the demo store, trained, so forecasts, hours, wordings
+    # and account choices answer (and their answers are checked against the
+    # schema), not only refuse; fuzzed writes never reach the shared copy.
     home = tmp_path_factory.mktemp("fuzz") / "home"
+    shutil.copytree(demo_home, home)
     ws = Workspace(settings=Settings(home=home, token=TOKEN), embedder=embedder)
-    ws.import_csv(write_history(home.parent / "history.csv", FUZZ_POSTS), ImportOptions(new_accounts="UTC"))
-    # A trained model, so forecasts, hours, wordings and account choices answer
-    # (and their answers are checked against the schema), not only refuse.
-    train(ws, "impressions", now=NOW, backtest=False)
     yield ws
     ws.close()
 
@@ -113,17 +122,21 @@ schema = schemathesis.openapi.from_dict(_openapi_document())
 
 
 @pytest.fixture(scope="module")
+def fuzz_url(fuzz_workspace: Workspace):
+    """The demo copy served over HTTP on loopback, as `sounding serve` runs it."""
+    settings = fuzz_workspace.settings
+    app = create_app(workspace=fuzz_workspace, bound_host="127.0.0.1")
+    with serve(app, http=guard.protocol(settings), timeout_keep_alive=settings.keep_alive_seconds) as url:
+        # Checks that send a request of their own (a resource asked for again,
+        # the same request without its credentials) go to the served app too.
+        schema.config.update(base_url=url, request_timeout=REQUEST_TIMEOUT)
+        yield url
+
+
+@pytest.fixture(scope="module")
 def fuzz_app(fuzz_workspace: Workspace):
-    app = create_app(workspace=fuzz_workspace)
-    # Checks that send a request of their own (a resource asked for again,
-    # the same request without its credentials) reach this app in process.
-    schema.app = app
-    for op in OPERATIONS:
-        op.app = app
-    yield app
-    schema.app = None
-    for op in OPERATIONS:
-        op.app = None
+    """The same app in process, for the edge requests below."""
+    return create_app(workspace=fuzz_workspace)
 
 
 # One test item per operation and generation mode, built from the schema at
@@ -134,22 +147,15 @@ OPERATIONS = [result.ok() for result in schema.get_all_operations()]
 # Where a request declared valid may still be refused for what a schema cannot
 # state, schemathesis' "valid data is accepted" check is left out, and only
 # there: an uploaded file's content (checked row by row in the tests below),
-# and topic phrases, which are judged after their text is normalised (empty
-# alternatives, duplicates up to case, the reserved name "other"), a new
-# account's handle, whose "letters of any script" no ECMA-262 pattern without
-# Unicode classes can state (the schema states what a handle never holds),
 # a time range that ends before it starts (a relation between two fields),
-# and a draft's text and planned time, judged after the text is normalised
-# (invisible characters) and read in any of the layouts imports accept.
+# and a new account's handle, whose "letters of any script" no ECMA-262
+# pattern without Unicode classes can state (the schema states what a handle
+# never holds). Draft texts, planned times, topic phrases and split edges are
+# stated in the schema exactly as the server judges them, so their operations
+# get every check.
 ACCEPTANCE_UNSTATABLE = {
-    "POST /v1/forecasts",
-    "POST /v1/variants",
-    "POST /v1/comparisons",
-    "POST /v1/account-choices",
-    "POST /v1/precedents",
     "POST /v1/imports",
-    "POST /v1/segments",
-    "POST /v1/trends",
+    "POST /v1/precedents",
     "PUT /v1/accounts/{handle}",
 }
 
@@ -168,7 +174,7 @@ FUZZ_ITEMS = [
 ]
 
 
-def _fuzz(operation, mode: GenerationMode, fuzz_app) -> None:
+def _fuzz(operation, mode: GenerationMode, url: str) -> None:
     auth = {"Authorization": f"Bearer {TOKEN}"}
     # A write operation (one that declares the bearer scheme) is sent without
     # and with the token; a read is open, so one call with the token is enough.
@@ -193,7 +199,7 @@ def _fuzz(operation, mode: GenerationMode, fuzz_app) -> None:
         if positive and isinstance(body, dict) and isinstance(body.get("account"), str):
             body["account"] = "loomhaven"
         for headers in (None, auth) if needs_token else (auth,):
-            response = case.call(headers=headers, app=fuzz_app)
+            response = case.call(base_url=url, headers=headers, timeout=REQUEST_TIMEOUT)
             CALLS["with token" if headers else "without token"] += 1
             assert response.status_code < 500, response.text
             if headers and response.status_code < 300:
@@ -208,8 +214,8 @@ def _fuzz(operation, mode: GenerationMode, fuzz_app) -> None:
 
 
 @pytest.mark.parametrize(("operation", "mode"), FUZZ_ITEMS)
-def test_api_agrees_with_its_schema_on_generated_requests(operation, mode, fuzz_app) -> None:
-    _fuzz(operation, mode, fuzz_app)
+def test_api_agrees_with_its_schema_on_generated_requests(operation, mode, fuzz_url: str) -> None:
+    _fuzz(operation, mode, fuzz_url)
 
 
 def test_every_operation_was_fuzzed(artifacts: Path, capsys: pytest.CaptureFixture[str]) -> None:
@@ -402,8 +408,10 @@ def test_import_refuses_exactly_the_bad_dates_and_huge_numbers(value_app, rows) 
 def test_forecast_refuses_planned_times_outside_the_range(value_app, when) -> None:
     from fastapi.testclient import TestClient
 
-    text, instant = when
-    ok = in_range(instant)
+    text, _ = when
+    # A planned time is judged by its year as written, before its offset is
+    # applied: what the schema's pattern states (service.clock.YEAR_PATTERN).
+    ok = LOW.year <= int(text[:4]) < HIGH.year
     with TestClient(value_app, raise_server_exceptions=False) as c:
         r = c.post("/v1/forecasts", json={"text": "Magnolias", "account": "loomhaven", "planned_at": text})
     assert r.status_code < 500, r.text

@@ -25,7 +25,7 @@ from statsmodels.stats.multitest import multipletests
 from typer.testing import CliRunner
 
 from models.embedding import Embedder
-from models.errors import InputError
+from models.errors import InputError, NotFound
 from service.api.app import create_app
 from service.cli import app as cli_app
 from service.cli.base import use_embedder
@@ -117,7 +117,8 @@ def test_the_planted_campaign_is_highest_and_clearly_so(labelled) -> None:
 
 def test_label_splits_are_refused_clearly_when_there_is_no_such_label(labelled) -> None:
     ws, _, _ = labelled
-    with pytest.raises(InputError, match="no post has a label 'series'") as info:
+    # An unknown label is an unknown name (404), like an unknown account.
+    with pytest.raises(NotFound, match="no post has a label 'series'") as info:
         segment(ws, SegmentRequest(by="label:series"), now=NOW)
     assert info.value.hint == "labels kept: campaign"
     with pytest.raises(InputError, match="names no label"):
@@ -141,6 +142,8 @@ def test_the_api_and_the_command_line_split_by_label(
         assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
         r = client.post("/v1/segments", json={"by": "label:"})
         assert r.status_code == 422
+        r = client.post("/v1/segments", json={"by": "label:series"})
+        assert r.status_code == 404 and r.json()["error"]["code"] == "not_found", r.text
     use_embedder(embedder)
     monkeypatch.setenv("SOUNDING_HOME", str(ws.settings.resolved_home))
     out = CliRunner().invoke(cli_app, ["segments", "--by", "label:campaign", "--json"])

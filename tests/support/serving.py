@@ -10,7 +10,7 @@ import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import pytest
 import uvicorn
@@ -48,12 +48,14 @@ def shown_count(v: float) -> str:
 
 
 @contextmanager
-def serve(app: FastAPI) -> Iterator[str]:
-    """The app on a free port of 127.0.0.1, in a background thread; stops on exit."""
+def serve(app: FastAPI, **config: Any) -> Iterator[str]:
+    """The app on a free port of 127.0.0.1, in a background thread; stops on
+    exit. ``config`` goes to ``uvicorn.Config`` (e.g. the HTTP protocol
+    `sounding serve` uses)."""
     sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
     sock.bind(("127.0.0.1", 0))
     port = sock.getsockname()[1]
-    server = uvicorn.Server(uvicorn.Config(app, log_level="warning", lifespan="on"))
+    server = uvicorn.Server(uvicorn.Config(app, log_level="warning", lifespan="on", **config))
     thread = threading.Thread(target=server.run, kwargs={"sockets": [sock]}, daemon=True)
     thread.start()
     deadline = time.monotonic() + 60
