@@ -32,6 +32,7 @@ from service.forecast.answer import Contributions, Forecast, GroupEffect, from_m
 from service.forecast.calibration import CalibrationSource, adapted_band
 from service.forecast.draft import Draft
 from service.history import viewcache
+from service.history.match_modes import Match
 from service.history.peers import peer_repeats
 from service.history.precedents import WeightedPrecedent, precedents_for
 from service.history.repeats import near_repeats_many
@@ -188,11 +189,13 @@ class Forecaster:
         now: datetime | None = None,
         vectors: np.ndarray | None = None,
         calibration: CalibrationSource | None = None,
+        match: Match = Match.MEANING,
     ) -> list[Forecast]:
         """Forecast each draft, whole: ``vectors`` may pass embeddings already
         made; with ``calibration`` (the track record), each band is adapted to
-        the outcomes scored so far and carries the live coverage and warnings."""
-        run = self._run(drafts, metric, coverage, now, vectors, calibration)
+        the outcomes scored so far and carries the live coverage and warnings;
+        ``match`` says how near-repeats are found (``service.history.repeats``)."""
+        run = self._run(drafts, metric, coverage, now, vectors, calibration, match)
         model, view = run.model, run.view
         # Shown precedents' details come from the view, as current as its stamp: no SQL.
         details = view.details(sorted({r for row in run.rows for r, _ in row[3]}))
@@ -280,6 +283,7 @@ class Forecaster:
         now: datetime | None,
         vectors: np.ndarray | None,
         calibration: CalibrationSource | None,
+        match: Match = Match.MEANING,
     ) -> _Run:
         """The one forecast path: features, the model's bands (adapted by the
         calibration source), near-repeats."""
@@ -323,6 +327,8 @@ class Forecaster:
             [(d.account, v, p) for d, v, p in zip(drafts, vecs, plans, strict=True)],
             now=now,
             wide=wide,
+            texts=[d.text for d in drafts],
+            match=match,
         )
         peers = self.peers(metric)
         if peers is not None and len(peers.history):

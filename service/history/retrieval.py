@@ -84,6 +84,11 @@ class Retriever:
                 conn, text, k, allowed_pks=None if allowed_pks is None else allowed_pks.tolist()
             )
 
+    def self_scores(self, pks: np.ndarray) -> dict[int, float]:
+        """Each post's BM25 score for its own words (``keywords.self_scores``)."""
+        with self.store.engine.connect() as conn:
+            return keywords.self_scores(conn, [int(p) for p in pks])
+
     def _search(
         self, vectors: np.ndarray, k: int, allowed: np.ndarray | None
     ) -> tuple[np.ndarray, np.ndarray]:
