@@ -123,6 +123,11 @@ class Settings(BaseSettings):
     # of 2,945 ordinary posts (0.4%), as few as the cosine rule.
     repeat_words_share: float = Field(default=0.8, gt=0, le=1)
 
+    # The "posts sharing the draft's key terms" columns (service.forecast.shared_columns):
+    # auto tries them in training's backtest and keeps them only where it improves; off
+    # never tries them; hashtags or rare_terms keeps that kind whatever the backtest says.
+    shared_terms: Literal["auto", "off", "hashtags", "rare_terms"] = "auto"
+
     # Limits
     max_draft_chars: int = Field(default=5000, ge=1)
     # A stored text is echoed into every answer that shows it as a precedent,

@@ -26,11 +26,11 @@ from models.artefact import TrainedModel, newest
 from models.errors import InputError, NotReady
 from models.explain import describe, group_contributions
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_coverage, check_target
-from models.stacking import ALL_GROUPS
 from service.clock import now_utc, zone
 from service.forecast.answer import Contributions, Forecast, GroupEffect, from_model_scale
 from service.forecast.calibration import CalibrationSource, adapted_band
 from service.forecast.draft import Draft
+from service.forecast.shared_columns import GROUPS, SharedTerms, view_tokens
 from service.history import viewcache
 from service.history.match_modes import Match
 from service.history.peers import peer_repeats
@@ -104,6 +104,7 @@ class Forecaster:
         self._models: dict[str, TrainedModel] = {}
         self._views: dict[str, tuple[int, HistoryView]] = {}
         self._peers: tuple[int, HistoryView | None] | None = None
+        self._shared: dict[str, tuple[HistoryView, SharedTerms]] = {}
         #: Keep each view between processes (service.history.viewcache): a cold command
         #: maps it instead of building it. A service keeps its views in memory with
         #: their posts' details, so a forecast asks the store nothing but the counters.
@@ -171,6 +172,17 @@ class Forecaster:
             self._peers = (stamp, v)
         return v
 
+    def shared_terms(self, view: HistoryView, kind: str) -> SharedTerms:
+        """The history's key terms of ``kind`` for draft rows, kept with the view."""
+        with self._lock:
+            hit = self._shared.get(kind)
+        if hit is not None and hit[0] is view:
+            return hit[1]
+        made = SharedTerms.of(view, view_tokens(view, self.store), kind)
+        with self._lock:
+            self._shared[kind] = (view, made)
+        return made
+
     def warm(self) -> None:
         """Rebuild, ahead of the next forecast, the history views already in
         use whose store changed (the service's background refresher calls
@@ -206,7 +218,7 @@ class Forecaster:
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = run.rows[i]
             band = run.bands[i]
-            expected, groups = group_contributions(contribs[i], model.forecaster.feature_names_, ALL_GROUPS)
+            expected, groups = group_contributions(contribs[i], model.forecaster.feature_names_, GROUPS)
             local = run.plans[i].astimezone(zone(tz))
             if id(hood_rows) not in shown:
                 shown[id(hood_rows)] = self._precedents(view, hood_rows, weights, run.now, details)
@@ -319,6 +331,13 @@ class Forecaster:
         X = model.rows(
             np.vstack([r[0] for r in rows]), vecs, [view.account_codes[d.account] for d in drafts]
         )  # extra columns
+        kind = model.report.get("shared_terms")
+        if kind:  # kept by training's backtest (service.forecast.shared_columns)
+            cut_offs = [min(p, now).timestamp() for p in plans]
+            shared = self.shared_terms(view, str(kind)).drafts(
+                [d.text for d in drafts], cut_offs, model.features
+            )
+            X = np.hstack([X, shared])
         lo, med, hi = model.forecaster.predict(X, coverage=coverage)
         repeats = near_repeats_many(
             self.retrieval,

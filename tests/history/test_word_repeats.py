@@ -12,9 +12,8 @@ from datetime import UTC, datetime, timedelta
 
 import numpy as np
 import pytest
-from conftest import history_csv
 from fastapi.testclient import TestClient
-from history.test_keywords import hand_bm25
+from history.test_keywords import hand_bm25, with_posts
 from typer.testing import CliRunner
 
 from service.api.app import create_app
@@ -22,7 +21,6 @@ from service.history.match_modes import Match
 from service.history.repeats import near_repeats
 from service.history.view import build_view
 from service.history.word_repeats import MIN_SHARED, words_above
-from service.ingest.options import ImportOptions
 from service.plan import forecast_plan
 from service.storage import keywords
 
@@ -36,14 +34,12 @@ PLANNED = datetime(2025, 2, 12, 9, tzinfo=UTC)
 
 @pytest.fixture()
 def reworded(workspace, tmp_path):  # type: ignore[no-untyped-def]
-    path = tmp_path / "reworded.csv"
-    extra = (
-        f'rep-1,loomhaven,"{EARLIER}",2025-02-10T10:00:00+00:00,90\n'
-        f'rep-2,loomhaven,"{SHORT}",2025-02-11T10:00:00+00:00,80\n'
+    return with_posts(
+        workspace,
+        tmp_path,
+        f'rep-1,loomhaven,"{EARLIER}",2025-02-10T10:00:00+00:00,90',
+        f'rep-2,loomhaven,"{SHORT}",2025-02-11T10:00:00+00:00,80',
     )
-    path.write_bytes(history_csv(48) + extra.encode())
-    workspace.import_csv(path, ImportOptions(new_accounts="UTC"))
-    return workspace
 
 
 def _repeats(ws, match: Match):  # type: ignore[no-untyped-def]

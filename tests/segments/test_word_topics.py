@@ -9,11 +9,9 @@ import json
 
 import numpy as np
 import pytest
-from conftest import history_csv
-from history.test_keywords import hand_bm25
+from history.test_keywords import hand_bm25, with_posts
 
 from models.segments import OTHER
-from service.ingest.options import ImportOptions
 from service.segments.request import SegmentRequest
 from service.segments.segmenting import segment
 from service.segments.word_topics import MIN_SCORE
@@ -27,11 +25,7 @@ TOPICS = ["seeds to share #seedswap", "magnolias open early"]
 
 @pytest.fixture()
 def tagged(workspace, tmp_path):  # type: ignore[no-untyped-def]
-    path = tmp_path / "tagged.csv"
-    extra = f'tag-1,loomhaven,"{TAGGED}",2025-03-20T10:00:00+00:00,90\n'
-    path.write_bytes(history_csv(48) + extra.encode())
-    workspace.import_csv(path, ImportOptions(new_accounts="UTC"))
-    return workspace
+    return with_posts(workspace, tmp_path, f'tag-1,loomhaven,"{TAGGED}",2025-03-20T10:00:00+00:00,90')
 
 
 def _topic_of(ws, match: str, post_id: str = "tag-1", mode: str = "nearest") -> list[str]:  # type: ignore[no-untyped-def]
