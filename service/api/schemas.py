@@ -270,6 +270,7 @@ class HoursRequest(Strict):
         description="Hours (and weekdays in a week) with fewer of the account's posts are marked "
         "few_posts and never called best",
     )
+    match: Match = REPEAT_MATCH_FIELD
 
 
 class VariantsRequest(Strict):
@@ -286,6 +287,7 @@ class VariantsRequest(Strict):
     metric: str = METRIC_FIELD
     coverage: Coverage = COVERAGE_FIELD
     has_media: bool = Field(default=False, description="An image or video goes with every variant")
+    match: Match = REPEAT_MATCH_FIELD
 
 
 # Segments -------------------------------------------------------------------

@@ -268,12 +268,13 @@ class Forecaster:
         coverage: float = DEFAULT_COVERAGE,
         now: datetime | None = None,
         vectors: np.ndarray | None = None,
+        match: Match = Match.MEANING,
     ) -> list[DraftBand]:
         """Only the intervals (log scale and counts) and warnings of
         :meth:`forecast`, from the same run, without the explanations (the
         precedents shown and TreeSHAP contributions): what a choice among
         many slots needs."""
-        run = self._run(drafts, metric, coverage, now, vectors, None)
+        run = self._run(drafts, metric, coverage, now, vectors, None, match)
         return [
             DraftBand(
                 log=b,

@@ -141,6 +141,19 @@ def test_the_api_cli_and_plan_take_match(
         assert post_id in [x["post_id"] for x in batch.json()["forecasts"][0]["repeats"]]
         bad = c.post("/v1/forecasts", json={**body, "match": "sound"})
         assert bad.status_code == 422 and "match" in bad.text
+        # The other answers that warn: the best hours of a later day, and compared versions.
+        day = (planned + timedelta(days=1)).date().isoformat()
+        for match, warned in ((Match.MEANING, False), (Match.WORDS, True)):
+            hours = c.post("/v1/hours", json={"text": draft, "account": account, "day": day, "match": match})
+            assert hours.status_code == 200, hours.text
+            assert any(post_id in w for w in hours.json()["warnings"]) is warned, match
+            versions = {"texts": [draft, "Something else entirely"], "account": account}
+            compared = c.post(
+                "/v1/variants", json={**versions, "planned_at": body["planned_at"], "match": match}
+            )
+            assert compared.status_code == 200, compared.text
+            first = next(v for v in compared.json()["variants"] if v["text"] == draft)
+            assert any(post_id in w for w in first["warnings"]) is warned, match
 
     from service.cli import app
     from service.cli.base import use_embedder
