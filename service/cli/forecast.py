@@ -288,6 +288,15 @@ def planned(at: str | None, account: str, options: PlanOptions | None = None) ->
     )
 
 
+#: How near-repeats are found: one option for every command that warns.
+REPEATS_MATCH = typer.Option(
+    Match.MEANING,
+    "--match",
+    help="Find near-repeats by meaning (the text's embedding), by the words they share (hashtags, "
+    "@mentions and numbers included; BM25) or both.",
+)
+
+
 @app.command("check")
 def check_cmd(
     text: str | None = typer.Argument(None, help="The draft (or use --plan for a plan file)."),
@@ -328,12 +337,7 @@ def check_cmd(
     details: bool = typer.Option(
         False, "--details", help="Also name the calibration method and show its level and why it moved."
     ),
-    match: Match = typer.Option(
-        Match.MEANING,
-        "--match",
-        help="Find near-repeats by meaning (the text's embedding), by the words they share (hashtags, "
-        "@mentions and numbers included; BM25) or both.",
-    ),
+    match: Match = REPEATS_MATCH,
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()

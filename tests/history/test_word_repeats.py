@@ -14,9 +14,11 @@ import numpy as np
 import pytest
 from fastapi.testclient import TestClient
 from history.test_keywords import hand_bm25, with_posts
+from support.serving import serve
 from typer.testing import CliRunner
 
 from service.api.app import create_app
+from service.client import SoundingClient
 from service.history.match_modes import Match
 from service.history.repeats import near_repeats
 from service.history.view import build_view
@@ -154,6 +156,12 @@ def test_the_api_cli_and_plan_take_match(
             assert compared.status_code == 200, compared.text
             first = next(v for v in compared.json()["variants"] if v["text"] == draft)
             assert any(post_id in w for w in first["warnings"]) is warned, match
+
+    with serve(create_app(workspace=demo_workspace)) as url, SoundingClient(base_url=url, timeout=60.0) as sc:
+        got = sc.forecast(draft, account=account, planned_at=planned, match="words")
+        assert post_id in [r.post_id for r in got.repeats]
+        plain = sc.forecast_plan([{"text": draft, "account": account, "planned_at": planned}])
+        assert post_id not in [r.post_id for r in plain[0].repeats]
 
     from service.cli import app
     from service.cli.base import use_embedder
