@@ -179,9 +179,8 @@ def near_repeats_many(
                 if match is Match.MEANING
                 else words_above(retrieval, view, said, rows, s.repeat_words_share)
             )
-            sims = dict(hits) | _cosines(
-                retrieval, view, vec, [r for r, _ in by_words if r not in dict(hits)]
-            )
+            sims = dict(hits)
+            sims |= _cosines(retrieval, view, vec, [r for r, _ in by_words if r not in sims])
             shares = None if match is Match.MEANING else dict(by_words)
             order = combined(match, hits, by_words)
             for i, t in zip(idx, times, strict=True):

@@ -364,8 +364,8 @@ def _topic_split(
 #: How a post joined its topic, as the split's title says it.
 _JOINED = {
     Match.MEANING: "nearest phrase, similarity at least {t:g}",
-    Match.WORDS: "the phrase whose words it shares most, by BM25",
-    Match.BOTH: "meaning (similarity at least {t:g}) and words fused by rank",
+    Match.WORDS: "the phrase whose words it shares most",
+    Match.BOTH: "the phrase closest in meaning (similarity at least {t:g}) and words together",
 }
 _TOP = {
     Match.MEANING: "nearest",
