@@ -13,7 +13,7 @@ from datetime import UTC, datetime, timedelta
 import numpy as np
 import pytest
 from fastapi.testclient import TestClient
-from history.test_keywords import hand_bm25, with_posts
+from history.test_keywords import CORPUS, hand_bm25, stored, with_posts
 from support.serving import serve
 from typer.testing import CliRunner
 
@@ -75,6 +75,21 @@ def test_the_words_share_is_the_bm25_ratio_by_hand(reworded) -> None:  # type: i
         row = int(np.flatnonzero(view.history.pk == pks[target])[0])
         assert got[row] == pytest.approx(min(1.0, want), rel=1e-9)
     assert want < 0.8  # the shorter draft repeats too little of the post to be warned
+
+
+def test_self_scores_equal_the_formula_by_hand(database_url: str) -> None:
+    # A post's self-score: Okapi BM25 (hand_bm25, from the formula) of its own
+    # distinct terms on itself, on SQLite (FTS5's bm25) and PostgreSQL alike.
+    store, pks = stored(database_url, CORPUS)
+    try:
+        with store.engine.connect() as conn:
+            got = keywords.self_scores(conn, list(pks.values()))
+        docs = [d.split() for d in CORPUS]
+        for i, d in enumerate(docs):
+            want = hand_bm25(list(dict.fromkeys(d)), docs)[i]
+            assert got[pks[f"p{i}"]] == pytest.approx(want, rel=1e-9), CORPUS[i]
+    finally:
+        store.close()
 
 
 def test_a_reworded_repeat_is_warned_by_words_and_both_not_by_meaning(reworded) -> None:  # type: ignore[no-untyped-def]
