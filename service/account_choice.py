@@ -24,6 +24,7 @@ from service.checking import check_drafts
 from service.clock import now_utc
 from service.forecast.answer import CAUTION, Forecast, from_model_scale
 from service.forecast.draft import make_draft, planned_time
+from service.history.match_modes import Match
 from service.history.view import HistoryView
 from service.ingest.timestamps import TimeReader
 from service.review.overlap import RULE, heavy_overlap, ranks, tied_with_best
@@ -106,11 +107,12 @@ def choose_account(
     coverage: float = DEFAULT_COVERAGE,
     now: datetime | None = None,
     where: str = "planned_at",
+    match: Match = Match.MEANING,
 ) -> AccountChoice:
     """Forecast ``text`` for each of ``accounts`` (handles, or ``"all"``) at
     ``planned_at``: a time without an offset is read in each account's own
     zone (or in ``timezone``; ``reader`` reads other layouts). Accounts with too little history are left out
-    with the reason; an unknown handle is refused."""
+    with the reason; an unknown handle is refused. ``match``: how near-repeats are found."""
     now = now or now_utc()
     handles = _handles(ws, accounts)
     forecaster = ws.forecaster
@@ -142,7 +144,9 @@ def choose_account(
         )
         drafts.append(make_draft(ws.store, text=text, account=h, planned_at=when, has_media=has_media))
     vectors = np.repeat(forecaster.embed([text]), len(drafts), axis=0)
-    found = check_drafts(ws, drafts, metric=metric, coverage=coverage, record=False, now=now, vectors=vectors)
+    found = check_drafts(
+        ws, drafts, metric=metric, coverage=coverage, record=False, now=now, vectors=vectors, match=match
+    )
     rows = [_fit(view, params, f, now) for f in found]
     _rank(rows)
     f0 = found[0]

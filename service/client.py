@@ -121,9 +121,11 @@ class SoundingClient:
         coverage: float = DEFAULT_COVERAGE,
         draft_id: str | None = None,
         has_media: bool = False,
+        match: str = "meaning",
     ) -> Forecast:
         """Forecast one draft: interval, precedents, contributions and
-        warnings (near-repeats are in ``warnings`` and ``repeats``)."""
+        warnings (near-repeats are in ``warnings`` and ``repeats``, found by
+        ``match``: meaning, words or both)."""
         body = {
             "text": text,
             "account": account,
@@ -132,11 +134,17 @@ class SoundingClient:
             "coverage": coverage,
             "draft_id": draft_id,
             "has_media": has_media,
+            "match": match,
         }
         return self._call("POST", "/v1/forecasts", _drop_none(body), Forecast)
 
     def forecast_plan(
-        self, drafts: Sequence[DraftLike], *, metric: str = DEFAULT_METRIC, coverage: float = DEFAULT_COVERAGE
+        self,
+        drafts: Sequence[DraftLike],
+        *,
+        metric: str = DEFAULT_METRIC,
+        coverage: float = DEFAULT_COVERAGE,
+        match: str = "meaning",
     ) -> list[Forecast]:
         """Forecast several drafts in one request, in their order. Each draft
         is a ``DraftIn`` or a mapping with its fields (text, account,
@@ -146,7 +154,7 @@ class SoundingClient:
             raw = d.model_dump() if isinstance(d, DraftIn) else dict(d)
             raw["planned_at"] = _when(raw.get("planned_at"))
             items.append(_drop_none(raw))
-        body = {"drafts": items, "metric": metric, "coverage": coverage}
+        body = {"drafts": items, "metric": metric, "coverage": coverage, "match": match}
         return self._call("POST", "/v1/forecasts", body, Forecasts).forecasts
 
     def best_hours(

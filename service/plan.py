@@ -26,6 +26,7 @@ from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 from service.checking import check_drafts
 from service.forecast.answer import Forecast
 from service.forecast.draft import Draft, make_draft, planned_time
+from service.history.match_modes import Match
 from service.ingest.encodings import check_text
 from service.ingest.flags import read_flag
 from service.ingest.plan_options import PlanOptions
@@ -156,8 +157,9 @@ def forecast_plan(
     coverage: float = DEFAULT_COVERAGE,
     record: bool = True,
     options: PlanOptions | None = None,
+    match: Match = Match.MEANING,
 ) -> PlanCounts:
-    """Forecast every row of ``src`` into ``dest``."""
+    """Forecast every row of ``src`` into ``dest`` (``match``: how near-repeats are found)."""
     ws.forecaster.model(metric)  # no model, or an unknown metric, fails the whole file
     rows = read_plan(ws, Path(src), options)
     todo = [i for i, r in enumerate(rows) if r.draft is not None]
@@ -165,7 +167,9 @@ def forecast_plan(
     problems: dict[int, str] = {i: r.problem for i, r in enumerate(rows) if r.draft is None}
     drafts = [d for d in (rows[i].draft for i in todo) if d is not None]
     if drafts:  # with every row unreadable there is nothing to forecast; each keeps its reason
-        _give_all(ws, todo, drafts, results, problems, metric=metric, coverage=coverage, record=record)
+        _give_all(
+            ws, todo, drafts, results, problems, metric=metric, coverage=coverage, record=record, match=match
+        )
     lines = [_line(row, results.get(i), problems.get(i), metric, coverage) for i, row in enumerate(rows)]
     Path(dest).parent.mkdir(parents=True, exist_ok=True)
     with Path(dest).open("w", encoding="utf-8", newline="") as f:
@@ -185,17 +189,20 @@ def _give_all(
     metric: str,
     coverage: float,
     record: bool,
+    match: Match,
 ) -> None:
     try:
         # Adapted, staleness-checked and recorded in the track record.
-        found = check_drafts(ws, drafts, metric=metric, coverage=coverage, record=record, source="plan")
+        found = check_drafts(
+            ws, drafts, metric=metric, coverage=coverage, record=record, source="plan", match=match
+        )
         results.update(zip(todo, found, strict=True))
     except SoundingError:
         # One draft spoiled the batch: forecast them one by one to isolate it.
         for i, d in zip(todo, drafts, strict=True):
             try:
                 results[i] = check_drafts(
-                    ws, [d], metric=metric, coverage=coverage, record=record, source="plan"
+                    ws, [d], metric=metric, coverage=coverage, record=record, source="plan", match=match
                 )[0]
             except SoundingError as one:
                 problems[i] = one.message

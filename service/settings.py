@@ -114,6 +114,19 @@ class Settings(BaseSettings):
     repeat_similarity: float = Field(default=0.93, ge=-1, le=1)
     repeat_window_days: float = Field(default=45.0, gt=0)
     team_repeat_window_days: float = Field(default=7.0, gt=0)
+    # Near-repeats by words (service.history.word_repeats): the share of an earlier
+    # post's BM25 self-score that a draft's words must reach on it. Chosen on the demo
+    # data in the same windows: the 55 planted repeats reach 0.918-1.0 on their originals
+    # (5th percentile 0.982), while an ordinary post's best earlier post reaches 0.41 at
+    # the median, 0.74 at the 99th percentile and 0.86 at the 99.9th (template-made texts
+    # share many words). 0.8 keeps every planted pair with a margin of 0.118 and flags 11
+    # of 2,945 ordinary posts (0.4%), as few as the cosine rule.
+    repeat_words_share: float = Field(default=0.8, gt=0, le=1)
+
+    # The "posts sharing the draft's key terms" columns (service.forecast.shared_columns):
+    # auto tries them in training's backtest and keeps them only where it improves; off
+    # never tries them; hashtags or rare_terms keeps that kind whatever the backtest says.
+    shared_terms: Literal["auto", "off", "hashtags", "rare_terms"] = "auto"
 
     # Limits
     max_draft_chars: int = Field(default=5000, ge=1)

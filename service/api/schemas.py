@@ -234,6 +234,14 @@ METRIC_FIELD = Field(
 COVERAGE_FIELD = Field(default=DEFAULT_COVERAGE, description="Nominal coverage of the interval")
 
 
+#: How near-repeats are found (service.history.repeats).
+REPEAT_MATCH_FIELD = Field(
+    default=Match.MEANING,
+    description="How near-repeats are found. meaning: by the text's embedding; words: by shared "
+    "words (BM25, the share of an earlier post's words the draft repeats); both: either",
+)
+
+
 class DraftIn(Strict):
     text: DraftText = Field(description="The draft's text")
     account: str = Field(min_length=1, description="Handle of the account that would post it")
@@ -246,6 +254,7 @@ class ForecastRequest(DraftIn):
     metric: str = METRIC_FIELD
     coverage: Coverage = COVERAGE_FIELD
     record: bool = Field(default=True, description="Keep the forecast in the track record")
+    match: Match = REPEAT_MATCH_FIELD
 
 
 class ForecastBatchRequest(Strict):
@@ -253,6 +262,7 @@ class ForecastBatchRequest(Strict):
     metric: str = METRIC_FIELD
     coverage: Coverage = COVERAGE_FIELD
     record: bool = Field(default=True, description="Keep the forecasts in the track record")
+    match: Match = REPEAT_MATCH_FIELD
 
 
 class AccountChoiceRequest(Strict):
@@ -267,6 +277,7 @@ class AccountChoiceRequest(Strict):
     has_media: bool = Field(default=False, description="An image or video goes with the text")
     metric: str = METRIC_FIELD
     coverage: Coverage = COVERAGE_FIELD
+    match: Match = REPEAT_MATCH_FIELD
 
 
 # Draft review: best hours and variants (service.review) ----------------------
@@ -292,6 +303,7 @@ class HoursRequest(Strict):
         description="Hours (and weekdays in a week) with fewer of the account's posts are marked "
         "few_posts and never called best",
     )
+    match: Match = REPEAT_MATCH_FIELD
 
 
 class VariantsRequest(Strict):
@@ -306,6 +318,7 @@ class VariantsRequest(Strict):
     metric: str = METRIC_FIELD
     coverage: Coverage = COVERAGE_FIELD
     has_media: bool = Field(default=False, description="An image or video goes with every variant")
+    match: Match = REPEAT_MATCH_FIELD
 
 
 # Segments -------------------------------------------------------------------
@@ -344,6 +357,11 @@ class SegmentsRequest(Strict):
         default="nearest",
         description="nearest: each post joins its most similar topic if the cosine similarity "
         "reaches threshold, else 'other'. top-k: each topic takes its k most similar posts.",
+    )
+    match: Match = Field(
+        default=Match.MEANING,
+        description="How a post joins a topic. meaning: by the phrase's embedding; words: by the "
+        "phrase's words it shares (BM25); both: the two rankings fused by reciprocal rank fusion",
     )
     k: int = Field(default=DEFAULT_K, ge=1, description="Posts per topic in top-k mode")
     threshold: float = Field(

@@ -23,6 +23,7 @@ from service.clock import localize, now_utc, zone
 from service.forecast import training as forecasting
 from service.forecast.answer import CAUTION, Forecast
 from service.forecast.draft import Draft, make_draft, planned_time
+from service.history.match_modes import Match
 from service.ingest.plan_options import PlanOptions
 from service.ingest.timestamps import TimeReader
 from service.plan import forecast_plan
@@ -287,6 +288,15 @@ def planned(at: str | None, account: str, options: PlanOptions | None = None) ->
     )
 
 
+#: How near-repeats are found: one option for every command that warns.
+REPEATS_MATCH = typer.Option(
+    Match.MEANING,
+    "--match",
+    help="Find near-repeats by meaning (the text's embedding), by the words they share (hashtags, "
+    "@mentions and numbers included; BM25) or both.",
+)
+
+
 @app.command("check")
 def check_cmd(
     text: str | None = typer.Argument(None, help="The draft (or use --plan for a plan file)."),
@@ -327,6 +337,7 @@ def check_cmd(
     details: bool = typer.Option(
         False, "--details", help="Also name the calibration method and show its level and why it moved."
     ),
+    match: Match = REPEATS_MATCH,
 ) -> None:
     """Forecast a draft (or a plan file) with its interval, precedents and reasons."""
     ws = workspace()
@@ -341,7 +352,14 @@ def check_cmd(
         if dest is None:
             raise InputError("--plan needs --out for the forecasts", field="--out")
         counts = forecast_plan(
-            ws, plan, dest, metric=metric, coverage=coverage, record=not no_record, options=options
+            ws,
+            plan,
+            dest,
+            metric=metric,
+            coverage=coverage,
+            record=not no_record,
+            options=options,
+            match=match,
         )
         if as_json:
             print_json({"rows": counts.rows, "forecast": counts.forecast, "lines": counts.lines})
@@ -367,6 +385,7 @@ def check_cmd(
                 metric=metric,
                 coverage=coverage,
                 where="--at",
+                match=match,
             )
         if as_json:
             print_json(choice.model_dump(mode="json"))
@@ -381,9 +400,9 @@ def check_cmd(
         draft = make_draft(
             ws.store, text=text, account=account, planned_at=when, has_media=media, where="--at"
         )
-        f = check_drafts(ws, [draft], metric=metric, coverage=coverage, record=not no_record, source="check")[
-            0
-        ]
+        f = check_drafts(
+            ws, [draft], metric=metric, coverage=coverage, record=not no_record, source="check", match=match
+        )[0]
     if as_json:
         print_json(f.model_dump(mode="json"))
     else:

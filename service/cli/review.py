@@ -7,10 +7,11 @@ import typer
 from models.errors import InputError
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, Metric
 from service.cli.base import app, out, print_json, workspace
-from service.cli.forecast import COVERAGE_HELP, METRIC_HELP, planned
+from service.cli.forecast import COVERAGE_HELP, METRIC_HELP, REPEATS_MATCH, planned
 from service.cli.prose import plural, say
 from service.cli.render import Column, interval_bar, print_table
 from service.forecast.answer import CAUTION
+from service.history.match_modes import Match
 from service.review.hour_support import DEFAULT_MIN_POSTS, FEW_POSTS
 from service.review.hours import HoursReport, best_hours, parse_day
 from service.review.wordings import VariantsReport, compare_variants
@@ -109,6 +110,7 @@ def hours_cmd(
         "and never called best.",
     ),
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
+    match: Match = REPEATS_MATCH,
 ) -> None:
     """Forecast a draft at every hour of a day (or a week) in the account's zone."""
     r = best_hours(
@@ -122,6 +124,7 @@ def hours_cmd(
         top=top,
         has_media=media,
         min_posts=min_posts,
+        match=match,
     )
     if as_json:
         print_json(r.model_dump(mode="json"))
@@ -178,6 +181,7 @@ def compare_cmd(
     metric: str = typer.Option(DEFAULT_METRIC.value, "--metric", help=METRIC_HELP),
     coverage: float = typer.Option(DEFAULT_COVERAGE, "--coverage", help=COVERAGE_HELP),
     media: bool = typer.Option(False, "--media", help="An image or video goes with each version."),
+    match: Match = REPEATS_MATCH,
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
     wide: bool = typer.Option(
         False, "--wide", help="Wrap the versions in full instead of cutting them to the terminal's width."
@@ -194,6 +198,7 @@ def compare_cmd(
         metric=metric,
         coverage=coverage,
         has_media=media,
+        match=match,
     )
     if as_json:
         print_json(r.model_dump(mode="json"))

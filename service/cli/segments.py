@@ -20,6 +20,7 @@ from service.cli.prose import say
 from service.cli.render import Column, cut, interval_bar, print_table
 from service.cli.tables import whole, write_csv
 from service.clock import parse_since
+from service.history.match_modes import Match
 from service.segments.answer import Example, SegmentResult, Split
 from service.segments.figure import render
 from service.segments.request import (
@@ -188,6 +189,12 @@ def segments_cmd(
         help="nearest: each post joins its closest topic (else other); "
         "top-k: each topic takes its k closest posts.",
     ),
+    match: Match = typer.Option(
+        Match.MEANING,
+        "--match",
+        help="How a post joins a topic: by meaning (the phrase's embedding), by the words it shares "
+        "with the phrase (hashtags, @mentions and numbers included; BM25) or both, fused by rank.",
+    ),
     k: int = typer.Option(DEFAULT_K, "-k", "--count", help="Posts per topic in top-k mode."),
     threshold: float = typer.Option(
         DEFAULT_THRESHOLD,
@@ -224,6 +231,11 @@ def segments_cmd(
     """How a metric differs between topics (named by phrases), hours, forms or accounts,
     or (--by month, --by week) how it moves over time."""
     if by in PERIODS:
+        if match is not Match.MEANING:
+            raise InputError(
+                "--match applies to topic segments; a trend over time matches topics by meaning",
+                field="--match",
+            )
         trend_req = TrendRequest(
             by=by,
             topics=list(topic or []),
@@ -251,6 +263,7 @@ def segments_cmd(
         by=by,
         metric=metric,
         mode=mode,
+        match=match,
         k=k,
         threshold=threshold,
         account=account,

@@ -26,12 +26,13 @@ from models.artefact import TrainedModel, newest
 from models.errors import InputError, NotReady
 from models.explain import describe, group_contributions
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_coverage, check_target
-from models.stacking import ALL_GROUPS
 from service.clock import now_utc, zone
 from service.forecast.answer import Contributions, Forecast, GroupEffect, from_model_scale
 from service.forecast.calibration import CalibrationSource, adapted_band
 from service.forecast.draft import Draft
+from service.forecast.shared_columns import GROUPS, SharedTerms, view_tokens
 from service.history import viewcache
+from service.history.match_modes import Match
 from service.history.peers import peer_repeats
 from service.history.precedents import WeightedPrecedent, precedents_for
 from service.history.repeats import near_repeats_many
@@ -103,6 +104,7 @@ class Forecaster:
         self._models: dict[str, TrainedModel] = {}
         self._views: dict[str, tuple[int, HistoryView]] = {}
         self._peers: tuple[int, HistoryView | None] | None = None
+        self._shared: dict[str, tuple[HistoryView, SharedTerms]] = {}
         #: Keep each view between processes (service.history.viewcache): a cold command
         #: maps it instead of building it. A service keeps its views in memory with
         #: their posts' details, so a forecast asks the store nothing but the counters.
@@ -170,6 +172,17 @@ class Forecaster:
             self._peers = (stamp, v)
         return v
 
+    def shared_terms(self, view: HistoryView, kind: str) -> SharedTerms:
+        """The history's key terms of ``kind`` for draft rows, kept with the view."""
+        with self._lock:
+            hit = self._shared.get(kind)
+        if hit is not None and hit[0] is view:
+            return hit[1]
+        made = SharedTerms.of(view, view_tokens(view, self.store), kind)
+        with self._lock:
+            self._shared[kind] = (view, made)
+        return made
+
     def warm(self) -> None:
         """Rebuild, ahead of the next forecast, the history views already in
         use whose store changed (the service's background refresher calls
@@ -188,11 +201,13 @@ class Forecaster:
         now: datetime | None = None,
         vectors: np.ndarray | None = None,
         calibration: CalibrationSource | None = None,
+        match: Match = Match.MEANING,
     ) -> list[Forecast]:
         """Forecast each draft, whole: ``vectors`` may pass embeddings already
         made; with ``calibration`` (the track record), each band is adapted to
-        the outcomes scored so far and carries the live coverage and warnings."""
-        run = self._run(drafts, metric, coverage, now, vectors, calibration)
+        the outcomes scored so far and carries the live coverage and warnings;
+        ``match`` says how near-repeats are found (``service.history.repeats``)."""
+        run = self._run(drafts, metric, coverage, now, vectors, calibration, match)
         model, view = run.model, run.view
         # Shown precedents' details come from the view, as current as its stamp: no SQL.
         details = view.details(sorted({r for row in run.rows for r, _ in row[3]}))
@@ -203,7 +218,7 @@ class Forecaster:
         for i, d in enumerate(drafts):
             _, weights, tz, hood_rows = run.rows[i]
             band = run.bands[i]
-            expected, groups = group_contributions(contribs[i], model.forecaster.feature_names_, ALL_GROUPS)
+            expected, groups = group_contributions(contribs[i], model.forecaster.feature_names_, GROUPS)
             local = run.plans[i].astimezone(zone(tz))
             if id(hood_rows) not in shown:
                 shown[id(hood_rows)] = self._precedents(view, hood_rows, weights, run.now, details)
@@ -253,12 +268,13 @@ class Forecaster:
         coverage: float = DEFAULT_COVERAGE,
         now: datetime | None = None,
         vectors: np.ndarray | None = None,
+        match: Match = Match.MEANING,
     ) -> list[DraftBand]:
         """Only the intervals (log scale and counts) and warnings of
         :meth:`forecast`, from the same run, without the explanations (the
         precedents shown and TreeSHAP contributions): what a choice among
         many slots needs."""
-        run = self._run(drafts, metric, coverage, now, vectors, None)
+        run = self._run(drafts, metric, coverage, now, vectors, None, match)
         return [
             DraftBand(
                 log=b,
@@ -280,6 +296,7 @@ class Forecaster:
         now: datetime | None,
         vectors: np.ndarray | None,
         calibration: CalibrationSource | None,
+        match: Match = Match.MEANING,
     ) -> _Run:
         """The one forecast path: features, the model's bands (adapted by the
         calibration source), near-repeats."""
@@ -315,6 +332,13 @@ class Forecaster:
         X = model.rows(
             np.vstack([r[0] for r in rows]), vecs, [view.account_codes[d.account] for d in drafts]
         )  # extra columns
+        kind = model.report.get("shared_terms")
+        if kind:  # kept by training's backtest (service.forecast.shared_columns)
+            cut_offs = [min(p, now).timestamp() for p in plans]
+            shared = self.shared_terms(view, str(kind)).drafts(
+                [d.text for d in drafts], cut_offs, model.features
+            )
+            X = np.hstack([X, shared])
         lo, med, hi = model.forecaster.predict(X, coverage=coverage)
         repeats = near_repeats_many(
             self.retrieval,
@@ -323,6 +347,8 @@ class Forecaster:
             [(d.account, v, p) for d, v, p in zip(drafts, vecs, plans, strict=True)],
             now=now,
             wide=wide,
+            texts=[d.text for d in drafts],
+            match=match,
         )
         peers = self.peers(metric)
         if peers is not None and len(peers.history):

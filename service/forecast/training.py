@@ -10,6 +10,7 @@ from typing import Any
 import numpy as np
 
 from models import features as F
+from models import shared_terms as S
 from models.artefact import TrainedModel
 from models.backtest import run_backtest
 from models.errors import NotReady
@@ -18,6 +19,7 @@ from models.stack_columns import extra_columns
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
 from service.clock import now_utc, wall_clock
 from service.datadir import DataDir
+from service.forecast import shared_columns
 from service.history.retrieval import Retriever
 from service.history.view import HistoryView, build_view, feature_params
 from service.settings import Settings
@@ -89,13 +91,19 @@ def _train(
         )
     # The text model's time-ordered column and the account code (models.stacking).
     X, text = with_extra_columns(view, params, now, X, ws.settings)
+    rows = training_rows(view, params, now, max_posts=ws.settings.train_max_posts)
     order = np.argsort(times, kind="stable")
-    X, y, times = X[order], y[order], times[order]
+    X, y, times, rows = X[order], y[order], times[order], rows[order]
     # The calibration block comes after the training block in time.
     cut = round(len(y) * (1 - cal_fraction))
-    model = StackedForecaster(**STACK_PARAMS).fit(
-        X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:]
-    )
+    names: tuple[str, ...] = ALL_FEATURES
+
+    def fit(**extra: Any) -> StackedForecaster:
+        return StackedForecaster(**STACK_PARAMS, **extra).fit(
+            X[:cut], y[:cut], X[cut:], y[cut:], feature_names=names, cal_times=times[cut:]
+        )
+
+    model = fit()
     report: dict[str, Any] = {
         "metric": metric,
         "trained_at": now_utc().isoformat(),
@@ -118,13 +126,23 @@ def _train(
         "combination": model.summary(),
         "text_model": None if text is None else {"penalty": text.alpha_},
     }
+    report["shared_terms"] = None
     if backtest:
         report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES, params=STACK_PARAMS)
+        # The shared-terms columns, kept only where they improve the backtest.
+        tokens = shared_columns.view_tokens(view, ws.store)
+        cols, with_cols, decision = shared_columns.decide(
+            ws.settings.shared_terms, view, tokens, params, rows, X, y, times, report["backtest"]
+        )
+        if cols is not None and with_cols is not None:
+            X, names = np.hstack([X, cols]), ALL_FEATURES + S.NAMES
+            report["backtest"], report["shared_terms"] = with_cols, decision["kind"]
+            model = fit()
+            report["combination"] = model.summary()
+        report["backtest"]["shared_terms"] = decision
         back = report["backtest"].get("serve_fallback")
         if back:  # the blend lost to this simple forecaster in time order: serve it
-            model = StackedForecaster(**{**STACK_PARAMS, "force_candidate": back}).fit(
-                X[:cut], y[:cut], X[cut:], y[cut:], feature_names=ALL_FEATURES, cal_times=times[cut:]
-            )
+            model = fit(force_candidate=back)
             report["combination"] = model.summary()
         report["note"] = report["backtest"]["note"]
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
@@ -145,10 +163,24 @@ def backtest(
     n_folds: int = 4,
     now: datetime | None = None,
 ) -> dict[str, Any]:
-    _, _, X, y, times = backtest_inputs(ws, metric, now=now or now_utc())
-    return run_backtest(
-        X, y, times, feature_names=ALL_FEATURES, coverage_level=coverage, n_folds=n_folds, params=STACK_PARAMS
-    )
+    view, rows, X, y, times = backtest_inputs(ws, metric, now=now or now_utc())
+    options: dict[str, Any] = {"coverage_level": coverage, "n_folds": n_folds}
+    report = run_backtest(X, y, times, feature_names=ALL_FEATURES, params=STACK_PARAMS, **options)
+    # What training would decide about the shared-terms columns, with both figures.
+    tokens = shared_columns.view_tokens(view, ws.store)
+    report["shared_terms"] = shared_columns.decide(
+        ws.settings.shared_terms,
+        view,
+        tokens,
+        feature_params(ws.settings),
+        rows,
+        X,
+        y,
+        times,
+        report,
+        **options,
+    )[2]
+    return report
 
 
 def with_extra_columns(

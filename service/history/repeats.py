@@ -14,8 +14,10 @@ from pydantic import BaseModel, Field
 
 from models.metrics import METRIC_COLUMNS, Metric, target_value
 from service.answers import Instant, Round2, Round4
+from service.history.match_modes import Match
 from service.history.retrieval import Retriever, WideCache
 from service.history.view import HistoryView
+from service.history.word_repeats import combined, words_above
 from service.settings import Settings
 
 DAY = 86400.0
@@ -32,7 +34,13 @@ class Repeat(BaseModel):
     account: str
     posted_at: Instant
     days_before: Round2 = Field(description="Days before the planned time")
-    similarity: Round4
+    similarity: Round4 = Field(description="Cosine similarity of the two texts' embeddings")
+    words_share: Round4 | None = Field(
+        default=None,
+        description="With match words or both: the share of the post's words the draft repeats "
+        "(BM25 of the draft's words on the post over the post's own); null when the words "
+        "rule did not find it",
+    )
     metric: Metric
     value: float | None = Field(description="The post's metric so far")
     still_gathering: bool = Field(description="True while the post's metrics are not final yet")
@@ -52,12 +60,16 @@ def repeat_message(
     still_gathering: bool,
     text: str,
     planned_is_now: bool,
+    words_share: float | None = None,
 ) -> str:
     """The warning line of a near-repeat."""
     ago = _ago(days_before) + (" ago" if planned_is_now else " before the planned time")
     how = _how_it_did(metric, value, not still_gathering)
     snippet = text if len(text) <= 90 else text[:87].rstrip() + "..."
-    what = f"{post_id} on {posted_at:%Y-%m-%d}, {how}, similarity {similarity:.2f}: \u201c{snippet}\u201d"
+    alike = f"similarity {similarity:.2f}" + (
+        "" if words_share is None else f", {words_share:.0%} of its words"
+    )
+    what = f"{post_id} on {posted_at:%Y-%m-%d}, {how}, {alike}: \u201c{snippet}\u201d"
     if scope == "own":
         return f"near-repeat: {account} posted something very similar {ago}: {what}"
     if scope == "reference":
@@ -96,6 +108,8 @@ def near_repeats(
     planned: datetime,
     now: datetime,
     k: int = 3,
+    text: str = "",
+    match: Match = Match.MEANING,
 ) -> list[Repeat]:
     """Posts above ``settings.repeat_similarity`` shortly before ``planned``.
 
@@ -103,8 +117,14 @@ def near_repeats(
     within ``team_repeat_window_days``. Young posts count too: they are the
     likeliest repeats. Only posts strictly before the planned time are
     searched, so re-checking a published post never finds itself.
+
+    ``match`` says how a post is found alike: by meaning (the cosine), by the
+    draft's ``text`` read as words (``service.history.word_repeats``), or
+    by either.
     """
-    return near_repeats_many(retrieval, settings, view, [(account, vector, planned)], now=now, k=k)[0]
+    return near_repeats_many(
+        retrieval, settings, view, [(account, vector, planned)], now=now, k=k, texts=[text], match=match
+    )[0]
 
 
 def near_repeats_many(
@@ -116,21 +136,27 @@ def near_repeats_many(
     now: datetime,
     k: int = 3,
     wide: WideCache | None = None,
+    texts: Sequence[str] | None = None,
+    match: Match = Match.MEANING,
 ) -> list[list[Repeat]]:
     """``near_repeats`` of each (account, vector, planned time), own account's
     repeats first, at most ``k`` of each scope, most similar first.
 
     Items that share account and text (best hours: one draft at many times)
-    share one search per scope over the union of their windows.
+    share one search per scope over the union of their windows. With
+    ``match`` words or both, ``texts`` (one per item) are read as words.
     """
     s = settings
     h = view.history
     out: list[list[Repeat]] = [[] for _ in items]
-    groups: dict[tuple[str, bytes], list[int]] = {}
+    if match is not Match.MEANING and (texts is None or len(texts) != len(items)):
+        raise ValueError("near-repeats by words need one text per item")
+    groups: dict[tuple[str, bytes, str], list[int]] = {}
     for i, (account, vec, _) in enumerate(items):
-        groups.setdefault((account, np.asarray(vec, dtype=np.float32).tobytes()), []).append(i)
+        said = "" if texts is None or match is Match.MEANING else texts[i]
+        groups.setdefault((account, np.asarray(vec, dtype=np.float32).tobytes(), said), []).append(i)
     spans = (("own", s.repeat_window_days * DAY), ("team", s.team_repeat_window_days * DAY))
-    for (account, _), idx in groups.items():
+    for (account, _, said), idx in groups.items():
         code = view.account_codes.get(account)
         if code is None or len(h) == 0:
             continue
@@ -143,18 +169,56 @@ def near_repeats_many(
             hi = int(np.searchsorted(h.time, times.max(), side="left"))
             acc = h.account[lo:hi]
             rows = lo + np.flatnonzero((acc == code) if scope == "own" else (acc != code))
-            hits = retrieval.above(view, vec, rows, s.repeat_similarity, (wide or {}).get(vec.tobytes()))
+            hits = (
+                []
+                if match is Match.WORDS
+                else retrieval.above(view, vec, rows, s.repeat_similarity, (wide or {}).get(vec.tobytes()))
+            )
+            by_words = (
+                []
+                if match is Match.MEANING
+                else words_above(retrieval, view, said, rows, s.repeat_words_share)
+            )
+            sims = dict(hits)
+            sims |= _cosines(retrieval, view, vec, [r for r, _ in by_words if r not in sims])
+            shares = None if match is Match.MEANING else dict(by_words)
+            order = combined(match, hits, by_words)
             for i, t in zip(idx, times, strict=True):
-                mine = [(r, sim) for r, sim in hits if t - span <= h.time[r] < t][:k]
+                mine = [r for r in order if t - span <= h.time[r] < t][:k]
                 out[i].extend(
-                    _repeat(view, scope, r, sim, t=t, now=now, maturity=s.maturity_hours * 3600.0)
-                    for r, sim in mine
+                    _repeat(
+                        view,
+                        scope,
+                        r,
+                        sims[r],
+                        t=t,
+                        now=now,
+                        maturity=s.maturity_hours * 3600.0,
+                        words_share=None if shares is None else shares.get(r),
+                    )
+                    for r in mine
                 )
     return out
 
 
+def _cosines(retrieval: Retriever, view: HistoryView, vec: np.ndarray, rows: list[int]) -> dict[int, float]:
+    """The cosine of History ``rows`` to ``vec``, from the index's vectors."""
+    if not rows:
+        return {}
+    sims = retrieval.similarities(vec, view.history.pk[np.asarray(rows, dtype=np.int64)])[:, 0]
+    return {r: float(x) for r, x in zip(rows, sims, strict=True)}
+
+
 def _repeat(
-    view: HistoryView, scope: str, row: int, sim: float, *, t: float, now: datetime, maturity: float
+    view: HistoryView,
+    scope: str,
+    row: int,
+    sim: float,
+    *,
+    t: float,
+    now: datetime,
+    maturity: float,
+    words_share: float | None = None,
 ) -> Repeat:
     rec = view.details([row])[int(view.history.pk[row])]
     posted = view.history.time[row]
@@ -165,6 +229,7 @@ def _repeat(
         "posted_at": rec["posted_at"],
         "days_before": (t - posted) / DAY,
         "similarity": float(sim),
+        "words_share": words_share,
         "metric": view.metric,
         "value": target_value(_metrics(rec["metrics"]), view.metric, followers=rec.get("followers")),
         "still_gathering": not bool(posted <= now.timestamp() - maturity),

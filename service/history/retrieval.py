@@ -48,6 +48,8 @@ class Retriever:
         self.store = store
         self._index = index
         self._lock = lock
+        #: Posts' BM25 self-scores, valid while the store's change counter stands.
+        self._self_scores: tuple[int, dict[int, float]] = (-1, {})
 
     # Store row ids ----------------------------------------------------------
 
@@ -83,6 +85,25 @@ class Retriever:
             return keywords.search(
                 conn, text, k, allowed_pks=None if allowed_pks is None else allowed_pks.tolist()
             )
+
+    def self_scores(self, pks: np.ndarray) -> dict[int, float]:
+        """Each post's BM25 score for its own words (``keywords.self_scores``),
+        kept until the store changes (the statistics behind it move then)."""
+        stamp = self.store.stamp()
+        with self._lock:
+            if self._self_scores[0] != stamp:
+                self._self_scores = (stamp, {})
+            known = self._self_scores[1]
+            todo = [int(p) for p in pks if int(p) not in known]
+        if todo:
+            with self.store.engine.connect() as conn:
+                found = keywords.self_scores(conn, todo)
+            with self._lock:
+                if self._self_scores[0] == stamp:
+                    known.update(found)
+        else:
+            found = {}
+        return {int(p): s for p in pks if (s := known.get(int(p), found.get(int(p)))) is not None}
 
     def _search(
         self, vectors: np.ndarray, k: int, allowed: np.ndarray | None

@@ -20,6 +20,7 @@ from service.clock import UTC, now_utc, zone
 from service.forecast.answer import CAUTION
 from service.forecast.draft import Draft
 from service.forecast.forecaster import Forecaster
+from service.history.match_modes import Match
 from service.review.hour_support import DEFAULT_MIN_POSTS, FEW_POSTS, few_posts
 from service.review.overlap import RULE, ranks, tied_with_best
 
@@ -156,12 +157,13 @@ def best_hours(
     now: datetime | None = None,
     has_media: bool = False,
     min_posts: int = DEFAULT_MIN_POSTS,
+    match: Match = Match.MEANING,
 ) -> HoursReport:
     """Forecast ``text`` at every hour of ``day`` (default: tomorrow in the
     account's zone), or of the seven days from ``day`` with ``week``.
 
     The draft is embedded once and every slot goes through one
-    ``Forecaster.forecast`` call.
+    ``Forecaster.forecast`` call; ``match`` says how near-repeats are found.
     """
     Interval(int, 1, 24 * WEEK_DAYS).check(top, "top")
     tz = forecaster.store.account(account).timezone
@@ -180,7 +182,12 @@ def best_hours(
     drafts = [Draft(text=text, account=account, planned_at=t, has_media=has_media) for t in instants]
     # Only the intervals: no slot shows precedents or contributions.
     found = forecaster.bands(
-        drafts, metric=metric, coverage=coverage, now=now, vectors=np.repeat(vec, len(drafts), axis=0)
+        drafts,
+        metric=metric,
+        coverage=coverage,
+        now=now,
+        vectors=np.repeat(vec, len(drafts), axis=0),
+        match=match,
     )
     z = zone(tz)
     slots = [

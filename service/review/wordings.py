@@ -17,6 +17,7 @@ from service.clock import now_utc
 from service.forecast.answer import CAUTION
 from service.forecast.draft import Draft
 from service.forecast.forecaster import Forecaster
+from service.history.match_modes import Match
 from service.review.overlap import RULE, ranks, tied_with_best
 
 MAX_VARIANTS = 10
@@ -65,9 +66,11 @@ def compare_variants(
     coverage: float = DEFAULT_COVERAGE,
     now: datetime | None = None,
     has_media: bool = False,
+    match: Match = Match.MEANING,
 ) -> VariantsReport:
     """Forecast each phrasing at the same time, rank by median, and list the
-    precedents each has that none of the others has."""
+    precedents each has that none of the others has (``match``: how
+    near-repeats are found)."""
     if len(texts) < 2:
         raise InputError(f"give at least two versions to compare, got {len(texts)}", field="texts")
     if len(texts) > MAX_VARIANTS:
@@ -89,7 +92,7 @@ def compare_variants(
         Draft(text=t, account=account, planned_at=planned, draft_id=str(i), has_media=has_media)
         for i, t in enumerate(texts, start=1)
     ]
-    found = forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now)
+    found = forecaster.forecast(drafts, metric=metric, coverage=coverage, now=now, match=match)
     variants = [
         Variant(
             index=i,

@@ -55,6 +55,9 @@ class Split(SegmentReport):
     threshold: float | None = None
     k: int | None = None
     topics: list[Topic] | None = None
+    match: str | None = Field(
+        default=None, description="Topic splits: how posts joined topics (meaning, words or both)"
+    )
     segments: list[SplitSegment]
 
     _values: np.ndarray = PrivateAttr(default_factory=lambda: np.zeros(0))
@@ -74,6 +77,7 @@ class Split(SegmentReport):
         threshold: float | None = None,
         k: int | None = None,
         topics: list[Topic] | None = None,
+        match: str | None = None,
     ) -> Split:
         """The split of ``report``; ``examples`` (by segment name) for topics."""
         segments = [
@@ -92,6 +96,7 @@ class Split(SegmentReport):
             threshold=threshold,
             k=k,
             topics=topics,
+            match=match,
         )
         split._values, split._labels = values, labels
         return split

@@ -30,6 +30,7 @@ from models.segments import (
     check_min_n,
     check_threshold,
 )
+from service.history.match_modes import Match
 
 #: What a one-way split can be made by, besides topics.
 By = Literal["hour", "weekday", "link", "media", "length", "account"]
@@ -37,6 +38,8 @@ BY_CHOICES: tuple[str, ...] = typing.get_args(By)
 #: How posts join topics: each post its nearest phrase, or each phrase its k nearest posts.
 Mode = Literal["nearest", "top-k"]
 MODES: tuple[str, ...] = typing.get_args(Mode)
+#: How a post is matched to a topic: by meaning, words or both (service.segments.word_topics).
+MATCHES: tuple[str, ...] = tuple(m.value for m in Match)
 TOPIC = "topic"
 #: ``by`` written ``label:NAME`` splits on the team's own label NAME (kept at
 #: import with ``--label NAME``); posts without it form the NO_LABEL segment.
@@ -92,6 +95,8 @@ class SegmentRequest:
     alpha: float = DEFAULT_ALPHA
     examples: int = DEFAULT_EXAMPLES
     seed: int = 0
+    #: How posts join topics: meaning, words or both (service.segments.word_topics).
+    match: str = "meaning"
 
 
 class Topic(BaseModel):
@@ -217,6 +222,10 @@ def check_request(req: SegmentRequest) -> list[Topic]:
     if req.mode not in MODES:
         raise InputError(
             f"unknown mode {req.mode!r}; choose one of {', '.join(MODES)}", field="mode", value=req.mode
+        )
+    if req.match not in MATCHES:
+        raise InputError(
+            f"unknown match {req.match!r}; choose one of {', '.join(MATCHES)}", field="match", value=req.match
         )
     check_threshold(req.threshold)
     check_k(req.k)

@@ -46,6 +46,7 @@ from models.segments import OTHER, compare_groups, compare_segments
 from models.two_way import two_way
 from service.clock import now_utc
 from service.datadir import DataDir
+from service.history.match_modes import Match
 from service.history.view import local_clock
 from service.segments.answer import Example, LeftOut, SegmentResult, Split
 from service.segments.labels import by_label
@@ -63,6 +64,7 @@ from service.segments.request import (
     check_request,
     label_of,
 )
+from service.segments.word_topics import nearest_by, top_k_by, word_scores
 
 # --------------------------------------------------------------------------
 # Gathering the posts
@@ -216,16 +218,21 @@ def _examples(posts: _Posts, idx: np.ndarray, sims: np.ndarray, n: int) -> list[
 
 
 def _nearest_members(
-    sims: np.ndarray, names: list[str], req: SegmentRequest, warnings: list[str]
+    best: np.ndarray, names: list[str], req: SegmentRequest, warnings: list[str]
 ) -> tuple[dict[str, np.ndarray], np.ndarray]:
-    """Nearest mode: each post joins its most similar topic if it reaches the
-    threshold, else "other". The members (name -> post rows) and each post's label."""
-    best = assign_nearest(sims, threshold=req.threshold)
+    """Nearest mode: each post joins the topic ``best`` gives it (-1: "other";
+    by meaning, its most similar topic if it reaches the threshold). The
+    members (name -> post rows) and each post's label."""
     members: dict[str, np.ndarray] = {}
     for j, name in enumerate(names):
         idx = np.flatnonzero(best == j)
         if idx.size:
             members[name] = idx
+        elif req.match != Match.MEANING:
+            warnings.append(
+                f"topic {name!r} caught no posts: no post shares more of its words than "
+                "another topic's, or only words found in half the posts; try other words"
+            )
         else:
             warnings.append(
                 f"topic {name!r} caught no posts at threshold {req.threshold:g}: no post is "
@@ -250,8 +257,8 @@ def _nearest_members(
 def _top_k_members(
     ws: DataDir,
     topic_vecs: np.ndarray,
+    topics: list[Topic],
     pks: np.ndarray,
-    names: list[str],
     req: SegmentRequest,
     warnings: list[str],
 ) -> dict[str, np.ndarray]:
@@ -263,7 +270,13 @@ def _top_k_members(
             f"k = {req.k} is not below the {n} posts: every topic takes every "
             "post, so the topics cannot differ; use a smaller k"
         )
-    hits = ws.retrieval.nearest(topic_vecs, min(req.k, n), allowed_pks=pks)
+    names = [t.name for t in topics]
+    match = Match(req.match)
+    hits = (
+        ws.retrieval.nearest(topic_vecs, min(req.k, n), allowed_pks=pks)
+        if match is Match.MEANING
+        else top_k_by(ws, match, topic_vecs, topics, min(req.k, n), pks)
+    )
     row_of = {int(pk): i for i, pk in enumerate(pks)}
     members = {
         name: np.sort(np.array([row_of[pk] for pk, _ in found], dtype=np.int64))
@@ -301,17 +314,24 @@ def _topic_split(
     names = [t.name for t in topics]
     labels: np.ndarray | Mapping[str, np.ndarray]
     nearest = req.mode == "nearest"
+    match = Match(req.match)
+    # What examples are ordered by: the score a post joined its topic by.
+    ranked = sims if match is Match.MEANING else word_scores(ws, topics, pks)
     if nearest:
-        members, labels = _nearest_members(sims, names, req, warnings)
+        if match is Match.MEANING:
+            best = assign_nearest(sims, threshold=req.threshold)
+        else:
+            best, ranked = nearest_by(match, sims, ranked, req.threshold)
+        members, labels = _nearest_members(best, names, req, warnings)
         report = compare_segments(posts.values, labels, order=[*names, OTHER], **_stats_kwargs(req))
-        title = f"topic (nearest phrase, similarity at least {req.threshold:g}; else {OTHER})"
+        title = f"topic ({_JOINED[match].format(t=req.threshold)}; else {OTHER})"
     else:
-        members = _top_k_members(ws, topic_vecs, pks, names, req, warnings)
+        members = _top_k_members(ws, topic_vecs, topics, pks, req, warnings)
         labels = members
         report = compare_groups(posts.values, members, **_stats_kwargs(req))
-        title = f"topic (the {req.k} posts nearest each phrase; {OTHER}: posts in none)"
+        title = f"topic (the {req.k} posts {_TOP[match]} each phrase; {OTHER}: posts in none)"
     examples = {
-        name: _examples(posts, members[name], sims[:, j], req.examples)
+        name: _examples(posts, members[name], ranked[:, j], req.examples)
         for j, name in enumerate(names)
         if name in members
     }
@@ -336,8 +356,22 @@ def _topic_split(
         threshold=req.threshold if nearest else None,
         k=None if nearest else req.k,
         topics=topics,
+        match=match.value,
     )
     return split, members
+
+
+#: How a post joined its topic, as the split's title says it.
+_JOINED = {
+    Match.MEANING: "nearest phrase, similarity at least {t:g}",
+    Match.WORDS: "the phrase whose words it shares most",
+    Match.BOTH: "the phrase closest in meaning (similarity at least {t:g}) and words together",
+}
+_TOP = {
+    Match.MEANING: "nearest",
+    Match.WORDS: "sharing most words with",
+    Match.BOTH: "best by meaning and words for",
+}
 
 
 def _small_warnings(split: Split, min_n: int) -> list[str]:

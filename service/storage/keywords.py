@@ -150,6 +150,47 @@ def search(
     return sorted(scored.items(), key=lambda kv: (-kv[1], kv[0]))[:k]
 
 
+def self_scores(conn: Connection, pks: Sequence[int]) -> dict[int, float]:
+    """Each post's BM25 score for its own words as the query (post row id ->
+    score; posts without words are left out): the most any query can score
+    on that post, the yardstick of near-repeats by words."""
+    out: dict[int, float] = {}
+    for pk, toks in stored_words(conn, pks).items():
+        terms = list(dict.fromkeys(toks))
+        if not terms:
+            continue
+        if conn.dialect.name == "postgresql":
+            score = _pg_scores(conn, terms).get(pk)
+        else:
+            score = conn.execute(
+                text(f"SELECT -bm25({TABLE}) FROM {TABLE} WHERE {TABLE} MATCH :q AND rowid = :pk"),
+                {"q": " OR ".join(_quote(t, '"') for t in terms), "pk": pk},
+            ).scalar()
+        if score is not None:
+            out[pk] = float(score)
+    return out
+
+
+def stored_words(conn: Connection, pks: Sequence[int]) -> dict[int, list[str]]:
+    """The indexed tokens of posts (row id -> tokens)."""
+    if conn.dialect.name == "postgresql":
+        stmt = text(
+            f"SELECT w.post_pk, u.lexeme FROM {TABLE} w, unnest(w.words) u WHERE w.post_pk IN :pks"
+        ).bindparams(bindparam("pks", expanding=True))
+    else:
+        stmt = text(f"SELECT rowid, words FROM {TABLE} WHERE rowid IN :pks").bindparams(
+            bindparam("pks", expanding=True)
+        )
+    out: dict[int, list[str]] = {}
+    for i in range(0, len(pks), _CHUNK):
+        for pk, w in conn.execute(stmt, {"pks": [int(p) for p in pks[i : i + _CHUNK]]}):
+            if conn.dialect.name == "postgresql":
+                out.setdefault(int(pk), []).append(str(w))
+            else:
+                out[int(pk)] = [t for t in str(w).split(" ") if t]
+    return out
+
+
 def _pg_scores(conn: Connection, terms: list[str]) -> dict[int, float]:
     """BM25 of every post matching any term, from PostgreSQL's term statistics."""
     n_docs, total = conn.execute(text(f"SELECT count(*), coalesce(sum(length), 0) FROM {TABLE}")).one()

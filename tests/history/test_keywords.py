@@ -15,6 +15,7 @@ from __future__ import annotations
 import json
 import math
 from datetime import UTC, datetime, timedelta
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -30,6 +31,7 @@ from service.ingest.options import ImportOptions
 from service.storage import keywords
 from service.storage.post_writes import PostRow
 from service.storage.store import Store
+from service.workspace import Workspace
 
 T0 = datetime(2026, 3, 1, 9, tzinfo=UTC)
 
@@ -162,13 +164,18 @@ HASHTAG_POST = "Thanks to everyone who turned out on Saturday, what a crowd! #se
 DRAFT = "Winter coats and scarves recommended, it is chilly by the water #seedswap"
 
 
+def with_posts(ws: Workspace, tmp_path: Path, *rows: str) -> Workspace:
+    """``ws`` with history_csv(48) and the extra CSV ``rows`` (post_id, account,
+    text, posted_at, impressions) imported."""
+    path = tmp_path / "with-posts.csv"
+    path.write_bytes(history_csv(48) + "".join(r + "\n" for r in rows).encode())
+    ws.import_csv(path, ImportOptions(new_accounts="UTC"))
+    return ws
+
+
 @pytest.fixture()
 def tagged(workspace, tmp_path):  # type: ignore[no-untyped-def]
-    path = tmp_path / "tagged.csv"
-    extra = f'tag-1,loomhaven,"{HASHTAG_POST}",2025-03-20T10:00:00+00:00,90\n'
-    path.write_bytes(history_csv(48) + extra.encode())
-    workspace.import_csv(path, ImportOptions(new_accounts="UTC"))
-    return workspace
+    return with_posts(workspace, tmp_path, f'tag-1,loomhaven,"{HASHTAG_POST}",2025-03-20T10:00:00+00:00,90')
 
 
 def test_a_hashtag_only_match_that_the_vectors_miss_is_found_by_both(tagged) -> None:  # type: ignore[no-untyped-def]

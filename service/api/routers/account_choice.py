@@ -32,4 +32,5 @@ def account_choices(body: AccountChoiceRequest, ws: WorkspaceDep) -> AccountChoi
             has_media=body.has_media,
             metric=body.metric,
             coverage=body.coverage,
+            match=body.match,
         )

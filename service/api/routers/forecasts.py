@@ -54,5 +54,7 @@ def _forecasts(
         drafts = [to_draft(ws, d, f"drafts.{i}.planned_at") for i, d in enumerate(body.drafts)]
     else:
         drafts = [to_draft(ws, body, "planned_at")]
-    found = check_drafts(ws, drafts, metric=body.metric, coverage=body.coverage, record=record, source="api")
+    found = check_drafts(
+        ws, drafts, metric=body.metric, coverage=body.coverage, record=record, source="api", match=body.match
+    )
     return Forecasts(forecasts=found) if isinstance(body, ForecastBatchRequest) else found[0]

@@ -33,4 +33,5 @@ def hours(body: HoursRequest, ws: WorkspaceDep) -> HoursReport:
         top=body.top,
         has_media=body.has_media,
         min_posts=body.min_posts,
+        match=body.match,
     )

@@ -45,4 +45,5 @@ def variants(body: VariantsRequest, ws: WorkspaceDep) -> VariantsReport:
         metric=body.metric,
         coverage=body.coverage,
         has_media=body.has_media,
+        match=body.match,
     )
