@@ -44,7 +44,18 @@ from service.workspace import Workspace
 
 MAX_EXAMPLES = 30
 #: Operations that run a model fit or a backtest per request get fewer cases.
-SLOW_EXAMPLES = {"GET /v1/surprises": 4, "POST /v1/training": 2, "GET /v1/topics": 10, "GET /v1/map": 10}
+#: Those that cluster or compare the whole history get fewer too: against the
+#: demo store each call takes seconds, and the suite has a time budget.
+SLOW_EXAMPLES = {
+    "GET /v1/surprises": 3,
+    "POST /v1/training": 2,
+    "GET /v1/topics": 5,
+    "GET /v1/map": 5,
+    "GET /v1/team": 8,
+    "POST /v1/trends": 15,
+    "POST /v1/segments": 20,
+    "GET /v1/distribution": 20,
+}
 #: Seconds a request may take: training the demo store with its backtest
 #: takes tens of seconds on a loaded 2-core machine (schemathesis' default is 10).
 REQUEST_TIMEOUT = 300
