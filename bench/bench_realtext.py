@@ -111,7 +111,7 @@ def learned_cost(ws: Workspace, view: object, fitted: LearnedNeighbours | None) 
     LearnedNeighbours(**fitted.get_params()).fit(h.vectors, h.log_target, base, h.time)
     whole = time.perf_counter() - t0
     return {
-        "fitted_rows": int(len(ok)),
+        "fitted_rows": len(ok),
         "seconds_embed_same_posts": round(embed, 2),
         "seconds_fit_projection": round(fit, 2),
         "fit_over_embed": round(fit / embed, 3),

@@ -36,8 +36,8 @@ import numpy as np
 from models.errors import NotFound, NotReady, StoreError
 from models.features import FEATURE_NAMES, FeatureParams
 from models.integrity import boosters_parse, checksums, mismatch
-from models.regressor import QuantileForecaster
 from models.learned_neighbours import LearnedNeighbours
+from models.regressor import QuantileForecaster
 from models.stack_columns import ExtraModels, draft_columns
 from models.stacking import StackedForecaster
 from models.textmodel import RidgeText

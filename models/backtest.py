@@ -108,7 +108,12 @@ def run_backtest(
         # forecaster on the earlier folds, this fold serves that one alone.
         fold_back = fallback_after(pooled) if i else None
         # Bootstrap refits of the timing effect only serve the hours answer.
-        fold_params = {**params, "timing_bootstrap": 0, "force_candidate": fold_back, "learned_neighbours": learned}
+        fold_params = {
+            **params,
+            "timing_bootstrap": 0,
+            "force_candidate": fold_back,
+            "learned_neighbours": learned,
+        }
         model = StackedForecaster(**fold_params).fit(
             X[tr], y[tr], X[ca], y[ca], feature_names=names, cal_times=times[ca]
         )

@@ -131,7 +131,7 @@ class LearnedNeighbours(ParamsMixin):
         nb = len(self.bank_residuals_)
         with threadpool_limits(limits=1):
             r = _time_ordered(self.bank_vectors_, self.bank_residuals_, Z, np.full(len(Z), nb), int(self.k))
-        return b + r
+        return np.asarray(b + r, dtype=np.float64)
 
     def summary(self) -> dict[str, float | int]:
         self._check_fitted()

@@ -33,14 +33,14 @@ def scores(y: np.ndarray, f: np.ndarray) -> dict[str, float]:
 
 def improves(with_: dict[str, float], without: dict[str, float]) -> bool:
     """Whether scores ``with_`` beat ``without`` (see the module doc)."""
-    no_worse = (
-        with_["mae_log"] <= without["mae_log"] + TOL and with_["spearman"] >= without["spearman"] - TOL
-    )
+    no_worse = with_["mae_log"] <= without["mae_log"] + TOL and with_["spearman"] >= without["spearman"] - TOL
     better = with_["mae_log"] < without["mae_log"] - TOL or with_["spearman"] > without["spearman"] + TOL
     return bool(no_worse and better)
 
 
-def served_check(check: dict[str, dict[str, float]], kind: str, fallback_to: str | None) -> dict[str, float] | None:
+def served_check(
+    check: dict[str, dict[str, float]], kind: str, fallback_to: str | None
+) -> dict[str, float] | None:
     """The later-half scores of what a blend choice serves (its blend, or the
     candidate it fell back to); None when the choice had no such check."""
     if not check:

@@ -61,9 +61,9 @@ from models.calibration import cqr_scores, recency_weights, weighted_conformal_q
 from models.configfile import write_config
 from models.constraints import Interval, ParamsMixin
 from models.errors import InputError, NotFound, StoreError
+from models.learned_rule import LEARNED, improves, served_check
 from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS
 from models.regressor import QuantileForecaster
-from models.learned_rule import LEARNED, improves, served_check
 from models.stack_columns import EXTRA_NAMES, duplicate_columns
 from models.timing import TimingEffect, hour_from_cyclic
 
@@ -420,7 +420,10 @@ class StackedForecaster(ParamsMixin):
         return float(self.timing_weight_ + carried)
 
     def _blend(
-        self, cands: dict[str, np.ndarray], weights: dict[str, float] | None = None, in_all: bool | None = None
+        self,
+        cands: dict[str, np.ndarray],
+        weights: dict[str, float] | None = None,
+        in_all: bool | None = None,
     ) -> np.ndarray:
         if weights is None:
             weights, scale = self.weights_, self.timing_scale_
@@ -617,7 +620,7 @@ class StackedForecaster(ParamsMixin):
             m._cols = [m._index[nm] for nm in m.boosted_columns_]
             m.dropped_ = tuple(cfg["dropped"])
             m.n_estimators_ = int(cfg["n_estimators"])
-            m.weights_ = {c: 0.0 for c in CANDIDATES} | {k: float(v) for k, v in cfg["weights"].items()}
+            m.weights_ = dict.fromkeys(CANDIDATES, 0.0) | {k: float(v) for k, v in cfg["weights"].items()}
             m.timing_weight_ = float(cfg["timing_weight"])
             m.timing_in_all_ = bool(cfg.get("timing_in_all", False))  # older models: boosted only
             m.stack_scores_ = dict(cfg["stack_scores"])
@@ -625,7 +628,7 @@ class StackedForecaster(ParamsMixin):
             # Older models had no learned neighbours: their blend is the one without.
             m.learned_in_use_ = bool(cfg.get("learned_in_use", False))
             m.learned_check_ = dict(cfg.get("learned_check", {}))
-            m.weights_without_learned_ = {c: 0.0 for c in CANDIDATES} | {
+            m.weights_without_learned_ = dict.fromkeys(CANDIDATES, 0.0) | {
                 k: float(v) for k, v in cfg.get("weights_without_learned", cfg["weights"]).items()
             }
             m.timing_in_all_without_learned_ = bool(

@@ -103,7 +103,9 @@ def health(ws: Parts) -> Health:
         index=IndexState(**ws.index_state()),
         search=None if search is None else SearchState(**search),
         forecaster=served,
-        learned_neighbours=None if served is None else learned_in_use(ws.settings.models_dir / metric / served),
+        learned_neighbours=None
+        if served is None
+        else learned_in_use(ws.settings.models_dir / metric / served),
         damaged_models=[f"{metric}/{v}: {why}" for v, why in damaged],
         read_only=ws.read_only,
         repaired=list(REPAIRED),

@@ -7,6 +7,7 @@ blend when it does not help."""
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -70,7 +71,9 @@ def _planted(rng: np.random.Generator, n: int, d: int = 48) -> tuple[np.ndarray,
     return V.astype(np.float32), y, signal
 
 
-def _cosine_neighbours(V: np.ndarray, res: np.ndarray, rows: np.ndarray, limit: np.ndarray, k: int) -> np.ndarray:
+def _cosine_neighbours(
+    V: np.ndarray, res: np.ndarray, rows: np.ndarray, limit: np.ndarray, k: int
+) -> np.ndarray:
     """Mean residual of the k most cosine-similar earlier posts (an
     independent computation on the raw vectors: the frozen retrieval)."""
     out = np.empty(len(rows))
@@ -154,7 +157,7 @@ def test_mlkr_keeps_the_iterate_best_on_later_rows() -> None:
 # The rule that keeps it --------------------------------------------------------
 
 
-SMALL = {
+SMALL: dict[str, Any] = {
     "max_estimators": 60,
     "early_stopping_rounds": 10,
     "num_leaves": 7,
