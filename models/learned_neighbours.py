@@ -2,15 +2,21 @@
 projection of the text vectors learnt for what the text adds to the
 account's baseline (``models.learned_retrieval``, MLKR).
 
-- Target: the residual ``log metric - account baseline`` (the ``baseline``
-  feature: the median of the account's last posts settled by then),
-  clipped to the 1st-99th percentiles of the fitted block. The timing
-  effect is not taken out: it is fitted later, inside the stacked
-  forecaster, on rows this column must already describe.
+- Target: the residual ``log metric - a * account baseline`` (the
+  ``baseline`` feature: the median of the account's last posts settled by
+  then), clipped to the 1st-99th percentiles of the fitted block. The
+  anchor weight ``a`` (0, 1/2 or 1, ``ANCHORS``) is chosen in time order on
+  the block: the one whose plain cosine neighbours, found among the
+  block's earlier four fifths, best predict its last fifth (least absolute
+  error). On a team whose accounts differ in level it is 1; where the
+  trailing median is mostly noise (one account, a level that drifts) it
+  is 0 and the neighbours carry the metric itself. The timing effect is
+  not taken out: it is fitted later, inside the stacked forecaster, on
+  rows this column must already describe.
 - Projection: fitted once, on the earliest settled posts (at most
   ``max_fit_rows``, at most ``fit_share`` of them), so later rows never
   served as its targets.
-- A post's value: its baseline plus the kernel-weighted mean residual of
+- A post's value: ``a`` times its baseline plus the kernel-weighted mean residual of
   its ``k`` nearest posts in the projected space among those published and
   settled (``maturity_s``) before it. Posts before the fitted block has
   settled get NaN (the forecaster reads their baseline instead).
@@ -43,6 +49,8 @@ from models.learned_retrieval import MLKR
 CONFIG_FILE = "config.json"
 #: Fewest rows the projection is fitted on (below it the column stays empty).
 MIN_FIT_ROWS = 100
+#: Weights of the account baseline in the target, chosen among in time order.
+ANCHORS: tuple[float, ...] = (0.0, 0.5, 1.0)
 
 
 class LearnedNeighbours(ParamsMixin):
@@ -97,7 +105,8 @@ class LearnedNeighbours(ParamsMixin):
             )
         block = ok[:m]
         self.n_fit_ = int(m)
-        res = y - b
+        self.anchor_ = choose_anchor(V[block], y[block], b[block], int(self.k))
+        res = y - self.anchor_ * b
         self.clip_ = (float(np.quantile(res[block], 0.01)), float(np.quantile(res[block], 0.99)))
         res = np.clip(res, *self.clip_)
         with threadpool_limits(limits=1):
@@ -112,7 +121,7 @@ class LearnedNeighbours(ParamsMixin):
             rows = np.arange(start, n)
             pred = np.full(n, np.nan)
             pred[rows] = _time_ordered(Z[ok], res[ok], Z[rows], limit[rows], int(self.k))
-        self.oof_ = b + pred
+        self.oof_ = self.anchor_ * b + pred
         self.bank_vectors_ = np.ascontiguousarray(Z[ok])
         self.bank_residuals_ = res[ok]
         self.n_features_in_ = V.shape[1]
@@ -123,7 +132,7 @@ class LearnedNeighbours(ParamsMixin):
             raise NotFittedError("LearnedNeighbours is not fitted yet", where="LearnedNeighbours")
 
     def predict(self, vectors: ArrayLike, baseline: ArrayLike) -> np.ndarray:
-        """Drafts: baseline plus the neighbours' residual among the whole bank."""
+        """Drafts: anchored baseline plus the neighbours' residual among the whole bank."""
         self._check_fitted()
         V = np.asarray(vectors, dtype=np.float64).reshape(-1, self.n_features_in_)
         b = np.asarray(baseline, dtype=np.float64).reshape(len(V))
@@ -131,7 +140,7 @@ class LearnedNeighbours(ParamsMixin):
         nb = len(self.bank_residuals_)
         with threadpool_limits(limits=1):
             r = _time_ordered(self.bank_vectors_, self.bank_residuals_, Z, np.full(len(Z), nb), int(self.k))
-        return np.asarray(b + r, dtype=np.float64)
+        return np.asarray(self.anchor_ * b + r, dtype=np.float64)
 
     def summary(self) -> dict[str, float | int]:
         self._check_fitted()
@@ -144,6 +153,7 @@ class LearnedNeighbours(ParamsMixin):
             "validation_mse_start": round(p.validation_start_, 4),
             "validation_mse": round(p.validation_loss_, 4),
             "bank": len(self.bank_residuals_),
+            "anchor": self.anchor_,
         }
 
     def save(self, directory: str | os.PathLike[str]) -> Path:
@@ -159,6 +169,7 @@ class LearnedNeighbours(ParamsMixin):
             "clip": list(self.clip_),
             "fit_until": self.fit_until_,
             "n_fit": self.n_fit_,
+            "anchor": self.anchor_,
             "n_features_in": self.n_features_in_,
         }
         write_config(root, cfg, CONFIG_FILE)
@@ -179,10 +190,28 @@ class LearnedNeighbours(ParamsMixin):
             m.clip_ = (float(lo), float(hi))
             m.fit_until_ = float(cfg["fit_until"])
             m.n_fit_ = int(cfg["n_fit"])
+            m.anchor_ = float(cfg["anchor"])
             m.n_features_in_ = int(cfg["n_features_in"])
         except (OSError, ValueError, KeyError, TypeError) as exc:
             raise StoreError(f"unreadable learned neighbours: {exc}", where=str(root)) from exc
         return m
+
+
+def choose_anchor(V: np.ndarray, y: np.ndarray, b: np.ndarray, k: int) -> float:
+    """The anchor weight of ``ANCHORS`` whose cosine neighbours among the
+    first four fifths of the rows (in time order) best predict the last
+    fifth: ``a * b + mean(y - a * b)`` of the ``k`` most similar, by mean
+    absolute error; ties to the larger weight."""
+    cut = int(len(y) * 0.8)
+    S = V[cut:].astype(np.float64) @ V[:cut].astype(np.float64).T
+    kk = min(k, cut)
+    top = np.argpartition(-S, kk - 1, axis=1)[:, :kk]
+    errors = []
+    for a in ANCHORS:
+        t = y - a * b
+        f = a * b[cut:] + t[:cut][top].mean(axis=1)
+        errors.append((float(np.mean(np.abs(f - y[cut:]))), -a))
+    return -min(errors)[1]
 
 
 def _time_ordered(

@@ -14,7 +14,7 @@ import pytest
 from scipy.stats import spearmanr
 
 from models.errors import InputError, NotFittedError
-from models.learned_neighbours import LearnedNeighbours
+from models.learned_neighbours import LearnedNeighbours, choose_anchor
 from models.learned_retrieval import MLKR, mlkr_loss_grad
 from models.learned_rule import improves
 from models.stacking import ALL_FEATURES, StackedForecaster
@@ -135,14 +135,28 @@ def test_learned_neighbours_round_trip(tmp_path: Path) -> None:
     back = LearnedNeighbours.load(tmp_path / "learned")
     np.testing.assert_array_equal(back.predict(drafts, base), before)
     assert back.get_params() == m.get_params()
-    # A draft's value is its baseline plus a mean of stored residuals, so it
-    # lies within their range.
+    # A draft's value is its anchored baseline plus a mean of stored
+    # residuals, so it lies within their range.
     lo, hi = m.bank_residuals_.min(), m.bank_residuals_.max()
-    assert np.all((before - base >= lo - 1e-9) & (before - base <= hi + 1e-9))
+    rest = before - m.anchor_ * base
+    assert np.all((rest >= lo - 1e-9) & (rest <= hi + 1e-9))
+    assert back.anchor_ == m.anchor_
     with pytest.raises(NotFittedError):
         LearnedNeighbours().predict(drafts, base)
     with pytest.raises(InputError, match="k must be"):
         LearnedNeighbours(k=0).fit(V, y, np.full(500, 2.0), np.arange(500) * DAY)
+
+
+def test_the_baseline_anchors_the_target_only_where_it_carries_the_level() -> None:
+    rng = np.random.default_rng(6)
+    n = 800
+    V, _, signal = _planted(rng, n, d=24)
+    level = rng.choice([1.0, 4.0, 7.0], size=n)  # three accounts far apart
+    y = level + signal + rng.normal(scale=0.3, size=n)
+    assert choose_anchor(V, y, level + rng.normal(scale=0.1, size=n), 20) == 1.0
+    # A "baseline" that is pure noise around the level of the whole history.
+    noise = y.mean() + rng.normal(scale=2.0, size=n)
+    assert choose_anchor(V, y - level, noise, 20) == 0.0
 
 
 def test_mlkr_keeps_the_iterate_best_on_later_rows() -> None:
