@@ -100,7 +100,7 @@ def learned_cost(ws: Workspace, view: object, fitted: LearnedNeighbours | None) 
     texts = view.frame["text"].tolist()  # type: ignore[attr-defined]
     base = account_baselines(h, feature_params(ws.settings))
     ok = np.flatnonzero(np.isfinite(h.log_target) & np.isfinite(base))[: fitted.n_fit_]
-    res = np.clip(h.log_target[ok] - base[ok], *fitted.clip_)
+    res = np.clip(h.log_target[ok] - fitted.anchor_ * base[ok], *fitted.clip_)
     # The projection first, the least of two fits: embedding leaves ONNX
     # Runtime's threads spinning for a while, which slowed a fit timed
     # right after it six-fold (our measurement).

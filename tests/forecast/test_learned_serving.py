@@ -9,15 +9,18 @@ import pytest
 from conftest import NOW
 
 from models.learned_rule import improves
+from models.stacking import StackedForecaster
 from service.cli.forecast import print_backtest
 from service.forecast.draft import Draft
 from service.health import health
+from service.workspace import Workspace
 
 
 def test_the_served_model_keeps_learned_neighbours_only_when_its_backtest_improved(
-    demo_workspace, capsys: pytest.CaptureFixture[str]
+    demo_workspace: Workspace, capsys: pytest.CaptureFixture[str]
 ) -> None:
     model = demo_workspace.forecaster.model("impressions")
+    assert isinstance(model.forecaster, StackedForecaster)
     bt = model.report["backtest"]
     verdict = bt["learned_neighbours"]
     # The verdict is the rule applied to the pooled scores it reports, and
