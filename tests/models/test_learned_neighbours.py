@@ -201,6 +201,9 @@ def test_the_candidate_is_kept_only_when_it_helps() -> None:
     m = StackedForecaster(**SMALL).fit(X[:800], y[:800], X[800:], y[800:], feature_names=ALL_FEATURES)
     assert m.learned_in_use_ and m.weights_["learned_neighbours"] > 0.3
     assert m.summary()["learned_neighbours_in_use"] is True
+    # Its part of the median is explained through its own column.
+    med = m.predict(X[800:])[1]
+    np.testing.assert_allclose(m.contributions(X[800:]).sum(axis=1), med, atol=1e-6)
     # The same rows with a learned column that carries only noise.
     X, y = _rows(rng, 1100, learned_signal=0.0)
     X[:, ALL_FEATURES.index("learned_neighbours")] += rng.normal(scale=2.0, size=1100)
@@ -225,3 +228,16 @@ def test_improves_needs_no_worse_on_both_and_better_on_one() -> None:
     assert not improves(dict(base), base)  # a tie: not kept
     assert not improves({"mae_log": 0.4, "spearman": 0.29}, base)
     assert not improves({"mae_log": 0.51, "spearman": 0.5}, base)
+
+
+def test_a_model_without_the_learned_column_never_uses_it() -> None:
+    """Rows made before the column existed (a saved model's feature names
+    end at the account code) fit and explain as before."""
+    rng = np.random.default_rng(7)
+    X, y = _rows(rng, 1000, learned_signal=1.0)
+    names = [c for c in ALL_FEATURES if c != "learned_neighbours"]
+    keep = [ALL_FEATURES.index(c) for c in names]
+    m = StackedForecaster(**SMALL).fit(X[:700, keep], y[:700], X[700:, keep], y[700:], feature_names=names)
+    assert not m.learned_in_use_ and m.weights_["learned_neighbours"] == 0.0
+    med = m.predict(X[700:, keep])[1]
+    np.testing.assert_allclose(m.contributions(X[700:, keep]).sum(axis=1), med, atol=1e-6)
