@@ -121,7 +121,7 @@ class LearnedNeighbours(ParamsMixin):
             rows = np.arange(start, n)
             pred = np.full(n, np.nan)
             pred[rows] = _time_ordered(Z[ok], res[ok], Z[rows], limit[rows], int(self.k))
-        self.oof_ = self.anchor_ * b + pred
+        self.oof_ = self._anchored(b) + pred
         self.bank_vectors_ = np.ascontiguousarray(Z[ok])
         self.bank_residuals_ = res[ok]
         self.n_features_in_ = V.shape[1]
@@ -140,7 +140,12 @@ class LearnedNeighbours(ParamsMixin):
         nb = len(self.bank_residuals_)
         with threadpool_limits(limits=1):
             r = _time_ordered(self.bank_vectors_, self.bank_residuals_, Z, np.full(len(Z), nb), int(self.k))
-        return np.asarray(self.anchor_ * b + r, dtype=np.float64)
+        return np.asarray(self._anchored(b) + r, dtype=np.float64)
+
+    def _anchored(self, b: np.ndarray) -> np.ndarray:
+        """``anchor_ * b``; with no weight on it, a missing baseline (an
+        account's first posts) does not matter."""
+        return np.zeros_like(b) if self.anchor_ == 0.0 else self.anchor_ * b
 
     def summary(self) -> dict[str, float | int]:
         self._check_fitted()

@@ -157,6 +157,11 @@ def test_the_baseline_anchors_the_target_only_where_it_carries_the_level() -> No
     # A "baseline" that is pure noise around the level of the whole history.
     noise = y.mean() + rng.normal(scale=2.0, size=n)
     assert choose_anchor(V, y - level, noise, 20) == 0.0
+    # Weight 0: a post without a baseline still gets a value.
+    b = noise.copy()
+    b[700] = np.nan
+    m = LearnedNeighbours(max_fit_rows=300, max_iter=5).fit(V, y - level, b, np.arange(n) * DAY)
+    assert m.anchor_ == 0.0 and np.isfinite(m.oof_[700])
 
 
 def test_mlkr_keeps_the_iterate_best_on_later_rows() -> None:
