@@ -56,12 +56,11 @@ from models import features as F
 from models.arrays import as_matrix, as_target
 from models.band_shape import choose_shrink, shaped
 from models.bands import check_is_fitted, nearest_level, ordered_band, predict_booster
-from models.blend_lp import choose_weights
 from models.calibration import cqr_scores, recency_weights, weighted_conformal_quantile
 from models.configfile import write_config
 from models.constraints import Interval, ParamsMixin
 from models.errors import InputError, NotFound, StoreError
-from models.learned_rule import LEARNED, improves, served_check
+from models.learned_rule import LEARNED, choose_with_learned
 from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS
 from models.regressor import QuantileForecaster
 from models.stack_columns import EXTRA_NAMES, duplicate_columns
@@ -294,40 +293,26 @@ class StackedForecaster(ParamsMixin):
         self.timing_in_all_ = not self.time_carries_nothing_
         adj = self._with_timing(cands, tau_stack)
         refs = np.column_stack([cands[c] for c in SIMPLE])
-        timing_in_all = self.timing_in_all_
-
-        def blend_of(names: tuple[str, ...]) -> Any:
-            # Absolute loss (the loss the median is scored on), checked in
-            # time order against the simple forecasters (models.blend_lp).
-            return choose_weights(
-                np.column_stack([adj[c] for c in names]),
-                yt[stack_idx],
-                names,
-                SIMPLE,
-                tau_stack[:, None] if self.blend_timing else None,
-                references=refs,
-            )
-
-        frozen = tuple(c for c in CANDIDATES if c != LEARNED)
-        without = blend_of(frozen)
-        w_without = np.array([0.0 if c == LEARNED else without.weights[frozen.index(c)] for c in CANDIDATES])
-        self.weights_without_learned_ = {c: float(x) for c, x in zip(CANDIDATES, w_without, strict=True)}
-        self.timing_in_all_without_learned_ = timing_in_all and not without.raw
         # 3b. The learned neighbours stay only when the blend with them beats
         #     the blend without them on the later half (models.learned_rule).
-        self.learned_check_: dict[str, Any] = {}
-        use = False
-        if self.learned_neighbours and np.isfinite(self._col(Xt, LEARNED)[stack_idx]).any():
-            choice = blend_of(CANDIDATES)
-            a = served_check(choice.check, choice.kind, choice.fallback_to)
-            b = served_check(without.check, without.kind, without.fallback_to)
-            use = a is not None and b is not None and improves(a, b)
-            self.learned_check_ = {"with": a, "without": b}
-        if not use:
-            choice = without
-        w = w_without if not use else choice.weights
+        picked = choose_with_learned(
+            adj,
+            yt[stack_idx],
+            CANDIDATES,
+            SIMPLE,
+            tau_stack[:, None] if self.blend_timing else None,
+            refs,
+            offered=bool(self.learned_neighbours and np.isfinite(self._col(Xt, LEARNED)[stack_idx]).any()),
+        )
+        choice, without = picked.served, picked.without
+        self.weights_without_learned_ = {
+            c: float(x) for c, x in zip(CANDIDATES, without.weights, strict=True)
+        }
+        self.timing_in_all_without_learned_ = self.timing_in_all_ and not without.raw
+        self.learned_check_: dict[str, Any] = picked.check
+        self.learned_in_use_ = picked.in_use
+        w = choice.weights
         g = choice.effect_weights if self.blend_timing else np.zeros(1)
-        self.learned_in_use_ = bool(use)
         self.blend_kind_, self.fallback_to_ = choice.kind, choice.fallback_to
         if choice.raw:  # the simple forecaster as it is, without the timing effect
             self.timing_in_all_ = False
