@@ -246,3 +246,23 @@ def test_a_model_without_the_learned_column_never_uses_it() -> None:
     assert not m.learned_in_use_ and m.weights_["learned_neighbours"] == 0.0
     med = m.predict(X[700:, keep])[1]
     np.testing.assert_allclose(m.contributions(X[700:, keep]).sum(axis=1), med, atol=1e-6)
+
+
+@pytest.mark.parametrize(("signal", "kept"), [(1.0, True), (0.0, False)])
+def test_the_backtest_keeps_the_candidate_only_when_it_helps(signal: float, kept: bool) -> None:
+    from models.backtest import run_backtest
+
+    rng = np.random.default_rng(8)
+    X, y = _rows(rng, 1600, learned_signal=signal)
+    if not kept:
+        X[:, ALL_FEATURES.index("learned_neighbours")] += rng.normal(scale=2.0, size=1600)
+    bt = run_backtest(
+        X, y, np.arange(1600.0), feature_names=ALL_FEATURES, n_folds=3, params=SMALL, timing_only=False
+    )
+    verdict = bt["learned_neighbours"]
+    assert verdict["in_use"] is kept
+    assert (verdict["folds_in_use"] > 0) is kept
+    if kept:  # it did help: the served forecast beat the one without it
+        assert verdict["with"]["mae_log"] < verdict["without"]["mae_log"]
+    else:
+        assert verdict["with"] == verdict["without"]
