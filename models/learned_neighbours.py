@@ -68,7 +68,7 @@ class LearnedNeighbours(ParamsMixin):
     def __init__(
         self,
         *,
-        n_components: int = 16,
+        n_components: int = 32,
         k: int = 20,
         max_fit_rows: int = 1200,
         fit_share: float = 0.4,
