@@ -18,7 +18,12 @@ text model's column use only posts settled before it). Reported for
 sounding and each simple forecaster: MAE(log), Spearman and, for sounding,
 the coverage of its 80% intervals.
 
-    python bench/bench_realtext.py [--rows 8000] [--seed 0] [--home DIR] [--json out.json]
+With ``--no-learned`` the learned-neighbours candidate is not offered
+(the forecast as it was before it). Either way the run reports what the
+candidate costs: fitting its projection against embedding the same posts
+(a ratio within one run) and finding its neighbours for every post.
+
+    python bench/bench_realtext.py [--rows 8000] [--seed 0] [--home DIR] [--json out.json] [--no-learned]
 """
 
 from __future__ import annotations
@@ -32,6 +37,7 @@ import tempfile
 import time
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -41,6 +47,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from models.backtest import run_backtest
 from models.embedding import Embedder
 from models.evaluation import coverage, mae, spearman
+from models.learned_neighbours import LearnedNeighbours
+from models.learned_retrieval import MLKR
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
 from service.forecast import training as FC
 from service.history.view import build_view, feature_params
@@ -79,6 +87,46 @@ def canonical_csv(out: Path, *, rows: int, seed: int, months: tuple[str, str] | 
     return len(pick)
 
 
+def learned_cost(ws: Workspace, view: object, fitted: LearnedNeighbours | None) -> dict[str, object] | None:
+    """Seconds to fit the projection again on its block, to embed the same
+    posts' texts, and to find every post's neighbours (the whole column)."""
+    if fitted is None:
+        return None
+    from threadpoolctl import threadpool_limits  # type: ignore[import-untyped]
+
+    from models.training_matrix import account_baselines
+
+    h = view.history  # type: ignore[attr-defined]
+    texts = view.frame["text"].tolist()  # type: ignore[attr-defined]
+    base = account_baselines(h, feature_params(ws.settings))
+    ok = np.flatnonzero(np.isfinite(h.log_target) & np.isfinite(base))[: fitted.n_fit_]
+    res = np.clip(h.log_target[ok] - fitted.anchor_ * base[ok], *fitted.clip_)
+    # The projection first, the least of two fits: embedding leaves ONNX
+    # Runtime's threads spinning for a while, which slowed a fit timed
+    # right after it six-fold (our measurement).
+    fits = []
+    with threadpool_limits(limits=1):
+        for _ in range(2):
+            t0 = time.perf_counter()
+            MLKR(n_components=fitted.n_components, max_iter=fitted.max_iter).fit(h.vectors[ok], res)
+            fits.append(time.perf_counter() - t0)
+    fit = min(fits)
+    t0 = time.perf_counter()
+    ws.embedder.encode([texts[i] for i in ok])
+    embed = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    LearnedNeighbours(**fitted.get_params()).fit(h.vectors, h.log_target, base, h.time)
+    whole = time.perf_counter() - t0
+    return {
+        "fitted_rows": len(ok),
+        "seconds_embed_same_posts": round(embed, 2),
+        "seconds_fit_projection": round(fit, 2),
+        "fit_over_embed": round(fit / embed, 3),
+        "seconds_projection_and_column": round(whole, 2),
+        "summary": fitted.summary(),
+    }
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rows", type=int, default=8000)
@@ -86,6 +134,7 @@ def main() -> None:
     ap.add_argument("--home", type=Path, default=None)
     ap.add_argument("--json", type=Path, default=None)
     ap.add_argument("--months", default=None, help="FIRST:LAST release months (YYYY-MM:YYYY-MM)")
+    ap.add_argument("--no-learned", action="store_true", help="do not offer the learned neighbours")
     args = ap.parse_args()
     home = args.home or Path(tempfile.mkdtemp(prefix="sounding-realtext-"))
     ws = Workspace(settings=Settings(home=home), embedder=Embedder())
@@ -94,7 +143,7 @@ def main() -> None:
     if ws.store.posts_frame().empty:
         path = home / "packages.csv"
         months = tuple(args.months.split(":")) if args.months else None
-        n = canonical_csv(path, rows=args.rows, seed=args.seed, months=months)  # type: ignore[arg-type]
+        n = canonical_csv(path, rows=args.rows, seed=args.seed, months=months)
         ws.store.set_account(ACCOUNT, display_name="Package summaries", timezone="UTC")
         ws.import_csv(path, ImportOptions(new_accounts="UTC"))
         print(f"imported {n} rows in {time.perf_counter() - t0:.0f} s")
@@ -104,7 +153,8 @@ def main() -> None:
     view = build_view(ws.store, "impressions", with_vectors=True)
     t1 = time.perf_counter()
     X, y, times = FC.training_set(view, params, now)
-    X, _ = FC.with_extra_columns(view, params, now, X, ws.settings)
+    X, extra = FC.with_extra_columns(view, params, now, X, ws.settings)
+    learned = not args.no_learned
     order = np.argsort(times, kind="stable")
     X, y, times = X[order], y[order], times[order]
     # Hold out the latest 15% in time. Posts of one month share one time and
@@ -117,9 +167,18 @@ def main() -> None:
     # As `sounding train` does: the time-ordered backtest first, and the
     # better simple forecaster alone when the blend lost to it there.
     bt = run_backtest(
-        Xtr, ytr, times[:cut], feature_names=ALL_FEATURES, n_folds=3, params=STACK_PARAMS, timing_only=False
+        Xtr,
+        ytr,
+        times[:cut],
+        feature_names=ALL_FEATURES,
+        n_folds=3,
+        params=STACK_PARAMS,
+        timing_only=False,
+        learned=learned,
     )
-    model = StackedForecaster(**{**STACK_PARAMS, "force_candidate": bt["serve_fallback"]}).fit(
+    keep = learned and bool(bt["learned_neighbours"]["in_use"])
+    served = {**STACK_PARAMS, "force_candidate": bt["serve_fallback"], "learned_neighbours": keep}
+    model = StackedForecaster(**served).fit(
         Xtr[:cal], ytr[:cal], Xtr[cal:], ytr[cal:], feature_names=ALL_FEATURES, cal_times=times[cal:cut]
     )
     lo, med, hi = model.predict(Xte, coverage=0.8)
@@ -133,7 +192,7 @@ def main() -> None:
         "history-wide median": np.full(len(yte), fill),
     }
     cands = model.candidates(Xte)
-    result = {
+    result: dict[str, Any] = {
         "source": {"months": args.months or "all", "seed": args.seed, "rows_asked": args.rows},
         "rows": len(y),
         "train": int(cut),
@@ -146,6 +205,12 @@ def main() -> None:
             "mse_log": float(np.mean((yte - med) ** 2)),
             "spearman": spearman(yte, med),
             "coverage_80": coverage(yte, lo, hi),
+        },
+        # The same served model's blend without the learned neighbours
+        # (equal to the served one when they are not in use).
+        "sounding_without_learned": {
+            "mae_log": mae(yte, model.median_without_learned(Xte)),
+            "spearman": spearman(yte, model.median_without_learned(Xte)),
         },
         "simple": {
             k: {
@@ -161,6 +226,8 @@ def main() -> None:
             if k != "timing"
         },
         "combination": model.summary(),
+        "learned_offered": learned,
+        "learned_cost": learned_cost(ws, view, extra.learned),
     }
     # The time-ordered backtest on the training part (what `sounding train`
     # reports), beside the held-out block.
@@ -170,6 +237,7 @@ def main() -> None:
         "baselines": bt["baselines"],
         "fallback_folds": bt["fallback_folds"],
         "serve_fallback": bt["serve_fallback"],
+        "learned_neighbours": bt["learned_neighbours"],
         "folds": [
             {"blend_kind": f["blend_kind"], "fallback_to": f["fallback_to"], "model": f["model"]}
             for f in bt["folds"]

@@ -6,6 +6,7 @@
         quantiles/       the forecaster: a StackedForecaster (older versions: a
                          QuantileForecaster), its own config.json + boosters
         text/            the ridge text model on embedding vectors (if any)
+        learned/         the learned neighbours: projection and bank (if any)
 
 A version is written into a hidden temporary directory and renamed into
 place in one step, so a reader either sees a whole model or none: the
@@ -33,10 +34,11 @@ from typing import Any
 import numpy as np
 
 from models.errors import NotFound, NotReady, StoreError
-from models.features import FeatureParams
+from models.features import FEATURE_NAMES, FeatureParams
 from models.integrity import boosters_parse, checksums, mismatch
+from models.learned_neighbours import LearnedNeighbours
 from models.regressor import QuantileForecaster
-from models.stack_columns import draft_columns
+from models.stack_columns import ExtraModels, draft_columns
 from models.stacking import StackedForecaster
 from models.textmodel import RidgeText
 
@@ -62,14 +64,20 @@ class TrainedModel:
     forecaster: QuantileForecaster | StackedForecaster  # saved in quantiles/
     report: dict[str, Any] = field(default_factory=dict)
     text: RidgeText | None = None
+    learned: LearnedNeighbours | None = None
 
     def rows(self, X: np.ndarray, vectors: np.ndarray, accounts: list[int]) -> np.ndarray:
         """Draft rows as the forecaster reads them: the features of
-        ``models.features.assemble`` plus, for a stacked forecaster, the text
-        model's prediction and the account code (``stacking.draft_columns``)."""
+        ``models.features.assemble`` plus, for a stacked forecaster, the
+        extra columns it was trained with (``stack_columns.draft_columns``:
+        the text model's prediction, the account code, the learned
+        neighbours; a model saved before a column existed lacks it)."""
         if X.shape[1] >= self.forecaster.n_features_in_:
             return X
-        return np.hstack([X, draft_columns(self.text, vectors, accounts)])
+        names = getattr(self.forecaster, "feature_names_", ())[len(FEATURE_NAMES) :]
+        base = X[:, FEATURE_NAMES.index("baseline")]
+        extra = draft_columns(ExtraModels(self.text, self.learned), vectors, accounts, base, names)
+        return np.hstack([X, extra])
 
     @property
     def backtested_coverage(self) -> dict[str, float]:
@@ -94,6 +102,8 @@ class TrainedModel:
             self.forecaster.save(tmp / "quantiles")
             if self.text is not None:
                 self.text.save(tmp / "text")
+            if self.learned is not None:
+                self.learned.save(tmp / "learned")
             (tmp / REPORT).write_text(json.dumps(self.report, indent=2, default=str))
             cfg = {
                 "format": FORMAT,
@@ -135,6 +145,7 @@ class TrainedModel:
             forecaster=load_forecaster(d / "quantiles"),
             report=report,
             text=RidgeText.load(d / "text") if (d / "text").is_dir() else None,
+            learned=LearnedNeighbours.load(d / "learned") if (d / "learned").is_dir() else None,
         )
 
 

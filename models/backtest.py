@@ -14,7 +14,10 @@ each fold's own past. Reported per fold and pooled:
   nearest neighbours) and the history-wide median (median of the fold's
   training targets); and ``timing_only``: a quantile model fed only the
   hour and weekday features, with its own calibration;
-- ``weights``: the blend weights of each fold, and their mean.
+- ``weights``: the blend weights of each fold, and their mean;
+- ``learned_neighbours``: the served forecast against the same forecast
+  without the learned-neighbours candidate, pooled over the folds, and
+  whether training keeps it (``models.learned_rule``).
 """
 
 from __future__ import annotations
@@ -27,6 +30,7 @@ import numpy as np
 from models.errors import InputError
 from models.evaluation import coverage, mae, mean_width, rolling_origin_splits, spearman
 from models.features import TIMING_FEATURES
+from models.learned_rule import LEARNED, learned_after
 from models.metrics import DEFAULT_COVERAGE
 from models.regressor import QuantileForecaster
 from models.stacking import CANDIDATES, SIMPLE, StackedForecaster
@@ -83,6 +87,7 @@ def run_backtest(
     n_folds: int = 4,
     params: dict[str, Any] | None = None,
     timing_only: bool = True,
+    learned: bool = True,
 ) -> dict[str, Any]:
     """Evaluate the served forecaster, its candidates and the simple
     forecasters fold by fold on the same test blocks; pooled scores too."""
@@ -93,7 +98,7 @@ def run_backtest(
     params = dict(params or {})
     col = {n: i for i, n in enumerate(names)}
     timing_cols = [col[n] for n in TIMING_FEATURES]
-    keys = ["y", "med", "lo", "hi", "t_med", "t_lo", "t_hi", *CANDIDATES]
+    keys = ["y", "med", "med_without", "lo", "hi", "t_med", "t_lo", "t_hi", *CANDIDATES]
     pooled: dict[str, list[np.ndarray]] = {k: [] for k in keys}
     level_hits: dict[float, list[np.ndarray]] = {}
     folds, weights = [], []
@@ -103,7 +108,13 @@ def run_backtest(
         # forecaster on the earlier folds, this fold serves that one alone.
         fold_back = fallback_after(pooled) if i else None
         # Bootstrap refits of the timing effect only serve the hours answer.
-        model = StackedForecaster(**{**params, "timing_bootstrap": 0, "force_candidate": fold_back}).fit(
+        fold_params = {
+            **params,
+            "timing_bootstrap": 0,
+            "force_candidate": fold_back,
+            "learned_neighbours": learned,
+        }
+        model = StackedForecaster(**fold_params).fit(
             X[tr], y[tr], X[ca], y[ca], feature_names=names, cal_times=times[ca]
         )
         lo, med, hi = model.predict(X[te], coverage=coverage_level)
@@ -127,6 +138,7 @@ def run_backtest(
         for k, v in (
             ("y", y[te]),
             ("med", med),
+            ("med_without", model.median_without_learned(X[te])),
             ("lo", lo),
             ("hi", hi),
             ("t_med", t_med),
@@ -150,6 +162,7 @@ def run_backtest(
             "blend_kind": summary["blend_kind"],
             "fallback_to": summary["fallback_to"],
             "fold_fallback": fold_back,
+            "learned_neighbours_in_use": summary["learned_neighbours_in_use"],
             "boosted_rounds": summary["boosted_rounds"],
             "left_out_of_boosted": summary["left_out_of_boosted"],
         }
@@ -181,8 +194,14 @@ def run_backtest(
             f"{lvl:g}": float(np.concatenate(h).mean()) for lvl, h in sorted(level_hits.items())
         },
         "text_signal": text_signal(
-            p["y"], p["account_median"], {c: p[c] for c in ("text_ridge", "precedents_median")}
+            p["y"], p["account_median"], {c: p[c] for c in ("text_ridge", "precedents_median", LEARNED)}
         ),
+        # Kept in training only when the served forecast beat the one without it.
+        "learned_neighbours": {
+            **learned_after(p["y"], p["med"], p["med_without"]),
+            "offered": learned,
+            "folds_in_use": sum(bool(f["learned_neighbours_in_use"]) for f in folds),
+        },
         "folds": folds,
     }
     report["note"] = signal_note(report)
@@ -218,6 +237,7 @@ _LEANS = {
     "account_median": "your account's recent median",
     "precedents_median": "the median of similar past posts",
     "history_median": "the history-wide median",
+    LEARNED: "the learned neighbours",
 }
 
 

@@ -10,7 +10,11 @@ Rows arrive sorted by time and are cut into three blocks:
   block, then refitted on fit + stack), ``text_ridge`` (ridge on the
   embedding vectors, predicted out of sample in time order), and the simple
   forecasters: ``account_median`` (trailing median), ``precedents_median``
-  (median of the 20 nearest earlier posts), ``history_median``.
+  (median of the 20 nearest earlier posts), ``history_median``; and
+  ``learned_neighbours`` (neighbours in a projection learnt for what the
+  text adds to the baseline, ``models.learned_neighbours``), kept only when
+  the blend with it beats the blend without it on the later half of the
+  stack block (``models.learned_rule``), and never a column of the trees.
 - A timing effect (``models.timing``): fitted first, inside ``boosted``
   (the trees learn what it leaves). With ``blend_timing`` it is also offered
   to the blend as an additive column with a non-negative weight (off by
@@ -52,25 +56,29 @@ from models import features as F
 from models.arrays import as_matrix, as_target
 from models.band_shape import choose_shrink, shaped
 from models.bands import check_is_fitted, nearest_level, ordered_band, predict_booster
-from models.blend_lp import choose_weights
 from models.calibration import cqr_scores, recency_weights, weighted_conformal_quantile
 from models.configfile import write_config
 from models.constraints import Interval, ParamsMixin
 from models.errors import InputError, NotFound, StoreError
+from models.learned_rule import LEARNED, choose_with_learned
 from models.metrics import DEFAULT_COVERAGE, TRAINED_LEVELS
 from models.regressor import QuantileForecaster
-from models.stack_columns import duplicate_columns
+from models.stack_columns import EXTRA_NAMES, duplicate_columns
 from models.timing import TimingEffect, hour_from_cyclic
 
 #: The share of the training block the stacking weights are fitted on.
 STACK_FRACTION = Interval(float, 0.05, 0.5)
 
 #: Columns added after ``models.features.FEATURE_NAMES`` (see ``extra_columns``).
-EXTRA_FEATURES: tuple[str, ...] = ("text_ridge", "account_code")
+EXTRA_FEATURES: tuple[str, ...] = EXTRA_NAMES
 ALL_FEATURES: tuple[str, ...] = F.FEATURE_NAMES + EXTRA_FEATURES
 #: Explanation groups of the extra columns (the text model reads what past
 #: posts' words did, like the precedents do).
-EXTRA_GROUPS: dict[str, str] = {"text_ridge": "precedents", "account_code": "account baseline"}
+EXTRA_GROUPS: dict[str, str] = {
+    "text_ridge": "precedents",
+    "account_code": "account baseline",
+    "learned_neighbours": "precedents",
+}
 ALL_GROUPS: dict[str, str] = {**F.FEATURE_GROUPS, **EXTRA_GROUPS}
 
 CANDIDATES: tuple[str, ...] = (
@@ -79,10 +87,16 @@ CANDIDATES: tuple[str, ...] = (
     "account_median",
     "precedents_median",
     "history_median",
+    LEARNED,
 )
 SIMPLE: tuple[str, ...] = ("account_median", "precedents_median", "history_median")
 #: Candidate -> the feature column it reads (linear candidates).
-_SOURCE = {"text_ridge": "text_ridge", "account_median": "baseline", "precedents_median": "team_median"}
+_SOURCE = {
+    "text_ridge": "text_ridge",
+    "account_median": "baseline",
+    "precedents_median": "team_median",
+    LEARNED: LEARNED,
+}
 CONFIG_FILE = "config.json"
 FORMAT_VERSION = 1
 #: What training uses. One thread: LightGBM's OpenMP threads slow down badly
@@ -117,6 +131,7 @@ class StackedForecaster(ParamsMixin):
         random_state: int = 0,
         num_threads: int = 1,
         force_candidate: str | None = None,
+        learned_neighbours: bool = True,
     ) -> None:
         self.levels = levels
         self.max_estimators = max_estimators
@@ -132,6 +147,7 @@ class StackedForecaster(ParamsMixin):
         self.random_state = random_state
         self.num_threads = num_threads
         self.force_candidate = force_candidate
+        self.learned_neighbours = learned_neighbours
 
     def _quantile_params(self, n_estimators: int) -> dict[str, Any]:
         return {
@@ -162,6 +178,10 @@ class StackedForecaster(ParamsMixin):
         for cand, src in _SOURCE.items():
             v = self._col(X, src)
             out[cand] = np.where(np.isnan(v), fill, v)
+        # Without a learned value (before its projection's block settled),
+        # the candidate is the account's baseline: no residual learnt.
+        v = self._col(X, LEARNED)
+        out[LEARNED] = np.where(np.isnan(v), out["account_median"], v)
         out["history_median"] = np.full(X.shape[0], fill)
         return out
 
@@ -237,7 +257,7 @@ class StackedForecaster(ParamsMixin):
 
         # Boosted model's columns: no account code, no exact duplicates, and
         # the timing columns unless switched off or found empty above.
-        skip = {"account_code"}
+        skip = {"account_code", LEARNED}
         if not self.boosted_timing or self.time_carries_nothing_:
             skip |= set(F.TIMING_FEATURES)
         cols = [i for i, nm in enumerate(names) if nm not in skip]
@@ -272,20 +292,27 @@ class StackedForecaster(ParamsMixin):
         #    generator with a known curve; our measurement).
         self.timing_in_all_ = not self.time_carries_nothing_
         adj = self._with_timing(cands, tau_stack)
-        Fm = np.column_stack([adj[c] for c in CANDIDATES])
         refs = np.column_stack([cands[c] for c in SIMPLE])
-        #    Absolute loss (the loss the median is scored on), checked in
-        #    time order against the simple forecasters (models.blend_lp).
-        choice = choose_weights(
-            Fm,
+        # 3b. The learned neighbours stay only when the blend with them beats
+        #     the blend without them on the later half (models.learned_rule).
+        picked = choose_with_learned(
+            adj,
             yt[stack_idx],
             CANDIDATES,
             SIMPLE,
             tau_stack[:, None] if self.blend_timing else None,
-            references=refs,
+            refs,
+            offered=bool(self.learned_neighbours and np.isfinite(self._col(Xt, LEARNED)[stack_idx]).any()),
         )
-        w, g = choice.weights, choice.effect_weights
-        g = g if self.blend_timing else np.zeros(1)
+        choice, without = picked.served, picked.without
+        self.weights_without_learned_ = {
+            c: float(x) for c, x in zip(CANDIDATES, without.weights, strict=True)
+        }
+        self.timing_in_all_without_learned_ = self.timing_in_all_ and not without.raw
+        self.learned_check_: dict[str, Any] = picked.check
+        self.learned_in_use_ = picked.in_use
+        w = choice.weights
+        g = choice.effect_weights if self.blend_timing else np.zeros(1)
         self.blend_kind_, self.fallback_to_ = choice.kind, choice.fallback_to
         if choice.raw:  # the simple forecaster as it is, without the timing effect
             self.timing_in_all_ = False
@@ -295,7 +322,9 @@ class StackedForecaster(ParamsMixin):
             if self.force_candidate not in CANDIDATES:
                 raise InputError(f"unknown candidate {self.force_candidate!r}", field="force_candidate")
             w, g = np.array([float(c == self.force_candidate) for c in CANDIDATES]), np.zeros(1)
-            self.timing_in_all_ = False
+            self.timing_in_all_ = self.timing_in_all_without_learned_ = False
+            self.weights_without_learned_ = {c: float(x) for c, x in zip(CANDIDATES, w, strict=True)}
+            self.learned_in_use_ = self.force_candidate == LEARNED
             self.blend_kind_, self.fallback_to_ = "fallback", self.force_candidate
         self.weights_ = {c: float(x) for c, x in zip(CANDIDATES, w, strict=True)}
         self.timing_weight_ = float(g[0])
@@ -375,11 +404,25 @@ class StackedForecaster(ParamsMixin):
         carried = 1.0 if getattr(self, "timing_in_all_", False) else self.weights_["boosted"]
         return float(self.timing_weight_ + carried)
 
-    def _blend(self, cands: dict[str, np.ndarray]) -> np.ndarray:
-        med = sum(self.weights_[c] * cands[c] for c in CANDIDATES)
-        return np.asarray(
-            med + (self.timing_scale_ - self.weights_["boosted"]) * cands["timing"], dtype=float
-        )
+    def _blend(
+        self,
+        cands: dict[str, np.ndarray],
+        weights: dict[str, float] | None = None,
+        in_all: bool | None = None,
+    ) -> np.ndarray:
+        if weights is None:
+            weights, scale = self.weights_, self.timing_scale_
+        else:
+            scale = self.timing_weight_ + (1.0 if in_all else weights["boosted"])
+        med = sum(weights.get(c, 0.0) * cands[c] for c in CANDIDATES)
+        return np.asarray(med + (scale - weights["boosted"]) * cands["timing"], dtype=float)
+
+    def median_without_learned(self, X: ArrayLike) -> np.ndarray:
+        """The blended median the stack block would have served without the
+        learned neighbours (what the backtest compares the served one with)."""
+        cands = self.candidates(X)
+        w = getattr(self, "weights_without_learned_", self.weights_)
+        return self._blend(cands, w, getattr(self, "timing_in_all_without_learned_", False))
 
     def _blend_and_bands(
         self, X: np.ndarray, *, level: int | None = None
@@ -462,7 +505,9 @@ class StackedForecaster(ParamsMixin):
         expected = wb * shap[:, -1]
         lin = self._linear(Xp, self.history_median_)
         for cand, src in _SOURCE.items():
-            wc = self.weights_[cand]
+            wc = self.weights_.get(cand, 0.0)
+            if wc == 0.0 or src not in self._index:  # not in use, or a model older than it
+                continue
             out[:, self._index[src]] += wc * (lin[cand] - self.means_[cand])
             expected = expected + wc * self.means_[cand]
         expected = expected + self.weights_["history_median"] * self.history_median_
@@ -498,6 +543,8 @@ class StackedForecaster(ParamsMixin):
             "band_shrink": {f"{self.levels_[i]:g}": round(v[0], 2) for i, v in self.band_shape_.items()},
             "blend_kind": getattr(self, "blend_kind_", "blend"),
             "fallback_to": getattr(self, "fallback_to_", None),
+            "learned_neighbours_in_use": bool(getattr(self, "learned_in_use_", False)),
+            "learned_neighbours_check": getattr(self, "learned_check_", {}),
         }
 
     # -- persistence -------------------------------------------------------
@@ -521,6 +568,10 @@ class StackedForecaster(ParamsMixin):
             "stack_scores": self.stack_scores_,
             "blend_kind": getattr(self, "blend_kind_", "blend"),
             "fallback_to": getattr(self, "fallback_to_", None),
+            "learned_in_use": bool(self.learned_in_use_),
+            "learned_check": self.learned_check_,
+            "weights_without_learned": self.weights_without_learned_,
+            "timing_in_all_without_learned": bool(self.timing_in_all_without_learned_),
             "history_median": self.history_median_,
             "means": self.means_,
             "timing": self.timing_.to_config(),
@@ -554,11 +605,20 @@ class StackedForecaster(ParamsMixin):
             m._cols = [m._index[nm] for nm in m.boosted_columns_]
             m.dropped_ = tuple(cfg["dropped"])
             m.n_estimators_ = int(cfg["n_estimators"])
-            m.weights_ = {k: float(v) for k, v in cfg["weights"].items()}
+            m.weights_ = dict.fromkeys(CANDIDATES, 0.0) | {k: float(v) for k, v in cfg["weights"].items()}
             m.timing_weight_ = float(cfg["timing_weight"])
             m.timing_in_all_ = bool(cfg.get("timing_in_all", False))  # older models: boosted only
             m.stack_scores_ = dict(cfg["stack_scores"])
             m.blend_kind_, m.fallback_to_ = cfg.get("blend_kind", "blend"), cfg.get("fallback_to")
+            # Older models had no learned neighbours: their blend is the one without.
+            m.learned_in_use_ = bool(cfg.get("learned_in_use", False))
+            m.learned_check_ = dict(cfg.get("learned_check", {}))
+            m.weights_without_learned_ = dict.fromkeys(CANDIDATES, 0.0) | {
+                k: float(v) for k, v in cfg.get("weights_without_learned", cfg["weights"]).items()
+            }
+            m.timing_in_all_without_learned_ = bool(
+                cfg.get("timing_in_all_without_learned", cfg.get("timing_in_all", False))
+            )
             m.history_median_ = float(cfg["history_median"])
             m.means_ = {k: float(v) for k, v in cfg["means"].items()}
             m.timing_ = TimingEffect.from_config(cfg["timing"])

@@ -330,6 +330,11 @@ def _stats_of(
     return out
 
 
+def account_baselines(history: History, params: FeatureParams) -> np.ndarray:
+    """The ``baseline`` feature of every post of ``history``."""
+    return _baselines(history, np.arange(len(history)), params)[:, 0]
+
+
 def _baselines(history: History, rows: np.ndarray, params: FeatureParams) -> np.ndarray:
     """``baseline`` for many rows: the median of each account's last N posts
     settled by the row's time, from one sorted list per account."""

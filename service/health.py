@@ -6,11 +6,13 @@ saved index state), so the workspace holds the parts and not the answer.
 
 from __future__ import annotations
 
+import json
+from pathlib import Path
 from typing import Any, Literal, Protocol
 
 from pydantic import BaseModel, Field
 
-from models.artefact import intact
+from models.artefact import REPORT, intact
 from models.integrity import REPAIRED
 from models.metrics import DEFAULT_METRIC
 from service.datadir import DataDir
@@ -50,6 +52,11 @@ class Health(BaseModel):
     index: IndexState
     search: SearchState | None = Field(default=None, description="How the index searches")
     forecaster: str | None = Field(default=None, description="Version of the model in use")
+    learned_neighbours: bool | None = Field(
+        default=None,
+        description="Whether the model in use blends the learned-neighbours candidate (kept only "
+        "when its time-ordered backtest improved the forecast); null without a model",
+    )
     damaged_models: list[str] = Field(
         default_factory=list,
         description="Model versions skipped because their files do not match their checksums",
@@ -72,6 +79,16 @@ class Parts(DataDir, Protocol):
     def search_state(self) -> dict[str, Any] | None: ...
 
 
+def learned_in_use(version_dir: Path) -> bool | None:
+    """What a model version's training report says of the learned neighbours
+    (None when the report is unreadable)."""
+    try:
+        report = json.loads((version_dir / REPORT).read_text())
+        return bool(report.get("combination", {}).get("learned_neighbours_in_use", False))
+    except (OSError, ValueError, AttributeError):
+        return None
+
+
 def health(ws: Parts) -> Health:
     """The health answer of a data directory (``GET /v1/health``)."""
     counts = ws.store.counts()
@@ -86,6 +103,9 @@ def health(ws: Parts) -> Health:
         index=IndexState(**ws.index_state()),
         search=None if search is None else SearchState(**search),
         forecaster=served,
+        learned_neighbours=None
+        if served is None
+        else learned_in_use(ws.settings.models_dir / metric / served),
         damaged_models=[f"{metric}/{v}: {why}" for v, why in damaged],
         read_only=ws.read_only,
         repaired=list(REPAIRED),

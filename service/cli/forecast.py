@@ -102,10 +102,12 @@ def print_backtest(bt: dict[str, Any], metric: str, *, details: bool = False) ->
         "timing_only": "timing only",
         "boosted": "precedents + timing",
         "text_ridge": "text alone",
+        "learned_neighbours": "learned neighbours",
     }
     methods = {
         "boosted": "LightGBM quantile trees on precedent features and timing",
         "text_ridge": "ridge regression on the embedding vectors",
+        "learned_neighbours": "neighbours in an MLKR projection of the vectors (Weinberger & Tesauro 2007)",
     }
     weights = bt.get("weights") or {}
     rows: list[list[str]] = []
@@ -162,6 +164,14 @@ def print_backtest(bt: dict[str, Any], metric: str, *, details: bool = False) ->
             "their mean squared error; order is Spearman's rank correlation; "
             + "; ".join(f"{labels[k]}: {v}" for k, v in methods.items())
             + ". Each fold trains on the posts before it and tests on the next (rolling origin).",
+        )
+    learned = bt.get("learned_neighbours")
+    if learned and learned.get("offered", True):
+        say(
+            out,
+            "learned neighbours: in use, the forecast with them did better in past tries"
+            if learned["in_use"]
+            else "learned neighbours: not in use, they did not improve the forecast in past tries",
         )
     if weights.get("timing"):
         say(out, f"the timing effect is added with weight {weights['timing']:.2f}")

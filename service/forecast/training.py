@@ -15,7 +15,7 @@ from models.artefact import TrainedModel
 from models.backtest import run_backtest
 from models.errors import NotReady
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC, check_target, without_followers
-from models.stack_columns import extra_columns
+from models.stack_columns import ExtraModels, extra_columns
 from models.stacking import ALL_FEATURES, STACK_PARAMS, StackedForecaster
 from service.clock import now_utc, wall_clock
 from service.datadir import DataDir
@@ -90,7 +90,8 @@ def _train(
             else "import more history",
         )
     # The text model's time-ordered column and the account code (models.stacking).
-    X, text = with_extra_columns(view, params, now, X, ws.settings)
+    X, columns = with_extra_columns(view, params, now, X, ws.settings)
+    text = columns.text
     rows = training_rows(view, params, now, max_posts=ws.settings.train_max_posts)
     order = np.argsort(times, kind="stable")
     X, y, times, rows = X[order], y[order], times[order], rows[order]
@@ -125,6 +126,7 @@ def _train(
         "embedding": {k: v for k, v in ws.embedder.info().items() if k != "loaded"},
         "combination": model.summary(),
         "text_model": None if text is None else {"penalty": text.alpha_},
+        "learned_neighbours": None if columns.learned is None else columns.learned.summary(),
     }
     report["shared_terms"] = None
     if backtest:
@@ -141,15 +143,25 @@ def _train(
             report["combination"] = model.summary()
         report["backtest"]["shared_terms"] = decision
         back = report["backtest"].get("serve_fallback")
-        if back:  # the blend lost to this simple forecaster in time order: serve it
-            model = fit(force_candidate=back)
+        # The learned neighbours stay only when the backtest found them helping.
+        keep = bool(report["backtest"]["learned_neighbours"]["in_use"])
+        if back or (model.learned_in_use_ and not keep):
+            # The blend lost to this simple forecaster in time order: serve it;
+            # or the learned neighbours did not help there: serve without them.
+            model = fit(force_candidate=back, learned_neighbours=keep)
             report["combination"] = model.summary()
         report["note"] = report["backtest"]["note"]
     # Versions sort by the wall clock of training, whatever "now" the data was seen at.
     stamp = wall_clock()  # not SOUNDING_NOW: versions must stay unique
     version = stamp.strftime("%Y%m%dT%H%M%S") + f"{stamp.microsecond // 1000:03d}Z"
     trained = TrainedModel(
-        metric=metric, version=version, features=params, forecaster=model, report=report, text=text
+        metric=metric,
+        version=version,
+        features=params,
+        forecaster=model,
+        report=report,
+        text=text,
+        learned=columns.learned if model.learned_in_use_ else None,
     )
     trained.save(ws.settings.models_dir)
     return trained
@@ -185,11 +197,14 @@ def backtest(
 
 def with_extra_columns(
     view: HistoryView, params: F.FeatureParams, now: datetime, X: np.ndarray, settings: Settings
-) -> tuple[np.ndarray, Any]:
-    """``X`` (rows of ``training_set``) with models.stacking's extra columns."""
-    extra, text = extra_columns(view.history, maturity_s=params.maturity_s, now=now.timestamp())
+) -> tuple[np.ndarray, ExtraModels]:
+    """``X`` (rows of ``training_set``) with models.stacking's extra columns,
+    and the models behind them (``models.stack_columns.ExtraModels``)."""
+    extra, models = extra_columns(
+        view.history, maturity_s=params.maturity_s, now=now.timestamp(), params=params
+    )
     keep = training_rows(view, params, now, max_posts=settings.train_max_posts)
-    return np.hstack([X, extra[keep]]), text
+    return np.hstack([X, extra[keep]]), models
 
 
 def backtest_inputs(

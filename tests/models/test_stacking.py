@@ -245,8 +245,8 @@ def test_extra_columns_use_only_settled_posts() -> None:
     times = np.sort(rng.uniform(0, 200 * DAY, n))
     y = V.astype(float) @ rng.normal(size=V.shape[1]) + 6
     h = F.History(pk=np.arange(n), time=times, account=np.zeros(n, dtype=np.int64), log_target=y, vectors=V)
-    cols, text = extra_columns(h, maturity_s=maturity, now=times[-1] + 10 * DAY)
-    assert text is not None
+    cols, models = extra_columns(h, maturity_s=maturity, now=times[-1] + 10 * DAY)
+    assert models.text is not None
     i = 350
     later = times > times[i] - maturity  # not settled when post i went out (incl. itself)
     h2 = F.History(
