@@ -38,7 +38,7 @@ from models.features import FEATURE_NAMES, FeatureParams
 from models.integrity import boosters_parse, checksums, mismatch
 from models.learned_neighbours import LearnedNeighbours
 from models.regressor import QuantileForecaster
-from models.stack_columns import ExtraModels, draft_columns
+from models.stack_columns import EXTRA_NAMES, ExtraModels, draft_columns
 from models.stacking import StackedForecaster
 from models.textmodel import RidgeText
 
@@ -74,7 +74,10 @@ class TrainedModel:
         neighbours; a model saved before a column existed lacks it)."""
         if X.shape[1] >= self.forecaster.n_features_in_:
             return X
-        names = getattr(self.forecaster, "feature_names_", ())[len(FEATURE_NAMES) :]
+        # Only the columns made here; any after them (the shared-terms columns)
+        # are added by the caller that keeps their index.
+        trained = getattr(self.forecaster, "feature_names_", ())[len(FEATURE_NAMES) :]
+        names = [c for c in trained if c in EXTRA_NAMES]
         base = X[:, FEATURE_NAMES.index("baseline")]
         extra = draft_columns(ExtraModels(self.text, self.learned), vectors, accounts, base, names)
         return np.hstack([X, extra])
