@@ -25,12 +25,20 @@ NAMES: tuple[str, ...] = ("shared_terms_n", "shared_terms_median")
 RARE_TERMS = 3
 
 
-def key_terms(tokens: Sequence[Sequence[str]], *, hashtags_only: bool) -> list[frozenset[str]]:
+def document_frequency(tokens: Sequence[Sequence[str]]) -> Counter[str]:
+    """In how many of these texts each term occurs (words, never metrics)."""
+    return Counter(t for toks in tokens for t in set(toks))
+
+
+def key_terms(
+    tokens: Sequence[Sequence[str]], *, hashtags_only: bool, df: Counter[str] | None = None
+) -> list[frozenset[str]]:
     """Each post's key terms: its hashtags, or (``hashtags_only`` False) its
-    ``RARE_TERMS`` rarest words among those found in two posts or more
-    (document frequency over these texts: words, never metrics)."""
-    df = None if hashtags_only else Counter(t for toks in tokens for t in set(toks))
-    return [keys_of(toks, df, extra=0) for toks in tokens]
+    ``RARE_TERMS`` rarest words among those found in two posts or more, by
+    ``df`` (``document_frequency`` of these texts when not given)."""
+    if not hashtags_only and df is None:
+        df = document_frequency(tokens)
+    return [keys_of(toks, None if hashtags_only else df, extra=0) for toks in tokens]
 
 
 def keys_of(tokens: Sequence[str], df: Counter[str] | None, *, extra: int = 1) -> frozenset[str]:

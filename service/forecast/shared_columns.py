@@ -58,9 +58,9 @@ class SharedTerms:
 
     @classmethod
     def of(cls, view: HistoryView, tokens: Sequence[Sequence[str]], kind: str) -> SharedTerms:
-        hashtags = kind == "hashtags"
-        keys = S.key_terms(tokens, hashtags_only=hashtags)
-        df = None if hashtags else Counter(t for toks in tokens for t in set(toks))
+        # Drafts are keyed by the same document frequencies as the history.
+        df = None if kind == "hashtags" else S.document_frequency(tokens)
+        keys = S.key_terms(tokens, hashtags_only=df is None, df=df)
         return cls(kind, keys, S.TermIndex(view.history, keys), df)
 
     def rows(self, rows: np.ndarray, params: F.FeatureParams) -> np.ndarray:
@@ -86,7 +86,7 @@ def _figures(report: dict[str, Any]) -> dict[str, Any]:
 def decide(
     setting: str,
     view: HistoryView,
-    tokens: Sequence[Sequence[str]],
+    store: Store,
     params: F.FeatureParams,
     rows: np.ndarray,
     X: np.ndarray,
@@ -101,6 +101,7 @@ def decide(
     run with ``backtest_options``."""
     if setting == "off":
         return None, None, {"tried": False, "kept": False, "kind": None, "setting": setting}
+    tokens = view_tokens(view, store)
     tags = SharedTerms.of(view, tokens, "hashtags")
     tag_cols = tags.rows(rows, params)
     share = float((tag_cols[:, 0] > 0).mean()) if len(rows) else 0.0

@@ -132,9 +132,8 @@ def _train(
     if backtest:
         report["backtest"] = run_backtest(X, y, times, feature_names=ALL_FEATURES, params=STACK_PARAMS)
         # The shared-terms columns, kept only where they improve the backtest.
-        tokens = shared_columns.view_tokens(view, ws.store)
         cols, with_cols, decision = shared_columns.decide(
-            ws.settings.shared_terms, view, tokens, params, rows, X, y, times, report["backtest"]
+            ws.settings.shared_terms, view, ws.store, params, rows, X, y, times, report["backtest"]
         )
         if cols is not None and with_cols is not None:
             X, names = np.hstack([X, cols]), ALL_FEATURES + S.NAMES
@@ -179,11 +178,10 @@ def backtest(
     options: dict[str, Any] = {"coverage_level": coverage, "n_folds": n_folds}
     report = run_backtest(X, y, times, feature_names=ALL_FEATURES, params=STACK_PARAMS, **options)
     # What training would decide about the shared-terms columns, with both figures.
-    tokens = shared_columns.view_tokens(view, ws.store)
     report["shared_terms"] = shared_columns.decide(
         ws.settings.shared_terms,
         view,
-        tokens,
+        ws.store,
         feature_params(ws.settings),
         rows,
         X,
