@@ -27,6 +27,7 @@ from typing import Any
 
 import numpy as np
 
+from models.blend_lp import simple_reference
 from models.errors import InputError
 from models.evaluation import coverage, mae, mean_width, rolling_origin_splits, spearman
 from models.features import TIMING_FEATURES
@@ -209,14 +210,15 @@ def run_backtest(
 
 
 def fallback_after(pooled: dict[str, list[np.ndarray]]) -> str | None:
-    """The better simple forecaster (least absolute error over the folds so
-    far) when the served forecast was worse than it on absolute error or
-    rank correlation there; None while the served forecast holds up."""
+    """The better simple forecaster over the folds so far
+    (``blend_lp.simple_reference``) when the served forecast was worse than
+    it on absolute error or rank correlation there; None while the served
+    forecast holds up."""
     if not pooled["y"]:
         return None
     y, med = np.concatenate(pooled["y"]), np.concatenate(pooled["med"])
     simple = {c: np.concatenate(pooled[c]) for c in SIMPLE}
-    ref = min(simple, key=lambda c: mae(y, simple[c]))
+    ref = simple_reference(y, simple)
 
     def rank(f: np.ndarray) -> float:
         r = spearman(y, f)

@@ -45,6 +45,7 @@ from models.configfile import write_config
 from models.constraints import Constraint, Interval, ParamsMixin, validate_params
 from models.errors import InputError, NotFittedError, NotFound, StoreError
 from models.learned_retrieval import MLKR
+from models.threads import one_thread
 
 CONFIG_FILE = "config.json"
 #: Fewest rows the projection is fitted on (below it the column stays empty).
@@ -137,10 +138,27 @@ class LearnedNeighbours(ParamsMixin):
         V = np.asarray(vectors, dtype=np.float64).reshape(-1, self.n_features_in_)
         b = np.asarray(baseline, dtype=np.float64).reshape(len(V))
         Z = self.projection_.transform(V).astype(np.float32)
-        nb = len(self.bank_residuals_)
-        with threadpool_limits(limits=1):
-            r = _time_ordered(self.bank_vectors_, self.bank_residuals_, Z, np.full(len(Z), nb), int(self.k))
+        # The slots of an hour sweep repeat one text: each distinct vector is searched once.
+        distinct, back = np.unique(Z, axis=0, return_inverse=True)
+        kk = min(int(self.k), len(self.bank_residuals_))
+        if len(distinct) and kk:
+            with one_thread():
+                D, idx = self._bank_index().search(np.ascontiguousarray(distinct), kk)
+            r = _kernel_mean(D.astype(np.float64), idx, self.bank_residuals_)[back.reshape(-1)]
+        else:
+            r = np.full(len(Z), np.nan)
         return np.asarray(self._anchored(b) + r, dtype=np.float64)
+
+    def _bank_index(self) -> faiss.IndexFlatL2:
+        """The whole bank in an exact index, made once per fitted or loaded
+        model (copying 100,000 rows into a new one cost more than the rest of
+        a served forecast)."""
+        index = getattr(self, "_index", None)
+        if index is None:
+            index = faiss.IndexFlatL2(self.bank_vectors_.shape[1])
+            index.add(np.ascontiguousarray(self.bank_vectors_, dtype=np.float32))
+            self._index = index
+        return index
 
     def _anchored(self, b: np.ndarray) -> np.ndarray:
         """``anchor_ * b``; with no weight on it, a missing baseline (an
@@ -219,6 +237,26 @@ def choose_anchor(V: np.ndarray, y: np.ndarray, b: np.ndarray, k: int) -> float:
     return -min(errors)[1]
 
 
+def _kernel_mean(D: np.ndarray, idx: np.ndarray, residuals: np.ndarray, k: int | None = None) -> np.ndarray:
+    """Per row, the mean residual of its ``k`` nearest candidates (squared
+    distances ``D``, bank rows ``idx``; infinite where a candidate may not be
+    seen), weighted by ``exp(-(d - d_min))``; NaN where none may be seen."""
+    kq = min(D.shape[1] if k is None else k, D.shape[1])
+    out = np.full(len(D), np.nan)
+    if kq == 0:
+        return out
+    top = np.argpartition(D, kq - 1, axis=1)[:, :kq]
+    d = np.take_along_axis(D, top, axis=1)
+    r = residuals[np.take_along_axis(idx, top, axis=1).clip(0)]
+    fine = np.isfinite(d) & (np.take_along_axis(idx, top, axis=1) >= 0)
+    d0 = np.where(fine, d, np.inf).min(axis=1, keepdims=True)
+    w = np.where(fine, np.exp(-(np.where(fine, d, 0.0) - np.where(np.isfinite(d0), d0, 0.0))), 0.0)
+    s = w.sum(axis=1)
+    have = s > 0
+    out[have] = (w[have] * r[have]).sum(axis=1) / s[have]
+    return out
+
+
 def _time_ordered(
     bank: np.ndarray,
     residuals: np.ndarray,
@@ -264,14 +302,5 @@ def _time_ordered(
         Dt[np.arange(added, hi)[None, :] >= lim[:, None]] = np.inf
         Dall = np.hstack([np.where(idx >= 0, D, np.inf), Dt]).astype(np.float64)
         Iall = np.hstack([idx, np.broadcast_to(np.arange(added, hi), Dt.shape)])
-        kq = min(k, Dall.shape[1])
-        top = np.argpartition(Dall, kq - 1, axis=1)[:, :kq]
-        d = np.take_along_axis(Dall, top, axis=1)
-        r = residuals[np.take_along_axis(Iall, top, axis=1).clip(0)]
-        fine = np.isfinite(d)
-        d0 = np.where(fine, d, np.inf).min(axis=1, keepdims=True)
-        w = np.where(fine, np.exp(-(d - np.where(np.isfinite(d0), d0, 0.0))), 0.0)
-        s = w.sum(axis=1)
-        have = s > 0
-        out[at:c1][have] = (w[have] * r[have]).sum(axis=1) / s[have]
+        out[at:c1] = _kernel_mean(Dall, Iall, residuals, k)
     return out

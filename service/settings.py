@@ -11,10 +11,13 @@ from __future__ import annotations
 
 from functools import cached_property
 from pathlib import Path
-from typing import Literal
+from typing import TYPE_CHECKING, Literal
 
 from pydantic import Field, SecretStr
 from pydantic_settings import BaseSettings, SettingsConfigDict
+
+if TYPE_CHECKING:
+    from models.embedding import Embedder
 
 #: The longest post text an import stores (characters, after normalising).
 DEFAULT_MAX_TEXT_CHARS = 10_000
@@ -62,6 +65,11 @@ class Settings(BaseSettings):
     )
     embed_threads: int = Field(
         default=0, ge=0, description="ONNX Runtime intra-op threads (0: one per core)."
+    )
+    embed_preload: bool = Field(
+        default=True,
+        description="check, hours, compare and precedents load the embedding model in a thread "
+        "while they start, instead of at their first embedding.",
     )
 
     # Import
@@ -213,6 +221,35 @@ class Settings(BaseSettings):
     def uploads_dir(self) -> Path:
         return self.resolved_home / "uploads"
 
+    def embedder(self) -> Embedder:
+        """The embedder these settings describe; its model loads on first use."""
+        from models.embedding import Embedder  # numpy and the tokenizer: not for every setting read
+
+        return Embedder(
+            model_path=self.embed_model_path,
+            batch_size=self.embed_batch_size,
+            backend=self.embed_backend,
+            quantize=self.embed_quantize,
+            export_dir=self.embedding_dir,
+            threads=self.embed_threads,
+        )
+
 
 def get_settings() -> Settings:
-    return Settings()
+    """The settings from the environment; a wrong ``SOUNDING_*`` value is an
+    :class:`InputError` naming the variable, its value and what it must be."""
+    from pydantic import ValidationError
+
+    from models.errors import InputError
+
+    try:
+        return Settings()
+    except ValidationError as exc:
+        first = exc.errors()[0]
+        name = "SOUNDING_" + "_".join(str(p) for p in first["loc"][:1]).upper()
+        value = first.get("input")
+        raise InputError(
+            f"{name}={value!r} is not a valid setting: {first['msg']}",
+            field=name,
+            value=None if value is None else str(value),
+        ) from None

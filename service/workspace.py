@@ -105,14 +105,7 @@ class Workspace:
                 log.warning("removed %s, left by a training that did not finish", p.name)
             for p in uploads.sweep(settings.uploads_dir):
                 log.warning("removed %s, an upload left by an import that did not finish", p.name)
-        self.embedder = embedder or Embedder(
-            model_path=settings.embed_model_path,
-            batch_size=settings.embed_batch_size,
-            backend=settings.embed_backend,
-            quantize=settings.embed_quantize,
-            export_dir=settings.embedding_dir,
-            threads=settings.embed_threads,
-        )
+        self.embedder = embedder or settings.embedder()
         self._index: VectorIndex | None = None
         self._index_stamp: int | None = None
         self._index_own = 0  # store.own_writes when the index was last in step

@@ -133,10 +133,10 @@ def workspace(*, create: bool = False) -> Workspace:
     Only commands that store something (``create``) make a data directory:
     a mistyped --home on a read gets a clear error, not a new empty one."""
     global _workspace, _embedder
-    from service.settings import Settings
+    from service.settings import get_settings
     from service.workspace import Workspace
 
-    settings = Settings()
+    settings = get_settings()
     home = settings.resolved_home
     if not create and settings.database_url is None and not home.exists():
         raise NotFound(
@@ -159,6 +159,11 @@ def close_workspace() -> None:
     if _workspace is not None:
         _workspace.close()
         _workspace = None
+
+
+def embedder_in_use() -> bool:
+    """Whether this process already has an embedder (loaded or loading)."""
+    return _embedder is not None
 
 
 def use_embedder(embedder: Embedder) -> None:

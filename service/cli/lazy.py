@@ -27,7 +27,8 @@ import typer.main
 from typer._click import Command, HelpFormatter
 from typer._click.utils import make_default_short_help
 
-from service.cli.base import ErrorsAsMessages, app
+from service.cli import warmup
+from service.cli.base import ErrorsAsMessages, app, embedder_in_use, use_embedder
 from service.cli.metavars import name_values
 
 if TYPE_CHECKING:
@@ -187,6 +188,17 @@ class LazyGroup(ErrorsAsMessages):
 
     def list_commands(self, ctx: ClickContext) -> list[str]:
         return list(self.commands)
+
+    def invoke(self, ctx: ClickContext) -> Any:
+        # Before the command's module is imported: see service/cli/warmup.py.
+        # A process that already holds an embedder (the test suite's) keeps it.
+        command = ctx._protected_args[:1]
+        if command and not embedder_in_use() and warmup.wanted(command[0], ctx.args):
+            home = ctx.params.get("home")
+            loading = warmup.start(None if home is None else str(home))
+            if loading is not None:
+                use_embedder(loading)
+        return super().invoke(ctx)
 
     def format_commands(self, ctx: ClickContext, formatter: HelpFormatter) -> None:
         """The commands with their one-line help, from the catalogue: no

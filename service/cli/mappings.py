@@ -16,7 +16,7 @@ from service.cli.render import Column, print_table
 from service.ingest.mappings import command_line, list_mappings, load_mapping, mapping_text, save_mapping
 from service.ingest.options import ImportOptions, parse_mapping
 from service.ingest.timestamps import DateOrder
-from service.settings import Settings
+from service.settings import get_settings
 
 ACCOUNT = typer.Option(None, "--account", help="Account for rows without an account column.")
 MAP = typer.Option([], "--map", help="Read our column from theirs: ours=theirs (repeatable).")
@@ -100,14 +100,14 @@ def save_cmd(
         decimal_comma=decimal_comma,
         labels=label,
     )
-    path = save_mapping(Settings().resolved_home, name, options, replace=replace)
+    path = save_mapping(get_settings().resolved_home, name, options, replace=replace)
     out.print(f"saved mapping {name} ({path})", highlight=False)
 
 
 @mapping_app.command("list")
 def list_cmd(as_json: bool = typer.Option(False, "--json", help="Print JSON.")) -> None:
     """List the saved mappings."""
-    home = Settings().resolved_home
+    home = get_settings().resolved_home
     names = list_mappings(home)
     if as_json:
         print_json([{"name": n, "arguments": command_line(load_mapping(home, n))} for n in names])
@@ -129,7 +129,7 @@ def show_cmd(
     as_json: bool = typer.Option(False, "--json", help="Print JSON."),
 ) -> None:
     """Show a saved mapping: its file and the import options it stands for."""
-    home = Settings().resolved_home
+    home = get_settings().resolved_home
     options = load_mapping(home, name)
     if as_json:
         print_json(

@@ -11,7 +11,7 @@ from models.errors import InputError
 from service.cli import base
 from service.cli.base import app, out
 from service.restore import check_backup, coming_back, restore
-from service.settings import Settings
+from service.settings import get_settings
 from service.storage.forget_log import Forgotten, read
 
 
@@ -37,7 +37,7 @@ def restore_cmd(
     """
     if forget_again and bring_back:
         raise InputError("say either --forget-again or --bring-back, not both")
-    settings = Settings()
+    settings = get_settings()
     path = backup.expanduser().resolve()
     check_backup(path)  # a damaged backup fails here, before any question
     back = coming_back(path, read(settings.resolved_home))

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any, Protocol
 
-from sqlalchemy import CursorResult, Integer, cast, delete, func, select
+from sqlalchemy import CursorResult, Integer, cast, delete, func, insert, select
 from sqlalchemy.orm import Session
 from sqlalchemy.sql.elements import ColumnElement
 
@@ -141,8 +141,12 @@ class TrackTables:
 
     def add_forecasts(self, rows: Sequence[dict[str, Any]]) -> None:
         """Record forecasts as given (columns of ``forecasts_given``)."""
+        if not rows:
+            return
+        # One executemany, without mapped objects: a served forecast records
+        # itself on every request.
         with self.store.session() as s:
-            s.add_all([ForecastGiven(**r) for r in rows])
+            s.execute(insert(ForecastGiven), list(rows))
 
     # Matching -------------------------------------------------------------
 

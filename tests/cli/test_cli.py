@@ -142,6 +142,22 @@ def test_data_directory_that_is_a_file(tmp_path: Path, monkeypatch: pytest.Monke
     assert_clean_failure(run("--home", str(tmp_path / "not-a-dir"), "accounts"), "data directory")
 
 
+@pytest.mark.parametrize(
+    ("variable", "value", "args"),
+    [
+        ("SOUNDING_EMBED_THREADS", "four", ("accounts",)),
+        ("SOUNDING_NEIGHBOURS", "0", ("precedents", "a draft")),
+        ("SOUNDING_EMBED_BACKEND", "gpu", ("mapping", "list")),
+    ],
+)
+def test_a_wrong_setting_is_named_in_one_line(
+    variable: str, value: str, args: tuple[str, ...], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setenv(variable, value)
+    line = assert_clean_failure(run(*args), variable, repr(value))
+    assert "not a valid setting" in line
+
+
 def test_import_with_mapping_and_account(tmp_path: Path) -> None:
     (tmp_path / "a.csv").write_text(CSV)
     assert run("account", "garden", "--name", "The Garden", "--timezone", "Europe/London").exit_code == 0

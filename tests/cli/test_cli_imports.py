@@ -11,6 +11,7 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+import threading
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -18,7 +19,7 @@ from typing import Any
 import pytest
 from typer.main import get_command
 
-from service.cli import app
+from service.cli import app, warmup
 from service.cli.lazy import catalogue
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -82,6 +83,7 @@ def test_root_help_imports_no_command_module() -> None:
         "service.cli.base",
         "service.cli.lazy",
         "service.cli.metavars",
+        "service.cli.warmup",  # os and threading only: it loads nothing until a command asks
     }
     for name in catalogue():
         assert f"  {name} " in text
@@ -150,3 +152,59 @@ def test_a_cold_forecast_reads_the_kept_view_and_loads_nothing_heavy(
     # The embedding runs on ONNX Runtime; nothing else heavy is needed.
     libraries = tuple(m for m in HEAVY if m != "onnxruntime")
     assert heavy(mods, libraries) == [], f"`sounding {args[0]}` loaded {heavy(mods, libraries)}"
+
+
+# The embedding model loads in a thread while a forecasting command starts
+# (service/cli/warmup.py); the answer is the one given without. Here, so the
+# ONNX export the first cold run makes is made once for the file.
+DRAFT = ("check", "Snowdrops by the lake path this week", "--account", "loomhaven")
+FIXED = ("--at", "2026-12-05T10:00", "--json", "--no-record")
+
+
+def test_only_commands_that_embed_a_draft_start_loading() -> None:
+    assert warmup.wanted("check", ["a draft", "--account", "x"])
+    assert warmup.wanted("hours", [])
+    assert not warmup.wanted("check", ["--help"])  # help loads nothing heavy
+    assert not warmup.wanted("accounts", [])
+    assert not warmup.wanted("train", [])
+
+
+def test_the_answer_is_the_same_with_and_without_the_early_load(demo_home: Path) -> None:
+    # Fresh interpreters, as the `sounding` script runs; the first run also
+    # makes the ONNX export the early load reads.
+    code, _, early = loaded(*DRAFT, *FIXED, home=demo_home)
+    assert code == 0, early
+    os.environ["SOUNDING_EMBED_PRELOAD"] = "0"
+    try:
+        code, _, late = loaded(*DRAFT, *FIXED, home=demo_home)
+    finally:
+        del os.environ["SOUNDING_EMBED_PRELOAD"]
+    assert code == 0, late
+    assert early == late
+
+
+def test_the_early_load_reads_the_saved_export_without_embedding(
+    demo_home: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    code, _, text = loaded(*DRAFT, *FIXED, home=demo_home)  # the export exists after one run
+    assert code == 0, text
+    monkeypatch.setenv("SOUNDING_HOME", str(demo_home))
+    embedder = warmup.start()
+    assert embedder is not None
+    for t in threading.enumerate():
+        if t.name == "sounding-embedder":
+            t.join()
+    assert embedder.backend_ == "onnx" and embedder.calls == 0
+    monkeypatch.setenv("SOUNDING_EMBED_PRELOAD", "0")
+    assert warmup.start() is None
+    monkeypatch.setenv("SOUNDING_EMBED_PRELOAD", "1")
+    monkeypatch.setenv("SOUNDING_EMBED_BACKEND", "torch")
+    assert warmup.start() is None
+
+
+def test_nothing_loads_early_where_no_export_was_saved(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setenv("SOUNDING_HOME", str(tmp_path))
+    assert warmup.start() is None
+    assert warmup.start(str(tmp_path / "elsewhere")) is None

@@ -49,4 +49,5 @@ def test_repeated_texts_are_embedded_once_and_answer_alike(demo_workspace) -> No
     alone = [fc.forecast([d], now=NOW)[0] for d in drafts]
     for b, a in zip(batch, alone, strict=True):
         np.testing.assert_allclose(b.log, a.log, rtol=0, atol=1e-9)
-    assert batch[0].log == batch[2].log
+    # Equal to float noise: a matrix product may block two rows differently.
+    np.testing.assert_allclose(batch[0].log, batch[2].log, rtol=0, atol=1e-12)

@@ -113,3 +113,62 @@ def test_backtest_folds_fall_back_after_a_fold_the_blend_lost() -> None:
     pooled["med"] = [y.copy()]  # exact: no worse on either measure
     assert fallback_after(pooled) is None
     assert fallback_after({k: [] for k in pooled}) is None
+
+
+def _near_tie(n: int, gain: float, seed: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """y, a simple forecaster, and a complex one missing on the same side by
+    a random share of the simple one's miss, ``gain`` smaller on average:
+    the paired differences are noisy, and blending the two gains nothing."""
+    rng = np.random.default_rng(seed)
+    y = rng.normal(size=n)
+    noise = rng.laplace(scale=0.8, size=n)
+    share = rng.uniform(0.5, 1.5, size=n) - gain
+    return y, y + noise, y + noise * share
+
+
+@pytest.mark.parametrize("gain, kept", [(0.005, False), (0.3, True)])
+def test_a_complex_forecaster_must_beat_the_simple_one_by_a_standard_error(gain: float, kept: bool) -> None:
+    # The one-standard-error rule (Breiman et al. 1984, sec. 3.4.3; Hastie,
+    # Tibshirani & Friedman, ESL sec. 7.10), with the standard error of the
+    # paired differences taken from scipy.stats.sem, independently of ours.
+    from scipy.stats import sem
+
+    y, simple, complex_ = _near_tie(600, gain, seed=4)
+    choice = choose_weights(
+        np.column_stack([complex_, simple]), y, ["boosted", "account_median"], ["account_median"]
+    )
+    later = slice(300, 600)
+    d = np.abs(y[later] - complex_[later]) - np.abs(y[later] - simple[later])
+    beats_by_one_se = bool(np.mean(d) + sem(d) <= 0.0)
+    assert beats_by_one_se is kept  # the generator puts the case on the side intended
+    assert float(np.mean(d)) < 0  # the complex one is better on the later half either way
+    if kept:
+        assert choice.weights[0] > 0
+    else:
+        assert choice.kind == "fallback" and choice.fallback_to == "account_median"
+        np.testing.assert_array_equal(choice.weights, [0.0, 1.0])
+
+
+@pytest.mark.parametrize("extra_error, expected", [(0.01, "precedents_median"), (0.5, "history_median")])
+def test_the_simple_bar_ranks_when_its_error_is_as_low(extra_error: float, expected: str) -> None:
+    # By hand: a constant forecaster at the median of y, and one that ranks
+    # (noisy y) whose absolute error is the constant's plus ``extra_error``
+    # on average. Within one standard error of the paired differences
+    # (scipy.stats.sem, independent of ours) the one that ranks is the bar.
+    from scipy.stats import sem
+
+    from models.blend_lp import simple_reference
+
+    rng = np.random.default_rng(2)
+    n = 500
+    y = rng.laplace(size=n)
+    const = np.full(n, float(np.median(y)))
+    ranked = y + rng.normal(scale=1.0, size=n)
+    # Shift the ranking forecaster's errors so their mean is the constant's plus extra_error.
+    gap = np.abs(y - const).mean() + extra_error - np.abs(y - ranked).mean()
+    ranked = ranked + np.sign(ranked - y) * gap
+    assert np.abs(y - ranked).mean() == pytest.approx(np.abs(y - const).mean() + extra_error, abs=1e-2)
+    d = np.abs(y - ranked) - np.abs(y - const)
+    assert bool(np.mean(d) <= sem(d)) is (expected == "precedents_median")
+    got = simple_reference(y, {"history_median": const, "precedents_median": ranked})
+    assert got == expected

@@ -151,6 +151,33 @@ def test_learned_neighbours_round_trip(tmp_path: Path) -> None:
         LearnedNeighbours(k=0).fit(V, y, np.full(500, 2.0), np.arange(500) * DAY)
 
 
+def test_a_drafts_value_is_the_kernel_mean_of_its_nearest_bank_rows() -> None:
+    # Written out from the module's definition with plain numpy, by brute
+    # force over the whole bank: the k nearest in the projected space by
+    # squared distance, weighted exp(-(d - d_min)). Repeated drafts (an hour
+    # sweep's slots) get the value a single one gets.
+    rng = np.random.default_rng(4)
+    V, y, _ = _planted(rng, 400, d=24)
+    base0, times = np.full(400, 2.0), np.arange(400) * DAY
+    m = LearnedNeighbours(max_fit_rows=150, max_iter=8, k=7).fit(V, y, base0, times)
+    drafts = _planted(rng, 5, d=24)[0]
+    drafts = np.vstack([drafts, drafts[[1, 1, 3]]])
+    base = rng.normal(size=len(drafts))
+    Z = m.projection_.transform(drafts)
+    bank = m.bank_vectors_.astype(np.float64)
+    want = []
+    for z, b0 in zip(Z, base, strict=True):
+        d = ((bank - z) ** 2).sum(axis=1)
+        near = np.argsort(d)[:7]
+        w = np.exp(-(d[near] - d[near].min()))
+        want.append(m.anchor_ * b0 + float(w @ m.bank_residuals_[near]) / float(w.sum()))
+    got = m.predict(drafts, base)
+    np.testing.assert_allclose(got, want, rtol=0, atol=1e-5)  # float32 distances in the index
+    flat = m.predict(drafts, np.zeros(len(drafts)))  # the neighbours' part alone
+    assert flat[5] == flat[6] == flat[1] and flat[7] == flat[3]
+    np.testing.assert_array_equal(m.predict(drafts[:1], base[:1]), got[:1])
+
+
 def test_the_baseline_anchors_the_target_only_where_it_carries_the_level() -> None:
     rng = np.random.default_rng(6)
     n = 800
