@@ -12,7 +12,7 @@ import hashlib
 import logging
 import os
 import threading
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager, suppress
 from datetime import datetime
 from pathlib import Path
@@ -28,6 +28,7 @@ from models.index import DamagedIndex, VectorIndex, fingerprint
 from models.integrity import note_repair
 from service.clock import as_utc, now_utc
 from service.forecast.forecaster import Forecaster
+from service.history import index_step
 from service.history.match_modes import Match, matched
 from service.history.precedents import Precedent, precedents_for
 from service.history.retrieval import Retriever
@@ -82,8 +83,18 @@ def _held_pairs(pairs: Sequence[tuple[int, str]]) -> tuple[np.ndarray, np.ndarra
 class Workspace:
     """Everything one data directory holds, loaded once."""
 
-    def __init__(self, *, settings: Settings, embedder: Embedder | None = None) -> None:
+    def __init__(
+        self,
+        *,
+        settings: Settings,
+        embedder: Embedder | None = None,
+        saved_index: Callable[[], VectorIndex] | None = None,
+    ) -> None:
+        """``saved_index``, when given, reads the saved index in place of
+        ``VectorIndex.load`` the first time it is needed (the command line
+        reads it in a thread while it starts: service/cli/warmup.py)."""
         self.settings = settings
+        self._saved_index = saved_index
         try:
             settings.resolved_home.mkdir(parents=True, exist_ok=True)
         except OSError as exc:  # a file in the way, no permission: the user's setting
@@ -156,6 +167,10 @@ class Workspace:
             stamp = self.store.stamp()
             if self._index is not None and stamp == self._index_stamp:
                 return self._index
+            if self._index is None and (kept := self._kept_index(stamp)) is not None:
+                self._index, self._index_stamp = kept, stamp
+                self._index_own = self.store.own_writes
+                return kept
             pairs = self.store.index_pairs()
             fp = fingerprint(pairs)
             index = self._index
@@ -163,7 +178,7 @@ class Workspace:
                 self._catch_up(index, pairs, fp)
             if index is None:
                 try:
-                    index = VectorIndex.load(self.settings.index_dir)
+                    index = self._load_saved()
                 except DamagedIndex as exc:
                     log.warning("%s; rebuilding it", exc.message)
                     note_repair(f"index: {exc.message}; rebuilt from the store")
@@ -178,7 +193,45 @@ class Workspace:
                 self._held = _held_pairs(pairs)  # so later changes are caught up in place
             self._index, self._index_stamp = index, stamp
             self._index_own = self.store.own_writes
+            self._keep_step(stamp, fp)
             return index
+
+    def _keep_step(self, stamp: int, fp: str) -> None:
+        """Note beside the saved index that it is in step with the store at ``stamp``."""
+        if self._held is not None and self._index is not None and self._index.fingerprint_ == fp:
+            index_step.save(
+                self.settings.index_dir,
+                stamp=stamp,
+                store=self.store.safe_url,
+                fingerprint=fp,
+                held=self._held,
+            )
+
+    def _load_saved(self) -> VectorIndex:
+        take, self._saved_index = self._saved_index, None
+        return take() if take is not None else VectorIndex.load(self.settings.index_dir)
+
+    def _kept_index(self, stamp: int) -> VectorIndex | None:
+        """The saved index, when its step file says it is in step with the
+        store at ``stamp`` (``service.history.index_step``); None otherwise,
+        or when it does not load (the full check then rebuilds it)."""
+        cfg = VectorIndex.saved_config(self.settings.index_dir)
+        fp = cfg.get("fingerprint") if cfg else None
+        if not isinstance(fp, str):
+            return None
+        held = index_step.load(
+            self.settings.index_dir, stamp=stamp, store=self.store.safe_url, fingerprint=fp
+        )
+        if held is None:
+            return None
+        try:
+            index = self._load_saved()
+        except StoreError:  # DamagedIndex included: the full check reports and rebuilds it
+            return None
+        if index.fingerprint_ != fp:
+            return None  # replaced between the two reads
+        self._held = held
+        return index
 
     def _build(self, pairs: list[tuple[int, str]], fp: str) -> VectorIndex:
         ids = np.array([p for p, _ in pairs], dtype=np.int64)
@@ -292,9 +345,11 @@ class Workspace:
             if self._index is None:
                 self.index()
                 return
+            # The counter before the pairs: a write in between leaves it behind
+            # what the index holds, so the next look compares them again.
+            stamp = self.store.stamp()
             pairs = self.store.index_pairs()
             fp = fingerprint(pairs)
-            stamp = self.store.stamp()
             own = self.store.own_writes
             if self._held is not None:
                 # Diffs the index against the store's whole (post, vector) set,
@@ -307,6 +362,7 @@ class Workspace:
                 self._save_index(self._index)
                 self._held = _held_pairs(pairs)
             self._index_stamp, self._index_own = stamp, own
+            self._keep_step(stamp, fp)
 
     # Import -----------------------------------------------------------------
 

@@ -21,6 +21,7 @@ if TYPE_CHECKING:
     from typer._click.core import Context as ClickContext
 
     from models.embedding import Embedder
+    from service.cli.warmup import Preload
     from service.workspace import Workspace
 
 out = Console(soft_wrap=True)
@@ -124,6 +125,7 @@ def _root(
 
 _workspace: Workspace | None = None
 _embedder: Embedder | None = None
+_preload: Preload | None = None  # the saved index being read (service/cli/warmup.py)
 
 
 def workspace(*, create: bool = False) -> Workspace:
@@ -132,7 +134,7 @@ def workspace(*, create: bool = False) -> Workspace:
 
     Only commands that store something (``create``) make a data directory:
     a mistyped --home on a read gets a clear error, not a new empty one."""
-    global _workspace, _embedder
+    global _workspace, _embedder, _preload
     from service.settings import get_settings
     from service.workspace import Workspace
 
@@ -148,7 +150,9 @@ def workspace(*, create: bool = False) -> Workspace:
     if _workspace is None or _workspace.settings.resolved_home != settings.resolved_home:
         if _workspace is not None:
             _workspace.close()
-        _workspace = Workspace(settings=settings, embedder=_embedder)
+        preload, _preload = _preload, None
+        saved = preload.saved_index if preload and preload.index_dir == settings.index_dir else None
+        _workspace = Workspace(settings=settings, embedder=_embedder, saved_index=saved)
         _embedder = _workspace.embedder
     return _workspace
 
@@ -166,10 +170,16 @@ def embedder_in_use() -> bool:
     return _embedder is not None
 
 
+def use_preload(preload: Preload) -> None:
+    """Use the embedder and saved index a thread is already reading."""
+    global _embedder, _workspace, _preload
+    _embedder, _workspace, _preload = preload.embedder, None, preload
+
+
 def use_embedder(embedder: Embedder) -> None:
     """Share an already loaded embedder (the test suite's one)."""
-    global _embedder, _workspace
-    _embedder, _workspace = embedder, None
+    global _embedder, _workspace, _preload
+    _embedder, _workspace, _preload = embedder, None, None
 
 
 def print_json(data: Any) -> None:

@@ -28,7 +28,7 @@ from typer._click import Command, HelpFormatter
 from typer._click.utils import make_default_short_help
 
 from service.cli import warmup
-from service.cli.base import ErrorsAsMessages, app, embedder_in_use, use_embedder
+from service.cli.base import ErrorsAsMessages, app, embedder_in_use, use_preload
 from service.cli.metavars import name_values
 
 if TYPE_CHECKING:
@@ -197,7 +197,7 @@ class LazyGroup(ErrorsAsMessages):
             home = ctx.params.get("home")
             loading = warmup.start(None if home is None else str(home))
             if loading is not None:
-                use_embedder(loading)
+                use_preload(loading)
         return super().invoke(ctx)
 
     def format_commands(self, ctx: ClickContext, formatter: HelpFormatter) -> None:

@@ -11,7 +11,6 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
-import threading
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -183,18 +182,20 @@ def test_the_answer_is_the_same_with_and_without_the_early_load(demo_home: Path)
     assert early == late
 
 
-def test_the_early_load_reads_the_saved_export_without_embedding(
+def test_the_early_load_reads_the_export_and_the_index_without_embedding(
     demo_home: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
+    from models.index import VectorIndex
+
     code, _, text = loaded(*DRAFT, *FIXED, home=demo_home)  # the export exists after one run
     assert code == 0, text
     monkeypatch.setenv("SOUNDING_HOME", str(demo_home))
-    embedder = warmup.start()
-    assert embedder is not None
-    for t in threading.enumerate():
-        if t.name == "sounding-embedder":
-            t.join()
-    assert embedder.backend_ == "onnx" and embedder.calls == 0
+    preload = warmup.start()
+    assert preload is not None
+    index = preload.saved_index()  # waits for the thread
+    assert preload.embedder.backend_ == "onnx" and preload.embedder.calls == 0
+    on_disk = VectorIndex.load(demo_home / "index")
+    assert index.fingerprint_ == on_disk.fingerprint_ and index.ntotal == on_disk.ntotal == 3000
     monkeypatch.setenv("SOUNDING_EMBED_PRELOAD", "0")
     assert warmup.start() is None
     monkeypatch.setenv("SOUNDING_EMBED_PRELOAD", "1")
