@@ -466,11 +466,12 @@ def small_disk(tmp_path: Path) -> Iterator[Path]:
 def fill(directory: Path, leave: int = 0) -> Path:
     """Fill the file system, then free ``leave`` bytes."""
     filler = directory / "filler"
-    with filler.open("wb") as f:
+    # Unbuffered: a buffered file would still hold the last partial chunk,
+    # and closing it would raise the "no space" this loop is meant to reach.
+    with filler.open("wb", buffering=0) as f:
         try:
             while True:
                 f.write(b"\0" * 65536)
-                f.flush()
         except OSError:
             pass
     if leave:
