@@ -117,7 +117,9 @@ def ray_head() -> Iterator[str]:
         if proc.poll() is None:
             os.killpg(proc.pid, signal.SIGTERM)  # `ray start --block` stops what it started
             try:
-                proc.wait(timeout=60)
+                # Ray's own orderly stop waits about 30 s for its processes; the whole
+                # group (its own session) is ended after a few seconds instead.
+                proc.wait(timeout=5)
             except subprocess.TimeoutExpired:
                 os.killpg(proc.pid, signal.SIGKILL)
                 proc.wait(timeout=30)
