@@ -247,10 +247,13 @@ def _kernel_mean(D: np.ndarray, idx: np.ndarray, residuals: np.ndarray, k: int |
         return out
     top = np.argpartition(D, kq - 1, axis=1)[:, :kq]
     d = np.take_along_axis(D, top, axis=1)
-    r = residuals[np.take_along_axis(idx, top, axis=1).clip(0)]
-    fine = np.isfinite(d) & (np.take_along_axis(idx, top, axis=1) >= 0)
+    near = np.take_along_axis(idx, top, axis=1)
+    r = residuals[near.clip(0)]
+    fine = np.isfinite(d) & (near >= 0)
+    # Distances from each row's nearest (0 where none may be seen): no inf - inf.
     d0 = np.where(fine, d, np.inf).min(axis=1, keepdims=True)
-    w = np.where(fine, np.exp(-(np.where(fine, d, 0.0) - np.where(np.isfinite(d0), d0, 0.0))), 0.0)
+    shift = np.where(np.isfinite(d0), d0, 0.0)
+    w = np.where(fine, np.exp(-(np.where(fine, d, shift) - shift)), 0.0)
     s = w.sum(axis=1)
     have = s > 0
     out[have] = (w[have] * r[have]).sum(axis=1) / s[have]

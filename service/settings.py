@@ -68,8 +68,8 @@ class Settings(BaseSettings):
     )
     embed_preload: bool = Field(
         default=True,
-        description="check, hours, compare and precedents load the embedding model in a thread "
-        "while they start, instead of at their first embedding.",
+        description="check, hours, compare and precedents read the embedding model and the saved "
+        "index in a thread while they start, instead of at their first embedding and search.",
     )
 
     # Import

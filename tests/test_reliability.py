@@ -507,6 +507,7 @@ def test_a_full_disk_is_an_ordinary_error(
         top = fresh.precedents(str(text), k=1)[0]
         assert top.text == text and top.similarity > 0.999  # cosine 1 with itself
         assert index_matches_store(fresh)
+        assert not list((home / "index").glob("*.tmp*"))  # no partial index or step file left
         # Training on the full disk: a clean error and no temporary folder.
         with pytest.raises(StoreError, match="could not be saved"):
             forecasting.train(fresh, "impressions", backtest=False)

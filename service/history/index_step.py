@@ -19,9 +19,12 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+from contextlib import suppress
 from pathlib import Path
 
 import numpy as np
+
+from models.configfile import write_config
 
 STEP_FILE = "step.json"
 HELD_FILE = "held.npy"
@@ -47,16 +50,14 @@ def save(
         "fingerprint": fingerprint,
         "held": _digest(both),
     }
-    pid = os.getpid()
+    tmp = directory / f"{HELD_FILE}.{os.getpid()}.tmp.npy"
     try:
-        tmp = directory / f"{HELD_FILE}.{pid}.tmp.npy"
         np.save(tmp, both)
         tmp.replace(directory / HELD_FILE)
-        tmp = directory / f"{STEP_FILE}.{pid}.tmp"
-        tmp.write_text(json.dumps(step), encoding="utf-8")
-        tmp.replace(directory / STEP_FILE)
+        write_config(directory, step, STEP_FILE, indent=None)  # last, through a rename
     except OSError:
-        return
+        with suppress(OSError):  # a read-only directory refuses even this
+            tmp.unlink(missing_ok=True)  # a full disk leaves no partial file behind
 
 
 def load(
