@@ -21,7 +21,6 @@ skipped with a warning and the newest intact one is served instead.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import logging
 import os
@@ -35,7 +34,7 @@ import numpy as np
 
 from models.errors import NotFound, NotReady, StoreError
 from models.features import FEATURE_NAMES, FeatureParams
-from models.integrity import boosters_parse, checksums, mismatch
+from models.integrity import SEEN_NAME, SeenHashes, boosters_parse, checksums, mismatch, sha256_file
 from models.learned_neighbours import LearnedNeighbours
 from models.regressor import QuantileForecaster
 from models.stack_columns import EXTRA_NAMES, ExtraModels, draft_columns
@@ -157,16 +156,8 @@ def _checksums(directory: Path) -> dict[str, dict[str, Any]]:
     out: dict[str, dict[str, Any]] = {}
     for p in sorted(directory.rglob("*")):
         if p.is_file() and p.relative_to(directory).as_posix() != CONFIG:
-            out[p.relative_to(directory).as_posix()] = {"bytes": p.stat().st_size, "sha256": _sha256(p)}
+            out[p.relative_to(directory).as_posix()] = {"bytes": p.stat().st_size, "sha256": sha256_file(p)}
     return out
-
-
-def _sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with path.open("rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
 
 
 # Verified versions, keyed by their files' (name, size, mtime): a version is
@@ -187,7 +178,7 @@ def _signature(d: Path) -> tuple[Any, ...]:
                 name = f"{rel}{e.name}"
                 if e.is_dir(follow_symlinks=False):
                     stack.append((f"{name}/", e.path))
-                elif e.is_file():
+                elif e.is_file() and e.name != SEEN_NAME:  # not part of the version
                     st = e.stat()
                     sig.append((name, st.st_size, st.st_mtime_ns))
     return tuple(sorted(sig))
@@ -230,6 +221,7 @@ def _check(d: Path) -> dict[str, Any] | str:
     files = cfg.get("files")
     if not isinstance(files, dict) or not files:
         return f"its {CONFIG} lists no file checksums"
+    seen = SeenHashes(d)
     for name, want in sorted(files.items()):
         p = d / name
         try:
@@ -237,10 +229,11 @@ def _check(d: Path) -> dict[str, Any] | str:
             if not isinstance(want, dict) or size != want.get("bytes"):
                 said = want.get("bytes") if isinstance(want, dict) else "?"
                 return f"{name} has {size} bytes, the config says {said}"
-            if _sha256(p) != want.get("sha256"):
+            if not seen.matches(name, want.get("sha256")):
                 return f"{name} does not match its checksum"
         except OSError:
             return f"{name} is missing"
+    seen.save()
     for key in ("metric", "version", "features"):
         if key not in cfg:
             return f"its {CONFIG} has no {key!r}"

@@ -7,6 +7,7 @@ never taken for a whole artefact, and a reader never sees a torn config.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 from pathlib import Path
@@ -25,6 +26,12 @@ def write_config(
     """Write ``config`` as ``directory/name`` through a temporary file and a rename."""
     path = Path(directory) / name
     tmp = path.with_name(path.name + ".tmp")
-    tmp.write_text(json.dumps(config, indent=indent, default=str), encoding="utf-8")
-    os.replace(tmp, path)
+    try:
+        tmp.write_text(json.dumps(config, indent=indent, default=str), encoding="utf-8")
+        os.replace(tmp, path)
+    except BaseException:
+        # A full disk leaves no half-written temporary file behind.
+        with contextlib.suppress(OSError):
+            tmp.unlink(missing_ok=True)
+        raise
     return path

@@ -9,12 +9,14 @@ source tree.
 
 from __future__ import annotations
 
+import contextlib
+import json
+import os
 from functools import cached_property
 from pathlib import Path
-from typing import TYPE_CHECKING, Literal
+from typing import TYPE_CHECKING, Any, Literal, get_origin
 
-from pydantic import Field, SecretStr
-from pydantic_settings import BaseSettings, SettingsConfigDict
+from pydantic import BaseModel, ConfigDict, Field, SecretStr, model_validator
 
 if TYPE_CHECKING:
     from models.embedding import Embedder
@@ -23,8 +25,45 @@ if TYPE_CHECKING:
 DEFAULT_MAX_TEXT_CHARS = 10_000
 
 
-class Settings(BaseSettings):
-    model_config = SettingsConfigDict(env_prefix="SOUNDING_", extra="ignore")
+#: Every setting ``name`` is read from ``SOUNDING_NAME`` (any case).
+ENV_PREFIX = "SOUNDING_"
+
+
+def _environment(fields: dict[str, Any]) -> dict[str, Any]:
+    """The ``SOUNDING_*`` variables that name a setting, keyed by the setting.
+
+    A list setting is written as JSON (``["a.example", "b.example"]``); a value
+    that is not JSON is passed on as it is, so validation names the variable.
+    """
+    found: dict[str, Any] = {}
+    for key, raw in os.environ.items():
+        if not key.upper().startswith(ENV_PREFIX):
+            continue
+        name = key[len(ENV_PREFIX) :].lower()
+        field = fields.get(name)
+        if field is None:
+            continue
+        value: Any = raw
+        if get_origin(field.annotation) is list:
+            with contextlib.suppress(ValueError):
+                value = json.loads(raw)
+        found[name] = value
+    return found
+
+
+class Settings(BaseModel):
+    # A plain model reading the environment itself: pydantic-settings costs a
+    # tenth of a second of imports (asyncio, dataclasses, cloud sources) in
+    # every command, for six lines of work.
+    model_config = ConfigDict(extra="ignore")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _read_environment(cls, data: Any) -> Any:
+        """Values given in code win over the environment, which wins over defaults."""
+        if not isinstance(data, dict):
+            return data
+        return {**_environment(cls.model_fields), **data}
 
     home: Path = Field(default=Path(".sounding"), description="Data directory.")
     database_url: str | None = Field(

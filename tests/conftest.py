@@ -6,6 +6,7 @@ from __future__ import annotations
 import csv
 import io
 import os
+import shutil
 from collections.abc import Iterator, Sequence
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -128,22 +129,41 @@ def workspace(make_workspace) -> Workspace:
     return make_workspace()
 
 
-@pytest.fixture(scope="session")
-def demo_home(tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> Path:
-    """A data directory holding the imported demo history and a trained
-    impressions model (built once per session).
-
-    Tests that change data must copy it (``demo_copy``) rather than write here.
-    """
+def _build_demo(home: Path, embedder: Embedder) -> None:
     from service.cli.history import _demo_accounts
 
-    home = tmp_path_factory.mktemp("demo") / "home"
     ws = Workspace(settings=Settings(home=home), embedder=embedder)
     for handle, name, tz in _demo_accounts():
         ws.store.set_account(handle, display_name=name, timezone=tz)
     ws.import_csv(DEMO_CSV)
     train(ws, "impressions", now=NOW)  # one model for every test that forecasts
     ws.close()
+
+
+@pytest.fixture(scope="session")
+def demo_home(tmp_path_factory: pytest.TempPathFactory, embedder: Embedder) -> Path:
+    """A data directory holding the imported demo history and a trained
+    impressions model (built once per run).
+
+    Tests that change data must copy it (``demo_copy``) rather than write here.
+    """
+
+    from filelock import FileLock
+
+    home = tmp_path_factory.mktemp("demo") / "home"
+    if os.environ.get("PYTEST_XDIST_WORKER") is None:
+        _build_demo(home, embedder)
+        return home
+    # Under xdist, one worker builds it while the others wait, rather than
+    # each building it again on the same cores (a minute and a half each);
+    # then every worker takes a private copy, as it had its own before.
+    shared = tmp_path_factory.getbasetemp().parent / "demo-built"
+    with FileLock(f"{shared}.lock"):
+        if not (shared / "complete").is_file():
+            shutil.rmtree(shared, ignore_errors=True)
+            _build_demo(shared / "home", embedder)
+            (shared / "complete").touch()
+    shutil.copytree(shared / "home", home)
     return home
 
 
@@ -217,8 +237,6 @@ def demo_copy(
     backend: str, backend_demo_home: Path, tmp_path: Path, embedder: Embedder
 ) -> Iterator[Workspace]:
     """A private, writable copy of the demo data directory, on this module's backend."""
-    import shutil
-
     home = tmp_path / "demo-copy"
     if backend == "sqlite":
         shutil.copytree(backend_demo_home, home)

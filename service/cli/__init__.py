@@ -15,13 +15,21 @@ from service.cli.base import app
 # their commands in --help is lazy.COMMAND_MODULES.
 from service.cli.lazy import COMMAND_MODULES, LazyGroup
 from service.cli.metavars import name_values
+from service.cli.process_end import end_process
 
 app.info.cls = LazyGroup
 name_values(app)  # --home DIR, not --home <path>; each command gets its words when built
 
 
 def main() -> None:
-    app()
+    """The ``sounding`` script: run one command, then end the process at once."""
+    try:
+        app()
+    except SystemExit as exc:
+        if exc.code is not None and not isinstance(exc.code, int):
+            raise  # a message as the exit code: Python prints it and exits 1
+        end_process(exc.code or 0)
+    end_process(0)
 
 
 __all__ = ["COMMAND_MODULES", "app", "main"]

@@ -27,21 +27,17 @@ ROOT = Path(__file__).resolve().parents[2]
 HEAVY = ("pandas", "lightgbm", "sklearn", "scipy", "matplotlib", "fastapi", "torch", "onnxruntime", "uvicorn")
 #: The list of commands reads no data directory either: none of the store's, index's or
 #: settings' libraries (a command's own --help may load its module's imports).
-HELP_HEAVY = (*HEAVY, "sqlalchemy", "faiss", "pydantic_settings", "numpy")
+HELP_HEAVY = (*HEAVY, "sqlalchemy", "faiss", "pydantic", "numpy")
 
-# Runs the command line as the `sounding` script does, then prints the loaded modules.
+# Runs the command line as the `sounding` script does, then prints the loaded
+# modules as the process ends (main() ends it through service.cli.process_end,
+# which runs atexit handlers first).
 PROBE = r"""
-import sys
+import atexit, sys
 sys.argv = ["sounding", *sys.argv[1:]]
+atexit.register(lambda: print("\n@@modules", " ".join(sorted(sys.modules)), flush=True))
 from service.cli import main
-try:
-    main()
-except SystemExit as exc:
-    code = exc.code
-else:
-    code = 0
-sys.stdout.flush()
-print("\n@@modules", code, " ".join(sorted(sys.modules)))
+main()
 """
 
 
@@ -65,8 +61,7 @@ def loaded(*args: str, home: Path | None = None) -> tuple[int, set[str], str]:
     )
     head, _, tail = r.stdout.rpartition("\n@@modules ")
     assert tail, f"the probe printed no module list: {r.stderr[-2000:]}"
-    code, *mods = tail.split()
-    return int(code or 0), set(mods), head
+    return r.returncode, set(tail.split()), head
 
 
 def heavy(mods: set[str], libraries: tuple[str, ...] = HEAVY) -> list[str]:
@@ -83,6 +78,7 @@ def test_root_help_imports_no_command_module() -> None:
         "service.cli.lazy",
         "service.cli.metavars",
         "service.cli.warmup",  # os and threading only: it loads nothing until a command asks
+        "service.cli.process_end",  # os, atexit and threading: how the process ends
     }
     for name in catalogue():
         assert f"  {name} " in text
