@@ -103,7 +103,7 @@ class Forecaster:
         self._encode = encode
         self._models: dict[str, TrainedModel] = {}
         self._views: dict[str, tuple[int, HistoryView]] = {}
-        self._peers: tuple[int, HistoryView | None] | None = None
+        self._peers: dict[str, tuple[int, HistoryView | None]] = {}
         self._shared: dict[str, tuple[HistoryView, SharedTerms]] = {}
         #: Keep each view between processes (service.history.viewcache): a cold command
         #: maps it instead of building it. A service keeps its views in memory with
@@ -160,7 +160,7 @@ class Forecaster:
         in one query, so a team without peers never builds their view)."""
         stamp = self.store.stamp()
         with self._lock:
-            hit = self._peers
+            hit = self._peers.get(metric)
             if hit is not None and hit[0] == stamp:
                 return hit[1]
         v = (
@@ -169,7 +169,7 @@ class Forecaster:
             else None
         )
         with self._lock:
-            self._peers = (stamp, v)
+            self._peers[metric] = (stamp, v)
         return v
 
     def shared_terms(self, view: HistoryView, kind: str) -> SharedTerms:

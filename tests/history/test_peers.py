@@ -164,6 +164,15 @@ def test_a_near_repeat_of_a_peer_post_names_the_peer(peers: Peers) -> None:
     assert theirs[0].message in f.warnings
 
 
+def test_the_peers_view_is_kept_per_metric(peers: Peers) -> None:
+    fc = peers.ws.forecaster
+    first = fc.peers("impressions")
+    other = fc.peers("engagements")
+    assert first is not None and other is not None
+    assert (first.metric, other.metric) == ("impressions", "engagements")
+    assert fc.peers("impressions") is first  # kept while the store is unchanged
+
+
 def test_a_reference_account_is_not_forecast(peers: Peers) -> None:
     with pytest.raises(InputError, match="reference account"):
         peers.ws.forecaster.forecast([Draft(text="Snowdrops", account=PEER)], now=NOW)
