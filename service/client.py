@@ -167,9 +167,11 @@ class SoundingClient:
         metric: str = DEFAULT_METRIC,
         coverage: float = DEFAULT_COVERAGE,
         top: int = 3,
+        match: str = "meaning",
     ) -> HoursReport:
         """Forecast ``text`` at every hour of a local day (default tomorrow)
-        or of seven days; says when the hours cannot be told apart."""
+        or of seven days; says when the hours cannot be told apart (near-repeats,
+        found by ``match``, are in ``warnings``)."""
         body = {
             "text": text,
             "account": account,
@@ -178,6 +180,7 @@ class SoundingClient:
             "metric": metric,
             "coverage": coverage,
             "top": top,
+            "match": match,
         }
         return self._call("POST", "/v1/hours", _drop_none(body), HoursReport)
 
@@ -189,14 +192,17 @@ class SoundingClient:
         planned_at: datetime | str | None = None,
         metric: str = DEFAULT_METRIC,
         coverage: float = DEFAULT_COVERAGE,
+        match: str = "meaning",
     ) -> VariantsReport:
-        """Forecast several phrasings of one draft side by side, best first."""
+        """Forecast several phrasings of one draft side by side, best first
+        (each version's near-repeats, found by ``match``, in its warnings)."""
         body = {
             "texts": list(texts),
             "account": account,
             "planned_at": _when(planned_at),
             "metric": metric,
             "coverage": coverage,
+            "match": match,
         }
         return self._call("POST", "/v1/comparisons", _drop_none(body), VariantsReport)
 
@@ -209,8 +215,10 @@ class SoundingClient:
         has_media: bool = False,
         metric: str = DEFAULT_METRIC,
         coverage: float = DEFAULT_COVERAGE,
+        match: str = "meaning",
     ) -> AccountChoice:
-        """Which account should post it: the draft forecast for each, best first (never recorded)."""
+        """Which account should post it: the draft forecast for each, best first
+        (never recorded; near-repeats, found by ``match``, in each one's warnings)."""
         body = {
             "text": text,
             "accounts": list(accounts),
@@ -218,6 +226,7 @@ class SoundingClient:
             "has_media": has_media,
             "metric": metric,
             "coverage": coverage,
+            "match": match,
         }
         return self._call("POST", "/v1/account-choices", _drop_none(body), AccountChoice)
 

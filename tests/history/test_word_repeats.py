@@ -177,6 +177,17 @@ def test_the_api_cli_and_plan_take_match(
         assert post_id in [r.post_id for r in got.repeats]
         plain = sc.forecast_plan([{"text": draft, "account": account, "planned_at": planned}])
         assert post_id not in [r.post_id for r in plain[0].repeats]
+        day = (planned + timedelta(days=1)).date()
+        for match, warned in (("meaning", False), ("words", True)):
+            hours = sc.best_hours(draft, account=account, day=day, match=match)
+            assert any(post_id in w for w in hours.warnings) is warned, match
+            versions = sc.compare(
+                [draft, "Something else entirely"], account=account, planned_at=planned, match=match
+            )
+            first = next(v for v in versions.variants if v.text == draft)
+            assert any(post_id in w for w in first.warnings) is warned, match
+            chosen = sc.choose_account(draft, accounts=[account], planned_at=planned, match=match)
+            assert any(post_id in w for a in chosen.accounts for w in a.warnings) is warned, match
 
     from service.cli import app
     from service.cli.base import use_embedder
