@@ -21,14 +21,16 @@ from collections.abc import Mapping, Sequence
 from datetime import date, datetime
 from types import TracebackType
 from typing import Any, TypeVar
+from urllib.parse import quote
 
 import httpx
-from pydantic import BaseModel, ValidationError
+from pydantic import BaseModel, TypeAdapter, ValidationError
 
 from models.errors import ServiceUnavailable, SoundingError, error_class
 from models.metrics import DEFAULT_COVERAGE, DEFAULT_METRIC
 from service.api.schemas import (
     AccountChoice,
+    AccountInfo,
     DraftIn,
     Forecast,
     Forecasts,
@@ -39,6 +41,7 @@ from service.api.schemas import (
 )
 
 M = TypeVar("M", bound=BaseModel)
+_ACCOUNTS = TypeAdapter(list[AccountInfo])
 DraftLike = Mapping[str, Any] | DraftIn
 
 
@@ -230,6 +233,38 @@ class SoundingClient:
         }
         return self._call("POST", "/v1/account-choices", _drop_none(body), AccountChoice)
 
+    def accounts(self) -> list[AccountInfo]:
+        """The store's accounts, each with its zone, posts and whether it is a peer's."""
+        data = self._json("GET", "/v1/accounts", None)
+        try:
+            return _ACCOUNTS.validate_python(data)
+        except ValidationError as exc:
+            raise ServiceUnavailable(
+                f"{self.base_url}/v1/accounts answered in an unexpected shape: {exc.errors()[0].get('msg')}"
+            ) from None
+
+    def change_account(
+        self,
+        handle: str,
+        *,
+        display_name: str | None = None,
+        timezone: str | None = None,
+        reference: bool | None = None,
+        followers: int | None = None,
+        since: datetime | str | None = None,
+    ) -> AccountInfo:
+        """Create an account, or change what is given of it (name, IANA zone,
+        peer or team, a follower count as of ``since``); needs the token."""
+        body = {
+            "display_name": display_name,
+            "timezone": timezone,
+            "reference": reference,
+            "followers": followers,
+            "since": _when(since),
+        }
+        path = f"/v1/accounts/{quote(handle, safe='/')}"
+        return self._call("PUT", path, _drop_none(body), AccountInfo)
+
     def team(self, *, metric: str = DEFAULT_METRIC) -> TeamOverview:
         """The team overview: each account's posts, share, median, trend, best hours, topics."""
         return self._call("GET", f"/v1/team?{httpx.QueryParams(metric=metric)}", None, TeamOverview)
@@ -237,6 +272,16 @@ class SoundingClient:
     # Plumbing ---------------------------------------------------------------
 
     def _call(self, method: str, path: str, body: dict[str, Any] | None, model: type[M]) -> M:
+        data = self._json(method, path, body)
+        try:
+            return model.model_validate(data)
+        except ValidationError as exc:
+            raise ServiceUnavailable(
+                f"{self.base_url}{path} answered in an unexpected shape: {exc.errors()[0].get('msg')}"
+            ) from None
+
+    def _json(self, method: str, path: str, body: dict[str, Any] | None) -> Any:
+        """The answer's JSON, or the library exception its error names."""
         try:
             resp = self._http.request(method, path, json=body)
         except httpx.TimeoutException as exc:
@@ -260,12 +305,7 @@ class SoundingClient:
                 f"{self.base_url}{path} did not answer with JSON "
                 f"(HTTP {resp.status_code}); is it a sounding service?"
             )
-        try:
-            return model.model_validate(data)
-        except ValidationError as exc:
-            raise ServiceUnavailable(
-                f"{self.base_url}{path} answered in an unexpected shape: {exc.errors()[0].get('msg')}"
-            ) from None
+        return data
 
 
 def _drop_none(d: dict[str, Any]) -> dict[str, Any]:

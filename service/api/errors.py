@@ -17,8 +17,24 @@ from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from models.errors import AuthError, SoundingError
+from service.storage.handles import HANDLE_PATTERN, HANDLE_RULE
 
 log = logging.getLogger("sounding.api")
+
+#: The rules behind the API's patterns, in words: a regular expression is
+#: no answer to someone who mistyped a handle.
+PATTERN_WORDS = {
+    HANDLE_PATTERN: f"a handle is {HANDLE_RULE}",
+    r"\S": "it must not be blank",
+}
+
+
+def _message(error: dict[str, Any]) -> str:
+    pattern = (error.get("ctx") or {}).get("pattern")
+    words = PATTERN_WORDS.get(pattern) if error.get("type") == "string_pattern_mismatch" else None
+    if words is None:
+        return str(error.get("msg", "invalid"))
+    return f"{words} (got {error.get('input')!r})"
 
 
 def status_for(exc: SoundingError) -> int:
@@ -55,7 +71,7 @@ def install(app: FastAPI) -> None:
         problems = []
         for e in exc.errors():
             loc = ".".join(str(p) for p in e.get("loc", ()) if p != "body")
-            problems.append({"where": loc, "message": e.get("msg", "invalid")})
+            problems.append({"where": loc, "message": _message(dict(e))})
         first = problems[0] if problems else {"where": None, "message": "invalid request"}
         body = {
             "code": "invalid_request",

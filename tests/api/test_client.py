@@ -152,3 +152,36 @@ def test_hold_back_example_holds_the_planted_repeat(base_url: str, capsys) -> No
     code = hold_back.main([str(plan), "--base-url", base_url, "--threshold", "1e12"])
     out = capsys.readouterr().out
     assert f"0 to post, {len(ids)} held back" in out
+
+
+def test_accounts_are_listed_and_changed(make_workspace) -> None:
+    from conftest import TOKEN
+
+    ws = make_workspace("accounts", token=TOKEN)
+    with serve(create_app(workspace=ws)) as url:
+        with SoundingClient(base_url=url, token=TOKEN, timeout=60.0) as c:
+            made = c.change_account("river_walks", display_name="River walks", timezone="Europe/Paris")
+            assert (made.handle, made.timezone, made.reference) == ("river_walks", "Europe/Paris", False)
+            c.change_account("river_walks", reference=True)  # fields left out stay as they were
+            listed = {a.handle: a for a in c.accounts()}
+            assert listed["river_walks"].display_name == "River walks"
+            assert listed["river_walks"].reference is True
+            with pytest.raises(InputError, match="Europe/Pariss"):
+                c.change_account("river_walks", timezone="Europe/Pariss")  # not an IANA zone name
+        with SoundingClient(base_url=url, timeout=60.0) as anonymous:
+            with pytest.raises(AuthError):
+                anonymous.change_account("someone", timezone="UTC")
+            assert [a.handle for a in anonymous.accounts()] == ["river_walks"]  # reading needs no token
+
+
+def test_a_mistyped_handle_is_refused_in_words(make_workspace) -> None:
+    from conftest import AUTH, TOKEN
+
+    ws = make_workspace("handles", token=TOKEN)
+    r = TestClient(create_app(workspace=ws)).put(
+        "/v1/accounts/river walks", json={"timezone": "UTC"}, headers=AUTH
+    )
+    assert r.status_code == 422
+    message = r.json()["error"]["message"]
+    assert message.startswith("path.handle: a handle is letters, digits")
+    assert "'river walks'" in message and "^[" not in message  # the rule, not the expression
