@@ -254,6 +254,7 @@
       account: $("account").value,
       metric: $("metric").value,
       has_media: $("media").checked,
+      match: $("match").value,
       record: false,  // trying things out is never recorded
     };
     if (planned) body.planned_at = S.plannedValue(planned);
@@ -276,7 +277,7 @@
       try {
         const h = await api("/v1/hours", {
           text: body.text, account: body.account, metric: body.metric,
-          has_media: body.has_media, day: f.local_time.slice(0, 10),
+          has_media: body.has_media, day: f.local_time.slice(0, 10), match: body.match,
         });
         drawHours(h, f.planned_at);
       } catch (e) {

@@ -14,6 +14,7 @@
   async function check(body) {
     const ask = {
       text: body.text, accounts: ["all"], metric: body.metric, has_media: body.has_media,
+      match: body.match,
     };
     if (body.planned_at) ask.planned_at = body.planned_at;
     const c = await S.api("/v1/account-choices", ask);

@@ -125,6 +125,10 @@ def test_a_draft_after_its_window_is_not_warned(reworded) -> None:  # type: igno
 
 @pytest.fixture(scope="module")
 def shuffled(demo_workspace):  # type: ignore[no-untyped-def]
+    return shuffled_repeat(demo_workspace)
+
+
+def shuffled_repeat(demo_workspace):  # type: ignore[no-untyped-def]
     """A demo post and a draft of its words backwards, which the vectors score
     below the cosine threshold: (account, post id, draft, planned time)."""
     frame = demo_workspace.store.posts_frame().sort_values("posted_at").iloc[1000:1040]

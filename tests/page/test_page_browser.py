@@ -137,6 +137,40 @@ def test_review_page(demo_workspace, artifacts: Path) -> None:
             browser.close()
 
 
+def test_the_page_warns_of_a_repeat_in_the_words_asked_for(demo_workspace) -> None:
+    """A demo post's words in reverse order: its meaning scores below the
+    near-repeat threshold, its words do not; the page's choice decides."""
+    from zoneinfo import ZoneInfo
+
+    from history.test_word_repeats import shuffled_repeat
+    from playwright.sync_api import expect, sync_playwright
+
+    account, post_id, draft, planned = shuffled_repeat(demo_workspace)
+    zone = {a.handle: a.timezone for a in demo_workspace.store.accounts()}[account]
+    local = planned.astimezone(ZoneInfo(zone)).strftime("%Y-%m-%dT%H:%M")  # the account's wall clock
+    with serve(create_app(workspace=demo_workspace)) as base, sync_playwright() as p:
+        browser = p.chromium.launch(executable_path=str(CHROMIUM), args=CHROMIUM_ARGS, headless=True)
+        try:
+            page = browser.new_page(viewport={"width": 1280, "height": 900})
+            page.goto(base + "/")
+            expect(page.locator("#account option")).not_to_have_count(0)
+            page.locator("#text").fill(draft)
+            page.select_option("#account", account)
+            page.locator("#planned").fill(local)
+            shown = {}
+            for match in ("meaning", "words", "both"):
+                page.select_option("#match", match)
+                page.locator("#submit").click()
+                expect(page.locator("#output")).to_be_visible(timeout=60_000)
+                expect(page.locator("#submit")).to_have_text("Check draft", timeout=60_000)
+                shown[match] = page.locator("#warn-list li").all_text_contents()
+            assert not any(post_id in w for w in shown["meaning"])
+            assert any(post_id in w for w in shown["words"])
+            assert any(post_id in w for w in shown["both"])
+        finally:
+            browser.close()
+
+
 WORDINGS = [DRAFT, "Dahlia peak week in the Walled Garden: the colours glow in the low sun"]
 
 
