@@ -187,15 +187,18 @@ window.Sounding = (() => {
     select(wanted || tabs[0], false);
   }
 
-  // Every panel's metric list is a copy of the check form's one, so the list is written once.
-  function copyMetricChoices() {
-    const source = $("metric");
-    for (const sel of document.querySelectorAll(".metric-choice")) {
-      sel.replaceChildren(...Array.from(source.options).map((o) => o.cloneNode(true)));
+  // Every panel's metric list, and its list of ways to find near-repeats, is
+  // a copy of the check form's one, so each list is written once.
+  function copyChoices() {
+    for (const [id, cls] of [["metric", ".metric-choice"], ["match", ".match-choice"]]) {
+      const source = $(id);
+      for (const sel of document.querySelectorAll(cls)) {
+        sel.replaceChildren(...Array.from(source.options).map((o) => o.cloneNode(true)));
+      }
     }
   }
 
-  document.addEventListener("DOMContentLoaded", () => { copyMetricChoices(); setupTabs(); });
+  document.addEventListener("DOMContentLoaded", () => { copyChoices(); setupTabs(); });
 
   return {
     $, fmt, metricLabel, node, svg, ApiError, api, apiBlob, showError, clearError, niceTicks,

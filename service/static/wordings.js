@@ -71,7 +71,7 @@
     try {
       render(await S.api("/v1/comparisons", {
         texts, account: $("w-account").value, metric: $("w-metric").value,
-        planned_at: S.plannedValue($("w-planned").value),
+        planned_at: S.plannedValue($("w-planned").value), match: $("w-match").value,
       }));
     } catch (e) {
       $("w-output").hidden = true;

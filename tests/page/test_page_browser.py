@@ -167,6 +167,20 @@ def test_the_page_warns_of_a_repeat_in_the_words_asked_for(demo_workspace) -> No
             assert not any(post_id in w for w in shown["meaning"])
             assert any(post_id in w for w in shown["words"])
             assert any(post_id in w for w in shown["both"])
+            # The versions panel asks the same, with the check form's choices.
+            page.locator("#tab-wordings").click()
+            expect(page.locator("#w-match option")).to_have_count(3)
+            page.locator("#w-text-1").fill(draft)
+            page.locator("#w-text-2").fill("Something else entirely")
+            page.select_option("#w-account", account)
+            page.locator("#w-planned").fill(local)
+            for match, warned in (("meaning", False), ("words", True)):
+                page.select_option("#w-match", match)
+                page.locator("#w-submit").click()
+                expect(page.locator("#w-output")).to_be_visible(timeout=60_000)
+                expect(page.locator("#w-submit")).to_have_text("Compare", timeout=60_000)
+                said = page.locator(".w-warn").all_text_contents()
+                assert any(post_id in w for w in said) is warned, match
         finally:
             browser.close()
 
