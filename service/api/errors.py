@@ -30,7 +30,7 @@ PATTERN_WORDS = {
 
 
 def _message(error: dict[str, Any]) -> str:
-    pattern = (error.get("ctx") or {}).get("pattern")
+    pattern = str((error.get("ctx") or {}).get("pattern"))
     words = PATTERN_WORDS.get(pattern) if error.get("type") == "string_pattern_mismatch" else None
     if words is None:
         return str(error.get("msg", "invalid"))
